@@ -1,0 +1,354 @@
+"""The one representation: an additive model whose terms are tables.
+
+    score(x) = intercept + sum_j f_j(x_j)
+
+Each f_j is a table: a curve (piecewise-linear over knots), steps
+(piecewise-constant over bin edges) or levels (one value per category). What an
+auditor reads in these tables is exactly what scores a row. Numeric values
+beyond the training range are scored at the table's ends (clamped).
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any, ClassVar
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+
+from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.schema import Schema, prepare
+
+LINKS = ("logit", "identity")
+PERCENTILE_POINTS = 101
+
+
+def _floats(values: Sequence[float] | np.ndarray) -> tuple[float, ...]:
+    return tuple(float(v) for v in values)
+
+
+def _band(term: Any, values: np.ndarray) -> None:
+    for name in ("lower", "upper"):
+        band = getattr(term, name)
+        if band is not None and len(band) != len(values):
+            raise ModelFileError(f"term '{term.feature}': {name} band has {len(band)} entries "
+                                 f"for {len(values)} values")
+
+
+@dataclass(frozen=True)
+class CurveTerm:
+    """Piecewise-linear in the feature: straight lines between (knot, value) pairs."""
+
+    feature: str
+    knots: tuple[float, ...]
+    values: tuple[float, ...]
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    kind: ClassVar[str] = "curve"
+
+    def __post_init__(self) -> None:
+        knots = np.asarray(self.knots, dtype=float)
+        if len(knots) == 0 or len(knots) != len(self.values):
+            raise ModelFileError(f"curve '{self.feature}': needs as many values as knots (≥1)")
+        if np.any(np.diff(knots) <= 0):
+            raise ModelFileError(f"curve '{self.feature}': knots must be strictly increasing")
+        _band(self, knots)
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        return np.interp(np.asarray(column, dtype=float), self.knots, self.values)
+
+    def shifted(self, delta: float) -> CurveTerm:
+        return replace(self, **_shift_all(self, delta))
+
+
+@dataclass(frozen=True)
+class StepTerm:
+    """Piecewise-constant: value i applies to edges[i-1] < x <= edges[i].
+
+    `edges` are the n-1 inner thresholds of n bins; the first bin runs down to
+    minus infinity and the last up to plus infinity.
+    """
+
+    feature: str
+    edges: tuple[float, ...]
+    values: tuple[float, ...]
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    kind: ClassVar[str] = "steps"
+
+    def __post_init__(self) -> None:
+        if len(self.values) != len(self.edges) + 1:
+            raise ModelFileError(f"steps '{self.feature}': needs one more value than edges")
+        if np.any(np.diff(np.asarray(self.edges, dtype=float)) <= 0):
+            raise ModelFileError(f"steps '{self.feature}': edges must be strictly increasing")
+        _band(self, np.asarray(self.values))
+
+    def bin_of(self, column: np.ndarray) -> np.ndarray:
+        return np.searchsorted(np.asarray(self.edges), np.asarray(column, dtype=float),
+                               side="left")
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        return np.asarray(self.values)[self.bin_of(column)]
+
+    def shifted(self, delta: float) -> StepTerm:
+        return replace(self, **_shift_all(self, delta))
+
+
+@dataclass(frozen=True)
+class LevelsTerm:
+    """One value per category level, and a value for a level never seen in training."""
+
+    feature: str
+    levels: tuple[str, ...]
+    values: tuple[float, ...]
+    unseen: float = 0.0
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    kind: ClassVar[str] = "levels"
+
+    def __post_init__(self) -> None:
+        if len(self.levels) != len(self.values) or not self.levels:
+            raise ModelFileError(f"levels '{self.feature}': needs one value per level (≥1)")
+        if len(set(self.levels)) != len(self.levels):
+            raise ModelFileError(f"levels '{self.feature}': a level is listed twice")
+        _band(self, np.asarray(self.values))
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        lookup = dict(zip(self.levels, self.values, strict=True))
+        values = np.array([lookup.get(v, np.nan) for v in column], dtype=float)
+        unseen = np.isnan(values)
+        if unseen.any():
+            strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
+            warnings.warn(
+                f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
+                f"in training ({', '.join(repr(s) for s in strange)}); scored with the "
+                f"unseen-level value {self.unseen:.4g}",
+                UnseenLevelWarning, stacklevel=3,
+            )
+            values[unseen] = self.unseen
+        return values
+
+    def shifted(self, delta: float) -> LevelsTerm:
+        changes = _shift_all(self, delta)
+        changes["unseen"] = float(self.unseen - delta)
+        return replace(self, **changes)
+
+
+Term = CurveTerm | StepTerm | LevelsTerm
+TERM_TYPES: dict[str, type] = {t.kind: t for t in (CurveTerm, StepTerm, LevelsTerm)}
+
+
+def _shift_all(term: Term, delta: float) -> dict[str, Any]:
+    changes: dict[str, Any] = {"values": _floats(np.asarray(term.values) - delta)}
+    for name in ("lower", "upper"):
+        band = getattr(term, name)
+        if band is not None:
+            changes[name] = _floats(np.asarray(band) - delta)
+    return changes
+
+
+def term_to_dict(term: Term) -> dict[str, Any]:
+    """A term as plain JSON-ready data."""
+    data: dict[str, Any] = {"feature": term.feature, "kind": term.kind}
+    if isinstance(term, CurveTerm):
+        data["knots"] = list(term.knots)
+    elif isinstance(term, StepTerm):
+        data["edges"] = list(term.edges)
+    else:
+        data["levels"] = list(term.levels)
+        data["unseen"] = term.unseen
+    data["values"] = list(term.values)
+    for name in ("lower", "upper"):
+        if getattr(term, name) is not None:
+            data[name] = list(getattr(term, name))
+    return data
+
+
+def term_from_dict(data: Mapping[str, Any]) -> Term:
+    """Rebuild a term from `term_to_dict` output."""
+    kind = data.get("kind")
+    if kind not in TERM_TYPES:
+        raise ModelFileError(f"unknown term kind {kind!r}")
+    try:
+        band = {name: _floats(data[name]) for name in ("lower", "upper") if name in data}
+        if kind == "curve":
+            return CurveTerm(str(data["feature"]), _floats(data["knots"]),
+                             _floats(data["values"]), **band)
+        if kind == "steps":
+            return StepTerm(str(data["feature"]), _floats(data["edges"]),
+                            _floats(data["values"]), **band)
+        return LevelsTerm(str(data["feature"]), tuple(str(v) for v in data["levels"]),
+                          _floats(data["values"]), float(data.get("unseen", 0.0)), **band)
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ModelFileError(f"term {data.get('feature')!r} is incomplete: {exc}") from None
+
+
+# ---------------------------------------------------------------- profiles
+
+
+@dataclass(frozen=True)
+class FeatureProfile:
+    """What the training data looked like for one feature.
+
+    Numeric features keep 101 percentiles (0%, 1%, ..., 100%), the mean and the
+    median absolute deviation; categories keep their level counts.
+    """
+
+    feature: str
+    kind: str
+    percentiles: tuple[float, ...] = ()
+    mean: float | None = None
+    spread: float | None = None
+    level_counts: tuple[tuple[str, int], ...] = ()
+
+    @property
+    def minimum(self) -> float:
+        return self.percentiles[0]
+
+    @property
+    def maximum(self) -> float:
+        return self.percentiles[-1]
+
+    def to_dict(self) -> dict[str, Any]:
+        data: dict[str, Any] = {"feature": self.feature, "kind": self.kind}
+        if self.percentiles:
+            data.update(percentiles=list(self.percentiles), mean=self.mean,
+                        median_absolute_deviation=self.spread)
+        if self.level_counts:
+            data["level_counts"] = {level: count for level, count in self.level_counts}
+        return data
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> FeatureProfile:
+        counts = data.get("level_counts", {})
+        return cls(
+            feature=str(data["feature"]), kind=str(data["kind"]),
+            percentiles=_floats(data.get("percentiles", ())),
+            mean=data.get("mean"), spread=data.get("median_absolute_deviation"),
+            level_counts=tuple((str(k), int(v)) for k, v in counts.items()),
+        )
+
+
+def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeatureProfile, ...]:
+    """Training percentiles, mean, spread and level counts of every used feature."""
+    profiles = []
+    for name in features.columns:
+        spec = schema.feature(name)
+        column = features[name]
+        if spec.kind == "category":
+            counts = column.value_counts()
+            ordered = sorted(counts.items(), key=lambda item: (-item[1], item[0]))
+            profiles.append(FeatureProfile(name, spec.kind,
+                                           level_counts=tuple((str(k), int(v))
+                                                              for k, v in ordered)))
+            continue
+        values = column.to_numpy(dtype=float)
+        grid = np.linspace(0, 100, PERCENTILE_POINTS)
+        percentiles = np.percentile(values, grid)
+        median = float(np.median(values))
+        profiles.append(FeatureProfile(
+            name, spec.kind, percentiles=_floats(percentiles), mean=float(values.mean()),
+            spread=float(np.median(np.abs(values - median))),
+        ))
+    return tuple(profiles)
+
+
+# ---------------------------------------------------------------- the model
+
+
+@dataclass(frozen=True)
+class AdditiveModel:
+    """Intercept, link and one table per feature; scores frames exactly as its tables say."""
+
+    link: str
+    intercept: float
+    terms: tuple[Term, ...]
+    schema: Schema
+    profiles: tuple[FeatureProfile, ...] = ()
+    metadata: Mapping[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        if self.link not in LINKS:
+            raise ModelFileError(f"unknown link {self.link!r} (expected logit or identity)")
+        names = [t.feature for t in self.terms]
+        if len(set(names)) != len(names):
+            raise ModelFileError("a feature has more than one term")
+        used = {f.name for f in self.schema.used_features}
+        stray = [n for n in names if n not in used]
+        if stray:
+            raise ModelFileError(f"term(s) for {', '.join(stray)} which the schema does not use")
+
+    @property
+    def features(self) -> tuple[str, ...]:
+        return tuple(t.feature for t in self.terms)
+
+    @property
+    def task(self) -> str:
+        return "classification" if self.link == "logit" else "regression"
+
+    def term(self, feature: str) -> Term:
+        for term in self.terms:
+            if term.feature == feature:
+                return term
+        raise OptionError(f"the model has no term for '{feature}' "
+                          f"(its features: {', '.join(self.features)})")
+
+    def profile(self, feature: str) -> FeatureProfile:
+        for profile in self.profiles:
+            if profile.feature == feature:
+                return profile
+        raise OptionError(f"the model keeps no training profile for '{feature}'")
+
+    def encode(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
+        """Validate and type the model's feature columns of a raw frame."""
+        if not isinstance(frame, pd.DataFrame):
+            raise DataError("expected a pandas DataFrame of feature columns")
+        return prepare(frame, self.schema, require_target=False, source=source,
+                       features=self.features).features
+
+    def contributions(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
+        """One column per term: what each feature adds to the score of each row."""
+        encoded = self.encode(frame, source)
+        return self.contributions_encoded(encoded)
+
+    def contributions_encoded(self, encoded: pd.DataFrame) -> pd.DataFrame:
+        """Contributions for a frame already typed by `encode`."""
+        columns = {t.feature: t.evaluate(encoded[t.feature].to_numpy()) for t in self.terms}
+        return pd.DataFrame(columns, index=encoded.index, columns=list(self.features))
+
+    def score(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """The score on the link scale (log-odds for classification)."""
+        return self.intercept + self.contributions(frame, source).sum(axis=1).to_numpy()
+
+    def score_encoded(self, encoded: pd.DataFrame) -> np.ndarray:
+        return self.intercept + self.contributions_encoded(encoded).sum(axis=1).to_numpy()
+
+    def probability(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """Probability of the positive class (classification models only)."""
+        if self.link != "logit":
+            raise OptionError("a regression model has no probability; use score")
+        return expit(self.score(frame, source))
+
+    def predict(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """Probability for classification, the predicted value for regression."""
+        score = self.score(frame, source)
+        return expit(score) if self.link == "logit" else score
+
+    def inverse_link(self, score: np.ndarray) -> np.ndarray:
+        return expit(score) if self.link == "logit" else np.asarray(score)
+
+
+def centre_terms(
+    terms: Sequence[Term], encoded: pd.DataFrame
+) -> tuple[tuple[Term, ...], float]:
+    """Shift every term to mean zero over the rows; return the terms and the total shift."""
+    centred = []
+    total = 0.0
+    for term in terms:
+        mean = float(np.mean(term.evaluate(encoded[term.feature].to_numpy())))
+        centred.append(term.shifted(mean))
+        total += mean
+    return tuple(centred), total

@@ -1,0 +1,138 @@
+"""scikit-learn estimators that fit any family and keep the `AdditiveModel` in `model_`.
+
+They follow scikit-learn's contract (configuration in `__init__`, learning in
+`fit`, learned state in attributes ending in `_`), so `clone`, `Pipeline` and
+`GridSearchCV` work. Arrays get columns named x0, x1, ...; a DataFrame keeps its
+column names and, with a `schema`, its declared kinds.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from glassbox.additive import AdditiveModel
+from glassbox.fitting import fit_model
+from glassbox.schema import FeatureSpec, Schema, TargetSpec, infer_kind, load_schema
+
+TARGET = "__target__"
+
+
+class _AdditiveEstimator(BaseEstimator):
+    """What the classifier and the regressor share: turning X into a frame, fitting."""
+
+    _task = "classification"
+
+    def __init__(self, family: str = "sparse", max_features: int | None = None,
+                 schema: Schema | str | None = None, options: dict[str, Any] | None = None):
+        self.family = family
+        self.max_features = max_features
+        self.schema = schema
+        self.options = options
+
+    def _frame(self, X: Any, y: Any = None, *, reset: bool) -> tuple[pd.DataFrame, Any]:
+        if reset and y is None:
+            raise ValueError(f"{type(self).__name__} requires y to be passed, but the target y "
+                             "is None")
+        if isinstance(X, pd.DataFrame):
+            if reset:
+                validate_data(self, X, skip_check_array=True, reset=True)
+            else:
+                validate_data(self, X, skip_check_array=True, reset=False)
+            frame = X.copy()
+            frame.columns = [str(c) for c in frame.columns]
+            if y is not None:
+                y = np.asarray(y)
+            return frame, y
+        if y is None:
+            array = validate_data(self, X, reset=reset, dtype="numeric")
+        else:
+            array, y = validate_data(self, X, y, reset=reset, dtype="numeric",
+                                     y_numeric=self._task == "regression")
+        if reset and array.shape[0] < 2:
+            raise ValueError(f"{type(self).__name__} needs at least 2 rows to fit; got "
+                             "1 sample")
+        names = [f"x{i}" for i in range(array.shape[1])]
+        return pd.DataFrame(array, columns=names), y
+
+    def _schema(self, frame: pd.DataFrame, positive: Any) -> Schema:
+        if isinstance(self.schema, Schema):
+            schema = self.schema
+        elif isinstance(self.schema, str):
+            schema = load_schema(self.schema)
+        else:
+            features = tuple(FeatureSpec(name, infer_kind(frame[name])) for name in frame)
+            return Schema(TargetSpec(TARGET, self._task, positive), features)
+        return Schema(TargetSpec(TARGET, self._task, positive), schema.features,
+                      schema.id_column, schema.source)
+
+    def _fit(self, frame: pd.DataFrame, target: np.ndarray, positive: Any) -> None:
+        schema = self._schema(frame, positive)
+        options = dict(self.options or {})
+        if self.max_features is not None:
+            options["max_features"] = self.max_features
+        data = frame.assign(**{TARGET: target})
+        self.model_: AdditiveModel = fit_model(data, schema, self.family, **options)
+
+    def _score(self, X: Any) -> np.ndarray:
+        check_is_fitted(self, "model_")
+        frame, _ = self._frame(X, reset=False)
+        return self.model_.score(frame)
+
+    def __sklearn_tags__(self):  # noqa: D105
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = False
+        return tags
+
+
+class AdditiveClassifier(ClassifierMixin, _AdditiveEstimator):
+    """Binary classifier on the logit scale; `model_` is its `AdditiveModel`."""
+
+    _task = "classification"
+
+    def fit(self, X: Any, y: Any) -> AdditiveClassifier:
+        frame, y = self._frame(X, y, reset=True)
+        check_classification_targets(y)
+        self.classes_ = np.unique(y)
+        if len(self.classes_) != 2:
+            found = "one class" if len(self.classes_) == 1 else f"{len(self.classes_)} classes"
+            raise ValueError("Only binary classification is supported: AdditiveClassifier "
+                             f"needs exactly two classes in y, found {found}")
+        self._fit(frame, (y == self.classes_[1]).astype(int), 1)
+        return self
+
+    def decision_function(self, X: Any) -> np.ndarray:
+        """The score on the logit scale (log-odds of classes_[1])."""
+        return self._score(X)
+
+    def predict_proba(self, X: Any) -> np.ndarray:
+        positive = 1.0 / (1.0 + np.exp(-self.decision_function(X)))
+        return np.column_stack([1.0 - positive, positive])
+
+    def predict(self, X: Any) -> np.ndarray:
+        check_is_fitted(self, "model_")
+        return self.classes_[(self.decision_function(X) > 0).astype(int)]
+
+    def __sklearn_tags__(self):  # noqa: D105
+        tags = super().__sklearn_tags__()
+        tags.classifier_tags.multi_class = False
+        return tags
+
+
+class AdditiveRegressor(RegressorMixin, _AdditiveEstimator):
+    """Regressor on the identity scale; `model_` is its `AdditiveModel`."""
+
+    _task = "regression"
+
+    def fit(self, X: Any, y: Any) -> AdditiveRegressor:
+        frame, y = self._frame(X, y, reset=True)
+        self._fit(frame, np.asarray(y, dtype=float), None)
+        return self
+
+    def predict(self, X: Any) -> np.ndarray:
+        return self._score(X)

@@ -1,0 +1,203 @@
+"""Sparse-linear family: an L1 path picks at most k features, then an unpenalised refit.
+
+Classification uses logistic regression, regression the lasso and least
+squares. Numeric features are standardised for the path, so the penalty treats
+them alike; a category enters as indicators of its non-reference levels (the
+most frequent level is the reference) and counts as one feature. Each numeric
+feature compiles to a two-knot curve at its training minimum and maximum (exact
+inside the range), each category to a levels table.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.linear_model import LinearRegression, LogisticRegression, Ridge, lasso_path
+from sklearn.svm import l1_min_c
+
+from glassbox.additive import CurveTerm, LevelsTerm, Term
+from glassbox.errors import OptionError
+from glassbox.families.base import FamilyFit
+from glassbox.schema import Schema
+
+NAME = "sparse"
+DEFAULTS = {"max_features": None, "ridge": 0.0, "path_points": 40}
+PATH_SPAN = 4.0  # the L1 path runs over four decades of the penalty above its smallest value
+
+
+@dataclass(frozen=True)
+class Design:
+    """The standardised design matrix and how its columns map back to features."""
+
+    matrix: np.ndarray
+    feature_of: tuple[str, ...]
+    level_of: tuple[str | None, ...]
+    centre: np.ndarray
+    scale: np.ndarray
+    references: dict[str, str]
+    levels: dict[str, tuple[str, ...]]
+
+    def columns_of(self, features: set[str]) -> np.ndarray:
+        return np.array([f in features for f in self.feature_of])
+
+
+def build_design(features: pd.DataFrame, schema: Schema) -> Design:
+    """Standardised numeric columns and reference-coded category indicators."""
+    blocks, feature_of, level_of = [], [], []
+    references: dict[str, str] = {}
+    levels: dict[str, tuple[str, ...]] = {}
+    for name in features.columns:
+        column = features[name]
+        if schema.feature(name).kind == "category":
+            counts = column.value_counts()
+            ordered = sorted(counts.index, key=lambda level: (-counts[level], str(level)))
+            references[name] = str(ordered[0])
+            levels[name] = tuple(sorted(str(level) for level in ordered))
+            for level in sorted(ordered[1:]):
+                blocks.append((column == level).to_numpy(dtype=float))
+                feature_of.append(name)
+                level_of.append(str(level))
+        else:
+            values = column.to_numpy(dtype=float)
+            if np.ptp(values) == 0:
+                continue  # a constant column carries no information
+            blocks.append(values)
+            feature_of.append(name)
+            level_of.append(None)
+    if not blocks:
+        raise OptionError("no feature varies in the training data; nothing to fit")
+    raw = np.column_stack(blocks)
+    centre = raw.mean(axis=0)
+    scale = raw.std(axis=0)
+    scale[scale == 0] = 1.0
+    return Design((raw - centre) / scale, tuple(feature_of), tuple(level_of), centre, scale,
+                  references, levels)
+
+
+def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> list[str]:
+    """Features in the order they enter along the L1 path (earliest first)."""
+    matrix = design.matrix
+    if task == "classification":
+        smallest = l1_min_c(matrix, target, loss="log", fit_intercept=True)
+        penalties = smallest * np.logspace(0, PATH_SPAN, points)
+        model = LogisticRegression(l1_ratio=1.0, solver="liblinear", intercept_scaling=100.0,
+                                   tol=1e-6, max_iter=2000, random_state=0)
+        path = []
+        for c_value in penalties:
+            model.set_params(C=float(c_value))
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", ConvergenceWarning)
+                model.fit(matrix, target)
+            path.append(model.coef_.ravel().copy())
+        coefs = np.array(path).T
+    else:
+        _, coefs, _ = lasso_path(matrix, target - target.mean(), n_alphas=points * 2)
+        coefs = coefs[:, ::-1] if coefs.ndim == 2 else coefs
+    order: list[str] = []
+    strength: dict[str, float] = {}
+    for step in range(coefs.shape[1]):
+        active = np.abs(coefs[:, step]) > 1e-10
+        newcomers = {}
+        for column in np.flatnonzero(active):
+            feature = design.feature_of[column]
+            if feature not in order:
+                newcomers[feature] = max(newcomers.get(feature, 0.0),
+                                         abs(coefs[column, step]))
+        for feature in sorted(newcomers, key=lambda f: (-newcomers[f], f)):
+            order.append(feature)
+            strength[feature] = newcomers[feature]
+    # features that never entered follow in schema order
+    order += [f for f in dict.fromkeys(design.feature_of) if f not in order]
+    return order
+
+
+def fit_estimator(
+    features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
+    max_features: int | None = None, ridge: float = 0.0, path_points: int = 40,
+) -> tuple[LogisticRegression | LinearRegression | Ridge, Design, list[str], list[str]]:
+    """Select features along the path, refit, and return the scikit-learn model itself.
+
+    Returns the fitted estimator, the full design, the chosen features and the
+    entry order. `fit` compiles this into tables; tests compare the two.
+    """
+    if max_features is not None and (not isinstance(max_features, int | np.integer)
+                                     or max_features < 1):
+        raise OptionError(f"max_features must be a whole number of at least 1, "
+                          f"not {max_features!r}")
+    if ridge < 0:
+        raise OptionError(f"ridge must be zero or positive, not {ridge!r}")
+    design = build_design(features, schema)
+    groups = list(dict.fromkeys(design.feature_of))
+    if max_features is not None and max_features < len(groups):
+        order = entry_order(design, target, task, path_points)
+        chosen = order[:max_features]
+    else:
+        order = groups
+        chosen = groups
+    mask = design.columns_of(set(chosen))
+    matrix = design.matrix[:, mask]
+    if task == "classification":
+        c_value = np.inf if ridge == 0 else 1.0 / ridge
+        estimator = LogisticRegression(C=c_value, solver="newton-cholesky", tol=1e-10,
+                                       max_iter=500)
+    elif ridge == 0:
+        estimator = LinearRegression()
+    else:
+        estimator = Ridge(alpha=ridge)
+    estimator.fit(matrix, target)
+    return estimator, design, chosen, order
+
+
+def fit(
+    features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
+    max_features: int | None = None, ridge: float = 0.0, path_points: int = 40,
+) -> FamilyFit:
+    """Fit the sparse-linear family and compile it into term tables."""
+    estimator, design, chosen, order = fit_estimator(
+        features, target, schema, task=task, max_features=max_features, ridge=ridge,
+        path_points=path_points,
+    )
+    mask = design.columns_of(set(chosen))
+    coefs = np.ravel(estimator.coef_)
+    index = {column: i for i, column in enumerate(np.flatnonzero(mask))}
+    terms: list[Term] = []
+    for feature in chosen:
+        columns = [c for c in np.flatnonzero(mask) if design.feature_of[c] == feature]
+        if schema.feature(feature).kind == "category":
+            # sum over indicator columns of b * (indicator - centre) / scale
+            base = sum(-coefs[index[c]] * design.centre[c] / design.scale[c] for c in columns)
+            jump = {design.level_of[c]: coefs[index[c]] / design.scale[c] for c in columns}
+            levels = design.levels[feature]
+            values = [base + jump.get(level, 0.0) for level in levels]
+            terms.append(LevelsTerm(feature, levels, tuple(values)))
+        else:
+            (column,) = columns
+            values_at = features[feature].to_numpy(dtype=float)
+            knots = (float(values_at.min()), float(values_at.max()))
+            slope = coefs[index[column]] / design.scale[column]
+            values = tuple(slope * (k - design.centre[column]) for k in knots)
+            terms.append(CurveTerm(feature, knots, values))
+    intercept = float(np.ravel(estimator.intercept_)[0]) if np.ndim(
+        estimator.intercept_) else float(estimator.intercept_)
+    raw_coefficients = {
+        (f if lvl is None else f"{f}[{lvl}]"): float(coefs[index[c]] / design.scale[c])
+        for c, (f, lvl) in enumerate(zip(design.feature_of, design.level_of, strict=True))
+        if mask[c]
+    }
+    selected = np.flatnonzero(mask)
+    intercept_per_unit = intercept - float(sum(
+        coefs[index[c]] * design.centre[c] / design.scale[c] for c in selected))
+    details = {
+        "chosen_features": chosen,
+        "entry_order": order,
+        "references": {f: design.references[f] for f in chosen if f in design.references},
+        "intercept_per_unit": intercept_per_unit,
+        "coefficients_per_unit": raw_coefficients,
+    }
+    parameters = {"max_features": max_features, "ridge": ridge, "path_points": path_points}
+    return FamilyFit(intercept, tuple(terms), parameters, details)
+

@@ -1,0 +1,550 @@
+"""Schemas: what each column is, which is the target, what may be used for fitting.
+
+A schema is declared in TOML (see the README), inferred from data as a starting
+point, and used to turn raw frames into typed, validated ones. Every problem
+with the data is reported naming the file, the column and the first rows.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import tomllib
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.errors import DataError, SchemaError
+
+KINDS = ("number", "integer", "flag", "category")
+NUMERIC_KINDS = ("number", "integer", "flag")
+TASKS = ("classification", "regression")
+MONOTONE = ("increasing", "decreasing")
+TRUE_WORDS = frozenset({"1", "yes", "y", "true", "t"})
+FALSE_WORDS = frozenset({"0", "no", "n", "false", "f"})
+# Words in a column name that suggest a protected characteristic; inference marks
+# such columns protected for the user to confirm (common practice, no source).
+PROTECTED_HINTS = (
+    "age", "sex", "gender", "race", "ethnic", "religio", "marital", "nationality",
+    "disab", "pregnan", "orientation", "colour", "color_of_skin",
+)
+SHOWN_ROWS = 5
+
+
+@dataclass(frozen=True)
+class FeatureSpec:
+    """One input column: its kind and how the model may use it."""
+
+    name: str
+    kind: str
+    monotone: str | None = None
+    protected: bool = False
+    ignore: bool = False
+    fill: Any = None
+    description: str = ""
+    reason: str = ""
+
+    @property
+    def used(self) -> bool:
+        """Whether the column is an input to the model (not protected, not ignored)."""
+        return not (self.protected or self.ignore)
+
+    @property
+    def numeric(self) -> bool:
+        return self.kind in NUMERIC_KINDS
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    """The column to predict and, for classification, the positive label."""
+
+    column: str
+    task: str
+    positive: Any = None
+
+
+@dataclass(frozen=True)
+class Schema:
+    """The target, the features and an optional id column of a table."""
+
+    target: TargetSpec
+    features: tuple[FeatureSpec, ...]
+    id_column: str | None = None
+    source: str = field(default="", compare=False)
+
+    @property
+    def used_features(self) -> tuple[FeatureSpec, ...]:
+        return tuple(f for f in self.features if f.used)
+
+    @property
+    def protected_features(self) -> tuple[FeatureSpec, ...]:
+        return tuple(f for f in self.features if f.protected)
+
+    def feature(self, name: str) -> FeatureSpec:
+        for spec in self.features:
+            if spec.name == name:
+                return spec
+        raise SchemaError(f"{self._where()}no feature named '{name}'")
+
+    def restricted_to(self, names: Iterable[str]) -> Schema:
+        """The same schema with only the named features used (others ignored)."""
+        keep = set(names)
+        features = tuple(
+            f if (f.name in keep or not f.used) else replace(f, ignore=True)
+            for f in self.features
+        )
+        return replace(self, features=features)
+
+    def _where(self) -> str:
+        return f"schema {self.source}: " if self.source else "schema: "
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain data for JSON (model files) and TOML writing."""
+        out: dict[str, Any] = {}
+        if self.id_column:
+            out["id"] = self.id_column
+        target = {"column": self.target.column, "task": self.target.task}
+        if self.target.positive is not None:
+            target["positive"] = self.target.positive
+        out["target"] = target
+        out["feature"] = {}
+        for spec in self.features:
+            entry: dict[str, Any] = {"kind": spec.kind}
+            for key in ("monotone", "fill"):
+                if getattr(spec, key) is not None:
+                    entry[key] = getattr(spec, key)
+            for key in ("protected", "ignore"):
+                if getattr(spec, key):
+                    entry[key] = True
+            for key in ("description", "reason"):
+                if getattr(spec, key):
+                    entry[key] = getattr(spec, key)
+            out["feature"][spec.name] = entry
+        return out
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any], source: str = "") -> Schema:
+        """Build and check a schema from parsed TOML or JSON."""
+        where = f"schema {source}: " if source else "schema: "
+        if not isinstance(data, Mapping):
+            raise SchemaError(f"{where}expected a table of settings")
+        unknown = set(data) - {"id", "target", "feature"}
+        if unknown:
+            raise SchemaError(f"{where}unknown top-level key(s): {', '.join(sorted(unknown))}")
+        target_data = data.get("target")
+        if not isinstance(target_data, Mapping) or "column" not in target_data:
+            raise SchemaError(f"{where}a [target] table with a 'column' is required")
+        bad = set(target_data) - {"column", "task", "positive"}
+        if bad:
+            raise SchemaError(f"{where}unknown key(s) in [target]: {', '.join(sorted(bad))}")
+        task = target_data.get("task", "classification")
+        if task not in TASKS:
+            raise SchemaError(f"{where}target task must be one of {', '.join(TASKS)}, not '{task}'")
+        target = TargetSpec(str(target_data["column"]), task, target_data.get("positive"))
+        features_data = data.get("feature", {})
+        if not isinstance(features_data, Mapping) or not features_data:
+            raise SchemaError(f"{where}no features declared (add [feature.NAME] tables)")
+        features = tuple(
+            _feature_from_dict(name, entry, where) for name, entry in features_data.items()
+        )
+        id_column = data.get("id")
+        names = [f.name for f in features]
+        for clash in (target.column, id_column):
+            if clash is not None and clash in names:
+                raise SchemaError(f"{where}'{clash}' is declared both as a feature and as "
+                                  "the target or id")
+        schema = cls(target, features, str(id_column) if id_column else None, source)
+        if not schema.used_features:
+            raise SchemaError(f"{where}every feature is protected or ignored; nothing to fit")
+        return schema
+
+    def to_toml(self) -> str:
+        """The schema as a TOML file a user can read and edit."""
+        lines = [
+            "# glassbox schema: one [feature.NAME] table per column.",
+            "# kind: number | integer | flag | category",
+            "# monotone = \"increasing\" | \"decreasing\"  (direction of the score)",
+            "# protected = true  (never a model input; kept so audits can group by it)",
+            "# ignore = true     (not used at all)",
+            "# fill = VALUE      (missing values take VALUE; without it they are an error)",
+            "",
+        ]
+        data = self.to_dict()
+        if "id" in data:
+            lines += [f"id = {_toml_value(data['id'])}", ""]
+        lines.append("[target]")
+        lines += [f"{key} = {_toml_value(value)}" for key, value in data["target"].items()]
+        for name, entry in data["feature"].items():
+            lines += ["", f"[feature.{_toml_key(name)}]"]
+            for key, value in entry.items():
+                line = f"{key} = {_toml_value(value)}"
+                if key == "protected" and name in _guessed_protected(self):
+                    line += "  # guessed from the column name: check"
+                lines.append(line)
+        return "\n".join(lines) + "\n"
+
+
+def _guessed_protected(schema: Schema) -> set[str]:
+    return {f.name for f in schema.features if f.protected and _looks_protected(f.name)}
+
+
+def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
+    if not isinstance(entry, Mapping):
+        raise SchemaError(f"{where}[feature.{name}] must be a table")
+    allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason"}
+    unknown = set(entry) - allowed
+    if unknown:
+        raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
+                          f"{', '.join(sorted(unknown))}")
+    kind = entry.get("kind")
+    if kind not in KINDS:
+        raise SchemaError(f"{where}[feature.{name}] kind must be one of {', '.join(KINDS)}, "
+                          f"not {kind!r}")
+    monotone = entry.get("monotone")
+    if monotone is not None and monotone not in MONOTONE:
+        raise SchemaError(f"{where}[feature.{name}] monotone must be 'increasing' or "
+                          f"'decreasing', not {monotone!r}")
+    if monotone is not None and kind == "category":
+        raise SchemaError(f"{where}[feature.{name}] a category has no order, so it cannot "
+                          "be monotone")
+    for key in ("protected", "ignore"):
+        if not isinstance(entry.get(key, False), bool):
+            raise SchemaError(f"{where}[feature.{name}] {key} must be true or false")
+    fill = entry.get("fill")
+    if fill is not None and kind in ("number", "integer") and not _is_number(fill):
+        raise SchemaError(f"{where}[feature.{name}] fill for a {kind} must be a number, "
+                          f"not {fill!r}")
+    if fill is not None and kind == "integer" and float(fill) != int(float(fill)):
+        raise SchemaError(f"{where}[feature.{name}] fill for an integer must be whole")
+    return FeatureSpec(
+        name=str(name), kind=kind, monotone=monotone,
+        protected=entry.get("protected", False), ignore=entry.get("ignore", False),
+        fill=fill, description=str(entry.get("description", "")),
+        reason=str(entry.get("reason", "")),
+    )
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _toml_key(name: str) -> str:
+    if name and all(c.isalnum() or c in "_-" for c in name):
+        return name
+    return json.dumps(name)
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int | float):
+        return repr(value)
+    return json.dumps(str(value), ensure_ascii=False)
+
+
+def load_schema(path: str | Path) -> Schema:
+    """Read a TOML schema file."""
+    path = Path(path)
+    if not path.is_file():
+        raise SchemaError(f"schema file {path} does not exist")
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise SchemaError(f"schema {path} is not valid TOML: {exc}") from None
+    except UnicodeDecodeError:
+        raise SchemaError(f"schema {path} is not a UTF-8 text file") from None
+    return Schema.from_dict(data, source=str(path))
+
+
+# ---------------------------------------------------------------- reading data
+
+
+def read_table(path: str | Path) -> pd.DataFrame:
+    """Read a CSV or Parquet file, with one clear error for anything unreadable."""
+    path = Path(path)
+    if not path.is_file():
+        raise DataError(f"data file {path} does not exist")
+    suffix = path.suffix.lower()
+    try:
+        if suffix in (".parquet", ".pq"):
+            frame = pd.read_parquet(path)
+        else:
+            frame = pd.read_csv(path, skipinitialspace=True)
+    except pd.errors.EmptyDataError:
+        raise DataError(f"data file {path} is empty") from None
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise DataError(f"data file {path} could not be read: {first}") from None
+    except ImportError:
+        raise DataError(f"reading Parquet file {path} needs pyarrow (pip install pyarrow)") from None
+    if frame.shape[0] == 0:
+        raise DataError(f"data file {path} has a header but no data rows")
+    frame.attrs["source"] = str(path)
+    return frame
+
+
+def _source(frame: pd.DataFrame, source: str | None) -> str:
+    return source or frame.attrs.get("source") or "the data"
+
+
+def _rows_text(mask: np.ndarray) -> str:
+    """'data rows 3, 8, 12 (and 40 more)', numbering data rows from 1."""
+    rows = np.flatnonzero(mask) + 1
+    shown = ", ".join(str(r) for r in rows[:SHOWN_ROWS])
+    more = f" (and {len(rows) - SHOWN_ROWS} more)" if len(rows) > SHOWN_ROWS else ""
+    word = "data row" if len(rows) == 1 else "data rows"
+    return f"{word} {shown}{more}"
+
+
+def label_text(value: Any) -> str:
+    """A label as text, so 1, 1.0 and '1' compare equal."""
+    if isinstance(value, bool | np.bool_):
+        return "true" if value else "false"
+    if isinstance(value, int | float | np.integer | np.floating):
+        number = float(value)
+        if math.isfinite(number) and number == int(number):
+            return str(int(number))
+        return repr(number)
+    return str(value).strip()
+
+
+# ---------------------------------------------------------------- encoding
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A frame after validation: typed feature columns, the target, the ids."""
+
+    features: pd.DataFrame
+    target: np.ndarray | None
+    ids: pd.Series | None
+    protected: pd.DataFrame
+
+
+def prepare(
+    frame: pd.DataFrame,
+    schema: Schema,
+    *,
+    require_target: bool = True,
+    source: str | None = None,
+    features: Iterable[str] | None = None,
+) -> Prepared:
+    """Validate a raw frame against the schema and encode it.
+
+    Numbers, integers and flags become float columns (flags 0/1), categories
+    become text. `features` limits which feature columns are needed (a model
+    needs only its own); protected columns are kept aside when present.
+    """
+    where = _source(frame, source)
+    wanted = [f for f in schema.used_features if features is None or f.name in set(features)]
+    needed = [f.name for f in wanted]
+    if require_target:
+        needed.append(schema.target.column)
+    missing = [name for name in needed if name not in frame.columns]
+    if missing:
+        raise DataError(f"{where}: missing column(s) {', '.join(repr(m) for m in missing)} "
+                        f"(it has: {', '.join(map(str, frame.columns[:12]))}"
+                        f"{', ...' if len(frame.columns) > 12 else ''})")
+    if frame.shape[0] == 0:
+        raise DataError(f"{where}: no rows")
+    encoded = {spec.name: encode_column(frame[spec.name], spec, where) for spec in wanted}
+    feature_frame = pd.DataFrame(encoded, index=frame.index)
+    target = encode_target(frame[schema.target.column], schema, where) if require_target else None
+    ids = frame[schema.id_column] if schema.id_column and schema.id_column in frame else None
+    protected_names = [f.name for f in schema.protected_features if f.name in frame.columns]
+    protected = frame[protected_names].copy()
+    return Prepared(feature_frame, target, ids, protected)
+
+
+def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
+    """One raw column to its typed form, or a DataError naming the rows at fault."""
+    values = column
+    missing = _missing_mask(values)
+    if missing.any():
+        if spec.fill is None:
+            raise DataError(f"{where}: column '{spec.name}' has {int(missing.sum())} missing "
+                            f"value(s) in {_rows_text(missing)}; give the feature a fill "
+                            "value in the schema or clean the data")
+        values = values.astype(object).where(~missing, spec.fill)
+    if spec.kind == "category":
+        return pd.Series([label_text(v) for v in values], index=column.index, dtype=object)
+    if spec.kind == "flag":
+        return _encode_flag(values, spec, where)
+    numbers = pd.to_numeric(values, errors="coerce")
+    bad = numbers.isna().to_numpy()
+    if bad.any():
+        first = values[bad].iloc[0]
+        raise DataError(f"{where}: column '{spec.name}' should hold numbers but has text in "
+                        f"{_rows_text(bad)} (first: {str(first)!r})")
+    numbers = numbers.astype(float)
+    if not np.isfinite(numbers.to_numpy()).all():
+        infinite = ~np.isfinite(numbers.to_numpy())
+        raise DataError(f"{where}: column '{spec.name}' has infinite values in "
+                        f"{_rows_text(infinite)}")
+    if spec.kind == "integer":
+        fractional = (numbers != np.round(numbers)).to_numpy()
+        if fractional.any():
+            raise DataError(f"{where}: column '{spec.name}' is declared integer but has "
+                            f"fractions in {_rows_text(fractional)} "
+                            f"(first: {numbers[fractional].iloc[0]!r})")
+    return numbers
+
+
+def _missing_mask(values: pd.Series) -> np.ndarray:
+    mask = values.isna().to_numpy()
+    if values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
+        text = values.astype(str).str.strip()
+        mask = mask | (text == "").to_numpy()
+    return mask
+
+
+def _encode_flag(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
+    words = values.map(label_text).str.lower()
+    truthy = words.isin(TRUE_WORDS).to_numpy()
+    falsy = words.isin(FALSE_WORDS).to_numpy()
+    bad = ~(truthy | falsy)
+    if bad.any():
+        first = values[bad].iloc[0]
+        raise DataError(f"{where}: column '{spec.name}' is a flag (yes/no, true/false, 1/0) "
+                        f"but has other values in {_rows_text(bad)} (first: {str(first)!r})")
+    return pd.Series(truthy.astype(float), index=values.index)
+
+
+def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
+    """The target as floats: 0/1 for classification, the values for regression."""
+    name = schema.target.column
+    missing = _missing_mask(column)
+    if missing.any():
+        raise DataError(f"{where}: target column '{name}' has missing values in "
+                        f"{_rows_text(missing)}")
+    if schema.target.task == "regression":
+        spec = FeatureSpec(name, "number")
+        return encode_column(column, spec, where).to_numpy(dtype=float)
+    labels = column.map(label_text)
+    distinct = sorted(set(labels))
+    if len(distinct) > 2:
+        shown = ", ".join(repr(v) for v in distinct[:6])
+        raise DataError(f"{where}: target column '{name}' has {len(distinct)} labels ({shown}"
+                        f"{', ...' if len(distinct) > 6 else ''}); a classification target "
+                        "needs exactly two")
+    positive = schema.target.positive
+    if positive is None:
+        positive = choose_positive(distinct, labels)
+    positive_text = label_text(positive)
+    if positive_text not in distinct:
+        raise DataError(f"{where}: the positive label {positive!r} of target '{name}' never "
+                        f"occurs (labels found: {', '.join(repr(v) for v in distinct)})")
+    return (labels == positive_text).to_numpy(dtype=float)
+
+
+def choose_positive(distinct: list[str], labels: pd.Series) -> str:
+    """The positive label when none is declared: 1, yes or true, else the rarer label."""
+    for word in ("1", "yes", "true", "y", "t"):
+        for label in distinct:
+            if label.lower() == word:
+                return label
+    counts = labels.value_counts()
+    return str(sorted(distinct, key=lambda v: (counts.get(v, 0), v))[0])
+
+
+# ---------------------------------------------------------------- inference
+
+
+def _looks_protected(name: str) -> bool:
+    lowered = name.lower()
+    parts = [p for p in lowered.replace("-", "_").split("_") if p]
+    return any(hint == part or (len(hint) > 3 and part.startswith(hint))
+               for hint in PROTECTED_HINTS for part in parts)
+
+
+def infer_kind(column: pd.Series) -> str:
+    """The most likely kind of a raw column."""
+    present = column[~_missing_mask(column)]
+    if present.empty:
+        return "number"
+    if pd.api.types.is_bool_dtype(present.dtype):
+        return "flag"
+    words = set(present.map(label_text).str.lower())
+    if len(words) == 2 and words <= (TRUE_WORDS | FALSE_WORDS) and words & TRUE_WORDS:
+        return "flag"
+    numbers = pd.to_numeric(present, errors="coerce")
+    if numbers.notna().all():
+        if (numbers == np.round(numbers)).all():
+            return "integer"
+        return "number"
+    return "category"
+
+
+def infer_schema(
+    frame: pd.DataFrame,
+    target: str,
+    *,
+    positive: Any = None,
+    id_column: str | None = None,
+    task: str | None = None,
+    source: str | None = None,
+) -> Schema:
+    """A starter schema for a frame: kinds guessed, protected columns guessed by name."""
+    where = _source(frame, source)
+    if target not in frame.columns:
+        raise DataError(f"{where}: no target column '{target}' (it has: "
+                        f"{', '.join(map(str, frame.columns[:12]))})")
+    column = frame[target]
+    labels = column[~_missing_mask(column)].map(label_text)
+    distinct = sorted(set(labels))
+    if task is None:
+        numeric = pd.to_numeric(column, errors="coerce").notna().all()
+        task = "regression" if (numeric and len(distinct) > 2) else "classification"
+    if task == "classification":
+        if len(distinct) != 2:
+            shown = ", ".join(repr(v) for v in distinct[:6])
+            raise DataError(f"{where}: target column '{target}' has {len(distinct)} labels "
+                            f"({shown}{', ...' if len(distinct) > 6 else ''}); a classification "
+                            "target needs exactly two")
+        positive = label_text(positive) if positive is not None else choose_positive(
+            distinct, labels)
+        if positive not in distinct:
+            raise DataError(f"{where}: positive label {positive!r} not found in target "
+                            f"'{target}' (labels: {', '.join(repr(v) for v in distinct)})")
+        positive = _natural(positive, column)
+    else:
+        positive = None
+    if id_column is None:
+        id_column = _guess_id(frame, exclude=target)
+    elif id_column not in frame.columns:
+        raise DataError(f"{where}: no id column '{id_column}'")
+    features = []
+    for name in frame.columns:
+        if name in (target, id_column):
+            continue
+        kind = infer_kind(frame[name])
+        features.append(FeatureSpec(str(name), kind, protected=_looks_protected(str(name))))
+    if not features:
+        raise DataError(f"{where}: no columns besides the target and id")
+    return Schema(TargetSpec(target, task, positive), tuple(features), id_column,
+                  source=str(where))
+
+
+def _natural(label: str, column: pd.Series) -> Any:
+    """Write a numeric positive label as a number in TOML."""
+    if pd.api.types.is_numeric_dtype(column.dtype):
+        number = float(label)
+        return int(number) if number == int(number) else number
+    return label
+
+
+def _guess_id(frame: pd.DataFrame, exclude: str) -> str | None:
+    """A text column with a distinct value on every row whose name says id."""
+    for name in frame.columns:
+        if name == exclude:
+            continue
+        lowered = str(name).lower()
+        if lowered == "id" or lowered.endswith("_id") or lowered.endswith("id") and "_" in lowered:
+            column = frame[name]
+            if column.notna().all() and column.is_unique:
+                return str(name)
+    return None
