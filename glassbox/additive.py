@@ -352,3 +352,23 @@ def centre_terms(
         centred.append(term.shifted(mean))
         total += mean
     return tuple(centred), total
+
+
+def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = None,
+                contributions: bool = True) -> pd.DataFrame:
+    """Per row: the id (when the schema names one), score, probability or prediction,
+    and each term's contribution (`contribution:FEATURE`)."""
+    prepared = prepare(frame, model.schema, require_target=False, source=source,
+                       features=model.features)
+    parts = model.contributions_encoded(prepared.features)
+    score = model.intercept + parts.sum(axis=1).to_numpy()
+    out = pd.DataFrame(index=frame.index)
+    if prepared.ids is not None:
+        out[model.schema.id_column] = prepared.ids
+    out["score"] = score
+    out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
+    if contributions:
+        out["intercept"] = model.intercept
+        for name in parts.columns:
+            out[f"contribution:{name}"] = parts[name]
+    return out.reset_index(drop=True)

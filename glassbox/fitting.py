@@ -16,6 +16,7 @@ from glassbox import __version__
 from glassbox.additive import AdditiveModel, centre_terms, profile_features
 from glassbox.errors import DataError, OptionError
 from glassbox.families import get_family
+from glassbox.metrics import classification_metrics, regression_metrics
 from glassbox.provenance import frame_fingerprint, library_versions
 from glassbox.schema import Schema, prepare
 
@@ -64,3 +65,13 @@ def fit_model(
     }
     link = "logit" if task == "classification" else "identity"
     return AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles, metadata)
+
+
+def training_fit(model: AdditiveModel, frame: pd.DataFrame,
+                 source: str | None = None) -> dict[str, float]:
+    """In-sample accuracy of a model on the frame it was fitted on (optimistic by nature)."""
+    prepared = prepare(frame, model.schema, source=source, features=model.features)
+    score = model.score_encoded(prepared.features)
+    if model.task == "classification":
+        return classification_metrics(prepared.target, model.inverse_link(score))
+    return regression_metrics(prepared.target, score)

@@ -1,0 +1,3 @@
+from glassbox.cli import main
+
+main()

@@ -1,0 +1,121 @@
+"""Rich renderings of the library's results, built at the last moment for the CLI.
+
+Library functions return DataFrames and dicts; this module only arranges them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from rich import box
+from rich.console import Group, RenderableType
+from rich.table import Table
+from rich.text import Text
+
+from glassbox.additive import AdditiveModel
+
+TERMINAL_ROWS = 16  # long curves are shown at about this many rows; files keep every row
+HEADINGS = {
+    "training_share": "share of training rows",
+    "contribution": "contribution",
+    "lower": "band low",
+    "upper": "band high",
+    "importance": "importance",
+    "observed": "observed shape",
+    "declared": "declared",
+}
+
+
+def cell(value: Any, digits: int = 4) -> str:
+    """A value as short text: numbers to `digits` significant figures, blanks for gaps."""
+    if value is None:
+        return ""
+    if isinstance(value, float | np.floating):
+        if np.isnan(value):
+            return ""
+        if np.isinf(value):
+            return "∞" if value > 0 else "-∞"
+        return f"{value:.{digits}g}"
+    return str(value)
+
+
+def frame_table(frame: pd.DataFrame, title: str | None = None,
+                columns: Sequence[str] | None = None, digits: int = 4) -> Table:
+    """A DataFrame as a rich table; numeric columns right-aligned."""
+    columns = list(columns or frame.columns)
+    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
+                  title_style="bold", header_style="bold")
+    for name in columns:
+        numeric = pd.api.types.is_numeric_dtype(frame[name].dtype)
+        table.add_column(HEADINGS.get(name, name.replace("_", " ")),
+                         justify="right" if numeric else "left")
+    for row in frame[columns].itertuples(index=False):
+        table.add_row(*(cell(value, digits) for value in row))
+    return table
+
+
+def thin_rows(table: pd.DataFrame, most: int = TERMINAL_ROWS) -> pd.DataFrame:
+    """At most `most` rows, evenly spaced, always keeping the first and the last."""
+    if len(table) <= most:
+        return table
+    keep = np.unique(np.round(np.linspace(0, len(table) - 1, most)).astype(int))
+    return table.iloc[keep]
+
+
+def key_values(pairs: Mapping[str, Any], title: str | None = None) -> Table:
+    table = Table(title=title, box=None, show_header=False, title_justify="left",
+                  title_style="bold", pad_edge=False)
+    table.add_column(style="bold")
+    table.add_column()
+    for key, value in pairs.items():
+        table.add_row(key, cell(value))
+    return table
+
+
+def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> RenderableType:
+    """What `glassbox fit` prints: where the model went, what it uses, how well it fits."""
+    meta = model.metadata
+    pairs: dict[str, Any] = {
+        "model file": path,
+        "family": meta.get("family", ""),
+        "training rows": meta.get("rows", ""),
+        "features used": f"{len(model.terms)}: {', '.join(model.features)}",
+    }
+    left_out = [f.name for f in model.schema.used_features if f.name not in model.features]
+    if left_out:
+        pairs["features left out"] = ", ".join(left_out)
+    protected = [f.name for f in model.schema.protected_features]
+    if protected:
+        pairs["protected (never inputs)"] = ", ".join(protected)
+    names = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier score",
+             "accuracy": "accuracy at 0.5", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+    for key, value in fit.items():
+        pairs[f"{names.get(key, key)} (training rows)"] = value
+    return key_values(pairs, title="Fitted")
+
+
+def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> RenderableType:
+    """The summary table, then each feature's table (long curves thinned)."""
+    parts: list[RenderableType] = [
+        frame_table(summary, title="Features by importance (mean |contribution|, link scale)")
+    ]
+    for feature, table in tables.items():
+        shown = thin_rows(table)
+        title = f"{feature}"
+        if len(shown) < len(table):
+            title += f" ({len(shown)} of {len(table)} rows; files hold all)"
+        columns = [c for c in ("row", "contribution", "lower", "upper", "training_share")
+                   if c in table.columns and not table[c].isna().all()]
+        parts.append(frame_table(shown, title=title, columns=columns))
+    return Group(*parts)
+
+
+def error_text(message: str) -> Text:
+    return Text.assemble(("error: ", "bold red"), message)
+
+
+def warning_text(message: str) -> Text:
+    return Text.assemble(("warning: ", "bold yellow"), message)

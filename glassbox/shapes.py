@@ -1,0 +1,208 @@
+"""Shape tables: what each term does, as DataFrames, and writers for them.
+
+Every row is read straight from the model's own tables; importance and
+training shares come from the training profile kept in the model (101
+percentiles, level counts), so no data file is needed.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm, Term
+from glassbox.errors import OptionError
+
+FORMATS = ("table", "csv", "markdown", "json")
+TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "lower", "upper",
+                 "training_share")
+SUMMARY_COLUMNS = ("feature", "kind", "term", "importance", "lowest", "highest",
+                   "observed", "declared")
+
+
+def _share_at_most(profile: FeatureProfile, value: float) -> float:
+    """Share of training rows at or below `value`, read off the percentile grid."""
+    points = np.asarray(profile.percentiles)
+    step = 1.0 / (len(points) - 1)
+    if value < points[0]:
+        return 0.0
+    if value >= points[-1]:
+        return 1.0
+    above = int(np.searchsorted(points, value, side="right"))  # points[above-1] <= value
+    low, high = points[above - 1], points[above]
+    return float((above - 1) * step + (value - low) / (high - low) * step)
+
+
+def _share_between(profile: FeatureProfile, low: float, high: float,
+                   include_low: bool) -> float:
+    """Share of training rows in (low, high], or [low, high] when `include_low`."""
+    below = 0.0 if include_low and low <= profile.percentiles[0] else _share_at_most(
+        profile, low)
+    return max(0.0, _share_at_most(profile, high) - below)
+
+
+def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
+    """The rows of one term: where it applies, its contribution, its band, its share."""
+    term = model.term(feature)
+    profile = _profile_or_none(model, feature)
+    rows: list[dict[str, Any]] = []
+    lower = term.lower if term.lower is not None else [None] * len(term.values)
+    upper = term.upper if term.upper is not None else [None] * len(term.values)
+    if isinstance(term, CurveTerm):
+        for index, (knot, value) in enumerate(zip(term.knots, term.values, strict=True)):
+            nxt = term.knots[index + 1] if index + 1 < len(term.knots) else None
+            share = None
+            if profile is not None and profile.percentiles:
+                share = (_share_between(profile, knot, nxt, index == 0) if nxt is not None
+                         else 0.0)
+            rows.append({"row": f"at {knot:.6g}", "from": knot, "to": nxt,
+                         "contribution": value, "lower": lower[index], "upper": upper[index],
+                         "training_share": share})
+    elif isinstance(term, StepTerm):
+        bounds = [-np.inf, *term.edges, np.inf]
+        for index, value in enumerate(term.values):
+            low, high = bounds[index], bounds[index + 1]
+            share = None
+            if profile is not None and profile.percentiles:
+                share = _share_between(profile, low, high, False)
+            rows.append({"row": _interval_text(low, high), "from": low, "to": high,
+                         "contribution": value, "lower": lower[index], "upper": upper[index],
+                         "training_share": share})
+    else:
+        counts = dict(profile.level_counts) if profile is not None else {}
+        total = sum(counts.values())
+        for index, (level, value) in enumerate(zip(term.levels, term.values, strict=True)):
+            rows.append({"row": level, "from": None, "to": None, "contribution": value,
+                         "lower": lower[index], "upper": upper[index],
+                         "training_share": counts.get(level, 0) / total if total else None})
+        rows.append({"row": "(level not seen in training)", "from": None, "to": None,
+                     "contribution": term.unseen, "lower": None, "upper": None,
+                     "training_share": 0.0 if total else None})
+    table = pd.DataFrame(rows)
+    table.insert(0, "feature", feature)
+    return table.reindex(columns=list(TABLE_COLUMNS))
+
+
+def _interval_text(low: float, high: float) -> str:
+    if np.isinf(low):
+        return f"≤ {high:.6g}"
+    if np.isinf(high):
+        return f"> {low:.6g}"
+    return f"{low:.6g} < x ≤ {high:.6g}"
+
+
+def _profile_or_none(model: AdditiveModel, feature: str) -> FeatureProfile | None:
+    for profile in model.profiles:
+        if profile.feature == feature:
+            return profile
+    return None
+
+
+def term_importance(model: AdditiveModel, term: Term) -> float:
+    """Mean absolute contribution over the training rows, from the training profile.
+
+    Numeric features average over the 101 training percentiles (an even-weight
+    summary of the training distribution); categories weight levels by count.
+    """
+    profile = _profile_or_none(model, term.feature)
+    if profile is None:
+        return float(np.mean(np.abs(term.values)))
+    if isinstance(term, LevelsTerm):
+        counts = dict(profile.level_counts)
+        total = sum(counts.values()) or 1
+        return float(sum(abs(v) * counts.get(level, 0)
+                         for level, v in zip(term.levels, term.values, strict=True)) / total)
+    points = np.asarray(profile.percentiles)
+    # midpoints between percentiles stand for the 1% slices of the training rows
+    middles = (points[:-1] + points[1:]) / 2
+    return float(np.mean(np.abs(term.evaluate(middles))))
+
+
+def observed_direction(term: Term) -> str:
+    """'increasing', 'decreasing', 'flat' or 'neither' for an ordered term; '' for levels."""
+    if isinstance(term, LevelsTerm):
+        return ""
+    steps = np.diff(np.asarray(term.values))
+    if np.all(np.abs(steps) <= 1e-12):
+        return "flat"
+    if np.all(steps >= -1e-12):
+        return "increasing"
+    if np.all(steps <= 1e-12):
+        return "decreasing"
+    return "neither"
+
+
+def summary(model: AdditiveModel) -> pd.DataFrame:
+    """One line per feature, most important first."""
+    rows = []
+    for term in model.terms:
+        spec = model.schema.feature(term.feature)
+        rows.append({
+            "feature": term.feature, "kind": spec.kind, "term": term.kind,
+            "importance": term_importance(model, term),
+            "lowest": float(min(term.values)), "highest": float(max(term.values)),
+            "observed": observed_direction(term), "declared": spec.monotone or "",
+        })
+    table = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
+    return table.sort_values(["importance", "feature"], ascending=[False, True],
+                             kind="mergesort").reset_index(drop=True)
+
+
+def all_tables(model: AdditiveModel, feature: str | None = None) -> pd.DataFrame:
+    """Every term's rows stacked (or one feature's), in order of importance."""
+    names = [feature] if feature else list(summary(model)["feature"])
+    if feature:
+        model.term(feature)  # a clear error for an unknown feature
+    return pd.concat([term_table(model, name) for name in names], ignore_index=True)
+
+
+# ---------------------------------------------------------------- writers
+
+
+def to_csv(table: pd.DataFrame) -> str:
+    return table.to_csv(index=False, lineterminator="\n", float_format="%.10g")
+
+
+def to_markdown(table: pd.DataFrame, digits: int = 4) -> str:
+    """A GitHub-style Markdown table."""
+    def cell(value: Any) -> str:
+        if value is None or (isinstance(value, float) and np.isnan(value)):
+            return ""
+        if isinstance(value, float):
+            return f"{value:.{digits}g}"
+        return str(value).replace("|", "\\|")
+
+    lines = ["| " + " | ".join(table.columns) + " |",
+             "|" + "|".join("---" for _ in table.columns) + "|"]
+    for row in table.itertuples(index=False):
+        lines.append("| " + " | ".join(cell(v) for v in row) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def to_json(table: pd.DataFrame) -> str:
+    records = [{key: _json_value(value) for key, value in row.items()}
+               for row in table.to_dict(orient="records")]
+    return json.dumps(records, indent=1, ensure_ascii=False) + "\n"
+
+
+def _json_value(value: Any) -> Any:
+    if isinstance(value, float | np.floating):
+        if np.isnan(value):
+            return None
+        if np.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return float(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
+
+
+def write(table: pd.DataFrame, fmt: str) -> str:
+    """A table as text in one of the file formats."""
+    writers = {"csv": to_csv, "markdown": to_markdown, "json": to_json}
+    if fmt not in writers:
+        raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(writers)})")
+    return writers[fmt](table)
