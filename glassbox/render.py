@@ -19,12 +19,14 @@ from glassbox.additive import AdditiveModel
 
 TERMINAL_ROWS = 16  # long curves are shown at about this many rows; files keep every row
 HEADINGS = {
-    "training_share": "share of training rows",
+    "training_share": "training share",
+    "training_percentile": "training percentile",
+    "slope": "slope per unit",
     "contribution": "contribution",
     "lower": "band low",
     "upper": "band high",
     "importance": "importance",
-    "observed": "observed shape",
+    "observed": "observed",
     "declared": "declared",
 }
 
@@ -38,6 +40,8 @@ def cell(value: Any, digits: int = 4) -> str:
             return ""
         if np.isinf(value):
             return "∞" if value > 0 else "-∞"
+        if abs(value) < 1e-12:
+            return "0"
         return f"{value:.{digits}g}"
     return str(value)
 
@@ -47,11 +51,11 @@ def frame_table(frame: pd.DataFrame, title: str | None = None,
     """A DataFrame as a rich table; numeric columns right-aligned."""
     columns = list(columns or frame.columns)
     table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
-                  title_style="bold", header_style="bold")
-    for name in columns:
+                  title_style="bold", header_style="bold", pad_edge=False)
+    for position, name in enumerate(columns):
         numeric = pd.api.types.is_numeric_dtype(frame[name].dtype)
         table.add_column(HEADINGS.get(name, name.replace("_", " ")),
-                         justify="right" if numeric else "left")
+                         justify="right" if numeric else "left", no_wrap=position == 0)
     for row in frame[columns].itertuples(index=False):
         table.add_row(*(cell(value, digits) for value in row))
     return table
@@ -100,14 +104,18 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> RenderableType:
     """The summary table, then each feature's table (long curves thinned)."""
     parts: list[RenderableType] = [
-        frame_table(summary, title="Features by importance (mean |contribution|, link scale)")
+        frame_table(summary, title="Features by importance (mean |contribution|, link scale)",
+                    columns=["feature", "importance", "lowest", "highest", "observed",
+                             "declared"])
     ]
+    kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
         shown = thin_rows(table)
-        title = f"{feature}"
+        title = f"{feature} ({kinds.get(feature, 'term')})"
         if len(shown) < len(table):
             title += f" ({len(shown)} of {len(table)} rows; files hold all)"
-        columns = [c for c in ("row", "contribution", "lower", "upper", "training_share")
+        columns = [c for c in ("row", "contribution", "slope", "lower", "upper",
+                               "training_percentile", "training_share")
                    if c in table.columns and not table[c].isna().all()]
         parts.append(frame_table(shown, title=title, columns=columns))
     return Group(*parts)

