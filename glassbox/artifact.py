@@ -108,7 +108,7 @@ def loads(text: str, source: str = "<text>") -> AdditiveModel:
     try:
         document = json.loads(text)
     except json.JSONDecodeError as exc:
-        if exc.pos >= len(text.rstrip()) - 1:
+        if not text.rstrip().endswith("}") or exc.pos >= len(text.rstrip()) - 1:
             raise ModelFileError(f"model file {source} ends too early: it looks truncated "
                                  "(written only in part?)") from None
         raise ModelFileError(f"model file {source} is not valid JSON (line {exc.lineno}, "

@@ -6,7 +6,7 @@ import functools
 import sys
 import warnings
 from collections.abc import Callable
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -28,11 +28,11 @@ app = typer.Typer(
 EXIT_USER_ERROR = 2
 
 
-class Family(str, Enum):
+class Family(StrEnum):
     sparse = "sparse"
 
 
-class TableFormat(str, Enum):
+class TableFormat(StrEnum):
     table = "table"
     csv = "csv"
     markdown = "markdown"

@@ -280,7 +280,8 @@ def read_table(path: str | Path) -> pd.DataFrame:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise DataError(f"data file {path} could not be read: {first}") from None
     except ImportError:
-        raise DataError(f"reading Parquet file {path} needs pyarrow (pip install pyarrow)") from None
+        raise DataError(f"reading Parquet file {path} needs pyarrow "
+                        "(pip install pyarrow)") from None
     if frame.shape[0] == 0:
         raise DataError(f"data file {path} has a header but no data rows")
     frame.attrs["source"] = str(path)

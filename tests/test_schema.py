@@ -157,3 +157,14 @@ def test_protected_columns_are_never_model_inputs(loans, loans_schema):
     prepared = prepare(loans, loans_schema)
     assert "owner_age_band" not in prepared.features.columns
     assert list(prepared.protected.columns) == ["owner_age_band"]
+
+
+def test_parquet_reads_like_csv(tmp_path, loans):
+    path = tmp_path / "loans.parquet"
+    loans.to_parquet(path, index=False)
+    again = read_table(path)
+    pd.testing.assert_frame_equal(again, loans, check_dtype=False)
+    broken = tmp_path / "broken.parquet"
+    broken.write_bytes(b"PAR1 not really")
+    with pytest.raises(DataError, match="broken.parquet could not be read"):
+        read_table(broken)

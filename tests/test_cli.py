@@ -1,0 +1,126 @@
+"""The glassbox command end to end, as a user types it; errors are one line and exit 2."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from glassbox import __version__
+from glassbox.cli import app
+
+from .conftest import DEMO
+
+runner = CliRunner()
+
+
+def run(*args: str):
+    return runner.invoke(app, [str(a) for a in args])
+
+
+@pytest.fixture(scope="module")
+def model_file(tmp_path_factory):
+    path = tmp_path_factory.mktemp("cli") / "loans.json"
+    result = run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                 "--max-features", "5", "--out", path)
+    assert result.exit_code == 0, result.output
+    return path
+
+
+def test_version():
+    result = run("--version")
+    assert result.exit_code == 0 and result.output.strip() == f"glassbox {__version__}"
+
+
+def test_schema_to_stdout_and_file(tmp_path):
+    result = run("schema", DEMO / "loans.csv", "--target", "defaulted")
+    assert result.exit_code == 0
+    assert 'column = "defaulted"' in result.stdout and "[feature.sector]" in result.stdout
+    out = tmp_path / "s.toml"
+    assert run("schema", DEMO / "loans.csv", "--target", "defaulted", "--out", out).exit_code == 0
+    assert out.read_text() == result.stdout
+
+
+def test_fit_prints_what_it_did(model_file):
+    result = run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                 "--max-features", "5", "--out", model_file.with_name("again.json"))
+    assert "features used" in result.output and "owner_age_band" in result.output
+    assert model_file.with_name("again.json").read_bytes() == model_file.read_bytes()
+
+
+def test_score_writes_csv_with_ids_and_contributions(model_file, tmp_path):
+    out = tmp_path / "scores.csv"
+    result = run("score", model_file, DEMO / "loans.csv", "--out", out)
+    assert result.exit_code == 0, result.output
+    table = pd.read_csv(out)
+    assert list(table.columns[:3]) == ["application_id", "score", "probability"]
+    assert len(table) == 5000
+    parts = table.filter(like="contribution:").sum(axis=1) + table["intercept"]
+    assert (parts - table["score"]).abs().max() < 1e-8
+    stdout = run("score", model_file, DEMO / "loans.csv", "--no-contributions")
+    assert stdout.stdout.splitlines()[0] == "application_id,score,probability"
+
+
+@pytest.mark.parametrize("fmt", ["csv", "markdown", "json"])
+def test_shapes_formats(model_file, fmt, tmp_path):
+    out = tmp_path / f"shapes.{fmt}"
+    assert run("shapes", model_file, "--format", fmt, "--out", out).exit_code == 0
+    text = out.read_text()
+    if fmt == "json":
+        rows = json.loads(text)
+        assert {row["feature"] for row in rows} <= set(pd.read_csv(DEMO / "loans.csv").columns)
+    elif fmt == "markdown":
+        assert text.startswith("| feature | row |")
+    else:
+        assert text.startswith("feature,row,")
+
+
+def test_shapes_table_in_terminal(model_file):
+    result = run("shapes", model_file)
+    assert result.exit_code == 0
+    assert "Features by importance" in result.stdout
+    one = run("shapes", model_file, "--feature", "late_payments_24m")
+    assert "late_payments_24m (curve)" in one.stdout and "annual_revenue (" not in one.stdout
+
+
+def one_line_error(result, *fragments: str) -> None:
+    assert result.exit_code == 2, result.output
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    text = " ".join(lines)
+    assert text.startswith("error: "), result.output
+    assert "Traceback" not in result.output
+    for fragment in fragments:
+        assert fragment in text, text
+
+
+def test_errors_are_one_clear_line(tmp_path, model_file):
+    one_line_error(run("fit", tmp_path / "none.csv", "--schema", DEMO / "loans.schema.toml",
+                       "--out", tmp_path / "m.json"), "none.csv", "does not exist")
+    bad = tmp_path / "bad.csv"
+    bad.write_text(open(DEMO / "loans.csv").read().replace(",279.8,", ",lots,", 1))
+    one_line_error(run("fit", bad, "--schema", DEMO / "loans.schema.toml", "--out",
+                       tmp_path / "m.json"), "bad.csv", "annual_revenue", "data row 1")
+    one_line_error(run("schema", DEMO / "loans.csv", "--target", "nope"), "nope")
+    broken = tmp_path / "broken.json"
+    broken.write_text(model_file.read_text()[:100])
+    one_line_error(run("shapes", broken), "broken.json", "truncated")
+    one_line_error(run("shapes", model_file, "--feature", "owner_age_band"),
+                   "no term for 'owner_age_band'")
+    one_line_error(run("score", model_file, DEMO / "listings.csv"), "listings.csv", "missing")
+    assert not (tmp_path / "m.json").exists()
+
+
+def test_unseen_level_is_a_warning_not_an_error(tmp_path):
+    full = tmp_path / "full.json"
+    assert run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+               "--out", full).exit_code == 0
+    frame = pd.read_csv(DEMO / "loans.csv").head(5)
+    frame.loc[0, "sector"] = "space tourism"
+    path = tmp_path / "new.csv"
+    frame.to_csv(path, index=False)
+    result = run("score", full, path)
+    assert result.exit_code == 0
+    assert "warning:" in result.output and "'space tourism'" in result.output
+    assert "1 row(s)" in result.output
