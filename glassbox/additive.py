@@ -117,9 +117,9 @@ class LevelsTerm:
         _band(self, np.asarray(self.values))
 
     def evaluate(self, column: np.ndarray) -> np.ndarray:
-        lookup = dict(zip(self.levels, self.values, strict=True))
-        values = np.array([lookup.get(v, np.nan) for v in column], dtype=float)
-        unseen = np.isnan(values)
+        position = pd.Index(self.levels).get_indexer(np.asarray(column, dtype=object))
+        unseen = position < 0
+        values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
         if unseen.any():
             strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
             warnings.warn(

@@ -372,7 +372,8 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
                             "value in the schema or clean the data")
         values = values.astype(object).where(~missing, spec.fill)
     if spec.kind == "category":
-        return pd.Series([label_text(v) for v in values], index=column.index, dtype=object)
+        return pd.Series(_labels(values).to_numpy(dtype=object), index=column.index,
+                         dtype=object)
     if spec.kind == "flag":
         return _encode_flag(values, spec, where)
     numbers = pd.to_numeric(values, errors="coerce")
@@ -403,8 +404,15 @@ def _missing_mask(values: pd.Series) -> np.ndarray:
     return mask
 
 
+def _labels(values: pd.Series) -> pd.Series:
+    """`label_text` of every value, computed once per distinct value."""
+    distinct = pd.unique(values.to_numpy(dtype=object))
+    lookup = {value: label_text(value) for value in distinct}
+    return pd.Series(values.to_numpy(dtype=object), index=values.index).map(lookup)
+
+
 def _encode_flag(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
-    words = values.map(label_text).str.lower()
+    words = _labels(values).str.lower()
     truthy = words.isin(TRUE_WORDS).to_numpy()
     falsy = words.isin(FALSE_WORDS).to_numpy()
     bad = ~(truthy | falsy)
@@ -425,7 +433,7 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     if schema.target.task == "regression":
         spec = FeatureSpec(name, "number")
         return encode_column(column, spec, where).to_numpy(dtype=float)
-    labels = column.map(label_text)
+    labels = _labels(column)
     distinct = sorted(set(labels))
     if len(distinct) > 2:
         shown = ", ".join(repr(v) for v in distinct[:6])

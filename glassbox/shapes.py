@@ -58,7 +58,10 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
             percentile = None
             if profile is not None and profile.percentiles:
                 percentile = 100.0 * _share_at_most(profile, knot)
-            rows.append({"row": f"{knot:.6g}", "from": knot, "to": knot,
+            label = f"{knot:.6g}"
+            if model.schema.feature(feature).kind == "flag":
+                label = {0.0: "no (0)", 1.0: "yes (1)"}.get(float(knot), label)
+            rows.append({"row": label, "from": knot, "to": knot,
                          "contribution": value, "slope": slope, "lower": lower[index],
                          "upper": upper[index], "training_percentile": percentile})
     elif isinstance(term, StepTerm):

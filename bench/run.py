@@ -1,0 +1,151 @@
+"""Benchmarks, run by `make bench`; writes bench/RESULTS.md.
+
+The machines are shared and noisy, so each comparison is timed side by side in
+one run, alternating the contenders repeat by repeat, and reported as a ratio of
+medians.
+"""
+
+from __future__ import annotations
+
+import platform
+import statistics
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from glassbox import artifact, fit_model  # noqa: E402
+from glassbox.families import sparse  # noqa: E402
+from glassbox.provenance import library_versions  # noqa: E402
+from glassbox.schema import load_schema, prepare, read_table  # noqa: E402
+
+REPEATS = 7
+
+
+def timed(task: Callable[[], object]) -> float:
+    start = time.perf_counter()
+    task()
+    return time.perf_counter() - start
+
+
+def side_by_side(tasks: dict[str, Callable[[], object]], repeats: int = REPEATS) -> dict:
+    """Median seconds of each task, alternating them so drift hits all alike."""
+    times: dict[str, list[float]] = {name: [] for name in tasks}
+    for task in tasks.values():  # warm-up
+        task()
+    for _ in range(repeats):
+        for name, task in tasks.items():
+            times[name].append(timed(task))
+    return {name: statistics.median(values) for name, values in times.items()}
+
+
+def data_sets(folder: Path) -> dict[str, tuple]:
+    """The demo loans and the 20,000-row, 20-feature version, generated fresh."""
+    import runpy
+
+    runpy.run_path(str(ROOT / "demo_data" / "make_demo.py"))["main"](
+        ["--out", str(folder), "--big"])
+    out = {}
+    for name in ("loans", "loans_big"):
+        frame = read_table(folder / f"{name}.csv")
+        out[name] = (frame, load_schema(folder / f"{name}.schema.toml"))
+    return out
+
+
+def scoring_rows(sets: dict[str, tuple]) -> list[str]:
+    lines = ["## Scoring: the model's tables against scikit-learn's own fitted model",
+             "",
+             "Same rows, same fitted model. `tables` scores a raw frame through the",
+             "`AdditiveModel` (validation, typing and table look-ups included);",
+             "`tables, typed` starts from the already validated frame (look-ups only);",
+             "`scikit-learn` is the refitted `LogisticRegression.decision_function` on the",
+             "already standardised design matrix (no validation, no typing).",
+             "",
+             "| data | rows | tables (ms) | tables, typed (ms) | scikit-learn (ms) | "
+             "ratio tables / scikit-learn | ratio typed / scikit-learn |",
+             "|---|---:|---:|---:|---:|---:|---:|"]
+    gaps: list[str] = []
+    for name, (frame, schema) in sets.items():
+        prepared = prepare(frame, schema)
+        estimator, design, chosen, _ = sparse.fit_estimator(
+            prepared.features, prepared.target, schema, task="classification")
+        model = fit_model(frame, schema, "sparse")
+        matrix = design.matrix[:, design.columns_of(set(chosen))]
+        gap = np.max(np.abs(model.score(frame) - estimator.decision_function(matrix)))
+        typed = prepared.features
+        result = side_by_side({
+            "tables": lambda m=model, f=frame: m.score(f),
+            "typed": lambda m=model, t=typed: m.score_encoded(t),
+            "sklearn": lambda e=estimator, x=matrix: e.decision_function(x),
+        })
+        base = result["sklearn"]
+        lines.append(f"| {name} | {len(frame):,} | {result['tables'] * 1e3:.1f} | "
+                     f"{result['typed'] * 1e3:.1f} | {base * 1e3:.2f} | "
+                     f"{result['tables'] / base:.0f} | {result['typed'] / base:.0f} |")
+        gaps.append(f"{name}: {gap:.1e}")
+    lines += ["", "Largest absolute difference between the two scores (logit scale): "
+              + "; ".join(gaps) + "."]
+    return lines
+
+
+def fitting_rows(sets: dict[str, tuple]) -> list[str]:
+    lines = ["## Fitting the sparse family: no limit against `--max-features 4`",
+             "",
+             "The limit adds the L1 path (40 penalties) before the unpenalised refit.",
+             "",
+             "| data | rows × features | no limit (s) | max 4 (s) | ratio max 4 / no limit |",
+             "|---|---:|---:|---:|---:|"]
+    for name, (frame, schema) in sets.items():
+        result = side_by_side({
+            "all": lambda f=frame, s=schema: fit_model(f, s, "sparse"),
+            "four": lambda f=frame, s=schema: fit_model(f, s, "sparse", max_features=4),
+        }, repeats=3)
+        lines.append(f"| {name} | {len(frame):,} × {len(schema.used_features)} | "
+                     f"{result['all']:.2f} | {result['four']:.2f} | "
+                     f"{result['four'] / result['all']:.1f} |")
+    return lines
+
+
+def file_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
+    lines = ["## Model files: save against load (checksum verified on load)",
+             "",
+             "| data | file size (KB) | save (ms) | load (ms) | ratio load / save |",
+             "|---|---:|---:|---:|---:|"]
+    for name, (frame, schema) in sets.items():
+        model = fit_model(frame, schema, "sparse")
+        path = folder / f"{name}.json"
+        artifact.save(model, path)
+        result = side_by_side({"save": lambda m=model, p=path: artifact.save(m, p),
+                               "load": lambda p=path: artifact.load(p)})
+        lines.append(f"| {name} | {path.stat().st_size / 1024:.0f} | "
+                     f"{result['save'] * 1e3:.1f} | {result['load'] * 1e3:.1f} | "
+                     f"{result['load'] / result['save']:.1f} |")
+    return lines
+
+
+def main() -> None:
+    with tempfile.TemporaryDirectory() as scratch:
+        folder = Path(scratch)
+        sets = data_sets(folder)
+        sections = [scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder)]
+    versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
+    header = ["# Benchmark results", "",
+              "Written by `make bench` (bench/run.py). Ratios compare contenders timed",
+              f"side by side in one run (medians of {REPEATS} alternating repeats, after a",
+              "warm-up); absolute times vary with the shared machine.", "",
+              f"Machine: {platform.machine()}, {platform.processor() or 'cpu'}; "
+              f"Python {platform.python_version()}.", f"Libraries: {versions}.", ""]
+    body = [line for section in sections for line in [*section, ""]]
+    text = "\n".join(header + body)
+    (ROOT / "bench" / "RESULTS.md").write_text(text, encoding="utf-8")
+    print(text)
+
+
+if __name__ == "__main__":
+    main()
