@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy.special import expit
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
@@ -40,10 +41,7 @@ class _AdditiveEstimator(BaseEstimator):
             raise ValueError(f"{type(self).__name__} requires y to be passed, but the target y "
                              "is None")
         if isinstance(X, pd.DataFrame):
-            if reset:
-                validate_data(self, X, skip_check_array=True, reset=True)
-            else:
-                validate_data(self, X, skip_check_array=True, reset=False)
+            validate_data(self, X, skip_check_array=True, reset=reset)
             frame = X.copy()
             frame.columns = [str(c) for c in frame.columns]
             if y is not None:
@@ -111,7 +109,7 @@ class AdditiveClassifier(ClassifierMixin, _AdditiveEstimator):
         return self._score(X)
 
     def predict_proba(self, X: Any) -> np.ndarray:
-        positive = 1.0 / (1.0 + np.exp(-self.decision_function(X)))
+        positive = expit(self.decision_function(X))
         return np.column_stack([1.0 - positive, positive])
 
     def predict(self, X: Any) -> np.ndarray:
