@@ -24,6 +24,7 @@ from glassbox.schema import Schema, prepare
 
 LINKS = ("logit", "identity")
 PERCENTILE_POINTS = 101
+FEW_VALUES = 64  # numeric features with at most this many distinct values keep exact counts
 
 
 def _floats(values: Sequence[float] | np.ndarray) -> tuple[float, ...]:
@@ -194,7 +195,8 @@ class FeatureProfile:
     """What the training data looked like for one feature.
 
     Numeric features keep 101 percentiles (0%, 1%, ..., 100%), the mean and the
-    median absolute deviation; categories keep their level counts.
+    median absolute deviation, and, when they take few distinct values (flags,
+    small counts), the count of each value; categories keep their level counts.
     """
 
     feature: str
@@ -203,6 +205,7 @@ class FeatureProfile:
     mean: float | None = None
     spread: float | None = None
     level_counts: tuple[tuple[str, int], ...] = ()
+    value_counts: tuple[tuple[float, int], ...] = ()
 
     @property
     def minimum(self) -> float:
@@ -219,6 +222,8 @@ class FeatureProfile:
                         median_absolute_deviation=self.spread)
         if self.level_counts:
             data["level_counts"] = {level: count for level, count in self.level_counts}
+        if self.value_counts:
+            data["value_counts"] = [[value, count] for value, count in self.value_counts]
         return data
 
     @classmethod
@@ -229,6 +234,7 @@ class FeatureProfile:
             percentiles=_floats(data.get("percentiles", ())),
             mean=data.get("mean"), spread=data.get("median_absolute_deviation"),
             level_counts=tuple((str(k), int(v)) for k, v in counts.items()),
+            value_counts=tuple((float(v), int(c)) for v, c in data.get("value_counts", ())),
         )
 
 
@@ -249,9 +255,12 @@ def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeaturePro
         grid = np.linspace(0, 100, PERCENTILE_POINTS)
         percentiles = np.percentile(values, grid)
         median = float(np.median(values))
+        distinct, counts = np.unique(values, return_counts=True)
+        value_counts = (tuple((float(v), int(c)) for v, c in zip(distinct, counts, strict=True))
+                        if len(distinct) <= FEW_VALUES else ())
         profiles.append(FeatureProfile(
             name, spec.kind, percentiles=_floats(percentiles), mean=float(values.mean()),
-            spread=float(np.median(np.abs(values - median))),
+            spread=float(np.median(np.abs(values - median))), value_counts=value_counts,
         ))
     return tuple(profiles)
 

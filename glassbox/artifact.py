@@ -11,13 +11,12 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
 from glassbox.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
 from glassbox.errors import GlassboxError, ModelFileError
+from glassbox.files import write_atomic
 from glassbox.schema import Schema
 
 FORMAT = "glassbox-model"
@@ -72,23 +71,6 @@ def dumps(model: AdditiveModel) -> str:
     document = {"format": FORMAT, "version": VERSION, "checksum": checksum(content),
                 "model": content}
     return json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
-
-
-def write_atomic(path: str | Path, text: str) -> None:
-    """Write text to a temporary file beside `path`, then rename it into place."""
-    path = Path(path)
-    folder = path.parent if str(path.parent) else Path(".")
-    if not folder.is_dir():
-        raise ModelFileError(f"cannot write {path}: folder {folder} does not exist")
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
-            out.write(text)
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
 
 
 def save(model: AdditiveModel, path: str | Path) -> Path:

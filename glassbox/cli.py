@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import contextlib
 import functools
+import json
 import sys
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
@@ -13,10 +15,10 @@ from typing import Annotated, Any
 import typer
 from rich.console import Console
 
-from glassbox import __version__, artifact, shapes
+from glassbox import __version__, artifact, plots, shapes
 from glassbox.additive import score_table
-from glassbox.artifact import write_atomic
-from glassbox.errors import GlassboxError
+from glassbox.errors import GlassboxError, OptionError
+from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, training_fit
 from glassbox.render import error_text, fit_view, shapes_view, warning_text
 from glassbox.schema import infer_schema, load_schema, read_table
@@ -30,6 +32,8 @@ EXIT_USER_ERROR = 2
 
 class Family(StrEnum):
     sparse = "sparse"
+    spline = "spline"
+    boosted = "boosted"
 
 
 class TableFormat(StrEnum):
@@ -119,13 +123,23 @@ def fit_command(
     out: Annotated[Path, typer.Option(help="Where to write the model file (JSON).")],
     family: Annotated[Family, typer.Option(help="Fitting family.")] = Family.sparse,
     max_features: Annotated[int | None, typer.Option(
-        help="Sparse family: use at most this many features.", min=1)] = None,
+        help="sparse: use at most this many features.", min=1)] = None,
+    ensemble: Annotated[int | None, typer.Option(
+        help="boosted: average this many seeds; the spread is the band.", min=1)] = None,
+    option: Annotated[list[str] | None, typer.Option(
+        "--option", metavar="NAME=VALUE",
+        help="Any family setting, e.g. --option splines=12 (repeatable).")] = None,
 ) -> None:
     """Fit a glass-box model and write it as a JSON model file."""
+    options = parse_options(option or [])
+    if max_features is not None:
+        options["max_features"] = max_features
+    if ensemble is not None:
+        options["ensemble"] = ensemble
     frame = read_table(data)
     spec = load_schema(schema)
-    options = {} if max_features is None else {"max_features": max_features}
-    model = fit_model(frame, spec, family.value, source=str(data), **options)
+    with progress_note(f"fitting the {family.value} family on {len(frame):,} rows"):
+        model = fit_model(frame, spec, family.value, source=str(data), **options)
     artifact.save(model, out)
     _stderr().print(fit_view(model, training_fit(model, frame, str(data)), str(out)))
 
@@ -153,11 +167,24 @@ def shapes_command(
     feature: Annotated[str | None, typer.Option(help="Only this feature.")] = None,
     format: Annotated[TableFormat, typer.Option(
         "--format", help="table (terminal), csv, markdown or json.")] = TableFormat.table,
-    out: Annotated[Path | None, typer.Option(help="Write the file here, not stdout.")] = None,
+    out: Annotated[Path | None, typer.Option(
+        help="A file for all rows, or a folder for a summary and one file per feature.")
+    ] = None,
+    plot: Annotated[Path | None, typer.Option(
+        metavar="DIR", help="Also write one PNG per feature and an importance overview.")
+    ] = None,
 ) -> None:
-    """Per-feature tables of what the model does, from the model file alone."""
+    """Per-feature tables (and pictures) of what the model does, from the model file."""
     model = artifact.load(model_file)
+    if feature:
+        model.term(feature)
+    if plot is not None:
+        with progress_note("drawing the shape functions"):
+            paths = plots.write_plots(model, plot, feature)
+        _stderr().print(f"wrote {len(paths)} picture(s) to {plot}/")
     if format is TableFormat.table:
+        if out is not None:
+            raise OptionError("--out needs a file format: add --format csv, markdown or json")
         names = [feature] if feature else list(shapes.summary(model)["feature"])
         tables = {name: shapes.term_table(model, name) for name in names}
         summary = shapes.summary(model)
@@ -165,7 +192,37 @@ def shapes_command(
             summary = summary[summary["feature"] == feature]
         _stdout().print(shapes_view(summary, tables))
         return
+    if out is not None and (out.is_dir() or not out.suffix):
+        paths = shapes.write_folder(model, out, format.value, feature)
+        _stderr().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
+        return
     _emit(shapes.write(shapes.all_tables(model, feature), format.value), out, "shape tables")
+
+
+def parse_options(pairs: list[str]) -> dict[str, Any]:
+    """NAME=VALUE pairs; values read as JSON when they parse (numbers, lists, true)."""
+    options: dict[str, Any] = {}
+    for pair in pairs:
+        name, equals, text = pair.partition("=")
+        if not equals or not name.strip():
+            raise OptionError(f"--option takes NAME=VALUE, not {pair!r}")
+        try:
+            value = json.loads(text)
+        except json.JSONDecodeError:
+            value = text
+        options[name.strip().replace("-", "_")] = value
+    return options
+
+
+@contextlib.contextmanager
+def progress_note(message: str) -> Iterator[None]:
+    """A spinner on standard error while a long step runs (nothing when not a terminal)."""
+    console = _stderr()
+    if not console.is_terminal:
+        yield
+        return
+    with console.status(message):
+        yield
 
 
 def main() -> None:

@@ -49,6 +49,8 @@ def fit_model(
     fitted = module.fit(features, target, schema, task=task, **settings)
     terms, shift = centre_terms(fitted.terms, features)
     used = [t.feature for t in terms]
+    importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
+                  for t in terms}
     profiles = profile_features(features, schema)
     metadata = {
         "family": family,
@@ -60,6 +62,7 @@ def fit_model(
         "data_sha256": frame_fingerprint(pd.concat(
             [features, pd.Series(target, index=features.index, name="__target__")], axis=1)),
         "features_used": used,
+        "importance": importance,
         "glassbox_version": __version__,
         "versions": library_versions(),
     }

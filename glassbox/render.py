@@ -16,8 +16,8 @@ from rich.table import Table
 from rich.text import Text
 
 from glassbox.additive import AdditiveModel
+from glassbox.shapes import readable_rows
 
-TERMINAL_ROWS = 16  # long curves are shown at about this many rows; files keep every row
 HEADINGS = {
     "training_share": "training share",
     "training_percentile": "training percentile",
@@ -61,14 +61,6 @@ def frame_table(frame: pd.DataFrame, title: str | None = None,
     return table
 
 
-def thin_rows(table: pd.DataFrame, most: int = TERMINAL_ROWS) -> pd.DataFrame:
-    """At most `most` rows, evenly spaced, always keeping the first and the last."""
-    if len(table) <= most:
-        return table
-    keep = np.unique(np.round(np.linspace(0, len(table) - 1, most)).astype(int))
-    return table.iloc[keep]
-
-
 def key_values(pairs: Mapping[str, Any], title: str | None = None) -> Table:
     table = Table(title=title, box=None, show_header=False, title_justify="left",
                   title_style="bold", pad_edge=False)
@@ -110,7 +102,7 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> Re
     ]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
-        shown = thin_rows(table)
+        shown = readable_rows(table)
         title = f"{feature} ({kinds.get(feature, 'term')})"
         if len(shown) < len(table):
             title += f" ({len(shown)} of {len(table)} rows; files hold all)"

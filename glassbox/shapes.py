@@ -8,6 +8,7 @@ percentiles, level counts), so no data file is needed.
 from __future__ import annotations
 
 import json
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -15,6 +16,7 @@ import pandas as pd
 
 from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm, Term
 from glassbox.errors import OptionError
+from glassbox.files import output_folder, safe_file_name, write_atomic
 
 FORMATS = ("table", "csv", "markdown", "json")
 TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "slope", "lower", "upper",
@@ -27,7 +29,7 @@ def _share_at_most(profile: FeatureProfile, value: float) -> float:
     """Share of training rows at or below `value`, read off the percentile grid."""
     points = np.asarray(profile.percentiles)
     step = 1.0 / (len(points) - 1)
-    if value < points[0]:
+    if value < points[0] or value == -np.inf:
         return 0.0
     if value >= points[-1]:
         return 1.0
@@ -37,7 +39,12 @@ def _share_at_most(profile: FeatureProfile, value: float) -> float:
 
 
 def _share_between(profile: FeatureProfile, low: float, high: float) -> float:
-    """Share of training rows in (low, high]."""
+    """Share of training rows in (low, high]: exact where value counts are kept."""
+    if profile.value_counts:
+        values = np.array([v for v, _ in profile.value_counts])
+        counts = np.array([c for _, c in profile.value_counts])
+        inside = (values > low) & (values <= high)
+        return float(counts[inside].sum() / counts.sum())
     return max(0.0, _share_at_most(profile, high) - _share_at_most(profile, low))
 
 
@@ -55,15 +62,20 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
             last = index + 1 == len(term.knots)
             slope = None if last else ((term.values[index + 1] - value)
                                        / (term.knots[index + 1] - knot))
-            percentile = None
+            percentile = share = None
             if profile is not None and profile.percentiles:
                 percentile = 100.0 * _share_at_most(profile, knot)
+                # the rows nearest this knot: between the midpoints to its neighbours
+                low = -np.inf if index == 0 else (term.knots[index - 1] + knot) / 2
+                high = np.inf if last else (knot + term.knots[index + 1]) / 2
+                share = _share_between(profile, low, high)
             label = f"{knot:.6g}"
             if model.schema.feature(feature).kind == "flag":
                 label = {0.0: "no (0)", 1.0: "yes (1)"}.get(float(knot), label)
             rows.append({"row": label, "from": knot, "to": knot,
                          "contribution": value, "slope": slope, "lower": lower[index],
-                         "upper": upper[index], "training_percentile": percentile})
+                         "upper": upper[index], "training_percentile": percentile,
+                         "training_share": share})
     elif isinstance(term, StepTerm):
         bounds = [-np.inf, *term.edges, np.inf]
         for index, value in enumerate(term.values):
@@ -89,6 +101,25 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
     return table.reindex(columns=list(TABLE_COLUMNS))
 
 
+def readable_rows(table: pd.DataFrame, most: int = 16) -> pd.DataFrame:
+    """At most `most` rows of a long table, for reading in a terminal.
+
+    Curve rows are chosen at evenly spaced training percentiles (the knot nearest
+    each), so the rows follow where the data lies; other tables evenly by position.
+    The first and last rows are always kept.
+    """
+    if len(table) <= most:
+        return table
+    if table["training_percentile"].notna().all():
+        targets = np.linspace(0.0, 100.0, most)
+        percentiles = table["training_percentile"].to_numpy(dtype=float)
+        keep = {int(np.argmin(np.abs(percentiles - target))) for target in targets}
+    else:
+        keep = set(np.round(np.linspace(0, len(table) - 1, most)).astype(int).tolist())
+    keep |= {0, len(table) - 1}
+    return table.iloc[sorted(keep)]
+
+
 def _interval_text(low: float, high: float) -> str:
     if np.isinf(low):
         return f"≤ {high:.6g}"
@@ -105,11 +136,15 @@ def _profile_or_none(model: AdditiveModel, feature: str) -> FeatureProfile | Non
 
 
 def term_importance(model: AdditiveModel, term: Term) -> float:
-    """Mean absolute contribution over the training rows, from the training profile.
+    """Mean absolute contribution over the training rows.
 
-    Numeric features average over the 101 training percentiles (an even-weight
-    summary of the training distribution); categories weight levels by count.
+    Exact when the model file records it (every fit does); otherwise estimated
+    from the training profile: numeric features over the 1% slices between the
+    101 percentiles, categories weighting levels by count.
     """
+    recorded = model.metadata.get("importance", {})
+    if term.feature in recorded:
+        return float(recorded[term.feature])
     profile = _profile_or_none(model, term.feature)
     if profile is None:
         return float(np.mean(np.abs(term.values)))
@@ -209,3 +244,25 @@ def write(table: pd.DataFrame, fmt: str) -> str:
     if fmt not in writers:
         raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(writers)})")
     return writers[fmt](table)
+
+
+SUFFIXES = {"csv": ".csv", "markdown": ".md", "json": ".json"}
+
+
+def write_folder(model: AdditiveModel, folder: str | Path, fmt: str,
+                 feature: str | None = None) -> list[Path]:
+    """`summary.EXT` and one `FEATURE.EXT` per feature in a folder; return the paths."""
+    if fmt not in SUFFIXES:
+        raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(SUFFIXES)})")
+    folder = output_folder(folder, "tables")
+    table = summary(model)
+    if feature:
+        model.term(feature)
+        table = table[table["feature"] == feature]
+    paths = [folder / f"summary{SUFFIXES[fmt]}"]
+    write_atomic(paths[0], write(table, fmt))
+    for name in table["feature"]:
+        path = folder / f"{safe_file_name(name)}{SUFFIXES[fmt]}"
+        write_atomic(path, write(term_table(model, name), fmt))
+        paths.append(path)
+    return paths

@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pytest
 
-from glassbox import artifact, fit_model
+from glassbox import artifact, files, fit_model
 from glassbox.errors import ModelFileError
 
 
@@ -98,7 +98,7 @@ def test_write_is_atomic_and_leaves_no_temporary_file(model, tmp_path, monkeypat
     def broken(*args, **kwargs):
         raise OSError("disk full")
 
-    monkeypatch.setattr(artifact.os, "replace", broken)
+    monkeypatch.setattr(files.os, "replace", broken)
     with pytest.raises(OSError):
         artifact.save(model, path)
     assert path.read_bytes() == before

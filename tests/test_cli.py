@@ -124,3 +124,21 @@ def test_unseen_level_is_a_warning_not_an_error(tmp_path):
     assert result.exit_code == 0
     assert "warning:" in result.output and "'space tourism'" in result.output
     assert "1 row(s)" in result.output
+
+
+def test_shapes_folder_output_and_plots(model_file, tmp_path):
+    result = run("shapes", model_file, "--format", "markdown", "--out", tmp_path / "tables",
+                 "--plot", tmp_path / "pictures")
+    assert result.exit_code == 0, result.output
+    written = sorted(p.name for p in (tmp_path / "tables").iterdir())
+    assert "summary.md" in written and "late_payments_24m.md" in written
+    assert (tmp_path / "pictures" / "importance.png").is_file()
+    one_line_error(run("shapes", model_file, "--out", tmp_path / "x"), "--out needs a file format")
+
+
+def test_family_options_are_checked(tmp_path):
+    one_line_error(run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                       "--out", tmp_path / "m.json", "--option", "depth=3"),
+                   "no option(s) depth")
+    one_line_error(run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                       "--out", tmp_path / "m.json", "--option", "nonsense"), "NAME=VALUE")

@@ -42,6 +42,17 @@ def test_level_shares_and_importance_match_the_training_rows(model, loans, loans
         assert summary.loc[name, "importance"] == pytest.approx(exact[name], rel=0.03)
 
 
+def test_shares_of_flags_and_counts_are_exact(model, loans):
+    # reference: counting the rows directly; flags and small counts keep exact value counts
+    flag = shapes.term_table(model, "premises_owned")
+    assert flag["training_share"].tolist() == pytest.approx(
+        [np.mean(loans["premises_owned"] == "no"), np.mean(loans["premises_owned"] == "yes")])
+    late = shapes.term_table(model, "late_payments_24m")
+    low, high = late["from"].iloc[0], late["from"].iloc[1]
+    nearest_low = loans["late_payments_24m"] <= (low + high) / 2
+    assert late["training_share"].iloc[0] == pytest.approx(nearest_low.mean())
+
+
 def test_step_shares_match_the_data():
     # constructed: a step term over a known column; shares checked by counting rows
     values = np.random.default_rng(3).gamma(2.0, 10.0, size=4000)

@@ -1,0 +1,48 @@
+"""Writing output files safely: atomically, under safe names."""
+
+from __future__ import annotations
+
+import os
+import re
+import tempfile
+from pathlib import Path
+
+from glassbox.errors import OptionError
+
+
+def write_atomic(path: str | Path, content: str | bytes) -> None:
+    """Write to a temporary file beside `path`, then rename it into place.
+
+    An interrupted write leaves the old file (or none), never half a file.
+    """
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise OptionError(f"cannot write {path}: folder {folder} does not exist")
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    try:
+        if isinstance(content, bytes):
+            with os.fdopen(handle, "wb") as out:
+                out.write(content)
+        else:
+            with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
+                out.write(content)
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
+
+
+def safe_file_name(name: str) -> str:
+    """A file name made from a feature name: letters, digits, _ . - only."""
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("_") or "feature"
+
+
+def output_folder(folder: str | Path, what: str) -> Path:
+    """Create (if needed) and return a folder for output files."""
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise OptionError(f"cannot write {what} into {folder}: it is a file, not a folder")
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
