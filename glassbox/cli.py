@@ -15,7 +15,7 @@ from typing import Annotated, Any
 import typer
 from rich.console import Console
 
-from glassbox import __version__, artifact, plots, shapes
+from glassbox import __version__, artifact, formats, plots, shapes
 from glassbox.additive import score_table
 from glassbox.errors import GlassboxError, OptionError
 from glassbox.files import write_atomic
@@ -157,7 +157,7 @@ def score_command(
     model = artifact.load(model_file)
     frame = read_table(data)
     table = score_table(model, frame, str(data), contributions=contributions)
-    _emit(shapes.to_csv(table), out, f"{len(table)} scored rows")
+    _emit(formats.to_csv(table), out, f"{len(table)} scored rows")
 
 
 @app.command("shapes")
@@ -196,7 +196,8 @@ def shapes_command(
         paths = shapes.write_folder(model, out, format.value, feature)
         _stderr().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
         return
-    _emit(shapes.write(shapes.all_tables(model, feature), format.value), out, "shape tables")
+    _emit(formats.write(shapes.all_tables(model, feature), format.value), out,
+          "shape tables")
 
 
 def parse_options(pairs: list[str]) -> dict[str, Any]:

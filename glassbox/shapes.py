@@ -7,7 +7,6 @@ percentiles, level counts), so no data file is needed.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Any
 
@@ -17,6 +16,7 @@ import pandas as pd
 from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm, Term
 from glassbox.errors import OptionError
 from glassbox.files import output_folder, safe_file_name, write_atomic
+from glassbox.formats import SUFFIXES, write
 
 FORMATS = ("table", "csv", "markdown", "json")
 TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "slope", "lower", "upper",
@@ -195,58 +195,6 @@ def all_tables(model: AdditiveModel, feature: str | None = None) -> pd.DataFrame
     if feature:
         model.term(feature)  # a clear error for an unknown feature
     return pd.concat([term_table(model, name) for name in names], ignore_index=True)
-
-
-# ---------------------------------------------------------------- writers
-
-
-def to_csv(table: pd.DataFrame) -> str:
-    return table.to_csv(index=False, lineterminator="\n", float_format="%.10g")
-
-
-def to_markdown(table: pd.DataFrame, digits: int = 4) -> str:
-    """A GitHub-style Markdown table."""
-    def cell(value: Any) -> str:
-        if value is None or (isinstance(value, float) and np.isnan(value)):
-            return ""
-        if isinstance(value, float):
-            return f"{value:.{digits}g}"
-        return str(value).replace("|", "\\|")
-
-    lines = ["| " + " | ".join(table.columns) + " |",
-             "|" + "|".join("---" for _ in table.columns) + "|"]
-    for row in table.itertuples(index=False):
-        lines.append("| " + " | ".join(cell(v) for v in row) + " |")
-    return "\n".join(lines) + "\n"
-
-
-def to_json(table: pd.DataFrame) -> str:
-    records = [{key: _json_value(value) for key, value in row.items()}
-               for row in table.to_dict(orient="records")]
-    return json.dumps(records, indent=1, ensure_ascii=False) + "\n"
-
-
-def _json_value(value: Any) -> Any:
-    if isinstance(value, float | np.floating):
-        if np.isnan(value):
-            return None
-        if np.isinf(value):
-            return "inf" if value > 0 else "-inf"
-        return float(value)
-    if isinstance(value, np.integer):
-        return int(value)
-    return value
-
-
-def write(table: pd.DataFrame, fmt: str) -> str:
-    """A table as text in one of the file formats."""
-    writers = {"csv": to_csv, "markdown": to_markdown, "json": to_json}
-    if fmt not in writers:
-        raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(writers)})")
-    return writers[fmt](table)
-
-
-SUFFIXES = {"csv": ".csv", "markdown": ".md", "json": ".json"}
 
 
 def write_folder(model: AdditiveModel, folder: str | Path, fmt: str,

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import fit_model, shapes
+from glassbox import fit_model, formats, shapes
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
 from glassbox.schema import Schema, prepare
 
@@ -84,7 +84,7 @@ def test_summary_sorted_by_importance_and_declared_beside_observed(model):
 
 def test_markdown_and_json_writers(model):
     table = shapes.term_table(model, "sector")
-    markdown = shapes.to_markdown(table)
+    markdown = formats.to_markdown(table)
     assert markdown.count("\n") == len(table) + 2
-    json_text = shapes.to_json(table)
+    json_text = formats.to_json(table)
     assert "NaN" not in json_text and '"feature": "sector"' in json_text
