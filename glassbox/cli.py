@@ -14,13 +14,29 @@ from typing import Annotated, Any
 
 import typer
 from rich.console import Console
+from rich.progress import (
+    BarColumn,
+    MofNCompleteColumn,
+    Progress,
+    TextColumn,
+    TimeElapsedColumn,
+)
 
 from glassbox import __version__, artifact, formats, plots, shapes
 from glassbox.additive import score_table
+from glassbox.compare import (
+    CompareSettings,
+    accuracy_table,
+    compare,
+    cost_table,
+    sparsity_table,
+)
+from glassbox.compare import to_markdown as compare_markdown
 from glassbox.errors import GlassboxError, OptionError
 from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, training_fit
-from glassbox.render import error_text, fit_view, shapes_view, warning_text
+from glassbox.provenance import file_sha256
+from glassbox.render import comparison_view, error_text, fit_view, shapes_view, warning_text
 from glassbox.schema import infer_schema, load_schema, read_table
 
 app = typer.Typer(
@@ -198,6 +214,76 @@ def shapes_command(
         return
     _emit(formats.write(shapes.all_tables(model, feature), format.value), out,
           "shape tables")
+
+
+class CompareFormat(StrEnum):
+    table = "table"
+    json = "json"
+    markdown = "markdown"
+
+
+class Benchmark(StrEnum):
+    trees = "trees"
+    forest = "forest"
+
+
+@app.command("compare")
+@friendly
+def compare_command(
+    data: Annotated[Path, typer.Argument(help="CSV or Parquet file with the target.")],
+    schema: Annotated[Path, typer.Option(help="Schema TOML file.")],
+    families: Annotated[str, typer.Option(
+        help="Comma-separated glass-box families.")] = "sparse,spline,boosted",
+    benchmark: Annotated[Benchmark, typer.Option(
+        help="The black box: boosted trees or a random forest.")] = Benchmark.trees,
+    folds: Annotated[int, typer.Option(help="Cross-validation folds.")] = 5,
+    repeats: Annotated[int, typer.Option(help="Repeats of the folds.")] = 1,
+    seed: Annotated[int, typer.Option(help="Seed of the folds and the models.")] = 0,
+    jobs: Annotated[int, typer.Option(help="Folds fitted in parallel.")] = 1,
+    cutoff: Annotated[float, typer.Option(
+        help="Probability cut-off for accuracy.")] = 0.5,
+    format: Annotated[CompareFormat, typer.Option(
+        "--format", help="table (terminal), json or markdown.")] = CompareFormat.table,
+    out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,
+) -> None:
+    """Cross-validated accuracy cost of each glass-box family against a black box."""
+    settings = CompareSettings(
+        families=tuple(f.strip() for f in families.split(",") if f.strip()),
+        benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed, jobs=jobs,
+        cutoff=cutoff)
+    settings.check()
+    frame = read_table(data)
+    spec = load_schema(schema)
+    with fold_progress() as progress:
+        result = compare(frame, spec, settings, source=str(data), progress=progress)
+    if format is CompareFormat.table:
+        _stdout().print(comparison_view(result.headline, accuracy_table(result),
+                                        cost_table(result), sparsity_table(result),
+                                        folds, repeats))
+        if out is not None:
+            raise OptionError("--out needs --format json or markdown (the table was shown)")
+        return
+    if format is CompareFormat.json:
+        document = result.to_dict()
+        document["provenance"]["data_file_sha256"] = file_sha256(data)
+        text = json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    else:
+        text = compare_markdown(result)
+    _emit(text, out, "comparison")
+
+
+@contextlib.contextmanager
+def fold_progress() -> Iterator[Callable[[int, int, str], None]]:
+    """A progress bar over (model, fold) fits on standard error."""
+    columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+               TimeElapsedColumn())
+    with Progress(*columns, console=_stderr(), transient=True) as bar:
+        task = bar.add_task("comparing", total=None)
+
+        def update(done: int, total: int, label: str) -> None:
+            bar.update(task, completed=done, total=total, description=f"done: {label}")
+
+        yield update
 
 
 def parse_options(pairs: list[str]) -> dict[str, Any]:

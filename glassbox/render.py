@@ -46,6 +46,14 @@ def cell(value: Any, digits: int = 4) -> str:
     return str(value)
 
 
+def _numeric_text(column: pd.Series) -> bool:
+    """Whether a text column holds numbers written out (right-align those)."""
+    if column.empty or not (column.dtype == object
+                            or pd.api.types.is_string_dtype(column.dtype)):
+        return False
+    return bool(pd.to_numeric(column, errors="coerce").notna().all())
+
+
 def frame_table(frame: pd.DataFrame, title: str | None = None,
                 columns: Sequence[str] | None = None, digits: int = 4) -> Table:
     """A DataFrame as a rich table; numeric columns right-aligned."""
@@ -53,9 +61,11 @@ def frame_table(frame: pd.DataFrame, title: str | None = None,
     table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
                   title_style="bold", header_style="bold", pad_edge=False)
     for position, name in enumerate(columns):
-        numeric = pd.api.types.is_numeric_dtype(frame[name].dtype)
+        numeric = pd.api.types.is_numeric_dtype(frame[name].dtype) or _numeric_text(
+            frame[name])
         table.add_column(HEADINGS.get(name, name.replace("_", " ")),
-                         justify="right" if numeric else "left", no_wrap=position == 0)
+                         justify="right" if numeric else "left",
+                         no_wrap=position == 0 or name.endswith("interval"))
     for row in frame[columns].itertuples(index=False):
         table.add_row(*(cell(value, digits) for value in row))
     return table
@@ -119,3 +129,16 @@ def error_text(message: str) -> Text:
 
 def warning_text(message: str) -> Text:
     return Text.assemble(("warning: ", "bold yellow"), message)
+
+
+def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
+                    sparsity: pd.DataFrame, folds: int, repeats: int) -> RenderableType:
+    """What `glassbox compare` prints: the headline, accuracy, cost, the sparsity curve."""
+    parts: list[RenderableType] = [
+        Text(headline, style="bold"), Text(""),
+        frame_table(accuracy, title=f"Held-out accuracy, {folds} folds × {repeats}"),
+        frame_table(cost, title="Cost against the benchmark, paired by fold"),
+    ]
+    if not sparsity.empty:
+        parts.append(frame_table(sparsity, title="Sparse family by number of features"))
+    return Group(*parts)
