@@ -180,7 +180,8 @@ def score_command(
 @friendly
 def shapes_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
-    feature: Annotated[str | None, typer.Option(help="Only this feature.")] = None,
+    feature: Annotated[list[str] | None, typer.Option(
+        help="Only this feature (repeatable).")] = None,
     format: Annotated[TableFormat, typer.Option(
         "--format", help="table (terminal), csv, markdown or json.")] = TableFormat.table,
     out: Annotated[Path | None, typer.Option(
@@ -192,28 +193,24 @@ def shapes_command(
 ) -> None:
     """Per-feature tables (and pictures) of what the model does, from the model file."""
     model = artifact.load(model_file)
-    if feature:
-        model.term(feature)
+    names = shapes.chosen_features(model, feature)
     if plot is not None:
         with progress_note("drawing the shape functions"):
-            paths = plots.write_plots(model, plot, feature)
+            paths = plots.write_plots(model, plot, names)
         _stderr().print(f"wrote {len(paths)} picture(s) to {plot}/")
     if format is TableFormat.table:
         if out is not None:
             raise OptionError("--out needs a file format: add --format csv, markdown or json")
-        names = [feature] if feature else list(shapes.summary(model)["feature"])
+        if plot is not None and not feature:
+            return  # the pictures were asked for; name features to see tables too
         tables = {name: shapes.term_table(model, name) for name in names}
-        summary = shapes.summary(model)
-        if feature:
-            summary = summary[summary["feature"] == feature]
-        _stdout().print(shapes_view(summary, tables))
+        _stdout().print(shapes_view(shapes.summary(model), tables))
         return
     if out is not None and (out.is_dir() or not out.suffix):
-        paths = shapes.write_folder(model, out, format.value, feature)
+        paths = shapes.write_folder(model, out, format.value, names)
         _stderr().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
         return
-    _emit(formats.write(shapes.all_tables(model, feature), format.value), out,
-          "shape tables")
+    _emit(formats.write(shapes.all_tables(model, names), format.value), out, "shape tables")
 
 
 class CompareFormat(StrEnum):

@@ -7,6 +7,7 @@ state). Every picture is read from the model's own tables and training profile.
 from __future__ import annotations
 
 import io
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
@@ -14,7 +15,7 @@ from matplotlib.figure import Figure
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from glassbox.files import output_folder, safe_file_name, write_atomic
-from glassbox.shapes import summary, term_table
+from glassbox.shapes import chosen_features, summary, term_table
 
 LINE = "#1f4e79"
 BAND = "#9dc3e6"
@@ -93,6 +94,8 @@ def _numeric_figure(model: AdditiveModel, feature: str) -> Figure:
             top.stairs(np.asarray(term.upper)[keep], edges,
                        baseline=np.asarray(term.lower)[keep], fill=True, color=BAND,
                        alpha=0.6, label="spread across seeds")
+    top.margins(x=0.02, y=0.08)
+    top.autoscale_view()
     top.axhline(0, color=DATA, linewidth=0.8, linestyle=":")
     top.set_ylabel(_score_label(model))
     top.set_title(_title(model, feature), fontsize=10, loc="left")
@@ -162,12 +165,13 @@ def importance_figure(model: AdditiveModel) -> Figure:
 
 
 def write_plots(model: AdditiveModel, folder: str | Path,
-                feature: str | None = None) -> list[Path]:
-    """Write `importance.png` and one `FEATURE.png` per feature; return the paths."""
+                features: Sequence[str] | None = None) -> list[Path]:
+    """Write `importance.png` and one `FEATURE.png` per chosen feature (all by
+    default); return the paths."""
+    names = chosen_features(model, features)
     folder = output_folder(folder, "plots")
-    names = [feature] if feature else list(summary(model)["feature"])
     written = []
-    figures = [] if feature else [("importance", importance_figure(model))]
+    figures = [("importance", importance_figure(model))]
     figures += [(safe_file_name(name), feature_figure(model, name)) for name in names]
     for stem, figure in figures:
         buffer = io.BytesIO()

@@ -63,9 +63,10 @@ def frame_table(frame: pd.DataFrame, title: str | None = None,
     for position, name in enumerate(columns):
         numeric = pd.api.types.is_numeric_dtype(frame[name].dtype) or _numeric_text(
             frame[name])
-        table.add_column(HEADINGS.get(name, name.replace("_", " ")),
-                         justify="right" if numeric else "left",
-                         no_wrap=position == 0 or name.endswith("interval"))
+        heading = HEADINGS.get(name, name.replace("_", " "))
+        table.add_column(heading, justify="right" if numeric else "left",
+                         no_wrap=position == 0 or name.endswith("interval"),
+                         min_width=min(len(heading), 12))
     for row in frame[columns].itertuples(index=False):
         table.add_row(*(cell(value, digits) for value in row))
     return table
@@ -116,11 +117,26 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> Re
         title = f"{feature} ({kinds.get(feature, 'term')})"
         if len(shown) < len(table):
             title += f" ({len(shown)} of {len(table)} rows; files hold all)"
-        columns = [c for c in ("row", "contribution", "slope", "lower", "upper",
-                               "training_percentile", "training_share")
-                   if c in table.columns and not table[c].isna().all()]
+        columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
         parts.append(frame_table(shown, title=title, columns=columns))
     return Group(*parts)
+
+
+def terminal_columns(table: pd.DataFrame) -> list[str]:
+    """The columns of a term's table worth a terminal's width.
+
+    Slopes only for straight lines (up to three knots), training shares only for
+    short tables (steps, levels, small counts); files keep every column.
+    """
+    columns = ["row", "contribution", "lower", "upper"]
+    curve = table["training_percentile"].notna().any()
+    if curve and len(table) <= 3:
+        columns.insert(2, "slope")
+    if curve:
+        columns.append("training_percentile")
+    if not curve or len(table) <= 20:
+        columns.append("training_share")
+    return columns
 
 
 def error_text(message: str) -> Text:

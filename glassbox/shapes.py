@@ -7,6 +7,7 @@ percentiles, level counts), so no data file is needed.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -189,27 +190,32 @@ def summary(model: AdditiveModel) -> pd.DataFrame:
                              kind="mergesort").reset_index(drop=True)
 
 
-def all_tables(model: AdditiveModel, feature: str | None = None) -> pd.DataFrame:
-    """Every term's rows stacked (or one feature's), in order of importance."""
-    names = [feature] if feature else list(summary(model)["feature"])
-    if feature:
-        model.term(feature)  # a clear error for an unknown feature
+def chosen_features(model: AdditiveModel, features: Sequence[str] | None = None) -> list[str]:
+    """The named features (checked to have terms), or every feature by importance."""
+    if not features:
+        return list(summary(model)["feature"])
+    for name in features:
+        model.term(name)  # a clear error for an unknown feature
+    return list(dict.fromkeys(features))
+
+
+def all_tables(model: AdditiveModel, features: Sequence[str] | None = None) -> pd.DataFrame:
+    """Every chosen term's rows stacked, in order of importance (or as named)."""
+    names = chosen_features(model, features)
     return pd.concat([term_table(model, name) for name in names], ignore_index=True)
 
 
 def write_folder(model: AdditiveModel, folder: str | Path, fmt: str,
-                 feature: str | None = None) -> list[Path]:
-    """`summary.EXT` and one `FEATURE.EXT` per feature in a folder; return the paths."""
+                 features: Sequence[str] | None = None) -> list[Path]:
+    """`summary.EXT` (every feature) and one `FEATURE.EXT` per chosen feature in a
+    folder; return the paths."""
     if fmt not in SUFFIXES:
         raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(SUFFIXES)})")
+    names = chosen_features(model, features)
     folder = output_folder(folder, "tables")
-    table = summary(model)
-    if feature:
-        model.term(feature)
-        table = table[table["feature"] == feature]
     paths = [folder / f"summary{SUFFIXES[fmt]}"]
-    write_atomic(paths[0], write(table, fmt))
-    for name in table["feature"]:
+    write_atomic(paths[0], write(summary(model), fmt))
+    for name in names:
         path = folder / f"{safe_file_name(name)}{SUFFIXES[fmt]}"
         write_atomic(path, write(term_table(model, name), fmt))
         paths.append(path)
