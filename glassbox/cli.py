@@ -241,7 +241,9 @@ def compare_command(
         help="Probability cut-off for accuracy.")] = 0.5,
     format: Annotated[CompareFormat, typer.Option(
         "--format", help="table (terminal), json or markdown.")] = CompareFormat.table,
-    out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,
+    out: Annotated[Path | None, typer.Option(
+        help="Write json or markdown here (with the table: by the .json or .md suffix).")
+    ] = None,
 ) -> None:
     """Cross-validated accuracy cost of each glass-box family against a black box."""
     settings = CompareSettings(
@@ -257,9 +259,13 @@ def compare_command(
         _stdout().print(comparison_view(result.headline, accuracy_table(result),
                                         cost_table(result), sparsity_table(result),
                                         folds, repeats))
-        if out is not None:
-            raise OptionError("--out needs --format json or markdown (the table was shown)")
-        return
+        if out is None:
+            return
+        # with the table shown, --out keeps a file too, in the format its suffix names
+        by_suffix = {".json": CompareFormat.json, ".md": CompareFormat.markdown}
+        if out.suffix.lower() not in by_suffix:
+            raise OptionError(f"--out {out}: name a .json or .md file, or give --format")
+        format = by_suffix[out.suffix.lower()]
     if format is CompareFormat.json:
         document = result.to_dict()
         document["provenance"]["data_file_sha256"] = file_sha256(data)

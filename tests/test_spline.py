@@ -1,0 +1,325 @@
+"""Penalised-spline family against pygam fitted directly and published shapes."""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import io
+
+import numpy as np
+import pandas as pd
+import pytest
+from pygam import LinearGAM, LogisticGAM, f, l, s
+from threadpoolctl import threadpool_limits
+
+from glassbox import artifact, fit_model
+from glassbox.errors import DataError, OptionError, SchemaError, UnseenLevelWarning
+from glassbox.schema import Schema, prepare
+
+from .conftest import reference_data
+
+LOANS_MONOTONE = {"annual_revenue": "decreasing", "years_trading": "decreasing",
+                  "debt_to_revenue": "increasing", "late_payments_24m": "increasing",
+                  "amount_requested": "increasing"}
+
+
+def schema_of(target: str, task: str, features: dict[str, dict], positive=None) -> Schema:
+    entry = {"column": target, "task": task}
+    if positive is not None:
+        entry["positive"] = positive
+    return Schema.from_dict({"target": entry, "feature": features})
+
+
+def pygam_fit(model, matrix: np.ndarray, target: np.ndarray):
+    """pygam fitted directly; quiet, one BLAS thread (only so the test runs fast)."""
+    with threadpool_limits(limits=1, user_api="blas"), contextlib.redirect_stdout(io.StringIO()):
+        return model.fit(matrix, target)
+
+
+def logit(p: np.ndarray) -> np.ndarray:
+    return np.log(p / (1 - p))
+
+
+@pytest.fixture(scope="module")
+def wage() -> pd.DataFrame:
+    return reference_data("ISLR", "Wage")
+
+
+@pytest.fixture(scope="module")
+def wage_schema() -> Schema:
+    return schema_of("wage", "regression", {"age": {"kind": "integer"},
+                                            "year": {"kind": "integer"},
+                                            "education": {"kind": "category"}})
+
+
+@pytest.fixture(scope="module")
+def loans_split(loans):
+    # demo data (invented): the first 4,000 rows train, the last 1,000 are fresh rows
+    return loans.iloc[:4000].reset_index(drop=True), loans.iloc[4000:].reset_index(drop=True)
+
+
+@pytest.fixture(scope="module")
+def loans_model(loans_split, loans_schema):
+    return fit_model(loans_split[0], loans_schema, "spline")
+
+
+def loans_matrix(frame: pd.DataFrame, schema: Schema, levels: list[str]) -> np.ndarray:
+    encoded = prepare(frame, schema).features
+    columns = []
+    for name in encoded.columns:
+        if name == "sector":
+            columns.append(encoded[name].map({v: i for i, v in enumerate(levels)}).to_numpy())
+        else:
+            columns.append(encoded[name].to_numpy())
+    return np.column_stack(columns).astype(float)
+
+
+def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_model):
+    # Reference: pygam's LogisticGAM fitted here with the same terms and the chosen penalty,
+    # on demo data (invented); fresh rows are compared inside the training range, since
+    # tables hold their end values beyond it while pygam extrapolates.
+    train, fresh = loans_split
+    details = loans_model.metadata["details"]
+    lam = details["penalty"]
+    levels = sorted(train["sector"].unique())
+    matrix = loans_matrix(train, loans_schema, levels)
+    target = (train["defaulted"] == "yes").to_numpy(dtype=float)
+    assert train["late_payments_24m"].nunique() == 12  # too few values for 20 splines
+
+    def spline(i, name, n_splines=20):
+        kind = {"increasing": "monotonic_inc", "decreasing": "monotonic_dec"}
+        return s(i, n_splines=n_splines, lam=lam, constraints=kind.get(LOANS_MONOTONE.get(name)))
+
+    terms = (spline(0, "annual_revenue") + spline(1, "years_trading")
+             + spline(2, "debt_to_revenue") + spline(3, "credit_utilisation")
+             + spline(4, "late_payments_24m", 12) + spline(5, "amount_requested")
+             + f(6, lam=lam) + l(7, penalties=None))
+    reference = pygam_fit(LogisticGAM(terms), matrix, target)
+    inside = np.all((loans_matrix(fresh, loans_schema, levels) >= matrix.min(axis=0))
+                    & (loans_matrix(fresh, loans_schema, levels) <= matrix.max(axis=0)), axis=1)
+    for frame, rows in ((train, slice(None)), (fresh, inside)):
+        expected = logit(reference.predict_mu(loans_matrix(frame, loans_schema, levels)))
+        gap = np.abs(loans_model.score(frame) - expected)[rows]
+        assert gap.max() <= 1e-3
+    # table values at the knots are pygam's partial dependence there, up to the centring
+    for index, term in enumerate(loans_model.terms):
+        points = np.arange(len(levels)) if term.kind == "levels" else np.asarray(term.knots)
+        grid = np.zeros((len(points), matrix.shape[1]))
+        grid[:, index] = points
+        offset = np.asarray(term.values) - reference.partial_dependence(index, X=grid)
+        assert np.ptp(offset) <= 1e-3, term.feature
+
+
+def test_wage_regression_matches_pygam_and_its_criterion(wage, wage_schema):
+    # Reference: pygam's LinearGAM fitted here at every penalty of the grid; its own GCV
+    # and AIC pick the same penalty, and its predictions equal the tables'.
+    model = fit_model(wage, wage_schema, "spline")
+    by_aic = fit_model(wage, wage_schema, "spline", criterion="aic")
+    details = model.metadata["details"]
+    assert details["criterion"] == "GCV"
+    assert details["fallbacks"] == {"year": "7 distinct values: 7 basis functions instead of 20"}
+    levels = sorted(wage["education"].unique())
+    matrix = np.column_stack([wage["age"], wage["year"],
+                              wage["education"].map({v: i for i, v in enumerate(levels)})])
+    matrix = matrix.astype(float)
+    gcv, aic, fitted = [], [], {}
+    for lam in details["penalty_grid"]:
+        gam = pygam_fit(LinearGAM(s(0, n_splines=20, lam=lam) + s(1, n_splines=7, lam=lam)
+                                  + f(2, lam=lam)), matrix, wage["wage"].to_numpy())
+        gcv.append(gam.statistics_["GCV"])
+        aic.append(gam.statistics_["AIC"])
+        fitted[lam] = gam
+    np.testing.assert_allclose(details["criterion_values"], gcv, rtol=1e-6)
+    np.testing.assert_allclose(by_aic.metadata["details"]["criterion_values"], aic, rtol=1e-6)
+    assert details["penalty"] == details["penalty_grid"][int(np.argmin(gcv))]
+    assert by_aic.metadata["details"]["penalty"] == details["penalty_grid"][int(np.argmin(aic))]
+    expected = fitted[details["penalty"]].predict(matrix)
+    assert np.abs(model.score(wage) - expected).max() <= 1e-6
+    assert details["table_error"] == {"age": 0.0, "year": 0.0}  # every whole number is a knot
+    # the band is pygam's pointwise 95% interval (its width does not move with centring)
+    for index, term in enumerate(model.terms):
+        points = np.arange(len(levels)) if term.kind == "levels" else np.asarray(term.knots)
+        grid = np.zeros((len(points), 3))
+        grid[:, index] = points
+        centre, band = fitted[details["penalty"]].partial_dependence(index, X=grid, width=0.95)
+        np.testing.assert_allclose(np.subtract(term.upper, term.values), band[:, 1] - centre,
+                                   rtol=1e-5, atol=1e-6)
+        np.testing.assert_allclose(np.subtract(term.values, term.lower), centre - band[:, 0],
+                                   rtol=1e-5, atol=1e-6)
+
+
+def test_mroz_classification_criterion_matches_pygam(mroz):
+    # Reference: pygam's LogisticGAM at every penalty of the grid (Wooldridge's mroz data).
+    # pygam 0.12's UBRE carries a constant +2 (its source subtracts `~add_scale * scale`,
+    # and ~True is -2 in Python), so the criterion is compared without that constant.
+    columns = {"nwifeinc": "number", "educ": "integer", "exper": "integer",
+               "age": "integer", "kidslt6": "integer"}
+    schema = schema_of("inlf", "classification", {c: {"kind": k} for c, k in columns.items()},
+                       positive=1)
+    model = fit_model(mroz, schema, "spline")
+    details = model.metadata["details"]
+    assert details["criterion"] == "UBRE"
+    matrix = mroz[list(columns)].to_numpy(dtype=float)
+    target = mroz["inlf"].to_numpy(dtype=float)
+    sizes = [20, 13, 20, 20, 4]  # educ has 13 values, kidslt6 4
+    assert [mroz[c].nunique() for c in ("educ", "kidslt6")] == [13, 4]
+    ubre, fitted = [], {}
+    for lam in details["penalty_grid"]:
+        terms = s(0, n_splines=sizes[0], lam=lam)
+        for i in range(1, 5):
+            terms = terms + s(i, n_splines=sizes[i], lam=lam)
+        gam = pygam_fit(LogisticGAM(terms), matrix, target)
+        ubre.append(gam.statistics_["UBRE"] - 2.0)
+        fitted[lam] = gam
+    np.testing.assert_allclose(details["criterion_values"], ubre, rtol=1e-5)
+    assert details["penalty"] == details["penalty_grid"][int(np.argmin(ubre))]
+    expected = logit(fitted[details["penalty"]].predict_mu(matrix))
+    assert np.abs(model.score(mroz) - expected).max() <= 1e-3
+
+
+def test_islr_wage_shapes(wage, wage_schema):
+    # James, Witten, Hastie & Tibshirani, An Introduction to Statistical Learning, §7.7
+    # and Figure 7.11 (from memory): holding the others fixed, wage rises with age to a
+    # peak in middle age and falls after; it rises slightly with year and with education.
+    model = fit_model(wage, wage_schema, "spline")
+    age = model.term("age")
+    peak = age.knots[int(np.argmax(age.values))]
+    assert 35 <= peak <= 60
+    assert age.values[0] < max(age.values) - 10 and age.values[-1] < max(age.values) - 5
+    year = model.term("year")
+    assert year.values[-1] > year.values[0]
+    education = model.term("education")
+    assert list(education.levels) == sorted(education.levels)  # "1. < HS Grad" ... "5. Advanced"
+    assert np.all(np.diff(education.values) > 0)
+
+
+def test_monotone_declarations_give_monotone_tables(loans_model, loans_split, loans_schema):
+    # Constructed truth (demo data): the declared directions. Without the declarations
+    # the same data gives curves that turn back, so the check can fail.
+    details = loans_model.metadata["details"]
+    for name, direction in LOANS_MONOTONE.items():
+        steps = np.diff(loans_model.term(name).values)
+        assert np.all(steps >= 0) if direction == "increasing" else np.all(steps <= 0), name
+        assert details["monotone_repair"][name] <= 1e-6  # pygam's curve was monotone already
+    free = dataclasses.replace(loans_schema, features=tuple(
+        dataclasses.replace(spec, monotone=None) for spec in loans_schema.features))
+    unconstrained = fit_model(loans_split[0], free, "spline")
+    turns = [name for name, direction in LOANS_MONOTONE.items()
+             if np.any(np.diff(unconstrained.term(name).values) * (
+                 1 if direction == "increasing" else -1) < -1e-3)]
+    assert turns
+
+
+def test_monotone_flag_is_a_constrained_spline(loans_split, loans_schema):
+    # Constructed truth (demo data): owning premises lowers the default risk, so a
+    # declared increasing direction has to flatten the term; the fallback is recorded.
+    schema = dataclasses.replace(loans_schema, features=tuple(
+        dataclasses.replace(spec, monotone="increasing") if spec.name == "premises_owned"
+        else spec for spec in loans_schema.features))
+    frame = loans_split[0][["premises_owned", "credit_utilisation", "defaulted"]]
+    model = fit_model(frame, schema.restricted_to(["premises_owned", "credit_utilisation"]),
+                      "spline")
+    term = model.term("premises_owned")
+    assert term.knots == (0.0, 1.0) and term.values[1] >= term.values[0]
+    assert term.values[1] - term.values[0] < 1e-6
+    assert "premises_owned" in model.metadata["details"]["fallbacks"]
+    free = fit_model(frame, loans_schema.restricted_to(["premises_owned",
+                                                        "credit_utilisation"]), "spline")
+    assert free.metadata["details"]["terms"]["premises_owned"] == "linear"
+    assert free.term("premises_owned").values[1] < free.term("premises_owned").values[0] - 0.1
+
+
+def test_band_holds_values_and_widens_where_data_is_sparse(loans_model, loans_split, wage,
+                                                           wage_schema):
+    # Common practice, no source: a pointwise band is widest where there are few rows.
+    for model in (loans_model, fit_model(wage, wage_schema, "spline")):
+        for term in model.terms:
+            lower, values, upper = map(np.asarray, (term.lower, term.values, term.upper))
+            assert np.all(lower <= values) and np.all(values <= upper), term.feature
+    revenue = loans_model.term("annual_revenue")  # right-skewed by construction (demo data)
+    width = np.subtract(revenue.upper, revenue.lower)
+    median = np.median(loans_split[0]["annual_revenue"])
+    at_median = width[int(np.argmin(np.abs(np.asarray(revenue.knots) - median)))]
+    assert width[-1] > 2 * at_median
+    age = fit_model(wage, wage_schema, "spline").term("age")  # ISLR Wage: few over 75
+    age_width = np.subtract(age.upper, age.lower)
+    assert age_width[-1] > 2 * age_width[list(age.knots).index(42.0)]
+
+
+def test_penalty_recorded_and_fits_are_deterministic(wage, wage_schema):
+    # Exact: the same data and settings give byte-identical model files.
+    first = fit_model(wage, wage_schema, "spline")
+    second = fit_model(wage, wage_schema, "spline")
+    assert artifact.dumps(first) == artifact.dumps(second)
+    details = first.metadata["details"]
+    assert details["penalty"] in details["penalty_grid"]
+    assert len(details["criterion_values"]) == len(details["penalty_grid"])
+    assert details["converged"] is True
+    assert first.metadata["parameters"] == {
+        "splines": 20, "penalties": [0.01, 0.1, 1.0, 10.0, 100.0, 1000.0, 10000.0],
+        "criterion": "risk", "max_iter": 100, "knots": 400}
+    assert artifact.loads(artifact.dumps(first)).metadata["details"] == details
+    fixed = fit_model(wage, wage_schema, "spline", penalties=[details["penalty"]])
+    np.testing.assert_allclose(fixed.score(wage), first.score(wage), atol=1e-9)
+
+
+def test_unseen_level_scores_the_average(wage, wage_schema):
+    # Exact: after centring, the training-weighted mean of the level values is 0.
+    model = fit_model(wage, wage_schema, "spline")
+    term = model.term("education")
+    counts = wage["education"].value_counts()
+    weighted = sum(counts[level] * value for level, value in zip(term.levels, term.values,
+                                                                 strict=True))
+    assert weighted / counts.sum() == pytest.approx(0.0, abs=1e-9)
+    assert term.unseen == pytest.approx(0.0, abs=1e-9)
+    row = wage.iloc[:1].assign(education="6. Doctorate")
+    with pytest.warns(UnseenLevelWarning):
+        contribution = model.contributions(row)["education"].iloc[0]
+    assert contribution == pytest.approx(0.0, abs=1e-9)
+
+
+def test_single_valued_features_are_refused(wage):
+    # Constructed: one feature made constant.
+    schema = schema_of("wage", "regression", {"age": {"kind": "integer"},
+                                              "year": {"kind": "integer"}})
+    with pytest.raises(DataError, match="'year' has a single value"):
+        fit_model(wage.assign(year=2006), schema, "spline")
+    levels = schema_of("wage", "regression", {"age": {"kind": "integer"},
+                                              "region": {"kind": "category"}})
+    assert wage["region"].nunique() == 1  # ISLR Wage: every row is the Middle Atlantic
+    with pytest.raises(DataError, match="'region' has a single value"):
+        fit_model(wage, levels, "spline")
+
+
+def test_few_values_fall_back_to_a_smaller_basis(wage):
+    # Constructed: age cut into three bands (3 values) and year (7 values, ISLR Wage).
+    frame = wage.assign(band=pd.cut(wage["age"], [0, 35, 50, 100], labels=False))
+    schema = schema_of("wage", "regression", {"band": {"kind": "integer"},
+                                              "year": {"kind": "integer"}})
+    model = fit_model(frame, schema, "spline", splines=10)
+    details = model.metadata["details"]
+    assert details["terms"] == {"band": "spline, 4 basis functions",
+                                "year": "spline, 7 basis functions"}
+    assert details["fallbacks"] == {
+        "band": "3 distinct values: 4 basis functions instead of 10",
+        "year": "7 distinct values: 7 basis functions instead of 10"}
+    assert model.term("band").knots == (0.0, 1.0, 2.0)
+
+
+@pytest.mark.parametrize(("options", "named"), [
+    ({"splines": 3}, "splines"), ({"splines": 12.5}, "splines"),
+    ({"penalties": []}, "penalties"), ({"penalties": [1.0, 0.0]}, "penalties"),
+    ({"penalties": "lots"}, "penalties"), ({"criterion": "folds"}, "criterion"),
+    ({"max_iter": 0}, "max_iter"), ({"knots": 5}, "knots"), ({"smoothness": 1}, "smoothness"),
+])
+def test_bad_options_are_named(wage, wage_schema, options, named):
+    # Constructed: each value breaks a rule the module documents; the error names the option.
+    with pytest.raises(OptionError, match=named):
+        fit_model(wage, wage_schema, "spline", **options)
+
+
+def test_monotone_category_is_refused_by_the_schema():
+    # Constructed: a category has no order, so the schema refuses a direction for it.
+    with pytest.raises(SchemaError, match="cannot be monotone"):
+        schema_of("wage", "regression",
+                  {"education": {"kind": "category", "monotone": "increasing"}})
