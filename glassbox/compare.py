@@ -388,6 +388,8 @@ def make_headline(models: pd.DataFrame, differences: pd.DataFrame, primary: str,
     else:
         verdict = "not distinguishable from zero"
     what = "costs" if cost >= 0 else "gains"
+    if cost < 0:  # speak of the gain, and give the gain's interval
+        low, high = -high, -low
     return (f"Best glass-box model: {best['model']} ({name} {best['mean']:.3f}); against "
             f"the {benchmark} it {what} {abs(cost):.3f} {name} (95% interval {low:.3f} to "
             f"{high:.3f}), {verdict}.")
