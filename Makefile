@@ -17,22 +17,26 @@ $(STAMP): pyproject.toml
 
 demo: $(STAMP)
 	@mkdir -p $(OUT)
-	@echo "== 1. infer a starter schema from the loan applications (to edit by hand)"
+	@echo "== 1. infer a starter schema from the loan applications (to check and edit by hand)"
 	$(GB) schema demo_data/loans.csv --target defaulted --out $(OUT)/loans.inferred.toml
-	@echo "== 2. fit a sparse logistic model with the checked schema"
-	$(GB) fit demo_data/loans.csv --schema demo_data/loans.schema.toml --out $(OUT)/loans.sparse.json
-	@echo "== 3. the same family held to four features"
-	$(GB) fit demo_data/loans.csv --schema demo_data/loans.schema.toml --max-features 4 --out $(OUT)/loans.sparse4.json
+	@echo "== 2. fit the three glass-box families with the checked schema"
+	$(GB) fit demo_data/loans.csv --schema demo_data/loans.schema.toml --family sparse --out $(OUT)/loans.sparse.json
+	$(GB) fit demo_data/loans.csv --schema demo_data/loans.schema.toml --family spline --out $(OUT)/loans.spline.json
+	$(GB) fit demo_data/loans.csv --schema demo_data/loans.schema.toml --family boosted --ensemble 5 --out $(OUT)/loans.boosted.json
+	@echo "== 3. what does going glass-box cost? every family and a black box on the same folds"
+	$(GB) compare demo_data/loans.csv --schema demo_data/loans.schema.toml --jobs 2 --out $(OUT)/loans.compare.json
 	@echo "== 4. score every application: score, probability, per-feature contributions"
-	$(GB) score $(OUT)/loans.sparse.json demo_data/loans.csv --out $(OUT)/loans.scores.csv
-	@head -4 $(OUT)/loans.scores.csv | cut -c1-150
-	@echo "== 5. the model's tables, for auditors"
-	$(GB) shapes $(OUT)/loans.sparse4.json
-	$(GB) shapes $(OUT)/loans.sparse.json --format markdown --out $(OUT)/loans.shapes.md
-	@echo "== 6. the cottage listings: which reach the top rating tier"
-	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --out $(OUT)/listings.sparse.json
-	$(GB) shapes $(OUT)/listings.sparse.json --feature nightly_price
-	@echo "== done: files in $(OUT)/"
+	$(GB) score $(OUT)/loans.spline.json demo_data/loans.csv --out $(OUT)/loans.scores.csv
+	@head -3 $(OUT)/loans.scores.csv | cut -c1-110
+	@echo "== 5. the spline model's tables for auditors: importance, and two features"
+	$(GB) shapes $(OUT)/loans.spline.json --feature credit_utilisation --feature late_payments_24m
+	@echo "== 6. every table as files, and a picture of every shape"
+	$(GB) shapes $(OUT)/loans.spline.json --format csv --out $(OUT)/spline-tables --plot $(OUT)/spline-plots
+	$(GB) shapes $(OUT)/loans.boosted.json --format markdown --out $(OUT)/boosted-tables --plot $(OUT)/boosted-plots
+	@echo "== 7. the cottage listings: which reach the top rating tier"
+	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family spline --out $(OUT)/listings.spline.json
+	$(GB) shapes $(OUT)/listings.spline.json --feature nightly_price --plot $(OUT)/listings-plots
+	@echo "== done: models, tables and pictures are in $(OUT)/"
 
 test: $(STAMP)
 	$(BIN)/ruff check .

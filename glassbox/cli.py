@@ -204,7 +204,8 @@ def shapes_command(
         if plot is not None and not feature:
             return  # the pictures were asked for; name features to see tables too
         tables = {name: shapes.term_table(model, name) for name in names}
-        _stdout().print(shapes_view(shapes.summary(model), tables))
+        scale = "log-odds" if model.link == "logit" else "prediction"
+        _stdout().print(shapes_view(shapes.summary(model), tables, scale))
         return
     if out is not None and (out.is_dir() or not out.suffix):
         paths = shapes.write_folder(model, out, format.value, names)

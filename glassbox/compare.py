@@ -34,7 +34,7 @@ CLASSIFICATION_METRICS = ("auc", "log_loss", "brier", "accuracy")
 REGRESSION_METRICS = ("rmse", "mae", "r2")
 HIGHER_IS_BETTER = {"auc": True, "accuracy": True, "r2": True, "log_loss": False,
                     "brier": False, "rmse": False, "mae": False}
-METRIC_NAMES = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier score",
+METRIC_NAMES = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier",
                 "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
 
 

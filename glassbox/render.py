@@ -26,6 +26,7 @@ HEADINGS = {
     "lower": "band low",
     "upper": "band high",
     "importance": "importance",
+    "range": "contribution range",
     "observed": "observed",
     "declared": "declared",
 }
@@ -104,12 +105,15 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     return key_values(pairs, title="Fitted")
 
 
-def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> RenderableType:
+def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
+                scale: str = "score") -> RenderableType:
     """The summary table, then each feature's table (long curves thinned)."""
+    shown = summary.assign(range=[f"{low:.3g} to {high:.3g}" for low, high in
+                                  zip(summary["lowest"], summary["highest"], strict=True)])
     parts: list[RenderableType] = [
-        frame_table(summary, title="Features by importance (mean |contribution|, link scale)",
-                    columns=["feature", "importance", "lowest", "highest", "observed",
-                             "declared"])
+        frame_table(shown, title="Features by importance (mean |contribution| on the "
+                                 f"{scale} scale)",
+                    columns=["feature", "importance", "range", "observed", "declared"])
     ]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
@@ -125,14 +129,16 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame]) -> Re
 def terminal_columns(table: pd.DataFrame) -> list[str]:
     """The columns of a term's table worth a terminal's width.
 
-    Slopes only for straight lines (up to three knots), training shares only for
-    short tables (steps, levels, small counts); files keep every column.
+    Slopes only for straight lines (up to three knots, where percentiles say
+    little), training shares only for short tables (steps, levels, small counts);
+    files keep every column.
     """
     columns = ["row", "contribution", "lower", "upper"]
     curve = table["training_percentile"].notna().any()
-    if curve and len(table) <= 3:
+    line = curve and len(table) <= 3
+    if line:
         columns.insert(2, "slope")
-    if curve:
+    if curve and not line:
         columns.append("training_percentile")
     if not curve or len(table) <= 20:
         columns.append("training_share")
