@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 from pygam import LinearGAM, LogisticGAM
 from pygam.terms import FactorTerm, Intercept, LinearTerm, SplineTerm, TermList
+from scipy import stats
 from scipy.special import expit
 from threadpoolctl import threadpool_limits
 
@@ -362,18 +363,37 @@ def curve_knots(exact: Callable[[np.ndarray], np.ndarray], column: np.ndarray,
 
 
 def tabulate(gam: LinearGAM | LogisticGAM, index: int, points: np.ndarray, width: int,
-             band: bool = True) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """pygam's partial dependence of term `index` at `points`, with its 95% band."""
+             band: bool = True, training: np.ndarray | None = None,
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """pygam's partial dependence of term `index` at `points`, with a 95% band.
+
+    The band is for the term as the model file holds it, centred on the training
+    rows: its variance is (b(x) - b̄)ᵀ Σ (b(x) - b̄), with b the term's basis row,
+    b̄ its mean over the training rows and Σ pygam's covariance of the term's
+    coefficients. pygam's own band is for the uncentred term, whose level is
+    confounded with the intercept, so it is wide everywhere and would hide where
+    the shape itself is uncertain.
+    """
     grid = np.zeros((len(points), width))
     grid[:, index] = points
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
+        values = gam.partial_dependence(index, X=grid)
         if not band:
-            values = gam.partial_dependence(index, X=grid)
             return values, values, values
-        values, limits = gam.partial_dependence(index, X=grid, width=BAND)
-    # fmin / fmax also put a value where pygam's band is NaN (a variance rounded below 0)
-    return values, np.fmin(limits[:, 0], values), np.fmax(limits[:, 1], values)
+        basis = gam._modelmat(grid, term=index).toarray()
+        mean_row = np.asarray(gam._modelmat(training, term=index).mean(axis=0)).ravel()
+    indices = gam.terms.get_coef_indices(index)
+    covariance = gam.statistics_["cov"][np.ix_(indices, indices)]
+    offset = basis - mean_row
+    variance = np.maximum(np.einsum("ij,jk,ik->i", offset, covariance, offset), 0.0)
+    if gam.distribution._known_scale:
+        quantile = stats.norm.ppf(0.5 + BAND / 2)
+    else:
+        freedom = gam.statistics_["n_samples"] - gam.statistics_["edof"]
+        quantile = stats.t.ppf(0.5 + BAND / 2, df=freedom)
+    half = quantile * np.sqrt(variance)
+    return values, values - half, values + half
 
 
 def floats(values: np.ndarray) -> tuple[float, ...]:
@@ -393,7 +413,7 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
         column = matrix[:, index]
         if plan.kind == "levels":
             codes = np.arange(len(plan.levels), dtype=float)
-            values, lower, upper = tabulate(gam, index, codes, width)
+            values, lower, upper = tabulate(gam, index, codes, width, training=matrix)
             counts = np.bincount(column.astype(int), minlength=len(plan.levels))
             unseen = float(np.dot(counts, values) / counts.sum())
             terms.append(LevelsTerm(plan.feature, plan.levels, floats(values), unseen,
@@ -402,7 +422,7 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
         def exact(points: np.ndarray, index: int = index) -> np.ndarray:
             return tabulate(gam, index, points, width, band=False)[0]
         points, errors[plan.feature] = curve_knots(exact, column, knots, plan.whole)
-        values, lower, upper = tabulate(gam, index, points, width)
+        values, lower, upper = tabulate(gam, index, points, width, training=matrix)
         if plan.constraint:
             # remove what the soft constraint leaves of wrong-way steps (about 1e-9)
             running = np.maximum if plan.constraint == "monotonic_inc" else np.minimum
