@@ -112,6 +112,84 @@ def fitting_rows(sets: dict[str, tuple]) -> list[str]:
     return lines
 
 
+def family_rows(sets: dict[str, tuple]) -> list[str]:
+    """Each family's whole fit against one plain fit of the library underneath."""
+    from sklearn.ensemble import HistGradientBoostingClassifier
+    from sklearn.linear_model import LogisticRegression
+    from threadpoolctl import threadpool_limits
+
+    from glassbox.families import boosted, spline
+
+    lines = ["## Fitting each family against one plain fit of its library",
+             "",
+             "`sparse` is the whole family fit (no feature limit) against one scikit-learn",
+             "`LogisticRegression` on the same design; `spline` is the whole family fit",
+             "(penalty search over 7 values, tabulation, bands) against one pygam",
+             "`LogisticGAM` at a fixed penalty (0.6, pygam's default) with the same terms;",
+             "`boosted` is the whole family fit (one seed) against one scikit-learn",
+             "`HistGradientBoostingClassifier` with the same settings. All on one thread.",
+             "",
+             "| data | sparse (s) | LR (s) | ratio | spline (s) | pygam (s) | ratio | "
+             "boosted (s) | HGB (s) | ratio |",
+             "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
+    for name, (frame, schema) in sets.items():
+        prepared = prepare(frame, schema)
+        design = sparse.build_design(prepared.features, schema)
+        plans, matrix, _ = spline.plan_terms(prepared.features, schema, 20)
+
+        def plain_gam(plans=plans, matrix=matrix, target=prepared.target):
+            spline.fit_quietly(spline.make_gam("classification", plans, 0.6, 100), matrix,
+                               target)
+
+        reference = boosted.fit_estimators(prepared.features, prepared.target, schema,
+                                           task="classification", **boosted.DEFAULTS)
+        trees_matrix = reference.matrix(prepared.features)
+
+        def one_tree_fit(fitted=reference, rows=trees_matrix, target=prepared.target):
+            estimator = HistGradientBoostingClassifier(**fitted.estimators[0].get_params())
+            estimator.fit(rows, target)
+
+        with threadpool_limits(limits=1):
+            result = side_by_side({
+                "sparse": lambda f=frame, s=schema: fit_model(f, s, "sparse"),
+                "lr": lambda d=design, t=prepared.target: LogisticRegression(
+                    C=np.inf, solver="newton-cholesky", tol=1e-10, max_iter=500).fit(
+                        d.matrix, t),
+                "spline": lambda f=frame, s=schema: fit_model(f, s, "spline"),
+                "pygam": plain_gam,
+                "boosted": lambda f=frame, s=schema: fit_model(f, s, "boosted"),
+                "hgb": one_tree_fit,
+            }, repeats=3)
+        lines.append(
+            f"| {name} | {result['sparse']:.2f} | {result['lr']:.2f} | "
+            f"{result['sparse'] / result['lr']:.1f} | {result['spline']:.2f} | "
+            f"{result['pygam']:.2f} | {result['spline'] / result['pygam']:.1f} | "
+            f"{result['boosted']:.2f} | {result['hgb']:.2f} | "
+            f"{result['boosted'] / result['hgb']:.1f} |")
+    return lines
+
+
+def comparison_rows(sets: dict[str, tuple]) -> list[str]:
+    """The whole comparison (three families, the benchmark, 5 folds) with 1 and 2 jobs."""
+    from glassbox.compare import CompareSettings, compare
+
+    lines = ["## The whole comparison: three families and the benchmark, 5 folds",
+             "",
+             "`glassbox compare` with the sparsity curve, `--jobs 1` against `--jobs 2`,",
+             "run one after the other in this run. Target: the loan demo data under 60 s.",
+             "",
+             "| data | rows × features | jobs 1 (s) | jobs 2 (s) | ratio jobs 2 / jobs 1 |",
+             "|---|---:|---:|---:|---:|"]
+    for name, (frame, schema) in sets.items():
+        times = {}
+        for jobs in (1, 2):
+            settings = CompareSettings(jobs=jobs)
+            times[jobs] = timed(lambda f=frame, s=schema, c=settings: compare(f, s, c))
+        lines.append(f"| {name} | {len(frame):,} × {len(schema.used_features)} | "
+                     f"{times[1]:.1f} | {times[2]:.1f} | {times[2] / times[1]:.2f} |")
+    return lines
+
+
 def file_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     lines = ["## Model files: save against load (checksum verified on load)",
              "",
@@ -133,7 +211,8 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as scratch:
         folder = Path(scratch)
         sets = data_sets(folder)
-        sections = [scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder)]
+        sections = [comparison_rows(sets), family_rows(sets), scoring_rows(sets),
+                    fitting_rows(sets), file_rows(sets, folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",
