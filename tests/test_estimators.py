@@ -50,3 +50,19 @@ def test_bad_family_is_a_value_error():
     X = np.random.default_rng(0).normal(size=(20, 2))
     with pytest.raises(ValueError, match="unknown family"):
         AdditiveRegressor(family="mystery").fit(X, X[:, 0])
+
+
+@pytest.mark.parametrize("family, options", [("spline", {"splines": 8}),
+                                             ("boosted", {"ensemble": 2})])
+def test_every_family_through_the_estimator(family, options, loans, loans_schema):
+    features = loans.drop(columns=["defaulted"]).head(2000)
+    target = loans["defaulted"].head(2000)
+    estimator = AdditiveClassifier(family=family, schema=loans_schema, options=options)
+    estimator.fit(features, target)
+    assert estimator.model_.metadata["family"] == family
+    np.testing.assert_allclose(estimator.predict_proba(features)[:, 1],
+                               estimator.model_.probability(features))
+    regression = AdditiveRegressor(family=family, options=options)
+    X = features[["annual_revenue", "years_trading"]].to_numpy()
+    regression.fit(X, np.log(features["amount_requested"].to_numpy()))
+    assert regression.model_.task == "regression" and regression.predict(X).shape == (2000,)
