@@ -24,6 +24,7 @@ from rich.progress import (
 
 from glassbox import __version__, artifact, formats, plots, shapes
 from glassbox.additive import score_table
+from glassbox.benchmarks import BENCHMARKS
 from glassbox.compare import (
     CompareSettings,
     accuracy_table,
@@ -33,6 +34,7 @@ from glassbox.compare import (
 )
 from glassbox.compare import to_markdown as compare_markdown
 from glassbox.errors import GlassboxError, OptionError
+from glassbox.families import FAMILIES
 from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, training_fit
 from glassbox.provenance import file_sha256
@@ -46,10 +48,11 @@ app = typer.Typer(
 EXIT_USER_ERROR = 2
 
 
-class Family(StrEnum):
-    sparse = "sparse"
-    spline = "spline"
-    boosted = "boosted"
+# the choices come from the library, so a new family or benchmark appears here by itself
+Family = StrEnum("Family", {name: name for name in FAMILIES})
+Benchmark = StrEnum("Benchmark", {name: name for name in BENCHMARKS})
+DEFAULT_FAMILY = Family("sparse")
+DEFAULT_BENCHMARK = Benchmark("trees")
 
 
 class TableFormat(StrEnum):
@@ -137,7 +140,7 @@ def fit_command(
     data: Annotated[Path, typer.Argument(help="CSV or Parquet file with the target.")],
     schema: Annotated[Path, typer.Option(help="Schema TOML file.")],
     out: Annotated[Path, typer.Option(help="Where to write the model file (JSON).")],
-    family: Annotated[Family, typer.Option(help="Fitting family.")] = Family.sparse,
+    family: Annotated[Family, typer.Option(help="Fitting family.")] = DEFAULT_FAMILY,
     max_features: Annotated[int | None, typer.Option(
         help="sparse: use at most this many features.", min=1)] = None,
     ensemble: Annotated[int | None, typer.Option(
@@ -220,11 +223,6 @@ class CompareFormat(StrEnum):
     markdown = "markdown"
 
 
-class Benchmark(StrEnum):
-    trees = "trees"
-    forest = "forest"
-
-
 @app.command("compare")
 @friendly
 def compare_command(
@@ -233,7 +231,7 @@ def compare_command(
     families: Annotated[str, typer.Option(
         help="Comma-separated glass-box families.")] = "sparse,spline,boosted",
     benchmark: Annotated[Benchmark, typer.Option(
-        help="The black box: boosted trees or a random forest.")] = Benchmark.trees,
+        help="The black box: boosted trees or a random forest.")] = DEFAULT_BENCHMARK,
     folds: Annotated[int, typer.Option(help="Cross-validation folds.")] = 5,
     repeats: Annotated[int, typer.Option(help="Repeats of the folds.")] = 1,
     seed: Annotated[int, typer.Option(help="Seed of the folds and the models.")] = 0,
@@ -252,6 +250,9 @@ def compare_command(
         benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed, jobs=jobs,
         cutoff=cutoff)
     settings.check()
+    by_suffix = {".json": CompareFormat.json, ".md": CompareFormat.markdown}
+    if format is CompareFormat.table and out is not None and out.suffix.lower() not in by_suffix:
+        raise OptionError(f"--out {out}: name a .json or .md file, or give --format")
     frame = read_table(data)
     spec = load_schema(schema)
     with fold_progress() as progress:
@@ -263,9 +264,6 @@ def compare_command(
         if out is None:
             return
         # with the table shown, --out keeps a file too, in the format its suffix names
-        by_suffix = {".json": CompareFormat.json, ".md": CompareFormat.markdown}
-        if out.suffix.lower() not in by_suffix:
-            raise OptionError(f"--out {out}: name a .json or .md file, or give --format")
         format = by_suffix[out.suffix.lower()]
     if format is CompareFormat.json:
         document = result.to_dict()

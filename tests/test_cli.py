@@ -142,3 +142,31 @@ def test_family_options_are_checked(tmp_path):
                    "no option(s) depth")
     one_line_error(run("fit", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
                        "--out", tmp_path / "m.json", "--option", "nonsense"), "NAME=VALUE")
+
+
+def test_compare_prints_headline_and_writes_json(tmp_path):
+    small = tmp_path / "small.csv"
+    pd.read_csv(DEMO / "loans.csv").head(1200).to_csv(small, index=False)
+    out = tmp_path / "cmp.json"
+    result = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
+                 "sparse,boosted", "--folds", "3", "--out", out)
+    assert result.exit_code == 0, result.output
+    assert result.stdout.lstrip().startswith("Best glass-box model:")
+    assert "Cost against the benchmark" in result.stdout
+    document = json.loads(out.read_text())
+    assert document["settings"]["folds"] == 3
+    assert document["provenance"]["data_file_sha256"].startswith("sha256:")
+    markdown = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
+                   "sparse", "--folds", "3", "--format", "markdown")
+    assert markdown.stdout.startswith("# Accuracy cost of the glass-box models")
+
+
+def test_compare_errors(tmp_path):
+    tiny = tmp_path / "tiny.csv"
+    pd.read_csv(DEMO / "loans.csv").head(3).to_csv(tiny, index=False)
+    one_line_error(run("compare", tiny, "--schema", DEMO / "loans.schema.toml"),
+                   "use --folds")
+    one_line_error(run("compare", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                       "--families", "sparse,forest"), "unknown family")
+    one_line_error(run("compare", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                       "--families", "sparse", "--out", tmp_path / "x.txt"), ".json or .md")
