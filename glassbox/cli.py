@@ -283,7 +283,8 @@ def fold_progress() -> Iterator[Callable[[int, int, str], None]]:
         task = bar.add_task("comparing", total=None)
 
         def update(done: int, total: int, label: str) -> None:
-            bar.update(task, completed=done, total=total, description=f"done: {label}")
+            text = "fitting every model on every fold" if done == 0 else f"finished {label}"
+            bar.update(task, completed=done, total=total, description=text)
 
         yield update
 
