@@ -36,7 +36,16 @@ demo: $(STAMP)
 	@echo "== 7. the cottage listings: which reach the top rating tier"
 	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family spline --out $(OUT)/listings.spline.json
 	$(GB) shapes $(OUT)/listings.spline.json --feature nightly_price --plot $(OUT)/listings-plots
-	@echo "== done: models, tables and pictures are in $(OUT)/"
+	@echo "== 8. recourse: what could a declined applicant change? (rules: demo_data/loans.mutability.toml)"
+	$(BIN)/recourse template $(OUT)/loans.spline.json > $(OUT)/loans.mutability.template.toml
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L001096
+	@echo "== 9. an applicant for whom no plan exists within the rules"
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L002331 --plans 1
+	@echo "== 10. a cottage listing below the top tier"
+	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
+	@echo "== 11. plans for every declined application, as CSV"
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --declined --plans 1 --solver highs --jobs 2 --out $(OUT)/loans.plans.csv
+	@echo "== done: models, tables, pictures and plans are in $(OUT)/"
 
 test: $(STAMP)
 	$(BIN)/ruff check .

@@ -1,0 +1,152 @@
+"""The `recourse` command: parse arguments, call the planner, render. No logic here."""
+
+from __future__ import annotations
+
+import json
+import sys
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console, Group, RenderableType
+from rich.text import Text
+
+from glassbox import artifact
+from glassbox.cli import friendly
+from glassbox.files import write_atomic
+from glassbox.formats import to_csv
+from glassbox.render import frame_table
+from glassbox.schema import read_table
+from recourse.batch import plan_many, plans_frame, summary_frame
+from recourse.mutability import load_mutability, template
+from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
+from recourse.program import SOLVERS
+from recourse.rows import pick_row
+
+app = typer.Typer(
+    help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
+    no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
+)
+Solver = StrEnum("Solver", {name: name for name in SOLVERS})
+DEFAULT_SOLVER = Solver("cbc")
+
+
+class PlanFormat(StrEnum):
+    table = "table"
+    json = "json"
+
+
+def _stdout() -> Console:
+    return Console(highlight=False)
+
+
+def _stderr() -> Console:
+    return Console(stderr=True, highlight=False)
+
+
+@app.callback()
+def _main() -> None:
+    """Plan the cheapest realistic changes that would flip a glass-box model's outcome."""
+
+
+@app.command("template")
+@friendly
+def template_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+) -> None:
+    """Write a starting mutability file (every feature fixed) to standard output."""
+    sys.stdout.write(template(artifact.load(model_file)))
+
+
+@app.command("plan")
+@friendly
+def plan_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    mutability: Annotated[Path, typer.Option(help="Mutability file (TOML).")],
+    row: Annotated[Path | None, typer.Option(help="One row as a JSON object.")] = None,
+    data: Annotated[Path | None, typer.Option(help="CSV or Parquet file of rows.")] = None,
+    id_value: Annotated[str | None, typer.Option("--id", help="The row with this id.")] = None,
+    index: Annotated[int | None, typer.Option(
+        help="The N-th data row, counting from 1.", min=1)] = None,
+    declined: Annotated[bool, typer.Option(
+        help="Plan for every row of --data that misses the goal.")] = False,
+    plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1)] = 3,
+    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = DEFAULT_SOLVER,
+    format: Annotated[PlanFormat, typer.Option(
+        "--format", help="table (terminal) or json.")] = PlanFormat.table,
+    out: Annotated[Path | None, typer.Option(
+        help="Batch: write one CSV row per plan here.")] = None,
+    jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1)] = 1,
+) -> None:
+    """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
+    model = artifact.load(model_file)
+    rules = load_mutability(mutability, model)
+    if declined:
+        frame = read_table(data) if data is not None else None
+        results = plan_many(model, frame, rules, n_plans=plans, solver=solver.value,
+                            jobs=jobs, progress=True, source=str(data))
+        table = plans_frame(results, model)
+        if out is not None:
+            write_atomic(out, to_csv(table))
+            _stderr().print(f"wrote {len(table)} plan row(s) to {out}")
+        else:
+            sys.stdout.write(to_csv(table))
+        _stderr().print(frame_table(summary_frame(results), title="Declined rows"))
+        _stderr().print(Text(CAUTION, style="italic"))
+        return
+    raw, row_id = pick_row(model, row=row, data=data, id_value=id_value, index=index)
+    result = find_plans(model, raw, rules, n_plans=plans, solver=solver.value, row_id=row_id)
+    if format is PlanFormat.json:
+        sys.stdout.write(json.dumps(plan_records(result), indent=1, ensure_ascii=False) + "\n")
+        return
+    _stdout().print(result_view(model, result))
+
+
+def _number(value: float | str, kind: str) -> str:
+    """A value in the feature's own units: flags as yes/no, thousands separated."""
+    if isinstance(value, str):
+        return value
+    if kind == "flag":
+        return "yes" if value >= 0.5 else "no"
+    if float(value).is_integer():
+        return f"{int(value):,}"
+    return f"{value:,.4g}" if abs(value) < 1000 else f"{value:,.2f}"
+
+
+def _outcome(model, value: float) -> str:
+    return f"probability {value:.3f}" if model.link == "logit" else f"prediction {value:,.4g}"
+
+
+def result_view(model, result: PlanResult) -> RenderableType:
+    """The plans for one row as short readable blocks, then the caution."""
+    who = f"Row {result.row_id}" if result.row_id is not None else "This row"
+    goal = f"goal: {result.direction.replace('-', ' ')} {result.target:g}"
+    lines: list[RenderableType] = [
+        Text(f"{who}: {_outcome(model, result.outcome)} ({goal})", style="bold")]
+    if result.status == "already":
+        lines.append(Text("It already meets the goal; no change is needed."))
+    elif result.status == "none":
+        lines.append(Text("No plan reaches the goal within the rules.", style="bold"))
+        lines.append(Text(f"The best the rules allow: {_outcome(model, result.best_outcome)}."))
+        for reason in result.binding:
+            lines.append(Text(f"  - {reason}"))
+    for number, plan in enumerate(result.plans, start=1):
+        lines.append(Text(""))
+        lines.append(Text(f"Plan {number}: {plan.count} change(s), total cost "
+                          f"{plan.total_cost:.3g} -> {_outcome(model, plan.outcome)}",
+                          style="bold"))
+        for change in plan.changes:
+            kind = model.schema.feature(change.feature).kind
+            moved = f"{_number(change.current, kind)} -> {_number(change.proposed, kind)}"
+            if change.difference is not None and kind != "flag":
+                sign = "+" if change.difference > 0 else "-"
+                moved += f"  ({sign}{_number(abs(change.difference), kind)})"
+            lines.append(Text(f"  {change.feature:<22} {moved:<32} cost {change.cost:.3g}"))
+    lines += [Text(""), Text(CAUTION, style="italic")]
+    return Group(*lines)
+
+
+def main() -> None:
+    """Console entry point."""
+    app()

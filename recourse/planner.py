@@ -1,0 +1,231 @@
+"""Plans for one row: several distinct cheapest plans, each re-scored by the model.
+
+A plan is a set of changes to a row's changeable features that moves the
+model's score past the goal. Plans come from the integer program over the
+model's own tables; every plan is re-scored through `AdditiveModel` before it is
+returned, and one that misses the goal is a bug (it raises). When no plan exists
+within the rules, the result says how close the rules allow and which rules bind.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.additive import AdditiveModel, LevelsTerm
+from recourse.candidates import Candidate, row_candidates
+from recourse.errors import PlanningError
+from recourse.mutability import Mutability
+from recourse.program import Program, Solution, best_reachable, solve
+
+CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
+           "promise of any decision. Real decisions follow the lender's or marketplace's "
+           "policy and local law; protected characteristics are never levers.")
+
+
+@dataclass(frozen=True)
+class Change:
+    """One feature's move: from the row's value to the proposed one, at a cost."""
+
+    feature: str
+    current: float | str
+    proposed: float | str
+    difference: float | None  # proposed - current, numeric features only
+    cost: float
+
+
+@dataclass(frozen=True)
+class Plan:
+    """A set of changes and what the model says after them."""
+
+    changes: tuple[Change, ...]
+    score: float
+    outcome: float  # probability (classification) or predicted value (regression)
+    total_cost: float
+    largest_cost: float
+
+    @property
+    def count(self) -> int:
+        return len(self.changes)
+
+
+@dataclass(frozen=True)
+class PlanResult:
+    """What the planner found for one row."""
+
+    status: str  # "plans" | "already" | "none" | "error" (the rules do not fit the row)
+    score: float
+    outcome: float
+    target: float
+    direction: str
+    plans: tuple[Plan, ...] = ()
+    best_score: float | None = None  # "none": the best the rules allow
+    best_outcome: float | None = None
+    binding: tuple[str, ...] = ()  # "none": the rules that bind, most limiting first
+    row_id: Any = None
+    message: str = ""  # "error": why the rules cannot be applied to this row
+
+
+def _reaches(score: float, threshold: float, direction: str) -> bool:
+    return score >= threshold if direction == "at-least" else score <= threshold
+
+
+def _favourable(direction: str) -> int:
+    return 1 if direction == "at-least" else -1
+
+
+def find_plans(model: AdditiveModel, row: pd.Series, mutability: Mutability,
+               n_plans: int = 3, solver: str = "cbc", row_id: Any = None) -> PlanResult:
+    """Up to `n_plans` distinct cheapest plans for one raw row (a Series of its values)."""
+    if n_plans < 1:
+        raise PlanningError(f"--plans must be at least 1, not {n_plans}")
+    goal = mutability.goal
+    frame = pd.DataFrame([row])
+    encoded = model.encode(frame)
+    parts = model.contributions_encoded(encoded).iloc[0]
+    score = float(model.intercept + parts.sum())
+    outcome = float(model.inverse_link(np.array([score]))[0])
+    threshold = goal.threshold(model.link)
+    common = {"score": score, "outcome": outcome, "target": goal.target,
+              "direction": goal.direction, "row_id": row_id}
+    if _reaches(score, threshold, goal.direction):
+        return PlanResult("already", **common)
+    candidates = row_candidates(model, row, mutability)
+    names = tuple(candidates)
+    base = score - float(sum(parts[name] for name in names))
+    program = Program(
+        base=base,
+        contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
+        costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
+        current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
+        objective=goal.objective, max_changes=goal.max_changes, names=names)
+    plans: list[Plan] = []
+    forbidden: list[frozenset[int]] = []
+    for _ in range(n_plans):
+        solution = solve(replace(program, forbidden=tuple(forbidden)), solver)
+        if solution.status != "optimal":
+            break
+        changed = frozenset(g for g, pick in enumerate(solution.choice) if pick != 0)
+        plans.append(_plan(model, encoded, names, candidates, solution, threshold,
+                           goal.direction))
+        forbidden.append(changed)
+    if plans:
+        return PlanResult("plans", plans=tuple(plans), **common)
+    best = best_reachable(program)
+    return PlanResult("none", best_score=best,
+                      best_outcome=float(model.inverse_link(np.array([best]))[0]),
+                      binding=tuple(diagnose(model, encoded, parts, candidates, program,
+                                             mutability)), **common)
+
+
+def _plan(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
+          candidates: Mapping[str, list[Candidate]], solution: Solution, threshold: float,
+          direction: str) -> Plan:
+    """Build a plan from a solution and re-score it through the model itself."""
+    changed_row = encoded.copy()
+    changes = []
+    for group, pick in enumerate(solution.choice):
+        if pick == 0:
+            continue
+        name = names[group]
+        now, new = candidates[name][0], candidates[name][pick]
+        changed_row[name] = changed_row[name].astype(object)
+        changed_row.iloc[0, changed_row.columns.get_loc(name)] = new.value
+        numeric = not isinstance(new.value, str)
+        changes.append(Change(name, now.value, new.value,
+                              float(new.value) - float(now.value) if numeric else None,
+                              float(new.cost)))
+    rescored = float(model.score(changed_row.astype(
+        {c: float for c in changed_row if not _is_category(model, c)}))[0])
+    if not _reaches(rescored, threshold, direction) or not math.isclose(
+            rescored, solution.score, rel_tol=0, abs_tol=1e-9):
+        raise RuntimeError(f"planner bug: a plan re-scores to {rescored!r}, the program said "
+                           f"{solution.score!r}; threshold {threshold!r} ({direction})")
+    costs = [c.cost for c in changes]
+    outcome = float(model.inverse_link(np.array([rescored]))[0])
+    return Plan(tuple(changes), rescored, outcome, float(sum(costs)),
+                float(max(costs, default=0.0)))
+
+
+def _is_category(model: AdditiveModel, name: str) -> bool:
+    return model.schema.feature(name).kind == "category"
+
+
+def _table_extreme(model: AdditiveModel, feature: str, sign: int) -> float:
+    """The most favourable contribution anywhere in a feature's table."""
+    term = model.term(feature)
+    values = list(term.values)
+    if isinstance(term, LevelsTerm):
+        values.append(term.unseen)
+    return float(max(values) if sign > 0 else min(values))
+
+
+def diagnose(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.Series,
+             candidates: Mapping[str, list[Candidate]], program: Program,
+             mutability: Mutability) -> list[str]:
+    """Which rules keep the row from the goal, the most limiting first, in plain words."""
+    sign = _favourable(program.direction)
+    gap = abs(program.threshold - best_reachable(program))
+    findings: list[tuple[float, str]] = []
+    if program.max_changes is not None:
+        unlimited = best_reachable(replace(program, max_changes=None))
+        if _reaches(unlimited, program.threshold, program.direction):
+            findings.append((math.inf, f"the limit of {program.max_changes} change(s) binds: "
+                                       "with no limit the rules would allow a plan"))
+    for name, options in candidates.items():
+        best_here = max(sign * c.contribution for c in options)
+        beyond = sign * _table_extreme(model, name, sign) - best_here
+        if beyond > 1e-9:
+            findings.append((beyond, f"the bounds, direction, step or largest change on {name} "
+                                     f"bind: its table offers {beyond:.3g} more "
+                                     f"({scale(model)}) beyond them"))
+    protected = {f.name for f in model.schema.protected_features}
+    for term in model.terms:
+        name = term.feature
+        if name in candidates or name in protected:
+            continue
+        potential = sign * _table_extreme(model, name, sign) - sign * float(parts[name])
+        if potential > 1e-9:
+            findings.append((potential, f"{name} is fixed by the rules; its table could move "
+                                        f"the score by up to {potential:.3g} "
+                                        f"({scale(model)})"))
+    findings.sort(key=lambda item: -item[0])
+    best = float(model.inverse_link(np.array([best_reachable(program)]))[0])
+    needed = float(model.inverse_link(np.array([program.threshold]))[0])
+    what = "probability" if model.link == "logit" else "prediction"
+    bound = "at least" if program.direction == "at-least" else "at most"
+    lines = [f"the rules allow a {what} of {best:.3g} at best; the goal needs {bound} "
+             f"{needed:.3g} (short by {gap:.3g} on the {scale(model)} scale)"]
+    return lines + [text for _, text in findings[:6]]
+
+
+def scale(model: AdditiveModel) -> str:
+    return "log-odds" if model.link == "logit" else "prediction"
+
+
+def plan_records(result: PlanResult) -> dict[str, Any]:
+    """The result as plain data (the planner's JSON output)."""
+    def number(value: Any) -> Any:
+        if isinstance(value, float | np.floating):
+            return None if not math.isfinite(value) else float(value)
+        return value
+
+    return {
+        "status": result.status, "id": result.row_id,
+        "score": result.score, "outcome": result.outcome,
+        "goal": {"target": result.target, "direction": result.direction},
+        "plans": [{
+            "total_cost": plan.total_cost, "largest_cost": plan.largest_cost,
+            "score": plan.score, "outcome": plan.outcome,
+            "changes": [{"feature": c.feature, "from": number(c.current),
+                         "to": number(c.proposed), "difference": number(c.difference),
+                         "cost": c.cost} for c in plan.changes],
+        } for plan in result.plans],
+        "best_score": result.best_score, "best_outcome": result.best_outcome,
+        "binding": list(result.binding), "message": result.message, "caution": CAUTION,
+    }

@@ -1,0 +1,384 @@
+"""The recourse integer program: pick one candidate per feature, reach the threshold, pay least.
+
+Array in, result out: a `Program` holds plain tuples built from the candidate tables, `solve`
+returns a `Solution` whose choice, score and objective are recomputed in Python.
+
+Ties on largest-cost and fewest-changes go to the least total cost, exactly: a second solve
+minimises total cost among choices that keep the first solve's optimum (cap on each cost, or
+on the number of changes). A small weight on total cost would have to sit below the gap
+between cost levels, which for percentile costs can fall under the solvers' tolerances.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import numbers
+import os
+import sys
+import tempfile
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pulp
+
+from recourse.errors import PlanningError
+
+SOLVERS = ("cbc", "highs")
+BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), so plans always do
+OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
+DIRECTIONS = ("at-least", "at-most")
+TOLERANCE = 1e-9  # feasibility and integrality tolerance asked of the solvers
+
+
+@dataclass(frozen=True)
+class Program:
+    """One row's choice: per group (feature) the candidates' contributions and costs."""
+
+    base: float
+    contributions: tuple[tuple[float, ...], ...]
+    costs: tuple[tuple[float, ...], ...]
+    current: tuple[int, ...]
+    threshold: float
+    direction: str
+    objective: str
+    max_changes: int | None = None
+    forbidden: tuple[frozenset[int], ...] = ()
+    names: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Solution:
+    """The solver's verdict; `choice`, `objective` and `score` are recomputed in Python."""
+
+    status: str
+    choice: tuple[int, ...] = ()
+    objective: float = math.nan
+    score: float = math.nan
+    message: str = ""
+
+
+@dataclass(frozen=True)
+class _Rows:
+    """The program as linear rows over x (one binary per kept candidate) and, maybe, t."""
+
+    kept: list[np.ndarray]  # per group, the candidate indices that get a binary, in column order
+    objective: np.ndarray  # over the binaries, then t under largest-cost
+    rows: list[tuple[np.ndarray, np.ndarray, str, float]]  # (columns, coefficients, sense, rhs)
+
+
+def _label(program: Program, group: int) -> str:
+    name = f" ({program.names[group]})" if program.names else ""
+    return f"group {group}{name}"
+
+
+def _whole(value: object) -> bool:
+    return isinstance(value, numbers.Integral) and not isinstance(value, bool)
+
+
+def _current_score(program: Program) -> float:
+    pairs = zip(program.contributions, program.current, strict=True)
+    return float(program.base + sum(values[now] for values, now in pairs))
+
+
+def _changed(program: Program, choice: tuple[int, ...]) -> frozenset[int]:
+    pairs = enumerate(zip(choice, program.current, strict=True))
+    return frozenset(group for group, (picked, now) in pairs if picked != now)
+
+
+def _check(program: Program) -> None:
+    """Raise ValueError on a malformed program: these are programmer errors, not user errors."""
+    groups = len(program.contributions)
+    if len(program.costs) != groups or len(program.current) != groups:
+        raise ValueError(f"program has {groups} contribution groups, {len(program.costs)} cost "
+                         f"groups and {len(program.current)} current indices; they must match")
+    if program.names and len(program.names) != groups:
+        raise ValueError(f"program has {len(program.names)} names for {groups} groups")
+    if program.direction not in DIRECTIONS:
+        raise ValueError(f"unknown direction {program.direction!r}; known: {', '.join(DIRECTIONS)}")
+    if program.objective not in OBJECTIVES:
+        raise ValueError(f"unknown objective {program.objective!r}; known: {', '.join(OBJECTIVES)}")
+    if not (math.isfinite(program.base) and math.isfinite(program.threshold)):
+        raise ValueError("program base and threshold must be finite numbers")
+    limit = program.max_changes
+    if limit is not None and not (_whole(limit) and limit >= 0):
+        raise ValueError(f"max_changes must be None or a whole number >= 0, not {limit!r}")
+    for group, (values, costs, now) in enumerate(
+            zip(program.contributions, program.costs, program.current, strict=True)):
+        where = _label(program, group)
+        if not values or len(values) != len(costs):
+            raise ValueError(f"{where} has {len(values)} contributions and {len(costs)} costs; "
+                             "they must match and not be empty")
+        if not all(math.isfinite(v) for v in values):
+            raise ValueError(f"{where} has a contribution that is not a finite number")
+        if not all(math.isfinite(c) and c >= 0 for c in costs):
+            raise ValueError(f"{where} has a cost that is negative or not a finite number")
+        if not (_whole(now) and 0 <= now < len(values)):
+            raise ValueError(f"{where} current index {now!r} is not in 0..{len(values) - 1}")
+        if costs[now] != 0:
+            raise ValueError(f"{where} current candidate costs {costs[now]}, it must cost 0")
+    for changed in program.forbidden:
+        if not all(_whole(g) and 0 <= g < groups for g in changed):
+            raise ValueError(f"forbidden set {sorted(changed)} names a group outside "
+                             f"0..{groups - 1}")
+
+
+def _sign(program: Program) -> float:
+    return 1.0 if program.direction == "at-least" else -1.0
+
+
+def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.ndarray:
+    """The current candidate and every change within `cap` that no cheaper change beats on gain.
+
+    Dropping a change that another change matches on gain for no more cost is exact: swapping
+    them keeps every rule (score, number of changes, which groups change) and never costs more.
+    """
+    others = np.delete(np.arange(len(gains)), now)
+    others = others[costs[others] <= cap]
+    order = others[np.lexsort((-gains[others], costs[others]))]
+    best_before = np.maximum.accumulate(np.r_[-np.inf, gains[order][:-1]])
+    return np.sort(np.r_[now, order[gains[order] > best_before]])
+
+
+def _rows(program: Program, cap: float = math.inf) -> _Rows:
+    """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
+    sign = _sign(program)
+    gains, costs, kept = [], [], []
+    for values, paid, now in zip(program.contributions, program.costs, program.current,
+                                 strict=True):
+        gain, price = sign * (np.asarray(values, float) - values[now]), np.asarray(paid, float)
+        kept.append(_frontier(gain, price, now, cap))
+        gains.append(gain[kept[-1]])
+        costs.append(price[kept[-1]])
+    sizes = [len(k) for k in kept]
+    starts = np.concatenate(([0], np.cumsum(sizes)))
+    n, columns = int(starts[-1]), np.arange(int(starts[-1]))
+    gain, cost = np.concatenate(gains), np.concatenate(costs)
+    moved = np.concatenate([k != now for k, now in zip(kept, program.current, strict=True)])
+    need = sign * (program.threshold - _current_score(program)) + BUFFER
+    spans = list(zip(starts[:-1], starts[1:], strict=True))
+    rows = [(columns[a:b], np.ones(b - a), "=", 1.0) for a, b in spans]
+    rows.append((columns[gain != 0], gain[gain != 0], ">=", need))
+    if program.max_changes is not None:
+        rows.append((columns[moved], np.ones(int(moved.sum())), "<=", float(program.max_changes)))
+    group_of = np.repeat(np.arange(len(sizes)), sizes)[moved]
+    for changed in program.forbidden:  # changes inside minus changes outside <= |S| - 1
+        inside = np.isin(group_of, sorted(changed))
+        rows.append((columns[moved], np.where(inside, 1.0, -1.0), "<=", len(changed) - 1.0))
+    objective = cost
+    if program.objective == "largest-cost":  # t >= cost of the chosen candidate in every group
+        objective = np.append(np.zeros(n), 1.0)
+        for a, b in spans:
+            rows.append((np.append(columns[a:b], n), np.append(-cost[a:b], 1.0), ">=", 0.0))
+    elif program.objective == "fewest-changes":
+        objective = moved.astype(float)
+    return _Rows(kept, objective, rows)
+
+
+def _choice(program: Program, layout: _Rows, values: np.ndarray, solver: str) -> tuple[int, ...]:
+    """Round the solver's x to one candidate per group (original indices)."""
+    choice, start = [], 0
+    for group, kept in enumerate(layout.kept):
+        chunk = values[start:start + len(kept)]
+        start += len(kept)
+        picked = np.flatnonzero(chunk > 0.5)
+        if len(picked) != 1 or np.abs(chunk - np.round(chunk)).max() > 1e-6:
+            raise RuntimeError(f"{solver} did not pick exactly one candidate in "
+                               f"{_label(program, group)}: {chunk.tolist()}")
+        choice.append(int(kept[picked[0]]))
+    return tuple(choice)
+
+
+def _judged(program: Program, choice: tuple[int, ...], solver: str) -> Solution:
+    """Check every rule in Python and report score and objective computed from the tables."""
+    score = float(program.base + sum(
+        v[c] for v, c in zip(program.contributions, choice, strict=True)))
+    paid = [costs[c] for costs, c in zip(program.costs, choice, strict=True)]
+    changed = _changed(program, choice)
+    objective = {"total-cost": sum(paid), "largest-cost": max(paid, default=0.0),
+                 "fewest-changes": len(changed)}[program.objective]
+    reached = _sign(program) * (score - program.threshold) >= 0
+    within = program.max_changes is None or len(changed) <= program.max_changes
+    if not reached or not within or changed in program.forbidden:
+        raise RuntimeError(f"{solver} returned a choice that breaks the program's rules "
+                           f"(score {score!r}, threshold {program.threshold!r}, changed "
+                           f"{sorted(changed)})")
+    return Solution("optimal", choice, float(objective), score, f"optimal ({solver})")
+
+
+Run = Callable[[Program, float], tuple[int, ...] | None]
+
+
+def _lexicographic(program: Program, run: Run, solver: str) -> Solution:
+    """Find the objective's optimum, then the least total cost among choices that match it."""
+    _check(program)
+    if not program.contributions:  # one choice, the empty one: no solver needed
+        run = _empty_run
+    optimum = None
+    if program.objective != "total-cost":
+        if program.forbidden:  # no closed form: solve for the objective first
+            first = run(program, math.inf)
+            optimum = None if first is None else _judged(program, first, solver).objective
+        else:
+            optimum = _closed_form(program)
+        if optimum is None:
+            return _no_plan(solver)
+    cheapest = replace(program, objective="total-cost")
+    if program.objective == "fewest-changes":
+        cheapest = replace(cheapest, max_changes=int(optimum))
+    choice = run(cheapest, optimum if program.objective == "largest-cost" else math.inf)
+    if choice is None:
+        if optimum is not None:
+            raise RuntimeError(f"{solver} found no choice that reaches the optimum {optimum}")
+        return _no_plan(solver)
+    return _judged(program, choice, solver)
+
+
+def _no_plan(solver: str) -> Solution:
+    return Solution("infeasible", message=f"no choice of candidates meets the rules ({solver})")
+
+
+def _empty_run(program: Program, cap: float) -> tuple[int, ...] | None:
+    margin = _sign(program) * (program.base - program.threshold)
+    return None if margin < BUFFER or frozenset() in program.forbidden else ()
+
+
+def _gains(program: Program, cap: float) -> list[float]:
+    """Every group's best gain over its current candidate, changes costing <= cap; best first."""
+    sign, best = _sign(program), []
+    for values, costs, now in zip(program.contributions, program.costs, program.current,
+                                  strict=True):
+        best.append(max(sign * (v - values[now]) for v, c in zip(values, costs, strict=True)
+                        if c <= cap))
+    return sorted((gain for gain in best if gain > 0), reverse=True)
+
+
+def _closed_form(program: Program) -> float | None:
+    """Fewest changes or least largest cost without forbidden sets: the top gains decide.
+
+    With at most `max_changes` changes, the best score under a cap on each cost takes every
+    group's best change within the cap and keeps the largest gains: exact, no solver needed.
+    """
+    need = _sign(program) * (program.threshold - _current_score(program)) + BUFFER
+    limit = len(program.contributions) if program.max_changes is None else program.max_changes
+    if program.objective == "fewest-changes":
+        reached = np.flatnonzero(np.cumsum([0.0, *_gains(program, math.inf)[:limit]]) >= need)
+        return float(reached[0]) if len(reached) else None
+    levels = sorted({c for costs in program.costs for c in costs})
+    low, high = 0, len(levels) - 1
+    if sum(_gains(program, levels[high])[:limit]) < need:
+        return None
+    while low < high:  # the cheapest cap that still reaches
+        middle = (low + high) // 2
+        if sum(_gains(program, levels[middle])[:limit]) >= need:
+            high = middle
+        else:
+            low = middle + 1
+    return float(levels[low])
+
+
+@functools.cache
+def _hush_highs_banner() -> None:
+    """HiGHS prints a banner on stdout when a process makes its first solver: send it nowhere."""
+    import highspy
+
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as sink:
+            os.dup2(sink.fileno(), 1)
+            highspy.Highs()
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+
+
+def _pulp_solver(solver: str) -> pulp.LpSolver:
+    if solver == "highs":
+        _hush_highs_banner()
+        return pulp.HiGHS(msg=False, gapRel=0.0, gapAbs=0.0, mip_feasibility_tolerance=TOLERANCE,
+                          primal_feasibility_tolerance=TOLERANCE)
+    with warnings.catch_warnings():  # PuLP 3.3 warns that the bundled CBC goes away in 4.0
+        warnings.simplefilter("ignore", DeprecationWarning)
+        # the bundled CBC 2.10.3's preprocessing returned a dearer plan as optimal on a
+        # 4-group program (tests/test_program.py found it): keep it off
+        return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, threads=1,
+                                 options=[f"primalTolerance {TOLERANCE}", "preprocess off",
+                                          f"integerTolerance {TOLERANCE}"])
+
+
+def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | None:
+    layout = _rows(program, cap)
+    problem = pulp.LpProblem("recourse", pulp.LpMinimize)
+    binaries = sum(len(kept) for kept in layout.kept)
+    x = [problem.add_variable(f"x{i:05d}", 0, 1, pulp.LpBinary) for i in range(binaries)]
+    if len(layout.objective) > binaries:  # largest-cost: t, continuous
+        x.append(problem.add_variable("t", 0, None, pulp.LpContinuous))
+    problem.setObjective(pulp.LpAffineExpression(
+        [(x[i], float(c)) for i, c in enumerate(layout.objective) if c != 0]))
+    senses = {"=": pulp.LpConstraintEQ, ">=": pulp.LpConstraintGE, "<=": pulp.LpConstraintLE}
+    for k, (columns, coefficients, sense, rhs) in enumerate(layout.rows):
+        pairs = zip(columns, coefficients, strict=True)
+        terms = pulp.LpAffineExpression([(x[i], float(c)) for i, c in pairs])
+        problem.addConstraint(pulp.LpConstraint(terms, senses[sense], f"r{k}", float(rhs)))
+    engine = _pulp_solver(solver)
+    with tempfile.TemporaryDirectory(prefix="recourse-") as scratch:
+        engine.tmpDir = scratch  # CBC's files go here and vanish with it, even on errors
+        problem.solve(engine)
+    if problem.status == pulp.LpStatusInfeasible:
+        return None
+    if problem.status != pulp.LpStatusOptimal:
+        raise RuntimeError(f"{solver} stopped with status {pulp.LpStatus[problem.status]}")
+    values = np.array([var.varValue if var.varValue is not None else 0.0 for var in x])
+    return _choice(program, layout, values, solver)
+
+
+def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
+    from scipy.optimize import Bounds, LinearConstraint, milp
+
+    layout = _rows(program, cap)
+    size = len(layout.objective)
+    matrix = np.zeros((len(layout.rows), size))
+    lower = np.full(len(layout.rows), -np.inf)
+    upper = np.full(len(layout.rows), np.inf)
+    for k, (columns, coefficients, sense, rhs) in enumerate(layout.rows):
+        matrix[k, columns] = coefficients
+        lower[k] = rhs if sense in ("=", ">=") else -np.inf
+        upper[k] = rhs if sense in ("=", "<=") else np.inf
+    integrality, high = np.ones(size), np.ones(size)
+    if program.objective == "largest-cost":
+        integrality[-1], high[-1] = 0, np.inf
+    result = milp(layout.objective, constraints=LinearConstraint(matrix, lower, upper),
+                  integrality=integrality, bounds=Bounds(np.zeros(size), high),
+                  options={"disp": False, "mip_rel_gap": 0.0, "presolve": False})
+    # presolve off: scipy 1.16's HiGHS 1.8 presolve called a one-group program infeasible
+    if result.status == 2:
+        return None
+    if result.status != 0:
+        raise RuntimeError(f"scipy milp stopped: {result.message}")
+    return _choice(program, layout, np.asarray(result.x), "scipy")
+
+
+def solve(program: Program, solver: str = "cbc") -> Solution:
+    """Solve the program with PuLP and CBC or HiGHS; the returned choice is verified in Python."""
+    if solver not in SOLVERS:
+        raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")
+    return _lexicographic(program, functools.partial(_pulp_run, solver=solver), solver)
+
+
+def solve_with_scipy(program: Program) -> Solution:
+    """Solve the same rows with scipy.optimize.milp: a second solver for the tests."""
+    return _lexicographic(program, _scipy_run, "scipy")
+
+
+def best_reachable(program: Program) -> float:
+    """The most favourable score the rules allow, ignoring the threshold and forbidden sets.
+
+    Each group's best gain over its current candidate, the largest `max_changes` of them.
+    """
+    _check(program)
+    limit = len(program.contributions) if program.max_changes is None else program.max_changes
+    gained = sum(_gains(program, math.inf)[:limit])
+    return float(_current_score(program) + _sign(program) * gained)

@@ -1,0 +1,111 @@
+"""The planner end to end: published coefficients, closed forms, statuses, re-scoring."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from glassbox.additive import AdditiveModel, CurveTerm
+from glassbox.schema import Schema
+from recourse.mutability import mutability_from_dict
+from recourse.planner import find_plans, plan_records
+
+
+def islr_default_model() -> AdditiveModel:
+    """ISLR Table 4.3's logistic model for the Default data (James et al., from memory):
+    intercept -10.8690, balance 0.005737, income 0.003033 per $1,000, student[Yes] -0.6468.
+    Each coefficient becomes a straight-line table over a wide range (exact inside it)."""
+    schema = Schema.from_dict({
+        "target": {"column": "default", "positive": "Yes"},
+        "feature": {"balance": {"kind": "number"}, "income": {"kind": "number"},
+                    "student": {"kind": "flag"}},
+    })
+    terms = (CurveTerm("balance", (0.0, 5000.0), (0.0, 0.005737 * 5000)),
+             CurveTerm("income", (0.0, 200.0), (0.0, 0.003033 * 200)),
+             CurveTerm("student", (0.0, 1.0), (0.0, -0.6468)))
+    return AdditiveModel("logit", -10.8690, terms, schema)
+
+
+APPLICANT = pd.Series({"balance": 2000.0, "income": 40.0, "student": "no"}, dtype=object)
+
+
+def rules(**features) -> dict:
+    return {"goal": {"probability": 0.5, "direction": "at-most"},
+            "feature": features}
+
+
+def test_islr_balance_needed_for_an_even_chance():
+    # Solve -10.8690 + 0.005737 b + 0.003033 x 40 = 0: b = (10.8690 - 0.12132) / 0.005737
+    # = 1873.4, so in whole dollars the balance must come down to at most $1,873.
+    model = islr_default_model()
+    mutability = mutability_from_dict(rules(balance={"change": "decrease", "step": 1,
+                                                     "cost": 1.0}), model)
+    result = find_plans(model, APPLICANT, mutability, n_plans=1)
+    assert result.status == "plans"
+    (change,) = result.plans[0].changes
+    assert change.feature == "balance" and change.proposed == 1873.0
+    assert change.difference == -127.0 and change.cost == pytest.approx(127.0)
+    assert result.plans[0].outcome <= 0.5 < result.outcome
+
+
+def test_closed_form_for_one_linear_feature():
+    # A linear model with one changeable numeric feature: the change needed is
+    # (target score - current score) / coefficient, rounded up to the step.
+    model = islr_default_model()
+    step = 25.0
+    mutability = mutability_from_dict(rules(balance={"change": "decrease", "step": step,
+                                                     "cost": 1.0}), model)
+    current = -10.8690 + 0.005737 * 2000 + 0.003033 * 40
+    needed = (0.0 - current) / 0.005737  # negative: the balance must fall
+    expected = 2000 + np.floor(needed / step) * step  # rounded up in size, on the grid
+    result = find_plans(model, APPLICANT, mutability, n_plans=1)
+    assert result.plans[0].changes[0].proposed == pytest.approx(expected)
+
+
+def test_several_distinct_plans_change_different_sets():
+    model = islr_default_model()
+    mutability = mutability_from_dict(rules(
+        balance={"change": "decrease", "step": 1, "cost": 1.0},
+        income={"change": "decrease", "step": 1, "cost": 1.0}), model)
+    result = find_plans(model, APPLICANT, mutability, n_plans=3)
+    sets = [frozenset(c.feature for c in plan.changes) for plan in result.plans]
+    assert len(sets) == len(set(sets)) >= 2
+    costs = [plan.total_cost for plan in result.plans]
+    assert costs == sorted(costs)  # each plan is the cheapest left after the cuts
+    for plan in result.plans:  # re-scored through the model: every plan reaches the goal
+        assert plan.outcome <= 0.5
+
+
+def test_already_meets_the_goal():
+    model = islr_default_model()
+    mutability = mutability_from_dict(rules(balance={"change": "decrease", "cost": 1.0}),
+                                      model)
+    fine = pd.Series({"balance": 500.0, "income": 40.0, "student": "no"}, dtype=object)
+    assert find_plans(model, fine, mutability).status == "already"
+
+
+def test_no_plan_says_how_close_and_which_rules_bind():
+    model = islr_default_model()
+    mutability = mutability_from_dict(rules(balance={"change": "decrease", "lower": 1950.0,
+                                                     "step": 1, "cost": 1.0}), model)
+    result = find_plans(model, APPLICANT, mutability)
+    assert result.status == "none" and not result.plans
+    # best allowed: balance 1950 -> -10.8690 + 0.005737*1950 + 0.12132 (constructed)
+    assert result.best_score == pytest.approx(-10.8690 + 0.005737 * 1950 + 0.12132, abs=1e-6)
+    text = " ".join(result.binding)
+    assert "balance" in text and "bind" in text
+    assert "income is fixed" in text or "student is fixed" in text
+    record = plan_records(result)
+    assert record["status"] == "none" and "not advice" in record["caution"]
+
+
+def test_max_changes_binding_is_reported():
+    model = islr_default_model()
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.5, "direction": "at-most", "max_changes": 1},
+        "feature": {"balance": {"change": "decrease", "lower": 1900.0, "step": 1, "cost": 1.0},
+                    "student": {"change": "increase", "cost": 5.0}}}, model)
+    result = find_plans(model, APPLICANT, mutability)
+    assert result.status == "none"
+    assert any("limit of 1 change" in line for line in result.binding)

@@ -1,0 +1,327 @@
+"""The recourse integer program.
+
+Outside references: exact brute-force enumeration of every combination of candidates (numpy,
+written here independently of the program's rows), a second solver (scipy.optimize.milp), and
+a closed form worked by hand for one linear feature on a grid.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import subprocess
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
+
+from recourse.errors import PlanningError
+from recourse.program import (
+    BUFFER,
+    SOLVERS,
+    Program,
+    Solution,
+    best_reachable,
+    solve,
+    solve_with_scipy,
+)
+
+ROOT = Path(__file__).resolve().parent.parent
+# Solvers accept a row that misses by their feasibility tolerance (scipy's HiGHS: 1e-6, fixed).
+# A combination whose score lies this close to the buffered threshold is ambiguous to any
+# floating-point solver, so the random programs keep every combination clear of it.
+CLEAR = 1e-5
+SCIPY_GAP = 1e-6  # scipy.optimize.milp's fixed absolute optimality gap (HiGHS's mip_abs_gap)
+
+
+# ---------------------------------------------------------------- brute force (outside reference)
+
+def grids(program: Program) -> dict[str, np.ndarray]:
+    """Every combination of candidates at once: one axis per group (exact enumeration)."""
+    shape = tuple(len(values) for values in program.contributions)
+    score = np.full(shape, float(program.base))
+    total = np.zeros(shape)
+    largest = np.zeros(shape)
+    changes = np.zeros(shape, dtype=int)
+    changed_mask = np.zeros(shape, dtype=int)  # bit g set when group g changes
+    for g, (values, costs, now) in enumerate(
+            zip(program.contributions, program.costs, program.current, strict=True)):
+        axis = [1] * len(shape)
+        axis[g] = len(values)
+        moved = (np.arange(len(values)) != now).astype(int)
+        score = score + np.reshape(values, axis)
+        total = total + np.reshape(costs, axis)
+        largest = np.maximum(largest, np.reshape(costs, axis))
+        changes = changes + np.reshape(moved, axis)
+        changed_mask = changed_mask + np.reshape(moved << g, axis)
+    return {"score": score, "total-cost": total, "largest-cost": largest,
+            "fewest-changes": changes.astype(float), "changes": changes, "mask": changed_mask}
+
+
+def allowed(program: Program, grid: dict[str, np.ndarray]) -> np.ndarray:
+    """Combinations that keep max_changes and avoid every forbidden set (ignores the score)."""
+    ok = np.ones(grid["score"].shape, dtype=bool)
+    if program.max_changes is not None:
+        ok &= grid["changes"] <= program.max_changes
+    for changed in program.forbidden:
+        ok &= grid["mask"] != sum(1 << g for g in changed)
+    return ok
+
+
+def margin(program: Program, grid: dict[str, np.ndarray]) -> np.ndarray:
+    sign = 1.0 if program.direction == "at-least" else -1.0
+    return sign * (grid["score"] - program.threshold)
+
+
+def brute_force(program: Program) -> tuple[float, float] | None:
+    """(optimum, least total cost among the optima) by enumeration, or None when infeasible.
+
+    The same BUFFER is applied to the threshold as the program's contract says.
+    """
+    grid = grids(program)
+    feasible = allowed(program, grid) & (margin(program, grid) >= BUFFER)
+    if not feasible.any():
+        return None
+    best = grid[program.objective][feasible].min()
+    ties = feasible & (grid[program.objective] <= best + 1e-9)
+    return float(best), float(grid["total-cost"][ties].min())
+
+
+def clear_of_threshold(program: Program) -> bool:
+    return bool(np.all(np.abs(margin(program, grids(program)) - BUFFER) > CLEAR))
+
+
+# ---------------------------------------------------------------- random small programs
+
+numbers = st.one_of(st.floats(-3, 3, allow_nan=False),
+                    st.sampled_from([0.0, 0.5, 1.0, -1.0]))  # repeats make ties and dominance
+prices = st.one_of(st.floats(0, 10, allow_nan=False), st.sampled_from([1.0, 2.5]))
+
+
+@st.composite
+def groups(draw):
+    size = draw(st.integers(1, 8))
+    values = draw(st.lists(numbers, min_size=size, max_size=size))
+    costs = draw(st.lists(prices, min_size=size, max_size=size))
+    now = draw(st.integers(0, size - 1))
+    costs[now] = 0.0
+    return tuple(values), tuple(costs), now
+
+
+@st.composite
+def programs(draw):
+    tables = draw(st.lists(groups(), min_size=0, max_size=5))
+    count = len(tables)
+    subsets = st.frozensets(st.integers(0, count - 1), max_size=count) if count else \
+        st.just(frozenset())
+    base = draw(st.floats(-3, 3, allow_nan=False))
+    direction = draw(st.sampled_from(["at-least", "at-most"]))
+    # the threshold: from the current score (0) to the best any choice reaches (1) and beyond,
+    # so that most programs need a real plan, some are met already and some are out of reach
+    pick = max if direction == "at-least" else min
+    now = base + sum(t[0][t[2]] for t in tables)
+    best = base + sum(pick(t[0]) for t in tables)
+    share = draw(st.floats(-0.1, 1.1))
+    program = Program(
+        base=base,
+        contributions=tuple(t[0] for t in tables),
+        costs=tuple(t[1] for t in tables),
+        current=tuple(t[2] for t in tables),
+        threshold=now + share * (best - now),
+        direction=direction,
+        objective=draw(st.sampled_from(["total-cost", "largest-cost", "fewest-changes"])),
+        max_changes=draw(st.one_of(st.none(), st.integers(0, max(count, 1)))),
+        forbidden=tuple(draw(st.lists(subsets, max_size=3))),
+    )
+    assume(clear_of_threshold(program))
+    return program
+
+
+def assert_keeps_the_rules(program: Program, solution: Solution) -> None:
+    """The choice: one candidate per group, score and objective recomputed, every rule kept."""
+    assert len(solution.choice) == len(program.contributions)
+    assert all(0 <= c < len(v) for c, v in zip(solution.choice, program.contributions,
+                                                strict=True))
+    score = program.base + sum(v[c] for v, c in zip(program.contributions, solution.choice,
+                                                    strict=True))
+    assert solution.score == pytest.approx(score, abs=1e-12)
+    sign = 1.0 if program.direction == "at-least" else -1.0
+    assert sign * (score - program.threshold) >= BUFFER  # passes the threshold by the buffer
+    paid = [costs[c] for costs, c in zip(program.costs, solution.choice, strict=True)]
+    changed = frozenset(g for g, (c, now) in enumerate(zip(solution.choice, program.current,
+                                                           strict=True)) if c != now)
+    objective = {"total-cost": sum(paid), "largest-cost": max(paid, default=0.0),
+                 "fewest-changes": len(changed)}[program.objective]
+    assert solution.objective == pytest.approx(objective, abs=1e-12)
+    assert changed not in program.forbidden
+    assert program.max_changes is None or len(changed) <= program.max_changes
+
+
+def check_against_enumeration(program: Program, solver: str) -> Solution:
+    solution = solve(program, solver)
+    truth = brute_force(program)  # exact enumeration of every combination
+    if truth is None:
+        assert solution.status == "infeasible", solution
+        assert solution.choice == () and math.isnan(solution.objective)
+        return solution
+    assert solution.status == "optimal", solution
+    assert solution.objective == pytest.approx(truth[0], abs=1e-9)  # enumeration's optimum
+    assert_keeps_the_rules(program, solution)
+    if program.objective != "total-cost":
+        # tie-break, against enumeration: least total cost among the primary optima
+        paid = sum(c[i] for c, i in zip(program.costs, solution.choice, strict=True))
+        assert paid == pytest.approx(truth[1], abs=1e-9)
+    return solution
+
+
+# 200 random programs for each solver (CBC, a subprocess, takes ~10 s of the ~30 s here).
+@settings(max_examples=200, deadline=None, derandomize=True)
+@given(programs())
+def test_highs_matches_enumeration_and_scipy(program):
+    solution = check_against_enumeration(program, "highs")
+    second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
+    assert second.status == solution.status
+    if solution.status == "optimal":
+        # scipy's milp stops at HiGHS's absolute gap of 1e-6, which it does not let us change
+        assert second.objective == pytest.approx(solution.objective, abs=SCIPY_GAP)
+        assert_keeps_the_rules(program, second)
+
+
+@settings(max_examples=200, deadline=None, derandomize=True)
+@given(programs())
+def test_cbc_matches_enumeration_and_scipy(program):
+    solution = check_against_enumeration(program, "cbc")
+    second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
+    assert second.status == solution.status
+    if solution.status == "optimal":
+        assert second.objective == pytest.approx(solution.objective, abs=SCIPY_GAP)
+
+
+@settings(max_examples=200, deadline=None, derandomize=True)
+@given(programs())
+def test_best_reachable_matches_enumeration(program):
+    grid = grids(program)  # exact enumeration, forbidden sets ignored as documented
+    ok = np.ones(grid["score"].shape, dtype=bool)
+    if program.max_changes is not None:
+        ok &= grid["changes"] <= program.max_changes
+    sign = 1.0 if program.direction == "at-least" else -1.0
+    best = sign * (sign * grid["score"][ok]).max()
+    assert best_reachable(program) == pytest.approx(best, abs=1e-12)
+
+
+# ---------------------------------------------------------------- closed form (worked by hand)
+
+@settings(max_examples=40, deadline=None, derandomize=True)
+@given(coefficient=st.floats(0.1, 5), step=st.sampled_from([0.01, 0.25, 1.0, 5.0]),
+       gap=st.floats(0.01, 4), points=st.integers(1, 60),
+       direction=st.sampled_from(["at-least", "at-most"]),
+       objective=st.sampled_from(["total-cost", "largest-cost", "fewest-changes"]),
+       solver=st.sampled_from(SOLVERS))
+def test_one_linear_feature_on_a_grid(coefficient, step, gap, points, direction, objective,
+                                      solver):
+    # One feature, contribution = coefficient * (value - current), candidates current +- k*step
+    # (up for at-least, down for at-most), cost |change|. By hand: the smallest change that
+    # closes the gap is gap / coefficient rounded up to the step.
+    steps_needed = gap / (coefficient * step)
+    assume(abs(steps_needed - round(steps_needed)) > 1e-4)  # clear of the buffer
+    current, sign = 10.0, 1.0 if direction == "at-least" else -1.0
+    values = [current + sign * k * step for k in range(points + 1)]
+    program = Program(
+        base=-1.0,
+        contributions=(tuple(coefficient * (v - current) for v in values),),
+        costs=(tuple(abs(v - current) for v in values),),
+        current=(0,), threshold=-1.0 + sign * gap, direction=direction, objective=objective)
+    expected = math.ceil(gap / coefficient / step)  # closed form: steps on the grid
+    solution = solve(program, solver)
+    if expected > points:
+        assert solution.status == "infeasible"
+    else:
+        assert solution.status == "optimal"
+        assert values[solution.choice[0]] == pytest.approx(current + sign * expected * step)
+
+
+# ---------------------------------------------------------------- hand-made cases and errors
+
+def small(**changes) -> Program:
+    program = Program(base=-1.0, contributions=((0.0, 0.6, 1.5), (0.0, 0.7)),
+                      costs=((0.0, 1.0, 4.0), (0.0, 2.0)), current=(0, 0), threshold=0.0,
+                      direction="at-least", objective="total-cost")
+    return replace(program, **changes)
+
+
+@pytest.mark.parametrize("solver", SOLVERS)
+def test_forbidding_a_plan_gives_the_next_one(solver):
+    # constructed: {0,1} costs 3 (score 0.3), {0} alone costs 4 (score 0.5), {1} misses
+    first = solve(small(), solver)
+    assert first.choice == (1, 1) and first.objective == pytest.approx(3.0)
+    second = solve(small(forbidden=(frozenset({0, 1}),)), solver)
+    assert second.choice == (2, 0) and second.objective == pytest.approx(4.0)
+    assert solve(small(max_changes=1, forbidden=(frozenset({0}),)), solver).status == "infeasible"
+    assert best_reachable(small(max_changes=1)) == pytest.approx(0.5)
+
+
+@pytest.mark.parametrize("solver", SOLVERS)
+@pytest.mark.parametrize("direction", ["at-least", "at-most"])
+def test_the_buffer_keeps_plans_off_the_line(solver, direction):
+    # constructed: the cheap candidate passes the threshold by only half the buffer, so the
+    # plan must take the dearer one that passes it by 0.1
+    sign = 1.0 if direction == "at-least" else -1.0
+    program = small(contributions=((0.0, sign * (1.0 + BUFFER / 2), sign * 1.1), (0.0, 0.0)),
+                    threshold=sign * 1.0 - 1.0, direction=direction)
+    assert solve(program, solver).choice == (2, 0)  # (scipy's fixed 1e-6 tolerance can't see it)
+    assert solve(replace(program, contributions=((0.0, sign * 1.0), (0.0, 0.0)),
+                         costs=((0.0, 1.0), (0.0, 2.0))), solver).status == "infeasible"
+
+
+def test_no_groups_is_judged_without_a_solver():
+    for solver in SOLVERS:
+        assert solve(small(contributions=(), costs=(), current=()), solver).status == "infeasible"
+        met = solve(small(contributions=(), costs=(), current=(), threshold=-2.0), solver)
+        assert met.status == "optimal" and met.choice == () and met.objective == 0.0
+        on_the_line = small(contributions=(), costs=(), current=(), threshold=-1.0)
+        assert solve(on_the_line, solver).status == "infeasible"  # the buffer applies here too
+
+
+@pytest.mark.parametrize(("changes", "words"), [
+    ({"costs": ((0.0, 1.0, 4.0),)}, "must match"),
+    ({"current": (0, 2)}, "current index 2"),
+    ({"costs": ((0.0, -1.0, 4.0), (0.0, 2.0))}, "negative"),
+    ({"costs": ((1.0, 1.0, 4.0), (0.0, 2.0))}, "must cost 0"),
+    ({"contributions": ((0.0, math.nan, 1.5), (0.0, 0.7))}, "finite"),
+    ({"contributions": ((0.0, 0.6), (0.0, 0.7))}, "must match"),
+    ({"objective": "cheapest"}, "unknown objective"),
+    ({"direction": "above"}, "unknown direction"),
+    ({"max_changes": -1}, "max_changes"),
+    ({"forbidden": (frozenset({5}),)}, "forbidden set"),
+    ({"names": ("only-one",)}, "names"),
+])
+def test_malformed_programs_are_programmer_errors(changes, words):
+    for run in (lambda p: solve(p, "highs"), solve_with_scipy, best_reachable):
+        with pytest.raises(ValueError, match=words) as caught:
+            run(small(**changes))
+        assert not isinstance(caught.value, PlanningError)
+
+
+def test_unknown_solver_is_a_user_error():
+    with pytest.raises(PlanningError, match="known solvers: cbc, highs"):
+        solve(small(), "gurobi")
+
+
+def test_solving_is_quiet_and_leaves_no_files(tmp_path):
+    # a fresh process, so HiGHS's once-per-process banner would show; warnings made visible
+    script = ("from tests.test_program import small\n"
+              "from recourse.program import solve, solve_with_scipy\n"
+              "for solver in ('highs', 'cbc'):\n"
+              "    assert solve(small(), solver).status == 'optimal'\n"
+              "    assert solve(small(threshold=9.0), solver).status == 'infeasible'\n"
+              "assert solve_with_scipy(small()).status == 'optimal'\n")
+    env = {**os.environ, "TMPDIR": str(tmp_path), "PYTHONWARNINGS": "default"}
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, env=env,
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout == "" and done.stderr == ""
+    assert list(tmp_path.iterdir()) == []  # CBC's scratch files are gone

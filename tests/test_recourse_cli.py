@@ -1,0 +1,111 @@
+"""The recourse command end to end on the invented demo data; errors are one line."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from glassbox import artifact, fit_model
+from recourse.cli import app
+
+from .conftest import DEMO
+
+runner = CliRunner()
+
+
+def run(*args):
+    return runner.invoke(app, [str(a) for a in args])
+
+
+@pytest.fixture(scope="module")
+def model_file(tmp_path_factory, loans, loans_schema):
+    path = tmp_path_factory.mktemp("recourse") / "loans.json"
+    artifact.save(fit_model(loans, loans_schema, "spline"), path)
+    return path
+
+
+@pytest.fixture(scope="module")
+def declined_id(model_file, loans):
+    model = artifact.load(model_file)
+    probability = model.probability(loans)
+    order = probability.argsort()
+    # a row a little above the cut-off (constructed from the demo data): plannable
+    above = [i for i in order if 0.32 < probability[i] < 0.45]
+    return loans.iloc[above[0]]["application_id"]
+
+
+def test_template_lists_every_feature_fixed(model_file, tmp_path):
+    result = run("template", model_file)
+    assert result.exit_code == 0, result.output
+    assert "[goal]" in result.stdout and "[feature.credit_utilisation]" in result.stdout
+    assert "owner_age_band" in result.stdout  # listed, and marked as never changeable
+    path = tmp_path / "template.toml"
+    path.write_text(result.stdout)
+    plan = run("plan", model_file, "--mutability", path, "--data", DEMO / "loans.csv",
+               "--index", "1")
+    assert plan.exit_code == 0, plan.output
+
+
+def test_plan_for_one_declined_applicant(model_file, declined_id):
+    result = run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                 "--data", DEMO / "loans.csv", "--id", declined_id)
+    assert result.exit_code == 0, result.output
+    assert f"Row {declined_id}" in result.stdout
+    assert "Plan 1" in result.stdout and "not advice" in result.stdout
+    as_json = run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                  "--data", DEMO / "loans.csv", "--id", declined_id, "--format", "json")
+    record = json.loads(as_json.stdout)
+    assert record["status"] == "plans"
+    for plan in record["plans"]:
+        assert plan["outcome"] <= 0.30 - 0.02 + 1e-12
+        assert {"feature", "from", "to"} <= set(plan["changes"][0])
+
+
+def test_plan_from_a_json_row(model_file, tmp_path, loans, declined_id):
+    row = loans[loans["application_id"] == declined_id].iloc[0].to_dict()
+    path = tmp_path / "row.json"
+    path.write_text(json.dumps({k: (v.item() if hasattr(v, "item") else v)
+                                for k, v in row.items()}))
+    result = run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                 "--row", path, "--format", "json")
+    assert result.exit_code == 0, result.output
+    assert json.loads(result.stdout)["status"] == "plans"
+
+
+def test_batch_of_declined_rows(model_file, tmp_path, loans):
+    small = tmp_path / "small.csv"
+    loans.head(300).to_csv(small, index=False)
+    out = tmp_path / "plans.csv"
+    result = run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                 "--data", small, "--declined", "--plans", "1", "--out", out)
+    assert result.exit_code == 0, result.output
+    table = pd.read_csv(out)
+    model = artifact.load(model_file)
+    declined = int((model.probability(loans.head(300)) > 0.28).sum())
+    assert table["id"].nunique() == declined
+    assert "with a plan" in result.output
+
+
+def one_line_error(result, *fragments):
+    assert result.exit_code == 2, result.output
+    text = " ".join(line for line in result.output.splitlines() if line.strip())
+    assert text.startswith("error: ") and "Traceback" not in result.output, result.output
+    for fragment in fragments:
+        assert fragment in text, text
+
+
+def test_errors(model_file, tmp_path):
+    protected = tmp_path / "bad.toml"
+    protected.write_text("[goal]\nprobability = 0.3\ndirection = 'at-most'\n"
+                         "[feature.owner_age_band]\nchange = 'either'\n")
+    one_line_error(run("plan", model_file, "--mutability", protected, "--data",
+                       DEMO / "loans.csv", "--index", "1"), "owner_age_band")
+    one_line_error(run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                       "--data", DEMO / "loans.csv", "--id", "L999999"), "no row")
+    one_line_error(run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml"),
+                   "name one row")
+    one_line_error(run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
+                       "--declined"), "--declined needs --data")
