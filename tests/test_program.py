@@ -266,15 +266,17 @@ def test_forbidding_a_plan_gives_the_next_one(solver):
 
 @pytest.mark.parametrize("solver", SOLVERS)
 @pytest.mark.parametrize("direction", ["at-least", "at-most"])
-def test_the_buffer_keeps_plans_off_the_line(solver, direction):
-    # constructed: the cheap candidate passes the threshold by only half the buffer, so the
-    # plan must take the dearer one that passes it by 0.1
+@pytest.mark.parametrize("objective", ["total-cost", "largest-cost", "fewest-changes"])
+def test_the_buffer_keeps_plans_off_the_line(solver, direction, objective):
+    # constructed: changing group 0 alone passes the threshold by only half the buffer, so
+    # every objective must change both groups (the random programs stay clear of this line)
     sign = 1.0 if direction == "at-least" else -1.0
-    program = small(contributions=((0.0, sign * (1.0 + BUFFER / 2), sign * 1.1), (0.0, 0.0)),
-                    threshold=sign * 1.0 - 1.0, direction=direction)
-    assert solve(program, solver).choice == (2, 0)  # (scipy's fixed 1e-6 tolerance can't see it)
-    assert solve(replace(program, contributions=((0.0, sign * 1.0), (0.0, 0.0)),
-                         costs=((0.0, 1.0), (0.0, 2.0))), solver).status == "infeasible"
+    program = small(contributions=((0.0, sign * (1.0 + BUFFER / 2)), (0.0, sign * 0.5)),
+                    costs=((0.0, 1.0), (0.0, 2.0)), threshold=sign * 1.0 - 1.0,
+                    direction=direction, objective=objective)
+    assert solve(program, solver).choice == (1, 1)  # (scipy's fixed 1e-6 tolerance can't see it)
+    alone = replace(program, contributions=((0.0, sign * (1.0 + BUFFER / 2)), (0.0, 0.0)))
+    assert solve(alone, solver).status == "infeasible"
 
 
 def test_no_groups_is_judged_without_a_solver():
