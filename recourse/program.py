@@ -1,12 +1,10 @@
 """The recourse integer program: pick one candidate per feature, reach the threshold, pay least.
 
 Array in, result out: a `Program` holds plain tuples built from the candidate tables, `solve`
-returns a `Solution` whose choice, score and objective are recomputed in Python.
-
-Ties on largest-cost and fewest-changes go to the least total cost, exactly: a second solve
-minimises total cost among choices that keep the first solve's optimum (cap on each cost, or
-on the number of changes). A small weight on total cost would have to sit below the gap
-between cost levels, which for percentile costs can fall under the solvers' tolerances.
+returns a `Solution` whose choice, score and objective are recomputed in Python. Ties on
+largest-cost and fewest-changes go to the least total cost, exactly: a second solve minimises
+total cost among the choices that keep the first optimum (a small weight on total cost would
+have to sit below the gaps between cost levels, which can be finer than solver tolerances).
 """
 
 from __future__ import annotations
@@ -31,6 +29,7 @@ BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), s
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
 DIRECTIONS = ("at-least", "at-most")
 TOLERANCE = 1e-9  # feasibility and integrality tolerance asked of the solvers
+NOISE = 1e-12  # gains and costs below this are zero to the solvers
 
 
 @dataclass(frozen=True)
@@ -111,10 +110,10 @@ def _check(program: Program) -> None:
         if not values or len(values) != len(costs):
             raise ValueError(f"{where} has {len(values)} contributions and {len(costs)} costs; "
                              "they must match and not be empty")
-        if not all(math.isfinite(v) for v in values):
-            raise ValueError(f"{where} has a contribution that is not a finite number")
-        if not all(math.isfinite(c) and c >= 0 for c in costs):
-            raise ValueError(f"{where} has a cost that is negative or not a finite number")
+        if not all(math.isfinite(v) for v in values) or not all(c >= 0 for c in costs) or \
+                not all(math.isfinite(c) for c in costs):
+            raise ValueError(f"{where} has a contribution or cost that is not a finite number, "
+                             "or a negative cost")
         if not (_whole(now) and 0 <= now < len(values)):
             raise ValueError(f"{where} current index {now!r} is not in 0..{len(values) - 1}")
         if costs[now] != 0:
@@ -127,6 +126,19 @@ def _check(program: Program) -> None:
 
 def _sign(program: Program) -> float:
     return 1.0 if program.direction == "at-least" else -1.0
+
+
+def _need(program: Program) -> float:
+    """The gain over the current score that passes the threshold by the buffer."""
+    return _sign(program) * (program.threshold - _current_score(program)) + BUFFER
+
+
+def _tables(program: Program) -> tuple[list[np.ndarray], list[np.ndarray]]:
+    """Per group, each candidate's gain over the current one (towards the goal) and its cost."""
+    sign = _sign(program)
+    gains = [sign * (np.asarray(v, float) - v[now])
+             for v, now in zip(program.contributions, program.current, strict=True)]
+    return gains, [np.asarray(c, float) for c in program.costs]
 
 
 def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.ndarray:
@@ -144,23 +156,21 @@ def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.
 
 def _rows(program: Program, cap: float = math.inf) -> _Rows:
     """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
-    sign = _sign(program)
-    gains, costs, kept = [], [], []
-    for values, paid, now in zip(program.contributions, program.costs, program.current,
-                                 strict=True):
-        gain, price = sign * (np.asarray(values, float) - values[now]), np.asarray(paid, float)
-        kept.append(_frontier(gain, price, now, cap))
-        gains.append(gain[kept[-1]])
-        costs.append(price[kept[-1]])
+    gains, costs = _tables(program)
+    kept = [_frontier(g, c, now, cap) for g, c, now in zip(gains, costs, program.current,
+                                                           strict=True)]
+    gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
+    cost = np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)])
+    # solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
+    # choice is then judged and polished on the exact values
+    gain[np.abs(gain) < NOISE], cost[cost < NOISE] = 0.0, 0.0
     sizes = [len(k) for k in kept]
     starts = np.concatenate(([0], np.cumsum(sizes)))
     n, columns = int(starts[-1]), np.arange(int(starts[-1]))
-    gain, cost = np.concatenate(gains), np.concatenate(costs)
     moved = np.concatenate([k != now for k, now in zip(kept, program.current, strict=True)])
-    need = sign * (program.threshold - _current_score(program)) + BUFFER
     spans = list(zip(starts[:-1], starts[1:], strict=True))
     rows = [(columns[a:b], np.ones(b - a), "=", 1.0) for a, b in spans]
-    rows.append((columns[gain != 0], gain[gain != 0], ">=", need))
+    rows.append((columns[gain != 0], gain[gain != 0], ">=", _need(program)))
     if program.max_changes is not None:
         rows.append((columns[moved], np.ones(int(moved.sum())), "<=", float(program.max_changes)))
     group_of = np.repeat(np.arange(len(sizes)), sizes)[moved]
@@ -208,10 +218,8 @@ def _judged(program: Program, choice: tuple[int, ...], solver: str) -> Solution:
     return Solution("optimal", choice, float(objective), score, f"optimal ({solver})")
 
 
-Run = Callable[[Program, float], tuple[int, ...] | None]
-
-
-def _lexicographic(program: Program, run: Run, solver: str) -> Solution:
+def _lexicographic(program: Program, run: Callable[[Program, float], tuple[int, ...] | None],
+                   solver: str) -> Solution:
     """Find the objective's optimum, then the least total cost among choices that match it."""
     _check(program)
     if not program.contributions:  # one choice, the empty one: no solver needed
@@ -220,7 +228,8 @@ def _lexicographic(program: Program, run: Run, solver: str) -> Solution:
     if program.objective != "total-cost":
         if program.forbidden:  # no closed form: solve for the objective first
             first = run(program, math.inf)
-            optimum = None if first is None else _judged(program, first, solver).objective
+            optimum = None if first is None else _judged(
+                program, _polished(program, first), solver).objective
         else:
             optimum = _closed_form(program)
         if optimum is None:
@@ -233,7 +242,33 @@ def _lexicographic(program: Program, run: Run, solver: str) -> Solution:
         if optimum is not None:
             raise RuntimeError(f"{solver} found no choice that reaches the optimum {optimum}")
         return _no_plan(solver)
-    return _judged(program, choice, solver)
+    return _judged(program, _polished(cheapest, choice), solver)
+
+
+def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
+    """Move single groups to cheaper candidates while every rule still holds (exact, in Python).
+
+    Solvers take cost differences below their tolerances (~1e-7) for ties, and may keep a change
+    that costs a little and gains nothing; this takes such changes back out.
+    """
+    (gains, costs), picked, need = _tables(program), list(choice), _need(program)
+    while True:
+        total = sum(g[c] for g, c in zip(gains, picked, strict=True))
+        changed = _changed(program, tuple(picked))
+        best = (0.0, -1, -1)  # (saving, group, candidate)
+        for group, (gain, cost, now) in enumerate(zip(gains, costs, program.current,
+                                                      strict=True)):
+            ok = (cost < cost[picked[group]]) & (total - gain[picked[group]] + gain >= need)
+            if (changed | {group}) in program.forbidden:
+                ok[np.arange(len(ok)) != now] = False
+            if (changed - {group}) in program.forbidden:
+                ok[now] = False
+            if ok.any():
+                candidate = int(np.argmin(np.where(ok, cost, np.inf)))
+                best = max(best, (cost[picked[group]] - cost[candidate], group, candidate))
+        if best[1] < 0:
+            return tuple(picked)
+        picked[best[1]] = best[2]
 
 
 def _no_plan(solver: str) -> Solution:
@@ -247,12 +282,8 @@ def _empty_run(program: Program, cap: float) -> tuple[int, ...] | None:
 
 def _gains(program: Program, cap: float) -> list[float]:
     """Every group's best gain over its current candidate, changes costing <= cap; best first."""
-    sign, best = _sign(program), []
-    for values, costs, now in zip(program.contributions, program.costs, program.current,
-                                  strict=True):
-        best.append(max(sign * (v - values[now]) for v, c in zip(values, costs, strict=True)
-                        if c <= cap))
-    return sorted((gain for gain in best if gain > 0), reverse=True)
+    best = [gain[cost <= cap].max() for gain, cost in zip(*_tables(program), strict=True)]
+    return sorted((float(gain) for gain in best if gain > 0), reverse=True)
 
 
 def _closed_form(program: Program) -> float | None:
@@ -261,7 +292,7 @@ def _closed_form(program: Program) -> float | None:
     With at most `max_changes` changes, the best score under a cap on each cost takes every
     group's best change within the cap and keeps the largest gains: exact, no solver needed.
     """
-    need = _sign(program) * (program.threshold - _current_score(program)) + BUFFER
+    need = _need(program)
     limit = len(program.contributions) if program.max_changes is None else program.max_changes
     if program.objective == "fewest-changes":
         reached = np.flatnonzero(np.cumsum([0.0, *_gains(program, math.inf)[:limit]]) >= need)
@@ -302,11 +333,11 @@ def _pulp_solver(solver: str) -> pulp.LpSolver:
                           primal_feasibility_tolerance=TOLERANCE)
     with warnings.catch_warnings():  # PuLP 3.3 warns that the bundled CBC goes away in 4.0
         warnings.simplefilter("ignore", DeprecationWarning)
-        # the bundled CBC 2.10.3's preprocessing returned a dearer plan as optimal on a
-        # 4-group program (tests/test_program.py found it): keep it off
-        return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, threads=1,
-                                 options=[f"primalTolerance {TOLERANCE}", "preprocess off",
-                                          f"integerTolerance {TOLERANCE}"])
+        # the bundled CBC 2.10.3 called dearer plans optimal (programs in tests/test_program.py)
+        # when its preprocessing was on, or when it guessed an objective step from the costs
+        options = ["preprocess off", f"increment {TOLERANCE}", f"primalTolerance {TOLERANCE}",
+                   f"integerTolerance {TOLERANCE}"]
+        return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, threads=1, options=options)
 
 
 def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | None:
