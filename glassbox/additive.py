@@ -333,7 +333,11 @@ class AdditiveModel:
         return self.intercept + self.contributions(frame, source).sum(axis=1).to_numpy()
 
     def score_encoded(self, encoded: pd.DataFrame) -> np.ndarray:
-        return self.intercept + self.contributions_encoded(encoded).sum(axis=1).to_numpy()
+        """The score of a frame already typed by `encode` (the terms added in order)."""
+        total = np.full(len(encoded), float(self.intercept))
+        for term in self.terms:
+            total += term.evaluate(encoded[term.feature].to_numpy())
+        return total
 
     def probability(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
         """Probability of the positive class (classification models only)."""

@@ -11,72 +11,76 @@ import pandas as pd
 from glassbox.additive import AdditiveModel
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
-from recourse.planner import PlanResult, find_plans
+from recourse.planner import PlanResult, plan_encoded
+from recourse.program import DEFAULT_SOLVER
 
 
 def declined_rows(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,
                   source: str | None = None) -> np.ndarray:
     """Positions of the rows whose score misses the goal (margin included)."""
-    score = model.score(frame, source)
+    return _missing_goal(model, model.score(frame, source), mutability)
+
+
+def _missing_goal(model: AdditiveModel, score: np.ndarray, mutability: Mutability) -> np.ndarray:
     threshold = mutability.goal.threshold(model.link)
     if mutability.goal.direction == "at-least":
         return np.flatnonzero(score < threshold)
     return np.flatnonzero(score > threshold)
 
 
-def _plan_one(model: AdditiveModel, row: pd.Series, row_id: Any, mutability: Mutability,
-              n_plans: int, solver: str) -> PlanResult:
-    """One row's plans; a row the rules do not fit (say, a value outside a declared
-    bound) is reported with status "error" instead of stopping the batch."""
-    try:
-        return find_plans(model, row, mutability, n_plans=n_plans, solver=solver,
-                          row_id=row_id)
-    except MutabilityError as exc:
-        score = float(model.score(pd.DataFrame([row]))[0])
-        return PlanResult("error", score, float(model.inverse_link(np.array([score]))[0]),
-                          mutability.goal.target, mutability.goal.direction, row_id=row_id,
-                          message=str(exc))
-
-
-def _plan_chunk(model: AdditiveModel, rows: pd.DataFrame, ids: list, mutability: Mutability,
-                n_plans: int, solver: str) -> list[PlanResult]:
-    return [_plan_one(model, rows.iloc[i], ids[i], mutability, n_plans, solver)
-            for i in range(len(rows))]
+def _plan_chunk(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
+                mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
+    """Plans for a few typed rows; a row the rules do not fit (say, a value outside a
+    declared bound) is reported with status "error" instead of stopping the batch."""
+    out = []
+    for i in range(len(encoded)):
+        row_parts = parts.iloc[i]
+        try:
+            out.append(plan_encoded(model, encoded.iloc[[i]], mutability, n_plans=n_plans,
+                                    solver=solver, row_id=ids[i], parts=row_parts))
+        except MutabilityError as exc:
+            score = float(model.intercept + row_parts.sum())
+            out.append(PlanResult("error", score,
+                                  float(model.inverse_link(np.array([score]))[0]),
+                                  mutability.goal.target, mutability.goal.direction,
+                                  row_id=ids[i], message=str(exc)))
+    return out
 
 
 def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Mutability, *,
-              n_plans: int = 3, solver: str = "cbc", jobs: int = 1,
+              n_plans: int = 3, solver: str = DEFAULT_SOLVER, jobs: int = 1,
               progress: Callable[[int, int], None] | bool | None = None,
-              source: str | None = None) -> list[PlanResult]:
+              source: str | None = None, chunk: int = 50) -> list[PlanResult]:
     """Plan for every declined row of `frame`, in row order."""
     if frame is None:
         raise PlanningError("--declined needs --data FILE")
-    positions = declined_rows(model, frame, mutability, source)
+    encoded = model.encode(frame, source)  # typed once for the whole batch
+    parts = model.contributions_encoded(encoded)
+    positions = _missing_goal(model, model.intercept + parts.sum(axis=1).to_numpy(), mutability)
     id_column = model.schema.id_column
-    ids = [frame.iloc[p][id_column] if id_column in frame else int(p) + 1 for p in positions]
-    rows = frame.iloc[positions]
-    chunks = [range(start, min(start + 25, len(rows))) for start in range(0, len(rows), 25)]
-    report = _progress_bar(len(rows)) if progress is True else (progress or None)
+    ids = frame[id_column].to_numpy()[positions].tolist() if id_column in frame else \
+        [int(p) + 1 for p in positions]
+    encoded, parts = encoded.iloc[positions], parts.iloc[positions]
+    spans = [slice(start, min(start + chunk, len(positions)))
+             for start in range(0, len(positions), chunk)]
+    report = _progress_bar(len(positions)) if progress is True else (progress or None)
     results: list[PlanResult] = []
-    done = 0
+    tasks = ((encoded.iloc[span], parts.iloc[span], ids[span]) for span in spans)
     if jobs == 1:
-        pieces = (_plan_chunk(model, rows.iloc[list(c)], [ids[i] for i in c], mutability,
-                              n_plans, solver) for c in chunks)
+        pieces = (_plan_chunk(model, *task, mutability, n_plans, solver) for task in tasks)
     else:
         from joblib import Parallel, delayed
 
         pieces = Parallel(n_jobs=jobs, return_as="generator")(
-            delayed(_plan_chunk)(model, rows.iloc[list(c)], [ids[i] for i in c], mutability,
-                                 n_plans, solver) for c in chunks)
+            delayed(_plan_chunk)(model, *task, mutability, n_plans, solver) for task in tasks)
     try:
         for piece in pieces:
             results += piece
-            done += len(piece)
             if report:
-                report(done, len(rows))
+                report(len(results), len(positions))
     finally:
         if progress is True and report is not None:
-            report(-1, len(rows))
+            report(-1, len(positions))
     return results
 
 

@@ -8,7 +8,9 @@ model scores the changed row.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -64,14 +66,19 @@ def row_candidates(model: AdditiveModel, row: pd.Series,
                    mutability: Mutability) -> dict[str, list[Candidate]]:
     """Candidates of every feature of one raw row that has a term and a rule."""
     encoded = model.encode(pd.DataFrame([row]))
+    return encoded_candidates(model, encoded.iloc[0], mutability)
+
+
+def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any],
+                       mutability: Mutability) -> dict[str, list[Candidate]]:
+    """The same, from a row already typed by `AdditiveModel.encode` (feature -> value)."""
     out: dict[str, list[Candidate]] = {}
     for feature in model.features:
         rule = mutability.rules.get(feature)
         if rule is None:
             continue
-        current = encoded[feature].iloc[0]
         try:
-            out[feature] = feature_candidates(model, feature, current, rule)
+            out[feature] = feature_candidates(model, feature, values[feature], rule)
         except MutabilityError as exc:
             if not mutability.source:
                 raise

@@ -21,7 +21,7 @@ from glassbox.schema import read_table
 from recourse.batch import plan_many, plans_frame, summary_frame
 from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
-from recourse.program import SOLVERS
+from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
 
 app = typer.Typer(
@@ -29,7 +29,7 @@ app = typer.Typer(
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
-DEFAULT_SOLVER = Solver("cbc")
+SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
 
 
 class PlanFormat(StrEnum):
@@ -72,7 +72,7 @@ def plan_command(
     declined: Annotated[bool, typer.Option(
         help="Plan for every row of --data that misses the goal.")] = False,
     plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1)] = 3,
-    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = DEFAULT_SOLVER,
+    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = SOLVER_CHOICE,
     format: Annotated[PlanFormat, typer.Option(
         "--format", help="table (terminal) or json.")] = PlanFormat.table,
     out: Annotated[Path | None, typer.Option(

@@ -18,10 +18,10 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, LevelsTerm
-from recourse.candidates import Candidate, row_candidates
+from recourse.candidates import Candidate, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Mutability
-from recourse.program import Program, Solution, best_reachable, solve
+from recourse.program import DEFAULT_SOLVER, Program, Solution, best_reachable, solve
 
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
            "promise of any decision. Real decisions follow the lender's or marketplace's "
@@ -80,14 +80,22 @@ def _favourable(direction: str) -> int:
 
 
 def find_plans(model: AdditiveModel, row: pd.Series, mutability: Mutability,
-               n_plans: int = 3, solver: str = "cbc", row_id: Any = None) -> PlanResult:
+               n_plans: int = 3, solver: str = DEFAULT_SOLVER, row_id: Any = None) -> PlanResult:
     """Up to `n_plans` distinct cheapest plans for one raw row (a Series of its values)."""
+    return plan_encoded(model, model.encode(pd.DataFrame([row])), mutability, n_plans=n_plans,
+                        solver=solver, row_id=row_id)
+
+
+def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutability,
+                 n_plans: int = 3, solver: str = DEFAULT_SOLVER, row_id: Any = None,
+                 parts: pd.Series | None = None) -> PlanResult:
+    """The same for one row already typed by `AdditiveModel.encode` (a one-row frame);
+    `parts` may carry its contributions when the caller scored many rows at once."""
     if n_plans < 1:
         raise PlanningError(f"--plans must be at least 1, not {n_plans}")
     goal = mutability.goal
-    frame = pd.DataFrame([row])
-    encoded = model.encode(frame)
-    parts = model.contributions_encoded(encoded).iloc[0]
+    if parts is None:
+        parts = model.contributions_encoded(encoded).iloc[0]
     score = float(model.intercept + parts.sum())
     outcome = float(model.inverse_link(np.array([score]))[0])
     threshold = goal.threshold(model.link)
@@ -95,7 +103,7 @@ def find_plans(model: AdditiveModel, row: pd.Series, mutability: Mutability,
               "direction": goal.direction, "row_id": row_id}
     if _reaches(score, threshold, goal.direction):
         return PlanResult("already", **common)
-    candidates = row_candidates(model, row, mutability)
+    candidates = encoded_candidates(model, encoded.iloc[0], mutability)
     names = tuple(candidates)
     base = score - float(sum(parts[name] for name in names))
     program = Program(
@@ -104,18 +112,17 @@ def find_plans(model: AdditiveModel, row: pd.Series, mutability: Mutability,
         costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
         objective=goal.objective, max_changes=goal.max_changes, names=names)
-    plans: list[Plan] = []
+    solutions: list[Solution] = []
     forbidden: list[frozenset[int]] = []
     for _ in range(n_plans):
         solution = solve(replace(program, forbidden=tuple(forbidden)), solver)
         if solution.status != "optimal":
             break
-        changed = frozenset(g for g, pick in enumerate(solution.choice) if pick != 0)
-        plans.append(_plan(model, encoded, names, candidates, solution, threshold,
-                           goal.direction))
-        forbidden.append(changed)
-    if plans:
-        return PlanResult("plans", plans=tuple(plans), **common)
+        solutions.append(solution)
+        forbidden.append(frozenset(g for g, pick in enumerate(solution.choice) if pick != 0))
+    if solutions:
+        plans = _plans(model, encoded, names, candidates, solutions, threshold, goal.direction)
+        return PlanResult("plans", plans=plans, **common)
     best = best_reachable(program)
     return PlanResult("none", best_score=best,
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
@@ -123,33 +130,37 @@ def find_plans(model: AdditiveModel, row: pd.Series, mutability: Mutability,
                                              mutability)), **common)
 
 
-def _plan(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
-          candidates: Mapping[str, list[Candidate]], solution: Solution, threshold: float,
-          direction: str) -> Plan:
-    """Build a plan from a solution and re-score it through the model itself."""
-    changed_row = encoded.copy()
-    changes = []
-    for group, pick in enumerate(solution.choice):
-        if pick == 0:
-            continue
-        name = names[group]
-        now, new = candidates[name][0], candidates[name][pick]
-        changed_row[name] = changed_row[name].astype(object)
-        changed_row.iloc[0, changed_row.columns.get_loc(name)] = new.value
-        numeric = not isinstance(new.value, str)
-        changes.append(Change(name, now.value, new.value,
-                              float(new.value) - float(now.value) if numeric else None,
-                              float(new.cost)))
-    rescored = float(model.score(changed_row.astype(
-        {c: float for c in changed_row if not _is_category(model, c)}))[0])
-    if not _reaches(rescored, threshold, direction) or not math.isclose(
-            rescored, solution.score, rel_tol=0, abs_tol=1e-9):
-        raise RuntimeError(f"planner bug: a plan re-scores to {rescored!r}, the program said "
-                           f"{solution.score!r}; threshold {threshold!r} ({direction})")
-    costs = [c.cost for c in changes]
-    outcome = float(model.inverse_link(np.array([rescored]))[0])
-    return Plan(tuple(changes), rescored, outcome, float(sum(costs)),
-                float(max(costs, default=0.0)))
+def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
+           candidates: Mapping[str, list[Candidate]], solutions: Sequence[Solution],
+           threshold: float, direction: str) -> tuple[Plan, ...]:
+    """Build the plans and re-score every changed row through the model itself."""
+    changed_rows = pd.concat([encoded] * len(solutions), ignore_index=True)
+    every = []
+    for number, solution in enumerate(solutions):
+        changes = []
+        for group, pick in enumerate(solution.choice):
+            if pick == 0:
+                continue
+            name = names[group]
+            now, new = candidates[name][0], candidates[name][pick]
+            changed_rows.loc[number, name] = new.value
+            numeric = not isinstance(new.value, str)
+            changes.append(Change(name, now.value, new.value,
+                                  float(new.value) - float(now.value) if numeric else None,
+                                  float(new.cost)))
+        every.append(changes)
+    rescored = model.score_encoded(changed_rows)
+    plans = []
+    for changes, solution, score in zip(every, solutions, rescored, strict=True):
+        score = float(score)
+        if not _reaches(score, threshold, direction) or not math.isclose(
+                score, solution.score, rel_tol=0, abs_tol=1e-9):
+            raise RuntimeError(f"planner bug: a plan re-scores to {score!r}, the program said "
+                               f"{solution.score!r}; threshold {threshold!r} ({direction})")
+        costs = [c.cost for c in changes]
+        plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
+                          float(sum(costs)), float(max(costs, default=0.0))))
+    return tuple(plans)
 
 
 def _is_category(model: AdditiveModel, name: str) -> bool:

@@ -24,7 +24,8 @@ import pulp
 
 from recourse.errors import PlanningError
 
-SOLVERS = ("cbc", "highs")
+SOLVERS = ("highs", "cbc")
+DEFAULT_SOLVER = "highs"  # in-process and faster than the CBC command line (bench/RESULTS.md)
 BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), so plans always do
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
 DIRECTIONS = ("at-least", "at-most")
@@ -154,11 +155,147 @@ def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.
     return np.sort(np.r_[now, order[gains[order] > best_before]])
 
 
+class _Relaxation:
+    """The Lagrangian relaxation of a total-cost program: the score row moved into the objective.
+
+    For a multiplier m >= 0 each group's best reduced cost is min(0, cost - m * gain) over its
+    changes; the `max_changes` most negative are taken, and m * need is added. Every m gives a
+    lower bound on the least total cost (weak duality); the best m gives the LP bound, since
+    the rows left (one candidate per group, a limit on changes) form an integral polytope.
+    """
+
+    def __init__(self, gains: list[np.ndarray], costs: list[np.ndarray], kept: list[np.ndarray],
+                 current: tuple[int, ...], need: float, limit: int) -> None:
+        changes = [k[k != now] for k, now in zip(kept, current, strict=True)]
+        width = max((len(c) for c in changes), default=0)
+        self.gain = np.zeros((len(kept), width))
+        self.cost = np.full((len(kept), width), np.inf)
+        for group, picked in enumerate(changes):
+            self.gain[group, :len(picked)] = gains[group][picked]
+            self.cost[group, :len(picked)] = costs[group][picked]
+        self.changes, self.need, self.limit = changes, need, min(limit, len(kept))
+
+    def at(self, multiplier: float, held: int | None = None
+           ) -> tuple[float, np.ndarray, np.ndarray]:
+        """The bound, each group's best reduced cost (0 if none is negative), the change taken
+        per group (-1 for none) under the limit; a `held` group makes no change."""
+        with np.errstate(invalid="ignore"):  # inf - m * 0
+            reduced = self.cost - multiplier * self.gain
+        if held is not None:
+            reduced[held] = np.inf
+        best = reduced.argmin(axis=1) if reduced.size else np.zeros(len(reduced), int)
+        value = np.minimum(0.0, reduced[np.arange(len(reduced)), best]) if reduced.size else \
+            np.zeros(len(reduced))
+        taken = np.full(len(value), -1)
+        order = np.argsort(value, kind="stable")[:self.limit]
+        order = order[value[order] < 0]
+        taken[order] = best[order]
+        return float(multiplier * self.need + value[order].sum()), value, taken
+
+    def gain_of(self, taken: np.ndarray) -> float:
+        rows = np.flatnonzero(taken >= 0)
+        return float(self.gain[rows, taken[rows]].sum())
+
+    def search(self, steps: int = 40, held: int | None = None
+               ) -> tuple[float, float, np.ndarray | None]:
+        """(best bound, its multiplier, a choice of changes that reaches the need or None)."""
+        low, high, reaching = 0.0, 1.0, None
+        bound, where = self.at(0.0, held)[0], 0.0
+        for _ in range(steps):  # grow the multiplier until the relaxation's choice reaches
+            value, _, taken = self.at(high, held)
+            if value > bound:
+                bound, where = value, high
+            if self.gain_of(taken) >= self.need:
+                reaching = taken
+                break
+            low, high = high, 2 * high
+        if reaching is None:
+            return bound, where, None
+        for _ in range(steps):  # then bisect on the sign of the supergradient
+            middle = (low + high) / 2
+            value, _, taken = self.at(middle, held)
+            if value > bound:
+                bound, where = value, middle
+            if self.gain_of(taken) >= self.need:
+                high, reaching = middle, taken
+            else:
+                low = middle
+        return bound, where, reaching
+
+    def bounds(self, multiplier: float) -> np.ndarray:
+        """Per group and change, a lower bound on any choice that makes that change."""
+        base, value, _ = self.at(multiplier)
+        base -= multiplier * self.need
+        sums = np.concatenate(([0.0], np.cumsum(np.sort(value))))
+        rank = np.empty(len(value), int)
+        rank[np.argsort(value, kind="stable")] = np.arange(len(value))
+        # the best limit - 1 changes among the other groups
+        others = np.where(rank < self.limit - 1, sums[self.limit] - value, sums[self.limit - 1])
+        with np.errstate(invalid="ignore"):
+            reduced = self.cost - multiplier * self.gain
+        return multiplier * self.need + others[:, None] + reduced
+
+
+def _known_choice(program: Program, relaxation: _Relaxation,
+                  reaching: np.ndarray) -> tuple[int, ...] | None:
+    """A choice that keeps every rule, from the relaxation's; None if none was found.
+
+    When the relaxation's choice changes a forbidden set of groups, the relaxation is
+    searched again with each of those groups held at its current candidate in turn.
+    """
+    def picked(taken: np.ndarray) -> tuple[int, ...]:
+        choice = list(program.current)
+        for group in np.flatnonzero(taken >= 0):
+            choice[group] = int(relaxation.changes[group][taken[group]])
+        return tuple(choice)
+
+    first = picked(reaching)
+    if _changed(program, first) not in program.forbidden:
+        return _polished(program, first)
+    found = []
+    for group in sorted(_changed(program, first)):
+        other = relaxation.search(held=group)[2]
+        if other is not None and _changed(program, picked(other)) not in program.forbidden:
+            choice = _polished(program, picked(other))
+            found.append((sum(c[k] for c, k in zip(program.costs, choice, strict=True)), choice))
+    return min(found)[1] if found else None
+
+
+def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.ndarray],
+                    kept: list[np.ndarray]) -> list[np.ndarray]:
+    """Drop the changes that cannot be in any choice cheaper than a known one (total cost).
+
+    The known choice comes from the relaxation and is polished; a change whose Lagrangian
+    bound exceeds its cost cannot improve on it (reduced-cost fixing; common practice, no
+    source). Forbidden sets only shrink the choices, so the bounds stay valid with them.
+    """
+    limit = len(kept) if program.max_changes is None else program.max_changes
+    need = _need(program)
+    if limit < 1 or need <= 0 or not kept:
+        return kept
+    relaxation = _Relaxation(gains, costs, kept, program.current, need, limit)
+    _, multiplier, reaching = relaxation.search()
+    choice = None if reaching is None else _known_choice(program, relaxation, reaching)
+    if choice is None:
+        return kept
+    known = float(sum(c[k] for c, k in zip(costs, choice, strict=True)))
+    worst = known + 1e-9 * (1.0 + known)  # keep anything that might tie, rounding included
+    bounds = relaxation.bounds(multiplier)
+    out = []
+    for group, now in enumerate(program.current):
+        changes = relaxation.changes[group]
+        keep = changes[bounds[group, :len(changes)] <= worst]
+        out.append(np.unique(np.r_[now, keep, choice[group]]))
+    return out
+
+
 def _rows(program: Program, cap: float = math.inf) -> _Rows:
     """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
     gains, costs = _tables(program)
     kept = [_frontier(g, c, now, cap) for g, c, now in zip(gains, costs, program.current,
                                                            strict=True)]
+    if program.objective == "total-cost":
+        kept = _fixed_by_bound(program, gains, costs, kept)
     gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
     cost = np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)])
     # solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
@@ -326,7 +463,7 @@ def _hush_highs_banner() -> None:
         os.close(saved)
 
 
-def _pulp_solver(solver: str) -> pulp.LpSolver:
+def _pulp_solver(solver: str, preprocess: bool = False) -> pulp.LpSolver:
     if solver == "highs":
         _hush_highs_banner()
         return pulp.HiGHS(msg=False, gapRel=0.0, gapAbs=0.0, mip_feasibility_tolerance=TOLERANCE,
@@ -335,9 +472,10 @@ def _pulp_solver(solver: str) -> pulp.LpSolver:
         warnings.simplefilter("ignore", DeprecationWarning)
         # the bundled CBC 2.10.3 called dearer plans optimal (programs in tests/test_program.py)
         # when its preprocessing was on, or when it guessed an objective step from the costs
-        options = ["preprocess off", f"increment {TOLERANCE}", f"primalTolerance {TOLERANCE}",
-                   f"integerTolerance {TOLERANCE}"]
-        return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, threads=1, options=options)
+        options = [f"increment {TOLERANCE}", f"primalTolerance {TOLERANCE}",
+                   f"integerTolerance {TOLERANCE}"] + ([] if preprocess else ["preprocess off"])
+        # no `threads`: with -threads 1 the bundled CBC waited 10 s now and then (3 runs in 600)
+        return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, options=options)
 
 
 def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | None:
@@ -355,9 +493,18 @@ def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | No
         terms = pulp.LpAffineExpression([(x[i], float(c)) for i, c in pairs])
         problem.addConstraint(pulp.LpConstraint(terms, senses[sense], f"r{k}", float(rhs)))
     engine = _pulp_solver(solver)
-    with tempfile.TemporaryDirectory(prefix="recourse-") as scratch:
-        engine.tmpDir = scratch  # CBC's files go here and vanish with it, even on errors
+    if solver == "highs":  # in-process: no files
         problem.solve(engine)
+    else:
+        with tempfile.TemporaryDirectory(prefix="recourse-") as scratch:
+            engine.tmpDir = scratch  # CBC's files go here and vanish with it, even on errors
+            try:
+                problem.solve(engine)
+            except pulp.PulpSolverError:  # with preprocessing off it crashed on some programs
+                # that had no integer choice (tests/test_program.py keeps one): run it once more
+                engine = _pulp_solver(solver, preprocess=True)  # with it on; checked as always
+                engine.tmpDir = scratch
+                problem.solve(engine)
     if problem.status == pulp.LpStatusInfeasible:
         return None
     if problem.status != pulp.LpStatusOptimal:
@@ -392,7 +539,7 @@ def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
     return _choice(program, layout, np.asarray(result.x), "scipy")
 
 
-def solve(program: Program, solver: str = "cbc") -> Solution:
+def solve(program: Program, solver: str = DEFAULT_SOLVER) -> Solution:
     """Solve the program with PuLP and CBC or HiGHS; the returned choice is verified in Python."""
     if solver not in SOLVERS:
         raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")

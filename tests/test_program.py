@@ -25,6 +25,9 @@ from recourse.program import (
     SOLVERS,
     Program,
     Solution,
+    _need,
+    _Relaxation,
+    _tables,
     best_reachable,
     solve,
     solve_with_scipy,
@@ -236,6 +239,38 @@ def test_best_reachable_matches_enumeration(program):
     assert best_reachable(program) == pytest.approx(best, abs=1e-12)
 
 
+@settings(max_examples=200, deadline=None, derandomize=True)
+@given(programs())
+def test_the_relaxation_bound_never_passes_the_optimum(program):
+    # weak duality: every multiplier's Lagrangian value is at most the least total cost found
+    # by enumeration; the program drops changes on the strength of these bounds
+    cheapest = replace(program, objective="total-cost")
+    truth = brute_force(cheapest)
+    assume(truth is not None and _need(cheapest) > 0)
+    gains, costs = _tables(cheapest)
+    kept = [np.arange(len(g)) for g in gains]
+    limit = len(kept) if program.max_changes is None else program.max_changes
+    assume(limit >= 1)
+    relaxation = _Relaxation(gains, costs, kept, cheapest.current, _need(cheapest), limit)
+    bound, multiplier, _ = relaxation.search()
+    assert bound <= truth[0] + 1e-9
+    for value in (0.0, 0.5 * multiplier, 2 * multiplier + 1):
+        assert relaxation.at(value)[0] <= truth[0] + 1e-9
+    # and the bound for each change is at most the least cost of any choice making it
+    # (exact enumeration; forbidden sets only shrink the choices, so they are kept here)
+    grid = grids(cheapest)
+    feasible = allowed(cheapest, grid) & (margin(cheapest, grid) >= BUFFER)
+    for value in (multiplier, 0.5 * multiplier, 2 * multiplier + 1):
+        bounds = relaxation.bounds(value)
+        for group, changes in enumerate(relaxation.changes):
+            for column, candidate in enumerate(changes):
+                index = [slice(None)] * len(kept)
+                index[group] = candidate
+                making = grid["total-cost"][tuple(index)][feasible[tuple(index)]]
+                if making.size:
+                    assert bounds[group, column] <= making.min() + 1e-9
+
+
 # ---------------------------------------------------------------- closed form (worked by hand)
 
 @settings(max_examples=40, deadline=None, derandomize=True)
@@ -303,7 +338,7 @@ def test_the_buffer_keeps_plans_off_the_line(solver, direction, objective):
 
 
 TRIPPED = [  # programs on which a solver once called a dearer plan optimal (CBC, CBC, HiGHS,
-    # HiGHS keeping a change that costs 1e-9 and gains nothing)
+    # HiGHS keeping a change that costs 1e-9 and gains nothing), or crashed (CBC, the last)
     Program(base=0.0, contributions=((0.0, 0.0, 0.0, 1.0, -1.0, 0.0), (0.0, 0.0, 0.0, 1.0, 0.0),
                                      (0.0, 0.0, 1.0, 0.0), (-1.0, 0.0)),
             costs=((1.0, 1.0, 1.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0, 1.0, 0.0),
@@ -324,14 +359,22 @@ TRIPPED = [  # programs on which a solver once called a dearer plan optimal (CBC
                                      (0.0, 0.0, 0.0, 0.0, 0.0, -1.0, 0.0)),
             costs=((1.0, 1.0, 1e-09, 0.0, 1.0, 1.0, 0.0), (0.0, 0.0, 0.0, 0.0, 0.0, 1.0, 0.0)),
             current=(3, 0), threshold=-0.5, direction="at-most", objective="total-cost"),
+    Program(base=0.0, contributions=((1.0, 0.0, 0.0, 0.0, 0.0, 0.0), (0.0, 0.0, 0.0, 0.0)),
+            costs=((0.0,) * 6, (0.0,) * 4), current=(0, 0), threshold=0.75,
+            direction="at-most", objective="total-cost",
+            forbidden=(frozenset([0]), frozenset([0, 1]))),  # CBC crashed: no choice exists
 ]
 
 
 @pytest.mark.parametrize("solver", SOLVERS)
 @pytest.mark.parametrize("program", TRIPPED)
 def test_programs_that_tripped_a_solver(program, solver):
-    truth = brute_force(program)  # exact enumeration: 0.5, 0.99999, 1.0 and 1.0
-    assert solve(program, solver).objective == pytest.approx(truth[0], abs=1e-9)
+    truth = brute_force(program)  # exact enumeration: 0.5, 0.99999, 1.0, 1.0 and no choice
+    solution = solve(program, solver)
+    if truth is None:
+        assert solution.status == "infeasible"
+    else:
+        assert solution.objective == pytest.approx(truth[0], abs=1e-9)
 
 
 def test_no_groups_is_judged_without_a_solver():
@@ -364,7 +407,7 @@ def test_malformed_programs_are_programmer_errors(changes, words):
 
 
 def test_unknown_solver_is_a_user_error():
-    with pytest.raises(PlanningError, match="known solvers: cbc, highs"):
+    with pytest.raises(PlanningError, match="known solvers: highs, cbc"):
         solve(small(), "gurobi")
 
 
