@@ -45,7 +45,7 @@ demo: $(STAMP)
 	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
 	@head -1001 demo_data/loans.csv > $(OUT)/loans.first1000.csv
-	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --solver highs --out $(OUT)/loans.plans.csv
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
 	@echo "== done: models, tables, pictures and plans are in $(OUT)/"
 
 test: $(STAMP)

@@ -14,8 +14,18 @@ from glassbox.errors import (  # noqa: E402
     SchemaError,
     UnseenLevelWarning,
 )
-from glassbox.fitting import fit_model  # noqa: E402
 from glassbox.schema import Schema, infer_schema, load_schema, read_table  # noqa: E402
+
+
+def __getattr__(name: str) -> object:
+    """`fit_model` loads the fitting code (scikit-learn, pygam) on first use only, so
+    scoring and planning processes start quickly."""
+    if name == "fit_model":
+        from glassbox.fitting import fit_model
+
+        return fit_model
+    raise AttributeError(f"module 'glassbox' has no attribute {name!r}")
+
 
 __all__ = [
     "AdditiveModel", "CurveTerm", "LevelsTerm", "StepTerm", "Schema",

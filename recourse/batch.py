@@ -50,7 +50,7 @@ def _plan_chunk(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame
 def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Mutability, *,
               n_plans: int = 3, solver: str = DEFAULT_SOLVER, jobs: int = 1,
               progress: Callable[[int, int], None] | bool | None = None,
-              source: str | None = None, chunk: int = 50) -> list[PlanResult]:
+              source: str | None = None, chunk: int = 20) -> list[PlanResult]:
     """Plan for every declined row of `frame`, in row order."""
     if frame is None:
         raise PlanningError("--declined needs --data FILE")

@@ -7,6 +7,7 @@ model scores the changed row.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -249,10 +250,7 @@ def percentile_rank(profile: FeatureProfile, values: np.ndarray) -> np.ndarray:
     middle of the run (a mid-rank), values just below it start from k, values just above
     from m. Below the training minimum the rank is 0, above the maximum 100.
     """
-    table = np.asarray(profile.percentiles, dtype=float)
-    points, first = np.unique(table, return_index=True)
-    last = len(table) - 1 - np.unique(table[::-1], return_index=True)[1]
-    low, high = PERCENTILE_GRID[first], PERCENTILE_GRID[last]
+    points, low, high = _rank_table(profile.percentiles)
     values = np.asarray(values, dtype=float)
     right = np.clip(np.searchsorted(points, values, side="left"), 1, max(len(points) - 1, 1))
     left = right - 1
@@ -266,6 +264,15 @@ def percentile_rank(profile: FeatureProfile, values: np.ndarray) -> np.ndarray:
     out[values < points[0]] = 0.0
     out[values > points[-1]] = 100.0
     return out
+
+
+@functools.lru_cache(maxsize=1024)
+def _rank_table(percentiles: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The distinct percentile values, and the first and last percent at each."""
+    table = np.asarray(percentiles, dtype=float)
+    points, first = np.unique(table, return_index=True)
+    last = len(table) - 1 - np.unique(table[::-1], return_index=True)[1]
+    return points, PERCENTILE_GRID[first], PERCENTILE_GRID[last]
 
 
 def unit_spread(profile: FeatureProfile) -> float:
