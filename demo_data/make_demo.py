@@ -395,22 +395,24 @@ def make_listings(rng: np.random.Generator, n: int) -> pd.DataFrame:
 Feature = tuple[str, str, str | None, str, tuple[str, ...]]
 
 LOAN_SCHEMA: tuple[Feature, ...] = (
-    ("annual_revenue", "number", "decreasing", "Annual revenue, thousands", ()),
+    ("annual_revenue", "number", "decreasing", "Annual revenue, thousands",
+     ('reason = "Annual revenue is low for the amount of credit sought"',)),
     ("years_trading", "integer", "decreasing", "Whole years the business has traded, years", ()),
     (
         "debt_to_revenue",
         "number",
         "increasing",
         "Existing debt divided by annual revenue, ratio",
-        (),
+        ('reason = "Existing debt is high relative to revenue"',),
     ),
-    ("credit_utilisation", "number", None, "Share of credit limits in use, ratio 0 to 1", ()),
+    ("credit_utilisation", "number", None, "Share of credit limits in use, ratio 0 to 1",
+     ('reason = "High use of existing credit lines"',)),
     (
         "late_payments_24m",
         "integer",
         "increasing",
         "Late payments in the last 24 months, count",
-        (),
+        ('reason = "Recent late payments on existing credit"',),
     ),
     ("amount_requested", "number", "increasing", "Loan amount requested, thousands", ()),
     ("sector", "category", None, "Business sector, one of seven levels", ()),
@@ -456,7 +458,8 @@ LISTING_SCHEMA: tuple[Feature, ...] = (
 )
 
 
-def schema_text(csv_name: str, id_column: str, target: str, features: Sequence[Feature]) -> str:
+def schema_text(csv_name: str, id_column: str, target: str, features: Sequence[Feature],
+                better: str) -> str:
     """Render a schema file in the project's TOML shape."""
     lines = [
         f"# Schema for {csv_name} (edit freely; see the project README)",
@@ -467,6 +470,7 @@ def schema_text(csv_name: str, id_column: str, target: str, features: Sequence[F
         f"column = {json.dumps(target)}",
         'task = "classification"',
         'positive = "yes"',
+        f'better = "{better}"  # which way the score is better for the applicant or owner',
     ]
     for name, kind, monotone, description, extra in features:
         lines += ["", f"[feature.{name}]", f'kind = "{kind}"']
@@ -551,7 +555,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     loans = make_loans(np.random.default_rng(loans_seed), args.rows_loans)
     write_csv(loans, out / "loans.csv")
     write_text(
-        schema_text("loans.csv", "application_id", "defaulted", LOAN_SCHEMA),
+        schema_text("loans.csv", "application_id", "defaulted", LOAN_SCHEMA, "lower"),
         out / "loans.schema.toml",
     )
     print(f"loans.csv: {len(loans)} rows, default rate {rate(loans, 'defaulted'):.3f}")
@@ -559,7 +563,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     listings = make_listings(np.random.default_rng(listings_seed), args.rows_listings)
     write_csv(listings, out / "listings.csv")
     write_text(
-        schema_text("listings.csv", "listing_id", "top_tier", LISTING_SCHEMA),
+        schema_text("listings.csv", "listing_id", "top_tier", LISTING_SCHEMA, "higher"),
         out / "listings.schema.toml",
     )
     print(f"listings.csv: {len(listings)} rows, top-tier rate {rate(listings, 'top_tier'):.3f}")
@@ -568,7 +572,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         big = make_loans_big(np.random.default_rng(big_seed), BIG_ROWS)
         write_csv(big, out / "loans_big.csv")
         write_text(
-            schema_text("loans_big.csv", "application_id", "defaulted", big_schema()),
+            schema_text("loans_big.csv", "application_id", "defaulted", big_schema(),
+                        "lower"),
             out / "loans_big.schema.toml",
         )
         print(f"loans_big.csv: {len(big)} rows, default rate {rate(big, 'defaulted'):.3f}")

@@ -22,7 +22,7 @@ from rich.progress import (
     TimeElapsedColumn,
 )
 
-from glassbox import __version__, artifact, formats, plots, shapes
+from glassbox import __version__, artifact, formats, plots, reasons, shapes
 from glassbox.additive import score_table
 from glassbox.benchmarks import BENCHMARKS
 from glassbox.compare import (
@@ -38,7 +38,16 @@ from glassbox.families import FAMILIES
 from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, training_fit
 from glassbox.provenance import file_sha256
-from glassbox.render import comparison_view, error_text, fit_view, shapes_view, warning_text
+from glassbox.render import (
+    comparison_view,
+    error_text,
+    fit_view,
+    frame_table,
+    reasons_view,
+    shapes_view,
+    warning_text,
+)
+from glassbox.rows import row_position
 from glassbox.schema import infer_schema, load_schema, read_table
 
 app = typer.Typer(
@@ -272,6 +281,76 @@ def compare_command(
     else:
         text = compare_markdown(result)
     _emit(text, out, "comparison")
+
+
+class ReasonsFormat(StrEnum):
+    table = "table"
+    json = "json"
+    csv = "csv"
+
+
+@app.command("reasons")
+@friendly
+def reasons_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    data: Annotated[Path, typer.Argument(help="CSV or Parquet file with the rows.")],
+    id_value: Annotated[str | None, typer.Option("--id", help="The row with this id.")] = None,
+    index: Annotated[int | None, typer.Option(help="The N-th data row, from 1.")] = None,
+    every: Annotated[bool, typer.Option("--all", help="Every row, and a summary.")] = False,
+    top: Annotated[int, typer.Option(help="Reasons per row.")] = 4,
+    cutoff: Annotated[float | None, typer.Option(
+        help="Cut-off for the --all summary: a probability (default 0.5) or, for "
+             "regression, a predicted value.")] = None,
+    format: Annotated[ReasonsFormat, typer.Option(
+        "--format", help="table (terminal), json or csv.")] = ReasonsFormat.table,
+    out: Annotated[Path | None, typer.Option(help="Write json or csv here.")] = None,
+) -> None:
+    """Why a row scores as it does: the features furthest below their best, in words."""
+    if sum([id_value is not None, index is not None, every]) != 1:
+        raise OptionError("name the rows: --id VALUE, --index N or --all")
+    if format is ReasonsFormat.table and out is not None:
+        raise OptionError("--out needs --format json or csv")
+    model = artifact.load(model_file)
+    frame = read_table(data)
+    if every:
+        table = reasons.reasons_table(model, frame, top, str(data))
+        summary = reasons.principal_reasons(model, frame, cutoff, str(data))
+        if format is ReasonsFormat.table:
+            _stdout().print(frame_table(summary, title="Principal reasons among rows on the "
+                                                       "unfavourable side of the cut-off"))
+            _stderr().print("per-row reasons: add --format csv or json (and --out FILE)")
+            return
+        text = formats.to_csv(table) if format is ReasonsFormat.csv else json.dumps(
+            {"rows": json.loads(formats.to_json(table)),
+             "principal_reasons": json.loads(formats.to_json(summary))},
+            indent=1, ensure_ascii=False) + "\n"
+        _emit(text, out, f"reasons for {len(table)} rows")
+        _stderr().print(frame_table(summary, title="Principal reasons among rows on the "
+                                                   "unfavourable side of the cut-off"))
+        return
+    position = row_position(frame, model.schema, id_value=id_value, index=index,
+                            source=str(data))
+    one = frame.iloc[[position]]
+    table = reasons.reasons_table(model, one, top, str(data))
+    found = reasons.row_reasons(model, model.encode(one, str(data)), top)[0]
+    if format is ReasonsFormat.table:
+        row = {k: v for k, v in table.iloc[0].items() if not str(k).startswith(
+            ("reason_", "feature_", "gap_"))}
+        scale = "log-odds" if model.link == "logit" else "prediction"
+        _stdout().print(reasons_view(row, found, scale))
+        return
+    if format is ReasonsFormat.csv:
+        _emit(formats.to_csv(table), out, "reasons")
+        return
+    record = {k: v for k, v in json.loads(formats.to_json(table))[0].items()
+              if not k.startswith(("reason_", "feature_", "gap_"))}
+    record["reasons"] = [{"feature": r.feature, "value": _plain_value(r.value), "gap": r.gap,
+                          "text": r.text} for r in found]
+    _emit(json.dumps(record, indent=1, ensure_ascii=False) + "\n", out, "reasons")
+
+
+def _plain_value(value: Any) -> Any:
+    return value.item() if hasattr(value, "item") else value
 
 
 @contextlib.contextmanager

@@ -164,3 +164,18 @@ def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
     if not sparsity.empty:
         parts.append(frame_table(sparsity, title="Sparse family by number of features"))
     return Group(*parts)
+
+
+def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
+    """One row's score and its reasons, largest gap first."""
+    table = Table(box=box.SIMPLE_HEAD, title=f"Reasons, largest gap below the best first "
+                                             f"({scale} scale)")
+    for heading, justify in (("#", "right"), ("feature", "left"), ("value", "right"),
+                             ("gap", "right"), ("reason", "left")):
+        table.add_column(heading, justify=justify)  # type: ignore[arg-type]
+    for number, reason in enumerate(reasons, start=1):
+        table.add_row(str(number), reason.feature, cell(reason.value), cell(reason.gap, 3),
+                      reason.text)
+    parts: list[RenderableType] = [key_values(row, title="Row")]
+    parts.append(table if reasons else Text("No term holds this row below its best."))
+    return Group(*parts)

@@ -23,6 +23,7 @@ from glassbox.errors import DataError, SchemaError
 KINDS = ("number", "integer", "flag", "category")
 NUMERIC_KINDS = ("number", "integer", "flag")
 TASKS = ("classification", "regression")
+BETTER = ("higher", "lower")  # which way the score is better for the person
 MONOTONE = ("increasing", "decreasing")
 TRUE_WORDS = frozenset({"1", "yes", "y", "true", "t"})
 FALSE_WORDS = frozenset({"0", "no", "n", "false", "f"})
@@ -60,11 +61,19 @@ class FeatureSpec:
 
 @dataclass(frozen=True)
 class TargetSpec:
-    """The column to predict and, for classification, the positive label."""
+    """The column to predict, for classification the positive label, and which way the
+    score is better for the person the decision is about ("higher" or "lower": a lender
+    predicting default wants it lower)."""
 
     column: str
     task: str
     positive: Any = None
+    better: str = "higher"
+
+    @property
+    def good_sign(self) -> int:
+        """+1 when a higher score is better for the person, -1 when lower is."""
+        return 1 if self.better == "higher" else -1
 
 
 @dataclass(frozen=True)
@@ -110,6 +119,8 @@ class Schema:
         target = {"column": self.target.column, "task": self.target.task}
         if self.target.positive is not None:
             target["positive"] = self.target.positive
+        if self.target.better != "higher":
+            target["better"] = self.target.better
         out["target"] = target
         out["feature"] = {}
         for spec in self.features:
@@ -138,13 +149,18 @@ class Schema:
         target_data = data.get("target")
         if not isinstance(target_data, Mapping) or "column" not in target_data:
             raise SchemaError(f"{where}a [target] table with a 'column' is required")
-        bad = set(target_data) - {"column", "task", "positive"}
+        bad = set(target_data) - {"column", "task", "positive", "better"}
         if bad:
             raise SchemaError(f"{where}unknown key(s) in [target]: {', '.join(sorted(bad))}")
         task = target_data.get("task", "classification")
         if task not in TASKS:
             raise SchemaError(f"{where}target task must be one of {', '.join(TASKS)}, not '{task}'")
-        target = TargetSpec(str(target_data["column"]), task, target_data.get("positive"))
+        better = target_data.get("better", "higher")
+        if better not in BETTER:
+            raise SchemaError(f"{where}[target] better must be one of {', '.join(BETTER)}, "
+                              f"not {better!r}")
+        target = TargetSpec(str(target_data["column"]), task, target_data.get("positive"),
+                            better)
         features_data = data.get("feature", {})
         if not isinstance(features_data, Mapping) or not features_data:
             raise SchemaError(f"{where}no features declared (add [feature.NAME] tables)")

@@ -9,7 +9,8 @@ from typing import Any
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
-from glassbox.schema import label_text, read_table
+from glassbox.rows import row_position
+from glassbox.schema import read_table
 from recourse.errors import PlanningError
 
 
@@ -34,20 +35,8 @@ def pick_row(model: AdditiveModel, *, row: Path | None = None, data: Path | None
         series = pd.Series(values, dtype=object)
         return series, values.get(model.schema.id_column) if model.schema.id_column else None
     frame = read_table(data)
-    if index is not None:
-        if index > len(frame):
-            raise PlanningError(f"{data} has {len(frame)} data rows; --index {index} is beyond")
-        series = frame.iloc[index - 1]
-        id_column = model.schema.id_column
-        return series, series[id_column] if id_column in frame else index
+    position = row_position(frame, model.schema, id_value=id_value, index=index,
+                            source=str(data))
+    series = frame.iloc[position]
     id_column = model.schema.id_column
-    if not id_column:
-        raise PlanningError("the model's schema names no id column; use --index N")
-    if id_column not in frame:
-        raise PlanningError(f"{data} has no id column '{id_column}'")
-    matches = frame[frame[id_column].map(label_text) == label_text(id_value)]
-    if matches.empty:
-        raise PlanningError(f"{data}: no row with {id_column} = {id_value!r}")
-    if len(matches) > 1:
-        raise PlanningError(f"{data}: {len(matches)} rows have {id_column} = {id_value!r}")
-    return matches.iloc[0], matches.iloc[0][id_column]
+    return series, series[id_column] if id_column and id_column in frame else position + 1

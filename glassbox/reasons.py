@@ -1,0 +1,193 @@
+"""Reasons for one row's score: the terms that hold it furthest below the best the model allows.
+
+For each term the gap is the distance between the row's contribution and the most favourable
+contribution the term's table can give anywhere ("points below the maximum", the usual way
+adverse-action reason codes are ranked; common practice, no source). Gaps are on the score
+scale (log-odds for classification) and never negative. Which way is favourable comes from
+the schema's `[target] better`. Protected columns are never model inputs and never reasons.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, Term
+from glassbox.errors import OptionError
+
+NOTHING = 1e-12  # a gap this small is no reason
+
+
+@dataclass(frozen=True)
+class Reason:
+    """One term's pull on a row's score, with a plain sentence."""
+
+    feature: str
+    value: Any  # the row's value as the model reads it
+    gap: float  # how far below its best the term leaves the score (score scale, >= 0)
+    text: str
+
+
+@dataclass(frozen=True)
+class Best:
+    """Where a term's table is most favourable: the contribution and where it is reached."""
+
+    contribution: float
+    spans: tuple[tuple[float, float], ...] = ()  # numeric terms: the intervals reaching it
+    level: str | None = None  # levels terms: the (first) best level
+
+
+def best_of(model: AdditiveModel, term: Term) -> Best:
+    """The most favourable contribution a term's table gives a seen value or level."""
+    sign = model.schema.target.good_sign
+    values = np.asarray(term.values, dtype=float)
+    favour = sign * values
+    winners = np.flatnonzero(favour >= favour.max() - NOTHING)
+    contribution = float(values[winners[0]])
+    if isinstance(term, LevelsTerm):
+        return Best(contribution, level=term.levels[int(winners[0])])
+    if isinstance(term, CurveTerm):  # clamped beyond the ends, so the end knots reach out
+        knots, last = np.asarray(term.knots, dtype=float), len(term.knots) - 1
+        spans = tuple((-math.inf if w == 0 else float(knots[w]),
+                       math.inf if w == last else float(knots[w])) for w in winners)
+        return Best(contribution, spans=spans)
+    if isinstance(term, StepTerm):
+        edges = np.r_[-math.inf, np.asarray(term.edges, dtype=float), math.inf]
+        return Best(contribution, spans=tuple((float(edges[w]), float(edges[w + 1]))
+                                              for w in winners))
+    raise TypeError(f"unknown term type {type(term).__name__}")
+
+
+def gaps(model: AdditiveModel, encoded: pd.DataFrame) -> pd.DataFrame:
+    """Per row and term: how far the row's contribution sits below the term's best."""
+    sign = model.schema.target.good_sign
+    protected = {f.name for f in model.schema.protected_features}
+    columns = {}
+    for term in model.terms:
+        if term.feature in protected:
+            continue
+        best = best_of(model, term).contribution
+        parts = term.evaluate(encoded[term.feature].to_numpy())
+        columns[term.feature] = np.maximum(0.0, sign * (best - parts))
+    return pd.DataFrame(columns, index=encoded.index)
+
+
+def _label(model: AdditiveModel, feature: str) -> str:
+    return feature.replace("_", " ")
+
+
+def _value_text(model: AdditiveModel, feature: str, value: Any) -> str:
+    kind = model.schema.feature(feature).kind
+    if kind == "flag":
+        return "yes" if float(value) else "no"
+    if kind == "category":
+        return f"'{value}'"
+    number = float(value)
+    return f"{number:,.0f}" if number == round(number) and abs(number) >= 1000 else f"{number:g}"
+
+
+def sentence(model: AdditiveModel, feature: str, value: Any) -> str:
+    """The schema's reason text for the feature, else one made from its name and value."""
+    spec = model.schema.feature(feature)
+    if spec.reason:
+        return spec.reason
+    term, label = model.term(feature), _label(model, feature)
+    best = best_of(model, term)
+    shown = _value_text(model, feature, value)
+    if isinstance(term, LevelsTerm):
+        return f"{label} is {shown}; '{best.level}' scores best"
+    if spec.kind == "flag":
+        wanted = "yes" if _flag_best(term, model) else "no"
+        return f"{label} is {shown}; '{wanted}' scores better"
+    number = float(value)
+    nearest = min(best.spans, key=lambda span: max(span[0] - number, number - span[1], 0.0))
+    way = "lower" if number > nearest[1] else "higher"
+    return f"{label} of {shown}; {way} values score better"
+
+
+def _flag_best(term: Term, model: AdditiveModel) -> bool:
+    """Whether a flag scores better at 1 (yes) than at 0 (no)."""
+    sign = model.schema.target.good_sign
+    yes, no = term.evaluate(np.array([1.0, 0.0]))
+    return bool(sign * (yes - no) > 0)
+
+
+def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> list[list[Reason]]:
+    """Up to `top` reasons per row of a frame typed by `AdditiveModel.encode`, largest first."""
+    if top < 1:
+        raise OptionError(f"--top must be at least 1, not {top}")
+    table = gaps(model, encoded)
+    names = list(table.columns)
+    values = table.to_numpy()
+    out = []
+    for row in range(len(table)):
+        order = sorted(range(len(names)), key=lambda j, r=row: (-values[r, j], j))
+        reasons = []
+        for j in order[:top]:
+            if values[row, j] <= NOTHING:
+                break
+            value = encoded[names[j]].iloc[row]
+            reasons.append(Reason(names[j], value, float(values[row, j]),
+                                  sentence(model, names[j], value)))
+        out.append(reasons)
+    return out
+
+
+def unfavourable(model: AdditiveModel, score: np.ndarray, cutoff: float | None) -> np.ndarray:
+    """Rows on the unfavourable side of the cut-off (a probability for classification,
+    default 0.5; a predicted value for regression, which must be given)."""
+    better = model.schema.target.better
+    if model.link == "logit":
+        cutoff = 0.5 if cutoff is None else cutoff
+        if not 0 < cutoff < 1:
+            raise OptionError(f"--cutoff is a probability between 0 and 1, not {cutoff}")
+        outcome = model.inverse_link(np.asarray(score))
+    else:
+        if cutoff is None:
+            raise OptionError("a regression model needs --cutoff VALUE (a predicted value)")
+        outcome = np.asarray(score)
+    return outcome > cutoff if better == "lower" else outcome < cutoff
+
+
+def reasons_table(model: AdditiveModel, frame: pd.DataFrame, top: int = 4,
+                  source: str | None = None) -> pd.DataFrame:
+    """One row per input row: id, score, outcome and the ranked reasons (text, feature, gap)."""
+    encoded = model.encode(frame, source)
+    score = model.score_encoded(encoded)
+    out = pd.DataFrame(index=range(len(frame)))
+    id_column = model.schema.id_column
+    if id_column and id_column in frame:
+        out[id_column] = frame[id_column].to_numpy()
+    out["score"] = score
+    out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
+    found = row_reasons(model, encoded, top)
+    for k in range(top):
+        out[f"reason_{k + 1}"] = [r[k].text if len(r) > k else "" for r in found]
+        out[f"feature_{k + 1}"] = [r[k].feature if len(r) > k else "" for r in found]
+        out[f"gap_{k + 1}"] = [r[k].gap if len(r) > k else np.nan for r in found]
+    return out
+
+
+def principal_reasons(model: AdditiveModel, frame: pd.DataFrame, cutoff: float | None = None,
+                      source: str | None = None) -> pd.DataFrame:
+    """How often each feature is the first reason among rows on the unfavourable side."""
+    encoded = model.encode(frame, source)
+    below = unfavourable(model, model.score_encoded(encoded), cutoff)
+    columns = ["feature", "reason", "rows", "share"]
+    if not below.any():
+        return pd.DataFrame(columns=columns)
+    table = gaps(model, encoded.loc[below])
+    first = table.to_numpy().argmax(axis=1)  # ties go to the earlier term, as in row_reasons
+    has_reason = table.to_numpy().max(axis=1) > NOTHING
+    names = np.asarray(table.columns)[first[has_reason]]
+    counts = pd.Series(names).value_counts(sort=False)
+    order = sorted(counts.index, key=lambda name: (-counts[name], list(table.columns).index(name)))
+    rows = [{"feature": name,
+             "reason": model.schema.feature(name).reason or _label(model, name),
+             "rows": int(counts[name]), "share": float(counts[name] / below.sum())}
+            for name in order]
+    return pd.DataFrame(rows, columns=columns)
