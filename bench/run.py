@@ -334,7 +334,8 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
         "cost in training percentiles). Target: at least 5 times the baseline's throughput "
         "with identical optimal costs, and `--jobs 2` close to twice `--jobs 1`.",
         "",
-        f"**The program**, in alternating blocks of 50 rows (ours on a block, then the baseline on it): ours (`{DEFAULT_SOLVER}`, the default: "
+        "**The program**, in alternating blocks of 50 rows (ours on a block, then the "
+        f"baseline on it): ours (`{DEFAULT_SOLVER}`, the default: "
         "dominated candidates dropped, a Lagrangian bound drops the changes that cannot beat a "
         "known plan, HiGHS in-process through pulp) against a baseline that builds the whole "
         "program afresh in pulp and solves it with the CBC command line.",
