@@ -132,6 +132,36 @@ def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame
                                        "best_outcome"])
 
 
+OUTCOME_COLUMNS = ("id", "status", "score", "outcome", "plans", "total_cost", "largest_cost",
+                   "changes", "main_change", "new_outcome", "best_outcome", "binding_rule",
+                   "message")
+
+
+def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
+    """One row per planned row: its status and its cheapest plan (the audit's raw material).
+
+    `main_change` is the feature whose change costs most in the cheapest plan;
+    `binding_rule` is the most limiting rule when no plan exists ("bounds on x", "x fixed",
+    "limit on changes").
+    """
+    rows: list[dict[str, Any]] = []
+    for result in results:
+        best = result.plans[0] if result.plans else None
+        main = max(best.changes, key=lambda c: c.cost).feature if best and best.changes else ""
+        rows.append({
+            "id": result.row_id, "status": result.status, "score": result.score,
+            "outcome": result.outcome, "plans": len(result.plans),
+            "total_cost": best.total_cost if best else np.nan,
+            "largest_cost": best.largest_cost if best else np.nan,
+            "changes": "; ".join(_describe(c, model) for c in best.changes) if best else "",
+            "main_change": main, "new_outcome": best.outcome if best else np.nan,
+            "best_outcome": np.nan if result.best_outcome is None else result.best_outcome,
+            "binding_rule": result.binding_rules[0] if result.binding_rules else "",
+            "message": result.message,
+        })
+    return pd.DataFrame(rows, columns=list(OUTCOME_COLUMNS))
+
+
 def summary_frame(results: list[PlanResult]) -> pd.DataFrame:
     """How many declined rows got a plan, and the quantiles of the cheapest plan's cost."""
     with_plan = [r for r in results if r.plans]

@@ -67,6 +67,7 @@ class PlanResult:
     best_score: float | None = None  # "none": the best the rules allow
     best_outcome: float | None = None
     binding: tuple[str, ...] = ()  # "none": the rules that bind, most limiting first
+    binding_rules: tuple[str, ...] = ()  # the same as short names ("bounds on x", "x fixed")
     row_id: Any = None
     message: str = ""  # "error": why the rules cannot be applied to this row
 
@@ -124,10 +125,11 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         plans = _plans(model, encoded, names, candidates, solutions, threshold, goal.direction)
         return PlanResult("plans", plans=plans, **common)
     best = best_reachable(program)
+    summary, findings = _diagnosis(model, parts, candidates, program)
     return PlanResult("none", best_score=best,
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
-                      binding=tuple(diagnose(model, encoded, parts, candidates, program,
-                                             mutability)), **common)
+                      binding=(summary, *(text for _, text in findings)),
+                      binding_rules=tuple(rule for rule, _ in findings), **common)
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
@@ -176,25 +178,27 @@ def _table_extreme(model: AdditiveModel, feature: str, sign: int) -> float:
     return float(max(values) if sign > 0 else min(values))
 
 
-def diagnose(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.Series,
-             candidates: Mapping[str, list[Candidate]], program: Program,
-             mutability: Mutability) -> list[str]:
-    """Which rules keep the row from the goal, the most limiting first, in plain words."""
+def _diagnosis(model: AdditiveModel, parts: pd.Series,
+               candidates: Mapping[str, list[Candidate]],
+               program: Program) -> tuple[str, list[tuple[str, str]]]:
+    """A summary line, and up to six (rule, sentence) pairs, the most limiting first."""
     sign = _favourable(program.direction)
     gap = abs(program.threshold - best_reachable(program))
-    findings: list[tuple[float, str]] = []
+    findings: list[tuple[float, str, str]] = []
     if program.max_changes is not None:
         unlimited = best_reachable(replace(program, max_changes=None))
         if _reaches(unlimited, program.threshold, program.direction):
-            findings.append((math.inf, f"the limit of {program.max_changes} change(s) binds: "
-                                       "with no limit the rules would allow a plan"))
+            findings.append((math.inf, "limit on changes",
+                             f"the limit of {program.max_changes} change(s) binds: "
+                             "with no limit the rules would allow a plan"))
     for name, options in candidates.items():
         best_here = max(sign * c.contribution for c in options)
         beyond = sign * _table_extreme(model, name, sign) - best_here
         if beyond > 1e-9:
-            findings.append((beyond, f"the bounds, direction, step or largest change on {name} "
-                                     f"bind: its table offers {beyond:.3g} more "
-                                     f"({scale(model)}) beyond them"))
+            findings.append((beyond, f"bounds on {name}",
+                             f"the bounds, direction, step or largest change on {name} "
+                             f"bind: its table offers {beyond:.3g} more "
+                             f"({scale(model)}) beyond them"))
     protected = {f.name for f in model.schema.protected_features}
     for term in model.terms:
         name = term.feature
@@ -202,17 +206,17 @@ def diagnose(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.Series,
             continue
         potential = sign * _table_extreme(model, name, sign) - sign * float(parts[name])
         if potential > 1e-9:
-            findings.append((potential, f"{name} is fixed by the rules; its table could move "
-                                        f"the score by up to {potential:.3g} "
-                                        f"({scale(model)})"))
+            findings.append((potential, f"{name} fixed",
+                             f"{name} is fixed by the rules; its table could move "
+                             f"the score by up to {potential:.3g} ({scale(model)})"))
     findings.sort(key=lambda item: -item[0])
     best = float(model.inverse_link(np.array([best_reachable(program)]))[0])
     needed = float(model.inverse_link(np.array([program.threshold]))[0])
     what = "probability" if model.link == "logit" else "prediction"
     bound = "at least" if program.direction == "at-least" else "at most"
-    lines = [f"the rules allow a {what} of {best:.3g} at best; the goal needs {bound} "
-             f"{needed:.3g} (short by {gap:.3g} on the {scale(model)} scale)"]
-    return lines + [text for _, text in findings[:6]]
+    summary = (f"the rules allow a {what} of {best:.3g} at best; the goal needs {bound} "
+               f"{needed:.3g} (short by {gap:.3g} on the {scale(model)} scale)")
+    return summary, [(rule, text) for _, rule, text in findings[:6]]
 
 
 def scale(model: AdditiveModel) -> str:

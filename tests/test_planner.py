@@ -98,6 +98,11 @@ def test_no_plan_says_how_close_and_which_rules_bind():
     assert "income is fixed" in text or "student is fixed" in text
     record = plan_records(result)
     assert record["status"] == "none" and "not advice" in record["caution"]
+    # one short rule name per sentence after the summary line, in the same order
+    assert len(result.binding_rules) == len(result.binding) - 1
+    assert "bounds on balance" in result.binding_rules
+    for rule, line in zip(result.binding_rules, result.binding[1:], strict=True):
+        assert rule.split()[-1] in line or rule.split()[0] in line
 
 
 def test_max_changes_binding_is_reported():
@@ -109,3 +114,4 @@ def test_max_changes_binding_is_reported():
     result = find_plans(model, APPLICANT, mutability)
     assert result.status == "none"
     assert any("limit of 1 change" in line for line in result.binding)
+    assert result.binding_rules[0] == "limit on changes"
