@@ -45,7 +45,7 @@ class Program:
     direction: str
     objective: str
     max_changes: int | None = None
-    forbidden: tuple[frozenset[int], ...] = ()
+    forbidden: tuple[frozenset[int], ...] = ()  # sets of groups that may not all change
     names: tuple[str, ...] = ()
 
 
@@ -81,6 +81,11 @@ def _whole(value: object) -> bool:
 def _current_score(program: Program) -> float:
     pairs = zip(program.contributions, program.current, strict=True)
     return float(program.base + sum(values[now] for values, now in pairs))
+
+
+def _blocked(program: Program, changed: frozenset[int]) -> bool:
+    """Whether a set of changed groups holds every group of some forbidden set."""
+    return any(forbidden <= changed for forbidden in program.forbidden)
 
 
 def _changed(program: Program, choice: tuple[int, ...]) -> frozenset[int]:
@@ -250,12 +255,12 @@ def _known_choice(program: Program, relaxation: _Relaxation,
         return tuple(choice)
 
     first = picked(reaching)
-    if _changed(program, first) not in program.forbidden:
+    if not _blocked(program, _changed(program, first)):
         return _polished(program, first)
     found = []
     for group in sorted(_changed(program, first)):
         other = relaxation.search(held=group)[2]
-        if other is not None and _changed(program, picked(other)) not in program.forbidden:
+        if other is not None and not _blocked(program, _changed(program, picked(other))):
             choice = _polished(program, picked(other))
             found.append((sum(c[k] for c, k in zip(program.costs, choice, strict=True)), choice))
     return min(found)[1] if found else None
@@ -311,9 +316,10 @@ def _rows(program: Program, cap: float = math.inf) -> _Rows:
     if program.max_changes is not None:
         rows.append((columns[moved], np.ones(int(moved.sum())), "<=", float(program.max_changes)))
     group_of = np.repeat(np.arange(len(sizes)), sizes)[moved]
-    for changed in program.forbidden:  # changes inside minus changes outside <= |S| - 1
+    for changed in program.forbidden:  # not every group of S changes: changes in S <= |S| - 1
         inside = np.isin(group_of, sorted(changed))
-        rows.append((columns[moved], np.where(inside, 1.0, -1.0), "<=", len(changed) - 1.0))
+        rows.append((columns[moved][inside], np.ones(int(inside.sum())), "<=",
+                     len(changed) - 1.0))
     objective = cost
     if program.objective == "largest-cost":  # t >= cost of the chosen candidate in every group
         objective = np.append(np.zeros(n), 1.0)
@@ -348,7 +354,7 @@ def _judged(program: Program, choice: tuple[int, ...], solver: str) -> Solution:
                  "fewest-changes": len(changed)}[program.objective]
     reached = _sign(program) * (score - program.threshold) >= 0
     within = program.max_changes is None or len(changed) <= program.max_changes
-    if not reached or not within or changed in program.forbidden:
+    if not reached or not within or _blocked(program, changed):
         raise RuntimeError(f"{solver} returned a choice that breaks the program's rules "
                            f"(score {score!r}, threshold {program.threshold!r}, changed "
                            f"{sorted(changed)})")
@@ -396,10 +402,8 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
         for group, (gain, cost, now) in enumerate(zip(gains, costs, program.current,
                                                       strict=True)):
             ok = (cost < cost[picked[group]]) & (total - gain[picked[group]] + gain >= need)
-            if (changed | {group}) in program.forbidden:
+            if _blocked(program, changed | {group}):  # taking a group back out never blocks
                 ok[np.arange(len(ok)) != now] = False
-            if (changed - {group}) in program.forbidden:
-                ok[now] = False
             if ok.any():
                 candidate = int(np.argmin(np.where(ok, cost, np.inf)))
                 best = max(best, (cost[picked[group]] - cost[candidate], group, candidate))
@@ -414,7 +418,7 @@ def _no_plan(solver: str) -> Solution:
 
 def _empty_run(program: Program, cap: float) -> tuple[int, ...] | None:
     margin = _sign(program) * (program.base - program.threshold)
-    return None if margin < BUFFER or frozenset() in program.forbidden else ()
+    return None if margin < BUFFER or _blocked(program, frozenset()) else ()
 
 
 def _gains(program: Program, cap: float) -> list[float]:

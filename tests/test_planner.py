@@ -64,13 +64,24 @@ def test_closed_form_for_one_linear_feature():
 
 
 def test_several_distinct_plans_change_different_sets():
+    # ISLR Table 4.3 coefficients (from memory). The applicant scores -10.8690 + 0.005737 *
+    # 2000 + 0.003033 * 40 = 0.7263 and must reach 0 (less the buffer). By hand: becoming a
+    # student (-0.6468) leaves 0.0795 to find: 14 dollars of balance (0.0795 / 0.005737 =
+    # 13.9; cost 5 + 14 = 19) or 27 thousand of income (0.0795 / 0.003033 = 26.2; cost
+    # 5 + 27 = 32); the balance alone needs 127 dollars (0.7263 / 0.005737 = 126.6; cost
+    # 127). A later plan may not hold every change of an earlier one, so nothing else is left.
     model = islr_default_model()
     mutability = mutability_from_dict(rules(
         balance={"change": "decrease", "step": 1, "cost": 1.0},
-        income={"change": "decrease", "step": 1, "cost": 1.0}), model)
+        income={"change": "decrease", "step": 1, "cost": 1.0},
+        student={"change": "increase", "cost": 5.0}), model)
     result = find_plans(model, APPLICANT, mutability, n_plans=3)
     sets = [frozenset(c.feature for c in plan.changes) for plan in result.plans]
-    assert len(sets) == len(set(sets)) >= 2
+    assert sets == [frozenset({"student", "balance"}), frozenset({"student", "income"}),
+                    frozenset({"balance"})]
+    assert [plan.total_cost for plan in result.plans] == pytest.approx([19.0, 32.0, 127.0])
+    for later, plan in enumerate(sets):
+        assert not any(earlier <= plan for earlier in sets[:later])
     costs = [plan.total_cost for plan in result.plans]
     assert costs == sorted(costs)  # each plan is the cheapest left after the cuts
     for plan in result.plans:  # re-scored through the model: every plan reaches the goal
