@@ -27,11 +27,18 @@ def write_atomic(path: str | Path, content: str | bytes) -> None:
         else:
             with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
                 out.write(content)
+        os.chmod(temporary, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
         os.replace(temporary, path)
     except BaseException:
         if os.path.exists(temporary):
             os.unlink(temporary)
         raise
+
+
+def _umask() -> int:
+    current = os.umask(0o022)
+    os.umask(current)
+    return current
 
 
 def safe_file_name(name: str) -> str:

@@ -103,3 +103,14 @@ def test_write_is_atomic_and_leaves_no_temporary_file(model, tmp_path, monkeypat
         artifact.save(model, path)
     assert path.read_bytes() == before
     assert [p.name for p in tmp_path.iterdir()] == ["m.json"]
+
+
+def test_written_files_get_the_usual_mode(model, tmp_path):
+    # common practice, no source: new files get 0666 less the process umask (not mkstemp's 0600)
+    import os
+
+    path = tmp_path / "model.json"
+    artifact.save(model, path)
+    current = os.umask(0o022)
+    os.umask(current)
+    assert path.stat().st_mode & 0o777 == 0o666 & ~current
