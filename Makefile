@@ -6,7 +6,7 @@ STAMP  := $(VENV)/.installed
 OUT    := demo_out
 GB     := $(BIN)/glassbox
 
-.PHONY: install demo test lint bench clean
+.PHONY: install demo test lint bench clean browser
 
 install: $(STAMP)
 
@@ -48,9 +48,18 @@ demo: $(STAMP)
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
 	@echo "== done: models, tables, pictures and plans are in $(OUT)/"
 
-test: $(STAMP)
+test: $(STAMP) browser
 	$(BIN)/ruff check .
 	$(BIN)/python -m pytest -q
+
+# headless Chromium for the report's browser test, installed only where it can be
+# (Debian, as root); never fails: the test skips itself without it
+browser:
+	@command -v chromium >/dev/null || (command -v apt-get >/dev/null && [ "$$(id -u)" = 0 ] \
+	  && (DEBIAN_FRONTEND=noninteractive apt-get install -y -q chromium >/dev/null 2>&1 \
+	  || (apt-get update -q >/dev/null 2>&1 \
+	  && DEBIAN_FRONTEND=noninteractive apt-get install -y -q chromium >/dev/null 2>&1))) \
+	  || echo "chromium not installed: the report's browser test will be skipped"
 
 lint: $(STAMP)
 	$(BIN)/ruff check .

@@ -22,7 +22,7 @@ from rich.progress import (
     TimeElapsedColumn,
 )
 
-from glassbox import __version__, artifact, formats, plots, reasons, shapes
+from glassbox import __version__, artifact, formats, plots, points, reasons, shapes
 from glassbox.additive import score_table
 from glassbox.benchmarks import BENCHMARKS
 from glassbox.compare import (
@@ -43,6 +43,8 @@ from glassbox.render import (
     error_text,
     fit_view,
     frame_table,
+    key_values,
+    points_view,
     reasons_view,
     shapes_view,
     warning_text,
@@ -175,17 +177,86 @@ def fit_command(
 @app.command("score")
 @friendly
 def score_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
-    data: Annotated[Path, typer.Argument(help="CSV or Parquet file to score.")],
+    model_file: Annotated[Path | None, typer.Argument(
+        metavar="MODEL", help="Model file (JSON); leave out when scoring with --points.",
+        show_default=False)] = None,
+    data: Annotated[Path | None, typer.Argument(
+        metavar="DATA", help="CSV or Parquet file to score.", show_default=False)] = None,
+    card_file: Annotated[Path | None, typer.Option(
+        "--points", metavar="CARD",
+        help="Score whole points with this points card (from glassbox points --format json) "
+             "instead of a model.")] = None,
     out: Annotated[Path | None, typer.Option(help="Write the CSV here, not stdout.")] = None,
     contributions: Annotated[bool, typer.Option(
         help="Include each feature's contribution.")] = True,
 ) -> None:
-    """Score rows: score (link scale), probability or prediction, contributions (CSV)."""
-    model = artifact.load(model_file)
-    frame = read_table(data)
-    table = score_table(model, frame, str(data), contributions=contributions)
+    """Score rows: score (link scale), probability or prediction, contributions (CSV);
+    or, with --points, total points and each feature's points."""
+    model_file, data = _score_inputs(model_file, data, card_file)
+    if card_file is not None:
+        card = points.load(card_file)
+        table = points.score_points(card, read_table(data), str(data))
+    else:
+        model = artifact.load(model_file)
+        frame = read_table(data)
+        table = score_table(model, frame, str(data), contributions=contributions)
     _emit(formats.to_csv(table), out, f"{len(table)} scored rows")
+
+
+def _score_inputs(first: Path | None, second: Path | None,
+                  card_file: Path | None) -> tuple[Path | None, Path]:
+    """`score MODEL DATA` or `score --points CARD DATA`: exactly one of MODEL and CARD."""
+    given = [path for path in (first, second) if path is not None]
+    if card_file is None and len(given) == 2:
+        return given[0], given[1]
+    if card_file is not None and len(given) == 1:
+        return None, given[0]
+    if card_file is not None and len(given) == 2:
+        raise OptionError(f"score takes a MODEL or --points {card_file}, not both "
+                          f"(got the model {given[0]})")
+    if card_file is not None:
+        raise OptionError("score --points CARD needs a DATA file to score")
+    raise OptionError("score needs a MODEL and a DATA file, or --points CARD and a DATA file")
+
+
+@app.command("points")
+@friendly
+def points_command(
+    model_file: Annotated[Path, typer.Argument(
+        metavar="MODEL", help="Model file (JSON) of a classification model.")],
+    base_score: Annotated[float, typer.Option(help="Points at the base odds.")] = 600.0,
+    base_odds: Annotated[float, typer.Option(
+        help="Odds of the good outcome (good:bad) that score the base score.")] = 50.0,
+    pdo: Annotated[float, typer.Option(help="Points to double the odds.")] = 20.0,
+    bins: Annotated[int, typer.Option(
+        help="Bins per curve, at equal shares of the training rows.")] = points.DEFAULT_BINS,
+    data: Annotated[Path | None, typer.Option(
+        help="Also measure how closely the card tracks the exact score on these rows.")
+    ] = None,
+    format: Annotated[TableFormat, typer.Option(
+        "--format", help="table (terminal), csv or markdown (the rows), json (the card file "
+                         "score --points reads).")] = TableFormat.table,
+    out: Annotated[Path | None, typer.Option(help="Write the card or its rows here.")] = None,
+) -> None:
+    """Turn a classification model into a points card: whole points per bin or level."""
+    model = artifact.load(model_file)
+    card = points.points_card(model, points.Scaling(base_score, base_odds, pdo), bins)
+    fidelity = None
+    if data is not None:
+        fidelity = points.card_fidelity(card, model, read_table(data), str(data)).summary()
+    if format is TableFormat.table:
+        if out is not None:
+            raise OptionError("--out needs a file format: add --format json, csv or markdown")
+        _stdout().print(points_view(points.card_summary(card), points.card_table(card),
+                                    fidelity))
+        return
+    if format is TableFormat.json:
+        text = points.dumps(card)
+    else:
+        text = formats.write(points.card_table(card), format.value)
+    _emit(text, out, "points card" if format is TableFormat.json else "points card rows")
+    if fidelity is not None:
+        _stderr().print(key_values(fidelity, title="Card against the exact score"))
 
 
 @app.command("shapes")
@@ -351,6 +422,34 @@ def reasons_command(
 
 def _plain_value(value: Any) -> Any:
     return value.item() if hasattr(value, "item") else value
+
+
+@app.command("report")
+@friendly
+def report_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    data: Annotated[Path, typer.Option(help="CSV or Parquet file with the rows to report on.")],
+    out: Annotated[Path, typer.Option(
+        metavar="DIR", help="Folder for report.html, report.md and its pictures.")],
+    comparison: Annotated[Path | None, typer.Option(
+        help="A `glassbox compare --format json` file made on the model's training data.")
+    ] = None,
+    cutoff: Annotated[float | None, typer.Option(
+        help="The cut-off: a probability (default 0.5) or, for regression, a predicted "
+             "value (required).")] = None,
+) -> None:
+    """A self-contained audit report (HTML and Markdown) of a model on a data file."""
+    from glassbox import report
+
+    report.check_folder(out)
+    model = artifact.load(model_file)
+    frame = read_table(data)
+    with progress_note("drawing the report"):
+        document = report.build_report(model, frame, model_file=model_file,
+                                       comparison_file=comparison, cutoff=cutoff,
+                                       source=str(data))
+        paths = report.write_report(document, out)
+    _stderr().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 
 
 @contextlib.contextmanager

@@ -9,8 +9,10 @@ Machine Learning 52): the variance of a mean over J resampled folds is
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -467,3 +469,47 @@ def to_markdown(comparison: Comparison) -> str:
     parts += [f"{settings['folds']} folds × {settings['repeats']} repeat(s), seed "
               f"{settings['seed']}; intervals: {settings['interval']}.", ""]
     return "\n".join(parts)
+
+
+# ---------------------------------------------------------------- reading a comparison file
+
+NUMBER_COLUMNS = ("mean", "lower", "upper", "t", "p_value")
+
+
+def comparison_from_dict(document: Any, source: str = "the comparison") -> Comparison:
+    """Rebuild a `Comparison` from `Comparison.to_dict` output (a comparison JSON file)."""
+    if not isinstance(document, dict) or document.get("format") != FORMAT:
+        raise DataError(f"{source} is not a glassbox comparison file (no \"format\": "
+                        f"\"{FORMAT}\")")
+    if document.get("version") != VERSION:
+        raise DataError(f"{source} is comparison format version {document.get('version')!r}; "
+                        f"this glassbox reads version {VERSION}")
+
+    def table(key: str) -> pd.DataFrame:
+        frame = pd.DataFrame(document.get(key) or [])
+        for column in NUMBER_COLUMNS:
+            if column in frame:
+                frame[column] = pd.to_numeric(frame[column], errors="coerce").astype(float)
+        return frame
+
+    try:
+        return Comparison(
+            task=str(document["task"]), primary=str(document["primary_metric"]),
+            headline=str(document["headline"]), models=table("models"),
+            differences=table("differences"), folds=table("folds"),
+            sparsity=table("sparsity_curve"), settings=dict(document["settings"]),
+            provenance=dict(document["provenance"]))
+    except (KeyError, TypeError, ValueError) as exc:
+        raise DataError(f"{source} is incomplete: {exc}") from None
+
+
+def read_comparison(path: str | Path) -> Comparison:
+    """Read a comparison JSON file written by `glassbox compare --format json`."""
+    path = Path(path)
+    if not path.is_file():
+        raise DataError(f"comparison file {path} does not exist")
+    try:
+        document = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise DataError(f"comparison file {path} is not valid JSON: {exc}") from None
+    return comparison_from_dict(document, f"comparison file {path}")

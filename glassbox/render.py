@@ -179,3 +179,16 @@ def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> 
     parts: list[RenderableType] = [key_values(row, title="Row")]
     parts.append(table if reasons else Text("No term holds this row below its best."))
     return Group(*parts)
+
+
+def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
+                fidelity: Mapping[str, Any] | None = None) -> RenderableType:
+    """What `glassbox points` prints: the scaling, the fidelity if measured, then the
+    base points and each feature's rows of points."""
+    parts: list[RenderableType] = [key_values(summary, title="Points card")]
+    if fidelity is not None:
+        parts.append(key_values(fidelity, title="Card against the exact score"))
+    for feature, group in rows.groupby("feature", sort=False):
+        parts.append(frame_table(group, title=str(feature),
+                                 columns=["row", "points", "contribution"]))
+    return Group(*parts)
