@@ -46,7 +46,18 @@ demo: $(STAMP)
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
 	@head -1001 demo_data/loans.csv > $(OUT)/loans.first1000.csv
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
-	@echo "== done: models, tables, pictures and plans are in $(OUT)/"
+	@echo "== 12. reasons: what holds the two declined applicants furthest below the best"
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L001096
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L002331 --top 3
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --format csv --out $(OUT)/loans.reasons.csv
+	@echo "== 13. a points scorecard from the spline model, checked against the exact score"
+	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv
+	$(GB) points $(OUT)/loans.spline.json --format json --out $(OUT)/loans.card.json
+	$(GB) score --points $(OUT)/loans.card.json demo_data/loans.csv --out $(OUT)/loans.points.csv
+	@head -3 $(OUT)/loans.points.csv | cut -c1-110
+	@echo "== 14. the audit report: one self-contained HTML file, and the same in Markdown"
+	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --cutoff 0.3 --out $(OUT)/report
+	@echo "== done: models, tables, pictures, plans, the scorecard and the report are in $(OUT)/"
 
 test: $(STAMP) browser
 	$(BIN)/ruff check .

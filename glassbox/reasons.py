@@ -1,9 +1,12 @@
 """Reasons for one row's score: the terms that hold it furthest below the best the model allows.
 
 For each term the gap is the distance between the row's contribution and the most favourable
-contribution the term's table can give anywhere ("points below the maximum", the usual way
-adverse-action reason codes are ranked; common practice, no source). Gaps are on the score
-scale (log-odds for classification) and never negative. Which way is favourable comes from
+contribution the term's table gives ("points below the maximum", the usual way adverse-action
+reason codes are ranked; common practice, no source), sought over the levels seen in training
+and, for numeric features, over the central 98% of training values: a curve's far tail, set by
+a handful of rows, would otherwise be every row's first reason. Gaps are on the score scale
+(log-odds for classification) and never negative (a row beyond the central range may already
+score better than the bar). Which way is favourable comes from
 the schema's `[target] better`. Protected columns are never model inputs and never reasons.
 """
 
@@ -20,6 +23,7 @@ from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, Te
 from glassbox.errors import OptionError
 
 NOTHING = 1e-12  # a gap this small is no reason
+CENTRAL = (1, 99)  # numeric features: the best is sought between these training percentiles
 
 
 @dataclass(frozen=True)
@@ -41,24 +45,50 @@ class Best:
     level: str | None = None  # levels terms: the (first) best level
 
 
+def central_range(model: AdditiveModel, feature: str) -> tuple[float, float]:
+    """The values the central 98% of training rows take (1st to 99th percentile), or the
+    whole line when the model keeps no profile of the feature."""
+    try:
+        table = model.profile(feature).percentiles
+    except OptionError:
+        return -math.inf, math.inf
+    if len(table) < 100:
+        return -math.inf, math.inf
+    return float(table[CENTRAL[0]]), float(table[CENTRAL[1]])
+
+
 def best_of(model: AdditiveModel, term: Term) -> Best:
-    """The most favourable contribution a term's table gives a seen value or level."""
+    """The most favourable contribution a term's table gives, over the levels seen in
+    training, or over the central 98% of training values for a numeric feature (so that a
+    handful of extreme rows does not set the bar for everyone)."""
     sign = model.schema.target.good_sign
-    values = np.asarray(term.values, dtype=float)
-    favour = sign * values
-    winners = np.flatnonzero(favour >= favour.max() - NOTHING)
-    contribution = float(values[winners[0]])
     if isinstance(term, LevelsTerm):
-        return Best(contribution, level=term.levels[int(winners[0])])
-    if isinstance(term, CurveTerm):  # clamped beyond the ends, so the end knots reach out
-        knots, last = np.asarray(term.knots, dtype=float), len(term.knots) - 1
-        spans = tuple((-math.inf if w == 0 else float(knots[w]),
-                       math.inf if w == last else float(knots[w])) for w in winners)
-        return Best(contribution, spans=spans)
+        values = np.asarray(term.values, dtype=float)
+        top = int(np.argmax(sign * values))
+        return Best(float(values[top]), level=term.levels[top])
+    low, high = central_range(model, term.feature)
+    if isinstance(term, CurveTerm):
+        knots = np.asarray(term.knots, dtype=float)
+        points = knots[(knots >= low) & (knots <= high)]
+        points = np.unique(np.r_[points, [v for v in (low, high) if math.isfinite(v)]])
+        if not len(points):
+            points = knots
+        values = term.evaluate(points)
+        winners = np.flatnonzero(sign * values >= (sign * values).max() - NOTHING)
+        # beyond the outer knots the table is flat, so an end knot reaches out to infinity
+        spans = tuple((-math.inf if p <= knots[0] else float(p),
+                       math.inf if p >= knots[-1] else float(p)) for p in points[winners])
+        return Best(float(values[winners[0]]), spans=spans)
     if isinstance(term, StepTerm):
         edges = np.r_[-math.inf, np.asarray(term.edges, dtype=float), math.inf]
-        return Best(contribution, spans=tuple((float(edges[w]), float(edges[w + 1]))
-                                              for w in winners))
+        reach = (edges[:-1] < high) & (edges[1:] >= low)  # bin (e_i, e_i+1] meets [low, high]
+        if not reach.any():
+            reach[:] = True
+        values = np.asarray(term.values, dtype=float)
+        favour = np.where(reach, sign * values, -np.inf)
+        winners = np.flatnonzero(favour >= favour.max() - NOTHING)
+        return Best(float(values[winners[0]]), spans=tuple(
+            (float(edges[w]), float(edges[w + 1])) for w in winners))
     raise TypeError(f"unknown term type {type(term).__name__}")
 
 

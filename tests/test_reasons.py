@@ -17,7 +17,7 @@ import pytest
 from typer.testing import CliRunner
 
 from glassbox import fit_model, reasons
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
+from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm
 from glassbox.cli import app
 from glassbox.errors import OptionError
 from glassbox.schema import Schema
@@ -163,6 +163,23 @@ def test_better_higher_turns_the_best_around():
     assert found[0].text == "Debt is high"  # the schema's text stands as written
     tenure = next(r for r in found if r.feature == "tenure")
     assert tenure.gap == pytest.approx(1.5) and "lower values score better" in tenure.text
+
+
+def test_a_far_tail_does_not_set_the_bar():
+    # constructed truth: debt's table (knots 0, 1, 2; values -9, 0, 2) drops to -9 at debt 0,
+    # but 99% of training rows have debt of at least 0.5 (percentiles 0.0, then 0.5 to 2.0),
+    # so the bar is the curve at 0.5, half way from -9 to 0: -4.5; a row at debt 1.0
+    # (contribution 0) is 4.5 below it, not 9
+    model = constructed("lower")
+    curve = CurveTerm("debt", knots=(0.0, 1.0, 2.0), values=(-9.0, 0.0, 2.0))
+    percentiles = (0.0, *np.linspace(0.5, 2.0, 100))
+    model = AdditiveModel("logit", -1.0, (curve, *model.terms[1:]), model.schema,
+                          (FeatureProfile("debt", "number", percentiles=percentiles),), {})
+    assert reasons.central_range(model, "debt") == (0.5, percentiles[99])
+    found = reasons.row_reasons(model, model.encode(row_frame(debt=1.0)))[0]
+    assert found[0].feature == "debt" and found[0].gap == pytest.approx(4.5, abs=1e-12)
+    beyond = reasons.row_reasons(model, model.encode(row_frame(debt=0.0)))[0]
+    assert "debt" not in [r.feature for r in beyond]  # better than the bar: no reason
 
 
 def test_protected_columns_never_appear():
