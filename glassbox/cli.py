@@ -437,6 +437,9 @@ def report_command(
     cutoff: Annotated[float | None, typer.Option(
         help="The cut-off: a probability (default 0.5) or, for regression, a predicted "
              "value (required).")] = None,
+    recourse: Annotated[Path | None, typer.Option(
+        metavar="AUDIT.json",
+        help="A `recourse audit --format json` file made with this model file.")] = None,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
     from glassbox import report
@@ -447,7 +450,7 @@ def report_command(
     with progress_note("drawing the report"):
         document = report.build_report(model, frame, model_file=model_file,
                                        comparison_file=comparison, cutoff=cutoff,
-                                       source=str(data))
+                                       source=str(data), recourse_file=recourse)
         paths = report.write_report(document, out)
     _stderr().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 

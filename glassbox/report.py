@@ -147,14 +147,22 @@ def build_report(
     comparison_file: str | Path | None = None,
     cutoff: float | None = None,
     source: str | None = None,
+    recourse_file: str | Path | None = None,
 ) -> Report:
     """The report's content for `model` on the rows of `frame`.
 
     `comparison` is a `compare.Comparison` (or give `comparison_file` to read one); it
     must have been made on the model's training data. `cutoff` is a probability for a
     classification model (default 0.5) and a predicted value for regression (required).
+    `recourse_file` is a `recourse audit --format json` file made with the same model file.
     """
-    from glassbox import compare, reasons
+    from glassbox import compare, reasons, report_recourse
+
+    audit = None
+    if recourse_file is not None:
+        audit = report_recourse.read_audit(recourse_file)
+        report_recourse.check_same_model(audit, model_file,
+                                         f"recourse audit file {Path(recourse_file).name}")
 
     model_name = f"model file {Path(model_file).name}" if model_file else "the model"
     if comparison is None and comparison_file is not None:
@@ -180,6 +188,8 @@ def build_report(
     sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
     group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction)
     sections.append(_groups_section(model, group_tables, cutoff))
+    if audit is not None:
+        sections.append(report_recourse.recourse_section(audit))
     family = model.metadata.get("family", "additive")
     title = f"Audit report: {family} model of {model.schema.target.column}"
     intro = (f"Made by glassbox {__version__} from {model_name} and data file "

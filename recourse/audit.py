@@ -1,0 +1,169 @@
+"""A population audit of recourse: can declined rows reach the goal, at what cost, and does
+that differ between groups?
+
+Works on the planner's outcome rows (one per declined row, see `recourse.batch.outcome_frame`),
+whichever engine produced them. The JSON form is read by `glassbox report --recourse`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.errors import DataError
+from glassbox.groups import FOUR_FIFTHS, group_labels, outcomes_by_group
+
+FORMAT = "recourse-audit"
+VERSION = 1
+QUANTILES = (10, 25, 50, 75, 90)
+CAUTION = ("Plans are what-ifs computed from a statistical model, not advice and not a promise "
+           "of any decision; protected characteristics are never levers, only groupings here. "
+           "Defer to local law, fair-lending rules and licensed compliance review.")
+GROUP_NOTE = ("Share of declined rows with a plan, and its ratio to the best-served group's; a "
+              f"ratio below {FOUR_FIFTHS:g} is flagged (the four-fifths rule of the US Uniform "
+              "Guidelines, 29 CFR 1607.4(D), a customary screen, not a legal finding: local law "
+              "decides).")
+GROUP_COLUMNS = ("group", "declined", "with_plan", "share_with_plan", "median_cost",
+                 "ratio_to_best", "flagged")
+
+
+@dataclass(frozen=True)
+class Audit:
+    """What the planner found across all declined rows, overall and by group."""
+
+    declined: int
+    with_plan: int
+    no_plan: int
+    misfits: int  # rows the rules do not fit (a value outside a declared bound, ...)
+    cost_quantiles: dict[str, float]  # of the cheapest plan's total cost, rows with a plan
+    main_changes: pd.DataFrame  # feature, rows, share (of rows with a plan)
+    binding_rules: pd.DataFrame  # rule, rows, share (of rows without a plan)
+    groups: dict[str, pd.DataFrame] = field(default_factory=dict)  # column -> GROUP_COLUMNS
+    context: dict[str, Any] = field(default_factory=dict)  # goal, files, settings
+
+    @property
+    def share_with_plan(self) -> float:
+        return self.with_plan / self.declined if self.declined else math.nan
+
+
+def _counted(values: pd.Series, name: str, of: int) -> pd.DataFrame:
+    """How often each value occurs (blanks left out), the most frequent first, ties by name."""
+    values = values[values.astype(str) != ""]
+    counts = values.value_counts()
+    order = sorted(counts.index, key=lambda key: (-counts[key], str(key)))
+    return pd.DataFrame({name: [str(k) for k in order],
+                         "rows": [int(counts[k]) for k in order],
+                         "share": [counts[k] / of if of else math.nan for k in order]},
+                        columns=[name, "rows", "share"])
+
+
+def _quantiles(costs: pd.Series) -> dict[str, float]:
+    if costs.empty:
+        return {}
+    return {f"{q}%": float(np.percentile(costs.to_numpy(dtype=float), q)) for q in QUANTILES}
+
+
+def by_group(outcomes: pd.DataFrame, column: str, threshold: float = FOUR_FIFTHS
+             ) -> pd.DataFrame:
+    """Per group of `column`: declined rows, rows with a plan and their share, the median
+    cost of the cheapest plan, and the share's ratio to the best-served group's (flagged
+    below four-fifths, the customary screen of 29 CFR 1607.4(D); local law decides)."""
+    if column not in outcomes:
+        raise DataError(f"--by {column}: no such column among the planned rows (columns: "
+                        f"{', '.join(c for c in outcomes.columns)})")
+    labels = group_labels(outcomes[column]).reset_index(drop=True)
+    planned = (outcomes["status"] == "plans").to_numpy()
+    table = outcomes_by_group(labels, planned, threshold=threshold)
+    costs = pd.Series(outcomes["total_cost"].to_numpy(dtype=float)).where(planned)
+    medians = costs.groupby(labels.map(str)).median()
+    return pd.DataFrame({
+        "group": table["group"], "declined": table["rows"],
+        "with_plan": table["favourable_rows"], "share_with_plan": table["favourable_share"],
+        "median_cost": table["group"].map(medians).to_numpy(dtype=float),
+        "ratio_to_best": table["impact_ratio"], "flagged": table["flagged"],
+    }, columns=list(GROUP_COLUMNS))
+
+
+def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
+          context: Mapping[str, Any] | None = None) -> Audit:
+    """Summarise outcome rows: shares, cost quantiles, main changes, binding rules, groups."""
+    status = outcomes["status"].astype(str)
+    planned = outcomes[status == "plans"]
+    stuck = outcomes[status == "none"]
+    return Audit(
+        declined=len(outcomes), with_plan=len(planned), no_plan=len(stuck),
+        misfits=int((status == "error").sum()),
+        cost_quantiles=_quantiles(planned["total_cost"]),
+        main_changes=_counted(planned["main_change"], "feature", len(planned)),
+        binding_rules=_counted(stuck["binding_rule"], "rule", len(stuck)),
+        groups={column: by_group(outcomes, column) for column in by},
+        context=dict(context or {}),
+    )
+
+
+def summary_table(result: Audit) -> pd.DataFrame:
+    """The headline numbers as (measure, value) rows."""
+    rows = [("declined rows", result.declined), ("with a plan", result.with_plan),
+            ("share with a plan", result.share_with_plan),
+            ("no plan within the rules", result.no_plan),
+            ("rules do not fit the row", result.misfits)]
+    rows += [(f"cheapest plan cost, {name}", value)
+             for name, value in result.cost_quantiles.items()]
+    return pd.DataFrame(rows, columns=["measure", "value"])
+
+
+# ---------------------------------------------------------------- files
+
+def _records(table: pd.DataFrame) -> list[dict[str, Any]]:
+    def plain(value: Any) -> Any:
+        if isinstance(value, float | np.floating):
+            return None if not math.isfinite(value) else float(value)
+        if isinstance(value, np.integer):
+            return int(value)
+        if isinstance(value, np.bool_):
+            return bool(value)
+        return value
+
+    return [{k: plain(v) for k, v in row.items()} for row in table.to_dict(orient="records")]
+
+
+def to_dict(result: Audit) -> dict[str, Any]:
+    """Plain data for the JSON file (`glassbox report --recourse` reads it)."""
+    return {
+        "format": FORMAT, "version": VERSION, "context": result.context,
+        "summary": {"declined": result.declined, "with_plan": result.with_plan,
+                    "share_with_plan": None if not result.declined
+                    else result.share_with_plan,
+                    "no_plan": result.no_plan, "misfits": result.misfits},
+        "cost_quantiles": result.cost_quantiles,
+        "main_changes": _records(result.main_changes),
+        "binding_rules": _records(result.binding_rules),
+        "groups": {column: _records(table) for column, table in result.groups.items()},
+    }
+
+
+def to_json(result: Audit) -> str:
+    return json.dumps(to_dict(result), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def to_markdown(result: Audit) -> str:
+    """The audit as Markdown: headline numbers, main changes, binding rules, groups."""
+    from glassbox.formats import to_markdown as table_markdown
+
+    parts = ["# Recourse across the declined rows", CAUTION,
+             table_markdown(summary_table(result)).strip()]
+    if not result.main_changes.empty:
+        parts += ["## The change that costs most in each cheapest plan",
+                  table_markdown(result.main_changes).strip()]
+    if not result.binding_rules.empty:
+        parts += ["## Rows without a plan: the rule that binds most",
+                  table_markdown(result.binding_rules).strip()]
+    for column, table in result.groups.items():
+        parts += [f"## By {column}", GROUP_NOTE, table_markdown(table).strip()]
+    return "\n\n".join(parts) + "\n"
