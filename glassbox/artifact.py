@@ -9,28 +9,22 @@ a damaged, edited or foreign file. Nothing is ever pickled.
 
 from __future__ import annotations
 
-import hashlib
-import json
 from pathlib import Path
 from typing import Any
 
+from glassbox import documents
 from glassbox.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
 from glassbox.errors import GlassboxError, ModelFileError
-from glassbox.files import write_atomic
 from glassbox.schema import Schema
 
 FORMAT = "glassbox-model"
 VERSION = 1
 
 
-def canonical_json(content: Any) -> str:
-    """The one text a checksum is computed over."""
-    return json.dumps(content, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                      allow_nan=False)
-
-
-def checksum(content: Any) -> str:
-    return "sha256:" + hashlib.sha256(canonical_json(content).encode("ascii")).hexdigest()
+MODEL_FILE = documents.Kind(FORMAT, VERSION, "model", "model file", "a glassbox model file",
+                            "restore the original or refit")
+checksum = documents.checksum
+canonical_json = documents.canonical_json
 
 
 def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
@@ -67,67 +61,19 @@ def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
 
 def dumps(model: AdditiveModel) -> str:
     """The model file's text: indented, keys in a fixed order, ends with a newline."""
-    content = model_to_dict(model)
-    document = {"format": FORMAT, "version": VERSION, "checksum": checksum(content),
-                "model": content}
-    return json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    return documents.dumps(MODEL_FILE, model_to_dict(model))
 
 
 def save(model: AdditiveModel, path: str | Path) -> Path:
     """Write the model file atomically and return its path."""
-    try:
-        text = dumps(model)
-    except ValueError as exc:
-        raise ModelFileError(f"model cannot be written as JSON: {exc}") from None
-    write_atomic(path, text)
-    return Path(path)
+    return documents.save(MODEL_FILE, model_to_dict(model), path)
 
 
 def loads(text: str, source: str = "<text>") -> AdditiveModel:
     """Parse a model file's text, checking format, version and checksum."""
-    if not text.strip():
-        raise ModelFileError(f"model file {source} is empty")
-    try:
-        document = json.loads(text)
-    except json.JSONDecodeError as exc:
-        if not text.rstrip().endswith("}") or exc.pos >= len(text.rstrip()) - 1:
-            raise ModelFileError(f"model file {source} ends too early: it looks truncated "
-                                 "(written only in part?)") from None
-        raise ModelFileError(f"model file {source} is not valid JSON (line {exc.lineno}, "
-                             f"column {exc.colno}: {exc.msg})") from None
-    if not isinstance(document, dict) or document.get("format") != FORMAT:
-        raise ModelFileError(f"{source} is not a glassbox model file (expected "
-                             f"\"format\": \"{FORMAT}\")")
-    version = document.get("version")
-    if not isinstance(version, int) or isinstance(version, bool):
-        raise ModelFileError(f"model file {source} has no valid format version")
-    if version > VERSION:
-        raise ModelFileError(f"model file {source} has format version {version}, newer than "
-                             f"this glassbox reads (up to {VERSION}); upgrade glassbox")
-    if version < 1:
-        raise ModelFileError(f"model file {source} has an unknown format version {version}")
-    content = document.get("model")
-    if not isinstance(content, dict):
-        raise ModelFileError(f"model file {source} holds no model")
-    expected = document.get("checksum")
-    try:
-        actual = checksum(content)
-    except ValueError:
-        actual = None
-    if expected != actual:
-        raise ModelFileError(f"model file {source} was changed after it was written (its "
-                             "checksum does not match its content); restore the original or "
-                             "refit")
-    return model_from_dict(content, source)
+    return model_from_dict(documents.loads(MODEL_FILE, text, source), source)
 
 
 def load(path: str | Path) -> AdditiveModel:
     """Read a model file written by `save`."""
-    path = Path(path)
-    if not path.is_file():
-        raise ModelFileError(f"model file {path} does not exist")
-    try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError:
-        raise ModelFileError(f"{path} is not a text file, so not a glassbox model file") from None
-    return loads(text, str(path))
+    return model_from_dict(documents.load(MODEL_FILE, path), str(path))

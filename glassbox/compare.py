@@ -9,7 +9,6 @@ Machine Learning 52): the variance of a mean over J resampled folds is
 
 from __future__ import annotations
 
-import json
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,6 +24,7 @@ from glassbox import __version__
 from glassbox.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
 from glassbox.errors import DataError, OptionError
 from glassbox.families import FAMILIES
+from glassbox.files import read_json
 from glassbox.fitting import fit_model
 from glassbox.metrics import classification_metrics, regression_metrics
 from glassbox.provenance import frame_fingerprint, library_versions
@@ -505,11 +505,5 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
 
 def read_comparison(path: str | Path) -> Comparison:
     """Read a comparison JSON file written by `glassbox compare --format json`."""
-    path = Path(path)
-    if not path.is_file():
-        raise DataError(f"comparison file {path} does not exist")
-    try:
-        document = json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise DataError(f"comparison file {path} is not valid JSON: {exc}") from None
+    document = read_json(path, "comparison file", DataError)
     return comparison_from_dict(document, f"comparison file {path}")

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import tempfile
 from pathlib import Path
+from typing import Any
 
-from glassbox.errors import OptionError
+from glassbox.errors import GlassboxError, OptionError
 
 
 def write_atomic(path: str | Path, content: str | bytes) -> None:
@@ -33,6 +35,17 @@ def write_atomic(path: str | Path, content: str | bytes) -> None:
         if os.path.exists(temporary):
             os.unlink(temporary)
         raise
+
+
+def read_json(path: str | Path, what: str, error: type[GlassboxError] = OptionError) -> Any:
+    """A JSON file's content; `error` with a one-line message if missing or not JSON."""
+    path = Path(path)
+    if not path.is_file():
+        raise error(f"{what} {path} does not exist")
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise error(f"{what} {path} is not valid JSON: {exc}") from None
 
 
 def _umask() -> int:

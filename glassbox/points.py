@@ -29,7 +29,6 @@ The checksum is SHA-256 over the canonical JSON of "card", as for model files.
 
 from __future__ import annotations
 
-import json
 import math
 import warnings
 from collections.abc import Mapping
@@ -41,10 +40,10 @@ import numpy as np
 import pandas as pd
 from scipy.stats import spearmanr
 
+from glassbox import documents
 from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm
 from glassbox.artifact import checksum, model_to_dict
 from glassbox.errors import GlassboxError, ModelFileError, OptionError, UnseenLevelWarning
-from glassbox.files import write_atomic
 from glassbox.schema import Schema, prepare
 
 FORMAT = "glassbox-points"
@@ -520,65 +519,25 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
         raise ModelFileError(f"{where}: {exc}") from None
 
 
+CARD_FILE = documents.Kind(FORMAT, VERSION, "card", "points card", "a glassbox points card",
+                           "restore the original or make the card again")
+
+
 def dumps(card: PointsCard) -> str:
     """The card file's text: indented, keys in a fixed order, ends with a newline."""
-    content = card_to_dict(card)
-    document = {"format": FORMAT, "version": VERSION, "checksum": checksum(content),
-                "card": content}
-    return json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    return documents.dumps(CARD_FILE, card_to_dict(card))
 
 
 def save(card: PointsCard, path: str | Path) -> Path:
     """Write the card file atomically and return its path."""
-    try:
-        text = dumps(card)
-    except ValueError as exc:
-        raise ModelFileError(f"points card cannot be written as JSON: {exc}") from None
-    write_atomic(path, text)
-    return Path(path)
+    return documents.save(CARD_FILE, card_to_dict(card), path)
 
 
 def loads(text: str, source: str = "<text>") -> PointsCard:
     """Parse a card file's text, checking format, version and checksum."""
-    if not text.strip():
-        raise ModelFileError(f"points card {source} is empty")
-    try:
-        document = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise ModelFileError(f"points card {source} is not valid JSON (line {exc.lineno}, "
-                             f"column {exc.colno}: {exc.msg}); truncated or edited?") from None
-    if not isinstance(document, dict) or document.get("format") != FORMAT:
-        raise ModelFileError(f"{source} is not a glassbox points card (expected "
-                             f"\"format\": \"{FORMAT}\")")
-    version = document.get("version")
-    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
-        raise ModelFileError(f"points card {source} has no valid format version")
-    if version > VERSION:
-        raise ModelFileError(f"points card {source} has format version {version}, newer than "
-                             f"this glassbox reads (up to {VERSION}); upgrade glassbox")
-    content = document.get("card")
-    if not isinstance(content, dict):
-        raise ModelFileError(f"points card {source} holds no card")
-    try:
-        actual = checksum(content)
-    except ValueError:
-        actual = None
-    if document.get("checksum") != actual:
-        raise ModelFileError(f"points card {source} was changed after it was written (its "
-                             "checksum does not match its content); restore the original or "
-                             "make the card again")
-    return card_from_dict(content, source)
+    return card_from_dict(documents.loads(CARD_FILE, text, source), source)
 
 
 def load(path: str | Path) -> PointsCard:
     """Read a card file written by `save`."""
-    path = Path(path)
-    if not path.is_file():
-        raise ModelFileError(f"points card {path} does not exist")
-    try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError:
-        raise ModelFileError(f"{path} is not a text file, so not a glassbox points "
-                             "card") from None
-    return loads(text, str(path))
-
+    return card_from_dict(documents.load(CARD_FILE, path), str(path))

@@ -6,7 +6,6 @@ glassbox does not import the planner: it reads the audit's JSON document (format
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 from typing import Any
@@ -14,6 +13,7 @@ from typing import Any
 import pandas as pd
 
 from glassbox.errors import DataError
+from glassbox.files import read_json
 from glassbox.provenance import file_sha256
 from glassbox.report import Paragraph, Section, Table
 
@@ -24,13 +24,7 @@ TITLE = "Recourse for the declined rows"
 
 def read_audit(path: str | Path) -> dict[str, Any]:
     """Read and check a recourse audit file; a clear one-line error if it is not one."""
-    path = Path(path)
-    if not path.is_file():
-        raise DataError(f"recourse audit file {path} does not exist")
-    try:
-        document = json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise DataError(f"recourse audit file {path} is not valid JSON: {exc}") from None
+    document = read_json(path, "recourse audit file", DataError)
     if not isinstance(document, dict) or document.get("format") != FORMAT:
         raise DataError(f"{path} is not a recourse audit file (write one with "
                         "`recourse audit ... --format json --out FILE`)")

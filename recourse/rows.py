@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
+from glassbox.files import read_json
 from glassbox.rows import row_position
 from glassbox.schema import read_table
 from recourse.errors import PlanningError
@@ -24,12 +24,7 @@ def pick_row(model: AdditiveModel, *, row: Path | None = None, data: Path | None
         raise PlanningError("name one row: --row ROW.json, or --data FILE with --id VALUE "
                             "or --index N")
     if row is not None:
-        if not row.is_file():
-            raise PlanningError(f"row file {row} does not exist")
-        try:
-            values = json.loads(row.read_text(encoding="utf-8"))
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise PlanningError(f"row file {row} is not valid JSON: {exc}") from None
+        values = read_json(row, "row file", PlanningError)
         if not isinstance(values, dict):
             raise PlanningError(f"row file {row} must hold one JSON object of feature values")
         series = pd.Series(values, dtype=object)
