@@ -28,6 +28,23 @@ def _missing_goal(model: AdditiveModel, score: np.ndarray, mutability: Mutabilit
     return np.flatnonzero(score > threshold)
 
 
+def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,
+                   source: str | None = None, numbers: np.ndarray | None = None
+                   ) -> tuple[np.ndarray, pd.DataFrame, pd.DataFrame, list]:
+    """Type `frame` once and keep its declined rows: their positions, typed values,
+    contributions and ids (the id column, else `numbers` (default: positions) plus 1)."""
+    encoded = model.encode(frame, source)
+    parts = model.contributions_encoded(encoded)
+    positions = _missing_goal(model, model.intercept + parts.sum(axis=1).to_numpy(), mutability)
+    id_column = model.schema.id_column
+    if id_column in frame:
+        ids = frame[id_column].to_numpy()[positions].tolist()
+    else:
+        counted = np.arange(len(frame)) if numbers is None else np.asarray(numbers)
+        ids = [int(number) + 1 for number in counted[positions]]
+    return positions, encoded.iloc[positions], parts.iloc[positions], ids
+
+
 def _plan_chunk(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
                 mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
     """Plans for a few typed rows; a row the rules do not fit (say, a value outside a
@@ -54,13 +71,7 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
     """Plan for every declined row of `frame`, in row order."""
     if frame is None:
         raise PlanningError("--declined needs --data FILE")
-    encoded = model.encode(frame, source)  # typed once for the whole batch
-    parts = model.contributions_encoded(encoded)
-    positions = _missing_goal(model, model.intercept + parts.sum(axis=1).to_numpy(), mutability)
-    id_column = model.schema.id_column
-    ids = frame[id_column].to_numpy()[positions].tolist() if id_column in frame else \
-        [int(p) + 1 for p in positions]
-    encoded, parts = encoded.iloc[positions], parts.iloc[positions]
+    positions, encoded, parts, ids = typed_declined(model, frame, mutability, source)
     spans = [slice(start, min(start + chunk, len(positions)))
              for start in range(0, len(positions), chunk)]
     report = _progress_bar(len(positions)) if progress is True else (progress or None)
@@ -84,21 +95,23 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
     return results
 
 
-def _progress_bar(total: int) -> Callable[[int, int], None]:
-    """A rich progress bar on standard error (nothing shows when not a terminal)."""
+def _progress_bar(total: int | None, label: str = "planning declined rows"
+                  ) -> Callable[[int, int | None], None]:
+    """A rich progress bar on standard error (nothing shows when not a terminal);
+    `total` None while the count is not known yet."""
     from rich.console import Console
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TimeElapsedColumn
 
-    bar = Progress("planning declined rows", BarColumn(), MofNCompleteColumn(),
+    bar = Progress(label, BarColumn(), MofNCompleteColumn(),
                    TimeElapsedColumn(), console=Console(stderr=True), transient=True)
     task = bar.add_task("plans", total=total)
     bar.start()
 
-    def update(done: int, _: int) -> None:
+    def update(done: int, count: int | None = None) -> None:
         if done < 0:
             bar.stop()
             return
-        bar.update(task, completed=done)
+        bar.update(task, completed=done, total=count if count is not None else total)
 
     return update
 

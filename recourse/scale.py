@@ -1,0 +1,581 @@
+"""Plans for a whole population, partition by partition, on this machine or a dask cluster.
+
+The unit of work is `plan_partition`: a pure function from a block of raw rows
+(with their 0-based position in the whole file in a column `row`) to one
+outcome row per declined row. Engines only decide where partitions run:
+
+- "local": a process pool on this machine (one process per job; jobs=1 plans in-process);
+- "dask":  `dask.dataframe` partitions on a `dask.distributed` cluster, an existing one
+           (a scheduler address) or one started for the run.
+
+With an output folder every finished partition is written at once as its own
+Parquet file, so a run that loses a worker can be finished with `resume`:
+only the partitions without a file are planned again, and no row is ever
+planned into two files. Results do not depend on the engine, the number of
+jobs or the partition size.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import logging
+import math
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox import artifact
+from glassbox.additive import AdditiveModel
+from glassbox.errors import DataError, GlassboxError, OptionError
+from glassbox.files import output_folder, write_atomic
+from glassbox.provenance import file_sha256
+from recourse.batch import (
+    OUTCOME_COLUMNS,
+    _plan_chunk,
+    _progress_bar,
+    outcome_frame,
+    typed_declined,
+)
+from recourse.errors import PlanningError
+from recourse.mutability import Mutability
+from recourse.program import DEFAULT_SOLVER, SOLVERS
+
+ENGINES = ("local", "dask")
+MANIFEST = "manifest.json"
+MANIFEST_KIND = "recourse plans by partition"
+SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
+CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
+TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message")
+NUMBER_COLUMNS = ("score", "outcome", "total_cost", "largest_cost", "new_outcome",
+                  "best_outcome")
+
+
+@dataclass(frozen=True)
+class ScaleRun:
+    """The outcomes of a population run, sorted by `row`, and which partitions are missing."""
+
+    outcomes: pd.DataFrame
+    partitions: int
+    missing: tuple[int, ...] = ()  # partitions that did not finish: rerun with resume
+    planned: tuple[int, ...] = ()  # partitions planned by this call (the others were on disk)
+
+    @property
+    def complete(self) -> bool:
+        return not self.missing
+
+
+# ---------------------------------------------------------------- one partition
+
+
+def plan_partition(partition: pd.DataFrame, model: AdditiveModel, mutability: Mutability, *,
+                   n_plans: int = 1, solver: str = DEFAULT_SOLVER, keep: Sequence[str] = (),
+                   source: str | None = None) -> pd.DataFrame:
+    """One outcome row per declined row of `partition`: `row`, the outcome columns of
+    `recourse.batch.outcome_frame`, then the `keep` columns copied from the input.
+
+    Pure and deterministic; the same rows give the same frame in any process. `source`
+    names the input file in error messages.
+    """
+    keep = _checked_keep(keep)
+    if "row" not in partition.columns:
+        raise DataError("a partition needs a column 'row': each row's 0-based position in "
+                        "the whole input")
+    absent = [name for name in keep if name not in partition.columns]
+    if absent:
+        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, absent))} "
+                          "not in the data")
+    if len(partition):
+        numbers = partition["row"].to_numpy(dtype=np.int64)
+        where = None if source is None else (
+            f"{source} (block of data rows {numbers.min() + 1}-{numbers.max() + 1}; "
+            "'data row N' below counts within the block)")
+        positions, encoded, parts, ids = typed_declined(model, partition, mutability, where,
+                                                        numbers=numbers)
+        results = _plan_chunk(model, encoded, parts, ids, mutability, n_plans, solver)
+    else:
+        positions, results = np.array([], dtype=np.int64), []
+    return _typed_outcomes(outcome_frame(results, model), partition, positions, model, keep)
+
+
+def _checked_keep(keep: Sequence[str]) -> tuple[str, ...]:
+    keep = tuple(dict.fromkeys(keep))
+    clashing = [name for name in keep if name in ("row", *OUTCOME_COLUMNS)]
+    if clashing:
+        raise OptionError(f"keep column(s) {', '.join(map(repr, clashing))} would clash with "
+                          "an outcome column of the same name")
+    return keep
+
+
+def _typed_outcomes(table: pd.DataFrame, partition: pd.DataFrame, positions: np.ndarray,
+                    model: AdditiveModel, keep: tuple[str, ...]) -> pd.DataFrame:
+    """Fixed column types, so partitions (empty ones too) concatenate and compare exactly."""
+    table = table.reset_index(drop=True)
+    table.insert(0, "row", partition["row"].to_numpy(dtype=np.int64)[positions])
+    id_column = model.schema.id_column
+    id_type = partition[id_column].dtype if id_column in partition else np.dtype("int64")
+    table["id"] = table["id"].astype(id_type)
+    for name in TEXT_COLUMNS:
+        table[name] = table[name].astype(str)
+    for name in NUMBER_COLUMNS:
+        table[name] = table[name].astype("float64")
+    table["plans"] = table["plans"].astype("int64")
+    for name in keep:
+        table[name] = partition[name].iloc[positions].reset_index(drop=True)
+    return table
+
+
+# ---------------------------------------------------------------- the input file
+
+
+@dataclass(frozen=True)
+class _Source:
+    """The input file as the engines read it: which columns, with which fixed types."""
+
+    path: Path
+    parquet: bool
+    columns: tuple[str, ...]
+    fixed_types: dict[str, str] = field(default_factory=dict)  # CSV only: id and keep columns
+    bytes_per_row: float = 100.0
+    template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
+
+    def csv_options(self) -> dict[str, Any]:
+        return {"usecols": list(self.columns), "dtype": dict(self.fixed_types),
+                "skipinitialspace": True}
+
+
+def _read_error(path: Path, exc: BaseException) -> DataError:
+    first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    return DataError(f"data file {path} could not be read: {first}")
+
+
+def _inspect(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> _Source:
+    """Check the header against the model and `keep` before any planning."""
+    if not path.is_file():
+        raise DataError(f"data file {path} does not exist")
+    parquet = path.suffix.lower() in (".parquet", ".pq")
+    try:
+        if parquet:
+            import pyarrow.parquet as pq
+
+            handle = pq.ParquetFile(path)
+            header = list(handle.schema_arrow.names)
+            rows = handle.metadata.num_rows
+            sample = handle.schema_arrow.empty_table().to_pandas()
+        else:
+            sample = pd.read_csv(path, nrows=SAMPLE_ROWS, skipinitialspace=True)
+            header, rows = [str(c) for c in sample.columns], len(sample)
+    except pd.errors.EmptyDataError:
+        raise DataError(f"data file {path} is empty") from None
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        raise _read_error(path, exc) from None
+    if rows == 0:
+        raise DataError(f"data file {path} has a header but no data rows")
+    shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
+    missing = [name for name in model.features if name not in header]
+    if missing:
+        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
+                        f"model needs ({shown})")
+    unknown = [name for name in keep if name not in header]
+    if unknown:
+        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, unknown))} not in {path} "
+                          f"({shown})")
+    wanted = {*model.features, *keep, model.schema.id_column}
+    if "row" in wanted and "row" in header:
+        raise DataError(f"{path}: a column named 'row' clashes with the row numbers added "
+                        "to every partition; rename it")
+    columns = tuple(name for name in header if name in wanted)
+    fixed = {} if parquet else {name: _fixed_type(sample[name]) for name in columns
+                                if name not in model.features}
+    template = sample[list(columns)].iloc[:0].astype(fixed) if fixed else \
+        sample[list(columns)].iloc[:0]
+    per_row = 100.0
+    if not parquet:
+        with open(path, "rb") as handle:
+            text = b"".join(handle.readline() for _ in range(len(sample) + 1))
+        per_row = max(len(text) / (len(sample) + 1), 1.0)
+    return _Source(path, parquet, columns, fixed, per_row,
+                   template.assign(row=np.array([], dtype=np.int64)))
+
+
+def _fixed_type(column: pd.Series) -> str:
+    """One type for an id or kept column in every block (types guessed per block differ
+    when a block happens to hold only whole numbers, or a gap)."""
+    if pd.api.types.is_bool_dtype(column):
+        return "boolean"
+    if pd.api.types.is_integer_dtype(column):
+        return "Int64"
+    if pd.api.types.is_float_dtype(column):
+        return "float64"
+    return "str"
+
+
+def _local_partitions(source: _Source, partition_rows: int) -> Iterator[pd.DataFrame]:
+    """The file in blocks of `partition_rows` rows (Parquet: at most that many), each with
+    its global `row` numbers; never the whole file in memory."""
+    offset = 0
+    try:
+        if source.parquet:
+            import pyarrow as pa
+            import pyarrow.parquet as pq
+
+            batches = pq.ParquetFile(source.path).iter_batches(
+                batch_size=partition_rows, columns=list(source.columns))
+            blocks: Iterator[pd.DataFrame] = (
+                pa.Table.from_batches([batch]).to_pandas() for batch in batches)
+        else:
+            blocks = pd.read_csv(source.path, chunksize=partition_rows,
+                                 **source.csv_options())
+        for block in blocks:
+            block = block.reset_index(drop=True)
+            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
+            offset += len(block)
+            yield block
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        raise _read_error(source.path, exc) from None
+
+
+# ---------------------------------------------------------------- the output folder
+
+
+@dataclass
+class _Results:
+    """Finished partitions: kept in memory, or written to the folder as each finishes."""
+
+    out: Path | None
+    done: set[int]
+    tables: dict[int, pd.DataFrame] = field(default_factory=dict)
+    planned: list[int] = field(default_factory=list)
+
+    def record(self, index: int, table: pd.DataFrame) -> None:
+        if self.out is not None:
+            buffer = io.BytesIO()
+            table.to_parquet(buffer, index=False)
+            write_atomic(_part_path(self.out, index), buffer.getvalue())
+        else:
+            self.tables[index] = table
+        self.done.add(index)
+        self.planned.append(index)
+
+    def outcomes(self, count: int, template: pd.DataFrame) -> pd.DataFrame:
+        if self.out is not None:
+            tables = [pd.read_parquet(_part_path(self.out, i)) for i in range(count)
+                      if i in self.done]
+        else:
+            tables = [self.tables[i] for i in sorted(self.tables)]
+        tables = [table for table in tables if len(table)] or [template]
+        frame = pd.concat(tables, ignore_index=True)
+        return frame.sort_values("row", kind="stable").reset_index(drop=True)
+
+
+def _part_path(out: Path, index: int) -> Path:
+    return out / f"part-{index:05d}.parquet"
+
+
+def _open_folder(out: Path, resume: bool, settings: dict[str, Any]) -> set[int]:
+    """Create or reopen the output folder; the partitions already on disk."""
+    folder = output_folder(out, "planned partitions")
+    manifest = folder / MANIFEST
+    parts = sorted(folder.glob("part-*.parquet"))
+    if not manifest.is_file():
+        if parts:
+            raise OptionError(f"{folder} holds part files but no {MANIFEST}; use an empty "
+                              "folder")
+        write_atomic(manifest, json.dumps(settings, indent=1) + "\n")
+        return set()
+    if not resume:
+        raise OptionError(f"{folder} already holds a run; resume it or choose an empty folder")
+    try:
+        earlier = json.loads(manifest.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise OptionError(f"{manifest} is not a readable manifest ({exc})") from None
+    if not isinstance(earlier, dict) or earlier.get("kind") != MANIFEST_KIND:
+        raise OptionError(f"{manifest} is not a manifest of planned partitions")
+    labels = {"input_sha256": "another input file", "model_checksum": "another model",
+              "partition_rows": "another partition size", "engine": "another engine",
+              "plans": "another number of plans", "solver": "another solver",
+              "keep": "other kept columns"}
+    for key, label in labels.items():
+        if earlier.get(key) != settings[key]:
+            raise OptionError(f"cannot resume in {folder}: it was planned with {label} "
+                              f"({key} {earlier.get(key)!r}, now {settings[key]!r})")
+    return {int(path.stem.split("-")[1]) for path in parts}
+
+
+# ---------------------------------------------------------------- the whole population
+
+
+def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
+                  engine: str = "local", jobs: int = 1, scheduler: str | None = None,
+                  out: Path | None = None, resume: bool = False, keep: Sequence[str] = (),
+                  n_plans: int = 1, solver: str = DEFAULT_SOLVER, partition_rows: int = 2000,
+                  progress: Callable[[int, int | None], None] | bool | None = None
+                  ) -> ScaleRun:
+    """Plan for every declined row of the file `data` (CSV or Parquet), partition by
+    partition, on `engine`; with `out`, each finished partition is saved as it finishes.
+
+    `progress` is True (a bar on standard error) or a callable(done, total) counting the
+    partitions planned by this call (total None while unknown).
+    """
+    if engine not in ENGINES:
+        raise OptionError(f"unknown engine {engine!r}; known engines: {', '.join(ENGINES)}")
+    for name, value in (("jobs", jobs), ("partition rows", partition_rows)):
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise OptionError(f"{name} must be a whole number of at least 1, not {value!r}")
+    if isinstance(n_plans, bool) or not isinstance(n_plans, int) or n_plans < 1:
+        raise PlanningError(f"--plans must be at least 1, not {n_plans!r}")
+    if solver not in SOLVERS:
+        raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")
+    if scheduler is not None and engine != "dask":
+        raise OptionError("a scheduler address needs the dask engine")
+    keep = _checked_keep(keep)
+    data = Path(data)
+    source = _inspect(data, model, keep)
+    done: set[int] = set()
+    if out is not None:
+        settings = {"kind": MANIFEST_KIND, "version": 1, "input": str(data),
+                    "input_sha256": file_sha256(data),
+                    "model_checksum": artifact.checksum(artifact.model_to_dict(model)),
+                    "partition_rows": partition_rows, "engine": engine, "plans": n_plans,
+                    "solver": solver, "keep": list(keep)}
+        done = _open_folder(Path(out), resume, settings)
+    results = _Results(None if out is None else Path(out), done)
+    task = _Task(model, mutability, n_plans, solver, keep, str(data))
+    report = _progress_bar(None, "planning partitions") if progress is True else \
+        (progress or None)
+    try:
+        run = _run_local if engine == "local" else _run_dask
+        count, missing = run(source, task, results, report, jobs=jobs, scheduler=scheduler,
+                             partition_rows=partition_rows)
+    finally:
+        if progress is True and report is not None:
+            report(-1, None)
+    return ScaleRun(results.outcomes(count, _typed_template(source, task)), count,
+                    tuple(sorted(missing)), tuple(sorted(results.planned)))
+
+
+@dataclass(frozen=True)
+class _Task:
+    """Everything a partition needs besides its rows."""
+
+    model: AdditiveModel
+    mutability: Mutability
+    n_plans: int
+    solver: str
+    keep: tuple[str, ...]
+    source: str
+
+    def __call__(self, partition: pd.DataFrame) -> pd.DataFrame:
+        return plan_partition(partition, self.model, self.mutability, n_plans=self.n_plans,
+                              solver=self.solver, keep=self.keep, source=self.source)
+
+
+def _typed_template(source: _Source, task: _Task) -> pd.DataFrame:
+    """The outcome frame of no rows, with the types every partition's frame has."""
+    return task(source.template)
+
+
+# ---------------------------------------------------------------- local engine
+
+_WORKER: dict[str, _Task] = {}  # set once per pool process by `_start_worker`
+
+
+def _start_worker(model_text: str, mutability: Mutability, n_plans: int, solver: str,
+                  keep: tuple[str, ...], source: str) -> None:
+    """Pool initializer: the model arrives once per process, as its JSON text."""
+    model = artifact.loads(model_text, "<model sent to a planning process>")
+    _WORKER["task"] = _Task(model, mutability, n_plans, solver, keep, source)
+
+
+def _plan_in_worker(partition: pd.DataFrame) -> pd.DataFrame:
+    return _WORKER["task"](partition)
+
+
+def _run_local(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
+    blocks = enumerate(_local_partitions(source, partition_rows))
+    count, finished = 0, 0
+    if jobs == 1:
+        for index, block in blocks:
+            count = index + 1
+            if index in results.done:
+                continue
+            results.record(index, task(block))
+            finished += 1
+            if report:
+                report(finished, None)
+        return count, set()
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
+    missing: set[int] = set()
+    pending: dict[Future, int] = {}
+    broken = False
+    pool = ProcessPoolExecutor(
+        max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
+        initializer=_start_worker,
+        initargs=(artifact.dumps(task.model), task.mutability, task.n_plans, task.solver,
+                  task.keep, task.source))
+    try:
+        exhausted = False
+        while pending or not exhausted:
+            while not exhausted and not broken and len(pending) < 2 * jobs:
+                step = next(blocks, None)
+                if step is None:
+                    exhausted = True
+                    break
+                index, block = step
+                count = index + 1
+                if index in results.done:
+                    continue
+                try:
+                    pending[pool.submit(_plan_in_worker, block)] = index
+                except BrokenProcessPool:
+                    broken = True
+                    missing.add(index)
+            if broken and not exhausted:  # count the partitions that will not be planned
+                for index, _ in blocks:
+                    count = index + 1
+                    if index not in results.done:
+                        missing.add(index)
+                exhausted = True
+            if not pending:
+                continue
+            ready, _ = wait(pending, return_when=FIRST_COMPLETED)
+            for future in sorted(ready, key=pending.__getitem__):
+                index = pending.pop(future)
+                try:
+                    table = future.result()
+                except (BrokenProcessPool, CancelledError):
+                    broken = True  # a planning process died: its partitions stay missing
+                    missing.add(index)
+                    continue
+                results.record(index, table)
+                finished += 1
+                if report:
+                    report(finished, None)
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+    return count, missing
+
+
+# ---------------------------------------------------------------- dask engine
+
+
+def _number_rows(block: pd.DataFrame, offsets: Sequence[int],
+                 partition_info: dict | None = None) -> pd.DataFrame:
+    """Global row numbers: the partition's offset (from all partition lengths) plus position."""
+    start = offsets[partition_info["number"]] if partition_info else 0
+    block = block.reset_index(drop=True)
+    block["row"] = np.arange(start, start + len(block), dtype=np.int64)
+    return block
+
+
+def _connect(scheduler: str | None, jobs: int):
+    """A client of the given scheduler, or of a cluster on this machine started for the run."""
+    from distributed import Client, LocalCluster
+
+    if scheduler is None:  # its small web server listens on a free local port
+        cluster = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                               silence_logs=logging.CRITICAL)
+        return Client(cluster), cluster
+    try:
+        return Client(scheduler, timeout=CONNECT_SECONDS), None
+    except (OSError, TimeoutError, ValueError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise OptionError(f"cannot reach the dask scheduler at {scheduler} within "
+                          f"{CONNECT_SECONDS} s ({first})") from None
+
+
+def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+              scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
+    import dask
+    import dask.dataframe as dd
+    from distributed import as_completed
+
+    # plain pandas text columns, as the local engine reads them
+    with dask.config.set({"dataframe.convert-string": False,
+                          "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
+        client, cluster = _connect(scheduler, jobs)
+        try:
+            if source.parquet:
+                frame = dd.read_parquet(source.path, columns=list(source.columns),
+                                        split_row_groups=True)
+            else:
+                blocksize = max(int(math.ceil(source.bytes_per_row * partition_rows)), 1024)
+                frame = dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
+                                    **source.csv_options())
+            try:
+                lengths = client.compute(frame.map_partitions(len)).result()
+            except GlassboxError:
+                raise
+            except (ValueError, TypeError, OSError) as exc:
+                raise _dask_read_error(source.path, exc) from None
+            ends = np.cumsum(np.asarray(lengths, dtype=np.int64))
+            offsets = [0, *ends[:-1].tolist()]
+            numbered = frame.map_partitions(_number_rows, offsets,
+                                            meta=source.template.iloc[:0])
+            meta = _typed_template(source, task)
+            planned = numbered.map_partitions(
+                plan_partition, task.model, task.mutability, n_plans=task.n_plans,
+                solver=task.solver, keep=task.keep, source=task.source, meta=meta,
+                enforce_metadata=False)
+            pieces = planned.to_delayed()
+            todo = [i for i in range(len(pieces)) if i not in results.done]
+            futures = client.compute([pieces[i] for i in todo])
+            index_of = {future.key: i for future, i in zip(futures, todo, strict=True)}
+            missing: set[int] = set()
+            finished = 0
+            if report:
+                report(0, len(todo))
+            for future in as_completed(futures):
+                index = index_of[future.key]
+                try:
+                    table = future.result()
+                except GlassboxError:
+                    client.cancel(futures)
+                    raise
+                except Exception as exc:  # a lost worker or connection, or a bug
+                    if not _lost(exc):
+                        client.cancel(futures)
+                        raise
+                    missing.add(index)
+                    continue
+                results.record(index, table)
+                future.release()  # the worker may drop its copy now
+                finished += 1
+                if report:
+                    report(finished, len(todo))
+            return len(pieces), missing
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+
+def _dask_read_error(path: Path, exc: BaseException) -> DataError:
+    """dask guesses column types from the file's start; name the columns that break it."""
+    text = str(exc)
+    if "Mismatched dtypes" not in text:
+        return _read_error(path, exc)
+    names = [line.split("|")[1].strip() for line in text.splitlines()
+             if line.startswith("|") and "Column" not in line]
+    return DataError(f"{path}: column(s) {', '.join(map(repr, names))} change type further "
+                     "into the file (text where the first rows hold numbers, say); clean "
+                     "them, or plan with the local engine for an error naming the rows")
+
+
+def _lost(exc: BaseException) -> bool:
+    """Whether a task failed because its worker or the scheduler went away (rerunnable)."""
+    from distributed.comm.core import CommClosedError
+    from distributed.scheduler import KilledWorker
+
+    return isinstance(exc, KilledWorker | CommClosedError | CancelledError | OSError |
+                      TimeoutError)
