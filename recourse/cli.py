@@ -8,6 +8,7 @@ from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
+import pandas as pd
 import typer
 from rich.console import Console, Group, RenderableType
 from rich.text import Text
@@ -16,13 +17,17 @@ from glassbox import artifact
 from glassbox.cli import friendly
 from glassbox.files import write_atomic
 from glassbox.formats import to_csv
+from glassbox.provenance import file_sha256
 from glassbox.render import frame_table
 from glassbox.schema import read_table
+from recourse import audit
 from recourse.batch import plan_many, plans_frame, summary_frame
+from recourse.errors import PlanningError
 from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
+from recourse.scale import ENGINES, plan_at_scale
 
 app = typer.Typer(
     help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
@@ -101,6 +106,108 @@ def plan_command(
         sys.stdout.write(json.dumps(plan_records(result), indent=1, ensure_ascii=False) + "\n")
         return
     _stdout().print(result_view(model, result))
+
+
+class AuditFormat(StrEnum):
+    table = "table"
+    json = "json"
+    markdown = "markdown"
+
+
+Engine = StrEnum("Engine", {name: name for name in ENGINES})
+
+
+@app.command("audit")
+@friendly
+def audit_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    mutability: Annotated[Path, typer.Option(help="Mutability file (TOML).")],
+    data: Annotated[Path, typer.Option(help="CSV or Parquet file of rows.")],
+    by: Annotated[list[str] | None, typer.Option(
+        help="Group the audit by this column (repeatable): a protected column, a region...")
+    ] = None,
+    jobs: Annotated[int, typer.Option(help="Workers (processes) planning at once.",
+                                      min=1)] = 1,
+    engine: Annotated[Engine, typer.Option(
+        help="local: a process pool here; dask: a dask.distributed cluster.")] = Engine.local,
+    scheduler: Annotated[str | None, typer.Option(
+        help="dask: the address of an existing scheduler (else one starts for the run).")
+    ] = None,
+    plans_out: Annotated[Path | None, typer.Option(
+        metavar="DIR", help="Keep every row's outcome as Parquet parts here (for --resume).")
+    ] = None,
+    resume: Annotated[bool, typer.Option(
+        help="With --plans-out: plan only the partitions not yet written.")] = False,
+    partition_rows: Annotated[int, typer.Option(help="Rows per partition.", min=1)] = 2000,
+    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = SOLVER_CHOICE,
+    format: Annotated[AuditFormat, typer.Option(
+        "--format", help="table (terminal), json or markdown.")] = AuditFormat.table,
+    out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,
+) -> None:
+    """Across every declined row: who can reach the goal, at what cost, and by group."""
+    if resume and plans_out is None:
+        raise PlanningError("--resume needs --plans-out DIR (where the finished parts are)")
+    if format is AuditFormat.table and out is not None:
+        raise PlanningError("--out needs --format json or markdown")
+    model = artifact.load(model_file)
+    rules = load_mutability(mutability, model)
+    groups = list(by or [])
+    run = plan_at_scale(model, rules, data, engine=engine.value, jobs=jobs,
+                        scheduler=scheduler, out=plans_out, resume=resume, keep=groups,
+                        n_plans=1, solver=solver.value, partition_rows=partition_rows,
+                        progress=True)
+    if run.missing:
+        raise PlanningError(f"{len(run.missing)} of {run.partitions} partition(s) did not "
+                            f"finish (numbers {', '.join(map(str, run.missing[:10]))}); rerun "
+                            "with --resume to plan only those")
+    goal = rules.goal
+    what = (f"a probability of {model.schema.target.column} = {model.schema.target.positive}"
+            if model.link == "logit" else f"a predicted {model.schema.target.column}")
+    context = {"model_file": str(model_file), "model_file_sha256": file_sha256(model_file),
+               "data_file": str(data), "data_file_sha256": file_sha256(data),
+               "mutability_file": str(mutability),
+               "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
+               "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
+    result = audit.audit(run.outcomes, by=groups, context=context)
+    if format is AuditFormat.table:
+        _stdout().print(audit_view(result))
+        return
+    text = audit.to_json(result) if format is AuditFormat.json else audit.to_markdown(result)
+    if out is None:
+        sys.stdout.write(text)
+        return
+    write_atomic(out, text)
+    _stderr().print(f"wrote the audit of {result.declined:,} declined rows to {out}")
+
+
+def audit_view(result: audit.Audit) -> RenderableType:
+    """The audit's tables for the terminal, then the caution."""
+    parts: list[RenderableType] = [
+        Text(f"Recourse for the declined rows ({result.context.get('goal', 'the goal')})",
+             style="bold"),
+        frame_table(audit.summary_table(result))]
+    if not result.main_changes.empty:
+        parts.append(frame_table(result.main_changes,
+                                 title="The change that costs most in each cheapest plan"))
+    if not result.binding_rules.empty:
+        parts.append(frame_table(result.binding_rules,
+                                 title="Rows without a plan: the rule that binds most"))
+    for column, table in result.groups.items():
+        flagged = table.loc[table["flagged"], "group"].astype(str).tolist()
+        title = (f"By {column}: " + (f"below 0.8 of the best-served group: {', '.join(flagged)}"
+                                     if flagged else "no group below 0.8"))
+        shown = pd.DataFrame({
+            "group": table["group"], "declined": table["declined"],
+            "with a plan": table["with_plan"],
+            "share": [f"{100 * v:.1f}%" for v in table["share_with_plan"]],
+            "median cost": [f"{v:.3g}" if v == v else "" for v in table["median_cost"]],
+            "ratio to best": [f"{v:.3f}" if v == v else "" for v in table["ratio_to_best"]],
+            "below 0.8": ["yes" if f else "no" for f in table["flagged"]]})
+        parts.append(frame_table(shown, title=title))
+    if result.groups:
+        parts.append(Text(audit.GROUP_NOTE))
+    parts.append(Text(CAUTION, style="italic"))
+    return Group(*parts)
 
 
 def _number(value: float | str, kind: str) -> str:

@@ -139,3 +139,54 @@ def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_pa
     with pytest.raises(DataError, match="not a recourse audit file"):
         report.build_report(model, rows, model_file=model_file,
                             recourse_file=tmp_path / "plain.json")
+
+
+# ---------------------------------------------------------------- the command
+
+def test_audit_command_writes_json_that_the_report_reads(tmp_path):
+    import time
+
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app as glassbox_app
+    from recourse.cli import app
+
+    runner = CliRunner()
+    model_file = tmp_path / "loans.json"
+    fitted = runner.invoke(glassbox_app, ["fit", str(DEMO / "loans.csv"), "--schema",
+                                          str(DEMO / "loans.schema.toml"), "--out",
+                                          str(model_file)])
+    assert fitted.exit_code == 0, fitted.output
+    rows = tmp_path / "rows.csv"
+    pd.read_csv(DEMO / "loans.csv").head(800).to_csv(rows, index=False)
+    common = [str(model_file), "--mutability", str(DEMO / "loans.mutability.toml"),
+              "--data", str(rows)]
+    out = tmp_path / "audit.json"
+    result = runner.invoke(app, ["audit", *common, "--by", "owner_age_band", "--by",
+                                 "sector", "--format", "json", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    document = json.loads(out.read_text(encoding="utf-8"))
+    assert set(document["groups"]) == {"owner_age_band", "sector"}
+    assert document["context"]["goal"] == "a probability of defaulted = yes at most 0.3"
+    shown = runner.invoke(app, ["audit", *common, "--by", "sector"])
+    assert shown.exit_code == 0 and "By sector" in shown.stdout and "not advice" in shown.stdout
+    report = runner.invoke(glassbox_app, ["report", str(model_file), "--data", str(rows),
+                                          "--cutoff", "0.3", "--recourse", str(out), "--out",
+                                          str(tmp_path / "report")])
+    assert report.exit_code == 0, report.output
+    page = (tmp_path / "report" / "report.html").read_text(encoding="utf-8")
+    assert "Recourse for the declined rows" in page
+    # bad input: each one line and exit status 2
+    missing = runner.invoke(app, ["audit", *common, "--by", "region"])
+    assert missing.exit_code == 2 and "'region'" in missing.output
+    assert len(missing.output.strip().splitlines()) == 1
+    start = time.perf_counter()
+    unreachable = runner.invoke(app, ["audit", *common, "--engine", "dask", "--scheduler",
+                                      "tcp://127.0.0.1:1"])
+    assert unreachable.exit_code == 2 and time.perf_counter() - start < 30
+    assert "127.0.0.1:1" in unreachable.output
+    other = tmp_path / "other.csv"
+    pd.read_csv(DEMO / "listings.csv").head(50).to_csv(other, index=False)
+    wrong = runner.invoke(app, ["audit", str(model_file), "--mutability",
+                                str(DEMO / "loans.mutability.toml"), "--data", str(other)])
+    assert wrong.exit_code == 2 and "annual_revenue" in wrong.output
