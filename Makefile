@@ -55,9 +55,12 @@ demo: $(STAMP)
 	$(GB) points $(OUT)/loans.spline.json --format json --out $(OUT)/loans.card.json
 	$(GB) score --points $(OUT)/loans.card.json demo_data/loans.csv --out $(OUT)/loans.points.csv
 	@head -3 $(OUT)/loans.points.csv | cut -c1-110
-	@echo "== 14. the audit report: one self-contained HTML file, and the same in Markdown"
-	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --cutoff 0.3 --out $(OUT)/report
-	@echo "== done: models, tables, pictures, plans, the scorecard and the report are in $(OUT)/"
+	@echo "== 14. recourse across all applications: who can reach the goal, at what cost, by group"
+	$(BIN)/recourse audit $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2
+	$(BIN)/recourse audit $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2 --format json --out $(OUT)/loans.audit.json
+	@echo "== 15. the audit report: one self-contained HTML file, and the same in Markdown"
+	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --recourse $(OUT)/loans.audit.json --cutoff 0.3 --out $(OUT)/report
+	@echo "== done: models, tables, pictures, plans, the audit, the scorecard and the report are in $(OUT)/"
 
 test: $(STAMP) browser
 	$(BIN)/ruff check .
