@@ -380,7 +380,7 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
         f"{jobs_time[1] / jobs_time[2]:.2f}× jobs 1 |",
         "",
         f"Three distinct plans per row (the default) take {three * 1e3:.0f} ms per row on one "
-        "job (first 200 rows): plans 2 and 3 forbid the earlier plans' sets of changes.",
+        "job (first 200 rows): a later plan may not hold every change of an earlier one.",
     ]
 
 
