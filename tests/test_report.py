@@ -25,7 +25,7 @@ from glassbox.errors import DataError
 from glassbox.fitting import fit_model
 from glassbox.schema import read_table
 
-from .conftest import DEMO
+from .conftest import DEMO, one_line_error
 
 runner = CliRunner()
 PNG = b"\x89PNG\r\n\x1a\n"
@@ -36,14 +36,6 @@ SECTIONS = ["Read this first", "Model summary", "Accuracy against a black box",
 
 def run(*args):
     return runner.invoke(app, [str(a) for a in args])
-
-
-def one_line_error(result, *fragments: str) -> None:
-    assert result.exit_code == 2, result.output
-    lines = [line for line in result.output.splitlines() if line.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
-    for fragment in fragments:
-        assert fragment in lines[0], lines[0]
 
 
 class PageReader(HTMLParser):
