@@ -189,6 +189,7 @@ def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
     if fidelity is not None:
         parts.append(key_values(fidelity, title="Card against the exact score"))
     for feature, group in rows.groupby("feature", sort=False):
-        parts.append(frame_table(group, title=str(feature),
-                                 columns=["row", "points", "contribution"]))
+        shown = group.rename(columns={"row": "value or range"})
+        parts.append(frame_table(shown, title=str(feature),
+                                 columns=["value or range", "points", "contribution"]))
     return Group(*parts)
