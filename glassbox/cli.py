@@ -73,11 +73,11 @@ class TableFormat(StrEnum):
     json = "json"
 
 
-def _stdout() -> Console:
+def stdout_console() -> Console:
     return Console(highlight=False)
 
 
-def _stderr() -> Console:
+def stderr_console() -> Console:
     return Console(stderr=True, highlight=False)
 
 
@@ -91,7 +91,7 @@ def friendly(command: Callable[..., Any]) -> Callable[..., Any]:
                 result = command(*args, **kwargs)
             except GlassboxError as exc:
                 _show_warnings(caught)
-                _stderr().print(error_text(str(exc)), soft_wrap=True)
+                stderr_console().print(error_text(str(exc)), soft_wrap=True)
                 raise typer.Exit(EXIT_USER_ERROR) from None
         _show_warnings(caught)
         return result
@@ -104,7 +104,7 @@ def _show_warnings(caught: list[warnings.WarningMessage]) -> None:
         if not issubclass(item.category, UserWarning) or str(item.message) in seen:
             continue
         seen.add(str(item.message))
-        _stderr().print(warning_text(str(item.message)), soft_wrap=True)
+        stderr_console().print(warning_text(str(item.message)), soft_wrap=True)
 
 
 def _emit(text: str, out: Path | None, what: str) -> None:
@@ -113,7 +113,7 @@ def _emit(text: str, out: Path | None, what: str) -> None:
         sys.stdout.write(text)
         return
     write_atomic(out, text)
-    _stderr().print(f"wrote {what} to {out}")
+    stderr_console().print(f"wrote {what} to {out}")
 
 
 def _version(value: bool) -> None:
@@ -171,7 +171,7 @@ def fit_command(
     with progress_note(f"fitting the {family.value} family on {len(frame):,} rows"):
         model = fit_model(frame, spec, family.value, source=str(data), **options)
     artifact.save(model, out)
-    _stderr().print(fit_view(model, training_fit(model, frame, str(data)), str(out)))
+    stderr_console().print(fit_view(model, training_fit(model, frame, str(data)), str(out)))
 
 
 @app.command("score")
@@ -247,7 +247,7 @@ def points_command(
     if format is TableFormat.table:
         if out is not None:
             raise OptionError("--out needs a file format: add --format json, csv or markdown")
-        _stdout().print(points_view(points.card_summary(card), points.card_table(card),
+        stdout_console().print(points_view(points.card_summary(card), points.card_table(card),
                                     fidelity))
         return
     if format is TableFormat.json:
@@ -256,7 +256,7 @@ def points_command(
         text = formats.write(points.card_table(card), format.value)
     _emit(text, out, "points card" if format is TableFormat.json else "points card rows")
     if fidelity is not None:
-        _stderr().print(key_values(fidelity, title="Card against the exact score"))
+        stderr_console().print(key_values(fidelity, title="Card against the exact score"))
 
 
 @app.command("shapes")
@@ -280,7 +280,7 @@ def shapes_command(
     if plot is not None:
         with progress_note("drawing the shape functions"):
             paths = plots.write_plots(model, plot, names)
-        _stderr().print(f"wrote {len(paths)} picture(s) to {plot}/")
+        stderr_console().print(f"wrote {len(paths)} picture(s) to {plot}/")
     if format is TableFormat.table:
         if out is not None:
             raise OptionError("--out needs a file format: add --format csv, markdown or json")
@@ -288,11 +288,11 @@ def shapes_command(
             return  # the pictures were asked for; name features to see tables too
         tables = {name: shapes.term_table(model, name) for name in names}
         scale = "log-odds" if model.link == "logit" else "prediction"
-        _stdout().print(shapes_view(shapes.summary(model), tables, scale))
+        stdout_console().print(shapes_view(shapes.summary(model), tables, scale))
         return
     if out is not None and (out.is_dir() or not out.suffix):
         paths = shapes.write_folder(model, out, format.value, names)
-        _stderr().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
+        stderr_console().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
         return
     _emit(formats.write(shapes.all_tables(model, names), format.value), out, "shape tables")
 
@@ -338,7 +338,7 @@ def compare_command(
     with fold_progress() as progress:
         result = compare(frame, spec, settings, source=str(data), progress=progress)
     if format is CompareFormat.table:
-        _stdout().print(comparison_view(result.headline, accuracy_table(result),
+        stdout_console().print(comparison_view(result.headline, accuracy_table(result),
                                         cost_table(result), sparsity_table(result),
                                         folds, repeats))
         if out is None:
@@ -387,16 +387,16 @@ def reasons_command(
         table = reasons.reasons_table(model, frame, top, str(data))
         summary = reasons.principal_reasons(model, frame, cutoff, str(data))
         if format is ReasonsFormat.table:
-            _stdout().print(frame_table(summary, title="Principal reasons among rows on the "
+            stdout_console().print(frame_table(summary, title="Principal reasons among rows on the "
                                                        "unfavourable side of the cut-off"))
-            _stderr().print("per-row reasons: add --format csv or json (and --out FILE)")
+            stderr_console().print("per-row reasons: add --format csv or json (and --out FILE)")
             return
         text = formats.to_csv(table) if format is ReasonsFormat.csv else json.dumps(
             {"rows": json.loads(formats.to_json(table)),
              "principal_reasons": json.loads(formats.to_json(summary))},
             indent=1, ensure_ascii=False) + "\n"
         _emit(text, out, f"reasons for {len(table)} rows")
-        _stderr().print(frame_table(summary, title="Principal reasons among rows on the "
+        stderr_console().print(frame_table(summary, title="Principal reasons among rows on the "
                                                    "unfavourable side of the cut-off"))
         return
     position = row_position(frame, model.schema, id_value=id_value, index=index,
@@ -408,7 +408,7 @@ def reasons_command(
         row = {k: v for k, v in table.iloc[0].items() if not str(k).startswith(
             ("reason_", "feature_", "gap_"))}
         scale = "log-odds" if model.link == "logit" else "prediction"
-        _stdout().print(reasons_view(row, found, scale))
+        stdout_console().print(reasons_view(row, found, scale))
         return
     if format is ReasonsFormat.csv:
         _emit(formats.to_csv(table), out, "reasons")
@@ -452,7 +452,7 @@ def report_command(
                                        comparison_file=comparison, cutoff=cutoff,
                                        source=str(data), recourse_file=recourse)
         paths = report.write_report(document, out)
-    _stderr().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
+    stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 
 
 @contextlib.contextmanager
@@ -460,7 +460,7 @@ def fold_progress() -> Iterator[Callable[[int, int, str], None]]:
     """A progress bar over (model, fold) fits on standard error."""
     columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
                TimeElapsedColumn())
-    with Progress(*columns, console=_stderr(), transient=True) as bar:
+    with Progress(*columns, console=stderr_console(), transient=True) as bar:
         task = bar.add_task("comparing", total=None)
 
         def update(done: int, total: int, label: str) -> None:
@@ -488,7 +488,7 @@ def parse_options(pairs: list[str]) -> dict[str, Any]:
 @contextlib.contextmanager
 def progress_note(message: str) -> Iterator[None]:
     """A spinner on standard error while a long step runs (nothing when not a terminal)."""
-    console = _stderr()
+    console = stderr_console()
     if not console.is_terminal:
         yield
         return

@@ -10,11 +10,11 @@ from typing import Annotated
 
 import pandas as pd
 import typer
-from rich.console import Console, Group, RenderableType
+from rich.console import Group, RenderableType
 from rich.text import Text
 
 from glassbox import artifact
-from glassbox.cli import friendly
+from glassbox.cli import friendly, stderr_console, stdout_console
 from glassbox.files import write_atomic
 from glassbox.formats import to_csv
 from glassbox.provenance import file_sha256
@@ -40,14 +40,6 @@ SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
 class PlanFormat(StrEnum):
     table = "table"
     json = "json"
-
-
-def _stdout() -> Console:
-    return Console(highlight=False)
-
-
-def _stderr() -> Console:
-    return Console(stderr=True, highlight=False)
 
 
 @app.callback()
@@ -94,18 +86,18 @@ def plan_command(
         table = plans_frame(results, model)
         if out is not None:
             write_atomic(out, to_csv(table))
-            _stderr().print(f"wrote {len(table)} plan row(s) to {out}")
+            stderr_console().print(f"wrote {len(table)} plan row(s) to {out}")
         else:
             sys.stdout.write(to_csv(table))
-        _stderr().print(frame_table(summary_frame(results), title="Declined rows"))
-        _stderr().print(Text(CAUTION, style="italic"))
+        stderr_console().print(frame_table(summary_frame(results), title="Declined rows"))
+        stderr_console().print(Text(CAUTION, style="italic"))
         return
     raw, row_id = pick_row(model, row=row, data=data, id_value=id_value, index=index)
     result = find_plans(model, raw, rules, n_plans=plans, solver=solver.value, row_id=row_id)
     if format is PlanFormat.json:
         sys.stdout.write(json.dumps(plan_records(result), indent=1, ensure_ascii=False) + "\n")
         return
-    _stdout().print(result_view(model, result))
+    stdout_console().print(result_view(model, result))
 
 
 class AuditFormat(StrEnum):
@@ -170,14 +162,14 @@ def audit_command(
                "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
     result = audit.audit(run.outcomes, by=groups, context=context)
     if format is AuditFormat.table:
-        _stdout().print(audit_view(result))
+        stdout_console().print(audit_view(result))
         return
     text = audit.to_json(result) if format is AuditFormat.json else audit.to_markdown(result)
     if out is None:
         sys.stdout.write(text)
         return
     write_atomic(out, text)
-    _stderr().print(f"wrote the audit of {result.declined:,} declined rows to {out}")
+    stderr_console().print(f"wrote the audit of {result.declined:,} declined rows to {out}")
 
 
 def audit_view(result: audit.Audit) -> RenderableType:
