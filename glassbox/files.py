@@ -48,6 +48,22 @@ def read_json(path: str | Path, what: str, error: type[GlassboxError] = OptionEr
         raise error(f"{what} {path} is not valid JSON: {exc}") from None
 
 
+def read_toml(path: str | Path, what: str, error: type[GlassboxError] = OptionError
+              ) -> dict[str, Any]:
+    """A TOML file's content; `error` with a one-line message if missing or not TOML."""
+    import tomllib
+
+    path = Path(path)
+    if not path.is_file():
+        raise error(f"{what} {path} does not exist")
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise error(f"{what} {path} is not valid TOML: {exc}") from None
+    except UnicodeDecodeError:
+        raise error(f"{what} {path} is not a UTF-8 text file") from None
+
+
 def _umask() -> int:
     current = os.umask(0o022)
     os.umask(current)

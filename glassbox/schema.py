@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 import math
-import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -19,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.errors import DataError, SchemaError
+from glassbox.files import read_toml
 
 KINDS = ("number", "integer", "flag", "category")
 NUMERIC_KINDS = ("number", "integer", "flag")
@@ -264,15 +264,7 @@ def _toml_value(value: Any) -> str:
 
 def load_schema(path: str | Path) -> Schema:
     """Read a TOML schema file."""
-    path = Path(path)
-    if not path.is_file():
-        raise SchemaError(f"schema file {path} does not exist")
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise SchemaError(f"schema {path} is not valid TOML: {exc}") from None
-    except UnicodeDecodeError:
-        raise SchemaError(f"schema {path} is not a UTF-8 text file") from None
+    data = read_toml(path, "schema file", SchemaError)
     return Schema.from_dict(data, source=str(path))
 
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import json
 import math
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from glassbox.additive import AdditiveModel, LevelsTerm
+from glassbox.files import read_toml
 from recourse.errors import MutabilityError
 
 DIRECTIONS = ("at-least", "at-most")
@@ -84,15 +84,7 @@ class Mutability:
 
 def load_mutability(path: str | Path, model: AdditiveModel) -> Mutability:
     """Read and check a TOML mutability file against the model."""
-    path = Path(path)
-    if not path.is_file():
-        raise MutabilityError(f"mutability file {path} does not exist")
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise MutabilityError(f"{path}: not valid TOML: {exc}") from None
-    except UnicodeDecodeError:
-        raise MutabilityError(f"{path}: not a UTF-8 text file") from None
+    data = read_toml(path, "mutability file", MutabilityError)
     return mutability_from_dict(data, model, source=str(path))
 
 

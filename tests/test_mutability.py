@@ -229,13 +229,13 @@ def test_unknown_level_message_is_word_for_word_the_spec(model):
 def test_malformed_toml_missing_and_binary_files(model, tmp_path):
     broken = tmp_path / "broken.toml"
     broken.write_text("[goal\nprobability = 0.5\n", encoding="utf-8")
-    with pytest.raises(MutabilityError, match=r"broken\.toml: not valid TOML.*line 1"):
+    with pytest.raises(MutabilityError, match=r"broken\.toml is not valid TOML.*line 1"):
         load_mutability(broken, model)
     with pytest.raises(MutabilityError, match=r"absent\.toml does not exist"):
         load_mutability(tmp_path / "absent.toml", model)
     binary = tmp_path / "binary.toml"
     binary.write_bytes(b"\xff\xfe\x00[goal]")
-    with pytest.raises(MutabilityError, match=r"binary\.toml: not a UTF-8 text file"):
+    with pytest.raises(MutabilityError, match=r"binary\.toml is not a UTF-8 text file"):
         load_mutability(binary, model)
 
 
