@@ -289,7 +289,8 @@ def _open_folder(out: Path, resume: bool, settings: dict[str, Any]) -> set[int]:
         write_atomic(manifest, json.dumps(settings, indent=1) + "\n")
         return set()
     if not resume:
-        raise OptionError(f"{folder} already holds a run; resume it or choose an empty folder")
+        raise OptionError(f"{folder} already holds a run; resume it (--resume) or choose an "
+                          "empty folder")
     try:
         earlier = json.loads(manifest.read_text(encoding="utf-8"))
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
@@ -302,8 +303,10 @@ def _open_folder(out: Path, resume: bool, settings: dict[str, Any]) -> set[int]:
               "keep": "other kept columns"}
     for key, label in labels.items():
         if earlier.get(key) != settings[key]:
+            hint = ("; the engines cut partitions differently, so resume with the same engine"
+                    if key == "engine" else "")
             raise OptionError(f"cannot resume in {folder}: it was planned with {label} "
-                              f"({key} {earlier.get(key)!r}, now {settings[key]!r})")
+                              f"({key} {earlier.get(key)!r}, now {settings[key]!r}){hint}")
     return {int(path.stem.split("-")[1]) for path in parts}
 
 
