@@ -385,7 +385,7 @@ def reasons_command(
     frame = read_table(data)
     if every:
         table = reasons.reasons_table(model, frame, top, str(data))
-        summary = reasons.principal_reasons(model, frame, cutoff, str(data))
+        summary = reasons.principal_of(model, table, cutoff)
         if format is ReasonsFormat.table:
             stdout_console().print(frame_table(summary, title="Principal reasons among rows on the "
                                                        "unfavourable side of the cut-off"))
@@ -402,8 +402,8 @@ def reasons_command(
     position = row_position(frame, model.schema, id_value=id_value, index=index,
                             source=str(data))
     one = frame.iloc[[position]]
-    table = reasons.reasons_table(model, one, top, str(data))
-    found = reasons.row_reasons(model, model.encode(one, str(data)), top)[0]
+    table, found_rows = reasons.explain(model, one, top, str(data))
+    found = found_rows[0]
     if format is ReasonsFormat.table:
         row = {k: v for k, v in table.iloc[0].items() if not str(k).startswith(
             ("reason_", "feature_", "gap_"))}

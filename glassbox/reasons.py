@@ -92,21 +92,23 @@ def best_of(model: AdditiveModel, term: Term) -> Best:
     raise TypeError(f"unknown term type {type(term).__name__}")
 
 
-def gaps(model: AdditiveModel, encoded: pd.DataFrame) -> pd.DataFrame:
+def bests(model: AdditiveModel) -> dict[str, Best]:
+    """Each term's best, in the model's order; protected columns never have one."""
+    protected = {f.name for f in model.schema.protected_features}
+    return {t.feature: best_of(model, t) for t in model.terms if t.feature not in protected}
+
+
+def gaps(model: AdditiveModel, encoded: pd.DataFrame,
+         best: dict[str, Best] | None = None) -> pd.DataFrame:
     """Per row and term: how far the row's contribution sits below the term's best."""
     sign = model.schema.target.good_sign
-    protected = {f.name for f in model.schema.protected_features}
-    columns = {}
-    for term in model.terms:
-        if term.feature in protected:
-            continue
-        best = best_of(model, term).contribution
-        parts = term.evaluate(encoded[term.feature].to_numpy())
-        columns[term.feature] = np.maximum(0.0, sign * (best - parts))
+    best = bests(model) if best is None else best
+    columns = {name: np.maximum(0.0, sign * (found.contribution - model.term(name).evaluate(
+        encoded[name].to_numpy()))) for name, found in best.items()}
     return pd.DataFrame(columns, index=encoded.index)
 
 
-def _label(model: AdditiveModel, feature: str) -> str:
+def _label(feature: str) -> str:
     return feature.replace("_", " ")
 
 
@@ -120,13 +122,14 @@ def _value_text(model: AdditiveModel, feature: str, value: Any) -> str:
     return f"{number:,.0f}" if number == round(number) and abs(number) >= 1000 else f"{number:g}"
 
 
-def sentence(model: AdditiveModel, feature: str, value: Any) -> str:
-    """The schema's reason text for the feature, else one made from its name and value."""
+def sentence(model: AdditiveModel, feature: str, value: Any, best: Best | None = None) -> str:
+    """The schema's reason text for the feature, else one made from its name and value
+    (`best`: the term's `best_of`, when the caller has it)."""
     spec = model.schema.feature(feature)
     if spec.reason:
         return spec.reason
-    term, label = model.term(feature), _label(model, feature)
-    best = best_of(model, term)
+    term, label = model.term(feature), _label(feature)
+    best = best_of(model, term) if best is None else best
     shown = _value_text(model, feature, value)
     if isinstance(term, LevelsTerm):
         return f"{label} is {shown}; '{best.level}' scores best"
@@ -150,7 +153,8 @@ def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> li
     """Up to `top` reasons per row of a frame typed by `AdditiveModel.encode`, largest first."""
     if top < 1:
         raise OptionError(f"--top must be at least 1, not {top}")
-    table = gaps(model, encoded)
+    best = bests(model)
+    table = gaps(model, encoded, best)
     names = list(table.columns)
     values = table.to_numpy()
     out = []
@@ -162,7 +166,7 @@ def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> li
                 break
             value = encoded[names[j]].iloc[row]
             reasons.append(Reason(names[j], value, float(values[row, j]),
-                                  sentence(model, names[j], value)))
+                                  sentence(model, names[j], value, best[names[j]])))
         out.append(reasons)
     return out
 
@@ -186,6 +190,12 @@ def unfavourable(model: AdditiveModel, score: np.ndarray, cutoff: float | None) 
 def reasons_table(model: AdditiveModel, frame: pd.DataFrame, top: int = 4,
                   source: str | None = None) -> pd.DataFrame:
     """One row per input row: id, score, outcome and the ranked reasons (text, feature, gap)."""
+    return explain(model, frame, top, source)[0]
+
+
+def explain(model: AdditiveModel, frame: pd.DataFrame, top: int = 4,
+            source: str | None = None) -> tuple[pd.DataFrame, list[list[Reason]]]:
+    """`reasons_table`, and the `Reason` records it was made from (one list per row)."""
     encoded = model.encode(frame, source)
     score = model.score_encoded(encoded)
     out = pd.DataFrame(index=range(len(frame)))
@@ -199,25 +209,27 @@ def reasons_table(model: AdditiveModel, frame: pd.DataFrame, top: int = 4,
         out[f"reason_{k + 1}"] = [r[k].text if len(r) > k else "" for r in found]
         out[f"feature_{k + 1}"] = [r[k].feature if len(r) > k else "" for r in found]
         out[f"gap_{k + 1}"] = [r[k].gap if len(r) > k else np.nan for r in found]
-    return out
+    return out, found
 
 
 def principal_reasons(model: AdditiveModel, frame: pd.DataFrame, cutoff: float | None = None,
                       source: str | None = None) -> pd.DataFrame:
     """How often each feature is the first reason among rows on the unfavourable side."""
-    encoded = model.encode(frame, source)
-    below = unfavourable(model, model.score_encoded(encoded), cutoff)
+    return principal_of(model, reasons_table(model, frame, top=1, source=source), cutoff)
+
+
+def principal_of(model: AdditiveModel, table: pd.DataFrame,
+                 cutoff: float | None = None) -> pd.DataFrame:
+    """The same, from a `reasons_table` already made (its score and first reason)."""
+    below = unfavourable(model, table["score"].to_numpy(), cutoff)
     columns = ["feature", "reason", "rows", "share"]
     if not below.any():
         return pd.DataFrame(columns=columns)
-    table = gaps(model, encoded.loc[below])
-    first = table.to_numpy().argmax(axis=1)  # ties go to the earlier term, as in row_reasons
-    has_reason = table.to_numpy().max(axis=1) > NOTHING
-    names = np.asarray(table.columns)[first[has_reason]]
-    counts = pd.Series(names).value_counts(sort=False)
-    order = sorted(counts.index, key=lambda name: (-counts[name], list(table.columns).index(name)))
+    first = table.loc[below, "feature_1"]
+    counts = first[first != ""].value_counts(sort=False)
+    order = sorted(counts.index, key=lambda name: (-counts[name], model.features.index(name)))
     rows = [{"feature": name,
-             "reason": model.schema.feature(name).reason or _label(model, name),
+             "reason": model.schema.feature(name).reason or _label(name),
              "rows": int(counts[name]), "share": float(counts[name] / below.sum())}
             for name in order]
     return pd.DataFrame(rows, columns=columns)
