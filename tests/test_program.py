@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import assume, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from recourse.errors import PlanningError
@@ -241,7 +241,10 @@ def test_best_reachable_matches_enumeration(program):
     assert best_reachable(program) == pytest.approx(best, abs=1e-12)
 
 
-@settings(max_examples=200, deadline=None, derandomize=True)
+# programs with no choice or no gap to close say nothing about a bound: they are skipped,
+# which Hypothesis's health check counts as heavy filtering on some collection orders
+@settings(max_examples=200, deadline=None, derandomize=True,
+          suppress_health_check=[HealthCheck.filter_too_much])
 @given(programs())
 def test_the_relaxation_bound_never_passes_the_optimum(program):
     # weak duality: every multiplier's Lagrangian value is at most the least total cost found
