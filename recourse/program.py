@@ -172,7 +172,7 @@ class _Relaxation:
     def __init__(self, gains: list[np.ndarray], costs: list[np.ndarray], kept: list[np.ndarray],
                  current: tuple[int, ...], need: float, limit: int) -> None:
         changes = [k[k != now] for k, now in zip(kept, current, strict=True)]
-        width = max((len(c) for c in changes), default=0)
+        width = max((len(c) for c in changes), default=1) or 1  # padding costs inf: never taken
         self.gain = np.zeros((len(kept), width))
         self.cost = np.full((len(kept), width), np.inf)
         for group, picked in enumerate(changes):
@@ -184,18 +184,20 @@ class _Relaxation:
            ) -> tuple[float, np.ndarray, np.ndarray]:
         """The bound, each group's best reduced cost (0 if none is negative), the change taken
         per group (-1 for none) under the limit; a `held` group makes no change."""
-        with np.errstate(invalid="ignore"):  # inf - m * 0
-            reduced = self.cost - multiplier * self.gain
+        reduced = self.reduced(multiplier)
         if held is not None:
             reduced[held] = np.inf
-        best = reduced.argmin(axis=1) if reduced.size else np.zeros(len(reduced), int)
-        value = np.minimum(0.0, reduced[np.arange(len(reduced)), best]) if reduced.size else \
-            np.zeros(len(reduced))
+        best = reduced.argmin(axis=1)
+        value = np.minimum(0.0, reduced[np.arange(len(reduced)), best])
         taken = np.full(len(value), -1)
         order = np.argsort(value, kind="stable")[:self.limit]
         order = order[value[order] < 0]
         taken[order] = best[order]
         return float(multiplier * self.need + value[order].sum()), value, taken
+
+    def reduced(self, multiplier: float) -> np.ndarray:
+        """Each change's cost less the multiplier times its gain."""
+        return self.cost - multiplier * self.gain
 
     def gain_of(self, taken: np.ndarray) -> float:
         rows = np.flatnonzero(taken >= 0)
@@ -229,16 +231,13 @@ class _Relaxation:
 
     def bounds(self, multiplier: float) -> np.ndarray:
         """Per group and change, a lower bound on any choice that makes that change."""
-        base, value, _ = self.at(multiplier)
-        base -= multiplier * self.need
+        value = self.at(multiplier)[1]
         sums = np.concatenate(([0.0], np.cumsum(np.sort(value))))
         rank = np.empty(len(value), int)
         rank[np.argsort(value, kind="stable")] = np.arange(len(value))
         # the best limit - 1 changes among the other groups
         others = np.where(rank < self.limit - 1, sums[self.limit] - value, sums[self.limit - 1])
-        with np.errstate(invalid="ignore"):
-            reduced = self.cost - multiplier * self.gain
-        return multiplier * self.need + others[:, None] + reduced
+        return multiplier * self.need + others[:, None] + self.reduced(multiplier)
 
 
 def _known_choice(program: Program, relaxation: _Relaxation,
