@@ -250,8 +250,8 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
 
     from recourse.batch import plan_many
     from recourse.candidates import row_candidates
-    from recourse.planner import plan_encoded
-    from recourse.program import DEFAULT_SOLVER, Program, solve
+    from recourse.planner import plan_encoded, row_program
+    from recourse.program import DEFAULT_SOLVER, solve
 
     model, rules, rows = recourse_setup(sets)
     encoded = model.encode(rows)
@@ -260,15 +260,10 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
     programs, sizes = [], []
     for index in range(len(rows)):
         candidates = row_candidates(model, rows.iloc[index], rules)
-        names = tuple(candidates)
         row_parts = parts.iloc[index]
-        programs.append(Program(
-            base=float(model.intercept + row_parts.sum() - sum(row_parts[n] for n in names)),
-            contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
-            costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
-            current=tuple(0 for _ in names), threshold=threshold, direction="at-most",
-            objective="total-cost", max_changes=5, names=names))
-        sizes.extend(len(candidates[n]) for n in names)
+        score = float(model.intercept + row_parts.sum())
+        programs.append(row_program(candidates, score, row_parts, rules.goal, threshold))
+        sizes.extend(len(values) for values in candidates.values())
     # Side by side in blocks of 50 rows (ours on a block, then the baseline on the same block):
     # row by row, each CBC process forked from this one would leave copy-on-write page
     # faults behind that slow whatever runs next here, which is ours.

@@ -20,7 +20,7 @@ import pandas as pd
 from glassbox.additive import AdditiveModel, LevelsTerm
 from recourse.candidates import Candidate, encoded_candidates
 from recourse.errors import PlanningError
-from recourse.mutability import Mutability
+from recourse.mutability import Goal, Mutability
 from recourse.program import DEFAULT_SOLVER, Program, Solution, best_reachable, solve
 
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
@@ -106,13 +106,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         return PlanResult("already", **common)
     candidates = encoded_candidates(model, encoded.iloc[0], mutability)
     names = tuple(candidates)
-    base = score - float(sum(parts[name] for name in names))
-    program = Program(
-        base=base,
-        contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
-        costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
-        current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
-        objective=goal.objective, max_changes=goal.max_changes, names=names)
+    program = row_program(candidates, score, parts, goal, threshold)
     solutions: list[Solution] = []
     forbidden: list[frozenset[int]] = []
     for _ in range(n_plans):
@@ -130,6 +124,19 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
                       binding_rules=tuple(rule for rule, _ in findings), **common)
+
+
+def row_program(candidates: Mapping[str, list[Candidate]], score: float, parts: pd.Series,
+                goal: Goal, threshold: float) -> Program:
+    """One row's integer program: its candidates (current value first) and the goal; the
+    base is the score less the changeable features' current contributions."""
+    names = tuple(candidates)
+    return Program(
+        base=score - float(sum(parts[name] for name in names)),
+        contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
+        costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
+        current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
+        objective=goal.objective, max_changes=goal.max_changes, names=names)
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
