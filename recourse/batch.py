@@ -45,7 +45,7 @@ def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutabi
     return positions, encoded.iloc[positions], parts.iloc[positions], ids
 
 
-def _plan_chunk(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
+def plan_typed_rows(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
                 mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
     """Plans for a few typed rows; a row the rules do not fit (say, a value outside a
     declared bound) is reported with status "error" instead of stopping the batch."""
@@ -74,16 +74,16 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
     positions, encoded, parts, ids = typed_declined(model, frame, mutability, source)
     spans = [slice(start, min(start + chunk, len(positions)))
              for start in range(0, len(positions), chunk)]
-    report = _progress_bar(len(positions)) if progress is True else (progress or None)
+    report = progress_bar(len(positions)) if progress is True else (progress or None)
     results: list[PlanResult] = []
     tasks = ((encoded.iloc[span], parts.iloc[span], ids[span]) for span in spans)
     if jobs == 1:
-        pieces = (_plan_chunk(model, *task, mutability, n_plans, solver) for task in tasks)
+        pieces = (plan_typed_rows(model, *task, mutability, n_plans, solver) for task in tasks)
     else:
         from joblib import Parallel, delayed
 
         pieces = Parallel(n_jobs=jobs, return_as="generator")(
-            delayed(_plan_chunk)(model, *task, mutability, n_plans, solver) for task in tasks)
+            delayed(plan_typed_rows)(model, *task, mutability, n_plans, solver) for task in tasks)
     try:
         for piece in pieces:
             results += piece
@@ -95,7 +95,7 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
     return results
 
 
-def _progress_bar(total: int | None, label: str = "planning declined rows"
+def progress_bar(total: int | None, label: str = "planning declined rows"
                   ) -> Callable[[int, int | None], None]:
     """A rich progress bar on standard error (nothing shows when not a terminal);
     `total` None while the count is not known yet."""

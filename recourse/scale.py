@@ -37,9 +37,9 @@ from glassbox.files import output_folder, write_atomic
 from glassbox.provenance import file_sha256
 from recourse.batch import (
     OUTCOME_COLUMNS,
-    _plan_chunk,
-    _progress_bar,
     outcome_frame,
+    plan_typed_rows,
+    progress_bar,
     typed_declined,
 )
 from recourse.errors import PlanningError
@@ -97,7 +97,7 @@ def plan_partition(partition: pd.DataFrame, model: AdditiveModel, mutability: Mu
             "'data row N' below counts within the block)")
         positions, encoded, parts, ids = typed_declined(model, partition, mutability, where,
                                                         numbers=numbers)
-        results = _plan_chunk(model, encoded, parts, ids, mutability, n_plans, solver)
+        results = plan_typed_rows(model, encoded, parts, ids, mutability, n_plans, solver)
     else:
         positions, results = np.array([], dtype=np.int64), []
     return _typed_outcomes(outcome_frame(results, model), partition, positions, model, keep)
@@ -349,7 +349,7 @@ def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
         done = _open_folder(Path(out), resume, settings)
     results = _Results(None if out is None else Path(out), done)
     task = _Task(model, mutability, n_plans, solver, keep, str(data))
-    report = _progress_bar(None, "planning partitions") if progress is True else \
+    report = progress_bar(None, "planning partitions") if progress is True else \
         (progress or None)
     try:
         run = _run_local if engine == "local" else _run_dask

@@ -246,7 +246,7 @@ def test_bad_requests_fail_before_any_planning(model, rules, data_file, loans, t
     def never(*_args, **_kwargs):
         raise AssertionError("planning started despite bad input")
 
-    monkeypatch.setattr(scale, "_plan_chunk", never)
+    monkeypatch.setattr(scale, "plan_typed_rows", never)
     short = tmp_path / "short.csv"
     loans.head(50).drop(columns=["credit_utilisation"]).to_csv(short, index=False)
     with pytest.raises(DataError, match="missing column.*'credit_utilisation'"):
