@@ -136,14 +136,18 @@ def _choice(entry: Mapping[str, Any], key: str, allowed: tuple[str, ...], defaul
     return str(value)
 
 
+def _known_keys(entry: Mapping[str, Any], known: tuple[str, ...], here: str) -> None:
+    unknown = sorted(set(entry) - set(known))
+    if unknown:
+        raise MutabilityError(f"{here}unknown key(s): {', '.join(unknown)} "
+                              f"(expected {', '.join(known)})")
+
+
 def _goal(entry: Any, model: AdditiveModel, where: str) -> Goal:
     here = f"{where}[goal] "
     if not isinstance(entry, Mapping):
         raise MutabilityError(f"{where}'goal' must be a table")
-    unknown = sorted(set(entry) - set(GOAL_KEYS))
-    if unknown:
-        raise MutabilityError(f"{here}unknown key(s): {', '.join(unknown)} "
-                              f"(expected {', '.join(GOAL_KEYS)})")
+    _known_keys(entry, GOAL_KEYS, here)
     if model.link == "logit":
         if "value" in entry:
             raise MutabilityError(f"{here}value is for regression models; this model is a "
@@ -191,10 +195,7 @@ def _percentiles(model: AdditiveModel, name: str) -> tuple[float, ...]:
 def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule:
     if not isinstance(entry, Mapping):
         raise MutabilityError(f"{here}must be a table")
-    unknown = sorted(set(entry) - set(RULE_KEYS))
-    if unknown:
-        raise MutabilityError(f"{here}unknown key(s): {', '.join(unknown)} "
-                              f"(expected {', '.join(RULE_KEYS)})")
+    _known_keys(entry, RULE_KEYS, here)
     spec = model.schema.feature(name)
     change = _choice(entry, "change", CHANGES, "fixed", here)
     if spec.protected and change != "fixed":
