@@ -17,15 +17,8 @@ from recourse.program import DEFAULT_SOLVER
 
 def declined_rows(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,
                   source: str | None = None) -> np.ndarray:
-    """Positions of the rows whose score misses the goal (margin included)."""
-    return _missing_goal(model, model.score(frame, source), mutability)
-
-
-def _missing_goal(model: AdditiveModel, score: np.ndarray, mutability: Mutability) -> np.ndarray:
-    threshold = mutability.goal.threshold(model.link)
-    if mutability.goal.direction == "at-least":
-        return np.flatnonzero(score < threshold)
-    return np.flatnonzero(score > threshold)
+    """Positions of the rows whose score misses the goal (the margin is not part of it)."""
+    return np.flatnonzero(mutability.goal.missed(model.score(frame, source), model.link))
 
 
 def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,
@@ -35,7 +28,8 @@ def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutabi
     contributions and ids (the id column, else `numbers` (default: positions) plus 1)."""
     encoded = model.encode(frame, source)
     parts = model.contributions_encoded(encoded)
-    positions = _missing_goal(model, model.intercept + parts.sum(axis=1).to_numpy(), mutability)
+    positions = np.flatnonzero(mutability.goal.missed(
+        model.intercept + parts.sum(axis=1).to_numpy(), model.link))
     id_column = model.schema.id_column
     if id_column in frame:
         ids = frame[id_column].to_numpy()[positions].tolist()

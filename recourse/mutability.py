@@ -12,7 +12,7 @@ from __future__ import annotations
 import json
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -45,7 +45,8 @@ class Goal:
     objective: str = "total-cost"
 
     def threshold(self, link: str) -> float:
-        """Target moved past by the margin, on the link scale (log-odds for "logit")."""
+        """What a plan must reach: the target moved past by the margin, on the link scale
+        (log-odds for "logit")."""
         if self.direction not in DIRECTIONS:
             raise MutabilityError(f"[goal] direction must be at-least or at-most, "
                                   f"not {self.direction!r}")
@@ -57,6 +58,13 @@ class Goal:
             raise MutabilityError(f"[goal] probability {self.target:g} with margin "
                                   f"{self.margin:g} asks for {aim:g}, outside (0, 1)")
         return math.log(aim / (1.0 - aim))
+
+    def missed(self, score: np.ndarray, link: str) -> np.ndarray:
+        """Which scores miss the goal itself (the declined rows); the margin is not part
+        of it: it only sets how far a plan must go (`threshold`)."""
+        bare = replace(self, margin=0.0).threshold(link)
+        score = np.asarray(score, dtype=float)
+        return score < bare if self.direction == "at-least" else score > bare
 
 
 @dataclass(frozen=True)

@@ -102,7 +102,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     threshold = goal.threshold(model.link)
     common = {"score": score, "outcome": outcome, "target": goal.target,
               "direction": goal.direction, "row_id": row_id}
-    if _reaches(score, threshold, goal.direction):
+    if not goal.missed(np.array([score]), model.link)[0]:  # the margin is for plans only
         return PlanResult("already", **common)
     candidates = encoded_candidates(model, encoded.iloc[0], mutability)
     names = tuple(candidates)

@@ -72,6 +72,18 @@ def test_threshold_on_the_identity_scale_is_the_target_moved_by_the_margin():
     assert Goal(120.0, "at-most", 2.5).threshold("identity") == pytest.approx(117.5)
 
 
+def test_a_row_misses_the_goal_itself_not_the_goal_less_the_margin():
+    # scipy.special.logit is the reference for log-odds. At most 0.3 with a margin of 0.02:
+    # 0.291 meets the goal (a plan would aim for 0.28), 0.3001 misses it.
+    goal = Goal(0.3, "at-most", 0.02)
+    scores = logit(np.array([0.291, 0.2999, 0.3001, 0.27, 0.9]))
+    assert goal.missed(scores, "logit").tolist() == [False, False, True, False, True]
+    assert goal.threshold("logit") == pytest.approx(logit(0.28))
+    rising = Goal(120.0, "at-least", 2.5)  # regression: plain arithmetic
+    assert rising.missed(np.array([119.9, 120.0, 121.0, 123.0]), "identity").tolist() == [
+        True, False, False, False]
+
+
 def test_threshold_refuses_a_probability_pushed_out_of_range():
     with pytest.raises(MutabilityError, match=r"\[goal\] probability 0.99 with margin 0.02"):
         Goal(0.99, "at-least", 0.02).threshold("logit")

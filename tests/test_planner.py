@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.special import expit, logit
 
 from glassbox.additive import AdditiveModel, CurveTerm
 from glassbox.schema import Schema
@@ -126,3 +127,41 @@ def test_max_changes_binding_is_reported():
     assert result.status == "none"
     assert any("limit of 1 change" in line for line in result.binding)
     assert result.binding_rules[0] == "limit on changes"
+
+
+# ---------------------------------------------------------------- goal and margin
+
+
+def margin_rules(**features) -> dict:
+    return {"goal": {"probability": 0.5, "direction": "at-most", "margin": 0.1},
+            "feature": features}
+
+
+def test_a_row_between_the_goal_and_the_margin_already_meets_the_goal():
+    # ISLR Table 4.3 coefficients (from memory). Balance 1840: score -10.8690 + 0.005737 *
+    # 1840 + 0.003033 * 40 = -0.1916, a probability of 0.452 (scipy.special.expit): at most
+    # 0.5, the goal, though not at most 0.4, the goal less the margin. It is not declined.
+    model = islr_default_model()
+    mutability = mutability_from_dict(margin_rules(balance={"change": "decrease",
+                                                            "cost": 1.0}), model)
+    between = pd.Series({"balance": 1840.0, "income": 40.0, "student": "no"}, dtype=object)
+    probability = expit(-10.8690 + 0.005737 * 1840 + 0.003033 * 40)
+    assert 0.4 < probability < 0.5
+    result = find_plans(model, between, mutability)
+    assert result.status == "already" and not result.plans
+    assert result.outcome == pytest.approx(probability)
+
+
+def test_a_plan_still_reaches_the_goal_plus_the_margin():
+    # The declined applicant (probability 0.674) must plan to at most 0.4, not 0.5:
+    # balance <= 2000 - ceil((0.7263 - logit(0.4)) / 0.005737) in whole dollars.
+    model = islr_default_model()
+    mutability = mutability_from_dict(margin_rules(balance={"change": "decrease", "step": 1,
+                                                            "cost": 1.0}), model)
+    current = -10.8690 + 0.005737 * 2000 + 0.003033 * 40
+    needed = np.ceil((current - logit(0.4)) / 0.005737)
+    result = find_plans(model, APPLICANT, mutability, n_plans=1)
+    assert result.status == "plans"
+    (change,) = result.plans[0].changes
+    assert change.proposed == 2000 - needed == 1802
+    assert result.plans[0].outcome <= 0.4 < expit(current - 0.005737 * (needed - 1))

