@@ -37,6 +37,7 @@ from glassbox.errors import GlassboxError, OptionError
 from glassbox.families import FAMILIES
 from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, training_fit
+from glassbox.groups import MIN_GROUP
 from glassbox.provenance import file_sha256
 from glassbox.render import (
     comparison_view,
@@ -440,6 +441,8 @@ def report_command(
     recourse: Annotated[Path | None, typer.Option(
         metavar="AUDIT.json",
         help="A `recourse audit --format json` file made with this model file.")] = None,
+    min_group: Annotated[int, typer.Option(
+        metavar="N", help="Groups with fewer rows are shown but not flagged.", min=1)] = MIN_GROUP,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
     from glassbox import report
@@ -450,7 +453,8 @@ def report_command(
     with progress_note("drawing the report"):
         document = report.build_report(model, frame, model_file=model_file,
                                        comparison_file=comparison, cutoff=cutoff,
-                                       source=str(data), recourse_file=recourse)
+                                       source=str(data), recourse_file=recourse,
+                                       min_group=min_group)
         paths = report.write_report(document, out)
     stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 

@@ -148,6 +148,7 @@ def build_report(
     cutoff: float | None = None,
     source: str | None = None,
     recourse_file: str | Path | None = None,
+    min_group: int = groups.MIN_GROUP,
 ) -> Report:
     """The report's content for `model` on the rows of `frame`.
 
@@ -155,6 +156,7 @@ def build_report(
     must have been made on the model's training data. `cutoff` is a probability for a
     classification model (default 0.5) and a predicted value for regression (required).
     `recourse_file` is a `recourse audit --format json` file made with the same model file.
+    Groups (the report's and the audit's) of fewer than `min_group` rows are not flagged.
     """
     from glassbox import compare, reasons, report_recourse
 
@@ -186,10 +188,11 @@ def build_report(
     sections.append(_importance_section(model))
     sections += _feature_sections(model)
     sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
-    group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction)
-    sections.append(_groups_section(model, group_tables, cutoff))
+    group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction,
+                                      min_group)
+    sections.append(_groups_section(model, group_tables, cutoff, min_group))
     if audit is not None:
-        sections.append(report_recourse.recourse_section(audit))
+        sections.append(report_recourse.recourse_section(audit, min_group))
     family = model.metadata.get("family", "additive")
     title = f"Audit report: {family} model of {model.schema.target.column}"
     intro = (f"Made by glassbox {__version__} from {model_name} and data file "
@@ -200,11 +203,11 @@ def build_report(
 
 
 def protected_outcomes(model: AdditiveModel, protected: pd.DataFrame,
-                       favourable: np.ndarray, prediction: np.ndarray
-                       ) -> dict[str, pd.DataFrame]:
+                       favourable: np.ndarray, prediction: np.ndarray,
+                       min_group: int = groups.MIN_GROUP) -> dict[str, pd.DataFrame]:
     """`groups.outcomes_by_group` for every protected column present in the data."""
     return {str(column): groups.outcomes_by_group(groups.group_labels(protected[column]),
-                                                  favourable, prediction)
+                                                  favourable, prediction, min_rows=min_group)
             for column in protected.columns}
 
 
@@ -363,7 +366,7 @@ def _reasons_section(model: AdditiveModel, frame: pd.DataFrame, cutoff: float,
 
 
 def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
-                    cutoff: float) -> Section:
+                    cutoff: float, min_group: int = groups.MIN_GROUP) -> Section:
     title = "Outcomes by protected group"
     declared = [f.name for f in model.schema.protected_features]
     if not tables:
@@ -378,7 +381,7 @@ def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
         "is a group's favourable share divided by that of the most favoured group. Ratios "
         "below 0.8 are flagged, after the four-fifths rule of the US Uniform Guidelines on "
         "Employee Selection Procedures (1978), 29 CFR 1607.4(D), the customary screen; "
-        "local law decides what a gap means. Small groups give unsteady ratios.")]
+        f"local law decides what a gap means. {groups.size_note(min_group)}")]
     for column, table in tables.items():
         shown = pd.DataFrame({
             "group": table["group"], "rows": table["rows"],
@@ -386,10 +389,9 @@ def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
             "favourable share": [_percent(s) for s in table["favourable_share"]],
             mean: [cell(v, 3) for v in table["mean_prediction"]],
             "impact ratio": ["" if np.isnan(r) else f"{r:.3f}" for r in table["impact_ratio"]],
-            "below 0.8": ["yes" if flag else "no" for flag in table["flagged"]]})
-        flagged = table.loc[table["flagged"], "group"].tolist()
-        caption = (f"{column}: flagged below 0.8: {', '.join(flagged)}" if flagged
-                   else f"{column}: no group below 0.8")
+            "below 0.8": groups.flag_words(table["flagged"], table["small"])})
+        caption = f"{column}: " + groups.flag_caption(table["group"], table["flagged"],
+                                                      table["small"], min_group)
         blocks.append(Table(shown, caption))
     return Section(title, tuple(blocks))
 

@@ -14,6 +14,7 @@ import pandas as pd
 
 from glassbox.errors import DataError
 from glassbox.files import read_json
+from glassbox.groups import MIN_GROUP, compare_groups, flag_caption, flag_words, size_note
 from glassbox.provenance import file_sha256
 from glassbox.report import Paragraph, Section, Table
 
@@ -55,11 +56,13 @@ def _share(value: Any) -> str:
 
 
 def _number(value: Any) -> str:
-    return "" if value is None else f"{float(value):.3g}"
+    return "" if value is None or not math.isfinite(float(value)) else f"{float(value):.3g}"
 
 
-def recourse_section(document: dict[str, Any]) -> Section:
-    """Shares with a plan, cost quantiles, main changes, binding rules and groups."""
+def recourse_section(document: dict[str, Any], min_group: int = MIN_GROUP) -> Section:
+    """Shares with a plan, cost quantiles, main changes, binding rules and groups; groups of
+    fewer than `min_group` declined rows are judged as the report's own group tables are
+    (shown, not flagged), from the audit's counts."""
     summary = document["summary"]
     context = document.get("context", {})
     goal = context.get("goal", "the goal of the mutability file")
@@ -94,17 +97,19 @@ def recourse_section(document: dict[str, Any]) -> Section:
             "By group: the share of declined rows with a plan, and its ratio to the "
             "best-served group's share; a ratio below 0.8 is flagged, after the four-fifths "
             "rule of the US Uniform Guidelines, 29 CFR 1607.4(D), a customary screen, not a "
-            "legal finding: local law decides."))
+            f"legal finding: local law decides. {size_note(min_group)}"))
     for column, records in document["groups"].items():
         table = pd.DataFrame(records)
-        flagged = [g for g, f in zip(table["group"], table["flagged"], strict=True) if f]
-        caption = (f"{column}: flagged below 0.8: {', '.join(map(str, flagged))}" if flagged
-                   else f"{column}: no group below 0.8")
+        judged = compare_groups(pd.DataFrame({"rows": table["declined"],
+                                              "favourable_rows": table["with_plan"]}),
+                                min_rows=min_group)
+        caption = f"{column}: " + flag_caption(table["group"], judged["flagged"],
+                                               judged["small"], min_group)
         blocks.append(Table(pd.DataFrame({
             "group": table["group"], "declined": table["declined"],
             "with a plan": table["with_plan"],
             "share with a plan": [_share(v) for v in table["share_with_plan"]],
             "median cost": [_number(v) for v in table["median_cost"]],
-            "ratio to best": [_number(v) for v in table["ratio_to_best"]],
-            "below 0.8": ["yes" if f else "no" for f in table["flagged"]]}), caption))
+            "ratio to best": [_number(v) for v in judged["impact_ratio"]],
+            "below 0.8": flag_words(judged["flagged"], judged["small"])}), caption))
     return Section(TITLE, tuple(blocks))

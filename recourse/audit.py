@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.errors import DataError
-from glassbox.groups import FOUR_FIFTHS, group_labels, outcomes_by_group
+from glassbox.groups import FOUR_FIFTHS, MIN_GROUP, group_labels, outcomes_by_group, size_note
 
 FORMAT = "recourse-audit"
 VERSION = 1
@@ -25,12 +25,16 @@ QUANTILES = (10, 25, 50, 75, 90)
 CAUTION = ("Plans are what-ifs computed from a statistical model, not advice and not a promise "
            "of any decision; protected characteristics are never levers, only groupings here. "
            "Defer to local law, fair-lending rules and licensed compliance review.")
-GROUP_NOTE = ("Share of declined rows with a plan, and its ratio to the best-served group's; a "
-              f"ratio below {FOUR_FIFTHS:g} is flagged (the four-fifths rule of the US Uniform "
-              "Guidelines, 29 CFR 1607.4(D), a customary screen, not a legal finding: local law "
-              "decides).")
 GROUP_COLUMNS = ("group", "declined", "with_plan", "share_with_plan", "median_cost",
-                 "ratio_to_best", "flagged")
+                 "ratio_to_best", "small", "flagged")
+
+
+def group_note(min_rows: int = MIN_GROUP) -> str:
+    """What the group tables show, and the minimum group size they were judged with."""
+    return ("Share of declined rows with a plan, and its ratio to the best-served group's; a "
+            f"ratio below {FOUR_FIFTHS:g} is flagged (the four-fifths rule of the US Uniform "
+            "Guidelines, 29 CFR 1607.4(D), a customary screen, not a legal finding: local law "
+            f"decides). {size_note(min_rows)}")
 
 
 @dataclass(frozen=True)
@@ -46,6 +50,7 @@ class Audit:
     binding_rules: pd.DataFrame  # rule, rows, share (of rows without a plan)
     groups: dict[str, pd.DataFrame] = field(default_factory=dict)  # column -> GROUP_COLUMNS
     context: dict[str, Any] = field(default_factory=dict)  # goal, files, settings
+    min_group: int = MIN_GROUP  # groups with fewer declined rows are shown, not flagged
 
     @property
     def share_with_plan(self) -> float:
@@ -69,30 +74,33 @@ def _quantiles(costs: pd.Series) -> dict[str, float]:
     return {f"{q}%": float(np.percentile(costs.to_numpy(dtype=float), q)) for q in QUANTILES}
 
 
-def by_group(outcomes: pd.DataFrame, column: str, threshold: float = FOUR_FIFTHS
-             ) -> pd.DataFrame:
+def by_group(outcomes: pd.DataFrame, column: str, threshold: float = FOUR_FIFTHS,
+             min_rows: int = MIN_GROUP) -> pd.DataFrame:
     """Per group of `column`: declined rows, rows with a plan and their share, the median
     cost of the cheapest plan, and the share's ratio to the best-served group's (flagged
-    below four-fifths, the customary screen of 29 CFR 1607.4(D); local law decides)."""
+    below four-fifths, the customary screen of 29 CFR 1607.4(D); local law decides); a
+    group of fewer than `min_rows` declined rows is `small`: shown, never flagged."""
     if column not in outcomes:
         raise DataError(f"--by {column}: no such column among the planned rows (columns: "
                         f"{', '.join(c for c in outcomes.columns)})")
     labels = group_labels(outcomes[column]).reset_index(drop=True)
     planned = (outcomes["status"] == "plans").to_numpy()
-    table = outcomes_by_group(labels, planned, threshold=threshold)
+    table = outcomes_by_group(labels, planned, threshold=threshold, min_rows=min_rows)
     costs = pd.Series(outcomes["total_cost"].to_numpy(dtype=float)).where(planned)
     medians = costs.groupby(labels.map(str)).median()
     return pd.DataFrame({
         "group": table["group"], "declined": table["rows"],
         "with_plan": table["favourable_rows"], "share_with_plan": table["favourable_share"],
         "median_cost": table["group"].map(medians).to_numpy(dtype=float),
-        "ratio_to_best": table["impact_ratio"], "flagged": table["flagged"],
+        "ratio_to_best": table["impact_ratio"], "small": table["small"],
+        "flagged": table["flagged"],
     }, columns=list(GROUP_COLUMNS))
 
 
 def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
-          context: Mapping[str, Any] | None = None) -> Audit:
-    """Summarise outcome rows: shares, cost quantiles, main changes, binding rules, groups."""
+          context: Mapping[str, Any] | None = None, min_group: int = MIN_GROUP) -> Audit:
+    """Summarise outcome rows: shares, cost quantiles, main changes, binding rules, groups
+    (a group of fewer than `min_group` declined rows is shown but not flagged)."""
     status = outcomes["status"].astype(str)
     planned = outcomes[status == "plans"]
     stuck = outcomes[status == "none"]
@@ -102,8 +110,8 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
         cost_quantiles=_quantiles(planned["total_cost"]),
         main_changes=_counted(planned["main_change"], "feature", len(planned)),
         binding_rules=_counted(stuck["binding_rule"], "rule", len(stuck)),
-        groups={column: by_group(outcomes, column) for column in by},
-        context=dict(context or {}),
+        groups={column: by_group(outcomes, column, min_rows=min_group) for column in by},
+        context=dict(context or {}), min_group=min_group,
     )
 
 
@@ -145,6 +153,7 @@ def to_dict(result: Audit) -> dict[str, Any]:
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),
         "groups": {column: _records(table) for column, table in result.groups.items()},
+        "min_group": result.min_group,
     }
 
 
@@ -165,5 +174,6 @@ def to_markdown(result: Audit) -> str:
         parts += ["## Rows without a plan: the rule that binds most",
                   table_markdown(result.binding_rules).strip()]
     for column, table in result.groups.items():
-        parts += [f"## By {column}", GROUP_NOTE, table_markdown(table).strip()]
+        parts += [f"## By {column}", group_note(result.min_group),
+                  table_markdown(table).strip()]
     return "\n\n".join(parts) + "\n"

@@ -17,6 +17,7 @@ from glassbox import artifact
 from glassbox.cli import friendly, stderr_console, stdout_console
 from glassbox.files import write_atomic
 from glassbox.formats import to_csv
+from glassbox.groups import MIN_GROUP, flag_caption, flag_words
 from glassbox.provenance import file_sha256
 from glassbox.render import frame_table
 from glassbox.schema import read_table
@@ -135,6 +136,9 @@ def audit_command(
     format: Annotated[AuditFormat, typer.Option(
         "--format", help="table (terminal), json or markdown.")] = AuditFormat.table,
     out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,
+    min_group: Annotated[int, typer.Option(
+        metavar="N", help="Groups with fewer declined rows are shown but not flagged.",
+        min=1)] = MIN_GROUP,
 ) -> None:
     """Across every declined row: who can reach the goal, at what cost, and by group."""
     if resume and plans_out is None:
@@ -160,7 +164,7 @@ def audit_command(
                "mutability_file": str(mutability),
                "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
                "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
-    result = audit.audit(run.outcomes, by=groups, context=context)
+    result = audit.audit(run.outcomes, by=groups, context=context, min_group=min_group)
     if format is AuditFormat.table:
         stdout_console().print(audit_view(result))
         return
@@ -185,19 +189,18 @@ def audit_view(result: audit.Audit) -> RenderableType:
         parts.append(frame_table(result.binding_rules,
                                  title="Rows without a plan: the rule that binds most"))
     for column, table in result.groups.items():
-        flagged = table.loc[table["flagged"], "group"].astype(str).tolist()
-        title = (f"By {column}: " + (f"below 0.8 of the best-served group: {', '.join(flagged)}"
-                                     if flagged else "no group below 0.8"))
         shown = pd.DataFrame({
             "group": table["group"], "declined": table["declined"],
-            "with a plan": table["with_plan"],
+            "with plan": table["with_plan"],
             "share": [f"{100 * v:.1f}%" for v in table["share_with_plan"]],
             "median cost": [f"{v:.3g}" if v == v else "" for v in table["median_cost"]],
-            "ratio to best": [f"{v:.3f}" if v == v else "" for v in table["ratio_to_best"]],
-            "below 0.8": ["yes" if f else "no" for f in table["flagged"]]})
+            "ratio": [f"{v:.3f}" if v == v else "" for v in table["ratio_to_best"]],
+            "below 0.8": flag_words(table["flagged"], table["small"])})
+        title = f"By {column}: " + flag_caption(table["group"], table["flagged"],
+                                                table["small"], result.min_group)
         parts.append(frame_table(shown, title=title))
     if result.groups:
-        parts.append(Text(audit.GROUP_NOTE))
+        parts.append(Text(audit.group_note(result.min_group)))
     parts.append(Text(CAUTION, style="italic"))
     return Group(*parts)
 

