@@ -215,6 +215,49 @@ class FeatureProfile:
     def maximum(self) -> float:
         return self.percentiles[-1]
 
+    def percentile_of(self, values: Sequence[float] | np.ndarray) -> np.ndarray:
+        """Each value's training percentile, ties counted half: 100 x (rows below it + half
+        the rows equal to it) / rows, the mid-rank of scipy.stats.percentileofscore(kind=
+        "mean"). Every reader of the profile turns values into percentiles through this.
+
+        Exact from `value_counts` when the profile keeps them. Otherwise read off the 101
+        stored percentiles: a run of equal stored percentiles k..m at v is a tie, and v gets
+        (k + m) / 2; between two stored values the rank runs linearly from the last percent
+        at the lower to the first at the upper, within about one percentage point (one 1%
+        slice of the rows) of the exact rank. Below the minimum 0, above the maximum 100.
+        The share of rows at or below x is the rank just above x (`np.nextafter(x, inf)`).
+        The way back, a percentile's value, is the stored table read linearly
+        (numpy.percentile's own convention), which this rank inverts outside ties.
+        """
+        given = np.asarray(values, dtype=float)
+        values = given.ravel()
+        if self.value_counts:
+            pairs = sorted(self.value_counts)
+            points = np.array([v for v, _ in pairs])
+            before = np.concatenate([[0.0], np.cumsum([c for _, c in pairs], dtype=float)])
+            below = before[np.searchsorted(points, values, side="left")]
+            upto = before[np.searchsorted(points, values, side="right")]
+            return (100.0 * (below + upto) / (2.0 * before[-1])).reshape(given.shape)
+        if not self.percentiles:
+            raise OptionError(f"'{self.feature}' has no training percentiles (a category?)")
+        table = np.asarray(self.percentiles, dtype=float)
+        grid = np.linspace(0.0, 100.0, len(table))
+        points, first = np.unique(table, return_index=True)
+        low = grid[first]  # the first and last percent at each distinct stored value
+        high = grid[len(table) - 1 - np.unique(table[::-1], return_index=True)[1]]
+        out = np.full(values.shape, 50.0)
+        if len(points) > 1:
+            right = np.clip(np.searchsorted(points, values, side="left"), 1, len(points) - 1)
+            left = right - 1
+            with np.errstate(invalid="ignore", over="ignore"):  # values beyond the ends: below
+                share = (values - points[left]) / (points[right] - points[left])
+                out = high[left] + share * (low[right] - high[left])
+        tied = np.isin(values, points)
+        out[tied] = ((low + high) / 2.0)[np.searchsorted(points, values[tied])]
+        out[values < points[0]] = 0.0
+        out[values > points[-1]] = 100.0
+        return out.reshape(given.shape)
+
     def to_dict(self) -> dict[str, Any]:
         data: dict[str, Any] = {"feature": self.feature, "kind": self.kind}
         if self.percentiles:

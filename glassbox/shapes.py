@@ -26,27 +26,12 @@ SUMMARY_COLUMNS = ("feature", "kind", "term", "importance", "lowest", "highest",
                    "observed", "declared")
 
 
-def _share_at_most(profile: FeatureProfile, value: float) -> float:
-    """Share of training rows at or below `value`, read off the percentile grid."""
-    points = np.asarray(profile.percentiles)
-    step = 1.0 / (len(points) - 1)
-    if value < points[0] or value == -np.inf:
-        return 0.0
-    if value >= points[-1]:
-        return 1.0
-    above = int(np.searchsorted(points, value, side="right"))  # points[above-1] <= value
-    low, high = points[above - 1], points[above]
-    return float((above - 1) * step + (value - low) / (high - low) * step)
-
-
 def _share_between(profile: FeatureProfile, low: float, high: float) -> float:
-    """Share of training rows in (low, high]: exact where value counts are kept."""
-    if profile.value_counts:
-        values = np.array([v for v, _ in profile.value_counts])
-        counts = np.array([c for _, c in profile.value_counts])
-        inside = (values > low) & (values <= high)
-        return float(counts[inside].sum() / counts.sum())
-    return max(0.0, _share_at_most(profile, high) - _share_at_most(profile, low))
+    """Share of training rows in (low, high]: the difference of the shares at or below
+    each end, each the training percentile just above it (exact where value counts are
+    kept)."""
+    ends = profile.percentile_of(np.nextafter([low, high], np.inf))
+    return max(0.0, float(ends[1] - ends[0]) / 100.0)
 
 
 def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
@@ -65,7 +50,7 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
                                        / (term.knots[index + 1] - knot))
             percentile = share = None
             if profile is not None and profile.percentiles:
-                percentile = 100.0 * _share_at_most(profile, knot)
+                percentile = float(profile.percentile_of(knot))
                 # the rows nearest this knot: between the midpoints to its neighbours
                 low = -np.inf if index == 0 else (term.knots[index - 1] + knot) / 2
                 high = np.inf if last else (knot + term.knots[index + 1]) / 2

