@@ -334,7 +334,12 @@ def _nice_step(span: float) -> float:
 
 
 def _line(code: str, note: str = "") -> str:
-    return f"{code:<28}# {note}" if note else code
+    return f"{code:<27} # {note}" if note else code
+
+
+def _better_way(model: AdditiveModel) -> str:
+    """The goal's direction that the schema calls better for the person."""
+    return "at-most" if model.schema.target.better == "lower" else "at-least"
 
 
 def template(model: AdditiveModel) -> str:
@@ -346,7 +351,8 @@ def template(model: AdditiveModel) -> str:
               if model.link == "logit" else
               _line(f"value = {_g(model.intercept)}", "the prediction to reach (here: the "
                     "training mean)"),
-              _line('direction = "at-least"', "at-least | at-most"),
+              _line(f'direction = "{_better_way(model)}"', "at-least | at-most (from the "
+                    "schema's [target] better)"),
               _line("# margin = 0.0", "pass the target by this much, in its own units"),
               _line("# max_changes = 3", "at most this many features change"),
               _line('# objective = "total-cost"', "total-cost | largest-cost | fewest-changes")]

@@ -289,6 +289,8 @@ def test_template_parses_back_with_every_feature_fixed(model, loans_schema):
     found = mutability_from_dict(data, model)
     assert found.rules == {}
     assert found.goal.target == 0.5
+    # the demo schema says a lower probability of default is better for the applicant
+    assert loans_schema.target.better == "lower" and found.goal.direction == "at-most"
     listed = set(data["feature"])
     assert listed == {f.name for f in loans_schema.features if not f.ignore}
     assert all(entry == {"change": "fixed"} for entry in data["feature"].values())
