@@ -24,6 +24,7 @@ from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import DEFAULT_SOLVER, Program, Solution, best_reachable, solve
 
+SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
            "promise of any decision. Real decisions follow the lender's or marketplace's "
            "policy and local law; protected characteristics are never levers.")
@@ -180,7 +181,8 @@ def _is_category(model: AdditiveModel, name: str) -> bool:
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
                candidates: Mapping[str, list[Candidate]],
                program: Program) -> tuple[str, list[tuple[str, str]]]:
-    """A summary line, and up to six (rule, sentence) pairs, the most limiting first."""
+    """A summary line, and up to six (rule, sentence) pairs, the most limiting first (the
+    summary line says how many there were when there were more)."""
     sign = _favourable(program.direction)
     gap = abs(program.threshold - best_reachable(program))
     findings: list[tuple[float, str, str]] = []
@@ -216,9 +218,12 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     needed = float(model.inverse_link(np.array([program.threshold]))[0])
     what = "probability" if model.link == "logit" else "prediction"
     bound = "at least" if program.direction == "at-least" else "at most"
-    summary = (f"the rules allow a {what} of {best:.3g} at best; the goal needs {bound} "
+    summary = (f"the rules allow a {what} of {best:.3g} at best; a plan must reach {bound} "
                f"{needed:.3g} (short by {gap:.3g} on the {scale(model)} scale)")
-    return summary, [(rule, text) for _, rule, text in findings[:6]]
+    if len(findings) > SHOWN_FINDINGS:
+        summary += (f"; the {SHOWN_FINDINGS} most limiting of {len(findings)} findings "
+                    "follow")
+    return summary, [(rule, text) for _, rule, text in findings[:SHOWN_FINDINGS]]
 
 
 def scale(model: AdditiveModel) -> str:

@@ -192,6 +192,8 @@ def test_no_plan_diagnosis_sizes_tables_where_training_rows_lie():
                                "lower": float(rows["Amount"].iloc[worst]) - 200}}}, model)
     result = find_plans(model, rows.iloc[worst], mutability)
     assert result.status == "none"
+    # 11 terms, 10 of them fixed: more findings than the six shown, and the summary says so
+    assert len(result.binding) == 7 and "the 6 most limiting of " in result.binding[0]
     current = model.contributions(rows.iloc[[worst]]).iloc[0]
 
     def lowest_central(name: str) -> float:
