@@ -49,9 +49,9 @@ def size_note(min_rows: int) -> str:
 
 
 def flag_words(flagged: pd.Series, small: pd.Series) -> list[str]:
-    """A group table's flag column as words: yes, no, or "too few rows" for a small group
+    """A group table's flag column as words: yes, no, or "too few" (rows) for a small group
     (its caption and note say how few)."""
-    return ["too few rows" if tiny else ("yes" if flag else "no")
+    return ["too few" if tiny else ("yes" if flag else "no")
             for flag, tiny in zip(flagged, small, strict=True)]
 
 

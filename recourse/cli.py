@@ -190,12 +190,12 @@ def audit_view(result: audit.Audit) -> RenderableType:
                                  title="Rows without a plan: the rule that binds most"))
     for column, table in result.groups.items():
         shown = pd.DataFrame({
-            "group": table["group"], "declined": table["declined"],
-            "with plan": table["with_plan"],
+            "group": table["group"], "rows": table["declined"],
+            "planned": table["with_plan"],
             "share": [f"{100 * v:.1f}%" for v in table["share_with_plan"]],
             "median cost": [f"{v:.3g}" if v == v else "" for v in table["median_cost"]],
             "ratio": [f"{v:.3f}" if v == v else "" for v in table["ratio_to_best"]],
-            "below 0.8": flag_words(table["flagged"], table["small"])})
+            "flagged": flag_words(table["flagged"], table["small"])})
         title = f"By {column}: " + flag_caption(table["group"], table["flagged"],
                                                 table["small"], result.min_group)
         parts.append(frame_table(shown, title=title))
