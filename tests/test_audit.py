@@ -229,7 +229,7 @@ def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
     model = fit_model(rows, credit_schema(), "sparse")
     model_file, data = tmp_path / "credit.json", tmp_path / "credit.csv"
     artifact.save(model, model_file)
-    sample = rows.head(1200)
+    sample = rows.head(800)
     sample.to_csv(data, index=False)
     rules = tmp_path / "rules.toml"
     rules.write_text("[goal]\nprobability = 0.3\ndirection = 'at-most'\nmargin = 0.02\n"

@@ -102,7 +102,7 @@ def islr_files(tmp_path_factory, islr_default):
         folder / "default.csv", index=False)
     (folder / "rules.toml").write_text(
         "[goal]\nprobability = 0.5\ndirection = 'at-most'\nmargin = 0.1\n"
-        "[feature.balance]\nchange = 'decrease'\nlower = 0.0\nstep = 1\ncost = 1.0\n")
+        "[feature.balance]\nchange = 'decrease'\nlower = 0.0\nstep = 10\ncost = 1.0\n")
     # The truth, from the published coefficients (ISLR Table 4.3, from memory) and
     # scipy.special.expit, not from the model's code: 145 rows above 0.5, 68 more in (0.4, 0.5].
     probability = expit(-10.8690 + 0.005737 * islr_default["balance"]
