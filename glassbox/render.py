@@ -95,6 +95,9 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     left_out = [f.name for f in model.schema.used_features if f.name not in model.features]
     if left_out:
         pairs["features left out"] = ", ".join(left_out)
+    held = (meta.get("details") or {}).get("held_flat_by_declared_direction")
+    if held:
+        pairs["flat: declared direction binds"] = ", ".join(held)
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)
