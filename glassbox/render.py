@@ -157,13 +157,16 @@ def warning_text(message: str) -> Text:
 
 
 def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
-                    sparsity: pd.DataFrame, folds: int, repeats: int) -> RenderableType:
+                    sparsity: pd.DataFrame, folds: int, repeats: int,
+                    cost_note: str = "") -> RenderableType:
     """What `glassbox compare` prints: the headline, accuracy, cost, the sparsity curve."""
     parts: list[RenderableType] = [
         Text(headline, style="bold"), Text(""),
         frame_table(accuracy, title=f"Held-out accuracy, {folds} folds × {repeats}"),
         frame_table(cost, title="Cost against the benchmark, paired by fold"),
     ]
+    if cost_note:
+        parts += [Text(cost_note), Text("")]
     if not sparsity.empty:
         parts.append(frame_table(sparsity, title="Sparse family by number of features"))
     return Group(*parts)

@@ -151,11 +151,17 @@ def test_compare_prints_headline_and_writes_json(tmp_path):
     result = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
                  "sparse,boosted", "--folds", "3", "--out", out)
     assert result.exit_code == 0, result.output
-    assert result.stdout.lstrip().startswith("Best glass-box model:")
+    assert result.stdout.lstrip().startswith("Best of 2 glass-box models:")
     assert "Cost against the benchmark" in result.stdout
+    assert "positive means the glass-box model does worse" in result.stdout
     document = json.loads(out.read_text())
     assert document["settings"]["folds"] == 3
     assert document["provenance"]["data_file_sha256"].startswith("sha256:")
+    assert document["provenance"]["schema_file_sha256"].startswith("sha256:")
+    assert document["schema"]["target"]["better"] == "lower"
+    assert document["rerun"] == ("glassbox compare small.csv --schema loans.schema.toml "
+                                 "--families sparse,boosted --benchmark trees --folds 3 "
+                                 "--repeats 1 --seed 0 --cutoff 0.5")
     markdown = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
                    "sparse", "--folds", "3", "--format", "markdown")
     assert markdown.stdout.startswith("# Accuracy cost of the glass-box models")
