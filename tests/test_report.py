@@ -25,7 +25,7 @@ from glassbox.errors import DataError
 from glassbox.fitting import fit_model
 from glassbox.schema import read_table
 
-from .conftest import DEMO, one_line_error
+from .conftest import DEMO, credit_files, one_line_error
 
 runner = CliRunner()
 PNG = b"\x89PNG\r\n\x1a\n"
@@ -315,44 +315,6 @@ def test_page_renders_in_headless_chromium(work, tmp_path):
 
 # ---------------------------------------------------------------- cut-offs and the recourse audit
 
-CREDIT_SCHEMA = """
-id = "application"
-
-[target]
-column = "Status"
-positive = "bad"
-better = "lower"
-
-[feature.Seniority]
-kind = "integer"
-
-[feature.Home]
-kind = "category"
-fill = "unknown"
-
-[feature.Age]
-kind = "integer"
-protected = true
-
-[feature.Records]
-kind = "flag"
-
-[feature.Job]
-kind = "category"
-fill = "unknown"
-
-[feature.Income]
-kind = "integer"
-fill = 0
-
-[feature.Debt]
-kind = "integer"
-fill = 0
-
-[feature.Amount]
-kind = "integer"
-"""
-
 CREDIT_RULES = """
 [goal]
 probability = 0.3
@@ -380,17 +342,12 @@ def credit(tmp_path_factory):
     audit of those rows at a goal of at most 0.3, and rows 401-800 as another data file."""
     from recourse.cli import app as recourse_app
 
-    from .conftest import reference_data
-
     folder = tmp_path_factory.mktemp("credit-report")
-    frame = reference_data("modeldata", "credit_data")
-    frame.insert(0, "application", [f"C{i:04d}" for i in range(1, len(frame) + 1)])
-    frame.iloc[:400].to_csv(folder / "first.csv", index=False)
-    frame.iloc[400:800].to_csv(folder / "second.csv", index=False)
-    (folder / "credit.toml").write_text(CREDIT_SCHEMA, encoding="utf-8")
+    credit_files(folder, "first.csv", slice(0, 400))
+    credit_files(folder, "second.csv", slice(400, 800))
     (folder / "rules.toml").write_text(CREDIT_RULES, encoding="utf-8")
     for name, data in (("first.json", "first.csv"), ("second.json", "second.csv")):
-        result = run("fit", folder / data, "--schema", folder / "credit.toml", "--out",
+        result = run("fit", folder / data, "--schema", folder / "credit.schema.toml", "--out",
                      folder / name)
         assert result.exit_code == 0, result.output
     audited = runner.invoke(recourse_app, [
@@ -454,7 +411,7 @@ def test_the_accuracy_column_names_its_own_cut_off(credit):
     frame = read_table(credit / "first.csv")
     from glassbox.schema import load_schema
 
-    comparison = compare(frame, load_schema(credit / "credit.toml"), settings)
+    comparison = compare(frame, load_schema(credit / "credit.schema.toml"), settings)
     (credit / "compare.json").write_text(json.dumps(comparison.to_dict()), encoding="utf-8")
     out = credit / "with-comparison"
     result = run("report", credit / "first.json", "--data", credit / "first.csv",

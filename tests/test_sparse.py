@@ -25,6 +25,14 @@ def per_unit(model) -> tuple[float, dict[str, float]]:
     return details["intercept_per_unit"], details["coefficients_per_unit"]
 
 
+def assert_coefficients(model, params, names, rel: float) -> None:
+    """The model's intercept and per-unit coefficients against a reference's params."""
+    intercept, coefs = per_unit(model)
+    assert intercept == pytest.approx(params["const"], rel=rel)
+    for name in names:
+        assert coefs[name] == pytest.approx(params[name], rel=rel), name
+
+
 def statsmodels_logit(frame: pd.DataFrame, target: np.ndarray, columns: list[str]):
     design = sm.add_constant(frame[columns].astype(float))
     return sm.Logit(target, design).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
@@ -130,10 +138,7 @@ def test_regression_matches_statsmodels_ols(mroz):
     model = fit_model(mroz, schema, "sparse")
     reference = sm.OLS(mroz["hours"].astype(float),
                        sm.add_constant(mroz[MROZ_COLUMNS].astype(float))).fit()
-    intercept, coefs = per_unit(model)
-    assert intercept == pytest.approx(reference.params["const"], rel=1e-8)
-    for name in MROZ_COLUMNS:
-        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-8)
+    assert_coefficients(model, reference.params, MROZ_COLUMNS, rel=1e-8)
     np.testing.assert_allclose(model.predict(mroz), reference.fittedvalues, atol=1e-8)
 
 
@@ -249,9 +254,7 @@ def test_a_binding_direction_in_a_logistic_refit(mroz):
     target = mroz["inlf"].to_numpy(dtype=float)
     kept = [c for c in MROZ_COLUMNS if c != "kidsge6"]
     reference = statsmodels_logit(mroz, target, kept)
-    assert intercept == pytest.approx(reference.params["const"], rel=1e-4)
-    for name in kept:
-        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-4)
+    assert_coefficients(model, reference.params, kept, rel=1e-4)
     full = sm.Logit(target, sm.add_constant(mroz[MROZ_COLUMNS].astype(float)))
     params = np.r_[intercept, [coefs[name] for name in MROZ_COLUMNS]]
     gradient = dict(zip(["const", *MROZ_COLUMNS], full.score(params), strict=True))
@@ -288,10 +291,7 @@ def test_a_binding_direction_in_least_squares(mroz):
     kept = [c for c in MROZ_COLUMNS if c != "kidsge6"]
     reference = sm.OLS(mroz["hours"].astype(float),
                        sm.add_constant(mroz[kept].astype(float))).fit()
-    intercept, coefs = per_unit(model)
-    assert intercept == pytest.approx(reference.params["const"], rel=1e-8)
-    for name in kept:
-        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-8)
+    assert_coefficients(model, reference.params, kept, rel=1e-8)
     assert float(reference.resid @ mroz["kidsge6"]) < 0  # raising it would not help
 
 
