@@ -74,10 +74,10 @@ def scoring_rows(sets: dict[str, tuple]) -> list[str]:
     gaps: list[str] = []
     for name, (frame, schema) in sets.items():
         prepared = prepare(frame, schema)
-        estimator, design, chosen, _ = sparse.fit_estimator(
-            prepared.features, prepared.target, schema, task="classification")
+        fitted = sparse.fit_estimator(prepared.features, prepared.target, schema,
+                                      task="classification")
         model = fit_model(frame, schema, "sparse")
-        matrix = design.matrix[:, design.columns_of(set(chosen))]
+        estimator, matrix = fitted.estimator, fitted.design.matrix[:, fitted.columns]
         gap = np.max(np.abs(model.score(frame) - estimator.decision_function(matrix)))
         typed = prepared.features
         result = side_by_side({

@@ -29,7 +29,9 @@ from glassbox.compare import (
     CompareSettings,
     accuracy_table,
     compare,
+    cost_note,
     cost_table,
+    rerun_command,
     sparsity_table,
 )
 from glassbox.compare import to_markdown as compare_markdown
@@ -341,7 +343,7 @@ def compare_command(
     if format is CompareFormat.table:
         stdout_console().print(comparison_view(result.headline, accuracy_table(result),
                                         cost_table(result), sparsity_table(result),
-                                        folds, repeats))
+                                        folds, repeats, cost_note(result)))
         if out is None:
             return
         # with the table shown, --out keeps a file too, in the format its suffix names
@@ -349,6 +351,8 @@ def compare_command(
     if format is CompareFormat.json:
         document = result.to_dict()
         document["provenance"]["data_file_sha256"] = file_sha256(data)
+        document["provenance"]["schema_file_sha256"] = file_sha256(schema)
+        document["rerun"] = rerun_command(result.settings, data.name, schema.name)
         text = json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
     else:
         text = compare_markdown(result)

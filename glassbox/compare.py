@@ -5,12 +5,19 @@ same (stratified, for classification) folds, so their differences are paired.
 Intervals use the corrected resampled t statistic of Nadeau & Bengio (2003,
 Machine Learning 52): the variance of a mean over J resampled folds is
 (1/J + n_test/n_train) * s², not s²/J, because the training sets overlap.
+
+One sign convention throughout (`COST_CONVENTION`): a glass-box model's cost is how
+much worse it scores than the benchmark, the benchmark's score minus its own where
+higher is better (ROC AUC, accuracy, R²) and its own minus the benchmark's where lower
+is better (log loss, Brier, RMSE, MAE); a negative cost is a gain. Only these paired
+costs get a test against zero; a single model's metric gets its interval only.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -22,6 +29,7 @@ from threadpoolctl import threadpool_limits
 
 from glassbox import __version__
 from glassbox.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
+from glassbox.documents import checksum
 from glassbox.errors import DataError, OptionError
 from glassbox.families import FAMILIES
 from glassbox.files import read_json
@@ -31,13 +39,17 @@ from glassbox.provenance import frame_fingerprint, library_versions
 from glassbox.schema import Schema, prepare
 
 FORMAT = "glassbox-comparison"
-VERSION = 1
+VERSION = 2  # 2: costs signed as the screen shows them, the schema inside; 1 is still read
 CLASSIFICATION_METRICS = ("auc", "log_loss", "brier", "accuracy")
 REGRESSION_METRICS = ("rmse", "mae", "r2")
 HIGHER_IS_BETTER = {"auc": True, "accuracy": True, "r2": True, "log_loss": False,
                     "brier": False, "rmse": False, "mae": False}
 METRIC_NAMES = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier",
                 "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+COST_CONVENTION = ("cost = benchmark minus glass-box model for metrics where higher is better "
+                   "(auc, accuracy, r2), glass-box model minus benchmark where lower is better "
+                   "(log_loss, brier, rmse, mae): a positive cost means the glass-box model "
+                   "does worse, a negative one that it does better")
 
 
 @dataclass(frozen=True)
@@ -214,11 +226,12 @@ class Comparison:
     primary: str
     headline: str
     models: pd.DataFrame        # model, kind, metric, mean, lower, upper
-    differences: pd.DataFrame   # model, metric, mean, lower, upper, t, p_value, better
+    costs: pd.DataFrame         # model, metric, cost, lower, upper, t, p_value, ...
     folds: pd.DataFrame         # one row per model per fold
     sparsity: pd.DataFrame      # max_features, metric, mean, lower, upper
     settings: dict[str, Any]
     provenance: dict[str, Any]
+    schema: dict[str, Any] | None = None  # as in model files; None in version 1 files
 
     def to_dict(self) -> dict[str, Any]:
         def records(table: pd.DataFrame) -> list[dict]:
@@ -227,8 +240,10 @@ class Comparison:
 
         return {"format": FORMAT, "version": VERSION, "headline": self.headline,
                 "task": self.task, "primary_metric": self.primary,
+                "cost_convention": COST_CONVENTION, "schema": self.schema,
+                "schema_sha256": None if self.schema is None else checksum(self.schema),
                 "settings": self.settings, "provenance": self.provenance,
-                "models": records(self.models), "differences": records(self.differences),
+                "models": records(self.models), "costs": records(self.costs),
                 "sparsity_curve": records(self.sparsity), "folds": records(self.folds)}
 
 
@@ -320,27 +335,27 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     share = float(test_rows / train_rows)
     benchmark = f"benchmark ({settings.benchmark})"
     order = [*settings.families, benchmark]
-    model_rows, difference_rows = [], []
+    model_rows, cost_rows = [], []
     base = fold_rows[fold_rows["model"] == benchmark].set_index(["repeat", "fold"])
     for name in order:
         rows = fold_rows[fold_rows["model"] == name].set_index(["repeat", "fold"])
         for metric in metrics:
+            spread = interval(rows[metric], share)
             model_rows.append({"model": name,
                                "kind": "black box" if name == benchmark else "glass box",
-                               "metric": metric, **interval(rows[metric], share)})
+                               "metric": metric,
+                               **{k: spread[k] for k in ("mean", "lower", "upper")}})
             if name == benchmark:
                 continue
-            paired = rows[metric] - base.loc[rows.index, metric]
-            result = interval(paired, share)
-            better = result["mean"] > 0 if HIGHER_IS_BETTER[metric] else result["mean"] < 0
-            distinct = not (result["lower"] <= 0 <= result["upper"])
-            difference_rows.append({"model": name, "metric": metric, **result,
-                                    "glass_box_better": bool(better),
-                                    "distinguishable": bool(distinct)})
+            worse = base.loc[rows.index, metric] - rows[metric]  # higher is better
+            result = interval(worse if HIGHER_IS_BETTER[metric] else -worse, share)
+            cost_rows.append({"model": name, "metric": metric, "cost": result.pop("mean"),
+                              **result, "distinguishable": bool(not (result["lower"] <= 0
+                                                                     <= result["upper"]))})
     models = pd.DataFrame(model_rows)
-    differences = pd.DataFrame(difference_rows)
+    costs = pd.DataFrame(cost_rows)
     sparsity = _sparsity(curve_rows, metrics, share)
-    headline = make_headline(models, differences, primary, benchmark)
+    headline = make_headline(models, costs, primary, benchmark)
     provenance = {"rows": int(len(prepared.features)),
                   "features": list(prepared.features.columns),
                   "data_sha256": frame_fingerprint(prepared.features.assign(
@@ -355,8 +370,8 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "family_options": settings.family_options,
                        "interval": "95%, corrected resampled t (Nadeau & Bengio 2003)",
                        "test_to_train_ratio": share}
-    return Comparison(goal, primary, headline, models, differences,
-                      fold_rows.reset_index(drop=True), sparsity, settings_record, provenance)
+    return Comparison(goal, primary, headline, models, costs, fold_rows.reset_index(drop=True),
+                      sparsity, settings_record, provenance, schema.to_dict())
 
 
 def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) -> pd.DataFrame:
@@ -371,30 +386,35 @@ def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) ->
     return pd.DataFrame(rows)
 
 
-def make_headline(models: pd.DataFrame, differences: pd.DataFrame, primary: str,
+def make_headline(models: pd.DataFrame, costs: pd.DataFrame, primary: str,
                   benchmark: str) -> str:
-    """One sentence: the best glass-box model, its cost against the benchmark, and whether
-    that cost is distinguishable from zero."""
+    """The best glass-box model, its cost against the benchmark with the interval (and,
+    when it was picked from several, that the interval does not allow for the picking),
+    and what the interval says."""
     glass = models[(models["kind"] == "glass box") & (models["metric"] == primary)]
     best = glass.sort_values("mean", ascending=not HIGHER_IS_BETTER[primary],
                              kind="mergesort").iloc[0]
-    gap = differences[(differences["model"] == best["model"])
-                      & (differences["metric"] == primary)].iloc[0]
-    sign = 1.0 if HIGHER_IS_BETTER[primary] else -1.0
-    cost = -sign * gap["mean"]  # positive: the glass box is worse
-    low, high = sorted((-sign * gap["lower"], -sign * gap["upper"]))
+    gap = costs[(costs["model"] == best["model"]) & (costs["metric"] == primary)].iloc[0]
+    cost, low, high = gap["cost"], gap["lower"], gap["upper"]
     name = METRIC_NAMES[primary]
-    if gap["distinguishable"]:
-        verdict = ("a real cost (the interval excludes zero)" if cost > 0 else
-                   "a real gain over the benchmark (the interval excludes zero)")
-    else:
-        verdict = "not distinguishable from zero"
     what = "costs" if cost >= 0 else "gains"
     if cost < 0:  # speak of the gain, and give the gain's interval
-        low, high = -high, -low
-    return (f"Best glass-box model: {best['model']} ({name} {best['mean']:.3f}); against "
-            f"the {benchmark} it {what} {abs(cost):.3f} {name} (95% interval {low:.3f} to "
-            f"{high:.3f}), {verdict}.")
+        cost, low, high = -cost, -high, -low
+    picked = len(glass)
+    who = (f"Best of {picked} glass-box models: " if picked > 1 else "Glass-box model: ")
+    caveat = (f", not adjusted for picking the best of {picked} on these same folds, which "
+              "flatters the winner" if picked > 1 else "")
+    if np.isnan(low):
+        verdict = "one fold gives no interval"
+    elif not gap["distinguishable"]:
+        verdict = "the interval contains zero, so these folds cannot tell the two apart"
+    else:
+        side = "scores higher" if gap["cost"] > 0 else "scores lower"
+        verdict = (f"the interval excludes zero: on this data the benchmark {side} by more "
+                   "than the folds vary, which says nothing of whether the gap matters")
+    return (f"{who}{best['model']} ({name} {best['mean']:.3f}). Against the {benchmark} it "
+            f"{what} {cost:.3f} {name} (95% interval {low:.3f} to {high:.3f}{caveat}): "
+            f"{verdict}.")
 
 
 # ---------------------------------------------------------------- tables for people
@@ -402,6 +422,13 @@ def make_headline(models: pd.DataFrame, differences: pd.DataFrame, primary: str,
 
 def _range(lower: float, upper: float, digits: int) -> str:
     return "" if np.isnan(lower) else f"{lower:.{digits}f} to {upper:.{digits}f}"
+
+
+def metric_heading(comparison: Comparison, metric: str) -> str:
+    """A metric's name for people; accuracy says the cut-off it counts at."""
+    if metric == "accuracy":
+        return f"accuracy at {comparison.settings.get('cutoff', 0.5):g}"
+    return METRIC_NAMES[metric]
 
 
 def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
@@ -412,7 +439,7 @@ def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
         mine = models[models["model"] == name].set_index("metric")
         row: dict[str, Any] = {"model": name}
         for metric in mine.index:
-            row[METRIC_NAMES[metric]] = f"{mine.loc[metric, 'mean']:.{digits}f}"
+            row[metric_heading(comparison, metric)] = f"{mine.loc[metric, 'mean']:.{digits}f}"
             if metric == primary:
                 row["95% interval"] = _range(mine.loc[metric, "lower"],
                                              mine.loc[metric, "upper"], digits)
@@ -422,19 +449,28 @@ def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
 
 def cost_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
     """Each glass-box model's paired cost against the benchmark in the primary metric
-    (positive: the glass box is worse)."""
-    primary = comparison.primary
-    sign = 1.0 if HIGHER_IS_BETTER[primary] else -1.0
-    gaps = comparison.differences[comparison.differences["metric"] == primary]
+    (positive: the glass box is worse; see `COST_CONVENTION`)."""
+    gaps = comparison.costs[comparison.costs["metric"] == comparison.primary]
     rows = []
     for gap in gaps.to_dict(orient="records"):
-        low, high = sorted((-sign * gap["lower"], -sign * gap["upper"]))
         rows.append({"model": gap["model"],
-                     f"cost in {METRIC_NAMES[primary]}": f"{-sign * gap['mean']:.{digits}f}",
-                     "95% interval": _range(low, high, digits),
+                     f"cost in {METRIC_NAMES[comparison.primary]}":
+                         f"{gap['cost']:.{digits}f}",
+                     "95% interval": _range(gap["lower"], gap["upper"], digits),
                      "p-value": f"{gap['p_value']:.3f}",
                      "differs from zero": "yes" if gap["distinguishable"] else "no"})
     return pd.DataFrame(rows)
+
+
+def cost_note(comparison: Comparison) -> str:
+    """What the cost column means, in a line."""
+    name = METRIC_NAMES[comparison.primary]
+    if HIGHER_IS_BETTER[comparison.primary]:
+        way = f"the benchmark's {name} minus the glass-box model's"
+    else:
+        way = f"the glass-box model's {name} minus the benchmark's"
+    return (f"Cost is {way}, fold by fold: positive means the glass-box model does worse. "
+            "The p-value tests a cost of zero (corrected resampled t).")
 
 
 def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
@@ -453,6 +489,15 @@ def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
     })
 
 
+def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
+    """The `glassbox compare` command line that repeats a comparison made with `settings`
+    (the schema file holding the comparison's "schema" table, as TOML)."""
+    return (f"glassbox compare {data} --schema {schema} --families "
+            f"{','.join(settings['families'])} --benchmark {settings['benchmark']} --folds "
+            f"{settings['folds']} --repeats {settings['repeats']} --seed {settings['seed']} "
+            f"--cutoff {settings['cutoff']:g}")
+
+
 def to_markdown(comparison: Comparison) -> str:
     """The headline, the overview and the sparsity curve as Markdown."""
     from glassbox.formats import to_markdown as table_markdown
@@ -460,7 +505,8 @@ def to_markdown(comparison: Comparison) -> str:
     parts = ["# Accuracy cost of the glass-box models", "", comparison.headline, "",
              "## Accuracy on held-out folds", "", table_markdown(accuracy_table(comparison)),
              f"## Cost against the {comparison.settings['benchmark']} benchmark "
-             "(paired by fold)", "", table_markdown(cost_table(comparison))]
+             "(paired by fold)", "", table_markdown(cost_table(comparison)),
+             cost_note(comparison), ""]
     curve = sparsity_table(comparison)
     if not curve.empty:
         parts += ["## Sparse family: accuracy by number of features", "",
@@ -473,34 +519,64 @@ def to_markdown(comparison: Comparison) -> str:
 
 # ---------------------------------------------------------------- reading a comparison file
 
-NUMBER_COLUMNS = ("mean", "lower", "upper", "t", "p_value")
+NUMBER_COLUMNS = ("mean", "cost", "lower", "upper", "t", "p_value")
+
+
+def _version_one_costs(differences: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Version 1 files kept glass-box minus benchmark for every metric: turn that into
+    costs (`COST_CONVENTION`), flipping the metrics where higher is better."""
+    costs = []
+    for row in differences:
+        flip = -1.0 if HIGHER_IS_BETTER.get(row.get("metric"), True) else 1.0
+        ends = sorted(flip * float(v) if v is not None else math.nan
+                      for v in (row.get("lower"), row.get("upper")))
+        costs.append({"model": row.get("model"), "metric": row.get("metric"),
+                      "cost": flip * float(row["mean"]), "lower": ends[0], "upper": ends[1],
+                      "t": None if row.get("t") is None else flip * float(row["t"]),
+                      "p_value": row.get("p_value"),
+                      "distinguishable": row.get("distinguishable")})
+    return costs
 
 
 def comparison_from_dict(document: Any, source: str = "the comparison") -> Comparison:
-    """Rebuild a `Comparison` from `Comparison.to_dict` output (a comparison JSON file)."""
+    """Rebuild a `Comparison` from `Comparison.to_dict` output (a comparison JSON file).
+
+    Version 1 files (without the schema, with differences signed glass-box minus
+    benchmark) are read too: their differences become costs and their headline is
+    written again in today's words from their numbers.
+    """
     if not isinstance(document, dict) or document.get("format") != FORMAT:
         raise DataError(f"{source} is not a glassbox comparison file (no \"format\": "
                         f"\"{FORMAT}\")")
-    if document.get("version") != VERSION:
-        raise DataError(f"{source} is comparison format version {document.get('version')!r}; "
-                        f"this glassbox reads version {VERSION}")
+    version = document.get("version")
+    if version not in (1, VERSION):
+        raise DataError(f"{source} is comparison format version {version!r}; this glassbox "
+                        f"reads versions 1 and {VERSION}")
 
-    def table(key: str) -> pd.DataFrame:
-        frame = pd.DataFrame(document.get(key) or [])
+    def table(rows: Any) -> pd.DataFrame:
+        frame = pd.DataFrame(rows or [])
         for column in NUMBER_COLUMNS:
             if column in frame:
                 frame[column] = pd.to_numeric(frame[column], errors="coerce").astype(float)
         return frame
 
     try:
-        return Comparison(
+        costs = (_version_one_costs(document["differences"]) if version == 1
+                 else document["costs"])
+        models = table(document["models"]).drop(columns=["t", "p_value"], errors="ignore")
+        comparison = Comparison(
             task=str(document["task"]), primary=str(document["primary_metric"]),
-            headline=str(document["headline"]), models=table("models"),
-            differences=table("differences"), folds=table("folds"),
-            sparsity=table("sparsity_curve"), settings=dict(document["settings"]),
-            provenance=dict(document["provenance"]))
-    except (KeyError, TypeError, ValueError) as exc:
-        raise DataError(f"{source} is incomplete: {exc}") from None
+            headline=str(document["headline"]), models=models, costs=table(costs),
+            folds=table(document.get("folds")), sparsity=table(document.get("sparsity_curve")),
+            settings=dict(document["settings"]), provenance=dict(document["provenance"]),
+            schema=document.get("schema"))
+        if version == 1:
+            benchmark = f"benchmark ({comparison.settings['benchmark']})"
+            comparison = replace(comparison, headline=make_headline(
+                models, comparison.costs, comparison.primary, benchmark))
+    except (KeyError, TypeError, ValueError, IndexError) as exc:
+        raise DataError(f"{source} is incomplete: {type(exc).__name__} {exc}") from None
+    return comparison
 
 
 def read_comparison(path: str | Path) -> Comparison:

@@ -3,11 +3,14 @@
 They follow scikit-learn's contract (configuration in `__init__`, learning in
 `fit`, learned state in attributes ending in `_`), so `clone`, `Pipeline` and
 `GridSearchCV` work. Arrays get columns named x0, x1, ...; a DataFrame keeps its
-column names and, with a `schema`, its declared kinds.
+column names and, with a `schema` (a `Schema` or the path of a TOML file), everything the
+schema declares: the fit takes the same path as `glassbox fit`, so the model, its reasons
+and its points card are the ones the command would make from the same rows.
 """
 
 from __future__ import annotations
 
+import os
 from typing import Any
 
 import numpy as np
@@ -18,8 +21,16 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from glassbox.additive import AdditiveModel
+from glassbox.errors import SchemaError
 from glassbox.fitting import fit_model
-from glassbox.schema import FeatureSpec, Schema, TargetSpec, infer_kind, load_schema
+from glassbox.schema import (
+    FeatureSpec,
+    Schema,
+    TargetSpec,
+    encode_target,
+    infer_kind,
+    load_schema,
+)
 
 TARGET = "__target__"
 
@@ -30,7 +41,8 @@ class _AdditiveEstimator(BaseEstimator):
     _task = "classification"
 
     def __init__(self, family: str = "sparse", max_features: int | None = None,
-                 schema: Schema | str | None = None, options: dict[str, Any] | None = None):
+                 schema: Schema | str | os.PathLike | None = None,
+                 options: dict[str, Any] | None = None):
         self.family = family
         self.max_features = max_features
         self.schema = schema
@@ -58,24 +70,30 @@ class _AdditiveEstimator(BaseEstimator):
         names = [f"x{i}" for i in range(array.shape[1])]
         return pd.DataFrame(array, columns=names), y
 
-    def _schema(self, frame: pd.DataFrame, positive: Any) -> Schema:
-        if isinstance(self.schema, Schema):
-            schema = self.schema
-        elif isinstance(self.schema, str):
-            schema = load_schema(self.schema)
-        else:
+    def _schema(self, frame: pd.DataFrame) -> Schema:
+        """The schema to fit with: a given one exactly as `glassbox fit` reads it (target
+        column, positive label, `better`, id, every feature's declarations), or, without
+        one, kinds inferred from X and a target named __target__ whose positive label is 1."""
+        if self.schema is None:
             features = tuple(FeatureSpec(name, infer_kind(frame[name])) for name in frame)
-            return Schema(TargetSpec(TARGET, self._task, positive), features)
-        return Schema(TargetSpec(TARGET, self._task, positive), schema.features,
-                      schema.id_column, schema.source)
+            return Schema(TargetSpec(TARGET, self._task, 1 if self._task == "classification"
+                                     else None), features)
+        schema = self.schema if isinstance(self.schema, Schema) else load_schema(self.schema)
+        if schema.target.task != self._task:
+            where = f"schema {schema.source}" if schema.source else "the schema"
+            raise SchemaError(f"{where} declares a {schema.target.task} target, but "
+                              f"{type(self).__name__} fits {self._task}")
+        return schema
 
-    def _fit(self, frame: pd.DataFrame, target: np.ndarray, positive: Any) -> None:
-        schema = self._schema(frame, positive)
+    def _fit(self, frame: pd.DataFrame, target: np.ndarray) -> Schema:
+        """Fit through `fit_model`, the path `glassbox fit` takes; return the schema used."""
+        schema = self._schema(frame)
         options = dict(self.options or {})
         if self.max_features is not None:
             options["max_features"] = self.max_features
-        data = frame.assign(**{TARGET: target})
+        data = frame.assign(**{schema.target.column: target})
         self.model_: AdditiveModel = fit_model(data, schema, self.family, **options)
+        return schema
 
     def _score(self, X: Any) -> np.ndarray:
         check_is_fitted(self, "model_")
@@ -101,12 +119,21 @@ class AdditiveClassifier(ClassifierMixin, _AdditiveEstimator):
             found = "one class" if len(self.classes_) == 1 else f"{len(self.classes_)} classes"
             raise ValueError("Only binary classification is supported: AdditiveClassifier "
                              f"needs exactly two classes in y, found {found}")
-        self._fit(frame, (y == self.classes_[1]).astype(int), 1)
+        if self.schema is None:
+            self._fit(frame, (y == self.classes_[1]).astype(int))
+            self.positive_class_ = self.classes_[1]
+        else:
+            schema = self._fit(frame, y)
+            # the label the model gives the probability of, decided as fit_model decided it
+            positive = encode_target(pd.Series(y), schema, "y").astype(bool)
+            self.positive_class_ = y[np.flatnonzero(positive)[0]]
         return self
 
     def decision_function(self, X: Any) -> np.ndarray:
-        """The score on the logit scale (log-odds of classes_[1])."""
-        return self._score(X)
+        """The log-odds of classes_[1] (scikit-learn's convention): the model's score, or
+        its negative when the schema's positive label is classes_[0]."""
+        score = self._score(X)
+        return score if self.positive_class_ == self.classes_[1] else -score
 
     def predict_proba(self, X: Any) -> np.ndarray:
         positive = expit(self.decision_function(X))
@@ -129,7 +156,7 @@ class AdditiveRegressor(RegressorMixin, _AdditiveEstimator):
 
     def fit(self, X: Any, y: Any) -> AdditiveRegressor:
         frame, y = self._frame(X, y, reset=True)
-        self._fit(frame, np.asarray(y, dtype=float), None)
+        self._fit(frame, np.asarray(y, dtype=float))
         return self
 
     def predict(self, X: Any) -> np.ndarray:

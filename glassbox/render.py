@@ -95,6 +95,9 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     left_out = [f.name for f in model.schema.used_features if f.name not in model.features]
     if left_out:
         pairs["features left out"] = ", ".join(left_out)
+    held = (meta.get("details") or {}).get("held_flat_by_declared_direction")
+    if held:
+        pairs["flat: declared direction binds"] = ", ".join(held)
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)
@@ -154,13 +157,16 @@ def warning_text(message: str) -> Text:
 
 
 def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
-                    sparsity: pd.DataFrame, folds: int, repeats: int) -> RenderableType:
+                    sparsity: pd.DataFrame, folds: int, repeats: int,
+                    cost_note: str = "") -> RenderableType:
     """What `glassbox compare` prints: the headline, accuracy, cost, the sparsity curve."""
     parts: list[RenderableType] = [
         Text(headline, style="bold"), Text(""),
         frame_table(accuracy, title=f"Held-out accuracy, {folds} folds × {repeats}"),
         frame_table(cost, title="Cost against the benchmark, paired by fold"),
     ]
+    if cost_note:
+        parts += [Text(cost_note), Text("")]
     if not sparsity.empty:
         parts.append(frame_table(sparsity, title="Sparse family by number of features"))
     return Group(*parts)

@@ -160,12 +160,7 @@ def build_report(
     """
     from glassbox import compare, reasons, report_recourse
 
-    audit = None
-    if recourse_file is not None:
-        audit = report_recourse.read_audit(recourse_file)
-        report_recourse.check_same_model(audit, model_file,
-                                         f"recourse audit file {Path(recourse_file).name}")
-
+    audit = report_recourse.read_audit(recourse_file) if recourse_file is not None else None
     model_name = f"model file {Path(model_file).name}" if model_file else "the model"
     if comparison is None and comparison_file is not None:
         comparison = compare.read_comparison(comparison_file)
@@ -174,6 +169,12 @@ def build_report(
                  else "the comparison")
         check_same_data(model, comparison, model_name, where)
     source = source or frame.attrs.get("source") or "the data"
+    if audit is not None:  # before any scoring: a mismatched audit is refused at once
+        reasons.unfavourable(model, np.zeros(0), cutoff)  # the cut-off's own checks
+        report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
+                                    model_file=model_file, data_file=source,
+                                    better=model.schema.target.better,
+                                    cutoff=0.5 if cutoff is None else float(cutoff))
     prepared = prepare(frame, model.schema, require_target=False, source=source,
                        features=model.features)
     score = model.score_encoded(prepared.features)
@@ -182,9 +183,10 @@ def build_report(
     prediction = model.inverse_link(score)
 
     sections = [Section("Read this first", (Bullets(CAUTIONS, caution=True),)),
-                _summary_section(model, model_file, cutoff, source, len(frame))]
+                _summary_section(model, model_file, cutoff, source, len(frame),
+                                 comparison is not None, audit is not None)]
     if comparison is not None:
-        sections.append(_comparison_section(comparison))
+        sections.append(_comparison_section(comparison, cutoff))
     sections.append(_importance_section(model))
     sections += _feature_sections(model)
     sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
@@ -192,7 +194,8 @@ def build_report(
                                       min_group)
     sections.append(_groups_section(model, group_tables, cutoff, min_group))
     if audit is not None:
-        sections.append(report_recourse.recourse_section(audit, min_group))
+        sections.append(report_recourse.recourse_section(
+            audit, int(unfavourable.sum()), cutoff, min_group))
     family = model.metadata.get("family", "additive")
     title = f"Audit report: {family} model of {model.schema.target.column}"
     intro = (f"Made by glassbox {__version__} from {model_name} and data file "
@@ -235,7 +238,8 @@ def _dated(model: AdditiveModel, model_file: str | Path | None) -> tuple[str, st
 
 
 def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff: float,
-                     source: str, rows: int) -> Section:
+                     source: str, rows: int, compared: bool = False,
+                     audited: bool = False) -> Section:
     meta, target = model.metadata, model.schema.target
     link = ("logit: the score is the log-odds of " + _outcome_words(model).removeprefix(
         "probability of ") if model.link == "logit" else "identity: the score is the prediction")
@@ -261,16 +265,28 @@ def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff
     pairs["report data"] = f"{Path(source).name}, {rows:,} rows"
     pairs["cut-off"] = f"{cutoff:g}; favourable: {_favourable_words(model, cutoff)}"
     table = pd.DataFrame({"item": list(pairs), "value": [str(v) for v in pairs.values()]})
-    return Section("Model summary", (Table(table, pairs=True),))
+    tables = "the principal reasons, the outcomes by group" + (
+        " and the recourse for the declined rows" if audited else "")
+    used = (f"Every table below that sorts rows into favourable and unfavourable uses the "
+            f"cut-off {cutoff:g} ({_favourable_words(model, cutoff)}): {tables}.")
+    if compared:
+        used += (" The accuracy comparison's accuracy column counts at the cut-off the "
+                 "comparison was made with, which its heading names.")
+    return Section("Model summary", (Table(table, pairs=True), Paragraph(used)))
 
 
-def _comparison_section(comparison) -> Section:
+def _comparison_section(comparison, cutoff: float) -> Section:
     from glassbox.compare import accuracy_table
 
     settings = comparison.settings
+    made_at = float(settings.get("cutoff", 0.5))
     note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
             f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
-            f"(fingerprint {str(comparison.provenance.get('data_sha256'))[:19]}...).")
+            f"(fingerprint {str(comparison.provenance.get('data_sha256'))[:19]}...). ROC AUC, "
+            f"log loss and Brier use no cut-off; accuracy counts a probability of "
+            f"{made_at:g} or more as the positive label, the cut-off the comparison was "
+            "made with" + ("." if made_at == cutoff else
+                           f", not this report's {cutoff:g}."))
     return Section("Accuracy against a black box", (
         Paragraph(comparison.headline), Table(accuracy_table(comparison)), Paragraph(note)))
 

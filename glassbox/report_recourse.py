@@ -7,6 +7,7 @@ glassbox does not import the planner: it reads the audit's JSON document (format
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 from typing import Any
 
@@ -38,15 +39,46 @@ def read_audit(path: str | Path) -> dict[str, Any]:
     return document
 
 
-def check_same_model(document: dict[str, Any], model_file: str | Path | None,
-                     audit_name: str) -> None:
-    """The audit must have planned with this very model file (both record its SHA-256)."""
-    planned_with = document.get("context", {}).get("model_file_sha256")
-    if model_file is None or planned_with is None:
-        return
-    if planned_with != file_sha256(model_file):
-        raise DataError(f"{audit_name} was made with another model than model file "
-                        f"{Path(model_file).name} (their SHA-256 differ)")
+GOAL_WORDS = {"lower": "at most", "higher": "at least"}  # the goal that matches `better`
+
+
+def check_audit(document: dict[str, Any], audit_name: str, *, model_file: str | Path | None,
+                data_file: str | Path | None, better: str, cutoff: float) -> None:
+    """Refuse an audit that was not made with this model file, on this data file, for the
+    goal this report's cut-off states: its tables would describe other rows."""
+    context = document.get("context") or {}
+    remake = "; remake it with `recourse audit ... --format json`"
+    for key, what in (("model_file_sha256", "model file"), ("data_file_sha256", "data file"),
+                      ("goal", "goal")):
+        if not context.get(key):
+            raise DataError(f"{audit_name} records no {what}, so it cannot be checked "
+                            f"against this report{remake}")
+    for key, given, what in (("model_file_sha256", model_file, "model file"),
+                             ("data_file_sha256", data_file, "data file")):
+        if given is None or not Path(given).is_file():
+            raise DataError(f"{audit_name} can only be checked against the {what} it was made "
+                            f"with: give the report that {what}")
+        if context[key] != file_sha256(given):
+            raise DataError(f"{audit_name} was made with another {what} than "
+                            f"{Path(given).name} (their SHA-256 differ)")
+    goal = str(context["goal"])
+    expected = f"{GOAL_WORDS[better]} {cutoff:g}"
+    if "goal_direction" in context and "goal_target" in context:  # audits since the field
+        same = (str(context["goal_direction"]).replace("-", " ") == GOAL_WORDS[better]
+                and _is_number(context["goal_target"])
+                and math.isclose(float(context["goal_target"]), cutoff, rel_tol=1e-12))
+    else:  # older audits record the goal as words only: read its last words
+        found = re.search(r"\b(at most|at least) (\S+)$", goal)
+        same = found is not None and found.group(0) == expected
+    if not same:
+        raise DataError(f"{audit_name} was made for the goal '{goal}', but this report's "
+                        f"cut-off makes favourable '{expected}': give the report the "
+                        "audit's cut-off (--cutoff), or remake the audit for this one")
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(
+        value)
 
 
 def _share(value: Any) -> str:
@@ -59,16 +91,32 @@ def _number(value: Any) -> str:
     return "" if value is None or not math.isfinite(float(value)) else f"{float(value):.3g}"
 
 
-def recourse_section(document: dict[str, Any], min_group: int = MIN_GROUP) -> Section:
-    """Shares with a plan, cost quantiles, main changes, binding rules and groups; groups of
-    fewer than `min_group` declined rows are judged as the report's own group tables are
-    (shown, not flagged), from the audit's counts."""
+def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = None,
+                     cutoff: float | None = None, min_group: int = MIN_GROUP) -> Section:
+    """Shares with a plan, cost quantiles, main changes, binding rules and groups.
+
+    `unfavourable_rows` is how many rows the report's other tables place on the
+    unfavourable side of its `cutoff`; the section says whether the audit's declined
+    rows are those rows. Groups of fewer than `min_group` declined rows are judged as the
+    report's own group tables are (shown, not flagged), from the audit's counts.
+    """
     summary = document["summary"]
     context = document.get("context", {})
     goal = context.get("goal", "the goal of the mutability file")
-    intro = (f"For each of the {summary['declined']:,} declined rows the planner looked for "
+    declined = int(summary["declined"])
+    if unfavourable_rows is None:
+        same = ""
+    elif unfavourable_rows == declined:
+        same = (f" These are the {declined:,} rows the tables above place on the "
+                f"unfavourable side of the cut-off, {cutoff:g}.")
+    else:
+        same = (f" The audit counted {declined:,} rows as declined, where the tables above "
+                f"place {unfavourable_rows:,} rows on the unfavourable side of the same "
+                f"cut-off, {cutoff:g}: read the two counts with care.")
+    intro = (f"For each of the {declined:,} declined rows the planner looked for "
              f"the cheapest changes, within the rules of the mutability file, that reach "
-             f"{goal}. {summary['with_plan']:,} rows ({_share(summary['share_with_plan'])}) "
+             f"{goal}.{same} {summary['with_plan']:,} rows "
+             f"({_share(summary['share_with_plan'])}) "
              f"have a plan; {summary['no_plan']:,} have none within the rules"
              + (f"; the rules do not fit {summary['misfits']:,}" if summary.get("misfits")
                 else "")

@@ -163,6 +163,7 @@ def audit_command(
                "data_file": str(data), "data_file_sha256": file_sha256(data),
                "mutability_file": str(mutability),
                "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
+               "goal_direction": goal.direction, "goal_target": goal.target,
                "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
     result = audit.audit(run.outcomes, by=groups, context=context, min_group=min_group)
     if format is AuditFormat.table:

