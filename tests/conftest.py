@@ -56,3 +56,33 @@ def loans_schema():
     from glassbox.schema import load_schema
 
     return load_schema(DEMO / "loans.schema.toml")
+
+
+CREDIT_SCHEMA = {
+    "target": {"column": "Status", "task": "classification", "positive": "bad",
+               "better": "lower"},
+    "feature": {
+        **{name: {"kind": "integer"} for name in ("Seniority", "Time", "Age", "Expenses")},
+        # money amounts: skewed, long right tails, many repeated round values
+        **{name: {"kind": "number"} for name in ("Income", "Assets", "Debt", "Amount",
+                                                 "Price")},
+        **{name: {"kind": "category"} for name in ("Home", "Marital", "Job")},
+        "Records": {"kind": "flag"},
+    },
+}
+
+
+@pytest.fixture(scope="session")
+def credit_data() -> tuple[pd.DataFrame, pd.DataFrame]:
+    """modeldata credit_data (a Spanish credit file, Status good/bad) with its rows with
+    gaps dropped, split for held-out checks: every third row held out, the rest to fit."""
+    frame = reference_data("modeldata", "credit_data").dropna().reset_index(drop=True)
+    held_out = frame.index % 3 == 0
+    return (frame[~held_out].reset_index(drop=True), frame[held_out].reset_index(drop=True))
+
+
+@pytest.fixture(scope="session")
+def credit_schema():
+    from glassbox.schema import Schema
+
+    return Schema.from_dict(CREDIT_SCHEMA)
