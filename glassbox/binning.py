@@ -1,21 +1,27 @@
 """Bins for a points card: a curve cut where it moves, each bin worth its exact mean.
 
-Cells (runs of training values, see `glassbox.cells`) are merged left to right
-while the term moves by at most the tolerance between the lowest and highest
-training value of the bin (every point in between counts, not only training
-values): flat stretches become one wide bin, steep ones (tails) many narrow
-bins. The merge is greedy, which gives the fewest bins any cutting at cell
-boundaries can give under the tolerance. A bin's value is the mean contribution
-over its training rows: the sum of its cells' sums over the sum of their rows.
+The cells of a curve (runs of training values, see `glassbox.cells`) are swept
+left to right. A bin takes the next cell, with the gap before it, while the curve
+moves by at most the tolerance over everything the bin covers (every point, not
+only training values): flat stretches become one wide bin, steep ones (tails)
+many narrow bins. When the next cell does not fit, the bin stretches into the gap
+as far as the tolerance allows, the next bin starts as far back as it can, and
+bins without training rows cover what neither reaches, so every value, seen in
+training or not, lies in a bin over which the curve moves at most the tolerance.
 
-An edge can be any number from one cell's highest value up to (not including)
-the next cell's lowest: all split the training rows alike. The edge taken is a
-number with the fewest significant digits there; among several, the one that
-keeps the largest difference for values between the two cells smallest.
+A bin's value is the mean contribution over its training rows: the sum of its
+cells' sums over the sum of their rows, exact. A bin without training rows is
+worth the middle of the lowest and highest value of the curve over it.
+
+An edge between two cells can be any number from one cell's highest value up to
+(not including) the next cell's lowest: all split the training rows alike. The
+edge taken is a number with the fewest significant digits in the allowed range.
+Whole features (integers, flags) take whole values only: a bin (a, b] covers
+a + 1, ..., b, and edges are whole numbers.
 
 Models fitted before cells existed give approximate cells: one per distinct value
-where the profile counts them (exact), else one per 1% slice between the
-stored percentiles, worth the curve's average over the slice (approximate).
+where the profile counts them (exact), else one per 1% slice between the stored
+percentiles, worth the curve's average over the slice (approximate).
 """
 
 from __future__ import annotations
@@ -260,7 +266,8 @@ def _bins(term: CurveTerm, cells: CellArrays, edges: list[float], whole: bool) -
     bins = np.searchsorted(np.asarray(edges, dtype=float), cells.upper, side="left")
     count = len(edges) + 1
     rows = np.bincount(bins, weights=cells.rows, minlength=count)
-    sums = [math.fsum(cells.sums[bins == b]) for b in range(count)]
+    bounds = np.searchsorted(bins, np.arange(count + 1), side="left")  # cells are in order
+    sums = [math.fsum(cells.sums[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
     lowest, highest = bin_extremes(term, tuple(edges), whole)
     values = [sums[b] / rows[b] if rows[b] > 0 else (lowest[b] + highest[b]) / 2.0
               for b in range(count)]

@@ -93,8 +93,8 @@ class FeaturePoints:
 
     `contributions` are the model's log-odds each row's points were rounded from
     (on the model's scale, before the good sign). Per row, when known: `training_rows`
-    (the unseen-level row has none), `spreads` (points: how far apart the contributions
-    of the row's training rows are) and `largest` (points: the largest difference any
+    (the unseen-level row has none), `spreads` (points: how far the term moves over
+    every value the row covers) and `largest` (points: the largest difference any
     value of the row can have from the exact scaled contribution; for levels the
     unseen-level row's comes last). `exact` is False when bin values are approximate
     (from percentiles); `resolution` is the widest spread of a stored cell, in points.
@@ -147,8 +147,8 @@ class FeaturePoints:
                                  "strictly increasing")
 
     def over(self, tolerance: float) -> int:
-        """How many rows' training contributions spread more than `tolerance` points."""
-        return int(sum(spread > tolerance for spread in self.spreads))
+        """How many rows spread more than `tolerance` points (beyond floating-point noise)."""
+        return int(sum(spread > tolerance * (1 + 1e-9) for spread in self.spreads))
 
     @property
     def by_level(self) -> bool:

@@ -63,10 +63,10 @@ from glassbox.provenance import frame_fingerprint
 from glassbox.reasons import unfavourable
 from glassbox.schema import prepare
 
-__all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling", "card_fidelity",
-           "card_summary", "card_table", "dumps", "exact_points", "feature_points", "load",
-           "loads", "model_checksum", "points_card", "save", "score_points", "tolerance_notes",
-           "whole_points", "with_fidelity"]
+__all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling",
+           "card_fidelity", "card_summary", "card_table", "check_tolerance", "dumps",
+           "exact_points", "feature_points", "load", "loads", "model_checksum", "points_card",
+           "save", "score_points", "tolerance_notes", "whole_points", "with_fidelity"]
 
 
 # ---------------------------------------------------------------- building a card
@@ -104,8 +104,8 @@ def _checked_cells(term: Any, cells: TermCells) -> CellArrays:
 def _level_points(model: AdditiveModel, term: LevelsTerm, scale: float) -> FeaturePoints:
     values = np.asarray([*term.values, term.unseen], dtype=float)
     points = whole_points(scale * values)
-    counts = dict(model.profile(term.feature).level_counts) if any(
-        p.feature == term.feature for p in model.profiles) else {}
+    profile = next((p for p in model.profiles if p.feature == term.feature), None)
+    counts = dict(profile.level_counts) if profile is not None else {}
     return FeaturePoints(
         term.feature, term.kind, tuple(int(p) for p in points[:-1]), tuple(term.values),
         levels=term.levels, unseen_points=int(points[-1]),
@@ -148,8 +148,8 @@ def _step_points(model: AdditiveModel, term: StepTerm, scale: float) -> FeatureP
 
 def feature_points(model: AdditiveModel, feature: str, scaling: Scaling,
                    tolerance: float | None = None) -> FeaturePoints:
-    """One term of the model as rows of whole points; curves cut so that each bin's
-    training contributions spread at most `tolerance` points (default: PDO / 4)."""
+    """One term of the model as rows of whole points; a curve cut so that it moves by at
+    most `tolerance` points over each bin (default: PDO / 20)."""
     term = model.term(feature)
     scale = scaling.factor * model.schema.target.good_sign
     if isinstance(term, LevelsTerm):
@@ -184,7 +184,7 @@ def model_checksum(model: AdditiveModel) -> str | None:
 def points_card(model: AdditiveModel, scaling: Scaling | None = None,
                 tolerance: float | None = None, cutoff: float = DEFAULT_CUTOFF) -> PointsCard:
     """The points card of a classification model: curves cut under `tolerance` points
-    (default PDO / 4); `cutoff` is the probability whose points the card states."""
+    (default PDO / 20); `cutoff` is the probability whose points the card states."""
     if model.link != "logit":
         raise OptionError(f"points need a classification model (logit link); this model is "
                           f"a {model.task} model (link {model.link})")
