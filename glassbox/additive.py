@@ -296,9 +296,9 @@ class AdditiveModel:
         if stray:
             raise ModelFileError(f"term(s) for {', '.join(stray)} which the schema does not use")
         summarised = [c.feature for c in self.cells]
-        if len(set(summarised)) != len(summarised) or not set(summarised) <= set(names):
-            raise ModelFileError("training cells must belong to the model's terms, one "
-                                 "summary per term")
+        if len(set(summarised)) != len(summarised) or not set(summarised) <= used:
+            raise ModelFileError("training cells must belong to features the schema uses, "
+                                 "one summary per feature")
 
     @property
     def features(self) -> tuple[str, ...]:

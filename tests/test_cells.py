@@ -151,8 +151,10 @@ def test_damaged_cells_are_refused_with_a_message(credit_models, change, words):
         TermCells.from_dict(data)
 
 
-def test_cells_must_belong_to_the_models_terms(credit_models):
+def test_cells_must_belong_to_used_features(credit_models):
     model = credit_models["sparse"]
     stray = replace(model.cells[0], feature="Nothing")
     with pytest.raises(ModelFileError, match="training cells"):
         replace(model, cells=(stray,))
+    with pytest.raises(ModelFileError, match="one summary per feature"):
+        replace(model, cells=(model.cells[0], model.cells[0]))
