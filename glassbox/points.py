@@ -65,7 +65,7 @@ from glassbox.schema import prepare
 
 __all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling",
            "card_fidelity", "card_summary", "card_table", "check_tolerance", "dumps",
-           "exact_points", "feature_points", "load", "loads", "model_checksum", "points_card",
+           "feature_points", "load", "loads", "model_checksum", "points_card",
            "save", "score_points", "tolerance_notes", "whole_points", "with_fidelity"]
 
 
@@ -295,12 +295,6 @@ def with_fidelity(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
                   source: str | None = None) -> PointsCard:
     """The card carrying its fidelity on `frame` (written into the card file)."""
     return replace(card, fidelity=card_fidelity(card, model, frame, source))
-
-
-def exact_points(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
-                 source: str | None = None) -> np.ndarray:
-    """The unrounded scaled score of each row: offset + factor × ln(odds good)."""
-    return card.scaling.score(card.good_sign * model.score(frame, source))
 
 
 def card_fidelity(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
