@@ -50,9 +50,9 @@ demo: $(STAMP)
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L001096
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L002331 --top 3
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --format csv --out $(OUT)/loans.reasons.csv
-	@echo "== 13. a points scorecard from the spline model, checked against the exact score"
-	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv
-	$(GB) points $(OUT)/loans.spline.json --format json --out $(OUT)/loans.card.json
+	@echo "== 13. a points scorecard from the spline model, checked against the exact score at the cut-off"
+	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv --cutoff 0.3 --format json --out $(OUT)/loans.card.json
+	$(GB) points $(OUT)/loans.spline.json --cutoff 0.3 --format csv --out $(OUT)/loans.card.csv
 	$(GB) score --points $(OUT)/loans.card.json demo_data/loans.csv --out $(OUT)/loans.points.csv
 	@head -3 $(OUT)/loans.points.csv | cut -c1-110
 	@echo "== 14. recourse across all applications: who can reach the goal, at what cost, by group"

@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import expit
 
+from glassbox.cells import TermCells
 from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.schema import Schema, prepare
 
@@ -313,7 +314,11 @@ def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeaturePro
 
 @dataclass(frozen=True)
 class AdditiveModel:
-    """Intercept, link and one table per feature; scores frames exactly as its tables say."""
+    """Intercept, link and one table per feature; scores frames exactly as its tables say.
+
+    `cells` summarise the training rows under numeric terms exactly (see
+    `glassbox.cells`); models fitted before they existed have none.
+    """
 
     link: str
     intercept: float
@@ -321,6 +326,7 @@ class AdditiveModel:
     schema: Schema
     profiles: tuple[FeatureProfile, ...] = ()
     metadata: Mapping[str, Any] = field(default_factory=dict)
+    cells: tuple[TermCells, ...] = ()
 
     def __post_init__(self) -> None:
         if self.link not in LINKS:
@@ -332,6 +338,10 @@ class AdditiveModel:
         stray = [n for n in names if n not in used]
         if stray:
             raise ModelFileError(f"term(s) for {', '.join(stray)} which the schema does not use")
+        summarised = [c.feature for c in self.cells]
+        if len(set(summarised)) != len(summarised) or not set(summarised) <= used:
+            raise ModelFileError("training cells must belong to features the schema uses, "
+                                 "one summary per feature")
 
     @property
     def features(self) -> tuple[str, ...]:
@@ -353,6 +363,10 @@ class AdditiveModel:
             if profile.feature == feature:
                 return profile
         raise OptionError(f"the model keeps no training profile for '{feature}'")
+
+    def cells_of(self, feature: str) -> TermCells | None:
+        """The training cells under a feature's term, if the model keeps them."""
+        return next((c for c in self.cells if c.feature == feature), None)
 
     def encode(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
         """Validate and type the model's feature columns of a raw frame."""

@@ -14,6 +14,7 @@ from typing import Any
 
 from glassbox import documents
 from glassbox.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
+from glassbox.cells import TermCells
 from glassbox.errors import GlassboxError, ModelFileError
 from glassbox.schema import Schema
 
@@ -28,8 +29,9 @@ canonical_json = documents.canonical_json
 
 
 def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
-    """The model's content as plain data (what the checksum covers)."""
-    return {
+    """The model's content as plain data (what the checksum covers). Training cells are
+    written only when the model has them, so older models keep their exact content."""
+    content = {
         "link": model.link,
         "intercept": model.intercept,
         "terms": [term_to_dict(term) for term in model.terms],
@@ -37,6 +39,9 @@ def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
         "profiles": [profile.to_dict() for profile in model.profiles],
         "metadata": dict(model.metadata),
     }
+    if model.cells:
+        content["cells"] = [cells.to_dict() for cells in model.cells]
+    return content
 
 
 def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
@@ -50,6 +55,7 @@ def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
             schema=schema,
             profiles=tuple(FeatureProfile.from_dict(p) for p in content.get("profiles", [])),
             metadata=content.get("metadata", {}),
+            cells=tuple(TermCells.from_dict(c) for c in content.get("cells", [])),
         )
     except KeyError as exc:
         raise ModelFileError(f"model file {source}: missing entry {exc}") from None

@@ -231,8 +231,12 @@ def points_command(
     base_odds: Annotated[float, typer.Option(
         help="Odds of the good outcome (good:bad) that score the base score.")] = 50.0,
     pdo: Annotated[float, typer.Option(help="Points to double the odds.")] = 20.0,
-    bins: Annotated[int, typer.Option(
-        help="Bins per curve, at equal shares of the training rows.")] = points.DEFAULT_BINS,
+    tolerance: Annotated[float | None, typer.Option(
+        metavar="POINTS",
+        help="Most a curve may move within one bin, in points [default: PDO / 20].")] = None,
+    cutoff: Annotated[float, typer.Option(
+        help="Probability whose points the card states; decisions on either side are "
+             "compared with --data.")] = points.DEFAULT_CUTOFF,
     data: Annotated[Path | None, typer.Option(
         help="Also measure how closely the card tracks the exact score on these rows.")
     ] = None,
@@ -242,22 +246,24 @@ def points_command(
     out: Annotated[Path | None, typer.Option(help="Write the card or its rows here.")] = None,
 ) -> None:
     """Turn a classification model into a points card: whole points per bin or level."""
+    if format is TableFormat.table and out is not None:
+        raise OptionError("--out needs a file format: add --format json, csv or markdown")
     model = artifact.load(model_file)
-    card = points.points_card(model, points.Scaling(base_score, base_odds, pdo), bins)
-    fidelity = None
+    card = points.points_card(model, points.Scaling(base_score, base_odds, pdo), tolerance,
+                              cutoff)
     if data is not None:
-        fidelity = points.card_fidelity(card, model, read_table(data), str(data)).summary()
+        card = points.with_fidelity(card, model, read_table(data), str(data))
+    fidelity = None if card.fidelity is None else card.fidelity.summary()
     if format is TableFormat.table:
-        if out is not None:
-            raise OptionError("--out needs a file format: add --format json, csv or markdown")
         stdout_console().print(points_view(points.card_summary(card), points.card_table(card),
-                                    fidelity))
+                                           fidelity))
         return
     if format is TableFormat.json:
         text = points.dumps(card)
     else:
         text = formats.write(points.card_table(card), format.value)
     _emit(text, out, "points card" if format is TableFormat.json else "points card rows")
+    stderr_console().print(key_values(points.card_summary(card), title="Points card"))
     if fidelity is not None:
         stderr_console().print(key_values(fidelity, title="Card against the exact score"))
 

@@ -13,7 +13,8 @@ import numpy as np
 import pandas as pd
 
 from glassbox import __version__
-from glassbox.additive import AdditiveModel, centre_terms, profile_features
+from glassbox.additive import AdditiveModel, LevelsTerm, centre_terms, profile_features
+from glassbox.cells import summarise_term
 from glassbox.errors import DataError, OptionError
 from glassbox.families import get_family
 from glassbox.metrics import classification_metrics, regression_metrics
@@ -52,6 +53,9 @@ def fit_model(
     importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
                   for t in terms}
     profiles = profile_features(features, schema)
+    # exact training summaries under numeric terms, for points cards (classification)
+    cells = tuple(summarise_term(t, features[t.feature].to_numpy()) for t in terms
+                  if task == "classification" and not isinstance(t, LevelsTerm))
     metadata = {
         "family": family,
         "parameters": fitted.parameters,
@@ -67,7 +71,8 @@ def fit_model(
         "versions": library_versions(),
     }
     link = "logit" if task == "classification" else "identity"
-    return AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles, metadata)
+    return AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles, metadata,
+                         cells)
 
 
 def training_fit(model: AdditiveModel, frame: pd.DataFrame,

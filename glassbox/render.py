@@ -190,12 +190,15 @@ def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> 
 def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
                 fidelity: Mapping[str, Any] | None = None) -> RenderableType:
     """What `glassbox points` prints: the scaling, the fidelity if measured, then the
-    base points and each feature's rows of points."""
+    base points and each feature's rows of points, with each row's training rows, its
+    spread and the largest difference any value in it can have (points)."""
     parts: list[RenderableType] = [key_values(summary, title="Points card")]
     if fidelity is not None:
         parts.append(key_values(fidelity, title="Card against the exact score"))
     for feature, group in rows.groupby("feature", sort=False):
-        shown = group.rename(columns={"row": "value or range"})
-        parts.append(frame_table(shown, title=str(feature),
-                                 columns=["value or range", "points", "contribution"]))
+        shown = group.rename(columns={"row": "value or range", "training_rows": "rows",
+                                      "largest_difference": "max diff"})
+        parts.append(frame_table(shown, title=str(feature), digits=3,
+                                 columns=["value or range", "points", "contribution", "rows",
+                                          "spread", "max diff"]))
     return Group(*parts)

@@ -131,3 +131,23 @@ def credit_files(folder: Path, name: str, rows: slice = slice(None)) -> tuple[Pa
     schema = folder / "credit.schema.toml"
     schema.write_text(CREDIT_SCHEMA, encoding="utf-8")
     return data, schema
+
+
+@pytest.fixture(scope="session")
+def credit_data() -> tuple[pd.DataFrame, pd.DataFrame]:
+    """modeldata credit_data (a Spanish credit file, Status good/bad) with its rows with
+    gaps dropped, split for held-out checks: every third row held out, the rest to fit."""
+    from .real_credit import credit_rows
+
+    frame = credit_rows()
+    held_out = frame.index % 3 == 0
+    return (frame[~held_out].reset_index(drop=True), frame[held_out].reset_index(drop=True))
+
+
+@pytest.fixture(scope="session")
+def credit_schema():
+    """The schema of tests/real_credit.py: "bad" positive, lower better, age and marital
+    status protected."""
+    from .real_credit import credit_schema
+
+    return credit_schema()

