@@ -7,14 +7,19 @@ declaration becomes pygam's `monotonic_inc` / `monotonic_dec` constraint on the
 score (log-odds of the positive class). Classification uses `LogisticGAM`,
 regression `LinearGAM`.
 
-Penalty. One multiplier, shared by every spline and factor term, is chosen from
-the `penalties` grid by `criterion`: "risk" is pygam's estimate of prediction
-risk (UBRE for classification, GCV for regression, both counting effective
-degrees of freedom 1.4 times as pygam does), "aic" the AIC. The search applies
-pygam's penalised IRLS update to pygam's own basis, penalty and constraint
-matrices through the normal equations, at a fraction of the cost of a pygam fit;
-pygam then fits once, at the chosen penalty, started from the search's solution.
-The grid, the criterion values and the choice are kept in `details`.
+Scale. A spline is fitted on h(x), a monotone increasing map of the feature
+chosen by `spline_scale` (spline_scale: "power", the Box-Cox power most like a
+normal sample, by default; "rank", knots at training quantiles; "raw", pygam's
+even knots), and tabulated in x. Each term's map is in `details["scales"]` and
+its description in `details["terms"]`.
+
+Penalty. Each spline and factor term gets its own multiplier from the
+`penalties` grid, chosen by `criterion` ("risk": UBRE for classification, GCV
+for regression; "aic") in a coordinate-wise search from the best shared value
+(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. pygam
+then fits once, at the chosen penalties, started from the search's solution.
+The grid, the shared stage's criterion values, each term's penalty and what the
+search did are kept in `details`.
 
 Tables. Values and the pointwise 95% band are pygam's partial dependence at each
 knot. An integer feature with a short range is tabulated at every whole number
@@ -158,7 +163,13 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
             if basis < splines:
                 fallbacks[name] = (f"{distinct} distinct values: {basis} basis functions "
                                    f"instead of {splines}")
-        scale, fallback = fit_scale(values, spline_scale, basis - SPLINE_ORDER)
+        # a few values, most of them small counts, can be squeezed together by a power
+        # scale; evenly spaced knots keep each value apart
+        few = distinct < splines and spline_scale != "raw"
+        scale, fallback = fit_scale(values, "raw" if few else spline_scale,
+                                    basis - SPLINE_ORDER)
+        if few:
+            fallback = "fitted on the values themselves (evenly spaced knots)"
         if fallback:
             fallbacks[name] = "; ".join(filter(None, (fallbacks.get(name), fallback)))
         plan = TermPlan(name, "spline", basis, constraint, whole=spec.kind == "integer",
