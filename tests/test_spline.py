@@ -427,3 +427,98 @@ def test_monotone_category_is_refused_by_the_schema():
     with pytest.raises(SchemaError, match="cannot be monotone"):
         schema_of("wage", "regression",
                   {"education": {"kind": "category", "monotone": "increasing"}})
+
+
+@pytest.fixture(scope="module")
+def credit() -> tuple[pd.DataFrame, Schema]:
+    # modeldata's credit_data (a Spanish credit file): skewed money amounts, a point mass at
+    # zero in Assets and Debt, gaps in Income, Assets and Debt; rows with a gap dropped
+    frame = reference_data("modeldata", "credit_data").dropna().reset_index(drop=True)
+    numbers = ["Seniority", "Time", "Age", "Expenses", "Income", "Assets", "Debt", "Amount",
+               "Price"]
+    features = {name: {"kind": "number"} for name in numbers}
+    features.update({name: {"kind": "category"} for name in ("Home", "Marital", "Records",
+                                                             "Job")})
+    return frame, schema_of("Status", "classification", features, positive="bad")
+
+
+def tails_outside_binned_logit(model, frame: pd.DataFrame, target: np.ndarray,
+                               names: list[str]) -> list[str]:
+    """Tails (the lowest and highest 1% of a feature's rows) where the curve's mean over the
+    rows lies outside the 95% interval of a plain binned logit of the same rows.
+
+    Reference: statsmodels' binomial GLM with one constant for the tail's rows and the
+    model's other terms and intercept as offset, i.e. what those rows alone say of the
+    term's level there (Wald interval; 95% is common practice, no source).
+    """
+    import statsmodels.api as sm
+
+    parts = model.contributions(frame)
+    score = model.score(frame)
+    outside = []
+    for name in names:
+        values = frame[name].to_numpy(dtype=float)
+        low, high = np.quantile(values, [0.01, 0.99])
+        for side, rows in (("bottom", values < low), ("top", values > high)):
+            events = target[rows].sum()
+            if rows.sum() < 10 or events in (0, rows.sum()):
+                continue  # no interval to speak of
+            offset = (score - parts[name]).to_numpy()[rows]
+            binned = sm.GLM(target[rows], np.ones((rows.sum(), 1)), offset=offset,
+                            family=sm.families.Binomial()).fit()
+            lower, upper = binned.conf_int(alpha=0.05)[0]
+            level = parts[name].to_numpy()[rows].mean()
+            if not lower <= level <= upper:
+                outside.append(f"{name} {side}: {level:.2f} not in [{lower:.2f}, {upper:.2f}]")
+    return outside
+
+
+def test_real_money_tails_agree_with_a_binned_logit(credit):
+    # Outside check on real data (modeldata credit_data): in the top and bottom 1% of every
+    # numeric feature, the fitted curve agrees with what those rows alone say. The check can
+    # fail: on the rank scale the same data give tails that flatten (a straight line in the
+    # rank is flat where ranks run out), and it catches them.
+    frame, schema = credit
+    names = [spec.name for spec in schema.features if spec.kind == "number"]
+    target = (frame["Status"] == "bad").to_numpy(dtype=float)
+    model = fit_model(frame, schema, "spline")
+    assert all(model.metadata["details"]["scales"][name]["scale"] == "power"
+               for name in ("Income", "Amount", "Price"))
+    assert tails_outside_binned_logit(model, frame, target, names) == []
+    rank = fit_model(frame, schema, "spline", spline_scale="rank")
+    assert tails_outside_binned_logit(rank, frame, target, names) != []
+
+
+def test_power_is_the_box_cox_maximum_likelihood(credit):
+    # Reference: scipy's Box-Cox log-likelihood (stats.boxcox_llf) on real money amounts
+    # (credit_data): the recorded power is its maximum, and a feature with zeros (Assets,
+    # Debt) is shifted by the gap between its two smallest values first.
+    frame, schema = credit
+    model = fit_model(frame, schema, "spline")
+    for name in ("Income", "Assets", "Debt", "Amount", "Price"):
+        record = model.metadata["details"]["scales"][name]
+        values = frame[name].to_numpy(dtype=float)
+        distinct = np.unique(values)
+        expected = 0.0 if distinct[0] > 0 else distinct[1] - 2 * distinct[0]
+        assert record["shift"] == pytest.approx(expected), name
+        shifted = values + record["shift"]
+        best = stats.boxcox_llf(record["power"], shifted)
+        for nearby in (record["power"] - 0.01, record["power"] + 0.01):
+            assert stats.boxcox_llf(nearby, shifted) < best, name
+
+
+def test_rank_scale_puts_knots_at_training_quantiles(wage, wage_schema):
+    # Reference: numpy's quantiles of ISLR Wage's age at k/17 (20 basis functions leave 17
+    # knot intervals); the rank scale sends each to k/17, so pygam's even knots fall there.
+    model = fit_model(wage, wage_schema, "spline", spline_scale="rank")
+    record = model.metadata["details"]["scales"]["age"]
+    quantiles = np.quantile(wage["age"], np.linspace(0, 1, 18))
+    distinct = np.unique(quantiles)
+    np.testing.assert_allclose(record["points"], distinct)
+    assert model.metadata["details"]["terms"]["age"] == (
+        "spline, 20 basis functions, knots at training quantiles")
+    if len(distinct) == len(quantiles):
+        np.testing.assert_allclose(record["ranks"], np.linspace(0, 1, 18))
+    # the same shape as on the power scale, where both have data (ISLR §7.7, as above)
+    age = model.term("age")
+    assert 35 <= age.knots[int(np.argmax(age.values))] <= 60
