@@ -71,6 +71,11 @@ CURVES = ("annual_revenue", "years_trading", "debt_to_revenue", "credit_utilisat
 TOLERANCE_SE = 4.0
 
 
+@pytest.fixture(scope="module")
+def spline_loans(loans, loans_schema):
+    return fit_model(loans, loans_schema, "spline")
+
+
 def regions(values: np.ndarray) -> list[tuple[str, np.ndarray]]:
     """Where a curve is compared: each value of a feature with few values; otherwise the
     bottom and top 1% of training values, ten bins at the deciles between, and the
@@ -91,7 +96,7 @@ def regions(values: np.ndarray) -> list[tuple[str, np.ndarray]]:
     return [("bottom 1%", bottom), ("top 1%", top), *central, *ends]
 
 
-def test_spline_curves_follow_the_true_shapes_into_the_tails(loans, loans_schema, generator):
+def test_spline_curves_follow_the_true_shapes_into_the_tails(loans, spline_loans, generator):
     # Constructed truth: each curve against its generating shape, both centred on the
     # training rows (the truth is known only up to a constant per term). In every region
     # (see `regions`) the curve's mean gap to the truth over the region's rows is within
@@ -99,7 +104,7 @@ def test_spline_curves_follow_the_true_shapes_into_the_tails(loans, loans_schema
     # the curve's value there that is held to the standard error of the 1% beyond.
     # The loosest region is amount_requested's bottom 1% (about 3.6 SE): its 42 rows at
     # the minimum, 5, hold 2 defaults where the truth expects 8.2, and the curve follows.
-    model = fit_model(loans, loans_schema, "spline")
+    model = spline_loans
     truth_score = generator["loan_true_score"](loans)
     weight = expit(truth_score) * (1 - expit(truth_score))
     for name in CURVES:
@@ -121,11 +126,12 @@ def test_spline_curves_follow_the_true_shapes_into_the_tails(loans, loans_schema
             assert abs(gap) <= TOLERANCE_SE * error, (name, label, gap, error)
 
 
-def test_annual_revenue_top_of_range_is_near_the_truth(loans, loans_schema, generator):
+def test_annual_revenue_top_of_range_is_near_the_truth(loans, loans_schema, spline_loans,
+                                                       generator):
     # Constructed truth: -0.9 log(r / 250), centred on the rows, is -2.54 at the largest
     # revenue (5,000). Evenly spaced knots on this right-skewed feature put -8.86 there
     # (band -18.5 to 0.78): the check below fails for `spline_scale="raw"`.
-    model = fit_model(loans, loans_schema, "spline")
+    model = spline_loans
     revenue = loans["annual_revenue"].to_numpy(dtype=float)
     effect = generator["annual_revenue_effect"]
     truth_top = float(effect(np.array([revenue.max()]))[0] - effect(revenue).mean())

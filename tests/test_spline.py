@@ -442,6 +442,11 @@ def credit() -> tuple[pd.DataFrame, Schema]:
     return frame, schema_of("Status", "classification", features, positive="bad")
 
 
+@pytest.fixture(scope="module")
+def credit_model(credit):
+    return fit_model(*credit, "spline")
+
+
 def tails_outside_binned_logit(model, frame: pd.DataFrame, target: np.ndarray,
                                names: list[str]) -> list[str]:
     """Tails (the lowest and highest 1% of a feature's rows) where the curve's mean over the
@@ -473,7 +478,7 @@ def tails_outside_binned_logit(model, frame: pd.DataFrame, target: np.ndarray,
     return outside
 
 
-def test_real_money_tails_agree_with_a_binned_logit(credit):
+def test_real_money_tails_agree_with_a_binned_logit(credit, credit_model):
     # Outside check on real data (modeldata credit_data): in the top and bottom 1% of every
     # numeric feature, the fitted curve agrees with what those rows alone say. The check can
     # fail: on the rank scale the same data give tails that flatten (a straight line in the
@@ -481,7 +486,7 @@ def test_real_money_tails_agree_with_a_binned_logit(credit):
     frame, schema = credit
     names = [spec.name for spec in schema.features if spec.kind == "number"]
     target = (frame["Status"] == "bad").to_numpy(dtype=float)
-    model = fit_model(frame, schema, "spline")
+    model = credit_model
     assert all(model.metadata["details"]["scales"][name]["scale"] == "power"
                for name in ("Income", "Amount", "Price"))
     assert tails_outside_binned_logit(model, frame, target, names) == []
@@ -489,12 +494,12 @@ def test_real_money_tails_agree_with_a_binned_logit(credit):
     assert tails_outside_binned_logit(rank, frame, target, names) != []
 
 
-def test_power_is_the_box_cox_maximum_likelihood(credit):
+def test_power_is_the_box_cox_maximum_likelihood(credit, credit_model):
     # Reference: scipy's Box-Cox log-likelihood (stats.boxcox_llf) on real money amounts
     # (credit_data): the recorded power is its maximum, and a feature with zeros (Assets,
     # Debt) is shifted by the gap between its two smallest values first.
-    frame, schema = credit
-    model = fit_model(frame, schema, "spline")
+    frame, _ = credit
+    model = credit_model
     for name in ("Income", "Assets", "Debt", "Amount", "Price"):
         record = model.metadata["details"]["scales"][name]
         values = frame[name].to_numpy(dtype=float)
