@@ -7,14 +7,19 @@ declaration becomes pygam's `monotonic_inc` / `monotonic_dec` constraint on the
 score (log-odds of the positive class). Classification uses `LogisticGAM`,
 regression `LinearGAM`.
 
-Penalty. One multiplier, shared by every spline and factor term, is chosen from
-the `penalties` grid by `criterion`: "risk" is pygam's estimate of prediction
-risk (UBRE for classification, GCV for regression, both counting effective
-degrees of freedom 1.4 times as pygam does), "aic" the AIC. The search applies
-pygam's penalised IRLS update to pygam's own basis, penalty and constraint
-matrices through the normal equations, at a fraction of the cost of a pygam fit;
-pygam then fits once, at the chosen penalty, started from the search's solution.
-The grid, the criterion values and the choice are kept in `details`.
+Scale. A spline is fitted on h(x), a monotone increasing map of the feature
+chosen by `spline_scale` (spline_scale: "power", the Box-Cox power most like a
+normal sample, by default; "rank", knots at training quantiles; "raw", pygam's
+even knots), and tabulated in x. Each term's map is in `details["scales"]` and
+its description in `details["terms"]`.
+
+Penalty. Each spline and factor term gets its own multiplier from the
+`penalties` grid, chosen by `criterion` ("risk": UBRE for classification, GCV
+for regression; "aic") in a coordinate-wise search from the best shared value
+(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. pygam
+then fits once, at the chosen penalties, started from the search's solution.
+The grid, the shared stage's criterion values, each term's penalty and what the
+search did are kept in `details`.
 
 Tables. Values and the pointwise 95% band are pygam's partial dependence at each
 knot. An integer feature with a short range is tabulated at every whole number
@@ -50,12 +55,13 @@ import pandas as pd
 from pygam import LinearGAM, LogisticGAM
 from pygam.terms import FactorTerm, Intercept, LinearTerm, SplineTerm, TermList
 from scipy import stats
-from scipy.special import expit
 from threadpoolctl import threadpool_limits
 
 from glassbox.additive import CurveTerm, LevelsTerm, Term
 from glassbox.errors import DataError, OptionError
 from glassbox.families.base import FamilyFit
+from glassbox.families.spline_penalty import Search, build_problem, search_penalties
+from glassbox.families.spline_scale import SCALES, Scale, fit_scale
 from glassbox.schema import Schema
 
 NAME = "spline"
@@ -65,19 +71,18 @@ DEFAULTS: dict[str, Any] = {
     "criterion": "risk",
     "max_iter": 100,
     "knots": 400,
+    "spline_scale": "power",
+    "penalty_scope": "term",
 }
 CRITERIA = ("risk", "aic")
-MIN_SPLINES = 4  # a cubic B-spline basis needs more functions than its order (3)
+SCOPES = ("term", "shared")
+SPLINE_ORDER = 3  # pygam's cubic B-splines: `basis - 3` knot intervals
+MIN_SPLINES = SPLINE_ORDER + 1  # a B-spline basis needs more functions than its order
 KNOT_RANGE = (10, 1000)
 CANDIDATES = 1001  # even points over a feature's range that a curve table is checked at
 START_SHARE = 8  # curve knots start as budget/8 even points and budget/8 quantiles
 FIDELITY = 1e-4  # largest gap (link scale) between a curve table and pygam worth a knot
-GAMMA = 1.4  # pygam's weight on effective degrees of freedom in UBRE and GCV
 BAND = 0.95
-EPS = np.finfo(float).eps
-# The search stops when no training score (link scale) moves by more than this; pygam's soft
-# monotone constraint can make the update cycle at about this size when the penalty is small.
-SEARCH_TOL = 1e-4
 CONSTRAINTS = {"increasing": "monotonic_inc", "decreasing": "monotonic_dec"}
 
 
@@ -91,10 +96,12 @@ class TermPlan:
     constraint: str | None = None
     levels: tuple[str, ...] = ()
     whole: bool = False  # an integer feature: its tables need only whole numbers
+    scale: Scale = Scale()  # pygam fits a spline on scale(x)
 
 
 def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
-                  knots: Any) -> tuple[float, ...]:
+                  knots: Any, spline_scale: Any = "power", penalty_scope: Any = "term",
+                  ) -> tuple[float, ...]:
     """Validate the options; return the penalty grid sorted and without repeats."""
     for name, value, low, high in (("splines", splines, MIN_SPLINES, None),
                                    ("max_iter", max_iter, 1, None),
@@ -105,6 +112,10 @@ def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
             raise OptionError(f"{name} must be a whole number {span}, not {value!r}")
     if criterion not in CRITERIA:
         raise OptionError(f"criterion must be one of {', '.join(CRITERIA)}, not {criterion!r}")
+    for name, value, allowed in (("spline_scale", spline_scale, SCALES),
+                                 ("penalty_scope", penalty_scope, SCOPES)):
+        if value not in allowed:
+            raise OptionError(f"{name} must be one of {', '.join(allowed)}, not {value!r}")
     grid = (penalties,) if isinstance(penalties, int | float) else penalties
     try:
         values = np.asarray(grid, dtype=float).ravel()
@@ -117,9 +128,11 @@ def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
     return tuple(float(v) for v in np.unique(values))
 
 
-def plan_terms(features: pd.DataFrame, schema: Schema, splines: int
+def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
+               spline_scale: str = "power",
                ) -> tuple[list[TermPlan], np.ndarray, dict[str, str]]:
-    """One plan per feature, the numeric matrix pygam fits on, and any fallbacks."""
+    """One plan per feature, the numeric matrix pygam fits on (each spline's column on
+    its `spline_scale`, see spline_scale), and any fallbacks."""
     plans, columns, fallbacks = [], [], {}
     for name in features.columns:
         spec = schema.feature(name)
@@ -134,174 +147,71 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int
             plans.append(TermPlan(name, "levels", levels=levels))
             columns.append(codes.astype(float))
             continue
-        columns.append(column.to_numpy(dtype=float))
+        values = column.to_numpy(dtype=float)
         constraint = CONSTRAINTS.get(spec.monotone or "")
         if distinct == 2 and constraint is None:
             plans.append(TermPlan(name, "linear"))
-        elif distinct == 2:
-            plans.append(TermPlan(name, "spline", MIN_SPLINES, constraint))
+            columns.append(values)
+            continue
+        if distinct == 2:
+            basis = MIN_SPLINES
             fallbacks[name] = (f"two values and a monotone declaration: a constrained spline "
                                f"of {MIN_SPLINES} basis functions (pygam's linear term takes "
                                "no constraint)")
         else:
             basis = min(splines, max(MIN_SPLINES, distinct))
-            plans.append(TermPlan(name, "spline", basis, constraint,
-                                  whole=spec.kind == "integer"))
             if basis < splines:
                 fallbacks[name] = (f"{distinct} distinct values: {basis} basis functions "
                                    f"instead of {splines}")
+        # a few values, most of them small counts, can be squeezed together by a power
+        # scale; evenly spaced knots keep each value apart
+        few = distinct < splines and spline_scale != "raw"
+        scale, fallback = fit_scale(values, "raw" if few else spline_scale,
+                                    basis - SPLINE_ORDER)
+        if few:
+            fallback = "fitted on the values themselves (evenly spaced knots)"
+        if fallback:
+            fallbacks[name] = "; ".join(filter(None, (fallbacks.get(name), fallback)))
+        plan = TermPlan(name, "spline", basis, constraint, whole=spec.kind == "integer",
+                        scale=scale)
+        plans.append(plan)
+        columns.append(scale(values))
     return plans, np.column_stack(columns), fallbacks
 
 
-def term_list(plans: Sequence[TermPlan], penalty: float) -> TermList:
-    """The pygam terms for the plans, every smooth and factor term at `penalty`."""
+def term_list(plans: Sequence[TermPlan], penalty: float | Sequence[float]) -> TermList:
+    """The pygam terms for the plans, smooth and factor term i at `penalty[i]` (or every
+    one at `penalty`); a linear term has no penalty."""
+    each = [penalty] * len(plans) if isinstance(penalty, int | float) else list(penalty)
     terms = []
-    for index, plan in enumerate(plans):
+    for index, (plan, lam) in enumerate(zip(plans, each, strict=True)):
         if plan.kind == "levels":
-            terms.append(FactorTerm(index, lam=penalty))
+            terms.append(FactorTerm(index, lam=lam))
         elif plan.kind == "linear":
             terms.append(LinearTerm(index, penalties=None))
         else:
-            terms.append(SplineTerm(index, n_splines=plan.basis, lam=penalty,
+            terms.append(SplineTerm(index, n_splines=plan.basis, lam=lam,
                                     constraints=plan.constraint))
     return TermList(*terms)
 
 
-def make_gam(task: str, plans: Sequence[TermPlan], penalty: float,
+def make_gam(task: str, plans: Sequence[TermPlan], penalty: float | Sequence[float],
              max_iter: int) -> LinearGAM | LogisticGAM:
     model = LogisticGAM if task == "classification" else LinearGAM
     return model(term_list(plans, penalty), max_iter=max_iter)
 
 
-@dataclass(frozen=True)
-class Search:
-    """The penalty search: criterion value per penalty, the choice, its coefficients."""
-
-    statistic: str
-    values: tuple[float | None, ...]
-    chosen: int
-    coefficients: np.ndarray
-    unconverged: tuple[float, ...]  # penalties where the update still moved at max_iter
-
-
-@dataclass(frozen=True)
-class Problem:
-    """pygam's basis and unit penalty for the plans, and where its constraints apply."""
-
-    basis: np.ndarray  # rows x coefficients
-    unit_penalty: np.ndarray
-    monotone: tuple[tuple[np.ndarray, bool], ...]  # (coefficient positions, increasing)
-    constraint_lam: float
-    constraint_l2: float
-    classify: bool
-
-
-def constraint_matrix(problem: Problem, coef: np.ndarray) -> np.ndarray:
-    """pygam's monotone constraint in quadratic form: a large penalty on wrong-way steps."""
-    width = len(coef)
-    matrix = np.zeros((width, width))
-    for positions, increasing in problem.monotone:
-        steps = np.diff(coef[positions])
-        wrong = np.flatnonzero(steps < 0 if increasing else steps > 0)
-        if wrong.size == 0:
-            continue
-        difference = np.zeros((wrong.size, len(positions)))
-        difference[np.arange(wrong.size), wrong] = -1.0
-        difference[np.arange(wrong.size), wrong + 1] = 1.0
-        block = problem.constraint_lam * difference.T @ difference
-        block += problem.constraint_l2 * np.eye(len(positions))
-        matrix[np.ix_(positions, positions)] += block
-    return matrix
-
-
-def pirls(problem: Problem, target: np.ndarray, penalty: float, start: np.ndarray,
-          max_iter: int) -> tuple[np.ndarray, float, bool]:
-    """pygam's penalised IRLS update via the normal equations: coefficients, edof, converged."""
-    basis, width = problem.basis, problem.basis.shape[1]
-    fixed = penalty * problem.unit_penalty + np.sqrt(EPS) * np.eye(width)
-    coef = start
-    gram = basis.T @ basis
-    moment = basis.T @ target
-    for _ in range(max_iter):
-        score = basis @ coef
-        if problem.classify:  # weight x working response = weight x score + residual
-            mu = expit(score)
-            keep = np.sqrt(mu * (1 - mu)) >= np.sqrt(EPS)  # pygam drops negligible weights
-            weight = np.where(keep, mu * (1 - mu), 0.0)
-            scaled = basis * np.sqrt(weight)[:, None]
-            gram = scaled.T @ scaled  # numpy computes a product with its own transpose at half cost
-            moment = basis.T @ (weight * score + np.where(keep, target - mu, 0.0))
-        system = gram + fixed + constraint_matrix(problem, coef)
-        try:
-            update = np.linalg.solve(system, moment)
-        except np.linalg.LinAlgError:
-            update = np.full(width, np.nan)
-        if not np.all(np.isfinite(update)):
-            return coef, np.nan, False
-        # the coefficients may drift along directions the scores cannot see (an
-        # intercept shared between terms), so convergence is judged on the scores
-        change = float(np.max(np.abs(basis @ (update - coef))))
-        coef = update
-        if change < SEARCH_TOL:
-            return coef, float(np.trace(np.linalg.solve(system, gram))), True
-    return coef, float(np.trace(np.linalg.solve(system, gram))), False
-
-
-def criterion_value(problem: Problem, target: np.ndarray, coef: np.ndarray, edof: float,
-                    criterion: str) -> float:
-    """UBRE / GCV (pygam's, without its constant offset) or AIC at the coefficients."""
-    score = problem.basis @ coef
-    rows = len(target)
-    if problem.classify:
-        mu = np.clip(expit(score), EPS, 1 - EPS)
-        deviance = float(-2 * np.sum(target * np.log(mu) + (1 - target) * np.log(1 - mu)))
-        if criterion == "aic":
-            return deviance + 2 * edof
-        return deviance / rows + 2 * GAMMA * edof / rows
-    deviance = float(np.sum((target - score) ** 2))
-    if criterion == "aic":
-        variance = deviance / (rows - edof)
-        return float(rows * np.log(2 * np.pi * variance) + deviance / variance + 2 * edof + 2)
-    return rows * deviance / (rows - GAMMA * edof) ** 2
-
-
-def search_penalty(matrix: np.ndarray, target: np.ndarray, plans: Sequence[TermPlan],
-                   grid: Sequence[float], *, task: str, criterion: str,
-                   max_iter: int) -> Search:
-    """Each penalty of the grid, largest first and warm-started; the best by `criterion`."""
+def search(matrix: np.ndarray, target: np.ndarray, plans: Sequence[TermPlan],
+           grid: Sequence[float], *, task: str, criterion: str, max_iter: int,
+           per_term: bool) -> Search:
+    """The penalty search (spline_penalty) on pygam's own matrices for these plans."""
     terms = TermList(*term_list(plans, 1.0), Intercept())
-    terms.compile(matrix)
-    classify = task == "classification"
-    reference = LogisticGAM() if classify else LinearGAM()
-    monotone = tuple((np.asarray(terms.get_coef_indices(i)), plan.constraint == "monotonic_inc")
-                     for i, plan in enumerate(plans) if plan.constraint)
-    problem = Problem(terms.build_columns(matrix).toarray(), terms.build_penalties().toarray(),
-                      monotone, float(getattr(reference, "_constraint_lam", 1e9)),
-                      float(getattr(reference, "_constraint_l2", 1e-3)), classify)
-    start = np.zeros(problem.basis.shape[1])
-    mean = float(np.clip(target.mean(), 1e-6, 1 - 1e-6)) if classify else float(target.mean())
-    start[-1] = np.log(mean / (1 - mean)) if classify else mean
-    values: list[float | None] = [None] * len(grid)
-    solutions: dict[int, np.ndarray] = {}
-    unconverged = []
-    coef = start
-    for position in sorted(range(len(grid)), key=lambda i: -grid[i]):
-        coef, edof, done = pirls(problem, target, grid[position], coef, max_iter)
-        if not done:
-            unconverged.append(grid[position])
-        if not np.isfinite(edof):
-            coef = start
-            continue
-        values[position] = criterion_value(problem, target, coef, edof, criterion)
-        solutions[position] = coef.copy()
-    scored = [i for i, value in enumerate(values) if value is not None]
-    if not scored:
-        raise OptionError("the spline fit failed at every penalty in 'penalties'; "
-                          "try larger penalties")
-    chosen = min(scored, key=lambda i: (values[i], i))
-    statistic = "AIC" if criterion == "aic" else ("UBRE" if classify else "GCV")
-    return Search(statistic, tuple(values), chosen, solutions[chosen],
-                  tuple(sorted(unconverged)))
+    monotone = [(i, plan.constraint == "monotonic_inc") for i, plan in enumerate(plans)
+                if plan.constraint]
+    problem = build_problem(terms, matrix, [plan.kind != "linear" for plan in plans] + [False],
+                            monotone, task == "classification")
+    return search_penalties(problem, target, grid, criterion=criterion, max_iter=max_iter,
+                            per_term=per_term)
 
 
 def fit_quietly(gam: LinearGAM | LogisticGAM, matrix: np.ndarray, target: np.ndarray,
@@ -401,10 +311,11 @@ def floats(values: np.ndarray) -> tuple[float, ...]:
 
 
 def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
-                  matrix: np.ndarray, knots: int
+                  matrix: np.ndarray, features: pd.DataFrame, knots: int
                   ) -> tuple[list[Term], dict[str, float], dict[str, float]]:
-    """One table per plan, read from the fitted pygam model; each curve's largest
-    departure from pygam over its candidate points; each monotone repair."""
+    """One table per plan, read from the fitted pygam model (fitted on `matrix`; the
+    curves are tabulated in the feature's own units, from `features`); each curve's
+    largest departure from pygam over its candidate points; each monotone repair."""
     terms: list[Term] = []
     errors: dict[str, float] = {}
     repairs: dict[str, float] = {}
@@ -419,10 +330,12 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
             terms.append(LevelsTerm(plan.feature, plan.levels, floats(values), unseen,
                                     floats(lower), floats(upper)))
             continue
-        def exact(points: np.ndarray, index: int = index) -> np.ndarray:
-            return tabulate(gam, index, points, width, band=False)[0]
-        points, errors[plan.feature] = curve_knots(exact, column, knots, plan.whole)
-        values, lower, upper = tabulate(gam, index, points, width, training=matrix)
+        def exact(points: np.ndarray, index: int = index, plan: TermPlan = plan) -> np.ndarray:
+            return tabulate(gam, index, plan.scale(points), width, band=False)[0]
+        raw = features[plan.feature].to_numpy(dtype=float)
+        points, errors[plan.feature] = curve_knots(exact, raw, knots, plan.whole)
+        values, lower, upper = tabulate(gam, index, plan.scale(points), width,
+                                        training=matrix)
         if plan.constraint:
             # remove what the soft constraint leaves of wrong-way steps (about 1e-9)
             running = np.maximum if plan.constraint == "monotonic_inc" else np.minimum
@@ -436,48 +349,73 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
 
 
 def describe(plan: TermPlan) -> str:
-    """A term in words, e.g. 'spline, 20 basis functions, decreasing'."""
+    """A term in words, e.g. 'spline, 20 basis functions, knots at training quantiles,
+    decreasing'."""
     if plan.kind != "spline":
         return plan.kind
     direction = {value: key for key, value in CONSTRAINTS.items()}.get(plan.constraint or "")
-    return f"spline, {plan.basis} basis functions" + (f", {direction}" if direction else "")
+    return (f"spline, {plan.basis} basis functions, {plan.scale.words()}"
+            + (f", {direction}" if direction else ""))
+
+
+def search_note(found: Search, grid: Sequence[float]) -> str:
+    """What the penalty search did, in words, for the model file."""
+    if found.sweeps == 0:
+        return "shared: every smooth and factor term at the grid value that scored best"
+    return (f"per term: from the best shared value, each term's penalty moved along the grid "
+            f"while a step lowered the criterion; {found.sweeps} sweep(s) over the terms, the "
+            "last moving nothing, so no single term's neighbouring grid value scores better "
+            f"(a coordinate-wise optimum; the full grid of {len(grid)} values per term over "
+            "all terms together is not searched)")
 
 
 def fit(
     features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
     splines: int = 20, penalties: Sequence[float] = DEFAULTS["penalties"],
     criterion: str = "risk", max_iter: int = 100, knots: int = 400,
+    spline_scale: str = "power", penalty_scope: str = "term",
 ) -> FamilyFit:
     """Fit the penalised-spline family and compile it into term tables."""
-    grid = check_options(splines, penalties, criterion, max_iter, knots)
+    grid = check_options(splines, penalties, criterion, max_iter, knots, spline_scale,
+                         penalty_scope)
     target = np.asarray(target, dtype=float)
-    plans, matrix, fallbacks = plan_terms(features, schema, splines)
+    plans, matrix, fallbacks = plan_terms(features, schema, splines, spline_scale)
     # one BLAS thread: these matrices are small, and a fixed summation order keeps the
     # tables byte-identical from run to run
     with threadpool_limits(limits=1, user_api="blas"):
-        search = search_penalty(matrix, target, plans, grid, task=task, criterion=criterion,
-                                max_iter=max_iter)
-        penalty = grid[search.chosen]
-        gam = make_gam(task, plans, penalty, max_iter)
-        converged = fit_quietly(gam, matrix, target, start=search.coefficients)
+        found = search(matrix, target, plans, grid, task=task, criterion=criterion,
+                       max_iter=max_iter, per_term=penalty_scope == "term")
+        chosen = [grid[p] if p is not None else 0.0 for p in found.positions[:len(plans)]]
+        gam = make_gam(task, plans, chosen, max_iter)
+        converged = fit_quietly(gam, matrix, target, start=found.coefficients)
         (intercept_index,) = [i for i, term in enumerate(gam.terms) if term.isintercept]
         intercept = float(gam.coef_[gam.terms.get_coef_indices(intercept_index)][0])
-        terms, table_errors, repairs = compile_terms(gam, plans, matrix, knots)
+        terms, table_errors, repairs = compile_terms(gam, plans, matrix, features, knots)
+    penalised = [(plan.feature, p) for plan, p in zip(plans, found.positions, strict=False)
+                 if p is not None]
     details: dict[str, Any] = {
         "model": type(gam).__name__,
         "terms": {plan.feature: describe(plan) for plan in plans},
+        "scales": {plan.feature: plan.scale.record() for plan in plans
+                   if plan.kind == "spline"},
         "penalty_grid": list(grid),
-        "criterion": search.statistic,
-        "criterion_values": list(search.values),
-        "penalty": penalty,
-        "penalty_at_grid_edge": len(grid) > 1 and search.chosen in (0, len(grid) - 1),
+        "criterion": found.statistic,
+        "criterion_values": list(found.shared_values),
+        "shared_penalty": grid[found.shared],
+        "penalty_search": search_note(found, grid),
+        "penalties": {name: grid[p] for name, p in penalised},
+        "criterion_value": found.value,
+        "penalty_at_grid_edge": sorted(name for name, p in penalised
+                                       if len(grid) > 1 and p in (0, len(grid) - 1)),
         "effective_degrees_of_freedom": float(gam.statistics_["edof"]),
         "converged": converged,
-        "search_unconverged": list(search.unconverged),
+        "search_fits": found.fits,
+        "search_unconverged": found.unconverged,
         "fallbacks": fallbacks,
         "table_error": table_errors,
         "monotone_repair": repairs,
     }
     parameters = {"splines": splines, "penalties": list(grid), "criterion": criterion,
-                  "max_iter": max_iter, "knots": knots}
+                  "max_iter": max_iter, "knots": knots, "spline_scale": spline_scale,
+                  "penalty_scope": penalty_scope}
     return FamilyFit(intercept, tuple(terms), parameters, details)
