@@ -19,7 +19,7 @@ from glassbox.additive import AdditiveModel
 from glassbox.shapes import readable_rows
 
 HEADINGS = {
-    "row": "value or range",
+    "row": "value",
     "training_share": "training share",
     "training_percentile": "training percentile",
     "slope": "slope per unit",
