@@ -26,12 +26,12 @@ from recourse.program import (
     Program,
     Solution,
     _need,
-    _Relaxation,
     _tables,
     best_reachable,
     solve,
     solve_with_scipy,
 )
+from recourse.relaxation import Relaxation
 
 ROOT = Path(__file__).resolve().parent.parent
 # Solvers accept a row that misses by their feasibility tolerance (scipy's HiGHS: 1e-6, fixed).
@@ -256,7 +256,7 @@ def test_the_relaxation_bound_never_passes_the_optimum(program):
     kept = [np.arange(len(g)) for g in gains]
     limit = len(kept) if program.max_changes is None else program.max_changes
     assume(limit >= 1)
-    relaxation = _Relaxation(gains, costs, kept, cheapest.current, _need(cheapest), limit)
+    relaxation = Relaxation(gains, costs, kept, cheapest.current, _need(cheapest), limit)
     bound, multiplier, _ = relaxation.search()
     assert bound <= truth[0] + 1e-9
     for value in (0.0, 0.5 * multiplier, 2 * multiplier + 1):
