@@ -18,10 +18,17 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, LevelsTerm
-from recourse.candidates import Candidate, encoded_candidates
+from recourse.candidates import FeatureCandidates, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
-from recourse.program import DEFAULT_SOLVER, Program, Solution, best_reachable, solve
+from recourse.program import (
+    BUFFER,
+    DEFAULT_SOLVER,
+    Program,
+    Solution,
+    best_reachable,
+    solve,
+)
 
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
            "promise of any decision. Real decisions follow the lender's or marketplace's "
@@ -104,7 +111,8 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
               "direction": goal.direction, "row_id": row_id}
     if _reaches(score, threshold, goal.direction):
         return PlanResult("already", **common)
-    candidates = encoded_candidates(model, encoded.iloc[0], mutability)
+    need = _favourable(goal.direction) * (threshold - score) + BUFFER  # as the program's
+    candidates = encoded_candidates(model, encoded.iloc[0], mutability, need)
     names = tuple(candidates)
     program = row_program(candidates, score, parts, goal, threshold)
     solutions: list[Solution] = []
@@ -126,21 +134,21 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                       binding_rules=tuple(rule for rule, _ in findings), **common)
 
 
-def row_program(candidates: Mapping[str, list[Candidate]], score: float, parts: pd.Series,
+def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,
                 goal: Goal, threshold: float) -> Program:
     """One row's integer program: its candidates (current value first) and the goal; the
     base is the score less the changeable features' current contributions."""
     names = tuple(candidates)
     return Program(
         base=score - float(sum(parts[name] for name in names)),
-        contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
-        costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
+        contributions=tuple(candidates[n].contributions for n in names),
+        costs=tuple(candidates[n].costs for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
         objective=goal.objective, max_changes=goal.max_changes, names=names)
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
-           candidates: Mapping[str, list[Candidate]], solutions: Sequence[Solution],
+           candidates: Mapping[str, FeatureCandidates], solutions: Sequence[Solution],
            threshold: float, direction: str) -> tuple[Plan, ...]:
     """Build the plans and re-score every changed row through the model itself."""
     changed_rows = pd.concat([encoded] * len(solutions), ignore_index=True)
@@ -186,7 +194,7 @@ def _table_extreme(model: AdditiveModel, feature: str, sign: int) -> float:
 
 
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
-               candidates: Mapping[str, list[Candidate]],
+               candidates: Mapping[str, FeatureCandidates],
                program: Program) -> tuple[str, list[tuple[str, str]]]:
     """A summary line, and up to six (rule, sentence) pairs, the most limiting first."""
     sign = _favourable(program.direction)

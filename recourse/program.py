@@ -16,7 +16,7 @@ import os
 import sys
 import tempfile
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -39,8 +39,8 @@ class Program:
     """One row's choice: per group (feature) the candidates' contributions and costs."""
 
     base: float
-    contributions: tuple[tuple[float, ...], ...]
-    costs: tuple[tuple[float, ...], ...]
+    contributions: tuple[Sequence[float], ...]  # tuples or numpy arrays
+    costs: tuple[Sequence[float], ...]
     current: tuple[int, ...]
     threshold: float
     direction: str
@@ -114,11 +114,11 @@ def _check(program: Program) -> None:
     for group, (values, costs, now) in enumerate(
             zip(program.contributions, program.costs, program.current, strict=True)):
         where = _label(program, group)
-        if not values or len(values) != len(costs):
+        if len(values) == 0 or len(values) != len(costs):
             raise ValueError(f"{where} has {len(values)} contributions and {len(costs)} costs; "
                              "they must match and not be empty")
         if not (np.isfinite(values).all() and np.isfinite(costs).all()
-                and min(costs) >= 0):
+                and np.min(costs) >= 0):
             raise ValueError(f"{where} has a contribution or cost that is not a finite number, "
                              "or a negative cost")
         if not (_whole(now) and 0 <= now < len(values)):
@@ -148,17 +148,29 @@ def _tables(program: Program) -> tuple[list[np.ndarray], list[np.ndarray]]:
     return gains, [np.asarray(c, float) for c in program.costs]
 
 
-def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.ndarray:
-    """The current candidate and every change within `cap` that no cheaper change beats on gain.
+def best_changes(gains: np.ndarray, costs: np.ndarray, need: float = math.inf) -> np.ndarray:
+    """Indices of the changes of one group that can be in a cheapest plan, cheapest first.
 
-    Dropping a change that another change matches on gain for no more cost is exact: swapping
-    them keeps every rule (score, number of changes, which groups change) and never costs more.
+    A change is kept when it gains more than staying put and than every cheaper change (of
+    equal costs, the one that gains most), and only up to the first that gains `need`. Exact
+    for every objective and rule: a dropped change can be swapped for a kept one of the same
+    group, or taken back out, without costing more, losing score past `need` (kept changes
+    all gain) or making a forbidden set of groups change.
     """
+    gains, costs = np.asarray(gains, dtype=float), np.asarray(costs, dtype=float)
+    order = np.lexsort((-gains, costs))
+    best_before = np.maximum.accumulate(np.r_[0.0, gains[order]])[:-1]
+    kept = order[gains[order] > best_before]
+    reaching = np.flatnonzero(gains[kept] >= need)
+    return kept[:reaching[0] + 1] if len(reaching) else kept
+
+
+def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float,
+              need: float) -> np.ndarray:
+    """The current candidate and the changes within `cap` that `best_changes` keeps."""
     others = np.delete(np.arange(len(gains)), now)
     others = others[costs[others] <= cap]
-    order = others[np.lexsort((-gains[others], costs[others]))]
-    best_before = np.maximum.accumulate(np.r_[-np.inf, gains[order][:-1]])
-    return np.sort(np.r_[now, order[gains[order] > best_before]])
+    return np.sort(np.r_[now, others[best_changes(gains[others], costs[others], need)]])
 
 
 def _known_choice(program: Program, relaxation: Relaxation,
@@ -217,8 +229,9 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
 def _rows(program: Program, cap: float = math.inf) -> _Rows:
     """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
     gains, costs = _tables(program)
-    kept = [_frontier(g, c, now, cap) for g, c, now in zip(gains, costs, program.current,
-                                                           strict=True)]
+    need = _need(program)
+    kept = [_frontier(g, c, now, cap, need) for g, c, now in zip(gains, costs, program.current,
+                                                                 strict=True)]
     if program.objective == "total-cost":
         kept = _fixed_by_bound(program, gains, costs, kept)
     gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
@@ -358,7 +371,7 @@ def _closed_form(program: Program) -> float | None:
     if program.objective == "fewest-changes":
         reached = np.flatnonzero(np.cumsum([0.0, *_gains(program, math.inf)[:limit]]) >= need)
         return float(reached[0]) if len(reached) else None
-    levels = sorted({c for costs in program.costs for c in costs})
+    levels = np.unique(np.concatenate([np.asarray(c, dtype=float) for c in program.costs]))
     low, high = 0, len(levels) - 1
     if sum(_gains(program, levels[high])[:limit]) < need:
         return None
