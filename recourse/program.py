@@ -1,7 +1,10 @@
-"""The recourse integer program: pick one candidate per feature, reach the threshold, pay least.
+"""The recourse program: pick one candidate per feature, reach the threshold, pay least.
 
-Array in, result out: a `Program` holds plain tuples built from the candidate tables, `solve`
-returns a `Solution` whose choice, score and objective are recomputed in Python. Ties on
+Array in, result out: a `Program` holds tuples or arrays built from the candidate tables, `solve`
+returns a `Solution` whose choice, score and objective are recomputed in Python. Candidates
+that cannot be in a best choice are dropped first (dominance, the gap, a Lagrangian bound);
+what is left is searched by listing its combinations when few enough (recourse.combinations),
+else as an integer program (pulp: HiGHS or CBC). Both are exact. Ties on
 largest-cost and fewest-changes go to the least total cost, exactly: a second solve minimises
 total cost among the choices that keep the first optimum (a small weight on total cost would
 have to sit below the gaps between cost levels, which can be finer than solver tolerances).
@@ -22,6 +25,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pulp
 
+from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
 from recourse.relaxation import Relaxation
 
@@ -226,14 +230,41 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
     return out
 
 
-def _rows(program: Program, cap: float = math.inf) -> _Rows:
-    """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
+def _kept(program: Program, cap: float = math.inf) -> list[np.ndarray]:
+    """Per group, the candidates left to choose from: the frontier of changes within `cap`
+    and, for total cost, those the Lagrangian bound cannot rule out (both exact)."""
     gains, costs = _tables(program)
     need = _need(program)
     kept = [_frontier(g, c, now, cap, need) for g, c, now in zip(gains, costs, program.current,
                                                                  strict=True)]
     if program.objective == "total-cost":
         kept = _fixed_by_bound(program, gains, costs, kept)
+    return kept
+
+
+def _run(program: Program, cap: float,
+         mip: Callable[[Program, _Rows], tuple[int, ...] | None]) -> tuple[int, ...] | None:
+    """The best choice over the kept candidates (None if none keeps the rules): by listing
+    combinations when they are few enough, else by the integer program `mip`."""
+    if sum(_gains(program, cap)[:_limit(program)]) < _need(program):
+        return None  # even the best change of every group falls short: no search needed
+    kept = _kept(program, cap)
+    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
+    if sets is None:
+        return mip(program, _rows(program, kept))
+    gains, costs = _tables(program)
+    return best_combination(gains, costs, kept, program.current, _need(program),
+                            program.objective, sets)
+
+
+def _limit(program: Program) -> int:
+    groups = len(program.contributions)
+    return groups if program.max_changes is None else min(program.max_changes, groups)
+
+
+def _rows(program: Program, kept: list[np.ndarray]) -> _Rows:
+    """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
+    gains, costs = _tables(program)
     gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
     cost = np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)])
     # solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
@@ -419,8 +450,7 @@ def _pulp_solver(solver: str, preprocess: bool = False) -> pulp.LpSolver:
         return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, options=options)
 
 
-def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | None:
-    layout = _rows(program, cap)
+def _pulp_run(program: Program, layout: _Rows, solver: str) -> tuple[int, ...] | None:
     problem = pulp.LpProblem("recourse", pulp.LpMinimize)
     binaries = sum(len(kept) for kept in layout.kept)
     x = [problem.add_variable(f"x{i:05d}", 0, 1, pulp.LpBinary) for i in range(binaries)]
@@ -454,10 +484,9 @@ def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | No
     return _choice(program, layout, values, solver)
 
 
-def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
+def _scipy_run(program: Program, layout: _Rows) -> tuple[int, ...] | None:
     from scipy.optimize import Bounds, LinearConstraint, milp
 
-    layout = _rows(program, cap)
     size = len(layout.objective)
     matrix = np.zeros((len(layout.rows), size))
     lower = np.full(len(layout.rows), -np.inf)
@@ -481,15 +510,17 @@ def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
 
 
 def solve(program: Program, solver: str = DEFAULT_SOLVER) -> Solution:
-    """Solve the program with PuLP and CBC or HiGHS; the returned choice is verified in Python."""
+    """Solve the program exactly: by listing combinations when few enough, else with PuLP and
+    HiGHS or CBC; the returned choice is verified in Python."""
     if solver not in SOLVERS:
         raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")
-    return _lexicographic(program, functools.partial(_pulp_run, solver=solver), solver)
+    return _lexicographic(program, functools.partial(
+        _run, mip=functools.partial(_pulp_run, solver=solver)), solver)
 
 
 def solve_with_scipy(program: Program) -> Solution:
     """Solve the same rows with scipy.optimize.milp: a second solver for the tests."""
-    return _lexicographic(program, _scipy_run, "scipy")
+    return _lexicographic(program, functools.partial(_run, mip=_scipy_run), "scipy")
 
 
 def best_reachable(program: Program) -> float:
