@@ -523,6 +523,15 @@ def solve_with_scipy(program: Program) -> Solution:
     return _lexicographic(program, functools.partial(_run, mip=_scipy_run), "scipy")
 
 
+def search_size(program: Program) -> tuple[tuple[int, ...], bool]:
+    """Per group, the candidates left after the exact reductions (current one included), and
+    whether they are few enough to be listed (else the integer program searches them)."""
+    _check(program)
+    kept = _kept(program)
+    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
+    return tuple(len(k) for k in kept), sets is not None
+
+
 def best_reachable(program: Program) -> float:
     """The most favourable score the rules allow, ignoring the threshold and forbidden sets.
 

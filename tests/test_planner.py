@@ -193,9 +193,10 @@ def full_grid(current: float, rule: dict) -> np.ndarray:
     return np.r_[current, values]
 
 
-def brute_force_plan(model, row: pd.Series, mutability, names) -> dict | None:
-    """The optimum of every objective over the two features' full grids, and the least total
-    cost among each objective's optima; None when no choice reaches the goal."""
+def brute_force_plan(model, row: pd.Series, mutability, declared: dict) -> dict | None:
+    """The optimum of every objective over the full grids of the two features `declared`
+    (name -> rule as written in the mutability file), and the least total cost among each
+    objective's optima; None when no choice reaches the goal. (bench/run.py uses it too.)"""
     from recourse.candidates import _costs
     from recourse.program import BUFFER
 
@@ -205,9 +206,9 @@ def brute_force_plan(model, row: pd.Series, mutability, names) -> dict | None:
     score = float(model.score(pd.DataFrame([row]))[0])
     need = sign * (goal.threshold(model.link) - score) + BUFFER  # the planner's contract
     tables = []
-    for name in names:
+    for name, written in declared.items():
         rule = mutability.rules[name]
-        grid = full_grid(float(encoded[name]), RULES_BY_NAME[name])
+        grid = full_grid(float(encoded[name]), written)
         contributions = model.term(name).evaluate(grid)
         costs = _costs(model, name, grid[0], grid, rule)  # the rule's cost (tested elsewhere)
         costs[0] = 0.0
@@ -242,8 +243,6 @@ def brute_force_plan(model, row: pd.Series, mutability, names) -> dict | None:
     return out
 
 
-RULES_BY_NAME = {}  # filled per case: the rule as declared (the brute force reads its grid)
-
 CASES = [  # (data set, goal, two features' rules): grids from 60 to 20,000 values
     ("hmda", {"probability": 0.2, "direction": "at-most"}, {
         "lvrat": {"change": "decrease", "lower": 0.2, "step": 0.001, "cost": "percentile"},
@@ -274,17 +273,14 @@ def test_cheapest_plan_is_the_full_grid_optimum_on_real_data(fitted, case, objec
 
     data, goal, rules = CASES[case]
     model, frame = fitted[data]
-    RULES_BY_NAME.clear()
-    RULES_BY_NAME.update(rules)
     mutability = mutability_from_dict({"goal": {**goal, "objective": objective},
                                        "feature": rules}, model)
-    names = list(rules)
     checked = unreachable = 0
     for position in declined_rows(model, frame, mutability):
         if checked == 6:  # six declined rows with a plan, and those without met on the way
             break
         row = frame.iloc[position]
-        truth = brute_force_plan(model, row, mutability, names)
+        truth = brute_force_plan(model, row, mutability, rules)
         if truth is None and unreachable >= 3:
             continue
         result = find_plans(model, row, mutability, n_plans=1)
