@@ -25,6 +25,7 @@ from recourse.candidates import (
     NEED_SLACK,
     Candidate,
     _costs,
+    _interval,
     feature_candidates,
     percentile_rank,
     row_candidates,
@@ -183,17 +184,10 @@ def _every_value(model, feature: str, current: float, rule: FeatureRule) -> np.n
     term = model.term(feature)
     kind = model.schema.feature(feature).kind
     table = np.asarray(term.knots if hasattr(term, "knots") else term.edges, dtype=float)
-    low = -math.inf if rule.lower is None else rule.lower
-    high = math.inf if rule.upper is None else rule.upper
-    if rule.largest_change is not None:  # the rule's definition: rounded like the grid
-        low = max(low, round(current - rule.largest_change, 12))
-        high = min(high, round(current + rule.largest_change, 12))
-    if kind == "flag":
-        low, high = max(low, 0.0), min(high, 1.0)
-    if rule.change == "increase":
-        low = current
-    if rule.change == "decrease":
-        high = current
+    # the interval the rule allows (bounds, largest change, direction); the property test
+    # below checks every candidate against the rule itself, and tests/test_planner.py
+    # builds its grids from the rule as written
+    low, high = _interval(feature, current, rule, kind)
     step = rule.step if rule.step is not None else (None if kind == "number" else 1.0)
     if step is None and hasattr(term, "knots"):
         points = [k for k in term.knots if low <= k <= high]
