@@ -28,7 +28,6 @@ from recourse.mutability import ANY_LEVEL, PERCENTILE_GRID, FeatureRule, Mutabil
 from recourse.program import best_changes
 
 DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
-TOLERANCE = 1e-9  # relative to the step: a grid point this close to a bound is on it
 IQR_TO_SPREAD = 1.349  # interquartile range of a normal / its standard deviation (from memory)
 MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
 LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
