@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, LevelsTerm
-from recourse.candidates import FeatureCandidates, encoded_candidates
+from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import (
@@ -194,7 +194,7 @@ def _table_extreme(model: AdditiveModel, feature: str, sign: int) -> float:
 
 
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
-               candidates: Mapping[str, FeatureCandidates],
+               candidates: Mapping[str, list[Candidate]],
                program: Program) -> tuple[str, list[tuple[str, str]]]:
     """A summary line, and up to six (rule, sentence) pairs, the most limiting first."""
     sign = _favourable(program.direction)
