@@ -7,7 +7,9 @@ closes the rest of the gap is found by binary search over its changes sorted by 
 fixed combination of the others, a dearer change of the longest group that also closes the
 gap is never better on any objective, so the best choice found is the optimum: nothing is
 approximated. `recourse.program` uses this when the listing stays within `COMBINATIONS`
-combinations and `SETS` sets of groups, and its integer program otherwise.
+combinations and `SETS` sets of groups (`SETS_WHEN_LONG` when the lists are long: there the
+integer program's bound is weak and it took minutes on some rows), and its integer program
+otherwise. Which search runs depends on sizes only; both are exact.
 """
 
 from __future__ import annotations
@@ -19,14 +21,17 @@ from collections.abc import Iterator, Sequence
 import numpy as np
 
 COMBINATIONS = 20_000_000  # the most combinations listed for one program, in all
-SETS = 4096  # the most sets of changed groups tried for one program
+SETS = 64  # the most sets of changed groups listed (each costs ~0.1 ms; a small MIP ~3 ms)
+SETS_WHEN_LONG = 4096  # the same when the lists hold more than LONG candidates in all
+LONG = 2000
 CHUNK = 500_000  # combinations listed at once (memory: a few arrays of this length)
 
 
 def changed_sets(kept: Sequence[np.ndarray], current: Sequence[int], max_changes: int | None,
                  forbidden: Sequence[frozenset[int]]) -> list[tuple[int, ...]] | None:
     """The sets of groups that may change together, smallest first, or None when listing
-    their combinations would pass COMBINATIONS or SETS."""
+    their combinations would pass COMBINATIONS, or SETS (SETS_WHEN_LONG) sets."""
+    most = SETS_WHEN_LONG if sum(len(k) for k in kept) > LONG else SETS
     movable = [g for g, k in enumerate(kept) if np.any(k != current[g])]
     limit = len(movable) if max_changes is None else min(max_changes, len(movable))
     sizes = {g: int(np.sum(kept[g] != current[g])) for g in movable}
@@ -37,7 +42,7 @@ def changed_sets(kept: Sequence[np.ndarray], current: Sequence[int], max_changes
                 continue
             out.append(together)
             work += math.prod(sorted(sizes[g] for g in together)[:-1]) if together else 1
-            if work > COMBINATIONS or len(out) > SETS:
+            if work > COMBINATIONS or len(out) > most:
                 return None
     return out
 

@@ -347,6 +347,13 @@ def test_listing_gives_way_to_the_integer_program_past_its_limits():
     assert combinations.changed_sets(kept, three.current, None, ()) is not None
     with mock.patch.object(combinations, "COMBINATIONS", 399 * 399 - 1):
         assert combinations.changed_sets(kept, three.current, None, ()) is None
+    # 10 groups, at most 3 changes: 176 sets, past SETS (64), listed only when the lists are
+    # long (2,500 candidates, past LONG), where the integer program's bound is weak
+    for length, listed in ((250, True), (150, False)):
+        kept = [np.arange(length) for _ in range(10)]
+        sets = combinations.changed_sets(kept, (0,) * 10, 3, ())
+        assert (sets is not None) == listed
+        assert sets is None or len(sets) == 176
 
 
 @settings(max_examples=200, deadline=None, derandomize=True)
