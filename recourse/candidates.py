@@ -31,6 +31,7 @@ DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
 IQR_TO_SPREAD = 1.349  # interquartile range of a normal / its standard deviation (from memory)
 MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
 LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
+LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
 NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
 
 
@@ -103,7 +104,7 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
         weighed = len(values)
     else:
         values, weighed = _grid_values(term, now, lower, upper, step, toward, reach)
-    everything = np.r_[now, values]
+    everything = np.concatenate([[now], values])
     costs = _costs(model, feature, now, everything, rule)
     costs[0] = 0.0
     _check_costs_grow(feature, now, everything, costs)
@@ -139,17 +140,15 @@ def _undominated(values: np.ndarray, contributions: np.ndarray, costs: np.ndarra
                  toward: float, reach: float, weighed: int) -> FeatureCandidates:
     """Keep the current value and the changes `best_changes` keeps, in the values' order."""
     gains = toward * (contributions[1:] - contributions[0])
-    kept = np.r_[0, np.sort(best_changes(gains, costs[1:], reach)) + 1]
+    kept = np.concatenate([[0], np.sort(best_changes(gains, costs[1:], reach)) + 1])
     return FeatureCandidates(values[kept], contributions[kept], costs[kept], weighed)
 
 
 def _check_costs_grow(feature: str, now: float, values: np.ndarray, costs: np.ndarray) -> None:
-    """The frontier relies on costs growing with the distance from the current value."""
-    for side in (values < now, values > now):
-        distance, paid = np.abs(values[side] - now), costs[side]
-        order = np.argsort(distance, kind="stable")
-        slack = 1e-9 * (1.0 + np.abs(paid[order][1:]))
-        if np.any(np.diff(paid[order]) < -slack):
+    """The frontier relies on costs growing with the distance from the current value
+    (`values` ascending after the current one, as every reader here gives them)."""
+    for paid in (costs[1:][values[1:] < now][::-1], costs[1:][values[1:] > now]):
+        if np.any(np.diff(paid) < -1e-9 * (1.0 + np.abs(paid[1:]))):
             raise RuntimeError(f"costs of {feature} do not grow with the distance from "
                                f"{now:g}; candidates would not be exact")
 
@@ -201,27 +200,35 @@ def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray
 
 
 def _first_past(now: float, step: float, side: int, targets: np.ndarray,
-                inclusive: bool) -> np.ndarray:
+                inclusive: bool | np.ndarray) -> np.ndarray:
     """For each target, the least k >= 1 whose grid point lies past it on `side` (or on it,
-    if `inclusive`); LARGEST_STEP_COUNT + 1 when none up to LARGEST_STEP_COUNT does.
+    where `inclusive`); LARGEST_STEP_COUNT + 1 when none up to LARGEST_STEP_COUNT does.
 
-    The quotient gives k to within a step or two; a bracket around it is checked and
-    bisected (a bracket that fails, as with a huge quotient, falls back to the whole range).
+    The quotient gives k to within a step or two: the seven steps around it are tried at
+    once; where that bracket fails (a huge quotient, say) the whole range is bisected.
     """
     targets = np.atleast_1d(np.asarray(targets, dtype=float))
+    inclusive = np.broadcast_to(inclusive, targets.shape)
 
-    def passes(k: np.ndarray) -> np.ndarray:
-        gap = side * (_points(now, step, side, k) - targets)
-        return gap >= 0 if inclusive else gap > 0
+    def passes(k: np.ndarray, rows: slice | np.ndarray = slice(None)) -> np.ndarray:
+        there = targets[rows].reshape(-1, *([1] * (k.ndim - 1)))
+        gap = side * (_points(now, step, side, k) - there)
+        return np.where(inclusive[rows].reshape(there.shape), gap >= 0, gap > 0)
 
     with np.errstate(invalid="ignore", over="ignore"):
         quotient = side * (targets - now) / step
-    guess = np.floor(np.clip(np.nan_to_num(quotient, nan=0.0), 0, LARGEST_STEP_COUNT))
-    low = np.maximum(guess.astype(np.int64) - 3, 0)
-    high = np.minimum(low + 6, LARGEST_STEP_COUNT + 1)
-    wide = ((low > 0) & passes(low)) | ~passes(high)
-    low[wide], high[wide] = 0, LARGEST_STEP_COUNT + 1
-    return np.maximum(_bisect(passes, low, high), 1)
+    far = ~(quotient < LARGEST_STEP_COUNT)  # an infinite bound, say (nan too)
+    low = np.maximum(np.floor(np.where(far, 0.0, quotient)).astype(np.int64) - 3, 0)
+    tried = low[:, None] + np.arange(7)
+    ok = passes(tried)
+    found = tried[np.arange(len(low)), ok.argmax(axis=1)]
+    settled = (low == 0) | ~ok[:, 0]  # the bracket starts below the answer...
+    found = np.where(far, LARGEST_STEP_COUNT + 1, found)
+    wide = np.flatnonzero(~far & ~(settled & ok[:, -1]))  # ...and ends on or past it
+    if len(wide):
+        found[wide] = _bisect(lambda k: passes(k, wide), np.zeros(len(wide), np.int64),
+                              np.full(len(wide), LARGEST_STEP_COUNT + 1))
+    return np.maximum(found, 1)
 
 
 def _bisect(passes: Callable[[np.ndarray], np.ndarray], low: np.ndarray,
@@ -290,11 +297,10 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
         if not side * (bound - now) > 0:
             continue
         outer = knots[-1] if side > 0 else knots[0]
-        last = int(_first_past(now, step, side, np.array([outer]), True)[0])
-        if math.isfinite(bound):
-            past = int(_first_past(now, step, side, np.array([bound]), False)[0])
-            if past <= LARGEST_STEP_COUNT:  # else the bound lies further than the grid reaches
-                last = min(last, past - 1)
+        ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
+        last = int(ends[0])
+        if ends[1] <= LARGEST_STEP_COUNT:  # else the bound lies further than the grid reaches
+            last = min(last, int(ends[1]) - 1)
         if last > LARGEST_STEP_COUNT:
             raise MutabilityError(f"[feature.{term.feature}] step {step:g} is too fine for "
                                   f"the table's range: more than {LARGEST_STEP_COUNT:,} steps")
@@ -305,10 +311,17 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
         def gain(k: np.ndarray, side: int = side) -> np.ndarray:
             return toward * (np.interp(_points(now, step, side, k), knots, table) - here)
 
-        inner = knots[side * (knots - now) > 0]
-        breaks = _first_past(now, step, side, inner, True)
-        starts = np.unique(np.r_[1, breaks[breaks <= last]]).astype(np.int64)
-        steps = _records(gain, starts, last, reach, term.feature)
+        if last <= LISTED_STEPS:  # few enough to read point by point
+            steps = np.arange(1, last + 1)
+            gains = gain(steps)
+            reaching = np.flatnonzero(gains >= reach)
+            stop = reaching[0] + 1 if len(reaching) else last
+            steps = _beating_nearer(steps[:stop], gains[:stop])
+        else:
+            inner = knots[side * (knots - now) > 0]
+            breaks = _first_past(now, step, side, inner, True)
+            starts = _distinct(np.append(1, breaks[breaks <= last]))
+            steps = _records(gain, starts, last, reach, term.feature)
         found.append(_points(now, step, side, steps))
     values = _distinct(np.concatenate(found)) if found else np.empty(0)
     return values[values != now], weighed
@@ -317,7 +330,7 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
 def _distinct(values: np.ndarray) -> np.ndarray:
     """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
     values = np.sort(values)
-    return values[np.r_[True, values[1:] != values[:-1]]] if len(values) else values
+    return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values
 
 
 def _records(gain: Callable[[np.ndarray], np.ndarray], starts: np.ndarray, last: int,
@@ -349,9 +362,14 @@ def _records(gain: Callable[[np.ndarray], np.ndarray], starts: np.ndarray, last:
                               f"could each be the cheapest (more than {MOST_VALUES:,}): use a "
                               "coarser step or tighter bounds")
     offsets = np.arange(int(lengths.sum())) - np.repeat(np.cumsum(lengths) - lengths, lengths)
-    steps = _distinct(np.r_[starts, seconds, np.repeat(past, lengths) + offsets])
-    gains = gain(steps)
-    return steps[gains > np.maximum.accumulate(np.r_[0.0, gains[:-1]])]
+    steps = _distinct(np.concatenate([starts, seconds, np.repeat(past, lengths) + offsets]))
+    return _beating_nearer(steps, gain(steps))
+
+
+def _beating_nearer(steps: np.ndarray, gains: np.ndarray) -> np.ndarray:
+    """The steps (nearest first) that gain more than every nearer one and than staying put."""
+    best_before = np.maximum.accumulate(np.concatenate([[0.0], gains[:-1]]))
+    return steps[gains > best_before]
 
 
 # ---------------------------------------------------------------- costs

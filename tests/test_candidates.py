@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import replace
+from unittest import mock
 
 import numpy as np
 import pandas as pd
@@ -21,6 +22,7 @@ from scipy.stats import percentileofscore
 
 import glassbox
 from glassbox.additive import FeatureProfile
+from recourse import candidates as candidates_module
 from recourse.candidates import (
     NEED_SLACK,
     Candidate,
@@ -282,10 +284,19 @@ FRONTIER_CASES = [  # (feature, rule): grids from a few points to tens of thousa
 ]
 
 
+@pytest.fixture(params=["point by point", "run by run"])
+def reading(request, monkeypatch):
+    """Short grid sides are read point by point; 'run by run' makes every side go by runs."""
+    if request.param == "run by run":
+        monkeypatch.setattr(candidates_module, "LISTED_STEPS", 0)
+    return request.param
+
+
 @pytest.mark.parametrize("family", ["spline", "boosted"])
 @pytest.mark.parametrize("rule", FRONTIER_CASES,
                          ids=[f"{r.change}:{r.feature}:{r.step}" for r in FRONTIER_CASES])
-def test_candidates_are_the_frontier_of_the_whole_grid(family, rule, request, training):
+def test_candidates_are_the_frontier_of_the_whole_grid(family, rule, request, training,
+                                                       reading):
     # Exact brute force: every allowed value listed, costed and read off the table; the
     # candidates must be exactly the values no cheaper value matches, for either goal
     # direction, with and without a gap to close (the truncation at the gap). For the
@@ -442,7 +453,9 @@ def rules(draw):
     cost = draw(st.sampled_from(["percentile", "spread", 0.7]))
     direction = draw(st.sampled_from(["at-least", "at-most"]))
     share = draw(st.none() | st.floats(0.0, 1.2))
-    return family, feature, index, change, lower, upper, step, largest, cost, direction, share
+    listed = draw(st.sampled_from([0, candidates_module.LISTED_STEPS]))  # 0: every side run by run
+    return (family, feature, index, change, lower, upper, step, largest, cost, direction,
+            share, listed)
 
 
 @settings(max_examples=200, deadline=None, derandomize=True)
@@ -450,7 +463,7 @@ def rules(draw):
 def test_every_candidate_keeps_the_rule_and_the_frontier_is_exact(spline, boosted, training,
                                                                   drawn):
     (family, feature, index, change, lower, upper, step, largest, cost, direction,
-     share) = drawn
+     share, listed) = drawn
     model = spline if family == "spline" else boosted
     column = training[feature]
     current = float(column.iloc[index])
@@ -462,16 +475,17 @@ def test_every_candidate_keeps_the_rule_and_the_frontier_is_exact(spline, booste
                        None if lower is None else current + lower * scale,
                        None if upper is None else current + upper * scale,
                        step, None if largest is None else largest * scale, cost)
-    truth, _ = assert_frontier(model, feature, current, rule, direction)
-    need = math.inf if share is None or not truth else share * truth[-1][1]
-    assert_frontier(model, feature, current, rule, direction, need)
-    candidates = feature_candidates(model, feature, current, rule, direction, need)
-    first = candidates[0]
+    with mock.patch.object(candidates_module, "LISTED_STEPS", listed):
+        truth, _ = assert_frontier(model, feature, current, rule, direction)
+        need = math.inf if share is None or not truth else share * truth[-1][1]
+        assert_frontier(model, feature, current, rule, direction, need)
+        found = feature_candidates(model, feature, current, rule, direction, need)
+    first = found[0]
     assert (first.value, first.cost, first.current) == (current, 0.0, True)
-    values = [c.value for c in candidates]
+    values = [c.value for c in found]
     assert len(set(values)) == len(values)
     grid = step if step is not None else (1.0 if whole else None)
-    for c in candidates[1:]:
+    for c in found[1:]:
         assert not c.current and c.cost >= 0
         assert c.value > current if change == "increase" else True
         assert c.value < current if change == "decrease" else True
