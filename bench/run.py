@@ -524,6 +524,86 @@ def audit_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     return lines
 
 
+def exact_rows(sets: dict[str, tuple], rows: int = 200) -> list[str]:
+    """Cheapest plans against brute force over the full grids of two changeable features,
+    candidates before and after the frontier, what the search is left with, time per row."""
+    from recourse.batch import typed_declined
+    from recourse.candidates import encoded_candidates
+    from recourse.mutability import mutability_from_dict
+    from recourse.planner import plan_encoded, row_program
+    from recourse.program import BUFFER, search_size
+    from tests.test_planner import brute_force_plan, credit_model
+
+    frame, schema = sets["loans"]
+    cases = {  # (model, frame, goal, the two features' rules as declared)
+        "loans (demo), spline": (fit_model(frame, schema, "spline"), frame, {
+            "probability": 0.3, "direction": "at-most", "margin": 0.02}, {
+            "amount_requested": {"change": "decrease", "lower": 5, "step": 1,
+                                 "cost": "percentile"},
+            "debt_to_revenue": {"change": "decrease", "lower": 0.0, "step": 0.01,
+                                "largest_change": 0.5, "cost": "percentile"}}),
+        "modeldata credit_data, spline": (*credit_model(), {
+            "probability": 0.3, "direction": "at-most", "margin": 0.02}, {
+            "Amount": {"change": "decrease", "lower": 100, "step": 1, "cost": "percentile"},
+            "Assets": {"change": "increase", "step": 1, "largest_change": 20000,
+                       "cost": "percentile"}}),
+    }
+    lines = ["## Recourse: cheapest plans against brute force over the full grids",
+             "",
+             f"The first {rows} declined rows; two changeable features, so brute force over "
+             "every pair of grid values is exact (for each value of one feature, the cheapest "
+             "value of the other that closes the gap). Candidates: values the rules allow "
+             "(grid points up to the table's outermost knot) against those kept (no cheaper "
+             "value gains as much; none past the cheapest that closes the gap). Left: "
+             "candidates per row after the Lagrangian bound, all features together.",
+             "",
+             "| data | rows with a plan (planner, brute force) | equal to brute force | "
+             "feature | allowed (mean, "
+             "max) | kept (mean, max) | left after the bound (mean, max) | listed | "
+             "ms per row (mean, median) |",
+             "|---|---:|---:|---|---:|---:|---:|---:|---:|"]
+    for name, (model, data, goal, declared) in cases.items():
+        rules = mutability_from_dict({"goal": goal, "feature": declared}, model)
+        _, encoded, parts, ids = typed_declined(model, data, rules)
+        threshold = rules.goal.threshold(model.link)
+        found = reachable = same = listed = 0
+        sign = 1.0 if rules.goal.direction == "at-least" else -1.0
+        allowed = {feature: [] for feature in declared}
+        kept = {feature: [] for feature in declared}
+        left, times = [], []
+        for i in range(min(rows, len(encoded))):
+            start = time.perf_counter()
+            result = plan_encoded(model, encoded.iloc[[i]], rules, n_plans=1,
+                                  parts=parts.iloc[i], row_id=ids[i])
+            times.append(time.perf_counter() - start)
+            truth = brute_force_plan(model, data.loc[encoded.index[i]], rules, declared)
+            reachable += truth is not None
+            if result.plans:
+                found += 1
+                same += truth is not None and abs(
+                    result.plans[0].total_cost - truth["total-cost"][0]) <= 1e-9
+            score = float(model.intercept + parts.iloc[i].sum())
+            need = sign * (threshold - score) + BUFFER  # as the planner asks
+            candidates = encoded_candidates(model, encoded.iloc[i], rules, need)
+            for feature, table in candidates.items():
+                allowed[feature].append(table.weighed)
+                kept[feature].append(len(table) - 1)
+            sizes, by_listing = search_size(row_program(candidates, score, parts.iloc[i],
+                                                        rules.goal, threshold))
+            left.append(sum(sizes))
+            listed += by_listing
+        for number, feature in enumerate(declared):
+            head = (f"| {name} | {found}, {reachable} of {len(times)} | {same} of {found} |"
+                    if number == 0 else "| | | |")
+            tail = (f" {np.mean(left):.0f}, {max(left)} | {listed} of {len(times)} | "
+                    f"{np.mean(times) * 1e3:.1f}, {np.median(times) * 1e3:.1f} |"
+                    if number == 0 else " | | |")
+            lines.append(f"{head} {feature} | {np.mean(allowed[feature]):,.0f}, "
+                         f"{max(allowed[feature]):,} | {np.mean(kept[feature]):,.0f}, "
+                         f"{max(kept[feature]):,} |{tail}")
+    return lines
+
+
 def file_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     lines = ["## Model files: save against load (checksum verified on load)",
              "",
@@ -648,9 +728,10 @@ def main() -> None:
                 extra = (folder,) if name in ("audit", "file") else ()
                 print("\n".join(rows(sets, *extra)))
             return
-        sections = [recourse_rows(sets), audit_rows(sets, folder), comparison_rows(sets),
-                    family_rows(sets), spline_rows(sets), scoring_rows(sets), fitting_rows(sets),
-                    file_rows(sets, folder), points_rows(sets)]
+        sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
+                    comparison_rows(sets), family_rows(sets), spline_rows(sets),
+                    scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
+                    points_rows(sets)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",

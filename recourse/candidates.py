@@ -1,14 +1,20 @@
 """Candidate values per feature: where it may move, what that adds, what it costs.
 
-Each list starts with the current value (cost 0). Contributions are read from
-the model's own term table, so a plan built from them scores exactly as the
-model scores the changed row.
+Each table starts with the current value (cost 0) and keeps only the values that can be in a
+cheapest plan: a change is dropped when another change of the same feature costs no more and
+moves the score at least as far toward the goal (or when staying put does), and so is every
+change dearer than the cheapest one that closes the row's gap alone. Every point of a declared
+step grid is weighed without being listed: costs grow with the distance from the current
+value on each side, and a curve is a straight line between knots, so each run of grid points
+between two knots is settled by arithmetic and bisection. Contributions are read from the
+model's own term table, so a plan built from them scores exactly as the model scores the
+changed row.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -16,12 +22,15 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
-from glassbox.errors import OptionError
 from recourse.errors import MutabilityError
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
+from recourse.program import best_changes
 
 DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
-TOLERANCE = 1e-9  # relative to the step: a grid point this close to a bound is on it
+MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
+LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
+LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
+NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
 
 
 @dataclass(frozen=True)
@@ -34,50 +43,90 @@ class Candidate:
     current: bool
 
 
+@dataclass(frozen=True, eq=False)
+class FeatureCandidates(Sequence[Candidate]):
+    """One feature's candidates as arrays, the current value first; indexing gives Candidates.
+
+    `weighed` counts the values the rules allow that the table tells apart, before the
+    undominated ones were kept (grid points up to the first at or past the table's outermost
+    knot, or knots and bounds, or one per reachable bin, or the allowed levels).
+    """
+
+    values: np.ndarray
+    contributions: np.ndarray
+    costs: np.ndarray
+    weighed: int
+
+    def __len__(self) -> int:
+        return len(self.values)
+
+    def __getitem__(self, index):  # type: ignore[override]
+        if isinstance(index, slice):
+            return [self[i] for i in range(*index.indices(len(self)))]
+        position = range(len(self))[index]
+        value = self.values[position]
+        return Candidate(value if isinstance(value, str) else float(value),
+                         float(self.contributions[position]), float(self.costs[position]),
+                         position == 0)
+
+
 def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
-                       rule: FeatureRule, cap: int = 300) -> list[Candidate]:
-    """The current value (first, cost 0) and every value the rule lets the feature reach."""
-    if cap < 3:
-        raise OptionError(f"cap must be at least 3 (current and both extremes), not {cap}")
+                       rule: FeatureRule, direction: str = "at-least",
+                       need: float = math.inf) -> FeatureCandidates:
+    """The current value (first, cost 0) and the values the rule lets the feature reach that
+    can be in a cheapest plan for a goal in `direction` ("at-least" raises the score).
+
+    `need` is the gain (link scale) that closes the row's gap: no change dearer than the
+    cheapest one that gains it is kept. Values keep the order of the table (numbers ascending).
+    """
+    toward = 1.0 if direction == "at-least" else -1.0
+    reach = need + NEED_SLACK * (1.0 + abs(need)) if math.isfinite(need) else math.inf
     term = model.term(feature)
     if isinstance(term, LevelsTerm):
-        return _level_candidates(term, str(current), rule)
+        levels = _level_values(term, str(current), rule)
+        everything = np.array([str(current), *levels], dtype=object)
+        costs = np.r_[0.0, np.full(len(levels), float(rule.cost))]
+        return _undominated(everything, term.evaluate(everything), costs, toward, reach,
+                            len(levels))
     now = float(current)
     kind = model.schema.feature(feature).kind
     lower, upper = _interval(feature, now, rule, kind)
+    step = rule.step if rule.step is not None else (1.0 if kind != "number" else None)
     if rule.change == "fixed":
-        values: list[float] = []
+        values, weighed = np.empty(0), 0
+    elif isinstance(term, StepTerm):
+        values = _step_values(term, now, lower, upper, step)
+        weighed = len(values)
+    elif step is None:
+        values = _knot_values(term, now, lower, upper)
+        weighed = len(values)
     else:
-        step = rule.step if rule.step is not None else (1.0 if kind != "number" else None)
-        if isinstance(term, StepTerm):
-            values = _step_values(term, now, lower, upper, step, rule.change)
-        else:
-            values = _curve_values(term, now, lower, upper, step, rule.change, cap)
-    everything = np.array([now, *values], dtype=float)
-    contributions = term.evaluate(everything)
+        values, weighed = _grid_values(term, now, lower, upper, step, toward, reach)
+    everything = np.concatenate([[now], values])
     costs = _costs(model, feature, now, everything, rule)
     costs[0] = 0.0
-    return [Candidate(float(v), float(c), float(k), i == 0)
-            for i, (v, c, k) in enumerate(zip(everything, contributions, costs, strict=True))]
+    _check_costs_grow(feature, now, everything, costs)
+    return _undominated(everything, term.evaluate(everything), costs, toward, reach, weighed)
 
 
-def row_candidates(model: AdditiveModel, row: pd.Series,
-                   mutability: Mutability) -> dict[str, list[Candidate]]:
+def row_candidates(model: AdditiveModel, row: pd.Series, mutability: Mutability,
+                   need: float = math.inf) -> dict[str, FeatureCandidates]:
     """Candidates of every feature of one raw row that has a term and a rule."""
     encoded = model.encode(pd.DataFrame([row]))
-    return encoded_candidates(model, encoded.iloc[0], mutability)
+    return encoded_candidates(model, encoded.iloc[0], mutability, need)
 
 
-def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any],
-                       mutability: Mutability) -> dict[str, list[Candidate]]:
+def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutability: Mutability,
+                       need: float = math.inf) -> dict[str, FeatureCandidates]:
     """The same, from a row already typed by `AdditiveModel.encode` (feature -> value)."""
-    out: dict[str, list[Candidate]] = {}
+    out: dict[str, FeatureCandidates] = {}
     for feature in model.features:
         rule = mutability.rules.get(feature)
         if rule is None:
             continue
         try:
-            out[feature] = feature_candidates(model, feature, values[feature], rule)
+            out[feature] = feature_candidates(model, feature, values[feature], rule,
+                                              mutability.goal.direction, need)
         except MutabilityError as exc:
             if not mutability.source:
                 raise
@@ -85,23 +134,35 @@ def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any],
     return out
 
 
+def _undominated(values: np.ndarray, contributions: np.ndarray, costs: np.ndarray,
+                 toward: float, reach: float, weighed: int) -> FeatureCandidates:
+    """Keep the current value and the changes `best_changes` keeps, in the values' order."""
+    gains = toward * (contributions[1:] - contributions[0])
+    kept = np.concatenate([[0], np.sort(best_changes(gains, costs[1:], reach)) + 1])
+    return FeatureCandidates(values[kept], contributions[kept], costs[kept], weighed)
+
+
+def _check_costs_grow(feature: str, now: float, values: np.ndarray, costs: np.ndarray) -> None:
+    """The frontier relies on costs growing with the distance from the current value
+    (`values` ascending after the current one, as every reader here gives them)."""
+    for paid in (costs[1:][values[1:] < now][::-1], costs[1:][values[1:] > now]):
+        if np.any(np.diff(paid) < -1e-9 * (1.0 + np.abs(paid[1:]))):
+            raise RuntimeError(f"costs of {feature} do not grow with the distance from "
+                               f"{now:g}; candidates would not be exact")
+
+
 # ---------------------------------------------------------------- categories
 
 
-def _level_candidates(term: LevelsTerm, current: str, rule: FeatureRule) -> list[Candidate]:
+def _level_values(term: LevelsTerm, current: str, rule: FeatureRule) -> list[str]:
     if isinstance(rule.cost, str):
         raise MutabilityError(f"[feature.{term.feature}] cost of a category must be a number "
                               f"per move, not {rule.cost!r}")
     if rule.change == "fixed":
-        allowed: set[str] = set()
-    elif rule.moves is None:
-        allowed = set(term.levels)
-    else:
-        allowed = set(rule.moves.get(current, ())) | set(rule.moves.get(ANY_LEVEL, ()))
-    levels = [current] + [level for level in term.levels if level in allowed and level != current]
-    contributions = term.evaluate(np.array(levels, dtype=object))
-    return [Candidate(level, float(c), 0.0 if i == 0 else float(rule.cost), i == 0)
-            for i, (level, c) in enumerate(zip(levels, contributions, strict=True))]
+        return []
+    allowed = set(term.levels) if rule.moves is None else (
+        set(rule.moves.get(current, ())) | set(rule.moves.get(ANY_LEVEL, ())))
+    return [level for level in term.levels if level in allowed and level != current]
 
 
 # ---------------------------------------------------------------- numbers
@@ -120,8 +181,8 @@ def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[f
     lower = -math.inf if rule.lower is None else rule.lower
     upper = math.inf if rule.upper is None else rule.upper
     if rule.largest_change is not None:  # rounded like the grid, so now + k*step can hit it
-        lower = max(lower, round(now - rule.largest_change, DECIMALS))
-        upper = min(upper, round(now + rule.largest_change, DECIMALS))
+        lower = max(lower, float(np.round(now - rule.largest_change, DECIMALS)))
+        upper = min(upper, float(np.round(now + rule.largest_change, DECIMALS)))
     if kind == "flag":
         lower, upper = max(lower, 0.0), min(upper, 1.0)
     if rule.change == "increase":
@@ -131,111 +192,182 @@ def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[f
     return lower, upper
 
 
-def _grid_range(now: float, lower: float, upper: float, step: float) -> tuple[float, float]:
-    """The smallest and largest k with now + k*step (rounded) inside [lower, upper]."""
-    low = -math.inf if math.isinf(lower) else math.ceil((lower - now) / step - TOLERANCE)
-    high = math.inf if math.isinf(upper) else math.floor((upper - now) / step + TOLERANCE)
-    while high > 0 and _point(now, high, step) > upper:  # type: ignore[arg-type]
-        high -= 1
-    while low < 0 and _point(now, low, step) < lower:  # type: ignore[arg-type]
-        low += 1
-    return min(low, 0), max(high, 0)
+def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray:
+    """Grid points `steps` whole steps from `now` on one side (+1 up, -1 down), rounded."""
+    return np.round(now + side * np.asarray(steps, dtype=float) * step, DECIMALS)
 
 
-def _point(now: float, k: int, step: float) -> float:
-    return round(now + k * step, DECIMALS)
+def _first_past(now: float, step: float, side: int, targets: np.ndarray,
+                inclusive: bool | np.ndarray) -> np.ndarray:
+    """For each target, the least k >= 1 whose grid point lies past it on `side` (or on it,
+    where `inclusive`); LARGEST_STEP_COUNT + 1 when none up to LARGEST_STEP_COUNT does.
+
+    The quotient gives k to within a step or two: the seven steps around it are tried at
+    once; where that bracket fails (a huge quotient, say) the whole range is bisected.
+    """
+    targets = np.atleast_1d(np.asarray(targets, dtype=float))
+    inclusive = np.broadcast_to(inclusive, targets.shape)
+
+    def passes(k: np.ndarray, rows: slice | np.ndarray = slice(None)) -> np.ndarray:
+        there = targets[rows].reshape(-1, *([1] * (k.ndim - 1)))
+        gap = side * (_points(now, step, side, k) - there)
+        return np.where(inclusive[rows].reshape(there.shape), gap >= 0, gap > 0)
+
+    with np.errstate(invalid="ignore", over="ignore"):
+        quotient = side * (targets - now) / step
+    far = ~(quotient < LARGEST_STEP_COUNT)  # an infinite bound, say (nan too)
+    low = np.maximum(np.floor(np.where(far, 0.0, quotient)).astype(np.int64) - 3, 0)
+    tried = low[:, None] + np.arange(7)
+    ok = passes(tried)
+    found = tried[np.arange(len(low)), ok.argmax(axis=1)]
+    settled = (low == 0) | ~ok[:, 0]  # the bracket starts below the answer...
+    found = np.where(far, LARGEST_STEP_COUNT + 1, found)
+    wide = np.flatnonzero(~far & ~(settled & ok[:, -1]))  # ...and ends on or past it
+    if len(wide):
+        found[wide] = _bisect(lambda k: passes(k, wide), np.zeros(len(wide), np.int64),
+                              np.full(len(wide), LARGEST_STEP_COUNT + 1))
+    return np.maximum(found, 1)
+
+
+def _bisect(passes: Callable[[np.ndarray], np.ndarray], low: np.ndarray,
+            high: np.ndarray) -> np.ndarray:
+    """Least k in (low, high] with passes(k), each `passes` monotone and true at `high`
+    (or `high` is a sentinel); at most 64 halvings, one vectorised call each."""
+    low, high = low.copy(), high.copy()
+    for _ in range(64):
+        open_ = high - low > 1
+        if not open_.any():
+            break
+        middle = np.where(open_, (low + high) // 2, high)
+        ok = passes(middle)
+        high = np.where(open_ & ok, middle, high)
+        low = np.where(open_ & ~ok, middle, low)
+    return high
 
 
 def _step_values(term: StepTerm, now: float, lower: float, upper: float,
-                 step: float | None, change: str) -> list[float]:
-    """One value per reachable bin: the point of the bin closest to `now`."""
-    edges = list(term.edges)
+                 step: float | None) -> np.ndarray:
+    """One value per reachable bin: the point of the bin closest to `now`, so the cheapest
+    (a bin's values all contribute the same)."""
+    edges = np.asarray(term.edges, dtype=float)
     here = int(term.bin_of(np.array([now]))[0])
-    bins = len(term.values)
-    values: list[float] = []
-    k_low, k_high = _grid_range(now, lower, upper, step) if step else (0, 0)
-    if change in ("increase", "either"):
-        for index in range(here + 1, bins):
-            edge = edges[index - 1]  # the bin is (edge, next edge]
-            if step is None:
-                value = float(np.nextafter(edge, math.inf))
-            else:
-                k = max(1, math.floor((edge - now) / step))
-                while _point(now, k, step) <= edge and k <= k_high:
-                    k += 1
-                if k > k_high:
-                    break
-                value = _point(now, k, step)
-            if value > upper:
-                break
-            if int(term.bin_of(np.array([value]))[0]) == index:
-                values.append(value)
-    if change in ("decrease", "either"):
-        for index in range(here - 1, -1, -1):
-            edge = edges[index]  # the bin is (previous edge, edge]
-            if step is None:
-                value = edge
-            else:
-                k = min(-1, math.ceil((edge - now) / step))
-                while _point(now, k, step) > edge and k >= k_low:
-                    k -= 1
-                if k < k_low:
-                    break
-                value = _point(now, k, step)
-            if value < lower:
-                break
-            if int(term.bin_of(np.array([value]))[0]) == index:
-                values.append(value)
-    return sorted(values)
-
-
-def _curve_values(term: CurveTerm, now: float, lower: float, upper: float,
-                  step: float | None, change: str, cap: int) -> list[float]:
-    """Grid points (or, with no grid, knots and finite bounds) within the interval."""
-    knots = np.asarray(term.knots, dtype=float)
+    up, down = edges[here:], edges[:here]  # bins above start past these, bins below end on them
     if step is None:
-        inside = knots[(knots >= lower) & (knots <= upper)]
-        points = set(inside.tolist()) | {b for b in (lower, upper) if math.isfinite(b)}
-        values = sorted(p for p in points if p != now)
-        return _nearest(values, now, cap)
-    # An unbounded side stops at the first grid point at or past the outermost knot:
-    # beyond it the table is flat, so further points only cost more.
-    k_low, k_high = _grid_range(now, lower, upper, step)
-    if math.isinf(k_low):
-        k_low = math.floor((min(knots[0], now) - now) / step + TOLERANCE)
-    if math.isinf(k_high):
-        k_high = math.ceil((max(knots[-1], now) - now) / step - TOLERANCE)
-    if change == "increase":
-        k_low = 0
-    elif change == "decrease":
-        k_high = 0
-    ks = [k for k in range(k_low, k_high + 1) if k != 0] if k_high - k_low < cap else (
-        _nearest_steps(k_low, k_high, cap))
-    return sorted({_point(now, k, step) for k in ks} - {now})
+        found = np.r_[np.nextafter(up, math.inf), down]
+    else:
+        steps = np.r_[_first_past(now, step, 1, up, False), _first_past(now, step, -1, down, True)]
+        if np.any((steps > LARGEST_STEP_COUNT) & (np.r_[up, down] >= lower)
+                  & (np.r_[up, down] <= upper)):
+            raise MutabilityError(f"[feature.{term.feature}] step {step:g} is too fine for "
+                                  f"the table's range: more than {LARGEST_STEP_COUNT:,} steps")
+        found = np.r_[_points(now, step, 1, steps[:len(up)]),
+                      _points(now, step, -1, steps[len(up):])]
+    bins = np.r_[np.arange(here + 1, len(edges) + 1), np.arange(here)]
+    inside = (found >= lower) & (found <= upper) & (term.bin_of(found) == bins)
+    return np.sort(found[inside])
 
 
-def _nearest_steps(k_low: int, k_high: int, cap: int) -> list[int]:
-    """Both extremes, then the steps nearest zero, `cap - 1` in all."""
-    chosen = [k for k in (k_low, k_high) if k != 0]
-    distance = 1
-    while len(chosen) < cap - 1 and (distance <= -k_low or distance <= k_high):
-        for k in (-distance, distance):
-            if k_low <= k <= k_high and k not in chosen and len(chosen) < cap - 1:
-                chosen.append(k)
-        distance += 1
-    return chosen
+def _knot_values(term: CurveTerm, now: float, lower: float, upper: float) -> np.ndarray:
+    """With no grid: the knots within the interval and its finite ends."""
+    knots = np.asarray(term.knots, dtype=float)
+    points = np.r_[knots[(knots >= lower) & (knots <= upper)],
+                   [b for b in (lower, upper) if math.isfinite(b)]]
+    points = _distinct(points)
+    return points[points != now]
 
 
-def _nearest(values: list[float], now: float, cap: int) -> list[float]:
-    """At most `cap - 1` values: both extremes, then those nearest `now`."""
-    if len(values) < cap:
-        return values
-    kept = {values[0], values[-1]}
-    for value in sorted(values, key=lambda v: (abs(v - now), v)):
-        if len(kept) >= cap - 1:
-            break
-        kept.add(value)
-    return sorted(kept)
+def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: float,
+                 toward: float, reach: float) -> tuple[np.ndarray, int]:
+    """The grid points that may be undominated, ascending, and how many points were weighed.
+
+    On each side, a point can only be undominated if it gains more than every point nearer
+    `now` (they cost no more): a record. Between two knots the gain moves one way, so a run
+    of points either rises (its records are the points past the best before it, found by
+    bisection) or not (only its first points can be records). Past the outermost knot the
+    table is flat, so a side stops at its first point there; it also stops at its first
+    point that gains `reach`.
+    """
+    knots = np.asarray(term.knots, dtype=float)
+    table = np.asarray(term.values, dtype=float)
+    here = float(np.interp(now, knots, table))
+    found, weighed = [], 0
+    for side, bound in ((-1, lower), (1, upper)):
+        if not side * (bound - now) > 0:
+            continue
+        outer = knots[-1] if side > 0 else knots[0]
+        ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
+        last = int(ends[0])
+        if ends[1] <= LARGEST_STEP_COUNT:  # else the bound lies further than the grid reaches
+            last = min(last, int(ends[1]) - 1)
+        if last > LARGEST_STEP_COUNT:
+            raise MutabilityError(f"[feature.{term.feature}] step {step:g} is too fine for "
+                                  f"the table's range: more than {LARGEST_STEP_COUNT:,} steps")
+        if last < 1:
+            continue
+        weighed += last
+
+        def gain(k: np.ndarray, side: int = side) -> np.ndarray:
+            return toward * (np.interp(_points(now, step, side, k), knots, table) - here)
+
+        if last <= LISTED_STEPS:  # few enough to read point by point
+            steps = np.arange(1, last + 1)
+            gains = gain(steps)
+            reaching = np.flatnonzero(gains >= reach)
+            stop = reaching[0] + 1 if len(reaching) else last
+            steps = _beating_nearer(steps[:stop], gains[:stop])
+        else:
+            inner = knots[side * (knots - now) > 0]
+            breaks = _first_past(now, step, side, inner, True)
+            starts = _distinct(np.append(1, breaks[breaks <= last]))
+            steps = _records(gain, starts, last, reach, term.feature)
+        found.append(_points(now, step, side, steps))
+    values = _distinct(np.concatenate(found)) if found else np.empty(0)
+    return values[values != now], weighed
+
+
+def _distinct(values: np.ndarray) -> np.ndarray:
+    """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
+    values = np.sort(values)
+    return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values
+
+
+def _records(gain: Callable[[np.ndarray], np.ndarray], starts: np.ndarray, last: int,
+             reach: float, feature: str) -> np.ndarray:
+    """Steps (1..last) on one side that gain more than every nearer step and than staying put,
+    up to the first that gains `reach`. Runs start at `starts`; gain is monotone within a
+    run from its second step on (its first may differ by rounding at the knot)."""
+    ends = np.r_[starts[1:] - 1, last]
+    seconds = np.minimum(starts + 1, ends)
+    first, second, end = gain(starts), gain(seconds), gain(ends)
+    tops = np.maximum(np.maximum(first, second), end)
+    reaching = np.flatnonzero(tops >= reach)
+    if len(reaching):  # stop at the first step that gains `reach`
+        r = int(reaching[0])
+        cut = starts[r] if first[r] >= reach else seconds[r] if second[r] >= reach else (
+            _bisect(lambda k: gain(k) >= reach, seconds[r:r + 1], ends[r:r + 1])[0])
+        starts, ends = starts[:r + 1], np.r_[ends[:r], cut]
+        seconds = np.minimum(starts + 1, ends)
+        first, second, end = gain(starts), gain(seconds), gain(ends)
+        tops = np.maximum(np.maximum(first, second), end)
+    best_before = np.maximum.accumulate(np.r_[0.0, tops[:-1]])
+    rising = end > np.maximum(best_before, second)
+    low = np.where(second > best_before, starts, seconds)[rising]  # known not past the best
+    past = _bisect(lambda k: gain(k) > best_before[rising], low, ends[rising])
+    lengths = ends[rising] - past + 1
+    count = int(lengths.sum()) + 2 * len(starts)
+    if count > MOST_VALUES:
+        raise MutabilityError(f"[feature.{feature}] the step grid leaves {count:,} values that "
+                              f"could each be the cheapest (more than {MOST_VALUES:,}): use a "
+                              "coarser step or tighter bounds")
+    offsets = np.arange(int(lengths.sum())) - np.repeat(np.cumsum(lengths) - lengths, lengths)
+    steps = _distinct(np.concatenate([starts, seconds, np.repeat(past, lengths) + offsets]))
+    return _beating_nearer(steps, gain(steps))
+
+
+def _beating_nearer(steps: np.ndarray, gains: np.ndarray) -> np.ndarray:
+    """The steps (nearest first) that gain more than every nearer one and than staying put."""
+    best_before = np.maximum.accumulate(np.concatenate([[0.0], gains[:-1]]))
+    return steps[gains > best_before]
 
 
 # ---------------------------------------------------------------- costs

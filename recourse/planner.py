@@ -19,10 +19,17 @@ import pandas as pd
 
 from glassbox.additive import AdditiveModel
 from glassbox.reasons import best_of, central_words
-from recourse.candidates import Candidate, encoded_candidates
+from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
-from recourse.program import DEFAULT_SOLVER, Program, Solution, best_reachable, solve
+from recourse.program import (
+    BUFFER,
+    DEFAULT_SOLVER,
+    Program,
+    Solution,
+    best_reachable,
+    solve,
+)
 
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
@@ -106,7 +113,8 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
               "direction": goal.direction, "row_id": row_id}
     if not goal.missed(np.array([score]), model.link)[0]:  # the margin is for plans only
         return PlanResult("already", **common)
-    candidates = encoded_candidates(model, encoded.iloc[0], mutability)
+    need = _favourable(goal.direction) * (threshold - score) + BUFFER  # as the program's
+    candidates = encoded_candidates(model, encoded.iloc[0], mutability, need)
     names = tuple(candidates)
     program = row_program(candidates, score, parts, goal, threshold)
     solutions: list[Solution] = []
@@ -128,21 +136,21 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                       binding_rules=tuple(rule for rule, _ in findings), **common)
 
 
-def row_program(candidates: Mapping[str, list[Candidate]], score: float, parts: pd.Series,
+def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,
                 goal: Goal, threshold: float) -> Program:
     """One row's integer program: its candidates (current value first) and the goal; the
     base is the score less the changeable features' current contributions."""
     names = tuple(candidates)
     return Program(
         base=score - float(sum(parts[name] for name in names)),
-        contributions=tuple(tuple(c.contribution for c in candidates[n]) for n in names),
-        costs=tuple(tuple(c.cost for c in candidates[n]) for n in names),
+        contributions=tuple(candidates[n].contributions for n in names),
+        costs=tuple(candidates[n].costs for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
         objective=goal.objective, max_changes=goal.max_changes, names=names)
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
-           candidates: Mapping[str, list[Candidate]], solutions: Sequence[Solution],
+           candidates: Mapping[str, FeatureCandidates], solutions: Sequence[Solution],
            threshold: float, direction: str) -> tuple[Plan, ...]:
     """Build the plans and re-score every changed row through the model itself."""
     changed_rows = pd.concat([encoded] * len(solutions), ignore_index=True)

@@ -1,7 +1,10 @@
-"""The recourse integer program: pick one candidate per feature, reach the threshold, pay least.
+"""The recourse program: pick one candidate per feature, reach the threshold, pay least.
 
-Array in, result out: a `Program` holds plain tuples built from the candidate tables, `solve`
-returns a `Solution` whose choice, score and objective are recomputed in Python. Ties on
+Array in, result out: a `Program` holds tuples or arrays built from the candidate tables, `solve`
+returns a `Solution` whose choice, score and objective are recomputed in Python. Candidates
+that cannot be in a best choice are dropped first (dominance, the gap, a Lagrangian bound);
+what is left is searched by listing its combinations when few enough (recourse.combinations),
+else as an integer program (pulp: HiGHS or CBC). Both are exact. Ties on
 largest-cost and fewest-changes go to the least total cost, exactly: a second solve minimises
 total cost among the choices that keep the first optimum (a small weight on total cost would
 have to sit below the gaps between cost levels, which can be finer than solver tolerances).
@@ -16,13 +19,15 @@ import os
 import sys
 import tempfile
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
 import pulp
 
+from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
+from recourse.relaxation import Relaxation
 
 SOLVERS = ("highs", "cbc")
 DEFAULT_SOLVER = "highs"  # in-process and faster than the CBC command line (bench/RESULTS.md)
@@ -38,8 +43,8 @@ class Program:
     """One row's choice: per group (feature) the candidates' contributions and costs."""
 
     base: float
-    contributions: tuple[tuple[float, ...], ...]
-    costs: tuple[tuple[float, ...], ...]
+    contributions: tuple[Sequence[float], ...]  # tuples or numpy arrays
+    costs: tuple[Sequence[float], ...]
     current: tuple[int, ...]
     threshold: float
     direction: str
@@ -113,11 +118,11 @@ def _check(program: Program) -> None:
     for group, (values, costs, now) in enumerate(
             zip(program.contributions, program.costs, program.current, strict=True)):
         where = _label(program, group)
-        if not values or len(values) != len(costs):
+        if len(values) == 0 or len(values) != len(costs):
             raise ValueError(f"{where} has {len(values)} contributions and {len(costs)} costs; "
                              "they must match and not be empty")
         if not (np.isfinite(values).all() and np.isfinite(costs).all()
-                and min(costs) >= 0):
+                and np.min(costs) >= 0):
             raise ValueError(f"{where} has a contribution or cost that is not a finite number, "
                              "or a negative cost")
         if not (_whole(now) and 0 <= now < len(values)):
@@ -147,100 +152,32 @@ def _tables(program: Program) -> tuple[list[np.ndarray], list[np.ndarray]]:
     return gains, [np.asarray(c, float) for c in program.costs]
 
 
-def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float) -> np.ndarray:
-    """The current candidate and every change within `cap` that no cheaper change beats on gain.
+def best_changes(gains: np.ndarray, costs: np.ndarray, need: float = math.inf) -> np.ndarray:
+    """Indices of the changes of one group that can be in a cheapest plan, cheapest first.
 
-    Dropping a change that another change matches on gain for no more cost is exact: swapping
-    them keeps every rule (score, number of changes, which groups change) and never costs more.
+    A change is kept when it gains more than staying put and than every cheaper change (of
+    equal costs, the one that gains most), and only up to the first that gains `need`. Exact
+    for every objective and rule: a dropped change can be swapped for a kept one of the same
+    group, or taken back out, without costing more, losing score past `need` (kept changes
+    all gain) or making a forbidden set of groups change.
     """
+    gains, costs = np.asarray(gains, dtype=float), np.asarray(costs, dtype=float)
+    order = np.lexsort((-gains, costs))
+    best_before = np.maximum.accumulate(np.r_[0.0, gains[order]])[:-1]
+    kept = order[gains[order] > best_before]
+    reaching = np.flatnonzero(gains[kept] >= need)
+    return kept[:reaching[0] + 1] if len(reaching) else kept
+
+
+def _frontier(gains: np.ndarray, costs: np.ndarray, now: int, cap: float,
+              need: float) -> np.ndarray:
+    """The current candidate and the changes within `cap` that `best_changes` keeps."""
     others = np.delete(np.arange(len(gains)), now)
     others = others[costs[others] <= cap]
-    order = others[np.lexsort((-gains[others], costs[others]))]
-    best_before = np.maximum.accumulate(np.r_[-np.inf, gains[order][:-1]])
-    return np.sort(np.r_[now, order[gains[order] > best_before]])
+    return np.sort(np.r_[now, others[best_changes(gains[others], costs[others], need)]])
 
 
-class _Relaxation:
-    """The Lagrangian relaxation of a total-cost program: the score row moved into the objective.
-
-    For a multiplier m >= 0 each group's best reduced cost is min(0, cost - m * gain) over its
-    changes; the `max_changes` most negative are taken, and m * need is added. Every m gives a
-    lower bound on the least total cost (weak duality); the best m gives the LP bound, since
-    the rows left (one candidate per group, a limit on changes) form an integral polytope.
-    """
-
-    def __init__(self, gains: list[np.ndarray], costs: list[np.ndarray], kept: list[np.ndarray],
-                 current: tuple[int, ...], need: float, limit: int) -> None:
-        changes = [k[k != now] for k, now in zip(kept, current, strict=True)]
-        width = max((len(c) for c in changes), default=1) or 1  # padding costs inf: never taken
-        self.gain = np.zeros((len(kept), width))
-        self.cost = np.full((len(kept), width), np.inf)
-        for group, picked in enumerate(changes):
-            self.gain[group, :len(picked)] = gains[group][picked]
-            self.cost[group, :len(picked)] = costs[group][picked]
-        self.changes, self.need, self.limit = changes, need, min(limit, len(kept))
-
-    def at(self, multiplier: float, held: int | None = None
-           ) -> tuple[float, np.ndarray, np.ndarray]:
-        """The bound, each group's best reduced cost (0 if none is negative), the change taken
-        per group (-1 for none) under the limit; a `held` group makes no change."""
-        reduced = self.reduced(multiplier)
-        if held is not None:
-            reduced[held] = np.inf
-        best = reduced.argmin(axis=1)
-        value = np.minimum(0.0, reduced[np.arange(len(reduced)), best])
-        taken = np.full(len(value), -1)
-        order = np.argsort(value, kind="stable")[:self.limit]
-        order = order[value[order] < 0]
-        taken[order] = best[order]
-        return float(multiplier * self.need + value[order].sum()), value, taken
-
-    def reduced(self, multiplier: float) -> np.ndarray:
-        """Each change's cost less the multiplier times its gain."""
-        return self.cost - multiplier * self.gain
-
-    def gain_of(self, taken: np.ndarray) -> float:
-        rows = np.flatnonzero(taken >= 0)
-        return float(self.gain[rows, taken[rows]].sum())
-
-    def search(self, steps: int = 30, held: int | None = None
-               ) -> tuple[float, float, np.ndarray | None]:
-        """(best bound, its multiplier, a choice of changes that reaches the need or None)."""
-        low, high, reaching = 0.0, 1.0, None
-        bound, where = self.at(0.0, held)[0], 0.0
-        for _ in range(steps):  # grow the multiplier until the relaxation's choice reaches
-            value, _, taken = self.at(high, held)
-            if value > bound:
-                bound, where = value, high
-            if self.gain_of(taken) >= self.need:
-                reaching = taken
-                break
-            low, high = high, 2 * high
-        if reaching is None:
-            return bound, where, None
-        for _ in range(steps):  # then bisect on the sign of the supergradient
-            middle = (low + high) / 2
-            value, _, taken = self.at(middle, held)
-            if value > bound:
-                bound, where = value, middle
-            if self.gain_of(taken) >= self.need:
-                high, reaching = middle, taken
-            else:
-                low = middle
-        return bound, where, reaching
-
-    def bounds(self, multiplier: float) -> np.ndarray:
-        """Per group and change, a lower bound on any choice that makes that change."""
-        value = self.at(multiplier)[1]
-        sums = np.concatenate(([0.0], np.cumsum(np.sort(value))))
-        rank = np.empty(len(value), int)
-        rank[np.argsort(value, kind="stable")] = np.arange(len(value))
-        # the best limit - 1 changes among the other groups
-        others = np.where(rank < self.limit - 1, sums[self.limit] - value, sums[self.limit - 1])
-        return multiplier * self.need + others[:, None] + self.reduced(multiplier)
-
-
-def _known_choice(program: Program, relaxation: _Relaxation,
+def _known_choice(program: Program, relaxation: Relaxation,
                   reaching: np.ndarray) -> tuple[int, ...] | None:
     """A choice that keeps every rule, from the relaxation's; None if none was found.
 
@@ -277,7 +214,7 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
     need = _need(program)
     if limit < 1 or need <= 0 or not kept:
         return kept
-    relaxation = _Relaxation(gains, costs, kept, program.current, need, limit)
+    relaxation = Relaxation(gains, costs, kept, program.current, need, limit)
     _, multiplier, reaching = relaxation.search()
     choice = None if reaching is None else _known_choice(program, relaxation, reaching)
     if choice is None:
@@ -293,13 +230,41 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
     return out
 
 
-def _rows(program: Program, cap: float = math.inf) -> _Rows:
-    """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
+def _kept(program: Program, cap: float = math.inf) -> list[np.ndarray]:
+    """Per group, the candidates left to choose from: the frontier of changes within `cap`
+    and, for total cost, those the Lagrangian bound cannot rule out (both exact)."""
     gains, costs = _tables(program)
-    kept = [_frontier(g, c, now, cap) for g, c, now in zip(gains, costs, program.current,
-                                                           strict=True)]
+    need = _need(program)
+    kept = [_frontier(g, c, now, cap, need) for g, c, now in zip(gains, costs, program.current,
+                                                                 strict=True)]
     if program.objective == "total-cost":
         kept = _fixed_by_bound(program, gains, costs, kept)
+    return kept
+
+
+def _run(program: Program, cap: float,
+         mip: Callable[[Program, _Rows], tuple[int, ...] | None]) -> tuple[int, ...] | None:
+    """The best choice over the kept candidates (None if none keeps the rules): by listing
+    combinations when they are few enough, else by the integer program `mip`."""
+    if sum(_gains(program, cap)[:_limit(program)]) < _need(program):
+        return None  # even the best change of every group falls short: no search needed
+    kept = _kept(program, cap)
+    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
+    if sets is None:
+        return mip(program, _rows(program, kept))
+    gains, costs = _tables(program)
+    return best_combination(gains, costs, kept, program.current, _need(program),
+                            program.objective, sets)
+
+
+def _limit(program: Program) -> int:
+    groups = len(program.contributions)
+    return groups if program.max_changes is None else min(program.max_changes, groups)
+
+
+def _rows(program: Program, kept: list[np.ndarray]) -> _Rows:
+    """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
+    gains, costs = _tables(program)
     gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
     cost = np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)])
     # solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
@@ -437,7 +402,7 @@ def _closed_form(program: Program) -> float | None:
     if program.objective == "fewest-changes":
         reached = np.flatnonzero(np.cumsum([0.0, *_gains(program, math.inf)[:limit]]) >= need)
         return float(reached[0]) if len(reached) else None
-    levels = sorted({c for costs in program.costs for c in costs})
+    levels = np.unique(np.concatenate([np.asarray(c, dtype=float) for c in program.costs]))
     low, high = 0, len(levels) - 1
     if sum(_gains(program, levels[high])[:limit]) < need:
         return None
@@ -485,8 +450,7 @@ def _pulp_solver(solver: str, preprocess: bool = False) -> pulp.LpSolver:
         return pulp.PULP_CBC_CMD(msg=False, gapRel=0.0, gapAbs=0.0, options=options)
 
 
-def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | None:
-    layout = _rows(program, cap)
+def _pulp_run(program: Program, layout: _Rows, solver: str) -> tuple[int, ...] | None:
     problem = pulp.LpProblem("recourse", pulp.LpMinimize)
     binaries = sum(len(kept) for kept in layout.kept)
     x = [problem.add_variable(f"x{i:05d}", 0, 1, pulp.LpBinary) for i in range(binaries)]
@@ -520,10 +484,9 @@ def _pulp_run(program: Program, cap: float, solver: str) -> tuple[int, ...] | No
     return _choice(program, layout, values, solver)
 
 
-def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
+def _scipy_run(program: Program, layout: _Rows) -> tuple[int, ...] | None:
     from scipy.optimize import Bounds, LinearConstraint, milp
 
-    layout = _rows(program, cap)
     size = len(layout.objective)
     matrix = np.zeros((len(layout.rows), size))
     lower = np.full(len(layout.rows), -np.inf)
@@ -547,15 +510,26 @@ def _scipy_run(program: Program, cap: float) -> tuple[int, ...] | None:
 
 
 def solve(program: Program, solver: str = DEFAULT_SOLVER) -> Solution:
-    """Solve the program with PuLP and CBC or HiGHS; the returned choice is verified in Python."""
+    """Solve the program exactly: by listing combinations when few enough, else with PuLP and
+    HiGHS or CBC; the returned choice is verified in Python."""
     if solver not in SOLVERS:
         raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")
-    return _lexicographic(program, functools.partial(_pulp_run, solver=solver), solver)
+    return _lexicographic(program, functools.partial(
+        _run, mip=functools.partial(_pulp_run, solver=solver)), solver)
 
 
 def solve_with_scipy(program: Program) -> Solution:
     """Solve the same rows with scipy.optimize.milp: a second solver for the tests."""
-    return _lexicographic(program, _scipy_run, "scipy")
+    return _lexicographic(program, functools.partial(_run, mip=_scipy_run), "scipy")
+
+
+def search_size(program: Program) -> tuple[tuple[int, ...], bool]:
+    """Per group, the candidates left after the exact reductions (current one included), and
+    whether they are few enough to be listed (else the integer program searches them)."""
+    _check(program)
+    kept = _kept(program)
+    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
+    return tuple(len(k) for k in kept), sets is not None
 
 
 def best_reachable(program: Program) -> float:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import replace
+from unittest import mock
 
 import numpy as np
 import pandas as pd
@@ -21,8 +22,12 @@ from scipy.stats import iqr, median_abs_deviation, percentileofscore
 
 import glassbox
 from glassbox.additive import FeatureProfile
+from recourse import candidates as candidates_module
 from recourse.candidates import (
+    NEED_SLACK,
     Candidate,
+    _costs,
+    _interval,
     feature_candidates,
     row_candidates,
 )
@@ -59,22 +64,6 @@ def _raw(feature: str, value) -> object:
 def _bin(edges, value: float) -> int:
     """Bin index by counting edges strictly below (value i covers edges[i-1] < x <= edges[i])."""
     return int(sum(edge < value for edge in edges))
-
-
-def _grid(current, step, lower, upper, largest=None, change="either"):
-    """Brute force: every point current + k*step inside the limits (rounded to 12 decimals,
-    as the grid is defined, so float noise such as 0.1 + 0.2 does not straddle an edge)."""
-    low, high = lower, upper
-    if largest is not None:
-        low, high = max(low, current - largest), min(high, current + largest)
-    ks = range(math.floor((low - current) / step) - 1, math.ceil((high - current) / step) + 2)
-    points = [round(current + k * step, 12) for k in ks]
-    points = [p for p in points if low - 1e-9 <= p <= high + 1e-9]
-    if change == "increase":
-        points = [p for p in points if p > current]
-    if change == "decrease":
-        points = [p for p in points if p < current]
-    return points
 
 
 # ---------------------------------------------------------------- contributions
@@ -187,46 +176,188 @@ def test_spread_falls_back_on_the_same_scale_when_the_deviation_is_zero(spline, 
     assert unit_spread(flat_middle) is None
 
 
-# ---------------------------------------------------------------- step terms
+# ---------------------------------------------------------------- brute force
 
 
-STEP_CASES = [
-    ("credit_utilisation", FeatureRule("credit_utilisation", "either", 0.0, 1.0, 0.01)),
-    ("credit_utilisation", FeatureRule("credit_utilisation", "decrease", 0.05, 1.0, 0.03, 0.4)),
-    ("annual_revenue", FeatureRule("annual_revenue", "either", 40.0, 5000.0, 10.0, 800.0)),
-    ("debt_to_revenue", FeatureRule("debt_to_revenue", "increase", 0.0, 2.0, 0.07)),
-    ("years_trading", FeatureRule("years_trading", "either", 0.0, 40.0)),
-    ("late_payments_24m", FeatureRule("late_payments_24m", "decrease", 0.0, 12.0)),
-    ("premises_owned", FeatureRule("premises_owned", "either", cost=1.0)),
+def _every_value(model, feature: str, current: float, rule: FeatureRule) -> np.ndarray:
+    """Brute force: every value the rule allows, listed one by one, the current one left out.
+
+    A grid runs over the interval; an unbounded side runs 20 steps past the table's outermost
+    knot or edge, to show that points beyond it add nothing. With no grid (a number), a curve
+    offers its knots and finite bounds, a step term the nearest point of each bin (counted
+    with `_bin`)."""
+    term = model.term(feature)
+    kind = model.schema.feature(feature).kind
+    table = np.asarray(term.knots if hasattr(term, "knots") else term.edges, dtype=float)
+    # the interval the rule allows (bounds, largest change, direction); the property test
+    # below checks every candidate against the rule itself, and tests/test_planner.py
+    # builds its grids from the rule as written
+    low, high = _interval(feature, current, rule, kind)
+    step = rule.step if rule.step is not None else (None if kind == "number" else 1.0)
+    if step is None and hasattr(term, "knots"):
+        points = [k for k in term.knots if low <= k <= high]
+        points += [b for b in (low, high) if math.isfinite(b)]
+    elif step is None:
+        edges = [-math.inf, *term.edges, math.inf]
+        here = _bin(term.edges, current)
+        points = [edges[b + 1] if b < here else float(np.nextafter(edges[b], math.inf))
+                  for b in range(len(edges) - 1) if b != here]
+        points = [p for p in points if low <= p <= high]
+    else:
+        reach_low = low if math.isfinite(low) else min(table[0], current) - 20 * step
+        reach_high = high if math.isfinite(high) else max(table[-1], current) + 20 * step
+        ks = np.arange(math.floor((reach_low - current) / step) - 1,
+                       math.ceil((reach_high - current) / step) + 2)
+        points = np.round(current + ks * step, 12)  # numpy rounds as round(x, 12) does
+        points = points[(points >= low) & (points <= high)]
+    points = np.unique(np.asarray(points, dtype=float))
+    return points[points != current]
+
+
+def _pareto(gains, costs, need=math.inf) -> list[tuple[float, float]]:
+    """Brute force: the (cost, gain) pairs no other value matches for less; for each distinct
+    cost its best gain, kept when it beats every cheaper cost's (and staying put's, 0), up to
+    the first that reaches `need`."""
+    gains, costs = np.asarray(gains, dtype=float), np.asarray(costs, dtype=float)
+    if not len(costs):
+        return []
+    levels, where = np.unique(costs, return_inverse=True)
+    best_at = np.full(len(levels), -np.inf)
+    np.maximum.at(best_at, where, gains)  # each distinct cost's best gain
+    beaten = np.maximum.accumulate(np.r_[0.0, best_at[:-1]])  # by a cheaper cost, or 0
+    kept = np.flatnonzero(best_at > beaten)
+    reaching = np.flatnonzero(best_at[kept] >= need)
+    kept = kept[:reaching[0] + 1] if len(reaching) else kept
+    return list(zip(levels[kept].tolist(), best_at[kept].tolist(), strict=True))
+
+
+def _reach(need: float) -> float:
+    # the code keeps changes a hair past the gap (NEED_SLACK), so rounding never cuts one
+    return need + NEED_SLACK * (1 + abs(need)) if math.isfinite(need) else need
+
+
+def assert_frontier(model, feature: str, current, rule: FeatureRule, direction="at-least",
+                    need=math.inf) -> tuple[list, np.ndarray]:
+    """The candidates are exactly the brute-force frontier over every allowed value."""
+    term = model.term(feature)
+    toward = 1.0 if direction == "at-least" else -1.0
+    found = feature_candidates(model, feature, current, rule, direction, need)
+    if isinstance(current, str):
+        assert found[0] == Candidate(current, term.values[term.levels.index(current)], 0.0, True)
+        every = np.array([lv for lv in term.levels if lv != current and (
+            rule.moves is None or lv in rule.moves.get(current, ()) + rule.moves.get("*", ()))],
+            dtype=object)
+        costs = np.full(len(every), float(rule.cost))
+        gains = toward * (term.evaluate(every) - term.evaluate(np.array([current], object))[0])
+    else:
+        assert found[0] == Candidate(current, float(term.evaluate(np.array([current]))[0]), 0.0,
+                                     True)
+        every = _every_value(model, feature, current, rule)
+        costs = _costs(model, feature, current, every, rule)
+        gains = toward * (term.evaluate(every) - term.evaluate(np.array([current]))[0])
+    truth = _pareto(gains, costs, _reach(need))
+    got = [(c.cost, toward * (c.contribution - found[0].contribution)) for c in found[1:]]
+    got.sort()
+    assert len(got) == len(truth), (feature, current, got[:5], truth[:5])
+    assert np.allclose(np.array(got).reshape(-1, 2), np.array(truth).reshape(-1, 2),
+                       rtol=0, atol=1e-12), (feature, current)
+    allowed = set(every.tolist())
+    assert set(found.values[1:].tolist()) <= allowed  # each one of the allowed values
+    assert np.array_equal(found.contributions, term.evaluate(found.values))  # off the table
+    return truth, every
+
+
+# ---------------------------------------------------------------- the frontier on every grid
+
+
+FRONTIER_CASES = [  # (feature, rule): grids from a few points to tens of thousands
+    FeatureRule("credit_utilisation", "either", 0.0, 1.0, 0.001),
+    FeatureRule("credit_utilisation", "decrease", 0.05, 1.0, 0.03, 0.4),
+    FeatureRule("annual_revenue", "either", 40.0, 5000.0, 1.0, cost="spread"),
+    FeatureRule("annual_revenue", "either", 40.0, 5000.0, 10.0, 800.0, cost=0.01),
+    FeatureRule("debt_to_revenue", "increase", 0.0, 2.0, 0.07),
+    FeatureRule("debt_to_revenue", "decrease", 0.0, None, 0.0005, cost="spread"),
+    FeatureRule("amount_requested", "either", 5.0, 500.0, 0.05),
+    FeatureRule("amount_requested", "decrease", 5.0, None, 1.0),
+    FeatureRule("amount_requested", "either", 5.0, 500.0),  # no grid: knots and bounds
+    FeatureRule("years_trading", "either", 0.0, 40.0),
+    FeatureRule("years_trading", "increase", cost=25.0),  # unbounded: stops at the last knot
+    FeatureRule("late_payments_24m", "decrease", 0.0, 12.0),
+    FeatureRule("premises_owned", "either", cost=1.0),
 ]
 
 
-@pytest.mark.parametrize(("feature", "rule"), STEP_CASES, ids=[r.change + ":" + f
-                                                                 for f, r in STEP_CASES])
-def test_step_term_candidates_are_the_cheapest_grid_point_of_each_reachable_bin(
-        boosted, training, feature, rule):
-    term = boosted.term(feature)
-    rule = replace(rule, cost=1.0)  # cost = distance, so "cheapest" is plain to brute force
-    step = rule.step or 1.0  # integers and flags: a grid of whole steps
-    low = -math.inf if rule.lower is None else rule.lower
-    high = math.inf if rule.upper is None else rule.upper
-    if feature == "premises_owned":
-        low, high = 0.0, 1.0
+@pytest.fixture(params=["point by point", "run by run"])
+def reading(request, monkeypatch):
+    """Short grid sides are read point by point; 'run by run' makes every side go by runs."""
+    if request.param == "run by run":
+        monkeypatch.setattr(candidates_module, "LISTED_STEPS", 0)
+    return request.param
+
+
+@pytest.mark.parametrize("family", ["spline", "boosted"])
+@pytest.mark.parametrize("rule", FRONTIER_CASES,
+                         ids=[f"{r.change}:{r.feature}:{r.step}" for r in FRONTIER_CASES])
+def test_candidates_are_the_frontier_of_the_whole_grid(family, rule, request, training,
+                                                       reading):
+    # Exact brute force: every allowed value listed, costed and read off the table; the
+    # candidates must be exactly the values no cheaper value matches, for either goal
+    # direction, with and without a gap to close (the truncation at the gap). For the
+    # boosted model's step terms this also checks that one value per bin loses nothing.
+    model = request.getfixturevalue(family)
     for index in ROWS:
-        current = float(training[feature].iloc[index])
-        here = _bin(term.edges, current)
-        best: dict[int, float] = {}
-        for point in _grid(current, step, low, high, rule.largest_change, rule.change):
-            b = _bin(term.edges, point)
-            if b != here and (b not in best or abs(point - current) < abs(best[b] - current)):
-                best[b] = point
-        candidates = feature_candidates(boosted, feature, current, rule)
-        assert candidates[0] == Candidate(current, term.values[here], 0.0, True)
-        got = {_bin(term.edges, c.value): c.value for c in candidates[1:]}
-        assert len(got) == len(candidates) - 1  # one value per bin
-        assert set(got) == set(best), (index, current)
-        for b, value in best.items():
-            assert got[b] == pytest.approx(value, abs=1e-9)
+        current = float(training[rule.feature].iloc[index])
+        if (rule.lower is not None and current < rule.lower) or (
+                rule.upper is not None and current > rule.upper):
+            continue
+        for direction in ("at-least", "at-most"):
+            truth, _ = assert_frontier(model, rule.feature, current, rule, direction)
+            if truth:  # a gap that the middle of the frontier closes
+                need = truth[len(truth) // 2][1] * (1 - 1e-6)
+                assert_frontier(model, rule.feature, current, rule, direction, need)
+
+
+def test_the_frontier_of_a_million_point_grid_is_exact(spline, training):
+    # amount_requested on a step of 0.0005 between 5 and 500: 990,000 grid points, every one
+    # weighed; brute force lists and costs them all.
+    rule = FeatureRule("amount_requested", "either", 5.0, 500.0, 0.0005, cost="percentile")
+    current = float(training["amount_requested"].iloc[17])
+    truth, every = assert_frontier(spline, "amount_requested", current, rule, "at-most")
+    found = feature_candidates(spline, "amount_requested", current, rule, "at-most")
+    assert len(every) == found.weighed == 990_000  # 990,001 points, less the current
+    assert len(found) - 1 == len(truth)
+
+
+def test_weighed_counts_the_grid_up_to_the_outermost_knot(spline):
+    # Past the last knot the table is flat (clamped), so an unbounded side stops at the
+    # first point on or past it: whole years from 12 up to 40, the last knot: 28 points.
+    assert spline.term("years_trading").knots[-1] == 40.0
+    rule = FeatureRule("years_trading", "increase")
+    found = feature_candidates(spline, "years_trading", 12.0, rule)
+    assert found.weighed == 28
+    assert all(13 <= c.value <= 40 for c in found[1:])
+    huge = FeatureRule("years_trading", "increase", upper=1e100, step=1e-3)
+    assert feature_candidates(spline, "years_trading", 12.0, huge).weighed == 28_000
+
+
+def test_huge_ranges_and_fine_steps_finish_or_fail_with_a_message(spline):
+    # Nothing walks the grid one step at a time: a bound of 1e100 is a quotient, and a step
+    # too fine to tell grid points apart, or a frontier too long to list, is refused by name.
+    rule = FeatureRule("debt_to_revenue", "decrease", lower=-1e100, step=1e-3)
+    assert feature_candidates(spline, "debt_to_revenue", 1.0, rule).weighed == 999  # to 0.001
+    far = feature_candidates(spline, "debt_to_revenue", 1e100, replace(rule, step=1e90))
+    assert far.weighed == 10**10  # 1e100 - k * 1e90 reaches the first knot at k = 1e10
+    with pytest.raises(MutabilityError, match=r"\[feature\.debt_to_revenue\] step 1e-300 is "
+                                              "too fine"):
+        feature_candidates(spline, "debt_to_revenue", 1.0, replace(rule, step=1e-300))
+    # constructed: a straight line over 0..1e9 on a step of 1 has 1e9 undominated points
+    line = glassbox.CurveTerm("debt_to_revenue", (0.0, 1e9), (0.0, 5.0))
+    straight = replace(spline, terms=tuple(line if t.feature == "debt_to_revenue" else t
+                                           for t in spline.terms))
+    with pytest.raises(MutabilityError, match=r"\[feature\.debt_to_revenue\] the step grid "
+                                              r"leaves 1,000,000,00\d values"):
+        feature_candidates(straight, "debt_to_revenue", 0.0,
+                           FeatureRule("debt_to_revenue", "increase", step=1.0, cost=1.0))
 
 
 def test_step_term_without_a_grid_sits_on_the_bin_edge(boosted, training):
@@ -236,61 +367,15 @@ def test_step_term_without_a_grid_sits_on_the_bin_edge(boosted, training):
         current = float(training["amount_requested"].iloc[index])
         here = _bin(term.edges, current)
         edges = [-math.inf, *term.edges, math.inf]
-        # Brute force over bins: reachable when the bin (a, b] meets [5, 500]; the closest
-        # point to the current value is b below it and (just above) a above it.
-        reachable = {i for i in range(len(term.values)) if i != here
-                     and edges[i] < 500.0 and edges[i + 1] >= 5.0}
-        candidates = feature_candidates(boosted, "amount_requested", current, rule)
-        got = {_bin(term.edges, c.value): c.value for c in candidates[1:]}
-        assert set(got) == reachable
-        for b, value in got.items():
-            nearest = edges[b + 1] if b < here else edges[b]
-            assert value == pytest.approx(nearest, rel=1e-12, abs=1e-12)
-
-
-# ---------------------------------------------------------------- curve terms
-
-
-def test_curve_with_a_grid_takes_the_whole_grid_within_bounds(spline, training):
-    rule = FeatureRule("credit_utilisation", "either", 0.0, 1.0, 0.01)
-    for index in ROWS:
-        current = float(training["credit_utilisation"].iloc[index])
-        candidates = feature_candidates(spline, "credit_utilisation", current, rule)
-        expected = sorted(set(_grid(current, 0.01, 0.0, 1.0)) - {current})
-        assert [c.value for c in candidates[1:]] == pytest.approx(expected, abs=1e-12)
-
-
-def test_curve_cap_keeps_the_extremes_and_the_nearest(spline, training):
-    rule = FeatureRule("amount_requested", "either", 5.0, 500.0, 1.0)
-    current = float(training["amount_requested"].iloc[17])
-    every = [p for p in _grid(current, 1.0, 5.0, 500.0) if p != current]
-    candidates = feature_candidates(spline, "amount_requested", current, rule, cap=25)
-    assert len(candidates) == 25
-    kept = [c.value for c in candidates[1:]]
-    assert min(every) in kept and max(every) in kept
-    middle = [abs(v - current) for v in kept if v not in (min(every), max(every))]
-    dropped = [abs(v - current) for v in every if v not in kept]
-    assert max(middle) <= min(dropped)
-
-
-def test_curve_without_a_grid_takes_the_knots_and_the_bounds(spline, training):
-    term = spline.term("debt_to_revenue")
-    rule = FeatureRule("debt_to_revenue", "decrease", 0.05, 2.5, largest_change=0.4)
-    for index in ROWS:
-        current = float(training["debt_to_revenue"].iloc[index])
-        low = max(0.05, current - 0.4)
-        expected = sorted({k for k in term.knots if low <= k < current} | {low} - {current})
-        candidates = feature_candidates(spline, "debt_to_revenue", current, rule)
-        assert [c.value for c in candidates[1:]] == pytest.approx(expected)
-
-
-def test_unbounded_curve_grid_stops_at_the_last_knot(spline):
-    # Past the last knot the table is flat (clamped), so the grid stops at the first point
-    # on or past it: here whole years from 12 up to 40, the last knot.
-    assert spline.term("years_trading").knots[-1] == 40.0
-    rule = FeatureRule("years_trading", "increase")
-    values = [c.value for c in feature_candidates(spline, "years_trading", 12.0, rule)]
-    assert values == [12.0, *range(13, 41)]
+        for direction in ("at-least", "at-most"):
+            assert_frontier(boosted, "amount_requested", current, rule, direction)
+            for c in feature_candidates(boosted, "amount_requested", current, rule,
+                                        direction)[1:]:
+                # the closest point of its bin: its upper edge below, just past its lower
+                # edge above
+                b = _bin(term.edges, c.value)
+                nearest = edges[b + 1] if b < here else edges[b]
+                assert c.value == pytest.approx(nearest, rel=1e-12, abs=1e-12)
 
 
 # ---------------------------------------------------------------- levels
@@ -300,18 +385,24 @@ def test_levels_follow_the_moves_and_cost_per_move(spline):
     term = spline.term("sector")
     rule = FeatureRule("sector", "either", cost=1.5,
                        moves={"retail": ("hospitality", "transport"), "*": ("construction",)})
-    candidates = feature_candidates(spline, "sector", "retail", rule)
-    assert candidates[0] == Candidate("retail", term.values[term.levels.index("retail")],
-                                      0.0, True)
-    assert {c.value for c in candidates[1:]} == {"hospitality", "transport", "construction"}
-    assert all(c.cost == 1.5 for c in candidates[1:])
-    for c in candidates:
-        assert c.contribution == term.values[term.levels.index(c.value)]
+    for direction in ("at-least", "at-most"):
+        found = feature_candidates(spline, "sector", "retail", rule, direction)
+        assert found[0] == Candidate("retail", term.values[term.levels.index("retail")],
+                                     0.0, True)
+        assert {c.value for c in found[1:]} <= {"hospitality", "transport", "construction"}
+        assert all(c.cost == 1.5 for c in found[1:])
+        for c in found:
+            assert c.contribution == term.values[term.levels.index(c.value)]
+        assert_frontier(spline, "sector", "retail", rule, direction)
+        # every move costs the same, so only the level that helps most can be cheapest
+        toward = 1 if direction == "at-least" else -1
+        best = max(("hospitality", "transport", "construction"),
+                   key=lambda lv: toward * term.values[term.levels.index(lv)])
+        helps = toward * (term.values[term.levels.index(best)] - found[0].contribution) > 0
+        assert [c.value for c in found[1:]] == ([best] if helps else [])
     other = feature_candidates(spline, "sector", "agriculture", rule)
-    assert [c.value for c in other] == ["agriculture", "construction"]
-    anywhere = feature_candidates(spline, "sector", "retail", FeatureRule("sector", "either",
-                                                                          cost=1.0))
-    assert sorted(c.value for c in anywhere) == sorted(term.levels)
+    assert [c.value for c in other][0] == "agriculture"
+    assert {c.value for c in other[1:]} <= {"construction"}
 
 
 # ---------------------------------------------------------------- the row
@@ -360,17 +451,22 @@ def rules(draw):
     width = draw(st.floats(0.01, 2.0))
     lower = draw(st.none() | st.floats(0.0, 1.0).map(lambda f: -f * width))
     upper = draw(st.none() | st.floats(0.0, 1.0).map(lambda f: f * width))
-    step = draw(st.none() | st.floats(0.002, 0.5))
+    step = draw(st.none() | st.floats(0.0005, 0.5))
     largest = draw(st.none() | st.floats(0.01, 1.0))
     cost = draw(st.sampled_from(["percentile", "spread", 0.7]))
-    cap = draw(st.integers(3, 400))
-    return family, feature, index, change, lower, upper, step, largest, cost, cap
+    direction = draw(st.sampled_from(["at-least", "at-most"]))
+    share = draw(st.none() | st.floats(0.0, 1.2))
+    listed = draw(st.sampled_from([0, candidates_module.LISTED_STEPS]))  # 0: every side run by run
+    return (family, feature, index, change, lower, upper, step, largest, cost, direction,
+            share, listed)
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=200, deadline=None, derandomize=True)
 @given(rules())
-def test_every_candidate_keeps_the_rule(spline, boosted, training, drawn):
-    family, feature, index, change, lower, upper, step, largest, cost, cap = drawn
+def test_every_candidate_keeps_the_rule_and_the_frontier_is_exact(spline, boosted, training,
+                                                                  drawn):
+    (family, feature, index, change, lower, upper, step, largest, cost, direction,
+     share, listed) = drawn
     model = spline if family == "spline" else boosted
     column = training[feature]
     current = float(column.iloc[index])
@@ -382,14 +478,17 @@ def test_every_candidate_keeps_the_rule(spline, boosted, training, drawn):
                        None if lower is None else current + lower * scale,
                        None if upper is None else current + upper * scale,
                        step, None if largest is None else largest * scale, cost)
-    candidates = feature_candidates(model, feature, current, rule, cap=cap)
-    first = candidates[0]
+    with mock.patch.object(candidates_module, "LISTED_STEPS", listed):
+        truth, _ = assert_frontier(model, feature, current, rule, direction)
+        need = math.inf if share is None or not truth else share * truth[-1][1]
+        assert_frontier(model, feature, current, rule, direction, need)
+        found = feature_candidates(model, feature, current, rule, direction, need)
+    first = found[0]
     assert (first.value, first.cost, first.current) == (current, 0.0, True)
-    assert len(candidates) <= max(cap, len(model.term(feature).values) + 1)
-    values = [c.value for c in candidates]
+    values = [c.value for c in found]
     assert len(set(values)) == len(values)
     grid = step if step is not None else (1.0 if whole else None)
-    for c in candidates[1:]:
+    for c in found[1:]:
         assert not c.current and c.cost >= 0
         assert c.value > current if change == "increase" else True
         assert c.value < current if change == "decrease" else True

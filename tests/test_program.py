@@ -1,24 +1,29 @@
-"""The recourse integer program.
+"""The recourse program: solved by listing combinations, or as an integer program.
 
 Outside references: exact brute-force enumeration of every combination of candidates (numpy,
-written here independently of the program's rows), a second solver (scipy.optimize.milp), and
-a closed form worked by hand for one linear feature on a grid.
+written here independently of the program's rows and of recourse.combinations), a second
+solver (scipy.optimize.milp), and a closed form worked by hand for one linear feature on a
+grid. Programs small enough are solved by listing (recourse.combinations); `integer_program`
+turns that off, so that the solvers themselves are what a test checks.
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import subprocess
 import sys
 from dataclasses import replace
 from pathlib import Path
+from unittest import mock
 
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
+from recourse import combinations
 from recourse.errors import PlanningError
 from recourse.program import (
     BUFFER,
@@ -26,12 +31,13 @@ from recourse.program import (
     Program,
     Solution,
     _need,
-    _Relaxation,
     _tables,
+    best_changes,
     best_reachable,
     solve,
     solve_with_scipy,
 )
+from recourse.relaxation import Relaxation
 
 ROOT = Path(__file__).resolve().parent.parent
 # Solvers accept a row that misses by their feasibility tolerance (scipy's HiGHS: 1e-6, fixed).
@@ -206,12 +212,25 @@ def check_against_enumeration(program: Program, solver: str) -> Solution:
     return solution
 
 
+def integer_program():
+    """Within this, every program goes to the integer program (no listing of combinations)."""
+    return mock.patch.object(combinations, "COMBINATIONS", 0)
+
+
+@pytest.fixture(params=["listing", "integer program"])
+def method(request):
+    """Run a test once with each way of solving."""
+    with integer_program() if request.param == "integer program" else contextlib.nullcontext():
+        yield request.param
+
+
 # 200 random programs for each solver (CBC, a subprocess, takes ~10 s of the ~30 s here).
 @settings(max_examples=200, deadline=None, derandomize=True)
 @given(programs())
 def test_highs_matches_enumeration_and_scipy(program):
-    solution = check_against_enumeration(program, "highs")
-    second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
+    with integer_program():
+        solution = check_against_enumeration(program, "highs")
+        second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
     assert second.status == solution.status
     if solution.status == "optimal":
         # scipy's milp stops at HiGHS's absolute gap of 1e-6, which it does not let us change
@@ -222,11 +241,119 @@ def test_highs_matches_enumeration_and_scipy(program):
 @settings(max_examples=200, deadline=None, derandomize=True)
 @given(programs())
 def test_cbc_matches_enumeration_and_scipy(program):
-    solution = check_against_enumeration(program, "cbc")
-    second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
+    with integer_program():
+        solution = check_against_enumeration(program, "cbc")
+        second = solve_with_scipy(program)  # second solver: scipy.optimize.milp
     assert second.status == solution.status
     if solution.status == "optimal":
         assert second.objective == pytest.approx(solution.objective, abs=SCIPY_GAP)
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(programs(), st.sampled_from([1, 2, 3, combinations.CHUNK]))
+def test_listing_matches_enumeration(program, chunk):
+    # the listing (recourse.combinations) against brute force; tiny chunks make it list
+    # every program piece by piece, and fix a group's pick when the rest is too long
+    with mock.patch.object(combinations, "CHUNK", chunk):
+        assert combinations.changed_sets(
+            [np.arange(len(v)) for v in program.contributions], program.current,
+            program.max_changes, program.forbidden) is not None  # small: it is listed
+        check_against_enumeration(program, "highs")
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(st.lists(st.tuples(st.sampled_from([-1.0, 0.0, 0.5, 1.0, 2.0]),
+                          st.sampled_from([0.0, 0.5, 1.0, 3.0])), max_size=12),
+       st.sampled_from([math.inf, 0.0, 0.5, 1.0, 1.5]))
+def test_best_changes_are_the_frontier_by_definition(pairs, need):
+    # brute force from the definition, pair by pair: a change is kept when it gains more than
+    # staying put, no other change costs no more and gains as much (of exact equals, the
+    # first one listed after sorting by cost and gain), and no kept change that costs less
+    # already gains `need`
+    gains = np.array([g for g, _ in pairs])
+    costs = np.array([c for _, c in pairs])
+    kept = set(best_changes(gains, costs, need).tolist())
+    rank = sorted(range(len(pairs)), key=lambda i: (costs[i], -gains[i], i))
+    truth = set()
+    for i in range(len(pairs)):
+        beaten = gains[i] <= 0 or any(
+            costs[j] <= costs[i] and gains[j] >= gains[i] and rank.index(j) < rank.index(i)
+            for j in range(len(pairs)) if j != i)
+        if not beaten:
+            truth.add(i)
+    cheaper_reach = [i for i in truth if gains[i] >= need]
+    if cheaper_reach:
+        stop = min(cheaper_reach, key=rank.index)
+        truth = {i for i in truth if rank.index(i) <= rank.index(stop)}
+    assert kept == truth
+
+
+def long_program(seed: int, groups: int, length: int, objective: str,
+                 max_changes: int | None) -> Program:
+    """Constructed: each group a long ragged frontier (costs rising, gains rising in bumps,
+    as percentile costs on a skewed feature make them), the threshold in reach of a few."""
+    rng = np.random.default_rng(seed)
+    contributions, costs = [], []
+    for _ in range(groups):
+        cost = np.r_[0.0, np.cumsum(rng.exponential(1.0, length - 1) * rng.choice(
+            [0.1, 1.0, 5.0], length - 1))]
+        gain = np.r_[0.0, np.cumsum(rng.exponential(1.0, length - 1) ** 2) / length]
+        contributions.append(tuple(-gain))  # at-most: lower contributions help
+        costs.append(tuple(cost))
+    best = sum(-c[-1] for c in contributions)
+    return Program(base=1.0, contributions=tuple(contributions), costs=tuple(costs),
+                   current=(0,) * groups, threshold=1.0 + 0.4 * best, direction="at-most",
+                   objective=objective, max_changes=max_changes)
+
+
+def two_group_optimum(program: Program) -> tuple[float, float]:
+    """Exact brute force for two groups: for each candidate of the first, the cheapest of
+    the second that reaches (sorted by gain, suffix minimum of cost, binary search)."""
+    (ga, gb), (ca, cb) = _tables(program)
+    need = _need(program)
+    order = np.argsort(gb)
+    suffix = np.minimum.accumulate(cb[order][::-1])[::-1]
+    at = np.searchsorted(gb[order], need - ga, side="left")
+    ok = at < len(order)
+    other = np.where(ok, suffix[np.minimum(at, len(order) - 1)], np.inf)
+    total = np.where(ok, ca + other, np.inf)
+    largest = np.where(ok, np.maximum(ca, other), np.inf)
+    return float(total.min()), float(largest.min())
+
+
+@pytest.mark.parametrize("objective", ["total-cost", "largest-cost"])
+def test_long_frontiers_against_two_group_brute_force(method, objective):
+    # two groups of 3,000 candidates: far too many combinations for the plain enumeration
+    # above, exact by additivity; the listing and the integer program must both find it
+    for seed in range(3):
+        program = long_program(seed, 2, 3000, objective, None)
+        total, largest = two_group_optimum(program)
+        solution = solve(program)
+        assert solution.status == "optimal"
+        expected = total if objective == "total-cost" else largest
+        assert solution.objective == pytest.approx(expected, abs=1e-9)
+        assert_keeps_the_rules(program, solution)
+
+
+def test_listing_gives_way_to_the_integer_program_past_its_limits():
+    # constructed: 19 groups with a limit of 5 changes make 16,664 sets of changed groups,
+    # past SETS, so the integer program solves it; a long group alone stays listed
+    many = long_program(0, 19, 4, "total-cost", 5)
+    kept = [np.arange(len(v)) for v in many.contributions]
+    assert combinations.changed_sets(kept, many.current, 5, ()) is None
+    assert solve(many).status == "optimal"
+    three = long_program(1, 3, 400, "total-cost", None)
+    kept = [np.arange(len(v)) for v in three.contributions]
+    assert combinations.changed_sets(kept, three.current, None, ()) is not None
+    with mock.patch.object(combinations, "COMBINATIONS", 399 * 399 - 1):
+        assert combinations.changed_sets(kept, three.current, None, ()) is None
+    # 10 groups, at most 3 changes: 176 sets, past SETS (64), listed only when the lists are
+    # long (2,500 candidates, past LONG), where the integer program's bound is weak
+    for length, listed in ((250, True), (150, False)):
+        kept = [np.arange(length) for _ in range(10)]
+        sets = combinations.changed_sets(kept, (0,) * 10, 3, ())
+        assert (sets is not None) == listed
+        assert sets is None or len(sets) == 176
 
 
 @settings(max_examples=200, deadline=None, derandomize=True)
@@ -256,7 +383,7 @@ def test_the_relaxation_bound_never_passes_the_optimum(program):
     kept = [np.arange(len(g)) for g in gains]
     limit = len(kept) if program.max_changes is None else program.max_changes
     assume(limit >= 1)
-    relaxation = _Relaxation(gains, costs, kept, cheapest.current, _need(cheapest), limit)
+    relaxation = Relaxation(gains, costs, kept, cheapest.current, _need(cheapest), limit)
     bound, multiplier, _ = relaxation.search()
     assert bound <= truth[0] + 1e-9
     for value in (0.0, 0.5 * multiplier, 2 * multiplier + 1):
@@ -317,7 +444,7 @@ def small(**changes) -> Program:
 
 
 @pytest.mark.parametrize("solver", SOLVERS)
-def test_forbidding_a_plan_gives_the_next_one(solver):
+def test_forbidding_a_plan_gives_the_next_one(solver, method):
     # constructed: {0,1} costs 3 (score 0.3), {0} alone costs 4 (score 0.5), {1} misses
     first = solve(small(), solver)
     assert first.choice == (1, 1) and first.objective == pytest.approx(3.0)
@@ -330,7 +457,7 @@ def test_forbidding_a_plan_gives_the_next_one(solver):
 @pytest.mark.parametrize("solver", SOLVERS)
 @pytest.mark.parametrize("direction", ["at-least", "at-most"])
 @pytest.mark.parametrize("objective", ["total-cost", "largest-cost", "fewest-changes"])
-def test_the_buffer_keeps_plans_off_the_line(solver, direction, objective):
+def test_the_buffer_keeps_plans_off_the_line(solver, direction, objective, method):
     # constructed: changing group 0 alone passes the threshold by only half the buffer, so
     # every objective must change both groups (the random programs stay clear of this line)
     sign = 1.0 if direction == "at-least" else -1.0
@@ -373,7 +500,7 @@ TRIPPED = [  # programs on which a solver once called a dearer plan optimal (CBC
 
 @pytest.mark.parametrize("solver", SOLVERS)
 @pytest.mark.parametrize("program", TRIPPED)
-def test_programs_that_tripped_a_solver(program, solver):
+def test_programs_that_tripped_a_solver(program, solver, method):
     truth = brute_force(program)  # exact enumeration: 0.5, 0.99999, 1.0, 1.0 and no choice
     solution = solve(program, solver)
     if truth is None:
@@ -419,7 +546,9 @@ def test_unknown_solver_is_a_user_error():
 def test_solving_is_quiet_and_leaves_no_files(tmp_path):
     # a fresh process, so HiGHS's once-per-process banner would show; warnings made visible
     script = ("from tests.test_program import small\n"
+              "from recourse import combinations\n"
               "from recourse.program import solve, solve_with_scipy\n"
+              "combinations.COMBINATIONS = 0  # to the solvers, not the listing\n"
               "for solver in ('highs', 'cbc'):\n"
               "    assert solve(small(), solver).status == 'optimal'\n"
               "    assert solve(small(threshold=9.0), solver).status == 'infeasible'\n"
