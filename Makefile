@@ -40,7 +40,7 @@ demo: $(STAMP)
 	$(BIN)/recourse template $(OUT)/loans.spline.json > $(OUT)/loans.mutability.template.toml
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L001096
 	@echo "== 9. an applicant for whom no plan exists within the rules"
-	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L002331 --plans 1
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L002796 --plans 1
 	@echo "== 10. a cottage listing below the top tier"
 	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
@@ -48,7 +48,7 @@ demo: $(STAMP)
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
 	@echo "== 12. reasons: what holds the two declined applicants furthest below the best"
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L001096
-	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L002331 --top 3
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L002796 --top 3
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --format csv --out $(OUT)/loans.reasons.csv
 	@echo "== 13. a points scorecard from the spline model, checked against the exact score at the cut-off"
 	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv --cutoff 0.3 --format json --out $(OUT)/loans.card.json
