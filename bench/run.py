@@ -418,7 +418,8 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
         "**The program**, in alternating blocks of 50 rows (ours on a block, then the "
         f"baseline on it): ours (`{DEFAULT_SOLVER}`, the default: "
         "dominated candidates dropped, a Lagrangian bound drops the changes that cannot beat a "
-        "known plan, HiGHS in-process through pulp) against a baseline that builds the whole "
+        "known plan, then an exact search: combinations listed when the program is small, "
+        "else HiGHS in-process through pulp) against a baseline that builds the whole "
         "program afresh in pulp and solves it with the CBC command line.",
         "",
         "| | median per row (ms) | rows per second | ratio |",
