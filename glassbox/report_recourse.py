@@ -18,6 +18,7 @@ from glassbox.files import read_json
 from glassbox.groups import MIN_GROUP, compare_groups, flag_caption, flag_words, size_note
 from glassbox.provenance import file_sha256
 from glassbox.report import Paragraph, Section, Table
+from glassbox.schema import is_number
 
 FORMAT = "recourse-audit"
 VERSION = 1
@@ -65,7 +66,7 @@ def check_audit(document: dict[str, Any], audit_name: str, *, model_file: str | 
     expected = f"{GOAL_WORDS[better]} {cutoff:g}"
     if "goal_direction" in context and "goal_target" in context:  # audits since the field
         same = (str(context["goal_direction"]).replace("-", " ") == GOAL_WORDS[better]
-                and _is_number(context["goal_target"])
+                and is_number(context["goal_target"])
                 and math.isclose(float(context["goal_target"]), cutoff, rel_tol=1e-12))
     else:  # older audits record the goal as words only: read its last words
         found = re.search(r"\b(at most|at least) (\S+)$", goal)
@@ -74,11 +75,6 @@ def check_audit(document: dict[str, Any], audit_name: str, *, model_file: str | 
         raise DataError(f"{audit_name} was made for the goal '{goal}', but this report's "
                         f"cut-off makes favourable '{expected}': give the report the "
                         "audit's cut-off (--cutoff), or remake the audit for this one")
-
-
-def _is_number(value: Any) -> bool:
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(
-        value)
 
 
 def _share(value: Any) -> str:

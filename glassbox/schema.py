@@ -231,7 +231,7 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
         if not isinstance(entry.get(key, False), bool):
             raise SchemaError(f"{where}[feature.{name}] {key} must be true or false")
     fill = entry.get("fill")
-    if fill is not None and kind in ("number", "integer") and not _is_number(fill):
+    if fill is not None and kind in ("number", "integer") and not is_number(fill):
         raise SchemaError(f"{where}[feature.{name}] fill for a {kind} must be a number, "
                           f"not {fill!r}")
     if fill is not None and kind == "integer" and float(fill) != int(float(fill)):
@@ -244,7 +244,8 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
     )
 
 
-def _is_number(value: Any) -> bool:
+def is_number(value: Any) -> bool:
+    """A finite int or float, not a bool (TOML and JSON numbers as users write them)."""
     return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
 
 

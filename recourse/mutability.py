@@ -20,6 +20,7 @@ import numpy as np
 
 from glassbox.additive import AdditiveModel, FeatureProfile, LevelsTerm
 from glassbox.files import read_toml
+from glassbox.schema import is_number
 from recourse.errors import MutabilityError
 
 DIRECTIONS = ("at-least", "at-most")
@@ -132,16 +133,11 @@ def mutability_from_dict(data: Mapping[str, Any], model: AdditiveModel,
     return Mutability(goal, rules, source)
 
 
-def _is_number(value: Any) -> bool:
-    return (isinstance(value, int | float) and not isinstance(value, bool)
-            and math.isfinite(value))
-
-
 def _number(entry: Mapping[str, Any], key: str, here: str) -> float | None:
     if key not in entry:
         return None
     value = entry[key]
-    if not _is_number(value):
+    if not is_number(value):
         raise MutabilityError(f"{here}{key} must be a number, not {value!r}")
     return float(value)
 
@@ -269,7 +265,7 @@ def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule
     if largest is not None and largest <= 0:
         raise MutabilityError(f"{here}largest_change must be above zero, not {largest:g}")
     cost = entry.get("cost", "percentile")
-    if not (cost in COSTS or (_is_number(cost) and cost >= 0)):
+    if not (cost in COSTS or (is_number(cost) and cost >= 0)):
         raise MutabilityError(f"{here}cost must be percentile, spread or a number of at "
                               f"least 0 per unit, not {cost!r}")
     profile = next((p for p in model.profiles if p.feature == name), None)
@@ -290,7 +286,7 @@ def _category_rule(name: str, entry: Mapping[str, Any], change: str, model: Addi
         raise MutabilityError(f"{here}change {change!r} needs an order; a category can be "
                               "fixed or either")
     cost = entry.get("cost", 1.0)
-    if not _is_number(cost) or cost < 0:
+    if not is_number(cost) or cost < 0:
         raise MutabilityError(f"{here}cost of a category must be a number of at least 0 "
                               f"per move, not {cost!r} (percentile and spread need numbers)")
     moves = entry.get("moves")
