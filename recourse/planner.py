@@ -23,11 +23,11 @@ from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import (
-    BUFFER,
     DEFAULT_SOLVER,
     Program,
     Solution,
     best_reachable,
+    gain_needed,
     solve,
 )
 
@@ -113,7 +113,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
               "direction": goal.direction, "row_id": row_id}
     if not goal.missed(np.array([score]), model.link)[0]:  # the margin is for plans only
         return PlanResult("already", **common)
-    need = _favourable(goal.direction) * (threshold - score) + BUFFER  # as the program's
+    need = gain_needed(score, threshold, goal.direction)
     candidates = encoded_candidates(model, encoded.iloc[0], mutability, need)
     names = tuple(candidates)
     program = row_program(candidates, score, parts, goal, threshold)

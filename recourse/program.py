@@ -139,9 +139,14 @@ def _sign(program: Program) -> float:
     return 1.0 if program.direction == "at-least" else -1.0
 
 
+def gain_needed(score: float, threshold: float, direction: str) -> float:
+    """The gain over `score`, toward the goal in `direction`, that passes the threshold by
+    the buffer (what every plan must add; the candidates and the program share it)."""
+    return (1.0 if direction == "at-least" else -1.0) * (threshold - score) + BUFFER
+
+
 def _need(program: Program) -> float:
-    """The gain over the current score that passes the threshold by the buffer."""
-    return _sign(program) * (program.threshold - _current_score(program)) + BUFFER
+    return gain_needed(_current_score(program), program.threshold, program.direction)
 
 
 def _tables(program: Program) -> tuple[list[np.ndarray], list[np.ndarray]]:
