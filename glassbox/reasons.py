@@ -189,20 +189,24 @@ def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> li
     return out
 
 
-def unfavourable(model: AdditiveModel, score: np.ndarray, cutoff: float | None) -> np.ndarray:
-    """Rows on the unfavourable side of the cut-off (a probability for classification,
-    default 0.5; a predicted value for regression, which must be given)."""
-    better = model.schema.target.better
+def checked_cutoff(model: AdditiveModel, cutoff: float | None) -> float:
+    """The cut-off to use: a probability for classification (default 0.5), a predicted
+    value for regression (which must be given)."""
     if model.link == "logit":
         cutoff = 0.5 if cutoff is None else cutoff
         if not 0 < cutoff < 1:
             raise OptionError(f"--cutoff is a probability between 0 and 1, not {cutoff}")
-        outcome = model.inverse_link(np.asarray(score))
-    else:
-        if cutoff is None:
-            raise OptionError("a regression model needs --cutoff VALUE (a predicted value)")
-        outcome = np.asarray(score)
-    return outcome > cutoff if better == "lower" else outcome < cutoff
+    elif cutoff is None:
+        raise OptionError("a regression model needs --cutoff VALUE (a predicted value)")
+    return float(cutoff)
+
+
+def unfavourable(model: AdditiveModel, score: np.ndarray, cutoff: float | None) -> np.ndarray:
+    """Rows on the unfavourable side of the cut-off (a probability for classification,
+    default 0.5; a predicted value for regression, which must be given)."""
+    cutoff = checked_cutoff(model, cutoff)
+    outcome = model.inverse_link(np.asarray(score))
+    return outcome > cutoff if model.schema.target.better == "lower" else outcome < cutoff
 
 
 def reasons_table(model: AdditiveModel, frame: pd.DataFrame, top: int = 4,

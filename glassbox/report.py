@@ -170,11 +170,10 @@ def build_report(
         check_same_data(model, comparison, model_name, where)
     source = source or frame.attrs.get("source") or "the data"
     if audit is not None:  # before any scoring: a mismatched audit is refused at once
-        reasons.unfavourable(model, np.zeros(0), cutoff)  # the cut-off's own checks
         report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
                                     model_file=model_file, data_file=source,
                                     better=model.schema.target.better,
-                                    cutoff=0.5 if cutoff is None else float(cutoff))
+                                    cutoff=reasons.checked_cutoff(model, cutoff))
     prepared = prepare(frame, model.schema, require_target=False, source=source,
                        features=model.features)
     score = model.score_encoded(prepared.features)
