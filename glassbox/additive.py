@@ -6,6 +6,10 @@ Each f_j is a table: a curve (piecewise-linear over knots), steps
 (piecewise-constant over bin edges) or levels (one value per category). What an
 auditor reads in these tables is exactly what scores a row. Numeric values
 beyond the training range are scored at the table's ends (clamped).
+
+Every table also has an entry for a missing value (`missing`): what a row with no
+value for the feature adds, learned from training rows that had none. A term whose
+training data had no missing value has `missing = None` and refuses to score one.
 """
 
 from __future__ import annotations
@@ -21,7 +25,7 @@ from scipy.special import expit
 
 from glassbox.cells import TermCells
 from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
-from glassbox.schema import Schema, prepare
+from glassbox.schema import Schema, prepare, rows_text
 
 LINKS = ("logit", "identity")
 PERCENTILE_POINTS = 101
@@ -38,6 +42,24 @@ def _band(term: Any, values: np.ndarray) -> None:
         if band is not None and len(band) != len(values):
             raise ModelFileError(f"term '{term.feature}': {name} band has {len(band)} entries "
                                  f"for {len(values)} values")
+    if term.missing is not None and not np.isfinite(term.missing):
+        raise ModelFileError(f"term '{term.feature}': the missing-value entry must be a number")
+    if term.missing_band is not None and (term.missing is None or len(term.missing_band) != 2):
+        raise ModelFileError(f"term '{term.feature}': a missing-value band needs a missing "
+                             "value and two ends")
+
+
+def _with_missing(term: Any, column: np.ndarray, values: np.ndarray,
+                  absent: np.ndarray) -> np.ndarray:
+    """`values` with the term's missing-value entry where the column has no value."""
+    if absent.any():
+        if term.missing is None:
+            raise DataError(
+                f"feature '{term.feature}': {int(absent.sum())} row(s) have no value, and the "
+                f"model has no entry for a missing '{term.feature}' (its training data had "
+                "none); supply the value, or give the feature a fill value in the schema")
+        values = np.where(absent, term.missing, values)
+    return values
 
 
 @dataclass(frozen=True)
@@ -49,6 +71,8 @@ class CurveTerm:
     values: tuple[float, ...]
     lower: tuple[float, ...] | None = None
     upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
     kind: ClassVar[str] = "curve"
 
     def __post_init__(self) -> None:
@@ -60,7 +84,9 @@ class CurveTerm:
         _band(self, knots)
 
     def evaluate(self, column: np.ndarray) -> np.ndarray:
-        return np.interp(np.asarray(column, dtype=float), self.knots, self.values)
+        column = np.asarray(column, dtype=float)
+        values = np.interp(column, self.knots, self.values)
+        return _with_missing(self, column, values, np.isnan(column))
 
     def shifted(self, delta: float) -> CurveTerm:
         return replace(self, **_shift_all(self, delta))
@@ -79,6 +105,8 @@ class StepTerm:
     values: tuple[float, ...]
     lower: tuple[float, ...] | None = None
     upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
     kind: ClassVar[str] = "steps"
 
     def __post_init__(self) -> None:
@@ -93,7 +121,9 @@ class StepTerm:
                                side="left")
 
     def evaluate(self, column: np.ndarray) -> np.ndarray:
-        return np.asarray(self.values)[self.bin_of(column)]
+        column = np.asarray(column, dtype=float)
+        values = np.asarray(self.values)[self.bin_of(column)]
+        return _with_missing(self, column, values, np.isnan(column))
 
     def shifted(self, delta: float) -> StepTerm:
         return replace(self, **_shift_all(self, delta))
@@ -109,6 +139,8 @@ class LevelsTerm:
     unseen: float = 0.0
     lower: tuple[float, ...] | None = None
     upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
     kind: ClassVar[str] = "levels"
 
     def __post_init__(self) -> None:
@@ -119,8 +151,10 @@ class LevelsTerm:
         _band(self, np.asarray(self.values))
 
     def evaluate(self, column: np.ndarray) -> np.ndarray:
-        position = pd.Index(self.levels).get_indexer(np.asarray(column, dtype=object))
-        unseen = position < 0
+        column = np.asarray(column, dtype=object)
+        absent = pd.isna(column)
+        position = pd.Index(self.levels).get_indexer(column)
+        unseen = (position < 0) & ~absent
         values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
         if unseen.any():
             strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
@@ -131,7 +165,7 @@ class LevelsTerm:
                 UnseenLevelWarning, stacklevel=3,
             )
             values[unseen] = self.unseen
-        return values
+        return _with_missing(self, column, values, absent)
 
     def shifted(self, delta: float) -> LevelsTerm:
         changes = _shift_all(self, delta)
@@ -149,6 +183,10 @@ def _shift_all(term: Term, delta: float) -> dict[str, Any]:
         band = getattr(term, name)
         if band is not None:
             changes[name] = _floats(np.asarray(band) - delta)
+    if term.missing is not None:
+        changes["missing"] = float(term.missing - delta)
+    if term.missing_band is not None:
+        changes["missing_band"] = _floats(np.asarray(term.missing_band) - delta)
     return changes
 
 
@@ -166,6 +204,10 @@ def term_to_dict(term: Term) -> dict[str, Any]:
     for name in ("lower", "upper"):
         if getattr(term, name) is not None:
             data[name] = list(getattr(term, name))
+    if term.missing is not None:
+        data["missing"] = term.missing
+    if term.missing_band is not None:
+        data["missing_band"] = list(term.missing_band)
     return data
 
 
@@ -175,7 +217,12 @@ def term_from_dict(data: Mapping[str, Any]) -> Term:
     if kind not in TERM_TYPES:
         raise ModelFileError(f"unknown term kind {kind!r}")
     try:
-        band = {name: _floats(data[name]) for name in ("lower", "upper") if name in data}
+        band: dict[str, Any] = {name: _floats(data[name]) for name in ("lower", "upper")
+                                if name in data}
+        if data.get("missing") is not None:
+            band["missing"] = float(data["missing"])
+        if data.get("missing_band") is not None:
+            band["missing_band"] = _floats(data["missing_band"])
         if kind == "curve":
             return CurveTerm(str(data["feature"]), _floats(data["knots"]),
                              _floats(data["values"]), **band)
@@ -207,6 +254,13 @@ class FeatureProfile:
     spread: float | None = None
     level_counts: tuple[tuple[str, int], ...] = ()
     value_counts: tuple[tuple[float, int], ...] = ()
+    missing: int = 0
+    rows: int = 0
+
+    @property
+    def missing_share(self) -> float | None:
+        """The share of training rows with no value (None when the profile predates it)."""
+        return self.missing / self.rows if self.rows else None
 
     @property
     def minimum(self) -> float:
@@ -268,6 +322,8 @@ class FeatureProfile:
             data["level_counts"] = {level: count for level, count in self.level_counts}
         if self.value_counts:
             data["value_counts"] = [[value, count] for value, count in self.value_counts]
+        if self.rows:
+            data.update(rows=self.rows, missing=self.missing)
         return data
 
     @classmethod
@@ -279,23 +335,30 @@ class FeatureProfile:
             mean=data.get("mean"), spread=data.get("median_absolute_deviation"),
             level_counts=tuple((str(k), int(v)) for k, v in counts.items()),
             value_counts=tuple((float(v), int(c)) for v, c in data.get("value_counts", ())),
+            missing=int(data.get("missing", 0)), rows=int(data.get("rows", 0)),
         )
 
 
 def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeatureProfile, ...]:
-    """Training percentiles, mean, spread and level counts of every used feature."""
+    """Training percentiles, mean, spread and level counts of every used feature, over the
+    rows that have a value, and how many rows have none."""
     profiles = []
     for name in features.columns:
         spec = schema.feature(name)
         column = features[name]
+        absent = column.isna().to_numpy()
+        counted = {"missing": int(absent.sum()), "rows": int(len(column))}
         if spec.kind == "category":
             counts = column.value_counts()
             ordered = sorted(counts.items(), key=lambda item: (-item[1], item[0]))
             profiles.append(FeatureProfile(name, spec.kind,
                                            level_counts=tuple((str(k), int(v))
-                                                              for k, v in ordered)))
+                                                              for k, v in ordered), **counted))
             continue
-        values = column.to_numpy(dtype=float)
+        values = column.to_numpy(dtype=float)[~absent]
+        if len(values) == 0:
+            raise DataError(f"column '{name}' has no values at all; drop it or mark it "
+                            "ignore = true in the schema")
         grid = np.linspace(0, 100, PERCENTILE_POINTS)
         percentiles = np.percentile(values, grid)
         median = float(np.median(values))
@@ -305,6 +368,7 @@ def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeaturePro
         profiles.append(FeatureProfile(
             name, spec.kind, percentiles=_floats(percentiles), mean=float(values.mean()),
             spread=float(np.median(np.abs(values - median))), value_counts=value_counts,
+            **counted,
         ))
     return tuple(profiles)
 
@@ -372,8 +436,23 @@ class AdditiveModel:
         """Validate and type the model's feature columns of a raw frame."""
         if not isinstance(frame, pd.DataFrame):
             raise DataError("expected a pandas DataFrame of feature columns")
-        return prepare(frame, self.schema, require_target=False, source=source,
-                       features=self.features).features
+        encoded = prepare(frame, self.schema, require_target=False, source=source,
+                          features=self.features).features
+        self.check_missing(encoded, source or frame.attrs.get("source") or "the data")
+        return encoded
+
+    def check_missing(self, encoded: pd.DataFrame, where: str) -> None:
+        """Refuse rows missing a feature whose term learned no missing-value entry."""
+        for term in self.terms:
+            if term.missing is not None:
+                continue
+            absent = encoded[term.feature].isna().to_numpy()
+            if absent.any():
+                raise DataError(
+                    f"{where}: column '{term.feature}' has {int(absent.sum())} missing "
+                    f"value(s) in {rows_text(absent)}, and the model has no entry for a "
+                    f"missing '{term.feature}' (its training data had none); supply the "
+                    "values, or give the feature a fill value in the schema")
 
     def contributions(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
         """One column per term: what each feature adds to the score of each row."""
@@ -430,6 +509,7 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
     and each term's contribution (`contribution:FEATURE`)."""
     prepared = prepare(frame, model.schema, require_target=False, source=source,
                        features=model.features)
+    model.check_missing(prepared.features, source or frame.attrs.get("source") or "the data")
     parts = model.contributions_encoded(prepared.features)
     score = model.intercept + parts.sum(axis=1).to_numpy()
     out = pd.DataFrame(index=frame.index)

@@ -1,6 +1,6 @@
 """Model files: the additive model as plain, versioned, checksummed JSON.
 
-    {"format": "glassbox-model", "version": 1, "checksum": "sha256:...", "model": {...}}
+    {"format": "glassbox-model", "version": 2, "checksum": "sha256:...", "model": {...}}
 
 The checksum is SHA-256 over the canonical JSON of "model" (sorted keys, no
 spaces). Files are written atomically; loading says plainly what is wrong with
@@ -19,7 +19,7 @@ from glassbox.errors import GlassboxError, ModelFileError
 from glassbox.schema import Schema
 
 FORMAT = "glassbox-model"
-VERSION = 1
+VERSION = 2  # 2: every term may carry a missing-value entry; profiles count missing rows
 
 
 MODEL_FILE = documents.Kind(FORMAT, VERSION, "model", "model file", "a glassbox model file",

@@ -34,6 +34,14 @@ PROTECTED_HINTS = (
     "disab", "pregnan", "orientation", "colour", "color_of_skin",
 )
 SHOWN_ROWS = 5
+# What a missing value means for a feature: "learn" a contribution for it from the data
+# (the default: in credit data a blank is information), take the schema's "fill" value,
+# or "refuse" the row with an error.
+MISSING_RULES = ("learn", "fill", "refuse")
+# The only text a CSV file may use for a missing value; anything else is data (a sentinel
+# such as -1 or 999 is declared per feature with `missing_codes`).
+BLANKS = ("", "NA", "NaN", "nan", "null", "NULL")
+MISSING_LEVEL = "(missing)"  # how a missing category is shown; never a level of its own
 
 
 @dataclass(frozen=True)
@@ -48,6 +56,8 @@ class FeatureSpec:
     fill: Any = None
     description: str = ""
     reason: str = ""
+    missing: str = "learn"
+    missing_codes: tuple[Any, ...] = ()
 
     @property
     def used(self) -> bool:
@@ -131,6 +141,10 @@ class Schema:
             for key in ("protected", "ignore"):
                 if getattr(spec, key):
                     entry[key] = True
+            if spec.missing not in ("learn", "fill"):
+                entry["missing"] = spec.missing
+            if spec.missing_codes:
+                entry["missing_codes"] = list(spec.missing_codes)
             for key in ("description", "reason"):
                 if getattr(spec, key):
                     entry[key] = getattr(spec, key)
@@ -186,7 +200,12 @@ class Schema:
             "# monotone = \"increasing\" | \"decreasing\"  (direction of the score)",
             "# protected = true  (never a model input; kept so audits can group by it)",
             "# ignore = true     (not used at all)",
-            "# fill = VALUE      (missing values take VALUE; without it they are an error)",
+            "# missing = \"learn\" | \"refuse\"  (a missing value gets its own learned"
+            " contribution,",
+            "#                   the default; or is an error)",
+            "# fill = VALUE      (missing values take VALUE instead)",
+            "# missing_codes = [-1, 999]  (values that mean missing; blank, NA, NaN and null"
+            " always do)",
             "",
         ]
         data = self.to_dict()
@@ -211,7 +230,8 @@ def _guessed_protected(schema: Schema) -> set[str]:
 def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
     if not isinstance(entry, Mapping):
         raise SchemaError(f"{where}[feature.{name}] must be a table")
-    allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason"}
+    allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason",
+               "missing", "missing_codes"}
     unknown = set(entry) - allowed
     if unknown:
         raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
@@ -236,12 +256,36 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
                           f"not {fill!r}")
     if fill is not None and kind == "integer" and float(fill) != int(float(fill)):
         raise SchemaError(f"{where}[feature.{name}] fill for an integer must be whole")
+    missing = entry.get("missing", "fill" if fill is not None else "learn")
+    if missing not in MISSING_RULES:
+        raise SchemaError(f"{where}[feature.{name}] missing must be one of "
+                          f"{', '.join(MISSING_RULES)}, not {missing!r}")
+    if (missing == "fill") != (fill is not None):
+        raise SchemaError(f"{where}[feature.{name}] " + (
+            "missing = \"fill\" needs a fill value (fill = VALUE)" if fill is None else
+            f"has a fill value but missing = {missing!r}; drop one of them"))
     return FeatureSpec(
         name=str(name), kind=kind, monotone=monotone,
         protected=entry.get("protected", False), ignore=entry.get("ignore", False),
         fill=fill, description=str(entry.get("description", "")),
-        reason=str(entry.get("reason", "")),
+        reason=str(entry.get("reason", "")), missing=missing,
+        missing_codes=_missing_codes(entry.get("missing_codes", []), kind,
+                                     f"{where}[feature.{name}]"),
     )
+
+
+def _missing_codes(codes: Any, kind: str, where: str) -> tuple[Any, ...]:
+    """The declared sentinels of a feature: numbers for a numeric kind, numbers or text
+    for a flag or a category."""
+    if not isinstance(codes, list):
+        raise SchemaError(f"{where} missing_codes must be a list, e.g. [-1, 999]")
+    for code in codes:
+        if kind in ("number", "integer") and not is_number(code):
+            raise SchemaError(f"{where} missing_codes of a {kind} must be numbers, "
+                              f"not {code!r}")
+        if not (is_number(code) or isinstance(code, str)) or code == "":
+            raise SchemaError(f"{where} missing_codes must be numbers or text, not {code!r}")
+    return tuple(codes)
 
 
 def is_number(value: Any) -> bool:
@@ -282,7 +326,8 @@ def read_table(path: str | Path) -> pd.DataFrame:
         if suffix in (".parquet", ".pq"):
             frame = pd.read_parquet(path)
         else:
-            frame = pd.read_csv(path, skipinitialspace=True)
+            frame = pd.read_csv(path, skipinitialspace=True, keep_default_na=False,
+                                na_values=list(BLANKS))
     except pd.errors.EmptyDataError:
         raise DataError(f"data file {path} is empty") from None
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
@@ -301,7 +346,7 @@ def _source(frame: pd.DataFrame, source: str | None) -> str:
     return source or frame.attrs.get("source") or "the data"
 
 
-def _rows_text(mask: np.ndarray) -> str:
+def rows_text(mask: np.ndarray) -> str:
     """'data rows 3, 8, 12 (and 40 more)', numbering data rows from 1."""
     rows = np.flatnonzero(mask) + 1
     shown = ", ".join(str(r) for r in rows[:SHOWN_ROWS])
@@ -371,15 +416,29 @@ def prepare(
 
 
 def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
-    """One raw column to its typed form, or a DataError naming the rows at fault."""
+    """One raw column to its typed form, or a DataError naming the rows at fault.
+
+    Missing values (blanks and the feature's `missing_codes`) follow the feature's rule:
+    "fill" puts the fill value in, "refuse" is an error, "learn" keeps them missing (NaN
+    in a numeric column, None in a category) for the model's own missing-value entry.
+    """
     values = column
-    missing = _missing_mask(values)
+    missing = missing_mask(values, spec)
     if missing.any():
-        if spec.fill is None:
+        if spec.missing == "refuse":
             raise DataError(f"{where}: column '{spec.name}' has {int(missing.sum())} missing "
-                            f"value(s) in {_rows_text(missing)}; give the feature a fill "
-                            "value in the schema or clean the data")
-        values = values.astype(object).where(~missing, spec.fill)
+                            f"value(s) in {rows_text(missing)} and the schema refuses them "
+                            f"(missing = \"refuse\"); set missing = \"learn\" or a fill "
+                            "value, or clean the data")
+        if spec.missing == "fill":
+            values = values.astype(object).where(~missing, spec.fill)
+            missing = np.zeros(len(values), dtype=bool)
+        else:  # typed with a harmless stand-in, then marked missing (row numbers stay true)
+            stand_in = "0" if spec.numeric else MISSING_LEVEL
+            plain = replace(spec, missing="fill", fill=stand_in, missing_codes=())
+            typed = encode_column(values.astype(object).where(~missing, stand_in), plain,
+                                  where)
+            return typed.where(~missing, np.nan if spec.numeric else None)
     if spec.kind == "category":
         return pd.Series(_labels(values).to_numpy(dtype=object), index=column.index,
                          dtype=object)
@@ -390,17 +449,17 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     if bad.any():
         first = values[bad].iloc[0]
         raise DataError(f"{where}: column '{spec.name}' should hold numbers but has text in "
-                        f"{_rows_text(bad)} (first: {str(first)!r})")
+                        f"{rows_text(bad)} (first: {str(first)!r})")
     numbers = numbers.astype(float)
     if not np.isfinite(numbers.to_numpy()).all():
         infinite = ~np.isfinite(numbers.to_numpy())
         raise DataError(f"{where}: column '{spec.name}' has infinite values in "
-                        f"{_rows_text(infinite)}")
+                        f"{rows_text(infinite)}")
     if spec.kind == "integer":
         fractional = (numbers != np.round(numbers)).to_numpy()
         if fractional.any():
             raise DataError(f"{where}: column '{spec.name}' is declared integer but has "
-                            f"fractions in {_rows_text(fractional)} "
+                            f"fractions in {rows_text(fractional)} "
                             f"(first: {numbers[fractional].iloc[0]!r})")
     return numbers
 
@@ -410,6 +469,19 @@ def _missing_mask(values: pd.Series) -> np.ndarray:
     if values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
         text = values.astype(str).str.strip()
         mask = mask | (text == "").to_numpy()
+    return mask
+
+
+def missing_mask(values: pd.Series, spec: FeatureSpec) -> np.ndarray:
+    """Where a raw column is missing: blank, NaN or None, or one of the feature's codes."""
+    mask = _missing_mask(values)
+    if spec.missing_codes:
+        if spec.kind in ("number", "integer"):
+            numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
+            mask = mask | np.isin(numbers, np.asarray(spec.missing_codes, dtype=float))
+        else:
+            codes = {label_text(code) for code in spec.missing_codes}
+            mask = mask | _labels(values).isin(codes).to_numpy()
     return mask
 
 
@@ -428,7 +500,7 @@ def _encode_flag(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
     if bad.any():
         first = values[bad].iloc[0]
         raise DataError(f"{where}: column '{spec.name}' is a flag (yes/no, true/false, 1/0) "
-                        f"but has other values in {_rows_text(bad)} (first: {str(first)!r})")
+                        f"but has other values in {rows_text(bad)} (first: {str(first)!r})")
     return pd.Series(truthy.astype(float), index=values.index)
 
 
@@ -438,7 +510,7 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     missing = _missing_mask(column)
     if missing.any():
         raise DataError(f"{where}: target column '{name}' has missing values in "
-                        f"{_rows_text(missing)}")
+                        f"{rows_text(missing)}")
     if schema.target.task == "regression":
         spec = FeatureSpec(name, "number")
         return encode_column(column, spec, where).to_numpy(dtype=float)

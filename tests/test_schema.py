@@ -97,16 +97,44 @@ def test_text_in_numeric_column_names_column_and_rows(tmp_path):
     assert "data rows 2, 4" in message and "'eighty'" in message
 
 
-def test_missing_values_under_error_policy_name_column_and_first_rows(tmp_path):
+def test_missing_values_under_refuse_rule_name_column_and_first_rows(tmp_path):
     rows = "\n".join(f"{i},{'' if i in (3, 7) else i * 1.5},no" for i in range(1, 10))
     frame = read_table(write(tmp_path / "gaps.csv", "id,revenue,outcome\n" + rows + "\n"))
     schema = Schema.from_dict({"target": {"column": "outcome", "positive": "no"},
-                               "feature": {"revenue": {"kind": "number"}}})
+                               "feature": {"revenue": {"kind": "number",
+                                                       "missing": "refuse"}}})
     with pytest.raises(DataError) as caught:
         prepare(frame, schema)
     message = str(caught.value)
     assert "gaps.csv" in message and "'revenue'" in message
     assert "2 missing value(s) in data rows 3, 7" in message and "fill" in message
+
+
+def test_learn_rule_keeps_blanks_and_declared_codes_missing(tmp_path):
+    # constructed: the CSV blanks are empty, NA, NaN and null; "N/A" is data, and -1 and
+    # "unknown" are declared codes
+    text = ("revenue,sector,outcome\n1.5,retail,no\n,NA,yes\nNaN,null,no\n-1,unknown,no\n"
+            "null,retail,yes\n4,N/A,no\n")
+    frame = read_table(write(tmp_path / "blanks.csv", text))
+    schema = Schema.from_dict({"target": {"column": "outcome", "positive": "yes"},
+                               "feature": {"revenue": {"kind": "number", "missing_codes": [-1]},
+                                           "sector": {"kind": "category",
+                                                      "missing_codes": ["unknown"]}}})
+    features = prepare(frame, schema).features
+    assert features["revenue"].isna().tolist() == [False, True, True, True, True, False]
+    assert features["sector"].isna().tolist() == [False, True, True, True, False, False]
+    assert features["sector"].iloc[5] == "N/A"
+
+
+def test_missing_rules_are_checked():
+    base = {"target": {"column": "y"}}
+    for entry, words in (({"kind": "number", "missing": "guess"}, "missing must be one of"),
+                         ({"kind": "number", "missing": "fill"}, "needs a fill value"),
+                         ({"kind": "number", "fill": 1, "missing": "refuse"}, "drop one"),
+                         ({"kind": "number", "missing_codes": ["none"]}, "must be numbers"),
+                         ({"kind": "integer", "missing_codes": 999}, "must be a list")):
+        with pytest.raises(SchemaError, match=words):
+            Schema.from_dict({**base, "feature": {"x": entry}})
 
 
 def test_fill_policy_fills(tmp_path):
