@@ -97,6 +97,12 @@ class TermPlan:
     levels: tuple[str, ...] = ()
     whole: bool = False  # an integer feature: its tables need only whole numbers
     scale: Scale = Scale()  # pygam fits a spline on scale(x)
+    # a numeric feature with missing training values: the term index of its indicator
+    # ("indicator" plan), the value its missing rows stand at (a training value, in the
+    # feature's own units) and how many rows had no value
+    indicator: int | None = None
+    stand_in: float = 0.0
+    missing_rows: int = 0
 
 
 def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
@@ -131,16 +137,20 @@ def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
 def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
                spline_scale: str = "power",
                ) -> tuple[list[TermPlan], np.ndarray, dict[str, str]]:
-    """One plan per feature, the numeric matrix pygam fits on (each spline's column on
-    its `spline_scale`, see spline_scale), and any fallbacks."""
+    """One plan per feature, then one "indicator" plan per numeric feature with missing
+    values; the numeric matrix pygam fits on (each spline's column on its `spline_scale`,
+    see spline_scale; a missing value at its stand-in, beside a 0/1 indicator column); and
+    any fallbacks."""
     plans, columns, fallbacks = [], [], {}
+    indicators: list[np.ndarray] = []
     for name in features.columns:
         spec = schema.feature(name)
         column = features[name]
         distinct = column.nunique()
         if distinct < 2:
-            raise DataError(f"feature '{name}' has a single value ({column.iloc[0]!r}) in the "
-                            "training data; it cannot shape a score, so ignore it in the schema")
+            raise DataError(f"feature '{name}' has a single value ({column.dropna().iloc[0]!r}) "
+                            "in the training data; it cannot shape a score, so ignore it in the "
+                            "schema")
         if spec.kind == "category":
             levels = tuple(sorted(str(v) for v in column.unique()))
             codes = pd.Categorical(column, categories=levels).codes
@@ -148,10 +158,18 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
             columns.append(codes.astype(float))
             continue
         values = column.to_numpy(dtype=float)
+        absent = np.isnan(values)
+        present = values[~absent]
+        gap: dict[str, Any] = {}
+        if absent.any():
+            gap = {"indicator": len(features.columns) + len(indicators),
+                   "stand_in": float(np.quantile(present, 0.5, method="inverted_cdf")),
+                   "missing_rows": int(absent.sum())}
+            indicators.append(absent.astype(float))
         constraint = CONSTRAINTS.get(spec.monotone or "")
         if distinct == 2 and constraint is None:
-            plans.append(TermPlan(name, "linear"))
-            columns.append(values)
+            plans.append(TermPlan(name, "linear", **gap))
+            columns.append(np.where(absent, gap.get("stand_in", 0.0), values))
             continue
         if distinct == 2:
             basis = MIN_SPLINES
@@ -166,28 +184,30 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
         # a few values, most of them small counts, can be squeezed together by a power
         # scale; evenly spaced knots keep each value apart
         few = distinct < splines and spline_scale != "raw"
-        scale, fallback = fit_scale(values, "raw" if few else spline_scale,
+        scale, fallback = fit_scale(present, "raw" if few else spline_scale,
                                     basis - SPLINE_ORDER)
         if few:
             fallback = "fitted on the values themselves (evenly spaced knots)"
         if fallback:
             fallbacks[name] = "; ".join(filter(None, (fallbacks.get(name), fallback)))
         plan = TermPlan(name, "spline", basis, constraint, whole=spec.kind == "integer",
-                        scale=scale)
+                        scale=scale, **gap)
         plans.append(plan)
-        columns.append(scale(values))
-    return plans, np.column_stack(columns), fallbacks
+        columns.append(scale(np.where(absent, plan.stand_in, values)))
+    owners = [plan.feature for plan in plans if plan.indicator is not None]
+    plans += [TermPlan(name, "indicator") for name in owners]
+    return plans, np.column_stack(columns + indicators), fallbacks
 
 
 def term_list(plans: Sequence[TermPlan], penalty: float | Sequence[float]) -> TermList:
     """The pygam terms for the plans, smooth and factor term i at `penalty[i]` (or every
-    one at `penalty`); a linear term has no penalty."""
+    one at `penalty`); a linear term and a missing-value indicator have no penalty."""
     each = [penalty] * len(plans) if isinstance(penalty, int | float) else list(penalty)
     terms = []
     for index, (plan, lam) in enumerate(zip(plans, each, strict=True)):
         if plan.kind == "levels":
             terms.append(FactorTerm(index, lam=lam))
-        elif plan.kind == "linear":
+        elif plan.kind in ("linear", "indicator"):
             terms.append(LinearTerm(index, penalties=None))
         else:
             terms.append(SplineTerm(index, n_splines=plan.basis, lam=lam,
@@ -208,7 +228,8 @@ def search(matrix: np.ndarray, target: np.ndarray, plans: Sequence[TermPlan],
     terms = TermList(*term_list(plans, 1.0), Intercept())
     monotone = [(i, plan.constraint == "monotonic_inc") for i, plan in enumerate(plans)
                 if plan.constraint]
-    problem = build_problem(terms, matrix, [plan.kind != "linear" for plan in plans] + [False],
+    penalised = [plan.kind in ("spline", "levels") for plan in plans]
+    problem = build_problem(terms, matrix, penalised + [False],
                             monotone, task == "classification")
     return search_penalties(problem, target, grid, criterion=criterion, max_iter=max_iter,
                             per_term=per_term)
@@ -274,27 +295,39 @@ def curve_knots(exact: Callable[[np.ndarray], np.ndarray], column: np.ndarray,
 
 def tabulate(gam: LinearGAM | LogisticGAM, index: int, points: np.ndarray, width: int,
              band: bool = True, training: np.ndarray | None = None,
+             indicator: int | None = None,
              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """pygam's partial dependence of term `index` at `points`, with a 95% band.
-
-    The band is for the term as the model file holds it, centred on the training
-    rows: its variance is (b(x) - b̄)ᵀ Σ (b(x) - b̄), with b the term's basis row,
-    b̄ its mean over the training rows and Σ pygam's covariance of the term's
-    coefficients. pygam's own band is for the uncentred term, whose level is
-    confounded with the intercept, so it is wide everywhere and would hide where
-    the shape itself is uncertain.
-    """
+    """pygam's partial dependence of term `index` at `points` (with its missing-value
+    indicator, if any, at 0), with a 95% band; see `contribution`."""
     grid = np.zeros((len(points), width))
     grid[:, index] = points
+    return contribution(gam, (index,) if indicator is None else (index, indicator), grid,
+                        band, training)
+
+
+def contribution(gam: LinearGAM | LogisticGAM, indices: Sequence[int], grid: np.ndarray,
+                 band: bool = True, training: np.ndarray | None = None,
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The sum of pygam's partial dependences of terms `indices` at the rows of `grid`
+    (full width), with a 95% band.
+
+    The band is for the term as the model file holds it, centred on the training
+    rows: its variance is (b(x) - b̄)ᵀ Σ (b(x) - b̄), with b the terms' basis row
+    (a spline's and its missing-value indicator's side by side), b̄ its mean over the
+    training rows and Σ pygam's covariance of their coefficients. pygam's own band is
+    for the uncentred term, whose level is confounded with the intercept, so it is
+    wide everywhere and would hide where the shape itself is uncertain.
+    """
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        values = gam.partial_dependence(index, X=grid)
+        values = np.sum([gam.partial_dependence(i, X=grid) for i in indices], axis=0)
         if not band:
             return values, values, values
-        basis = gam._modelmat(grid, term=index).toarray()
-        mean_row = np.asarray(gam._modelmat(training, term=index).mean(axis=0)).ravel()
-    indices = gam.terms.get_coef_indices(index)
-    covariance = gam.statistics_["cov"][np.ix_(indices, indices)]
+        basis = np.hstack([gam._modelmat(grid, term=i).toarray() for i in indices])
+        mean_row = np.concatenate([np.asarray(gam._modelmat(training, term=i).mean(axis=0))
+                                   .ravel() for i in indices])
+    positions = np.concatenate([gam.terms.get_coef_indices(i) for i in indices])
+    covariance = gam.statistics_["cov"][np.ix_(positions, positions)]
     offset = basis - mean_row
     variance = np.maximum(np.einsum("ij,jk,ik->i", offset, covariance, offset), 0.0)
     if gam.distribution._known_scale:
@@ -304,6 +337,17 @@ def tabulate(gam: LinearGAM | LogisticGAM, index: int, points: np.ndarray, width
         quantile = stats.t.ppf(0.5 + BAND / 2, df=freedom)
     half = quantile * np.sqrt(variance)
     return values, values - half, values + half
+
+
+def missing_entry(gam: LinearGAM | LogisticGAM, index: int, plan: TermPlan,
+                  matrix: np.ndarray) -> tuple[float, tuple[float, float]]:
+    """What a row with no value gets from the fitted model, and its band: the term at the
+    stand-in plus the indicator's coefficient (uncentred, like the curve's values)."""
+    grid = np.zeros((1, matrix.shape[1]))
+    grid[0, index] = plan.scale(np.array([plan.stand_in]))[0]
+    grid[0, plan.indicator] = 1.0
+    value, lower, upper = contribution(gam, (index, plan.indicator), grid, training=matrix)
+    return float(value[0]), (float(lower[0]), float(upper[0]))
 
 
 def floats(values: np.ndarray) -> tuple[float, ...]:
@@ -322,6 +366,8 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
     width = matrix.shape[1]
     for index, plan in enumerate(plans):
         column = matrix[:, index]
+        if plan.kind == "indicator":
+            continue  # part of its feature's term
         if plan.kind == "levels":
             codes = np.arange(len(plan.levels), dtype=float)
             values, lower, upper = tabulate(gam, index, codes, width, training=matrix)
@@ -333,9 +379,10 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
         def exact(points: np.ndarray, index: int = index, plan: TermPlan = plan) -> np.ndarray:
             return tabulate(gam, index, plan.scale(points), width, band=False)[0]
         raw = features[plan.feature].to_numpy(dtype=float)
-        points, errors[plan.feature] = curve_knots(exact, raw, knots, plan.whole)
+        points, errors[plan.feature] = curve_knots(exact, raw[~np.isnan(raw)], knots,
+                                                   plan.whole)
         values, lower, upper = tabulate(gam, index, plan.scale(points), width,
-                                        training=matrix)
+                                        training=matrix, indicator=plan.indicator)
         if plan.constraint:
             # remove what the soft constraint leaves of wrong-way steps (about 1e-9)
             running = np.maximum if plan.constraint == "monotonic_inc" else np.minimum
@@ -343,19 +390,26 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
             repairs[plan.feature] = float(np.max(np.abs(repaired - values)))
             lower, upper = np.minimum(lower, repaired), np.maximum(upper, repaired)
             values = repaired
+        gap = {}
+        if plan.indicator is not None:
+            value, band = missing_entry(gam, index, plan, matrix)
+            gap = {"missing": value, "missing_band": band}
         terms.append(CurveTerm(plan.feature, floats(points), floats(values), floats(lower),
-                               floats(upper)))
+                               floats(upper), **gap))
     return terms, errors, repairs
 
 
 def describe(plan: TermPlan) -> str:
     """A term in words, e.g. 'spline, 20 basis functions, knots at training quantiles,
     decreasing'."""
+    gap = ("" if plan.indicator is None else
+           f"; {plan.missing_rows} missing value(s): an unpenalised indicator, those rows "
+           f"fitted at {plan.stand_in:g}")
     if plan.kind != "spline":
-        return plan.kind
+        return plan.kind + gap
     direction = {value: key for key, value in CONSTRAINTS.items()}.get(plan.constraint or "")
     return (f"spline, {plan.basis} basis functions, {plan.scale.words()}"
-            + (f", {direction}" if direction else ""))
+            + (f", {direction}" if direction else "") + gap)
 
 
 def search_note(found: Search, grid: Sequence[float]) -> str:
@@ -395,7 +449,12 @@ def fit(
                  if p is not None]
     details: dict[str, Any] = {
         "model": type(gam).__name__,
-        "terms": {plan.feature: describe(plan) for plan in plans},
+        "terms": {plan.feature: describe(plan) for plan in plans if plan.kind != "indicator"},
+        "missing_indicators": {
+            plan.feature: {"rows": plan.missing_rows, "stand_in": plan.stand_in,
+                           "effect": float(gam.coef_[gam.terms.get_coef_indices(
+                               plan.indicator)][0])}
+            for plan in plans if plan.indicator is not None},
         "scales": {plan.feature: plan.scale.record() for plan in plans
                    if plan.kind == "spline"},
         "penalty_grid": list(grid),
