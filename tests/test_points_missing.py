@@ -267,3 +267,17 @@ def test_a_fit_on_a_file_with_gaps_gives_a_card_for_every_row(family):
     totals = points.score_points(card, rows)["total_points"].to_numpy()
     exact = OFFSET - FACTOR * model.score(rows)
     assert np.abs(totals - exact).max() <= card.largest_difference() + 1e-9
+
+
+def test_a_declared_missing_code_scores_the_missing_points():
+    # constructed truth: with `missing_codes = [-1]` declared for x, a -1 is a missing
+    # x (the missing points, 12), not a value below the training range (the lowest bin)
+    model, _ = constructed_model_with_gaps("higher")
+    content = model.schema.to_dict()
+    content["feature"]["x"]["missing_codes"] = [-1]
+    coded = replace(model, schema=type(model.schema).from_dict(content))
+    card = points.points_card(coded)
+    probe = pd.DataFrame({"x": [-1.0, -2.0], "count": [0, 0], "z": [0.0, 0.0],
+                          "colour": ["a", "a"]})
+    scored = points.score_points(card, probe)
+    assert scored["points:x"].tolist() == [12, card.feature("x").points[0]]
