@@ -444,15 +444,9 @@ class AdditiveModel:
     def check_missing(self, encoded: pd.DataFrame, where: str) -> None:
         """Refuse rows missing a feature whose term learned no missing-value entry."""
         for term in self.terms:
-            if term.missing is not None:
-                continue
-            absent = encoded[term.feature].isna().to_numpy()
-            if absent.any():
-                raise DataError(
-                    f"{where}: column '{term.feature}' has {int(absent.sum())} missing "
-                    f"value(s) in {rows_text(absent)}, and the model has no entry for a "
-                    f"missing '{term.feature}' (its training data had none); supply the "
-                    "values, or give the feature a fill value in the schema")
+            if term.missing is None:
+                refuse_missing(term.feature, encoded[term.feature].isna().to_numpy(), where,
+                               "the model has no entry")
 
     def contributions(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
         """One column per term: what each feature adds to the score of each row."""
@@ -488,6 +482,17 @@ class AdditiveModel:
 
     def inverse_link(self, score: np.ndarray) -> np.ndarray:
         return expit(score) if self.link == "logit" else np.asarray(score)
+
+
+def refuse_missing(feature: str, absent: np.ndarray, where: str, holder: str) -> None:
+    """Raise a DataError naming the rows where `feature` has no value, if any; `holder`
+    says what lacks an entry for it ("the model has no entry")."""
+    if absent.any():
+        raise DataError(
+            f"{where}: column '{feature}' has {int(absent.sum())} missing value(s) in "
+            f"{rows_text(absent)}, and {holder} for a missing '{feature}' (its training "
+            "data had none); supply the values, or give the feature a fill value in the "
+            "schema")
 
 
 def centre_terms(

@@ -4,10 +4,13 @@ A card is base points plus one table of whole points per feature, with the
 scaling that made them (see `glassbox.points` for how a card is built from a
 model). The card file is checksummed JSON:
 
-    {"format": "glassbox-points", "version": 2, "checksum": "sha256:...", "card": {...}}
+    {"format": "glassbox-points", "version": 3, "checksum": "sha256:...", "card": {...}}
 
 The checksum is SHA-256 over the canonical JSON of "card", as for model files.
-Version 1 cards (equal-share bins, no tolerance or cut-off) still load and score.
+Version 3 gives each feature a row for a missing value: its points where the model
+learned a value for it, or a refusal where its training data had none. Version 2
+cards (no such rows: every missing value refused, as their models did) and version 1
+cards (equal-share bins, no tolerance or cut-off) still load and score.
 """
 
 from __future__ import annotations
@@ -23,13 +26,16 @@ import numpy as np
 import pandas as pd
 
 from glassbox import documents
+from glassbox.additive import refuse_missing
 from glassbox.errors import GlassboxError, ModelFileError, OptionError, UnseenLevelWarning
-from glassbox.schema import Schema
+from glassbox.schema import MISSING_LEVEL, Schema
 
 FORMAT = "glassbox-points"
-VERSION = 2
+VERSION = 3
 DEFAULT_CUTOFF = 0.5
 UNSEEN_ROW = "(level not seen in training)"
+MISSING_ROW = MISSING_LEVEL  # the row for a missing value
+REFUSED_ROW = f"{MISSING_LEVEL}: refused, training had no missing value"
 CARD_COLUMNS = ("feature", "row", "from", "to", "points", "contribution", "training_rows",
                 "spread", "largest_difference")
 BASE_ROW = "base points"
@@ -98,6 +104,11 @@ class FeaturePoints:
     value of the row can have from the exact scaled contribution; for levels the
     unseen-level row's comes last). `exact` is False when bin values are approximate
     (from percentiles); `resolution` is the widest spread of a stored cell, in points.
+
+    A missing value has its own row: `missing_points`, rounded from the term's
+    missing-value entry `missing_contribution`, with its training rows and largest
+    difference (its spread is 0: one value). `missing_points` None means the model has
+    no entry for a missing value (its training data had none), so the card refuses one.
     """
 
     feature: str
@@ -113,10 +124,15 @@ class FeaturePoints:
     largest: tuple[float, ...] = ()
     exact: bool = True
     resolution: float | None = None
+    missing_points: int | None = None
+    missing_contribution: float | None = None
+    missing_rows: int | None = None
+    missing_largest: float | None = None
 
     def __post_init__(self) -> None:
         if self.term not in ("curve", "steps", "levels"):
             raise ModelFileError(f"feature '{self.feature}': unknown term kind {self.term!r}")
+        self._check_missing_row()
         if len(self.contributions) != len(self.points) or not self.points:
             raise ModelFileError(f"feature '{self.feature}': needs one contribution per row "
                                  "of points (at least one row)")
@@ -146,6 +162,22 @@ class FeaturePoints:
             raise ModelFileError(f"feature '{self.feature}': edges must be finite and "
                                  "strictly increasing")
 
+    def _check_missing_row(self) -> None:
+        where = f"feature '{self.feature}': the row for a missing value"
+        if self.missing_points is None:
+            if any(v is not None for v in (self.missing_contribution, self.missing_rows,
+                                           self.missing_largest)):
+                raise ModelFileError(f"{where} has no points but other entries")
+            return
+        if not isinstance(self.missing_points, int) or isinstance(self.missing_points, bool):
+            raise ModelFileError(f"{where} needs whole points")
+        if self.missing_contribution is None or not math.isfinite(self.missing_contribution):
+            raise ModelFileError(f"{where} needs the contribution its points come from")
+        rows = self.missing_rows
+        if rows is not None and (not isinstance(rows, int) or isinstance(rows, bool)
+                                 or rows < 0):
+            raise ModelFileError(f"{where}: training rows must be a whole number of at least 0")
+
     def over(self, tolerance: float) -> int:
         """How many rows spread more than `tolerance` points (beyond floating-point noise)."""
         return int(sum(spread > tolerance * (1 + 1e-9) for spread in self.spreads))
@@ -154,17 +186,22 @@ class FeaturePoints:
     def by_level(self) -> bool:
         return self.term == "levels"
 
-    def points_of(self, column: np.ndarray) -> np.ndarray:
-        """The points of each value of an encoded column."""
+    def points_of(self, column: np.ndarray, where: str = "the data") -> np.ndarray:
+        """The points of each value of an encoded column; a row with no value (NaN, None)
+        gets the missing-value points, or is refused (naming the rows of `where`)."""
         points = np.asarray(self.points, dtype=np.int64)
+        absent = np.asarray(pd.isna(column), dtype=bool)
+        if self.missing_points is None:
+            refuse_missing(self.feature, absent, where, "the card has no points")
         if not self.by_level:
             bins = np.searchsorted(np.asarray(self.edges, dtype=float),
                                    np.asarray(column, dtype=float), side="left")
-            return points[bins]
+            return np.where(absent, self.missing_points or 0, points[bins])
         values = np.asarray(column, dtype=object)
         position = pd.Index(self.levels).get_indexer(values)
-        unseen = position < 0
-        out = points[np.where(unseen, 0, position)]
+        unseen = (position < 0) & ~absent
+        out = np.where(absent, self.missing_points or 0,
+                       points[np.where(position < 0, 0, position)])
         if unseen.any():
             strange = sorted({str(v) for v in values[unseen]})[:5]
             warnings.warn(
@@ -193,7 +230,36 @@ class FeaturePoints:
             for key, values in (("training_rows", self.training_rows),
                                 ("spread", self.spreads), ("largest_difference", self.largest)):
                 row[key] = values[index] if index < len(values) else None
+        rows.append(self.missing_row())
         return rows
+
+    def missing_row(self) -> dict[str, Any]:
+        """The row for a missing value as a record (a refusal where there are no points)."""
+        if self.missing_points is None:
+            return {"row": REFUSED_ROW, "from": None, "to": None, "points": None,
+                    "contribution": None, "training_rows": None, "spread": None,
+                    "largest_difference": None}
+        return {"row": MISSING_ROW, "from": None, "to": None, "points": self.missing_points,
+                "contribution": self.missing_contribution, "training_rows": self.missing_rows,
+                "spread": 0.0, "largest_difference": self.missing_largest}
+
+    def every_points(self) -> list[int]:
+        """The points of every row a value can get: bins or levels, the unseen level,
+        the missing value."""
+        every = list(self.points)
+        if self.by_level:
+            every.append(self.unseen_points)
+        if self.missing_points is not None:
+            every.append(self.missing_points)
+        return every
+
+    def largest_of_all(self) -> float | None:
+        """The largest difference over every row (None when the card does not record it)."""
+        if not self.largest or (self.missing_points is not None
+                                and self.missing_largest is None):
+            return None
+        extra = [] if self.missing_largest is None else [self.missing_largest]
+        return max([*self.largest, *extra])
 
     def to_dict(self) -> dict[str, Any]:
         data: dict[str, Any] = {"feature": self.feature, "term": self.term}
@@ -212,6 +278,9 @@ class FeaturePoints:
         data["exact"] = self.exact
         if self.resolution is not None:
             data["resolution"] = self.resolution
+        for name in ("missing_points", "missing_contribution", "missing_rows",
+                     "missing_largest"):  # a missing points entry of None: refused
+            data[name] = getattr(self, name)
         return data
 
     @classmethod
@@ -231,10 +300,18 @@ class FeaturePoints:
                 exact=bool(data.get("exact", True)),
                 resolution=(None if data.get("resolution") is None
                             else float(data["resolution"])),
+                missing_points=data.get("missing_points"),
+                missing_contribution=_number_or_none(data.get("missing_contribution")),
+                missing_rows=data.get("missing_rows"),
+                missing_largest=_number_or_none(data.get("missing_largest")),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(f"feature {data.get('feature')!r} is incomplete: "
                                  f"{exc}") from None
+
+
+def _number_or_none(value: Any) -> float | None:
+    return None if value is None else float(value)
 
 
 def _bin_text(low: float, high: float, flag: bool = False) -> str:
@@ -300,16 +377,17 @@ class PointsCard:
         """The most any row's total can differ from the exact scaled score: the base
         points' rounding plus each feature's largest row difference (None when the card
         does not record them)."""
-        if any(not table.largest for table in self.features):
+        largest = [table.largest_of_all() for table in self.features]
+        if any(value is None for value in largest):
             return None
         exact_base = self.scaling.offset + self.scaling.factor * self.good_sign * self.intercept
-        return abs(self.base_points - exact_base) + sum(max(t.largest) for t in self.features)
+        return abs(self.base_points - exact_base) + sum(largest)  # type: ignore[arg-type]
 
     def points_range(self) -> tuple[int, int]:
-        """The lowest and highest total any row can get."""
+        """The lowest and highest total any row can get (missing values included)."""
         lowest = highest = self.base_points
         for table in self.features:
-            every = [*table.points, table.unseen_points] if table.by_level else table.points
+            every = table.every_points()
             lowest += min(every)
             highest += max(every)
         return lowest, highest
@@ -326,7 +404,10 @@ class Fidelity:
     """How closely the card's whole-point totals follow the exact scaled score, and how
     often the card and the model take the same side of the cut-off. `agree_rounded` is
     how often they would with no bins at all, each row's exact contributions rounded to
-    whole points: no card of whole points per feature can be expected to do better."""
+    whole points: no card of whole points per feature can be expected to do better.
+    `missing_rows` counts the compared rows with no value for at least one feature (scored
+    by missing-value rows, and counted in every figure), `missing_agree` how many of them
+    the card and the model decide alike (None on cards made before missing values)."""
 
     rows: int
     largest_difference: float
@@ -338,6 +419,8 @@ class Fidelity:
     favourable_model_only: int
     agree_rounded: int
     data_sha256: str | None = None
+    missing_rows: int | None = None
+    missing_agree: int | None = None
 
     @property
     def agreement(self) -> float:
@@ -354,7 +437,18 @@ class Fidelity:
                 "favourable by the model only": self.favourable_model_only,
                 "the same with no bins (exact contributions rounded)":
                     f"{self.agree_rounded / self.rows:.2%} ({self.agree_rounded:,} of "
-                    f"{self.rows:,})" if self.rows else ""}
+                    f"{self.rows:,})" if self.rows else "",
+                **self._missing_summary()}
+
+    def _missing_summary(self) -> dict[str, Any]:
+        if self.missing_rows is None:
+            return {}
+        if not self.missing_rows:
+            return {"rows with a missing value": 0}
+        agree = self.missing_agree or 0
+        return {"rows with a missing value": self.missing_rows,
+                "decisions that agree on those rows":
+                    f"{agree / self.missing_rows:.2%} ({agree:,} of {self.missing_rows:,})"}
 
     def to_dict(self) -> dict[str, Any]:
         return {"rows": self.rows, "largest_difference": self.largest_difference,
@@ -363,7 +457,8 @@ class Fidelity:
                 "cutoff": self.cutoff, "agree": self.agree, "agreement": self.agreement,
                 "favourable_card_only": self.favourable_card_only,
                 "favourable_model_only": self.favourable_model_only,
-                "agree_rounded": self.agree_rounded, "data_sha256": self.data_sha256}
+                "agree_rounded": self.agree_rounded, "data_sha256": self.data_sha256,
+                "missing_rows": self.missing_rows, "missing_agree": self.missing_agree}
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> Fidelity:
@@ -373,7 +468,7 @@ class Fidelity:
                    math.nan if spearman is None else float(spearman), float(data["cutoff"]),
                    int(data["agree"]), int(data["favourable_card_only"]),
                    int(data["favourable_model_only"]), int(data["agree_rounded"]),
-                   data.get("data_sha256"))
+                   data.get("data_sha256"), data.get("missing_rows"), data.get("missing_agree"))
 
 
 # ---------------------------------------------------------------- the card file

@@ -12,6 +12,11 @@ inside a cell, and so are the shares of training rows (what monitoring needs).
   however steep the curve.
 - Under steps, a cell is the training rows of one step (resolution 0).
 
+Training rows with no value are not in any cell: the summary keeps their number
+(`missing_rows`) and the sum of their contributions (`missing_sum`, the term's
+missing-value entry times that number), so every training row is counted once.
+Summaries written before missing values were learned have neither (no such rows).
+
 `fit_model` stores one `TermCells` per numeric term of a classification model,
 after the terms are centred. Points cards merge cells into bins; a bin edge can
 be any number between one cell's highest value and the next cell's lowest (all
@@ -27,7 +32,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from glassbox.errors import ModelFileError
+from glassbox.errors import DataError, ModelFileError
 
 if TYPE_CHECKING:
     from glassbox.additive import CurveTerm, StepTerm
@@ -48,6 +53,8 @@ class TermCells:
     upper: tuple[float, ...]
     rows: tuple[int, ...]
     sums: tuple[float, ...]
+    missing_rows: int = 0
+    missing_sum: float = 0.0
 
     def __post_init__(self) -> None:
         where = f"cells of '{self.feature}'"
@@ -65,15 +72,26 @@ class TermCells:
                                  "(resolution at least 0)")
         if np.any(lower > upper) or np.any(upper[:-1] >= lower[1:]):
             raise ModelFileError(f"{where}: cells must be in increasing order and not overlap")
+        missing = self.missing_rows
+        if not isinstance(missing, int) or isinstance(missing, bool) or missing < 0:
+            raise ModelFileError(f"{where}: the count of rows with no value must be a whole "
+                                 "number of at least 0")
+        if not math.isfinite(self.missing_sum) or (missing == 0 and self.missing_sum != 0):
+            raise ModelFileError(f"{where}: the sum over rows with no value must be a finite "
+                                 "number (0 when there are none)")
 
     @property
     def total_rows(self) -> int:
-        return int(sum(self.rows))
+        """Every training row: those in the cells and those with no value."""
+        return int(sum(self.rows)) + self.missing_rows
 
     def to_dict(self) -> dict[str, Any]:
-        return {"feature": self.feature, "resolution": self.resolution,
-                "lower": list(self.lower), "upper": list(self.upper),
-                "rows": list(self.rows), "sums": list(self.sums)}
+        data: dict[str, Any] = {"feature": self.feature, "resolution": self.resolution,
+                                "lower": list(self.lower), "upper": list(self.upper),
+                                "rows": list(self.rows), "sums": list(self.sums)}
+        if self.missing_rows:  # written only when there are such rows: older content stays
+            data.update(missing_rows=self.missing_rows, missing_sum=self.missing_sum)
+        return data
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> TermCells:
@@ -81,7 +99,8 @@ class TermCells:
             return cls(str(data["feature"]), float(data["resolution"]),
                        tuple(float(v) for v in data["lower"]),
                        tuple(float(v) for v in data["upper"]),
-                       tuple(data["rows"]), tuple(float(v) for v in data["sums"]))
+                       tuple(data["rows"]), tuple(float(v) for v in data["sums"]),
+                       data.get("missing_rows", 0), float(data.get("missing_sum", 0.0)))
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(f"cells of {data.get('feature')!r} are incomplete: "
                                  f"{exc}") from None
@@ -113,8 +132,9 @@ def term_extremes(term: CurveTerm | StepTerm, lows: Sequence[float] | np.ndarray
 
 def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
                      counts: np.ndarray, contributions: np.ndarray,
-                     starts: Sequence[int]) -> TermCells:
-    """Cells from runs of distinct values beginning at `starts`; sums exact (fsum over rows)."""
+                     starts: Sequence[int], missing: tuple[int, float]) -> TermCells:
+    """Cells from runs of distinct values beginning at `starts`; sums exact (fsum over
+    rows); `missing` is the count and contribution sum of rows with no value."""
     bounds = [*starts, len(distinct)]
     every_row = np.repeat(contributions, counts)
     row_bounds = np.concatenate([[0], np.cumsum(counts)])
@@ -125,18 +145,27 @@ def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
         tuple(float(distinct[a]) for a in bounds[:-1]),
         tuple(float(distinct[b - 1]) for b in bounds[1:]),
         tuple(int(counts[a:b].sum()) for a, b in zip(bounds[:-1], bounds[1:], strict=True)),
-        sums)
+        sums, *missing)
 
 
 def summarise_term(term: CurveTerm | StepTerm, column: np.ndarray,
                    resolution: float = RESOLUTION) -> TermCells:
-    """The cells of one numeric term over its training column (already centred term)."""
-    distinct, counts = np.unique(np.asarray(column, dtype=float), return_counts=True)
+    """The cells of one numeric term over its training column (already centred term);
+    rows with no value (NaN) are counted apart, each worth the term's missing entry."""
+    column = np.asarray(column, dtype=float)
+    absent = np.isnan(column)
+    count = int(absent.sum())
+    # every such row adds the same value; fsum makes the sum exact like the cells' sums
+    missing = (count, math.fsum(term.evaluate(column[absent])) if count else 0.0)
+    distinct, counts = np.unique(column[~absent], return_counts=True)
+    if len(distinct) == 0:
+        raise DataError(f"column '{term.feature}' has no values at all")
     contributions = term.evaluate(distinct)
     if not hasattr(term, "knots"):  # steps: one cell per step that holds training rows
         steps = term.bin_of(distinct)
         starts = [0, *(np.flatnonzero(np.diff(steps) != 0) + 1)]
-        return _cells_from_runs(term.feature, 0.0, distinct, counts, contributions, starts)
+        return _cells_from_runs(term.feature, 0.0, distinct, counts, contributions, starts,
+                                missing)
     between_low, between_high = term_extremes(term, distinct[:-1], distinct[1:])
     starts = [0]
     low = high = contributions[0]
@@ -148,4 +177,5 @@ def summarise_term(term: CurveTerm | StepTerm, column: np.ndarray,
             low = high = contributions[index]
         else:
             low, high = new_low, new_high
-    return _cells_from_runs(term.feature, resolution, distinct, counts, contributions, starts)
+    return _cells_from_runs(term.feature, resolution, distinct, counts, contributions, starts,
+                            missing)

@@ -61,8 +61,9 @@ def fit_model(
     importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
                   for t in terms}
     profiles = profile_features(features, schema)
-    # exact training summaries under numeric terms, for points cards (classification)
-    cells = tuple(summarise_term(t, _present(features[t.feature])) for t in terms
+    # exact training summaries under numeric terms (rows with no value counted apart),
+    # for points cards (classification)
+    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float)) for t in terms
                   if task == "classification" and not isinstance(t, LevelsTerm))
     metadata = {
         "family": family,
@@ -120,11 +121,6 @@ def _level_to_missing(term: Term) -> Term:
     return replace(term, levels=tuple(term.levels[i] for i in keep),
                    values=tuple(term.values[i] for i in keep), **band,
                    missing=float(term.values[at]), missing_band=missing_band)
-
-
-def _present(column: pd.Series) -> np.ndarray:
-    values = column.to_numpy(dtype=float)
-    return values[~np.isnan(values)]
 
 
 def training_fit(model: AdditiveModel, frame: pd.DataFrame,

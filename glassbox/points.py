@@ -17,7 +17,12 @@ Each term becomes rows of whole points:
 - steps keep their own right-closed bins (neighbours are merged only when they
   round to the same points, so no value scores differently; a merged row is worth
   the mean of its steps weighted by their training rows where the model counts them);
-- levels keep one row per level plus the unseen-level row.
+- levels keep one row per level plus the unseen-level row;
+- every feature has a row for a missing value: the term's missing-value entry in
+  points (scaled and rounded like every row; one value, so its spread is 0), with
+  its training rows (from the cells or the profile), or, where the term has no
+  entry (its training data had no missing value), a refusal: scoring such a row is
+  an error naming it, as scoring it with the model is.
 
 Every row's points are round(factor × good sign × contribution), halves away
 from zero; the intercept and the offset make the separate base points, so a
@@ -39,7 +44,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import spearmanr
 
-from glassbox.additive import AdditiveModel, LevelsTerm, StepTerm
+from glassbox.additive import AdditiveModel, LevelsTerm, StepTerm, Term
 from glassbox.artifact import checksum, model_to_dict
 from glassbox.binning import CellArrays, bin_extremes, cut_curve, profile_cells
 from glassbox.cards import (
@@ -65,7 +70,7 @@ from glassbox.schema import prepare
 
 __all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling",
            "card_fidelity", "card_summary", "card_table", "check_tolerance", "dumps",
-           "feature_points", "load", "loads", "model_checksum", "points_card",
+           "feature_points", "load", "loads", "missing_notes", "model_checksum", "points_card",
            "save", "score_points", "tolerance_notes", "whole_points", "with_fidelity"]
 
 
@@ -95,10 +100,30 @@ def _checked_cells(term: Any, cells: TermCells) -> CellArrays:
     lowest, highest = term_extremes(term, arrays.lower, arrays.upper)
     means = arrays.sums / arrays.rows
     slack = 1e-9 * (1.0 + np.abs(means))
-    if np.any(means < lowest - slack) or np.any(means > highest + slack):
+    wrong = bool(np.any(means < lowest - slack) or np.any(means > highest + slack))
+    if cells.missing_rows:  # rows with no value: each worth the missing-value entry
+        mean = cells.missing_sum / cells.missing_rows
+        wrong = wrong or term.missing is None or (
+            abs(mean - term.missing) > 1e-9 * (1.0 + abs(mean)))
+    if wrong:
         raise ModelFileError(f"the training cells of '{term.feature}' do not match its "
                              "term (was the term changed after fitting?)")
     return arrays
+
+
+def _missing_entries(model: AdditiveModel, term: Term, scale: float) -> dict[str, Any]:
+    """The entries of a feature's row for a missing value: its points, contribution,
+    training rows (from the cells, else the profile; None when neither counts them) and
+    largest difference; none when the term has no missing-value entry (refused)."""
+    if term.missing is None:
+        return {}
+    points = int(whole_points(scale * term.missing))
+    cells = model.cells_of(term.feature)
+    profile = next((p for p in model.profiles if p.feature == term.feature), None)
+    rows = (cells.missing_rows if cells is not None else
+            profile.missing if profile is not None and profile.rows else None)
+    return {"missing_points": points, "missing_contribution": float(term.missing),
+            "missing_rows": rows, "missing_largest": abs(points - scale * term.missing)}
 
 
 def _level_points(model: AdditiveModel, term: LevelsTerm, scale: float) -> FeaturePoints:
@@ -112,7 +137,8 @@ def _level_points(model: AdditiveModel, term: LevelsTerm, scale: float) -> Featu
         unseen_contribution=float(term.unseen),
         training_rows=tuple(int(counts.get(level, 0)) for level in term.levels)
         if counts else (),
-        spreads=(0.0,) * len(term.levels), largest=_largest(points, scale, values, values))
+        spreads=(0.0,) * len(term.levels), largest=_largest(points, scale, values, values),
+        **_missing_entries(model, term, scale))
 
 
 def _step_points(model: AdditiveModel, term: StepTerm, scale: float) -> FeaturePoints:
@@ -143,7 +169,7 @@ def _step_points(model: AdditiveModel, term: StepTerm, scale: float) -> FeatureP
         edges=tuple(float(term.edges[i]) for i in change),
         training_rows=tuple(training) if rows is not None else (),
         spreads=tuple(float(v) for v in abs(scale) * (highest - lowest)),
-        largest=_largest(merged, scale, lowest, highest))
+        largest=_largest(merged, scale, lowest, highest), **_missing_entries(model, term, scale))
 
 
 def feature_points(model: AdditiveModel, feature: str, scaling: Scaling,
@@ -170,7 +196,8 @@ def feature_points(model: AdditiveModel, feature: str, scaling: Scaling,
         training_rows=tuple(int(round(r)) for r in bins.rows) if cells.exact else (),
         spreads=tuple(scaling.factor * s for s in bins.spreads),
         largest=_largest(points, scale, lowest, highest), exact=cells.exact,
-        resolution=None if cells.resolution is None else scaling.factor * cells.resolution)
+        resolution=None if cells.resolution is None else scaling.factor * cells.resolution,
+        **_missing_entries(model, term, scale))
 
 
 def model_checksum(model: AdditiveModel) -> str | None:
@@ -211,9 +238,9 @@ def card_table(card: PointsCard) -> pd.DataFrame:
         flag = card.schema.feature(table.feature).kind == "flag"
         rows += [{"feature": table.feature, **row} for row in table.rows(flag)]
     table = pd.DataFrame(rows, columns=list(CARD_COLUMNS))
-    # whole numbers, blank where unknown (not floats with NaN)
-    table["training_rows"] = pd.Series([row["training_rows"] if "training_rows" in row else None
-                                        for row in rows], dtype=object)
+    # whole numbers, blank where unknown or refused (not floats with NaN)
+    for column in ("points", "training_rows"):
+        table[column] = pd.Series([row.get(column) for row in rows], dtype=object)
     return table
 
 
@@ -238,6 +265,7 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         "base points": card.base_points,
         "possible totals": f"{lowest} to {highest}",
     }
+    summary.update(missing_notes(card))
     if card.tolerance is not None:
         summary["tolerance (points within a bin)"] = card.tolerance
         summary.update(tolerance_notes(card))
@@ -245,6 +273,18 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
     if largest is not None:
         summary["largest difference any row can have (points)"] = largest
     return summary
+
+
+def missing_notes(card: PointsCard) -> dict[str, str]:
+    """Which features give a missing value its own points (with their training rows),
+    and which refuse one."""
+    own = [f"{t.feature} ({'rows unknown' if t.missing_rows is None else t.missing_rows})"
+           for t in card.features if t.missing_points is not None]
+    refused = [t.feature for t in card.features if t.missing_points is None]
+    notes = {"missing value: own points (training rows)": ", ".join(own) or "none"}
+    if refused:
+        notes["missing value: refused (none in training)"] = ", ".join(refused)
+    return notes
 
 
 def tolerance_notes(card: PointsCard) -> dict[str, str]:
@@ -273,10 +313,13 @@ def tolerance_notes(card: PointsCard) -> dict[str, str]:
 def score_points(card: PointsCard, frame: pd.DataFrame,
                  source: str | None = None) -> pd.DataFrame:
     """Per row: the id (when the schema names one), total points, base points and each
-    feature's points (`points:FEATURE`)."""
+    feature's points (`points:FEATURE`); a missing value scores its feature's
+    missing-value row, or is refused (naming the rows) where the card has none."""
     prepared = prepare(frame, card.schema, require_target=False, source=source,
                        features=card.feature_names)
-    parts = {table.feature: table.points_of(prepared.features[table.feature].to_numpy())
+    where = source or frame.attrs.get("source") or "the data"
+    parts = {table.feature: table.points_of(prepared.features[table.feature].to_numpy(),
+                                            where)
              for table in card.features}
     total = np.full(len(frame), card.base_points, dtype=np.int64)
     for points in parts.values():
@@ -311,7 +354,9 @@ def card_fidelity(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
     if set(card.feature_names) != set(model.features):
         raise OptionError("the card and the model use different features")
     totals = score_points(card, frame, source)["total_points"].to_numpy(dtype=float)
-    contributions = model.contributions(frame, source)
+    encoded = model.encode(frame, source)
+    contributions = model.contributions_encoded(encoded)
+    absent = encoded.isna().any(axis=1).to_numpy()  # rows scored by a missing-value row
     score = model.intercept + contributions.sum(axis=1).to_numpy()
     exact = card.scaling.score(card.good_sign * score)
     scale = card.scaling.factor * card.good_sign
@@ -327,5 +372,6 @@ def card_fidelity(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
     return Fidelity(int(len(totals)), float(gaps.max()), float(gaps.mean()), rank,
                     card.cutoff, int(np.sum(model_good == card_good)),
                     int(np.sum(card_good & ~model_good)), int(np.sum(model_good & ~card_good)),
-                    int(np.sum(model_good == rounded_good)), frame_fingerprint(frame))
+                    int(np.sum(model_good == rounded_good)), frame_fingerprint(frame),
+                    int(absent.sum()), int(np.sum((model_good == card_good)[absent])))
 

@@ -49,11 +49,12 @@ def cell(value: Any, digits: int = 4) -> str:
 
 
 def _numeric_text(column: pd.Series) -> bool:
-    """Whether a text column holds numbers written out (right-align those)."""
-    if column.empty or not (column.dtype == object
-                            or pd.api.types.is_string_dtype(column.dtype)):
+    """Whether a text column holds numbers written out, blanks aside (right-align those)."""
+    present = column.dropna()
+    if present.empty or not (column.dtype == object
+                             or pd.api.types.is_string_dtype(column.dtype)):
         return False
-    return bool(pd.to_numeric(column, errors="coerce").notna().all())
+    return bool(pd.to_numeric(present, errors="coerce").notna().all())
 
 
 def frame_table(frame: pd.DataFrame, title: str | None = None,

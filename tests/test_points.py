@@ -608,3 +608,4 @@ def test_score_takes_a_model_or_a_card_not_both(model_file, tmp_path):
     # the model path still works as before
     result = run("score", model_file, DEMO / "loans.csv", "--no-contributions")
     assert result.exit_code == 0 and result.stdout.startswith("application_id,score,")
+
