@@ -3,6 +3,8 @@ exact brute force over full grids on models fitted to public data."""
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -478,7 +480,6 @@ def test_the_demo_row_that_the_cap_priced_too_high(loans, loans_schema):
 def gaps_model(family: str = "spline") -> tuple[AdditiveModel, pd.DataFrame]:
     """The model described above, and the file with its gaps (tests/test_candidates.py and
     tests/test_recourse_cli.py use it too)."""
-    from dataclasses import replace as with_entry
 
     import glassbox
     from tests.real_credit import credit_rows_with_gaps, credit_schema
@@ -489,14 +490,19 @@ def gaps_model(family: str = "spline") -> tuple[AdditiveModel, pd.DataFrame]:
         filled[name] = filled[name].fillna(float(np.nanmedian(frame[name])))
     model = glassbox.fit_model(filled, credit_schema(), family)
     terms = tuple(
-        with_entry(t, missing=float(t.evaluate(np.array([np.nanmedian(frame[t.feature])]))[0]))
+        replace(t, missing=float(t.evaluate(np.array([np.nanmedian(frame[t.feature])]))[0]))
         if t.feature in ("Income", "Assets", "Debt") else t for t in model.terms)
-    return with_entry(model, terms=terms), frame
+    return replace(model, terms=terms), frame
 
 
 @pytest.fixture(scope="module")
 def gaps():
     return gaps_model()
+
+
+@pytest.fixture(scope="module")
+def gaps_boosted():
+    return gaps_model("boosted")
 
 
 def stated_grid(model, name: str, written: dict) -> tuple[np.ndarray, np.ndarray]:
@@ -568,3 +574,107 @@ def test_a_stated_value_plan_is_the_full_grid_optimum_on_real_gaps(gaps, case, o
         stated += any(c.supplied for c in plan.changes)
         checked += 1
     assert checked >= (6 if blank != "Home" else 1) and stated >= 1, (checked, stated)
+
+
+def _inside(value, stretches) -> bool:
+    return any((s.low < value or (s.low == value and not s.low_open)) and value <= s.high
+               for s in stretches)
+
+
+ANY_NUMBER = ({"probability": 0.3, "direction": "at-most"}, {
+    "Income": {"supply_cost": 20.0, "lower": 0, "upper": 1000},  # no step: any number
+    "Amount": {"change": "decrease", "lower": 100, "step": 10, "cost": "percentile"}}, "Income")
+
+
+@pytest.mark.parametrize("family, case", [
+    ("spline", 0), ("spline", 1), ("spline", 3), ("spline", -1),
+    ("boosted", 0), ("boosted", 1), ("boosted", -1)])
+def test_the_values_that_would_do_are_those_that_reach_the_goal(request, family, case):
+    # Brute force by the model's own scoring: every value the rules allow is put into the
+    # row with the plan's other changes and re-scored; it is listed as one that would do
+    # exactly when that row reaches the goal. Curves (spline) and step tables (boosted);
+    # with no step (case -1) the numbers checked are every half unit from 0 to 1,000.
+    model, frame = request.getfixturevalue("gaps" if family == "spline" else "gaps_boosted")
+    goal, rules, blank = STATED_CASES[case] if case >= 0 else ANY_NUMBER
+    mutability = mutability_from_dict({"goal": goal, "feature": rules}, model)
+    if case < 0:
+        rules = {**rules, "Income": {**rules["Income"], "step": 0.5}}
+    threshold = mutability.goal.threshold(model.link)
+    from recourse.batch import declined_rows
+
+    seen = 0
+    for position in declined_rows(model, frame, mutability):
+        row = frame.iloc[position]
+        if not pd.isna(row[blank]) or seen == 4:
+            continue
+        result = find_plans(model, row, mutability, n_plans=2)
+        for plan in result.plans:
+            stated = [c for c in plan.changes if c.supplied]
+            if not stated:
+                continue
+            (change,) = stated
+            values = stated_grid(model, blank, rules[blank])[0][1:]
+            if case < 0:
+                values = np.unique(np.r_[values, change.proposed])
+            changed = pd.DataFrame([row] * len(values)).reset_index(drop=True)
+            for other in plan.changes:
+                changed[other.feature] = other.proposed
+            changed[blank] = values
+            reaches = model.score(changed) <= threshold
+            if model.schema.feature(blank).kind == "category":
+                listed = np.array([v in change.accepted for v in values])
+            else:
+                listed = np.array([_inside(v, change.accepted) for v in values])
+            assert np.array_equal(listed, reaches), (position, change.accepted)
+            assert listed[list(values).index(change.proposed)]  # the one proposed is among them
+            seen += 1
+    assert seen >= 1
+
+
+def test_plans_never_make_a_value_missing_even_when_missing_scores_best(gaps):
+    # Constructed: Income's and Home's missing-value entries are set far below anything in
+    # their tables (lower is better here), so "missing" would be every plan's cheapest move
+    # if it were ever offered. Rows that have an Income and a Home never get it.
+    from recourse.batch import declined_rows
+
+    model, frame = gaps
+    terms = tuple(replace(t, missing=-50.0) if t.feature in ("Income", "Home") else t
+                  for t in model.terms)
+    model = replace(model, terms=terms)
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.3, "direction": "at-most"},
+        "feature": {"Income": {"change": "either", "lower": 0, "upper": 1000, "step": 5,
+                               "cost": "percentile", "supply_cost": 0.0},
+                    "Home": {"change": "either", "cost": 30.0, "supply_cost": 0.0}}}, model)
+    planned = 0
+    for position in declined_rows(model, frame, mutability)[:40]:
+        row = frame.iloc[position]
+        if pd.isna(row["Income"]) or pd.isna(row["Home"]):
+            continue
+        result = find_plans(model, row, mutability, n_plans=3)
+        for plan in result.plans:
+            for change in plan.changes:
+                assert not change.supplied and not pd.isna(change.proposed), position
+            planned += 1
+    assert planned >= 10
+
+
+def test_no_plan_names_the_value_that_is_not_stated(gaps):
+    # A row with no Income, an Income rule without supply_cost and nothing else to change:
+    # the diagnosis says Income has no value and may not be stated.
+    from recourse.batch import declined_rows
+
+    model, frame = gaps
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.2, "direction": "at-most"},
+        "feature": {"Income": {"change": "either", "lower": 0, "upper": 1000, "step": 5}}},
+        model)
+    position = next(p for p in declined_rows(model, frame, mutability)
+                    if pd.isna(frame.iloc[p]["Income"]))
+    result = find_plans(model, frame.iloc[position], mutability)
+    assert result.status == "none"
+    assert "Income not stated" in result.binding_rules
+    assert any("Income has no value and the rules do not let one be stated" in text
+               for text in result.binding)
+    records = plan_records(result)
+    assert records["status"] == "none"
