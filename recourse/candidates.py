@@ -84,6 +84,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     term = model.term(feature)
     if is_missing(current):
         return _supply_candidates(model, term, rule, toward, reach)
+    if rule.change == "fixed":  # a rule kept for its supply_cost: a value present stays
+        here = np.array([current], dtype=object if isinstance(term, LevelsTerm) else float)
+        return FeatureCandidates(here, term.evaluate(here), np.zeros(1), 0)
     if isinstance(term, LevelsTerm):
         levels = _level_values(term, str(current), rule)
         everything = np.array([str(current), *levels], dtype=object)

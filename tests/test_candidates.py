@@ -616,3 +616,12 @@ def test_a_value_is_never_made_missing(gaps, feature):
     for current in currents:
         found = feature_candidates(model, feature, current, rule, "at-most")
         assert not any(pd.isna(v) for v in found.values), current
+
+
+def test_a_fixed_feature_with_a_supply_rule_keeps_a_value_it_has(gaps):
+    # Debt is zero in 83% of the rows of credit_data, so it has no spread at all: a fixed
+    # rule with cost "spread" is still fine, since a value present never moves.
+    rule = FeatureRule("Debt", "fixed", 0.0, 100.0, 1.0, cost="spread", supply_cost=1.0)
+    found = feature_candidates(gaps, "Debt", 250.0, rule, "at-most")
+    assert list(found.values) == [250.0] and list(found.costs) == [0.0]
+    assert found.contributions[0] == gaps.term("Debt").evaluate(np.array([250.0]))[0]
