@@ -3,6 +3,7 @@ exact brute force over full grids on models fitted to public data."""
 
 from __future__ import annotations
 
+import functools
 from dataclasses import replace
 
 import numpy as np
@@ -477,9 +478,11 @@ def test_the_demo_row_that_the_cap_priced_too_high(loans, loans_schema):
 # (or any level), each at the supply cost.
 
 
+@functools.lru_cache(maxsize=2)
 def gaps_model(family: str = "spline") -> tuple[AdditiveModel, pd.DataFrame]:
-    """The model described above, and the file with its gaps (tests/test_candidates.py and
-    tests/test_recourse_cli.py use it too)."""
+    """The model described above, and the file with its gaps (tests/test_candidates.py,
+    tests/test_mutability.py and tests/test_recourse_cli.py use it too); fitted once per
+    family, so callers must not modify the frame."""
 
     import glassbox
     from tests.real_credit import credit_rows_with_gaps, credit_schema
