@@ -99,6 +99,9 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     held = (meta.get("details") or {}).get("held_flat_by_declared_direction")
     if held:
         pairs["flat: declared direction binds"] = ", ".join(held)
+    routed = (meta.get("details") or {}).get("missing_not_learned")
+    if routed:
+        pairs["missing entry not learned (all gaps in validation part)"] = ", ".join(routed)
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)

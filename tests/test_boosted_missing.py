@@ -5,11 +5,13 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from rich.console import Console
 from sklearn.ensemble import HistGradientBoostingRegressor
 
 from glassbox import fit_model
 from glassbox.errors import DataError
 from glassbox.families import boosted
+from glassbox.render import fit_view
 from glassbox.schema import Schema, prepare
 from tests.conftest import reference_data
 from tests.real_credit import credit_rows_with_gaps, credit_schema
@@ -177,5 +179,10 @@ def test_missing_rows_all_in_the_validation_part_are_reported(seed, learned):
     if not learned:
         assert all(more_rows_rule)
         assert details["missing_not_learned"]["motheduc"] == [seed]
+    # and `glassbox fit` says so on screen
+    console = Console(record=True, width=200)
+    console.print(fit_view(model, {}, "model.json"))
+    shown = [line for line in console.export_text().splitlines() if "not learned" in line]
+    assert bool(shown) == (not learned) and all("motheduc" in line for line in shown)
     # either way the table reproduces scikit-learn, the missing row included
     assert assert_matches_sklearn(model, estimators, frame, schema) < 1e-9
