@@ -186,3 +186,24 @@ def test_missing_rows_all_in_the_validation_part_are_reported(seed, learned):
     assert bool(shown) == (not learned) and all("motheduc" in line for line in shown)
     # either way the table reproduces scikit-learn, the missing row included
     assert assert_matches_sklearn(model, estimators, frame, schema) < 1e-9
+
+
+def test_learning_rows_of_a_classifier_are_the_rows_it_learned_from(credit_gaps_pair):
+    # modeldata::credit_data with gaps. Outside check: scikit-learn's classifier refitted
+    # without early stopping on the rows `learning_rows` names (its stratified training
+    # part), for the same number of rounds, predicts exactly as the fitted model does.
+    from sklearn.ensemble import HistGradientBoostingClassifier
+
+    frame, (model, estimators) = credit_gaps_pair
+    (estimator,) = estimators.estimators
+    prepared = prepare(frame, model.schema)
+    matrix = estimators.matrix(prepared.features)
+    joined = np.column_stack([matrix, prepared.target])
+    part = boosted.learning_rows(estimator, joined, prepared.target)
+    assert len(part) < len(frame)
+    again = HistGradientBoostingClassifier(**{**estimator.get_params(),
+                                              "early_stopping": False,
+                                              "max_iter": estimator.n_iter_})
+    again.fit(part[:, :-1], part[:, -1])
+    np.testing.assert_array_equal(again.predict_proba(matrix), estimator.predict_proba(matrix))
+    assert estimators.learned_missing[0] == {"Income", "Assets", "Debt"}
