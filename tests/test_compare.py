@@ -304,12 +304,16 @@ def credit_benchmark_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bo
     return np.column_stack(columns), categorical
 
 
+BOOSTED_QUICK = {"max_iter": 200, "learning_rate": 0.1}
+
+
 @pytest.fixture(scope="module")
 def credit_with_gaps_compared():
     from tests.real_credit import credit_rows_with_gaps, credit_schema
 
     frame, schema = credit_rows_with_gaps(), credit_schema()
-    settings = CompareSettings(families=("boosted",), folds=3, seed=3)
+    settings = CompareSettings(families=("boosted",), folds=3, seed=3,
+                               family_options={"boosted": BOOSTED_QUICK})
     return frame, schema, settings, compare(frame, schema, settings)
 
 
@@ -332,7 +336,7 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     (fold, train, test), = [(f, tr, te) for _, f, tr, te in
                             make_folds(prepared.target, "classification", settings)
                             if set(job_missing) <= set(te)]
-    model = fit_model(frame.iloc[train], schema, "boosted")
+    model = fit_model(frame.iloc[train], schema, "boosted", **BOOSTED_QUICK)
     with pytest.raises(DataError, match="'Job'"):
         model.predict(frame.iloc[job_missing])
     set_aside = result.provenance["test_rows_set_aside"]
