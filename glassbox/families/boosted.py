@@ -10,10 +10,22 @@ Rules this module follows:
 
 - A feature no tree splits on gets no term: its contribution is a constant,
   already in the intercept.
+- Missing numbers are passed to scikit-learn as NaN, with no imputation: each
+  split learns which branch they take (`missing_go_to_left`), and following that
+  branch in every tree of a feature gives the step table's `missing` entry. A
+  feature whose training column had no missing value gets no entry (`missing` is
+  None), and the model refuses a missing value there; scikit-learn would route it
+  down the branch that held more training rows, which is a guess, not a lesson.
+- With early stopping scikit-learn learns from its own training part only. If all
+  of a feature's missing rows fell in the validation part, its trees never saw
+  one and route missing values by the more-rows rule; the entry then reproduces
+  scikit-learn but was not learned, and the fit's details list the feature.
+- A missing category is the ordinary level "(missing)" here (fitting turns it into
+  the term's missing entry afterwards).
 - A category level never seen in training is scored as scikit-learn scores an
-  unknown category: as a missing value, which (there being none in training) goes
-  down the branch of each split that held more training rows. That value is the
-  term's `unseen` value.
+  unknown category: as a missing value, which (there being none in training, since
+  a missing category is a level) goes down the branch of each split that held more
+  training rows. That value is the term's `unseen` value.
 - With `ensemble` = N > 1, N models are fitted with seeds seed, seed+1, ...
   (the seed changes the early-stopping validation split). Each seed's tables are
   centred on the training rows, then averaged; `lower` and `upper` hold the
@@ -34,12 +46,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+from sklearn.model_selection import train_test_split
 from threadpoolctl import threadpool_limits
 
 from glassbox.additive import LevelsTerm, StepTerm, Term, centre_terms
 from glassbox.errors import OptionError
 from glassbox.families.base import FamilyFit
-from glassbox.schema import Schema
+from glassbox.schema import MISSING_LEVEL, Schema
 
 NAME = "boosted"
 DEFAULTS: dict[str, Any] = {
@@ -57,6 +70,11 @@ DEFAULTS: dict[str, Any] = {
 }
 MAX_BINS = 255  # scikit-learn's largest max_bins, and so the most levels a category may have
 STOPPING_TOLERANCE = 1e-7  # scikit-learn's default tol
+MISSING_RULE = ("a missing number follows, in every tree on its feature, the branch scikit-learn "
+                "learned for missing values; a feature with none in training has no entry")
+NOT_LEARNED_RULE = ("these features had missing values, but with early stopping all of them "
+                    "fell in the validation part of the listed seeds, so those seeds route a "
+                    "missing value down the branch that held more training rows")
 UNSEEN_RULE = ("a level never seen in training is scored as scikit-learn scores an unknown "
                "category: as missing, down the branch of each split that held more training rows")
 BAND_RULE = "pointwise minimum and maximum over the seeds' centred tables (spread across seeds)"
@@ -76,19 +94,23 @@ class BoostedEstimators:
     seeds: tuple[int, ...]
     columns: tuple[str, ...]
     levels: dict[str, tuple[str, ...]]
+    # per seed, the numeric columns with a missing value in the rows scikit-learn learned from
+    learned_missing: tuple[frozenset[str], ...] = ()
 
     def matrix(self, features: pd.DataFrame) -> np.ndarray:
         """The numeric matrix scikit-learn sees: level codes for categories.
 
-        A level not seen in training gets the code len(levels), which scikit-learn
-        never saw either and so treats as an unknown category.
+        A missing category is the level "(missing)"; a level not seen in training
+        gets the code len(levels), which scikit-learn never saw either and so treats
+        as an unknown category. Missing numbers stay NaN.
         """
         blocks = []
         for name in self.columns:
             column = features[name].to_numpy()
             if name in self.levels:
                 levels = self.levels[name]
-                codes = pd.Index(levels).get_indexer(column.astype(object)).astype(float)
+                column = np.where(pd.isna(column), MISSING_LEVEL, column.astype(object))
+                codes = pd.Index(levels).get_indexer(column).astype(float)
                 codes[codes < 0] = len(levels)
                 blocks.append(codes)
             else:
@@ -178,7 +200,7 @@ def fit_estimators(
     for name in columns:
         if schema.feature(name).kind != "category":
             continue
-        found = tuple(sorted({str(v) for v in features[name]}))
+        found = tuple(sorted({MISSING_LEVEL if pd.isna(v) else str(v) for v in features[name]}))
         if len(found) > MAX_BINS:
             raise OptionError(f"feature '{name}' has {len(found)} levels; the boosted family "
                               f"takes at most {MAX_BINS} per category (scikit-learn's native "
@@ -219,7 +241,26 @@ def fit_estimators(
             raise RuntimeError("scikit-learn reordered the columns unexpectedly; the trees "
                                "cannot be read back")
         estimators.append(estimator)
-    return BoostedEstimators(tuple(estimators), seeds, tuple(columns), levels)
+    learned = tuple(
+        frozenset(name for name, gaps in zip(columns, np.isnan(
+            learning_rows(e, matrix, target)).any(axis=0), strict=True) if gaps)
+        for e in estimators)
+    return BoostedEstimators(tuple(estimators), seeds, tuple(columns), levels, learned)
+
+
+def learning_rows(estimator: Estimator, matrix: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """The rows of `matrix` a fitted model learned its trees from, in its order.
+
+    With early stopping, scikit-learn sets aside a validation part drawn by
+    train_test_split with the seed it keeps (stratified for a classifier); the same
+    call gives the same rows. Without early stopping it learns from every row.
+    """
+    if not estimator.do_early_stopping_:
+        return matrix
+    stratify = target if isinstance(estimator, HistGradientBoostingClassifier) else None
+    part, _ = train_test_split(matrix, test_size=estimator.validation_fraction,
+                               stratify=stratify, random_state=estimator._random_seed)
+    return part
 
 
 # ---------------------------------------------------------------- compiling
@@ -240,10 +281,10 @@ def _tree_feature(nodes: np.ndarray) -> int | None:
 def _walk(predictor: Any, points: np.ndarray, unseen: np.ndarray | None) -> np.ndarray:
     """Leaf values of one tree at the points (level codes when `unseen` is given).
 
-    Mirrors scikit-learn's prediction: a number goes left when x <= threshold; a
-    code goes left when its bit is set in the split's raw left-category bitset,
-    and an unseen code goes where missing values go. (After schema.prepare there
-    are no missing numbers, so the missing-value branch is needed for codes only.)
+    Mirrors scikit-learn's prediction: a missing number (NaN) goes where the split
+    sends missing values; any other number goes left when x <= threshold; a code
+    goes left when its bit is set in the split's raw left-category bitset, and an
+    unseen code goes where missing values go.
     """
     nodes = predictor.nodes
     at = np.zeros(len(points), dtype=np.intp)
@@ -253,7 +294,8 @@ def _walk(predictor: Any, points: np.ndarray, unseen: np.ndarray | None) -> np.n
             return nodes["value"][at]
         node = nodes[at]
         if unseen is None:
-            left = points <= node["num_threshold"]
+            left = np.where(np.isnan(points), node["missing_go_to_left"].astype(bool),
+                            points <= node["num_threshold"])
         else:
             codes = points.astype(np.intp)
             bitsets = predictor.raw_left_cat_bitsets[node["bitset_idx"].astype(np.intp)]
@@ -287,8 +329,9 @@ def _trees_by_feature(estimator: Estimator) -> tuple[float, dict[int, list[Any]]
 def _points(
     fitted: BoostedEstimators, name: str, trees: list[Any]
 ) -> tuple[np.ndarray, np.ndarray | None, tuple[float, ...]]:
-    """Where to evaluate a feature's trees: one point per bin or level (then the unseen
-    code), whether each point is the unseen code (categories only), and the step edges."""
+    """Where to evaluate a feature's trees: one point per bin or level, then the unseen
+    code (categories) or NaN (numbers, for the missing entry); whether each point is the
+    unseen code (categories only); and the step edges."""
     if name in fitted.levels:
         count = len(fitted.levels[name])
         codes = np.arange(count + 1, dtype=float)
@@ -297,7 +340,7 @@ def _points(
                                  for t in trees])
     edges = np.unique(thresholds[np.isfinite(thresholds)])
     # bin i is (edges[i-1], edges[i]]: its right end represents it; the last bin runs to inf
-    return np.append(edges, np.inf), None, tuple(float(e) for e in edges)
+    return np.append(edges, [np.inf, np.nan]), None, tuple(float(e) for e in edges)
 
 
 def _floats(values: np.ndarray) -> tuple[float, ...]:
@@ -324,12 +367,14 @@ def compile_estimators(
         name = fitted.columns[index]
         every_tree = [t for _, by_feature, _ in compiled for t in by_feature.get(index, [])]
         points, unseen, edges = _points(fitted, name, every_tree)
+        had_missing = bool(features[name].isna().any())
         for seed_terms, (_, by_feature, _) in zip(per_seed, compiled, strict=True):
             values = _floats(_table(by_feature.get(index, []), points, unseen))
             if name in fitted.levels:
                 seed_terms.append(LevelsTerm(name, fitted.levels[name], values[:-1], values[-1]))
             else:
-                seed_terms.append(StepTerm(name, edges, values))
+                seed_terms.append(StepTerm(name, edges, values[:-1],
+                                           missing=values[-1] if had_missing else None))
     intercepts = [constant for constant, _, _ in compiled]
     if len(compiled) == 1:
         terms: tuple[Term, ...] = tuple(per_seed[0])
@@ -347,8 +392,17 @@ def compile_estimators(
                               for _, by_feature, count in compiled],
         "unsplit_features": [n for n in features.columns
                              if fitted.columns.index(n) not in split],
+        "missing_rule": MISSING_RULE,
         "unseen_level_rule": UNSEEN_RULE,
     }
+    not_learned = {name: [seed for seed, seen in zip(fitted.seeds, fitted.learned_missing,
+                                                     strict=True) if name not in seen]
+                   for name in (fitted.columns[i] for i in split)
+                   if name not in fitted.levels and features[name].isna().any()}
+    not_learned = {name: seeds for name, seeds in not_learned.items() if seeds}
+    if not_learned:
+        details["missing_not_learned"] = not_learned
+        details["missing_not_learned_rule"] = NOT_LEARNED_RULE
     if len(compiled) > 1:
         details["band_rule"] = BAND_RULE
     return float(np.mean(intercepts)), terms, details
@@ -365,7 +419,12 @@ def _average(terms: list[Term]) -> Term:
     if isinstance(first, LevelsTerm):
         unseen = float(np.mean([t.unseen for t in terms]))
         return LevelsTerm(first.feature, first.levels, _floats(mean), unseen, lower, upper)
-    return StepTerm(first.feature, first.edges, _floats(mean), lower, upper)
+    if first.missing is None:
+        return StepTerm(first.feature, first.edges, _floats(mean), lower, upper)
+    missing = [t.missing for t in terms]
+    average = float(np.mean(missing))
+    band = (min(min(missing), average), max(max(missing), average))
+    return StepTerm(first.feature, first.edges, _floats(mean), lower, upper, average, band)
 
 
 def fit(
