@@ -432,6 +432,9 @@ def reasons_command(
 
 
 def _plain_value(value: Any) -> Any:
+    """A value for JSON: numpy scalars as Python ones, a missing value as null."""
+    if reasons.is_missing(value):
+        return None
     return value.item() if hasattr(value, "item") else value
 
 
