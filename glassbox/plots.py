@@ -16,7 +16,14 @@ from matplotlib.figure import Figure
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from glassbox.files import output_folder, safe_file_name, write_atomic
 from glassbox.schema import MISSING_LEVEL
-from glassbox.shapes import chosen_features, missing_words, summary, term_table, value_rows
+from glassbox.shapes import (
+    chosen_features,
+    missing_words,
+    percent_text,
+    summary,
+    term_table,
+    value_rows,
+)
 
 LINE = "#1f4e79"
 BAND = "#9dc3e6"
@@ -94,7 +101,7 @@ def _missing_marker(model: AdditiveModel, feature: str, axis) -> None:
                   ha="center", va="center", fontsize=8, color=DATA)
         return
     share = summary(model).set_index("feature").loc[feature, "missing_share"]
-    rows = f"{share:.1%} of rows" if np.isfinite(share) else "share not\nrecorded"
+    rows = f"{percent_text(share)} of rows" if np.isfinite(share) else "share not\nrecorded"
     axis.set_xticks([0], [f"{MISSING_LEVEL}\n{rows}"], fontsize=8, color=MISSING)
     axis.errorbar([0.0], [term.missing], yerr=_missing_error(term), fmt="D", color=MISSING,
                   ecolor=MISSING, capsize=4, markersize=7)

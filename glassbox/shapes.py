@@ -28,7 +28,7 @@ TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "slope", "lower
                  "training_percentile", "training_share", "note")
 SUMMARY_COLUMNS = ("feature", "kind", "term", "importance", "lowest", "highest",
                    "observed", "declared", "missing", "missing_share")
-REFUSED = "refused: no training row lacked a value, so the model has no entry for one"
+REFUSED = "refused: no training row lacked a value"
 
 
 def _share_between(profile: FeatureProfile, low: float, high: float) -> float:
@@ -117,8 +117,15 @@ def missing_words(missing: float | None, share: float | None) -> str:
     if missing is None or not np.isfinite(missing):
         return "refused (none in training)"
     recorded = share is not None and np.isfinite(share)
-    where = f"{share:.1%} of training rows" if recorded else "share not recorded"
+    where = f"{percent_text(share)} of training rows" if recorded else "share not recorded"
     return f"{missing:+.3g} ({where})"
+
+
+def percent_text(share: float) -> str:
+    """A share as a percentage: one decimal, or two significant figures below 1% (so a
+    handful of rows in thousands does not read as 0.0%)."""
+    percent = 100.0 * share
+    return f"{percent:.2g}%" if 0 < percent < 1 else f"{percent:.1f}%"
 
 
 def readable_rows(table: pd.DataFrame, most: int = 16) -> pd.DataFrame:
