@@ -128,7 +128,7 @@ def test_exports_carry_the_missing_row(built):
 
 def test_long_tables_keep_the_missing_row_when_thinned():
     # constructed: a 40-knot curve thinned to 16 rows keeps its ends and the missing row
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "lower"},
                                "feature": {"x": {"kind": "number"}}})
     values = pd.DataFrame({"x": np.r_[np.linspace(0, 39, 400), [np.nan] * 10]})
     knots = tuple(float(k) for k in range(40))
