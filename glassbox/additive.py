@@ -511,7 +511,9 @@ def centre_terms(
 def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = None,
                 contributions: bool = True) -> pd.DataFrame:
     """Per row: the id (when the schema names one), score, probability or prediction,
-    and each term's contribution (`contribution:FEATURE`)."""
+    `missing` (when the model has a missing-value entry: the features the row has no
+    value for, in model order, joined by "; ") and each term's contribution
+    (`contribution:FEATURE`)."""
     prepared = prepare(frame, model.schema, require_target=False, source=source,
                        features=model.features)
     model.check_missing(prepared.features, source or frame.attrs.get("source") or "the data")
@@ -522,6 +524,10 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
         out[model.schema.id_column] = prepared.ids
     out["score"] = score
     out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
+    if any(t.missing is not None for t in model.terms):
+        absent = prepared.features[list(model.features)].isna().to_numpy()
+        out["missing"] = ["; ".join(n for n, gone in zip(model.features, row, strict=True)
+                                    if gone) for row in absent]
     if contributions:
         out["intercept"] = model.intercept
         for name in parts.columns:

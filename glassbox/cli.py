@@ -193,8 +193,9 @@ def score_command(
     contributions: Annotated[bool, typer.Option(
         help="Include each feature's contribution.")] = True,
 ) -> None:
-    """Score rows: score (link scale), probability or prediction, contributions (CSV);
-    or, with --points, total points and each feature's points."""
+    """Score rows: score (link scale), probability or prediction, the features a row has
+    no value for (when the model learned missing values), contributions (CSV); or, with
+    --points, total points and each feature's points."""
     model_file, data = _score_inputs(model_file, data, card_file)
     if card_file is not None:
         card = points.load(card_file)
@@ -432,6 +433,9 @@ def reasons_command(
 
 
 def _plain_value(value: Any) -> Any:
+    """A value for JSON: numpy scalars as Python ones, a missing value as null."""
+    if reasons.is_missing(value):
+        return None
     return value.item() if hasattr(value, "item") else value
 
 

@@ -5,7 +5,9 @@ They follow scikit-learn's contract (configuration in `__init__`, learning in
 `GridSearchCV` work. Arrays get columns named x0, x1, ...; a DataFrame keeps its
 column names and, with a `schema` (a `Schema` or the path of a TOML file), everything the
 schema declares: the fit takes the same path as `glassbox fit`, so the model, its reasons
-and its points card are the ones the command would make from the same rows.
+and its points card are the ones the command would make from the same rows. NaN in X (None
+in a category column) is a missing value: learned in fitting, scored through each term's
+missing-value entry, refused where the training data had none.
 """
 
 from __future__ import annotations
@@ -59,10 +61,14 @@ class _AdditiveEstimator(BaseEstimator):
             if y is not None:
                 y = np.asarray(y)
             return frame, y
+        # NaN is a missing value (scored through each term's missing-value entry); an
+        # infinite value is still refused
         if y is None:
-            array = validate_data(self, X, reset=reset, dtype="numeric")
+            array = validate_data(self, X, reset=reset, dtype="numeric",
+                                  ensure_all_finite="allow-nan")
         else:
             array, y = validate_data(self, X, y, reset=reset, dtype="numeric",
+                                     ensure_all_finite="allow-nan",
                                      y_numeric=self._task == "regression")
         if reset and array.shape[0] < 2:
             raise ValueError(f"{type(self).__name__} needs at least 2 rows to fit; got "
@@ -102,7 +108,7 @@ class _AdditiveEstimator(BaseEstimator):
 
     def __sklearn_tags__(self):  # noqa: D105
         tags = super().__sklearn_tags__()
-        tags.input_tags.allow_nan = False
+        tags.input_tags.allow_nan = True
         return tags
 
 

@@ -15,13 +15,22 @@ from matplotlib.figure import Figure
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from glassbox.files import output_folder, safe_file_name, write_atomic
-from glassbox.shapes import chosen_features, summary, term_table
+from glassbox.schema import MISSING_LEVEL
+from glassbox.shapes import (
+    chosen_features,
+    missing_words,
+    percent_text,
+    summary,
+    term_table,
+    value_rows,
+)
 
 LINE = "#1f4e79"
 BAND = "#9dc3e6"
 DATA = "#7f7f7f"
 BAR_UP = "#b85450"
 BAR_DOWN = "#4a7fb5"
+MISSING = "#c55a11"
 DPI = 110
 
 
@@ -64,11 +73,50 @@ def _data_strip(model: AdditiveModel, feature: str, axis) -> None:
                    "thick: median", fontsize=7, loc="left", color=DATA)
 
 
+def _missing_label(model: AdditiveModel, feature: str) -> str:
+    """The missing-value entry's label: its contribution and share, or refused."""
+    row = summary(model).set_index("feature").loc[feature]
+    return f"{MISSING_LEVEL}: {missing_words(row['missing'], row['missing_share'])}"
+
+
+def _missing_error(term) -> list[list[float]] | None:
+    """The missing-value band as an error bar's (below, above) lengths, if it has one."""
+    if term.missing_band is None:
+        return None
+    low, high = term.missing_band
+    return [[term.missing - low], [high - term.missing]]
+
+
+def _missing_marker(model: AdditiveModel, feature: str, axis) -> None:
+    """The missing-value entry beside the curve or steps, on its own axis sharing the score
+    scale: a marker with its band (never joined to the values) and its share of training
+    rows, or a note that a missing value is refused."""
+    term = model.term(feature)
+    axis.axhline(0, color=DATA, linewidth=0.8, linestyle=":")
+    axis.tick_params(axis="y", labelleft=False)
+    axis.set_xlim(-1, 1)
+    if term.missing is None:
+        axis.set_xticks([0], [MISSING_LEVEL])
+        axis.text(0.5, 0.5, "refused\n(none in\ntraining)", transform=axis.transAxes,
+                  ha="center", va="center", fontsize=8, color=DATA)
+        return
+    share = summary(model).set_index("feature").loc[feature, "missing_share"]
+    rows = f"{percent_text(share)} of rows" if np.isfinite(share) else "share not\nrecorded"
+    axis.set_xticks([0], [f"{MISSING_LEVEL}\n{rows}"], fontsize=8, color=MISSING)
+    axis.errorbar([0.0], [term.missing], yerr=_missing_error(term), fmt="D", color=MISSING,
+                  ecolor=MISSING, capsize=4, markersize=7)
+
+
 def _numeric_figure(model: AdditiveModel, feature: str) -> Figure:
     term = model.term(feature)
     profile = next((p for p in model.profiles if p.feature == feature), None)
-    figure = Figure(figsize=(7.5, 4.6), dpi=DPI, layout="constrained")
-    top, strip = figure.subplots(2, 1, sharex=True, height_ratios=[6, 1])
+    figure = Figure(figsize=(8.5, 4.6), dpi=DPI, layout="constrained")
+    grid = figure.add_gridspec(2, 2, width_ratios=[7, 1], height_ratios=[6, 1])
+    top = figure.add_subplot(grid[0, 0])
+    strip = figure.add_subplot(grid[1, 0], sharex=top)
+    side = figure.add_subplot(grid[0, 1], sharey=top)
+    _missing_marker(model, feature, side)
+    top.tick_params(axis="x", labelbottom=False)
     if isinstance(term, CurveTerm):
         x, y = np.asarray(term.knots), np.asarray(term.values)
         if len(x) == 1:
@@ -108,17 +156,22 @@ def _numeric_figure(model: AdditiveModel, feature: str) -> Figure:
 
 
 def _bars_figure(model: AdditiveModel, feature: str) -> Figure:
-    """Levels (and flags) as horizontal bars with their band and training share."""
+    """Levels (and flags) as horizontal bars with their band and training share; below a
+    dashed line, the missing-value entry as a marker with its band (or refused)."""
     term = model.term(feature)
-    table = term_table(model, feature)
+    table = value_rows(term_table(model, feature))
     if isinstance(term, LevelsTerm):
         table = table.iloc[:-1]  # the unseen-level row is not a level of the data
     labels = table["row"].tolist()
     values = table["contribution"].to_numpy(dtype=float)
-    figure = Figure(figsize=(7.5, max(2.6, 0.45 * len(labels) + 1.4)), dpi=DPI,
+    figure = Figure(figsize=(7.5, max(2.6, 0.45 * (len(labels) + 1) + 1.4)), dpi=DPI,
                     layout="constrained")
     axis = figure.subplots()
-    positions = np.arange(len(labels))[::-1]
+    positions = np.arange(len(labels))[::-1] + 1.0
+    axis.axhline(0.5, color=DATA, linewidth=0.8, linestyle="--")
+    if term.missing is not None:
+        axis.errorbar([term.missing], [0.0], xerr=_missing_error(term), fmt="D",
+                      color=MISSING, ecolor=MISSING, capsize=3, markersize=7)
     axis.barh(positions, values, color=[BAR_UP if v > 0 else BAR_DOWN for v in values],
               height=0.6)
     if table["lower"].notna().all():
@@ -129,7 +182,8 @@ def _bars_figure(model: AdditiveModel, feature: str) -> Figure:
     shares = table["training_share"].to_numpy(dtype=float)
     names = [f"{label}  ({share:.0%} of rows)" if np.isfinite(share) else label
              for label, share in zip(labels, shares, strict=True)]
-    axis.set_yticks(positions, names)
+    axis.set_yticks([*positions, 0.0], [*names, _missing_label(model, feature)])
+    axis.get_yticklabels()[-1].set_color(MISSING if term.missing is not None else DATA)
     axis.axvline(0, color=DATA, linewidth=0.8)
     axis.set_xlabel(_score_label(model))
     axis.set_title(_title(model, feature), fontsize=10, loc="left")

@@ -8,6 +8,10 @@ a handful of rows, would otherwise be every row's first reason. Gaps are on the 
 (log-odds for classification) and never negative (a row beyond the central range may already
 score better than the bar). Which way is favourable comes from
 the schema's `[target] better`. Protected columns are never model inputs and never reasons.
+
+A row with no value for a feature gets the term's missing-value entry, and its gap is
+measured from the same best (which is sought over values only, never over "missing"); such a
+reason reads "FEATURE not provided".
 """
 
 from __future__ import annotations
@@ -142,8 +146,11 @@ def _value_text(model: AdditiveModel, feature: str, value: Any) -> str:
 
 def sentence(model: AdditiveModel, feature: str, value: Any, best: Best | None = None) -> str:
     """The schema's reason text for the feature, else one made from its name and value
-    (`best`: the term's `best_of`, when the caller has it)."""
+    (`best`: the term's `best_of`, when the caller has it); for a missing value, always
+    "FEATURE not provided" (the schema's text speaks of values)."""
     spec = model.schema.feature(feature)
+    if is_missing(value):
+        return f"{_label(feature)} not provided"
     if spec.reason:
         return spec.reason
     term, label = model.term(feature), _label(feature)
@@ -158,6 +165,11 @@ def sentence(model: AdditiveModel, feature: str, value: Any, best: Best | None =
     nearest = min(best.spans, key=lambda span: max(span[0] - number, number - span[1], 0.0))
     way = "lower" if number > nearest[1] else "higher"
     return f"{label} of {shown}; {way} values score better"
+
+
+def is_missing(value: Any) -> bool:
+    """Whether one value, as `AdditiveModel.encode` types it, is missing (NaN or None)."""
+    return value is None or (isinstance(value, float | np.floating) and math.isnan(value))
 
 
 def _flag_best(term: Term, model: AdditiveModel) -> bool:

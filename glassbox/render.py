@@ -16,7 +16,9 @@ from rich.table import Table
 from rich.text import Text
 
 from glassbox.additive import AdditiveModel
-from glassbox.shapes import readable_rows
+from glassbox.reasons import is_missing
+from glassbox.schema import MISSING_LEVEL
+from glassbox.shapes import missing_words, readable_rows, value_rows
 
 HEADINGS = {
     "row": "value",
@@ -30,6 +32,7 @@ HEADINGS = {
     "range": "contribution range",
     "observed": "observed",
     "declared": "declared",
+    "missing": "missing value",
 }
 
 
@@ -121,12 +124,16 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
                 scale: str = "score") -> RenderableType:
     """The summary table, then each feature's table (long curves thinned)."""
-    shown = summary.assign(range=[f"{low:.3g} to {high:.3g}" for low, high in
-                                  zip(summary["lowest"], summary["highest"], strict=True)])
+    shown = summary.assign(
+        range=[f"{low:.3g} to {high:.3g}" for low, high in
+               zip(summary["lowest"], summary["highest"], strict=True)],
+        missing=[missing_words(m, s) for m, s in
+                 zip(summary["missing"], summary["missing_share"], strict=True)])
     parts: list[RenderableType] = [
         frame_table(shown, title="Features by importance (mean |contribution| on the "
                                  f"{scale} scale)",
-                    columns=["feature", "importance", "range", "observed", "declared"])
+                    columns=["feature", "importance", "range", "observed", "declared",
+                             "missing"])
     ]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
@@ -143,19 +150,20 @@ def terminal_columns(table: pd.DataFrame) -> list[str]:
     """The columns of a term's table worth a terminal's width.
 
     Slopes only for straight lines (up to three knots, where percentiles say
-    little), training shares only for short tables (steps, levels, small counts);
-    files keep every column.
+    little), training shares only for short tables (steps, levels, small counts),
+    and notes (a refused missing value); files keep every column.
     """
     columns = ["row", "contribution", "lower", "upper"]
     curve = table["training_percentile"].notna().any()
-    line = curve and len(table) <= 3
+    knots = len(value_rows(table))
+    line = curve and knots <= 3
     if line:
         columns.insert(2, "slope")
     if curve and not line:
         columns.append("training_percentile")
-    if not curve or len(table) <= 20:
+    if not curve or knots <= 20:
         columns.append("training_share")
-    return columns
+    return [*columns, "note"]
 
 
 def error_text(message: str) -> Text:
@@ -190,8 +198,8 @@ def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> 
                              ("gap", "right"), ("reason", "left")):
         table.add_column(heading, justify=justify)  # type: ignore[arg-type]
     for number, reason in enumerate(reasons, start=1):
-        table.add_row(str(number), reason.feature, cell(reason.value), cell(reason.gap, 3),
-                      reason.text)
+        value = MISSING_LEVEL if is_missing(reason.value) else cell(reason.value)
+        table.add_row(str(number), reason.feature, value, cell(reason.gap, 3), reason.text)
     parts: list[RenderableType] = [key_values(row, title="Row")]
     parts.append(table if reasons else Text("No term holds this row below its best."))
     return Group(*parts)

@@ -176,6 +176,7 @@ def build_report(
                                     cutoff=reasons.checked_cutoff(model, cutoff))
     prepared = prepare(frame, model.schema, require_target=False, source=source,
                        features=model.features)
+    model.check_missing(prepared.features, source)
     score = model.score_encoded(prepared.features)
     unfavourable = reasons.unfavourable(model, score, cutoff)
     cutoff = 0.5 if cutoff is None else float(cutoff)
@@ -297,10 +298,15 @@ def _importance_section(model: AdditiveModel) -> Section:
         "importance": summary["importance"],
         "contribution range": [f"{cell(lo, 3)} to {cell(hi, 3)}" for lo, hi in
                                zip(summary["lowest"], summary["highest"], strict=True)],
-        "declared": summary["declared"], "observed": summary["observed"]})
+        "declared": summary["declared"], "observed": summary["observed"],
+        "missing value": [shapes.missing_words(m, share) for m, share in
+                          zip(summary["missing"], summary["missing_share"], strict=True)]})
     scale = "log-odds" if model.link == "logit" else model.schema.target.column
     text = (f"Importance is the mean absolute contribution over the training rows, on the "
-            f"{scale} scale: how far a feature moves a typical score.")
+            f"{scale} scale: how far a feature moves a typical score. Rows with no value "
+            "count with the feature's missing-value entry; the last column gives that entry "
+            "and its share of training rows, or says that a missing value is refused "
+            "because the training data had none.")
     picture = Picture("overview", plots.importance_figure(model),
                       "Bar chart of the features ranked by importance")
     return Section("Feature importance", (Paragraph(text), picture, Table(shown)))

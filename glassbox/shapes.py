@@ -2,7 +2,10 @@
 
 Every row is read straight from the model's own tables; importance and
 training shares come from the training profile kept in the model (101
-percentiles, level counts), so no data file is needed.
+percentiles, level counts), so no data file is needed. Every table ends with the
+row MISSING_LEVEL: what a row with no value adds, and its share of training rows;
+when the training data had no missing value the row says a missing value is refused.
+Training shares are of all training rows, so a table's shares add up to one.
 """
 
 from __future__ import annotations
@@ -18,12 +21,14 @@ from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTe
 from glassbox.errors import OptionError
 from glassbox.files import output_folder, safe_file_name, write_atomic
 from glassbox.formats import SUFFIXES, write
+from glassbox.schema import MISSING_LEVEL
 
 FORMATS = ("table", "csv", "markdown", "json")
 TABLE_COLUMNS = ("feature", "row", "from", "to", "contribution", "slope", "lower", "upper",
-                 "training_percentile", "training_share")
+                 "training_percentile", "training_share", "note")
 SUMMARY_COLUMNS = ("feature", "kind", "term", "importance", "lowest", "highest",
-                   "observed", "declared")
+                   "observed", "declared", "missing", "missing_share")
+REFUSED = "refused: no training row lacked a value"
 
 
 def _share_between(profile: FeatureProfile, low: float, high: float) -> float:
@@ -38,6 +43,7 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
     """The rows of one term: where it applies, its contribution, its band, its share."""
     term = model.term(feature)
     profile = _profile_or_none(model, feature)
+    present = 1.0 - (_missing_share(profile) or 0.0)  # shares below are of all rows
     rows: list[dict[str, Any]] = []
     lower = term.lower if term.lower is not None else [None] * len(term.values)
     upper = term.upper if term.upper is not None else [None] * len(term.values)
@@ -54,7 +60,7 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
                 # the rows nearest this knot: between the midpoints to its neighbours
                 low = -np.inf if index == 0 else (term.knots[index - 1] + knot) / 2
                 high = np.inf if last else (knot + term.knots[index + 1]) / 2
-                share = _share_between(profile, low, high)
+                share = present * _share_between(profile, low, high)
             label = f"{knot:.6g}"
             if model.schema.feature(feature).kind == "flag":
                 label = {0.0: "no (0)", 1.0: "yes (1)"}.get(float(knot), label)
@@ -68,13 +74,13 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
             low, high = bounds[index], bounds[index + 1]
             share = None
             if profile is not None and profile.percentiles:
-                share = _share_between(profile, low, high)
+                share = present * _share_between(profile, low, high)
             rows.append({"row": _interval_text(low, high), "from": low, "to": high,
                          "contribution": value, "lower": lower[index], "upper": upper[index],
                          "training_share": share})
     else:
         counts = dict(profile.level_counts) if profile is not None else {}
-        total = sum(counts.values())
+        total = sum(counts.values()) / present if present else 0
         for index, (level, value) in enumerate(zip(term.levels, term.values, strict=True)):
             rows.append({"row": level, "from": None, "to": None, "contribution": value,
                          "lower": lower[index], "upper": upper[index],
@@ -82,9 +88,44 @@ def term_table(model: AdditiveModel, feature: str) -> pd.DataFrame:
         rows.append({"row": "(level not seen in training)", "from": None, "to": None,
                      "contribution": term.unseen, "lower": None, "upper": None,
                      "training_share": 0.0 if total else None})
+    rows.append(_missing_row(term, profile))
     table = pd.DataFrame(rows)
     table.insert(0, "feature", feature)
     return table.reindex(columns=list(TABLE_COLUMNS))
+
+
+def _missing_share(profile: FeatureProfile | None) -> float | None:
+    return None if profile is None else profile.missing_share
+
+
+def _missing_row(term: Term, profile: FeatureProfile | None) -> dict[str, Any]:
+    """The table's last row: the missing-value entry, its band and its share of rows."""
+    band = term.missing_band or (None, None)
+    return {"row": MISSING_LEVEL, "from": None, "to": None, "contribution": term.missing,
+            "lower": band[0], "upper": band[1], "training_share": _missing_share(profile),
+            "note": REFUSED if term.missing is None else None}
+
+
+def value_rows(table: pd.DataFrame) -> pd.DataFrame:
+    """A term table without its missing-value row: the rows for values."""
+    return table[table["row"] != MISSING_LEVEL]
+
+
+def missing_words(missing: float | None, share: float | None) -> str:
+    """A missing-value entry in a few words (a summary's `missing` and `missing_share`):
+    its contribution and share of training rows, or that a missing value is refused."""
+    if missing is None or not np.isfinite(missing):
+        return "refused (none in training)"
+    recorded = share is not None and np.isfinite(share)
+    where = f"{percent_text(share)} of training rows" if recorded else "share not recorded"
+    return f"{missing:+.3g} ({where})"
+
+
+def percent_text(share: float) -> str:
+    """A share as a percentage: one decimal, or two significant figures below 1% (so a
+    handful of rows in thousands does not read as 0.0%)."""
+    percent = 100.0 * share
+    return f"{percent:.2g}%" if 0 < percent < 1 else f"{percent:.1f}%"
 
 
 def readable_rows(table: pd.DataFrame, most: int = 16) -> pd.DataFrame:
@@ -92,8 +133,13 @@ def readable_rows(table: pd.DataFrame, most: int = 16) -> pd.DataFrame:
 
     Curve rows are chosen at evenly spaced training percentiles (the knot nearest
     each), so the rows follow where the data lies; other tables evenly by position.
-    The first and last rows are always kept.
+    The first and last value rows and the missing-value row are always kept.
     """
+    values = value_rows(table)
+    if len(values) < len(table):
+        if len(values) + 1 <= most:
+            return table
+        return pd.concat([readable_rows(values, most - 1), table.iloc[len(values):]])
     if len(table) <= most:
         return table
     if table["training_percentile"].notna().all():
@@ -124,9 +170,10 @@ def _profile_or_none(model: AdditiveModel, feature: str) -> FeatureProfile | Non
 def term_importance(model: AdditiveModel, term: Term) -> float:
     """Mean absolute contribution over the training rows.
 
-    Exact when the model file records it (every fit does); otherwise estimated
-    from the training profile: numeric features over the 1% slices between the
-    101 percentiles, categories weighting levels by count.
+    Exact when the model file records it (every fit does; rows with no value count
+    with the missing-value entry); otherwise estimated from the training profile:
+    numeric features over the 1% slices between the 101 percentiles, categories
+    weighting levels by count, and the missing-value entry weighted by its share.
     """
     recorded = model.metadata.get("importance", {})
     if term.feature in recorded:
@@ -134,15 +181,18 @@ def term_importance(model: AdditiveModel, term: Term) -> float:
     profile = _profile_or_none(model, term.feature)
     if profile is None:
         return float(np.mean(np.abs(term.values)))
+    share = profile.missing_share or 0.0
+    gap = share * abs(term.missing) if term.missing is not None else 0.0
     if isinstance(term, LevelsTerm):
         counts = dict(profile.level_counts)
         total = sum(counts.values()) or 1
-        return float(sum(abs(v) * counts.get(level, 0)
-                         for level, v in zip(term.levels, term.values, strict=True)) / total)
+        present = sum(abs(v) * counts.get(level, 0)
+                      for level, v in zip(term.levels, term.values, strict=True)) / total
+        return float((1.0 - share) * present + gap)
     points = np.asarray(profile.percentiles)
     # midpoints between percentiles stand for the 1% slices of the training rows
     middles = (points[:-1] + points[1:]) / 2
-    return float(np.mean(np.abs(term.evaluate(middles))))
+    return float((1.0 - share) * np.mean(np.abs(term.evaluate(middles))) + gap)
 
 
 def observed_direction(term: Term) -> str:
@@ -160,15 +210,20 @@ def observed_direction(term: Term) -> str:
 
 
 def summary(model: AdditiveModel) -> pd.DataFrame:
-    """One line per feature, most important first."""
+    """One line per feature, most important first: importance, the lowest and highest
+    contribution (the missing-value entry included), directions, and the missing-value
+    entry with its share of training rows (blank entry: a missing value is refused)."""
     rows = []
     for term in model.terms:
         spec = model.schema.feature(term.feature)
+        values = [*term.values, *([term.missing] if term.missing is not None else [])]
         rows.append({
             "feature": term.feature, "kind": spec.kind, "term": term.kind,
             "importance": term_importance(model, term),
-            "lowest": float(min(term.values)), "highest": float(max(term.values)),
+            "lowest": float(min(values)), "highest": float(max(values)),
             "observed": observed_direction(term), "declared": spec.monotone or "",
+            "missing": term.missing,
+            "missing_share": _missing_share(_profile_or_none(model, term.feature)),
         })
     table = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
     return table.sort_values(["importance", "feature"], ascending=[False, True],

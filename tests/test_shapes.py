@@ -49,14 +49,19 @@ def test_rows_against_statsmodels(islr_credit):
                                         dummies], axis=1))
     reference = sm.OLS(frame["Balance"].astype(float), design).fit()
     for name in CREDIT_NUMBERS:
-        table = shapes.term_table(model, name)
+        whole = shapes.term_table(model, name)
+        # ISLR Credit has no gaps: the last row says a missing value is refused
+        assert whole["row"].iloc[-1] == "(missing)" and np.isnan(whole["contribution"].iloc[-1])
+        assert whole["note"].iloc[-1] == shapes.REFUSED
+        assert whole["training_share"].iloc[-1] == 0.0
+        table = shapes.value_rows(whole)
         values = frame[name].astype(float)
         assert table["from"].tolist() == [values.min(), values.max()]
         np.testing.assert_allclose(table["contribution"],
                                    reference.params[name] * (table["from"] - values.mean()),
                                    rtol=1e-8, atol=1e-8)
         assert table["slope"].iloc[0] == pytest.approx(reference.params[name], rel=1e-8)
-    flag = shapes.term_table(model, "Student")
+    flag = shapes.value_rows(shapes.term_table(model, "Student"))
     assert flag["row"].tolist() == ["no (0)", "yes (1)"]
     assert flag["contribution"].iloc[1] - flag["contribution"].iloc[0] == pytest.approx(
         reference.params["Student"], rel=1e-8)
@@ -97,7 +102,8 @@ def test_shares_of_flags_and_counts_are_exact(model, loans):
     # reference: counting the rows directly; flags and small counts keep exact value counts
     flag = shapes.term_table(model, "premises_owned")
     assert flag["training_share"].tolist() == pytest.approx(
-        [np.mean(loans["premises_owned"] == "no"), np.mean(loans["premises_owned"] == "yes")])
+        [np.mean(loans["premises_owned"] == "no"), np.mean(loans["premises_owned"] == "yes"),
+         np.mean(loans["premises_owned"].isna())])
     late = shapes.term_table(model, "late_payments_24m")
     low, high = late["from"].iloc[0], late["from"].iloc[1]
     nearest_low = loans["late_payments_24m"] <= (low + high) / 2
@@ -113,7 +119,7 @@ def test_step_shares_match_the_data():
     profiles = profile_features(encoded, schema)
     term = StepTerm("x", (5.0, 20.0, 40.0), (0.1, 0.2, 0.3, 0.4))
     model = AdditiveModel("logit", 0.0, (term,), schema, profiles)
-    table = shapes.term_table(model, "x")
+    table = shapes.value_rows(shapes.term_table(model, "x"))
     counted = np.bincount(term.bin_of(values), minlength=4) / len(values)
     np.testing.assert_allclose(table["training_share"], counted, atol=0.01)
     assert table["row"].tolist() == ["≤ 5", "5 < x ≤ 20", "20 < x ≤ 40", "> 40"]
@@ -161,7 +167,7 @@ def test_percentiles_and_shares_on_real_credit_data():
             column = encoded[term.feature].to_numpy(dtype=float)
             exact = bool(model.profile(term.feature).value_counts)
             slack = 1e-9 if exact else 1.0 + 200.0 / len(column)
-            table = shapes.term_table(model, term.feature)
+            table = shapes.value_rows(shapes.term_table(model, term.feature))
             if isinstance(term, CurveTerm):
                 truth = [percentileofscore(column, knot, kind="mean") for knot in term.knots]
                 got = table["training_percentile"].to_numpy(dtype=float)
