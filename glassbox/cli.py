@@ -22,7 +22,7 @@ from rich.progress import (
     TimeElapsedColumn,
 )
 
-from glassbox import __version__, artifact, formats, plots, points, reasons, shapes
+from glassbox import __version__, artifact, formats, guesses, plots, points, reasons, shapes
 from glassbox.additive import score_table
 from glassbox.benchmarks import BENCHMARKS
 from glassbox.compare import (
@@ -142,10 +142,15 @@ def schema_command(
     id_column: Annotated[str | None, typer.Option("--id", help="Row id column.")] = None,
     out: Annotated[Path | None, typer.Option(help="Write the TOML here, not stdout.")] = None,
 ) -> None:
-    """Infer a starter schema (TOML) from a data file, for you to check and edit."""
+    """Infer a starter schema (TOML) from a data file, for you to check and edit.
+
+    Standard error gets one line per thing to check: missing values per column, the
+    `better` written and why, guessed-protected columns and columns to look at."""
     frame = read_table(data)
     schema = infer_schema(frame, target, positive=positive, id_column=id_column)
     _emit(schema.to_toml(), out, "schema")
+    for line in guesses.summary(schema.notes):
+        stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
 
 
 @app.command("fit")
