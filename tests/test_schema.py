@@ -346,6 +346,8 @@ def test_fit_refuses_unstated_better_from_the_cli(tmp_path, mroz):
     one_line_error(fitted, "mroz.toml", "[target] better is not stated",
                    'better = "lower" if the positive label', 'better = "higher"')
     assert not (tmp_path / "m.json").exists()
+    compared = runner.invoke(app, ["compare", str(data), "--schema", str(tmp_path / "mroz.toml")])
+    one_line_error(compared, "[target] better is not stated")
 
 
 def test_model_files_without_better_still_load_as_higher(tmp_path):
