@@ -458,10 +458,15 @@ def report_command(
         help="A `recourse audit --format json` file made with this model file.")] = None,
     min_group: Annotated[int, typer.Option(
         metavar="N", help="Groups with fewer rows are shown but not flagged.", min=1)] = MIN_GROUP,
+    bands: Annotated[list[str] | None, typer.Option(
+        "--bands", metavar="COLUMN=EDGE,...",
+        help="Band edges for a numeric protected column, e.g. Age=25,35,45,55,65 "
+             "(repeatable; a column named as an age gets these customary bands).")] = None,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
-    from glassbox import report
+    from glassbox import groups, report
 
+    edges = groups.parse_bands(bands or [])
     report.check_folder(out)
     model = artifact.load(model_file)
     frame = read_table(data)
@@ -469,7 +474,7 @@ def report_command(
         document = report.build_report(model, frame, model_file=model_file,
                                        comparison_file=comparison, cutoff=cutoff,
                                        source=str(data), recourse_file=recourse,
-                                       min_group=min_group)
+                                       min_group=min_group, bands=edges)
         paths = report.write_report(document, out)
     stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 
