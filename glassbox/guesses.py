@@ -41,7 +41,7 @@ NEGATIONS = frozenset({"not", "no", "non", "never", "without"})
 # more letters also matches words it begins ("ethnic" finds "ethnicity"); a shorter one
 # only a whole word of the name.
 PROTECTED_HINTS = (
-    "age", "sex", "gender", "race", "racial", "ethnic", "religio", "creed", "caste",
+    "age", "ages", "aged", "sex", "gender", "race", "racial", "ethnic", "religio", "creed", "caste",
     "marital", "nationality", "disab", "handicap", "pregnan", "maternity", "orientation",
     "colour", "color_of_skin", "citizen", "immigra", "birth", "dob", "yob", "hispan",
     "latino", "latina", "afam", "african", "caucasian", "minority", "welfare",
@@ -66,7 +66,8 @@ SUSPICIOUS_HINTS = {
     "family": "family", "familial": "family", "household": "family", "spouse": "family",
     "partner": "family", "student": "a stage of life", "retired": "a stage of life",
     "retiree": "a stage of life", "pension": "a stage of life",
-    "pensioner": "a stage of life", "senior": "a stage of life", "veteran": "service",
+    "pensioner": "a stage of life", "senior": "a stage of life", "old": "an age",
+    "young": "an age", "elder": "an age", "generation": "an age", "veteran": "service",
     "military": "service", "zip": "a place", "zipcode": "a place", "postcode": "a place",
     "postal": "a place", "tract": "a place", "census": "a place",
     "neighbourhood": "a place", "neighborhood": "a place", "surname": "a name",

@@ -302,6 +302,9 @@ def test_protected_names_need_the_whole_word():
         "male", "black", "ethnicity", "birth", "national_origin", "age"]
     assert [hint(n) for n in ("white_goods", "single_family", "mortgage", "black_box",
                               "stage", "page_views")] == [None] * 6
+    # an age said another way is protected or shown for a check
+    assert hint("AgedOver60") == "aged" and hint("years_old") is None
+    assert "an age" in guesses.suspicious_reason("years_old", flag=False)
 
 
 def test_unstated_better_is_written_as_a_required_line_and_fitting_refuses(tmp_path, mroz):
