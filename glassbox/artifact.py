@@ -47,7 +47,8 @@ def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
 def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
     """Rebuild a model from `model_to_dict` output."""
     try:
-        schema = Schema.from_dict(content["schema"], source=source)
+        schema = Schema.from_dict(content["schema"], source=source,
+                                    unstated_better="higher")
         return AdditiveModel(
             link=content["link"],
             intercept=float(content["intercept"]),

@@ -509,7 +509,8 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
         return PointsCard(
             scaling=scaling, base_points=base_points,
             features=tuple(FeaturePoints.from_dict(f) for f in content["features"]),
-            schema=Schema.from_dict(content["schema"], source=source),
+            schema=Schema.from_dict(content["schema"], source=source,
+                                   unstated_better="higher"),
             intercept=float(content["intercept"]),
             tolerance=None if content.get("tolerance") is None else float(content["tolerance"]),
             cutoff=float(content.get("cutoff", DEFAULT_CUTOFF)),

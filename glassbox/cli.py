@@ -22,7 +22,7 @@ from rich.progress import (
     TimeElapsedColumn,
 )
 
-from glassbox import __version__, artifact, formats, plots, points, reasons, shapes
+from glassbox import __version__, artifact, formats, guesses, plots, points, reasons, shapes
 from glassbox.additive import score_table
 from glassbox.benchmarks import BENCHMARKS
 from glassbox.compare import (
@@ -142,10 +142,15 @@ def schema_command(
     id_column: Annotated[str | None, typer.Option("--id", help="Row id column.")] = None,
     out: Annotated[Path | None, typer.Option(help="Write the TOML here, not stdout.")] = None,
 ) -> None:
-    """Infer a starter schema (TOML) from a data file, for you to check and edit."""
+    """Infer a starter schema (TOML) from a data file, for you to check and edit.
+
+    Standard error gets one line per thing to check: missing values per column, the
+    `better` written and why, guessed-protected columns and columns to look at."""
     frame = read_table(data)
     schema = infer_schema(frame, target, positive=positive, id_column=id_column)
     _emit(schema.to_toml(), out, "schema")
+    for line in guesses.summary(schema.notes):
+        stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
 
 
 @app.command("fit")
@@ -457,10 +462,15 @@ def report_command(
         help="A `recourse audit --format json` file made with this model file.")] = None,
     min_group: Annotated[int, typer.Option(
         metavar="N", help="Groups with fewer rows are shown but not flagged.", min=1)] = MIN_GROUP,
+    bands: Annotated[list[str] | None, typer.Option(
+        "--bands", metavar="COLUMN=EDGE,...",
+        help="Band edges for a numeric protected column, e.g. Age=25,35,45,55,65 "
+             "(repeatable; a column named as an age gets these customary bands).")] = None,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
-    from glassbox import report
+    from glassbox import groups, report
 
+    edges = groups.parse_bands(bands or [])
     report.check_folder(out)
     model = artifact.load(model_file)
     frame = read_table(data)
@@ -468,7 +478,7 @@ def report_command(
         document = report.build_report(model, frame, model_file=model_file,
                                        comparison_file=comparison, cutoff=cutoff,
                                        source=str(data), recourse_file=recourse,
-                                       min_group=min_group)
+                                       min_group=min_group, bands=edges)
         paths = report.write_report(document, out)
     stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 

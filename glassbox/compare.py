@@ -305,6 +305,7 @@ def compare(
     """Fit every model on the same folds and measure what the glass-box ones cost."""
     settings = settings or CompareSettings()
     settings.check()
+    schema.require_better()  # every fold fits: refuse at once, not in the first fold
     prepared = prepare(frame, schema, source=source)
     goal = schema.target.task
     folds, set_aside = keep_scorable(prepared.features, make_folds(prepared.target, goal,

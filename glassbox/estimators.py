@@ -79,11 +79,13 @@ class _AdditiveEstimator(BaseEstimator):
     def _schema(self, frame: pd.DataFrame) -> Schema:
         """The schema to fit with: a given one exactly as `glassbox fit` reads it (target
         column, positive label, `better`, id, every feature's declarations), or, without
-        one, kinds inferred from X and a target named __target__ whose positive label is 1."""
+        one, kinds inferred from X and a target named __target__ whose positive label is 1
+        and whose higher scores count as better (`better = "higher"`, stated here: arrays
+        carry no words to say otherwise; pass a schema to say "lower")."""
         if self.schema is None:
             features = tuple(FeatureSpec(name, infer_kind(frame[name])) for name in frame)
             return Schema(TargetSpec(TARGET, self._task, 1 if self._task == "classification"
-                                     else None), features)
+                                     else None, better="higher"), features)
         schema = self.schema if isinstance(self.schema, Schema) else load_schema(self.schema)
         if schema.target.task != self._task:
             where = f"schema {schema.source}" if schema.source else "the schema"

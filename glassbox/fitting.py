@@ -37,6 +37,7 @@ def fit_model(
     columns; a missing category is fitted as one more level and then kept as the term's
     missing-value entry, apart from its levels.
     """
+    schema.require_better()
     module = get_family(family)
     unknown = set(options) - set(module.DEFAULTS)
     if unknown:

@@ -14,7 +14,7 @@ import datetime as dt
 import html
 import io
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -149,6 +149,7 @@ def build_report(
     source: str | None = None,
     recourse_file: str | Path | None = None,
     min_group: int = groups.MIN_GROUP,
+    bands: Mapping[str, Sequence[float]] | None = None,
 ) -> Report:
     """The report's content for `model` on the rows of `frame`.
 
@@ -157,6 +158,7 @@ def build_report(
     classification model (default 0.5) and a predicted value for regression (required).
     `recourse_file` is a `recourse audit --format json` file made with the same model file.
     Groups (the report's and the audit's) of fewer than `min_group` rows are not flagged.
+    `bands` gives band edges for numeric protected columns (see `groups.band_edges`).
     """
     from glassbox import compare, reasons, report_recourse
 
@@ -191,8 +193,9 @@ def build_report(
     sections += _feature_sections(model)
     sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
     group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction,
-                                      min_group)
-    sections.append(_groups_section(model, group_tables, cutoff, min_group))
+                                      min_group, bands)
+    sections.append(_groups_section(model, group_tables, cutoff, min_group,
+                                    _band_notes(model, prepared.protected, bands)))
     if audit is not None:
         sections.append(report_recourse.recourse_section(
             audit, int(unfavourable.sum()), cutoff, min_group))
@@ -207,11 +210,39 @@ def build_report(
 
 def protected_outcomes(model: AdditiveModel, protected: pd.DataFrame,
                        favourable: np.ndarray, prediction: np.ndarray,
-                       min_group: int = groups.MIN_GROUP) -> dict[str, pd.DataFrame]:
-    """`groups.outcomes_by_group` for every protected column present in the data."""
-    return {str(column): groups.outcomes_by_group(groups.group_labels(protected[column]),
-                                                  favourable, prediction, min_rows=min_group)
+                       min_group: int = groups.MIN_GROUP,
+                       bands: Mapping[str, Sequence[float]] | None = None,
+                       ) -> dict[str, pd.DataFrame]:
+    """`groups.outcomes_by_group` for every protected column present in the data, numeric
+    ones in bands (`bands` by column name, else as `groups.band_edges` decides)."""
+    bands = dict(bands or {})
+    unknown = sorted(set(bands) - set(map(str, protected.columns)))
+    if unknown:
+        raise OptionError(f"--bands {', '.join(unknown)}: not a protected column in the data "
+                          f"(protected: {', '.join(map(str, protected.columns)) or 'none'})")
+    return {str(column): groups.outcomes_by_group(
+                groups.group_labels(protected[column], bands.get(str(column)),
+                                    _levels(model, str(column))),
+                favourable, prediction, min_rows=min_group)
             for column in protected.columns}
+
+
+def _levels(model: AdditiveModel, column: str) -> bool:
+    """Whether the schema declares a protected column a category or flag (by level)."""
+    return model.schema.feature(column).kind in ("category", "flag")
+
+
+def _band_notes(model: AdditiveModel, protected: pd.DataFrame,
+                bands: Mapping[str, Sequence[float]] | None) -> list[str]:
+    """One sentence per banded protected column: how it was cut."""
+    bands = dict(bands or {})
+    notes = []
+    for column in protected.columns:
+        edges = groups.band_edges(protected[column], bands.get(str(column)),
+                                  _levels(model, str(column)))
+        if edges is not None:
+            notes.append(groups.band_note(str(column), edges, str(column) in bands))
+    return notes
 
 
 def _outcome_words(model: AdditiveModel) -> str:
@@ -387,7 +418,8 @@ def _reasons_section(model: AdditiveModel, frame: pd.DataFrame, cutoff: float,
 
 
 def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
-                    cutoff: float, min_group: int = groups.MIN_GROUP) -> Section:
+                    cutoff: float, min_group: int = groups.MIN_GROUP,
+                    band_notes: Sequence[str] = ()) -> Section:
     title = "Outcomes by protected group"
     declared = [f.name for f in model.schema.protected_features]
     if not tables:
@@ -402,7 +434,8 @@ def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
         "is a group's favourable share divided by that of the most favoured group. Ratios "
         "below 0.8 are flagged, after the four-fifths rule of the US Uniform Guidelines on "
         "Employee Selection Procedures (1978), 29 CFR 1607.4(D), the customary screen; "
-        f"local law decides what a gap means. {groups.size_note(min_group)}")]
+        f"local law decides what a gap means. {groups.size_note(min_group)}"
+        + "".join(f" {note}" for note in band_notes))]
     for column, table in tables.items():
         shown = pd.DataFrame({
             "group": table["group"], "rows": table["rows"],

@@ -19,20 +19,22 @@ import pandas as pd
 
 from glassbox.errors import DataError, SchemaError
 from glassbox.files import read_toml
+from glassbox.guesses import (
+    FALSE_WORDS,
+    TRUE_WORDS,
+    Note,
+    better_needed,
+    column_notes,
+    guess_better,
+    protected_hint,
+)
 
 KINDS = ("number", "integer", "flag", "category")
 NUMERIC_KINDS = ("number", "integer", "flag")
 TASKS = ("classification", "regression")
 BETTER = ("higher", "lower")  # which way the score is better for the person
+UNSTATED = "?"  # `better = "?"` in a schema file: not stated yet; fitting refuses it
 MONOTONE = ("increasing", "decreasing")
-TRUE_WORDS = frozenset({"1", "yes", "y", "true", "t"})
-FALSE_WORDS = frozenset({"0", "no", "n", "false", "f"})
-# Words in a column name that suggest a protected characteristic; inference marks
-# such columns protected for the user to confirm (common practice, no source).
-PROTECTED_HINTS = (
-    "age", "sex", "gender", "race", "ethnic", "religio", "marital", "nationality",
-    "disab", "pregnan", "orientation", "colour", "color_of_skin",
-)
 SHOWN_ROWS = 5
 # What a missing value means for a feature: "learn" a contribution for it from the data
 # (the default: in credit data a blank is information), take the schema's "fill" value,
@@ -73,17 +75,25 @@ class FeatureSpec:
 class TargetSpec:
     """The column to predict, for classification the positive label, and which way the
     score is better for the person the decision is about ("higher" or "lower": a lender
-    predicting default wants it lower)."""
+    predicting default wants it lower; None while not stated, which fitting refuses)."""
 
     column: str
     task: str
     positive: Any = None
-    better: str = "higher"
+    better: str | None = None
 
     @property
     def good_sign(self) -> int:
         """+1 when a higher score is better for the person, -1 when lower is."""
+        self.require_better()
         return 1 if self.better == "higher" else -1
+
+    def require_better(self, where: str = "schema: ") -> None:
+        """Refuse a target whose `better` is not stated, saying what to write."""
+        if self.better is None:
+            positive = None if self.positive is None else label_text(self.positive)
+            raise SchemaError(f"{where}[target] better is not stated; "
+                              f"{better_needed(self.column, positive)}")
 
 
 @dataclass(frozen=True)
@@ -94,6 +104,8 @@ class Schema:
     features: tuple[FeatureSpec, ...]
     id_column: str | None = None
     source: str = field(default="", compare=False)
+    # what inference saw (missing counts, guesses), written as comments by `to_toml`
+    notes: tuple[Note, ...] = field(default=(), compare=False, repr=False)
 
     @property
     def used_features(self) -> tuple[FeatureSpec, ...]:
@@ -118,6 +130,10 @@ class Schema:
         )
         return replace(self, features=features)
 
+    def require_better(self) -> None:
+        """Refuse to fit while `[target] better` is not stated, saying what to write."""
+        self.target.require_better(self._where())
+
     def _where(self) -> str:
         return f"schema {self.source}: " if self.source else "schema: "
 
@@ -129,8 +145,7 @@ class Schema:
         target = {"column": self.target.column, "task": self.target.task}
         if self.target.positive is not None:
             target["positive"] = self.target.positive
-        if self.target.better != "higher":
-            target["better"] = self.target.better
+        target["better"] = self.target.better or UNSTATED
         out["target"] = target
         out["feature"] = {}
         for spec in self.features:
@@ -152,8 +167,12 @@ class Schema:
         return out
 
     @classmethod
-    def from_dict(cls, data: Mapping[str, Any], source: str = "") -> Schema:
-        """Build and check a schema from parsed TOML or JSON."""
+    def from_dict(cls, data: Mapping[str, Any], source: str = "",
+                  unstated_better: str | None = None) -> Schema:
+        """Build and check a schema from parsed TOML or JSON. A target without `better`
+        (or with better = "?") gets `unstated_better`: None in schema files, so fitting
+        refuses it; "higher" in model files and points cards, whose writers left it out
+        when it was "higher"."""
         where = f"schema {source}: " if source else "schema: "
         if not isinstance(data, Mapping):
             raise SchemaError(f"{where}expected a table of settings")
@@ -169,10 +188,11 @@ class Schema:
         task = target_data.get("task", "classification")
         if task not in TASKS:
             raise SchemaError(f"{where}target task must be one of {', '.join(TASKS)}, not '{task}'")
-        better = target_data.get("better", "higher")
-        if better not in BETTER:
-            raise SchemaError(f"{where}[target] better must be one of {', '.join(BETTER)}, "
-                              f"not {better!r}")
+        better = target_data.get("better", UNSTATED)
+        better = unstated_better if better == UNSTATED else better
+        if better not in (*BETTER, None):
+            raise SchemaError(f"{where}[target] better must be one of {', '.join(BETTER)} "
+                              f"(or {UNSTATED!r} until you decide), not {better!r}")
         target = TargetSpec(str(target_data["column"]), task, target_data.get("positive"),
                             better)
         features_data = data.get("feature", {})
@@ -196,16 +216,18 @@ class Schema:
         """The schema as a TOML file a user can read and edit."""
         lines = [
             "# glassbox schema: one [feature.NAME] table per column.",
+            "# [target] better = \"lower\" | \"higher\"  (which way the score is better for the",
+            "#   person: \"lower\" when the positive label is the bad outcome, e.g. a default;",
+            "#   fitting refuses better = \"?\")",
             "# kind: number | integer | flag | category",
             "# monotone = \"increasing\" | \"decreasing\"  (direction of the score)",
             "# protected = true  (never a model input; kept so audits can group by it)",
             "# ignore = true     (not used at all)",
-            "# missing = \"learn\" | \"refuse\"  (a missing value gets its own learned"
-            " contribution,",
-            "#                   the default; or is an error)",
-            "# fill = VALUE      (missing values take VALUE instead)",
-            "# missing_codes = [-1, 999]  (values that mean missing; blank, NA, NaN and null"
-            " always do)",
+            "# A missing value (blank, NA, NaN, null, or one of missing_codes = [-1, 999]):",
+            "#   missing = \"learn\"   the default: it gets its own contribution, learned from",
+            "#                       the data (a blank is often information in itself)",
+            "#   fill = VALUE        it takes VALUE, as if the row had said so",
+            "#   missing = \"refuse\"  it is an error naming the rows",
             "",
         ]
         data = self.to_dict()
@@ -213,18 +235,21 @@ class Schema:
             lines += [f"id = {_toml_value(data['id'])}", ""]
         lines.append("[target]")
         lines += [f"{key} = {_toml_value(value)}" for key, value in data["target"].items()]
+        lines += _note_lines(self.notes, self.target.column, "better")
         for name, entry in data["feature"].items():
+            notes = [note for note in self.notes if note.column == name]
+            if any(note.topic == "missing" for note in notes):
+                entry.setdefault("missing", self.feature(name).missing)  # shown, not implied
             lines += ["", f"[feature.{_toml_key(name)}]"]
-            for key, value in entry.items():
-                line = f"{key} = {_toml_value(value)}"
-                if key == "protected" and name in _guessed_protected(self):
-                    line += "  # guessed from the column name: check"
-                lines.append(line)
+            lines += [f"{key} = {_toml_value(value)}" for key, value in entry.items()]
+            lines += _note_lines(notes, name)
         return "\n".join(lines) + "\n"
 
 
-def _guessed_protected(schema: Schema) -> set[str]:
-    return {f.name for f in schema.features if f.protected and _looks_protected(f.name)}
+
+def _note_lines(notes: Iterable[Note], column: str, topic: str | None = None) -> list[str]:
+    return [f"# {note.text}" for note in notes
+            if note.column == column and (topic is None or note.topic == topic)]
 
 
 def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
@@ -545,10 +570,7 @@ def choose_positive(distinct: list[str], labels: pd.Series) -> str:
 
 
 def _looks_protected(name: str) -> bool:
-    lowered = name.lower()
-    parts = [p for p in lowered.replace("-", "_").split("_") if p]
-    return any(hint == part or (len(hint) > 3 and part.startswith(hint))
-               for hint in PROTECTED_HINTS for part in parts)
+    return protected_hint(name) is not None
 
 
 def infer_kind(column: pd.Series) -> str:
@@ -578,7 +600,9 @@ def infer_schema(
     task: str | None = None,
     source: str | None = None,
 ) -> Schema:
-    """A starter schema for a frame: kinds guessed, protected columns guessed by name."""
+    """A starter schema for a frame: kinds guessed, protected columns guessed by name,
+    `better` from the words of the target and its positive label (None, written "?",
+    when they do not say), and notes on missing counts and columns to check."""
     where = _source(frame, source)
     if target not in frame.columns:
         raise DataError(f"{where}: no target column '{target}' (it has: "
@@ -615,8 +639,11 @@ def infer_schema(
         features.append(FeatureSpec(str(name), kind, protected=_looks_protected(str(name))))
     if not features:
         raise DataError(f"{where}: no columns besides the target and id")
-    return Schema(TargetSpec(target, task, positive), tuple(features), id_column,
-                  source=str(where))
+    better = guess_better(target, None if positive is None else label_text(positive), task)
+    gaps = {spec.name: int(missing_mask(frame[spec.name], spec).sum()) for spec in features}
+    notes = (Note(target, "better", better.why), *column_notes(features, gaps, len(frame)))
+    return Schema(TargetSpec(target, task, positive, better.better), tuple(features), id_column,
+                  source=str(where), notes=notes)
 
 
 def _natural(label: str, column: pd.Series) -> Any:

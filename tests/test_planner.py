@@ -23,7 +23,7 @@ def islr_default_model() -> AdditiveModel:
     intercept -10.8690, balance 0.005737, income 0.003033 per $1,000, student[Yes] -0.6468.
     Each coefficient becomes a straight-line table over a wide range (exact inside it)."""
     schema = Schema.from_dict({
-        "target": {"column": "default", "positive": "Yes"},
+        "target": {"column": "default", "positive": "Yes", "better": "lower"},
         "feature": {"balance": {"kind": "number"}, "income": {"kind": "number"},
                     "student": {"kind": "flag"}},
     })
@@ -251,7 +251,7 @@ def hmda_model() -> AdditiveModel:
     features = {name: {"kind": kind} for name, kind in kinds.items()}
     features["afam"] = {"kind": "flag", "protected": True}  # race: never an input
     features["single"] = {"kind": "flag", "protected": True}  # marital status: never an input
-    schema = Schema.from_dict({"target": {"column": "deny", "positive": "yes"},
+    schema = Schema.from_dict({"target": {"column": "deny", "positive": "yes", "better": "lower"},
                                "feature": features})
     return glassbox.fit_model(frame, schema, "spline"), frame
 
@@ -266,7 +266,7 @@ def credit_model() -> AdditiveModel:
     features = {name: {"kind": kind} for name, kind in kinds.items()}
     features["Age"] = {"kind": "integer", "protected": True}
     features["Marital"] = {"kind": "category", "protected": True}
-    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad"},
+    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad", "better": "lower"},
                                "feature": features})
     return glassbox.fit_model(frame, schema, "spline"), frame
 

@@ -168,7 +168,7 @@ def test_a_gap_between_training_values_gets_bins_without_rows():
     # constructed truth: training values 0..100 and 1000 under the line 0.01 × x, so
     # the curve climbs 9 log-odds (260 points) between 100 and 1000 where no training
     # row lies; integer values 0..20 and 40 under 0.1 × k show the same for whole values
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "higher"},
                                "feature": {"x": {"kind": "number"},
                                            "k": {"kind": "integer"}}})
     frame = pd.DataFrame({"x": [*range(101), 1000] * 2, "k": [*range(21), 40] * 9 + [0] * 6})
@@ -205,7 +205,7 @@ def test_unseen_level_gets_its_own_points_with_a_warning():
 def test_steps_merge_only_neighbours_with_equal_points():
     # constructed truth: 0.0 and 0.01 both round to 0 points, 0.5 to 14; the merged row
     # is worth the mean over its training rows (three at 0.0, one at 0.01)
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "higher"},
                                "feature": {"z": {"kind": "number"}}})
     frame = pd.DataFrame({"z": [0.5, 0.7, 0.9, 1.5, 2.5]})
     model = with_cells((StepTerm("z", (1.0, 2.0), (0.0, 0.01, 0.5)),), schema, frame, 0.0)
@@ -219,7 +219,7 @@ def test_steps_merge_only_neighbours_with_equal_points():
 
 
 def test_regression_model_is_refused():
-    schema = Schema.from_dict({"target": {"column": "y", "task": "regression"},
+    schema = Schema.from_dict({"target": {"column": "y", "task": "regression", "better": "higher"},
                                "feature": {"x": {"kind": "number"}}})
     model = AdditiveModel("identity", 1.0, (CurveTerm("x", (0.0, 1.0), (0.0, 1.0)),), schema)
     with pytest.raises(OptionError, match="points need a classification model"):
@@ -583,7 +583,7 @@ def test_points_command_shows_the_card_and_fidelity(model_file):
 
 
 def test_points_command_errors_are_one_line(model_file, tmp_path):
-    schema = Schema.from_dict({"target": {"column": "y", "task": "regression"},
+    schema = Schema.from_dict({"target": {"column": "y", "task": "regression", "better": "higher"},
                                "feature": {"x": {"kind": "number"}}})
     regression = AdditiveModel("identity", 1.0, (CurveTerm("x", (0.0, 1.0), (0.0, 1.0)),),
                                schema)

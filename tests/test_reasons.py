@@ -61,7 +61,8 @@ def brute_force_shapley(model: AdditiveModel, row: pd.DataFrame,
 
 def islr_default_schema() -> Schema:
     return Schema.from_dict({
-        "target": {"column": "default", "task": "classification", "positive": "Yes"},
+        "target": {"column": "default", "task": "classification", "positive": "Yes",
+                   "better": "lower"},
         "feature": {"balance": {"kind": "number"}, "income": {"kind": "number"},
                     "student": {"kind": "flag"}},
     })
@@ -69,7 +70,7 @@ def islr_default_schema() -> Schema:
 
 def wage_schema() -> Schema:
     return Schema.from_dict({
-        "target": {"column": "wage", "task": "regression"},
+        "target": {"column": "wage", "task": "regression", "better": "higher"},
         "feature": {"age": {"kind": "integer"}, "year": {"kind": "integer"},
                     "education": {"kind": "category"}, "jobclass": {"kind": "category"},
                     "health": {"kind": "category"}},

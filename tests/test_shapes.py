@@ -29,7 +29,8 @@ def islr_credit():
     features = {name: {"kind": "number"} for name in CREDIT_NUMBERS}
     features["Student"] = {"kind": "flag"}
     features["Ethnicity"] = {"kind": "category"}
-    schema = Schema.from_dict({"target": {"column": "Balance", "task": "regression"},
+    schema = Schema.from_dict({"target": {"column": "Balance", "task": "regression",
+                                          "better": "higher"},
                                "feature": features})
     return frame, fit_model(frame, schema, "sparse")
 
@@ -113,7 +114,7 @@ def test_shares_of_flags_and_counts_are_exact(model, loans):
 def test_step_shares_match_the_data():
     # constructed: a step term over a known column; shares checked by counting rows
     values = np.random.default_rng(3).gamma(2.0, 10.0, size=4000)
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "higher"},
                                "feature": {"x": {"kind": "number"}}})
     encoded = pd.DataFrame({"x": values})
     profiles = profile_features(encoded, schema)

@@ -14,8 +14,12 @@ from glassbox.schema import Schema, prepare
 
 
 def schema_of(target: str, positive, features: dict[str, str]) -> Schema:
+    # a default or a denial is the bad outcome for the person; being in the labour force
+    # (mroz inlf) is taken as the good one
+    better = "lower" if target in ("default", "deny") else "higher"
     return Schema.from_dict({
-        "target": {"column": target, "task": "classification", "positive": positive},
+        "target": {"column": target, "task": "classification", "positive": positive,
+                   "better": better},
         "feature": {name: {"kind": kind} for name, kind in features.items()},
     })
 
@@ -132,7 +136,7 @@ def test_tables_reproduce_sklearn_model_to_1e_9(mroz, tmp_path):
 def test_regression_matches_statsmodels_ols(mroz):
     # Least squares of hours on the same regressors; reference: statsmodels OLS.
     schema = Schema.from_dict({
-        "target": {"column": "hours", "task": "regression"},
+        "target": {"column": "hours", "task": "regression", "better": "higher"},
         "feature": {name: {"kind": "number"} for name in MROZ_COLUMNS},
     })
     model = fit_model(mroz, schema, "sparse")
@@ -165,7 +169,7 @@ def test_a_category_counts_once_toward_max_features(loans, loans_schema):
 
 def test_lasso_path_orders_regression_features(mroz):
     schema = Schema.from_dict({
-        "target": {"column": "hours", "task": "regression"},
+        "target": {"column": "hours", "task": "regression", "better": "higher"},
         "feature": {name: {"kind": "number"} for name in MROZ_COLUMNS},
     })
     model = fit_model(mroz, schema, "sparse", max_features=2)
@@ -230,7 +234,7 @@ MROZ_SIGNS = {"nwifeinc": "decreasing", "educ": "increasing", "exper": "increasi
 def test_directions_that_hold_anyway_change_nothing(mroz):
     # every direction declared as statsmodels' unconstrained Logit finds it: the constrained
     # optimum is the unconstrained one (reference: statsmodels Logit)
-    schema = declared({"column": "inlf", "positive": 1},
+    schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
                       {**MROZ_SIGNS, "kidsge6": "increasing"})
     model = fit_model(mroz, schema, "sparse")
     assert model.metadata["details"]["held_flat_by_declared_direction"] == []
@@ -246,7 +250,8 @@ def test_a_binding_direction_in_a_logistic_refit(mroz):
     # decreasing it is held at zero. References: statsmodels Logit without kidsge6 (the
     # constrained optimum when the bound binds), statsmodels' score (the log-likelihood's
     # gradient) for the optimality condition, and scipy's SLSQP with the bound.
-    schema = declared({"column": "inlf", "positive": 1}, {**MROZ_SIGNS, "kidsge6": "decreasing"})
+    schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
+                      {**MROZ_SIGNS, "kidsge6": "decreasing"})
     model = fit_model(mroz, schema, "sparse")
     assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
     assert set(model.term("kidsge6").values) == {0.0}
@@ -284,7 +289,7 @@ def test_a_binding_direction_in_least_squares(mroz):
     # hours on the same regressors: kidsge6 is -32.8 by OLS; declared increasing it is held
     # at zero. Reference: statsmodels OLS without kidsge6, and the sign of the residuals'
     # correlation with kidsge6 (the optimality condition at the bound).
-    schema = declared({"column": "hours", "task": "regression"},
+    schema = declared({"column": "hours", "task": "regression", "better": "higher"},
                       {**MROZ_SIGNS, "kidsge6": "increasing"})
     model = fit_model(mroz, schema, "sparse")
     assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
@@ -343,7 +348,7 @@ def test_the_signed_l1_path_meets_the_optimality_conditions(mroz):
 
     from glassbox.families import signed
 
-    schema = declared({"column": "inlf", "positive": 1},
+    schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
                       {name: ("decreasing" if name == "exper" else None)
                        for name in MROZ_COLUMNS})
     prepared = prepare(mroz, schema)
@@ -395,7 +400,7 @@ def test_the_signed_lasso_path_matches_lars(mroz):
     from sklearn.linear_model import lars_path
 
     directions = {**MROZ_SIGNS, "kidsge6": "increasing"}
-    schema = declared({"column": "hours", "task": "regression"}, directions)
+    schema = declared({"column": "hours", "task": "regression", "better": "higher"}, directions)
     model = fit_model(mroz, schema, "sparse", max_features=3)
     values = mroz[MROZ_COLUMNS].to_numpy(dtype=float)
     signs = np.array([1.0 if directions[c] == "increasing" else -1.0 for c in MROZ_COLUMNS])
@@ -412,7 +417,8 @@ def test_fit_says_which_declared_directions_bind(mroz, tmp_path):
 
     data = tmp_path / "mroz.csv"
     mroz[[*MROZ_COLUMNS, "inlf"]].to_csv(data, index=False)
-    schema = declared({"column": "inlf", "positive": 1}, {**MROZ_SIGNS, "kidsge6": "decreasing"})
+    schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
+                      {**MROZ_SIGNS, "kidsge6": "decreasing"})
     (tmp_path / "mroz.toml").write_text(schema.to_toml(), encoding="utf-8")
     result = CliRunner().invoke(app, ["fit", str(data), "--schema", str(tmp_path / "mroz.toml"),
                                       "--out", str(tmp_path / "m.json")])

@@ -26,7 +26,10 @@ LOANS_MONOTONE = {"annual_revenue": "decreasing", "years_trading": "decreasing",
 
 
 def schema_of(target: str, task: str, features: dict[str, dict], positive=None) -> Schema:
-    entry = {"column": target, "task": task}
+    # a bad credit status is the bad outcome for the person (lower is better); a higher
+    # wage and being in the labour force (mroz inlf) are taken as the better ones
+    entry = {"column": target, "task": task,
+             "better": "lower" if positive == "bad" else "higher"}
     if positive is not None:
         entry["positive"] = positive
     return Schema.from_dict({"target": entry, "feature": features})
