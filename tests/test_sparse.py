@@ -12,7 +12,6 @@ from glassbox.errors import OptionError
 from glassbox.families import sparse
 from glassbox.schema import Schema, prepare
 
-
 # plain maximum likelihood (no ridge, no pooled levels): what the textbooks and statsmodels
 # fit, so the comparisons below are like for like
 PLAIN = {"ridge": 0.0, "min_level_rows": 0}
@@ -424,3 +423,4 @@ def test_fit_says_which_declared_directions_bind(mroz, tmp_path):
     assert result.exit_code == 0, result.output
     line = next(x for x in result.output.splitlines() if "declared direction binds" in x)
     assert line.split()[-1] == "kidsge6"
+

@@ -1,14 +1,25 @@
-"""Sparse-linear family: an L1 path picks at most k features, then an unpenalised refit.
+"""Sparse-linear family: an L1 path picks at most k features, then a refit of them.
 
 Classification uses logistic regression, regression the lasso and least
-squares. Numeric features are standardised for the path, so the penalty treats
-them alike; a category enters as indicators of its non-reference levels (the
-most frequent level is the reference) and counts as one feature. A declared
-`monotone` direction bounds the feature's coefficient to its side of zero, on the
-path and in the refit (see `signed`); a feature it holds at zero stays in the model
-as a flat term, and the model's details name it. Each numeric feature compiles to a
-two-knot curve at its training minimum and maximum (exact inside the range), each
-category to a levels table.
+squares. Numeric features are standardised, so a penalty treats them alike; a
+category enters as 0/1 indicators of its non-reference levels (the most frequent
+level is the reference), only centred, so a penalty acts on each level's shift.
+Levels seen in fewer than `min_level_rows` training rows (default 30, common
+practice) share one indicator, or join the reference level when together they are
+still that rare; the levels table lists each of them with the shared value, and the
+details name them. A numeric feature with gaps in training enters as its value (a gap
+set to the median of the present values) plus a 0/1 missing indicator: the two are one
+feature on the path (it enters when either leaves zero, and counts once) and in the
+refit, and the term's missing entry is the line at the median plus the indicator's
+shift. The refit minimises log loss (or squared error) plus `ridge`/2 times the sum of
+squared coefficients (default 1.0: scikit-learn's C = 1; squared error adds `ridge`
+times the sum); `ridge = 0` is plain maximum likelihood (least squares), and the
+details say if that refit did not converge. A declared `monotone` direction bounds the
+feature's slope to its side of zero (not its missing indicator), on the path and in the
+refit (see `signed`); a feature it holds at zero stays in the model as a flat term,
+and the model's details name it. Each numeric feature compiles to a two-knot curve at
+its training minimum and maximum (exact inside the range), each category to a levels
+table.
 """
 
 from __future__ import annotations
@@ -176,6 +187,7 @@ class SparseFit:
     intercept: float
     coefs: np.ndarray  # per column of the chosen features; held at zero where a sign binds
     held: tuple[str, ...]  # chosen features their declared direction holds flat
+    unsettled: bool = False  # the refit stopped before converging (reported in the details)
 
 
 def fit_estimator(
@@ -211,11 +223,15 @@ def fit_estimator(
                                       max_iter=500)
         return LinearRegression() if ridge == 0 else Ridge(alpha=ridge)
 
-    estimator, free, intercept, coefs = signed_refit(design.matrix[:, mask], target,
-                                                     design.signs[mask], task, ridge, make)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ConvergenceWarning)
+        estimator, free, intercept, coefs = signed_refit(design.matrix[:, mask], target,
+                                                         design.signs[mask], task, ridge, make)
+    unsettled = any(issubclass(w.category, ConvergenceWarning) for w in caught)
     selected = np.flatnonzero(mask)
     held = tuple(dict.fromkeys(design.feature_of[c] for c in selected[~free]))
-    return SparseFit(estimator, design, chosen, order, selected[free], intercept, coefs, held)
+    return SparseFit(estimator, design, chosen, order, selected[free], intercept, coefs, held,
+                     unsettled)
 
 
 def fit(
@@ -274,6 +290,11 @@ def fit(
         "missing_stand_ins": {f: design.stand_ins[f] for f in chosen if f in design.stand_ins},
         "pooled_levels": pooled_note(design, chosen, min_level_rows),
     }
+    if fitted.unsettled:
+        details["refit_not_converged"] = (
+            "the refit stopped at its iteration limit before converging; with ridge = 0 this "
+            "usually means a level or feature separates the classes and its coefficient has "
+            "no finite maximum-likelihood value; use a ridge above 0")
     parameters = {"max_features": max_features, "ridge": ridge,
                   "min_level_rows": min_level_rows, "path_points": path_points}
     return FamilyFit(intercept, tuple(terms), parameters, details)
