@@ -214,3 +214,20 @@ def test_a_binding_direction_holds_the_slope_not_the_missing_indicator():
     assert term.missing - term.values[0] == pytest.approx(
         reference.params["Income[(missing)]"], rel=1e-6)
     np.testing.assert_allclose(model.score(frame), reference.fittedvalues, atol=1e-6)
+
+
+def test_least_squares_with_a_missing_indicator_matches_statsmodels_ols():
+    # Regression of the loan Amount on Income (381 gaps) and Seniority, no penalty.
+    # Reference: statsmodels OLS on the median-filled Income plus its indicator, to 1e-8.
+    frame = credit_rows_with_gaps()
+    schema = Schema.from_dict({
+        "target": {"column": "Amount", "task": "regression"},
+        "feature": {"Income": {"kind": "number"}, "Seniority": {"kind": "integer"}}})
+    model = fit_model(frame, schema, "sparse", ridge=0.0)
+    design = gap_design(frame, [])[["Income", "Income[(missing)]", "Seniority"]]
+    reference = sm.OLS(frame["Amount"].astype(float), sm.add_constant(design)).fit()
+    intercept, coefs = per_unit(model)
+    assert intercept == pytest.approx(reference.params["const"], rel=1e-8)
+    for name in design.columns:
+        assert coefs[name] == pytest.approx(reference.params[name], rel=1e-8), name
+    np.testing.assert_allclose(model.predict(frame), reference.fittedvalues, atol=1e-6)
