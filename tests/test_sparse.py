@@ -191,6 +191,12 @@ def test_bad_options(mroz):
     schema = schema_of("inlf", 1, {name: "number" for name in MROZ_COLUMNS})
     with pytest.raises(OptionError, match="max_features"):
         fit_model(mroz, schema, "sparse", max_features=0)
+    for ridge in (-1.0, float("nan"), "a lot", True):
+        with pytest.raises(OptionError, match="ridge"):
+            fit_model(mroz, schema, "sparse", ridge=ridge)
+    for rows in (-1, 2.5, "30"):
+        with pytest.raises(OptionError, match="min_level_rows"):
+            fit_model(mroz, schema, "sparse", min_level_rows=rows)
     with pytest.raises(OptionError, match="no option"):
         fit_model(mroz, schema, "sparse", depth=3)
     with pytest.raises(OptionError, match="unknown family"):

@@ -201,9 +201,11 @@ def fit_estimator(
                                      or max_features < 1):
         raise OptionError(f"max_features must be a whole number of at least 1, "
                           f"not {max_features!r}")
-    if not isinstance(ridge, int | float | np.number) or not ridge >= 0:
+    if isinstance(ridge, bool) or not isinstance(ridge, int | float | np.number) or not (
+            0 <= ridge < np.inf):
         raise OptionError(f"ridge must be zero or positive, not {ridge!r}")
-    if not isinstance(min_level_rows, int | np.integer) or min_level_rows < 0:
+    if (isinstance(min_level_rows, bool) or not isinstance(min_level_rows, int | np.integer)
+            or min_level_rows < 0):
         raise OptionError(f"min_level_rows must be a whole number of at least 0, "
                           f"not {min_level_rows!r}")
     design = build_design(features, schema, min_level_rows=min_level_rows)
