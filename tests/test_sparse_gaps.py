@@ -10,9 +10,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from rich.console import Console
 
 from glassbox import fit_model
 from glassbox.additive import LevelsTerm
+from glassbox.render import fit_view
 from glassbox.schema import Schema
 
 from .real_credit import credit_rows_with_gaps, credit_schema
@@ -161,6 +163,16 @@ def test_largest_level_contribution_is_modest_under_the_default():
     plain = fit_model(frame, credit_schema(), "sparse", **PLAIN)
     assert largest(plain) > 3.0
     assert "refit_not_converged" in plain.metadata["details"]
+    # and the fit summary says both (constructed check of the wording's presence)
+    shown = [text_of(fit_view(model, {}, "m.json")) for model in (default, plain)]
+    assert "rare levels of Home" in shown[0] and "ignore" in shown[0]
+    assert "not converged" in shown[1] and "not converged" not in shown[0]
+
+
+def text_of(renderable) -> str:
+    console = Console(width=200, record=True)
+    console.print(renderable)
+    return console.export_text()
 
 
 def test_a_feature_and_its_missing_indicator_are_chosen_and_refitted_together():
