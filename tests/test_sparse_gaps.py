@@ -243,3 +243,19 @@ def test_least_squares_with_a_missing_indicator_matches_statsmodels_ols():
     for name in design.columns:
         assert coefs[name] == pytest.approx(reference.params[name], rel=1e-8), name
     np.testing.assert_allclose(model.predict(frame), reference.fittedvalues, atol=1e-6)
+
+
+def test_a_feature_with_one_stated_value_keeps_only_its_indicator():
+    # Constructed truth: x is 5.0 wherever stated and missing in 40 rows. With no penalty
+    # the model is saturated in two groups, so the missing entry minus the stated value's
+    # is the log odds ratio counted by hand: missing rows 30 of 40 positive, stated rows
+    # 15 of 60: log(30/10) - log(15/45).
+    x = np.r_[np.full(60, 5.0), np.full(40, np.nan)]
+    y = np.r_[np.ones(15), np.zeros(45), np.ones(30), np.zeros(10)]
+    frame = pd.DataFrame({"x": x, "y": y.astype(int)})
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+                               "feature": {"x": {"kind": "number"}}})
+    term = fit_model(frame, schema, "sparse", ridge=0.0).term("x")
+    assert term.knots == (5.0,)
+    assert term.missing - term.values[0] == pytest.approx(np.log(3.0) - np.log(15 / 45),
+                                                           abs=1e-8)
