@@ -225,7 +225,8 @@ def _run_task(task: Task, frame: pd.DataFrame, schema: Schema,
     options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
                if k != "max_features"}
     train_prepared = prepare(train, schema)
-    design = sparse.build_design(train_prepared.features, schema)
+    design = sparse.build_design(train_prepared.features, schema, min_level_rows=options.get(
+        "min_level_rows", sparse.DEFAULTS["min_level_rows"]))
     order = sparse.entry_order(design, train_prepared.target, goal,
                                options.get("path_points", sparse.DEFAULTS["path_points"]))
     records = []

@@ -100,7 +100,8 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     left_out = [f.name for f in model.schema.used_features if f.name not in model.features]
     if left_out:
         pairs["features left out"] = ", ".join(left_out)
-    held = (meta.get("details") or {}).get("held_flat_by_declared_direction")
+    details = meta.get("details") or {}
+    held = details.get("held_flat_by_declared_direction")
     if held:
         pairs["flat: declared direction binds"] = ", ".join(held)
     loose = {name: entry["unidentified"] for name, entry in
@@ -111,6 +112,10 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     routed = (meta.get("details") or {}).get("missing_not_learned")
     if routed:
         pairs["missing entry not learned (all gaps in validation part)"] = ", ".join(routed)
+    for feature, note in (details.get("pooled_levels") or {}).items():
+        pairs[f"rare levels of {feature}"] = note
+    if details.get("refit_not_converged"):
+        pairs["not converged"] = details["refit_not_converged"]
     protected = [f.name for f in model.schema.protected_features]
     if protected:
         pairs["protected (never inputs)"] = ", ".join(protected)

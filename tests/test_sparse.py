@@ -12,6 +12,10 @@ from glassbox.errors import OptionError
 from glassbox.families import sparse
 from glassbox.schema import Schema, prepare
 
+# plain maximum likelihood (no ridge, no pooled levels): what the textbooks and statsmodels
+# fit, so the comparisons below are like for like
+PLAIN = {"ridge": 0.0, "min_level_rows": 0}
+
 
 def schema_of(target: str, positive, features: dict[str, str]) -> Schema:
     # a default or a denial is the bad outcome for the person; being in the labour force
@@ -48,7 +52,7 @@ def test_islr_default_table_4_3(islr_default):
     # $1,000, student[Yes] -0.6468.
     schema = schema_of("default", "Yes",
                        {"balance": "number", "income": "number", "student": "flag"})
-    model = fit_model(islr_default, schema, "sparse")
+    model = fit_model(islr_default, schema, "sparse", **PLAIN)
     intercept, coefs = per_unit(model)
     assert intercept == pytest.approx(-10.8690, abs=5e-4)
     assert coefs["balance"] == pytest.approx(0.0057, abs=5e-5)
@@ -72,7 +76,7 @@ def test_islr_category_counts_once_and_reference_level(islr_default):
     # (ISLR Table 4.3, from memory)
     schema = schema_of("default", "Yes",
                        {"balance": "number", "income": "number", "student": "category"})
-    model = fit_model(islr_default, schema, "sparse")
+    model = fit_model(islr_default, schema, "sparse", **PLAIN)
     _, coefs = per_unit(model)
     assert coefs["student[Yes]"] == pytest.approx(-0.6468, abs=5e-4)
     term = model.term("student")
@@ -87,7 +91,7 @@ def test_wooldridge_mroz_table_17_1(mroz):
     # Wooldridge, Introductory Econometrics, Table 17.1, logit column (from memory):
     # constant 0.425, educ 0.221, kidslt6 -1.443, log-likelihood -401.77.
     schema = schema_of("inlf", 1, {name: "number" for name in MROZ_COLUMNS})
-    model = fit_model(mroz, schema, "sparse")
+    model = fit_model(mroz, schema, "sparse", **PLAIN)
     intercept, coefs = per_unit(model)
     assert intercept == pytest.approx(0.425, abs=5e-4)
     assert coefs["educ"] == pytest.approx(0.221, abs=5e-4)
@@ -108,7 +112,7 @@ def test_stock_watson_hmda(hmda):
     # Stock & Watson, Introduction to Econometrics, chapter 11 (from memory):
     # logit of deny on P/I ratio and black: -4.13, 5.37, 1.27.
     schema = schema_of("deny", "yes", {"pirat": "number", "afam": "flag"})
-    model = fit_model(hmda, schema, "sparse")
+    model = fit_model(hmda, schema, "sparse", **PLAIN)
     intercept, coefs = per_unit(model)
     assert intercept == pytest.approx(-4.13, abs=5e-3)
     assert coefs["pirat"] == pytest.approx(5.37, abs=5e-3)
@@ -139,7 +143,7 @@ def test_regression_matches_statsmodels_ols(mroz):
         "target": {"column": "hours", "task": "regression", "better": "higher"},
         "feature": {name: {"kind": "number"} for name in MROZ_COLUMNS},
     })
-    model = fit_model(mroz, schema, "sparse")
+    model = fit_model(mroz, schema, "sparse", **PLAIN)
     reference = sm.OLS(mroz["hours"].astype(float),
                        sm.add_constant(mroz[MROZ_COLUMNS].astype(float))).fit()
     assert_coefficients(model, reference.params, MROZ_COLUMNS, rel=1e-8)
@@ -149,7 +153,7 @@ def test_regression_matches_statsmodels_ols(mroz):
 @pytest.mark.parametrize("limit", [1, 2, 3])
 def test_max_features_limits_the_model_and_follows_the_l1_path(mroz, limit):
     schema = schema_of("inlf", 1, {name: "number" for name in MROZ_COLUMNS})
-    model = fit_model(mroz, schema, "sparse", max_features=limit)
+    model = fit_model(mroz, schema, "sparse", max_features=limit, **PLAIN)
     assert len(model.terms) == limit
     order = model.metadata["details"]["entry_order"]
     assert list(model.features) == order[:limit]
@@ -191,6 +195,12 @@ def test_bad_options(mroz):
     schema = schema_of("inlf", 1, {name: "number" for name in MROZ_COLUMNS})
     with pytest.raises(OptionError, match="max_features"):
         fit_model(mroz, schema, "sparse", max_features=0)
+    for ridge in (-1.0, float("nan"), "a lot", True):
+        with pytest.raises(OptionError, match="ridge"):
+            fit_model(mroz, schema, "sparse", ridge=ridge)
+    for rows in (-1, 2.5, "30"):
+        with pytest.raises(OptionError, match="min_level_rows"):
+            fit_model(mroz, schema, "sparse", min_level_rows=rows)
     with pytest.raises(OptionError, match="no option"):
         fit_model(mroz, schema, "sparse", depth=3)
     with pytest.raises(OptionError, match="unknown family"):
@@ -236,7 +246,7 @@ def test_directions_that_hold_anyway_change_nothing(mroz):
     # optimum is the unconstrained one (reference: statsmodels Logit)
     schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
                       {**MROZ_SIGNS, "kidsge6": "increasing"})
-    model = fit_model(mroz, schema, "sparse")
+    model = fit_model(mroz, schema, "sparse", **PLAIN)
     assert model.metadata["details"]["held_flat_by_declared_direction"] == []
     target = mroz["inlf"].to_numpy(dtype=float)
     reference = statsmodels_logit(mroz, target, MROZ_COLUMNS)
@@ -252,7 +262,7 @@ def test_a_binding_direction_in_a_logistic_refit(mroz):
     # gradient) for the optimality condition, and scipy's SLSQP with the bound.
     schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
                       {**MROZ_SIGNS, "kidsge6": "decreasing"})
-    model = fit_model(mroz, schema, "sparse")
+    model = fit_model(mroz, schema, "sparse", **PLAIN)
     assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
     assert set(model.term("kidsge6").values) == {0.0}
     intercept, coefs = per_unit(model)
@@ -291,7 +301,7 @@ def test_a_binding_direction_in_least_squares(mroz):
     # correlation with kidsge6 (the optimality condition at the bound).
     schema = declared({"column": "hours", "task": "regression", "better": "higher"},
                       {**MROZ_SIGNS, "kidsge6": "increasing"})
-    model = fit_model(mroz, schema, "sparse")
+    model = fit_model(mroz, schema, "sparse", **PLAIN)
     assert model.metadata["details"]["held_flat_by_declared_direction"] == ["kidsge6"]
     kept = [c for c in MROZ_COLUMNS if c != "kidsge6"]
     reference = sm.OLS(mroz["hours"].astype(float),
@@ -317,7 +327,7 @@ def test_credit_data_directions_with_categories_and_gaps():
     features["Records"] = {"kind": "flag"}
     schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad",
                                           "better": "lower"}, "feature": features})
-    model = fit_model(frame, schema, "sparse")
+    model = fit_model(frame, schema, "sparse", **PLAIN)
     assert model.metadata["details"]["held_flat_by_declared_direction"] == ["Expenses",
                                                                            "Price"]
     intercept, coefs = per_unit(model)
@@ -425,3 +435,4 @@ def test_fit_says_which_declared_directions_bind(mroz, tmp_path):
     assert result.exit_code == 0, result.output
     line = next(x for x in result.output.splitlines() if "declared direction binds" in x)
     assert line.split()[-1] == "kidsge6"
+

@@ -281,7 +281,8 @@ def test_regression_with_gaps_matches_pygam():
 
     wage = reference_data("ISLR", "Wage")
     wage.loc[wage.index[::7], "age"] = np.nan
-    schema = Schema.from_dict({"target": {"column": "wage", "task": "regression", "better": "higher"},
+    schema = Schema.from_dict({"target": {"column": "wage", "task": "regression",
+                                          "better": "higher"},
                                "feature": {"age": {"kind": "integer"},
                                            "year": {"kind": "integer"},
                                            "education": {"kind": "category"}}})

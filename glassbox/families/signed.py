@@ -2,7 +2,9 @@
 
 A feature declared `monotone = "increasing"` must have a coefficient of zero or more,
 one declared "decreasing" zero or less (on a standardised column the sign is the same
-as per unit). Both fits below solve the constrained problem itself:
+as per unit). Only a feature's value column carries the sign: its missing indicator and
+category indicators are free (sign 0), so a held slope leaves the learned shift for a
+missing value in place. Both fits below solve the constrained problem itself:
 
 - the L1 path: where the ordinary path breaks a declared sign, the whole path is
   solved again with the signs as bounds (each free coefficient split into a positive
