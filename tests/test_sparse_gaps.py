@@ -126,7 +126,7 @@ def test_rare_levels_pooled_into_one_shared_level():
     # ignore 20, no value 6. With a minimum of 320 rows, the four levels below it (591 rows)
     # share one indicator. Reference: statsmodels Logit with that shared indicator.
     frame = credit_rows_with_gaps()
-    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad"},
+    schema = Schema.from_dict({"target": {"column": "Status", "positive": "bad", "better": "lower"},
                                "feature": {"Home": {"kind": "category"}}})
     model = fit_model(frame, schema, "sparse", ridge=0.0, min_level_rows=320)
     home = frame["Home"].fillna("(missing)")
@@ -183,7 +183,7 @@ def test_a_feature_and_its_missing_indicator_are_chosen_and_refitted_together():
     frame = credit_rows_with_gaps()
     numbers = ["Income", "Assets", "Debt", "Seniority", "Amount", "Price", "Expenses", "Time"]
     schema = Schema.from_dict({
-        "target": {"column": "Status", "positive": "bad"},
+        "target": {"column": "Status", "positive": "bad", "better": "lower"},
         "feature": {**{n: {"kind": "number"} for n in numbers}, "Records": {"kind": "flag"}}})
     target = (frame["Status"] == "bad").to_numpy(dtype=float)
     for limit in (2, 4, 6):
@@ -233,7 +233,7 @@ def test_least_squares_with_a_missing_indicator_matches_statsmodels_ols():
     # Reference: statsmodels OLS on the median-filled Income plus its indicator, to 1e-8.
     frame = credit_rows_with_gaps()
     schema = Schema.from_dict({
-        "target": {"column": "Amount", "task": "regression"},
+        "target": {"column": "Amount", "task": "regression", "better": "higher"},
         "feature": {"Income": {"kind": "number"}, "Seniority": {"kind": "integer"}}})
     model = fit_model(frame, schema, "sparse", ridge=0.0)
     design = gap_design(frame, [])[["Income", "Income[(missing)]", "Seniority"]]
@@ -253,7 +253,7 @@ def test_a_feature_with_one_stated_value_keeps_only_its_indicator():
     x = np.r_[np.full(60, 5.0), np.full(40, np.nan)]
     y = np.r_[np.ones(15), np.zeros(45), np.ones(30), np.zeros(10)]
     frame = pd.DataFrame({"x": x, "y": y.astype(int)})
-    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "higher"},
                                "feature": {"x": {"kind": "number"}}})
     term = fit_model(frame, schema, "sparse", ridge=0.0).term("x")
     assert term.knots == (5.0,)
