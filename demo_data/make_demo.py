@@ -50,6 +50,12 @@ SECTOR_OFFSETS = {
     "transport": 0.3,
 }
 PREMISES_OWNED_OFFSET = -0.6
+# Some applicants leave revenue blank, more often the riskier ones: the chance is
+# REVENUE_GAP_BASE + REVENUE_GAP_RISK x (their default probability with revenue stated).
+# A blank revenue then scores REVENUE_NOT_STATED_EFFECT in the truth, in place of the curve.
+REVENUE_GAP_BASE = 0.04
+REVENUE_GAP_RISK = 0.30
+REVENUE_NOT_STATED_EFFECT = 0.4
 
 AGE_BANDS = ("18-29", "30-44", "45-59", "60+")
 AGE_SHARES = (0.15, 0.36, 0.31, 0.18)
@@ -83,8 +89,13 @@ def debt_to_revenue_effect(ratio: np.ndarray) -> np.ndarray:
 
 
 def annual_revenue_effect(revenue: np.ndarray) -> np.ndarray:
-    """Smooth, decreasing: -0.9 * log(revenue / 250), revenue in thousands."""
-    return -0.9 * np.log(np.asarray(revenue, dtype=float) / 250.0)
+    """Smooth, decreasing: -0.9 * log(revenue / 250), revenue in thousands; an application
+    that does not state its revenue (blank) gets REVENUE_NOT_STATED_EFFECT instead."""
+    revenue = np.asarray(revenue, dtype=float)
+    stated = ~np.isnan(revenue)
+    effect = np.full(revenue.shape, REVENUE_NOT_STATED_EFFECT)
+    effect[stated] = -0.9 * np.log(revenue[stated] / 250.0)
+    return effect
 
 
 def amount_requested_effect(amount: np.ndarray) -> np.ndarray:
@@ -320,10 +331,14 @@ def loan_features(rng: np.random.Generator, n: int) -> pd.DataFrame:
 
 
 def make_loans(rng: np.random.Generator, n: int) -> pd.DataFrame:
-    """Scenario A: loan applications with a drawn `defaulted` outcome."""
+    """Scenario A: loan applications with a drawn `defaulted` outcome; some leave their
+    revenue blank, more often the riskier ones (the chance rises with the risk)."""
     frame = loan_features(rng, n)
+    draw = rng.random(n)
+    gap_chance = REVENUE_GAP_BASE + REVENUE_GAP_RISK * sigmoid(loan_true_score(frame))
+    frame["annual_revenue"] = frame["annual_revenue"].where(rng.random(n) >= gap_chance)
     p = sigmoid(loan_true_score(frame))
-    frame["defaulted"] = _yes_no(rng.random(n) < p)
+    frame["defaulted"] = _yes_no(draw < p)
     frame.insert(0, "application_id", [f"L{i:06d}" for i in range(1, n + 1)])
     return frame
 
@@ -395,8 +410,9 @@ def make_listings(rng: np.random.Generator, n: int) -> pd.DataFrame:
 Feature = tuple[str, str, str | None, str, tuple[str, ...]]
 
 LOAN_SCHEMA: tuple[Feature, ...] = (
-    ("annual_revenue", "number", "decreasing", "Annual revenue, thousands",
-     ('reason = "Annual revenue is low for the amount of credit sought"',)),
+    ("annual_revenue", "number", "decreasing", "Annual revenue, thousands (blank if not stated)",
+     ('reason = "Annual revenue is low for the amount of credit sought"',
+      'missing = "learn"  # a blank revenue gets its own learned contribution')),
     ("years_trading", "integer", "decreasing", "Whole years the business has traded, years", ()),
     (
         "debt_to_revenue",
@@ -447,7 +463,7 @@ LISTING_SCHEMA: tuple[Feature, ...] = (
         "number",
         "decreasing",
         "Median time for the host to answer a message, hours (missing for new hosts)",
-        ("fill = 24.0",),
+        ('missing = "learn"  # new hosts have no record: their own learned contribution',),
     ),
     ("cleanliness_score", "number", "increasing", "Average cleanliness rating, 1 to 5", ()),
     ("photos", "integer", "increasing", "Number of photos on the listing, count", ()),
