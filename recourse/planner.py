@@ -30,7 +30,7 @@ from recourse.program import (
     gain_needed,
     solve,
 )
-from recourse.supply import Stretch, accepted
+from recourse.supply import Stretch, accepted, least_that_does
 
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
@@ -177,7 +177,9 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
         every.append(changes)
     rescored = model.score_encoded(changed_rows)
     plans = []
-    for changes, solution, score in zip(every, solutions, rescored, strict=True):
+    for number, (changes, solution, score) in enumerate(zip(every, solutions, rescored,
+                                                          strict=True)):
+        row = changed_rows.iloc[[number]].copy()
         score = float(score)
         if not _reaches(score, threshold, direction) or not math.isclose(
                 score, solution.score, rel_tol=0, abs_tol=1e-9):
@@ -187,10 +189,34 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
             model, mutability.rules[c.feature], threshold - (score - new.contribution),
             direction)) if c.supplied else c for c, new in _picked(changes, candidates,
                                                                    solution, names)]
+        changes, score = _least_stated(model, row, changes, score, threshold, direction)
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
                           float(sum(costs)), float(max(costs, default=0.0))))
     return tuple(plans)
+
+
+def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change], score: float,
+                  threshold: float, direction: str) -> tuple[list[Change], float]:
+    """Each stated value lowered to the least the model needs: of the values that would do,
+    the one it scores least favourably. Stating costs the same whatever the value, so the
+    plan's cost is unchanged; its score moves toward the goal but still reaches it (checked
+    by re-scoring the row). A value that cannot be named keeps the program's value."""
+    out = []
+    for change in changes:
+        if change.supplied and change.accepted:
+            term = model.term(change.feature)
+            now = float(term.evaluate(row[change.feature].to_numpy())[0])
+            least = least_that_does(term, change.accepted, threshold - (score - now),
+                                    direction)
+            if least is not None:
+                trial = row.copy()
+                trial[change.feature] = least
+                moved = float(model.score_encoded(trial)[0])
+                if _reaches(moved, threshold, direction):
+                    row, score, change = trial, moved, replace(change, proposed=least)
+        out.append(change)
+    return out, score
 
 
 def _picked(changes: Sequence[Change], candidates: Mapping[str, FeatureCandidates],

@@ -50,6 +50,34 @@ def accepted(model: AdditiveModel, rule: FeatureRule, floor: float,
     return found if step is None else _on_grid(found, step)
 
 
+def least_that_does(term, values: tuple[Stretch, ...] | tuple[str, ...], floor: float,
+                    direction: str) -> float | str | None:
+    """Of the values that would do, the one the model scores least favourably (so the plan
+    asks for no more than it needs: "state your revenue; 572 or more would do" rather than
+    the best value the rules allow). None when no single value can be named (a stretch
+    open at both ends, or only an open end)."""
+    toward = 1.0 if direction == "at-least" else -1.0
+    if isinstance(term, LevelsTerm):
+        table = dict(zip(term.levels, term.values, strict=True))
+        levels = [v for v in values if v in table]
+        return min(levels, key=lambda v: toward * table[v]) if levels else None
+    points = []
+    inner = np.asarray(getattr(term, "knots", getattr(term, "edges", ())), dtype=float)
+    for stretch in values:
+        ends = [stretch.high] + ([] if stretch.low_open else [stretch.low])
+        points += [x for x in ends if math.isfinite(x)]
+        if isinstance(term, CurveTerm):
+            points += [x for x in inner if stretch.low <= x <= stretch.high]
+    if not points:
+        return None
+    points = np.asarray(sorted(set(points)), dtype=float)
+    gains = toward * (term.evaluate(points) - floor)
+    usable = gains >= -1e-12
+    if not usable.any():
+        return None
+    return float(points[usable][np.argmin(gains[usable])])
+
+
 def _curve(knots: np.ndarray, values: np.ndarray, floor: float, toward: float, lower: float,
            upper: float) -> tuple[Stretch, ...]:
     def good(x: np.ndarray) -> np.ndarray:
