@@ -23,6 +23,7 @@ from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.errors import PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import (
+    BUFFER,
     DEFAULT_SOLVER,
     Program,
     Solution,
@@ -30,7 +31,7 @@ from recourse.program import (
     gain_needed,
     solve,
 )
-from recourse.supply import Stretch, accepted, least_that_does
+from recourse.supply import Stretch, accepted, least_first
 
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
@@ -189,7 +190,7 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
             model, mutability.rules[c.feature], threshold - (score - new.contribution),
             direction)) if c.supplied else c for c, new in _picked(changes, candidates,
                                                                    solution, names)]
-        changes, score = _least_stated(model, row, changes, score, threshold, direction)
+        changes, score = _least_stated(model, row, changes, score, threshold, mutability)
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
                           float(sum(costs)), float(max(costs, default=0.0))))
@@ -197,24 +198,27 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
 
 
 def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change], score: float,
-                  threshold: float, direction: str) -> tuple[list[Change], float]:
+                  threshold: float, mutability: Mutability) -> tuple[list[Change], float]:
     """Each stated value lowered to the least the model needs: of the values that would do,
-    the one it scores least favourably. Stating costs the same whatever the value, so the
-    plan's cost is unchanged; its score moves toward the goal but still reaches it (checked
-    by re-scoring the row). A value that cannot be named keeps the program's value."""
+    the one it scores least favourably that still passes the goal by the program's BUFFER
+    when the row is re-scored. Stating costs the same whatever the value, so the plan's cost
+    is unchanged."""
+    direction = mutability.goal.direction
+    passed = threshold + _favourable(direction) * BUFFER  # passed by as much as the program
     out = []
     for change in changes:
         if change.supplied and change.accepted:
-            term = model.term(change.feature)
+            term, rule = model.term(change.feature), mutability.rules[change.feature]
             now = float(term.evaluate(row[change.feature].to_numpy())[0])
-            least = least_that_does(term, change.accepted, threshold - (score - now),
-                                    direction)
-            if least is not None:
+            floor = passed - (score - now)
+            for value in least_first(model, rule, accepted(model, rule, floor, direction),
+                                     floor, direction):
                 trial = row.copy()
-                trial[change.feature] = least
+                trial[change.feature] = value
                 moved = float(model.score_encoded(trial)[0])
                 if _reaches(moved, threshold, direction):
-                    row, score, change = trial, moved, replace(change, proposed=least)
+                    row, score, change = trial, moved, replace(change, proposed=value)
+                    break
         out.append(change)
     return out, score
 

@@ -1,8 +1,9 @@
 """Which stated values would do: for a plan that states a missing value, every value the
 rules allow that reaches the goal together with the plan's other changes.
 
-Supplying costs the same whatever value is stated, so the planner proposes one value, the one
-the model scores best; the person states their own. These are the values that would serve as
+Supplying costs the same whatever value is stated; the planner weighs the value the model
+scores best, then proposes the least favourable value that still reaches the goal
+(`least_first`), and the person states their own. These are the values that would serve as
 well, read exactly off the term's table: a curve's straight lines meet the needed
 contribution at points computed in floating point; a step table's bins are taken whole.
 """
@@ -16,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
-from recourse.candidates import DECIMALS, supply_rules
+from recourse.candidates import DECIMALS, supply_rules, supply_values
 from recourse.mutability import ANY_LEVEL, FeatureRule
 
 
@@ -50,32 +51,35 @@ def accepted(model: AdditiveModel, rule: FeatureRule, floor: float,
     return found if step is None else _on_grid(found, step)
 
 
-def least_that_does(term, values: tuple[Stretch, ...] | tuple[str, ...], floor: float,
-                    direction: str) -> float | str | None:
-    """Of the values that would do, the one the model scores least favourably (so the plan
-    asks for no more than it needs: "state your revenue; 572 or more would do" rather than
-    the best value the rules allow). None when no single value can be named (a stretch
-    open at both ends, or only an open end)."""
+def least_first(model: AdditiveModel, rule: FeatureRule,
+                values: tuple[Stretch, ...] | tuple[str, ...], floor: float,
+                direction: str) -> list[float | str]:
+    """The values that would do (`values`, from `accepted`), the one the model scores least
+    favourably first, so a plan can ask for no more than the goal needs ("572 or more would
+    do" rather than the best value the rules allow). Numbers are searched where such a value
+    lies: the breaks and bounds `supply_values` lists, the stretches' own ends, and (with no
+    step) the floating-point neighbours of those ends."""
+    term = model.term(rule.feature)
     toward = 1.0 if direction == "at-least" else -1.0
     if isinstance(term, LevelsTerm):
         table = dict(zip(term.levels, term.values, strict=True))
-        levels = [v for v in values if v in table]
-        return min(levels, key=lambda v: toward * table[v]) if levels else None
-    points = []
-    inner = np.asarray(getattr(term, "knots", getattr(term, "edges", ())), dtype=float)
+        return sorted((v for v in values if v in table), key=lambda v: toward * table[v])
+    lower, upper, step = supply_rules(model, rule)
+    breaks = term.knots if isinstance(term, CurveTerm) else term.edges
+    points = list(supply_values(breaks, lower, upper, step, rule.feature))
     for stretch in values:
-        ends = [stretch.high] + ([] if stretch.low_open else [stretch.low])
-        points += [x for x in ends if math.isfinite(x)]
-        if isinstance(term, CurveTerm):
-            points += [x for x in inner if stretch.low <= x <= stretch.high]
-    if not points:
-        return None
-    points = np.asarray(sorted(set(points)), dtype=float)
+        for end in (stretch.low, stretch.high):
+            if math.isfinite(end):
+                points.append(end)
+                if step is None:
+                    points += [np.nextafter(end, -np.inf), np.nextafter(end, np.inf)]
+    points = np.array(sorted({float(x) for x in points if lower <= x <= upper}), dtype=float)
+    inside = np.array([any(s.low <= x <= s.high and not (s.low_open and x == s.low)
+                           for s in values) for x in points], dtype=bool)
+    points = points[inside]
     gains = toward * (term.evaluate(points) - floor)
-    usable = gains >= -1e-12
-    if not usable.any():
-        return None
-    return float(points[usable][np.argmin(gains[usable])])
+    order = np.argsort(gains, kind="stable")
+    return [float(points[i]) for i in order if gains[i] >= -1e-12]
 
 
 def _curve(knots: np.ndarray, values: np.ndarray, floor: float, toward: float, lower: float,

@@ -13,6 +13,7 @@ from scipy.special import expit, logit
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
 from glassbox.schema import Schema
+from recourse import program
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records
 from tests.conftest import reference_data
@@ -623,7 +624,13 @@ def test_the_values_that_would_do_are_those_that_reach_the_goal(request, family,
             for other in plan.changes:
                 changed[other.feature] = other.proposed
             changed[blank] = values
-            reaches = model.score(changed) <= threshold
+            scores = model.score(changed)
+            reaches = scores <= threshold
+            # and the one proposed asks no more than the goal needs: of the values that
+            # reach the goal it is the one scored least favourably (the highest score), up
+            # to the program's BUFFER, by which every plan passes the goal
+            assert scores[list(values).index(change.proposed)] == pytest.approx(
+                scores[reaches].max(), abs=program.BUFFER), (position, change.proposed)
             if model.schema.feature(blank).kind == "category":
                 listed = np.array([v in change.accepted for v in values])
             else:
