@@ -28,8 +28,8 @@ demo: $(STAMP)
 	@echo "== 4. score every application: score, probability, per-feature contributions"
 	$(GB) score $(OUT)/loans.spline.json demo_data/loans.csv --out $(OUT)/loans.scores.csv
 	@head -3 $(OUT)/loans.scores.csv | cut -c1-110
-	@echo "== 5. the spline model's tables for auditors: importance, and two features"
-	$(GB) shapes $(OUT)/loans.spline.json --feature credit_utilisation --feature late_payments_24m
+	@echo "== 5. the spline model's tables for auditors: importance, and two features (revenue has a row for a blank)"
+	$(GB) shapes $(OUT)/loans.spline.json --feature annual_revenue --feature late_payments_24m
 	@echo "== 6. every table as files, and a picture of every shape"
 	$(GB) shapes $(OUT)/loans.spline.json --format csv --out $(OUT)/spline-tables --plot $(OUT)/spline-plots
 	$(GB) shapes $(OUT)/loans.boosted.json --format markdown --out $(OUT)/boosted-tables --plot $(OUT)/boosted-plots
@@ -39,16 +39,18 @@ demo: $(STAMP)
 	@echo "== 8. recourse: what could a declined applicant change? (rules: demo_data/loans.mutability.toml)"
 	$(BIN)/recourse template $(OUT)/loans.spline.json > $(OUT)/loans.mutability.template.toml
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L001096
-	@echo "== 9. an applicant for whom no plan exists within the rules"
-	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L002796 --plans 1
+	@echo "== 9. an applicant who left revenue blank: a plan may state it (supply_cost in the rules)"
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L000033 --plans 2
+	@echo "== 9b. an applicant for whom no plan exists within the rules"
+	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L003719 --plans 1
 	@echo "== 10. a cottage listing below the top tier"
 	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
 	@head -1001 demo_data/loans.csv > $(OUT)/loans.first1000.csv
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
-	@echo "== 12. reasons: what holds the two declined applicants furthest below the best"
+	@echo "== 12. reasons: what holds two declined applicants furthest below the best (one left revenue blank)"
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L001096
-	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L002796 --top 3
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L000033 --top 3
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --format csv --out $(OUT)/loans.reasons.csv
 	@echo "== 13. a points scorecard from the spline model, checked against the exact score at the cut-off"
 	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv --cutoff 0.3 --format json --out $(OUT)/loans.card.json
