@@ -101,9 +101,15 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
     names = list(prepare(train, loans_schema).features.columns)
     codes = {"sector": sorted(train["sector"].unique())}
 
+    # a blank revenue (demo data has them): pygam sees the model's stand-in value and an
+    # explicit 0/1 indicator as an unpenalised linear term, as the family fits it
+    stand_in = details["missing_indicators"]["annual_revenue"]["stand_in"]
+
     def matrix(frame):
         encoded = prepare(frame, loans_schema).features
-        return scaled_matrix(encoded, names, details, codes)
+        blank = encoded["annual_revenue"].isna().to_numpy(dtype=float)
+        filled = encoded.fillna({"annual_revenue": stand_in})
+        return np.column_stack([scaled_matrix(filled, names, details, codes), blank])
 
     target = (train["defaulted"] == "yes").to_numpy(dtype=float)
     assert train["late_payments_24m"].nunique() == 12  # too few values for 20 splines
@@ -118,7 +124,7 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
     terms = (spline(0, "annual_revenue") + spline(1, "years_trading")
              + spline(2, "debt_to_revenue") + spline(3, "credit_utilisation")
              + spline(4, "late_payments_24m", 12) + spline(5, "amount_requested")
-             + f(6, lam=lam["sector"]) + l(7, penalties=None))
+             + f(6, lam=lam["sector"]) + l(7, penalties=None) + l(8, penalties=None))
     reference = pygam_fit(LogisticGAM(terms), matrix(train), target)
     low, high = train[names[:6]].min(), train[names[:6]].max()
     inside = ((fresh[names[:6]] >= low) & (fresh[names[:6]] <= high)).all(axis=1).to_numpy()
@@ -133,7 +139,7 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
         else:
             points = on_scale(term.knots, details["scales"].get(term.feature,
                                                                 {"scale": "raw"}))
-        grid = np.zeros((len(points), len(names)))
+        grid = np.zeros((len(points), len(names) + 1))  # the last: the blank indicator
         grid[:, index] = points
         offset = np.asarray(term.values) - reference.partial_dependence(index, X=grid)
         assert np.ptp(offset) <= 1e-3, term.feature
@@ -335,7 +341,7 @@ def test_band_holds_values_and_widens_where_data_is_sparse(loans_model, loans_sp
             assert np.all(lower <= values) and np.all(values <= upper), term.feature
     revenue = loans_model.term("annual_revenue")  # right-skewed by construction (demo data)
     width = np.subtract(revenue.upper, revenue.lower)
-    median = np.median(loans_split[0]["annual_revenue"])
+    median = np.nanmedian(loans_split[0]["annual_revenue"])
     at_median = width[int(np.argmin(np.abs(np.asarray(revenue.knots) - median)))]
     assert width[-1] > 2 * at_median
     age = fit_model(wage, wage_schema, "spline").term("age")  # ISLR Wage: few over 75
