@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from glassbox.columns import OTHER_LEVEL, set_aside
 from glassbox.errors import DataError, SchemaError
 from glassbox.files import read_toml
 
@@ -58,6 +59,10 @@ class FeatureSpec:
     reason: str = ""
     missing: str = "learn"
     missing_codes: tuple[Any, ...] = ()
+    # a category's rare levels: those under this share (below 1) or count (1 or more) of
+    # the training rows with a value are pooled into OTHER_LEVEL when fitting; 0 keeps all
+    pool_below: float | None = None
+    pooled: tuple[str, ...] = ()  # the levels fitting pooled; scored as OTHER_LEVEL
 
     @property
     def used(self) -> bool:
@@ -94,6 +99,8 @@ class Schema:
     features: tuple[FeatureSpec, ...]
     id_column: str | None = None
     source: str = field(default="", compare=False)
+    # why inference treated a column as it did, shown as comments by `to_toml`
+    notes: tuple[tuple[str, str], ...] = field(default=(), compare=False)
 
     @property
     def used_features(self) -> tuple[FeatureSpec, ...]:
@@ -145,6 +152,10 @@ class Schema:
                 entry["missing"] = spec.missing
             if spec.missing_codes:
                 entry["missing_codes"] = list(spec.missing_codes)
+            if spec.pool_below is not None:
+                entry["pool_below"] = spec.pool_below
+            if spec.pooled:
+                entry["pooled"] = list(spec.pooled)
             for key in ("description", "reason"):
                 if getattr(spec, key):
                     entry[key] = getattr(spec, key)
@@ -210,17 +221,21 @@ class Schema:
         ]
         data = self.to_dict()
         if "id" in data:
-            lines += [f"id = {_toml_value(data['id'])}", ""]
+            lines += [*self._note_lines(data["id"]), f"id = {_toml_value(data['id'])}", ""]
         lines.append("[target]")
         lines += [f"{key} = {_toml_value(value)}" for key, value in data["target"].items()]
         for name, entry in data["feature"].items():
-            lines += ["", f"[feature.{_toml_key(name)}]"]
+            lines += ["", f"[feature.{_toml_key(name)}]", *self._note_lines(name)]
             for key, value in entry.items():
                 line = f"{key} = {_toml_value(value)}"
                 if key == "protected" and name in _guessed_protected(self):
                     line += "  # guessed from the column name: check"
                 lines.append(line)
         return "\n".join(lines) + "\n"
+
+    def _note_lines(self, name: str) -> list[str]:
+        return [f"# {line}" for column, note in self.notes if column == name
+                for line in note.splitlines()]
 
 
 def _guessed_protected(schema: Schema) -> set[str]:
@@ -231,7 +246,7 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
     if not isinstance(entry, Mapping):
         raise SchemaError(f"{where}[feature.{name}] must be a table")
     allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason",
-               "missing", "missing_codes"}
+               "missing", "missing_codes", "pool_below", "pooled"}
     unknown = set(entry) - allowed
     if unknown:
         raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
@@ -271,7 +286,27 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
         reason=str(entry.get("reason", "")), missing=missing,
         missing_codes=_missing_codes(entry.get("missing_codes", []), kind,
                                      f"{where}[feature.{name}]"),
+        **_pooling(entry, kind, f"{where}[feature.{name}]"),
     )
+
+
+def _pooling(entry: Mapping[str, Any], kind: str, where: str) -> dict[str, Any]:
+    """A category's `pool_below` rule (a share below 1, a whole count from 1, or 0 to keep
+    every level) and the `pooled` levels a fit wrote."""
+    pool_below, pooled = entry.get("pool_below"), entry.get("pooled", [])
+    if (pool_below is not None or pooled) and kind != "category":
+        raise SchemaError(f"{where} pool_below and pooled apply to categories only")
+    if pool_below is not None and not (
+            is_number(pool_below) and (0 <= pool_below < 1 or pool_below == int(pool_below))
+            and pool_below >= 0):
+        raise SchemaError(f"{where} pool_below must be a share from 0 up to 1 (0.01 pools "
+                          f"levels under 1% of rows) or a whole count of rows, not "
+                          f"{pool_below!r}")
+    if not isinstance(pooled, list) or not all(isinstance(v, str) for v in pooled):
+        raise SchemaError(f"{where} pooled must be a list of levels (text)")
+    if pool_below is not None and pool_below >= 1:
+        pool_below = int(pool_below)
+    return {"pool_below": pool_below, "pooled": tuple(pooled)}
 
 
 def _missing_codes(codes: Any, kind: str, where: str) -> tuple[Any, ...]:
@@ -440,8 +475,8 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
                                   where)
             return typed.where(~missing, np.nan if spec.numeric else None)
     if spec.kind == "category":
-        return pd.Series(_labels(values).to_numpy(dtype=object), index=column.index,
-                         dtype=object)
+        labels = pool_levels(_labels(values), spec.pooled)
+        return pd.Series(labels.to_numpy(dtype=object), index=column.index, dtype=object)
     if spec.kind == "flag":
         return _encode_flag(values, spec, where)
     numbers = pd.to_numeric(values, errors="coerce")
@@ -462,6 +497,13 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
                             f"fractions in {rows_text(fractional)} "
                             f"(first: {numbers[fractional].iloc[0]!r})")
     return numbers
+
+
+def pool_levels(labels: pd.Series, pooled: Iterable[str]) -> pd.Series:
+    """Category labels with the pooled levels replaced by OTHER_LEVEL (fitting and scoring
+    alike)."""
+    pooled = list(pooled)
+    return labels.where(~labels.isin(pooled), OTHER_LEVEL) if pooled else labels
 
 
 def _missing_mask(values: pd.Series) -> np.ndarray:
@@ -509,8 +551,9 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     name = schema.target.column
     missing = _missing_mask(column)
     if missing.any():
-        raise DataError(f"{where}: target column '{name}' has missing values in "
-                        f"{rows_text(missing)}")
+        raise DataError(f"{where}: target column '{name}' has {int(missing.sum())} missing "
+                        f"value(s) in {rows_text(missing)}; fill them, or drop those rows "
+                        "(--drop-missing-target on fit and compare)")
     if schema.target.task == "regression":
         spec = FeatureSpec(name, "number")
         return encode_column(column, spec, where).to_numpy(dtype=float)
@@ -613,10 +656,11 @@ def infer_schema(
             continue
         kind = infer_kind(frame[name])
         features.append(FeatureSpec(str(name), kind, protected=_looks_protected(str(name))))
+    features, id_column, notes = set_aside(frame, features, id_column)  # ids, dates
     if not features:
         raise DataError(f"{where}: no columns besides the target and id")
     return Schema(TargetSpec(target, task, positive), tuple(features), id_column,
-                  source=str(where))
+                  source=str(where), notes=notes)
 
 
 def _natural(label: str, column: pd.Series) -> Any:
