@@ -630,7 +630,7 @@ def infer_schema(
     labels = column[~_missing_mask(column)].map(label_text)
     distinct = sorted(set(labels))
     if task is None:
-        numeric = pd.to_numeric(column, errors="coerce").notna().all()
+        numeric = pd.to_numeric(column[~_missing_mask(column)], errors="coerce").notna().all()
         task = "regression" if (numeric and len(distinct) > 2) else "classification"
     if task == "classification":
         if len(distinct) != 2:
