@@ -310,3 +310,27 @@ def test_cli_refuses_many_levels_and_drops_missing_targets(sacramento, tmp_path)
     assert result.exit_code == 2 and len(lines) == 2, result.output
     assert lines[0].startswith("warning: ") and "dropped 10 row(s)" in lines[0]
     assert lines[1].startswith("error: ") and "column 'zip' has 68 levels" in lines[1]
+
+
+def test_compare_drops_missing_targets_when_asked(tmp_path):
+    # modeldata credit_data with Income (missing in 381 of 4,454 rows) as the target
+    from typer.testing import CliRunner
+
+    frame = as_read("modeldata", "credit_data", tmp_path)
+    data = tmp_path / "credit.csv"
+    frame[["Income", "Amount", "Job", "Seniority"]].to_csv(data, index=False)
+    schema_file = tmp_path / "credit.toml"
+    schema_file.write_text('[target]\ncolumn = "Income"\ntask = "regression"\n'
+                           'better = "higher"\n\n[feature.Amount]\nkind = "number"\n\n'
+                           '[feature.Job]\nkind = "category"\n\n'
+                           '[feature.Seniority]\nkind = "integer"\n')
+    args = ["compare", str(data), "--schema", str(schema_file), "--families", "sparse",
+            "--folds", "2", "--format", "json", "--out", str(tmp_path / "c.json")]
+    one_line_error(CliRunner().invoke(app, args), "target column 'Income' has 381 missing")
+    result = CliRunner().invoke(app, [*args, "--drop-missing-target"])
+    assert result.exit_code == 0, result.output
+    assert "dropped 381 row(s) with no value in the target 'Income'" in result.output
+    import json
+
+    document = json.loads((tmp_path / "c.json").read_text())
+    assert document["provenance"]["rows"] == 4454 - 381
