@@ -142,10 +142,14 @@ def schema_command(
     positive: Annotated[str | None, typer.Option(help="Positive label of the target.")] = None,
     id_column: Annotated[str | None, typer.Option("--id", help="Row id column.")] = None,
     out: Annotated[Path | None, typer.Option(help="Write the TOML here, not stdout.")] = None,
+    dates_as_age: Annotated[str | None, typer.Option(
+        metavar="YYYY-MM-DD",
+        help="Read date columns as their age in days on this date, not ignore them.")] = None,
 ) -> None:
     """Infer a starter schema (TOML) from a data file, for you to check and edit."""
     frame = read_table(data)
-    schema = infer_schema(frame, target, positive=positive, id_column=id_column)
+    schema = infer_schema(frame, target, positive=positive, id_column=id_column,
+                          dates_as_age=dates_as_age)
     _emit(schema.to_toml(), out, "schema")
 
 

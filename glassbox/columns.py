@@ -29,6 +29,7 @@ DATE_FORMATS = (
     "%d/%m/%Y", "%m/%d/%Y", "%d.%m.%Y", "%d-%m-%Y", "%d %b %Y", "%d %B %Y", "%b %d, %Y",
     "%B %d, %Y", "%b %Y", "%B %Y", "%Y-%m",
 )
+DATETIME_LAYOUT = "%Y-%m-%d %H:%M:%S"  # how a datetime column is written to CSV
 SUGGESTED_SHARE = 0.01  # the pool_below line proposed for a many-level category
 
 
@@ -136,11 +137,13 @@ def _named_id(lowered: str) -> bool:
 
 
 def set_aside(frame: pd.DataFrame, features: Sequence[Any], id_column: str | None,
+              dates_as_age: str | None = None,
               ) -> tuple[tuple[Any, ...], str | None, tuple[tuple[str, str], ...]]:
     """Inferred features (FeatureSpecs) with row numbers, ids and dates taken out: the
     first id-like column becomes the schema's id when it has none (a real id before row
-    numbers), every other one and every date is kept with ignore = true. Returns the
-    features, the id column and a note per column saying why."""
+    numbers), every other one and every date is kept with ignore = true (or, with
+    `dates_as_age`, a date becomes its age in days on that date). Returns the features,
+    the id column and a note per column saying why."""
     roles = {spec.name: column_role(spec.name, frame[spec.name]) for spec in features}
     notes: list[tuple[str, str]] = []
     if id_column is None:
@@ -154,6 +157,13 @@ def set_aside(frame: pd.DataFrame, features: Sequence[Any], id_column: str | Non
         role = roles[spec.name]
         if spec.name == id_column:
             continue
+        if role is not None and role.role == "date" and dates_as_age is not None:
+            layout = date_format(frame[spec.name])
+            spec = replace(spec, kind="integer", days_before=dates_as_age,
+                           date_layout=DATETIME_LAYOUT if layout == "datetime" else layout)
+            notes.append((spec.name, f"days from each date to {dates_as_age} (an age in days)"))
+            kept.append(spec)
+            continue
         if role is not None and (role.id_like or role.role == "date"):
             spec = replace(spec, ignore=True)
             notes.append((spec.name, role.note if role.role == "date" else
@@ -162,3 +172,28 @@ def set_aside(frame: pd.DataFrame, features: Sequence[Any], id_column: str | Non
             notes.append((spec.name, role.note))
         kept.append(spec)
     return tuple(kept), id_column, tuple(notes)
+
+
+def ages_in_days(column: pd.Series, reference: str, layout: str | None, name: str,
+                 where: str) -> pd.Series:
+    """Each date's age in whole days on the reference date (negative after it), NaN where
+    the column is blank; text not in the layout (ISO by default) is an error naming rows.
+    A datetime column is read as it is."""
+    from glassbox.errors import DataError
+    from glassbox.schema import rows_text  # the schema module imports this one
+
+    layout = layout or "%Y-%m-%d"
+    if pd.api.types.is_datetime64_any_dtype(column.dtype):
+        dates = column.dt.tz_convert(None) if column.dt.tz is not None else column
+        bad = np.zeros(len(column), dtype=bool)
+    else:
+        text = column.astype(object).where(column.notna(), "").astype(str).str.strip()
+        absent = (text == "").to_numpy()
+        dates = pd.to_datetime(text.where(~absent), format=layout, errors="coerce")
+        bad = dates.isna().to_numpy() & ~absent
+    if bad.any():
+        first = column[bad].iloc[0]
+        raise DataError(f"{where}: column '{name}' should hold dates in the layout {layout} "
+                        f"but has other text in {rows_text(bad)} (first: {str(first)!r})")
+    days = (pd.Timestamp(reference) - dates).dt.days
+    return pd.Series(days.to_numpy(dtype=float), index=column.index)

@@ -11,13 +11,14 @@ import json
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
+from datetime import date
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from glassbox.columns import OTHER_LEVEL, set_aside
+from glassbox.columns import OTHER_LEVEL, ages_in_days, set_aside
 from glassbox.errors import DataError, SchemaError
 from glassbox.files import read_toml
 
@@ -63,6 +64,9 @@ class FeatureSpec:
     # the training rows with a value are pooled into OTHER_LEVEL when fitting; 0 keeps all
     pool_below: float | None = None
     pooled: tuple[str, ...] = ()  # the levels fitting pooled; scored as OTHER_LEVEL
+    # a column of dates read as its age in days on this date (ISO), in this layout
+    days_before: str | None = None
+    date_layout: str | None = None
 
     @property
     def used(self) -> bool:
@@ -156,6 +160,9 @@ class Schema:
                 entry["pool_below"] = spec.pool_below
             if spec.pooled:
                 entry["pooled"] = list(spec.pooled)
+            for key in ("days_before", "date_layout"):
+                if getattr(spec, key) is not None:
+                    entry[key] = getattr(spec, key)
             for key in ("description", "reason"):
                 if getattr(spec, key):
                     entry[key] = getattr(spec, key)
@@ -246,7 +253,8 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
     if not isinstance(entry, Mapping):
         raise SchemaError(f"{where}[feature.{name}] must be a table")
     allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason",
-               "missing", "missing_codes", "pool_below", "pooled"}
+               "missing", "missing_codes", "pool_below", "pooled", "days_before",
+               "date_layout"}
     unknown = set(entry) - allowed
     if unknown:
         raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
@@ -287,7 +295,34 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
         missing_codes=_missing_codes(entry.get("missing_codes", []), kind,
                                      f"{where}[feature.{name}]"),
         **_pooling(entry, kind, f"{where}[feature.{name}]"),
+        **_dates(entry, kind, f"{where}[feature.{name}]"),
     )
+
+
+def _dates(entry: Mapping[str, Any], kind: str, where: str) -> dict[str, Any]:
+    """`days_before` (an ISO date) and `date_layout` (strftime codes, ISO by default) of a
+    number or integer read from dates."""
+    days_before, layout = entry.get("days_before"), entry.get("date_layout")
+    if days_before is None:
+        if layout is not None:
+            raise SchemaError(f"{where} date_layout needs days_before = \"YYYY-MM-DD\"")
+        return {}
+    if kind not in ("number", "integer"):
+        raise SchemaError(f"{where} days_before makes a number: give kind = \"integer\"")
+    check_reference_date(days_before, f"{where} days_before")
+    if layout is not None and not (isinstance(layout, str) and "%" in layout):
+        raise SchemaError(f"{where} date_layout must be strftime codes such as "
+                          f"\"%d/%m/%Y\", not {layout!r}")
+    return {"days_before": days_before, "date_layout": layout}
+
+
+def check_reference_date(text: Any, where: str) -> None:
+    """A reference date must be written YYYY-MM-DD."""
+    try:
+        date.fromisoformat(text)
+    except (TypeError, ValueError):
+        raise SchemaError(f"{where} must be a date written YYYY-MM-DD, not {text!r}"
+                          ) from None
 
 
 def _pooling(entry: Mapping[str, Any], kind: str, where: str) -> dict[str, Any]:
@@ -457,6 +492,9 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     "fill" puts the fill value in, "refuse" is an error, "learn" keeps them missing (NaN
     in a numeric column, None in a category) for the model's own missing-value entry.
     """
+    if spec.days_before is not None:  # dates, read as their age in days
+        column = ages_in_days(column, spec.days_before, spec.date_layout, spec.name, where)
+        spec = replace(spec, days_before=None, date_layout=None)
     values = column
     missing = missing_mask(values, spec)
     if missing.any():
@@ -620,9 +658,14 @@ def infer_schema(
     id_column: str | None = None,
     task: str | None = None,
     source: str | None = None,
+    dates_as_age: str | None = None,
 ) -> Schema:
-    """A starter schema for a frame: kinds guessed, protected columns guessed by name."""
+    """A starter schema for a frame: kinds guessed, protected columns guessed by name.
+    Date columns are ignored, or with `dates_as_age` (YYYY-MM-DD) read as their age in
+    days on that date."""
     where = _source(frame, source)
+    if dates_as_age is not None:
+        check_reference_date(dates_as_age, "the reference date for ages in days")
     if target not in frame.columns:
         raise DataError(f"{where}: no target column '{target}' (it has: "
                         f"{', '.join(map(str, frame.columns[:12]))})")
@@ -656,7 +699,7 @@ def infer_schema(
             continue
         kind = infer_kind(frame[name])
         features.append(FeatureSpec(str(name), kind, protected=_looks_protected(str(name))))
-    features, id_column, notes = set_aside(frame, features, id_column)  # ids, dates
+    features, id_column, notes = set_aside(frame, features, id_column, dates_as_age)
     if not features:
         raise DataError(f"{where}: no columns besides the target and id")
     return Schema(TargetSpec(target, task, positive), tuple(features), id_column,

@@ -334,3 +334,64 @@ def test_compare_drops_missing_targets_when_asked(tmp_path):
 
     document = json.loads((tmp_path / "c.json").read_text())
     assert document["provenance"]["rows"] == 4454 - 381
+
+
+# ---------------------------------------------------------------- dates as an age in days
+
+
+def test_dates_read_as_their_age_in_days(tmp_path):
+    # ggplot2 economics `date` (ISO, 1967-07-01 on); the ages are checked against Python's
+    # own calendar arithmetic (datetime.date), not pandas
+    from datetime import date
+
+    from glassbox.schema import prepare
+
+    frame = as_read("ggplot2", "economics", tmp_path)
+    schema = stated(infer_schema(frame, "unemploy", dates_as_age="2016-01-01"))
+    spec = schema.feature("date")
+    assert (spec.kind, spec.days_before, spec.date_layout, spec.used) == (
+        "integer", "2016-01-01", "%Y-%m-%d", True)
+    assert "# days from each date to 2016-01-01 (an age in days)" in schema.to_toml()
+    expected = [(date(2016, 1, 1) - date.fromisoformat(d)).days for d in frame["date"]]
+    assert expected[0] == 17716
+    assert prepare(frame, schema).features["date"].tolist() == expected
+    # written day/month/year, with a blank: the same ages, the blank missing
+    dmy = frame.assign(date=pd.to_datetime(frame["date"]).dt.strftime("%d/%m/%Y"))
+    dmy.loc[3, "date"] = ""
+    dmy_schema = stated(infer_schema(dmy, "unemploy", dates_as_age="2016-01-01"))
+    assert dmy_schema.feature("date").date_layout == "%d/%m/%Y"
+    ages = prepare(dmy, dmy_schema).features["date"]
+    assert np.isnan(ages[3]) and ages.drop(3).tolist() == expected[:3] + expected[4:]
+    # the model file carries the rule: a saved model scores dates as it was fitted
+    model = artifact.loads(artifact.dumps(fit_model(frame, schema, "sparse")))
+    np.testing.assert_allclose(model.score(frame), model.score(frame.copy()))
+    assert model.schema.feature("date").days_before == "2016-01-01"
+    bad = frame.assign(date=frame["date"].where(frame.index != 5, "soon"))
+    with pytest.raises(DataError, match=r"column 'date' should hold dates in the layout "
+                                        r"%Y-%m-%d but has other text in data row 6 "
+                                        r"\(first: 'soon'\)"):
+        model.score(bad)
+
+
+@pytest.mark.parametrize(("entry", "message"), [
+    ({"kind": "integer", "days_before": "2016/01/01"}, "written YYYY-MM-DD"),
+    ({"kind": "category", "days_before": "2016-01-01"}, "give kind = \"integer\""),
+    ({"kind": "integer", "date_layout": "%d/%m/%Y"}, "date_layout needs days_before"),
+    ({"kind": "integer", "days_before": "2016-01-01", "date_layout": "dmy"}, "strftime"),
+])
+def test_bad_date_rules_are_schema_errors(entry, message):
+    with pytest.raises(SchemaError, match=message):
+        Schema.from_dict({"target": {"column": "y"}, "feature": {"x": entry}})
+
+
+def test_cli_schema_dates_as_age(tmp_path):
+    from typer.testing import CliRunner
+
+    frame = as_read("ggplot2", "economics", tmp_path)
+    data = tmp_path / "economics.csv"
+    frame.to_csv(data, index=False)
+    args = ["schema", str(data), "--target", "unemploy"]
+    result = CliRunner().invoke(app, [*args, "--dates-as-age", "2016-01-01"])
+    assert result.exit_code == 0 and 'days_before = "2016-01-01"' in result.output
+    one_line_error(CliRunner().invoke(app, [*args, "--dates-as-age", "1/1/2016"]),
+                   "YYYY-MM-DD")
