@@ -80,8 +80,10 @@ def date_format(column: pd.Series) -> str | None:
     distinct = pd.Series(pd.unique(present.astype(str).str.strip()))
     if not distinct.str.contains(r"\d").all():
         return None
+    head = distinct[:100]  # a layout that fails on the first values is not tried on all
     for layout in DATE_FORMATS:
-        if pd.to_datetime(distinct, format=layout, errors="coerce").notna().all():
+        if (pd.to_datetime(head, format=layout, errors="coerce").notna().all() and
+                pd.to_datetime(distinct, format=layout, errors="coerce").notna().all()):
             return layout
     return None
 
