@@ -53,17 +53,28 @@ def _present(column: pd.Series) -> pd.Series:
     return present
 
 
-def _whole_numbers(present: pd.Series) -> np.ndarray | None:
-    """The values as whole numbers, or None when any is not one."""
+def _text(present: pd.Series) -> bool:
+    return present.dtype == object or pd.api.types.is_string_dtype(present.dtype)
+
+
+def _distinct_numbers(present: pd.Series) -> pd.Series:
+    """Each distinct present value as a number, NaN where it is not one (worked out once
+    per distinct value: text columns of real files repeat their values many times)."""
     if pd.api.types.is_bool_dtype(present.dtype):
+        return pd.Series([np.nan])
+    if not _text(present):
+        return pd.Series(pd.unique(present.to_numpy()), dtype=float)
+    distinct = pd.Series(pd.unique(present.to_numpy(dtype=object)), dtype=object)
+    return pd.to_numeric(distinct, errors="coerce")
+
+
+def _whole_numbers(present: pd.Series, distinct: pd.Series) -> np.ndarray | None:
+    """The values as whole numbers, or None when any is not one."""
+    values = distinct.to_numpy(dtype=float)
+    if (len(values) == 0 or not np.isfinite(values).all() or
+            (values != np.round(values)).any()):
         return None
-    numbers = pd.to_numeric(present, errors="coerce")
-    if numbers.isna().any():
-        return None
-    values = numbers.to_numpy(dtype=float)
-    if not np.isfinite(values).all() or (values != np.round(values)).any():
-        return None
-    return values
+    return pd.to_numeric(present).to_numpy(dtype=float)
 
 
 def date_format(column: pd.Series) -> str | None:
@@ -72,10 +83,9 @@ def date_format(column: pd.Series) -> str | None:
     if pd.api.types.is_datetime64_any_dtype(column.dtype):
         return "datetime"
     present = _present(column)
-    if present.empty or not (present.dtype == object or
-                             pd.api.types.is_string_dtype(present.dtype)):
+    if present.empty or not _text(present):
         return None
-    if pd.to_numeric(present, errors="coerce").notna().all():
+    if _distinct_numbers(present).notna().all():
         return None  # numbers (a year, 20240131) stay numbers
     distinct = pd.Series(pd.unique(present.astype(str).str.strip()))
     if not distinct.str.contains(r"\d").all():
@@ -98,9 +108,10 @@ def column_role(name: str, column: pd.Series) -> ColumnRole | None:
                                   "feature (derive an age or a month if you need one)")
     rows = len(column)
     unique = len(present) == rows and present.is_unique
-    numbers = _whole_numbers(present)
+    distinct = _distinct_numbers(present)
+    numbers = _whole_numbers(present, distinct)
     lowered = str(name).strip().lower()
-    text = pd.to_numeric(present, errors="coerce").isna().all()
+    text = bool(distinct.isna().all())
     if unique and lowered in ROW_NUMBER_NAMES and (numbers is not None or text):
         what = "row numbers" if numbers is not None else "row names"
         return ColumnRole("row number", f"{what} (the column '{name}', unique on every row)")
@@ -117,7 +128,7 @@ def column_role(name: str, column: pd.Series) -> ColumnRole | None:
                                                "ignore = true")
         if text:
             return ColumnRole("id", "text unique on every row (an id?)")
-    if numbers is None and pd.to_numeric(present, errors="coerce").isna().any():
+    if numbers is None and distinct.isna().any():
         levels = present.astype(str).str.strip().nunique()
         if levels > MANY_LEVELS:
             return ColumnRole("many levels", many_levels_note(levels))

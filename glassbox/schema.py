@@ -639,6 +639,7 @@ def infer_kind(column: pd.Series) -> str:
         return "number"
     if pd.api.types.is_bool_dtype(present.dtype):
         return "flag"
+    present = pd.Series(pd.unique(present.to_numpy(dtype=object)), dtype=object)  # distinct
     words = set(present.map(label_text).str.lower())
     if len(words) == 2 and words <= (TRUE_WORDS | FALSE_WORDS) and words & TRUE_WORDS:
         return "flag"
