@@ -754,6 +754,7 @@ def levels_rows(sets: dict[str, tuple]) -> list[str]:
             fitted = (len(model.term("tailnum").levels) if "tailnum" in model.features
                       else 0)
             lines.append(f"| {family} | {label} | {fitted:,} | {seconds:.1f} |")
+            print(lines[-1], file=sys.stderr, flush=True)  # long fits: show each as it ends
     return lines
 
 
