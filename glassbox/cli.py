@@ -38,7 +38,7 @@ from glassbox.compare import to_markdown as compare_markdown
 from glassbox.errors import GlassboxError, OptionError
 from glassbox.families import FAMILIES
 from glassbox.files import write_atomic
-from glassbox.fitting import fit_model, training_fit
+from glassbox.fitting import fit_model, rows_with_target, training_fit
 from glassbox.groups import MIN_GROUP
 from glassbox.provenance import file_sha256
 from glassbox.render import (
@@ -60,6 +60,7 @@ app = typer.Typer(
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
 )
 EXIT_USER_ERROR = 2
+DROP_HELP = "Drop rows with no target value (counted on screen) instead of refusing the file."
 
 
 # the choices come from the library, so a new family or benchmark appears here by itself
@@ -141,13 +142,17 @@ def schema_command(
     positive: Annotated[str | None, typer.Option(help="Positive label of the target.")] = None,
     id_column: Annotated[str | None, typer.Option("--id", help="Row id column.")] = None,
     out: Annotated[Path | None, typer.Option(help="Write the TOML here, not stdout.")] = None,
+    dates_as_age: Annotated[str | None, typer.Option(
+        metavar="YYYY-MM-DD",
+        help="Read date columns as their age in days on this date, not ignore them.")] = None,
 ) -> None:
     """Infer a starter schema (TOML) from a data file, for you to check and edit.
 
     Standard error gets one line per thing to check: missing values per column, the
     `better` written and why, guessed-protected columns and columns to look at."""
     frame = read_table(data)
-    schema = infer_schema(frame, target, positive=positive, id_column=id_column)
+    schema = infer_schema(frame, target, positive=positive, id_column=id_column,
+                          dates_as_age=dates_as_age)
     _emit(schema.to_toml(), out, "schema")
     for line in guesses.summary(schema.notes):
         stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
@@ -167,6 +172,7 @@ def fit_command(
     option: Annotated[list[str] | None, typer.Option(
         "--option", metavar="NAME=VALUE",
         help="Any family setting, e.g. --option splines=12 (repeatable).")] = None,
+    drop_missing_target: Annotated[bool, typer.Option(help=DROP_HELP)] = False,
 ) -> None:
     """Fit a glass-box model and write it as a JSON model file."""
     options = parse_options(option or [])
@@ -176,6 +182,8 @@ def fit_command(
         options["ensemble"] = ensemble
     frame = read_table(data)
     spec = load_schema(schema)
+    if drop_missing_target:
+        frame = rows_with_target(frame, spec, str(data))
     with progress_note(f"fitting the {family.value} family on {len(frame):,} rows"):
         model = fit_model(frame, spec, family.value, source=str(data), **options)
     artifact.save(model, out)
@@ -338,6 +346,7 @@ def compare_command(
     out: Annotated[Path | None, typer.Option(
         help="Write json or markdown here (with the table: by the .json or .md suffix).")
     ] = None,
+    drop_missing_target: Annotated[bool, typer.Option(help=DROP_HELP)] = False,
 ) -> None:
     """Cross-validated accuracy cost of each glass-box family against a black box."""
     settings = CompareSettings(
@@ -350,6 +359,8 @@ def compare_command(
         raise OptionError(f"--out {out}: name a .json or .md file, or give --format")
     frame = read_table(data)
     spec = load_schema(schema)
+    if drop_missing_target:
+        frame = rows_with_target(frame, spec, str(data))
     with fold_progress() as progress:
         result = compare(frame, spec, settings, source=str(data), progress=progress)
     if format is CompareFormat.table:

@@ -7,6 +7,7 @@ keep training profiles, and record provenance.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import replace
 from typing import Any
 
@@ -16,11 +17,20 @@ import pandas as pd
 from glassbox import __version__
 from glassbox.additive import AdditiveModel, LevelsTerm, Term, centre_terms, profile_features
 from glassbox.cells import summarise_term
+from glassbox.columns import MANY_LEVELS, OTHER_LEVEL
 from glassbox.errors import DataError, OptionError
 from glassbox.families import get_family
 from glassbox.metrics import classification_metrics, regression_metrics
 from glassbox.provenance import frame_fingerprint, library_versions
-from glassbox.schema import MISSING_LEVEL, Schema, prepare
+from glassbox.schema import (
+    MISSING_LEVEL,
+    FeatureSpec,
+    Schema,
+    missing_mask,
+    pool_levels,
+    prepare,
+    rows_text,
+)
 
 
 def fit_model(
@@ -29,13 +39,17 @@ def fit_model(
     family: str = "sparse",
     *,
     source: str | None = None,
+    drop_missing_target: bool = False,
     **options: Any,
 ) -> AdditiveModel:
     """Fit `family` on a raw frame described by `schema`; options go to the family.
 
     Missing values the schema lets the model learn reach the family as NaN in numeric
     columns; a missing category is fitted as one more level and then kept as the term's
-    missing-value entry, apart from its levels.
+    missing-value entry, apart from its levels. A category's rare levels are pooled by its
+    `pool_below` rule (the model's schema lists them, so scoring pools them too); one with
+    more than MANY_LEVELS levels and no rule is refused. Rows with no target are an error,
+    or dropped with a warning that counts them when `drop_missing_target` is set.
     """
     schema.require_better()
     module = get_family(family)
@@ -43,10 +57,15 @@ def fit_model(
     if unknown:
         raise OptionError(f"family '{family}' has no option(s) {', '.join(sorted(unknown))} "
                           f"(it takes: {', '.join(module.DEFAULTS)})")
-    prepared = prepare(frame, schema, source=source)
-    features, target = prepared.features, prepared.target
     where = source or frame.attrs.get("source") or "the data"
+    if drop_missing_target:
+        frame = rows_with_target(frame, schema, where)
+    schema = replace(schema, features=tuple(  # a pooling rule is worked out afresh below
+        replace(f, pooled=()) if f.pool_below is not None else f for f in schema.features))
+    prepared = prepare(frame, schema, source=where)
+    features, target = prepared.features, prepared.target
     _check_gaps(features, where)
+    features, schema = pool_rare_levels(features, schema, where)
     task = schema.target.task
     if task == "classification":
         positives = int(target.sum())
@@ -80,6 +99,9 @@ def fit_model(
         "glassbox_version": __version__,
         "versions": library_versions(),
     }
+    pooled = {f.name: len(f.pooled) for f in schema.used_features if f.pooled}
+    if pooled:
+        metadata["pooled_levels"] = pooled
     link = "logit" if task == "classification" else "identity"
     return AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles, metadata,
                          cells)
@@ -96,6 +118,58 @@ def _check_gaps(features: pd.DataFrame, where: str) -> None:
         if column.dtype == object and (column == MISSING_LEVEL).any():
             raise DataError(f"{where}: column '{name}' has the level {MISSING_LEVEL!r}, which "
                             "glassbox keeps for missing values; rename that level")
+
+
+def rows_with_target(frame: pd.DataFrame, schema: Schema, where: str) -> pd.DataFrame:
+    """The rows that have a target value. Dropped rows are counted in a warning; the
+    features of every row are checked first, so data errors name their true rows."""
+    name = schema.target.column
+    if name not in frame.columns:
+        return frame  # prepare names the missing column
+    absent = missing_mask(frame[name], FeatureSpec(name, "category"))
+    if not absent.any():
+        return frame
+    prepare(frame, schema, require_target=False, source=where)
+    warnings.warn(f"{where}: dropped {int(absent.sum()):,} row(s) with no value in the target "
+                  f"'{name}' ({rows_text(absent)}); {int((~absent).sum()):,} rows remain",
+                  UserWarning, stacklevel=2)
+    kept = frame.loc[~absent].reset_index(drop=True)
+    kept.attrs = dict(frame.attrs)
+    return kept
+
+
+def pool_rare_levels(features: pd.DataFrame, schema: Schema,
+                     where: str) -> tuple[pd.DataFrame, Schema]:
+    """Each category's rare levels pooled into OTHER_LEVEL by its `pool_below` rule, the
+    pooled levels written into the schema; a category with more than MANY_LEVELS levels
+    and no rule is refused, naming what to write."""
+    features, specs = features.copy(), []
+    for spec in schema.features:
+        if spec.kind != "category" or spec.name not in features.columns:
+            specs.append(spec)
+            continue
+        counts = features[spec.name].value_counts()
+        if spec.pool_below is None:
+            if len(counts) > MANY_LEVELS:
+                raise DataError(
+                    f"{where}: column '{spec.name}' has {len(counts):,} levels, more than "
+                    f"{MANY_LEVELS}; write pool_below = 0.01 under [feature.{spec.name}] to "
+                    f"pool levels under 1% of its rows into {OTHER_LEVEL!r} (pool_below = 0 "
+                    "keeps every level), or ignore = true")
+            specs.append(spec)
+            continue
+        if OTHER_LEVEL in counts.index:
+            raise DataError(f"{where}: column '{spec.name}' has the level {OTHER_LEVEL!r}, "
+                            "which glassbox keeps for pooled levels; rename that level")
+        limit = spec.pool_below * counts.sum() if spec.pool_below < 1 else spec.pool_below
+        rare = tuple(sorted(str(level) for level, count in counts.items() if count < limit))
+        if rare and len(rare) == len(counts):
+            raise DataError(f"{where}: pool_below = {spec.pool_below} pools every level of "
+                            f"'{spec.name}' (the largest has {int(counts.max()):,} rows); "
+                            "lower it")
+        features[spec.name] = pool_levels(features[spec.name], rare)
+        specs.append(replace(spec, pooled=rare))
+    return features, replace(schema, features=tuple(specs))
 
 
 def _missing_as_level(features: pd.DataFrame, schema: Schema) -> pd.DataFrame:

@@ -11,12 +11,14 @@ import json
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
+from datetime import date
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from glassbox.columns import OTHER_LEVEL, ages_in_days, set_aside
 from glassbox.errors import DataError, SchemaError
 from glassbox.files import read_toml
 from glassbox.guesses import (
@@ -60,6 +62,13 @@ class FeatureSpec:
     reason: str = ""
     missing: str = "learn"
     missing_codes: tuple[Any, ...] = ()
+    # a category's rare levels: those under this share (below 1) or count (1 or more) of
+    # the training rows with a value are pooled into OTHER_LEVEL when fitting; 0 keeps all
+    pool_below: float | None = None
+    pooled: tuple[str, ...] = ()  # the levels fitting pooled; scored as OTHER_LEVEL
+    # a column of dates read as its age in days on this date (ISO), in this layout
+    days_before: str | None = None
+    date_layout: str | None = None
 
     @property
     def used(self) -> bool:
@@ -104,7 +113,8 @@ class Schema:
     features: tuple[FeatureSpec, ...]
     id_column: str | None = None
     source: str = field(default="", compare=False)
-    # what inference saw (missing counts, guesses), written as comments by `to_toml`
+    # what inference saw (columns set aside, missing counts, guesses), written as comments
+    # by `to_toml`
     notes: tuple[Note, ...] = field(default=(), compare=False, repr=False)
 
     @property
@@ -160,6 +170,13 @@ class Schema:
                 entry["missing"] = spec.missing
             if spec.missing_codes:
                 entry["missing_codes"] = list(spec.missing_codes)
+            if spec.pool_below is not None:
+                entry["pool_below"] = spec.pool_below
+            if spec.pooled:
+                entry["pooled"] = list(spec.pooled)
+            for key in ("days_before", "date_layout"):
+                if getattr(spec, key) is not None:
+                    entry[key] = getattr(spec, key)
             for key in ("description", "reason"):
                 if getattr(spec, key):
                     entry[key] = getattr(spec, key)
@@ -232,7 +249,7 @@ class Schema:
         ]
         data = self.to_dict()
         if "id" in data:
-            lines += [f"id = {_toml_value(data['id'])}", ""]
+            lines += [*_note_lines(self.notes, data["id"]), f"id = {_toml_value(data['id'])}", ""]
         lines.append("[target]")
         lines += [f"{key} = {_toml_value(value)}" for key, value in data["target"].items()]
         lines += _note_lines(self.notes, self.target.column, "better")
@@ -240,23 +257,26 @@ class Schema:
             notes = [note for note in self.notes if note.column == name]
             if any(note.topic == "missing" for note in notes):
                 entry.setdefault("missing", self.feature(name).missing)  # shown, not implied
-            lines += ["", f"[feature.{_toml_key(name)}]"]
+            lines += ["", f"[feature.{_toml_key(name)}]", *_note_lines(notes, name, "column")]
             lines += [f"{key} = {_toml_value(value)}" for key, value in entry.items()]
-            lines += _note_lines(notes, name)
+            lines += [line for line in _note_lines(notes, name)
+                      if line not in _note_lines(notes, name, "column")]
         return "\n".join(lines) + "\n"
 
 
 
 def _note_lines(notes: Iterable[Note], column: str, topic: str | None = None) -> list[str]:
-    return [f"# {note.text}" for note in notes
-            if note.column == column and (topic is None or note.topic == topic)]
+    return [f"# {line}" for note in notes
+            if note.column == column and (topic is None or note.topic == topic)
+            for line in note.text.splitlines()]
 
 
 def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
     if not isinstance(entry, Mapping):
         raise SchemaError(f"{where}[feature.{name}] must be a table")
     allowed = {"kind", "monotone", "protected", "ignore", "fill", "description", "reason",
-               "missing", "missing_codes"}
+               "missing", "missing_codes", "pool_below", "pooled", "days_before",
+               "date_layout"}
     unknown = set(entry) - allowed
     if unknown:
         raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
@@ -296,7 +316,54 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
         reason=str(entry.get("reason", "")), missing=missing,
         missing_codes=_missing_codes(entry.get("missing_codes", []), kind,
                                      f"{where}[feature.{name}]"),
+        **_pooling(entry, kind, f"{where}[feature.{name}]"),
+        **_dates(entry, kind, f"{where}[feature.{name}]"),
     )
+
+
+def _dates(entry: Mapping[str, Any], kind: str, where: str) -> dict[str, Any]:
+    """`days_before` (an ISO date) and `date_layout` (strftime codes, ISO by default) of a
+    number or integer read from dates."""
+    days_before, layout = entry.get("days_before"), entry.get("date_layout")
+    if days_before is None:
+        if layout is not None:
+            raise SchemaError(f"{where} date_layout needs days_before = \"YYYY-MM-DD\"")
+        return {}
+    if kind not in ("number", "integer"):
+        raise SchemaError(f"{where} days_before makes a number: give kind = \"integer\"")
+    check_reference_date(days_before, f"{where} days_before")
+    if layout is not None and not (isinstance(layout, str) and "%" in layout):
+        raise SchemaError(f"{where} date_layout must be strftime codes such as "
+                          f"\"%d/%m/%Y\", not {layout!r}")
+    return {"days_before": days_before, "date_layout": layout}
+
+
+def check_reference_date(text: Any, where: str) -> None:
+    """A reference date must be written YYYY-MM-DD."""
+    try:
+        date.fromisoformat(text)
+    except (TypeError, ValueError):
+        raise SchemaError(f"{where} must be a date written YYYY-MM-DD, not {text!r}"
+                          ) from None
+
+
+def _pooling(entry: Mapping[str, Any], kind: str, where: str) -> dict[str, Any]:
+    """A category's `pool_below` rule (a share below 1, a whole count from 1, or 0 to keep
+    every level) and the `pooled` levels a fit wrote."""
+    pool_below, pooled = entry.get("pool_below"), entry.get("pooled", [])
+    if (pool_below is not None or pooled) and kind != "category":
+        raise SchemaError(f"{where} pool_below and pooled apply to categories only")
+    if pool_below is not None and not (
+            is_number(pool_below) and (0 <= pool_below < 1 or pool_below == int(pool_below))
+            and pool_below >= 0):
+        raise SchemaError(f"{where} pool_below must be a share from 0 up to 1 (0.01 pools "
+                          f"levels under 1% of rows) or a whole count of rows, not "
+                          f"{pool_below!r}")
+    if not isinstance(pooled, list) or not all(isinstance(v, str) for v in pooled):
+        raise SchemaError(f"{where} pooled must be a list of levels (text)")
+    if pool_below is not None and pool_below >= 1:
+        pool_below = int(pool_below)
+    return {"pool_below": pool_below, "pooled": tuple(pooled)}
 
 
 def _missing_codes(codes: Any, kind: str, where: str) -> tuple[Any, ...]:
@@ -447,6 +514,9 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     "fill" puts the fill value in, "refuse" is an error, "learn" keeps them missing (NaN
     in a numeric column, None in a category) for the model's own missing-value entry.
     """
+    if spec.days_before is not None:  # dates, read as their age in days
+        column = ages_in_days(column, spec.days_before, spec.date_layout, spec.name, where)
+        spec = replace(spec, days_before=None, date_layout=None)
     values = column
     missing = missing_mask(values, spec)
     if missing.any():
@@ -465,8 +535,8 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
                                   where)
             return typed.where(~missing, np.nan if spec.numeric else None)
     if spec.kind == "category":
-        return pd.Series(_labels(values).to_numpy(dtype=object), index=column.index,
-                         dtype=object)
+        labels = pool_levels(_labels(values), spec.pooled)
+        return pd.Series(labels.to_numpy(dtype=object), index=column.index, dtype=object)
     if spec.kind == "flag":
         return _encode_flag(values, spec, where)
     numbers = pd.to_numeric(values, errors="coerce")
@@ -487,6 +557,13 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
                             f"fractions in {rows_text(fractional)} "
                             f"(first: {numbers[fractional].iloc[0]!r})")
     return numbers
+
+
+def pool_levels(labels: pd.Series, pooled: Iterable[str]) -> pd.Series:
+    """Category labels with the pooled levels replaced by OTHER_LEVEL (fitting and scoring
+    alike)."""
+    pooled = list(pooled)
+    return labels.where(~labels.isin(pooled), OTHER_LEVEL) if pooled else labels
 
 
 def _missing_mask(values: pd.Series) -> np.ndarray:
@@ -534,8 +611,9 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     name = schema.target.column
     missing = _missing_mask(column)
     if missing.any():
-        raise DataError(f"{where}: target column '{name}' has missing values in "
-                        f"{rows_text(missing)}")
+        raise DataError(f"{where}: target column '{name}' has {int(missing.sum())} missing "
+                        f"value(s) in {rows_text(missing)}; fill them, or drop those rows "
+                        "(--drop-missing-target on fit and compare)")
     if schema.target.task == "regression":
         spec = FeatureSpec(name, "number")
         return encode_column(column, spec, where).to_numpy(dtype=float)
@@ -580,6 +658,7 @@ def infer_kind(column: pd.Series) -> str:
         return "number"
     if pd.api.types.is_bool_dtype(present.dtype):
         return "flag"
+    present = pd.Series(pd.unique(present.to_numpy(dtype=object)), dtype=object)  # distinct
     words = set(present.map(label_text).str.lower())
     if len(words) == 2 and words <= (TRUE_WORDS | FALSE_WORDS) and words & TRUE_WORDS:
         return "flag"
@@ -599,11 +678,16 @@ def infer_schema(
     id_column: str | None = None,
     task: str | None = None,
     source: str | None = None,
+    dates_as_age: str | None = None,
 ) -> Schema:
     """A starter schema for a frame: kinds guessed, protected columns guessed by name,
     `better` from the words of the target and its positive label (None, written "?",
-    when they do not say), and notes on missing counts and columns to check."""
+    when they do not say), and notes on missing counts and columns to check. Row numbers
+    and ids are set aside; date columns are ignored, or with `dates_as_age` (YYYY-MM-DD)
+    read as their age in days on that date."""
     where = _source(frame, source)
+    if dates_as_age is not None:
+        check_reference_date(dates_as_age, "the reference date for ages in days")
     if target not in frame.columns:
         raise DataError(f"{where}: no target column '{target}' (it has: "
                         f"{', '.join(map(str, frame.columns[:12]))})")
@@ -611,7 +695,7 @@ def infer_schema(
     labels = column[~_missing_mask(column)].map(label_text)
     distinct = sorted(set(labels))
     if task is None:
-        numeric = pd.to_numeric(column, errors="coerce").notna().all()
+        numeric = pd.to_numeric(column[~_missing_mask(column)], errors="coerce").notna().all()
         task = "regression" if (numeric and len(distinct) > 2) else "classification"
     if task == "classification":
         if len(distinct) != 2:
@@ -637,11 +721,14 @@ def infer_schema(
             continue
         kind = infer_kind(frame[name])
         features.append(FeatureSpec(str(name), kind, protected=_looks_protected(str(name))))
+    features, id_column, set_aside_notes = set_aside(frame, features, id_column, dates_as_age)
     if not features:
         raise DataError(f"{where}: no columns besides the target and id")
     better = guess_better(target, None if positive is None else label_text(positive), task)
     gaps = {spec.name: int(missing_mask(frame[spec.name], spec).sum()) for spec in features}
-    notes = (Note(target, "better", better.why), *column_notes(features, gaps, len(frame)))
+    notes = (Note(target, "better", better.why), *(Note(column, "column", text)
+                                                   for column, text in set_aside_notes),
+             *column_notes(features, gaps, len(frame)))
     return Schema(TargetSpec(target, task, positive, better.better), tuple(features), id_column,
                   source=str(where), notes=notes)
 

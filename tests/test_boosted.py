@@ -190,7 +190,8 @@ def test_many_levels_use_every_bitset_word():
     frame = pd.DataFrame({"group": rng.choice(levels, 4000), "x": rng.normal(size=4000)})
     frame["y"] = frame["group"].map(effect) + frame["x"] + rng.normal(scale=0.3, size=4000)
     schema = Schema(TargetSpec("y", "regression", better="higher"),
-                    (FeatureSpec("group", "category"), FeatureSpec("x", "number")))
+                    (FeatureSpec("group", "category", pool_below=0),  # keep all 70 levels
+                     FeatureSpec("x", "number")))
     model, estimators = fitted_pair(frame, schema, max_iter=150, learning_rate=0.2,
                                     min_samples_leaf=5)
     assert assert_matches_sklearn(model, estimators, frame, schema) < 1e-9
@@ -468,8 +469,8 @@ def test_too_many_levels_names_the_feature_and_count():
     # Invented data, truth constructed: 300 distinct levels, above scikit-learn's 255.
     frame = pd.DataFrame({"shop": [f"s{i}" for i in range(300)] * 2,
                           "y": np.tile([0.0, 1.0], 300)})
-    schema = Schema(TargetSpec("y", "classification", 1,
-                               better="higher"), (FeatureSpec("shop", "category"),))
+    schema = Schema(TargetSpec("y", "classification", 1, better="higher"),
+                    (FeatureSpec("shop", "category", pool_below=0),))  # past the 50 limit
     with pytest.raises(OptionError, match=r"'shop' has 300 levels.*255"):
         fit_model(frame, schema, "boosted")
 
