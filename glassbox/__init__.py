@@ -14,7 +14,8 @@ from glassbox.errors import (  # noqa: E402
     SchemaError,
     UnseenLevelWarning,
 )
-from glassbox.schema import Schema, infer_schema, load_schema, read_table  # noqa: E402
+from glassbox.inference import infer_schema  # noqa: E402
+from glassbox.schema import Schema, load_schema, read_table  # noqa: E402
 
 
 def __getattr__(name: str) -> object:

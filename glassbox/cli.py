@@ -40,6 +40,7 @@ from glassbox.families import FAMILIES
 from glassbox.files import write_atomic
 from glassbox.fitting import fit_model, rows_with_target, training_fit
 from glassbox.groups import MIN_GROUP
+from glassbox.inference import infer_schema
 from glassbox.provenance import file_sha256
 from glassbox.render import (
     comparison_view,
@@ -53,7 +54,7 @@ from glassbox.render import (
     warning_text,
 )
 from glassbox.rows import row_position
-from glassbox.schema import infer_schema, load_schema, read_table
+from glassbox.schema import load_schema, read_table
 
 app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",

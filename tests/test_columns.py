@@ -16,7 +16,8 @@ from glassbox.cli import app
 from glassbox.columns import MANY_LEVELS, OTHER_LEVEL, column_role, date_format
 from glassbox.errors import DataError, SchemaError, UnseenLevelWarning
 from glassbox.fitting import fit_model, rows_with_target
-from glassbox.schema import Schema, infer_schema, load_schema, read_table
+from glassbox.inference import infer_schema
+from glassbox.schema import Schema, load_schema, read_table
 
 from .conftest import one_line_error
 
@@ -96,7 +97,7 @@ def test_unique_numbers_in_no_order_stay_features_with_a_note(tmp_path):
     assert frame["district"].is_unique and not frame["district"].is_monotonic_increasing
     schema = infer_schema(frame, "math", task="regression")
     assert schema.feature("district").used
-    notes = dict(schema.notes)
+    notes = {note.column: note.text for note in schema.notes if note.topic == "column"}
     assert notes["district"].startswith("unique on every row: if this is an id")
     assert "expenditure" not in notes and schema.feature("expenditure").used
 
@@ -142,7 +143,7 @@ def flights(tmp_path_factory):
 
 def test_a_real_flight_file_reads_right(flights):
     schema = infer_schema(flights, "arr_delay", task="regression")
-    notes = dict(schema.notes)
+    notes = {note.column: note.text for note in schema.notes if note.topic == "column"}
     assert schema.id_column == "rownames"  # sampled, so no running count: known by name
     assert schema.feature("time_hour").ignore and notes["time_hour"].startswith(
         "ignored: dates (first '2013-05-17T18:00:00Z')")

@@ -11,7 +11,8 @@ import pytest
 from glassbox import guesses
 from glassbox.errors import DataError, SchemaError
 from glassbox.fitting import fit_model
-from glassbox.schema import Schema, infer_schema, load_schema, prepare, read_table
+from glassbox.inference import infer_schema
+from glassbox.schema import Schema, load_schema, prepare, read_table
 
 DATA = Path(__file__).resolve().parent / "data"
 
