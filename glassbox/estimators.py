@@ -25,14 +25,8 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from glassbox.additive import AdditiveModel
 from glassbox.errors import SchemaError
 from glassbox.fitting import fit_model
-from glassbox.schema import (
-    FeatureSpec,
-    Schema,
-    TargetSpec,
-    encode_target,
-    infer_kind,
-    load_schema,
-)
+from glassbox.inference import infer_kind
+from glassbox.schema import FeatureSpec, Schema, TargetSpec, encode_target, load_schema
 
 TARGET = "__target__"
 

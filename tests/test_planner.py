@@ -372,6 +372,24 @@ CASES = [  # (data set, goal, two features' rules): grids from 60 to 20,000 valu
 ]
 
 
+def planned_as_brute_force(model, row, mutability, truth, objective: str, position):
+    """The planner's first plan for a row, checked against brute force's `truth` (None: no
+    plan exists, and the planner must say so): the objective's optimum and, among optimal
+    plans, the least total cost. Returns the plan, or None when there is none."""
+    result = find_plans(model, row, mutability, n_plans=1)
+    if truth is None:
+        assert result.status == "none"
+        return None
+    assert result.status == "plans", (position, truth)
+    plan = result.plans[0]
+    got = {"total-cost": plan.total_cost, "largest-cost": plan.largest_cost,
+           "fewest-changes": float(plan.count)}[objective]
+    optimum, least_total = truth[objective]
+    assert got == pytest.approx(optimum, abs=1e-9), (position, got, optimum)
+    assert plan.total_cost == pytest.approx(least_total, abs=1e-9), position
+    return plan
+
+
 @pytest.mark.parametrize("objective", ["total-cost", "largest-cost", "fewest-changes"])
 @pytest.mark.parametrize("case", range(len(CASES)), ids=[
     f"{data}:{'+'.join(rules)}" for data, _, rules in CASES])
@@ -390,18 +408,10 @@ def test_cheapest_plan_is_the_full_grid_optimum_on_real_data(fitted, case, objec
         truth = brute_force_plan(model, row, mutability, rules)
         if truth is None and unreachable >= 3:
             continue
-        result = find_plans(model, row, mutability, n_plans=1)
-        if truth is None:
-            assert result.status == "none"
+        plan = planned_as_brute_force(model, row, mutability, truth, objective, position)
+        if plan is None:
             unreachable += 1
             continue
-        assert result.status == "plans", (position, truth)
-        plan = result.plans[0]
-        got = {"total-cost": plan.total_cost, "largest-cost": plan.largest_cost,
-               "fewest-changes": float(plan.count)}[objective]
-        optimum, least_total = truth[objective]
-        assert got == pytest.approx(optimum, abs=1e-9), (position, got, optimum)
-        assert plan.total_cost == pytest.approx(least_total, abs=1e-9), position
         checked += 1
     assert checked == 6
 
@@ -566,18 +576,10 @@ def test_a_stated_value_plan_is_the_full_grid_optimum_on_real_gaps(gaps, case, o
             if name != blank and pd.isna(row[name]):
                 listed[name] = (np.array([np.nan]), np.zeros(1))
         truth = brute_force_plan(model, row, mutability, rules, listed)
-        result = find_plans(model, row, mutability, n_plans=1)
-        if truth is None:
-            assert result.status == "none"
+        plan = planned_as_brute_force(model, row, mutability, truth, objective, position)
+        if plan is None:
             unreachable += 1
             continue
-        assert result.status == "plans", (position, truth)
-        plan = result.plans[0]
-        got = {"total-cost": plan.total_cost, "largest-cost": plan.largest_cost,
-               "fewest-changes": float(plan.count)}[objective]
-        optimum, least_total = truth[objective]
-        assert got == pytest.approx(optimum, abs=1e-9), (position, got, optimum)
-        assert plan.total_cost == pytest.approx(least_total, abs=1e-9), position
         stated += any(c.supplied for c in plan.changes)
         checked += 1
     assert checked >= (6 if blank != "Home" else 1) and stated >= 1, (checked, stated)
