@@ -132,11 +132,12 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
     shown = summary.assign(
         range=[f"{low:.3g} to {high:.3g}" for low, high in
                zip(summary["lowest"], summary["highest"], strict=True)],
-        missing=[missing_words(m, s) for m, s in
+        missing=[missing_words(m, s, short=True) for m, s in
                  zip(summary["missing"], summary["missing_share"], strict=True)])
     parts: list[RenderableType] = [
         frame_table(shown, title="Features by importance (mean |contribution| on the "
-                                 f"{scale} scale)",
+                                 f"{scale} scale; missing: the entry for a blank and its "
+                                 "share of training rows, or refused when training had none)",
                     columns=["feature", "importance", "range", "observed", "declared",
                              "missing"])
     ]

@@ -111,12 +111,15 @@ def value_rows(table: pd.DataFrame) -> pd.DataFrame:
     return table[table["row"] != MISSING_LEVEL]
 
 
-def missing_words(missing: float | None, share: float | None) -> str:
+def missing_words(missing: float | None, share: float | None, short: bool = False) -> str:
     """A missing-value entry in a few words (a summary's `missing` and `missing_share`):
-    its contribution and share of training rows, or that a missing value is refused."""
+    its contribution and share of training rows, or that a missing value is refused.
+    `short` (a terminal column): "+0.675 (8.0%)", "refused"."""
     if missing is None or not np.isfinite(missing):
-        return "refused (none in training)"
+        return "refused" if short else "refused (none in training)"
     recorded = share is not None and np.isfinite(share)
+    if short:
+        return f"{missing:+.3g} ({percent_text(share)})" if recorded else f"{missing:+.3g}"
     where = f"{percent_text(share)} of training rows" if recorded else "share not recorded"
     return f"{missing:+.3g} ({where})"
 

@@ -134,7 +134,11 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         return PlanResult("plans", plans=plans, **common)
     best = best_reachable(program)
     blank = {name for name in model.features if is_missing(encoded.iloc[0][name])}
-    summary, findings = _diagnosis(model, parts, candidates, program, blank)
+    # kept only so a blank may be stated: where the row has a value, the feature is fixed
+    stated_only = {name for name, rule in mutability.rules.items()
+                   if rule.change == "fixed" and name not in blank}
+    summary, findings = _diagnosis(model, parts, {n: c for n, c in candidates.items()
+                                                  if n not in stated_only}, program, blank)
     return PlanResult("none", best_score=best,
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),

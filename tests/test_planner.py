@@ -693,3 +693,23 @@ def test_no_plan_names_the_value_that_is_not_stated(gaps):
                for text in result.binding)
     records = plan_records(result)
     assert records["status"] == "none"
+
+
+def test_a_feature_kept_only_to_be_stated_reads_as_fixed_where_the_row_has_a_value(loans,
+                                                                                   loans_schema):
+    # Constructed (demo data, invented): annual_revenue is `change = "fixed"` with a
+    # supply_cost in demo_data/loans.mutability.toml. Row L003719 states its revenue and has
+    # no plan; its diagnosis must call revenue fixed, not blame bounds the row never had.
+    import glassbox
+    from recourse.mutability import load_mutability
+    from tests.conftest import DEMO
+
+    model = glassbox.fit_model(loans, loans_schema, "spline")
+    mutability = load_mutability(DEMO / "loans.mutability.toml", model)
+    row = loans[loans["application_id"] == "L003719"].iloc[0]
+    assert pd.notna(row["annual_revenue"])
+    result = find_plans(model, row, mutability, n_plans=1)
+    assert result.status == "none"
+    said = " ".join(result.binding)
+    assert "annual_revenue is fixed by the rules" in said
+    assert "change on annual_revenue bind" not in said
