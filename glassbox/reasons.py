@@ -259,11 +259,18 @@ def principal_of(model: AdditiveModel, table: pd.DataFrame,
     columns = ["feature", "reason", "rows", "share"]
     if not below.any():
         return pd.DataFrame(columns=columns)
-    first = table.loc[below, "feature_1"]
-    counts = first[first != ""].value_counts(sort=False)
-    order = sorted(counts.index, key=lambda name: (-counts[name], model.features.index(name)))
+    first = table.loc[below, ["feature_1", "reason_1"]]
+    first = first[first["feature_1"] != ""]
+    # a blank is its own reason ("FEATURE not provided"), counted apart from the values
+    keys = list(zip(first["feature_1"], first["reason_1"] == first["feature_1"].map(
+        lambda name: sentence(model, name, None)), strict=True))
+    counts = pd.Series(keys, dtype=object).value_counts(sort=False)
+    order = sorted(counts.index, key=lambda key: (-counts[key], model.features.index(key[0]),
+                                                  key[1]))
     rows = [{"feature": name,
-             "reason": model.schema.feature(name).reason or _label(name),
-             "rows": int(counts[name]), "share": float(counts[name] / below.sum())}
-            for name in order]
+             "reason": (sentence(model, name, None) if blank
+                        else model.schema.feature(name).reason or _label(name)),
+             "rows": int(counts[(name, blank)]),
+             "share": float(counts[(name, blank)] / below.sum())}
+            for name, blank in order]
     return pd.DataFrame(rows, columns=columns)

