@@ -54,10 +54,7 @@ def _with_missing(term: Any, column: np.ndarray, values: np.ndarray,
     """`values` with the term's missing-value entry where the column has no value."""
     if absent.any():
         if term.missing is None:
-            raise DataError(
-                f"feature '{term.feature}': {int(absent.sum())} row(s) have no value, and the "
-                f"model has no entry for a missing '{term.feature}' (its training data had "
-                "none); supply the value, or give the feature a fill value in the schema")
+            refuse_missing(term.feature, absent, "the data", "the model has no entry")
         values = np.where(absent, term.missing, values)
     return values
 
