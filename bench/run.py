@@ -665,7 +665,11 @@ def equal_share_card(card, model, bins: int = 10):
         tables.append(FeaturePoints(table.feature, "curve",
                                     tuple(int(p) for p in whole_points(scale * means)),
                                     tuple(float(m) for m in means),
-                                    edges=tuple(float(e) for e in edges)))
+                                    edges=tuple(float(e) for e in edges),
+                                    missing_points=table.missing_points,  # as the card's
+                                    missing_contribution=table.missing_contribution,
+                                    missing_rows=table.missing_rows,
+                                    missing_largest=table.missing_largest))
     return replace(card, features=tuple(tables))
 
 
@@ -820,6 +824,7 @@ def missing_rows(sets: dict[str, tuple]) -> list[str]:
         for family in ("sparse", "spline", "boosted"):
             entry = fit_model(loans, loan_schema, family).term("annual_revenue").missing
             lines.append(f"| {family} | {entry:+.3f} | {entry - centred:+.3f} |")
+    return lines
 
 
 def penalty_rows(sets: dict[str, tuple]) -> list[str]:
@@ -858,6 +863,7 @@ def penalty_rows(sets: dict[str, tuple]) -> list[str]:
     for name, prediction in predictions.items():
         lines.append(f"| {name} | {roc_auc_score(target, prediction):.4f} | "
                      f"{log_loss(target, prediction):.4f} | {largest[name]:.2f} |")
+    return lines
 
 
 def levels_rows(sets: dict[str, tuple]) -> list[str]:
