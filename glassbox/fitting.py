@@ -174,11 +174,9 @@ def pool_rare_levels(features: pd.DataFrame, schema: Schema,
 
 def _missing_as_level(features: pd.DataFrame, schema: Schema) -> pd.DataFrame:
     """Missing categories as the level MISSING_LEVEL, so every family fits them as a level."""
-    out = features.copy()
-    for name in features.columns:
-        if schema.feature(name).kind == "category":
-            out[name] = features[name].where(features[name].notna(), MISSING_LEVEL)
-    return out
+    gaps = {name: features[name].fillna(MISSING_LEVEL) for name in features.columns
+            if schema.feature(name).kind == "category" and features[name].isna().any()}
+    return features.assign(**gaps) if gaps else features
 
 
 def _level_to_missing(term: Term) -> Term:

@@ -184,7 +184,6 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
     plans = []
     for number, (changes, solution, score) in enumerate(zip(every, solutions, rescored,
                                                           strict=True)):
-        row = changed_rows.iloc[[number]].copy()
         score = float(score)
         if not _reaches(score, threshold, direction) or not math.isclose(
                 score, solution.score, rel_tol=0, abs_tol=1e-9):
@@ -194,7 +193,9 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
             model, mutability.rules[c.feature], threshold - (score - new.contribution),
             direction)) if c.supplied else c for c, new in _picked(changes, candidates,
                                                                    solution, names)]
-        changes, score = _least_stated(model, row, changes, score, threshold, mutability)
+        if any(c.supplied for c in changes):  # only then is the row needed again
+            changes, score = _least_stated(model, changed_rows.iloc[[number]].copy(), changes,
+                                           score, threshold, mutability)
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
                           float(sum(costs)), float(max(costs, default=0.0))))
