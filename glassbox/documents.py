@@ -87,8 +87,9 @@ def loads(kind: Kind, text: str, source: str = "<text>") -> dict[str, Any]:
         raise ModelFileError(f"{name} holds no {kind.key}")
     try:
         actual = checksum(content)
-    except ValueError:
-        actual = None
+    except ValueError:  # NaN or Infinity, which no file this tool writes holds
+        raise ModelFileError(f"{name} contains a value that is not a finite number (NaN or "
+                             f"Infinity); {kind.remedy}") from None
     if document.get("checksum") != actual:
         raise ModelFileError(f"{name} was changed after it was written (its checksum does "
                              f"not match its content); {kind.remedy}")
