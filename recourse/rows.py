@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 from typing import Any
 
@@ -43,7 +42,7 @@ def pick_row(model: AdditiveModel, *, row: Path | None = None, data: Path | None
 
 def read_row_file(path: Path) -> dict[str, Any]:
     """A row file's JSON object: one plain value (text, number, true/false or null) per
-    feature, each key once, every number finite."""
+    feature, each key once. NaN reads as missing, as pandas writes it."""
     read_json(path, "row file", PlanningError)  # missing, unreadable or not JSON
 
     def pairs(items: list[tuple[str, Any]]) -> dict[str, Any]:
@@ -64,8 +63,4 @@ def read_row_file(path: Path) -> dict[str, Any]:
                                 f"{'list' if isinstance(value, list) else 'JSON object'} as "
                                 "its value; give one value (text, a number, true/false, or "
                                 "null for missing)")
-        if isinstance(value, float) and not math.isfinite(value):
-            raise PlanningError(f"row file {path}: feature {value_text(key)} has a value "
-                                f"that is not a finite number ({value}); write null for a "
-                                "missing value")
     return values

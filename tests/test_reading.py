@@ -262,7 +262,7 @@ def _row_file(tmp_path, **changes) -> object:
     ({"Home": ["rent"]}, "feature 'Home' has a list as its value"),
     ({"Job": {"kind": "fixed"}}, "feature 'Job' has a JSON object as its value"),
     ({"Amount": [800]}, "feature 'Amount' has a list as its value"),
-    ({"Amount": float("nan")}, "feature 'Amount' has a value that is not a finite number"),
+    ({"Amount": float("inf")}, "column 'Amount' has infinite values in data row 1"),
     ({"Amount": "lots"}, "column 'Amount' should hold numbers but has text"),
 ])
 def test_a_bad_value_in_a_row_file_names_the_row_file_and_feature(credit_model, tmp_path,
