@@ -24,7 +24,7 @@ import pandas as pd
 from scipy.special import expit
 
 from glassbox.cells import TermCells
-from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning, value_text
 from glassbox.schema import Schema, prepare, rows_text
 
 LINKS = ("logit", "identity")
@@ -157,7 +157,7 @@ class LevelsTerm:
             strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
             warnings.warn(
                 f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
-                f"in training ({', '.join(repr(s) for s in strange)}); scored with the "
+                f"in training ({', '.join(map(value_text, strange))}); scored with the "
                 f"unseen-level value {self.unseen:.4g}",
                 UnseenLevelWarning, stacklevel=3,
             )
