@@ -299,3 +299,67 @@ def test_a_bad_value_picked_from_a_data_file_names_the_file_and_row(credit_model
     frame.to_csv(path, index=False)
     one_line_error(plan("plan", model, "--mutability", rules, "--data", path, "--index", 7),
                    f"{path} (its data row 7)", "column 'Amount' should hold numbers")
+
+
+# ---------------------------------------------------------------- seeded random damage
+
+TOKENS = (b",", b'"', b"\n", b"\r", b"\x00", b"\xe9", b"\xff\xfe", b" ", b"NA", b"1e400",
+          b"nan", b"inf", b";", b"\t", b"\xef\xbb\xbf")
+
+
+def _mutate(data: bytes, rng: np.random.Generator) -> bytes:
+    """One to four random edits: a byte replaced, a token put in, a span cut, the file cut
+    short, a line repeated, a header name replaced by another (or by a blank)."""
+    data = bytearray(data)
+    for _ in range(int(rng.integers(1, 5))):
+        at = int(rng.integers(len(data))) if data else 0
+        how = int(rng.integers(6))
+        if how == 0 and data:
+            data[at] = int(rng.integers(256))
+        elif how == 1:
+            data[at:at] = TOKENS[int(rng.integers(len(TOKENS)))]
+        elif how == 2:
+            del data[at:at + int(rng.integers(1, 50))]
+        elif how == 3:
+            data = data[:at]
+        else:
+            lines = bytes(data).split(b"\n")
+            if how == 4:
+                lines.insert(int(rng.integers(len(lines))), lines[int(rng.integers(len(lines)))])
+            else:
+                names = lines[0].split(b",")
+                names[int(rng.integers(len(names)))] = [*names, b""][
+                    int(rng.integers(len(names) + 1))]
+                lines[0] = b",".join(names)
+            data = bytearray(b"\n".join(lines))
+    return bytes(data)
+
+
+def test_random_damage_to_a_real_file_is_read_or_refused_in_one_line(tmp_path):
+    """300 seeded random damages of 150 credit_data rows (CSV, and every fifth a Parquet
+    file): reading and typing each either works or raises the project's own error, in one
+    line with no numpy repr (constructed damage; the file is real)."""
+    from glassbox.errors import GlassboxError
+    from glassbox.schema import prepare
+
+    frame = reference_data("modeldata", "credit_data").head(150)
+    frame.to_csv(tmp_path / "clean.csv", index=False)
+    frame.to_parquet(tmp_path / "clean.parquet", index=False)
+    originals = {suffix: (tmp_path / f"clean{suffix}").read_bytes()
+                 for suffix in (".csv", ".parquet")}
+    schema = credit_schema()
+    rng = np.random.default_rng(13)
+    outcomes = {"read": 0, "refused": 0}
+    for case in range(300):
+        suffix = ".parquet" if case % 5 == 0 else ".csv"
+        path = tmp_path / f"damaged{suffix}"
+        path.write_bytes(_mutate(originals[suffix], rng))
+        try:
+            prepare(read_table(path), schema)
+            outcomes["read"] += 1
+        except GlassboxError as exc:
+            message = str(exc)
+            assert "\n" not in message and "np." not in message, message
+            assert len(message) < 600, message
+            outcomes["refused"] += 1
+    assert outcomes["read"] > 0 and outcomes["refused"] > 0, outcomes
