@@ -27,11 +27,10 @@ import re
 import signal
 import threading
 import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -51,9 +50,9 @@ from recourse.errors import PlanningError
 from recourse.manifest import MANIFEST_KIND, PartsFolder, mutability_checksum
 from recourse.mutability import Mutability
 from recourse.program import DEFAULT_SOLVER, SOLVERS
+from recourse.source import Source, open_source, read_blocks, read_error
 
 ENGINES = ("local", "dask")
-SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
 CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
 TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message")
 NUMBER_COLUMNS = ("score", "outcome", "total_cost", "largest_cost", "new_outcome",
@@ -153,116 +152,6 @@ def _typed_outcomes(table: pd.DataFrame, partition: pd.DataFrame, positions: np.
     return table
 
 
-# ---------------------------------------------------------------- the input file
-
-
-@dataclass(frozen=True)
-class _Source:
-    """The input file as the engines read it: which columns, with which fixed types."""
-
-    path: Path
-    parquet: bool
-    columns: tuple[str, ...]
-    fixed_types: dict[str, str] = field(default_factory=dict)  # CSV only: id and keep columns
-    bytes_per_row: float = 100.0
-    template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
-
-    def csv_options(self) -> dict[str, Any]:
-        return {"usecols": list(self.columns), "dtype": dict(self.fixed_types),
-                "skipinitialspace": True}
-
-
-def _read_error(path: Path, exc: BaseException) -> DataError:
-    first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    return DataError(f"data file {path} could not be read: {first}")
-
-
-def _inspect(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> _Source:
-    """Check the header against the model and `keep` before any planning."""
-    if not path.is_file():
-        raise DataError(f"data file {path} does not exist")
-    parquet = path.suffix.lower() in (".parquet", ".pq")
-    try:
-        if parquet:
-            import pyarrow.parquet as pq
-
-            handle = pq.ParquetFile(path)
-            header = list(handle.schema_arrow.names)
-            rows = handle.metadata.num_rows
-            sample = handle.schema_arrow.empty_table().to_pandas()
-        else:
-            sample = pd.read_csv(path, nrows=SAMPLE_ROWS, skipinitialspace=True)
-            header, rows = [str(c) for c in sample.columns], len(sample)
-    except pd.errors.EmptyDataError:
-        raise DataError(f"data file {path} is empty") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise _read_error(path, exc) from None
-    if rows == 0:
-        raise DataError(f"data file {path} has a header but no data rows")
-    shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
-    missing = [name for name in model.features if name not in header]
-    if missing:
-        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
-                        f"model needs ({shown})")
-    unknown = [name for name in keep if name not in header]
-    if unknown:
-        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, unknown))} not in {path} "
-                          f"({shown})")
-    wanted = {*model.features, *keep, model.schema.id_column}
-    if "row" in wanted and "row" in header:
-        raise DataError(f"{path}: a column named 'row' clashes with the row numbers added "
-                        "to every partition; rename it")
-    columns = tuple(name for name in header if name in wanted)
-    fixed = {} if parquet else {name: _fixed_type(sample[name]) for name in columns
-                                if name not in model.features}
-    template = sample[list(columns)].iloc[:0].astype(fixed) if fixed else \
-        sample[list(columns)].iloc[:0]
-    per_row = 100.0
-    if not parquet:
-        with open(path, "rb") as handle:
-            text = b"".join(handle.readline() for _ in range(len(sample) + 1))
-        per_row = max(len(text) / (len(sample) + 1), 1.0)
-    return _Source(path, parquet, columns, fixed, per_row,
-                   template.assign(row=np.array([], dtype=np.int64)))
-
-
-def _fixed_type(column: pd.Series) -> str:
-    """One type for an id or kept column in every block (types guessed per block differ
-    when a block happens to hold only whole numbers, or a gap)."""
-    if pd.api.types.is_bool_dtype(column):
-        return "boolean"
-    if pd.api.types.is_integer_dtype(column):
-        return "Int64"
-    if pd.api.types.is_float_dtype(column):
-        return "float64"
-    return "str"
-
-
-def _local_partitions(source: _Source, partition_rows: int) -> Iterator[pd.DataFrame]:
-    """The file in blocks of `partition_rows` rows (Parquet: at most that many), each with
-    its global `row` numbers; never the whole file in memory."""
-    offset = 0
-    try:
-        if source.parquet:
-            import pyarrow as pa
-            import pyarrow.parquet as pq
-
-            batches = pq.ParquetFile(source.path).iter_batches(
-                batch_size=partition_rows, columns=list(source.columns))
-            blocks: Iterator[pd.DataFrame] = (
-                pa.Table.from_batches([batch]).to_pandas() for batch in batches)
-        else:
-            blocks = pd.read_csv(source.path, chunksize=partition_rows,
-                                 **source.csv_options())
-        for block in blocks:
-            block = block.reset_index(drop=True)
-            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
-            offset += len(block)
-            yield block
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise _read_error(source.path, exc) from None
-
-
 # ---------------------------------------------------------------- the outcomes
 
 
@@ -302,13 +191,13 @@ def _span(block: pd.DataFrame) -> tuple[int, int]:
     return (int(block["row"].iloc[0]) if len(block) else 0), len(block)
 
 
-def _check_exactly_once(outcomes: pd.DataFrame, source: _Source, task: _Task,
+def _check_exactly_once(outcomes: pd.DataFrame, source: Source, task: _Task,
                         partition_rows: int) -> None:
     """The outcome rows must be the file's declined rows, each exactly once: counted again
     here from the file, independently of the parts."""
     expected = [block["row"].to_numpy(dtype=np.int64)[
                     _declined(block, task.model, task.mutability, task.source)[0]]
-                for block in _local_partitions(source, partition_rows)]
+                for block in read_blocks(source, partition_rows)]
     declined = np.concatenate(expected) if expected else np.array([], dtype=np.int64)
     found = outcomes["row"].to_numpy(dtype=np.int64)
     values, counts = np.unique(found, return_counts=True)
@@ -357,7 +246,7 @@ def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
         raise OptionError("a scheduler address needs the dask engine")
     keep = _checked_keep(keep)
     data = Path(data)
-    source = _inspect(data, model, keep)
+    source = open_source(data, model, keep)
     task = _Task(model, mutability, n_plans, solver, keep, str(data))
     template = _typed_template(source, task)
     folder = None
@@ -403,7 +292,7 @@ class _Task:
                               solver=self.solver, keep=self.keep, source=self.source)
 
 
-def _typed_template(source: _Source, task: _Task) -> pd.DataFrame:
+def _typed_template(source: Source, task: _Task) -> pd.DataFrame:
     """The outcome frame of no rows, with the types every partition's frame has."""
     return task(source.template)
 
@@ -456,9 +345,9 @@ def _stop_workers(pool) -> None:
             process.terminate()
 
 
-def _run_local(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: int,
                scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
-    blocks = enumerate(_local_partitions(source, partition_rows))
+    blocks = enumerate(read_blocks(source, partition_rows))
     count, finished = 0, 0
     if jobs == 1:
         for index, block in blocks:
@@ -557,7 +446,7 @@ def _connect(scheduler: str | None, jobs: int):
                           f"{CONNECT_SECONDS} s ({first})") from None
 
 
-def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: int,
               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
     import dask
     import dask.dataframe as dd
@@ -580,7 +469,7 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
             except GlassboxError:
                 raise
             except (ValueError, TypeError, OSError) as exc:
-                raise _dask_read_error(source.path, exc) from None
+                raise _daskread_error(source.path, exc) from None
             counts = np.asarray(lengths, dtype=np.int64).tolist()
             ends = np.cumsum(np.asarray(counts, dtype=np.int64))
             offsets = [0, *ends[:-1].tolist()]
@@ -625,11 +514,11 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
                 cluster.close()
 
 
-def _dask_read_error(path: Path, exc: BaseException) -> DataError:
+def _daskread_error(path: Path, exc: BaseException) -> DataError:
     """dask guesses column types from the file's start; name the columns that break it."""
     text = str(exc)
     if "Mismatched dtypes" not in text:
-        return _read_error(path, exc)
+        return read_error(path, exc)
     names = [line.split("|")[1].strip() for line in text.splitlines()
              if line.startswith("|") and "Column" not in line]
     return DataError(f"{path}: column(s) {', '.join(map(repr, names))} change type further "
