@@ -246,7 +246,8 @@ class PartsFolder:
         return listed
 
     def _save(self) -> None:
-        document = {**self.settings, "version": MANIFEST_VERSION, "run": self.run,
+        document = {"kind": MANIFEST_KIND, "version": MANIFEST_VERSION, **self.settings,
+                    "run": self.run,
                     "parts": {f"{i:05d}": self.records[i].as_dict()
                               for i in sorted(self.records)}}
         write_atomic(self.manifest, json.dumps(document, indent=1) + "\n")
