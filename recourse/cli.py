@@ -149,10 +149,16 @@ def audit_command(
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     groups = list(by or [])
-    run = plan_at_scale(model, rules, data, engine=engine.value, jobs=jobs,
-                        scheduler=scheduler, out=plans_out, resume=resume, keep=groups,
-                        n_plans=1, solver=solver.value, partition_rows=partition_rows,
-                        progress=True)
+    try:
+        run = plan_at_scale(model, rules, data, engine=engine.value, jobs=jobs,
+                            scheduler=scheduler, out=plans_out, resume=resume, keep=groups,
+                            n_plans=1, solver=solver.value, partition_rows=partition_rows,
+                            progress=True, say=lambda line: stderr_console().print(
+                                line, markup=False, highlight=False, soft_wrap=True))
+    except KeyboardInterrupt:
+        sys.stderr.write("interrupted; rerun with --resume\n"
+                         if plans_out is not None else "interrupted\n")
+        raise typer.Exit(130) from None
     if run.missing:
         raise PlanningError(f"{len(run.missing)} of {run.partitions} partition(s) did not "
                             f"finish (numbers {', '.join(map(str, run.missing[:10]))}); rerun "
@@ -166,6 +172,9 @@ def audit_command(
                "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
                "goal_direction": goal.direction, "goal_target": goal.target,
                "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
+    if resume:
+        context["resume"] = {"parts_kept": run.partitions - len(run.planned),
+                             "parts_replanned": run.replanned, "files_ignored": run.ignored}
     result = audit.audit(run.outcomes, by=groups, context=context, min_group=min_group)
     if format is AuditFormat.table:
         stdout_console().print(audit_view(result))
