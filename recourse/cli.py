@@ -38,7 +38,8 @@ app = typer.Typer(
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
-PART_FILES = re.compile(r"part-.*\.parquet")  # the partitions --plans-out holds
+# what --plans-out holds: the parts and the manifest (which the planner itself checks)
+PLANS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
 
 
 class PlanFormat(StrEnum):
@@ -157,8 +158,7 @@ def audit_command(
     inputs = [model_file, mutability, data]
     check_output(out, "recourse-audit" if format is AuditFormat.json else "markdown", inputs,
                  force=force)
-    check_output_folder(plans_out, inputs, [(MANIFEST, "json")], force=force,
-                        option="--plans-out", also=PART_FILES)
+    check_output_folder(plans_out, inputs, option="--plans-out", also=PLANS_FOLDER_FILES)
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     groups = list(by or [])

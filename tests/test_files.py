@@ -146,7 +146,7 @@ def test_an_input_inside_an_output_folder_is_refused(files, tmp_path):
     named_as_manifest = plans / "manifest.json"
     named_as_manifest.write_bytes(files["model"].read_bytes())
     one_line_error(recourse("audit", named_as_manifest, "--mutability", files["mutability"],
-                            "--data", files["data"], "--plans-out", plans), "is the input")
+                            "--data", files["data"], "--plans-out", plans), "holds the input")
     part = plans / "part-00000.parquet"
     pd.read_csv(files["data"]).to_parquet(part)
     one_line_error(recourse("audit", files["model"], "--mutability", files["mutability"],
