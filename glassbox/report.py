@@ -462,7 +462,19 @@ def png_bytes(figure: Figure) -> bytes:
 
 def picture_files(report: Report) -> dict[str, bytes]:
     """File name to PNG bytes for every picture of the report."""
-    return {f"{picture.name}.png": png_bytes(picture.figure) for picture in report.pictures}
+    return {_picture_file(picture): png_bytes(picture.figure) for picture in report.pictures}
+
+
+def _picture_file(picture: Picture) -> str:
+    return f"{picture.name}.png"
+
+
+def output_files(report: Report | None = None) -> list[tuple[str, str]]:
+    """(name, kind) of the files `write_report` writes: the two pages, then the pictures
+    (known once the report is built)."""
+    pictures = [] if report is None else report.pictures
+    return [(HTML_NAME, "html"), (MARKDOWN_NAME, "markdown"),
+            *((_picture_file(picture), "png") for picture in pictures)]
 
 
 def _cells(frame: pd.DataFrame) -> pd.DataFrame:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import sys
 from enum import StrEnum
 from pathlib import Path
@@ -14,8 +15,8 @@ from rich.console import Group, RenderableType
 from rich.text import Text
 
 from glassbox import artifact
-from glassbox.cli import friendly, stderr_console, stdout_console
-from glassbox.files import write_atomic
+from glassbox.cli import Force, friendly, stderr_console, stdout_console
+from glassbox.files import check_output, check_output_folder, write_atomic
 from glassbox.formats import to_csv
 from glassbox.groups import MIN_GROUP, flag_caption, flag_words
 from glassbox.provenance import file_sha256
@@ -28,7 +29,7 @@ from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
-from recourse.scale import ENGINES, plan_at_scale
+from recourse.scale import ENGINES, MANIFEST, plan_at_scale
 from recourse.supply import accepted_words
 
 app = typer.Typer(
@@ -37,6 +38,8 @@ app = typer.Typer(
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
+# what --plans-out holds: the parts and the manifest (which the planner itself checks)
+PLANS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
 
 
 class PlanFormat(StrEnum):
@@ -77,8 +80,13 @@ def plan_command(
     out: Annotated[Path | None, typer.Option(
         help="Batch: write one CSV row per plan here.")] = None,
     jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1)] = 1,
+    force: Force = False,
 ) -> None:
     """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
+    if out is not None and not declined:
+        raise PlanningError("--out is for --declined (one CSV row per plan); for one row, "
+                            "use --format json and redirect standard output")
+    check_output(out, "csv-plans", [model_file, mutability, row, data], force=force)
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     if declined:
@@ -140,12 +148,17 @@ def audit_command(
     min_group: Annotated[int, typer.Option(
         metavar="N", help="Groups with fewer declined rows are shown but not flagged.",
         min=1)] = MIN_GROUP,
+    force: Force = False,
 ) -> None:
     """Across every declined row: who can reach the goal, at what cost, and by group."""
     if resume and plans_out is None:
         raise PlanningError("--resume needs --plans-out DIR (where the finished parts are)")
     if format is AuditFormat.table and out is not None:
         raise PlanningError("--out needs --format json or markdown")
+    inputs = [model_file, mutability, data]
+    check_output(out, "recourse-audit" if format is AuditFormat.json else "markdown", inputs,
+                 force=force)
+    check_output_folder(plans_out, inputs, option="--plans-out", also=PLANS_FOLDER_FILES)
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     groups = list(by or [])
