@@ -419,7 +419,8 @@ METADATA = Record(
               "target_mean": Number(null=True), "data_sha256": SHA256,
               "features_used": TEXTS, "importance": Keyed(POSITIVE),
               "glassbox_version": TEXT, "versions": Keyed(TEXT),
-              "pooled_levels": Keyed(COUNT), "fit_date": Day()})
+              "pooled_levels": Anything(), "fit_date": Day()},
+    extra=Anything())  # what a fit recorded: older files hold other keys, never read
 MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,
               "terms": Items(TERM), "schema": SCHEMA},
@@ -454,29 +455,31 @@ CARD = Record(
               "base_points": POINTS, "intercept": NUMBER, "features": Items(FEATURE_POINTS),
               "schema": SCHEMA},
     optional={"tolerance": Number(low=0, null=True), "cutoff": OPEN_SHARE,
+              "bins": Number(low=1, whole=True),  # version 1 cards: equal-share bins
               "cutoff_points": NUMBER, "model_checksum": SHA256, "fidelity": FIDELITY})
 
 # One row of a comparison's tables: a model (or sparsity size) and a metric, with numbers
 # that may be null where no interval exists (one fold) and a note saying why.
 _INTERVAL = {"mean": Number(null=True), "lower": Number(null=True),
              "upper": Number(null=True), "interval_note": Text(null=True)}
+METRIC = Text(("auc", "log_loss", "brier", "accuracy", "rmse", "mae", "r2"))
 COMPARISON = Record(
     required={"format": TEXT, "version": Number(whole=True), "headline": TEXT,
-              "task": Text(("classification", "regression")), "primary_metric": TEXT,
+              "task": Text(("classification", "regression")), "primary_metric": METRIC,
               "settings": Record(required={"benchmark": TEXT},
                                  optional={"folds": Number(low=2, whole=True),
                                            "repeats": Number(low=1, whole=True),
                                            "cutoff": OPEN_SHARE, "families": TEXTS},
                                  extra=Anything()),
               "provenance": Record(optional={"rows": COUNT}, extra=Anything()),
-              "models": Items(Record(required={"model": TEXT, "metric": TEXT},
+              "models": Items(Record(required={"model": TEXT, "metric": METRIC},
                                      optional={"kind": TEXT, "t": Number(null=True),
                                                "p_value": Number(low=0, high=1, null=True),
                                                **_INTERVAL}))},
     optional={"cost_convention": TEXT, "rerun": TEXT,
               "schema": Record(null=True, extra=Anything()),
               "schema_sha256": SHA256,
-              "costs": Items(Record(required={"model": TEXT, "metric": TEXT,
+              "costs": Items(Record(required={"model": TEXT, "metric": METRIC,
                                               "cost": NUMBER},
                                     optional={"lower": Number(null=True),
                                               "upper": Number(null=True),
@@ -484,11 +487,12 @@ COMPARISON = Record(
                                               "p_value": Number(low=0, high=1, null=True),
                                               "distinguishable": Flag(null=True),
                                               "interval_note": Text(null=True)})),
-              "differences": Items(Record(required={"model": TEXT, "metric": TEXT,
+              "differences": Items(Record(required={"model": TEXT, "metric": METRIC,
                                                     "mean": NUMBER}, extra=Anything())),
               "sparsity_curve": Items(Record(required={"max_features": Number(low=1,
                                                                               whole=True),
-                                                       "metric": TEXT}, optional=_INTERVAL)),
+                                                       "metric": METRIC},
+                                             optional=_INTERVAL)),
               "folds": Items(Record(required={"model": TEXT},
                                     extra=Either((NUMBER, TEXT), null=True)))})
 
