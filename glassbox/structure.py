@@ -72,7 +72,7 @@ class Spec:
 
 
 def _number_text(value: float | None) -> str:
-    return str(value) if isinstance(value, int) else f"{value:g}"
+    return "" if value is None else str(value) if isinstance(value, int) else f"{value:g}"
 
 
 def _is_number(value: Any) -> bool:
