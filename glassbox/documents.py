@@ -44,7 +44,10 @@ def checksum(content: Any) -> str:
 
 
 def dumps(kind: Kind, content: dict[str, Any]) -> str:
-    """The file's text: indented, keys in a fixed order, ends with a newline."""
+    """The file's text: indented, keys in a fixed order, ends with a newline. Content
+    without its declared structure is refused: what is written always reads back."""
+    if kind.content is not None:
+        structure.check(kind.content, content, f"{kind.name} to write", ModelFileError)
     document = {"format": kind.format, "version": kind.version, "checksum": checksum(content),
                 kind.key: content}
     return json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"

@@ -107,8 +107,8 @@ class Number(Spec):
             return False
         if isinstance(value, float) and not math.isfinite(value):
             return False
-        if isinstance(value, int) and not self.whole and abs(value) > sys.float_info.max:
-            return False  # a whole number too large to be a float
+        if isinstance(value, int) and abs(value) > sys.float_info.max:
+            return False  # a whole number too large for any float (readers use floats)
         if self.low is not None and (value < self.low or (self.above and value == self.low)):
             return False
         return self.high is None or value <= self.high

@@ -288,6 +288,8 @@ AUDIT_CASES = {
         {next(iter(d["cost_quantiles"])): math.nan}), "must be a finite number of at least 0"),
     "range: a negative count": (_set(["summary", "no_plan"], -1),
                                 "summary.no_plan must be a whole number of at least 0"),
+    "range: a count beyond any float": (_set(["groups", "Marital", 0, "with_plan"], 10**400),
+                                        "groups.Marital[0].with_plan must be a whole number"),
     "range: more rows counted than declined": (_set(["summary", "no_plan"], 10**6),
                                                "summary counts"),
 }
@@ -511,3 +513,14 @@ def test_report_bytes_are_the_same_after_the_model_file_is_touched(files, tmp_pa
     for name in ("report.html", "report.md"):
         assert (first / name).read_bytes() == (second / name).read_bytes(), name
     assert "2026-01-01 (UTC)" in (first / "report.md").read_text(encoding="utf-8")
+
+
+def test_a_file_without_its_structure_is_not_written(files, tmp_path):
+    # constructed: a model whose profile keeps three percentiles instead of 101 is refused
+    # when written, so no file is written that would not read back
+    model = artifact.load(files / "model.json")
+    profile = dataclasses.replace(model.profiles[0], percentiles=(1.0, 2.0, 3.0))
+    broken = dataclasses.replace(model, profiles=(profile, *model.profiles[1:]))
+    with pytest.raises(ModelFileError, match=r"profiles\[0\]\.percentiles must be a list"):
+        artifact.save(broken, tmp_path / "broken.json")
+    assert not (tmp_path / "broken.json").exists()
