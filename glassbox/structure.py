@@ -53,7 +53,8 @@ def _join(path: str, key: str | int) -> str:
 
 
 class Spec:
-    """A declared structure: `describe` in words, `check` a value at a key path."""
+    """A declared structure: `describe` in words, `check` a value at a key path. Simple
+    structures say whether they `accept` a value; tables and lists check their parts."""
 
     null: bool = False
 
@@ -231,9 +232,6 @@ class Items(Spec):
                                    + f" the value before it ({_shown(before)}), not "
                                      f"{_shown(now)}")
 
-    def accepts(self, value: Any, path: str) -> bool:  # pragma: no cover - check overrides
-        return True
-
 
 @dataclass(frozen=True)
 class Fixed(Spec):
@@ -252,9 +250,6 @@ class Fixed(Spec):
             raise _Problem(path, f"must be {self.describe()}, not {_shown(value)}")
         for index, (spec, item) in enumerate(zip(self.items, value, strict=True)):
             spec.check(item, _join(path, index))
-
-    def accepts(self, value: Any, path: str) -> bool:  # pragma: no cover - check overrides
-        return True
 
 
 @dataclass(frozen=True)
@@ -286,9 +281,6 @@ class Record(Spec):
                                                       f"here: {known})")
             spec.check(item, _join(path, str(key)))
 
-    def accepts(self, value: Any, path: str) -> bool:  # pragma: no cover - check overrides
-        return True
-
 
 @dataclass(frozen=True)
 class Keyed(Spec):
@@ -307,9 +299,6 @@ class Keyed(Spec):
             raise _Problem(path, f"must be a table of names, not {_shown(value)}")
         for key, item in value.items():
             self.value.check(item, _join(path, str(key)))
-
-    def accepts(self, value: Any, path: str) -> bool:  # pragma: no cover - check overrides
-        return True
 
 
 @dataclass(frozen=True)
@@ -332,9 +321,6 @@ class Tagged(Spec):
                            + ", ".join(json.dumps(k) for k in self.options)
                            + f", not {_shown(kind)}")
         self.options[kind].check(value, path)
-
-    def accepts(self, value: Any, path: str) -> bool:  # pragma: no cover - check overrides
-        return True
 
 
 def check(structure: Spec, value: Any, where: str, error: type[GlassboxError]) -> None:
