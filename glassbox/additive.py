@@ -515,7 +515,13 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
                        features=model.features)
     model.check_missing(prepared.features, source or frame.attrs.get("source") or "the data")
     parts = model.contributions_encoded(prepared.features)
-    score = model.intercept + parts.sum(axis=1).to_numpy()
+    with np.errstate(over="ignore", invalid="ignore"):  # refused just below
+        score = model.intercept + parts.sum(axis=1).to_numpy()
+    beyond = ~np.isfinite(score)
+    if beyond.any():  # never inf or NaN in an output: the rows are named instead
+        raise DataError(f"{source or frame.attrs.get('source') or 'the data'}: the score of "
+                        f"{rows_text(beyond)} is not a finite number (the model's tables "
+                        "add up beyond the finite numbers)")
     out = pd.DataFrame(index=frame.index)
     if prepared.ids is not None:
         out[model.schema.id_column] = prepared.ids

@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox import documents
+from glassbox import documents, structure
 from glassbox.additive import refuse_missing
 from glassbox.errors import (
     GlassboxError,
@@ -531,7 +531,7 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
 
 
 CARD_FILE = documents.Kind(FORMAT, VERSION, "card", "points card", "a glassbox points card",
-                           "restore the original or make the card again")
+                           "restore the original or make the card again", structure.CARD)
 
 
 def dumps(card: PointsCard) -> str:
