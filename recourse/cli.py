@@ -25,11 +25,12 @@ from glassbox.schema import read_table
 from recourse import audit
 from recourse.batch import NOT_STATED, plan_many, plans_frame, summary_frame
 from recourse.errors import PlanningError
+from recourse.manifest import MANIFEST
 from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
-from recourse.scale import ENGINES, MANIFEST, plan_at_scale
+from recourse.scale import ENGINES, plan_at_scale
 from recourse.supply import accepted_words
 
 app = typer.Typer(
