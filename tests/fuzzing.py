@@ -369,7 +369,11 @@ def prepare_case(inputs: Inputs, kind: str, number: int, folder: Path) -> Case:
     for name, path in inputs.files.items():
         files[name] = folder / path.name
         shutil.copyfile(path, files[name])
-    text, how = mutate(kind, inputs.files[kind].read_text(encoding="utf-8"), rng)
+    if rng.random() < 0.05:  # the wrong file given: a valid file of another kind
+        other = rng.choice([k for k in KINDS if k != kind])
+        text, how = inputs.files[other].read_text(encoding="utf-8"), f"the {other} file instead"
+    else:
+        text, how = mutate(kind, inputs.files[kind].read_text(encoding="utf-8"), rng)
     files[kind].write_bytes(text.encode("utf-8", errors="surrogateescape"))
     program, args = rng.choice(commands(kind, files, folder / "out"))
     return Case(kind, number, how, program, args, files[kind])
