@@ -240,3 +240,20 @@ def test_an_interrupt_is_one_line_and_status_130(monkeypatch, inputs):
     monkeypatch.setattr(artifact, "load", interrupt_with_words)  # inside a command's body
     status, output = run_quietly("recourse", ["template", inputs.files["model"]])
     assert status == 130 and output.strip() == "interrupted; rerun with --resume", output
+
+
+def test_issue13_the_console_entry_points_use_the_guard(inputs):
+    # issue 13, "no traceback, ever", as a user runs it: a real process of each command, a
+    # usage error and an error in a command's body, each one line and exit 2
+    import subprocess
+    import sys
+
+    files = inputs.files
+    for program, args, fragment in (
+            ("glassbox", ["reasons", files["model"], files["data"], "--all", "--top", "0"],
+             "--top"),
+            ("recourse", ["template", files["data"]], "credit.csv")):
+        done = subprocess.run([sys.executable, "-m", program, *map(str, args)],
+                              capture_output=True, text=True, timeout=300)
+        one_error_line(done.returncode, done.stderr, fragment)
+        assert done.stdout == ""
