@@ -29,12 +29,6 @@ CASES = {kind: max(1, round(SCALE * n)) for kind, n in {
     "comparison": 20, "audit": 60, "row": 150}.items()}
 # kinds whose damaged files still end in an internal error until the other parts of issue 13
 # are merged (the lead removes these marks on merging)
-PENDING = {
-    "model": "issue 13: structures (model file profiles and cells validated when read)",
-    "card": "issue 13: structures (points card features validated when read)",
-    "comparison": "issue 13: structures (comparison JSON validated when read)",
-    "row": "issue 13: reading (a list or object as a category value in a JSON row)",
-}
 CASE_SECONDS = 20  # far above any case's time; a case still running then is a hang
 
 
@@ -80,9 +74,7 @@ def run_case(case) -> tuple[str, str]:
     return "", output
 
 
-@pytest.mark.parametrize("kind", [
-    pytest.param(kind, marks=pytest.mark.xfail(strict=False, reason=PENDING[kind]))
-    if kind in PENDING else kind for kind in KINDS])
+@pytest.mark.parametrize("kind", KINDS)
 def test_damaged_files_end_cleanly(inputs, kind, tmp_path, monkeypatch):
     if kind in ("comparison", "audit"):
         # `report` reads these; its pictures come from the model and the data alone (not
