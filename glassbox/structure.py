@@ -316,7 +316,7 @@ class Tagged(Spec):
         if not isinstance(value, Mapping):
             raise _Problem(path, f"must be a table of keys, not {_shown(value)}")
         kind = value.get(self.tag)
-        if kind not in self.options:
+        if not isinstance(kind, str) or kind not in self.options:
             raise _Problem(_join(path, self.tag), "must be one of "
                            + ", ".join(json.dumps(k) for k in self.options)
                            + f", not {_shown(kind)}")
