@@ -116,6 +116,8 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
              f"have a plan; {summary['no_plan']:,} have none within the rules"
              + (f"; the rules do not fit {summary['misfits']:,}" if summary.get("misfits")
                 else "")
+             + (f"; {summary['outside']:,} have a value outside what the model can plan for"
+                if summary.get("outside") else "")
              + ". Plans are model what-ifs, not advice or a promise; protected "
                "characteristics are never levers, only groupings here.")
     blocks: list[Any] = [Paragraph(intro)]

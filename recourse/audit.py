@@ -51,6 +51,7 @@ class Audit:
     groups: dict[str, pd.DataFrame] = field(default_factory=dict)  # column -> GROUP_COLUMNS
     context: dict[str, Any] = field(default_factory=dict)  # goal, files, settings
     min_group: int = MIN_GROUP  # groups with fewer declined rows are shown, not flagged
+    outside: int = 0  # rows with a value outside what the model can plan for
 
     @property
     def share_with_plan(self) -> float:
@@ -112,6 +113,7 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
         binding_rules=_counted(stuck["binding_rule"], "rule", len(stuck)),
         groups={column: by_group(outcomes, column, min_rows=min_group) for column in by},
         context=dict(context or {}), min_group=min_group,
+        outside=int((status == "outside").sum()),
     )
 
 
@@ -120,7 +122,8 @@ def summary_table(result: Audit) -> pd.DataFrame:
     rows = [("declined rows", result.declined), ("with a plan", result.with_plan),
             ("share with a plan", result.share_with_plan),
             ("no plan within the rules", result.no_plan),
-            ("rules do not fit the row", result.misfits)]
+            ("rules do not fit the row", result.misfits),
+            ("value outside what the model can plan for", result.outside)]
     rows += [(f"cheapest plan cost, {name}", value)
              for name, value in result.cost_quantiles.items()]
     return pd.DataFrame(rows, columns=["measure", "value"])
@@ -148,7 +151,8 @@ def to_dict(result: Audit) -> dict[str, Any]:
         "summary": {"declined": result.declined, "with_plan": result.with_plan,
                     "share_with_plan": None if not result.declined
                     else result.share_with_plan,
-                    "no_plan": result.no_plan, "misfits": result.misfits},
+                    "no_plan": result.no_plan, "misfits": result.misfits,
+                    "outside": result.outside},
         "cost_quantiles": result.cost_quantiles,
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),
