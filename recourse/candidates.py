@@ -36,7 +36,11 @@ NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding
 # points anchored on the value could no longer be placed where the rules put them.
 FARTHEST_STEPS = 2**42
 OUTSIDE = "value outside what the model can plan for"
-WHOLE = 2.0**52  # floats this large are whole numbers: rounding to DECIMALS leaves them
+WHOLE = 2.0**52  # floats this large are whole numbers
+# Above this, a float's spacing exceeds 10**-DECIMALS: rounding to DECIMALS drops no noise,
+# and np.round's multiply-and-divide would move the value (1e15 + 0.5 became 1e15 + 0.625)
+# or overflow to infinity (past about 1e296).
+ROUNDED_BELOW = 2.0**53 / 10**DECIMALS
 
 
 @dataclass(frozen=True)
@@ -186,11 +190,10 @@ def check_plannable(model: AdditiveModel, feature: str, now: float, step: float 
 
 
 def rounded(values: Any) -> np.ndarray:
-    """Values rounded to DECIMALS (grid noise such as 0.1 + 0.2 dropped); values of 2**52 or
-    more are whole numbers already and are left as they are (rounding them would overflow
-    to infinity past about 1e296)."""
+    """Values rounded to DECIMALS (grid noise such as 0.1 + 0.2 dropped) where that can drop
+    noise, below ROUNDED_BELOW; larger values are left exactly as they are."""
     values = np.asarray(values, dtype=float)
-    small = np.abs(values) < WHOLE
+    small = np.abs(values) < ROUNDED_BELOW
     return np.where(small, np.round(np.where(small, values, 0.0), DECIMALS), values)
 
 
