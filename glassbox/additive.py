@@ -24,7 +24,7 @@ import pandas as pd
 from scipy.special import expit
 
 from glassbox.cells import TermCells
-from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning, value_text
 from glassbox.schema import Schema, prepare, rows_text
 
 LINKS = ("logit", "identity")
@@ -157,7 +157,7 @@ class LevelsTerm:
             strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
             warnings.warn(
                 f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
-                f"in training ({', '.join(repr(s) for s in strange)}); scored with the "
+                f"in training ({', '.join(map(value_text, strange))}); scored with the "
                 f"unseen-level value {self.unseen:.4g}",
                 UnseenLevelWarning, stacklevel=3,
             )
@@ -515,7 +515,13 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
                        features=model.features)
     model.check_missing(prepared.features, source or frame.attrs.get("source") or "the data")
     parts = model.contributions_encoded(prepared.features)
-    score = model.intercept + parts.sum(axis=1).to_numpy()
+    with np.errstate(over="ignore", invalid="ignore"):  # refused just below
+        score = model.intercept + parts.sum(axis=1).to_numpy()
+    beyond = ~np.isfinite(score)
+    if beyond.any():  # never inf or NaN in an output: the rows are named instead
+        raise DataError(f"{source or frame.attrs.get('source') or 'the data'}: the score of "
+                        f"{rows_text(beyond)} is not a finite number (the model's tables "
+                        "add up beyond the finite numbers)")
     out = pd.DataFrame(index=frame.index)
     if prepared.ids is not None:
         out[model.schema.id_column] = prepared.ids

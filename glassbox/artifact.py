@@ -9,10 +9,11 @@ a damaged, edited or foreign file. Nothing is ever pickled.
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import Any
 
-from glassbox import documents
+from glassbox import documents, structure
 from glassbox.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
 from glassbox.cells import TermCells
 from glassbox.errors import GlassboxError, ModelFileError
@@ -23,7 +24,7 @@ VERSION = 2  # 2: every term may carry a missing-value entry; profiles count mis
 
 
 MODEL_FILE = documents.Kind(FORMAT, VERSION, "model", "model file", "a glassbox model file",
-                            "restore the original or refit")
+                            "restore the original or refit", structure.MODEL)
 checksum = documents.checksum
 canonical_json = documents.canonical_json
 
@@ -46,6 +47,27 @@ def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
 
 def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
     """Rebuild a model from `model_to_dict` output."""
+    model = _model_from_dict(content, source)
+    check_score_range(model, f"model file {source}")
+    return model
+
+
+def check_score_range(model: AdditiveModel, where: str) -> None:
+    """Refuse a model whose score can leave the finite numbers: the intercept plus each
+    term's largest value in size (any value, the unseen level, a missing value) must be
+    finite, so that no row scores inf or NaN."""
+    largest = abs(model.intercept)
+    for term in model.terms:
+        entries = [*term.values, getattr(term, "unseen", 0.0),
+                   0.0 if term.missing is None else term.missing]
+        largest += max(abs(value) for value in entries)
+    if not math.isfinite(largest):
+        raise ModelFileError(f"{where}: its intercept and term values add up to scores "
+                             "beyond the finite numbers (a row could score inf or NaN); "
+                             "the file is not a model glassbox fitted")
+
+
+def _model_from_dict(content: dict[str, Any], source: str) -> AdditiveModel:
     try:
         schema = Schema.from_dict(content["schema"], source=source,
                                     unstated_better="higher")

@@ -25,9 +25,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox import documents
+from glassbox import documents, structure
 from glassbox.additive import refuse_missing
-from glassbox.errors import GlassboxError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.errors import (
+    GlassboxError,
+    ModelFileError,
+    OptionError,
+    UnseenLevelWarning,
+    value_text,
+)
 from glassbox.schema import MISSING_LEVEL, Schema
 
 FORMAT = "glassbox-points"
@@ -206,7 +212,7 @@ class FeaturePoints:
             strange = sorted({str(v) for v in values[unseen]})[:5]
             warnings.warn(
                 f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
-                f"in training ({', '.join(repr(s) for s in strange)}); given the unseen-level "
+                f"in training ({', '.join(map(value_text, strange))}); given the unseen-level "
                 f"points {self.unseen_points}", UnseenLevelWarning, stacklevel=3)
             out[unseen] = self.unseen_points
         return out
@@ -525,7 +531,7 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
 
 
 CARD_FILE = documents.Kind(FORMAT, VERSION, "card", "points card", "a glassbox points card",
-                           "restore the original or make the card again")
+                           "restore the original or make the card again", structure.CARD)
 
 
 def dumps(card: PointsCard) -> str:

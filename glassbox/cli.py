@@ -37,7 +37,7 @@ from glassbox.compare import (
 from glassbox.compare import to_markdown as compare_markdown
 from glassbox.errors import GlassboxError, OptionError
 from glassbox.families import FAMILIES
-from glassbox.files import write_atomic
+from glassbox.files import check_output, check_output_folder, table_kind, write_atomic
 from glassbox.fitting import fit_model, rows_with_target, training_fit
 from glassbox.groups import MIN_GROUP
 from glassbox.inference import infer_schema
@@ -62,6 +62,9 @@ app = typer.Typer(
 )
 EXIT_USER_ERROR = 2
 DROP_HELP = "Drop rows with no target value (counted on screen) instead of refusing the file."
+Force = Annotated[bool, typer.Option(
+    "--force", help="Overwrite an existing output file of another kind (a CSV, a model "
+                    "file...). An input is never overwritten.")]
 
 
 # the choices come from the library, so a new family or benchmark appears here by itself
@@ -146,11 +149,13 @@ def schema_command(
     dates_as_age: Annotated[str | None, typer.Option(
         metavar="YYYY-MM-DD",
         help="Read date columns as their age in days on this date, not ignore them.")] = None,
+    force: Force = False,
 ) -> None:
     """Infer a starter schema (TOML) from a data file, for you to check and edit.
 
     Standard error gets one line per thing to check: missing values per column, the
     `better` written and why, guessed-protected columns and columns to look at."""
+    check_output(out, "schema", [data], force=force)
     frame = read_table(data)
     schema = infer_schema(frame, target, positive=positive, id_column=id_column,
                           dates_as_age=dates_as_age)
@@ -174,8 +179,10 @@ def fit_command(
         "--option", metavar="NAME=VALUE",
         help="Any family setting, e.g. --option splines=12 (repeatable).")] = None,
     drop_missing_target: Annotated[bool, typer.Option(help=DROP_HELP)] = False,
+    force: Force = False,
 ) -> None:
     """Fit a glass-box model and write it as a JSON model file."""
+    check_output(out, "glassbox-model", [data, schema], force=force)
     options = parse_options(option or [])
     if max_features is not None:
         options["max_features"] = max_features
@@ -206,11 +213,13 @@ def score_command(
     out: Annotated[Path | None, typer.Option(help="Write the CSV here, not stdout.")] = None,
     contributions: Annotated[bool, typer.Option(
         help="Include each feature's contribution.")] = True,
+    force: Force = False,
 ) -> None:
     """Score rows: score (link scale), probability or prediction, the features a row has
     no value for (when the model learned missing values), contributions (CSV); or, with
     --points, total points and each feature's points."""
     model_file, data = _score_inputs(model_file, data, card_file)
+    check_output(out, "csv-scores", [model_file, data, card_file], force=force)
     if card_file is not None:
         card = points.load(card_file)
         table = points.score_points(card, read_table(data), str(data))
@@ -259,10 +268,14 @@ def points_command(
         "--format", help="table (terminal), csv or markdown (the rows), json (the card file "
                          "score --points reads).")] = TableFormat.table,
     out: Annotated[Path | None, typer.Option(help="Write the card or its rows here.")] = None,
+    force: Force = False,
 ) -> None:
     """Turn a classification model into a points card: whole points per bin or level."""
     if format is TableFormat.table and out is not None:
         raise OptionError("--out needs a file format: add --format json, csv or markdown")
+    written = "glassbox-points" if format is TableFormat.json else table_kind(format.value,
+                                                                                "card")
+    check_output(out, written, [model_file, data], force=force)
     model = artifact.load(model_file)
     card = points.points_card(model, points.Scaling(base_score, base_odds, pdo), tolerance,
                               cutoff)
@@ -297,24 +310,34 @@ def shapes_command(
     plot: Annotated[Path | None, typer.Option(
         metavar="DIR", help="Also write one PNG per feature and an importance overview.")
     ] = None,
+    force: Force = False,
 ) -> None:
     """Per-feature tables (and pictures) of what the model does, from the model file."""
+    if format is TableFormat.table and out is not None:
+        raise OptionError("--out needs a file format: add --format csv, markdown or json")
     model = artifact.load(model_file)
     names = shapes.chosen_features(model, feature)
+    as_folder = out is not None and (out.is_dir() or not out.suffix)
+    if as_folder:
+        written = table_kind(format.value, "shapes")
+        table_files = [(name, written) for name in shapes.folder_names(names, format.value)]
+        check_output_folder(out, [model_file], table_files, force=force)
+    else:
+        check_output(out, table_kind(format.value, "shapes"), [model_file], force=force)
+    pictures = [(name, "png") for name in plots.picture_names(names)]
+    check_output_folder(plot, [model_file], pictures, force=force, option="--plot")
     if plot is not None:
         with progress_note("drawing the shape functions"):
             paths = plots.write_plots(model, plot, names)
         stderr_console().print(f"wrote {len(paths)} picture(s) to {plot}/")
     if format is TableFormat.table:
-        if out is not None:
-            raise OptionError("--out needs a file format: add --format csv, markdown or json")
         if plot is not None and not feature:
             return  # the pictures were asked for; name features to see tables too
         tables = {name: shapes.term_table(model, name) for name in names}
         scale = "log-odds" if model.link == "logit" else "prediction"
         stdout_console().print(shapes_view(shapes.summary(model), tables, scale))
         return
-    if out is not None and (out.is_dir() or not out.suffix):
+    if as_folder:
         paths = shapes.write_folder(model, out, format.value, names)
         stderr_console().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
         return
@@ -348,6 +371,7 @@ def compare_command(
         help="Write json or markdown here (with the table: by the .json or .md suffix).")
     ] = None,
     drop_missing_target: Annotated[bool, typer.Option(help=DROP_HELP)] = False,
+    force: Force = False,
 ) -> None:
     """Cross-validated accuracy cost of each glass-box family against a black box."""
     settings = CompareSettings(
@@ -358,6 +382,9 @@ def compare_command(
     by_suffix = {".json": CompareFormat.json, ".md": CompareFormat.markdown}
     if format is CompareFormat.table and out is not None and out.suffix.lower() not in by_suffix:
         raise OptionError(f"--out {out}: name a .json or .md file, or give --format")
+    written = by_suffix[out.suffix.lower()] if format is CompareFormat.table and out else format
+    check_output(out, "glassbox-comparison" if written is CompareFormat.json else "markdown",
+                 [data, schema], force=force)
     frame = read_table(data)
     spec = load_schema(schema)
     if drop_missing_target:
@@ -404,12 +431,14 @@ def reasons_command(
     format: Annotated[ReasonsFormat, typer.Option(
         "--format", help="table (terminal), json or csv.")] = ReasonsFormat.table,
     out: Annotated[Path | None, typer.Option(help="Write json or csv here.")] = None,
+    force: Force = False,
 ) -> None:
     """Why a row scores as it does: the features furthest below their best, in words."""
     if sum([id_value is not None, index is not None, every]) != 1:
         raise OptionError("name the rows: --id VALUE, --index N or --all")
     if format is ReasonsFormat.table and out is not None:
         raise OptionError("--out needs --format json or csv")
+    check_output(out, table_kind(format.value, "reasons"), [model_file, data], force=force)
     model = artifact.load(model_file)
     frame = read_table(data)
     if every:
@@ -478,12 +507,14 @@ def report_command(
         "--bands", metavar="COLUMN=EDGE,...",
         help="Band edges for a numeric protected column, e.g. Age=25,35,45,55,65 "
              "(repeatable; a column named as an age gets these customary bands).")] = None,
+    force: Force = False,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
     from glassbox import groups, report
 
     edges = groups.parse_bands(bands or [])
-    report.check_folder(out)
+    inputs = [model_file, data, comparison, recourse]
+    check_output_folder(out, inputs, report.output_files(), force=force)
     model = artifact.load(model_file)
     frame = read_table(data)
     with progress_note("drawing the report"):
@@ -491,6 +522,7 @@ def report_command(
                                        comparison_file=comparison, cutoff=cutoff,
                                        source=str(data), recourse_file=recourse,
                                        min_group=min_group, bands=edges)
+        check_output_folder(out, inputs, report.output_files(document), force=force)
         paths = report.write_report(document, out)
     stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
 

@@ -13,6 +13,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from glassbox.errors import DataError, value_text
+
 # A category with more levels than this is refused when fitting unless the schema pools
 # its rare levels (or keeps them all with pool_below = 0): common practice, no source.
 MANY_LEVELS = 50
@@ -104,8 +106,8 @@ def column_role(name: str, column: pd.Series) -> ColumnRole | None:
     present = _present(column)
     if layout is not None:
         first = str(present.iloc[0]) if len(present) else ""
-        return ColumnRole("date", f"ignored: dates (first {first!r}); a date as such is no "
-                                  "feature (derive an age or a month if you need one)")
+        return ColumnRole("date", f"ignored: dates (first {value_text(first)}); a date as "
+                                  "such is no feature (derive an age or a month if you need one)")
     rows = len(column)
     unique = len(present) == rows and present.is_unique
     distinct = _distinct_numbers(present)
@@ -192,7 +194,6 @@ def ages_in_days(column: pd.Series, reference: str, layout: str | None, name: st
     """Each date's age in whole days on the reference date (negative after it), NaN where
     the column is blank; text not in the layout (ISO by default) is an error naming rows.
     A datetime column is read as it is."""
-    from glassbox.errors import DataError
     from glassbox.schema import rows_text  # the schema module imports this one
 
     layout = layout or "%Y-%m-%d"
@@ -207,6 +208,6 @@ def ages_in_days(column: pd.Series, reference: str, layout: str | None, name: st
     if bad.any():
         first = column[bad].iloc[0]
         raise DataError(f"{where}: column '{name}' should hold dates in the layout {layout} "
-                        f"but has other text in {rows_text(bad)} (first: {str(first)!r})")
+                        f"but has other text in {rows_text(bad)} (first: {value_text(first)})")
     days = (pd.Timestamp(reference) - dates).dt.days
     return pd.Series(days.to_numpy(dtype=float), index=column.index)

@@ -23,17 +23,26 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
 from threadpoolctl import threadpool_limits
 
-from glassbox import __version__
+from glassbox import __version__, structure
 from glassbox.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
 from glassbox.documents import checksum
 from glassbox.errors import DataError, OptionError
 from glassbox.families import FAMILIES
 from glassbox.files import read_json
 from glassbox.fitting import fit_model
+from glassbox.intervals import (  # noqa: F401  (interval: re-exported)
+    CLIPPED,
+    COST_RANGES,
+    INF,
+    INTERVAL_METHOD,
+    METRIC_RANGES,
+    NO_VARIANCE,
+    interval,
+    read_within_ranges,
+)
 from glassbox.metrics import classification_metrics, regression_metrics
 from glassbox.provenance import frame_fingerprint, library_versions
 from glassbox.schema import Schema, prepare
@@ -82,32 +91,6 @@ class CompareSettings:
             raise OptionError(f"--jobs must be at least 1, not {self.jobs}")
         if not 0.0 < self.cutoff < 1.0:
             raise OptionError(f"--cutoff must lie between 0 and 1, not {self.cutoff}")
-
-
-# ---------------------------------------------------------------- statistics
-
-
-def interval(values: Sequence[float], test_share: float, level: float = 0.95) -> dict:
-    """Mean with the corrected resampled t interval (Nadeau & Bengio 2003).
-
-    `test_share` is n_test / n_train of one fold. With J values the variance of
-    the mean is (1/J + test_share) * s²; the interval uses t with J - 1 degrees
-    of freedom. The t statistic and two-sided p-value test a mean of zero.
-    """
-    values = np.asarray(values, dtype=float)
-    count = len(values)
-    mean = float(values.mean())
-    if count < 2:
-        return {"mean": mean, "lower": float("nan"), "upper": float("nan"),
-                "t": float("nan"), "p_value": float("nan")}
-    variance = float(values.var(ddof=1))
-    error = np.sqrt((1.0 / count + test_share) * variance)
-    quantile = stats.t.ppf(0.5 + level / 2, count - 1)
-    t_value = mean / error if error > 0 else (0.0 if mean == 0 else np.copysign(np.inf, mean))
-    p_value = float(2 * stats.t.sf(abs(t_value), count - 1)) if np.isfinite(t_value) else (
-        1.0 if t_value == 0 else 0.0)
-    return {"mean": mean, "lower": float(mean - quantile * error),
-            "upper": float(mean + quantile * error), "t": float(t_value), "p_value": p_value}
 
 
 # ---------------------------------------------------------------- the folds
@@ -273,8 +256,10 @@ class Comparison:
 
 
 def _plain(value: Any) -> Any:
+    """JSON-ready: numpy scalars as Python ones; NaN and infinities as null (the row's
+    interval_note says why)."""
     if isinstance(value, np.floating | float):
-        return None if np.isnan(value) else float(value)
+        return float(value) if math.isfinite(value) else None
     if isinstance(value, np.integer):
         return int(value)
     if isinstance(value, np.bool_):
@@ -368,18 +353,22 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     for name in order:
         rows = fold_rows[fold_rows["model"] == name].set_index(["repeat", "fold"])
         for metric in metrics:
-            spread = interval(rows[metric], share)
+            spread = interval(rows[metric], share, bounds=METRIC_RANGES[metric])
             model_rows.append({"model": name,
                                "kind": "black box" if name == benchmark else "glass box",
                                "metric": metric,
-                               **{k: spread[k] for k in ("mean", "lower", "upper")}})
+                               **{k: spread[k] for k in ("mean", "lower", "upper")},
+                               "interval_note": spread["note"]})
             if name == benchmark:
                 continue
             worse = base.loc[rows.index, metric] - rows[metric]  # higher is better
-            result = interval(worse if HIGHER_IS_BETTER[metric] else -worse, share)
+            result = interval(worse if HIGHER_IS_BETTER[metric] else -worse, share,
+                              bounds=COST_RANGES.get(metric, (-INF, INF)))
+            note = result.pop("note")
             cost_rows.append({"model": name, "metric": metric, "cost": result.pop("mean"),
                               **result, "distinguishable": bool(not (result["lower"] <= 0
-                                                                     <= result["upper"]))})
+                                                                     <= result["upper"])),
+                              "interval_note": note})
     models = pd.DataFrame(model_rows)
     costs = pd.DataFrame(cost_rows)
     sparsity = _sparsity(curve_rows, metrics, share)
@@ -400,7 +389,7 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "seed": settings.seed, "cutoff": settings.cutoff,
                        "stratified": goal == "classification",
                        "family_options": settings.family_options,
-                       "interval": "95%, corrected resampled t (Nadeau & Bengio 2003)",
+                       "interval": INTERVAL_METHOD,
                        "test_to_train_ratio": share}
     return Comparison(goal, primary, headline, models, costs, fold_rows.reset_index(drop=True),
                       sparsity, settings_record, provenance, schema.to_dict())
@@ -412,9 +401,10 @@ def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) ->
     rows = []
     for size, group in curve_rows.groupby("max_features", sort=True):
         for metric in metrics:
-            result = interval(group[metric], share)
+            result = interval(group[metric], share, bounds=METRIC_RANGES[metric])
             rows.append({"max_features": int(size), "metric": metric,
-                         **{k: result[k] for k in ("mean", "lower", "upper")}})
+                         **{k: result[k] for k in ("mean", "lower", "upper")},
+                         "interval_note": result["note"]})
     return pd.DataFrame(rows)
 
 
@@ -452,8 +442,14 @@ def make_headline(models: pd.DataFrame, costs: pd.DataFrame, primary: str,
 # ---------------------------------------------------------------- tables for people
 
 
-def _range(lower: float, upper: float, digits: int) -> str:
-    return "" if np.isnan(lower) else f"{lower:.{digits}f} to {upper:.{digits}f}"
+def _range(lower: float, upper: float, digits: int, note: Any = None) -> str:
+    """An interval for people; a clipped or zero-width interval says so."""
+    if np.isnan(lower):
+        return ""
+    text = f"{lower:.{digits}f} to {upper:.{digits}f}"
+    marks = [mark for key, mark in ((CLIPPED, "clipped"), (NO_VARIANCE, "no variance"))
+             if isinstance(note, str) and key in note]
+    return f"{text} ({', '.join(marks)})" if marks else text
 
 
 def metric_heading(comparison: Comparison, metric: str) -> str:
@@ -474,7 +470,8 @@ def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
             row[metric_heading(comparison, metric)] = f"{mine.loc[metric, 'mean']:.{digits}f}"
             if metric == primary:
                 row["95% interval"] = _range(mine.loc[metric, "lower"],
-                                             mine.loc[metric, "upper"], digits)
+                                             mine.loc[metric, "upper"], digits,
+                                             mine.loc[metric].get("interval_note"))
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -488,7 +485,8 @@ def cost_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
         rows.append({"model": gap["model"],
                      f"cost in {METRIC_NAMES[comparison.primary]}":
                          f"{gap['cost']:.{digits}f}",
-                     "95% interval": _range(gap["lower"], gap["upper"], digits),
+                     "95% interval": _range(gap["lower"], gap["upper"], digits,
+                                            gap.get("interval_note")),
                      "p-value": f"{gap['p_value']:.3f}",
                      "differs from zero": "yes" if gap["distinguishable"] else "no"})
     return pd.DataFrame(rows)
@@ -516,8 +514,9 @@ def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
     return pd.DataFrame({
         "features": rows["max_features"].astype(int).to_numpy(),
         name: [f"{m:.{digits}f}" for m in rows["mean"]],
-        "95% interval": [_range(lo, hi, digits) for lo, hi in
-                         zip(rows["lower"], rows["upper"], strict=True)],
+        "95% interval": [_range(lo, hi, digits, note) for lo, hi, note in
+                         zip(rows["lower"], rows["upper"],
+                             rows.get("interval_note", [None] * len(rows)), strict=True)],
     })
 
 
@@ -584,6 +583,7 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
     if version not in (1, VERSION):
         raise DataError(f"{source} is comparison format version {version!r}; this glassbox "
                         f"reads versions 1 and {VERSION}")
+    structure.check(structure.COMPARISON, document, source, DataError)
 
     def table(rows: Any) -> pd.DataFrame:
         frame = pd.DataFrame(rows or [])
@@ -593,13 +593,17 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
         return frame
 
     try:
-        costs = (_version_one_costs(document["differences"]) if version == 1
-                 else document["costs"])
-        models = table(document["models"]).drop(columns=["t", "p_value"], errors="ignore")
+        costs = read_within_ranges(_version_one_costs(document["differences"]) if version == 1
+                                   else document["costs"], COST_RANGES, "cost", source, "costs")
+        models = table(read_within_ranges(document["models"], METRIC_RANGES, "mean", source,
+                                          "models")).drop(columns=["t", "p_value"],
+                                                          errors="ignore")
         comparison = Comparison(
             task=str(document["task"]), primary=str(document["primary_metric"]),
             headline=str(document["headline"]), models=models, costs=table(costs),
-            folds=table(document.get("folds")), sparsity=table(document.get("sparsity_curve")),
+            folds=table(document.get("folds")), sparsity=table(read_within_ranges(
+                document.get("sparsity_curve") or [], METRIC_RANGES, "mean", source,
+                "sparsity_curve")),
             settings=dict(document["settings"]), provenance=dict(document["provenance"]),
             schema=document.get("schema"))
         if version == 1:

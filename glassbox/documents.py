@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from glassbox import structure
 from glassbox.errors import ModelFileError
 from glassbox.files import write_atomic
 
@@ -29,6 +30,7 @@ class Kind:
     name: str  # "model file", "points card": how messages speak of one file
     described: str  # "a glassbox model file": what a foreign file is not
     remedy: str  # what to do about an edited file: "restore the original or refit"
+    content: structure.Spec | None = None  # the declared structure of its content
 
 
 def canonical_json(content: Any) -> str:
@@ -42,7 +44,10 @@ def checksum(content: Any) -> str:
 
 
 def dumps(kind: Kind, content: dict[str, Any]) -> str:
-    """The file's text: indented, keys in a fixed order, ends with a newline."""
+    """The file's text: indented, keys in a fixed order, ends with a newline. Content
+    without its declared structure is refused: what is written always reads back."""
+    if kind.content is not None:
+        structure.check(kind.content, content, f"{kind.name} to write", ModelFileError)
     document = {"format": kind.format, "version": kind.version, "checksum": checksum(content),
                 kind.key: content}
     return json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
@@ -87,11 +92,16 @@ def loads(kind: Kind, text: str, source: str = "<text>") -> dict[str, Any]:
         raise ModelFileError(f"{name} holds no {kind.key}")
     try:
         actual = checksum(content)
-    except ValueError:
-        actual = None
+    except ValueError:  # NaN or Infinity: no file this tool writes holds one
+        if kind.content is not None:
+            structure.check(kind.content, content, name, ModelFileError)  # names the key
+        raise ModelFileError(f"{name} contains a value that is not a finite number "
+                             f"(NaN or Infinity); {kind.remedy}") from None
     if document.get("checksum") != actual:
         raise ModelFileError(f"{name} was changed after it was written (its checksum does "
                              f"not match its content); {kind.remedy}")
+    if kind.content is not None:
+        structure.check(kind.content, content, name, ModelFileError)
     return content
 
 

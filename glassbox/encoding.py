@@ -7,7 +7,10 @@ re-exports these names; import them from there.
 
 from __future__ import annotations
 
+import codecs
 import math
+import re
+import warnings
 from collections.abc import Iterable
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -17,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.columns import OTHER_LEVEL, ages_in_days
-from glassbox.errors import DataError
+from glassbox.errors import DataError, value_text
 from glassbox.guesses import FALSE_WORDS, TRUE_WORDS
 
 if TYPE_CHECKING:
@@ -34,29 +37,152 @@ MISSING_LEVEL = "(missing)"  # how a missing category is shown; never a level of
 
 
 def read_table(path: str | Path) -> pd.DataFrame:
-    """Read a CSV or Parquet file, with one clear error for anything unreadable."""
+    """Read a CSV (UTF-8) or Parquet file, with one clear error for anything unreadable.
+
+    A column name used twice is refused (which copy holds the data cannot be known), and
+    so is a CSV file with NUL bytes, text that is not UTF-8, or rows with more fields
+    than the header. A row with fewer fields reads the missing ones as blanks."""
     path = Path(path)
-    if not path.is_file():
+    if path.is_dir():
+        raise DataError(f"{path} is a folder, not a data file (name a CSV or Parquet file)")
+    if not path.exists():
         raise DataError(f"data file {path} does not exist")
-    suffix = path.suffix.lower()
+    if not path.is_file():
+        raise DataError(f"{path} is not a regular file, so not a CSV or Parquet data file")
     try:
-        if suffix in (".parquet", ".pq"):
-            frame = pd.read_parquet(path)
+        if path.suffix.lower() in (".parquet", ".pq"):
+            frame = _read_parquet(path)
         else:
-            frame = pd.read_csv(path, skipinitialspace=True, keep_default_na=False,
-                                na_values=list(BLANKS))
-    except pd.errors.EmptyDataError:
-        raise DataError(f"data file {path} is empty") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise DataError(f"data file {path} could not be read: {first}") from None
-    except ImportError:
-        raise DataError(f"reading Parquet file {path} needs pyarrow "
-                        "(pip install pyarrow)") from None
+            frame = _read_csv(path)
+    except OSError as exc:
+        raise DataError(f"data file {path} could not be read: "
+                        f"{exc.strerror or type(exc).__name__}") from None
     if frame.shape[0] == 0:
         raise DataError(f"data file {path} has a header but no data rows")
     frame.attrs["source"] = str(path)
     return frame
+
+
+def _read_csv(path: Path) -> pd.DataFrame:
+    _check_text(path)
+    header = _parse_csv(path, header=None, nrows=1, dtype=str, na_filter=False)
+    names = [str(name) for name in header.iloc[0].tolist()]
+    check_names(names, f"data file {path}")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", pd.errors.ParserWarning)
+        try:
+            return _parse_csv(path, keep_default_na=False, na_values=list(BLANKS),
+                              index_col=False)
+        except pd.errors.ParserWarning:  # rows longer than the header: never an index
+            raise DataError(f"data file {path}: its data rows have more fields than the "
+                            f"header has names ({len(names)}); name every column, or remove "
+                            "the extra commas at the ends of the rows") from None
+
+
+def _parse_csv(path: Path, **options: Any) -> pd.DataFrame:
+    """pandas' CSV parser, its complaints turned into one-line errors naming the file."""
+    try:
+        return pd.read_csv(path, skipinitialspace=True, encoding="utf-8", **options)
+    except pd.errors.EmptyDataError:
+        raise DataError(f"data file {path} is empty") from None
+    except (pd.errors.ParserError, ValueError) as exc:
+        raise DataError(f"data file {path}: {_parser_problem(str(exc))}") from None
+
+
+def _parser_problem(message: str) -> str:
+    """The CSV parser's complaint in the words of this tool, with the file's line."""
+    fields = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
+    if fields:
+        expected, line, saw = fields.groups()
+        return (f"line {line} has {saw} fields where the header has {expected} (a comma "
+                "inside a value that is not in quotes?)")
+    quote = re.search(r"EOF inside string starting at row (\d+)", message)
+    if quote:
+        return (f"a quoted value opened on line {int(quote.group(1)) + 1} is never closed "
+                "(an unbalanced \" quote)")
+    lines = message.strip().splitlines()
+    return "could not be read: " + (lines[0] if lines else "unknown parser error")
+
+
+TEXT_CHUNK = 1 << 20  # bytes read at a time when checking a CSV file's text
+NEWLINE = b"\n"
+
+
+def _check_text(path: Path) -> None:
+    """Refuse a CSV file with NUL bytes or text that is not UTF-8, naming the line."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    line = 1
+    with path.open("rb") as handle:
+        chunk = handle.read(TEXT_CHUNK)
+        if chunk.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+            raise DataError(f"data file {path} is UTF-16 text; save it as UTF-8 (in a "
+                            "spreadsheet: CSV UTF-8)")
+        while chunk:
+            nul = chunk.find(b"\x00")
+            if nul >= 0:
+                raise DataError(f"data file {path} has a NUL byte on line "
+                                f"{line + chunk.count(NEWLINE, 0, nul)} (a binary file, or "
+                                "damaged?)")
+            pending = len(decoder.getstate()[0])
+            try:
+                decoder.decode(chunk)
+            except UnicodeDecodeError as exc:
+                at = max(exc.start - pending, 0)
+                raise DataError(f"data file {path} is not UTF-8 text: byte "
+                                f"0x{exc.object[exc.start]:02x} on line "
+                                f"{line + chunk.count(NEWLINE, 0, at)}; save it as UTF-8 (in a "
+                                "spreadsheet: CSV UTF-8)") from None
+            line += chunk.count(NEWLINE)
+            chunk = handle.read(TEXT_CHUNK)
+    try:
+        decoder.decode(b"", final=True)
+    except UnicodeDecodeError:
+        raise DataError(f"data file {path} is not UTF-8 text: it ends inside a character "
+                        "(cut short?)") from None
+
+
+def _read_parquet(path: Path) -> pd.DataFrame:
+    try:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+    except ImportError:
+        raise DataError(f"reading Parquet file {path} needs pyarrow "
+                        "(pip install pyarrow)") from None
+    try:
+        schema = pq.read_schema(path)
+        check_names(list(schema.names), f"data file {path}")
+        for field in schema:
+            if pa.types.is_nested(field.type):
+                raise DataError(f"data file {path}: column {value_text(field.name)} holds "
+                                "lists or records; a data file holds one value per cell")
+        return pd.read_parquet(path)
+    except (pa.ArrowException, ValueError) as exc:
+        if isinstance(exc, DataError):
+            raise
+        lines = str(exc).strip().splitlines()
+        raise DataError(f"data file {path} could not be read as Parquet: "
+                        f"{lines[0] if lines else type(exc).__name__}") from None
+
+
+def check_names(names: list[str], where: str) -> None:
+    """Refuse a column name used twice (a blank name is read as "Unnamed: N", never
+    twice)."""
+    seen: dict[str, int] = {}
+    for position, name in enumerate(names, start=1):
+        if not name.strip():
+            continue
+        if name in seen:
+            raise DataError(f"{where} has the column {value_text(name)} twice (columns "
+                            f"{seen[name]} and {position}); rename or remove one: which "
+                            "copy holds the data cannot be known")
+        seen[name] = position
+
+
+def columns_text(columns: Iterable[Any], shown: int = 12) -> str:
+    """The first `shown` column names of a frame, for a message."""
+    names = list(columns)
+    return ", ".join(value_text(str(name)) for name in names[:shown]) + (
+        ", ..." if len(names) > shown else "")
 
 
 def _source(frame: pd.DataFrame, source: str | None) -> str:
@@ -118,9 +244,8 @@ def prepare(
         needed.append(schema.target.column)
     missing = [name for name in needed if name not in frame.columns]
     if missing:
-        raise DataError(f"{where}: missing column(s) {', '.join(repr(m) for m in missing)} "
-                        f"(it has: {', '.join(map(str, frame.columns[:12]))}"
-                        f"{', ...' if len(frame.columns) > 12 else ''})")
+        raise DataError(f"{where}: missing column(s) {', '.join(map(value_text, missing))} "
+                        f"(it has: {columns_text(frame.columns)})")
     if frame.shape[0] == 0:
         raise DataError(f"{where}: no rows")
     encoded = {spec.name: encode_column(frame[spec.name], spec, where) for spec in wanted}
@@ -169,7 +294,7 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     if bad.any():
         first = values[bad].iloc[0]
         raise DataError(f"{where}: column '{spec.name}' should hold numbers but has text in "
-                        f"{rows_text(bad)} (first: {str(first)!r})")
+                        f"{rows_text(bad)} (first: {value_text(first)})")
     numbers = numbers.astype(float)
     if not np.isfinite(numbers.to_numpy()).all():
         infinite = ~np.isfinite(numbers.to_numpy())
@@ -180,7 +305,7 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
         if fractional.any():
             raise DataError(f"{where}: column '{spec.name}' is declared integer but has "
                             f"fractions in {rows_text(fractional)} "
-                            f"(first: {numbers[fractional].iloc[0]!r})")
+                            f"(first: {value_text(numbers[fractional].iloc[0])})")
     return numbers
 
 
@@ -227,7 +352,7 @@ def _encode_flag(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
     if bad.any():
         first = values[bad].iloc[0]
         raise DataError(f"{where}: column '{spec.name}' is a flag (yes/no, true/false, 1/0) "
-                        f"but has other values in {rows_text(bad)} (first: {str(first)!r})")
+                        f"but has other values in {rows_text(bad)} (first: {value_text(first)})")
     return pd.Series(truthy.astype(float), index=values.index)
 
 
@@ -247,7 +372,7 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     labels = _labels(column)
     distinct = sorted(set(labels))
     if len(distinct) > 2:
-        shown = ", ".join(repr(v) for v in distinct[:6])
+        shown = ", ".join(map(value_text, distinct[:6]))
         raise DataError(f"{where}: target column '{name}' has {len(distinct)} labels ({shown}"
                         f"{', ...' if len(distinct) > 6 else ''}); a classification target "
                         "needs exactly two")
@@ -256,8 +381,9 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
         positive = choose_positive(distinct, labels)
     positive_text = label_text(positive)
     if positive_text not in distinct:
-        raise DataError(f"{where}: the positive label {positive!r} of target '{name}' never "
-                        f"occurs (labels found: {', '.join(repr(v) for v in distinct)})")
+        raise DataError(f"{where}: the positive label {value_text(positive)} of target "
+                        f"'{name}' never occurs (labels found: "
+                        f"{', '.join(map(value_text, distinct))})")
     return (labels == positive_text).to_numpy(dtype=float)
 
 

@@ -21,7 +21,7 @@ from glassbox.columns import MANY_LEVELS, OTHER_LEVEL
 from glassbox.errors import DataError, OptionError
 from glassbox.families import get_family
 from glassbox.metrics import classification_metrics, regression_metrics
-from glassbox.provenance import frame_fingerprint, library_versions
+from glassbox.provenance import fit_day, frame_fingerprint, library_versions
 from glassbox.schema import (
     MISSING_LEVEL,
     FeatureSpec,
@@ -98,6 +98,7 @@ def fit_model(
         "importance": importance,
         "glassbox_version": __version__,
         "versions": library_versions(),
+        "fit_date": fit_day(),
     }
     pooled = {f.name: len(f.pooled) for f in schema.used_features if f.pooled}
     if pooled:

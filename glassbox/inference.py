@@ -8,8 +8,15 @@ import numpy as np
 import pandas as pd
 
 from glassbox.columns import set_aside
-from glassbox.encoding import _missing_mask, _source, choose_positive, label_text, missing_mask
-from glassbox.errors import DataError
+from glassbox.encoding import (
+    _missing_mask,
+    _source,
+    choose_positive,
+    columns_text,
+    label_text,
+    missing_mask,
+)
+from glassbox.errors import DataError, value_text
 from glassbox.guesses import (
     FALSE_WORDS,
     TRUE_WORDS,
@@ -65,8 +72,8 @@ def infer_schema(
     if dates_as_age is not None:
         check_reference_date(dates_as_age, "the reference date for ages in days")
     if target not in frame.columns:
-        raise DataError(f"{where}: no target column '{target}' (it has: "
-                        f"{', '.join(map(str, frame.columns[:12]))})")
+        raise DataError(f"{where}: no target column {value_text(target)} (it has: "
+                        f"{columns_text(frame.columns)})")
     column = frame[target]
     labels = column[~_missing_mask(column)].map(label_text)
     distinct = sorted(set(labels))
@@ -75,15 +82,15 @@ def infer_schema(
         task = "regression" if (numeric and len(distinct) > 2) else "classification"
     if task == "classification":
         if len(distinct) != 2:
-            shown = ", ".join(repr(v) for v in distinct[:6])
+            shown = ", ".join(map(value_text, distinct[:6]))
             raise DataError(f"{where}: target column '{target}' has {len(distinct)} labels "
                             f"({shown}{', ...' if len(distinct) > 6 else ''}); a classification "
                             "target needs exactly two")
         positive = label_text(positive) if positive is not None else choose_positive(
             distinct, labels)
         if positive not in distinct:
-            raise DataError(f"{where}: positive label {positive!r} not found in target "
-                            f"'{target}' (labels: {', '.join(repr(v) for v in distinct)})")
+            raise DataError(f"{where}: positive label {value_text(positive)} not found in target "
+                            f"'{target}' (labels: {', '.join(map(value_text, distinct))})")
         positive = _natural(positive, column)
     else:
         positive = None

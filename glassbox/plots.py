@@ -218,6 +218,11 @@ def importance_figure(model: AdditiveModel) -> Figure:
     return figure
 
 
+def picture_names(features: Sequence[str]) -> list[str]:
+    """The files `write_plots` writes: the importance overview, then one per feature."""
+    return ["importance.png", *(f"{safe_file_name(name)}.png" for name in features)]
+
+
 def write_plots(model: AdditiveModel, folder: str | Path,
                 features: Sequence[str] | None = None) -> list[Path]:
     """Write `importance.png` and one `FEATURE.png` per chosen feature (all by
@@ -225,12 +230,11 @@ def write_plots(model: AdditiveModel, folder: str | Path,
     names = chosen_features(model, features)
     folder = output_folder(folder, "plots")
     written = []
-    figures = [("importance", importance_figure(model))]
-    figures += [(safe_file_name(name), feature_figure(model, name)) for name in names]
-    for stem, figure in figures:
+    figures = [importance_figure(model)] + [feature_figure(model, name) for name in names]
+    for file_name, figure in zip(picture_names(names), figures, strict=True):
         buffer = io.BytesIO()
         figure.savefig(buffer, format="png", metadata={"Software": None})
-        path = folder / f"{stem}.png"
+        path = folder / file_name
         write_atomic(path, buffer.getvalue())
         written.append(path)
     return written

@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
+import os
 import platform
 from importlib import metadata
 from pathlib import Path
 
 import pandas as pd
+
+from glassbox.errors import OptionError
 
 TRACKED = ("glassbox", "numpy", "pandas", "scikit-learn", "scipy", "pygam", "pulp")
 
@@ -36,3 +40,19 @@ def file_sha256(path: str | Path) -> str:
         for block in iter(lambda: handle.read(1 << 20), b""):
             digest.update(block)
     return "sha256:" + digest.hexdigest()
+
+
+def fit_day() -> str:
+    """Today's date in UTC (ISO 8601, YYYY-MM-DD), the day a model is fitted; when the
+    SOURCE_DATE_EPOCH environment variable is set (seconds since 1970-01-01 UTC, the
+    reproducible-builds convention), that moment's day instead, so outputs can be
+    byte-identical on any day."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch is None:
+        return dt.datetime.now(dt.UTC).date().isoformat()
+    try:
+        moment = dt.datetime.fromtimestamp(int(epoch), dt.UTC)
+    except (ValueError, OverflowError, OSError):
+        raise OptionError("the environment variable SOURCE_DATE_EPOCH must be a whole number "
+                          f"of seconds since 1970-01-01 UTC, not {epoch!r}") from None
+    return moment.date().isoformat()

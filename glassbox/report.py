@@ -10,7 +10,6 @@ it was made, so the same inputs give the same bytes.
 from __future__ import annotations
 
 import base64
-import datetime as dt
 import html
 import io
 import re
@@ -258,14 +257,11 @@ def _favourable_words(model: AdditiveModel, cutoff: float) -> str:
     return f"{_outcome_words(model)} {side} {cutoff:g}"
 
 
-def _dated(model: AdditiveModel, model_file: str | Path | None) -> tuple[str, str]:
-    for key in ("fitted_at", "fit_date", "fitted"):
-        if model.metadata.get(key):
-            return "fit date", str(model.metadata[key])
-    if model_file is None:
-        return "fit date", "not recorded"
-    stamp = dt.datetime.fromtimestamp(Path(model_file).stat().st_mtime, tz=dt.UTC)
-    return "model file modified (no fit date recorded)", stamp.strftime("%Y-%m-%d %H:%M UTC")
+def _dated(model: AdditiveModel) -> str:
+    """The fit date the model file records (UTC day); never the file's modification time,
+    so the same model file gives the same report."""
+    day = model.metadata.get("fit_date")
+    return f"{day} (UTC)" if day else "not recorded (the model file predates fit dates)"
 
 
 def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff: float,
@@ -288,8 +284,7 @@ def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff
     protected = [f.name for f in model.schema.protected_features]
     pairs["protected (never inputs)"] = ", ".join(protected) or "none declared"
     pairs["training rows"] = f"{meta['rows']:,}" if "rows" in meta else "not recorded"
-    label, date = _dated(model, model_file)
-    pairs[label] = date
+    pairs["fit date"] = _dated(model)
     versions = meta.get("versions") or {}
     pairs["library versions"] = ", ".join(f"{k} {v}" for k, v in versions.items()) \
         or "not recorded"
@@ -462,7 +457,19 @@ def png_bytes(figure: Figure) -> bytes:
 
 def picture_files(report: Report) -> dict[str, bytes]:
     """File name to PNG bytes for every picture of the report."""
-    return {f"{picture.name}.png": png_bytes(picture.figure) for picture in report.pictures}
+    return {_picture_file(picture): png_bytes(picture.figure) for picture in report.pictures}
+
+
+def _picture_file(picture: Picture) -> str:
+    return f"{picture.name}.png"
+
+
+def output_files(report: Report | None = None) -> list[tuple[str, str]]:
+    """(name, kind) of the files `write_report` writes: the two pages, then the pictures
+    (known once the report is built)."""
+    pictures = [] if report is None else report.pictures
+    return [(HTML_NAME, "html"), (MARKDOWN_NAME, "markdown"),
+            *((_picture_file(picture), "png") for picture in pictures)]
 
 
 def _cells(frame: pd.DataFrame) -> pd.DataFrame:

@@ -13,6 +13,7 @@ from typing import Any
 
 import pandas as pd
 
+from glassbox import structure
 from glassbox.errors import DataError
 from glassbox.files import read_json
 from glassbox.groups import MIN_GROUP, compare_groups, flag_caption, flag_words, size_note
@@ -34,9 +35,15 @@ def read_audit(path: str | Path) -> dict[str, Any]:
     if document.get("version") != VERSION:
         raise DataError(f"{path}: recourse audit version {document.get('version')!r}; this "
                         f"glassbox reads version {VERSION}")
-    for key in ("summary", "cost_quantiles", "main_changes", "binding_rules", "groups"):
-        if key not in document:
-            raise DataError(f"{path}: recourse audit file lacks '{key}'")
+    where = f"recourse audit file {path}"
+    structure.check(structure.AUDIT, document, where, DataError)
+    summary = document["summary"]
+    counted = (summary["with_plan"] + summary["no_plan"] + summary.get("misfits", 0)
+               + summary.get("outside", 0))
+    if counted > summary["declined"]:
+        raise structure.problem(where, "summary", f"counts {counted} rows with a plan, without "
+                                f"one, misfit or outside, more than its "
+                                f"{summary['declined']} declined rows", DataError)
     return document
 
 

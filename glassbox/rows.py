@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from glassbox.errors import OptionError
+from glassbox.errors import OptionError, value_text
 from glassbox.schema import Schema, label_text
 
 
@@ -26,7 +26,8 @@ def row_position(frame: pd.DataFrame, schema: Schema, *, id_value: str | None = 
         raise OptionError(f"{source} has no id column '{id_column}'")
     matches = (frame[id_column].map(label_text) == label_text(id_value)).to_numpy().nonzero()[0]
     if len(matches) == 0:
-        raise OptionError(f"{source}: no row with {id_column} = {id_value!r}")
+        raise OptionError(f"{source}: no row with {id_column} = {value_text(id_value)}")
     if len(matches) > 1:
-        raise OptionError(f"{source}: {len(matches)} rows have {id_column} = {id_value!r}")
+        raise OptionError(f"{source}: {len(matches)} rows have {id_column} = "
+                          f"{value_text(id_value)}")
     return int(matches[0])

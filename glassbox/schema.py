@@ -15,6 +15,7 @@ from datetime import date
 from pathlib import Path
 from typing import Any
 
+from glassbox import structure
 from glassbox.encoding import (  # noqa: F401  (re-exported: the schema module's readers)
     BLANKS,
     MISSING_LEVEL,
@@ -399,4 +400,5 @@ def _toml_value(value: Any) -> str:
 def load_schema(path: str | Path) -> Schema:
     """Read a TOML schema file."""
     data = read_toml(path, "schema file", SchemaError)
+    structure.check(structure.SCHEMA, data, f"schema file {path}", SchemaError)
     return Schema.from_dict(data, source=str(path))

@@ -252,14 +252,19 @@ def write_folder(model: AdditiveModel, folder: str | Path, fmt: str,
                  features: Sequence[str] | None = None) -> list[Path]:
     """`summary.EXT` (every feature) and one `FEATURE.EXT` per chosen feature in a
     folder; return the paths."""
+    names = chosen_features(model, features)
+    file_names = folder_names(names, fmt)
+    folder = output_folder(folder, "tables")
+    tables = [summary(model)] + [term_table(model, name) for name in names]
+    paths = [folder / file_name for file_name in file_names]
+    for path, table in zip(paths, tables, strict=True):
+        write_atomic(path, write(table, fmt))
+    return paths
+
+
+def folder_names(features: Sequence[str], fmt: str) -> list[str]:
+    """The files `write_folder` writes: `summary.EXT`, then one per feature."""
     if fmt not in SUFFIXES:
         raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(SUFFIXES)})")
-    names = chosen_features(model, features)
-    folder = output_folder(folder, "tables")
-    paths = [folder / f"summary{SUFFIXES[fmt]}"]
-    write_atomic(paths[0], write(summary(model), fmt))
-    for name in names:
-        path = folder / f"{safe_file_name(name)}{SUFFIXES[fmt]}"
-        write_atomic(path, write(term_table(model, name), fmt))
-        paths.append(path)
-    return paths
+    return [f"summary{SUFFIXES[fmt]}",
+            *(f"{safe_file_name(name)}{SUFFIXES[fmt]}" for name in features)]

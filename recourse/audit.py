@@ -102,19 +102,49 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
           context: Mapping[str, Any] | None = None, min_group: int = MIN_GROUP) -> Audit:
     """Summarise outcome rows: shares, cost quantiles, main changes, binding rules, groups
     (a group of fewer than `min_group` declined rows is shown but not flagged)."""
+    _check_counted_once(outcomes)
     status = outcomes["status"].astype(str)
     planned = outcomes[status == "plans"]
     stuck = outcomes[status == "none"]
+    misfits = int((status == "error").sum())
+    outside = int((status == "outside").sum())
+    if len(planned) + len(stuck) + misfits + outside != len(outcomes):
+        raise DataError(f"the audit's counts do not add up: {len(planned)} with a plan + "
+                        f"{len(stuck)} without + {misfits} misfits + {outside} outside "
+                        f"!= {len(outcomes)} declined rows")
     return Audit(
         declined=len(outcomes), with_plan=len(planned), no_plan=len(stuck),
-        misfits=int((status == "error").sum()),
+        misfits=misfits,
         cost_quantiles=_quantiles(planned["total_cost"]),
         main_changes=_counted(planned["main_change"], "feature", len(planned)),
         binding_rules=_counted(stuck["binding_rule"], "rule", len(stuck)),
         groups={column: by_group(outcomes, column, min_rows=min_group) for column in by},
         context=dict(context or {}), min_group=min_group,
-        outside=int((status == "outside").sum()),
+        outside=outside,
     )
+
+
+STATUSES = ("plans", "none", "error", "outside")  # what a declined row's outcome can be
+RESUME_COUNTS = (("parts_kept", "parts kept from an earlier run"),
+                 ("parts_replanned", "parts planned again (a failed check)"),
+                 ("files_ignored", "files ignored (not in the manifest)"))
+
+
+def _check_counted_once(outcomes: pd.DataFrame) -> None:
+    """Each declined row once (by its `row` number, when the outcomes have one), each with
+    a known status; otherwise the audit would count some rows twice or not at all."""
+    if "row" in outcomes:
+        repeated = outcomes["row"][outcomes["row"].duplicated()]
+        if len(repeated):
+            shown = ", ".join(str(int(r) + 1) for r in repeated.unique()[:10])
+            raise DataError(f"{repeated.nunique()} declined row(s) appear more than once among "
+                            f"the outcomes (data rows {shown}); each must be counted once")
+    status = outcomes["status"].astype(str)
+    unknown = sorted(set(status) - set(STATUSES))
+    if unknown:
+        raise DataError(f"{int((~status.isin(STATUSES)).sum())} outcome row(s) have a status "
+                        f"that is not one of {', '.join(STATUSES)} "
+                        f"({', '.join(map(repr, unknown[:5]))})")
 
 
 def summary_table(result: Audit) -> pd.DataFrame:
@@ -126,6 +156,10 @@ def summary_table(result: Audit) -> pd.DataFrame:
             ("value outside what the model can plan for", result.outside)]
     rows += [(f"cheapest plan cost, {name}", value)
              for name, value in result.cost_quantiles.items()]
+    resumed = result.context.get("resume")
+    if isinstance(resumed, Mapping):
+        rows += [(f"resume: {words}", resumed[key]) for key, words in RESUME_COUNTS
+                 if key in resumed]
     return pd.DataFrame(rows, columns=["measure", "value"])
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import sys
 from enum import StrEnum
 from pathlib import Path
@@ -14,8 +15,8 @@ from rich.console import Group, RenderableType
 from rich.text import Text
 
 from glassbox import artifact
-from glassbox.cli import friendly, stderr_console, stdout_console
-from glassbox.files import write_atomic
+from glassbox.cli import Force, friendly, stderr_console, stdout_console
+from glassbox.files import check_output, check_output_folder, write_atomic
 from glassbox.formats import to_csv
 from glassbox.groups import MIN_GROUP, flag_caption, flag_words
 from glassbox.provenance import file_sha256
@@ -24,6 +25,7 @@ from glassbox.schema import read_table
 from recourse import audit
 from recourse.batch import MOST_JOBS, NOT_STATED, plan_many, plans_frame, summary_frame
 from recourse.errors import PlanningError
+from recourse.manifest import MANIFEST
 from recourse.mutability import load_mutability, template
 from recourse.planner import CAUTION, MOST_PLANS, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
@@ -37,6 +39,8 @@ app = typer.Typer(
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
+# what --plans-out holds: the parts and the manifest (which the planner itself checks)
+PLANS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
 
 
 class PlanFormat(StrEnum):
@@ -79,8 +83,13 @@ def plan_command(
         help="Batch: write one CSV row per plan here.")] = None,
     jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1,
                                       max=MOST_JOBS)] = 1,
+    force: Force = False,
 ) -> None:
     """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
+    if out is not None and not declined:
+        raise PlanningError("--out is for --declined (one CSV row per plan); for one row, "
+                            "use --format json and redirect standard output")
+    check_output(out, "csv-plans", [model_file, mutability, row, data], force=force)
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     if declined:
@@ -142,19 +151,30 @@ def audit_command(
     min_group: Annotated[int, typer.Option(
         metavar="N", help="Groups with fewer declined rows are shown but not flagged.",
         min=1)] = MIN_GROUP,
+    force: Force = False,
 ) -> None:
     """Across every declined row: who can reach the goal, at what cost, and by group."""
     if resume and plans_out is None:
         raise PlanningError("--resume needs --plans-out DIR (where the finished parts are)")
     if format is AuditFormat.table and out is not None:
         raise PlanningError("--out needs --format json or markdown")
+    inputs = [model_file, mutability, data]
+    check_output(out, "recourse-audit" if format is AuditFormat.json else "markdown", inputs,
+                 force=force)
+    check_output_folder(plans_out, inputs, option="--plans-out", also=PLANS_FOLDER_FILES)
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     groups = list(by or [])
-    run = plan_at_scale(model, rules, data, engine=engine.value, jobs=jobs,
-                        scheduler=scheduler, out=plans_out, resume=resume, keep=groups,
-                        n_plans=1, solver=solver.value, partition_rows=partition_rows,
-                        progress=True)
+    try:
+        run = plan_at_scale(model, rules, data, engine=engine.value, jobs=jobs,
+                            scheduler=scheduler, out=plans_out, resume=resume, keep=groups,
+                            n_plans=1, solver=solver.value, partition_rows=partition_rows,
+                            progress=True, say=lambda line: stderr_console().print(
+                                line, markup=False, highlight=False, soft_wrap=True))
+    except KeyboardInterrupt:
+        sys.stderr.write("interrupted; rerun with --resume\n"
+                         if plans_out is not None else "interrupted\n")
+        raise typer.Exit(130) from None
     if run.missing:
         raise PlanningError(f"{len(run.missing)} of {run.partitions} partition(s) did not "
                             f"finish (numbers {', '.join(map(str, run.missing[:10]))}); rerun "
@@ -168,6 +188,9 @@ def audit_command(
                "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
                "goal_direction": goal.direction, "goal_target": goal.target,
                "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
+    if resume:
+        context["resume"] = {"parts_kept": run.partitions - len(run.planned),
+                             "parts_replanned": run.replanned, "files_ignored": run.ignored}
     result = audit.audit(run.outcomes, by=groups, context=context, min_group=min_group)
     if format is AuditFormat.table:
         stdout_console().print(audit_view(result))

@@ -9,23 +9,28 @@ outcome row per declined row. Engines only decide where partitions run:
            (a scheduler address) or one started for the run.
 
 With an output folder every finished partition is written at once as its own
-Parquet file, so a run that loses a worker can be finished with `resume`:
-only the partitions without a file are planned again, and no row is ever
-planned into two files. Results do not depend on the engine, the number of
-jobs or the partition size.
+Parquet file, listed in a manifest with its checksum (`recourse.manifest`), so a
+run that loses a worker can be finished with `resume`: only the partitions
+without a part that passes every check are planned again. Before the outcomes
+are returned, their row numbers are checked to be exactly the file's declined
+rows, each once. Results do not depend on the engine, the number of jobs or the
+partition size. Planning processes ignore SIGINT (the main process handles it)
+and end when the main process dies.
 """
 
 from __future__ import annotations
 
-import io
-import json
 import logging
 import math
-from collections.abc import Callable, Iterator, Sequence
+import os
+import re
+import signal
+import threading
+import time
+from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -33,7 +38,6 @@ import pandas as pd
 from glassbox import artifact
 from glassbox.additive import AdditiveModel
 from glassbox.errors import DataError, GlassboxError, OptionError
-from glassbox.files import output_folder, write_atomic
 from glassbox.provenance import file_sha256
 from recourse.batch import (
     OUTCOME_COLUMNS,
@@ -43,13 +47,12 @@ from recourse.batch import (
     typed_declined,
 )
 from recourse.errors import PlanningError
+from recourse.manifest import MANIFEST_KIND, PartsFolder, mutability_checksum
 from recourse.mutability import Mutability
 from recourse.program import DEFAULT_SOLVER, SOLVERS
+from recourse.source import Source, open_source, read_blocks, read_error
 
 ENGINES = ("local", "dask")
-MANIFEST = "manifest.json"
-MANIFEST_KIND = "recourse plans by partition"
-SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
 CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
 TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message")
 NUMBER_COLUMNS = ("score", "outcome", "total_cost", "largest_cost", "new_outcome",
@@ -64,6 +67,9 @@ class ScaleRun:
     partitions: int
     missing: tuple[int, ...] = ()  # partitions that did not finish: rerun with resume
     planned: tuple[int, ...] = ()  # partitions planned by this call (the others were on disk)
+    notes: tuple[str, ...] = ()  # resume: parts planned again (a failed check), files ignored
+    replanned: int = 0  # resume: parts found that failed a check
+    ignored: int = 0  # resume: files in the folder that the manifest does not list
 
     @property
     def complete(self) -> bool:
@@ -91,16 +97,32 @@ def plan_partition(partition: pd.DataFrame, model: AdditiveModel, mutability: Mu
         raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, absent))} "
                           "not in the data")
     if len(partition):
-        numbers = partition["row"].to_numpy(dtype=np.int64)
-        where = None if source is None else (
-            f"{source} (block of data rows {numbers.min() + 1}-{numbers.max() + 1}; "
-            "'data row N' below counts within the block)")
-        positions, encoded, parts, ids = typed_declined(model, partition, mutability, where,
-                                                        numbers=numbers)
+        positions, encoded, parts, ids = _declined(partition, model, mutability, source)
         results = plan_typed_rows(model, encoded, parts, ids, mutability, n_plans, solver)
     else:
         positions, results = np.array([], dtype=np.int64), []
     return _typed_outcomes(outcome_frame(results, model), partition, positions, model, keep)
+
+
+_ROW_NUMBERS = re.compile(r"\bdata rows? (\d+(?:, \d+)*)")
+
+
+def _declined(partition: pd.DataFrame, model: AdditiveModel, mutability: Mutability,
+              source: str | None) -> tuple[np.ndarray, pd.DataFrame, pd.DataFrame, list]:
+    """`recourse.batch.typed_declined` on a block; the data rows its errors name are
+    counted in the whole file (from 1, header not counted), not within the block."""
+    numbers = partition["row"].to_numpy(dtype=np.int64)
+    try:
+        return typed_declined(model, partition, mutability, source, numbers=numbers)
+    except GlassboxError as exc:
+        def shift(match: re.Match) -> str:
+            within = [int(n) for n in match.group(1).split(", ")]
+            if not all(1 <= n <= len(numbers) for n in within):
+                return match.group(0)
+            head = match.group(0)[:match.start(1) - match.start(0)]
+            return head + ", ".join(str(int(numbers[n - 1]) + 1) for n in within)
+
+        raise type(exc)(_ROW_NUMBERS.sub(shift, str(exc))) from None
 
 
 def _checked_keep(keep: Sequence[str]) -> tuple[str, ...]:
@@ -130,142 +152,33 @@ def _typed_outcomes(table: pd.DataFrame, partition: pd.DataFrame, positions: np.
     return table
 
 
-# ---------------------------------------------------------------- the input file
-
-
-@dataclass(frozen=True)
-class _Source:
-    """The input file as the engines read it: which columns, with which fixed types."""
-
-    path: Path
-    parquet: bool
-    columns: tuple[str, ...]
-    fixed_types: dict[str, str] = field(default_factory=dict)  # CSV only: id and keep columns
-    bytes_per_row: float = 100.0
-    template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
-
-    def csv_options(self) -> dict[str, Any]:
-        return {"usecols": list(self.columns), "dtype": dict(self.fixed_types),
-                "skipinitialspace": True}
-
-
-def _read_error(path: Path, exc: BaseException) -> DataError:
-    first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    return DataError(f"data file {path} could not be read: {first}")
-
-
-def _inspect(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> _Source:
-    """Check the header against the model and `keep` before any planning."""
-    if not path.is_file():
-        raise DataError(f"data file {path} does not exist")
-    parquet = path.suffix.lower() in (".parquet", ".pq")
-    try:
-        if parquet:
-            import pyarrow.parquet as pq
-
-            handle = pq.ParquetFile(path)
-            header = list(handle.schema_arrow.names)
-            rows = handle.metadata.num_rows
-            sample = handle.schema_arrow.empty_table().to_pandas()
-        else:
-            sample = pd.read_csv(path, nrows=SAMPLE_ROWS, skipinitialspace=True)
-            header, rows = [str(c) for c in sample.columns], len(sample)
-    except pd.errors.EmptyDataError:
-        raise DataError(f"data file {path} is empty") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise _read_error(path, exc) from None
-    if rows == 0:
-        raise DataError(f"data file {path} has a header but no data rows")
-    shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
-    missing = [name for name in model.features if name not in header]
-    if missing:
-        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
-                        f"model needs ({shown})")
-    unknown = [name for name in keep if name not in header]
-    if unknown:
-        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, unknown))} not in {path} "
-                          f"({shown})")
-    wanted = {*model.features, *keep, model.schema.id_column}
-    if "row" in wanted and "row" in header:
-        raise DataError(f"{path}: a column named 'row' clashes with the row numbers added "
-                        "to every partition; rename it")
-    columns = tuple(name for name in header if name in wanted)
-    fixed = {} if parquet else {name: _fixed_type(sample[name]) for name in columns
-                                if name not in model.features}
-    template = sample[list(columns)].iloc[:0].astype(fixed) if fixed else \
-        sample[list(columns)].iloc[:0]
-    per_row = 100.0
-    if not parquet:
-        with open(path, "rb") as handle:
-            text = b"".join(handle.readline() for _ in range(len(sample) + 1))
-        per_row = max(len(text) / (len(sample) + 1), 1.0)
-    return _Source(path, parquet, columns, fixed, per_row,
-                   template.assign(row=np.array([], dtype=np.int64)))
-
-
-def _fixed_type(column: pd.Series) -> str:
-    """One type for an id or kept column in every block (types guessed per block differ
-    when a block happens to hold only whole numbers, or a gap)."""
-    if pd.api.types.is_bool_dtype(column):
-        return "boolean"
-    if pd.api.types.is_integer_dtype(column):
-        return "Int64"
-    if pd.api.types.is_float_dtype(column):
-        return "float64"
-    return "str"
-
-
-def _local_partitions(source: _Source, partition_rows: int) -> Iterator[pd.DataFrame]:
-    """The file in blocks of `partition_rows` rows (Parquet: at most that many), each with
-    its global `row` numbers; never the whole file in memory."""
-    offset = 0
-    try:
-        if source.parquet:
-            import pyarrow as pa
-            import pyarrow.parquet as pq
-
-            batches = pq.ParquetFile(source.path).iter_batches(
-                batch_size=partition_rows, columns=list(source.columns))
-            blocks: Iterator[pd.DataFrame] = (
-                pa.Table.from_batches([batch]).to_pandas() for batch in batches)
-        else:
-            blocks = pd.read_csv(source.path, chunksize=partition_rows,
-                                 **source.csv_options())
-        for block in blocks:
-            block = block.reset_index(drop=True)
-            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
-            offset += len(block)
-            yield block
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise _read_error(source.path, exc) from None
-
-
-# ---------------------------------------------------------------- the output folder
+# ---------------------------------------------------------------- the outcomes
 
 
 @dataclass
 class _Results:
     """Finished partitions: kept in memory, or written to the folder as each finishes."""
 
-    out: Path | None
-    done: set[int]
+    folder: PartsFolder | None
+    say: Callable[[str], None] | None = None
     tables: dict[int, pd.DataFrame] = field(default_factory=dict)
     planned: list[int] = field(default_factory=list)
 
-    def record(self, index: int, table: pd.DataFrame) -> None:
-        if self.out is not None:
-            buffer = io.BytesIO()
-            table.to_parquet(buffer, index=False)
-            write_atomic(_part_path(self.out, index), buffer.getvalue())
+    def done(self, index: int, first_row: int, rows: int) -> bool:
+        """Whether partition `index` (`rows` input rows from `first_row`) is on disk."""
+        return self.folder is not None and self.folder.keeps(index, first_row, rows,
+                                                             self.say)
+
+    def record(self, index: int, table: pd.DataFrame, first_row: int, rows: int) -> None:
+        if self.folder is not None:
+            self.folder.write(index, table, first_row, rows)
         else:
             self.tables[index] = table
-        self.done.add(index)
         self.planned.append(index)
 
-    def outcomes(self, count: int, template: pd.DataFrame) -> pd.DataFrame:
-        if self.out is not None:
-            tables = [pd.read_parquet(_part_path(self.out, i)) for i in range(count)
-                      if i in self.done]
+    def outcomes(self, template: pd.DataFrame) -> pd.DataFrame:
+        if self.folder is not None:
+            tables = [self.folder.read(i) for i in sorted(self.folder.records)]
         else:
             tables = [self.tables[i] for i in sorted(self.tables)]
         tables = [table for table in tables if len(table)] or [template]
@@ -273,41 +186,35 @@ class _Results:
         return frame.sort_values("row", kind="stable").reset_index(drop=True)
 
 
-def _part_path(out: Path, index: int) -> Path:
-    return out / f"part-{index:05d}.parquet"
+def _span(block: pd.DataFrame) -> tuple[int, int]:
+    """A block's first global row position and its length."""
+    return (int(block["row"].iloc[0]) if len(block) else 0), len(block)
 
 
-def _open_folder(out: Path, resume: bool, settings: dict[str, Any]) -> set[int]:
-    """Create or reopen the output folder; the partitions already on disk."""
-    folder = output_folder(out, "planned partitions")
-    manifest = folder / MANIFEST
-    parts = sorted(folder.glob("part-*.parquet"))
-    if not manifest.is_file():
-        if parts:
-            raise OptionError(f"{folder} holds part files but no {MANIFEST}; use an empty "
-                              "folder")
-        write_atomic(manifest, json.dumps(settings, indent=1) + "\n")
-        return set()
-    if not resume:
-        raise OptionError(f"{folder} already holds a run; resume it (--resume) or choose an "
-                          "empty folder")
-    try:
-        earlier = json.loads(manifest.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise OptionError(f"{manifest} is not a readable manifest ({exc})") from None
-    if not isinstance(earlier, dict) or earlier.get("kind") != MANIFEST_KIND:
-        raise OptionError(f"{manifest} is not a manifest of planned partitions")
-    labels = {"input_sha256": "another input file", "model_checksum": "another model",
-              "partition_rows": "another partition size", "engine": "another engine",
-              "plans": "another number of plans", "solver": "another solver",
-              "keep": "other kept columns"}
-    for key, label in labels.items():
-        if earlier.get(key) != settings[key]:
-            hint = ("; the engines cut partitions differently, so resume with the same engine"
-                    if key == "engine" else "")
-            raise OptionError(f"cannot resume in {folder}: it was planned with {label} "
-                              f"({key} {earlier.get(key)!r}, now {settings[key]!r}){hint}")
-    return {int(path.stem.split("-")[1]) for path in parts}
+def _check_exactly_once(outcomes: pd.DataFrame, source: Source, task: _Task,
+                        partition_rows: int) -> None:
+    """The outcome rows must be the file's declined rows, each exactly once: counted again
+    here from the file, independently of the parts."""
+    expected = [block["row"].to_numpy(dtype=np.int64)[
+                    _declined(block, task.model, task.mutability, task.source)[0]]
+                for block in read_blocks(source, partition_rows)]
+    declined = np.concatenate(expected) if expected else np.array([], dtype=np.int64)
+    found = outcomes["row"].to_numpy(dtype=np.int64)
+    values, counts = np.unique(found, return_counts=True)
+    problems = [(f"{words} {_row_list(rows)}") for words, rows in (
+        ("counted more than once:", values[counts > 1]),
+        ("declined but missing:", np.setdiff1d(declined, values)),
+        ("not declined, yet present:", np.setdiff1d(values, declined))) if len(rows)]
+    if problems:
+        raise DataError(f"the planned outcomes of {source.path} do not count every declined "
+                        f"row exactly once ({'; '.join(problems)}); plan into an empty "
+                        "folder")
+
+
+def _row_list(positions: np.ndarray, shown: int = 10) -> str:
+    """'data rows 3, 8, 12 (and 40 more)' from 0-based positions."""
+    more = f" (and {len(positions) - shown} more)" if len(positions) > shown else ""
+    return "data rows " + ", ".join(str(int(p) + 1) for p in positions[:shown]) + more
 
 
 # ---------------------------------------------------------------- the whole population
@@ -317,13 +224,14 @@ def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
                   engine: str = "local", jobs: int = 1, scheduler: str | None = None,
                   out: Path | None = None, resume: bool = False, keep: Sequence[str] = (),
                   n_plans: int = 1, solver: str = DEFAULT_SOLVER, partition_rows: int = 2000,
-                  progress: Callable[[int, int | None], None] | bool | None = None
-                  ) -> ScaleRun:
+                  progress: Callable[[int, int | None], None] | bool | None = None,
+                  say: Callable[[str], None] | None = None) -> ScaleRun:
     """Plan for every declined row of the file `data` (CSV or Parquet), partition by
     partition, on `engine`; with `out`, each finished partition is saved as it finishes.
 
     `progress` is True (a bar on standard error) or a callable(done, total) counting the
-    partitions planned by this call (total None while unknown).
+    partitions planned by this call (total None while unknown). `say` receives one line
+    per part that resume plans again (it failed a check) and per file it ignores.
     """
     if engine not in ENGINES:
         raise OptionError(f"unknown engine {engine!r}; known engines: {', '.join(ENGINES)}")
@@ -338,17 +246,19 @@ def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
         raise OptionError("a scheduler address needs the dask engine")
     keep = _checked_keep(keep)
     data = Path(data)
-    source = _inspect(data, model, keep)
-    done: set[int] = set()
+    source = open_source(data, model, keep)
+    task = _Task(model, mutability, n_plans, solver, keep, str(data))
+    template = _typed_template(source, task)
+    folder = None
     if out is not None:
-        settings = {"kind": MANIFEST_KIND, "version": 1, "input": str(data),
+        settings = {"kind": MANIFEST_KIND, "input": str(data),
                     "input_sha256": file_sha256(data),
                     "model_checksum": artifact.checksum(artifact.model_to_dict(model)),
+                    "mutability_checksum": mutability_checksum(mutability),
                     "partition_rows": partition_rows, "engine": engine, "plans": n_plans,
                     "solver": solver, "keep": list(keep)}
-        done = _open_folder(Path(out), resume, settings)
-    results = _Results(None if out is None else Path(out), done)
-    task = _Task(model, mutability, n_plans, solver, keep, str(data))
+        folder = PartsFolder.open(Path(out), resume, settings, list(template.columns), say)
+    results = _Results(folder, say)
     report = progress_bar(None, "planning partitions") if progress is True else \
         (progress or None)
     try:
@@ -358,8 +268,12 @@ def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
     finally:
         if progress is True and report is not None:
             report(-1, None)
-    return ScaleRun(results.outcomes(count, _typed_template(source, task)), count,
-                    tuple(sorted(missing)), tuple(sorted(results.planned)))
+    outcomes = results.outcomes(template)
+    if not missing:
+        _check_exactly_once(outcomes, source, task, partition_rows)
+    return ScaleRun(outcomes, count, tuple(sorted(missing)), tuple(sorted(results.planned)),
+                    *((tuple(folder.notes), folder.replanned, folder.ignored)
+                      if folder is not None else ()))
 
 
 @dataclass(frozen=True)
@@ -378,7 +292,7 @@ class _Task:
                               solver=self.solver, keep=self.keep, source=self.source)
 
 
-def _typed_template(source: _Source, task: _Task) -> pd.DataFrame:
+def _typed_template(source: Source, task: _Task) -> pd.DataFrame:
     """The outcome frame of no rows, with the types every partition's frame has."""
     return task(source.template)
 
@@ -386,29 +300,61 @@ def _typed_template(source: _Source, task: _Task) -> pd.DataFrame:
 # ---------------------------------------------------------------- local engine
 
 _WORKER: dict[str, _Task] = {}  # set once per pool process by `_start_worker`
+PARENT_CHECK_SECONDS = 0.5  # how often a planning process checks that its parent lives
 
 
-def _start_worker(model_text: str, mutability: Mutability, n_plans: int, solver: str,
-                  keep: tuple[str, ...], source: str) -> None:
-    """Pool initializer: the model arrives once per process, as its JSON text."""
+def _start_worker(parent: int, model_text: str, mutability: Mutability, n_plans: int,
+                  solver: str, keep: tuple[str, ...], source: str) -> None:
+    """Pool initializer: the model arrives once per process, as its JSON text. The process
+    leaves SIGINT to its parent and ends when the parent `parent` dies."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _end_with_parent(parent)
     model = artifact.loads(model_text, "<model sent to a planning process>")
     _WORKER["task"] = _Task(model, mutability, n_plans, solver, keep, source)
+
+
+def _end_with_parent(parent: int) -> None:
+    """On Linux the kernel kills this process when its parent dies (PR_SET_PDEATHSIG);
+    everywhere a watchdog thread ends it within PARENT_CHECK_SECONDS once it is orphaned."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass  # not Linux: the watchdog alone
+
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(PARENT_CHECK_SECONDS)
+        os._exit(1)
+
+    if os.getppid() != parent:  # the parent died before the kernel was told
+        os._exit(1)
+    threading.Thread(target=watch, name="parent-watchdog", daemon=True).start()
 
 
 def _plan_in_worker(partition: pd.DataFrame) -> pd.DataFrame:
     return _WORKER["task"](partition)
 
 
-def _run_local(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+def _stop_workers(pool) -> None:
+    """End a pool's processes now (after an interruption or an error: no more work)."""
+    for process in list((getattr(pool, "_processes", None) or {}).values()):
+        if process.is_alive():
+            process.terminate()
+
+
+def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: int,
                scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
-    blocks = enumerate(_local_partitions(source, partition_rows))
+    blocks = enumerate(read_blocks(source, partition_rows))
     count, finished = 0, 0
     if jobs == 1:
         for index, block in blocks:
             count = index + 1
-            if index in results.done:
+            if results.done(index, *_span(block)):
                 continue
-            results.record(index, task(block))
+            results.record(index, task(block), *_span(block))
             finished += 1
             if report:
                 report(finished, None)
@@ -418,13 +364,13 @@ def _run_local(source: _Source, task: _Task, results: _Results, report, *, jobs:
     from concurrent.futures.process import BrokenProcessPool
 
     missing: set[int] = set()
-    pending: dict[Future, int] = {}
+    pending: dict[Future, tuple[int, int, int]] = {}  # index, first row, rows
     broken = False
     pool = ProcessPoolExecutor(
         max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
         initializer=_start_worker,
-        initargs=(artifact.dumps(task.model), task.mutability, task.n_plans, task.solver,
-                  task.keep, task.source))
+        initargs=(os.getpid(), artifact.dumps(task.model), task.mutability, task.n_plans,
+                  task.solver, task.keep, task.source))
     try:
         exhausted = False
         while pending or not exhausted:
@@ -435,34 +381,37 @@ def _run_local(source: _Source, task: _Task, results: _Results, report, *, jobs:
                     break
                 index, block = step
                 count = index + 1
-                if index in results.done:
+                if results.done(index, *_span(block)):
                     continue
                 try:
-                    pending[pool.submit(_plan_in_worker, block)] = index
+                    pending[pool.submit(_plan_in_worker, block)] = (index, *_span(block))
                 except BrokenProcessPool:
                     broken = True
                     missing.add(index)
             if broken and not exhausted:  # count the partitions that will not be planned
-                for index, _ in blocks:
+                for index, block in blocks:
                     count = index + 1
-                    if index not in results.done:
+                    if not results.done(index, *_span(block)):
                         missing.add(index)
                 exhausted = True
             if not pending:
                 continue
             ready, _ = wait(pending, return_when=FIRST_COMPLETED)
             for future in sorted(ready, key=pending.__getitem__):
-                index = pending.pop(future)
+                index, first_row, rows = pending.pop(future)
                 try:
                     table = future.result()
                 except (BrokenProcessPool, CancelledError):
                     broken = True  # a planning process died: its partitions stay missing
                     missing.add(index)
                     continue
-                results.record(index, table)
+                results.record(index, table, first_row, rows)
                 finished += 1
                 if report:
                     report(finished, None)
+    except BaseException:  # an interruption or an error: the other partitions are not needed
+        _stop_workers(pool)
+        raise
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
     return count, missing
@@ -497,7 +446,7 @@ def _connect(scheduler: str | None, jobs: int):
                           f"{CONNECT_SECONDS} s ({first})") from None
 
 
-def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: int,
+def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: int,
               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
     import dask
     import dask.dataframe as dd
@@ -520,8 +469,9 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
             except GlassboxError:
                 raise
             except (ValueError, TypeError, OSError) as exc:
-                raise _dask_read_error(source.path, exc) from None
-            ends = np.cumsum(np.asarray(lengths, dtype=np.int64))
+                raise _daskread_error(source.path, exc) from None
+            counts = np.asarray(lengths, dtype=np.int64).tolist()
+            ends = np.cumsum(np.asarray(counts, dtype=np.int64))
             offsets = [0, *ends[:-1].tolist()]
             numbered = frame.map_partitions(_number_rows, offsets,
                                             meta=source.template.iloc[:0])
@@ -531,7 +481,8 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
                 solver=task.solver, keep=task.keep, source=task.source, meta=meta,
                 enforce_metadata=False)
             pieces = planned.to_delayed()
-            todo = [i for i in range(len(pieces)) if i not in results.done]
+            todo = [i for i in range(len(pieces))
+                    if not results.done(i, offsets[i], counts[i])]
             futures = client.compute([pieces[i] for i in todo])
             index_of = {future.key: i for future, i in zip(futures, todo, strict=True)}
             missing: set[int] = set()
@@ -551,7 +502,7 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
                         raise
                     missing.add(index)
                     continue
-                results.record(index, table)
+                results.record(index, table, offsets[index], counts[index])
                 future.release()  # the worker may drop its copy now
                 finished += 1
                 if report:
@@ -563,11 +514,11 @@ def _run_dask(source: _Source, task: _Task, results: _Results, report, *, jobs: 
                 cluster.close()
 
 
-def _dask_read_error(path: Path, exc: BaseException) -> DataError:
+def _daskread_error(path: Path, exc: BaseException) -> DataError:
     """dask guesses column types from the file's start; name the columns that break it."""
     text = str(exc)
     if "Mismatched dtypes" not in text:
-        return _read_error(path, exc)
+        return read_error(path, exc)
     names = [line.split("|")[1].strip() for line in text.splitlines()
              if line.startswith("|") and "Column" not in line]
     return DataError(f"{path}: column(s) {', '.join(map(repr, names))} change type further "

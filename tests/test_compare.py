@@ -138,7 +138,8 @@ def test_only_paired_costs_are_tested_against_zero(sparse_only):
     assert not {"t", "p_value"} & set(sparse_only.models.columns)
     assert {"t", "p_value"} <= set(sparse_only.costs.columns)
     for row in sparse_only.to_dict()["models"]:
-        assert set(row) == {"model", "kind", "metric", "mean", "lower", "upper"}
+        assert set(row) == {"model", "kind", "metric", "mean", "lower", "upper",
+                            "interval_note"}
 
 
 def test_sparsity_curve_against_statsmodels(sparse_only, hmda):

@@ -77,7 +77,7 @@ from scipy import stats
 from threadpoolctl import threadpool_limits
 
 from glassbox.additive import CurveTerm, LevelsTerm, Term
-from glassbox.errors import DataError, OptionError
+from glassbox.errors import DataError, OptionError, value_text
 from glassbox.families.base import FamilyFit
 from glassbox.families.spline_penalty import Search, build_problem, search_penalties
 from glassbox.families.spline_scale import SCALES, Scale, fit_scale
@@ -167,7 +167,8 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
         column = features[name]
         distinct = column.nunique()
         if distinct < 2:
-            raise DataError(f"feature '{name}' has a single value ({column.dropna().iloc[0]!r}) "
+            only = value_text(column.dropna().iloc[0])
+            raise DataError(f"feature '{name}' has a single value ({only}) "
                             "in the training data; it cannot shape a score, so ignore it in the "
                             "schema")
         if spec.kind == "category":

@@ -1,0 +1,125 @@
+"""The input file of a population run, read in blocks: its header checked against the model
+before any planning, fixed column types for id and kept columns, each block with its rows'
+0-based positions in the whole file (column `row`); never the whole file in memory."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.additive import AdditiveModel
+from glassbox.errors import DataError, OptionError
+
+SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
+
+
+@dataclass(frozen=True)
+class Source:
+    """The input file as the engines read it: which columns, with which fixed types."""
+
+    path: Path
+    parquet: bool
+    columns: tuple[str, ...]
+    fixed_types: dict[str, str] = field(default_factory=dict)  # CSV only: id and keep columns
+    bytes_per_row: float = 100.0
+    template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
+
+    def csv_options(self) -> dict[str, Any]:
+        return {"usecols": list(self.columns), "dtype": dict(self.fixed_types),
+                "skipinitialspace": True}
+
+
+def read_error(path: Path, exc: BaseException) -> DataError:
+    first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    return DataError(f"data file {path} could not be read: {first}")
+
+
+def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Source:
+    """Check the header against the model and `keep` before any planning."""
+    if not path.is_file():
+        raise DataError(f"data file {path} does not exist")
+    parquet = path.suffix.lower() in (".parquet", ".pq")
+    try:
+        if parquet:
+            import pyarrow.parquet as pq
+
+            handle = pq.ParquetFile(path)
+            header = list(handle.schema_arrow.names)
+            rows = handle.metadata.num_rows
+            sample = handle.schema_arrow.empty_table().to_pandas()
+        else:
+            sample = pd.read_csv(path, nrows=SAMPLE_ROWS, skipinitialspace=True)
+            header, rows = [str(c) for c in sample.columns], len(sample)
+    except pd.errors.EmptyDataError:
+        raise DataError(f"data file {path} is empty") from None
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        raise read_error(path, exc) from None
+    if rows == 0:
+        raise DataError(f"data file {path} has a header but no data rows")
+    shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
+    missing = [name for name in model.features if name not in header]
+    if missing:
+        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
+                        f"model needs ({shown})")
+    unknown = [name for name in keep if name not in header]
+    if unknown:
+        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, unknown))} not in {path} "
+                          f"({shown})")
+    wanted = {*model.features, *keep, model.schema.id_column}
+    if "row" in wanted and "row" in header:
+        raise DataError(f"{path}: a column named 'row' clashes with the row numbers added "
+                        "to every partition; rename it")
+    columns = tuple(name for name in header if name in wanted)
+    fixed = {} if parquet else {name: _fixed_type(sample[name]) for name in columns
+                                if name not in model.features}
+    template = sample[list(columns)].iloc[:0].astype(fixed) if fixed else \
+        sample[list(columns)].iloc[:0]
+    per_row = 100.0
+    if not parquet:
+        with open(path, "rb") as handle:
+            text = b"".join(handle.readline() for _ in range(len(sample) + 1))
+        per_row = max(len(text) / (len(sample) + 1), 1.0)
+    return Source(path, parquet, columns, fixed, per_row,
+                   template.assign(row=np.array([], dtype=np.int64)))
+
+
+def _fixed_type(column: pd.Series) -> str:
+    """One type for an id or kept column in every block (types guessed per block differ
+    when a block happens to hold only whole numbers, or a gap)."""
+    if pd.api.types.is_bool_dtype(column):
+        return "boolean"
+    if pd.api.types.is_integer_dtype(column):
+        return "Int64"
+    if pd.api.types.is_float_dtype(column):
+        return "float64"
+    return "str"
+
+
+def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
+    """The file in blocks of `partition_rows` rows (Parquet: at most that many), each with
+    its global `row` numbers; never the whole file in memory."""
+    offset = 0
+    try:
+        if source.parquet:
+            import pyarrow as pa
+            import pyarrow.parquet as pq
+
+            batches = pq.ParquetFile(source.path).iter_batches(
+                batch_size=partition_rows, columns=list(source.columns))
+            blocks: Iterator[pd.DataFrame] = (
+                pa.Table.from_batches([batch]).to_pandas() for batch in batches)
+        else:
+            blocks = pd.read_csv(source.path, chunksize=partition_rows,
+                                 **source.csv_options())
+        for block in blocks:
+            block = block.reset_index(drop=True)
+            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
+            offset += len(block)
+            yield block
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        raise read_error(source.path, exc) from None
