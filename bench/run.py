@@ -915,6 +915,86 @@ def levels_rows(sets: dict[str, tuple]) -> list[str]:
     return lines
 
 
+def fuzz_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
+    """Damaged inputs of every kind, each run as a real process (`python -m glassbox` or
+    `python -m recourse`) with a time limit; GLASSBOX_FUZZ_CASES sets how many (400:
+    about ten minutes on two idle cores, where starting each process costs ~2.5 s of CPU)."""
+    import collections
+    import os
+    import shutil
+    import subprocess
+    from concurrent.futures import ThreadPoolExecutor
+
+    from tests.fuzzing import KINDS, ROWS, fingerprints, make_inputs, prepare_case
+
+    cases = int(os.environ.get("GLASSBOX_FUZZ_CASES", "400"))
+    limit = 300  # seconds per case: far above a case's time on a busy two-core machine
+    inputs = make_inputs(folder / "fuzz-inputs")
+    counts: collections.Counter = collections.Counter()
+    internal: collections.Counter = collections.Counter()
+    environment = {**os.environ, "GLASSBOX_TRACEBACK": "0"}
+
+    def one(index: int) -> tuple[str, str, str]:
+        kind = KINDS[index % len(KINDS)]
+        case = prepare_case(inputs, kind, index // len(KINDS), folder / f"fuzz-case-{index}")
+        before = fingerprints(case.damaged.parent)
+        try:
+            done = subprocess.run([sys.executable, "-m", case.program, *case.args],
+                                  capture_output=True, text=True, timeout=limit,
+                                  env=environment, cwd=case.damaged.parent)
+            status, output = done.returncode, done.stderr
+        except subprocess.TimeoutExpired:
+            status, output = None, ""
+        changed = fingerprints(case.damaged.parent) != before
+        shutil.rmtree(case.damaged.parent, ignore_errors=True)
+        lines = [line for line in output.splitlines() if line.strip()]
+        last = lines[-1] if lines else ""
+        if status is None:
+            verdict = "hangs (killed)"
+        elif status == 0:
+            verdict = "successes (exit 0)"
+        elif status == 2 and last.startswith("error: ") and "Traceback" not in output:
+            verdict = "clean errors (exit 2, one line)"
+        elif status == 1:
+            verdict = "internal errors or tracebacks (exit 1)"
+        else:
+            verdict = f"other endings (exit {status})"
+        return verdict, "changed" if changed else "", f"{kind}: {last[:140]}"
+
+    start = time.perf_counter()
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        for verdict, changed, last in pool.map(one, range(cases)):
+            counts[verdict] += 1
+            counts["inputs changed"] += bool(changed)
+            if verdict.startswith(("internal", "other")):
+                internal[last] += 1
+    minutes = (time.perf_counter() - start) / 60
+    lines = [
+        "## Fuzzing: damaged inputs as real processes",
+        "",
+        f"{cases:,} cases, {cases // len(KINDS):,} or so of each of the {len(KINDS)} kinds of "
+        f"file the commands read ({', '.join(KINDS)}); each damages one valid file (byte flips, "
+        "truncation, lines deleted, duplicated or swapped, odd cells and values, wrong JSON "
+        "types, keys deleted or added; model files and cards half the time with a recomputed "
+        "checksum) and runs a command that reads it, two processes at a time, at most "
+        f"{limit} s each; {minutes:.1f} minutes in all. Inputs from tests/fuzzing.py: the "
+        f"first {ROWS} rows of modeldata credit_data and what the commands make of them.",
+        "",
+        "| ending | cases |",
+        "|---|---:|",
+    ]
+    for verdict in ("clean errors (exit 2, one line)", "successes (exit 0)",
+                    "internal errors or tracebacks (exit 1)", "hangs (killed)",
+                    "inputs changed"):
+        lines.append(f"| {verdict} | {counts[verdict]:,} |")
+    for verdict in sorted(k for k in counts if k.startswith("other")):
+        lines.append(f"| {verdict} | {counts[verdict]:,} |")
+    if internal:
+        lines += ["", "Most common last lines of the internal errors:", ""]
+        lines += [f"- {n} × {text}" for text, n in internal.most_common(10)]
+    return lines
+
+
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
     with tempfile.TemporaryDirectory() as scratch:
@@ -923,14 +1003,14 @@ def main() -> None:
         if only:
             for name in only:
                 rows = globals()[f"{name}_rows"]
-                extra = (folder,) if name in ("audit", "file") else ()
+                extra = (folder,) if name in ("audit", "file", "fuzz") else ()
                 print("\n".join(rows(sets, *extra)))
             return
         sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
-                    levels_rows(sets)]
+                    levels_rows(sets), fuzz_rows(sets, folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",

@@ -40,11 +40,11 @@ from glassbox.families import FAMILIES
 from glassbox.files import check_output, check_output_folder, table_kind, write_atomic
 from glassbox.fitting import fit_model, rows_with_target, training_fit
 from glassbox.groups import MIN_GROUP
+from glassbox.guard import EXIT_USER_ERROR, Interrupted, run_guarded, show_error
 from glassbox.inference import infer_schema
 from glassbox.provenance import file_sha256
 from glassbox.render import (
     comparison_view,
-    error_text,
     fit_view,
     frame_table,
     key_values,
@@ -60,7 +60,11 @@ app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
 )
-EXIT_USER_ERROR = 2
+# bounds of numeric options: a value past them is refused before any work (issue 13)
+MAX_SEED = 2**32 - 1  # numpy's and scikit-learn's largest seed
+MAX_REPEATS = 1000  # repeats of the folds; each is a full cross-validation
+MAX_JOBS = 256  # processes side by side; more than the fits to run would only wait
+MAX_TOP = 1000  # reasons per row; a model has one reason at most per feature
 DROP_HELP = "Drop rows with no target value (counted on screen) instead of refusing the file."
 Force = Annotated[bool, typer.Option(
     "--force", help="Overwrite an existing output file of another kind (a CSV, a model "
@@ -90,7 +94,9 @@ def stderr_console() -> Console:
 
 
 def friendly(command: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn the project's errors into one line and exit status 2; show warnings briefly."""
+    """Turn the project's errors into one line and exit status 2; show warnings briefly.
+
+    Anything else goes on to the last line of defence (`glassbox.guard.run_guarded`)."""
     @functools.wraps(command)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         with warnings.catch_warnings(record=True) as caught:
@@ -99,8 +105,14 @@ def friendly(command: Callable[..., Any]) -> Callable[..., Any]:
                 result = command(*args, **kwargs)
             except GlassboxError as exc:
                 _show_warnings(caught)
-                stderr_console().print(error_text(str(exc)), soft_wrap=True)
+                show_error(str(exc))
                 raise typer.Exit(EXIT_USER_ERROR) from None
+            except KeyboardInterrupt as exc:
+                _show_warnings(caught)
+                raise Interrupted(*exc.args) from None
+            except BaseException:
+                _show_warnings(caught)
+                raise
         _show_warnings(caught)
         return result
     return wrapper
@@ -359,10 +371,13 @@ def compare_command(
         help="Comma-separated glass-box families.")] = "sparse,spline,boosted",
     benchmark: Annotated[Benchmark, typer.Option(
         help="The black box: boosted trees or a random forest.")] = DEFAULT_BENCHMARK,
-    folds: Annotated[int, typer.Option(help="Cross-validation folds.")] = 5,
-    repeats: Annotated[int, typer.Option(help="Repeats of the folds.")] = 1,
-    seed: Annotated[int, typer.Option(help="Seed of the folds and the models.")] = 0,
-    jobs: Annotated[int, typer.Option(help="Folds fitted in parallel.")] = 1,
+    folds: Annotated[int, typer.Option(help="Cross-validation folds.", min=2)] = 5,
+    repeats: Annotated[int, typer.Option(help="Repeats of the folds.", min=1,
+                                         max=MAX_REPEATS)] = 1,
+    seed: Annotated[int, typer.Option(help="Seed of the folds and the models.", min=0,
+                                      max=MAX_SEED)] = 0,
+    jobs: Annotated[int, typer.Option(help="Folds fitted in parallel.", min=1,
+                                      max=MAX_JOBS)] = 1,
     cutoff: Annotated[float, typer.Option(
         help="Probability cut-off for accuracy.")] = 0.5,
     format: Annotated[CompareFormat, typer.Option(
@@ -374,6 +389,9 @@ def compare_command(
     force: Force = False,
 ) -> None:
     """Cross-validated accuracy cost of each glass-box family against a black box."""
+    if seed + repeats - 1 > MAX_SEED:  # repeat r seeds its models with seed + r
+        raise OptionError(f"--seed {seed} with --repeats {repeats} passes the largest seed, "
+                          f"{MAX_SEED}: use a seed of at most {MAX_SEED - repeats + 1}")
     settings = CompareSettings(
         families=tuple(f.strip() for f in families.split(",") if f.strip()),
         benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed, jobs=jobs,
@@ -424,7 +442,7 @@ def reasons_command(
     id_value: Annotated[str | None, typer.Option("--id", help="The row with this id.")] = None,
     index: Annotated[int | None, typer.Option(help="The N-th data row, from 1.")] = None,
     every: Annotated[bool, typer.Option("--all", help="Every row, and a summary.")] = False,
-    top: Annotated[int, typer.Option(help="Reasons per row.")] = 4,
+    top: Annotated[int, typer.Option(help="Reasons per row.", min=1, max=MAX_TOP)] = 4,
     cutoff: Annotated[float | None, typer.Option(
         help="Cut-off for the --all summary: a probability (default 0.5) or, for "
              "regression, a predicted value.")] = None,
@@ -569,5 +587,5 @@ def progress_note(message: str) -> Iterator[None]:
 
 
 def main() -> None:
-    """Console entry point."""
-    app()
+    """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
+    sys.exit(run_guarded(app))

@@ -19,6 +19,7 @@ from glassbox.cli import Force, friendly, stderr_console, stdout_console
 from glassbox.files import check_output, check_output_folder, write_atomic
 from glassbox.formats import to_csv
 from glassbox.groups import MIN_GROUP, flag_caption, flag_words
+from glassbox.guard import run_guarded
 from glassbox.provenance import file_sha256
 from glassbox.render import frame_table
 from glassbox.schema import read_table
@@ -291,5 +292,5 @@ def result_view(model, result: PlanResult) -> RenderableType:
 
 
 def main() -> None:
-    """Console entry point."""
-    app()
+    """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
+    sys.exit(run_guarded(app))

@@ -238,14 +238,15 @@ def credit_model(tmp_path_factory):
 
 
 def test_a_nan_in_a_model_file_is_named_as_not_finite(credit_model, tmp_path):
-    """A NaN intercept used to be reported as "changed after it was written"."""
+    """A NaN intercept used to be reported as "changed after it was written"; the file's
+    declared structure now names the key as well."""
     path, _ = credit_model
     document = json.loads(path.read_text(encoding="utf-8"))
     document["model"]["intercept"] = float("nan")
     broken = tmp_path / "nan.json"
     broken.write_text(json.dumps(document), encoding="utf-8")
-    with pytest.raises(ModelFileError, match="nan.json contains a value that is not a finite "
-                                             "number"):
+    with pytest.raises(ModelFileError, match="nan.json: intercept must be a finite number, "
+                                             "not NaN"):
         artifact.load(broken)
 
 

@@ -1,0 +1,3 @@
+from recourse.cli import main
+
+main()
