@@ -38,11 +38,12 @@ def read_audit(path: str | Path) -> dict[str, Any]:
     where = f"recourse audit file {path}"
     structure.check(structure.AUDIT, document, where, DataError)
     summary = document["summary"]
-    counted = summary["with_plan"] + summary["no_plan"] + summary.get("misfits", 0)
+    counted = (summary["with_plan"] + summary["no_plan"] + summary.get("misfits", 0)
+               + summary.get("outside", 0))
     if counted > summary["declined"]:
         raise structure.problem(where, "summary", f"counts {counted} rows with a plan, without "
-                                f"one or misfit, more than its {summary['declined']} declined "
-                                "rows", DataError)
+                                f"one, misfit or outside, more than its "
+                                f"{summary['declined']} declined rows", DataError)
     return document
 
 
@@ -122,6 +123,8 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
              f"have a plan; {summary['no_plan']:,} have none within the rules"
              + (f"; the rules do not fit {summary['misfits']:,}" if summary.get("misfits")
                 else "")
+             + (f"; {summary['outside']:,} have a value outside what the model can plan for"
+                if summary.get("outside") else "")
              + ". Plans are model what-ifs, not advice or a promise; protected "
                "characteristics are never levers, only groupings here.")
     blocks: list[Any] = [Paragraph(intro)]

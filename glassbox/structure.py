@@ -487,7 +487,7 @@ AUDIT = Record(
               "summary": Record(required={"declined": COUNT, "with_plan": COUNT,
                                           "no_plan": COUNT},
                                 optional={"share_with_plan": Number(low=0, high=1, null=True),
-                                          "misfits": COUNT}),
+                                          "misfits": COUNT, "outside": COUNT}),
               "cost_quantiles": Keyed(Number(low=0, null=True)),
               "main_changes": Items(Record(required={"feature": TEXT, "rows": COUNT,
                                                      "share": SHARE}, extra=Anything())),

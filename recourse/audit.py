@@ -51,6 +51,7 @@ class Audit:
     groups: dict[str, pd.DataFrame] = field(default_factory=dict)  # column -> GROUP_COLUMNS
     context: dict[str, Any] = field(default_factory=dict)  # goal, files, settings
     min_group: int = MIN_GROUP  # groups with fewer declined rows are shown, not flagged
+    outside: int = 0  # rows with a value outside what the model can plan for
 
     @property
     def share_with_plan(self) -> float:
@@ -106,10 +107,11 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
     planned = outcomes[status == "plans"]
     stuck = outcomes[status == "none"]
     misfits = int((status == "error").sum())
-    if len(planned) + len(stuck) + misfits != len(outcomes):
+    outside = int((status == "outside").sum())
+    if len(planned) + len(stuck) + misfits + outside != len(outcomes):
         raise DataError(f"the audit's counts do not add up: {len(planned)} with a plan + "
-                        f"{len(stuck)} without + {misfits} misfits != {len(outcomes)} "
-                        "declined rows")
+                        f"{len(stuck)} without + {misfits} misfits + {outside} outside "
+                        f"!= {len(outcomes)} declined rows")
     return Audit(
         declined=len(outcomes), with_plan=len(planned), no_plan=len(stuck),
         misfits=misfits,
@@ -118,10 +120,11 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
         binding_rules=_counted(stuck["binding_rule"], "rule", len(stuck)),
         groups={column: by_group(outcomes, column, min_rows=min_group) for column in by},
         context=dict(context or {}), min_group=min_group,
+        outside=outside,
     )
 
 
-STATUSES = ("plans", "none", "error")  # what a declined row's outcome can be
+STATUSES = ("plans", "none", "error", "outside")  # what a declined row's outcome can be
 RESUME_COUNTS = (("parts_kept", "parts kept from an earlier run"),
                  ("parts_replanned", "parts planned again (a failed check)"),
                  ("files_ignored", "files ignored (not in the manifest)"))
@@ -149,7 +152,8 @@ def summary_table(result: Audit) -> pd.DataFrame:
     rows = [("declined rows", result.declined), ("with a plan", result.with_plan),
             ("share with a plan", result.share_with_plan),
             ("no plan within the rules", result.no_plan),
-            ("rules do not fit the row", result.misfits)]
+            ("rules do not fit the row", result.misfits),
+            ("value outside what the model can plan for", result.outside)]
     rows += [(f"cheapest plan cost, {name}", value)
              for name, value in result.cost_quantiles.items()]
     resumed = result.context.get("resume")
@@ -181,7 +185,8 @@ def to_dict(result: Audit) -> dict[str, Any]:
         "summary": {"declined": result.declined, "with_plan": result.with_plan,
                     "share_with_plan": None if not result.declined
                     else result.share_with_plan,
-                    "no_plan": result.no_plan, "misfits": result.misfits},
+                    "no_plan": result.no_plan, "misfits": result.misfits,
+                    "outside": result.outside},
         "cost_quantiles": result.cost_quantiles,
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),

@@ -9,10 +9,13 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
+from recourse.candidates import OUTSIDE
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
-from recourse.planner import PlanResult, plan_encoded
+from recourse.planner import PlanResult, check_plan_count, plan_encoded
 from recourse.program import DEFAULT_SOLVER
+
+MOST_JOBS = 256  # workers at once: more processes than this only thrash a machine
 
 
 def declined_rows(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,
@@ -65,6 +68,10 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
     """Plan for every declined row of `frame`, in row order."""
     if frame is None:
         raise PlanningError("--declined needs --data FILE")
+    check_plan_count(n_plans)
+    if isinstance(jobs, bool) or not isinstance(jobs, int) or not 1 <= jobs <= MOST_JOBS:
+        raise PlanningError(f"--jobs must be a whole number from 1 to {MOST_JOBS}, "
+                            f"not {jobs!r}")
     positions, encoded, parts, ids = typed_declined(model, frame, mutability, source)
     spans = [slice(start, min(start + chunk, len(positions)))
              for start in range(0, len(positions), chunk)]
@@ -181,11 +188,13 @@ def summary_frame(results: list[PlanResult]) -> pd.DataFrame:
     with_plan = [r for r in results if r.plans]
     costs = np.array([r.plans[0].total_cost for r in with_plan])
     misfits = sum(r.status == "error" for r in results)
+    outside = sum(r.status == "outside" for r in results)
     rows = [{"measure": "declined rows", "value": float(len(results))},
             {"measure": "with a plan", "value": float(len(with_plan))},
             {"measure": "no plan within the rules",
              "value": float(sum(r.status == "none" for r in results))},
-            {"measure": "rules do not fit the row", "value": float(misfits)}]
+            {"measure": "rules do not fit the row", "value": float(misfits)},
+            {"measure": OUTSIDE, "value": float(outside)}]
     if len(costs):
         for label, q in (("cheapest plan cost, 10%", 10), ("median", 50), ("90%", 90)):
             rows.append({"measure": label, "value": float(np.percentile(costs, q))})

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
-from recourse.errors import MutabilityError
+from recourse.errors import MutabilityError, OutsideError
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.program import best_changes
 
@@ -31,6 +31,16 @@ MOST_VALUES = 1_000_000  # a feature with more undominated values than this is r
 LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
 LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
 NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
+# A row's value beyond this many steps from zero is "outside what the model can plan for":
+# floats that large are spaced more than 1/1024 of a step apart (2**52 / 2**10), so grid
+# points anchored on the value could no longer be placed where the rules put them.
+FARTHEST_STEPS = 2**42
+OUTSIDE = "value outside what the model can plan for"
+WHOLE = 2.0**52  # floats this large are whole numbers
+# Above this, a float's spacing exceeds 10**-DECIMALS: rounding to DECIMALS drops no noise,
+# and np.round's multiply-and-divide would move the value (1e15 + 0.5 became 1e15 + 0.625)
+# or overflow to infinity (past about 1e296).
+ROUNDED_BELOW = 2.0**53 / 10**DECIMALS
 
 
 @dataclass(frozen=True)
@@ -95,8 +105,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
                             len(levels))
     now = float(current)
     kind = model.schema.feature(feature).kind
-    lower, upper = _interval(feature, now, rule, kind)
     step = rule.step if rule.step is not None else (1.0 if kind != "number" else None)
+    check_plannable(model, feature, now, step)
+    lower, upper = _interval(feature, now, rule, kind)
     if rule.change == "fixed":
         values, weighed = np.empty(0), 0
     elif isinstance(term, StepTerm):
@@ -110,6 +121,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     everything = np.concatenate([[now], values])
     costs = _costs(model, feature, now, everything, rule)
     costs[0] = 0.0
+    if not np.all(np.isfinite(costs)):
+        raise OutsideError(f"{OUTSIDE}: moving {feature} from {now:g} costs more than a "
+                           "floating-point number can hold")
     _check_costs_grow(feature, now, everything, costs)
     return _undominated(everything, term.evaluate(everything), costs, toward, reach, weighed)
 
@@ -145,6 +159,42 @@ def _undominated(values: np.ndarray, contributions: np.ndarray, costs: np.ndarra
     gains = toward * (contributions[1:] - contributions[0])
     kept = np.concatenate([[0], np.sort(best_changes(gains, costs[1:], reach)) + 1])
     return FeatureCandidates(values[kept], contributions[kept], costs[kept], weighed)
+
+
+def plannable_unit(model: AdditiveModel, feature: str, step: float | None) -> float:
+    """What a value of `feature` is measured against: the step, or with no step (knots and
+    bounds only) the width of the training range (1 when there is none)."""
+    if step is not None:
+        return float(step)
+    profile = next((p for p in model.profiles if p.feature == feature), None)
+    table = profile.percentiles if profile is not None else ()
+    width = float(table[-1] - table[0]) if len(table) else 0.0
+    return width if math.isfinite(width) and width > 0 else 1.0
+
+
+def check_plannable(model: AdditiveModel, feature: str, now: float, step: float | None) -> None:
+    """Refuse a current value more than FARTHEST_STEPS units from zero (OutsideError, the
+    row's own status); a table whose own knots or edges lie that far is the step's fault
+    (MutabilityError: the rules are too fine for every row)."""
+    unit = plannable_unit(model, feature, step)
+    term = model.term(feature)
+    breaks = np.asarray(term.knots if isinstance(term, CurveTerm) else term.edges, float)
+    what = f"steps of {unit:g}" if step is not None else (
+        f"times the training range's width ({unit:g})")
+    if len(breaks) and not np.abs(breaks).max() <= FARTHEST_STEPS * unit:
+        raise MutabilityError(f"[feature.{feature}] step {unit:g} is too fine for the "
+                              f"table's range: its knots or edges lie beyond 2**42 {what}")
+    if not abs(now) <= FARTHEST_STEPS * unit:
+        raise OutsideError(f"{OUTSIDE}: {feature} = {now:g} lies beyond 2**42 {what} from "
+                           "zero, where its steps can no longer be placed exactly")
+
+
+def rounded(values: Any) -> np.ndarray:
+    """Values rounded to DECIMALS (grid noise such as 0.1 + 0.2 dropped) where that can drop
+    noise, below ROUNDED_BELOW; larger values are left exactly as they are."""
+    values = np.asarray(values, dtype=float)
+    small = np.abs(values) < ROUNDED_BELOW
+    return np.where(small, np.round(np.where(small, values, 0.0), DECIMALS), values)
 
 
 def _check_costs_grow(feature: str, now: float, values: np.ndarray, costs: np.ndarray) -> None:
@@ -186,8 +236,8 @@ def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[f
     lower = -math.inf if rule.lower is None else rule.lower
     upper = math.inf if rule.upper is None else rule.upper
     if rule.largest_change is not None:  # rounded like the grid, so now + k*step can hit it
-        lower = max(lower, float(np.round(now - rule.largest_change, DECIMALS)))
-        upper = min(upper, float(np.round(now + rule.largest_change, DECIMALS)))
+        lower = max(lower, float(rounded(now - rule.largest_change)))
+        upper = min(upper, float(rounded(now + rule.largest_change)))
     if kind == "flag":
         lower, upper = max(lower, 0.0), min(upper, 1.0)
     if rule.change == "increase":
@@ -199,7 +249,7 @@ def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[f
 
 def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray:
     """Grid points `steps` whole steps from `now` on one side (+1 up, -1 down), rounded."""
-    return np.round(now + side * np.asarray(steps, dtype=float) * step, DECIMALS)
+    return rounded(now + side * np.asarray(steps, dtype=float) * step)
 
 
 def _first_past(now: float, step: float, side: int, targets: np.ndarray,
@@ -442,7 +492,7 @@ def supply_values(breaks: Sequence[float], lower: float, upper: float, step: flo
             raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the "
                                   f"table's range: more than {LARGEST_STEP_COUNT:,} steps")
         steps = np.floor(anchors)[:, None] + np.arange(-1, 3)
-        points = np.round(steps.ravel() * step, DECIMALS)
+        points = rounded(steps.ravel() * step)
     return _distinct(points[(points >= lower) & (points <= upper)])
 
 

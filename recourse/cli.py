@@ -24,11 +24,11 @@ from glassbox.provenance import file_sha256
 from glassbox.render import frame_table
 from glassbox.schema import read_table
 from recourse import audit
-from recourse.batch import NOT_STATED, plan_many, plans_frame, summary_frame
+from recourse.batch import MOST_JOBS, NOT_STATED, plan_many, plans_frame, summary_frame
 from recourse.errors import PlanningError
 from recourse.manifest import MANIFEST
 from recourse.mutability import load_mutability, template
-from recourse.planner import CAUTION, PlanResult, find_plans, plan_records
+from recourse.planner import CAUTION, MOST_PLANS, PlanResult, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
 from recourse.scale import ENGINES, plan_at_scale
@@ -75,13 +75,15 @@ def plan_command(
         help="The N-th data row, counting from 1.", min=1)] = None,
     declined: Annotated[bool, typer.Option(
         help="Plan for every row of --data that misses the goal.")] = False,
-    plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1)] = 3,
+    plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1,
+                                       max=MOST_PLANS)] = 3,
     solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = SOLVER_CHOICE,
     format: Annotated[PlanFormat, typer.Option(
         "--format", help="table (terminal) or json.")] = PlanFormat.table,
     out: Annotated[Path | None, typer.Option(
         help="Batch: write one CSV row per plan here.")] = None,
-    jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1)] = 1,
+    jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1,
+                                      max=MOST_JOBS)] = 1,
     force: Force = False,
 ) -> None:
     """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
@@ -131,7 +133,7 @@ def audit_command(
         help="Group the audit by this column (repeatable): a protected column, a region...")
     ] = None,
     jobs: Annotated[int, typer.Option(help="Workers (processes) planning at once.",
-                                      min=1)] = 1,
+                                      min=1, max=MOST_JOBS)] = 1,
     engine: Annotated[Engine, typer.Option(
         help="local: a process pool here; dask: a dask.distributed cluster.")] = Engine.local,
     scheduler: Annotated[str | None, typer.Option(
@@ -263,6 +265,8 @@ def result_view(model, result: PlanResult) -> RenderableType:
         Text(f"{who}: {_outcome(model, result.outcome)} ({goal})", style="bold")]
     if result.status == "already":
         lines.append(Text("It already meets the goal; no change is needed."))
+    elif result.status in ("outside", "error"):
+        lines.append(Text(f"No plan: {result.message}", style="bold"))
     elif result.status == "none":
         lines.append(Text("No plan reaches the goal within the rules.", style="bold"))
         lines.append(Text(f"The best the rules allow: {_outcome(model, result.best_outcome)}."))

@@ -11,3 +11,8 @@ class MutabilityError(GlassboxError, ValueError):
 
 class PlanningError(GlassboxError, ValueError):
     """A planning request cannot be carried out (bad row, unknown id, ...)."""
+
+
+class OutsideError(PlanningError):
+    """A row's value lies so far out that the planner cannot place its steps exactly: the row
+    gets its own status ("outside"), never a hang or a plan that silently differs."""

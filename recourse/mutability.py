@@ -192,7 +192,12 @@ def _goal(entry: Any, model: AdditiveModel, where: str) -> Goal:
                                     or isinstance(max_changes, bool) or max_changes < 1):
         raise MutabilityError(f"{here}max_changes must be a whole number of at least 1, "
                               f"not {max_changes!r}")
-    goal = Goal(target, _choice(entry, "direction", DIRECTIONS, "at-least", here), margin,
+    if "direction" not in entry and model.schema.target.better is None:
+        raise MutabilityError(f"{here}direction is required: the model does not say which "
+                              'way is better for the person (give direction = "at-least" or '
+                              '"at-most")')
+    default = _better_way(model) if model.schema.target.better is not None else "at-least"
+    goal = Goal(target, _choice(entry, "direction", DIRECTIONS, default, here), margin,
                 max_changes, _choice(entry, "objective", OBJECTIVES, "total-cost", here))
     try:
         goal.threshold(model.link)

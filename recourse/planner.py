@@ -20,7 +20,7 @@ import pandas as pd
 from glassbox.additive import AdditiveModel
 from glassbox.reasons import best_of, central_words
 from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
-from recourse.errors import PlanningError
+from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.program import (
     BUFFER,
@@ -33,6 +33,7 @@ from recourse.program import (
 )
 from recourse.supply import Stretch, accepted, least_first
 
+MOST_PLANS = 100  # distinct plans per row: more asks for a search with no useful end
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
            "promise of any decision. Real decisions follow the lender's or marketplace's "
@@ -71,7 +72,8 @@ class Plan:
 class PlanResult:
     """What the planner found for one row."""
 
-    status: str  # "plans" | "already" | "none" | "error" (the rules do not fit the row)
+    status: str  # "plans" | "already" | "none" | "error" (the rules do not fit the row) |
+    # "outside" (a value the planner cannot place steps around exactly, see candidates)
     score: float
     outcome: float
     target: float
@@ -82,7 +84,7 @@ class PlanResult:
     binding: tuple[str, ...] = ()  # "none": the rules that bind, most limiting first
     binding_rules: tuple[str, ...] = ()  # the same as short names ("bounds on x", "x fixed")
     row_id: Any = None
-    message: str = ""  # "error": why the rules cannot be applied to this row
+    message: str = ""  # "error", "outside": why the rules cannot be applied to this row
 
 
 def _reaches(score: float, threshold: float, direction: str) -> bool:
@@ -105,8 +107,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                  parts: pd.Series | None = None) -> PlanResult:
     """The same for one row already typed by `AdditiveModel.encode` (a one-row frame);
     `parts` may carry its contributions when the caller scored many rows at once."""
-    if n_plans < 1:
-        raise PlanningError(f"--plans must be at least 1, not {n_plans}")
+    check_plan_count(n_plans)
     goal = mutability.goal
     if parts is None:
         parts = model.contributions_encoded(encoded).iloc[0]
@@ -118,7 +119,10 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     if not goal.missed(np.array([score]), model.link)[0]:  # the margin is for plans only
         return PlanResult("already", **common)
     need = gain_needed(score, threshold, goal.direction)
-    candidates = encoded_candidates(model, encoded.iloc[0], mutability, need)
+    try:
+        candidates = encoded_candidates(model, encoded.iloc[0], mutability, need)
+    except OutsideError as exc:
+        return PlanResult("outside", message=str(exc), **common)
     names = tuple(candidates)
     program = row_program(candidates, score, parts, goal, threshold)
     solutions: list[Solution] = []
@@ -143,6 +147,13 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
                       binding_rules=tuple(rule for rule, _ in findings), **common)
+
+
+def check_plan_count(n_plans: int) -> None:
+    """Refuse a number of plans per row below 1 or above MOST_PLANS."""
+    if not 1 <= n_plans <= MOST_PLANS:
+        raise PlanningError(f"--plans must be a whole number from 1 to {MOST_PLANS}, "
+                            f"not {n_plans}")
 
 
 def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,

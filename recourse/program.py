@@ -364,7 +364,8 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
     that costs a little and gains nothing; this takes such changes back out.
     """
     (gains, costs), picked, need = _tables(program), list(choice), _need(program)
-    while True:
+    # each move makes one group strictly cheaper, so a group moves at most once per candidate
+    for _ in range(sum(len(cost) for cost in costs) + 1):
         total = sum(g[c] for g, c in zip(gains, picked, strict=True))
         changed = _changed(program, tuple(picked))
         best = (0.0, -1, -1)  # (saving, group, candidate)
@@ -379,6 +380,7 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
         if best[1] < 0:
             return tuple(picked)
         picked[best[1]] = best[2]
+    raise RuntimeError("polishing a choice moved more often than there are candidates")
 
 
 def _no_plan(solver: str) -> Solution:

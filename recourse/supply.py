@@ -17,7 +17,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
-from recourse.candidates import DECIMALS, supply_rules, supply_values
+from recourse.candidates import (
+    LARGEST_STEP_COUNT,
+    WHOLE,
+    rounded,
+    supply_rules,
+    supply_values,
+)
+from recourse.errors import MutabilityError
 from recourse.mutability import ANY_LEVEL, FeatureRule
 
 
@@ -48,7 +55,7 @@ def accepted(model: AdditiveModel, rule: FeatureRule, floor: float,
     else:
         found = _bins(np.asarray(term.edges, float), np.asarray(term.values, float), floor,
                       toward, lower, upper)
-    return found if step is None else _on_grid(found, step)
+    return found if step is None else _on_grid(found, step, rule.feature)
 
 
 def least_first(model: AdditiveModel, rule: FeatureRule,
@@ -132,22 +139,30 @@ def _merged(pieces: list[Stretch]) -> tuple[Stretch, ...]:
     return tuple(out)
 
 
-def _on_grid(found: tuple[Stretch, ...], step: float) -> tuple[Stretch, ...]:
+def _on_grid(found: tuple[Stretch, ...], step: float, feature: str) -> tuple[Stretch, ...]:
     """Each stretch narrowed to the multiples of `step` in it (dropped if there are none)."""
     out = []
     for piece in found:
-        low, high = piece.low, piece.high
-        if math.isfinite(low):
-            low = float(np.round(math.ceil(low / step) * step, DECIMALS))
-            while low < piece.low or (piece.low_open and low == piece.low):
-                low = float(np.round(low + step, DECIMALS))
-        if math.isfinite(high):
-            high = float(np.round(math.floor(high / step) * step, DECIMALS))
-            while high > piece.high:
-                high = float(np.round(high - step, DECIMALS))
+        low = _grid_end(piece.low, step, 1, piece.low_open, feature)
+        high = _grid_end(piece.high, step, -1, False, feature)
         if low <= high:
             out.append(Stretch(low, high))
     return tuple(out)
+
+
+def _grid_end(end: float, step: float, side: int, open_: bool, feature: str) -> float:
+    """The multiple of `step` nearest `end` on the inside (side +1: at or past it, past it
+    when `open_`; -1: at or before it), found among the four multiples around the quotient
+    (rounding moves a product by less than a step); an infinite end stays."""
+    if not math.isfinite(end):
+        return end
+    if not abs(end / step) < WHOLE:
+        raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the "
+                              f"table's range: more than {LARGEST_STEP_COUNT:,} steps")
+    base = math.ceil(end / step) if side > 0 else math.floor(end / step)
+    tries = rounded((base + side * np.arange(-1, 3)) * step)
+    inside = side * (tries - end) > 0 if open_ else side * (tries - end) >= 0
+    return float(tries[np.argmax(inside)])
 
 
 def accepted_words(values: tuple[Stretch, ...] | tuple[str, ...], kind: str,

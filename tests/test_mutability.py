@@ -93,9 +93,25 @@ def test_threshold_refuses_a_probability_pushed_out_of_range():
 
 
 def test_goal_defaults_for_a_classifier(model):
-    # Defaults as the interface spec (our own) states them.
+    # Defaults as the interface spec (our own) states them; the direction is the one the
+    # schema's [target] better names (the demo loans: a lower probability of default).
+    assert model.schema.target.better == "lower"
     goal = mutability_from_dict({}, model).goal
-    assert goal == Goal(0.5, "at-least", 0.0, None, "total-cost")
+    assert goal == Goal(0.5, "at-most", 0.0, None, "total-cost")
+
+
+def test_goal_direction_follows_better_and_is_required_without_it(model):
+    # Issue 13 item 5: an empty or goal-less mutability file reversed the goal. The default
+    # now follows [target] better; a model that does not say needs the direction given.
+    higher = replace(model, schema=replace(model.schema, target=replace(
+        model.schema.target, better="higher")))
+    assert mutability_from_dict({"goal": {}}, higher).goal.direction == "at-least"
+    unsaid = replace(model, schema=replace(model.schema, target=replace(
+        model.schema.target, better=None)))
+    with pytest.raises(MutabilityError, match=r"^rules.toml: \[goal\] direction is required"):
+        mutability_from_dict({"goal": {"probability": 0.3}}, unsaid, "rules.toml")
+    stated = {"goal": {"probability": 0.3, "direction": "at-least"}}
+    assert mutability_from_dict(stated, unsaid).goal.direction == "at-least"
 
 
 def test_goal_of_a_regression_needs_a_value(regression):
@@ -197,7 +213,8 @@ BAD = [
      ["[feature.sector]", "cost of a category must be a number"]),
     ({"goal": {"probability": 1.2}}, ["[goal]", "probability must lie strictly between"]),
     ({"goal": {"probability": 0}}, ["[goal]", "probability must lie strictly between"]),
-    ({"goal": {"probability": 0.99, "margin": 0.02}}, ["[goal]", "margin 0.02", "outside"]),
+    ({"goal": {"probability": 0.99, "margin": 0.02, "direction": "at-least"}},
+     ["[goal]", "margin 0.02", "outside"]),
     ({"goal": {"value": 3}}, ["[goal]", "value is for regression models"]),
     ({"goal": {"direction": "below"}}, ["[goal]", "direction must be one of"]),
     ({"goal": {"objective": "cheapest"}}, ["[goal]", "objective must be one of"]),
