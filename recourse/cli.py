@@ -172,10 +172,9 @@ def audit_command(
                             n_plans=1, solver=solver.value, partition_rows=partition_rows,
                             progress=True, say=lambda line: stderr_console().print(
                                 line, markup=False, highlight=False, soft_wrap=True))
-    except KeyboardInterrupt:
-        sys.stderr.write("interrupted; rerun with --resume\n"
-                         if plans_out is not None else "interrupted\n")
-        raise typer.Exit(130) from None
+    except KeyboardInterrupt:  # the last line of defence prints these words, status 130
+        raise KeyboardInterrupt("interrupted; rerun with --resume" if plans_out is not None
+                                else "interrupted") from None
     if run.missing:
         raise PlanningError(f"{len(run.missing)} of {run.partitions} partition(s) did not "
                             f"finish (numbers {', '.join(map(str, run.missing[:10]))}); rerun "
