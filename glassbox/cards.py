@@ -53,6 +53,10 @@ def whole_points(values: float | np.ndarray) -> np.ndarray:
     return (np.sign(values) * np.floor(np.abs(values) + 0.5)).astype(np.int64)
 
 
+MOST_PDO = 10**5  # with ln odds within +-700 (doubles), points stay inside the file's range
+MOST_BASE_SCORE = 10**7
+
+
 @dataclass(frozen=True)
 class Scaling:
     """Base score at base odds (good:bad), and the points that double the odds."""
@@ -72,6 +76,19 @@ class Scaling:
             raise OptionError(f"points to double the odds (pdo) must be above 0, not {self.pdo:g}")
         if self.base_odds <= 0:
             raise OptionError(f"base odds must be above 0 (good:bad, e.g. 50 for 50:1), "
+                              f"not {self.base_odds:g}")
+        # Points are whole numbers: below one point per doubling of the odds, rounding each
+        # bin to a whole point would erase the model; the card file holds points within
+        # +-10**9 (structure.POINTS_LIMIT), so the scale must leave room for the tables.
+        if not 1 <= self.pdo <= MOST_PDO:
+            raise OptionError(f"points to double the odds (pdo) must be from 1 to {MOST_PDO:,}, "
+                              f"not {self.pdo:g}: points are whole numbers, so a smaller pdo "
+                              "rounds every bin to the same points")
+        if abs(self.base_score) > MOST_BASE_SCORE:
+            raise OptionError(f"base score must be within +-{MOST_BASE_SCORE:,}, "
+                              f"not {self.base_score:g}")
+        if not 1e-9 <= self.base_odds <= 1e9:
+            raise OptionError(f"base odds must be from 1e-9 to 1e9 (good:bad), "
                               f"not {self.base_odds:g}")
 
     @property

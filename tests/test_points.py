@@ -54,6 +54,10 @@ def test_scaling_factor_offset_and_doubling():
 @pytest.mark.parametrize("settings, words", [
     ({"pdo": 0}, "pdo"), ({"pdo": -20}, "pdo"), ({"base_odds": 0}, "base odds"),
     ({"base_odds": -1}, "base odds"), ({"base_score": math.nan}, "base score"),
+    # issue 13: scalings that made a card of all-zero points or points past the file's range
+    # were accepted (exit 0); constructed truth: the bounds the module states
+    ({"pdo": 1e-300}, "pdo"), ({"pdo": 0.5}, "whole numbers"), ({"pdo": 1e300}, "pdo"),
+    ({"base_score": 1e300}, "base score"), ({"base_odds": 1e-300}, "base odds"),
 ])
 def test_bad_scaling_is_named(settings, words):
     with pytest.raises(OptionError, match=words):
