@@ -265,16 +265,6 @@ COMPARISON_CASES = {
 }
 
 
-@pytest.mark.parametrize("case", COMPARISON_CASES)
-def test_a_damaged_comparison_file_names_the_file_and_the_key(files, tmp_path, case):
-    edit, message = COMPARISON_CASES[case]
-    damaged = tmp_path / "damaged-compare.json"
-    _damaged_json(files / "compare.json", damaged, edit)
-    with pytest.raises(DataError) as caught:
-        read_comparison(damaged)
-    assert str(damaged) in str(caught.value) and message in str(caught.value), caught.value
-
-
 AUDIT_CASES = {
     "type: groups as a list": (_set(["groups"], []), "groups must be a table of names"),
     "type: a count as text": (_set(["summary", "declined"], "many"),
@@ -295,13 +285,16 @@ AUDIT_CASES = {
 }
 
 
-@pytest.mark.parametrize("case", AUDIT_CASES)
-def test_a_damaged_audit_file_names_the_file_and_the_key(files, tmp_path, case):
-    edit, message = AUDIT_CASES[case]
-    damaged = tmp_path / "damaged-audit.json"
-    _damaged_json(files / "audit.json", damaged, edit)
+@pytest.mark.parametrize("name, case", [("compare", case) for case in COMPARISON_CASES]
+                         + [("audit", case) for case in AUDIT_CASES])
+def test_a_damaged_result_file_names_the_file_and_the_key(files, tmp_path, name, case):
+    cases, read = {"compare": (COMPARISON_CASES, read_comparison),
+                   "audit": (AUDIT_CASES, read_audit)}[name]
+    edit, message = cases[case]
+    damaged = tmp_path / f"damaged-{name}.json"
+    _damaged_json(files / f"{name}.json", damaged, edit)
     with pytest.raises(DataError) as caught:
-        read_audit(damaged)
+        read(damaged)
     assert str(damaged) in str(caught.value) and message in str(caught.value), caught.value
 
 
