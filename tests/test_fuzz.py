@@ -27,8 +27,6 @@ SCALE = float(os.environ.get("GLASSBOX_FUZZ_SCALE", "1"))
 CASES = {kind: max(1, round(SCALE * n)) for kind, n in {
     "data": 80, "schema": 40, "model": 150, "card": 120, "mutability": 120,
     "comparison": 20, "audit": 60, "row": 150}.items()}
-# kinds whose damaged files still end in an internal error until the other parts of issue 13
-# are merged (the lead removes these marks on merging)
 CASE_SECONDS = 20  # far above any case's time; a case still running then is a hang
 
 
