@@ -29,7 +29,7 @@ from threadpoolctl import threadpool_limits
 from glassbox import __version__, structure
 from glassbox.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
 from glassbox.documents import checksum
-from glassbox.errors import DataError, OptionError
+from glassbox.errors import DataError, OptionError, value_text
 from glassbox.families import FAMILIES
 from glassbox.files import read_json
 from glassbox.fitting import fit_model
@@ -612,6 +612,14 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
                 models, comparison.costs, comparison.primary, benchmark))
     except (KeyError, TypeError, ValueError, IndexError) as exc:
         raise DataError(f"{source} is incomplete: {type(exc).__name__} {exc}") from None
+    for name, frame, keys in (("models", comparison.models, ["model", "metric"]),
+                              ("costs", comparison.costs, ["model", "metric"]),
+                              ("sparsity_curve", comparison.sparsity, ["max_features", "metric"])):
+        twice = frame.duplicated(keys) if set(keys) <= set(frame.columns) else []
+        if any(twice):
+            first = frame[twice].iloc[0]
+            raise DataError(f"{source}: {name} holds {keys[0]} {value_text(first[keys[0]])}, "
+                            f"metric {value_text(first['metric'])} twice")
     return comparison
 
 

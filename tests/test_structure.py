@@ -262,6 +262,9 @@ COMPARISON_CASES = {
                                       "models[0].mean must lie in [0, 1] for auc"),
     "range: a p-value above 1": (_set(["costs", 0, "p_value"], 2.0),
                                  "costs[0].p_value must be a finite number from 0 to 1"),
+    # found by fuzzing (issue 13): a model's row given twice crashed the report's table
+    "twice: a model's row": (lambda d: d["models"].append(dict(d["models"][0])), "twice"),
+    "twice: a cost's row": (lambda d: d["costs"].append(dict(d["costs"][0])), "twice"),
 }
 
 
