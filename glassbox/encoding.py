@@ -43,17 +43,12 @@ def read_table(path: str | Path) -> pd.DataFrame:
     so is a CSV file with NUL bytes, text that is not UTF-8, or rows with more fields
     than the header. A row with fewer fields reads the missing ones as blanks."""
     path = Path(path)
-    if path.is_dir():
-        raise DataError(f"{path} is a folder, not a data file (name a CSV or Parquet file)")
-    if not path.exists():
-        raise DataError(f"data file {path} does not exist")
-    if not path.is_file():
-        raise DataError(f"{path} is not a regular file, so not a CSV or Parquet data file")
     try:
-        if path.suffix.lower() in (".parquet", ".pq"):
+        names = check_data_file(path)
+        if is_parquet(path):
             frame = _read_parquet(path)
         else:
-            frame = _read_csv(path)
+            frame = _read_csv(path, names)
     except OSError as exc:
         raise DataError(f"data file {path} could not be read: "
                         f"{exc.strerror or type(exc).__name__}") from None
@@ -63,26 +58,65 @@ def read_table(path: str | Path) -> pd.DataFrame:
     return frame
 
 
-def _read_csv(path: Path) -> pd.DataFrame:
+def is_parquet(path: Path) -> bool:
+    return path.suffix.lower() in (".parquet", ".pq")
+
+
+# how every reader of CSV data files reads cells: only BLANKS are missing values
+CSV_CELLS: dict[str, Any] = {"skipinitialspace": True, "encoding": "utf-8",
+                             "keep_default_na": False, "na_values": list(BLANKS),
+                             "index_col": False}
+
+
+def check_data_file(path: Path) -> list[str]:
+    """The column names of a CSV or Parquet data file, after the checks every reader makes
+    (a folder, a missing or special file, text that is not UTF-8 or has NUL bytes, a name
+    used twice, a Parquet column of lists), without reading the rows into memory."""
+    if path.is_dir():
+        raise DataError(f"{path} is a folder, not a data file (name a CSV or Parquet file)")
+    if not path.exists():
+        raise DataError(f"data file {path} does not exist")
+    if not path.is_file():
+        raise DataError(f"{path} is not a regular file, so not a CSV or Parquet data file")
+    if is_parquet(path):
+        return _parquet_names(path)
     _check_text(path)
     header = _parse_csv(path, header=None, nrows=1, dtype=str, na_filter=False)
     names = [str(name) for name in header.iloc[0].tolist()]
     check_names(names, f"data file {path}")
+    return names
+
+
+def longer_rows_error(path: Path, names: list[str]) -> DataError:
+    return DataError(f"data file {path}: its data rows have more fields than the header has "
+                     f"names ({len(names)}); name every column, or remove the extra commas at "
+                     "the ends of the rows")
+
+
+def _read_csv(path: Path, names: list[str]) -> pd.DataFrame:
     with warnings.catch_warnings():
         warnings.simplefilter("error", pd.errors.ParserWarning)
         try:
-            return _parse_csv(path, keep_default_na=False, na_values=list(BLANKS),
-                              index_col=False)
+            return _parse_csv(path, **CSV_CELLS)
         except pd.errors.ParserWarning:  # rows longer than the header: never an index
-            raise DataError(f"data file {path}: its data rows have more fields than the "
-                            f"header has names ({len(names)}); name every column, or remove "
-                            "the extra commas at the ends of the rows") from None
+            raise longer_rows_error(path, names) from None
+
+
+def _read_parquet(path: Path) -> pd.DataFrame:
+    import pyarrow as pa
+
+    try:
+        return pd.read_parquet(path)
+    except (pa.ArrowException, ValueError) as exc:
+        lines = str(exc).strip().splitlines()
+        raise DataError(f"data file {path} could not be read as Parquet: "
+                        f"{lines[0] if lines else type(exc).__name__}") from None
 
 
 def _parse_csv(path: Path, **options: Any) -> pd.DataFrame:
     """pandas' CSV parser, its complaints turned into one-line errors naming the file."""
     try:
-        return pd.read_csv(path, skipinitialspace=True, encoding="utf-8", **options)
+        return pd.read_csv(path, **{"skipinitialspace": True, "encoding": "utf-8", **options})
     except pd.errors.EmptyDataError:
         raise DataError(f"data file {path} is empty") from None
     except (pd.errors.ParserError, ValueError) as exc:
@@ -141,7 +175,7 @@ def _check_text(path: Path) -> None:
                         "(cut short?)") from None
 
 
-def _read_parquet(path: Path) -> pd.DataFrame:
+def _parquet_names(path: Path) -> list[str]:
     try:
         import pyarrow as pa
         import pyarrow.parquet as pq
@@ -155,7 +189,7 @@ def _read_parquet(path: Path) -> pd.DataFrame:
             if pa.types.is_nested(field.type):
                 raise DataError(f"data file {path}: column {value_text(field.name)} holds "
                                 "lists or records; a data file holds one value per cell")
-        return pd.read_parquet(path)
+        return [str(name) for name in schema.names]
     except (pa.ArrowException, ValueError) as exc:
         if isinstance(exc, DataError):
             raise

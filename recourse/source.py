@@ -4,6 +4,7 @@ before any planning, fixed column types for id and kept columns, each block with
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -13,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
+from glassbox.encoding import CSV_CELLS, check_data_file, is_parquet, longer_rows_error
 from glassbox.errors import DataError, OptionError
 
 SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
@@ -30,8 +32,7 @@ class Source:
     template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
 
     def csv_options(self) -> dict[str, Any]:
-        return {"usecols": list(self.columns), "dtype": dict(self.fixed_types),
-                "skipinitialspace": True}
+        return {**CSV_CELLS, "usecols": list(self.columns), "dtype": dict(self.fixed_types)}
 
 
 def read_error(path: Path, exc: BaseException) -> DataError:
@@ -41,9 +42,8 @@ def read_error(path: Path, exc: BaseException) -> DataError:
 
 def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Source:
     """Check the header against the model and `keep` before any planning."""
-    if not path.is_file():
-        raise DataError(f"data file {path} does not exist")
-    parquet = path.suffix.lower() in (".parquet", ".pq")
+    names = check_data_file(path)  # the checks of every reader: names twice, text, ...
+    parquet = is_parquet(path)
     try:
         if parquet:
             import pyarrow.parquet as pq
@@ -53,8 +53,12 @@ def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Sour
             rows = handle.metadata.num_rows
             sample = handle.schema_arrow.empty_table().to_pandas()
         else:
-            sample = pd.read_csv(path, nrows=SAMPLE_ROWS, skipinitialspace=True)
+            with warnings.catch_warnings():
+                warnings.simplefilter("error", pd.errors.ParserWarning)
+                sample = pd.read_csv(path, nrows=SAMPLE_ROWS, **CSV_CELLS)
             header, rows = [str(c) for c in sample.columns], len(sample)
+    except pd.errors.ParserWarning:  # rows longer than the header: never an index
+        raise longer_rows_error(path, names) from None
     except pd.errors.EmptyDataError:
         raise DataError(f"data file {path} is empty") from None
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:

@@ -237,6 +237,39 @@ def credit_model(tmp_path_factory):
     return path, rules
 
 
+def _doubled_amount(data, tmp_path):
+    frame = pd.read_csv(data)
+    path = tmp_path / "doubled.csv"
+    pd.concat([frame, frame["Amount"] * 100], axis=1).to_csv(path, index=False)
+    return path, f"{path} has the column 'Amount' twice"
+
+
+def test_item_4_score_and_the_population_audit_refuse_a_column_named_twice(
+        credit_csv, credit_model, tmp_path):
+    """Issue 13 item 4 in the commands that read data through other paths: `score`, and
+    `recourse audit`, whose block reader read the file with pandas alone and planned on the
+    first copy without a word (found trying the tool after the readers were fixed)."""
+    model, rules = credit_model
+    path, expected = _doubled_amount(credit_csv[0], tmp_path)
+    one_line_error(run("score", model, path), expected)
+    one_line_error(plan("audit", model, "--data", path, "--mutability", rules), expected)
+
+
+def test_the_population_audit_reads_cells_as_every_other_command(credit_csv, credit_model,
+                                                                 tmp_path):
+    """Only the blanks the README lists are missing values, in the audit too: pandas' own
+    list ("None", "N/A", "#N/A", ...) made the audit plan for a row that `score` refuses."""
+    model, rules = credit_model
+    frame = pd.read_csv(credit_csv[0], dtype=str, keep_default_na=False)
+    frame.loc[2, "Amount"] = "None"
+    path = tmp_path / "none.csv"
+    frame.to_csv(path, index=False)
+    scored = run("score", model, path)
+    audited = plan("audit", model, "--data", path, "--mutability", rules)
+    assert scored.exit_code == 2 and audited.exit_code == 2, (scored.output, audited.output)
+    assert "'None'" in scored.output and "'None'" in audited.output, audited.output
+
+
 def test_a_nan_in_a_model_file_is_named_as_not_finite(credit_model, tmp_path):
     """A NaN intercept used to be reported as "changed after it was written"; the file's
     declared structure now names the key as well."""
