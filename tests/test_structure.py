@@ -183,16 +183,6 @@ MODEL_CASES = {
 }
 
 
-@pytest.mark.parametrize("case", MODEL_CASES)
-def test_a_damaged_model_file_names_the_file_and_the_key(files, tmp_path, case):
-    edit, message = MODEL_CASES[case]
-    damaged = tmp_path / "damaged-model.json"
-    _damaged_document(files / "model.json", damaged, edit)
-    with pytest.raises(ModelFileError) as caught:
-        artifact.load(damaged)
-    assert str(damaged) in str(caught.value) and message in str(caught.value), caught.value
-
-
 def test_knots_out_of_order_name_the_knot(files, tmp_path):
     content = json.loads((files / "model.json").read_text())["model"]
     index = _first_curve(content)
@@ -234,15 +224,20 @@ CARD_CASES = {
 }
 
 
-@pytest.mark.parametrize("case", CARD_CASES)
-def test_a_damaged_points_card_names_the_file_and_the_key(files, tmp_path, case):
-    edit, message = CARD_CASES[case]
-    damaged = tmp_path / "damaged-card.json"
-    _damaged_document(files / "card.json", damaged, edit)
+@pytest.mark.parametrize("name, case", [("model", case) for case in MODEL_CASES]
+                         + [("card", case) for case in CARD_CASES])
+def test_a_damaged_model_file_or_card_names_the_file_and_the_key(files, tmp_path, name,
+                                                                  case):
+    cases, load = {"model": (MODEL_CASES, artifact.load), "card": (CARD_CASES, points.load)}[name]
+    edit, message = cases[case]
+    damaged = tmp_path / f"damaged-{name}.json"
+    _damaged_document(files / f"{name}.json", damaged, edit)
     with pytest.raises(ModelFileError) as caught:
-        points.load(damaged)
+        load(damaged)
     assert str(damaged) in str(caught.value) and message in str(caught.value), caught.value
-    one_line_error(run("score", "--points", damaged, files / "credit.csv"), "damaged-card.json")
+    if name == "card":
+        one_line_error(run("score", "--points", damaged, files / "credit.csv"),
+                       "damaged-card.json")
 
 
 COMPARISON_CASES = {
