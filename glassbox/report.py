@@ -159,12 +159,13 @@ def build_report(
     Groups (the report's and the audit's) of fewer than `min_group` rows are not flagged.
     `bands` gives band edges for numeric protected columns (see `groups.band_edges`).
     """
-    from glassbox import compare, reasons, report_recourse
+    from glassbox import reasons, report_recourse
+    from glassbox.compare_files import read_comparison
 
     audit = report_recourse.read_audit(recourse_file) if recourse_file is not None else None
     model_name = f"model file {Path(model_file).name}" if model_file else "the model"
     if comparison is None and comparison_file is not None:
-        comparison = compare.read_comparison(comparison_file)
+        comparison = read_comparison(comparison_file)
     if comparison is not None:
         where = (f"comparison file {Path(comparison_file).name}" if comparison_file
                  else "the comparison")

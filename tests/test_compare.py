@@ -18,9 +18,9 @@ from glassbox.compare import (
     cost_table,
     interval,
     make_folds,
-    read_comparison,
     to_markdown,
 )
+from glassbox.compare_files import read_comparison
 from glassbox.errors import DataError, OptionError
 from glassbox.schema import Schema, prepare
 

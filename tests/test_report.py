@@ -20,7 +20,8 @@ from typer.testing import CliRunner
 
 from glassbox import artifact, groups, report
 from glassbox.cli import app
-from glassbox.compare import CompareSettings, accuracy_table, compare, read_comparison
+from glassbox.compare import CompareSettings, accuracy_table, compare
+from glassbox.compare_files import read_comparison
 from glassbox.errors import DataError, OptionError
 from glassbox.fitting import fit_model
 from glassbox.schema import read_table

@@ -29,12 +29,11 @@ from glassbox.additive import AdditiveModel, CurveTerm, score_table
 from glassbox.cli import app
 from glassbox.compare import (
     CompareSettings,
-    comparison_from_dict,
     cost_table,
     interval,
-    read_comparison,
     summarise,
 )
+from glassbox.compare_files import comparison_from_dict, read_comparison
 from glassbox.errors import DataError, GlassboxError, ModelFileError, OptionError
 from glassbox.provenance import fit_day
 from glassbox.report_recourse import read_audit
