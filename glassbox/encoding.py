@@ -120,10 +120,10 @@ def _parse_csv(path: Path, **options: Any) -> pd.DataFrame:
     except pd.errors.EmptyDataError:
         raise DataError(f"data file {path} is empty") from None
     except (pd.errors.ParserError, ValueError) as exc:
-        raise DataError(f"data file {path}: {_parser_problem(str(exc))}") from None
+        raise DataError(f"data file {path}: {parser_problem(str(exc))}") from None
 
 
-def _parser_problem(message: str) -> str:
+def parser_problem(message: str) -> str:
     """The CSV parser's complaint in the words of this tool, with the file's line."""
     fields = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
     if fields:

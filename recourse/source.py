@@ -14,7 +14,13 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
-from glassbox.encoding import CSV_CELLS, check_data_file, is_parquet, longer_rows_error
+from glassbox.encoding import (
+    CSV_CELLS,
+    check_data_file,
+    is_parquet,
+    longer_rows_error,
+    parser_problem,
+)
 from glassbox.errors import DataError, OptionError
 
 SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
@@ -36,6 +42,8 @@ class Source:
 
 
 def read_error(path: Path, exc: BaseException) -> DataError:
+    if isinstance(exc, pd.errors.ParserError):  # in the words every reader uses
+        return DataError(f"data file {path}: {parser_problem(str(exc))}")
     first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
     return DataError(f"data file {path} could not be read: {first}")
 
@@ -118,8 +126,7 @@ def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
             blocks: Iterator[pd.DataFrame] = (
                 pa.Table.from_batches([batch]).to_pandas() for batch in batches)
         else:
-            blocks = pd.read_csv(source.path, chunksize=partition_rows,
-                                 **source.csv_options())
+            blocks = _csv_blocks(source, partition_rows)
         for block in blocks:
             block = block.reset_index(drop=True)
             block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
@@ -127,3 +134,23 @@ def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
             yield block
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
         raise read_error(source.path, exc) from None
+
+
+def _csv_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
+    """CSV blocks read with every column, so that a row longer than the header is refused
+    wherever it is (pandas drops the extra fields without a word when columns are picked),
+    then cut to the columns the run needs."""
+    options = {key: value for key, value in source.csv_options().items() if key != "usecols"}
+    reader = pd.read_csv(source.path, chunksize=partition_rows, **options)
+    names = list(source.columns)
+    while True:
+        with warnings.catch_warnings():  # only around reading: never across a yield
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            try:
+                block = next(reader)
+            except StopIteration:
+                return
+            except pd.errors.ParserWarning:
+                header = pd.read_csv(source.path, nrows=0, **CSV_CELLS).columns
+                raise longer_rows_error(source.path, list(header)) from None
+        yield block[names]

@@ -270,6 +270,24 @@ def test_the_population_audit_reads_cells_as_every_other_command(credit_csv, cre
     assert "'None'" in scored.output and "'None'" in audited.output, audited.output
 
 
+def test_the_population_audit_refuses_a_longer_row_past_its_first_block(credit_model,
+                                                                      tmp_path):
+    """A row with more fields than the header, past the rows read up front, was read by the
+    audit's block reader with its extra field dropped without a word (pandas does so when
+    columns are picked); `score` refuses it anywhere in the file, and now so does the audit."""
+    model, rules = credit_model
+    complete = tmp_path / "complete.csv"  # the rows the model was fitted on: no gaps
+    credit_rows().head(1300).to_csv(complete, index=False)
+    lines = complete.read_bytes().splitlines(keepends=True)
+    lines[1200] = lines[1200].rstrip(b"\r\n") + b",999\n"  # data row 1,200 of 1,300
+    path = tmp_path / "longer.csv"
+    path.write_bytes(b"".join(lines))
+    expected = f"data file {path}: line 1201 has 15 fields where the header has 14"
+    one_line_error(run("score", model, path), expected)
+    one_line_error(plan("audit", model, "--data", path, "--mutability", rules,
+                        "--partition-rows", "650"), expected)
+
+
 def test_a_nan_in_a_model_file_is_named_as_not_finite(credit_model, tmp_path):
     """A NaN intercept used to be reported as "changed after it was written"; the file's
     declared structure now names the key as well."""
