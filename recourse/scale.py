@@ -20,6 +20,7 @@ and end when the main process dies.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
 import os
@@ -27,7 +28,7 @@ import re
 import signal
 import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -366,11 +367,13 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
     missing: set[int] = set()
     pending: dict[Future, tuple[int, int, int]] = {}  # index, first row, rows
     broken = False
-    pool = ProcessPoolExecutor(
-        max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
-        initializer=_start_worker,
-        initargs=(os.getpid(), artifact.dumps(task.model), task.mutability, task.n_plans,
-                  task.solver, task.keep, task.source))
+    with _children_ignore_sigint():  # the pool's helper process starts here
+        pool = ProcessPoolExecutor(
+            max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
+            initializer=_start_worker,
+            initargs=(os.getpid(), artifact.dumps(task.model), task.mutability, task.n_plans,
+                      task.solver, task.keep, task.source))
+    spawned = False
     try:
         exhausted = False
         while pending or not exhausted:
@@ -384,7 +387,10 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 if results.done(index, *_span(block)):
                     continue
                 try:
-                    pending[pool.submit(_plan_in_worker, block)] = (index, *_span(block))
+                    with contextlib.nullcontext() if spawned else _children_ignore_sigint():
+                        future = pool.submit(_plan_in_worker, block)  # the first starts them
+                    spawned = True
+                    pending[future] = (index, *_span(block))
                 except BrokenProcessPool:
                     broken = True
                     missing.add(index)
@@ -415,6 +421,22 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
     return count, missing
+
+
+@contextlib.contextmanager
+def _children_ignore_sigint() -> Iterator[None]:
+    """SIGINT ignored while planning processes start, so each starts ignoring it (an ignored
+    signal stays ignored across exec, and Python then installs no handler of its own): a
+    Ctrl-C during their start-up never prints a traceback from a half-started process. The
+    main process's own handler is back as soon as they have started."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 # ---------------------------------------------------------------- dask engine
