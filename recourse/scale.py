@@ -373,7 +373,6 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
             initializer=_start_worker,
             initargs=(os.getpid(), artifact.dumps(task.model), task.mutability, task.n_plans,
                       task.solver, task.keep, task.source))
-    spawned = False
     try:
         exhausted = False
         while pending or not exhausted:
@@ -387,9 +386,8 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 if results.done(index, *_span(block)):
                     continue
                 try:
-                    with contextlib.nullcontext() if spawned else _children_ignore_sigint():
-                        future = pool.submit(_plan_in_worker, block)  # the first starts them
-                    spawned = True
+                    with _children_ignore_sigint():  # a submit may start a process
+                        future = pool.submit(_plan_in_worker, block)
                     pending[future] = (index, *_span(block))
                 except BrokenProcessPool:
                     broken = True
@@ -425,18 +423,18 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
 
 @contextlib.contextmanager
 def _children_ignore_sigint() -> Iterator[None]:
-    """SIGINT ignored while planning processes start, so each starts ignoring it (an ignored
-    signal stays ignored across exec, and Python then installs no handler of its own): a
-    Ctrl-C during their start-up never prints a traceback from a half-started process. The
-    main process's own handler is back as soon as they have started."""
+    """SIGINT blocked (held, not lost) while planning processes may start: a process
+    inherits the blocked signal mask across exec and keeps it, so a Ctrl-C during its
+    start-up never prints a traceback from a half-started process. The main process gets
+    a Ctrl-C that came meanwhile as soon as the block ends."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
+        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
 
 
 # ---------------------------------------------------------------- dask engine
