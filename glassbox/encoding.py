@@ -63,7 +63,8 @@ def is_parquet(path: Path) -> bool:
 
 
 # how every reader of CSV data files reads cells: only BLANKS are missing values
-CSV_CELLS: dict[str, Any] = {"skipinitialspace": True, "encoding": "utf-8",
+CSV_TEXT: dict[str, Any] = {"skipinitialspace": True, "encoding": "utf-8"}
+CSV_CELLS: dict[str, Any] = {**CSV_TEXT,
                              "keep_default_na": False, "na_values": list(BLANKS),
                              "index_col": False}
 
@@ -116,7 +117,7 @@ def _read_parquet(path: Path) -> pd.DataFrame:
 def _parse_csv(path: Path, **options: Any) -> pd.DataFrame:
     """pandas' CSV parser, its complaints turned into one-line errors naming the file."""
     try:
-        return pd.read_csv(path, **{"skipinitialspace": True, "encoding": "utf-8", **options})
+        return pd.read_csv(path, **{**CSV_TEXT, **options})
     except pd.errors.EmptyDataError:
         raise DataError(f"data file {path} is empty") from None
     except (pd.errors.ParserError, ValueError) as exc:

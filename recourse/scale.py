@@ -367,7 +367,7 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
     missing: set[int] = set()
     pending: dict[Future, tuple[int, int, int]] = {}  # index, first row, rows
     broken = False
-    with _children_ignore_sigint():  # the pool's helper process starts here
+    with _sigint_held():  # the pool's helper process starts here
         pool = ProcessPoolExecutor(
             max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
             initializer=_start_worker,
@@ -386,7 +386,7 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 if results.done(index, *_span(block)):
                     continue
                 try:
-                    with _children_ignore_sigint():  # a submit may start a process
+                    with _sigint_held():  # a submit may start a process
                         future = pool.submit(_plan_in_worker, block)
                     pending[future] = (index, *_span(block))
                 except BrokenProcessPool:
@@ -422,7 +422,7 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
 
 
 @contextlib.contextmanager
-def _children_ignore_sigint() -> Iterator[None]:
+def _sigint_held() -> Iterator[None]:
     """SIGINT blocked (held, not lost) while planning processes may start: a process
     inherits the blocked signal mask across exec and keeps it, so a Ctrl-C during its
     start-up never prints a traceback from a half-started process. The main process gets
