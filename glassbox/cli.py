@@ -589,3 +589,6 @@ def progress_note(message: str) -> Iterator[None]:
 def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
     sys.exit(run_guarded(app))
+
+
+from glassbox import monitor_cli as _monitor_cli  # noqa: E402,F401  registers `glassbox monitor`

@@ -155,6 +155,7 @@ KIND_WORDS = {
     "glassbox-points": "a points card",
     "glassbox-comparison": "a comparison (JSON)",
     "recourse-audit": "a recourse audit (JSON)",
+    "glassbox-monitoring": "a monitoring result (JSON)",
     "json": "a JSON file",
     "csv": "a CSV file of data (not a table glassbox writes)",
     "csv-scores": "a CSV of scores",
@@ -162,6 +163,7 @@ KIND_WORDS = {
     "csv-shapes": "a CSV of shape tables",
     "csv-card": "a CSV of points card rows",
     "csv-plans": "a CSV of plans",
+    "csv-monitoring": "a CSV of monitoring results",
     "markdown": "a Markdown file",
     "html": "an HTML page",
     "png": "a PNG picture",
@@ -181,6 +183,7 @@ SUFFIX_KINDS = {".csv": "csv", ".tsv": "csv", ".md": "markdown", ".markdown": "m
 CSV_HEADERS = (
     ("csv-reasons", {"reason_1", "feature_1", "gap_1"}),
     ("csv-plans", {"status", "plan", "changes", "new_outcome"}),
+    ("csv-monitoring", {"period", "feature", "psi", "attribution_change"}),
     ("csv-card", {"feature", "row", "points", "contribution"}),
     ("csv-shapes", {"feature", "row", "contribution"}),
     ("csv-shapes", {"feature", "kind", "term", "importance"}),
@@ -228,7 +231,7 @@ def file_kind(path: str | Path) -> str | None:
 
 def table_kind(fmt: str, table: str) -> str:
     """The kind of a table written as `fmt` (csv, markdown, json); a CSV table is told
-    apart by what it holds (`table`: scores, reasons, shapes, card or plans)."""
+    apart by what it holds (`table`: scores, reasons, shapes, card, plans or monitoring)."""
     return f"csv-{table}" if fmt == "csv" else fmt
 
 

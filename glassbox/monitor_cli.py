@@ -1,0 +1,132 @@
+"""The `glassbox monitor` command: parse arguments, call the monitoring engine, render.
+
+Registered on the `glassbox` app from the end of cli.py; no logic here.
+"""
+
+from __future__ import annotations
+
+import sys
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from glassbox import artifact
+from glassbox.cli import (
+    MAX_JOBS,
+    Force,
+    app,
+    friendly,
+    progress_note,
+    stderr_console,
+    stdout_console,
+)
+from glassbox.errors import OptionError
+from glassbox.files import check_output, table_kind, write_atomic
+
+
+class MonitorFormat(StrEnum):
+    table = "table"
+    json = "json"
+    csv = "csv"
+
+
+class Every(StrEnum):
+    month = "month"
+    quarter = "quarter"
+    year = "year"
+
+
+class MonitorEngine(StrEnum):
+    local = "local"
+    dask = "dask"
+
+
+@app.command("monitor")
+@friendly
+def monitor_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    data: Annotated[list[Path], typer.Argument(
+        metavar="DATA...", help="CSV or Parquet files, one period each in the order given "
+                                "(or one file with --period).")],
+    period: Annotated[str | None, typer.Option(
+        metavar="COLUMN", help="One file: its periods are this column's values.")] = None,
+    every: Annotated[Every | None, typer.Option(
+        help="With --period on a column of ISO dates: group the dates by month, quarter "
+             "or year.")] = None,
+    baseline: Annotated[Path | None, typer.Option(
+        metavar="DATA", help="The development sample as a data file, instead of the "
+                             "baseline stored in the model file.")] = None,
+    card_file: Annotated[Path | None, typer.Option(
+        "--points", metavar="CARD",
+        help="A points card of the model (glassbox points --format json): changes are "
+             "also given in points.")] = None,
+    format: Annotated[MonitorFormat, typer.Option(
+        "--format", help="table (terminal), json (every table) or csv (the features with "
+                         "their period's summary).")] = MonitorFormat.table,
+    out: Annotated[Path | None, typer.Option(help="Write json or csv here.")] = None,
+    page: Annotated[Path | None, typer.Option(
+        metavar="FILE.html", help="Also write a self-contained HTML page with pictures.")
+    ] = None,
+    engine: Annotated[MonitorEngine, typer.Option(
+        help="local: read the blocks here; dask: count them on a dask.distributed cluster "
+             "(the same numbers).")] = MonitorEngine.local,
+    jobs: Annotated[int, typer.Option(help="Workers counting at once.", min=1,
+                                      max=MAX_JOBS)] = 1,
+    scheduler: Annotated[str | None, typer.Option(
+        help="dask: the address of an existing scheduler (else one starts for the run).")
+    ] = None,
+    chunk_rows: Annotated[int, typer.Option(
+        help="Rows read at a time (memory stays about constant).", min=1)] = 200_000,
+    force: Force = False,
+) -> None:
+    """Compare periods of new rows with the model's development sample: score and
+    feature stability (PSI), what moved the mean score, attribution drift, missing
+    values and new levels, and outcomes when the files have them."""
+    from glassbox import monitor_files, monitor_page, monitor_view
+    from glassbox.monitor import monitor
+
+    if format is MonitorFormat.table and out is not None:
+        raise OptionError("--out needs --format json or csv (the terminal table is not a file)")
+    if every is not None and period is None:
+        raise OptionError("--every needs --period COLUMN (the column of dates to group)")
+    inputs = [model_file, *data, baseline, card_file]
+    written = "glassbox-monitoring" if format is MonitorFormat.json else table_kind(
+        format.value, "monitoring")
+    check_output(out, written, inputs, force=force)
+    check_output(page, "html", [*inputs, out], force=force, option="--page")
+    model = artifact.load(model_file)
+    card = None
+    if card_file is not None:
+        from glassbox import points
+
+        card = points.load(card_file)
+    with progress_note(f"counting {len(data)} file(s) against the development sample"):
+        result = monitor(model, list(data), period=period,
+                         every=None if every is None else every.value, baseline=baseline,
+                         card=card, engine=engine.value, jobs=jobs, scheduler=scheduler,
+                         chunk_rows=chunk_rows)
+    if page is not None:
+        with progress_note("drawing the monitoring page"):
+            document = monitor_page.build_page(result, model_name=f"Model file {model_file.name}",
+                                               link=model.link,
+                                               inputs=[str(path) for path in data])
+            monitor_page.write_page(document, page)
+        stderr_console().print(f"wrote the monitoring page to {page}", highlight=False)
+    if format is MonitorFormat.table:
+        stdout_console().print(monitor_view.monitoring_view(result))
+        return
+    if format is MonitorFormat.json:
+        context = {"model_file": model_file.name, "data_files": [path.name for path in data],
+                   "period_column": period, "every": None if every is None else every.value,
+                   "baseline_file": None if baseline is None else baseline.name,
+                   "points_card": None if card_file is None else card_file.name}
+        text = monitor_files.to_json(result, context)
+    else:
+        text = monitor_files.to_monitoring_csv(result)
+    if out is None:
+        sys.stdout.write(text)
+        return
+    write_atomic(out, text)
+    stderr_console().print(f"wrote the monitoring {format.value} to {out}", highlight=False)

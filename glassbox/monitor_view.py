@@ -1,0 +1,269 @@
+"""What `glassbox monitor` shows in a terminal, built from a `Monitoring` at the last moment.
+
+The period summary, then per period the flagged features worst first, the outcomes when
+the data had them, and one line of caution. Every table fits 80 columns: long cells wrap
+or fold onto more lines, nothing is cut. The words and number styles here are shared with
+the page (monitor_page.py) and the files (monitor_files.py).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+from rich import box
+from rich.console import Group, RenderableType
+from rich.table import Table
+from rich.text import Text
+
+if TYPE_CHECKING:  # the engine's result; only its fields are read here
+    from glassbox.monitor import Monitoring
+
+# the flags the stability rules give, worst first (glassbox.stability.flag)
+FLAG_ORDER = ("act", "watch", "changed")
+CAUTION = ("Stability is not accuracy, and a flag is a prompt to investigate, not a verdict: "
+           "these are model what-ifs and population counts, not advice.")
+WIDTH = 80
+
+
+# ---------------------------------------------------------------- one style per column
+
+
+def _finite(value: Any) -> bool:
+    return value is not None and not (isinstance(value, float) and math.isnan(value)) \
+        and not pd.isna(value)
+
+
+def count_text(value: Any) -> str:
+    return f"{int(value):,}" if _finite(value) else ""
+
+
+def psi_text(value: Any) -> str:
+    return f"{float(value):.3f}" if _finite(value) else ""
+
+
+def signed_text(value: Any, digits: int = 3) -> str:
+    """A change with its sign, so a fall and a rise read apart at a glance."""
+    if not _finite(value):
+        return ""
+    value = float(value)
+    return f"{0.0 if abs(value) < 0.5 * 10 ** -digits else value:+.{digits}f}"
+
+
+def share_text(value: Any) -> str:
+    return f"{100 * float(value):.1f}%" if _finite(value) else ""
+
+
+def points_text(value: Any) -> str:
+    """A change in percentage points of a share."""
+    return f"{signed_text(100 * float(value), 1)} pp" if _finite(value) else ""
+
+
+def p_text(value: Any) -> str:
+    if not _finite(value):
+        return ""
+    return "< 0.0001" if float(value) < 1e-4 else f"{float(value):.4f}"
+
+
+def plural(count: int, word: str, many: str | None = None) -> str:
+    return f"{count:,} {word if count == 1 else (many or word + 's')}"
+
+
+def flagged(flag: Any) -> bool:
+    return flag in FLAG_ORDER
+
+
+def flag_words(flag: Any, rule: Any) -> str:
+    """"act: PSI ≥ 0.25" or "" when no rule flagged."""
+    if not flagged(flag):
+        return ""
+    return f"{flag}: {rule}" if rule else str(flag)
+
+
+def worst_first(features: pd.DataFrame) -> pd.DataFrame:
+    """Rows ordered by flag (act, watch, changed, none), then PSI from the largest."""
+    rank = features["flag"].map({flag: i for i, flag in enumerate(FLAG_ORDER)}).fillna(
+        len(FLAG_ORDER))
+    order = pd.DataFrame({"rank": rank, "psi": -features["psi"].astype(float).fillna(-1.0),
+                          "feature": features["feature"].astype(str)})
+    return features.loc[order.sort_values(["rank", "psi", "feature"], kind="stable").index]
+
+
+def uses_points(monitoring: Monitoring) -> bool:
+    """Whether a points card was given: the tables then carry points changes."""
+    return "points_change" in monitoring.features.columns and bool(
+        monitoring.features["points_change"].notna().any())
+
+
+def unscored_note(summary: pd.DataFrame) -> str:
+    """One sentence on rows the model could not score, or "" when there were none."""
+    parts = [f"{count_text(row.unscored_rows)} in {row.period}"
+             for row in summary.itertuples() if _finite(row.unscored_rows)
+             and row.unscored_rows > 0]
+    if not parts:
+        return ""
+    return ("Rows the model cannot score (a missing value where its term has no entry for "
+            f"one): {', '.join(parts)}. They count in the feature bins and missing rates, "
+            "not in the score's figures.")
+
+
+# ---------------------------------------------------------------- the terminal view
+
+
+def _table(title: str, headings: Sequence[tuple[str, str]]) -> Table:
+    """A table whose every column folds: a cell too long for its share of 80 columns
+    goes onto more lines, never behind an ellipsis. Headings break only between words."""
+    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left", title_style="bold",
+                  header_style="bold", pad_edge=False, expand=False)
+    for heading, justify in headings:
+        words = heading.split()
+        lines = [" ".join(words[:1]), " ".join(words[1:])] if len(heading) > 10 else [heading]
+        table.add_column("\n".join(line for line in lines if line), justify=justify,  # type: ignore[arg-type]
+                         overflow="fold", min_width=max(len(word) for word in words))
+    return table
+
+
+def stacked_flag(flag: Any, rule: Any) -> str:
+    """The flag over the rule(s) that raised it, one rule a line: narrow, never cut."""
+    if not flagged(flag):
+        return "none"
+    parts = [part.strip() for part in re.split(r",| and |;", str(rule or "")) if part.strip()]
+    return "\n".join([str(flag), *parts])
+
+
+def period_table(monitoring: Monitoring) -> Table:
+    points = "points_change" in monitoring.summary.columns and \
+        monitoring.summary["points_change"].notna().any()
+    headings = [("period", "left"), ("rows", "right"), ("mean score change", "right")]
+    if points:
+        headings.append(("mean points change", "right"))
+    headings += [("score PSI", "right"), ("score flagged by", "left"),
+                 ("features flagged", "right")]
+    table = _table("Periods against the development sample", headings)
+    for row in monitoring.summary.itertuples(index=False):
+        cells = [str(row.period), count_text(row.rows), signed_text(row.score_change)]
+        if points:
+            cells.append(signed_text(row.points_change, 1))
+        cells += [psi_text(row.score_psi), stacked_flag(row.score_flag, row.score_rule),
+                  count_text(row.features_flagged)]
+        table.add_row(*cells)
+    return table
+
+
+def flagged_table(monitoring: Monitoring, period: str) -> Table | None:
+    """The flagged features of one period, worst first; None when none is flagged."""
+    rows = monitoring.features[monitoring.features["period"] == period]
+    shown = worst_first(rows[rows["flag"].map(flagged)])
+    if shown.empty:
+        return None
+    points = uses_points(monitoring)
+    change = ("points change", "right") if points else ("contribution change", "right")
+    table = _table(f"{period}: {plural(len(shown), 'flagged feature')} of {len(rows)}, "
+                   "worst first", [("feature", "left"), ("PSI", "right"),
+                                   ("flagged by", "left"), change,
+                                   ("attribution change", "right"),
+                                   ("missing change", "right")])
+    for row in shown.itertuples(index=False):
+        moved = signed_text(row.points_change, 1) if points else signed_text(
+            row.contribution_change)
+        missing = points_text(row.missing_share - row.development_missing_share)
+        table.add_row(str(row.feature), psi_text(row.psi), stacked_flag(row.flag, row.rule),
+                      moved, points_text(row.attribution_change), missing)
+    return table
+
+
+def new_level_lines(monitoring: Monitoring, limit: int = 5) -> list[str]:
+    """Per period and feature, the new levels with their rows (most rows first); past
+    `limit` levels the line says how many more there are."""
+    levels = monitoring.new_levels
+    if levels is None or levels.empty:
+        return []
+    lines = []
+    for (period, feature), group in levels.groupby(["period", "feature"], sort=False):
+        group = group.sort_values(["rows", "level"], ascending=[False, True], kind="stable")
+        named = [f"{level!r} ({count_text(rows)})" for level, rows in
+                 zip(group["level"][:limit], group["rows"][:limit], strict=True)]
+        more = len(group) - limit
+        tail = f" and {plural(more, 'more level')} (in the files)" if more > 0 else ""
+        lines.append(f"New levels of {feature} in {period}: {', '.join(named)}{tail}.")
+    return lines
+
+
+def outcome_table(monitoring: Monitoring) -> Table | None:
+    outcomes = monitoring.outcomes
+    if outcomes is None or outcomes.empty:
+        return None
+    if "observed_rate" in outcomes.columns:
+        table = _table("Outcomes by period (95% intervals below each value)",
+                       [("period", "left"), ("rows", "right"), ("observed rate", "right"),
+                        ("predicted rate", "right"), ("ROC AUC", "right"), ("KS", "right")])
+        for row in outcomes.itertuples(index=False):
+            table.add_row(str(row.period), count_text(row.rows),
+                          _with_interval(row.observed_rate, row.rate_low, row.rate_high),
+                          f"{row.predicted_rate:.3f}",
+                          _with_interval(row.auc, row.auc_low, row.auc_high),
+                          _with_interval(row.ks, row.ks_low, row.ks_high))
+        return table
+    low, high = interval_columns(outcomes)
+    table = _table("Outcomes by period (95% interval of the observed mean below it)",
+                   [("period", "left"), ("rows", "right"), ("observed mean", "right"),
+                    ("predicted mean", "right")])
+    for row in outcomes.itertuples(index=False):
+        values = row._asdict()
+        table.add_row(str(row.period), count_text(row.rows),
+                      _with_interval(row.observed_mean, values.get(low), values.get(high), 4),
+                      f"{row.predicted_mean:.4g}")
+    return table
+
+
+def interval_columns(outcomes: pd.DataFrame) -> tuple[str | None, str | None]:
+    """The columns holding a regression's interval of the observed mean, if any."""
+    for low, high in (("mean_low", "mean_high"), ("observed_low", "observed_high"),
+                      ("interval_low", "interval_high")):
+        if low in outcomes.columns and high in outcomes.columns:
+            return low, high
+    return None, None
+
+
+def _with_interval(value: Any, low: Any, high: Any, digits: int = 3) -> str:
+    if not _finite(value):
+        return ""
+    style = f".{digits}f" if digits == 3 else f".{digits}g"
+    text = format(float(value), style)
+    if _finite(low) and _finite(high):
+        text += f"\n{format(float(low), style)}–{format(float(high), style)}"
+    return text
+
+
+def monitoring_view(monitoring: Monitoring) -> RenderableType:
+    """Everything the terminal shows, in reading order."""
+    summary = monitoring.summary
+    head = (f"Monitoring {plural(len(monitoring.periods), 'period')} against "
+            f"{plural(int(monitoring.development_rows), 'development row')} "
+            f"({monitoring.baseline_source}); model checksum "
+            f"{str(monitoring.model_checksum)[:16]}")
+    parts: list[RenderableType] = [Text(head), Text(""), period_table(monitoring)]
+    note = unscored_note(summary)
+    if note:
+        parts += [Text(note), Text("")]
+    quiet = []
+    for period in monitoring.periods:
+        table = flagged_table(monitoring, period)
+        if table is None:
+            quiet.append(str(period))
+        else:
+            parts.append(table)
+    if quiet:
+        parts += [Text(f"No feature flagged in {', '.join(quiet)}."), Text("")]
+    lines = new_level_lines(monitoring)
+    if lines:
+        parts += [Text(line) for line in lines] + [Text("")]
+    outcomes = outcome_table(monitoring)
+    if outcomes is not None:
+        parts.append(outcomes)
+    parts += [Text("Every feature and bin: --format json or csv, or --page FILE.html.",
+                   style="dim"), Text(CAUTION, style="italic")]
+    return Group(*parts)

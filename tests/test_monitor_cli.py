@@ -1,0 +1,218 @@
+"""What a user sees of monitoring: the terminal view at 80 columns, the JSON and CSV files,
+the HTML page, and the `glassbox monitor` command's errors."""
+
+from __future__ import annotations
+
+import io
+import json
+from collections import Counter
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import pytest
+from rich.console import Console
+
+from glassbox import monitor_files, monitor_page, monitor_plots, monitor_view
+from glassbox.files import file_kind
+from glassbox.report import to_html
+
+
+@dataclass(frozen=True)
+class ConstructedMonitoring:
+    """A hand-made result with the engine's fields: constructed, so its truth is known
+    (additivity holds by construction; the flags are set, not computed)."""
+
+    model_checksum: str
+    baseline_source: str
+    periods: tuple[str, ...]
+    development_rows: int
+    summary: pd.DataFrame
+    features: pd.DataFrame
+    bins: pd.DataFrame
+    score_bins: pd.DataFrame
+    new_levels: pd.DataFrame
+    outcomes: pd.DataFrame | None
+
+
+LONG = "owner_years_in_the_same_trade_before_this_application"
+
+
+def constructed(outcomes: bool = True) -> ConstructedMonitoring:
+    periods = ("2026-Q2", "2026-Q3", "2026-Q4")
+    names = ("annual_revenue", "late_payments_24m", "sector", LONG)
+    rng = np.random.default_rng(7)
+    rows = []
+    flags = {("2026-Q3", "annual_revenue"): ("act", "PSI ≥ 0.25 and χ² p < 0.01", 0.41),
+             ("2026-Q3", "late_payments_24m"): ("watch", "PSI ≥ 0.10", 0.12),
+             ("2026-Q3", LONG): ("changed", "χ² p < 0.01", 0.03),
+             ("2026-Q4", "sector"): ("act", "PSI ≥ 0.25 and χ² p < 0.01", 0.30)}
+    for period in periods:
+        for name in names:
+            flag, rule, psi = flags.get((period, name), ("", "", 0.01))
+            change = float(rng.normal(0, 0.05))
+            rows.append({"period": period, "feature": name, "psi": psi,
+                         "p_value": 1e-6 if flag else 0.4, "flag": flag, "rule": rule,
+                         "bins": 10, "missing_share": 0.02 if name != "sector" else 0.0,
+                         "development_missing_share": 0.02,
+                         "new_level_rows": 12 if (period, name) == ("2026-Q4", "sector")
+                         else 0,
+                         "mean_contribution": change, "development_mean_contribution": 0.0,
+                         "contribution_change": change, "attribution_share": 0.25 + change,
+                         "development_attribution_share": 0.25,
+                         "attribution_change": change})
+    features = pd.DataFrame(rows)
+    change = features.groupby("period", sort=False)["contribution_change"].sum()
+    summary = pd.DataFrame({
+        "period": list(periods), "rows": [1200, 950, 40_000],
+        "scored_rows": [1200, 940, 40_000], "unscored_rows": [0, 10, 0],
+        "mean_score": -2.0 + change.to_numpy(), "development_mean_score": -2.0,
+        "score_change": change.to_numpy(), "score_psi": [0.02, 0.31, 0.05],
+        "score_p_value": [0.5, 1e-9, 1e-5], "score_flag": ["", "act", "changed"],
+        "score_rule": ["", "PSI ≥ 0.25 and χ² p < 0.01", "χ² p < 0.01"],
+        "features_flagged": [0, 3, 1]})
+    score_bins = pd.DataFrame([{"period": p, "bin": f"decile {i + 1}",
+                                "development_share": 0.1, "share": 0.1}
+                               for p in periods for i in range(10)])
+    new_levels = pd.DataFrame({"period": ["2026-Q4"], "feature": ["sector"],
+                               "level": ["mining"], "rows": [12]})
+    table = pd.DataFrame({
+        "period": list(periods), "rows": [1200, 940, 40_000], "positives": [120, 110, 4100],
+        "observed_rate": [0.1, 0.117, 0.1025], "rate_low": [0.084, 0.098, 0.0996],
+        "rate_high": [0.118, 0.138, 0.1055], "predicted_rate": [0.11, 0.10, 0.101],
+        "auc": [0.78, 0.74, 0.77], "auc_low": [0.74, 0.69, 0.76], "auc_high": [0.82, 0.79, 0.78],
+        "ks": [0.41, 0.36, 0.40], "ks_low": [0.35, 0.29, 0.39], "ks_high": [0.47, 0.43, 0.41]})
+    return ConstructedMonitoring("ab" * 32, "training rows", periods, 5000, summary, features,
+                                 pd.DataFrame(), score_bins, new_levels,
+                                 table if outcomes else None)
+
+
+def shown(renderable, width: int = 80) -> str:
+    console = Console(width=width, file=io.StringIO(), color_system=None, highlight=False)
+    console.print(renderable)
+    return console.file.getvalue()
+
+
+def nothing_cut(renderable) -> str:
+    """The view at 80 columns, checked to hold every character it holds when wide: rich
+    crops a line past the console's width without a mark, so an ellipsis is not the only
+    way to lose a cell (a whole column can go). Rules (─) differ with the width."""
+    narrow, wide = shown(renderable), shown(renderable, width=1000)
+    assert "…" not in narrow
+    assert max(len(line) for line in narrow.splitlines()) <= 80
+
+    def characters(text: str) -> Counter:
+        return Counter(c for c in text if not c.isspace() and c != "─")
+
+    assert characters(narrow) == characters(wide)
+    return narrow
+
+
+def test_terminal_fits_80_columns_with_nothing_cut():
+    text = nothing_cut(monitor_view.monitoring_view(constructed()))
+    assert "2026-Q3: 3 flagged features of 4, worst first" in text
+    assert "2026-Q4: 1 flagged feature of 4, worst first" in text
+    assert "No feature flagged in 2026-Q2." in text
+    assert "New levels of sector in 2026-Q4: 'mining' (12)." in text
+    assert "Rows the model cannot score" in text and "10 in 2026-Q3" in text
+    assert "a flag is a prompt to investigate, not a verdict" in text
+
+
+def test_terminal_puts_the_worst_first_and_says_which_rule_flagged():
+    text = shown(monitor_view.monitoring_view(constructed()), width=200)
+    third = text[text.index("2026-Q3: 3 flagged"):text.index("2026-Q4: 1 flagged")]
+    order = [third.index(name) for name in ("annual_revenue", "late_payments_24m",
+                                            "owner_years")]
+    assert order == sorted(order)  # act, then watch, then the sample-size check alone
+    lines = [line.split() for line in third.splitlines()]
+    first = next(i for i, words in enumerate(lines) if words[:1] == ["annual_revenue"])
+    assert "act" in lines[first]  # the flag, then each rule that raised it, a line each
+    assert " ".join(lines[first + 1]) == "PSI ≥ 0.25" and " ".join(lines[first + 2]) == (
+        "χ² p < 0.01")
+    last = next(i for i, words in enumerate(lines) if words[:1] == [LONG])
+    assert "changed" in lines[last] and " ".join(lines[last + 1]) == "χ² p < 0.01"
+
+
+def test_terminal_without_outcomes_and_narrow_periods():
+    text = nothing_cut(monitor_view.monitoring_view(constructed(outcomes=False)))
+    assert "Outcomes" not in text
+
+
+def test_json_is_recognised_and_repeats_byte_for_byte(tmp_path):
+    result = constructed()
+    text = monitor_files.to_json(result, {"model_file": "m.json"})
+    assert text == monitor_files.to_json(constructed(), {"model_file": "m.json"})
+    document = json.loads(text)
+    assert list(document)[:2] == ["format", "version"]
+    assert document["format"] == "glassbox-monitoring" and document["version"] == 1
+    assert len(document["features"]) == 12 and document["periods"][0] == "2026-Q2"
+    assert document["outcomes"][1]["auc"] == 0.74
+    path = tmp_path / "monitoring.json"
+    path.write_text(text)
+    assert file_kind(path) == "glassbox-monitoring"
+
+
+def test_csv_holds_each_feature_with_its_period_summary(tmp_path):
+    result = constructed()
+    text = monitor_files.to_monitoring_csv(result)
+    table = pd.read_csv(io.StringIO(text))
+    assert len(table) == len(result.features)
+    assert list(table.columns[:3]) == ["period", "period_rows", "period_scored_rows"]
+    q3 = table[table["period"] == "2026-Q3"]
+    assert (q3["score_psi"] == 0.31).all() and (q3["period_rows"] == 950).all()
+    path = tmp_path / "monitoring.csv"
+    path.write_text(text)
+    assert file_kind(path) == "csv-monitoring"
+
+
+def test_characteristic_bars_add_up_to_the_mean_score_change():
+    """The stacked bars of each period sum to the period's score change (the diamond)."""
+    result = constructed()
+    figure = monitor_plots.characteristic_figure(
+        result.summary, result.features, list(result.periods), "contribution_change",
+        "score_change", "log-odds")
+    axis = figure.axes[0]
+    heights = np.zeros(len(result.periods))
+    for patch in axis.patches:
+        heights[int(round(patch.get_x() + patch.get_width() / 2))] += patch.get_height()
+    diamonds = axis.collections[0].get_offsets()[:, 1]
+    np.testing.assert_allclose(heights, result.summary["score_change"], atol=1e-12)
+    np.testing.assert_allclose(diamonds, result.summary["score_change"], atol=1e-12)
+
+
+def test_page_is_self_contained_with_every_picture_explained():
+    page = monitor_page.build_page(constructed(), model_name="Model file m.json",
+                                   inputs=["q2.csv"])
+    assert [p.name for p in page.pictures] == ["score-psi", "characteristics",
+                                                "stability-heat", "contributions",
+                                                "attribution"]
+    for section in page.sections:
+        if any(isinstance(b, monitor_page.Picture) for b in section.blocks):
+            assert any(isinstance(b, monitor_page.Paragraph) and b.text.startswith(
+                "How to read it") for b in section.blocks), section.title
+    html = to_html(page)
+    assert "<script" not in html and "http" not in html.replace(
+        'src="data:image/png', "")
+    assert html.count("data:image/png;base64,") == 5
+    assert "Stability is not accuracy" in html and "not a verdict" in html
+    assert "Outcomes by period" in html
+    assert html == to_html(monitor_page.build_page(constructed(), model_name="Model file m.json",
+                                                   inputs=["q2.csv"]))
+
+
+@pytest.mark.parametrize("periods", [1, 14])
+def test_page_draws_one_period_and_many(periods):
+    result = constructed(outcomes=False)
+    labels = tuple(f"period-{i:02d}" for i in range(periods))
+    repeat = {old: new for old, new in zip(result.periods, labels, strict=False)}
+    features = pd.concat([result.features[result.features["period"] == "2026-Q3"].assign(
+        period=label) for label in labels])
+    summary = pd.concat([result.summary[result.summary["period"] == "2026-Q3"].assign(
+        period=label) for label in labels])
+    assert repeat
+    small = ConstructedMonitoring(result.model_checksum, result.baseline_source, labels,
+                                  5000, summary, features, pd.DataFrame(), pd.DataFrame(),
+                                  pd.DataFrame(), None)
+    html = to_html(monitor_page.build_page(small))
+    assert html.count("data:image/png;base64,") == 5
+    nothing_cut(monitor_view.monitoring_view(small))
