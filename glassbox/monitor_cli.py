@@ -5,12 +5,15 @@ Registered on the `glassbox` app from the end of cli.py; no logic here.
 
 from __future__ import annotations
 
+import contextlib
 import sys
+from collections.abc import Callable, Iterator
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
 import typer
+from rich.progress import Progress, TextColumn, TimeElapsedColumn
 
 from glassbox import artifact
 from glassbox.cli import (
@@ -24,6 +27,7 @@ from glassbox.cli import (
 )
 from glassbox.errors import OptionError
 from glassbox.files import check_output, table_kind, write_atomic
+from glassbox.monitor_view import plural
 
 
 class MonitorFormat(StrEnum):
@@ -84,29 +88,25 @@ def monitor_command(
     """Compare periods of new rows with the model's development sample: score and
     feature stability (PSI), what moved the mean score, attribution drift, missing
     values and new levels, and outcomes when the files have them."""
-    from glassbox import monitor_files, monitor_page, monitor_view
-    from glassbox.monitor import monitor
-
     if format is MonitorFormat.table and out is not None:
         raise OptionError("--out needs --format json or csv (the terminal table is not a file)")
-    if every is not None and period is None:
-        raise OptionError("--every needs --period COLUMN (the column of dates to group)")
     inputs = [model_file, *data, baseline, card_file]
     written = "glassbox-monitoring" if format is MonitorFormat.json else table_kind(
         format.value, "monitoring")
     check_output(out, written, inputs, force=force)
     check_output(page, "html", [*inputs, out], force=force, option="--page")
-    model = artifact.load(model_file)
-    card = None
-    if card_file is not None:
-        from glassbox import points
+    from glassbox import monitor_files, monitor_page, monitor_view, points
+    from glassbox.baseline import baseline_from_file
+    from glassbox.monitor import monitor
 
-        card = points.load(card_file)
-    with progress_note(f"counting {len(data)} file(s) against the development sample"):
+    model = artifact.load(model_file)
+    card = None if card_file is None else points.load(card_file)
+    development = None if baseline is None else baseline_from_file(model, baseline)
+    with block_progress(chunk_rows) as progress:
         result = monitor(model, list(data), period=period,
-                         every=None if every is None else every.value, baseline=baseline,
+                         every=None if every is None else every.value, baseline=development,
                          card=card, engine=engine.value, jobs=jobs, scheduler=scheduler,
-                         chunk_rows=chunk_rows)
+                         chunk_rows=chunk_rows, progress=progress)
     if page is not None:
         with progress_note("drawing the monitoring page"):
             document = monitor_page.build_page(result, model_name=f"Model file {model_file.name}",
@@ -130,3 +130,21 @@ def monitor_command(
         return
     write_atomic(out, text)
     stderr_console().print(f"wrote the monitoring {format.value} to {out}", highlight=False)
+
+
+@contextlib.contextmanager
+def block_progress(chunk_rows: int) -> Iterator[Callable[[int, int | None], None] | None]:
+    """Blocks counted so far, on standard error (nothing when it is not a terminal)."""
+    console = stderr_console()
+    if not console.is_terminal:
+        yield None
+        return
+    with Progress(TextColumn("{task.description}"), TimeElapsedColumn(), console=console,
+                  transient=True) as bar:
+        task = bar.add_task("reading the first block", total=None)
+
+        def update(done: int, total: int | None = None) -> None:
+            bar.update(task, description=f"counted {plural(done, 'block')} of up to "
+                                         f"{chunk_rows:,} rows")
+
+        yield update

@@ -77,9 +77,9 @@ def flagged(flag: Any) -> bool:
 
 
 def flag_words(flag: Any, rule: Any) -> str:
-    """"act: PSI ≥ 0.25" or "" when no rule flagged."""
+    """"act: PSI ≥ 0.25"; "" when no rule flagged, or the reason none could (no rows)."""
     if not flagged(flag):
-        return ""
+        return str(rule) if _finite(rule) and rule else ""
     return f"{flag}: {rule}" if rule else str(flag)
 
 
@@ -129,7 +129,7 @@ def _table(title: str, headings: Sequence[tuple[str, str]]) -> Table:
 def stacked_flag(flag: Any, rule: Any) -> str:
     """The flag over the rule(s) that raised it, one rule a line: narrow, never cut."""
     if not flagged(flag):
-        return "none"
+        return str(rule) if _finite(rule) and rule else "none"
     parts = [part.strip() for part in re.split(r",| and |;", str(rule or "")) if part.strip()]
     return "\n".join([str(flag), *parts])
 

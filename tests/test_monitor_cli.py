@@ -216,3 +216,29 @@ def test_page_draws_one_period_and_many(periods):
     html = to_html(monitor_page.build_page(small))
     assert html.count("data:image/png;base64,") == 5
     nothing_cut(monitor_view.monitoring_view(small))
+
+
+# ---------------------------------------------------------------- the command
+
+
+def run(*args):
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app
+
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def test_options_are_checked_before_any_work(tmp_path):
+    from .conftest import DEMO, one_line_error
+
+    model, data = tmp_path / "m.json", DEMO / "loans.csv"
+    one_line_error(run("monitor", model, data, "--out", tmp_path / "x.json"),
+                   "--out needs --format json or csv")
+    one_line_error(run("monitor", model, data, "--format", "csv", "--out", data),
+                   "is the input")
+    one_line_error(run("monitor", model, data, "--page", data), "--page", "is the input")
+    taken = tmp_path / "scores.csv"
+    taken.write_text("score,probability\n0.1,0.5\n")
+    one_line_error(run("monitor", model, data, "--page", taken), "a CSV of scores",
+                   "--force")
