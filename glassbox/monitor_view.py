@@ -24,6 +24,8 @@ if TYPE_CHECKING:  # the engine's result; only its fields are read here
 
 # the flags the stability rules give, worst first (glassbox.stability.flag)
 FLAG_ORDER = ("act", "watch", "changed")
+RULE_KEY = ("Flagged by PSI: the trade's convention, watch from 0.10 and act from 0.25 "
+            "(Lewis 1994; Siddiqi). By χ²: the sample-size check, p < 0.01 under no change.")
 CAUTION = ("Stability is not accuracy, and a flag is a prompt to investigate, not a verdict: "
            "these are model what-ifs and population counts, not advice.")
 WIDTH = 80
@@ -126,12 +128,13 @@ def _table(title: str, headings: Sequence[tuple[str, str]]) -> Table:
     return table
 
 
-def stacked_flag(flag: Any, rule: Any) -> str:
-    """The flag over the rule(s) that raised it, one rule a line: narrow, never cut."""
+def short_flag(flag: Any, rule: Any) -> str:
+    """The flag and, in brackets, which rules raised it ("act (PSI, χ²)"), for a narrow
+    column; `RULE_KEY` spells them out under the tables."""
     if not flagged(flag):
         return str(rule) if _finite(rule) and rule else "none"
-    parts = [part.strip() for part in re.split(r",| and |;", str(rule or "")) if part.strip()]
-    return "\n".join([str(flag), *parts])
+    rules = [name for name, mark in (("PSI", "PSI"), ("χ²", "χ²")) if mark in str(rule)]
+    return f"{flag} ({', '.join(rules)})" if rules else str(flag)
 
 
 def period_table(monitoring: Monitoring) -> Table:
@@ -147,7 +150,7 @@ def period_table(monitoring: Monitoring) -> Table:
         cells = [str(row.period), count_text(row.rows), signed_text(row.score_change)]
         if points:
             cells.append(signed_text(row.points_change, 1))
-        cells += [psi_text(row.score_psi), stacked_flag(row.score_flag, row.score_rule),
+        cells += [psi_text(row.score_psi), short_flag(row.score_flag, row.score_rule),
                   count_text(row.features_flagged)]
         table.add_row(*cells)
     return table
@@ -170,7 +173,7 @@ def flagged_table(monitoring: Monitoring, period: str) -> Table | None:
         moved = signed_text(row.points_change, 1) if points else signed_text(
             row.contribution_change)
         missing = points_text(row.missing_share - row.development_missing_share)
-        table.add_row(str(row.feature), psi_text(row.psi), stacked_flag(row.flag, row.rule),
+        table.add_row(str(row.feature), psi_text(row.psi), short_flag(row.flag, row.rule),
                       moved, points_text(row.attribution_change), missing)
     return table
 
@@ -243,9 +246,9 @@ def monitoring_view(monitoring: Monitoring) -> RenderableType:
     summary = monitoring.summary
     head = (f"Monitoring {plural(len(monitoring.periods), 'period')} against "
             f"{plural(int(monitoring.development_rows), 'development row')} "
-            f"({monitoring.baseline_source}); model checksum "
-            f"{str(monitoring.model_checksum)[:16]}")
-    parts: list[RenderableType] = [Text(head), Text(""), period_table(monitoring)]
+            f"({monitoring.baseline_source})")
+    parts: list[RenderableType] = [Text(head), Text(f"model {monitoring.model_checksum}"),
+                                   Text(""), period_table(monitoring)]
     note = unscored_note(summary)
     if note:
         parts += [Text(note), Text("")]
@@ -264,6 +267,7 @@ def monitoring_view(monitoring: Monitoring) -> RenderableType:
     outcomes = outcome_table(monitoring)
     if outcomes is not None:
         parts.append(outcomes)
+    parts.append(Text(RULE_KEY, style="dim"))
     parts += [Text("Every feature and bin: --format json or csv, or --page FILE.html.",
                    style="dim"), Text(CAUTION, style="italic")]
     return Group(*parts)
