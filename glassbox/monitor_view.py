@@ -9,7 +9,6 @@ the page (monitor_page.py) and the files (monitor_files.py).
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
