@@ -19,6 +19,7 @@ from glassbox import artifact
 from glassbox.cli import (
     MAX_JOBS,
     Force,
+    ReasonsFormat,
     app,
     friendly,
     progress_note,
@@ -29,22 +30,11 @@ from glassbox.errors import OptionError
 from glassbox.files import check_output, table_kind, write_atomic
 from glassbox.monitor_view import plural
 
-
-class MonitorFormat(StrEnum):
-    table = "table"
-    json = "json"
-    csv = "csv"
-
-
-class Every(StrEnum):
-    month = "month"
-    quarter = "quarter"
-    year = "year"
-
-
-class MonitorEngine(StrEnum):
-    local = "local"
-    dask = "dask"
+MonitorFormat = ReasonsFormat  # the same choices: table (terminal), json, csv
+# the choices the engine takes (glassbox.monitor checks them again)
+Every = StrEnum("Every", {name: name for name in ("month", "quarter", "year")})
+MonitorEngine = StrEnum("MonitorEngine", {name: name for name in ("local", "dask")})
+LOCAL = MonitorEngine("local")
 
 
 @app.command("monitor")
@@ -52,7 +42,7 @@ class MonitorEngine(StrEnum):
 def monitor_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
     data: Annotated[list[Path], typer.Argument(
-        metavar="DATA...", help="CSV or Parquet files, one period each in the order given "
+        metavar="DATA", help="CSV or Parquet files, one period each in the order given "
                                 "(or one file with --period).")],
     period: Annotated[str | None, typer.Option(
         metavar="COLUMN", help="One file: its periods are this column's values.")] = None,
@@ -75,7 +65,7 @@ def monitor_command(
     ] = None,
     engine: Annotated[MonitorEngine, typer.Option(
         help="local: read the blocks here; dask: count them on a dask.distributed cluster "
-             "(the same numbers).")] = MonitorEngine.local,
+             "(the same numbers).")] = LOCAL,
     jobs: Annotated[int, typer.Option(help="Workers counting at once.", min=1,
                                       max=MAX_JOBS)] = 1,
     scheduler: Annotated[str | None, typer.Option(

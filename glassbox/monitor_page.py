@@ -29,7 +29,17 @@ from glassbox.monitor_view import (
     uses_points,
     worst_first,
 )
-from glassbox.report import CAUTIONS, Bullets, Paragraph, Picture, Report, Section, Table, to_html
+from glassbox.report import (
+    CAUTIONS,
+    Block,
+    Bullets,
+    Paragraph,
+    Picture,
+    Report,
+    Section,
+    Table,
+    to_html,
+)
 
 if TYPE_CHECKING:
     from glassbox.monitor import Monitoring
@@ -151,10 +161,9 @@ def _characteristic_section(monitoring: Monitoring, periods: list[str],
            "worth a look too: a few rows in an extreme bin can do it.")
     table = _per_period(monitoring.features, periods,
                         lambda v: signed_text(v, 1 if points else 3), change)
-    return Section("What moved the mean score", (
-        Paragraph(how), Picture("characteristics", figure,
-                                "Stacked bars of each feature's change in mean contribution"),
-        Table(table, f"Change in each feature's mean contribution ({unit}), by period")))
+    return _explained("What moved the mean score", how, Picture(
+        "characteristics", figure, "Stacked bars of each feature's change in mean contribution"),
+        Table(table, f"Change in each feature's mean contribution ({unit}), by period"))
 
 
 def _stability_section(monitoring: Monitoring, periods: list[str]) -> Section:
@@ -196,10 +205,9 @@ def _contribution_section(monitoring: Monitoring, periods: list[str], scale: str
            f"(of {features['feature'].nunique()}); the table has every feature.")
     table = _per_period(features, periods, signed_text, "mean_contribution",
                         development="development_mean_contribution")
-    return Section("Mean contribution over periods", (
-        Paragraph(how), Picture("contributions", figure,
-                                "Small multiples of mean contribution by period"),
-        Table(table, f"Mean contribution ({scale}) by period")))
+    return _explained("Mean contribution over periods", how, Picture(
+        "contributions", figure, "Small multiples of mean contribution by period"),
+        Table(table, f"Mean contribution ({scale}) by period"))
 
 
 def _attribution_section(monitoring: Monitoring, periods: list[str]) -> Section:
@@ -216,10 +224,14 @@ def _attribution_section(monitoring: Monitoring, periods: list[str]) -> Section:
     shares = features.drop_duplicates("feature").set_index("feature")[
         "development_attribution_share"]
     table.insert(1, "development share", [share_text(shares[name]) for name in table["feature"]])
-    return Section("Attribution drift", (
-        Paragraph(how), Picture("attribution", figure,
-                                "Paired bars of attribution shares, development and latest"),
-        Table(table, "Change in attribution share (percentage points) by period")))
+    return _explained("Attribution drift", how, Picture(
+        "attribution", figure, "Paired bars of attribution shares, development and latest"),
+        Table(table, "Change in attribution share (percentage points) by period"))
+
+
+def _explained(title: str, how: str, picture: Picture, *more: Block) -> Section:
+    """A section of a picture after the sentence on how to read it, then its tables."""
+    return Section(title, (Paragraph(how), picture, *more))
 
 
 def _missing_section(monitoring: Monitoring) -> Section:
