@@ -190,7 +190,32 @@ def _stability_section(monitoring: Monitoring, periods: list[str]) -> Section:
             "flagged by": [flag_words(f, r) for f, r in zip(worst["flag"], worst["rule"],
                                                               strict=True)]}),
             "Flagged features, worst first"))
+        blocks += _bin_tables(monitoring, periods, worst["feature"].unique()[:SMALL_MULTIPLES])
     return Section("Feature stability", tuple(blocks))
+
+
+def _bin_tables(monitoring: Monitoring, periods: list[str], names) -> list[Block]:
+    """For the worst flagged features, each bin's share of rows in development and in
+    every period: which bins the rows moved between."""
+    bins = monitoring.bins
+    if bins is None or bins.empty or not len(names):
+        return []
+    blocks: list[Block] = [Paragraph(
+        f"Where the rows moved, for the {plural(len(names), 'flagged feature')} flagged worst "
+        "(every feature's bins are in the JSON file, --format json): each bin's share of "
+        "rows in development and in each period.")]
+    for name in names:
+        own = bins[bins["feature"] == name]
+        labels = own.drop_duplicates("bin")["bin"].tolist()
+        wide = own.pivot(index="bin", columns="period", values="share")
+        development = own.drop_duplicates("bin").set_index("bin")["development_share"]
+        table = pd.DataFrame({"bin": [str(label) for label in labels],
+                              "development": [share_text(development[b]) for b in labels]})
+        for period in periods:
+            table[period] = [share_text(wide.at[b, period]) if period in wide.columns
+                             else "" for b in labels]
+        blocks.append(Table(table, f"{name}: share of rows in each bin"))
+    return blocks
 
 
 def _contribution_section(monitoring: Monitoring, periods: list[str], scale: str) -> Section:

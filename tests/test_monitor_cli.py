@@ -82,8 +82,12 @@ def constructed(outcomes: bool = True) -> ConstructedMonitoring:
         "rate_high": [0.118, 0.138, 0.1055], "predicted_rate": [0.11, 0.10, 0.101],
         "auc": [0.78, 0.74, 0.77], "auc_low": [0.74, 0.69, 0.76], "auc_high": [0.82, 0.79, 0.78],
         "ks": [0.41, 0.36, 0.40], "ks_low": [0.35, 0.29, 0.39], "ks_high": [0.47, 0.43, 0.41]})
+    bins = pd.DataFrame([{"period": p, "feature": name, "bin": label,
+                          "development_share": share, "share": share}
+                         for p in periods for name in names
+                         for label, share in (("≤ 10", 0.5), ("> 10", 0.48), ("missing", 0.02))])
     return ConstructedMonitoring("ab" * 32, "training rows", periods, 5000, summary, features,
-                                 pd.DataFrame(), score_bins, new_levels,
+                                 bins, score_bins, new_levels,
                                  table if outcomes else None)
 
 
@@ -191,6 +195,7 @@ def test_page_is_self_contained_with_every_picture_explained():
     assert html.count("data:image/png;base64,") == 5
     assert "Stability is not accuracy" in html and "not a verdict" in html
     assert "Outcomes by period" in html
+    assert "annual_revenue: share of rows in each bin" in html
     assert html == to_html(monitor_page.build_page(constructed(), model_name="Model file m.json",
                                                    inputs=["q2.csv"]))
 
