@@ -53,7 +53,13 @@ PAGE_CAUTIONS = (
     "A flag is a prompt to investigate, not a verdict. It says the rows now look different "
     "from the development rows by a stated rule; whether that matters, and why it "
     "happened (the market, the product, a data feed), is for people to find out.",
-    *CAUTIONS[:3],  # the house cautions: a model is not a decision; protected columns; law
+    "This page describes a statistical model and the rows it was given: how they compare "
+    "with the rows it was developed on. It is not a decision and does not say what any "
+    "decision should be.",
+    "Protected characteristics are never inputs to the model and never levers for "
+    "changing an outcome; monitoring reads only the model's features, the period and the "
+    "outcome.",
+    CAUTIONS[2],  # the house caution on law and compliance review, as the report words it
 )
 
 

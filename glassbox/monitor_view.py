@@ -68,7 +68,7 @@ def points_text(value: Any) -> str:
 def p_text(value: Any) -> str:
     if not _finite(value):
         return ""
-    return "< 0.0001" if float(value) < 1e-4 else f"{float(value):.4f}"
+    return "<0.0001" if float(value) < 1e-4 else f"{float(value):.4f}"
 
 
 def plural(count: int, word: str, many: str | None = None) -> str:
