@@ -18,11 +18,14 @@ from glassbox import monitor_plots as pictures
 from glassbox.files import write_atomic
 from glassbox.monitor_view import (
     count_text,
+    fixed_text,
     flag_words,
+    outcome_notes,
     p_text,
     plural,
     points_text,
     psi_text,
+    range_text,
     share_text,
     signed_text,
     unscored_note,
@@ -106,7 +109,7 @@ def _summary_section(monitoring: Monitoring, periods: list[str]) -> Section:
         "period": summary["period"].astype(str),
         "rows": [count_text(v) for v in summary["rows"]],
         "scored rows": [count_text(v) for v in summary["scored_rows"]],
-        "mean score": [f"{v:.4f}" for v in summary["mean_score"].astype(float)],
+        "mean score": [fixed_text(v, ".4f") for v in summary["mean_score"]],
         "change": [signed_text(v) for v in summary["score_change"]],
         "score PSI": [psi_text(v) for v in summary["score_psi"]],
         "p-value": [p_text(v) for v in summary["score_p_value"]],
@@ -121,7 +124,7 @@ def _summary_section(monitoring: Monitoring, periods: list[str]) -> Section:
                           "value": [str(monitoring.model_checksum),
                                     str(monitoring.baseline_source),
                                     count_text(monitoring.development_rows),
-                                    f"{development:.4f}", ", ".join(periods)]})
+                                    fixed_text(development, ".4f"), ", ".join(periods)]})
     blocks = [Table(pairs, pairs=True), Table(shown, "Each period against development")]
     note = unscored_note(summary)
     if note:
@@ -299,15 +302,15 @@ def _outcome_section(monitoring: Monitoring) -> Section:
         shown = pd.DataFrame({
             "period": outcomes["period"].astype(str),
             "rows": [count_text(v) for v in outcomes["rows"]],
-            "observed rate": [f"{v:.3f}" for v in outcomes["observed_rate"]],
-            "95% interval": [f"{lo:.3f} to {hi:.3f}" for lo, hi in
+            "observed rate": [fixed_text(v) for v in outcomes["observed_rate"]],
+            "95% interval": [range_text(lo, hi) for lo, hi in
                              zip(outcomes["rate_low"], outcomes["rate_high"], strict=True)],
-            "predicted rate": [f"{v:.3f}" for v in outcomes["predicted_rate"]],
-            "ROC AUC": [f"{v:.3f} ({lo:.3f} to {hi:.3f})" for v, lo, hi in
-                        zip(outcomes["auc"], outcomes["auc_low"], outcomes["auc_high"],
-                            strict=True)],
-            "KS": [f"{v:.3f} ({lo:.3f} to {hi:.3f})" for v, lo, hi in
-                   zip(outcomes["ks"], outcomes["ks_low"], outcomes["ks_high"], strict=True)]})
+            "predicted rate": [fixed_text(v) for v in outcomes["predicted_rate"]]})
+        for name, column in (("ROC AUC", "auc"), ("KS", "ks")):
+            shown[name] = [fixed_text(v) for v in outcomes[column]]
+            shown[f"{name} 95% interval"] = [
+                range_text(lo, hi) for lo, hi in zip(outcomes[f"{column}_low"],
+                                                     outcomes[f"{column}_high"], strict=True)]
         how = ("Observed against predicted rate, with a Clopper-Pearson 95% interval for the "
                "observed rate: a predicted rate outside it says the model's calibration has "
                "moved. ROC AUC (DeLong's interval) and KS (bootstrap interval) measure how "
@@ -317,14 +320,18 @@ def _outcome_section(monitoring: Monitoring) -> Section:
         shown = pd.DataFrame({
             "period": outcomes["period"].astype(str),
             "rows": [count_text(v) for v in outcomes["rows"]],
-            "observed mean": [f"{v:.4g}" for v in outcomes["observed_mean"]],
-            "predicted mean": [f"{v:.4g}" for v in outcomes["predicted_mean"]]})
+            "observed mean": [fixed_text(v, ".4g") for v in outcomes["observed_mean"]],
+            "predicted mean": [fixed_text(v, ".4g") for v in outcomes["predicted_mean"]]})
         if low is not None:
-            shown["95% interval"] = [f"{lo:.4g} to {hi:.4g}" for lo, hi in
-                                     zip(outcomes[low], outcomes[high], strict=True)]
+            shown.insert(3, "95% interval", [range_text(lo, hi, ".4g") for lo, hi in
+                                             zip(outcomes[low], outcomes[high], strict=True)])
         how = ("Observed against predicted mean by period: a predicted mean outside the "
                "observed mean's interval says the model's level has moved.")
-    return Section("Outcomes by period", (Paragraph(how), Table(shown)))
+    notes = outcome_notes(outcomes)
+    blocks: list[Block] = [Paragraph(how), Table(shown)]
+    if notes:
+        blocks.append(Bullets(tuple(notes)))
+    return Section("Outcomes by period", tuple(blocks))
 
 
 def _rules_section() -> Section:

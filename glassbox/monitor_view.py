@@ -56,6 +56,18 @@ def signed_text(value: Any, digits: int = 3) -> str:
     return f"{0.0 if abs(value) < 0.5 * 10 ** -digits else value:+.{digits}f}"
 
 
+def fixed_text(value: Any, style: str = ".3f") -> str:
+    """A value in a fixed style (".3f" for rates and AUC, ".4g" for means); blank for none."""
+    return format(float(value), style) if _finite(value) else ""
+
+
+def range_text(low: Any, high: Any, style: str = ".3f") -> str:
+    """An interval as "low to high"; blank when either end is missing."""
+    if not (_finite(low) and _finite(high)):
+        return ""
+    return f"{fixed_text(low, style)} to {fixed_text(high, style)}"
+
+
 def share_text(value: Any) -> str:
     return f"{100 * float(value):.1f}%" if _finite(value) else ""
 
@@ -247,6 +259,20 @@ def outcome_table(monitoring: Monitoring, width: int = WIDTH) -> Table | None:
                    ("predicted mean", "right")], rows, width)
 
 
+def outcome_notes(outcomes: pd.DataFrame | None) -> list[str]:
+    """One line per period whose outcome figures are missing or qualified: no rows with an
+    outcome, or an interval clipped or not computed (the engine's note)."""
+    if outcomes is None or outcomes.empty:
+        return []
+    lines = []
+    for row in outcomes.to_dict(orient="records"):
+        if not _finite(row.get("rows")) or row["rows"] == 0:
+            lines.append(f"{row['period']}: no rows with an outcome, so no outcome figures.")
+        elif _finite(row.get("note")) and row.get("note"):
+            lines.append(f"{row['period']}: {row['note']}.")
+    return lines
+
+
 def interval_columns(outcomes: pd.DataFrame) -> tuple[str | None, str | None]:
     """The columns holding a regression's interval of the observed mean, if any."""
     for low, high in (("mean_low", "mean_high"), ("observed_low", "observed_high"),
@@ -292,6 +318,9 @@ def monitoring_view(monitoring: Monitoring, width: int = WIDTH) -> RenderableTyp
     outcomes = outcome_table(monitoring, width)
     if outcomes is not None:
         parts.append(outcomes)
+        notes = outcome_notes(monitoring.outcomes)
+        if notes:
+            parts += [Text(line) for line in notes] + [Text("")]
     parts.append(Text(RULE_KEY, style="dim"))
     parts += [Text("Every feature and bin: --format json or csv, or --page FILE.html.",
                    style="dim"), Text(CAUTION, style="italic")]

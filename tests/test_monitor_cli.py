@@ -81,7 +81,8 @@ def constructed(outcomes: bool = True) -> ConstructedMonitoring:
         "observed_rate": [0.1, 0.117, 0.1025], "rate_low": [0.084, 0.098, 0.0996],
         "rate_high": [0.118, 0.138, 0.1055], "predicted_rate": [0.11, 0.10, 0.101],
         "auc": [0.78, 0.74, 0.77], "auc_low": [0.74, 0.69, 0.76], "auc_high": [0.82, 0.79, 0.78],
-        "ks": [0.41, 0.36, 0.40], "ks_low": [0.35, 0.29, 0.39], "ks_high": [0.47, 0.43, 0.41]})
+        "ks": [0.41, 0.36, 0.40], "ks_low": [0.35, 0.29, 0.39], "ks_high": [0.47, 0.43, 0.41],
+        "note": ["", "KS: clipped to [0, 1]", ""]})
     bins = pd.DataFrame([{"period": p, "feature": name, "bin": label,
                           "development_share": share, "share": share}
                          for p in periods for name in names
@@ -120,6 +121,7 @@ def test_terminal_fits_80_columns_with_nothing_cut():
     assert "New levels of sector in 2026-Q4: 'mining' (12)." in text
     assert "Rows the model cannot score" in text and "10 in 2026-Q3" in text
     assert "a flag is a prompt to investigate, not a verdict" in text
+    assert "2026-Q3: KS: clipped to [0, 1]." in text
 
 
 def test_terminal_puts_the_worst_first_and_says_which_rule_flagged():
@@ -196,6 +198,7 @@ def test_page_is_self_contained_with_every_picture_explained():
     assert "Stability is not accuracy" in html and "not a verdict" in html
     assert "Outcomes by period" in html
     assert "annual_revenue: share of rows in each bin" in html
+    assert "2026-Q3: KS: clipped to [0, 1]." in html
     assert html == to_html(monitor_page.build_page(constructed(), model_name="Model file m.json",
                                                    inputs=["q2.csv"]))
 
