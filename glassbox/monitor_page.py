@@ -234,7 +234,8 @@ def _contribution_section(monitoring: Monitoring, periods: list[str], scale: str
     how = ("How to read it: each panel is one feature's mean contribution to the score in "
            "each period (orange) against its value on the development rows (dashed). Terms "
            "are centred on the development rows, so the dashed line sits near zero. A panel "
-           "drifting away from its line is a feature pushing the score; the "
+           "drifting away from its line is a feature pushing the score. All panels share one "
+           "scale, so a small move looks small beside a large one; the "
            f"{plural(len(names), 'feature')} drawn are those that moved most in any period "
            f"(of {features['feature'].nunique()}); the table has every feature.")
     table = _per_period(features, periods, signed_text, "mean_contribution",

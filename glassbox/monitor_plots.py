@@ -78,13 +78,14 @@ def score_psi_figure(summary: pd.DataFrame, watch: float, act: float) -> Figure:
 
 def contribution_figure(features: pd.DataFrame, names: Sequence[str], periods: Sequence[str],
                         scale: str) -> Figure:
-    """Small multiples: per feature, its mean contribution in each period (line) against
-    its development value (dashed)."""
+    """Small multiples on one shared scale: per feature, its mean contribution in each
+    period (line) against its development value (dashed)."""
     columns = min(3, len(names))
     rows = -(-len(names) // columns)
     figure = Figure(figsize=(3.1 * columns + 0.4, 2.4 * rows + 0.5), dpi=DPI,
                     layout="constrained")
-    axes = np.atleast_1d(figure.subplots(rows, columns, squeeze=False).ravel())
+    # one scale for every panel, so a small move looks small beside a large one
+    axes = np.atleast_1d(figure.subplots(rows, columns, squeeze=False, sharey=True).ravel())
     for axis, name in zip(axes, names, strict=False):
         own = features[features["feature"] == name].set_index("period").reindex(periods)
         values = own["mean_contribution"].astype(float).to_numpy()
