@@ -175,20 +175,19 @@ def ks_interval(scores, labels, seed: int = 0, replicates: int = 200,
     """KS statistic: the largest gap between the positives' and the negatives' empirical
     score distributions (Kolmogorov-Smirnov two-sample statistic), with a stratified
     bootstrap percentile interval (Efron & Tibshirani 1993): each class resampled at its own
-    size. The rows are reduced to counts per distinct score (sorted), so the order rows
-    arrive in never changes the numbers. None without both classes."""
+    size. Each class's rows are sorted by score first, so the order rows arrive in never
+    changes the numbers. None without both classes."""
     scores, labels = _outcome_arrays(scores, labels)
     values, where = np.unique(scores, return_inverse=True)
-    positive = np.bincount(where[labels], minlength=values.size)
-    negative = np.bincount(where[~labels], minlength=values.size)
-    m, n = int(positive.sum()), int(negative.sum())
-    if m == 0 or n == 0:
+    positive, negative = np.sort(where[labels]), np.sort(where[~labels])
+    if positive.size == 0 or negative.size == 0:
         return None
-    ks = _largest_gap(positive, negative, m, n)
+    ks = _largest_gap(positive, negative, values.size)
     generator = np.random.default_rng(seed)
     resampled = np.array([
-        _largest_gap(generator.multinomial(m, positive / m),
-                     generator.multinomial(n, negative / n), m, n)
+        _largest_gap(positive[generator.integers(0, positive.size, positive.size)],
+                     negative[generator.integers(0, negative.size, negative.size)],
+                     values.size)
         for _ in range(replicates)])
     low, high = np.quantile(resampled, [0.5 - level / 2, 0.5 + level / 2])
     return Interval(ks, float(low), float(high))
@@ -227,10 +226,13 @@ def _outcome_arrays(scores, labels) -> tuple[np.ndarray, np.ndarray]:
     return scores, raw.astype(bool)
 
 
-def _largest_gap(positive: np.ndarray, negative: np.ndarray, m: int, n: int) -> float:
-    """Largest |F+(t) - F-(t)| over the distinct scores, from counts per score."""
-    gap = np.cumsum(positive) / m - np.cumsum(negative) / n
-    return float(np.abs(gap).max())
+def _largest_gap(positive: np.ndarray, negative: np.ndarray, values: int) -> float:
+    """Largest |F+(t) - F-(t)| over the distinct scores, from each class's rows as codes of
+    their distinct score; in integers (m * n times the gap), so the one division rounds."""
+    m, n = positive.size, negative.size
+    below = np.cumsum(np.bincount(positive, minlength=values) * n
+                      - np.bincount(negative, minlength=values) * m)
+    return float(np.abs(below).max() / (m * n))
 
 
 def _clipped(estimate: float, low: float, high: float) -> Interval:
