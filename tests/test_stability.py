@@ -183,15 +183,16 @@ def test_a_clear_shift_on_real_data_is_flagged(credit):
     p_value = psi_test(value, development_bins(expected), bad.size, good.size)
     assert value >= 0.25 and p_value < 1e-12
     assert flag(value, p_value) == (ACT, "PSI ≥ 0.25 and χ² p < 0.01")
-    # a subtler shift in a large sample: Home owners' incomes against everyone else's
+    # a shift too small for the convention in a large sample: the incomes of the 2,107
+    # home owners against everyone else's (PSI 0.089) are not waved through by the check
     owners = credit.Home == "owner"
     expected, actual = decile_bins(credit.loc[~owners, "Income"].to_numpy(float),
                                    credit.loc[owners, "Income"].to_numpy(float))
     value = psi(expected, actual)
     p_value = psi_test(value, development_bins(expected), int(owners.sum()),
                        int((~owners).sum()))
-    assert p_value < LEVEL
-    assert flag(value, p_value)[0] in (ACT, WATCH, CHANGED)
+    assert 0.05 < value < 0.10 and p_value < 1e-10
+    assert flag(value, p_value) == (CHANGED, "χ² p < 0.01")
 
 
 def test_flag_rules_at_their_thresholds():
