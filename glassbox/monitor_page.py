@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from glassbox import monitor_plots as pictures
+from glassbox import monitor_view
 from glassbox.files import write_atomic
 from glassbox.monitor_view import (
     count_text,
@@ -43,12 +44,11 @@ from glassbox.report import (
     Table,
     to_html,
 )
+from glassbox.stability import ACT_PSI, EMPTY_SHARE, LEVEL, WATCH_PSI
 
 if TYPE_CHECKING:
     from glassbox.monitor import Monitoring
 
-# PSI bands of the trade's convention (glassbox.stability holds the rule itself)
-WATCH, ACT = 0.10, 0.25
 SMALL_MULTIPLES = 6  # features drawn one by one over periods; every feature is in the table
 PAGE_CAUTIONS = (
     "Stability is not accuracy. A stable population can be scored badly and a shifted one "
@@ -133,11 +133,11 @@ def _summary_section(monitoring: Monitoring, periods: list[str]) -> Section:
 
 
 def _score_section(monitoring: Monitoring, periods: list[str]) -> Section:
-    figure = pictures.score_psi_figure(monitoring.summary, WATCH, ACT)
+    figure = pictures.score_psi_figure(monitoring.summary, WATCH_PSI, ACT_PSI)
     how = ("How to read it: each bar is one period's PSI over the score's development "
            "deciles (ten bins each holding a tenth of the development rows). Below the "
-           f"first dashed line ({WATCH:.2f}) the score's distribution is close to "
-           f"development; between the lines, watch it; above {ACT:.2f}, look into it now. "
+           f"first dashed line ({WATCH_PSI:.2f}) the score's distribution is close to "
+           f"development; between the lines, watch it; above {ACT_PSI:.2f}, look into it now. "
            "A ring marks a period the sample-size check flagged: its shift is larger than "
            "chance allows for its number of rows, even when the PSI is small.")
     blocks: list = [Paragraph(how), Picture("score-psi", figure,
@@ -177,15 +177,15 @@ def _characteristic_section(monitoring: Monitoring, periods: list[str],
 
 def _stability_section(monitoring: Monitoring, periods: list[str]) -> Section:
     features = monitoring.features
-    figure = pictures.heat_figure(features, periods, WATCH, ACT)
+    figure = pictures.heat_figure(features, periods, WATCH_PSI, ACT_PSI)
     how = ("How to read it: one row per feature, one column per period; each cell holds the "
            "PSI of the feature's bins in that period against development (the term's own "
            "steps or levels, deciles for curves, and a bin for missing values). Pale cells "
-           f"are below {WATCH:.2f}, amber ones are to watch, red ones to act on; an outlined "
+           f"are below {WATCH_PSI:.2f}, amber ones are to watch, red ones to act on; an outlined "
            "cell was flagged by the sample-size check. Read across a row for a feature "
            "drifting over time, down a column for a period when many moved at once.")
     worst = worst_first(features[features["flag"].map(
-        lambda f: f in ("act", "watch", "changed"))])
+        monitor_view.flagged)])
     blocks: list = [Paragraph(how), Picture("stability-heat", figure,
                                             "Heat table of PSI by feature and period")]
     if worst.empty:
@@ -338,16 +338,18 @@ def _outcome_section(monitoring: Monitoring) -> Section:
 def _rules_section() -> Section:
     return Section("How flags are made", (Bullets((
         f"PSI (population stability index) compares the shares of rows in each bin: "
-        f"from {WATCH:.2f} a feature or the score is flagged \"watch\", from {ACT:.2f} "
-        "\"act\". These are a convention of the trade (Lewis 1994, carried on by Siddiqi), "
-        "not a statistical test.",
+        f"from {WATCH_PSI:.2f} a feature or the score is flagged \"watch\", from "
+        f"{ACT_PSI:.2f} \"act\". These are a convention of the trade (Lewis 1994, carried on "
+        "by Siddiqi), not a statistical test.",
         "Beside them a sample-size check: with no change, the PSI of n rows against N "
-        "development rows over k bins is about (1/n + 1/N) times a chi-square variable with "
-        "k - 1 degrees of freedom. A p-value under 0.01 flags \"changed\", so small periods "
-        "are not flagged for noise and very large ones are not waved through.",
-        "A bin empty on one side has its share raised to a small stated constant before the "
-        "PSI is taken (a share of zero would make it infinite); bins empty on both sides "
-        "are left out. Each flag says which rule raised it.")),))
+        "development rows over k bins (those holding development rows) is about "
+        "(1/n + 1/N) times a chi-square variable with k - 1 degrees of freedom. A p-value "
+        f"under {LEVEL:g} flags \"changed\", so small periods are not flagged for noise and "
+        "very large ones are not waved through.",
+        f"A bin empty on one side has its share raised to {EMPTY_SHARE:g} (and that side's "
+        "shares renormalised) before the PSI is taken, since a share of zero would make it "
+        "infinite; bins empty on both sides are left out. Each flag says which rule raised "
+        "it.")),))
 
 
 def _per_period(features: pd.DataFrame, periods: list[str], text, column: str,

@@ -19,13 +19,14 @@ from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
 
+from glassbox.stability import ACT_PSI, FLAG_ORDER, LEVEL, WATCH_PSI
+
 if TYPE_CHECKING:  # the engine's result; only its fields are read here
     from glassbox.monitor import Monitoring
 
-# the flags the stability rules give, worst first (glassbox.stability.flag)
-FLAG_ORDER = ("act", "watch", "changed")
-RULE_KEY = ("Flagged by PSI: the trade's convention, watch from 0.10 and act from 0.25 "
-            "(Lewis 1994; Siddiqi). By χ²: the sample-size check, p < 0.01 under no change.")
+RULE_KEY = (f"Flagged by PSI: the trade's convention, watch from {WATCH_PSI:.2f} and act "
+            f"from {ACT_PSI:.2f} (Lewis 1994; Siddiqi). By χ²: the sample-size check, "
+            f"p < {LEVEL:g} under no change.")
 CAUTION = ("Stability is not accuracy, and a flag is a prompt to investigate, not a verdict: "
            "these are model what-ifs and population counts, not advice.")
 WIDTH = 80
