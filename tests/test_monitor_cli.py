@@ -421,3 +421,23 @@ def test_terminal_fits_with_points_long_labels_and_large_counts():
                                  result.new_levels.assign(period=labels["2026-Q4"]), outcomes)
     text = nothing_cut(monitor_view.monitoring_view(wide))
     assert "-3.2" in text and "-12.5" in text
+
+
+def test_dask_engine_writes_the_same_bytes_in_a_fresh_process(credit_run):
+    """As a user runs it (a new process, two files, so the cluster serves twice): the dask
+    engine's JSON and page are byte for byte the local engine's."""
+    import subprocess
+    import sys
+
+    pytest.importorskip("distributed")
+    folder, model, first, second = credit_run
+    made = {}
+    for engine in ("local", "dask"):
+        out, page = folder / f"{engine}.json", folder / f"{engine}.html"
+        done = subprocess.run(
+            [sys.executable, "-m", "glassbox", "monitor", str(model), str(first), str(second),
+             "--engine", engine, "--format", "json", "--out", str(out), "--page", str(page)],
+            capture_output=True, text=True, timeout=300, check=False)
+        assert done.returncode == 0, done.stderr
+        made[engine] = (out.read_bytes(), page.read_bytes())
+    assert made["dask"] == made["local"]
