@@ -16,7 +16,15 @@ from glassbox.baseline import Baseline, FeatureBins
 from glassbox.cards import PointsCard
 from glassbox.exact import SCALE, ExactSum
 from glassbox.monitor_counts import Counts
-from glassbox.stability import auc_interval, flag, ks_interval, psi, psi_test, rate_interval
+from glassbox.stability import (
+    auc_interval,
+    development_bins,
+    flag,
+    ks_interval,
+    psi,
+    psi_test,
+    rate_interval,
+)
 
 INTERVAL_LEVEL = 0.95  # every interval in the outcome table
 
@@ -41,9 +49,7 @@ def _stability(development: np.ndarray, current: np.ndarray, rows: int,
                development_rows: int) -> dict:
     """PSI, the chi-square check and the flag of one set of bins; `bins` counts the bins
     with development rows (the degrees of freedom are one fewer)."""
-    bins = int(np.count_nonzero(np.asarray(development) > 0))
-    if rows == 0:
-        return {"psi": math.nan, "p_value": math.nan, "flag": "", "rule": "", "bins": bins}
+    bins = development_bins(development)
     value = psi(development, current)
     p_value = psi_test(value, bins, rows, development_rows)
     word, rule = flag(value, p_value)
@@ -157,19 +163,23 @@ def _bin_rows(period: str, feature: FeatureBins, current: np.ndarray, rows: int)
 def _outcome_row(period: str, found: Counts, model: AdditiveModel) -> dict:
     n = found.outcome_rows
     if model.task == "classification":
-        low, high = rate_interval(found.positives, n, INTERVAL_LEVEL) if n else (math.nan,) * 2
+        rate = rate_interval(found.positives, n, INTERVAL_LEVEL)
         row = {"period": period, "rows": n, "positives": found.positives,
-               "observed_rate": found.positives / n if n else math.nan,
-               "rate_low": low, "rate_high": high,
+               "observed_rate": rate.estimate, "rate_low": rate.low, "rate_high": rate.high,
                "predicted_rate": found.predicted.mean(n)}
         # sorted by (score, outcome): the figures never depend on the order rows arrived in
         order = np.lexsort((found.pair_labels, found.pair_scores))
         scores, labels = found.pair_scores[order], found.pair_labels[order]
-        both = n > 0 and 0 < found.positives < n
-        auc = auc_interval(scores, labels) if both else (math.nan,) * 3
-        ks = ks_interval(scores, labels) if both else (math.nan,) * 3
-        row.update(auc=auc[0], auc_low=auc[1], auc_high=auc[2],
-                   ks=ks[0], ks_low=ks[1], ks_high=ks[2])
+        notes = [f"rate: {rate.note}"] if rate.note else []
+        for name, interval in (("auc", auc_interval(scores, labels, INTERVAL_LEVEL)),
+                               ("ks", ks_interval(scores, labels, level=INTERVAL_LEVEL))):
+            if interval is None:  # one class only (or no rows): no figure
+                interval = (math.nan, math.nan, math.nan, "needs both outcomes")
+            row.update({name: interval[0], f"{name}_low": interval[1],
+                        f"{name}_high": interval[2]})
+            if interval[3]:
+                notes.append(f"{name.upper()}: {interval[3]}")
+        row["note"] = "; ".join(notes)
         return row
     mean = found.observed.mean(n)
     low = high = math.nan
