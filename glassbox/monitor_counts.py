@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel
-from glassbox.baseline import Baseline
+from glassbox.baseline import Baseline, FeatureBins
 from glassbox.cards import PointsCard
 from glassbox.encoding import _missing_mask, label_text, prepare, rows_text
 from glassbox.errors import DataError, UnseenLevelWarning, value_text
@@ -182,15 +182,22 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
         for table in plan.card.features:
             if table.missing_points is None:
                 scored &= present[table.feature]
-    rows_scored = encoded[scored] if not scored.all() else encoded
+    every_row = bool(scored.all())
     with warnings.catch_warnings():  # new levels are counted, not warned about
         warnings.simplefilter("ignore", UnseenLevelWarning)
-        parts = {t.feature: t.evaluate(rows_scored[t.feature].to_numpy()) for t in model.terms}
+        keyed = {t.feature: _keyed(t, baseline.feature(t.feature), encoded[t.feature])
+                 for t in model.terms}
+        rows_scored = encoded if every_row else encoded[scored]
+        parts = {t.feature: (keyed[t.feature].contributions[
+                     keyed[t.feature].key if every_row else keyed[t.feature].key[scored]]
+                     if keyed[t.feature].key is not None
+                     else t.evaluate(rows_scored[t.feature].to_numpy()))
+                 for t in model.terms}
         points = ({t.feature: t.points_of(rows_scored[t.feature].to_numpy()).astype(float)
                    for t in plan.card.features} if plan.card is not None else {})
     total = np.zeros(int(scored.sum()))  # the order the baseline adds them in
     for index, term in enumerate(model.terms):
-        total = parts[term.feature].copy() if index == 0 else total + parts[term.feature]
+        total = parts[term.feature] if index == 0 else total + parts[term.feature]
     score = np.full(len(total), float(model.intercept)) + total
     outcome = _outcomes(block, plan, scored)
     codes, periods = pd.factorize(labels, sort=False)
@@ -199,29 +206,87 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
     for code, period in enumerate(periods):
         rows = codes == code
         mine = scored_codes == code
-        whole, whole_scored = rows.all(), mine.all()
-        sub = encoded if whole else encoded[rows]
-        bins, new = {}, {}
-        for feature in baseline.features:
-            column = sub[feature.feature].to_numpy()
-            bins[feature.feature] = np.asarray(feature.count(column), dtype=np.int64)
-            if feature.source == "levels":
-                found = feature.new_levels(column)
-                if found:
-                    new[feature.feature] = {str(k): int(v) for k, v in found.items()}
+        whole, whole_scored = bool(rows.all()), bool(mine.all())
         pick = slice(None) if whole_scored else mine
-        period_score = score[pick]
-        counts = Counts(
-            rows=int(rows.sum()), scored=len(period_score), bins=bins, new_levels=new,
-            contribution={k: ExactSum.of(v[pick]) for k, v in parts.items()},
-            absolute={k: ExactSum.of(np.abs(v[pick])) for k, v in parts.items()},
-            points={k: ExactSum.of(v[pick]) for k, v in points.items()},
-            score_bins=np.asarray(baseline.score.count(period_score), dtype=np.int64),
-            score=ExactSum.of(period_score))
+        counts = Counts(rows=int(rows.sum()), scored=int(mine.sum()),
+                        score_bins=np.asarray(baseline.score.count(score[pick]),
+                                              dtype=np.int64),
+                        score=ExactSum.of(score[pick]),
+                        points={k: ExactSum.of(v[pick]) for k, v in points.items()})
+        for feature in baseline.features:
+            k = keyed[feature.feature]
+            k.count(counts, feature, encoded[feature.feature], slice(None) if whole else rows,
+                    scored if whole else scored & rows, parts[feature.feature][pick])
         if outcome is not None:
-            counts = _with_outcomes(counts, plan, outcome, mine, period_score)
+            counts = _with_outcomes(counts, plan, outcome, mine, score[pick])
         out[str(period)] = counts
     return out
+
+
+@dataclass(frozen=True)
+class _Keyed:
+    """One feature of a block as a key per row, with the contribution and the baseline bin
+    of each key: a category's distinct values, or a steps term's own steps (when the
+    baseline's edges are some of the term's). Rows are then counted per key, and a
+    feature's exact sums are whole multiples of each key's contribution. Without keys
+    (`key` None) `contributions` holds the scored rows' contributions."""
+
+    key: np.ndarray | None
+    contributions: np.ndarray
+    bins: np.ndarray | None = None  # the baseline bin of each key
+    levels: tuple[str, ...] = ()  # a category's distinct values (keys beyond: no value)
+
+    def count(self, counts: Counts, feature: FeatureBins, column: pd.Series, rows,
+              scored: np.ndarray, parts: np.ndarray) -> None:
+        """Add this feature's bins, new levels and exact sums for the period's rows."""
+        name = feature.feature
+        if self.key is None:
+            counts.bins[name] = np.asarray(feature.count(column.to_numpy()[rows]),
+                                           dtype=np.int64)
+            positive, negative = ExactSum.split(parts)
+        else:
+            size = len(self.contributions)
+            per_key = np.bincount(self.key[rows], minlength=size)
+            counts.bins[name] = np.bincount(self.bins, weights=per_key,
+                                            minlength=len(feature.labels)).astype(np.int64)
+            if feature.source == "levels":
+                new_bin = len(feature.labels) - 2
+                found = {self.levels[i]: int(per_key[i]) for i in range(len(self.levels))
+                         if self.bins[i] == new_bin and per_key[i]}
+                if found:
+                    counts.new_levels[name] = dict(sorted(found.items()))
+            weights = np.bincount(self.key[scored], minlength=size)
+            positive, negative = ExactSum(), ExactSum()
+            for index in np.flatnonzero(weights):
+                more, less = ExactSum.split(self.contributions[index:index + 1])
+                positive += ExactSum(more.units * int(weights[index]))
+                negative += ExactSum(less.units * int(weights[index]))
+        counts.contribution[name] = ExactSum(positive.units - negative.units)
+        counts.absolute[name] = positive + negative
+
+
+def _keyed(term, feature: FeatureBins, column: pd.Series) -> _Keyed:
+    """Keys for a category or a steps term; else the scored rows' contributions later."""
+    if term.kind == "levels":
+        codes, distinct = pd.factorize(column)
+        values = np.asarray(distinct, dtype=object)
+        key = np.where(codes < 0, len(values), codes)
+        table = np.append(term.evaluate(values) if len(values) else np.zeros(0),
+                          0.0 if term.missing is None else term.missing)
+        bins = feature.bin_index(np.append(values, None))
+        return _Keyed(key, table, bins, tuple(str(v) for v in values))
+    edges = np.asarray(getattr(term, "edges", ()), dtype=float)
+    if term.kind == "steps" and feature.source != "levels" and np.isin(feature.edges,
+                                                                       edges).all():
+        numbers = column.to_numpy(dtype=float)
+        key = np.searchsorted(edges, numbers, side="left")
+        key[np.isnan(numbers)] = len(edges) + 1  # no value: the key after the last step
+        representatives = np.append(edges, np.inf)  # a value in each step
+        table = np.append(term.evaluate(representatives),
+                          0.0 if term.missing is None else term.missing)
+        bins = feature.bin_index(np.append(representatives, np.nan))
+        return _Keyed(key, table, bins)
+    return _Keyed(None, np.zeros(0))
 
 
 def _outcomes(block: pd.DataFrame, plan: Plan, scored: np.ndarray
