@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -70,9 +70,7 @@ def monitor(model: AdditiveModel, inputs: Sequence[str | Path], *, period: str |
         source = open_source(path, model, keep, "the period column (--period)")
         plans.append((source, Plan(model, baseline, str(path), None if period else label,
                                    period, every, card, outcome)))
-    outcome = all(plan.outcome for _, plan in plans)
-    if not outcome:  # outcomes by period only when every file has them
-        plans = [(source, replace(plan, outcome=False)) for source, plan in plans]
+    outcome = any(plan.outcome for _, plan in plans)  # a file without: rows 0 there
     counted: dict[str, Counts] = {}
     run = _count_local if engine == "local" else _count_dask
     for source, plan in plans:

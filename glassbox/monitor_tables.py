@@ -171,9 +171,11 @@ def _outcome_row(period: str, found: Counts, model: AdditiveModel) -> dict:
         order = np.lexsort((found.pair_labels, found.pair_scores))
         scores, labels = found.pair_scores[order], found.pair_labels[order]
         notes = [f"rate: {rate.note}"] if rate.note else []
-        for name, interval in (("auc", auc_interval(scores, labels, INTERVAL_LEVEL)),
-                               ("ks", ks_interval(scores, labels, level=INTERVAL_LEVEL))):
-            if interval is None:  # one class only (or no rows): no figure
+        both = 0 < found.positives < n
+        for name, interval in (
+                ("auc", auc_interval(scores, labels, INTERVAL_LEVEL) if both else None),
+                ("ks", ks_interval(scores, labels, level=INTERVAL_LEVEL) if both else None)):
+            if interval is None:  # one class only, or no outcomes: no figure
                 interval = (math.nan, math.nan, math.nan, "needs both outcomes")
             row.update({name: interval[0], f"{name}_low": interval[1],
                         f"{name}_high": interval[2]})

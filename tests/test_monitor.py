@@ -219,3 +219,13 @@ def test_a_model_without_baseline_asks_for_one(model, files):
     _refused("give --baseline DATA", replace(model, baseline=None), [files / "late.csv"])
     assert math.isfinite(monitor(replace(model, baseline=None), [files / "late.csv"],
                                  baseline=model.baseline).summary["score_psi"].iloc[0])
+
+
+def test_a_period_without_outcomes_has_none(model, files, frames, tmp_path):
+    # the outcomes of a recent period are not known yet: its file has no outcome column
+    frames[1].drop(columns=["Status"]).to_csv(tmp_path / "recent.csv", index=False)
+    found = monitor(model, [files / "early.csv", tmp_path / "recent.csv"]).outcomes
+    recent = found.set_index("period").loc["recent"]
+    assert recent["rows"] == 0 and math.isnan(recent["observed_rate"])
+    assert math.isnan(recent["auc"]) and "needs both outcomes" in recent["note"]
+    assert found.set_index("period").loc["early", "rows"] == len(frames[0])
