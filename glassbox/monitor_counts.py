@@ -18,7 +18,7 @@ from glassbox.additive import AdditiveModel
 from glassbox.baseline import Baseline, FeatureBins
 from glassbox.cards import PointsCard
 from glassbox.encoding import _missing_mask, label_text, prepare, rows_text
-from glassbox.errors import DataError, UnseenLevelWarning, value_text
+from glassbox.errors import DataError, GlassboxError, UnseenLevelWarning, value_text
 from glassbox.exact import ExactSum
 
 EVERY = ("month", "quarter", "year")
@@ -170,10 +170,13 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
     in the feature bins and missing rates but not in the score, contributions or
     outcomes."""
     model, baseline = plan.model, plan.baseline
+    if len(block) == 0:  # a dask partition may be empty
+        return {}
     labels = period_labels(block, plan)
-    encoded = prepare(block, model.schema, require_target=False, source=plan.source,
-                      features=model.features).features
-    present = {name: ~encoded[name].isna().to_numpy() for name in model.features}
+    numbers, categories = _typed(block, plan)
+    present = {name: (~pd.isna(categories[name][1]))[categories[name][0]]
+               if name in categories else ~numbers[name].isna().to_numpy()
+               for name in model.features}
     scored = np.ones(len(block), dtype=bool)
     for term in model.terms:
         if term.missing is None:
@@ -183,17 +186,24 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
             if table.missing_points is None:
                 scored &= present[table.feature]
     every_row = bool(scored.all())
+
+    def scored_column(name: str) -> np.ndarray:
+        if name in categories:
+            codes, typed = categories[name]
+            return typed[codes if every_row else codes[scored]]
+        column = numbers[name].to_numpy()
+        return column if every_row else column[scored]
+
     with warnings.catch_warnings():  # new levels are counted, not warned about
         warnings.simplefilter("ignore", UnseenLevelWarning)
-        keyed = {t.feature: _keyed(t, baseline.feature(t.feature), encoded[t.feature])
+        keyed = {t.feature: _keyed(t, baseline.feature(t.feature), numbers, categories)
                  for t in model.terms}
-        rows_scored = encoded if every_row else encoded[scored]
         parts = {t.feature: (keyed[t.feature].contributions[
                      keyed[t.feature].key if every_row else keyed[t.feature].key[scored]]
                      if keyed[t.feature].key is not None
-                     else t.evaluate(rows_scored[t.feature].to_numpy()))
+                     else t.evaluate(scored_column(t.feature)))
                  for t in model.terms}
-        points = ({t.feature: t.points_of(rows_scored[t.feature].to_numpy()).astype(float)
+        points = ({t.feature: t.points_of(scored_column(t.feature)).astype(float)
                    for t in plan.card.features} if plan.card is not None else {})
     total = np.zeros(int(scored.sum()))  # the order the baseline adds them in
     for index, term in enumerate(model.terms):
@@ -216,7 +226,8 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
                         points={k: ExactSum.of(v[pick]) for k, v in points.items()})
         for feature in baseline.features:
             k = keyed[feature.feature]
-            k.count(counts, feature, encoded[feature.feature], slice(None) if whole else rows,
+            column = numbers[feature.feature] if k.key is None else None
+            k.count(counts, feature, column, slice(None) if whole else rows,
                     scored if whole else scored & rows, parts[feature.feature][pick])
         if outcome is not None:
             counts = _with_outcomes(counts, plan, outcome, mine, score[pick])
@@ -268,8 +279,10 @@ class _Keyed:
                                             minlength=len(feature.labels)).astype(np.int64)
             if feature.source == "levels":
                 new_bin = len(feature.labels) - 2
-                found = {self.levels[i]: int(per_key[i]) for i in range(len(self.levels))
-                         if self.bins[i] == new_bin and per_key[i]}
+                found: dict[str, int] = {}  # two raw values may type to one level
+                for index in np.flatnonzero((self.bins == new_bin) & (per_key > 0)):
+                    level = self.levels[index]
+                    found[level] = found.get(level, 0) + int(per_key[index])
                 if found:
                     counts.new_levels[name] = dict(sorted(found.items()))
             weights = np.bincount(self.key[scored], minlength=size)
@@ -282,22 +295,48 @@ class _Keyed:
         counts.absolute[name] = positive + negative
 
 
-def _keyed(term, feature: FeatureBins, column: pd.Series) -> _Keyed:
+def _typed(block: pd.DataFrame, plan: Plan
+           ) -> tuple[pd.DataFrame, dict[str, tuple[np.ndarray, np.ndarray]]]:
+    """The model's columns typed as `prepare` types them: the numeric ones as a frame; each
+    category as a code per row into its distinct raw values, each typed once (text is slow
+    row by row). A code past the distinct values means no value."""
+    schema = plan.model.schema
+    names = plan.model.features
+    levels = [name for name in names if schema.feature(name).kind == "category"]
+    others = [name for name in names if name not in levels]
+    numbers = (prepare(block, schema, require_target=False, source=plan.source,
+                       features=others).features if others else pd.DataFrame(index=block.index))
+    categories = {}
+    for name in levels:
+        codes, distinct = pd.factorize(block[name])
+        values = list(distinct) + ([None] if (codes < 0).any() else [])
+        try:
+            typed = prepare(pd.DataFrame({name: pd.Series(values, dtype=object)}), schema,
+                            require_target=False, source=plan.source, features=[name])
+        except GlassboxError:  # again on the rows, for an error naming the block's rows
+            prepare(block, schema, require_target=False, source=plan.source, features=[name])
+            raise
+        categories[name] = (np.where(codes < 0, len(distinct), codes),
+                            typed.features[name].to_numpy(dtype=object))
+    return numbers, categories
+
+
+def _keyed(term, feature: FeatureBins, numbers: pd.DataFrame,
+           categories: dict[str, tuple[np.ndarray, np.ndarray]]) -> _Keyed:
     """Keys for a category or a steps term; else the scored rows' contributions later."""
-    if term.kind == "levels":
-        codes, distinct = pd.factorize(column)
-        values = np.asarray(distinct, dtype=object)
-        key = np.where(codes < 0, len(values), codes)
-        table = np.append(term.evaluate(values) if len(values) else np.zeros(0),
-                          0.0 if term.missing is None else term.missing)
-        bins = feature.bin_index(np.append(values, None))
-        return _Keyed(key, table, bins, tuple(str(v) for v in values))
+    if term.feature in categories:
+        key, typed = categories[term.feature]
+        present = ~pd.isna(typed)
+        table = np.full(len(typed), 0.0 if term.missing is None else term.missing)
+        if present.any():
+            table[present] = term.evaluate(typed[present])
+        return _Keyed(key, table, feature.bin_index(typed), tuple(str(v) for v in typed))
     edges = np.asarray(getattr(term, "edges", ()), dtype=float)
     if term.kind == "steps" and feature.source != "levels" and np.isin(feature.edges,
                                                                        edges).all():
-        numbers = column.to_numpy(dtype=float)
-        key = edges_below(edges, numbers)
-        key[np.isnan(numbers)] = len(edges) + 1  # no value: the key after the last step
+        values = numbers[term.feature].to_numpy(dtype=float)
+        key = edges_below(edges, values)
+        key[np.isnan(values)] = len(edges) + 1  # no value: the key after the last step
         representatives = np.append(edges, np.inf)  # a value in each step
         table = np.append(term.evaluate(representatives),
                           0.0 if term.missing is None else term.missing)
