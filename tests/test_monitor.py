@@ -229,3 +229,27 @@ def test_a_period_without_outcomes_has_none(model, files, frames, tmp_path):
     assert recent["rows"] == 0 and math.isnan(recent["observed_rate"])
     assert math.isnan(recent["auc"]) and "needs both outcomes" in recent["note"]
     assert found.set_index("period").loc["early", "rows"] == len(frames[0])
+
+
+def test_weighted_sums_equal_the_sums_of_the_rows():
+    # exact brute force: the rows written out one by one and summed exactly; constructed
+    # values over the whole range of doubles (subnormals, zeros of both signs)
+    from glassbox.exact import ExactSum
+    from glassbox.monitor_counts import weighted_sums
+
+    generator = np.random.default_rng(3)
+    values = np.concatenate([generator.normal(size=60) * 10.0 ** generator.integers(
+        -300, 300, 60), [0.0, -0.0, 5e-324, -5e-324, 1.7976931348623157e308]])
+    weights = generator.integers(0, 1000, len(values))
+    assert weighted_sums(values, weights) == ExactSum.split(np.repeat(values, weights))
+
+
+def test_few_edges_count_as_a_binary_search_does():
+    # numpy's searchsorted (side="left") is the reference, on a real skewed money column
+    from glassbox.monitor_counts import FEW_EDGES, edges_below
+
+    income = credit_rows_with_gaps()["Income"].dropna().to_numpy(dtype=float)
+    for count in (1, 9, FEW_EDGES, FEW_EDGES + 1):
+        edges = np.unique(np.quantile(income, np.linspace(0.01, 0.99, count)))
+        assert np.array_equal(edges_below(edges, income),
+                              np.searchsorted(edges, income, side="left"))
