@@ -133,21 +133,6 @@ def rate_interval(positives: int, n: int, level: float = 0.95) -> Interval:
     return Interval(positives / n, float(ends.low), float(ends.high))
 
 
-def mean_interval(total: float, squares: float, n: int, level: float = 0.95) -> Interval:
-    """Mean of an outcome from its sum and sum of squares, with Student's t interval
-    (regression outcomes). The variance is squares - total * mean, so both sums should be
-    exact (glassbox.exact.ExactSum) on large files. NaN throughout for n 0; NaN ends for
-    n 1."""
-    if n <= 0:
-        return Interval(math.nan, math.nan, math.nan, NO_ROWS)
-    mean = total / n
-    if n == 1:
-        return Interval(mean, math.nan, math.nan, TOO_FEW)
-    variance = max(squares - total * mean, 0.0) / (n - 1)
-    half = float(stats.t.ppf(0.5 + level / 2, n - 1)) * math.sqrt(variance / n)
-    return Interval(mean, mean - half, mean + half)
-
-
 def auc_interval(scores, labels, level: float = 0.95) -> Interval | None:
     """ROC AUC (positives scoring above negatives, ties counting half) with DeLong's
     variance (DeLong, DeLong & Clarke-Pearson 1988, Biometrics 44) from midranks (Sun &
