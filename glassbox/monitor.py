@@ -30,7 +30,14 @@ from glassbox.errors import DataError, GlassboxError, OptionError
 from glassbox.monitor_counts import EVERY, Counts, Plan, add_counts, count_block, ordered_periods
 from glassbox.monitor_tables import Monitoring, build_tables
 from glassbox.points import model_checksum
-from glassbox.stream import Source, dask_read_error, open_source, read_blocks, renumbered
+from glassbox.stream import (
+    Source,
+    dask_client,
+    dask_read_error,
+    open_source,
+    read_blocks,
+    renumbered,
+)
 
 ENGINES = ("local", "dask")
 CHUNK_ROWS = 200_000
@@ -171,25 +178,6 @@ def _count_partition(partition, plan: Plan):
         return _Failed(exc)
 
 
-def _connect(scheduler: str | None, jobs: int):
-    """A client of the given scheduler, or of a cluster on this machine started for the run."""
-    import logging
-
-    from distributed import Client, LocalCluster
-
-    if scheduler is None:
-        cluster = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                               silence_logs=logging.CRITICAL)
-        return Client(cluster), cluster
-    try:
-        return Client(scheduler, timeout=CONNECT_SECONDS), None
-    except (OSError, TimeoutError, ValueError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise OptionError(f"cannot reach the dask scheduler at {scheduler} within "
-                          f"{CONNECT_SECONDS} s ({first})") from None
-
-
 def _count_dask(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
                 scheduler: str | None, progress) -> dict[str, Counts]:
     import dask
@@ -198,7 +186,7 @@ def _count_dask(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
 
     with dask.config.set({"dataframe.convert-string": False,
                           "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
-        client, cluster = _connect(scheduler, jobs)
+        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
         try:
             if source.parquet:
                 frame = dd.read_parquet(source.path, columns=list(source.columns),

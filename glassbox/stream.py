@@ -188,3 +188,24 @@ def renumbered(exc: GlassboxError, numbers: np.ndarray) -> GlassboxError:
         return head + ", ".join(str(int(numbers[n - 1]) + 1) for n in within)
 
     return type(exc)(_ROW_NUMBERS.sub(shift, str(exc)))
+
+
+def dask_client(scheduler: str | None, jobs: int, connect_seconds: float):
+    """A client of the given dask scheduler, or of a cluster on this machine started for
+    the run (`jobs` single-threaded worker processes; its small web server on a free local
+    port). Returns (client, cluster), cluster None for an existing scheduler."""
+    import logging
+
+    from distributed import Client, LocalCluster
+
+    if scheduler is None:
+        cluster = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                               silence_logs=logging.CRITICAL)
+        return Client(cluster), cluster
+    try:
+        return Client(scheduler, timeout=connect_seconds), None
+    except (OSError, TimeoutError, ValueError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise OptionError(f"cannot reach the dask scheduler at {scheduler} within "
+                          f"{connect_seconds} s ({first})") from None

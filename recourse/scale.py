@@ -21,7 +21,6 @@ and end when the main process dies.
 from __future__ import annotations
 
 import contextlib
-import logging
 import math
 import os
 import signal
@@ -52,6 +51,7 @@ from recourse.mutability import Mutability
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.source import (
     Source,
+    dask_client,
     dask_read_error,
     open_source,
     read_blocks,
@@ -444,23 +444,6 @@ def _number_rows(block: pd.DataFrame, offsets: Sequence[int],
     return block
 
 
-def _connect(scheduler: str | None, jobs: int):
-    """A client of the given scheduler, or of a cluster on this machine started for the run."""
-    from distributed import Client, LocalCluster
-
-    if scheduler is None:  # its small web server listens on a free local port
-        cluster = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                               silence_logs=logging.CRITICAL)
-        return Client(cluster), cluster
-    try:
-        return Client(scheduler, timeout=CONNECT_SECONDS), None
-    except (OSError, TimeoutError, ValueError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise OptionError(f"cannot reach the dask scheduler at {scheduler} within "
-                          f"{CONNECT_SECONDS} s ({first})") from None
-
-
 def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: int,
               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
     import dask
@@ -470,7 +453,7 @@ def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: i
     # plain pandas text columns, as the local engine reads them
     with dask.config.set({"dataframe.convert-string": False,
                           "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
-        client, cluster = _connect(scheduler, jobs)
+        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
         try:
             if source.parquet:
                 frame = dd.read_parquet(source.path, columns=list(source.columns),
