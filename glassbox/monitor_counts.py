@@ -127,7 +127,11 @@ def period_labels(block: pd.DataFrame, plan: Plan) -> np.ndarray:
         lookup = {value: label_text(value) for value in distinct}
         return column.map(lookup).to_numpy(dtype=object)
     text = column.astype(str).str.strip()
-    dates = pd.to_datetime(text, format="ISO8601", errors="coerce")
+    try:
+        dates = pd.to_datetime(text, format="ISO8601", errors="coerce")
+    except (ValueError, TypeError):  # e.g. times with different UTC offsets
+        raise DataError(f"{plan.source}: the period column '{plan.period}' mixes time zones "
+                        "(or kinds of date); give dates as YYYY-MM-DD for --every") from None
     bad = dates.isna().to_numpy()
     if bad.any():
         first = column[bad].iloc[0]
