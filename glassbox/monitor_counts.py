@@ -122,11 +122,10 @@ def period_labels(block: pd.DataFrame, plan: Plan) -> np.ndarray:
     if blank.any():
         raise DataError(f"{plan.source}: the period column '{plan.period}' is blank in "
                         f"{rows_text(blank)}; every row needs a period")
+    codes, distinct = pd.factorize(column)  # each distinct value read once
     if plan.every is None:
-        distinct = pd.unique(column.to_numpy(dtype=object))
-        lookup = {value: label_text(value) for value in distinct}
-        return column.map(lookup).to_numpy(dtype=object)
-    text = column.astype(str).str.strip()
+        return np.array([label_text(value) for value in distinct], dtype=object)[codes]
+    text = pd.Series(distinct, dtype=object).astype(str).str.strip()
     try:
         dates = pd.to_datetime(text, format="ISO8601", errors="coerce")
     except (ValueError, TypeError):  # e.g. times with different UTC offsets
@@ -134,10 +133,10 @@ def period_labels(block: pd.DataFrame, plan: Plan) -> np.ndarray:
                         "(or kinds of date); give dates as YYYY-MM-DD for --every") from None
     bad = dates.isna().to_numpy()
     if bad.any():
-        first = column[bad].iloc[0]
+        rows = bad[codes]
         raise DataError(f"{plan.source}: the period column '{plan.period}' should hold dates "
                         f"(ISO 8601, e.g. 2024-03-31) for --every {plan.every} but has "
-                        f"{value_text(first)} in {rows_text(bad)}")
+                        f"{value_text(column[rows].iloc[0])} in {rows_text(rows)}")
     years = dates.dt.year.to_numpy()
     if plan.every == "year":
         labels = years.astype(str)
@@ -147,7 +146,7 @@ def period_labels(block: pd.DataFrame, plan: Plan) -> np.ndarray:
     else:
         labels = np.char.add(np.char.add(years.astype(str), "-"),
                              np.char.zfill(dates.dt.month.to_numpy().astype(str), 2))
-    return labels.astype(object)
+    return labels.astype(object)[codes]
 
 
 def ordered_periods(labels: list[str]) -> list[str]:
@@ -217,6 +216,13 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
     score_edges = np.asarray(baseline.score.edges, dtype=float)
     codes, periods = pd.factorize(labels, sort=False)
     scored_codes = codes[scored]
+    tallies = {}  # keyed features: rows and scored rows per (period, key), in one pass
+    for name, k in keyed.items():
+        if k.key is not None:
+            size, span = len(k.contributions), len(periods) * len(k.contributions)
+            cells = codes * size + k.key
+            tallies[name] = (np.bincount(cells, minlength=span).reshape(-1, size),
+                             np.bincount(cells[scored], minlength=span).reshape(-1, size))
     out: dict[str, Counts] = {}
     for code, period in enumerate(periods):
         rows = codes == code
@@ -230,9 +236,13 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
                         points={k: ExactSum.of(v[pick]) for k, v in points.items()})
         for feature in baseline.features:
             k = keyed[feature.feature]
-            column = numbers[feature.feature] if k.key is None else None
-            k.count(counts, feature, column, slice(None) if whole else rows,
-                    scored if whole else scored & rows, parts[feature.feature][pick])
+            if k.key is None:
+                column = numbers[feature.feature].to_numpy()
+                k.count(counts, feature, column if whole else column[rows], None,
+                        parts[feature.feature][pick])
+            else:
+                tally = tallies[feature.feature]
+                k.count(counts, feature, None, (tally[0][code], tally[1][code]), None)
         if outcome is not None:
             counts = _with_outcomes(counts, plan, outcome, mine, score[pick])
         out[str(period)] = counts
@@ -268,17 +278,18 @@ class _Keyed:
     bins: np.ndarray | None = None  # the baseline bin of each key
     levels: tuple[str, ...] = ()  # a category's distinct values (keys beyond: no value)
 
-    def count(self, counts: Counts, feature: FeatureBins, column: pd.Series, rows,
-              scored: np.ndarray, parts: np.ndarray) -> None:
-        """Add this feature's bins, new levels and exact sums for the period's rows."""
+    def count(self, counts: Counts, feature: FeatureBins, column: np.ndarray | None,
+              tally: tuple[np.ndarray, np.ndarray] | None,
+              parts: np.ndarray | None) -> None:
+        """Add this feature's bins, new levels and exact sums for one period: from its rows'
+        `column` and scored rows' contributions `parts`, or (keyed) from its rows and
+        scored rows per key, `tally`."""
         name = feature.feature
-        if self.key is None:
-            counts.bins[name] = np.asarray(feature.count(column.to_numpy()[rows]),
-                                           dtype=np.int64)
+        if tally is None:
+            counts.bins[name] = np.asarray(feature.count(column), dtype=np.int64)
             positive, negative = ExactSum.split(parts)
         else:
-            size = len(self.contributions)
-            per_key = np.bincount(self.key[rows], minlength=size)
+            per_key, weights = tally
             counts.bins[name] = np.bincount(self.bins, weights=per_key,
                                             minlength=len(feature.labels)).astype(np.int64)
             if feature.source == "levels":
@@ -289,7 +300,6 @@ class _Keyed:
                     found[level] = found.get(level, 0) + int(per_key[index])
                 if found:
                     counts.new_levels[name] = dict(sorted(found.items()))
-            weights = np.bincount(self.key[scored], minlength=size)
             positive, negative = weighted_sums(self.contributions, weights)
         counts.contribution[name] = ExactSum(positive.units - negative.units)
         counts.absolute[name] = positive + negative
