@@ -303,6 +303,8 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
         column = ages_in_days(column, spec.days_before, spec.date_layout, spec.name, where)
         spec = replace(spec, days_before=None, date_layout=None)
     values = column
+    if _plain_numbers(values, spec):
+        return _encode_numbers(values, spec, where)
     missing = missing_mask(values, spec)
     if missing.any():
         if spec.missing == "refuse":
@@ -344,6 +346,34 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     return numbers
 
 
+def _plain_numbers(values: pd.Series, spec: FeatureSpec) -> bool:
+    """A number or integer feature already read as numbers, whose only missing values are
+    the reader's gaps (no codes) and are kept: typed without going through text."""
+    return (spec.kind in ("number", "integer") and not spec.missing_codes
+            and pd.api.types.is_numeric_dtype(values.dtype)
+            and not pd.api.types.is_bool_dtype(values.dtype)
+            and (spec.missing == "learn" or not values.isna().any()))
+
+
+def _encode_numbers(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:
+    """`encode_column` of a plain numeric column: the same floats and the same errors,
+    vectorised (gaps stay NaN)."""
+    numbers = values.astype(float)
+    array = numbers.to_numpy()
+    present = ~np.isnan(array)
+    infinite = present & ~np.isfinite(array)
+    if infinite.any():
+        raise DataError(f"{where}: column '{spec.name}' has infinite values in "
+                        f"{rows_text(infinite)}")
+    if spec.kind == "integer":
+        fractional = present & (array != np.round(array))
+        if fractional.any():
+            raise DataError(f"{where}: column '{spec.name}' is declared integer but has "
+                            f"fractions in {rows_text(fractional)} "
+                            f"(first: {value_text(numbers[fractional].iloc[0])})")
+    return numbers
+
+
 def pool_levels(labels: pd.Series, pooled: Iterable[str]) -> pd.Series:
     """Category labels with the pooled levels replaced by OTHER_LEVEL (fitting and scoring
     alike)."""
@@ -354,8 +384,10 @@ def pool_levels(labels: pd.Series, pooled: Iterable[str]) -> pd.Series:
 def _missing_mask(values: pd.Series) -> np.ndarray:
     mask = values.isna().to_numpy()
     if values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
-        text = values.astype(str).str.strip()
-        mask = mask | (text == "").to_numpy()
+        codes, distinct = pd.factorize(values)  # each distinct value looked at once
+        blank = np.array([str(value).strip() == "" for value in distinct], dtype=bool)
+        if blank.any():
+            mask = mask | ((codes >= 0) & blank[np.maximum(codes, 0)])
     return mask
 
 
@@ -374,9 +406,14 @@ def missing_mask(values: pd.Series, spec: FeatureSpec) -> np.ndarray:
 
 def _labels(values: pd.Series) -> pd.Series:
     """`label_text` of every value, computed once per distinct value."""
-    distinct = pd.unique(values.to_numpy(dtype=object))
-    lookup = {value: label_text(value) for value in distinct}
-    return pd.Series(values.to_numpy(dtype=object), index=values.index).map(lookup)
+    codes, distinct = pd.factorize(values)
+    lookup = np.array([label_text(value) for value in distinct] + [None], dtype=object)
+    labels = lookup[codes]  # code -1 (no value) picks the None at the end: redone below
+    absent = codes < 0
+    if absent.any():
+        labels[absent] = [label_text(value) for value in
+                          np.asarray(values.to_numpy(dtype=object))[absent]]
+    return pd.Series(labels, index=values.index, dtype=object)
 
 
 def _encode_flag(values: pd.Series, spec: FeatureSpec, where: str) -> pd.Series:

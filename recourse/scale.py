@@ -21,10 +21,8 @@ and end when the main process dies.
 from __future__ import annotations
 
 import contextlib
-import logging
 import math
 import os
-import re
 import signal
 import threading
 import time
@@ -51,7 +49,14 @@ from recourse.errors import PlanningError
 from recourse.manifest import MANIFEST_KIND, PartsFolder, mutability_checksum
 from recourse.mutability import Mutability
 from recourse.program import DEFAULT_SOLVER, SOLVERS
-from recourse.source import Source, open_source, read_blocks, read_error
+from recourse.source import (
+    Source,
+    dask_client,
+    dask_read_error,
+    open_source,
+    read_blocks,
+    renumbered,
+)
 
 ENGINES = ("local", "dask")
 CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
@@ -105,9 +110,6 @@ def plan_partition(partition: pd.DataFrame, model: AdditiveModel, mutability: Mu
     return _typed_outcomes(outcome_frame(results, model), partition, positions, model, keep)
 
 
-_ROW_NUMBERS = re.compile(r"\bdata rows? (\d+(?:, \d+)*)")
-
-
 def _declined(partition: pd.DataFrame, model: AdditiveModel, mutability: Mutability,
               source: str | None) -> tuple[np.ndarray, pd.DataFrame, pd.DataFrame, list]:
     """`recourse.batch.typed_declined` on a block; the data rows its errors name are
@@ -116,14 +118,7 @@ def _declined(partition: pd.DataFrame, model: AdditiveModel, mutability: Mutabil
     try:
         return typed_declined(model, partition, mutability, source, numbers=numbers)
     except GlassboxError as exc:
-        def shift(match: re.Match) -> str:
-            within = [int(n) for n in match.group(1).split(", ")]
-            if not all(1 <= n <= len(numbers) for n in within):
-                return match.group(0)
-            head = match.group(0)[:match.start(1) - match.start(0)]
-            return head + ", ".join(str(int(numbers[n - 1]) + 1) for n in within)
-
-        raise type(exc)(_ROW_NUMBERS.sub(shift, str(exc))) from None
+        raise renumbered(exc, numbers) from None
 
 
 def _checked_keep(keep: Sequence[str]) -> tuple[str, ...]:
@@ -449,23 +444,6 @@ def _number_rows(block: pd.DataFrame, offsets: Sequence[int],
     return block
 
 
-def _connect(scheduler: str | None, jobs: int):
-    """A client of the given scheduler, or of a cluster on this machine started for the run."""
-    from distributed import Client, LocalCluster
-
-    if scheduler is None:  # its small web server listens on a free local port
-        cluster = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                               silence_logs=logging.CRITICAL)
-        return Client(cluster), cluster
-    try:
-        return Client(scheduler, timeout=CONNECT_SECONDS), None
-    except (OSError, TimeoutError, ValueError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise OptionError(f"cannot reach the dask scheduler at {scheduler} within "
-                          f"{CONNECT_SECONDS} s ({first})") from None
-
-
 def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: int,
               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
     import dask
@@ -475,7 +453,7 @@ def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: i
     # plain pandas text columns, as the local engine reads them
     with dask.config.set({"dataframe.convert-string": False,
                           "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
-        client, cluster = _connect(scheduler, jobs)
+        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
         try:
             if source.parquet:
                 frame = dd.read_parquet(source.path, columns=list(source.columns),
@@ -489,7 +467,7 @@ def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: i
             except GlassboxError:
                 raise
             except (ValueError, TypeError, OSError) as exc:
-                raise _daskread_error(source.path, exc) from None
+                raise dask_read_error(source.path, exc) from None
             counts = np.asarray(lengths, dtype=np.int64).tolist()
             ends = np.cumsum(np.asarray(counts, dtype=np.int64))
             offsets = [0, *ends[:-1].tolist()]
@@ -532,18 +510,6 @@ def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: i
             client.close()
             if cluster is not None:
                 cluster.close()
-
-
-def _daskread_error(path: Path, exc: BaseException) -> DataError:
-    """dask guesses column types from the file's start; name the columns that break it."""
-    text = str(exc)
-    if "Mismatched dtypes" not in text:
-        return read_error(path, exc)
-    names = [line.split("|")[1].strip() for line in text.splitlines()
-             if line.startswith("|") and "Column" not in line]
-    return DataError(f"{path}: column(s) {', '.join(map(repr, names))} change type further "
-                     "into the file (text where the first rows hold numbers, say); clean "
-                     "them, or plan with the local engine for an error naming the rows")
 
 
 def _lost(exc: BaseException) -> bool:

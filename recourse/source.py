@@ -1,156 +1,25 @@
-"""The input file of a population run, read in blocks: its header checked against the model
-before any planning, fixed column types for id and kept columns, each block with its rows'
-0-based positions in the whole file (column `row`); never the whole file in memory."""
+"""The input file of a population run: `glassbox.stream`'s block reader, with the kept
+columns named by the option that asks for them (--by)."""
 
 from __future__ import annotations
 
-import warnings
-from collections.abc import Iterator
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
-
-import numpy as np
-import pandas as pd
 
 from glassbox.additive import AdditiveModel
-from glassbox.encoding import (
-    CSV_CELLS,
-    check_data_file,
-    is_parquet,
-    longer_rows_error,
-    parser_problem,
+from glassbox.stream import (
+    Source,
+    dask_client,
+    dask_read_error,
+    read_blocks,
+    read_error,
+    renumbered,
 )
-from glassbox.errors import DataError, OptionError
+from glassbox.stream import open_source as _open
 
-SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
-
-
-@dataclass(frozen=True)
-class Source:
-    """The input file as the engines read it: which columns, with which fixed types."""
-
-    path: Path
-    parquet: bool
-    columns: tuple[str, ...]
-    fixed_types: dict[str, str] = field(default_factory=dict)  # CSV only: id and keep columns
-    bytes_per_row: float = 100.0
-    template: pd.DataFrame = field(default_factory=pd.DataFrame)  # no rows, final types
-
-    def csv_options(self) -> dict[str, Any]:
-        return {**CSV_CELLS, "usecols": list(self.columns), "dtype": dict(self.fixed_types)}
-
-
-def read_error(path: Path, exc: BaseException) -> DataError:
-    if isinstance(exc, pd.errors.ParserError):  # in the words every reader uses
-        return DataError(f"data file {path}: {parser_problem(str(exc))}")
-    first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    return DataError(f"data file {path} could not be read: {first}")
+__all__ = ["Source", "dask_client", "dask_read_error", "open_source", "read_blocks",
+           "read_error", "renumbered"]
 
 
 def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Source:
-    """Check the header against the model and `keep` before any planning."""
-    names = check_data_file(path)  # the checks of every reader: names twice, text, ...
-    parquet = is_parquet(path)
-    try:
-        if parquet:
-            import pyarrow.parquet as pq
-
-            handle = pq.ParquetFile(path)
-            header = list(handle.schema_arrow.names)
-            rows = handle.metadata.num_rows
-            sample = handle.schema_arrow.empty_table().to_pandas()
-        else:
-            with warnings.catch_warnings():
-                warnings.simplefilter("error", pd.errors.ParserWarning)
-                sample = pd.read_csv(path, nrows=SAMPLE_ROWS, **CSV_CELLS)
-            header, rows = [str(c) for c in sample.columns], len(sample)
-    except pd.errors.ParserWarning:  # rows longer than the header: never an index
-        raise longer_rows_error(path, names) from None
-    except pd.errors.EmptyDataError:
-        raise DataError(f"data file {path} is empty") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise read_error(path, exc) from None
-    if rows == 0:
-        raise DataError(f"data file {path} has a header but no data rows")
-    shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
-    missing = [name for name in model.features if name not in header]
-    if missing:
-        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
-                        f"model needs ({shown})")
-    unknown = [name for name in keep if name not in header]
-    if unknown:
-        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, unknown))} not in {path} "
-                          f"({shown})")
-    wanted = {*model.features, *keep, model.schema.id_column}
-    if "row" in wanted and "row" in header:
-        raise DataError(f"{path}: a column named 'row' clashes with the row numbers added "
-                        "to every partition; rename it")
-    columns = tuple(name for name in header if name in wanted)
-    fixed = {} if parquet else {name: _fixed_type(sample[name]) for name in columns
-                                if name not in model.features}
-    template = sample[list(columns)].iloc[:0].astype(fixed) if fixed else \
-        sample[list(columns)].iloc[:0]
-    per_row = 100.0
-    if not parquet:
-        with open(path, "rb") as handle:
-            text = b"".join(handle.readline() for _ in range(len(sample) + 1))
-        per_row = max(len(text) / (len(sample) + 1), 1.0)
-    return Source(path, parquet, columns, fixed, per_row,
-                   template.assign(row=np.array([], dtype=np.int64)))
-
-
-def _fixed_type(column: pd.Series) -> str:
-    """One type for an id or kept column in every block (types guessed per block differ
-    when a block happens to hold only whole numbers, or a gap)."""
-    if pd.api.types.is_bool_dtype(column):
-        return "boolean"
-    if pd.api.types.is_integer_dtype(column):
-        return "Int64"
-    if pd.api.types.is_float_dtype(column):
-        return "float64"
-    return "str"
-
-
-def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
-    """The file in blocks of `partition_rows` rows (Parquet: at most that many), each with
-    its global `row` numbers; never the whole file in memory."""
-    offset = 0
-    try:
-        if source.parquet:
-            import pyarrow as pa
-            import pyarrow.parquet as pq
-
-            batches = pq.ParquetFile(source.path).iter_batches(
-                batch_size=partition_rows, columns=list(source.columns))
-            blocks: Iterator[pd.DataFrame] = (
-                pa.Table.from_batches([batch]).to_pandas() for batch in batches)
-        else:
-            blocks = _csv_blocks(source, partition_rows)
-        for block in blocks:
-            block = block.reset_index(drop=True)
-            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
-            offset += len(block)
-            yield block
-    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
-        raise read_error(source.path, exc) from None
-
-
-def _csv_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
-    """CSV blocks read with every column, so that a row longer than the header is refused
-    wherever it is (pandas drops the extra fields without a word when columns are picked),
-    then cut to the columns the run needs."""
-    options = {key: value for key, value in source.csv_options().items() if key != "usecols"}
-    reader = pd.read_csv(source.path, chunksize=partition_rows, **options)
-    names = list(source.columns)
-    while True:
-        with warnings.catch_warnings():  # only around reading: never across a yield
-            warnings.simplefilter("error", pd.errors.ParserWarning)
-            try:
-                block = next(reader)
-            except StopIteration:
-                return
-            except pd.errors.ParserWarning:
-                header = pd.read_csv(source.path, nrows=0, **CSV_CELLS).columns
-                raise longer_rows_error(source.path, list(header)) from None
-        yield block[names]
+    """Check the header against the model and the --by columns before any planning."""
+    return _open(path, model, keep, "column(s) to keep (--by)")

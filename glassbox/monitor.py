@@ -1,0 +1,222 @@
+"""Monitoring between periods: are the rows a model now scores, and its reasoning about them,
+still what was approved?
+
+Each current file is read in blocks (`glassbox.stream`, constant memory); every block is
+counted by `glassbox.monitor_counts.count_block` (rows per bin, exact sums of contributions
+and scores, per period) and the counts are summed. The engines only decide where blocks are
+counted:
+
+- "local": in this process, block after block;
+- "dask":  `dask.dataframe` partitions on a `dask.distributed` cluster (an existing one, by
+           scheduler address, or one started for the run).
+
+Whole-number counts and exact sums do not depend on the block size or the engine, so every
+engine gives identical numbers. The tables are built by `glassbox.monitor_tables`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from glassbox.additive import AdditiveModel
+from glassbox.baseline import Baseline, check_baseline, model_baseline
+from glassbox.cards import PointsCard
+from glassbox.errors import DataError, GlassboxError, OptionError
+from glassbox.monitor_counts import EVERY, Counts, Plan, add_counts, count_block, ordered_periods
+from glassbox.monitor_tables import Monitoring, build_tables
+from glassbox.points import model_checksum
+from glassbox.stream import (
+    Source,
+    dask_client,
+    dask_read_error,
+    open_source,
+    read_blocks,
+    renumbered,
+)
+
+ENGINES = ("local", "dask")
+CHUNK_ROWS = 200_000
+CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
+
+__all__ = ["CHUNK_ROWS", "ENGINES", "EVERY", "Counts", "Monitoring", "count_block", "monitor"]
+
+
+def monitor(model: AdditiveModel, inputs: Sequence[str | Path], *, period: str | None = None,
+            every: str | None = None, baseline: Baseline | None = None,
+            card: PointsCard | None = None, engine: str = "local", jobs: int = 1,
+            scheduler: str | None = None, chunk_rows: int = CHUNK_ROWS,
+            progress: Callable[[int, int | None], None] | None = None) -> Monitoring:
+    """Every period of the current files against the development baseline.
+
+    Periods are the files (one each, labelled by file name, in the order given), or with
+    `period` the values of that column of one file (numbers ordered numerically, else as
+    text); with `every` (month, quarter, year) that column holds ISO dates, grouped.
+    `baseline` overrides the model file's own. `progress(blocks_done, None)` is called
+    after each block.
+    """
+    inputs = [Path(path) for path in inputs]
+    _check_options(inputs, period, every, engine, jobs, scheduler, chunk_rows)
+    baseline = baseline if baseline is not None else model_baseline(model)
+    check_baseline(model, baseline, "the baseline")
+    checksum = model_checksum(model) or ""
+    if card is not None and card.model_checksum not in (None, checksum):
+        raise OptionError("the points card was made from another model (its model checksum "
+                          "differs from this model file's)")
+    target = model.schema.target.column
+    plans: list[tuple[Source, Plan]] = []
+    labels = _file_labels(inputs)
+    for path, label in zip(inputs, labels, strict=True):
+        outcome = target in _header(path) and target not in model.features
+        keep = tuple(dict.fromkeys(name for name in (period, target if outcome else None)
+                                   if name is not None))
+        source = open_source(path, model, keep, "the period column (--period)")
+        plans.append((source, Plan(model, baseline, str(path), None if period else label,
+                                   period, every, card, outcome)))
+    outcome = any(plan.outcome for _, plan in plans)  # a file without: rows 0 there
+    counted: dict[str, Counts] = {}
+    run = _count_local if engine == "local" else _count_dask
+    for source, plan in plans:
+        found = run(source, plan, chunk_rows=chunk_rows, jobs=jobs, scheduler=scheduler,
+                    progress=progress)
+        if not found:
+            raise DataError(f"data file {source.path} has a header but no data rows")
+        if period is not None and len(found) == 1:
+            only = next(iter(found))
+            raise DataError(f"{source.path}: the period column '{period}' has one value only "
+                            f"({only!r}); monitoring compares several periods: give a "
+                            "column that changes, or one file per period without --period")
+        counted = add_counts(counted, found)
+    periods = labels if period is None else ordered_periods(list(counted))
+    return build_tables(counted, periods, model, baseline, card=card, outcome=outcome,
+                        model_checksum=checksum)
+
+
+def _check_options(inputs: list[Path], period: str | None, every: str | None, engine: str,
+                   jobs: int, scheduler: str | None, chunk_rows: int) -> None:
+    if not inputs:
+        raise OptionError("name at least one data file to monitor")
+    if engine not in ENGINES:
+        raise OptionError(f"unknown engine {engine!r}; known engines: {', '.join(ENGINES)}")
+    for name, value in (("jobs", jobs), ("chunk rows", chunk_rows)):
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise OptionError(f"{name} must be a whole number of at least 1, not {value!r}")
+    if scheduler is not None and engine != "dask":
+        raise OptionError("a scheduler address needs the dask engine (--engine dask)")
+    if period is not None and len(inputs) > 1:
+        raise OptionError("--period splits one file into periods; with several files each "
+                          "file is a period: give one or the other")
+    if every is not None and period is None:
+        raise OptionError("--every groups the dates of the period column: give --period too")
+    if every is not None and every not in EVERY:
+        raise OptionError(f"--every must be one of {', '.join(EVERY)}, not {every!r}")
+
+
+def _file_labels(inputs: list[Path]) -> list[str]:
+    """Each file's period label: its name without the extension, or the whole path where
+    two files would share a name."""
+    stems = [path.stem for path in inputs]
+    labels = stems if len(set(stems)) == len(stems) else [str(path) for path in inputs]
+    if len(set(labels)) != len(labels):
+        twice = next(label for label in labels if labels.count(label) > 1)
+        raise OptionError(f"the file {twice} is named twice; each file is one period")
+    return labels
+
+
+def _header(path: Path) -> list[str]:
+    """A data file's column names (the reader checks the file itself)."""
+    import pandas as pd
+
+    from glassbox.encoding import CSV_CELLS, is_parquet
+
+    try:
+        if is_parquet(path):
+            import pyarrow.parquet as pq
+
+            return [str(name) for name in pq.read_schema(path).names]
+        return [str(name) for name in pd.read_csv(path, nrows=0, **CSV_CELLS).columns]
+    except Exception:  # noqa: BLE001 - unreadable: open_source names the problem
+        return []
+
+
+# ---------------------------------------------------------------- local engine
+
+
+def _count_local(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
+                 scheduler: str | None, progress) -> dict[str, Counts]:
+    counted: dict[str, Counts] = {}
+    for done, block in enumerate(read_blocks(source, chunk_rows), start=1):
+        numbers = block["row"].to_numpy(dtype=np.int64)
+        try:
+            found = count_block(block, plan)
+        except GlassboxError as exc:
+            raise renumbered(exc, numbers) from None
+        counted = add_counts(counted, found)
+        if progress:
+            progress(done, None)
+    return counted
+
+
+# ---------------------------------------------------------------- dask engine
+
+
+@dataclass(frozen=True)
+class _Failed:
+    """A partition whose rows were refused: the error, its rows counted in the partition."""
+
+    error: GlassboxError
+
+
+def _count_partition(partition, plan: Plan):
+    try:
+        return count_block(partition.reset_index(drop=True), plan)
+    except GlassboxError as exc:
+        return _Failed(exc)
+
+
+def _count_dask(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
+                scheduler: str | None, progress) -> dict[str, Counts]:
+    import dask
+    import dask.dataframe as dd
+    from dask import delayed
+
+    with dask.config.set({"dataframe.convert-string": False,
+                          "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
+        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
+        try:
+            if source.parquet:
+                frame = dd.read_parquet(source.path, columns=list(source.columns),
+                                        split_row_groups=True)
+            else:
+                blocksize = max(int(math.ceil(source.bytes_per_row * chunk_rows)), 1024)
+                frame = dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
+                                    **source.csv_options())
+            pieces = frame.to_delayed()
+            counting = delayed(_count_partition)
+            try:
+                results = client.compute([counting(piece, plan) for piece in pieces],
+                                         sync=True)
+            except GlassboxError:
+                raise
+            except (ValueError, TypeError, OSError) as exc:
+                raise dask_read_error(source.path, exc) from None
+            counted: dict[str, Counts] = {}
+            for index, found in enumerate(results):
+                if isinstance(found, _Failed):  # the rows it names, counted in the file
+                    lengths = client.compute([delayed(len)(p) for p in pieces[:index + 1]],
+                                             sync=True)
+                    start = int(sum(lengths[:-1]))
+                    numbers = np.arange(start, start + int(lengths[-1]), dtype=np.int64)
+                    raise renumbered(found.error, numbers) from None
+                counted = add_counts(counted, found)
+                if progress:
+                    progress(index + 1, len(results))
+            return counted
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
