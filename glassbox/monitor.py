@@ -182,8 +182,11 @@ def _count_dask(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
                 scheduler: str | None, progress) -> dict[str, Counts]:
     import dask
     import dask.dataframe as dd
+    import distributed  # noqa: F401  its defaults must be in the config before the block
     from dask import delayed
 
+    # leaving the block restores the config as it was on entry: were distributed first
+    # imported inside it, its defaults would go too, and the next file's cluster fail
     with dask.config.set({"dataframe.convert-string": False,
                           "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
         client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
