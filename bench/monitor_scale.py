@@ -155,8 +155,12 @@ def our_monitor(data: Path, model_path: Path) -> dict:
 
 
 def peak_bytes() -> int:
-    """Peak resident memory of this process and any it waited for (Linux: kilobytes)."""
-    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    """Peak resident memory of this process since it started, and of any process it waited
+    for. Linux's VmHWM, not getrusage's ru_maxrss: a process started from a large one
+    inherits that one's peak in ru_maxrss (the memory at the fork counts), VmHWM does not."""
+    status = Path("/proc/self/status").read_text()
+    own = next(int(line.split()[1]) for line in status.splitlines()
+               if line.startswith("VmHWM:"))
     children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     return max(own, children) * 1024
 
