@@ -238,6 +238,11 @@ def monitor_rows(folder: Path, rows: int = ROWS) -> list[str]:
                             and plain["rows"] == ours["rows"] else "NO"))
     lines += ["", "Same row count and missing count in every feature from both contenders: "
               + ("; ".join(agree) or "not compared") + "."]
+    psi = [f"{suffix[1:]} {results[suffix, 'ours']['score_psi']:.5f}"
+           for suffix in (".parquet", ".csv") if "failed" not in results[suffix, "ours"]]
+    if psi:
+        lines.append("Score PSI of the current rows against the development sample (drawn "
+                     "alike, so near 0): " + "; ".join(psi) + ".")
     return lines
 
 
