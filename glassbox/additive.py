@@ -17,7 +17,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 import pandas as pd
@@ -26,6 +26,9 @@ from scipy.special import expit
 from glassbox.cells import TermCells
 from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning, value_text
 from glassbox.schema import Schema, prepare, rows_text
+
+if TYPE_CHECKING:
+    from glassbox.baseline import Baseline
 
 LINKS = ("logit", "identity")
 PERCENTILE_POINTS = 101
@@ -378,7 +381,9 @@ class AdditiveModel:
     """Intercept, link and one table per feature; scores frames exactly as its tables say.
 
     `cells` summarise the training rows under numeric terms exactly (see
-    `glassbox.cells`); models fitted before they existed have none.
+    `glassbox.cells`); models fitted before they existed have none. `baseline` is the
+    development summary monitoring compares periods with (`glassbox.baseline`); models
+    fitted before it existed have none.
     """
 
     link: str
@@ -388,6 +393,7 @@ class AdditiveModel:
     profiles: tuple[FeatureProfile, ...] = ()
     metadata: Mapping[str, Any] = field(default_factory=dict)
     cells: tuple[TermCells, ...] = ()
+    baseline: Baseline | None = None
 
     def __post_init__(self) -> None:
         if self.link not in LINKS:

@@ -15,6 +15,7 @@ from typing import Any
 
 from glassbox import documents, structure
 from glassbox.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
+from glassbox.baseline import Baseline, check_baseline
 from glassbox.cells import TermCells
 from glassbox.errors import GlassboxError, ModelFileError
 from glassbox.schema import Schema
@@ -30,8 +31,9 @@ canonical_json = documents.canonical_json
 
 
 def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
-    """The model's content as plain data (what the checksum covers). Training cells are
-    written only when the model has them, so older models keep their exact content."""
+    """The model's content as plain data (what the checksum covers). Training cells and the
+    development baseline are written only when the model has them, so older models keep
+    their exact content."""
     content = {
         "link": model.link,
         "intercept": model.intercept,
@@ -42,6 +44,8 @@ def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
     }
     if model.cells:
         content["cells"] = [cells.to_dict() for cells in model.cells]
+    if model.baseline is not None:
+        content["baseline"] = model.baseline.to_dict()
     return content
 
 
@@ -49,6 +53,8 @@ def model_from_dict(content: dict[str, Any], source: str = "") -> AdditiveModel:
     """Rebuild a model from `model_to_dict` output."""
     model = _model_from_dict(content, source)
     check_score_range(model, f"model file {source}")
+    if model.baseline is not None:
+        check_baseline(model, model.baseline, f"model file {source}")
     return model
 
 
@@ -79,6 +85,8 @@ def _model_from_dict(content: dict[str, Any], source: str) -> AdditiveModel:
             profiles=tuple(FeatureProfile.from_dict(p) for p in content.get("profiles", [])),
             metadata=content.get("metadata", {}),
             cells=tuple(TermCells.from_dict(c) for c in content.get("cells", [])),
+            baseline=(Baseline.from_dict(content["baseline"]) if "baseline" in content
+                      else None),
         )
     except KeyError as exc:
         raise ModelFileError(f"model file {source}: missing entry {exc}") from None

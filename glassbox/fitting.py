@@ -2,7 +2,8 @@
 
 The finishing steps are shared by every family: validate and type the data,
 fit, centre each term on the training rows (the intercept absorbs the means),
-keep training profiles, and record provenance.
+keep training profiles and the development baseline monitoring compares periods with
+(`glassbox.baseline`), and record provenance.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ import pandas as pd
 
 from glassbox import __version__
 from glassbox.additive import AdditiveModel, LevelsTerm, Term, centre_terms, profile_features
+from glassbox.baseline import TRAINING_ROWS, build_baseline
 from glassbox.cells import summarise_term
 from glassbox.columns import MANY_LEVELS, OTHER_LEVEL
 from glassbox.errors import DataError, OptionError
@@ -104,8 +106,9 @@ def fit_model(
     if pooled:
         metadata["pooled_levels"] = pooled
     link = "logit" if task == "classification" else "identity"
-    return AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles, metadata,
-                         cells)
+    model = AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles,
+                          metadata, cells)
+    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS))
 
 
 def _check_gaps(features: pd.DataFrame, where: str) -> None:

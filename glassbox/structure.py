@@ -407,10 +407,22 @@ METADATA = Record(
               "glassbox_version": TEXT, "versions": Keyed(TEXT),
               "pooled_levels": Anything(), "fit_date": Day()},
     extra=Anything())  # what a fit recorded: older files hold other keys, never read
+# the development baseline monitoring compares periods with (glassbox.baseline); bin
+# counts against bin labels and rows are checked by Baseline itself
+BASELINE = Record(required={
+    "rows": COUNT, "source": TEXT,
+    "score": Record(required={"edges": Items(NUMBER, order="strict"),
+                              "counts": Items(COUNT, at_least=1), "mean": NUMBER}),
+    "features": Items(Record(
+        required={"feature": TEXT, "source": Text(("steps", "deciles", "levels")),
+                  "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
+                  "mean_absolute_contribution": POSITIVE},
+        optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))})
 MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,
               "terms": Items(TERM), "schema": SCHEMA},
-    optional={"profiles": Items(PROFILE), "metadata": METADATA, "cells": Items(CELLS)})
+    optional={"profiles": Items(PROFILE), "metadata": METADATA, "cells": Items(CELLS),
+              "baseline": BASELINE})
 
 FEATURE_POINTS = Record(
     required={"feature": TEXT, "term": Text(("curve", "steps", "levels")),
