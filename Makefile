@@ -65,7 +65,7 @@ demo: $(STAMP)
 	@echo "== 16. monitoring: two later quarters against the development sample the model file carries"
 	@echo "       (a downturn cuts revenue in both; a feed fault zeroes late payments in 2026-Q3, whose outcomes are not in yet)"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html
-	@echo "       one file per quarter (no outcomes: loans_q3.csv has no outcome column), every table as JSON"
+	@echo "       one file per quarter (loans_q3.csv has no outcome column yet), every table as JSON"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
 	@echo "== done: models, tables, pictures, plans, the audit, the scorecard, the report and the monitoring page are in $(OUT)/"
 
