@@ -24,6 +24,7 @@ ROWS = 10_000_000
 CHUNK_ROWS = 500_000
 SAMPLE_ROWS = 100_000
 SEED = 20261203
+CONTENDERS = {"pandas": "pandas", "local": "ours, local", "dask": "ours, dask 2 workers"}
 
 # (name, log-scale median, log-scale spread, share missing): right-skewed money amounts
 AMOUNTS = (
@@ -141,17 +142,23 @@ def pandas_counts(data: Path) -> dict:
                        for name in ("sector", "region")}}
 
 
-def our_monitor(data: Path, model_path: Path) -> dict:
-    """Our monitor, local engine, default block size."""
+def our_monitor(data: Path, model_path: Path, engine: str) -> dict:
+    """Our monitor at its default block size: the local engine, or dask with two workers."""
+    import hashlib
+
     from glassbox import artifact, monitor
 
-    result = monitor.monitor(artifact.load(model_path), [data])
+    jobs = 2 if engine == "dask" else 1
+    result = monitor.monitor(artifact.load(model_path), [data], engine=engine, jobs=jobs)
     features = result.features
     rows = int(result.summary["rows"].sum())
+    tables = "".join(table.to_csv(index=False) for table in (
+        result.summary, result.features, result.bins, result.score_bins, result.new_levels))
     return {"rows": rows,
             "missing": {str(row.feature): int(round(row.missing_share * rows))
                         for row in features.itertuples()},
-            "score_psi": float(result.summary["score_psi"].iloc[0])}
+            "score_psi": float(result.summary["score_psi"].iloc[0]),
+            "tables_sha256": hashlib.sha256(tables.encode()).hexdigest()}
 
 
 def peak_bytes() -> int:
@@ -167,7 +174,7 @@ def peak_bytes() -> int:
 
 def child(kind: str, data: Path, model_path: Path | None) -> None:
     start = time.perf_counter()
-    result = pandas_counts(data) if kind == "pandas" else our_monitor(data, model_path)
+    result = pandas_counts(data) if kind == "pandas" else our_monitor(data, model_path, kind)
     result.update(seconds=time.perf_counter() - start, peak=peak_bytes())
     print(json.dumps(result))
 
@@ -193,7 +200,7 @@ def monitor_rows(folder: Path, rows: int = ROWS) -> list[str]:
     fitted = time.perf_counter() - start
     results = {}
     for data in (parquet_path, csv_path):
-        for kind in ("pandas", "ours"):
+        for kind in CONTENDERS:
             results[data.suffix, kind] = run_child(kind, data, model_path)
             print(f"{data.suffix} {kind}: {results[data.suffix, kind]}"[:300], file=sys.stderr,
                   flush=True)
@@ -209,37 +216,47 @@ def monitor_rows(folder: Path, rows: int = ROWS) -> list[str]:
         f"{SAMPLE_ROWS:,} rows ({fitted:.0f} s). "
         "Each contender runs in a fresh process, one after the other in this run, timing itself "
         "from before reading to the result (start-up excluded) and reporting its own peak "
-        "resident memory. `ours` is the local engine at its default block size: every term "
+        "resident memory (with dask: the largest of the process and its workers). `ours, "
+        "local` is the local engine at its default block size (one process): every term "
         "scored, bin counts, missing and new levels, exact sums, PSI and its χ² check for the "
-        "score and every feature. `pandas` reads the whole file (every column) and calls "
-        "`value_counts(dropna=False)` on each feature: no binning, no scoring. Target: ours "
-        "at least 3× the baseline's rows per second, under 2 GB peak.",
+        "score and every feature; `ours, dask` the same counts on a two-worker dask cluster "
+        "started for the run (start-up included). `pandas` reads the whole file (every "
+        "column) and calls `value_counts(dropna=False)` on each feature: no binning, no "
+        "scoring. Target: ours at least 3× the baseline's rows per second, under 2 GB peak.",
         "",
         "| file | contender | seconds | rows per second | peak memory (MiB) | "
         "throughput ours / pandas |",
         "|---|---|---:|---:|---:|---:|",
     ]
-    agree = []
+    agree, same = [], []
     for suffix in (".parquet", ".csv"):
-        plain, ours = results[suffix, "pandas"], results[suffix, "ours"]
-        for kind, result in (("pandas", plain), ("ours", ours)):
+        plain = results[suffix, "pandas"]
+        for kind in CONTENDERS:
+            result = results[suffix, kind]
+            label = CONTENDERS[kind]
             if "failed" in result:
-                lines.append(f"| {suffix[1:]} | {kind} | failed: {result['failed'][:120]} "
+                lines.append(f"| {suffix[1:]} | {label} | failed: {result['failed'][:120]} "
                              "| | | |")
                 continue
-            ratio = (f"{plain['seconds'] / ours['seconds']:.2f}"
-                     if kind == "ours" and "failed" not in plain else "")
-            lines.append(f"| {suffix[1:]} | {kind} | {result['seconds']:.1f} | "
+            ratio = (f"{plain['seconds'] / result['seconds']:.2f}"
+                     if kind != "pandas" and "failed" not in plain else "")
+            lines.append(f"| {suffix[1:]} | {label} | {result['seconds']:.1f} | "
                          f"{result['rows'] / result['seconds']:,.0f} | "
                          f"{result['peak'] / 2**20:,.0f} | {ratio} |")
-        if "failed" not in plain and "failed" not in ours:
-            agree.append(f"{suffix[1:]}: "
-                         + ("yes" if plain["missing"] == ours["missing"]
-                            and plain["rows"] == ours["rows"] else "NO"))
-    lines += ["", "Same row count and missing count in every feature from both contenders: "
-              + ("; ".join(agree) or "not compared") + "."]
-    psi = [f"{suffix[1:]} {results[suffix, 'ours']['score_psi']:.5f}"
-           for suffix in (".parquet", ".csv") if "failed" not in results[suffix, "ours"]]
+        ours = [results[suffix, kind] for kind in CONTENDERS if kind != "pandas"]
+        ours = [result for result in ours if "failed" not in result]
+        if "failed" not in plain and ours:
+            agree.append(f"{suffix[1:]}: " + ("yes" if all(
+                plain["missing"] == result["missing"] and plain["rows"] == result["rows"]
+                for result in ours) else "NO"))
+        if len(ours) == 2:
+            same.append(f"{suffix[1:]}: " + ("yes" if ours[0]["tables_sha256"]
+                                             == ours[1]["tables_sha256"] else "NO"))
+    lines += ["", "Same row count and missing count in every feature from pandas and ours: "
+              + ("; ".join(agree) or "not compared") + ". Every table byte-identical from "
+              "the local and the dask engine: " + ("; ".join(same) or "not compared") + "."]
+    psi = [f"{suffix[1:]} {results[suffix, 'local']['score_psi']:.5f}"
+           for suffix in (".parquet", ".csv") if "failed" not in results[suffix, "local"]]
     if psi:
         lines.append("Score PSI of the current rows against the development sample (drawn "
                      "alike, so near 0): " + "; ".join(psi) + ".")
