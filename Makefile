@@ -62,7 +62,12 @@ demo: $(STAMP)
 	$(BIN)/recourse audit $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2 --format json --out $(OUT)/loans.audit.json
 	@echo "== 15. the audit report: one self-contained HTML file, and the same in Markdown"
 	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --recourse $(OUT)/loans.audit.json --cutoff 0.3 --out $(OUT)/report
-	@echo "== done: models, tables, pictures, plans, the audit, the scorecard and the report are in $(OUT)/"
+	@echo "== 16. monitoring: two later quarters against the development sample the model file carries"
+	@echo "       (a downturn cuts revenue in both; a feed fault zeroes late payments in 2026-Q3, whose outcomes are not in yet)"
+	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html
+	@echo "       one file per quarter (loans_q3.csv has no outcome column yet), every table as JSON"
+	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
+	@echo "== done: models, tables, pictures, plans, the audit, the scorecard, the report and the monitoring page are in $(OUT)/"
 
 test: $(STAMP) browser
 	$(BIN)/ruff check .

@@ -995,6 +995,13 @@ def fuzz_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     return lines
 
 
+def monitor_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
+    """Monitoring 10 million rows against a pandas baseline (bench/monitor_scale.py)."""
+    from bench.monitor_scale import monitor_rows as scale_rows
+
+    return scale_rows(folder)
+
+
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
     with tempfile.TemporaryDirectory() as scratch:
@@ -1003,14 +1010,14 @@ def main() -> None:
         if only:
             for name in only:
                 rows = globals()[f"{name}_rows"]
-                extra = (folder,) if name in ("audit", "file", "fuzz") else ()
+                extra = (folder,) if name in ("audit", "file", "fuzz", "monitor") else ()
                 print("\n".join(rows(sets, *extra)))
             return
         sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
-                    levels_rows(sets), fuzz_rows(sets, folder)]
+                    levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",

@@ -11,8 +11,9 @@ to this script. The same seed always gives byte-identical files.
 from __future__ import annotations
 
 import argparse
-import json
+import importlib.util
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -48,6 +49,7 @@ SECTOR_OFFSETS = {
     "professional services": -0.5,
     "agriculture": 0.25,
     "transport": 0.3,
+    "care services": 0.2,  # NEW_SECTOR: applications only from the second quarter on
 }
 PREMISES_OWNED_OFFSET = -0.6
 # Some applicants leave revenue blank, more often the riskier ones: the chance is
@@ -130,6 +132,43 @@ def loan_true_score(frame: pd.DataFrame) -> np.ndarray:
         + sector_effect(frame["sector"].to_numpy())
         + premises_owned_effect(frame["premises_owned"].to_numpy())
     )
+
+
+# ---------------------------------------------------------------------------
+# Later quarters of scenario A, for monitoring. loans.csv is the development sample (the
+# first quarter). From the second quarter the lender also lends to a new sector; a downturn
+# cuts every business's revenue to DOWNTURN_REVENUE_FACTOR of what it would have been (a
+# population shift). In the third quarter the downturn persists and a data-feed fault
+# records every late-payment count as 0 (the true counts still drive the outcomes), and
+# its outcomes have not arrived yet.
+# ---------------------------------------------------------------------------
+
+QUARTER_ROWS = 2500
+DOWNTURN_REVENUE_FACTOR = 0.7
+NEW_SECTOR = "care services"
+NEW_SECTOR_SHARE = 0.01
+
+
+@dataclass(frozen=True)
+class Quarter:
+    """One quarter of later applications and what happened in it."""
+
+    label: str
+    file: str
+    first_day: str  # ISO date
+    days: int
+    revenue_factor: float
+    late_feed_fault: bool
+    outcomes_known: bool
+
+
+QUARTERS = (
+    Quarter("2026-Q2", "loans_q2.csv", "2026-04-01", 91, DOWNTURN_REVENUE_FACTOR,
+            late_feed_fault=False, outcomes_known=True),
+    Quarter("2026-Q3", "loans_q3.csv", "2026-07-01", 92, DOWNTURN_REVENUE_FACTOR,
+            late_feed_fault=True, outcomes_known=False),
+)
+QUARTERS_FILE = "loans_quarters.csv"
 
 
 # ---------------------------------------------------------------------------
@@ -294,17 +333,21 @@ def _choice(
     return np.asarray(levels, dtype=object)[rng.choice(len(levels), size=n, p=p / p.sum())]
 
 
-def loan_features(rng: np.random.Generator, n: int) -> pd.DataFrame:
-    """Draw the nine loan-application features (no outcome yet)."""
+def loan_features(rng: np.random.Generator, n: int, revenue_factor: float = 1.0
+                  ) -> pd.DataFrame:
+    """Draw the nine loan-application features (no outcome yet). A revenue_factor below 1
+    is a downturn: every business's revenue is that share of what it would have been, so
+    the amount asked for falls with it and existing debt weighs more against revenue."""
     age_idx = rng.choice(len(AGE_BANDS), size=n, p=np.asarray(AGE_SHARES))
     mean_years = np.asarray(AGE_MEAN_YEARS)[age_idx]
     years = np.rint(rng.gamma(2.0, mean_years / 2.0))
     years = np.minimum(np.clip(years, 0, 40), np.asarray(AGE_MAX_YEARS)[age_idx]).astype(int)
 
     log_revenue = np.log(200.0) + 0.04 * np.minimum(years, 20) + 0.85 * rng.standard_normal(n)
+    log_revenue = log_revenue + np.log(revenue_factor)  # adds exactly 0.0 at the default
     revenue = np.round(np.clip(np.exp(log_revenue), 40.0, 5000.0), 1)
 
-    debt = np.round(np.clip(rng.gamma(2.0, 0.3, size=n), 0.0, 3.0), 3)
+    debt = np.round(np.clip(rng.gamma(2.0, 0.3, size=n) / revenue_factor, 0.0, 3.0), 3)
     util = np.round(rng.beta(1.5, 2.4, size=n), 3)
     late_p = 0.62 - 0.3 * util
     late = np.clip(rng.negative_binomial(0.6, late_p), 0, 12).astype(int)
@@ -334,13 +377,19 @@ def make_loans(rng: np.random.Generator, n: int) -> pd.DataFrame:
     """Scenario A: loan applications with a drawn `defaulted` outcome; some leave their
     revenue blank, more often the riskier ones (the chance rises with the risk)."""
     frame = loan_features(rng, n)
+    frame["defaulted"] = gaps_and_outcomes(rng, frame)
+    frame.insert(0, "application_id", [f"L{i:06d}" for i in range(1, n + 1)])
+    return frame
+
+
+def gaps_and_outcomes(rng: np.random.Generator, frame: pd.DataFrame) -> np.ndarray:
+    """Blank the revenue of some applications (in place), more often the riskier ones, and
+    return the drawn `defaulted` outcomes (yes/no) from the true score."""
+    n = len(frame)
     draw = rng.random(n)
     gap_chance = REVENUE_GAP_BASE + REVENUE_GAP_RISK * sigmoid(loan_true_score(frame))
     frame["annual_revenue"] = frame["annual_revenue"].where(rng.random(n) >= gap_chance)
-    p = sigmoid(loan_true_score(frame))
-    frame["defaulted"] = _yes_no(draw < p)
-    frame.insert(0, "application_id", [f"L{i:06d}" for i in range(1, n + 1)])
-    return frame
+    return _yes_no(draw < sigmoid(loan_true_score(frame)))
 
 
 def make_loans_big(rng: np.random.Generator, n: int) -> pd.DataFrame:
@@ -365,6 +414,24 @@ def make_loans_big(rng: np.random.Generator, n: int) -> pd.DataFrame:
     p = sigmoid(loan_true_score(frame) + big_extra_score(frame))
     frame["defaulted"] = _yes_no(rng.random(n) < p)
     frame.insert(0, "application_id", [f"L{i:06d}" for i in range(1, n + 1)])
+    return frame
+
+
+def make_loan_quarter(rng: np.random.Generator, quarter: Quarter, n: int,
+                      first_id: int) -> pd.DataFrame:
+    """One quarter's applications: id, application_date (ISO, in date order), quarter,
+    the nine features and `defaulted` (blank where outcomes are not known yet)."""
+    frame = loan_features(rng, n, quarter.revenue_factor)
+    new_sector = rng.random(n) < NEW_SECTOR_SHARE
+    frame["sector"] = np.where(new_sector, NEW_SECTOR, frame["sector"].to_numpy())
+    outcomes = gaps_and_outcomes(rng, frame)  # the truth sees the true late payments
+    if quarter.late_feed_fault:
+        frame["late_payments_24m"] = 0
+    frame["defaulted"] = outcomes if quarter.outcomes_known else None
+    days = np.sort(rng.integers(0, quarter.days, size=n))
+    frame.insert(0, "quarter", quarter.label)
+    frame.insert(0, "application_date", (np.datetime64(quarter.first_day) + days).astype(str))
+    frame.insert(0, "application_id", [f"L{i:06d}" for i in range(first_id, first_id + n)])
     return frame
 
 
@@ -403,118 +470,18 @@ def make_listings(rng: np.random.Generator, n: int) -> pd.DataFrame:
 
 
 # ---------------------------------------------------------------------------
-# Schemas (our own TOML shape; see the project README)
+# Writing (the schemas are in demo_schemas.py beside this script)
 # ---------------------------------------------------------------------------
 
-# Each feature: (name, kind, monotone or None, description, extra lines)
-Feature = tuple[str, str, str | None, str, tuple[str, ...]]
 
-LOAN_SCHEMA: tuple[Feature, ...] = (
-    ("annual_revenue", "number", "decreasing", "Annual revenue, thousands (blank if not stated)",
-     ('reason = "Annual revenue is low for the amount of credit sought"',
-      'missing = "learn"  # a blank revenue gets its own learned contribution')),
-    ("years_trading", "integer", "decreasing", "Whole years the business has traded, years", ()),
-    (
-        "debt_to_revenue",
-        "number",
-        "increasing",
-        "Existing debt divided by annual revenue, ratio",
-        ('reason = "Existing debt is high relative to revenue"',),
-    ),
-    ("credit_utilisation", "number", None, "Share of credit limits in use, ratio 0 to 1",
-     ('reason = "High use of existing credit lines"',)),
-    (
-        "late_payments_24m",
-        "integer",
-        "increasing",
-        "Late payments in the last 24 months, count",
-        ('reason = "Recent late payments on existing credit"',),
-    ),
-    ("amount_requested", "number", "increasing", "Loan amount requested, thousands", ()),
-    ("sector", "category", None, "Business sector, one of seven levels", ()),
-    ("premises_owned", "flag", None, "Whether the business owns its premises, yes/no", ()),
-    (
-        "owner_age_band",
-        "category",
-        None,
-        "Age band of the main owner, years (protected: audits only)",
-        ("protected = true",),
-    ),
-)
-
-BIG_EXTRA_SCHEMA: tuple[Feature, ...] = (
-    ("staff_count", "integer", None, "Number of staff, head count", ()),
-    ("card_sales_share", "number", None, "Share of sales paid by card, 0 to 1", ()),
-    ("invoice_days", "number", None, "Average days until invoices are paid, days", ()),
-    ("online_reviews", "integer", None, "Number of online reviews of the business, count", ()),
-    ("branch_distance_km", "number", None, "Distance to the nearest branch, km", ()),
-    ("seasonality_index", "number", None, "How seasonal sales are, 0 (flat) to 1", ()),
-    ("tax_filings_late", "integer", None, "Late tax filings in the last 5 years, count", ()),
-    ("director_count", "integer", None, "Number of company directors, count", ()),
-    ("account_tenure_months", "integer", None, "Months banking with the lender, months", ()),
-    ("loan_purpose", "category", None, "Stated purpose of the loan, one of five levels", ()),
-    ("branch_area", "category", None, "Area of the handling branch, one of five levels", ()),
-)
-
-LISTING_SCHEMA: tuple[Feature, ...] = (
-    ("reviews_count", "integer", "increasing", "Number of guest reviews, count", ()),
-    (
-        "host_response_hours",
-        "number",
-        "decreasing",
-        "Median time for the host to answer a message, hours (missing for new hosts)",
-        ('missing = "learn"  # new hosts have no record: their own learned contribution',),
-    ),
-    ("cleanliness_score", "number", "increasing", "Average cleanliness rating, 1 to 5", ()),
-    ("photos", "integer", "increasing", "Number of photos on the listing, count", ()),
-    ("nightly_price", "number", None, "Price per night, currency units", ()),
-    ("distance_to_coast_km", "number", "decreasing", "Distance to the coast, km", ()),
-    ("pets_allowed", "flag", None, "Whether pets are allowed, yes/no", ()),
-    ("region", "category", None, "Region of the cottage, one of six levels", ()),
-)
-
-
-def schema_text(csv_name: str, id_column: str, target: str, features: Sequence[Feature],
-                better: str) -> str:
-    """Render a schema file in the project's TOML shape."""
-    lines = [
-        f"# Schema for {csv_name} (edit freely; see the project README)",
-        "# Written by demo_data/make_demo.py; rerunning the script rewrites this file.",
-        f"id = {json.dumps(id_column)}",
-        "",
-        "[target]",
-        f"column = {json.dumps(target)}",
-        'task = "classification"',
-        'positive = "yes"',
-        f'better = "{better}"  # which way the score is better for the applicant or owner',
-    ]
-    for name, kind, monotone, description, extra in features:
-        lines += ["", f"[feature.{name}]", f'kind = "{kind}"']
-        if monotone is not None:
-            lines.append(f'monotone = "{monotone}"')
-        lines.append(f"description = {json.dumps(description)}")
-        lines += list(extra)
-    return "\n".join(lines) + "\n"
-
-
-def big_schema() -> tuple[Feature, ...]:
-    """Schema of loans_big.csv: the loan features, with the true monotone extras marked."""
-    marked = {
-        "staff_count": "decreasing",
-        "card_sales_share": "decreasing",
-        "invoice_days": "increasing",
-        "tax_filings_late": "increasing",
-    }
-    extras = tuple(
-        (name, kind, marked.get(name, monotone), description, extra)
-        for name, kind, monotone, description, extra in BIG_EXTRA_SCHEMA
-    )
-    return LOAN_SCHEMA + extras
-
-
-# ---------------------------------------------------------------------------
-# Writing
-# ---------------------------------------------------------------------------
+def demo_schemas():
+    """demo_schemas.py from this script's folder (found by path, so that running this file
+    with runpy from anywhere finds it too)."""
+    path = Path(__file__).resolve().with_name("demo_schemas.py")
+    spec = importlib.util.spec_from_file_location("demo_schemas", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
 
 
 def write_csv(frame: pd.DataFrame, path: Path) -> None:
@@ -565,21 +532,41 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parse_args(argv)
     out: Path = args.out
     out.mkdir(parents=True, exist_ok=True)
-    # One independent stream per file, so --big or a row count never changes another file.
-    loans_seed, listings_seed, big_seed = np.random.SeedSequence(args.seed).spawn(3)
+    # One independent stream per file, so --big or a row count never changes another file
+    # (spawning more streams leaves the first ones as they were).
+    loans_seed, listings_seed, big_seed, *quarter_seeds = np.random.SeedSequence(
+        args.seed).spawn(3 + len(QUARTERS))
+    schemas = demo_schemas()
 
     loans = make_loans(np.random.default_rng(loans_seed), args.rows_loans)
     write_csv(loans, out / "loans.csv")
     write_text(
-        schema_text("loans.csv", "application_id", "defaulted", LOAN_SCHEMA, "lower"),
+        schemas.schema_text("loans.csv", "application_id", "defaulted", schemas.LOAN_SCHEMA,
+                           "lower"),
         out / "loans.schema.toml",
     )
     print(f"loans.csv: {len(loans)} rows, default rate {rate(loans, 'defaulted'):.3f}")
 
+    quarters, first_id = [], len(loans) + 1
+    for quarter, seed in zip(QUARTERS, quarter_seeds, strict=True):
+        frame = make_loan_quarter(np.random.default_rng(seed), quarter, QUARTER_ROWS, first_id)
+        first_id += len(frame)
+        quarters.append(frame)
+        alone = frame.drop(columns=["quarter"] + ([] if quarter.outcomes_known
+                                                  else ["defaulted"]))
+        write_csv(alone, out / quarter.file)
+        outcome = (f"default rate {rate(frame, 'defaulted'):.3f}" if quarter.outcomes_known
+                   else "no outcomes yet")
+        print(f"{quarter.file}: {len(frame)} rows, {outcome}")
+    write_csv(pd.concat(quarters, ignore_index=True), out / QUARTERS_FILE)
+    print(f"{QUARTERS_FILE}: the same {first_id - len(loans) - 1} rows in one file, "
+          "with a quarter column")
+
     listings = make_listings(np.random.default_rng(listings_seed), args.rows_listings)
     write_csv(listings, out / "listings.csv")
     write_text(
-        schema_text("listings.csv", "listing_id", "top_tier", LISTING_SCHEMA, "higher"),
+        schemas.schema_text("listings.csv", "listing_id", "top_tier", schemas.LISTING_SCHEMA,
+                           "higher"),
         out / "listings.schema.toml",
     )
     print(f"listings.csv: {len(listings)} rows, top-tier rate {rate(listings, 'top_tier'):.3f}")
@@ -588,8 +575,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         big = make_loans_big(np.random.default_rng(big_seed), BIG_ROWS)
         write_csv(big, out / "loans_big.csv")
         write_text(
-            schema_text("loans_big.csv", "application_id", "defaulted", big_schema(),
-                        "lower"),
+            schemas.schema_text("loans_big.csv", "application_id", "defaulted",
+                                schemas.big_schema(), "lower"),
             out / "loans_big.schema.toml",
         )
         print(f"loans_big.csv: {len(big)} rows, default rate {rate(big, 'defaulted'):.3f}")

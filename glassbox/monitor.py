@@ -6,7 +6,8 @@ counted by `glassbox.monitor_counts.count_block` (rows per bin, exact sums of co
 and scores, per period) and the counts are summed. The engines only decide where blocks are
 counted:
 
-- "local": in this process, block after block;
+- "local": on this machine: block after block in this process, or with jobs > 1 counted
+           by that many worker processes while this one reads;
 - "dask":  `dask.dataframe` partitions on a `dask.distributed` cluster (an existing one, by
            scheduler address, or one started for the run).
 
@@ -17,6 +18,7 @@ engine gives identical numbers. The tables are built by `glassbox.monitor_tables
 from __future__ import annotations
 
 import math
+from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -38,6 +40,7 @@ from glassbox.stream import (
     read_blocks,
     renumbered,
 )
+from glassbox.workers import become_worker, sigint_held, start_pool, stop_workers
 
 ENGINES = ("local", "dask")
 CHUNK_ROWS = 200_000
@@ -148,17 +151,69 @@ def _header(path: Path) -> list[str]:
 
 def _count_local(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
                  scheduler: str | None, progress) -> dict[str, Counts]:
+    """Blocks read here and counted here (jobs=1), or counted by `jobs` worker processes
+    while this one reads on; results are taken in file order, so the first refused row
+    in the file is the one named, and at most 2 x jobs blocks are in flight."""
     counted: dict[str, Counts] = {}
-    for done, block in enumerate(read_blocks(source, chunk_rows), start=1):
-        numbers = block["row"].to_numpy(dtype=np.int64)
-        try:
-            found = count_block(block, plan)
-        except GlassboxError as exc:
-            raise renumbered(exc, numbers) from None
-        counted = add_counts(counted, found)
-        if progress:
-            progress(done, None)
+    if jobs == 1:
+        for done, block in enumerate(read_blocks(source, chunk_rows), start=1):
+            counted = add_counts(counted, _counted(block, plan))
+            if progress:
+                progress(done, None)
+        return counted
+    pool = start_pool(jobs, _start_counting, (plan,))
+    window: deque = deque()
+    done = 0
+    try:
+        for block in read_blocks(source, chunk_rows):
+            with sigint_held():  # a submit may start a process
+                window.append(pool.submit(_count_in_worker, block))
+            while len(window) >= 2 * jobs or (window and window[0].done()):
+                counted = add_counts(counted, _taken(window.popleft()))
+                done += 1
+                if progress:
+                    progress(done, None)
+        while window:
+            counted = add_counts(counted, _taken(window.popleft()))
+            done += 1
+            if progress:
+                progress(done, None)
+    except BaseException:  # an interruption or an error: the other blocks are not needed
+        stop_workers(pool)
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
     return counted
+
+
+def _counted(block, plan: Plan) -> dict[str, Counts]:
+    """One block's counts; a refused row is named by its row in the whole file."""
+    try:
+        return count_block(block, plan)
+    except GlassboxError as exc:
+        raise renumbered(exc, block["row"].to_numpy(dtype=np.int64)) from None
+
+
+_PLAN: dict[str, Plan] = {}  # set once per worker process by `_start_counting`
+
+
+def _start_counting(parent: int, plan: Plan) -> None:
+    become_worker(parent)
+    _PLAN["plan"] = plan
+
+
+def _count_in_worker(block) -> dict[str, Counts] | _Failed:
+    try:
+        return _counted(block, _PLAN["plan"])
+    except GlassboxError as exc:  # raised again in the main process, in file order
+        return _Failed(exc)
+
+
+def _taken(future) -> dict[str, Counts]:
+    found = future.result()
+    if isinstance(found, _Failed):
+        raise found.error
+    return found
 
 
 # ---------------------------------------------------------------- dask engine

@@ -20,13 +20,8 @@ and end when the main process dies.
 
 from __future__ import annotations
 
-import contextlib
 import math
-import os
-import signal
-import threading
-import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -38,6 +33,7 @@ from glassbox import artifact
 from glassbox.additive import AdditiveModel
 from glassbox.errors import DataError, GlassboxError, OptionError
 from glassbox.provenance import file_sha256
+from glassbox.workers import become_worker, sigint_held, start_pool, stop_workers
 from recourse.batch import (
     OUTCOME_COLUMNS,
     outcome_frame,
@@ -296,49 +292,19 @@ def _typed_template(source: Source, task: _Task) -> pd.DataFrame:
 # ---------------------------------------------------------------- local engine
 
 _WORKER: dict[str, _Task] = {}  # set once per pool process by `_start_worker`
-PARENT_CHECK_SECONDS = 0.5  # how often a planning process checks that its parent lives
 
 
 def _start_worker(parent: int, model_text: str, mutability: Mutability, n_plans: int,
                   solver: str, keep: tuple[str, ...], source: str) -> None:
     """Pool initializer: the model arrives once per process, as its JSON text. The process
     leaves SIGINT to its parent and ends when the parent `parent` dies."""
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _end_with_parent(parent)
+    become_worker(parent)
     model = artifact.loads(model_text, "<model sent to a planning process>")
     _WORKER["task"] = _Task(model, mutability, n_plans, solver, keep, source)
 
 
-def _end_with_parent(parent: int) -> None:
-    """On Linux the kernel kills this process when its parent dies (PR_SET_PDEATHSIG);
-    everywhere a watchdog thread ends it within PARENT_CHECK_SECONDS once it is orphaned."""
-    try:
-        import ctypes
-
-        libc = ctypes.CDLL(None, use_errno=True)
-        libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
-    except (OSError, AttributeError):
-        pass  # not Linux: the watchdog alone
-
-    def watch() -> None:
-        while os.getppid() == parent:
-            time.sleep(PARENT_CHECK_SECONDS)
-        os._exit(1)
-
-    if os.getppid() != parent:  # the parent died before the kernel was told
-        os._exit(1)
-    threading.Thread(target=watch, name="parent-watchdog", daemon=True).start()
-
-
 def _plan_in_worker(partition: pd.DataFrame) -> pd.DataFrame:
     return _WORKER["task"](partition)
-
-
-def _stop_workers(pool) -> None:
-    """End a pool's processes now (after an interruption or an error: no more work)."""
-    for process in list((getattr(pool, "_processes", None) or {}).values()):
-        if process.is_alive():
-            process.terminate()
 
 
 def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: int,
@@ -355,19 +321,14 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
             if report:
                 report(finished, None)
         return count, set()
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
     from concurrent.futures.process import BrokenProcessPool
 
     missing: set[int] = set()
     pending: dict[Future, tuple[int, int, int]] = {}  # index, first row, rows
     broken = False
-    with _sigint_held():  # the pool's helper process starts here
-        pool = ProcessPoolExecutor(
-            max_workers=jobs, mp_context=multiprocessing.get_context("spawn"),
-            initializer=_start_worker,
-            initargs=(os.getpid(), artifact.dumps(task.model), task.mutability, task.n_plans,
-                      task.solver, task.keep, task.source))
+    pool = start_pool(jobs, _start_worker,
+                      (artifact.dumps(task.model), task.mutability, task.n_plans, task.solver,
+                       task.keep, task.source))
     try:
         exhausted = False
         while pending or not exhausted:
@@ -381,7 +342,7 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 if results.done(index, *_span(block)):
                     continue
                 try:
-                    with _sigint_held():  # a submit may start a process
+                    with sigint_held():  # a submit may start a process
                         future = pool.submit(_plan_in_worker, block)
                     pending[future] = (index, *_span(block))
                 except BrokenProcessPool:
@@ -409,27 +370,11 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 if report:
                     report(finished, None)
     except BaseException:  # an interruption or an error: the other partitions are not needed
-        _stop_workers(pool)
+        stop_workers(pool)
         raise
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
     return count, missing
-
-
-@contextlib.contextmanager
-def _sigint_held() -> Iterator[None]:
-    """SIGINT blocked (held, not lost) while planning processes may start: a process
-    inherits the blocked signal mask across exec and keeps it, so a Ctrl-C during its
-    start-up never prints a traceback from a half-started process. The main process gets
-    a Ctrl-C that came meanwhile as soon as the block ends."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
-    try:
-        yield
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
 
 
 # ---------------------------------------------------------------- dask engine

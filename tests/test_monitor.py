@@ -119,8 +119,9 @@ def test_block_size_and_dask_give_identical_numbers(model, files, result):
     pytest.importorskip("distributed")
     inputs = [files / "early.csv", files / "late.csv"]
     small = monitor(model, inputs, chunk_rows=7)
+    workers = monitor(model, inputs, jobs=2, chunk_rows=97)  # two local worker processes
     cluster = monitor(model, inputs, engine="dask", jobs=1, chunk_rows=1500)
-    for other in (small, cluster):
+    for other in (small, workers, cluster):
         for name in ("summary", "features", "bins", "score_bins", "new_levels", "outcomes"):
             pd.testing.assert_frame_equal(getattr(result, name), getattr(other, name),
                                           check_exact=True)
@@ -205,6 +206,10 @@ def test_bad_inputs_are_refused_in_one_line_naming_them(model, frames, tmp_path)
     other.to_csv(tmp_path / "other.csv", index=False)
     _refused("'Income' should hold numbers but has text in data row 31", model,
              [tmp_path / "other.csv"], chunk_rows=7)
+    other.loc[300, "Income"] = "none"  # with worker processes: still the first in the file
+    other.to_csv(tmp_path / "other.csv", index=False)
+    _refused("'Income' should hold numbers but has text in data row 31", model,
+             [tmp_path / "other.csv"], chunk_rows=7, jobs=2)
     _refused("--every groups", model, [tmp_path / "one.csv"], every="month")
     _refused("unknown engine", model, [tmp_path / "one.csv"], engine="spark")
     dates = late.assign(day="2024-13-45")

@@ -311,13 +311,13 @@ def test_the_command_names_each_part_planned_again_and_counts_them(setup, tmp_pa
 def test_planning_processes_start_with_sigint_held():
     """A Ctrl-C while the pool's processes were still starting printed a traceback from a
     half-started process (seen in full runs of the SIGINT test above). A process started
-    inside `_sigint_held` starts with SIGINT blocked (a blocked signal mask is
+    inside `sigint_held` starts with SIGINT blocked (a blocked signal mask is
     inherited and kept across execve, POSIX), and the main process's mask is restored."""
-    from recourse.scale import _sigint_held
+    from glassbox.workers import sigint_held
 
     probe = [sys.executable, "-c", "import signal; print(signal.SIGINT in "
              "signal.pthread_sigmask(signal.SIG_BLOCK, set()))"]
-    with _sigint_held():
+    with sigint_held():
         inside = subprocess.run(probe, capture_output=True, text=True, check=True).stdout
     outside = subprocess.run(probe, capture_output=True, text=True, check=True).stdout
     assert inside.strip() == "True", inside
