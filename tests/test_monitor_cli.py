@@ -6,7 +6,6 @@ from __future__ import annotations
 import io
 import json
 from collections import Counter
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -15,30 +14,15 @@ from rich.console import Console
 
 from glassbox import monitor_files, monitor_page, monitor_plots, monitor_view
 from glassbox.files import file_kind
+from glassbox.monitor import Monitoring
 from glassbox.report import to_html
-
-
-@dataclass(frozen=True)
-class ConstructedMonitoring:
-    """A hand-made result with the engine's fields: constructed, so its truth is known
-    (additivity holds by construction; the flags are set, not computed)."""
-
-    model_checksum: str
-    baseline_source: str
-    periods: tuple[str, ...]
-    development_rows: int
-    summary: pd.DataFrame
-    features: pd.DataFrame
-    bins: pd.DataFrame
-    score_bins: pd.DataFrame
-    new_levels: pd.DataFrame
-    outcomes: pd.DataFrame | None
-
 
 LONG = "owner_years_in_the_same_trade_before_this_application"
 
 
-def constructed(outcomes: bool = True) -> ConstructedMonitoring:
+def constructed(outcomes: bool = True) -> Monitoring:
+    """A hand-made result in the engine's own type: constructed, so its truth is known
+    (additivity holds by construction; the flags are set, not computed)."""
     periods = ("2026-Q2", "2026-Q3", "2026-Q4")
     names = ("annual_revenue", "late_payments_24m", "sector", LONG)
     rng = np.random.default_rng(7)
@@ -87,7 +71,7 @@ def constructed(outcomes: bool = True) -> ConstructedMonitoring:
                           "development_share": share, "share": share}
                          for p in periods for name in names
                          for label, share in (("≤ 10", 0.5), ("> 10", 0.48), ("missing", 0.02))])
-    return ConstructedMonitoring("ab" * 32, "training rows", periods, 5000, summary, features,
+    return Monitoring("ab" * 32, "training rows", periods, 5000, summary, features,
                                  bins, score_bins, new_levels,
                                  table if outcomes else None)
 
@@ -213,7 +197,7 @@ def test_page_draws_one_period_and_many(periods):
     summary = pd.concat([result.summary[result.summary["period"] == "2026-Q3"].assign(
         period=label) for label in labels])
     assert repeat
-    small = ConstructedMonitoring(result.model_checksum, result.baseline_source, labels,
+    small = Monitoring(result.model_checksum, result.baseline_source, labels,
                                   5000, summary, features, pd.DataFrame(), pd.DataFrame(),
                                   pd.DataFrame(), None)
     html = to_html(monitor_page.build_page(small))
@@ -415,7 +399,7 @@ def test_terminal_fits_with_points_long_labels_and_large_counts():
                                     score_flag="watch", score_rule="PSI ≥ 0.10 and χ² p < 0.01")
     outcomes = result.outcomes.assign(period=result.outcomes["period"].map(labels),
                                       rows=10_000_000)
-    wide = ConstructedMonitoring(result.model_checksum, "a_development_sample_path.csv",
+    wide = Monitoring(result.model_checksum, "a_development_sample_path.csv",
                                  tuple(labels.values()), 10_000_000, summary, features,
                                  result.bins, result.score_bins,
                                  result.new_levels.assign(period=labels["2026-Q4"]), outcomes)
