@@ -24,7 +24,9 @@ ROWS = 10_000_000
 CHUNK_ROWS = 500_000
 SAMPLE_ROWS = 100_000
 SEED = 20261203
-CONTENDERS = {"pandas": "pandas", "local": "ours, local", "dask": "ours, dask 2 workers"}
+CONTENDERS = {"pandas": "pandas", "local": "ours, local", "local-2": "ours, local --jobs 2",
+              "dask": "ours, dask 2 workers"}
+JOBS = {"local": 1, "local-2": 2, "dask": 2}
 
 # (name, log-scale median, log-scale spread, share missing): right-skewed money amounts
 AMOUNTS = (
@@ -143,13 +145,14 @@ def pandas_counts(data: Path) -> dict:
 
 
 def our_monitor(data: Path, model_path: Path, engine: str) -> dict:
-    """Our monitor at its default block size: the local engine, or dask with two workers."""
+    """Our monitor at its default block size: the local engine in one process or with two
+    worker processes, or dask with two workers."""
     import hashlib
 
     from glassbox import artifact, monitor
 
-    jobs = 2 if engine == "dask" else 1
-    result = monitor.monitor(artifact.load(model_path), [data], engine=engine, jobs=jobs)
+    result = monitor.monitor(artifact.load(model_path), [data],
+                             engine="dask" if engine == "dask" else "local", jobs=JOBS[engine])
     features = result.features
     rows = int(result.summary["rows"].sum())
     tables = "".join(table.to_csv(index=False) for table in (
@@ -161,21 +164,24 @@ def our_monitor(data: Path, model_path: Path, engine: str) -> dict:
             "tables_sha256": hashlib.sha256(tables.encode()).hexdigest()}
 
 
-def peak_bytes() -> int:
-    """Peak resident memory of this process since it started, and of any process it waited
-    for. Linux's VmHWM, not getrusage's ru_maxrss: a process started from a large one
-    inherits that one's peak in ru_maxrss (the memory at the fork counts), VmHWM does not."""
+def peak_bytes(workers: int = 0) -> int:
+    """Peak resident memory of this process since it started, plus `workers` times the
+    largest peak of the processes it waited for (an upper bound of their sum; with no
+    workers the larger of the two). Linux's VmHWM, not getrusage's ru_maxrss: a process
+    started from a large one inherits that one's peak in ru_maxrss (the memory at the fork
+    counts), VmHWM does not."""
     status = Path("/proc/self/status").read_text()
     own = next(int(line.split()[1]) for line in status.splitlines()
                if line.startswith("VmHWM:"))
     children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    return max(own, children) * 1024
+    return (own + workers * children if workers else max(own, children)) * 1024
 
 
 def child(kind: str, data: Path, model_path: Path | None) -> None:
     start = time.perf_counter()
     result = pandas_counts(data) if kind == "pandas" else our_monitor(data, model_path, kind)
-    result.update(seconds=time.perf_counter() - start, peak=peak_bytes())
+    result.update(seconds=time.perf_counter() - start,
+                  peak=peak_bytes(2 if kind == "local-2" else 0))
     print(json.dumps(result))
 
 
@@ -217,7 +223,9 @@ def monitor_rows(folder: Path, rows: int = ROWS) -> list[str]:
         "Each contender runs in a fresh process, one after the other in this run, timing itself "
         "from before reading to the result (start-up excluded) and reporting its own peak "
         "resident memory (with dask: the largest of the process and its workers). `ours, "
-        "local` is the local engine at its default block size (one process): every term "
+        "local` is the local engine at its default block size (one process; with `--jobs 2` "
+        "two worker processes count blocks while the main one reads, and its peak is the "
+        "main process's plus twice the largest worker's): every term "
         "scored, bin counts, missing and new levels, exact sums, PSI and its χ² check for the "
         "score and every feature; `ours, dask` the same counts on a two-worker dask cluster "
         "started for the run (start-up included). `pandas` reads the whole file (every "
@@ -249,12 +257,12 @@ def monitor_rows(folder: Path, rows: int = ROWS) -> list[str]:
             agree.append(f"{suffix[1:]}: " + ("yes" if all(
                 plain["missing"] == result["missing"] and plain["rows"] == result["rows"]
                 for result in ours) else "NO"))
-        if len(ours) == 2:
-            same.append(f"{suffix[1:]}: " + ("yes" if ours[0]["tables_sha256"]
-                                             == ours[1]["tables_sha256"] else "NO"))
+        if len(ours) > 1:
+            same.append(f"{suffix[1:]}: " + ("yes" if len({r["tables_sha256"] for r in ours})
+                                             == 1 else "NO"))
     lines += ["", "Same row count and missing count in every feature from pandas and ours: "
               + ("; ".join(agree) or "not compared") + ". Every table byte-identical from "
-              "the local and the dask engine: " + ("; ".join(same) or "not compared") + "."]
+              "every engine and job count: " + ("; ".join(same) or "not compared") + "."]
     psi = [f"{suffix[1:]} {results[suffix, 'local']['score_psi']:.5f}"
            for suffix in (".parquet", ".csv") if "failed" not in results[suffix, "local"]]
     if psi:

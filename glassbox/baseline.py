@@ -32,6 +32,22 @@ SOURCES = ("steps", "deciles", "levels")
 TRAINING_ROWS = "training rows"
 
 
+FEW_EDGES = 64  # up to this many edges, comparing with each beats a binary search
+
+
+def edges_below(edges: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """How many edges lie below each value: np.searchsorted(edges, values, side="left")
+    for values that are not NaN (a NaN gets 0 here, so callers mark rows with no value).
+    With few edges, one comparison per edge over the whole column: about five times
+    faster than numpy's binary search row by row."""
+    if len(edges) > FEW_EDGES:
+        return np.where(np.isnan(values), 0, np.searchsorted(edges, values, side="left"))
+    below = np.zeros(len(values), dtype=np.int8)  # FEW_EDGES fits
+    for edge in edges:
+        np.add(below, values > edge, out=below, casting="unsafe")
+    return below.astype(np.int64)
+
+
 def number_text(value: float) -> str:
     """A bin edge as labels show it: the shortest text that reads back as the same float."""
     text = repr(float(value))
@@ -111,8 +127,8 @@ class FeatureBins:
         else:
             column = np.asarray(column, dtype=float)
             absent = np.isnan(column)
-            place = np.searchsorted(np.asarray(self.edges, dtype=float), column, side="left")
-        return np.where(absent, last, place).astype(np.int64)
+            place = edges_below(np.asarray(self.edges, dtype=float), column)
+        return np.where(absent, last, place)
 
     def count(self, column: np.ndarray) -> np.ndarray:
         """Rows per bin (int64), in the order of `labels`."""
@@ -171,8 +187,7 @@ class ScoreBins:
         return counts / counts.sum() if counts.sum() else counts
 
     def count(self, score: np.ndarray) -> np.ndarray:
-        place = np.searchsorted(np.asarray(self.edges, dtype=float),
-                                np.asarray(score, dtype=float), side="left")
+        place = edges_below(np.asarray(self.edges, dtype=float), np.asarray(score, dtype=float))
         return np.bincount(place, minlength=len(self.counts))
 
     def to_dict(self) -> dict[str, Any]:

@@ -6,8 +6,9 @@ counted by `glassbox.monitor_counts.count_block` (rows per bin, exact sums of co
 and scores, per period) and the counts are summed. The engines only decide where blocks are
 counted:
 
-- "local": on this machine: block after block in this process, or with jobs > 1 counted
-           by that many worker processes while this one reads;
+- "local": on this machine: block after block in this process, or with jobs > 1 in that
+           many worker processes (each reads its own Parquet row groups; CSV blocks are
+           read here and sent);
 - "dask":  `dask.dataframe` partitions on a `dask.distributed` cluster (an existing one, by
            scheduler address, or one started for the run).
 
@@ -38,7 +39,9 @@ from glassbox.stream import (
     dask_read_error,
     open_source,
     read_blocks,
+    read_row_group,
     renumbered,
+    row_groups,
 )
 from glassbox.workers import become_worker, sigint_held, start_pool, stop_workers
 
@@ -151,9 +154,10 @@ def _header(path: Path) -> list[str]:
 
 def _count_local(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
                  scheduler: str | None, progress) -> dict[str, Counts]:
-    """Blocks read here and counted here (jobs=1), or counted by `jobs` worker processes
-    while this one reads on; results are taken in file order, so the first refused row
-    in the file is the one named, and at most 2 x jobs blocks are in flight."""
+    """Blocks read here and counted here (jobs=1), or counted by `jobs` worker processes:
+    a Parquet file's row groups each read by a worker, a CSV file's blocks read here and
+    sent. Results are taken in file order, so the first refused row in the file is the one
+    named; at most 2 x jobs pieces are in flight."""
     counted: dict[str, Counts] = {}
     if jobs == 1:
         for done, block in enumerate(read_blocks(source, chunk_rows), start=1):
@@ -164,10 +168,15 @@ def _count_local(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
     pool = start_pool(jobs, _start_counting, (plan,))
     window: deque = deque()
     done = 0
+    if source.parquet:  # each worker reads its own row groups: no block crosses processes
+        work = ((_count_row_group, source, index, first, chunk_rows)
+                for index, first in row_groups(source))
+    else:
+        work = ((_count_in_worker, block) for block in read_blocks(source, chunk_rows))
     try:
-        for block in read_blocks(source, chunk_rows):
+        for task, *arguments in work:
             with sigint_held():  # a submit may start a process
-                window.append(pool.submit(_count_in_worker, block))
+                window.append(pool.submit(task, *arguments))
             while len(window) >= 2 * jobs or (window and window[0].done()):
                 counted = add_counts(counted, _taken(window.popleft()))
                 done += 1
@@ -207,6 +216,17 @@ def _count_in_worker(block) -> dict[str, Counts] | _Failed:
         return _counted(block, _PLAN["plan"])
     except GlassboxError as exc:  # raised again in the main process, in file order
         return _Failed(exc)
+
+
+def _count_row_group(source: Source, index: int, first_row: int,
+                     chunk_rows: int) -> dict[str, Counts] | _Failed:
+    counted: dict[str, Counts] = {}
+    try:
+        for block in read_row_group(source, index, first_row, chunk_rows):
+            counted = add_counts(counted, _counted(block, _PLAN["plan"]))
+    except GlassboxError as exc:  # raised again in the main process, in file order
+        return _Failed(exc)
+    return counted
 
 
 def _taken(future) -> dict[str, Counts]:

@@ -142,6 +142,40 @@ def read_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
         raise read_error(source.path, exc) from None
 
 
+def row_groups(source: Source) -> list[tuple[int, int]]:
+    """A Parquet file's row groups as (index, first row): pieces a worker process can read
+    on its own (`read_row_group`)."""
+    import pyarrow.parquet as pq
+
+    try:
+        metadata = pq.ParquetFile(source.path).metadata
+    except (ValueError, OSError) as exc:
+        raise read_error(source.path, exc) from None
+    sizes = [metadata.row_group(i).num_rows for i in range(metadata.num_row_groups)]
+    starts = np.concatenate([[0], np.cumsum(sizes, dtype=np.int64)[:-1]]).tolist()
+    return [(i, int(start)) for i, start in enumerate(starts)]
+
+
+def read_row_group(source: Source, index: int, first_row: int,
+                   partition_rows: int) -> Iterator[pd.DataFrame]:
+    """One row group of a Parquet file in blocks of at most `partition_rows` rows, numbered
+    as `read_blocks` numbers them."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    offset = first_row
+    try:
+        batches = pq.ParquetFile(source.path, pre_buffer=False).iter_batches(
+            batch_size=partition_rows, row_groups=[index], columns=list(source.columns))
+        for batch in batches:
+            block = pa.Table.from_batches([batch]).to_pandas().reset_index(drop=True)
+            block["row"] = np.arange(offset, offset + len(block), dtype=np.int64)
+            offset += len(block)
+            yield block
+    except (ValueError, OSError) as exc:
+        raise read_error(source.path, exc) from None
+
+
 def _csv_blocks(source: Source, partition_rows: int) -> Iterator[pd.DataFrame]:
     """CSV blocks read with every column, so that a row longer than the header is refused
     wherever it is (pandas drops the extra fields without a word when columns are picked),

@@ -161,11 +161,19 @@ def test_periods_from_a_column_and_from_dates(model, files, tmp_path, frames, re
 
 def test_parquet_reads_the_same_numbers(model, files, frames, tmp_path, result):
     for frame, name in zip(frames, ("early", "late"), strict=True):
-        frame.to_parquet(tmp_path / f"{name}.parquet", index=False)
-    parquet = monitor(model, [tmp_path / "early.parquet", tmp_path / "late.parquet"],
-                      chunk_rows=333)
-    pd.testing.assert_frame_equal(parquet.features, result.features, check_exact=True)
-    pd.testing.assert_frame_equal(parquet.summary, result.summary, check_exact=True)
+        frame.to_parquet(tmp_path / f"{name}.parquet", index=False, row_group_size=500)
+    files = [tmp_path / "early.parquet", tmp_path / "late.parquet"]
+    parquet = monitor(model, files, chunk_rows=333)
+    workers = monitor(model, files, chunk_rows=333, jobs=2)  # row groups read by workers
+    for found in (parquet, workers):
+        pd.testing.assert_frame_equal(found.features, result.features, check_exact=True)
+        pd.testing.assert_frame_equal(found.summary, result.summary, check_exact=True)
+    late = frames[1].copy()
+    late["Income"] = [None if pd.isna(v) else repr(float(v)) for v in late["Income"]]
+    late.loc[[700, 1200], "Income"] = "unknown"  # in the second and third row groups
+    late.to_parquet(tmp_path / "bad.parquet", index=False, row_group_size=500)
+    _refused("should hold numbers but has text in data row 701", model,
+             [tmp_path / "bad.parquet"], chunk_rows=333, jobs=2)
 
 
 def test_a_block_is_counted_alone(model, frames):
@@ -251,7 +259,7 @@ def test_weighted_sums_equal_the_sums_of_the_rows():
 
 def test_few_edges_count_as_a_binary_search_does():
     # numpy's searchsorted (side="left") is the reference, on a real skewed money column
-    from glassbox.monitor_counts import FEW_EDGES, edges_below
+    from glassbox.baseline import FEW_EDGES, edges_below
 
     income = credit_rows_with_gaps()["Income"].dropna().to_numpy(dtype=float)
     for count in (1, 9, FEW_EDGES, FEW_EDGES + 1):
