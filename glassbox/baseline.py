@@ -3,13 +3,14 @@
 At fit time the training rows are summarised once, so that monitoring a later period needs
 only the model file: for each feature, how the rows fell into its bins (a steps term's own
 steps, a curve's deciles, a category's levels; rows with no value in a bin of their own),
-and each term's mean and mean absolute contribution; for the score, its deciles and the
-rows in each. Counts are whole numbers and means are exact (`glassbox.exact`), so a period
-identical to the training rows shows no change at all.
+and each term's mean, mean absolute contribution and spread (standard deviation); for the
+score, its deciles and the rows in each. Counts are whole numbers and means are exact
+(`glassbox.exact`), so a period identical to the training rows shows no change at all.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.errors import DataError, ModelFileError
-from glassbox.exact import ExactSum
+from glassbox.exact import ExactSum, exact_variance
 
 if TYPE_CHECKING:
     from glassbox.additive import AdditiveModel, Term
@@ -29,6 +30,7 @@ NEW_LEVEL_BIN = "new level"  # a category's bin for levels never seen in trainin
 DECILES = tuple(q / 10 for q in range(1, 10))
 MOST_STEPS = 20  # a steps term with more bins is grouped at its own edges next to the deciles
 SOURCES = ("steps", "deciles", "levels")
+SHORT_DIGITS = 4  # score decile labels: significant digits (the file keeps every digit)
 TRAINING_ROWS = "training rows"
 
 
@@ -66,11 +68,18 @@ def decile_edges(values: np.ndarray) -> tuple[float, ...]:
     return tuple(float(e) for e in edges[edges < values.max()])
 
 
-def edge_labels(edges: tuple[float, ...]) -> tuple[str, ...]:
-    """Labels of the bins between inner edges: `<= a`, `(a, b]`, ..., `> z`."""
+def edge_labels(edges: tuple[float, ...], short: bool = False) -> tuple[str, ...]:
+    """Labels of the bins between inner edges: `<= a`, `(a, b]`, ..., `> z`; `short`
+    rounds the edges to the fewest significant digits (at least SHORT_DIGITS) that keep
+    them apart (for scores, whose deciles are not values anyone typed)."""
     if not edges:
         return ("any value",)
     texts = [number_text(e) for e in edges]
+    for digits in range(SHORT_DIGITS, 18) if short else ():
+        rounded = [f"{e:.{digits}g}" for e in edges]
+        if len(set(rounded)) == len(rounded):
+            texts = rounded
+            break
     middle = [f"({low}, {high}]" for low, high in zip(texts, texts[1:], strict=False)]
     return (f"<= {texts[0]}", *middle, f"> {texts[-1]}")
 
@@ -90,6 +99,7 @@ class FeatureBins:
     counts: tuple[int, ...] = ()
     mean_contribution: float = 0.0
     mean_absolute_contribution: float = 0.0
+    contribution_spread: float = 0.0  # standard deviation over development rows
 
     def __post_init__(self) -> None:
         if self.source not in SOURCES:
@@ -152,7 +162,8 @@ class FeatureBins:
         else:
             data["edges"] = list(self.edges)
         data.update(counts=list(self.counts), mean_contribution=self.mean_contribution,
-                    mean_absolute_contribution=self.mean_absolute_contribution)
+                    mean_absolute_contribution=self.mean_absolute_contribution,
+                    contribution_spread=self.contribution_spread)
         return data
 
     @classmethod
@@ -161,7 +172,8 @@ class FeatureBins:
                    tuple(float(e) for e in data.get("edges", ())),
                    tuple(str(v) for v in data.get("levels", ())),
                    tuple(int(c) for c in data["counts"]), float(data["mean_contribution"]),
-                   float(data["mean_absolute_contribution"]))
+                   float(data["mean_absolute_contribution"]),
+                   float(data["contribution_spread"]))
 
 
 @dataclass(frozen=True)
@@ -179,7 +191,8 @@ class ScoreBins:
 
     @property
     def labels(self) -> tuple[str, ...]:
-        return edge_labels(self.edges)
+        """Rounded for reading (SHORT_DIGITS); the exact edges are in the model file."""
+        return edge_labels(self.edges, short=True)
 
     @property
     def shares(self) -> np.ndarray:
@@ -245,10 +258,13 @@ def feature_bins(term: Term, column: np.ndarray, contributions: np.ndarray) -> F
         layout = {"source": "deciles", "edges": decile_edges(column)}
     empty = FeatureBins(term.feature, counts=(0,) * (len(_labels_of(layout)) + 1), **layout)
     positive, negative = ExactSum.split(contributions)
+    total = ExactSum(positive.units - negative.units)
     rows = len(contributions)  # + 0.0 below: a mean of zero is never shown as -0
+    spread = math.sqrt(exact_variance(total, ExactSum.of(contributions * contributions), rows))
     return FeatureBins(term.feature, counts=tuple(int(c) for c in empty.count(column)),
-                       mean_contribution=ExactSum(positive.units - negative.units).mean(rows) + 0.0,
-                       mean_absolute_contribution=(positive + negative).mean(rows), **layout)
+                       mean_contribution=total.mean(rows) + 0.0,
+                       mean_absolute_contribution=(positive + negative).mean(rows),
+                       contribution_spread=spread, **layout)
 
 
 def _labels_of(layout: Mapping[str, Any]) -> tuple[str, ...]:

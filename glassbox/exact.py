@@ -106,6 +106,18 @@ def _units(values: np.ndarray) -> tuple[int, int]:
     return sums[0], sums[1]
 
 
+def exact_variance(total: ExactSum, squares: ExactSum, count: int, ddof: int = 0) -> float:
+    """The variance of `count` values from the exact sums of the values and of their
+    squares, in whole numbers until one final rounding (no cancellation however large the
+    mean); ddof=1 for the sample variance. NaN when count <= ddof. Callers square each
+    value in floats (one rounding each), so values that are all the same give a variance
+    within about 1e-16 of their mean square, not exactly 0."""
+    if count <= ddof:
+        return float("nan")
+    numerator = count * squares.units * (1 << SCALE) - total.units * total.units
+    return max(_divided(numerator, (1 << (2 * SCALE)) * count * (count - ddof)), 0.0)
+
+
 def exact_mean(values: Iterable[float] | np.ndarray) -> float:
     """The mean of finite floats with one rounding (NaN for none)."""
     values = np.asarray(values, dtype=float).ravel()

@@ -57,6 +57,7 @@ class Counts:
     new_levels: dict[str, dict[str, int]] = field(default_factory=dict)
     contribution: dict[str, ExactSum] = field(default_factory=dict)  # over scored rows
     absolute: dict[str, ExactSum] = field(default_factory=dict)  # |contribution|
+    squares: dict[str, ExactSum] = field(default_factory=dict)  # contribution squared
     points: dict[str, ExactSum] = field(default_factory=dict)  # with a card
     score_bins: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     score: ExactSum = field(default_factory=_zero)
@@ -87,6 +88,7 @@ class Counts:
             new_levels=levels(self.new_levels, other.new_levels),
             contribution=arrays(self.contribution, other.contribution),
             absolute=arrays(self.absolute, other.absolute),
+            squares=arrays(self.squares, other.squares),
             points=arrays(self.points, other.points),
             score_bins=(self.score_bins + other.score_bins if len(self.score_bins) and
                         len(other.score_bins) else
@@ -272,6 +274,7 @@ class _Keyed:
         if tally is None:
             counts.bins[name] = np.asarray(feature.count(column), dtype=np.int64)
             positive, negative = ExactSum.split(parts)
+            squares = ExactSum.of(parts * parts)
         else:
             per_key, weights = tally
             counts.bins[name] = np.bincount(self.bins, weights=per_key,
@@ -285,8 +288,10 @@ class _Keyed:
                 if found:
                     counts.new_levels[name] = dict(sorted(found.items()))
             positive, negative = weighted_sums(self.contributions, weights)
+            squares = weighted_sums(self.contributions * self.contributions, weights)[0]
         counts.contribution[name] = ExactSum(positive.units - negative.units)
         counts.absolute[name] = positive + negative
+        counts.squares[name] = squares
 
 
 def weighted_sums(values: np.ndarray, weights: np.ndarray) -> tuple[ExactSum, ExactSum]:

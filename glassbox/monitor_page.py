@@ -16,7 +16,9 @@ import pandas as pd
 
 from glassbox import monitor_plots as pictures
 from glassbox import monitor_view
+from glassbox.baseline import SHORT_DIGITS
 from glassbox.files import write_atomic
+from glassbox.monitor_tables import SPREAD_COLLAPSE, collapsed
 from glassbox.monitor_view import (
     count_text,
     fixed_text,
@@ -150,7 +152,9 @@ def _score_section(monitoring: Monitoring, periods: list[str]) -> Section:
                               "development": [share_text(v) for v in development[wide.index]]})
         for period in periods:
             table[period] = [share_text(v) for v in wide[period]]
-        blocks.append(Table(table, "Share of scored rows in each development score decile"))
+        blocks.append(Table(table, "Share of scored rows in each development score decile "
+                            f"(edges rounded to {SHORT_DIGITS} significant digits; the model "
+                            "file keeps them whole)"))
     return Section("Score stability", tuple(blocks))
 
 
@@ -252,16 +256,26 @@ def _attribution_section(monitoring: Monitoring, periods: list[str]) -> Section:
     how = ("How to read it: a feature's attribution share is its mean absolute contribution "
            "as a share of all features' together: how much of the model's reasoning it "
            f"carries. Grey-blue bars are development, orange bars the latest period ({latest}); "
-           "the largest movers are on top. A share that collapses while the feature's "
-           "population looks stable often names a broken data feed (a column filled with "
-           "one value carries no information).")
+           "the largest movers are on top. The spread table below is the standard "
+           "deviation of each feature's contributions: how much the feature separates one "
+           "row from another. A spread that collapses is the mark of a column filled with "
+           "one value (a broken feed): every row gets the same from it, whatever its "
+           f"share. Collapsed here: below {SPREAD_COLLAPSE:.0%} of development's spread.")
     table = _per_period(features, periods, points_text, "attribution_change")
     shares = features.drop_duplicates("feature").set_index("feature")[
         "development_attribution_share"]
     table.insert(1, "development share", [share_text(shares[name]) for name in table["feature"]])
+    spread = _per_period(features, periods, lambda v: f"{v:.3f}", "contribution_spread",
+                         development="development_contribution_spread")
+    gone = collapsed(features)
+    said = (Paragraph("Collapsed spreads: " + "; ".join(
+        f"{row.feature} in {row.period} ({row.contribution_spread:.3f} against "
+        f"{row.development_contribution_spread:.3f})" for row in gone.itertuples(index=False))
+        + ".") if not gone.empty else Paragraph("No feature's spread collapsed."))
     return _explained("Attribution drift", how, Picture(
         "attribution", figure, "Paired bars of attribution shares, development and latest"),
-        Table(table, "Change in attribution share (percentage points) by period"))
+        Table(table, "Change in attribution share (percentage points) by period"), said,
+        Table(spread, "Spread of contributions (standard deviation) by period"))
 
 
 def _explained(title: str, how: str, picture: Picture, *more: Block) -> Section:

@@ -14,7 +14,7 @@ from scipy import stats
 from glassbox.additive import AdditiveModel
 from glassbox.baseline import Baseline, FeatureBins
 from glassbox.cards import PointsCard
-from glassbox.exact import SCALE, ExactSum
+from glassbox.exact import exact_variance
 from glassbox.monitor_counts import Counts
 from glassbox.stability import (
     auc_interval,
@@ -99,7 +99,10 @@ def build_tables(counts: dict[str, Counts], periods: list[str], model: AdditiveM
                    "new_level_rows": int(sum(found.new_levels.get(name, {}).values())),
                    "mean_contribution": means[name],
                    "development_mean_contribution": feature.mean_contribution,
-                   "contribution_change": means[name] - feature.mean_contribution}
+                   "contribution_change": means[name] - feature.mean_contribution,
+                   "contribution_spread": math.sqrt(exact_variance(
+                       found.contribution[name], found.squares[name], scored)),
+                   "development_contribution_spread": feature.contribution_spread}
             if card is not None and name in found.points:
                 row["points_change"] = found.points[name].mean(scored) - dev_points[name]
             row.update(_attribution(absolute[name], all_abs, feature, dev_abs))
@@ -140,6 +143,18 @@ def build_tables(counts: dict[str, Counts], periods: list[str], model: AdditiveM
         score_bins=pd.DataFrame(score_bins),
         new_levels=pd.DataFrame(new_levels, columns=["period", "feature", "level", "rows"]),
         outcomes=pd.DataFrame(outcomes) if outcome else None)
+
+
+SPREAD_COLLAPSE = 0.25  # a spread below this share of development's is called a collapse
+# (common practice, no source: a prompt to look at the feed, not a test)
+
+
+def collapsed(features: pd.DataFrame) -> pd.DataFrame:
+    """The (period, feature) rows whose contributions barely vary any more: spread below
+    SPREAD_COLLAPSE of development's (a column filled with one value has spread 0)."""
+    development = features["development_contribution_spread"].astype(float)
+    spread = features["contribution_spread"].astype(float)
+    return features[(development > 0) & (spread < SPREAD_COLLAPSE * development)]
 
 
 def _attribution(mean_absolute: float, total: float, feature: FeatureBins,
@@ -186,15 +201,11 @@ def _outcome_row(period: str, found: Counts, model: AdditiveModel) -> dict:
     mean = found.observed.mean(n)
     low = high = math.nan
     if n > 1:  # Student t interval of the mean, from exact sums of y and y squared
-        variance = _variance(found.observed, found.observed_squares, n)
+        variance = exact_variance(found.observed, found.observed_squares, n, ddof=1)
         half = stats.t.ppf(0.5 + INTERVAL_LEVEL / 2, n - 1) * math.sqrt(variance / n)
         low, high = mean - half, mean + half
     return {"period": period, "rows": n, "observed_mean": mean, "observed_low": low,
             "observed_high": high, "predicted_mean": found.predicted.mean(n)}
 
 
-def _variance(total: ExactSum, squares: ExactSum, n: int) -> float:
-    """The sample variance from exact sums of y and y squared, in whole numbers until one
-    final rounding (no cancellation however large the mean)."""
-    numerator = n * squares.units * (1 << SCALE) - total.units * total.units
-    return max(numerator / ((1 << (2 * SCALE)) * n * (n - 1)), 0.0)
+

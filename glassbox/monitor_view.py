@@ -19,6 +19,7 @@ from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
 
+from glassbox.monitor_tables import collapsed
 from glassbox.stability import ACT_PSI, FLAG_ORDER, LEVEL, WATCH_PSI
 
 if TYPE_CHECKING:  # the engine's result; only its fields are read here
@@ -28,7 +29,7 @@ RULE_KEY = (f"Flagged by PSI: the trade's convention, watch from {WATCH_PSI:.2f}
             f"from {ACT_PSI:.2f} (Lewis 1994; Siddiqi). By χ²: the sample-size check, "
             f"p < {LEVEL:g} under no change.")
 CAUTION = ("Stability is not accuracy, and a flag is a prompt to investigate, not a verdict: "
-           "these are model what-ifs and population counts, not advice.")
+           "these are counts of rows and of the model's tables, not a judgment of anyone.")
 WIDTH = 80
 FIRST_WIDTH = 16  # a period or feature name this long stays on one line in the tables
 
@@ -216,6 +217,15 @@ def flagged_table(monitoring: Monitoring, period: str, width: int = WIDTH) -> Ta
                                   ("missing change", "right")], rows, width)
 
 
+def collapse_lines(monitoring: Monitoring) -> list[str]:
+    """One line per period and feature whose contributions barely vary any more."""
+    return [f"{row.period}: {row.feature} no longer separates rows: the spread of its "
+            f"contributions is {row.contribution_spread:.3f} against "
+            f"{row.development_contribution_spread:.3f} in development (nearly every row "
+            "gets the same from it; a broken feed?)."
+            for row in collapsed(monitoring.features).itertuples(index=False)]
+
+
 def new_level_lines(monitoring: Monitoring, limit: int = 5) -> list[str]:
     """Per period and feature, the new levels with their rows (most rows first); past
     `limit` levels the line says how many more there are."""
@@ -313,7 +323,7 @@ def monitoring_view(monitoring: Monitoring, width: int = WIDTH) -> RenderableTyp
             parts.append(table)
     if quiet:
         parts += [Text(f"No feature flagged in {', '.join(quiet)}."), Text("")]
-    lines = new_level_lines(monitoring)
+    lines = collapse_lines(monitoring) + new_level_lines(monitoring)
     if lines:
         parts += [Text(line) for line in lines] + [Text("")]
     outcomes = outcome_table(monitoring, width)

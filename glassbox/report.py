@@ -497,7 +497,7 @@ caption { caption-side: top; text-align: left; font-weight: bold; padding: 4px 0
 th { text-align: left; background: #eef2f6; border-bottom: 1px solid #9aaabb; }
 th, td { padding: 3px 10px 3px 6px; vertical-align: top; }
 td { border-bottom: 1px solid #e6e9ec; overflow-wrap: anywhere; }
-td.number { text-align: right; font-variant-numeric: tabular-nums; }
+td.number { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 table.pairs td:first-child { font-weight: bold; white-space: nowrap; }
 tr:nth-child(even) td { background: #f8f9fa; }
 figure { margin: 10px 0; }

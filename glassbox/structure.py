@@ -416,7 +416,7 @@ BASELINE = Record(required={
     "features": Items(Record(
         required={"feature": TEXT, "source": Text(("steps", "deciles", "levels")),
                   "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
-                  "mean_absolute_contribution": POSITIVE},
+                  "mean_absolute_contribution": POSITIVE, "contribution_spread": POSITIVE},
         optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))})
 MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,

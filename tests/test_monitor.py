@@ -21,6 +21,7 @@ from glassbox.encoding import label_text
 from glassbox.errors import DataError, OptionError
 from glassbox.monitor import monitor
 from glassbox.monitor_counts import Plan, count_block
+from glassbox.monitor_tables import collapsed
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 
@@ -70,6 +71,33 @@ def test_the_development_rows_show_no_change_at_all(result):
     assert summary["unscored_rows"] == 0 and summary["features_flagged"] == 0
     bins = result.bins[result.bins["period"] == "early"]
     assert (bins["share"] == bins["development_share"]).all()
+
+
+def test_a_feed_filled_with_one_value_collapses_the_spread(model, frames, tmp_path, result):
+    # reference: numpy's population standard deviation of model.contributions, and the
+    # development rows' own (credit_data's Seniority zeroed in the late half: a broken feed)
+    early, late = frames
+    late.assign(Seniority=0).to_csv(tmp_path / "zeroed.csv", index=False)
+    found = monitor(model, [tmp_path / "zeroed.csv"]).features.set_index("feature")
+    # every row's contribution is one value; each square is rounded once, so the spread is
+    # within the square root of the rounding error of the mean square (stated in exact.py)
+    assert found.at["Seniority", "contribution_spread"] < 1e-7
+    # Time collapses too, and rightly: the halves are split by Time, and the late half's
+    # loan terms all fall in the boosted term's last steps; untouched, Seniority does not
+    assert "Seniority" in list(collapsed(found.reset_index())["feature"])
+    untouched = collapsed(result.features[result.features["period"] == "late"])
+    assert "Seniority" not in list(untouched["feature"])
+    development = model.contributions(early).std(ddof=0)
+    before = result.features[result.features["period"] == "early"].set_index("feature")
+    late_spread = result.features[result.features["period"] == "late"].set_index("feature")
+    scored = late.dropna(subset=[t.feature for t in model.terms if t.missing is None])
+    for name in model.features:
+        assert before.at[name, "development_contribution_spread"] == pytest.approx(
+            development[name], rel=1e-9, abs=1e-12)
+        assert before.at[name, "contribution_spread"] == pytest.approx(
+            development[name], rel=1e-9, abs=1e-12)
+        assert late_spread.at[name, "contribution_spread"] == pytest.approx(
+            model.contributions(scored)[name].std(ddof=0), rel=1e-9, abs=1e-12)
 
 
 def test_the_characteristic_analysis_adds_up_to_the_score_change(result, model, frames):

@@ -44,7 +44,11 @@ def constructed(outcomes: bool = True) -> Monitoring:
                          "mean_contribution": change, "development_mean_contribution": 0.0,
                          "contribution_change": change, "attribution_share": 0.25 + change,
                          "development_attribution_share": 0.25,
-                         "attribution_change": change})
+                         "attribution_change": change,
+                         # a feed filled with one value in the last period (constructed)
+                         "contribution_spread": 0.0 if (period, name) == (periods[-1],
+                                                                           names[1]) else 0.5,
+                         "development_contribution_spread": 0.5})
     features = pd.DataFrame(rows)
     change = features.groupby("period", sort=False)["contribution_change"].sum()
     summary = pd.DataFrame({
@@ -106,6 +110,9 @@ def test_terminal_fits_80_columns_with_nothing_cut():
     assert "Rows the model cannot score" in text and "10 in 2026-Q3" in text
     assert "a flag is a prompt to investigate, not a verdict" in text
     assert "2026-Q3: KS: clipped to [0, 1]." in text
+    flat = " ".join(text.split())
+    assert ("2026-Q4: late_payments_24m no longer separates rows: the spread of its "
+            "contributions is 0.000 against 0.500") in flat
 
 
 def test_terminal_puts_the_worst_first_and_says_which_rule_flagged():
