@@ -18,7 +18,6 @@ engine gives identical numbers. The tables are built by `glassbox.monitor_tables
 
 from __future__ import annotations
 
-import math
 from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -35,15 +34,16 @@ from glassbox.monitor_tables import Monitoring, build_tables
 from glassbox.points import model_checksum
 from glassbox.stream import (
     Source,
-    dask_client,
+    dask_frame,
     dask_read_error,
+    dask_session,
     open_source,
     read_blocks,
     read_row_group,
     renumbered,
     row_groups,
 )
-from glassbox.workers import become_worker, sigint_held, start_pool, stop_workers
+from glassbox.workers import become_worker, pool_running, sigint_held
 
 ENGINES = ("local", "dask")
 CHUNK_ROWS = 200_000
@@ -165,33 +165,29 @@ def _count_local(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
             if progress:
                 progress(done, None)
         return counted
-    pool = start_pool(jobs, _start_counting, (plan,))
     window: deque = deque()
-    done = 0
+    taken = 0
     if source.parquet:  # each worker reads its own row groups: no block crosses processes
         work = ((_count_row_group, source, index, first, chunk_rows)
                 for index, first in row_groups(source))
     else:
         work = ((_count_in_worker, block) for block in read_blocks(source, chunk_rows))
-    try:
+
+    def take() -> None:
+        nonlocal counted, taken
+        counted = add_counts(counted, _taken(window.popleft()))
+        taken += 1
+        if progress:
+            progress(taken, None)
+
+    with pool_running(jobs, _start_counting, (plan,)) as pool:
         for task, *arguments in work:
             with sigint_held():  # a submit may start a process
                 window.append(pool.submit(task, *arguments))
             while len(window) >= 2 * jobs or (window and window[0].done()):
-                counted = add_counts(counted, _taken(window.popleft()))
-                done += 1
-                if progress:
-                    progress(done, None)
+                take()
         while window:
-            counted = add_counts(counted, _taken(window.popleft()))
-            done += 1
-            if progress:
-                progress(done, None)
-    except BaseException:  # an interruption or an error: the other blocks are not needed
-        stop_workers(pool)
-        raise
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+            take()
     return counted
 
 
@@ -255,46 +251,26 @@ def _count_partition(partition, plan: Plan):
 
 def _count_dask(source: Source, plan: Plan, *, chunk_rows: int, jobs: int,
                 scheduler: str | None, progress) -> dict[str, Counts]:
-    import dask
-    import dask.dataframe as dd
-    import distributed  # noqa: F401  its defaults must be in the config before the block
     from dask import delayed
 
-    # leaving the block restores the config as it was on entry: were distributed first
-    # imported inside it, its defaults would go too, and the next file's cluster fail
-    with dask.config.set({"dataframe.convert-string": False,
-                          "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
-        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
+    with dask_session(scheduler, jobs, CONNECT_SECONDS) as client:
+        pieces = dask_frame(source, chunk_rows).to_delayed()
+        counting = delayed(_count_partition)
         try:
-            if source.parquet:
-                frame = dd.read_parquet(source.path, columns=list(source.columns),
-                                        split_row_groups=True)
-            else:
-                blocksize = max(int(math.ceil(source.bytes_per_row * chunk_rows)), 1024)
-                frame = dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
-                                    **source.csv_options())
-            pieces = frame.to_delayed()
-            counting = delayed(_count_partition)
-            try:
-                results = client.compute([counting(piece, plan) for piece in pieces],
+            results = client.compute([counting(piece, plan) for piece in pieces], sync=True)
+        except GlassboxError:
+            raise
+        except (ValueError, TypeError, OSError) as exc:
+            raise dask_read_error(source.path, exc) from None
+        counted: dict[str, Counts] = {}
+        for index, found in enumerate(results):
+            if isinstance(found, _Failed):  # the rows it names, counted in the file
+                lengths = client.compute([delayed(len)(p) for p in pieces[:index + 1]],
                                          sync=True)
-            except GlassboxError:
-                raise
-            except (ValueError, TypeError, OSError) as exc:
-                raise dask_read_error(source.path, exc) from None
-            counted: dict[str, Counts] = {}
-            for index, found in enumerate(results):
-                if isinstance(found, _Failed):  # the rows it names, counted in the file
-                    lengths = client.compute([delayed(len)(p) for p in pieces[:index + 1]],
-                                             sync=True)
-                    start = int(sum(lengths[:-1]))
-                    numbers = np.arange(start, start + int(lengths[-1]), dtype=np.int64)
-                    raise renumbered(found.error, numbers) from None
-                counted = add_counts(counted, found)
-                if progress:
-                    progress(index + 1, len(results))
-            return counted
-        finally:
-            client.close()
-            if cluster is not None:
-                cluster.close()
+                start = int(sum(lengths[:-1]))
+                numbers = np.arange(start, start + int(lengths[-1]), dtype=np.int64)
+                raise renumbered(found.error, numbers) from None
+            counted = add_counts(counted, found)
+            if progress:
+                progress(index + 1, len(results))
+        return counted

@@ -5,6 +5,8 @@ the whole file in memory."""
 
 from __future__ import annotations
 
+import contextlib
+import math
 import re
 import warnings
 from collections.abc import Iterator
@@ -224,7 +226,38 @@ def renumbered(exc: GlassboxError, numbers: np.ndarray) -> GlassboxError:
     return type(exc)(_ROW_NUMBERS.sub(shift, str(exc)))
 
 
-def dask_client(scheduler: str | None, jobs: int, connect_seconds: float):
+@contextlib.contextmanager
+def dask_session(scheduler: str | None, jobs: int, connect_seconds: float) -> Iterator[Any]:
+    """A dask client for one run, closed (with the cluster it started) at the end; inside,
+    plain pandas text columns as the local engine reads them."""
+    import dask
+    import distributed  # noqa: F401  its defaults must be in the config before the block
+
+    # leaving the block restores the config as it was on entry: were distributed first
+    # imported inside it, its defaults would go too, and a second cluster fail
+    with dask.config.set({"dataframe.convert-string": False,
+                          "distributed.comm.timeouts.connect": f"{connect_seconds}s"}):
+        client, cluster = _dask_client(scheduler, jobs, connect_seconds)
+        try:
+            yield client
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+
+def dask_frame(source: Source, partition_rows: int) -> Any:
+    """The file as a dask dataframe of about `partition_rows` rows per partition."""
+    import dask.dataframe as dd
+
+    if source.parquet:
+        return dd.read_parquet(source.path, columns=list(source.columns), split_row_groups=True)
+    blocksize = max(int(math.ceil(source.bytes_per_row * partition_rows)), 1024)
+    return dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
+                       **source.csv_options())
+
+
+def _dask_client(scheduler: str | None, jobs: int, connect_seconds: float):
     """A client of the given dask scheduler, or of a cluster on this machine started for
     the run (`jobs` single-threaded worker processes; its small web server on a free local
     port). Returns (client, cluster), cluster None for an existing scheduler."""

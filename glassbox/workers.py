@@ -27,6 +27,21 @@ def start_pool(jobs: int, initializer: Callable[..., None],
                                    initializer=initializer, initargs=(os.getpid(), *initargs))
 
 
+@contextlib.contextmanager
+def pool_running(jobs: int, initializer: Callable[..., None],
+                 initargs: tuple) -> Iterator[ProcessPoolExecutor]:
+    """`start_pool` for the length of a block: on an interruption or an error its processes
+    are ended at once (no more work is needed), and it is always shut down."""
+    pool = start_pool(jobs, initializer, initargs)
+    try:
+        yield pool
+    except BaseException:
+        stop_workers(pool)
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
 def become_worker(parent: int) -> None:
     """In a pool process: leave SIGINT to the parent, and end when the parent dies."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -20,7 +20,6 @@ and end when the main process dies.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, CancelledError, Future, wait
 from dataclasses import dataclass, field
@@ -33,7 +32,7 @@ from glassbox import artifact
 from glassbox.additive import AdditiveModel
 from glassbox.errors import DataError, GlassboxError, OptionError
 from glassbox.provenance import file_sha256
-from glassbox.workers import become_worker, sigint_held, start_pool, stop_workers
+from glassbox.workers import become_worker, pool_running, sigint_held
 from recourse.batch import (
     OUTCOME_COLUMNS,
     outcome_frame,
@@ -47,8 +46,9 @@ from recourse.mutability import Mutability
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.source import (
     Source,
-    dask_client,
+    dask_frame,
     dask_read_error,
+    dask_session,
     open_source,
     read_blocks,
     renumbered,
@@ -326,10 +326,9 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
     missing: set[int] = set()
     pending: dict[Future, tuple[int, int, int]] = {}  # index, first row, rows
     broken = False
-    pool = start_pool(jobs, _start_worker,
+    with pool_running(jobs, _start_worker,
                       (artifact.dumps(task.model), task.mutability, task.n_plans, task.solver,
-                       task.keep, task.source))
-    try:
+                       task.keep, task.source)) as pool:
         exhausted = False
         while pending or not exhausted:
             while not exhausted and not broken and len(pending) < 2 * jobs:
@@ -369,11 +368,6 @@ def _run_local(source: Source, task: _Task, results: _Results, report, *, jobs: 
                 finished += 1
                 if report:
                     report(finished, None)
-    except BaseException:  # an interruption or an error: the other partitions are not needed
-        stop_workers(pool)
-        raise
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
     return count, missing
 
 
@@ -391,70 +385,54 @@ def _number_rows(block: pd.DataFrame, offsets: Sequence[int],
 
 def _run_dask(source: Source, task: _Task, results: _Results, report, *, jobs: int,
               scheduler: str | None, partition_rows: int) -> tuple[int, set[int]]:
-    import dask
-    import dask.dataframe as dd
     from distributed import as_completed
 
-    # plain pandas text columns, as the local engine reads them
-    with dask.config.set({"dataframe.convert-string": False,
-                          "distributed.comm.timeouts.connect": f"{CONNECT_SECONDS}s"}):
-        client, cluster = dask_client(scheduler, jobs, CONNECT_SECONDS)
+    with dask_session(scheduler, jobs, CONNECT_SECONDS) as client:
+        frame = dask_frame(source, partition_rows)
         try:
-            if source.parquet:
-                frame = dd.read_parquet(source.path, columns=list(source.columns),
-                                        split_row_groups=True)
-            else:
-                blocksize = max(int(math.ceil(source.bytes_per_row * partition_rows)), 1024)
-                frame = dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
-                                    **source.csv_options())
+            lengths = client.compute(frame.map_partitions(len)).result()
+        except GlassboxError:
+            raise
+        except (ValueError, TypeError, OSError) as exc:
+            raise dask_read_error(source.path, exc) from None
+        counts = np.asarray(lengths, dtype=np.int64).tolist()
+        ends = np.cumsum(np.asarray(counts, dtype=np.int64))
+        offsets = [0, *ends[:-1].tolist()]
+        numbered = frame.map_partitions(_number_rows, offsets,
+                                        meta=source.template.iloc[:0])
+        meta = _typed_template(source, task)
+        planned = numbered.map_partitions(
+            plan_partition, task.model, task.mutability, n_plans=task.n_plans,
+            solver=task.solver, keep=task.keep, source=task.source, meta=meta,
+            enforce_metadata=False)
+        pieces = planned.to_delayed()
+        todo = [i for i in range(len(pieces))
+                if not results.done(i, offsets[i], counts[i])]
+        futures = client.compute([pieces[i] for i in todo])
+        index_of = {future.key: i for future, i in zip(futures, todo, strict=True)}
+        missing: set[int] = set()
+        finished = 0
+        if report:
+            report(0, len(todo))
+        for future in as_completed(futures):
+            index = index_of[future.key]
             try:
-                lengths = client.compute(frame.map_partitions(len)).result()
+                table = future.result()
             except GlassboxError:
+                client.cancel(futures)
                 raise
-            except (ValueError, TypeError, OSError) as exc:
-                raise dask_read_error(source.path, exc) from None
-            counts = np.asarray(lengths, dtype=np.int64).tolist()
-            ends = np.cumsum(np.asarray(counts, dtype=np.int64))
-            offsets = [0, *ends[:-1].tolist()]
-            numbered = frame.map_partitions(_number_rows, offsets,
-                                            meta=source.template.iloc[:0])
-            meta = _typed_template(source, task)
-            planned = numbered.map_partitions(
-                plan_partition, task.model, task.mutability, n_plans=task.n_plans,
-                solver=task.solver, keep=task.keep, source=task.source, meta=meta,
-                enforce_metadata=False)
-            pieces = planned.to_delayed()
-            todo = [i for i in range(len(pieces))
-                    if not results.done(i, offsets[i], counts[i])]
-            futures = client.compute([pieces[i] for i in todo])
-            index_of = {future.key: i for future, i in zip(futures, todo, strict=True)}
-            missing: set[int] = set()
-            finished = 0
-            if report:
-                report(0, len(todo))
-            for future in as_completed(futures):
-                index = index_of[future.key]
-                try:
-                    table = future.result()
-                except GlassboxError:
+            except Exception as exc:  # a lost worker or connection, or a bug
+                if not _lost(exc):
                     client.cancel(futures)
                     raise
-                except Exception as exc:  # a lost worker or connection, or a bug
-                    if not _lost(exc):
-                        client.cancel(futures)
-                        raise
-                    missing.add(index)
-                    continue
-                results.record(index, table, offsets[index], counts[index])
-                future.release()  # the worker may drop its copy now
-                finished += 1
-                if report:
-                    report(finished, len(todo))
-            return len(pieces), missing
-        finally:
-            client.close()
-            if cluster is not None:
-                cluster.close()
+                missing.add(index)
+                continue
+            results.record(index, table, offsets[index], counts[index])
+            future.release()  # the worker may drop its copy now
+            finished += 1
+            if report:
+                report(finished, len(todo))
+        return len(pieces), missing
 
 
 def _lost(exc: BaseException) -> bool:

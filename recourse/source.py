@@ -8,16 +8,17 @@ from pathlib import Path
 from glassbox.additive import AdditiveModel
 from glassbox.stream import (
     Source,
-    dask_client,
+    dask_frame,
     dask_read_error,
+    dask_session,
     read_blocks,
     read_error,
     renumbered,
 )
 from glassbox.stream import open_source as _open
 
-__all__ = ["Source", "dask_client", "dask_read_error", "open_source", "read_blocks",
-           "read_error", "renumbered"]
+__all__ = ["Source", "dask_frame", "dask_read_error", "dask_session", "open_source",
+           "read_blocks", "read_error", "renumbered"]
 
 
 def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Source:
