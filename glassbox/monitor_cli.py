@@ -59,20 +59,23 @@ def monitor_command(
     format: Annotated[MonitorFormat, typer.Option(
         "--format", help="table (terminal), json (every table) or csv (the features with "
                          "their period's summary).")] = MonitorFormat.table,
-    out: Annotated[Path | None, typer.Option(help="Write json or csv here.")] = None,
+    out: Annotated[Path | None, typer.Option(metavar="FILE",
+                                             help="Write json or csv here.")] = None,
     page: Annotated[Path | None, typer.Option(
         metavar="FILE.html", help="Also write a self-contained HTML page with pictures.")
     ] = None,
     engine: Annotated[MonitorEngine, typer.Option(
-        help="local: read the blocks here; dask: count them on a dask.distributed cluster "
-             "(the same numbers).")] = LOCAL,
-    jobs: Annotated[int, typer.Option(help="Workers counting at once.", min=1,
-                                      max=MAX_JOBS)] = 1,
+        help="local: this machine (with --jobs, in worker processes); dask: a "
+             "dask.distributed cluster. Every engine gives the same numbers.")] = LOCAL,
+    jobs: Annotated[int, typer.Option(metavar="N", help="Processes counting at once.",
+                                      min=1, max=MAX_JOBS)] = 1,
     scheduler: Annotated[str | None, typer.Option(
+        metavar="ADDRESS",
         help="dask: the address of an existing scheduler (else one starts for the run).")
     ] = None,
     chunk_rows: Annotated[int, typer.Option(
-        help="Rows read at a time (memory stays about constant).", min=1)] = 200_000,
+        metavar="N", help="Rows read at a time (memory stays about constant).", min=1)
+    ] = 200_000,
     force: Force = False,
 ) -> None:
     """Compare periods of new rows with the model's development sample: score and
