@@ -89,12 +89,13 @@ def monitor_command(
     check_output(out, written, inputs, force=force)
     check_output(page, "html", [*inputs, out], force=force, option="--page")
     from glassbox import monitor_files, monitor_page, monitor_view, points
-    from glassbox.baseline import baseline_from_file
+    from glassbox.baseline import baseline_from_file, model_baseline
     from glassbox.monitor import monitor
 
     model = artifact.load(model_file)
     card = None if card_file is None else points.load(card_file)
-    development = None if baseline is None else baseline_from_file(model, baseline)
+    development = (model_baseline(model, f"model file {model_file}") if baseline is None
+                   else baseline_from_file(model, baseline))
     with block_progress(chunk_rows) as progress:
         result = monitor(model, list(data), period=period,
                          every=None if every is None else every.value, baseline=development,

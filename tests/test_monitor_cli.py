@@ -432,3 +432,20 @@ def test_dask_engine_writes_the_same_bytes_in_a_fresh_process(credit_run):
         assert done.returncode == 0, done.stderr
         made[engine] = (out.read_bytes(), page.read_bytes())
     assert made["dask"] == made["local"]
+
+
+def test_an_older_model_file_asks_for_the_development_sample(tmp_path):
+    # a model file of format version 1 (tests/data/v1, credit_data) carries no baseline
+    from pathlib import Path
+
+    from .conftest import one_line_error
+
+    v1 = Path(__file__).parent / "data" / "v1"
+    refused = run("monitor", v1 / "credit-spline-v1.json", v1 / "credit-rows.csv")
+    one_line_error(refused, "credit-spline-v1.json has no development baseline",
+                   "--baseline DATA")
+    given = run("monitor", v1 / "credit-spline-v1.json", v1 / "credit-rows.csv",
+                "--baseline", v1 / "credit-rows.csv", "--format", "json")
+    assert given.exit_code == 0, given.output
+    document = json.loads(given.stdout)
+    assert document["summary"][0]["score_psi"] == 0.0  # the same rows as development: no change
