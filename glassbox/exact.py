@@ -106,6 +106,23 @@ def _units(values: np.ndarray) -> tuple[int, int]:
     return sums[0], sums[1]
 
 
+def weighted_sums(values: np.ndarray, weights: np.ndarray) -> tuple[ExactSum, ExactSum]:
+    """`ExactSum.split` of each value repeated its weight's number of times, without the
+    rows: every finite double is a whole number (its 53-bit mantissa) times a power of two,
+    so the exact total is whole-number arithmetic."""
+    fractions, exponents = np.frexp(np.asarray(values, dtype=float))
+    mantissas = np.ldexp(fractions, 53).astype(np.int64)  # exact: 53 bits
+    positive = negative = 0
+    for index in np.flatnonzero(weights):
+        units = (int(mantissas[index]) * int(weights[index])) << int(
+            exponents[index] - 53 + SCALE)
+        if units > 0:
+            positive += units
+        else:
+            negative -= units
+    return ExactSum(positive), ExactSum(negative)
+
+
 def exact_variance(total: ExactSum, squares: ExactSum, count: int, ddof: int = 0) -> float:
     """The variance of `count` values from the exact sums of the values and of their
     squares, in whole numbers until one final rounding (no cancellation however large the

@@ -19,7 +19,7 @@ from glassbox.baseline import Baseline, FeatureBins, edges_below
 from glassbox.cards import PointsCard
 from glassbox.encoding import _missing_mask, label_text, prepare, rows_text
 from glassbox.errors import DataError, GlassboxError, UnseenLevelWarning, value_text
-from glassbox.exact import SCALE, ExactSum
+from glassbox.exact import ExactSum, weighted_sums
 
 EVERY = ("month", "quarter", "year")
 
@@ -292,23 +292,6 @@ class _Keyed:
         counts.contribution[name] = ExactSum(positive.units - negative.units)
         counts.absolute[name] = positive + negative
         counts.squares[name] = squares
-
-
-def weighted_sums(values: np.ndarray, weights: np.ndarray) -> tuple[ExactSum, ExactSum]:
-    """`ExactSum.split` of each value repeated its weight's number of times, without the
-    rows: every finite double is a whole number (its 53-bit mantissa) times a power of two,
-    so the exact total is whole-number arithmetic."""
-    fractions, exponents = np.frexp(np.asarray(values, dtype=float))
-    mantissas = np.ldexp(fractions, 53).astype(np.int64)  # exact: 53 bits
-    positive = negative = 0
-    for index in np.flatnonzero(weights):
-        units = (int(mantissas[index]) * int(weights[index])) << int(
-            exponents[index] - 53 + SCALE)
-        if units > 0:
-            positive += units
-        else:
-            negative -= units
-    return ExactSum(positive), ExactSum(negative)
 
 
 def _typed(block: pd.DataFrame, plan: Plan
