@@ -6,7 +6,7 @@ STAMP  := $(VENV)/.installed
 OUT    := demo_out
 GB     := $(BIN)/glassbox
 
-.PHONY: install demo test lint bench clean browser
+.PHONY: install demo test lint bench clean browser engines
 
 install: $(STAMP)
 
@@ -69,7 +69,7 @@ demo: $(STAMP)
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
 	@echo "== done: models, tables, pictures, plans, the audit, the scorecard, the report and the monitoring page are in $(OUT)/"
 
-test: $(STAMP) browser
+test: $(STAMP) browser engines
 	$(BIN)/ruff check .
 	$(BIN)/python -m pytest -q
 
@@ -81,6 +81,18 @@ browser:
 	  || (apt-get update -q >/dev/null 2>&1 \
 	  && DEBIAN_FRONTEND=noninteractive apt-get install -y -q chromium >/dev/null 2>&1))) \
 	  || echo "chromium not installed: the report's browser test will be skipped"
+
+# a PostgreSQL server and a Java runtime for the export tests (the SQL run in PostgreSQL,
+# the PMML scored by an independent Java scorer), installed only where they can be
+# (Debian, as root); never fails: those tests skip themselves, saying why, without them
+engines:
+	@for need in "pg_ctl postgresql" "java default-jre-headless"; do set -- $$need; \
+	  command -v $$1 >/dev/null || ls /usr/lib/postgresql/*/bin/$$1 >/dev/null 2>&1 \
+	  || (command -v apt-get >/dev/null && [ "$$(id -u)" = 0 ] \
+	  && (DEBIAN_FRONTEND=noninteractive apt-get install -y -q $$2 >/dev/null 2>&1 \
+	  || (apt-get update -q >/dev/null 2>&1 \
+	  && DEBIAN_FRONTEND=noninteractive apt-get install -y -q $$2 >/dev/null 2>&1))) \
+	  || echo "$$2 not installed: the export tests that need it will be skipped"; done
 
 lint: $(STAMP)
 	$(BIN)/ruff check .
