@@ -167,6 +167,8 @@ KIND_WORDS = {
     "markdown": "a Markdown file",
     "html": "an HTML page",
     "png": "a PNG picture",
+    "sql": "an SQL export of a model",
+    "pmml": "a PMML file",
     "parquet": "a Parquet file",
     "schema": "a schema (TOML)",
     "mutability": "a mutability file (TOML)",
@@ -178,6 +180,7 @@ KIND_WORDS = {
 SUFFIX_KINDS = {".csv": "csv", ".tsv": "csv", ".md": "markdown", ".markdown": "markdown",
                 ".html": "html", ".htm": "html", ".parquet": "parquet", ".pq": "parquet",
                 ".png": "png", ".json": "json", ".toml": "toml"}
+SQL_MARK = "-- glassbox "  # the first line of every SQL export starts so (its kind on disk)
 # the CSV tables glassbox writes, told by columns in their header (the first match wins);
 # any other CSV is data, which a table is never written over without --force
 CSV_HEADERS = (
@@ -223,6 +226,10 @@ def file_kind(path: str | Path) -> str | None:
             return kind
     if start[:15].lower().startswith(("<!doctype html", "<html")):
         return "html"
+    if start.startswith(SQL_MARK):
+        return "sql"
+    if start.startswith(("<?xml", "<PMML")) and "<PMML" in start[:4096]:
+        return "pmml"
     if suffix == ".toml":
         return _toml_kind(path) or "toml"
     kind = SUFFIX_KINDS.get(suffix) or _toml_kind(path) or _text_kind(start)
