@@ -591,4 +591,5 @@ def main() -> None:
     sys.exit(run_guarded(app))
 
 
+from glassbox import changes_cli as _changes_cli  # noqa: E402,F401  registers `glassbox changes`
 from glassbox import monitor_cli as _monitor_cli  # noqa: E402,F401  registers `glassbox monitor`
