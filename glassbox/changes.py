@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.additive import AdditiveModel, LevelsTerm, Term
+from glassbox.columns import OTHER_LEVEL
 from glassbox.encoding import pool_levels
 from glassbox.errors import ModelFileError
 from glassbox.shapes import term_importance
@@ -332,10 +333,12 @@ def level_values(old: AdditiveModel, new: AdditiveModel, before: LevelsTerm,
                  after: LevelsTerm) -> tuple[list[str], list[float], list[float]]:
     """Every level either version knows (its term's levels and its schema's pooled
     levels), each valued as that version scores it (a pooled level as its pool, a level
-    it never saw with its unseen-level value), then UNSEEN: a level neither saw."""
+    it never saw with its unseen-level value), then UNSEEN: a level neither saw. The
+    pool's own label is no level of the data: its pooled levels stand for it."""
     pooled = [old.schema.feature(before.feature).pooled,
               new.schema.feature(after.feature).pooled]
-    levels = list(dict.fromkeys([*before.levels, *after.levels, *pooled[0], *pooled[1]]))
+    levels = [level for level in dict.fromkeys(
+        [*before.levels, *after.levels, *pooled[0], *pooled[1]]) if level != OTHER_LEVEL]
     valued = []
     for term, pool in zip((before, after), pooled, strict=True):
         scored = pool_levels(pd.Series(levels, dtype=object), pool).to_numpy(dtype=object)

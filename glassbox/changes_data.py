@@ -160,8 +160,8 @@ def score_rows(model: AdditiveModel, frame: pd.DataFrame, where: str,
         column = encoded[term.feature].to_numpy()
         absent = pd.isna(column).astype(bool)
         if absent.any() and (term.missing is None or term.feature in refused):
-            reason = ("the schema refuses a missing value" if term.feature in refused
-                      else "the term has no entry for a missing value")
+            reason = ("its schema refuses a missing value" if term.feature in refused
+                      else "its term has no entry for a missing value")
             unscored.append(Unscored(version, term.feature, int(absent.sum()),
                                      rows_text(absent), reason))
             blocked |= absent

@@ -158,7 +158,8 @@ def _data_blocks(changes: Changes) -> list[Block]:
     both = f"{count_text(data.scored)} of {count_text(data.rows)}"
 
     def counted(count: int) -> str:
-        return f"{count_text(count)} ({share_text(data.share(count))})"
+        share = data.share(count)
+        return count_text(count) if share is None else f"{count_text(count)} ({share_text(share)})"
 
     blocks = [Block(
         f"Decisions at the cut-off ({cut}) on {data.source}",
@@ -182,8 +183,8 @@ def _data_blocks(changes: Changes) -> list[Block]:
         blocks.append(Block(
             "Rows a version cannot score (left out of the figures above)",
             (("version", "left"), ("feature", "left"), ("rows", "right"),
-             ("which", "left"), ("why", "left")),
-            tuple((u.version, u.feature, count_text(u.rows), u.which, u.reason)
+             ("reason", "left")),
+            tuple((u.version, u.feature, count_text(u.rows), f"{u.which}: {u.reason}")
                   for u in data.unscored),
             (f"{changes.old_name} cannot score {plural(data.unscored_old, 'row')}, "
              f"{changes.new_name} {plural(data.unscored_new, 'row')}.",)))
