@@ -50,7 +50,7 @@ def changes_command(
     old_file: Annotated[Path, typer.Argument(metavar="OLD", help="The model file in use.")],
     new_file: Annotated[Path, typer.Argument(metavar="NEW", help="The model file proposed.")],
     data: Annotated[Path | None, typer.Argument(
-        metavar="[DATA]", help="CSV or Parquet rows to score with both (their columns).")
+        metavar="DATA", help="CSV or Parquet rows to score with both (their columns).")
     ] = None,
     cutoff: Annotated[float | None, typer.Option(
         metavar="VALUE", help="With DATA, the decision's cut-off: a probability for "
@@ -63,9 +63,7 @@ def changes_command(
                                              help="Write json or markdown here.")] = None,
     force: Force = False,
 ) -> None:
-    """A change review of two versions of a model: terms added and removed, each common
-    term's largest change and where, importance, schema and settings changes; with DATA,
-    the decisions that flip at the cut-off and the score shift.
+    """A change review of two versions of a model: terms, schema, importance, decisions.
 
     Example: glassbox changes OLD.json NEW.json DATA.csv --out changes.md
     """

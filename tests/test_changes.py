@@ -267,3 +267,17 @@ def test_kind_change_is_reported_not_compared():
     new = model(StepTerm("x", (1.0,), (0.0, 1.0)), "number")
     change = term_change(old, new, "x")
     assert change.largest is None and "cannot be compared" in change.note
+
+
+def test_regression_versions_decide_at_a_value(boosted_pair, credit):
+    # constructed: both versions' tables read as regressions (identity link); the cut-off
+    # is then a predicted value, required, and lower is better in this schema
+    old, new = (replace(model, link="identity") for model in boosted_pair)
+    with pytest.raises(OptionError, match="needs --cutoff"):
+        model_changes(old, new, credit)
+    review = model_changes(old, new, credit, cutoff=-1.0)
+    before = score_table(old, credit)["prediction"].to_numpy() > -1.0
+    after = score_table(new, credit)["prediction"].to_numpy() > -1.0
+    assert review.scale == "the predicted value's units"
+    assert review.data.to_unfavourable == int((~before & after).sum())
+    assert review.data.to_favourable == int((before & ~after).sum())
