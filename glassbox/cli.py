@@ -591,5 +591,6 @@ def main() -> None:
     sys.exit(run_guarded(app))
 
 
+from glassbox import changes_cli as _changes_cli  # noqa: E402,F401  registers `glassbox changes`
 from glassbox import export_cli as _export_cli  # noqa: E402,F401  registers `glassbox export`
 from glassbox import monitor_cli as _monitor_cli  # noqa: E402,F401  registers `glassbox monitor`

@@ -156,6 +156,7 @@ KIND_WORDS = {
     "glassbox-comparison": "a comparison (JSON)",
     "recourse-audit": "a recourse audit (JSON)",
     "glassbox-monitoring": "a monitoring result (JSON)",
+    "glassbox-changes": "a change review of two models (JSON)",
     "json": "a JSON file",
     "csv": "a CSV file of data (not a table glassbox writes)",
     "csv-scores": "a CSV of scores",
