@@ -82,11 +82,27 @@ def _rank(old: int | None, new: int | None) -> str:
     return f"{'–' if old is None else old} → {'–' if new is None else new}"
 
 
+FINGERPRINT_SHOWN = len("sha256:") + 16  # hex digits of a fingerprint a table shows
+
+
+def short_text(value: Any) -> str:
+    """`setting_text`, with a fingerprint (sha256:...) shortened to its first 16 hex
+    digits: 64 digits would wrap a table at 80 columns (JSON keeps them whole)."""
+    text = setting_text(value)
+    if text.startswith("sha256:") and len(text) > FINGERPRINT_SHOWN:
+        return text[:FINGERPRINT_SHOWN] + "…"
+    return text
+
+
 def _changes_block(title: str, changes: Sequence[Any], empty: str) -> Block:
-    rows = tuple((c.subject, c.setting, setting_text(c.old), setting_text(c.new))
-                 for c in changes)
-    return Block(title, (("of", "left"), ("setting", "left"), ("old", "left"),
-                         ("new", "left")), rows, () if rows else (empty,))
+    rows = tuple((c.setting if c.subject == "model" else f"{c.subject}: {c.setting}",
+                  short_text(c.old), short_text(c.new)) for c in changes)
+    shortened = any(short_text(v) != setting_text(v) for c in changes
+                    for v in (c.old, c.new))
+    notes = ((empty,) if not rows else
+             ("Fingerprints shown to 16 hex digits; --format json gives them whole.",)
+             if shortened else ())
+    return Block(title, (("setting", "left"), ("old", "left"), ("new", "left")), rows, notes)
 
 
 def review_blocks(changes: Changes) -> list[Block]:
