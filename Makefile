@@ -67,7 +67,11 @@ demo: $(STAMP)
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html
 	@echo "       one file per quarter (loans_q3.csv has no outcome column yet), every table as JSON"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
-	@echo "== done: models, tables, pictures, plans, the audit, the scorecard, the report and the monitoring page are in $(OUT)/"
+	@echo "== 18. a new version: the spline refitted on the downturn quarter alone, reviewed against the first"
+	$(GB) fit demo_data/loans_q2.csv --schema demo_data/loans.schema.toml --family spline --out $(OUT)/loans_q2.spline.json
+	$(GB) changes $(OUT)/loans.spline.json $(OUT)/loans_q2.spline.json demo_data/loans_q2.csv --cutoff 0.3
+	$(GB) changes $(OUT)/loans.spline.json $(OUT)/loans_q2.spline.json demo_data/loans_q2.csv --cutoff 0.3 --out $(OUT)/loans.changes.md
+	@echo "== done: models, tables, pictures, plans, the audit, the scorecard, the report, the monitoring page, the exports and the change review are in $(OUT)/"
 
 test: $(STAMP) browser engines
 	$(BIN)/ruff check .
