@@ -322,3 +322,53 @@ def test_postgresql_scores_as_the_tool(postgres, loans, credit_models):
                        "FROM applications ORDER BY \"n\"", extreme)["p"].astype(float)
     np.testing.assert_allclose(got, np.where(np.array(scores) < -709, 0.0, expit(scores)),
                                rtol=1e-15, atol=0)
+
+
+# ---------------------------------------------------------------- the command
+
+
+def _run(*args):
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app
+
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def test_cli_writes_the_sql_and_it_scores_as_glassbox_score(tmp_path, loans):
+    from glassbox import artifact
+
+    model, frame = loans
+    model_file = artifact.save(model, tmp_path / "loans.json")
+    out = tmp_path / "score.sql"
+    result = _run("export", model_file, "--sql", "--contributions", "--out", out)
+    assert result.exit_code == 0, result.output
+    assert out.read_text(encoding="utf-8").startswith("-- glassbox ")
+    scored = tmp_path / "scores.csv"
+    assert _run("score", model_file, DEMO / "loans.csv", "--out", scored).exit_code == 0
+    rows = run_duckdb(out.read_text(encoding="utf-8"), frame)
+    expected = pd.read_csv(scored)  # what `glassbox score` wrote, read back
+    _compare(rows, expected, "application_id",
+             ["score", "probability", *(f"contribution:{n}" for n in model.features)])
+    again = _run("export", model_file, "--sql", "--reasons", "2", "--out", out)
+    assert again.exit_code == 0, again.output  # a rerun overwrites its own file
+    assert "reason_2" in out.read_text(encoding="utf-8")
+
+
+def test_cli_refuses_in_one_line(tmp_path, loans):
+    from glassbox import artifact
+
+    from .conftest import one_line_error
+
+    model, _ = loans
+    model_file = artifact.save(model, tmp_path / "loans.json")
+    data = tmp_path / "rows.csv"
+    data.write_text("a,b\n1,2\n", encoding="utf-8")
+    one_line_error(_run("export", model_file, "--sql", "--out", data), "--force")
+    assert data.read_text(encoding="utf-8") == "a,b\n1,2\n"  # a CSV is not overwritten
+    assert _run("export", model_file, "--sql", "--out", data, "--force").exit_code == 0
+    one_line_error(_run("export", model_file, "--pmml", "--reasons", "2"), "--reasons")
+    one_line_error(_run("export", model_file, "--sql", "--table", "a..b"), "--table")
+    card = tmp_path / "card.json"
+    assert _run("points", model_file, "--format", "json", "--out", card).exit_code == 0
+    one_line_error(_run("export", "--points", card, "--sql", "--reasons", "1"), "reasons")
