@@ -48,7 +48,7 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
     if reasons < 0:
         raise OptionError(f"--reasons takes a number of reasons, 0 or more, not {reasons}")
     tables = model_tables(model)
-    ident = id_column or model.schema.id_column
+    ident = _id_column(id_column or model.schema.id_column, tables)
     outcome = "probability" if model.link == "logit" else "prediction"
     names = [t.feature for t in tables]
     scale = "log-odds" if model.link == "logit" else "prediction scale"
@@ -96,7 +96,7 @@ def card_sql(card: PointsCard, *, table: str = "applications", id_column: str | 
             if value is not None and not float(value).is_integer():
                 raise OptionError(f"the card's points for '{found.feature}' are not whole "
                                   f"numbers ({value!r}); the card file is damaged")
-    ident = id_column or card.schema.id_column
+    ident = _id_column(id_column or card.schema.id_column, tables)
     names = [t.feature for t in tables]
     card_sum = checksum(card_to_dict(card))
     head = _header(
@@ -114,6 +114,14 @@ def card_sql(card: PointsCard, *, table: str = "applications", id_column: str | 
     if contributions:
         final += [_quote(f"points:{name}") for name in names]
     return head + _assemble(parts, final, "scores")
+
+
+def _id_column(name: str | None, tables: Sequence[ExportTable]) -> str | None:
+    """The id column, refused when it is one of the features (it is returned as it is)."""
+    if name is not None and any(t.feature == name for t in tables):
+        raise OptionError(f"--id {name} is a feature of the model; name the column that "
+                          "identifies each row")
+    return name
 
 
 # ---------------------------------------------------------------- words

@@ -372,6 +372,7 @@ def test_cli_refuses_in_one_line(tmp_path, loans):
     assert _run("export", model_file, "--sql", "--out", data, "--force").exit_code == 0
     one_line_error(_run("export", model_file, "--pmml", "--reasons", "2"), "--reasons")
     one_line_error(_run("export", model_file, "--sql", "--table", "a..b"), "--table")
+    one_line_error(_run("export", model_file, "--sql", "--id", model.features[0]), "--id")
     card = tmp_path / "card.json"
     assert _run("points", model_file, "--format", "json", "--out", card).exit_code == 0
     one_line_error(_run("export", "--points", card, "--sql", "--reasons", "1"), "reasons")
