@@ -157,6 +157,8 @@ def _header(what: str, schema: Schema, tables: Sequence[ExportTable], ident: str
     lines = [f"{SQL_MARK}SQL export: {what}",
              "-- Scores are model outputs, not decisions: a decision rests with people, under",
              "-- local law, fair-lending rules and compliance.",
+             "-- Runs unchanged in DuckDB, SQLite 3.35+ (built with its math functions: exp,",
+             "-- floor) and PostgreSQL; no ORDER BY (rows come in the engine's order).",
              "--",
              "-- Columns the table must have (a blank is NULL, or empty text in a text column):"]
     if ident:
