@@ -1002,6 +1002,61 @@ def monitor_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     return scale_rows(folder)
 
 
+def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> list[str]:
+    """Scoring a million rows with the SQL export in DuckDB against `glassbox score`."""
+    import subprocess
+
+    import duckdb
+
+    from glassbox import sql_export
+    from glassbox.additive import score_table
+
+    frame, schema = sets["loans"]
+    model = fit_model(frame, schema, "boosted")
+    model_file = artifact.save(model, folder / "export_model.json")
+    big = frame.sample(rows, replace=True, random_state=0).reset_index(drop=True)
+    big["application_id"] = [f"R{i:07d}" for i in range(rows)]
+    data = folder / "export_rows.csv"
+    big.to_csv(data, index=False)
+    sql = sql_export.model_sql(model, table="loans", contributions=True)
+    select = sql.rstrip().rstrip(";")
+    connection = duckdb.connect()
+    connection.execute("SET threads = 1")  # as the library and the CLI: one core
+    connection.execute(f"CREATE TABLE loans AS SELECT * FROM read_csv('{data}')")
+    command = [str(Path(sys.executable).parent / "glassbox"), "score", str(model_file),
+               str(data), "--out", str(folder / "export_scores.csv"), "--force"]
+    from_csv = select.replace('FROM "loans"', f"FROM read_csv('{data}')")
+    result = side_by_side({
+        "sql": lambda: connection.execute(f"CREATE OR REPLACE TABLE scored AS\n{select}"),
+        "sql_csv": lambda: connection.execute(
+            f"COPY ({from_csv}) TO '{folder / 'export_sql.csv'}' (HEADER)"),
+        "library": lambda: score_table(model, big),
+        "cli": lambda: subprocess.run(command, check=True, capture_output=True),
+    }, repeats=3)
+    got = connection.execute("SELECT * FROM scored").df().set_index("application_id")
+    expected = score_table(model, big).set_index("application_id")
+    gap = float(np.max(np.abs(got.loc[expected.index, "score"].to_numpy()
+                              - expected["score"].to_numpy())))
+    base = result["library"]
+    return ["## Deploying: the SQL export in DuckDB against glassbox score",
+            "",
+            f"The demo loans resampled to {rows:,} rows; the boosted model with default",
+            "settings; every run gives score, probability and each contribution. `SQL` runs",
+            "the export in DuckDB (one thread) from a loaded table into a new table; `SQL,",
+            "CSV in and out` reads the CSV and writes one; `library` is `score_table` on the",
+            "frame in memory; `CLI` is `glassbox score` reading the CSV and writing one.",
+            "",
+            "| contender | seconds | ratio to library |",
+            "|---|---:|---:|",
+            *(f"| {label} | {result[key]:.2f} | {result[key] / base:.2f} |"
+              for key, label in (("sql", "SQL in DuckDB"),
+                                 ("sql_csv", "SQL in DuckDB, CSV in and out"),
+                                 ("library", "library (score_table)"),
+                                 ("cli", "CLI (glassbox score, CSV)"))),
+            "",
+            f"Largest absolute difference between the SQL's and the library's score: {gap:.1e}."]
+
+
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
     with tempfile.TemporaryDirectory() as scratch:
@@ -1010,14 +1065,16 @@ def main() -> None:
         if only:
             for name in only:
                 rows = globals()[f"{name}_rows"]
-                extra = (folder,) if name in ("audit", "file", "fuzz", "monitor") else ()
+                extra = ((folder,) if name in ("audit", "file", "fuzz", "monitor", "export")
+                         else ())
                 print("\n".join(rows(sets, *extra)))
             return
         sections = [recourse_rows(sets), exact_rows(sets), audit_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
-                    levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder)]
+                    levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder),
+                    export_rows(sets, folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",

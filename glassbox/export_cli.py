@@ -32,7 +32,9 @@ def export_command(
         help="Export this points card (glassbox points --format json) instead of a model.")
     ] = None,
     table: Annotated[str, typer.Option(
-        metavar="NAME", help="SQL: the table to score (a name, quoted as needed).")
+        metavar="NAME",
+        help="SQL: the table to score: NAME or SCHEMA.NAME (split at dots; each part is "
+             "quoted, so write it as stored, capitals and spaces included).")
     ] = "applications",
     id_column: Annotated[str | None, typer.Option(
         "--id", metavar="COLUMN",
