@@ -43,7 +43,7 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
     """One SELECT scoring `table` as `glassbox score` does: the id column (the option, or
     the schema's; none when neither names one), `score`, `probability` (classification) or
     `prediction` (regression), with `contributions` each `contribution:FEATURE`, and with
-    `reasons` K > 0 the K terms furthest below their best (`reason_k`: the feature, the
+    `reasons` K > 0 the K terms furthest below their best (`feature_k`: the feature, the
     reason code; `gap_k`), ranked as `glassbox reasons` ranks them."""
     if reasons < 0:
         raise OptionError(f"--reasons takes a number of reasons, 0 or more, not {reasons}")
@@ -58,7 +58,7 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
          f"{outcome}: {_outcome_words(model.link)}",
          *(["contribution:FEATURE: what each feature adds to the score"] if contributions
            else []),
-         *([f"reason_1..{reasons}: the features (reason codes) holding the score furthest",
+         *([f"feature_1..{reasons}: the features (reason codes) holding the score furthest",
             f"  below their best, first the furthest; gap_1..{reasons}: how far (score scale),",
             "  from the best within the central 98% of training values (as glassbox reasons);",
             f"  NULL where fewer features are more than {NOTHING!r} below their best"]
@@ -419,7 +419,7 @@ def _ranks_cte(names: list[str], ranked: list[str], ident: str | None) -> str:
 def _reason_columns(names: list[str], top: int) -> list[str]:
     out = []
     for k in range(1, top + 1):
-        for column, shown in ((f"reason_{k}", _text), (f"gap_{k}", None)):
+        for column, shown in ((f"feature_{k}", _text), (f"gap_{k}", None)):
             whens = ['WHEN "score" IS NULL THEN NULL']
             whens += [f"WHEN {_quote(f'rank:{name}')} = {k} AND {_quote(f'gap:{name}')} > "
                       f"{_number(NOTHING)} THEN "

@@ -101,7 +101,7 @@ def _reasons_match(sql_rows: pd.DataFrame, model, frame: pd.DataFrame, top: int)
     id_column = model.schema.id_column
     got = sql_rows.set_index(id_column).loc[table[id_column]].reset_index()
     for k in range(1, top + 1):
-        features = got[f"reason_{k}"].where(got[f"reason_{k}"].notna(), "").tolist()
+        features = got[f"feature_{k}"].where(got[f"feature_{k}"].notna(), "").tolist()
         assert features == table[f"feature_{k}"].tolist(), k
         np.testing.assert_allclose(got[f"gap_{k}"].astype(float), table[f"gap_{k}"],
                                    rtol=0, atol=1e-9)
@@ -166,7 +166,7 @@ def test_credit_data_with_gaps_scores_as_the_tool_and_refused_rows_are_null(
              ["score", "probability", *(f"contribution:{n}" for n in model.features)])
     _reasons_match(rows, model, kept, 2)
     nulls = rows.set_index("application").loc[frame.loc[refused, "application"]]
-    assert nulls[["score", "probability", "reason_1", "gap_1"]].isna().all().all()
+    assert nulls[["score", "probability", "feature_1", "gap_1"]].isna().all().all()
     _tool_refuses(model, frame, refused)
 
 
@@ -355,7 +355,7 @@ def test_cli_writes_the_sql_and_it_scores_as_glassbox_score(tmp_path, loans):
         np.testing.assert_allclose(got[name], written[name], rtol=1e-9, atol=1e-300)
     again = _run("export", model_file, "--sql", "--reasons", "2", "--out", out)
     assert again.exit_code == 0, again.output  # a rerun overwrites its own file
-    assert "reason_2" in out.read_text(encoding="utf-8")
+    assert "feature_2" in out.read_text(encoding="utf-8")
 
 
 def test_cli_refuses_in_one_line(tmp_path, loans):
