@@ -168,7 +168,7 @@ def _target_labels(positive: Any) -> tuple[str, str]:
 
 
 def _model_notes(model: AdditiveModel, tables: Sequence[ExportTable]) -> list[str]:
-    notes = [_refusal_note(tables)]
+    notes = _input_notes(tables)
     if model.link == "logit":
         notes.append("probability = 1 / (1 + exp(-score)), the score being the intercept "
                      "plus each term's value; a scorer's exp may differ from the tool's in "
@@ -177,9 +177,21 @@ def _model_notes(model: AdditiveModel, tables: Sequence[ExportTable]) -> list[st
 
 
 def _card_notes(tables: Sequence[ExportTable]) -> list[str]:
-    return [_refusal_note(tables),
+    return [*_input_notes(tables),
             "reason codes are the feature names, ranked by points below each "
             "characteristic's best points over its bins or labels (its baselineScore)"]
+
+
+def _input_notes(tables: Sequence[ExportTable]) -> list[str]:
+    notes = [_refusal_note(tables)]
+    dates = [t for t in tables if t.rule.days_before is not None]
+    if dates:
+        notes.append(
+            "dates (" + ", ".join(f"{t.feature}: days before {t.rule.days_before}"
+                                  for t in dates) + ") are read as ISO dates (YYYY-MM-DD) "
+            "with dateDaysSinceYear; a scorer that reads a given date as missing would give "
+            "the missing-value entry instead (pypmml 1.5.8 does): check yours on a few rows")
+    return notes
 
 
 def _refusal_note(tables: Sequence[ExportTable]) -> str:
@@ -285,9 +297,9 @@ def _days_field(parent: ET.Element, table: ExportTable) -> None:
     since = (reference - dt.date(EPOCH_YEAR, 1, 1)).days
     field = _el(parent, "DerivedField", name=_source(table), optype="continuous",
                 dataType="double")
-    field.append(_apply("-", _constant(since),
-                        _apply("dateDaysSinceYear", _ref(table.feature),
-                               _constant(EPOCH_YEAR, "integer"))))
+    days = _apply("-", _constant(since), _apply("dateDaysSinceYear", _ref(table.feature),
+                                                 _constant(EPOCH_YEAR, "integer")))
+    field.append(_apply("if", _apply("isNotMissing", _ref(table.feature)), days))
 
 
 def _label_name(table: ExportTable) -> str:
@@ -332,12 +344,22 @@ def _term_field(parent: ET.Element, table: ExportTable) -> str:
 
 
 def _term_expression(table: ExportTable) -> ET.Element:
-    source = _source(table)
-    missing = None if table.missing is None else _number(table.missing)
     if table.shape == "levels":
         return _levels_expression(table)
     if len(table.values) == 1:  # one bin or one knot: a constant, apart from missing
-        return _when_present(_ref(source), _constant(table.values[0]), table.missing)
+        return _when_present(_ref(table.feature), _constant(table.values[0]), table.missing)
+    if table.rule.days_before is not None:
+        # the missing entry only for a date not given: a date the scorer cannot read
+        # leaves the days missing too, and then the term has no value (never a guess)
+        return _when_present(_ref(table.feature), _numeric_expression(table, None),
+                             table.missing)
+    return _numeric_expression(table, table.missing)
+
+
+def _numeric_expression(table: ExportTable, missing_value: float | None) -> ET.Element:
+    """Discretize (steps) or NormContinuous (a curve) of the number the table reads."""
+    source = _source(table)
+    missing = None if missing_value is None else _number(missing_value)
     if table.shape == "steps":
         discretize = ET.Element("Discretize", {"field": source, "dataType": "double"})
         if missing is not None:
@@ -396,7 +418,9 @@ def _characteristic(parent: ET.Element, table: ExportTable) -> None:
     levels = table.shape == "levels"
     field = _label_name(table) if levels else _source(table)
     # first a missing input; then each label and any other label, or each bin
-    _points(characteristic, table.missing, _predicate(field, "isMissing"))
+    dates = table.rule.days_before is not None
+    _points(characteristic, table.missing,
+            _predicate(table.feature if dates else field, "isMissing"))
     if levels:
         for level, value in zip(table.levels, table.values, strict=True):
             _points(characteristic, value, _predicate(field, "equal", level))
@@ -415,6 +439,8 @@ def _characteristic(parent: ET.Element, table: ExportTable) -> None:
             predicate.extend([_predicate(field, "greaterThan", edges[i - 1]),
                               _predicate(field, "lessOrEqual", edges[i])])
         _points(characteristic, value, predicate)
+    if dates:  # a date the scorer cannot read: no points rather than a guess
+        _points(characteristic, None, ET.Element("True"))
 
 
 def _predicate(field: str, operator: str, value: str | None = None) -> ET.Element:

@@ -31,6 +31,7 @@ from glassbox import artifact
 from glassbox.additive import score_table
 from glassbox.cards import PointsCard
 from glassbox.cli import app
+from glassbox.errors import OptionError
 from glassbox.export_tables import card_tables, model_tables
 from glassbox.fitting import fit_model
 from glassbox.pmml_export import card_pmml, model_pmml
@@ -231,6 +232,51 @@ def test_values_on_edges_and_beyond_the_end_knots(scorers, pmml_schema):
                 rows.append(row)
         assert len(rows) > 10
         _check_model(model, pd.concat(rows, ignore_index=True), scorers, pmml_schema)
+
+
+def test_dates_read_as_days_before_the_reference(scorers, pmml_schema):
+    # constructed from real rows: credit_data's years with the employer turned into the
+    # date employment began (whole years of 365.25 days plus a few days, some blank), read
+    # back as days before 2024-06-30; the tool's own scoring is the truth. pypmml 1.5.8
+    # reads every date as missing (so it would give the missing entry): jpmml-evaluator
+    # scores this one
+    if "jpmml-evaluator" not in scorers:
+        pytest.skip("jpmml-evaluator cannot run here; pypmml cannot read dates")
+    frame = credit_rows_with_gaps().iloc[:800]
+    reference = pd.Timestamp("2024-06-30")
+    frame["employed_since"] = [
+        None if i % 40 == 0 else (reference - pd.Timedelta(days=int(years * 365.25) + i % 300)
+                                  ).strftime("%Y-%m-%d")
+        for i, years in enumerate(frame["Seniority"])]
+    schema = Schema.from_dict({
+        "target": {"column": "Status", "positive": "bad", "better": "lower"},
+        "feature": {"employed_since": {"kind": "number", "days_before": "2024-06-30"},
+                    "Amount": {"kind": "number"}}})
+    frame = frame[["Status", "employed_since", "Amount"]]
+    inputs = frame[["employed_since", "Amount"]].reset_index(drop=True)
+    score = scorers["jpmml-evaluator"]
+    for family, options in (("boosted", {"max_iter": 30}), ("sparse", {})):
+        model = fit_model(frame, schema, family, **options)
+        text = model_pmml(model)
+        _valid(pmml_schema, text)
+        assert "dateDaysSinceYear" in text
+        expected = score_table(model, frame)
+        got = score(text, inputs)
+        for column in ("probability", "contribution:employed_since"):
+            np.testing.assert_allclose(_numbers(got, column), expected[column], rtol=0,
+                                       atol=TOLERANCE, err_msg=f"{family}: {column}")
+        card = points_card(model)
+        np.testing.assert_array_equal(_numbers(score(card_pmml(card), inputs),
+                                               "total_points"),
+                                      score_points(card, frame)["total_points"])
+    layout = Schema.from_dict({
+        "target": {"column": "Status", "positive": "bad", "better": "lower"},
+        "feature": {"employed_since": {"kind": "number", "days_before": "2024-06-30",
+                                       "date_layout": "%d/%m/%Y"}}})
+    frame = frame.assign(employed_since=pd.to_datetime(frame["employed_since"]).dt.strftime(
+        "%d/%m/%Y"))
+    with pytest.raises(OptionError, match="employed_since"):
+        model_pmml(fit_model(frame, layout, "sparse"))
 
 
 def test_refused_rows_get_no_number(credit_boosted, scorers):
