@@ -27,7 +27,7 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import artifact
+from glassbox import artifact, cards
 from glassbox.additive import score_table
 from glassbox.cards import PointsCard
 from glassbox.cli import app
@@ -142,7 +142,9 @@ def _credit_schema() -> Schema:
             "Home": {"kind": "category", "pool_below": 50},  # "ignore", "other": rare
             "Time": {"kind": "integer"}, "Age": {"kind": "integer", "protected": True},
             "Marital": {"kind": "category", "protected": True},
-            "Records": {"kind": "flag"}, "Job": {"kind": "category", "fill": "unknown"},
+            "Records": {"kind": "flag"},
+            "Job": {"kind": "category", "fill": "unknown",
+                    "missing_codes": ["partime"]},  # a real level declared a code
             "Expenses": {"kind": "number", "missing_codes": [35]},  # a common value as a code
             "Income": {"kind": "number"}, "Assets": {"kind": "number", "fill": 0},
             "Debt": {"kind": "number"}, "Amount": {"kind": "number"},
@@ -392,3 +394,10 @@ def test_cli_writes_reruns_and_keeps_other_files(credit_boosted, tmp_path):
     assert forced.exit_code == 0 and scores.read_text(encoding="utf-8").startswith("<?xml")
     one_line_error(runner.invoke(app, ["export", str(model_file), "--pmml", "--reasons",
                                        "2"]), "--sql only")
+    card_file = tmp_path / "card.json"
+    cards.save(points_card(model), card_file)
+    card_out = tmp_path / "card.pmml"
+    result = runner.invoke(app, ["export", "--points", str(card_file), "--pmml", "--out",
+                                 str(card_out)])
+    assert result.exit_code == 0, result.output
+    assert card_out.read_text(encoding="utf-8") == card_pmml(cards.load(card_file))
