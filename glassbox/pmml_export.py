@@ -52,7 +52,11 @@ def model_pmml(model: AdditiveModel) -> str:
     tables = model_tables(model)
     target = model.schema.target
     classification = model.link == "logit"
-    root = _document(model_checksum(model), _model_notes(model, tables), "model")
+    outputs = ["probability" if classification else "prediction", "score",
+               *(f"contribution:{t.feature}" for t in tables)]
+    _check_names(tables, [target.column, *outputs])
+    root = _document(model_checksum(model), _model_notes(model, tables),
+                     "a glassbox additive model")
     dictionary = _data_dictionary(root, [t.rule for t in tables])
     if classification:
         positive, other = _target_labels(target.positive)
@@ -98,7 +102,8 @@ def model_pmml(model: AdditiveModel) -> str:
 def card_pmml(card: PointsCard) -> str:
     """The points card as a PMML Scorecard."""
     tables = card_tables(card)
-    root = _document(card.model_checksum, _card_notes(tables), "card")
+    _check_names(tables, ["total_points", *(f"reason_{k}" for k in range(1, len(tables) + 1))])
+    root = _document(card.model_checksum, _card_notes(tables), "a glassbox points card")
     dictionary = _data_dictionary(root, [t.rule for t in tables])
     _el(dictionary, "DataField", name="total_points", optype="continuous", dataType="double")
     _count_fields(dictionary)
@@ -141,9 +146,19 @@ def _number(value: float) -> str:
     return str(int(value)) if value.is_integer() and abs(value) < 2**53 else repr(value)
 
 
-def _document(checksum: str | None, notes: list[str], what: str) -> ET.Element:
+def _check_names(tables: Sequence[ExportTable], outputs: Sequence[str]) -> None:
+    """A feature may not share its name with a field the document adds (PMML has one name
+    space for the fields of a model)."""
+    derived = [f"{kind}:{t.feature}" for t in tables for kind in ("term", "label", "days")]
+    taken = sorted({t.feature for t in tables} & {*outputs, *derived})
+    if taken:
+        raise OptionError(f"feature '{taken[0]}' has the name of a field the PMML export "
+                          "writes; rename the column (and the schema's feature) to export it")
+
+
+def _document(checksum: str | None, notes: list[str], description: str) -> ET.Element:
     root = ET.Element("PMML", {"xmlns": NAMESPACE, "version": "4.4"})
-    header = _el(root, "Header", description=f"glassbox {what}: an additive model's tables")
+    header = _el(root, "Header", description=description)
     _el(header, "Application", name="glassbox", version=__version__)
     annotation = _el(header, "Annotation")
     annotation.text = CAUTION

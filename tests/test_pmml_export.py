@@ -321,6 +321,18 @@ def test_the_document_is_deterministic(credit_boosted):
     assert card_pmml(points_card(model)) == card_pmml(points_card(again))
 
 
+def test_a_feature_named_like_an_output_is_refused():
+    # constructed: credit_data's Amount column renamed "score", a field the export writes
+    frame = credit_rows_with_gaps()[["Status", "Amount", "Price"]].rename(
+        columns={"Amount": "score"})
+    schema = Schema.from_dict({
+        "target": {"column": "Status", "positive": "bad", "better": "lower"},
+        "feature": {"score": {"kind": "number"}, "Price": {"kind": "number"}}})
+    model = fit_model(frame, schema, "sparse")
+    with pytest.raises(OptionError, match="'score'"):
+        model_pmml(model)
+
+
 # -- the points card ---------------------------------------------------------------------
 
 def _first_below(card: PointsCard, points: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
