@@ -67,6 +67,13 @@ demo: $(STAMP)
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html
 	@echo "       one file per quarter (loans_q3.csv has no outcome column yet), every table as JSON"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
+	@echo "== 17. deploy: the spline model as one SQL query and as PMML 4.4, and the points card too"
+	$(GB) export $(OUT)/loans.spline.json --sql --table loans --contributions --reasons 2 --out $(OUT)/loans.score.sql
+	$(GB) export $(OUT)/loans.spline.json --pmml --out $(OUT)/loans.spline.pmml
+	$(GB) export --points $(OUT)/loans.card.json --sql --table loans --contributions --out $(OUT)/loans.points.sql
+	$(GB) export --points $(OUT)/loans.card.json --pmml --out $(OUT)/loans.card.pmml
+	@echo "       the query run in SQLite (Python's own) on the applications, beside glassbox score's first rows above"
+	@$(BIN)/python -c "import sqlite3, pandas as p; c = sqlite3.connect(':memory:'); p.read_csv('demo_data/loans.csv').to_sql('loans', c); print(p.read_sql(open('$(OUT)/loans.score.sql').read(), c).iloc[:2, :5].to_string(index=False))"
 	@echo "== 18. a new version: the spline refitted on the downturn quarter alone, reviewed against the first"
 	$(GB) fit demo_data/loans_q2.csv --schema demo_data/loans.schema.toml --family spline --out $(OUT)/loans_q2.spline.json
 	$(GB) changes $(OUT)/loans.spline.json $(OUT)/loans_q2.spline.json demo_data/loans_q2.csv --cutoff 0.3

@@ -80,3 +80,40 @@ def gap_ways(family: str, **options) -> dict[str, float]:
     median = fit_model(train.fillna(fills), refuse, family, **options)
     out["median"] = roc_auc_score(truth, median.score(filled_test))
     return out
+
+
+def export_schema(id_column: str | None = None, job_codes: tuple[str, ...] = ()) -> Schema:
+    """credit_data's schema for the export checks: a pooled rare level (Home "ignore",
+    "other"), a fill for a category (Job) and for a money amount (Assets), a common value
+    declared a missing code (Expenses 35), a flag; `id_column` names the rows, `job_codes`
+    adds missing codes to Job (a real level declared a code)."""
+    job: dict = {"kind": "category", "fill": "unknown"}
+    if job_codes:
+        job["missing_codes"] = list(job_codes)
+    content: dict = {
+        "target": {"column": "Status", "positive": "bad", "better": "lower"},
+        "feature": {
+            "Seniority": {"kind": "integer"},
+            "Home": {"kind": "category", "pool_below": 50},  # "ignore", "other": rare
+            "Time": {"kind": "integer"}, "Age": {"kind": "integer", "protected": True},
+            "Marital": {"kind": "category", "protected": True},
+            "Records": {"kind": "flag"}, "Job": job,
+            "Expenses": {"kind": "number", "missing_codes": [35]},  # a common value as a code
+            "Income": {"kind": "number"}, "Assets": {"kind": "number", "fill": 0},
+            "Debt": {"kind": "number"}, "Amount": {"kind": "number"},
+            "Price": {"kind": "number"},
+        },
+    }
+    if id_column is not None:
+        content["id"] = id_column
+    return Schema.from_dict(content)
+
+
+def export_rows(ids: str | None = None) -> pd.DataFrame:
+    """All rows with their gaps, the flag's words typed as people type them (" Yes",
+    "NO"); `ids` names a first column of row names ("C0001", ...)."""
+    frame = credit_rows_with_gaps()
+    if ids is not None:
+        frame.insert(0, ids, [f"C{i:04d}" for i in range(1, len(frame) + 1)])
+    frame["Records"] = frame["Records"].map({"yes": " Yes", "no": "NO"})
+    return frame

@@ -18,26 +18,8 @@ from glassbox.additive import score_table
 from glassbox.export_tables import card_tables, model_tables
 from glassbox.fitting import fit_model
 from glassbox.points import points_card, score_points
-from glassbox.schema import Schema
 
-from .real_credit import credit_rows_with_gaps
-
-
-def _credit_schema() -> Schema:
-    return Schema.from_dict({
-        "target": {"column": "Status", "positive": "bad", "better": "lower"},
-        "feature": {
-            "Seniority": {"kind": "integer"},
-            "Home": {"kind": "category", "pool_below": 50},  # "ignore", "other": rare
-            "Time": {"kind": "integer"}, "Age": {"kind": "integer", "protected": True},
-            "Marital": {"kind": "category", "protected": True},
-            "Records": {"kind": "flag"}, "Job": {"kind": "category", "fill": "unknown"},
-            "Expenses": {"kind": "number", "missing_codes": [35]},  # a common value as a code
-            "Income": {"kind": "number"}, "Assets": {"kind": "number", "fill": 0},
-            "Debt": {"kind": "number"}, "Amount": {"kind": "number"},
-            "Price": {"kind": "number"},
-        },
-    })
+from .real_credit import credit_rows_with_gaps, export_rows, export_schema
 
 
 def _read_score(tables, intercept: float, frame: pd.DataFrame) -> np.ndarray:
@@ -47,9 +29,8 @@ def _read_score(tables, intercept: float, frame: pd.DataFrame) -> np.ndarray:
 @pytest.mark.parametrize("family, options", [("boosted", {"max_iter": 60}),
                                              ("sparse", {})])
 def test_tables_read_from_raw_columns_score_as_the_tool(family, options):
-    frame = credit_rows_with_gaps()
-    frame["Records"] = frame["Records"].map({"yes": " Yes", "no": "NO"})  # words as typed
-    model = fit_model(frame, _credit_schema(), family, **options)
+    frame = export_rows()
+    model = fit_model(frame, export_schema(), family, **options)
     tables = model_tables(model)
     assert [t.feature for t in tables] == list(model.features)
     expected = score_table(model, frame)
@@ -66,7 +47,7 @@ def test_tables_read_from_raw_columns_score_as_the_tool(family, options):
 
 def test_card_tables_read_from_raw_columns_give_the_card_points():
     frame = credit_rows_with_gaps()
-    model = fit_model(frame, _credit_schema(), "boosted", max_iter=60)
+    model = fit_model(frame, export_schema(), "boosted", max_iter=60)
     card = points_card(model)
     tables = card_tables(card)
     expected = score_points(card, frame)
@@ -82,7 +63,7 @@ def test_a_refused_missing_value_reads_as_nothing():
     # credit_data has no gap in Seniority, Time, Amount or Price: their terms learned no
     # missing-value entry, so the tables say None and a blank reads as NaN (the tool
     # refuses the row) rather than a number; a fill gives a value even so
-    model = fit_model(credit_rows_with_gaps(), _credit_schema(), "sparse")
+    model = fit_model(credit_rows_with_gaps(), export_schema(), "sparse")
     tables = {t.feature: t for t in model_tables(model)}
     for name in ("Seniority", "Time", "Amount", "Price"):
         assert model.term(name).missing is None and tables[name].missing is None

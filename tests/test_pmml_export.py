@@ -40,7 +40,7 @@ from glassbox.reasons import reasons_table
 from glassbox.schema import Schema, load_schema, read_table
 
 from .conftest import DEMO, one_line_error
-from .real_credit import credit_rows_with_gaps
+from .real_credit import credit_rows_with_gaps, export_rows, export_schema
 
 TOLERANCE = 1e-9
 
@@ -132,32 +132,15 @@ def _numbers(scores: pd.DataFrame, name: str) -> np.ndarray:
     return pd.to_numeric(scores[name], errors="coerce").to_numpy(dtype=float)
 
 
+CREDIT_SCHEMA = export_schema(job_codes=("partime",))  # a real level declared a code
+
+
 # -- the data ----------------------------------------------------------------------------
-
-def _credit_schema() -> Schema:
-    return Schema.from_dict({
-        "target": {"column": "Status", "positive": "bad", "better": "lower"},
-        "feature": {
-            "Seniority": {"kind": "integer"},
-            "Home": {"kind": "category", "pool_below": 50},  # "ignore", "other": rare
-            "Time": {"kind": "integer"}, "Age": {"kind": "integer", "protected": True},
-            "Marital": {"kind": "category", "protected": True},
-            "Records": {"kind": "flag"},
-            "Job": {"kind": "category", "fill": "unknown",
-                    "missing_codes": ["partime"]},  # a real level declared a code
-            "Expenses": {"kind": "number", "missing_codes": [35]},  # a common value as a code
-            "Income": {"kind": "number"}, "Assets": {"kind": "number", "fill": 0},
-            "Debt": {"kind": "number"}, "Amount": {"kind": "number"},
-            "Price": {"kind": "number"},
-        },
-    })
-
 
 def _credit_frame() -> pd.DataFrame:
     """credit_data with all its gaps (Income in 381 rows, Assets, Debt, Home, Job...), the
     flag's words typed as people type them, a level with spaces around it."""
-    frame = credit_rows_with_gaps()
-    frame["Records"] = frame["Records"].map({"yes": " Yes", "no": "NO"})
+    frame = export_rows()
     frame.loc[frame.index % 7 == 0, "Home"] = frame["Home"].map(
         lambda v: v if not isinstance(v, str) else f"  {v} ")
     return frame
@@ -178,7 +161,7 @@ def _refused_rows(frame: pd.DataFrame) -> pd.DataFrame:
 @pytest.fixture(scope="module")
 def credit_boosted():
     frame = _credit_frame()
-    return frame, fit_model(frame, _credit_schema(), "boosted", max_iter=60)
+    return frame, fit_model(frame, CREDIT_SCHEMA, "boosted", max_iter=60)
 
 
 # -- the additive model ------------------------------------------------------------------
@@ -205,7 +188,7 @@ def test_credit_model_with_gaps_scores_as_the_tool(credit_boosted, scorers, pmml
 
 def test_credit_sparse_model_scores_as_the_tool(scorers, pmml_schema):
     frame = _credit_frame()
-    model = fit_model(frame, _credit_schema(), "sparse")
+    model = fit_model(frame, CREDIT_SCHEMA, "sparse")
     some = frame[frame.isna().any(axis=1) | (frame.index % 5 == 0)]  # every row with a gap
     _check_model(model, some.reset_index(drop=True), scorers, pmml_schema)
 
@@ -217,7 +200,7 @@ def test_values_on_edges_and_beyond_the_end_knots(scorers, pmml_schema):
     frame = _credit_frame()
     base = frame.dropna().iloc[:1]
     for family, options in (("boosted", {"max_iter": 30}), ("sparse", {})):
-        model = fit_model(frame, _credit_schema(), family, **options)
+        model = fit_model(frame, CREDIT_SCHEMA, family, **options)
         rows = []
         for table in model_tables(model):
             spec = model.schema.feature(table.feature)
@@ -316,7 +299,7 @@ def test_demo_listings_regression_on_curves(scorers, pmml_schema):
 
 def test_the_document_is_deterministic(credit_boosted):
     frame, model = credit_boosted
-    again = fit_model(frame, _credit_schema(), "boosted", max_iter=60)
+    again = fit_model(frame, CREDIT_SCHEMA, "boosted", max_iter=60)
     assert model_pmml(model) == model_pmml(again)
     assert card_pmml(points_card(model)) == card_pmml(points_card(again))
 

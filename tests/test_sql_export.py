@@ -28,36 +28,11 @@ from glassbox.points import points_card, score_points
 from glassbox.reasons import explain
 from glassbox.schema import Schema, load_schema
 
-from .real_credit import credit_rows_with_gaps
+from .real_credit import export_rows, export_schema
 from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite
 
 DEMO = Path(__file__).resolve().parent.parent / "demo_data"
 ENGINES = {"duckdb": run_duckdb, "sqlite": run_sqlite}
-
-
-def _credit_schema() -> Schema:
-    return Schema.from_dict({
-        "id": "application",
-        "target": {"column": "Status", "positive": "bad", "better": "lower"},
-        "feature": {
-            "Seniority": {"kind": "integer"},
-            "Home": {"kind": "category", "pool_below": 50},  # "ignore", "other": rare
-            "Time": {"kind": "integer"}, "Age": {"kind": "integer", "protected": True},
-            "Marital": {"kind": "category", "protected": True},
-            "Records": {"kind": "flag"}, "Job": {"kind": "category", "fill": "unknown"},
-            "Expenses": {"kind": "number", "missing_codes": [35]},  # a common value as a code
-            "Income": {"kind": "number"}, "Assets": {"kind": "number", "fill": 0},
-            "Debt": {"kind": "number"}, "Amount": {"kind": "number"},
-            "Price": {"kind": "number"},
-        },
-    })
-
-
-def _credit_frame() -> pd.DataFrame:
-    frame = credit_rows_with_gaps()
-    frame.insert(0, "application", [f"C{i:04d}" for i in range(1, len(frame) + 1)])
-    frame["Records"] = frame["Records"].map({"yes": " Yes", "no": "NO"})  # words as typed
-    return frame
 
 
 def _refusing(frame: pd.DataFrame, features) -> tuple[pd.DataFrame, np.ndarray]:
@@ -147,8 +122,8 @@ def test_demo_listings_regression_predicts_as_the_tool(engine):
 
 @pytest.fixture(scope="module")
 def credit_models():
-    frame = _credit_frame()
-    schema = _credit_schema()
+    frame = export_rows("application")
+    schema = export_schema("application")
     return {family: fit_model(frame, schema, family, **options)
             for family, options in (("boosted", {"max_iter": 40}), ("sparse", {}))}
 
@@ -158,7 +133,7 @@ def credit_models():
 def test_credit_data_with_gaps_scores_as_the_tool_and_refused_rows_are_null(
         credit_models, family, engine):
     model = credit_models[family]
-    frame, refused = _refusing(_credit_frame(), model.features)
+    frame, refused = _refusing(export_rows("application"), model.features)
     rows = ENGINES[engine](sql_export.model_sql(model, contributions=True, reasons=2), frame)
     kept = frame[~refused].reset_index(drop=True)
     expected = score_table(model, kept)
@@ -175,7 +150,7 @@ def test_values_on_edges_and_knots_and_beside_them(credit_models, family):
     # constructed rows: each number feature set exactly on every edge or knot of its table
     # and one double either side (where a CASE's < and <= decide), and beyond both ends
     model = credit_models[family]
-    frame = _credit_frame()
+    frame = export_rows("application")
     points = {t.feature: t.points for t in model_tables(model)
               if t.shape != "levels" and t.rule.kind == "number" and not t.rule.missing_codes}
     assert points
@@ -193,7 +168,7 @@ def test_values_on_edges_and_knots_and_beside_them(credit_models, family):
 @pytest.mark.parametrize("engine", sorted(ENGINES))
 def test_points_card_gives_the_tools_points_exactly(credit_models, engine):
     card = points_card(credit_models["boosted"])
-    frame, refused = _refusing(_credit_frame(), card.feature_names)
+    frame, refused = _refusing(export_rows("application"), card.feature_names)
     rows = ENGINES[engine](sql_export.card_sql(card, contributions=True), frame)
     kept = frame[~refused].reset_index(drop=True)
     expected = score_points(card, kept)
@@ -210,8 +185,8 @@ def test_names_needing_quotes_still_run(credit_models):
     # by the tool under the same names
     renames = {"Home": 'Home "status"', "Income": "Income (monthly)", "Job": "Job's kind",
                "application": "application id"}
-    frame = _credit_frame().rename(columns=renames)
-    content = _credit_schema().to_dict()
+    frame = export_rows("application").rename(columns=renames)
+    content = export_schema("application").to_dict()
     content["id"] = renames["application"]
     content["feature"] = {renames.get(k, k): v for k, v in content["feature"].items()}
     model = fit_model(frame, Schema.from_dict(content), "boosted", max_iter=20)
@@ -301,7 +276,7 @@ def test_postgresql_scores_as_the_tool(postgres, loans, credit_models):
              ["score", "probability", *(f"contribution:{n}" for n in model.features)])
     _reasons_match(rows, model, frame, 3)
     for family, found in credit_models.items():
-        credit, refused = _refusing(_credit_frame(), found.features)
+        credit, refused = _refusing(export_rows("application"), found.features)
         kept = credit[~refused].reset_index(drop=True)
         rows = run_postgres(postgres, sql_export.model_sql(found, contributions=True,
                                                            reasons=2), credit)
@@ -311,7 +286,7 @@ def test_postgresql_scores_as_the_tool(postgres, loans, credit_models):
         nulls = rows.set_index("application").loc[credit.loc[refused, "application"]]
         assert nulls["score"].isna().all(), family
     card = points_card(credit_models["boosted"])
-    credit, refused = _refusing(_credit_frame(), card.feature_names)
+    credit, refused = _refusing(export_rows("application"), card.feature_names)
     kept = credit[~refused].reset_index(drop=True)
     rows = run_postgres(postgres, sql_export.card_sql(card, contributions=True), credit)
     _compare(rows, score_points(card, kept), "application",
