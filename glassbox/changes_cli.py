@@ -5,7 +5,6 @@ Registered on the `glassbox` app from the end of cli.py; no logic here.
 
 from __future__ import annotations
 
-import sys
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
@@ -13,9 +12,9 @@ from typing import Annotated
 import typer
 
 from glassbox import artifact
-from glassbox.cli import Force, app, friendly, stderr_console, stdout_console
+from glassbox.cli import Force, app, emit, friendly, stdout_console
 from glassbox.errors import OptionError
-from glassbox.files import check_output, write_atomic
+from glassbox.files import check_output
 
 
 class ChangesFormat(StrEnum):
@@ -86,9 +85,4 @@ def changes_command(
         console.print(changes_view(review, max(console.width, 40)))
         return
     text = changes_json(review) if chosen is ChangesFormat.json else changes_markdown(review)
-    if out is None:
-        sys.stdout.write(text)
-        return
-    write_atomic(out, text)
-    stderr_console().print(f"wrote the change review ({chosen.value}) to {out}",
-                           highlight=False)
+    emit(text, out, f"the change review ({chosen.value})")

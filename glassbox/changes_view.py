@@ -94,20 +94,21 @@ def short_text(value: Any) -> str:
     return text
 
 
-def _changes_block(title: str, changes: Sequence[Any], empty: str) -> Block:
+def _changes_block(title: str, changes: Sequence[Any], empty: str, short: bool) -> Block:
+    shown = short_text if short else setting_text
     rows = tuple((c.setting if c.subject == "model" else f"{c.subject}: {c.setting}",
-                  short_text(c.old), short_text(c.new)) for c in changes)
-    shortened = any(short_text(v) != setting_text(v) for c in changes
-                    for v in (c.old, c.new))
+                  shown(c.old), shown(c.new)) for c in changes)
+    shortened = any(shown(v) != setting_text(v) for c in changes for v in (c.old, c.new))
     notes = ((empty,) if not rows else
              ("Fingerprints shown to 16 hex digits; --format json gives them whole.",)
              if shortened else ())
     return Block(title, (("setting", "left"), ("old", "left"), ("new", "left")), rows, notes)
 
 
-def review_blocks(changes: Changes) -> list[Block]:
+def review_blocks(changes: Changes, short: bool = True) -> list[Block]:
     """The review in reading order: what turns the reading round, structure, fitting,
-    schema, terms, importance, then the data's decisions and score shift."""
+    schema, terms, importance, then the data's decisions and score shift. `short`:
+    fingerprints shortened to fit a terminal (Markdown and JSON keep them whole)."""
     blocks = []
     if changes.prominent:
         blocks.append(Block(
@@ -123,8 +124,8 @@ def review_blocks(changes: Changes) -> list[Block]:
         ("intercept", f"{number(changes.old_intercept)} → {number(changes.new_intercept)} "
                       f"({signed(intercept)})"))))
     blocks.append(_changes_block("Family and fitting settings", changes.settings,
-                                 "The same family and settings."))
-    blocks.append(_changes_block("Schema", changes.schema, "The same schema."))
+                                 "The same family and settings.", short))
+    blocks.append(_changes_block("Schema", changes.schema, "The same schema.", short))
     blocks.append(Block(
         f"Largest change of each common term's contribution (new − old, {changes.scale})",
         (("feature", "left"), ("tables", "left"), ("largest change", "right"),
@@ -230,7 +231,7 @@ def changes_view(changes: Changes, width: int = WIDTH) -> RenderableType:
 def changes_markdown(changes: Changes) -> str:
     """The review as a Markdown document for a validator's file."""
     lines = [f"# {heading(changes)}", ""]
-    for block in review_blocks(changes):
+    for block in review_blocks(changes, short=False):
         lines += [f"## {block.title}", ""]
         if block.rows:
             lines.append("| " + " | ".join(h for h, _ in block.headings) + " |")

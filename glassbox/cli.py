@@ -127,13 +127,13 @@ def _show_warnings(caught: list[warnings.WarningMessage]) -> None:
         stderr_console().print(warning_text(str(item.message)), soft_wrap=True)
 
 
-def _emit(text: str, out: Path | None, what: str) -> None:
+def emit(text: str, out: Path | None, what: str) -> None:
     """Text to a file (atomically) or to standard output."""
     if out is None:
         sys.stdout.write(text)
         return
     write_atomic(out, text)
-    stderr_console().print(f"wrote {what} to {out}")
+    stderr_console().print(f"wrote {what} to {out}", highlight=False)
 
 
 def _version(value: bool) -> None:
@@ -171,7 +171,7 @@ def schema_command(
     frame = read_table(data)
     schema = infer_schema(frame, target, positive=positive, id_column=id_column,
                           dates_as_age=dates_as_age)
-    _emit(schema.to_toml(), out, "schema")
+    emit(schema.to_toml(), out, "schema")
     for line in guesses.summary(schema.notes):
         stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
 
@@ -239,7 +239,7 @@ def score_command(
         model = artifact.load(model_file)
         frame = read_table(data)
         table = score_table(model, frame, str(data), contributions=contributions)
-    _emit(formats.to_csv(table), out, f"{len(table)} scored rows")
+    emit(formats.to_csv(table), out, f"{len(table)} scored rows")
 
 
 def _score_inputs(first: Path | None, second: Path | None,
@@ -302,7 +302,7 @@ def points_command(
         text = points.dumps(card)
     else:
         text = formats.write(points.card_table(card), format.value)
-    _emit(text, out, "points card" if format is TableFormat.json else "points card rows")
+    emit(text, out, "points card" if format is TableFormat.json else "points card rows")
     stderr_console().print(key_values(points.card_summary(card), title="Points card"))
     if fidelity is not None:
         stderr_console().print(key_values(fidelity, title="Card against the exact score"))
@@ -353,7 +353,7 @@ def shapes_command(
         paths = shapes.write_folder(model, out, format.value, names)
         stderr_console().print(f"wrote {len(paths)} {format.value} file(s) to {out}/")
         return
-    _emit(formats.write(shapes.all_tables(model, names), format.value), out, "shape tables")
+    emit(formats.write(shapes.all_tables(model, names), format.value), out, "shape tables")
 
 
 class CompareFormat(StrEnum):
@@ -425,7 +425,7 @@ def compare_command(
         text = json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
     else:
         text = compare_markdown(result)
-    _emit(text, out, "comparison")
+    emit(text, out, "comparison")
 
 
 class ReasonsFormat(StrEnum):
@@ -471,7 +471,7 @@ def reasons_command(
             {"rows": json.loads(formats.to_json(table)),
              "principal_reasons": json.loads(formats.to_json(summary))},
             indent=1, ensure_ascii=False) + "\n"
-        _emit(text, out, f"reasons for {len(table)} rows")
+        emit(text, out, f"reasons for {len(table)} rows")
         stderr_console().print(frame_table(summary, title="Principal reasons among rows on the "
                                                    "unfavourable side of the cut-off"))
         return
@@ -487,13 +487,13 @@ def reasons_command(
         stdout_console().print(reasons_view(row, found, scale))
         return
     if format is ReasonsFormat.csv:
-        _emit(formats.to_csv(table), out, "reasons")
+        emit(formats.to_csv(table), out, "reasons")
         return
     record = {k: v for k, v in json.loads(formats.to_json(table))[0].items()
               if not k.startswith(("reason_", "feature_", "gap_"))}
     record["reasons"] = [{"feature": r.feature, "value": _plain_value(r.value), "gap": r.gap,
                           "text": r.text} for r in found]
-    _emit(json.dumps(record, indent=1, ensure_ascii=False) + "\n", out, "reasons")
+    emit(json.dumps(record, indent=1, ensure_ascii=False) + "\n", out, "reasons")
 
 
 def _plain_value(value: Any) -> Any:

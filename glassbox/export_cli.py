@@ -5,15 +5,14 @@ Registered on the `glassbox` app from the end of cli.py; no logic here.
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
-from glassbox.cli import Force, app, friendly, stderr_console
+from glassbox.cli import Force, app, emit, friendly
 from glassbox.errors import OptionError
-from glassbox.files import check_output, write_atomic
+from glassbox.files import check_output
 
 
 @app.command("export")
@@ -76,9 +75,4 @@ def export_command(
 
         text = (pmml_export.card_pmml(points.load(card_file)) if card_file is not None
                 else pmml_export.model_pmml(artifact.load(model_file)))
-    if out is None:
-        sys.stdout.write(text)
-        return
-    write_atomic(out, text)
-    stderr_console().print(f"wrote the {'SQL' if sql else 'PMML'} export to {out}",
-                           highlight=False)
+    emit(text, out, f"the {'SQL' if sql else 'PMML'} export")
