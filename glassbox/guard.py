@@ -17,8 +17,8 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
-from glassbox.errors import GlassboxError
-from glassbox.render import error_text
+from glassbox.core.errors import GlassboxError
+from glassbox.publishing.render import error_text
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 1

@@ -15,7 +15,6 @@ from typing import Annotated
 import typer
 from rich.progress import Progress, TextColumn, TimeElapsedColumn
 
-from glassbox import artifact
 from glassbox.cli import (
     MAX_JOBS,
     Force,
@@ -26,12 +25,13 @@ from glassbox.cli import (
     stderr_console,
     stdout_console,
 )
-from glassbox.errors import OptionError
-from glassbox.files import check_output, table_kind, write_atomic
-from glassbox.monitor_view import plural
+from glassbox.core import artifact
+from glassbox.core.errors import OptionError
+from glassbox.core.files import check_output, table_kind, write_atomic
+from glassbox.publishing.monitor_view import plural
 
 MonitorFormat = ReasonsFormat  # the same choices: table (terminal), json, csv
-# the choices the engine takes (glassbox.monitor checks them again)
+# the choices the engine takes (glassbox.explaining.monitor checks them again)
 Every = StrEnum("Every", {name: name for name in ("month", "quarter", "year")})
 MonitorEngine = StrEnum("MonitorEngine", {name: name for name in ("local", "dask")})
 LOCAL = MonitorEngine("local")
@@ -78,9 +78,12 @@ def monitor_command(
     ] = 200_000,
     force: Force = False,
 ) -> None:
-    """Compare periods of new rows with the model's development sample: score and
-    feature stability (PSI), what moved the mean score, attribution drift, missing
-    values and new levels, and outcomes when the files have them."""
+    """Later periods against the development sample: stability, drift and outcomes.
+
+    Score and feature stability (PSI), what moved the mean score, attribution drift,
+    missing values and new levels, and outcomes when the files have them.
+    Example: glassbox monitor model.json q2.csv q3.csv --page monitoring.html
+    """
     if format is MonitorFormat.table and out is not None:
         raise OptionError("--out needs --format json or csv (the terminal table is not a file)")
     inputs = [model_file, *data, baseline, card_file]
@@ -88,9 +91,10 @@ def monitor_command(
         format.value, "monitoring")
     check_output(out, written, inputs, force=force)
     check_output(page, "html", [*inputs, out], force=force, option="--page")
-    from glassbox import monitor_files, monitor_page, monitor_view, points
-    from glassbox.baseline import baseline_from_file, model_baseline
-    from glassbox.monitor import monitor
+    from glassbox.explaining import points
+    from glassbox.explaining.baseline import baseline_from_file, model_baseline
+    from glassbox.explaining.monitor import monitor
+    from glassbox.publishing import monitor_files, monitor_page, monitor_view
 
     model = artifact.load(model_file)
     card = None if card_file is None else points.load(card_file)

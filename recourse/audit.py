@@ -16,8 +16,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.errors import DataError
-from glassbox.groups import FOUR_FIFTHS, MIN_GROUP, group_labels, outcomes_by_group, size_note
+from glassbox.core.errors import DataError
+from glassbox.explaining.groups import (
+    FOUR_FIFTHS,
+    MIN_GROUP,
+    group_labels,
+    outcomes_by_group,
+    size_note,
+)
 
 FORMAT = "recourse-audit"
 VERSION = 1
@@ -201,7 +207,7 @@ def to_json(result: Audit) -> str:
 
 def to_markdown(result: Audit) -> str:
     """The audit as Markdown: headline numbers, main changes, binding rules, groups."""
-    from glassbox.formats import to_markdown as table_markdown
+    from glassbox.core.formats import to_markdown as table_markdown
 
     parts = ["# Recourse across the declined rows", CAUTION,
              table_markdown(summary_table(result)).strip()]

@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.additive import AdditiveModel
+from glassbox.core.additive import AdditiveModel
 from recourse.candidates import OUTSIDE
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from recourse.errors import MutabilityError, OutsideError
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.program import best_changes

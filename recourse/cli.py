@@ -14,15 +14,15 @@ import typer
 from rich.console import Group, RenderableType
 from rich.text import Text
 
-from glassbox import artifact
 from glassbox.cli import Force, friendly, stderr_console, stdout_console
-from glassbox.files import check_output, check_output_folder, write_atomic
-from glassbox.formats import to_csv
-from glassbox.groups import MIN_GROUP, flag_caption, flag_words
+from glassbox.core import artifact
+from glassbox.core.files import check_output, check_output_folder, write_atomic
+from glassbox.core.formats import to_csv
+from glassbox.core.provenance import file_sha256
+from glassbox.core.schema import read_table
+from glassbox.explaining.groups import MIN_GROUP, flag_caption, flag_words
 from glassbox.guard import run_guarded
-from glassbox.provenance import file_sha256
-from glassbox.render import frame_table
-from glassbox.schema import read_table
+from glassbox.publishing.render import frame_table
 from recourse import audit
 from recourse.batch import MOST_JOBS, NOT_STATED, plan_many, plans_frame, summary_frame
 from recourse.errors import PlanningError

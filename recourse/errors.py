@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from glassbox.errors import GlassboxError
+from glassbox.core.errors import GlassboxError
 
 
 class MutabilityError(GlassboxError, ValueError):

@@ -28,8 +28,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.errors import DataError, OptionError
-from glassbox.files import output_folder, write_atomic
+from glassbox.core.errors import DataError, OptionError
+from glassbox.core.files import output_folder, write_atomic
 from recourse.mutability import Mutability
 
 MANIFEST = "manifest.json"

@@ -18,9 +18,9 @@ from typing import Any
 
 import numpy as np
 
-from glassbox.additive import AdditiveModel, FeatureProfile, LevelsTerm
-from glassbox.files import read_toml
-from glassbox.schema import is_number
+from glassbox.core.additive import AdditiveModel, FeatureProfile, LevelsTerm
+from glassbox.core.files import read_toml
+from glassbox.core.schema import is_number
 from recourse.errors import MutabilityError
 
 DIRECTIONS = ("at-least", "at-most")

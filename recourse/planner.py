@@ -17,8 +17,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from glassbox.additive import AdditiveModel
-from glassbox.reasons import best_of, central_words
+from glassbox.core.additive import AdditiveModel
+from glassbox.explaining.reasons import best_of, central_words
 from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
 from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability

@@ -8,11 +8,11 @@ from typing import Any
 
 import pandas as pd
 
-from glassbox.additive import AdditiveModel
-from glassbox.errors import value_text
-from glassbox.files import read_json
-from glassbox.rows import row_position
-from glassbox.schema import read_table
+from glassbox.core.additive import AdditiveModel
+from glassbox.core.errors import value_text
+from glassbox.core.files import read_json
+from glassbox.core.rows import row_position
+from glassbox.core.schema import read_table
 from recourse.errors import PlanningError
 
 

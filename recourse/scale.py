@@ -28,11 +28,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from glassbox import artifact
-from glassbox.additive import AdditiveModel
-from glassbox.errors import DataError, GlassboxError, OptionError
-from glassbox.provenance import file_sha256
-from glassbox.workers import become_worker, pool_running, sigint_held
+from glassbox.core import artifact
+from glassbox.core.additive import AdditiveModel
+from glassbox.core.errors import DataError, GlassboxError, OptionError
+from glassbox.core.provenance import file_sha256
+from glassbox.core.workers import become_worker, pool_running, sigint_held
 from recourse.batch import (
     OUTCOME_COLUMNS,
     outcome_frame,

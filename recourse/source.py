@@ -1,12 +1,12 @@
-"""The input file of a population run: `glassbox.stream`'s block reader, with the kept
+"""The input file of a population run: `glassbox.core.stream`'s block reader, with the kept
 columns named by the option that asks for them (--by)."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from glassbox.additive import AdditiveModel
-from glassbox.stream import (
+from glassbox.core.additive import AdditiveModel
+from glassbox.core.stream import (
     Source,
     dask_frame,
     dask_read_error,
@@ -15,7 +15,7 @@ from glassbox.stream import (
     read_error,
     renumbered,
 )
-from glassbox.stream import open_source as _open
+from glassbox.core.stream import open_source as _open
 
 __all__ = ["Source", "dask_frame", "dask_read_error", "dask_session", "open_source",
            "read_blocks", "read_error", "renumbered"]

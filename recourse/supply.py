@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm
 from recourse.candidates import (
     LARGEST_STEP_COUNT,
     WHOLE,

@@ -50,14 +50,14 @@ def hmda() -> pd.DataFrame:
 
 @pytest.fixture(scope="session")
 def loans() -> pd.DataFrame:
-    from glassbox.schema import read_table
+    from glassbox.core.schema import read_table
 
     return read_table(DEMO / "loans.csv")
 
 
 @pytest.fixture(scope="session")
 def loans_schema():
-    from glassbox.schema import load_schema
+    from glassbox.core.schema import load_schema
 
     return load_schema(DEMO / "loans.schema.toml")
 

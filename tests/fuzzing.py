@@ -320,7 +320,7 @@ def _json_mutation(kind: str, text: str, rng: random.Random) -> tuple[str, str]:
 
 
 def _signed(document: dict) -> dict:
-    from glassbox.documents import checksum
+    from glassbox.core.documents import checksum
 
     content_key = next((k for k in ("model", "card") if k in document), None)
     if content_key is None or "checksum" not in document:

@@ -7,7 +7,7 @@ import functools
 
 import pandas as pd
 
-from glassbox.schema import Schema
+from glassbox.core.schema import Schema
 
 from .conftest import reference_data
 

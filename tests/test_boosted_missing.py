@@ -9,10 +9,10 @@ from rich.console import Console
 from sklearn.ensemble import HistGradientBoostingRegressor
 
 from glassbox import fit_model
-from glassbox.errors import DataError
-from glassbox.families import boosted
-from glassbox.render import fit_view
-from glassbox.schema import Schema, prepare
+from glassbox.core.errors import DataError
+from glassbox.core.schema import Schema, prepare
+from glassbox.fitting.families import boosted
+from glassbox.publishing.render import fit_view
 from tests.conftest import reference_data
 from tests.real_credit import credit_rows_with_gaps, credit_schema
 from tests.test_boosted import assert_matches_sklearn, fitted_pair, fresh_rows, sklearn_scores

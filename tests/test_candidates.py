@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 from scipy.stats import iqr, median_abs_deviation, percentileofscore
 
 import glassbox
-from glassbox.additive import FeatureProfile
+from glassbox.core.additive import FeatureProfile
 from recourse import candidates as candidates_module
 from recourse.candidates import (
     NEED_SLACK,

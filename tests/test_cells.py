@@ -10,11 +10,12 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from glassbox import artifact, documents, fit_model
-from glassbox.additive import CurveTerm, LevelsTerm, StepTerm, profile_features
-from glassbox.cells import RESOLUTION, TermCells, summarise_term
-from glassbox.errors import DataError, ModelFileError
-from glassbox.schema import Schema, prepare
+from glassbox import fit_model
+from glassbox.core import artifact, documents
+from glassbox.core.additive import CurveTerm, LevelsTerm, StepTerm, profile_features
+from glassbox.core.cells import RESOLUTION, TermCells, summarise_term
+from glassbox.core.errors import DataError, ModelFileError
+from glassbox.core.schema import Schema, prepare
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 
@@ -130,7 +131,7 @@ def test_a_model_file_without_cells_loads_and_scores_as_before(credit_models, cr
 
 
 def test_regression_models_keep_no_cells(mroz):
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     schema = Schema.from_dict({"target": {"column": "hours", "task": "regression",
                                           "better": "higher"},

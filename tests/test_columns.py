@@ -11,13 +11,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact
 from glassbox.cli import app
-from glassbox.columns import MANY_LEVELS, OTHER_LEVEL, column_role, date_format
-from glassbox.errors import DataError, SchemaError, UnseenLevelWarning
-from glassbox.fitting import fit_model, rows_with_target
-from glassbox.inference import infer_schema
-from glassbox.schema import Schema, load_schema, read_table
+from glassbox.core import artifact
+from glassbox.core.columns import MANY_LEVELS, OTHER_LEVEL, column_role, date_format
+from glassbox.core.errors import DataError, SchemaError, UnseenLevelWarning
+from glassbox.core.inference import infer_schema
+from glassbox.core.schema import Schema, load_schema, read_table
+from glassbox.fitting.fit import fit_model, rows_with_target
 
 from .conftest import one_line_error
 
@@ -345,7 +345,7 @@ def test_dates_read_as_their_age_in_days(tmp_path):
     # own calendar arithmetic (datetime.date), not pandas
     from datetime import date
 
-    from glassbox.schema import prepare
+    from glassbox.core.schema import prepare
 
     frame = as_read("ggplot2", "economics", tmp_path)
     schema = stated(infer_schema(frame, "unemploy", dates_as_age="2016-01-01"))

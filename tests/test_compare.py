@@ -12,7 +12,9 @@ import pytest
 import statsmodels.api as sm
 from sklearn import metrics as skm
 
-from glassbox.compare import (
+from glassbox.core.errors import DataError, OptionError
+from glassbox.core.schema import Schema, prepare
+from glassbox.fitting.compare import (
     CompareSettings,
     compare,
     cost_table,
@@ -20,9 +22,7 @@ from glassbox.compare import (
     make_folds,
     to_markdown,
 )
-from glassbox.compare_files import read_comparison
-from glassbox.errors import DataError, OptionError
-from glassbox.schema import Schema, prepare
+from glassbox.fitting.compare_files import read_comparison
 
 
 def test_corrected_resampled_t_interval_by_hand():
@@ -146,7 +146,7 @@ def test_sparsity_curve_against_statsmodels(sparse_only, hmda):
     # reference: per fold, statsmodels' Logit on the first k features of that fold's L1
     # path (the entry order is checked against statsmodels in test_sparse), scored with
     # sklearn's ROC AUC, averaged over the folds
-    from glassbox.families import sparse
+    from glassbox.fitting.families import sparse
 
     schema = hmda_schema()
     prepared = prepare(hmda, schema)
@@ -274,7 +274,7 @@ def test_keep_scorable_sets_aside_rows_no_fold_model_could_score():
     # Invented data, truth constructed by hand: x is missing in rows 1 and 4, z in row 5.
     # Fold A trains on rows 0-2 (x missing in row 1, z never missing) and tests 3-5;
     # fold B trains on rows 3-5 (x missing in row 4, z in row 5) and tests 0-2.
-    from glassbox.compare import keep_scorable
+    from glassbox.fitting.compare import keep_scorable
 
     features = pd.DataFrame({"x": [1.0, np.nan, 2.0, 3.0, np.nan, 4.0],
                              "z": ["a", "b", "a", "b", "a", None]})
@@ -291,7 +291,7 @@ def test_keep_scorable_sets_aside_rows_no_fold_model_could_score():
 
 def credit_benchmark_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
     """credit_data as scikit-learn takes it with no imputation, built here independently
-    of glassbox.benchmarks: numbers with NaN, categories as codes of their sorted levels
+    of glassbox.fitting.benchmarks: numbers with NaN, categories as codes of their sorted levels
     with a missing value as one more level of its own."""
     columns, categorical = [], []
     for name in features.columns:
@@ -328,7 +328,7 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     from sklearn.ensemble import HistGradientBoostingClassifier
 
     from glassbox import fit_model
-    from glassbox.benchmarks import TREE_LEAVES, TREE_SETTINGS
+    from glassbox.fitting.benchmarks import TREE_LEAVES, TREE_SETTINGS
 
     frame, schema, settings, result = credit_with_gaps_compared
     prepared = prepare(frame, schema)
@@ -371,7 +371,7 @@ def test_forest_benchmark_takes_missing_values_natively(credit_with_gaps_compare
     # support), a missing category as a column of its own.
     from sklearn.ensemble import RandomForestClassifier
 
-    from glassbox.benchmarks import FOREST_SETTINGS, fit_benchmark
+    from glassbox.fitting.benchmarks import FOREST_SETTINGS, fit_benchmark
 
     frame, schema, _, _ = credit_with_gaps_compared
     prepared = prepare(frame, schema)

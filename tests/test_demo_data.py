@@ -11,7 +11,7 @@ import sys
 import pytest
 
 from glassbox import fit_model
-from glassbox.schema import load_schema, prepare, read_table
+from glassbox.core.schema import load_schema, prepare, read_table
 
 from .conftest import DEMO
 

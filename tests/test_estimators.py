@@ -15,11 +15,12 @@ from sklearn.preprocessing import FunctionTransformer
 from sklearn.utils.estimator_checks import parametrize_with_checks
 from typer.testing import CliRunner
 
-from glassbox import artifact, formats, points, reasons
 from glassbox.cli import app
-from glassbox.errors import DataError, SchemaError
-from glassbox.estimators import AdditiveClassifier, AdditiveRegressor
-from glassbox.schema import load_schema, read_table
+from glassbox.core import artifact, formats
+from glassbox.core.errors import DataError, SchemaError
+from glassbox.core.schema import load_schema, read_table
+from glassbox.explaining import points, reasons
+from glassbox.fitting.estimators import AdditiveClassifier, AdditiveRegressor
 
 from .conftest import credit_files, reference_data
 

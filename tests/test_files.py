@@ -18,9 +18,8 @@ import pytest
 from typer.testing import CliRunner
 
 from glassbox import cli as glassbox_cli
-from glassbox import report as report_module
-from glassbox.errors import OptionError
-from glassbox.files import (
+from glassbox.core.errors import OptionError
+from glassbox.core.files import (
     check_output,
     check_output_folder,
     file_kind,
@@ -28,6 +27,7 @@ from glassbox.files import (
     same_file,
     write_atomic,
 )
+from glassbox.publishing import report as report_module
 from recourse import cli as recourse_cli
 
 from .conftest import credit_files, one_line_error

@@ -78,7 +78,7 @@ def test_damaged_files_end_cleanly(inputs, kind, tmp_path, monkeypatch):
         # `report` reads these; its pictures come from the model and the data alone (not
         # damaged here) and take seconds to rasterise, so they are not rasterised here. The
         # fuzz section of bench/run.py runs these cases whole, as real processes.
-        from glassbox import report
+        from glassbox.publishing import report
 
         monkeypatch.setattr(report, "png_bytes", lambda figure: b"")
     failures = []
@@ -96,7 +96,7 @@ def test_fuzzing_can_fail(inputs, tmp_path, monkeypatch):
     hang, one that writes into an input as a changed input (constructed failures)."""
     import time
 
-    from glassbox import artifact
+    from glassbox.core import artifact
 
     case = prepare_case(inputs, "model", 0, tmp_path / "case")
 
@@ -188,7 +188,7 @@ def test_an_error_outside_a_command_is_one_line(monkeypatch):
     # still end as one line: a GlassboxError with exit 2, anything else with exit 1 and no
     # traceback unless GLASSBOX_TRACEBACK=1
     from glassbox import cli
-    from glassbox.errors import OptionError
+    from glassbox.core.errors import OptionError
 
     def refuse():
         raise OptionError("constructed refusal")
@@ -214,7 +214,8 @@ def test_an_error_outside_a_command_is_one_line(monkeypatch):
 def test_an_interrupt_is_one_line_and_status_130(monkeypatch, inputs):
     # issue 13 ("SIGINT prints one line"): an interrupt anywhere is one line and status 130;
     # one raised with words in a command's body (as the audit's resume may) prints those words
-    from glassbox import artifact, cli
+    from glassbox import cli
+    from glassbox.core import artifact
 
     def interrupt(*a, **k):
         raise KeyboardInterrupt

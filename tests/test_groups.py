@@ -8,8 +8,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import groups
-from glassbox.errors import DataError, OptionError
+from glassbox.core.errors import DataError, OptionError
+from glassbox.explaining import groups
 
 from .conftest import reference_data
 from .real_credit import credit_rows_with_gaps
@@ -98,9 +98,9 @@ def test_report_bands_age_from_the_cli(tmp_path):
     # bands given on the command line, with the counts of a direct comparison
     from typer.testing import CliRunner
 
-    from glassbox import artifact
     from glassbox.cli import app
-    from glassbox.fitting import fit_model
+    from glassbox.core import artifact
+    from glassbox.fitting.fit import fit_model
 
     from .conftest import one_line_error
     from .real_credit import credit_rows, credit_schema

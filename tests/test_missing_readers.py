@@ -16,8 +16,9 @@ import pandas as pd
 import pytest
 from matplotlib.container import ErrorbarContainer
 
-from glassbox import artifact, fit_model, formats, plots, reasons, report, shapes
-from glassbox.additive import (
+from glassbox import fit_model
+from glassbox.core import artifact, formats
+from glassbox.core.additive import (
     AdditiveModel,
     CurveTerm,
     LevelsTerm,
@@ -25,8 +26,10 @@ from glassbox.additive import (
     profile_features,
     score_table,
 )
-from glassbox.errors import DataError
-from glassbox.schema import MISSING_LEVEL, Schema, prepare
+from glassbox.core.errors import DataError
+from glassbox.core.schema import MISSING_LEVEL, Schema, prepare
+from glassbox.explaining import reasons, shapes
+from glassbox.publishing import plots, report
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 

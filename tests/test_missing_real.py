@@ -15,7 +15,7 @@ from typer.testing import CliRunner
 
 from glassbox import fit_model
 from glassbox.cli import app
-from glassbox.inference import infer_schema
+from glassbox.core.inference import infer_schema
 
 from .real_credit import credit_rows_with_gaps, gap_ways
 

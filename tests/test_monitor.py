@@ -17,11 +17,11 @@ import pandas as pd
 import pytest
 
 from glassbox import fit_model
-from glassbox.encoding import label_text
-from glassbox.errors import DataError, OptionError
-from glassbox.monitor import monitor
-from glassbox.monitor_counts import Plan, count_block
-from glassbox.monitor_tables import collapsed
+from glassbox.core.encoding import label_text
+from glassbox.core.errors import DataError, OptionError
+from glassbox.explaining.monitor import monitor
+from glassbox.explaining.monitor_counts import Plan, count_block
+from glassbox.explaining.monitor_tables import collapsed
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 
@@ -275,8 +275,8 @@ def test_a_period_without_outcomes_has_none(model, files, frames, tmp_path):
 def test_weighted_sums_equal_the_sums_of_the_rows():
     # exact brute force: the rows written out one by one and summed exactly; constructed
     # values over the whole range of doubles (subnormals, zeros of both signs)
-    from glassbox.exact import ExactSum
-    from glassbox.monitor_counts import weighted_sums
+    from glassbox.core.exact import ExactSum
+    from glassbox.explaining.monitor_counts import weighted_sums
 
     generator = np.random.default_rng(3)
     values = np.concatenate([generator.normal(size=60) * 10.0 ** generator.integers(
@@ -287,7 +287,7 @@ def test_weighted_sums_equal_the_sums_of_the_rows():
 
 def test_few_edges_count_as_a_binary_search_does():
     # numpy's searchsorted (side="left") is the reference, on a real skewed money column
-    from glassbox.baseline import FEW_EDGES, edges_below
+    from glassbox.explaining.baseline import FEW_EDGES, edges_below
 
     income = credit_rows_with_gaps()["Income"].dropna().to_numpy(dtype=float)
     for count in (1, 9, FEW_EDGES, FEW_EDGES + 1):
@@ -298,7 +298,7 @@ def test_few_edges_count_as_a_binary_search_does():
 
 def test_points_by_period_equal_the_cards_own_scoring(model, files, frames):
     # the points of each row as points.score_points gives them, averaged with pandas
-    from glassbox.points import points_card, score_points
+    from glassbox.explaining.points import points_card, score_points
 
     card = points_card(model)
     found = monitor(model, [files / "early.csv", files / "late.csv"], card=card)
@@ -321,7 +321,7 @@ def test_a_regression_outcome_by_period(tmp_path):
     # Student t interval (scipy.stats.t.interval with the standard error of the mean)
     from scipy import stats
 
-    from glassbox.schema import Schema
+    from glassbox.core.schema import Schema
 
     from .conftest import reference_data
 

@@ -12,10 +12,10 @@ import pandas as pd
 import pytest
 from rich.console import Console
 
-from glassbox import monitor_files, monitor_page, monitor_plots, monitor_view
-from glassbox.files import file_kind
-from glassbox.monitor import Monitoring
-from glassbox.report import to_html
+from glassbox.core.files import file_kind
+from glassbox.explaining.monitor import Monitoring
+from glassbox.publishing import monitor_files, monitor_page, monitor_plots, monitor_view
+from glassbox.publishing.report import to_html
 
 LONG = "owner_years_in_the_same_trade_before_this_application"
 
@@ -300,8 +300,8 @@ def test_credit_files_repeat_byte_for_byte_whatever_the_chunks(credit_run):
 def test_credit_split_by_a_column_in_numeric_order(credit_run):
     """Time (the loan's term in months) as the period: 6, 12, ... 60 in number order,
     not text order, and small periods (few rows, sometimes one class) still shown."""
-    from glassbox import artifact
-    from glassbox.monitor import monitor
+    from glassbox.core import artifact
+    from glassbox.explaining.monitor import monitor
 
     folder, model, first, second = credit_run
     result = run("monitor", model, second, "--period", "Time")

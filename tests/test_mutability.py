@@ -17,9 +17,9 @@ import pytest
 from scipy.special import logit
 
 import glassbox
-from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile
-from glassbox.errors import GlassboxError
-from glassbox.schema import FeatureSpec, Schema, TargetSpec
+from glassbox.core.additive import AdditiveModel, CurveTerm, FeatureProfile
+from glassbox.core.errors import GlassboxError
+from glassbox.core.schema import FeatureSpec, Schema, TargetSpec
 from recourse.errors import MutabilityError
 from recourse.mutability import (
     IQR_TO_SD,
@@ -387,7 +387,7 @@ def test_spread_is_one_scale_checked_against_scipy_on_real_columns(credit):
     hmda = reference_data("AER", "HMDA")
     schema = Schema(TargetSpec("deny", "classification",
                                better="lower"), (FeatureSpec("chist", "integer"),))
-    (chist,) = glassbox.additive.profile_features(hmda[["chist"]].astype(float), schema)
+    (chist,) = glassbox.core.additive.profile_features(hmda[["chist"]].astype(float), schema)
     column = hmda["chist"].to_numpy(dtype=float)
     assert median_abs_deviation(column) == 0
     assert unit_spread(chist) == pytest.approx(iqr(column, scale="normal"), rel=1e-12)

@@ -20,7 +20,8 @@ import pytest
 from scipy.special import expit, logit
 from typer.testing import CliRunner
 
-from glassbox import artifact, fit_model
+from glassbox import fit_model
+from glassbox.core import artifact
 from recourse import audit
 from recourse.batch import plan_many, summary_frame, typed_declined
 from recourse.candidates import FARTHEST_STEPS, OUTSIDE

@@ -11,8 +11,8 @@ import pandas as pd
 import pytest
 from scipy.special import expit, logit
 
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm
-from glassbox.schema import Schema
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm
+from glassbox.core.schema import Schema
 from recourse import program
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records

@@ -6,8 +6,9 @@ import numpy as np
 import pytest
 from matplotlib.image import imread
 
-from glassbox import fit_model, plots
-from glassbox.errors import OptionError
+from glassbox import fit_model
+from glassbox.core.errors import OptionError
+from glassbox.publishing import plots
 
 
 @pytest.fixture(scope="module")

@@ -1,4 +1,4 @@
-"""The PMML 4.4 export (glassbox.pmml_export), checked from outside the project.
+"""The PMML 4.4 export (glassbox.publishing.pmml_export), checked from outside the project.
 
 - Structure: every document validates against the PMML 4.4 XML schema that the
   jpmml-evaluator wheel (PyPI) ships inside its pmml-model jar (pmml.xsd,
@@ -27,17 +27,18 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import artifact, cards
-from glassbox.additive import score_table
-from glassbox.cards import PointsCard
 from glassbox.cli import app
-from glassbox.errors import OptionError
-from glassbox.export_tables import card_tables, model_tables
-from glassbox.fitting import fit_model
-from glassbox.pmml_export import card_pmml, model_pmml
-from glassbox.points import points_card, score_points
-from glassbox.reasons import reasons_table
-from glassbox.schema import Schema, load_schema, read_table
+from glassbox.core import artifact
+from glassbox.core.additive import score_table
+from glassbox.core.errors import OptionError
+from glassbox.core.schema import Schema, load_schema, read_table
+from glassbox.explaining import cards
+from glassbox.explaining.cards import PointsCard
+from glassbox.explaining.points import points_card, score_points
+from glassbox.explaining.reasons import reasons_table
+from glassbox.fitting.fit import fit_model
+from glassbox.publishing.export_tables import card_tables, model_tables
+from glassbox.publishing.pmml_export import card_pmml, model_pmml
 
 from .conftest import DEMO, one_line_error
 from .real_credit import credit_rows_with_gaps, export_rows, export_schema

@@ -11,13 +11,15 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import artifact, cards, documents, fit_model, points
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
-from glassbox.cells import summarise_term
+from glassbox import fit_model
 from glassbox.cli import app
-from glassbox.errors import ModelFileError, OptionError, UnseenLevelWarning
-from glassbox.points import Scaling
-from glassbox.schema import Schema, prepare
+from glassbox.core import artifact, documents
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
+from glassbox.core.cells import summarise_term
+from glassbox.core.errors import ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.core.schema import Schema, prepare
+from glassbox.explaining import cards, points
+from glassbox.explaining.points import Scaling
 
 from .conftest import DEMO, one_line_error
 
@@ -31,7 +33,7 @@ def run(*args):
 
 
 def half_up(value: float) -> int:
-    """Rounding halves away from zero, written independently of glassbox.points."""
+    """Rounding halves away from zero, written independently of glassbox.explaining.points."""
     return int(Decimal(repr(value)).quantize(Decimal(1), rounding=ROUND_HALF_UP))
 
 

@@ -10,9 +10,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact, cards, documents, fit_model, points
-from glassbox.additive import AdditiveModel
-from glassbox.errors import DataError, ModelFileError, UnseenLevelWarning
+from glassbox import fit_model
+from glassbox.core import artifact, documents
+from glassbox.core.additive import AdditiveModel
+from glassbox.core.errors import DataError, ModelFileError, UnseenLevelWarning
+from glassbox.explaining import cards, points
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 from .test_cells import gappy_credit_model

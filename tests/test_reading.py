@@ -15,10 +15,11 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import artifact, fit_model
+from glassbox import fit_model
 from glassbox.cli import app
-from glassbox.errors import DataError, ModelFileError
-from glassbox.schema import read_table
+from glassbox.core import artifact
+from glassbox.core.errors import DataError, ModelFileError
+from glassbox.core.schema import read_table
 from recourse.cli import app as recourse_app
 
 from .conftest import credit_files, one_line_error, reference_data
@@ -220,7 +221,7 @@ def test_messages_show_numbers_plainly_not_as_numpy_reprs(credit_csv, tmp_path):
     one_line_error(result, "column 'Seniority' is declared integer", "data row 4",
                    "(first: 2.5)")
     assert "np." not in result.output
-    from glassbox.errors import value_text  # the one helper every message formats values with
+    from glassbox.core.errors import value_text  # the one helper every message formats values with
 
     assert value_text(np.float64(2.5)) == "2.5" and value_text(np.int64(7)) == "7"
 
@@ -391,8 +392,8 @@ def test_random_damage_to_a_real_file_is_read_or_refused_in_one_line(tmp_path):
     """300 seeded random damages of 150 credit_data rows (CSV, and every fifth a Parquet
     file): reading and typing each either works or raises the project's own error, in one
     line with no numpy repr (constructed damage; the file is real)."""
-    from glassbox.errors import GlassboxError
-    from glassbox.schema import prepare
+    from glassbox.core.errors import GlassboxError
+    from glassbox.core.schema import prepare
 
     frame = reference_data("modeldata", "credit_data").head(150)
     frame.to_csv(tmp_path / "clean.csv", index=False)

@@ -16,11 +16,12 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import fit_model, reasons
-from glassbox.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm
+from glassbox import fit_model
 from glassbox.cli import app
-from glassbox.errors import OptionError
-from glassbox.schema import Schema
+from glassbox.core.additive import AdditiveModel, CurveTerm, FeatureProfile, LevelsTerm, StepTerm
+from glassbox.core.errors import OptionError
+from glassbox.core.schema import Schema
+from glassbox.explaining import reasons
 
 from .conftest import DEMO, reference_data
 

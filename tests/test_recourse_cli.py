@@ -10,7 +10,8 @@ import pytest
 from scipy.special import expit
 from typer.testing import CliRunner
 
-from glassbox import artifact, fit_model
+from glassbox import fit_model
+from glassbox.core import artifact
 from recourse.cli import app
 
 from .conftest import DEMO

@@ -18,13 +18,15 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from glassbox import artifact, groups, report
 from glassbox.cli import app
-from glassbox.compare import CompareSettings, accuracy_table, compare
-from glassbox.compare_files import read_comparison
-from glassbox.errors import DataError, OptionError
-from glassbox.fitting import fit_model
-from glassbox.schema import read_table
+from glassbox.core import artifact
+from glassbox.core.errors import DataError, OptionError
+from glassbox.core.schema import read_table
+from glassbox.explaining import groups
+from glassbox.fitting.compare import CompareSettings, accuracy_table, compare
+from glassbox.fitting.compare_files import read_comparison
+from glassbox.fitting.fit import fit_model
+from glassbox.publishing import report
 
 from .conftest import DEMO, credit_files, one_line_error
 
@@ -85,7 +87,7 @@ def work(tmp_path_factory):
     data = folder / "loans800.csv"
     pd.read_csv(DEMO / "loans.csv").head(800).to_csv(data, index=False)
     frame = read_table(data)
-    from glassbox.schema import load_schema
+    from glassbox.core.schema import load_schema
 
     schema = load_schema(DEMO / "loans.schema.toml")
     model = fit_model(frame, schema, "sparse", source=str(data))
@@ -151,7 +153,7 @@ def test_report_content_matches_its_sources(work):
     for model_name in accuracy_table(comparison)["model"]:
         assert f"| {model_name} |" in text
     assert artifact.load(work["model_file"]).metadata["versions"]["numpy"] in text
-    from glassbox.provenance import file_sha256
+    from glassbox.core.provenance import file_sha256
 
     assert file_sha256(work["model_file"]) in text
     assert "owner_age_band" in text and "impact ratio" in text
@@ -478,7 +480,7 @@ def test_an_audit_that_records_no_data_file_is_refused(credit, tmp_path):
 def test_the_accuracy_column_names_its_own_cut_off(credit):
     settings = CompareSettings(families=("sparse",), folds=2, sparsity_curve=False)
     frame = read_table(credit / "first.csv")
-    from glassbox.schema import load_schema
+    from glassbox.core.schema import load_schema
 
     comparison = compare(frame, load_schema(credit / "credit.schema.toml"), settings)
     (credit / "compare.json").write_text(json.dumps(comparison.to_dict()), encoding="utf-8")

@@ -22,8 +22,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import artifact, fit_model
-from glassbox.errors import DataError, OptionError
+from glassbox import fit_model
+from glassbox.core import artifact
+from glassbox.core.errors import DataError, OptionError
 from recourse import audit, manifest
 from recourse.mutability import load_mutability
 from recourse.scale import plan_at_scale
@@ -313,7 +314,7 @@ def test_planning_processes_start_with_sigint_held():
     half-started process (seen in full runs of the SIGINT test above). A process started
     inside `sigint_held` starts with SIGINT blocked (a blocked signal mask is
     inherited and kept across execve, POSIX), and the main process's mask is restored."""
-    from glassbox.workers import sigint_held
+    from glassbox.core.workers import sigint_held
 
     probe = [sys.executable, "-c", "import signal; print(signal.SIGINT in "
              "signal.pthread_sigmask(signal.SIG_BLOCK, set()))"]

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from glassbox import fit_model
-from glassbox.errors import DataError, OptionError
+from glassbox.core.errors import DataError, OptionError
 from recourse import scale
 from recourse.batch import OUTCOME_COLUMNS, outcome_frame, plan_many
 from recourse.mutability import load_mutability

@@ -8,11 +8,11 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from glassbox import guesses
-from glassbox.errors import DataError, SchemaError
-from glassbox.fitting import fit_model
-from glassbox.inference import infer_schema
-from glassbox.schema import Schema, load_schema, prepare, read_table
+from glassbox.core import guesses
+from glassbox.core.errors import DataError, SchemaError
+from glassbox.core.inference import infer_schema
+from glassbox.core.schema import Schema, load_schema, prepare, read_table
+from glassbox.fitting.fit import fit_model
 
 DATA = Path(__file__).resolve().parent / "data"
 
@@ -282,7 +282,7 @@ def test_islr_default_is_lower(islr_default):
 
 
 @pytest.mark.parametrize("target, label, better", [
-    # constructed: the word lists of glassbox.guesses (trade words, common practice)
+    # constructed: the word lists of glassbox.core.guesses (trade words, common practice)
     ("Status", "bad", "lower"), ("Status", "good", "higher"),
     ("loan_status", "Charged Off", "lower"), ("loan_status", "Fully Paid", "higher"),
     ("isFraud", "1", "lower"), ("churned", "true", "lower"), ("approved", "0", "lower"),
@@ -357,7 +357,7 @@ def test_fit_refuses_unstated_better_from_the_cli(tmp_path, mroz):
 def test_model_files_without_better_still_load_as_higher(tmp_path):
     # constructed: a model file written before `better` was always written left it out
     # when it was "higher"; such a file loads (only fitting needs a stated better)
-    from glassbox import artifact, documents
+    from glassbox.core import artifact, documents
 
     model = artifact.load(DATA / "v1" / "credit-sparse-v1.json")
     content = artifact.model_to_dict(model)

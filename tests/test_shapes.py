@@ -6,9 +6,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox import fit_model, formats, shapes
-from glassbox.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
-from glassbox.schema import Schema
+from glassbox import fit_model
+from glassbox.core import formats
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, profile_features
+from glassbox.core.schema import Schema
+from glassbox.explaining import shapes
 
 
 @pytest.fixture(scope="module")

@@ -7,10 +7,11 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from glassbox import artifact, fit_model
-from glassbox.errors import OptionError
-from glassbox.families import sparse
-from glassbox.schema import Schema, prepare
+from glassbox import fit_model
+from glassbox.core import artifact
+from glassbox.core.errors import OptionError
+from glassbox.core.schema import Schema, prepare
+from glassbox.fitting.families import sparse
 
 # plain maximum likelihood (no ridge, no pooled levels): what the textbooks and statsmodels
 # fit, so the comparisons below are like for like
@@ -356,7 +357,7 @@ def test_the_signed_l1_path_meets_the_optimality_conditions(mroz):
     # a zero one |C * score_j| <= 1, a zero one held by its sign s: s * C * score_j <= 1.
     from sklearn.svm import l1_min_c
 
-    from glassbox.families import signed
+    from glassbox.fitting.families import signed
 
     schema = declared({"column": "inlf", "positive": 1, "better": "higher"},
                       {name: ("decreasing" if name == "exper" else None)

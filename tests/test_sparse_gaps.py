@@ -13,9 +13,9 @@ import statsmodels.api as sm
 from rich.console import Console
 
 from glassbox import fit_model
-from glassbox.additive import LevelsTerm
-from glassbox.render import fit_view
-from glassbox.schema import Schema
+from glassbox.core.additive import LevelsTerm
+from glassbox.core.schema import Schema
+from glassbox.publishing.render import fit_view
 
 from .real_credit import credit_rows_with_gaps, credit_schema
 from .test_sparse import PLAIN, per_unit

@@ -14,9 +14,10 @@ from pygam import LinearGAM, LogisticGAM, f, l, s
 from scipy import stats
 from threadpoolctl import threadpool_limits
 
-from glassbox import artifact, fit_model
-from glassbox.errors import DataError, OptionError, SchemaError, UnseenLevelWarning
-from glassbox.schema import Schema, prepare
+from glassbox import fit_model
+from glassbox.core import artifact
+from glassbox.core.errors import DataError, OptionError, SchemaError, UnseenLevelWarning
+from glassbox.core.schema import Schema, prepare
 
 from .conftest import reference_data
 

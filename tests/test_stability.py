@@ -13,7 +13,7 @@ from scipy import stats
 from sklearn.metrics import roc_auc_score
 from statsmodels.stats.proportion import proportion_confint
 
-from glassbox.stability import (
+from glassbox.explaining.stability import (
     ACT,
     CHANGED,
     CLIPPED,

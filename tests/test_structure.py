@@ -24,20 +24,21 @@ import pytest
 from scipy import stats
 from typer.testing import CliRunner
 
-from glassbox import artifact, documents, points, structure
-from glassbox.additive import AdditiveModel, CurveTerm, score_table
 from glassbox.cli import app
-from glassbox.compare import (
+from glassbox.core import artifact, documents, structure
+from glassbox.core.additive import AdditiveModel, CurveTerm, score_table
+from glassbox.core.errors import DataError, GlassboxError, ModelFileError, OptionError
+from glassbox.core.provenance import fit_day
+from glassbox.core.schema import Schema, load_schema
+from glassbox.explaining import points
+from glassbox.fitting.compare import (
     CompareSettings,
     cost_table,
     interval,
     summarise,
 )
-from glassbox.compare_files import comparison_from_dict, read_comparison
-from glassbox.errors import DataError, GlassboxError, ModelFileError, OptionError
-from glassbox.provenance import fit_day
-from glassbox.report_recourse import read_audit
-from glassbox.schema import Schema, load_schema
+from glassbox.fitting.compare_files import comparison_from_dict, read_comparison
+from glassbox.publishing.report_recourse import read_audit
 
 from .conftest import credit_files, one_line_error, reference_data
 

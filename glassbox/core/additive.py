@@ -1,0 +1,550 @@
+"""The one representation: an additive model whose terms are tables.
+
+    score(x) = intercept + sum_j f_j(x_j)
+
+Each f_j is a table: a curve (piecewise-linear over knots), steps
+(piecewise-constant over bin edges) or levels (one value per category). What an
+auditor reads in these tables is exactly what scores a row. Numeric values
+beyond the training range are scored at the table's ends (clamped).
+
+Every table also has an entry for a missing value (`missing`): what a row with no
+value for the feature adds, learned from training rows that had none. A term whose
+training data had no missing value has `missing = None` and refuses to score one.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any, ClassVar
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+
+from glassbox.core.cells import TermCells
+from glassbox.core.errors import (
+    DataError,
+    ModelFileError,
+    OptionError,
+    UnseenLevelWarning,
+    value_text,
+)
+from glassbox.core.schema import Schema, prepare, rows_text
+
+if TYPE_CHECKING:
+    from glassbox.explaining.baseline import Baseline
+
+LINKS = ("logit", "identity")
+PERCENTILE_POINTS = 101
+FEW_VALUES = 64  # numeric features with at most this many distinct values keep exact counts
+
+
+def _floats(values: Sequence[float] | np.ndarray) -> tuple[float, ...]:
+    return tuple(float(v) for v in values)
+
+
+def _band(term: Any, values: np.ndarray) -> None:
+    for name in ("lower", "upper"):
+        band = getattr(term, name)
+        if band is not None and len(band) != len(values):
+            raise ModelFileError(f"term '{term.feature}': {name} band has {len(band)} entries "
+                                 f"for {len(values)} values")
+    if term.missing is not None and not np.isfinite(term.missing):
+        raise ModelFileError(f"term '{term.feature}': the missing-value entry must be a number")
+    if term.missing_band is not None and (term.missing is None or len(term.missing_band) != 2):
+        raise ModelFileError(f"term '{term.feature}': a missing-value band needs a missing "
+                             "value and two ends")
+
+
+def _with_missing(term: Any, column: np.ndarray, values: np.ndarray,
+                  absent: np.ndarray) -> np.ndarray:
+    """`values` with the term's missing-value entry where the column has no value."""
+    if absent.any():
+        if term.missing is None:
+            refuse_missing(term.feature, absent, "the data", "the model has no entry")
+        values = np.where(absent, term.missing, values)
+    return values
+
+
+@dataclass(frozen=True)
+class CurveTerm:
+    """Piecewise-linear in the feature: straight lines between (knot, value) pairs."""
+
+    feature: str
+    knots: tuple[float, ...]
+    values: tuple[float, ...]
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
+    kind: ClassVar[str] = "curve"
+
+    def __post_init__(self) -> None:
+        knots = np.asarray(self.knots, dtype=float)
+        if len(knots) == 0 or len(knots) != len(self.values):
+            raise ModelFileError(f"curve '{self.feature}': needs as many values as knots (≥1)")
+        if np.any(np.diff(knots) <= 0):
+            raise ModelFileError(f"curve '{self.feature}': knots must be strictly increasing")
+        _band(self, knots)
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        column = np.asarray(column, dtype=float)
+        values = np.interp(column, self.knots, self.values)
+        return _with_missing(self, column, values, np.isnan(column))
+
+    def shifted(self, delta: float) -> CurveTerm:
+        return replace(self, **_shift_all(self, delta))
+
+
+@dataclass(frozen=True)
+class StepTerm:
+    """Piecewise-constant: value i applies to edges[i-1] < x <= edges[i].
+
+    `edges` are the n-1 inner thresholds of n bins; the first bin runs down to
+    minus infinity and the last up to plus infinity.
+    """
+
+    feature: str
+    edges: tuple[float, ...]
+    values: tuple[float, ...]
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
+    kind: ClassVar[str] = "steps"
+
+    def __post_init__(self) -> None:
+        if len(self.values) != len(self.edges) + 1:
+            raise ModelFileError(f"steps '{self.feature}': needs one more value than edges")
+        if np.any(np.diff(np.asarray(self.edges, dtype=float)) <= 0):
+            raise ModelFileError(f"steps '{self.feature}': edges must be strictly increasing")
+        _band(self, np.asarray(self.values))
+
+    def bin_of(self, column: np.ndarray) -> np.ndarray:
+        return np.searchsorted(np.asarray(self.edges), np.asarray(column, dtype=float),
+                               side="left")
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        column = np.asarray(column, dtype=float)
+        values = np.asarray(self.values)[self.bin_of(column)]
+        return _with_missing(self, column, values, np.isnan(column))
+
+    def shifted(self, delta: float) -> StepTerm:
+        return replace(self, **_shift_all(self, delta))
+
+
+@dataclass(frozen=True)
+class LevelsTerm:
+    """One value per category level, and a value for a level never seen in training."""
+
+    feature: str
+    levels: tuple[str, ...]
+    values: tuple[float, ...]
+    unseen: float = 0.0
+    lower: tuple[float, ...] | None = None
+    upper: tuple[float, ...] | None = None
+    missing: float | None = None
+    missing_band: tuple[float, float] | None = None
+    kind: ClassVar[str] = "levels"
+
+    def __post_init__(self) -> None:
+        if len(self.levels) != len(self.values) or not self.levels:
+            raise ModelFileError(f"levels '{self.feature}': needs one value per level (≥1)")
+        if len(set(self.levels)) != len(self.levels):
+            raise ModelFileError(f"levels '{self.feature}': a level is listed twice")
+        _band(self, np.asarray(self.values))
+
+    def evaluate(self, column: np.ndarray) -> np.ndarray:
+        column = np.asarray(column, dtype=object)
+        absent = pd.isna(column)
+        position = pd.Index(self.levels).get_indexer(column)
+        unseen = (position < 0) & ~absent
+        values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
+        if unseen.any():
+            strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
+            warnings.warn(
+                f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
+                f"in training ({', '.join(map(value_text, strange))}); scored with the "
+                f"unseen-level value {self.unseen:.4g}",
+                UnseenLevelWarning, stacklevel=3,
+            )
+            values[unseen] = self.unseen
+        return _with_missing(self, column, values, absent)
+
+    def shifted(self, delta: float) -> LevelsTerm:
+        changes = _shift_all(self, delta)
+        changes["unseen"] = float(self.unseen - delta)
+        return replace(self, **changes)
+
+
+Term = CurveTerm | StepTerm | LevelsTerm
+TERM_TYPES: dict[str, type] = {t.kind: t for t in (CurveTerm, StepTerm, LevelsTerm)}
+
+
+def _shift_all(term: Term, delta: float) -> dict[str, Any]:
+    changes: dict[str, Any] = {"values": _floats(np.asarray(term.values) - delta)}
+    for name in ("lower", "upper"):
+        band = getattr(term, name)
+        if band is not None:
+            changes[name] = _floats(np.asarray(band) - delta)
+    if term.missing is not None:
+        changes["missing"] = float(term.missing - delta)
+    if term.missing_band is not None:
+        changes["missing_band"] = _floats(np.asarray(term.missing_band) - delta)
+    return changes
+
+
+def term_to_dict(term: Term) -> dict[str, Any]:
+    """A term as plain JSON-ready data."""
+    data: dict[str, Any] = {"feature": term.feature, "kind": term.kind}
+    if isinstance(term, CurveTerm):
+        data["knots"] = list(term.knots)
+    elif isinstance(term, StepTerm):
+        data["edges"] = list(term.edges)
+    else:
+        data["levels"] = list(term.levels)
+        data["unseen"] = term.unseen
+    data["values"] = list(term.values)
+    for name in ("lower", "upper"):
+        if getattr(term, name) is not None:
+            data[name] = list(getattr(term, name))
+    if term.missing is not None:
+        data["missing"] = term.missing
+    if term.missing_band is not None:
+        data["missing_band"] = list(term.missing_band)
+    return data
+
+
+def term_from_dict(data: Mapping[str, Any]) -> Term:
+    """Rebuild a term from `term_to_dict` output."""
+    kind = data.get("kind")
+    if kind not in TERM_TYPES:
+        raise ModelFileError(f"unknown term kind {kind!r}")
+    try:
+        band: dict[str, Any] = {name: _floats(data[name]) for name in ("lower", "upper")
+                                if name in data}
+        if data.get("missing") is not None:
+            band["missing"] = float(data["missing"])
+        if data.get("missing_band") is not None:
+            band["missing_band"] = _floats(data["missing_band"])
+        if kind == "curve":
+            return CurveTerm(str(data["feature"]), _floats(data["knots"]),
+                             _floats(data["values"]), **band)
+        if kind == "steps":
+            return StepTerm(str(data["feature"]), _floats(data["edges"]),
+                            _floats(data["values"]), **band)
+        return LevelsTerm(str(data["feature"]), tuple(str(v) for v in data["levels"]),
+                          _floats(data["values"]), float(data.get("unseen", 0.0)), **band)
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ModelFileError(f"term {data.get('feature')!r} is incomplete: {exc}") from None
+
+
+# ---------------------------------------------------------------- profiles
+
+
+@dataclass(frozen=True)
+class FeatureProfile:
+    """What the training data looked like for one feature.
+
+    Numeric features keep 101 percentiles (0%, 1%, ..., 100%), the mean and the
+    median absolute deviation, and, when they take few distinct values (flags,
+    small counts), the count of each value; categories keep their level counts.
+    """
+
+    feature: str
+    kind: str
+    percentiles: tuple[float, ...] = ()
+    mean: float | None = None
+    spread: float | None = None
+    level_counts: tuple[tuple[str, int], ...] = ()
+    value_counts: tuple[tuple[float, int], ...] = ()
+    missing: int = 0
+    rows: int = 0
+
+    @property
+    def missing_share(self) -> float | None:
+        """The share of training rows with no value (None when the profile predates it)."""
+        return self.missing / self.rows if self.rows else None
+
+    @property
+    def minimum(self) -> float:
+        return self.percentiles[0]
+
+    @property
+    def maximum(self) -> float:
+        return self.percentiles[-1]
+
+    def percentile_of(self, values: Sequence[float] | np.ndarray) -> np.ndarray:
+        """Each value's training percentile, ties counted half: 100 x (rows below it + half
+        the rows equal to it) / rows, the mid-rank of scipy.stats.percentileofscore(kind=
+        "mean"). Every reader of the profile turns values into percentiles through this.
+
+        Exact from `value_counts` when the profile keeps them. Otherwise read off the 101
+        stored percentiles: a run of equal stored percentiles k..m at v is a tie, and v gets
+        (k + m) / 2; between two stored values the rank runs linearly from the last percent
+        at the lower to the first at the upper, within about one percentage point (one 1%
+        slice of the rows) of the exact rank. Below the minimum 0, above the maximum 100.
+        The share of rows at or below x is the rank just above x (`np.nextafter(x, inf)`).
+        The way back, a percentile's value, is the stored table read linearly
+        (numpy.percentile's own convention), which this rank inverts outside ties.
+        """
+        given = np.asarray(values, dtype=float)
+        values = given.ravel()
+        if self.value_counts:
+            pairs = sorted(self.value_counts)
+            points = np.array([v for v, _ in pairs])
+            before = np.concatenate([[0.0], np.cumsum([c for _, c in pairs], dtype=float)])
+            below = before[np.searchsorted(points, values, side="left")]
+            upto = before[np.searchsorted(points, values, side="right")]
+            return (100.0 * (below + upto) / (2.0 * before[-1])).reshape(given.shape)
+        if not self.percentiles:
+            raise OptionError(f"'{self.feature}' has no training percentiles (a category?)")
+        table = np.asarray(self.percentiles, dtype=float)
+        grid = np.linspace(0.0, 100.0, len(table))
+        points, first = np.unique(table, return_index=True)
+        low = grid[first]  # the first and last percent at each distinct stored value
+        high = grid[len(table) - 1 - np.unique(table[::-1], return_index=True)[1]]
+        out = np.full(values.shape, 50.0)
+        if len(points) > 1:
+            right = np.clip(np.searchsorted(points, values, side="left"), 1, len(points) - 1)
+            left = right - 1
+            with np.errstate(invalid="ignore", over="ignore"):  # values beyond the ends: below
+                share = (values - points[left]) / (points[right] - points[left])
+                out = high[left] + share * (low[right] - high[left])
+        tied = np.isin(values, points)
+        out[tied] = ((low + high) / 2.0)[np.searchsorted(points, values[tied])]
+        out[values < points[0]] = 0.0
+        out[values > points[-1]] = 100.0
+        return out.reshape(given.shape)
+
+    def to_dict(self) -> dict[str, Any]:
+        data: dict[str, Any] = {"feature": self.feature, "kind": self.kind}
+        if self.percentiles:
+            data.update(percentiles=list(self.percentiles), mean=self.mean,
+                        median_absolute_deviation=self.spread)
+        if self.level_counts:
+            data["level_counts"] = {level: count for level, count in self.level_counts}
+        if self.value_counts:
+            data["value_counts"] = [[value, count] for value, count in self.value_counts]
+        if self.rows:
+            data.update(rows=self.rows, missing=self.missing)
+        return data
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> FeatureProfile:
+        counts = data.get("level_counts", {})
+        return cls(
+            feature=str(data["feature"]), kind=str(data["kind"]),
+            percentiles=_floats(data.get("percentiles", ())),
+            mean=data.get("mean"), spread=data.get("median_absolute_deviation"),
+            level_counts=tuple((str(k), int(v)) for k, v in counts.items()),
+            value_counts=tuple((float(v), int(c)) for v, c in data.get("value_counts", ())),
+            missing=int(data.get("missing", 0)), rows=int(data.get("rows", 0)),
+        )
+
+
+def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeatureProfile, ...]:
+    """Training percentiles, mean, spread and level counts of every used feature, over the
+    rows that have a value, and how many rows have none."""
+    profiles = []
+    for name in features.columns:
+        spec = schema.feature(name)
+        column = features[name]
+        absent = column.isna().to_numpy()
+        counted = {"missing": int(absent.sum()), "rows": int(len(column))}
+        if spec.kind == "category":
+            counts = column.value_counts()
+            ordered = sorted(counts.items(), key=lambda item: (-item[1], item[0]))
+            profiles.append(FeatureProfile(name, spec.kind,
+                                           level_counts=tuple((str(k), int(v))
+                                                              for k, v in ordered), **counted))
+            continue
+        values = column.to_numpy(dtype=float)[~absent]
+        if len(values) == 0:
+            raise DataError(f"column '{name}' has no values at all; drop it or mark it "
+                            "ignore = true in the schema")
+        grid = np.linspace(0, 100, PERCENTILE_POINTS)
+        percentiles = np.percentile(values, grid)
+        median = float(np.median(values))
+        distinct, counts = np.unique(values, return_counts=True)
+        value_counts = (tuple((float(v), int(c)) for v, c in zip(distinct, counts, strict=True))
+                        if len(distinct) <= FEW_VALUES else ())
+        profiles.append(FeatureProfile(
+            name, spec.kind, percentiles=_floats(percentiles), mean=float(values.mean()),
+            spread=float(np.median(np.abs(values - median))), value_counts=value_counts,
+            **counted,
+        ))
+    return tuple(profiles)
+
+
+# ---------------------------------------------------------------- the model
+
+
+@dataclass(frozen=True)
+class AdditiveModel:
+    """Intercept, link and one table per feature; scores frames exactly as its tables say.
+
+    `cells` summarise the training rows under numeric terms exactly (see
+    `glassbox.core.cells`); models fitted before they existed have none. `baseline` is the
+    development summary monitoring compares periods with (`glassbox.explaining.baseline`); models
+    fitted before it existed have none.
+    """
+
+    link: str
+    intercept: float
+    terms: tuple[Term, ...]
+    schema: Schema
+    profiles: tuple[FeatureProfile, ...] = ()
+    metadata: Mapping[str, Any] = field(default_factory=dict)
+    cells: tuple[TermCells, ...] = ()
+    baseline: Baseline | None = None
+
+    def __post_init__(self) -> None:
+        if self.link not in LINKS:
+            raise ModelFileError(f"unknown link {self.link!r} (expected logit or identity)")
+        names = [t.feature for t in self.terms]
+        if len(set(names)) != len(names):
+            raise ModelFileError("a feature has more than one term")
+        used = {f.name for f in self.schema.used_features}
+        stray = [n for n in names if n not in used]
+        if stray:
+            raise ModelFileError(f"term(s) for {', '.join(stray)} which the schema does not use")
+        summarised = [c.feature for c in self.cells]
+        if len(set(summarised)) != len(summarised) or not set(summarised) <= used:
+            raise ModelFileError("training cells must belong to features the schema uses, "
+                                 "one summary per feature")
+
+    @property
+    def features(self) -> tuple[str, ...]:
+        return tuple(t.feature for t in self.terms)
+
+    @property
+    def task(self) -> str:
+        return "classification" if self.link == "logit" else "regression"
+
+    def term(self, feature: str) -> Term:
+        for term in self.terms:
+            if term.feature == feature:
+                return term
+        raise OptionError(f"the model has no term for '{feature}' "
+                          f"(its features: {', '.join(self.features)})")
+
+    def profile(self, feature: str) -> FeatureProfile:
+        for profile in self.profiles:
+            if profile.feature == feature:
+                return profile
+        raise OptionError(f"the model keeps no training profile for '{feature}'")
+
+    def cells_of(self, feature: str) -> TermCells | None:
+        """The training cells under a feature's term, if the model keeps them."""
+        return next((c for c in self.cells if c.feature == feature), None)
+
+    def encode(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
+        """Validate and type the model's feature columns of a raw frame."""
+        if not isinstance(frame, pd.DataFrame):
+            raise DataError("expected a pandas DataFrame of feature columns")
+        encoded = prepare(frame, self.schema, require_target=False, source=source,
+                          features=self.features).features
+        self.check_missing(encoded, source or frame.attrs.get("source") or "the data")
+        return encoded
+
+    def check_missing(self, encoded: pd.DataFrame, where: str) -> None:
+        """Refuse rows missing a feature whose term learned no missing-value entry."""
+        for term in self.terms:
+            if term.missing is None:
+                refuse_missing(term.feature, encoded[term.feature].isna().to_numpy(), where,
+                               "the model has no entry")
+
+    def contributions(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
+        """One column per term: what each feature adds to the score of each row."""
+        encoded = self.encode(frame, source)
+        return self.contributions_encoded(encoded)
+
+    def contributions_encoded(self, encoded: pd.DataFrame) -> pd.DataFrame:
+        """Contributions for a frame already typed by `encode`."""
+        columns = {t.feature: t.evaluate(encoded[t.feature].to_numpy()) for t in self.terms}
+        return pd.DataFrame(columns, index=encoded.index, columns=list(self.features))
+
+    def score(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """The score on the link scale (log-odds for classification)."""
+        return self.intercept + self.contributions(frame, source).sum(axis=1).to_numpy()
+
+    def score_encoded(self, encoded: pd.DataFrame) -> np.ndarray:
+        """The score of a frame already typed by `encode` (the terms added in order)."""
+        total = np.full(len(encoded), float(self.intercept))
+        for term in self.terms:
+            total += term.evaluate(encoded[term.feature].to_numpy())
+        return total
+
+    def probability(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """Probability of the positive class (classification models only)."""
+        if self.link != "logit":
+            raise OptionError("a regression model has no probability; use score")
+        return expit(self.score(frame, source))
+
+    def predict(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
+        """Probability for classification, the predicted value for regression."""
+        score = self.score(frame, source)
+        return expit(score) if self.link == "logit" else score
+
+    def inverse_link(self, score: np.ndarray) -> np.ndarray:
+        return expit(score) if self.link == "logit" else np.asarray(score)
+
+
+def refuse_missing(feature: str, absent: np.ndarray, where: str, holder: str) -> None:
+    """Raise a DataError naming the rows where `feature` has no value, if any; `holder`
+    says what lacks an entry for it ("the model has no entry")."""
+    if absent.any():
+        raise DataError(
+            f"{where}: column '{feature}' has {int(absent.sum())} missing value(s) in "
+            f"{rows_text(absent)}, and {holder} for a missing '{feature}' (its training "
+            "data had none); supply the values, or give the feature a fill value in the "
+            "schema")
+
+
+def centre_terms(
+    terms: Sequence[Term], encoded: pd.DataFrame
+) -> tuple[tuple[Term, ...], float]:
+    """Shift every term to mean zero over the rows; return the terms and the total shift."""
+    centred = []
+    total = 0.0
+    for term in terms:
+        mean = float(np.mean(term.evaluate(encoded[term.feature].to_numpy())))
+        centred.append(term.shifted(mean))
+        total += mean
+    return tuple(centred), total
+
+
+def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = None,
+                contributions: bool = True) -> pd.DataFrame:
+    """Per row: the id (when the schema names one), score, probability or prediction,
+    `missing` (when the model has a missing-value entry: the features the row has no
+    value for, in model order, joined by "; ") and each term's contribution
+    (`contribution:FEATURE`)."""
+    prepared = prepare(frame, model.schema, require_target=False, source=source,
+                       features=model.features)
+    model.check_missing(prepared.features, source or frame.attrs.get("source") or "the data")
+    parts = model.contributions_encoded(prepared.features)
+    with np.errstate(over="ignore", invalid="ignore"):  # refused just below
+        score = model.intercept + parts.sum(axis=1).to_numpy()
+    beyond = ~np.isfinite(score)
+    if beyond.any():  # never inf or NaN in an output: the rows are named instead
+        raise DataError(f"{source or frame.attrs.get('source') or 'the data'}: the score of "
+                        f"{rows_text(beyond)} is not a finite number (the model's tables "
+                        "add up beyond the finite numbers)")
+    out = pd.DataFrame(index=frame.index)
+    if prepared.ids is not None:
+        out[model.schema.id_column] = prepared.ids
+    out["score"] = score
+    out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
+    if any(t.missing is not None for t in model.terms):
+        absent = prepared.features[list(model.features)].isna().to_numpy()
+        out["missing"] = ["; ".join(n for n, gone in zip(model.features, row, strict=True)
+                                    if gone) for row in absent]
+    if contributions:
+        out["intercept"] = model.intercept
+        for name in parts.columns:
+            out[f"contribution:{name}"] = parts[name]
+    return out.reset_index(drop=True)

@@ -1,0 +1,95 @@
+"""Comparison files: a `glassbox compare --format json` file read back into a `Comparison`,
+checked against its declared structure and each metric's range (versions 1 and 2)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from glassbox.core import structure
+from glassbox.core.errors import DataError, value_text
+from glassbox.core.files import read_json
+from glassbox.fitting.compare import FORMAT, HIGHER_IS_BETTER, VERSION, Comparison, make_headline
+from glassbox.fitting.intervals import COST_RANGES, METRIC_RANGES, read_within_ranges
+
+NUMBER_COLUMNS = ("mean", "cost", "lower", "upper", "t", "p_value")
+
+
+def _version_one_costs(differences: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Version 1 files kept glass-box minus benchmark for every metric: turn that into
+    costs (`COST_CONVENTION`), flipping the metrics where higher is better."""
+    costs = []
+    for row in differences:
+        flip = -1.0 if HIGHER_IS_BETTER.get(row.get("metric"), True) else 1.0
+        ends = sorted(flip * float(v) if v is not None else math.nan
+                      for v in (row.get("lower"), row.get("upper")))
+        costs.append({"model": row.get("model"), "metric": row.get("metric"),
+                      "cost": flip * float(row["mean"]), "lower": ends[0], "upper": ends[1],
+                      "t": None if row.get("t") is None else flip * float(row["t"]),
+                      "p_value": row.get("p_value"),
+                      "distinguishable": row.get("distinguishable")})
+    return costs
+
+
+def comparison_from_dict(document: Any, source: str = "the comparison") -> Comparison:
+    """Rebuild a `Comparison` from `Comparison.to_dict` output (a comparison JSON file).
+
+    Version 1 files (without the schema, with differences signed glass-box minus
+    benchmark) are read too: their differences become costs and their headline is
+    written again in today's words from their numbers.
+    """
+    if not isinstance(document, dict) or document.get("format") != FORMAT:
+        raise DataError(f"{source} is not a glassbox comparison file (no \"format\": "
+                        f"\"{FORMAT}\")")
+    version = document.get("version")
+    if version not in (1, VERSION):
+        raise DataError(f"{source} is comparison format version {version!r}; this glassbox "
+                        f"reads versions 1 and {VERSION}")
+    structure.check(structure.COMPARISON, document, source, DataError)
+
+    def table(rows: Any) -> pd.DataFrame:
+        frame = pd.DataFrame(rows or [])
+        for column in NUMBER_COLUMNS:
+            if column in frame:
+                frame[column] = pd.to_numeric(frame[column], errors="coerce").astype(float)
+        return frame
+
+    try:
+        costs = read_within_ranges(_version_one_costs(document["differences"]) if version == 1
+                                   else document["costs"], COST_RANGES, "cost", source, "costs")
+        models = table(read_within_ranges(document["models"], METRIC_RANGES, "mean", source,
+                                          "models")).drop(columns=["t", "p_value"],
+                                                          errors="ignore")
+        comparison = Comparison(
+            task=str(document["task"]), primary=str(document["primary_metric"]),
+            headline=str(document["headline"]), models=models, costs=table(costs),
+            folds=table(document.get("folds")), sparsity=table(read_within_ranges(
+                document.get("sparsity_curve") or [], METRIC_RANGES, "mean", source,
+                "sparsity_curve")),
+            settings=dict(document["settings"]), provenance=dict(document["provenance"]),
+            schema=document.get("schema"))
+        if version == 1:
+            benchmark = f"benchmark ({comparison.settings['benchmark']})"
+            comparison = replace(comparison, headline=make_headline(
+                models, comparison.costs, comparison.primary, benchmark))
+    except (KeyError, TypeError, ValueError, IndexError) as exc:
+        raise DataError(f"{source} is incomplete: {type(exc).__name__} {exc}") from None
+    for name, frame, keys in (("models", comparison.models, ["model", "metric"]),
+                              ("costs", comparison.costs, ["model", "metric"]),
+                              ("sparsity_curve", comparison.sparsity, ["max_features", "metric"])):
+        twice = frame.duplicated(keys) if set(keys) <= set(frame.columns) else []
+        if any(twice):
+            first = frame[twice].iloc[0]
+            raise DataError(f"{source}: {name} holds {keys[0]} {value_text(first[keys[0]])}, "
+                            f"metric {value_text(first['metric'])} twice")
+    return comparison
+
+
+def read_comparison(path: str | Path) -> Comparison:
+    """Read a comparison JSON file written by `glassbox compare --format json`."""
+    document = read_json(path, "comparison file", DataError)
+    return comparison_from_dict(document, f"comparison file {path}")

@@ -1,0 +1,528 @@
+"""Penalised-spline family: a pygam additive model compiled into term tables.
+
+Terms. Each numeric feature gets a penalised cubic B-spline (`s`), each category
+a factor term (`f`, levels coded 0, 1, ... in sorted order) and each flag or
+other two-valued feature an unpenalised linear term (`l`). A monotone
+declaration becomes pygam's `monotonic_inc` / `monotonic_dec` constraint on the
+score (log-odds of the positive class). Classification uses `LogisticGAM`,
+regression `LinearGAM`.
+
+Scale. A spline is fitted on h(x), a monotone increasing map of the feature
+chosen by `spline_scale` (spline_scale: "power", the Box-Cox power most like a
+normal sample, by default; "rank", knots at training quantiles; "raw", pygam's
+even knots), and tabulated in x. Each term's map is in `details["scales"]` and
+its description in `details["terms"]`.
+
+Penalty. Each spline and factor term gets its own multiplier from the
+`penalties` grid, chosen by `criterion` ("risk": UBRE for classification, GCV
+for regression; "aic") in a coordinate-wise search from the best shared value
+(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. pygam
+then fits once, at the chosen penalties, started from the search's solution.
+The grid, the shared stage's criterion values, each term's penalty and what the
+search did are kept in `details`.
+
+Tables. Values and the pointwise 95% band are pygam's partial dependence at each
+knot. An integer feature with a short range is tabulated at every whole number
+in it; another curve at every distinct training value and an even grid when they
+fit in `knots`, else at training quantiles and even points, refined where the
+table strays more than 1e-4 from pygam (the largest stray left is
+`details["table_error"]`). What the soft constraint leaves of wrong-way steps
+(about 1e-9) is removed so monotone tables are exactly monotone
+(`details["monotone_repair"]`). A level never seen in training scores the
+training-weighted mean of the level values: 0, the average, once `fit_model`
+has centred the term.
+
+Missing values. A numeric feature whose training column has missing values gets a
+0/1 indicator term (pygam `l`, unpenalised) beside its spline or linear term, fitted
+jointly; the smooth sees the feature's median training value (the lower middle one,
+a value it takes) in the missing rows. The indicator is unpenalised so the stand-in
+does not matter: whatever value the smooth is evaluated at, the indicator moves the
+missing rows' contribution freely, so the fit of the smooth and of every row is the
+same for any stand-in inside the range (a penalty on the indicator would pull missing
+rows toward the smooth at an arbitrary point). It is one coefficient, so it needs no
+penalty for stability unless the missing rows are nearly all of one class. The
+term's `missing` entry is what a missing row gets: the smooth at the stand-in plus the
+indicator's coefficient; its band is that sum's, from the same covariance and
+centring as the curve's (the curve's band now also carries the indicator's share of
+the centring). A monotone declaration constrains the spline only. Each indicator's
+rows, stand-in and coefficient are in `details["missing_indicators"]`, with a note
+("unidentified") where the data cannot pin the entry down: missing rows all of one
+class, or missing on exactly the rows of another feature (see `unidentified`); the
+fit summary lists those features. A missing
+category arrives as the level "(missing)" (see `fit_model`) and is fitted as a level.
+
+Errors and fallbacks. A feature with a single distinct value is a `DataError`.
+A numeric feature with fewer distinct values than `splines` gets one basis
+function per value (at least four); a monotone two-valued feature gets a
+constrained spline of four, as pygam's linear term takes no constraint; both are
+recorded in `details["fallbacks"]`. A bad option is an `OptionError` naming it.
+A pygam fit that did not converge leaves `details["converged"]` false. A
+monotone category is refused by the schema itself.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from pygam import LinearGAM, LogisticGAM
+from pygam.terms import FactorTerm, Intercept, LinearTerm, SplineTerm, TermList
+from scipy import stats
+from threadpoolctl import threadpool_limits
+
+from glassbox.core.additive import CurveTerm, LevelsTerm, Term
+from glassbox.core.errors import DataError, OptionError, value_text
+from glassbox.core.schema import Schema
+from glassbox.fitting.families.base import FamilyFit
+from glassbox.fitting.families.spline_penalty import Search, build_problem, search_penalties
+from glassbox.fitting.families.spline_scale import SCALES, Scale, fit_scale
+
+NAME = "spline"
+DEFAULTS: dict[str, Any] = {
+    "splines": 20,
+    "penalties": (0.01, 0.1, 1.0, 10.0, 100.0, 1000.0, 10000.0),
+    "criterion": "risk",
+    "max_iter": 100,
+    "knots": 400,
+    "spline_scale": "power",
+    "penalty_scope": "term",
+}
+CRITERIA = ("risk", "aic")
+SCOPES = ("term", "shared")
+SPLINE_ORDER = 3  # pygam's cubic B-splines: `basis - 3` knot intervals
+MIN_SPLINES = SPLINE_ORDER + 1  # a B-spline basis needs more functions than its order
+KNOT_RANGE = (10, 1000)
+CANDIDATES = 1001  # even points over a feature's range that a curve table is checked at
+START_SHARE = 8  # curve knots start as budget/8 even points and budget/8 quantiles
+FIDELITY = 1e-4  # largest gap (link scale) between a curve table and pygam worth a knot
+BAND = 0.95
+CONSTRAINTS = {"increasing": "monotonic_inc", "decreasing": "monotonic_dec"}
+
+
+@dataclass(frozen=True)
+class TermPlan:
+    """How one feature enters the pygam model."""
+
+    feature: str
+    kind: str  # "spline", "linear" or "levels"
+    basis: int = 0
+    constraint: str | None = None
+    levels: tuple[str, ...] = ()
+    whole: bool = False  # an integer feature: its tables need only whole numbers
+    scale: Scale = Scale()  # pygam fits a spline on scale(x)
+    # a numeric feature with missing training values: the term index of its indicator
+    # ("indicator" plan), the value its missing rows stand at (a training value, in the
+    # feature's own units) and how many rows had no value
+    indicator: int | None = None
+    stand_in: float = 0.0
+    missing_rows: int = 0
+
+
+def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
+                  knots: Any, spline_scale: Any = "power", penalty_scope: Any = "term",
+                  ) -> tuple[float, ...]:
+    """Validate the options; return the penalty grid sorted and without repeats."""
+    for name, value, low, high in (("splines", splines, MIN_SPLINES, None),
+                                   ("max_iter", max_iter, 1, None),
+                                   ("knots", knots, *KNOT_RANGE)):
+        whole = isinstance(value, int | np.integer) and not isinstance(value, bool)
+        if not whole or value < low or (high is not None and value > high):
+            span = f"at least {low}" if high is None else f"from {low} to {high}"
+            raise OptionError(f"{name} must be a whole number {span}, not {value!r}")
+    if criterion not in CRITERIA:
+        raise OptionError(f"criterion must be one of {', '.join(CRITERIA)}, not {criterion!r}")
+    for name, value, allowed in (("spline_scale", spline_scale, SCALES),
+                                 ("penalty_scope", penalty_scope, SCOPES)):
+        if value not in allowed:
+            raise OptionError(f"{name} must be one of {', '.join(allowed)}, not {value!r}")
+    grid = (penalties,) if isinstance(penalties, int | float) else penalties
+    try:
+        values = np.asarray(grid, dtype=float).ravel()
+    except (TypeError, ValueError):
+        values = np.array([np.nan])
+    if isinstance(penalties, str | bytes | bool) or values.size == 0 or not np.all(
+            np.isfinite(values)) or np.any(values <= 0):
+        raise OptionError(f"penalties must be a non-empty list of positive numbers, "
+                          f"not {penalties!r}")
+    return tuple(float(v) for v in np.unique(values))
+
+
+def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
+               spline_scale: str = "power",
+               ) -> tuple[list[TermPlan], np.ndarray, dict[str, str]]:
+    """One plan per feature, then one "indicator" plan per numeric feature with missing
+    values; the numeric matrix pygam fits on (each spline's column on its `spline_scale`,
+    see spline_scale; a missing value at its stand-in, beside a 0/1 indicator column); and
+    any fallbacks."""
+    plans, columns, fallbacks = [], [], {}
+    indicators: list[np.ndarray] = []
+    for name in features.columns:
+        spec = schema.feature(name)
+        column = features[name]
+        distinct = column.nunique()
+        if distinct < 2:
+            only = value_text(column.dropna().iloc[0])
+            raise DataError(f"feature '{name}' has a single value ({only}) "
+                            "in the training data; it cannot shape a score, so ignore it in the "
+                            "schema")
+        if spec.kind == "category":
+            levels = tuple(sorted(str(v) for v in column.unique()))
+            codes = pd.Categorical(column, categories=levels).codes
+            plans.append(TermPlan(name, "levels", levels=levels))
+            columns.append(codes.astype(float))
+            continue
+        values = column.to_numpy(dtype=float)
+        absent = np.isnan(values)
+        present = values[~absent]
+        gap: dict[str, Any] = {}
+        if absent.any():
+            gap = {"indicator": len(features.columns) + len(indicators),
+                   "stand_in": float(np.quantile(present, 0.5, method="inverted_cdf")),
+                   "missing_rows": int(absent.sum())}
+            indicators.append(absent.astype(float))
+        constraint = CONSTRAINTS.get(spec.monotone or "")
+        if distinct == 2 and constraint is None:
+            plans.append(TermPlan(name, "linear", **gap))
+            columns.append(np.where(absent, gap.get("stand_in", 0.0), values))
+            continue
+        if distinct == 2:
+            basis = MIN_SPLINES
+            fallbacks[name] = (f"two values and a monotone declaration: a constrained spline "
+                               f"of {MIN_SPLINES} basis functions (pygam's linear term takes "
+                               "no constraint)")
+        else:
+            basis = min(splines, max(MIN_SPLINES, distinct))
+            if basis < splines:
+                fallbacks[name] = (f"{distinct} distinct values: {basis} basis functions "
+                                   f"instead of {splines}")
+        # a few values, most of them small counts, can be squeezed together by a power
+        # scale; evenly spaced knots keep each value apart
+        few = distinct < splines and spline_scale != "raw"
+        scale, fallback = fit_scale(present, "raw" if few else spline_scale,
+                                    basis - SPLINE_ORDER)
+        if few:
+            fallback = "fitted on the values themselves (evenly spaced knots)"
+        if fallback:
+            fallbacks[name] = "; ".join(filter(None, (fallbacks.get(name), fallback)))
+        plan = TermPlan(name, "spline", basis, constraint, whole=spec.kind == "integer",
+                        scale=scale, **gap)
+        plans.append(plan)
+        columns.append(scale(np.where(absent, plan.stand_in, values)))
+    owners = [plan.feature for plan in plans if plan.indicator is not None]
+    plans += [TermPlan(name, "indicator") for name in owners]
+    return plans, np.column_stack(columns + indicators), fallbacks
+
+
+def term_list(plans: Sequence[TermPlan], penalty: float | Sequence[float]) -> TermList:
+    """The pygam terms for the plans, smooth and factor term i at `penalty[i]` (or every
+    one at `penalty`); a linear term and a missing-value indicator have no penalty."""
+    each = [penalty] * len(plans) if isinstance(penalty, int | float) else list(penalty)
+    terms = []
+    for index, (plan, lam) in enumerate(zip(plans, each, strict=True)):
+        if plan.kind == "levels":
+            terms.append(FactorTerm(index, lam=lam))
+        elif plan.kind in ("linear", "indicator"):
+            terms.append(LinearTerm(index, penalties=None))
+        else:
+            terms.append(SplineTerm(index, n_splines=plan.basis, lam=lam,
+                                    constraints=plan.constraint))
+    return TermList(*terms)
+
+
+def make_gam(task: str, plans: Sequence[TermPlan], penalty: float | Sequence[float],
+             max_iter: int) -> LinearGAM | LogisticGAM:
+    model = LogisticGAM if task == "classification" else LinearGAM
+    return model(term_list(plans, penalty), max_iter=max_iter)
+
+
+def search(matrix: np.ndarray, target: np.ndarray, plans: Sequence[TermPlan],
+           grid: Sequence[float], *, task: str, criterion: str, max_iter: int,
+           per_term: bool) -> Search:
+    """The penalty search (spline_penalty) on pygam's own matrices for these plans."""
+    terms = TermList(*term_list(plans, 1.0), Intercept())
+    monotone = [(i, plan.constraint == "monotonic_inc") for i, plan in enumerate(plans)
+                if plan.constraint]
+    penalised = [plan.kind in ("spline", "levels") for plan in plans]
+    problem = build_problem(terms, matrix, penalised + [False],
+                            monotone, task == "classification")
+    return search_penalties(problem, target, grid, criterion=criterion, max_iter=max_iter,
+                            per_term=per_term)
+
+
+def fit_quietly(gam: LinearGAM | LogisticGAM, matrix: np.ndarray, target: np.ndarray,
+                start: np.ndarray | None = None) -> bool:
+    """Fit without pygam's printing or warnings; return whether it converged."""
+    if start is not None:
+        gam.set_params(coef_=start, force=True)
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            gam.fit(matrix, target)
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            raise OptionError(f"pygam could not fit the spline model: "
+                              f"{str(exc).splitlines()[0]}; try larger penalties") from None
+    return "did not converge" not in printed.getvalue()
+
+
+def curve_knots(exact: Callable[[np.ndarray], np.ndarray], column: np.ndarray,
+                budget: int, whole: bool) -> tuple[np.ndarray, float]:
+    """Knots for a curve table and the largest gap between table and pygam they leave.
+
+    Candidates are every whole number in range (integer features with a short
+    range), else every distinct training value and an even grid over the range.
+    If the candidates fit the budget they are all knots; otherwise the start is
+    every distinct value (when there are at most half a budget of them) or even
+    points and training quantiles, refined by adding, in every gap that strays
+    more than `FIDELITY` from pygam, the candidate where it strays most.
+    """
+    low, high = float(column.min()), float(column.max())
+    distinct = np.unique(column)
+    if whole and high - low < CANDIDATES:
+        candidates = np.arange(low, high + 1)
+    else:
+        candidates = np.unique(np.concatenate([distinct, np.linspace(low, high, CANDIDATES)]))
+    if len(candidates) <= budget:
+        return candidates, 0.0
+    truth = exact(candidates)
+    if len(distinct) <= budget // 2:
+        chosen = np.searchsorted(candidates, distinct)
+    else:
+        start = max(2, budget // START_SHARE)
+        chosen = np.unique(np.concatenate([
+            np.linspace(0, len(candidates) - 1, start).round().astype(int),
+            np.searchsorted(candidates, np.quantile(column, np.linspace(0, 1, start),
+                                                    method="inverted_cdf")),
+        ]))
+    while True:
+        error = np.abs(np.interp(candidates, candidates[chosen], truth[chosen]) - truth)
+        room = budget - len(chosen)
+        if error.max() <= FIDELITY or room <= 0:
+            return candidates[chosen], float(error.max())
+        gap = np.searchsorted(chosen, np.arange(len(candidates)))  # the gap each one lies in
+        order = np.lexsort((-error, gap))  # by gap, worst first within a gap
+        first = order[np.r_[True, np.diff(gap[order]) != 0]]
+        worst = first[error[first] > FIDELITY]
+        worst = worst[np.argsort(-error[worst], kind="stable")][:room]
+        chosen = np.unique(np.concatenate([chosen, worst]))
+
+
+def tabulate(gam: LinearGAM | LogisticGAM, index: int, points: np.ndarray, width: int,
+             band: bool = True, training: np.ndarray | None = None,
+             indicator: int | None = None,
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """pygam's partial dependence of term `index` at `points` (with its missing-value
+    indicator, if any, at 0), with a 95% band; see `contribution`."""
+    grid = np.zeros((len(points), width))
+    grid[:, index] = points
+    return contribution(gam, (index,) if indicator is None else (index, indicator), grid,
+                        band, training)
+
+
+def contribution(gam: LinearGAM | LogisticGAM, indices: Sequence[int], grid: np.ndarray,
+                 band: bool = True, training: np.ndarray | None = None,
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The sum of pygam's partial dependences of terms `indices` at the rows of `grid`
+    (full width), with a 95% band.
+
+    The band is for the term as the model file holds it, centred on the training
+    rows: its variance is (b(x) - b̄)ᵀ Σ (b(x) - b̄), with b the terms' basis row
+    (a spline's and its missing-value indicator's side by side), b̄ its mean over the
+    training rows and Σ pygam's covariance of their coefficients. pygam's own band is
+    for the uncentred term, whose level is confounded with the intercept, so it is
+    wide everywhere and would hide where the shape itself is uncertain.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        values = np.sum([gam.partial_dependence(i, X=grid) for i in indices], axis=0)
+        if not band:
+            return values, values, values
+        basis = np.hstack([gam._modelmat(grid, term=i).toarray() for i in indices])
+        mean_row = np.concatenate([np.asarray(gam._modelmat(training, term=i).mean(axis=0))
+                                   .ravel() for i in indices])
+    positions = np.concatenate([gam.terms.get_coef_indices(i) for i in indices])
+    covariance = gam.statistics_["cov"][np.ix_(positions, positions)]
+    offset = basis - mean_row
+    variance = np.maximum(np.einsum("ij,jk,ik->i", offset, covariance, offset), 0.0)
+    if gam.distribution._known_scale:
+        quantile = stats.norm.ppf(0.5 + BAND / 2)
+    else:
+        freedom = gam.statistics_["n_samples"] - gam.statistics_["edof"]
+        quantile = stats.t.ppf(0.5 + BAND / 2, df=freedom)
+    half = quantile * np.sqrt(variance)
+    return values, values - half, values + half
+
+
+def missing_entry(gam: LinearGAM | LogisticGAM, index: int, plan: TermPlan,
+                  matrix: np.ndarray) -> tuple[float, tuple[float, float]]:
+    """What a row with no value gets from the fitted model, and its band: the term at the
+    stand-in plus the indicator's coefficient (uncentred, like the curve's values)."""
+    grid = np.zeros((1, matrix.shape[1]))
+    grid[0, index] = plan.scale(np.array([plan.stand_in]))[0]
+    grid[0, plan.indicator] = 1.0
+    value, lower, upper = contribution(gam, (index, plan.indicator), grid, training=matrix)
+    return float(value[0]), (float(lower[0]), float(upper[0]))
+
+
+def floats(values: np.ndarray) -> tuple[float, ...]:
+    return tuple(float(v) for v in values)
+
+
+def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
+                  matrix: np.ndarray, features: pd.DataFrame, knots: int
+                  ) -> tuple[list[Term], dict[str, float], dict[str, float]]:
+    """One table per plan, read from the fitted pygam model (fitted on `matrix`; the
+    curves are tabulated in the feature's own units, from `features`); each curve's
+    largest departure from pygam over its candidate points; each monotone repair."""
+    terms: list[Term] = []
+    errors: dict[str, float] = {}
+    repairs: dict[str, float] = {}
+    width = matrix.shape[1]
+    for index, plan in enumerate(plans):
+        column = matrix[:, index]
+        if plan.kind == "indicator":
+            continue  # part of its feature's term
+        if plan.kind == "levels":
+            codes = np.arange(len(plan.levels), dtype=float)
+            values, lower, upper = tabulate(gam, index, codes, width, training=matrix)
+            counts = np.bincount(column.astype(int), minlength=len(plan.levels))
+            unseen = float(np.dot(counts, values) / counts.sum())
+            terms.append(LevelsTerm(plan.feature, plan.levels, floats(values), unseen,
+                                    floats(lower), floats(upper)))
+            continue
+        def exact(points: np.ndarray, index: int = index, plan: TermPlan = plan) -> np.ndarray:
+            return tabulate(gam, index, plan.scale(points), width, band=False)[0]
+        raw = features[plan.feature].to_numpy(dtype=float)
+        points, errors[plan.feature] = curve_knots(exact, raw[~np.isnan(raw)], knots,
+                                                   plan.whole)
+        values, lower, upper = tabulate(gam, index, plan.scale(points), width,
+                                        training=matrix, indicator=plan.indicator)
+        if plan.constraint:
+            # remove what the soft constraint leaves of wrong-way steps (about 1e-9)
+            running = np.maximum if plan.constraint == "monotonic_inc" else np.minimum
+            repaired = running.accumulate(values)
+            repairs[plan.feature] = float(np.max(np.abs(repaired - values)))
+            lower, upper = np.minimum(lower, repaired), np.maximum(upper, repaired)
+            values = repaired
+        gap = {}
+        if plan.indicator is not None:
+            value, band = missing_entry(gam, index, plan, matrix)
+            gap = {"missing": value, "missing_band": band}
+        terms.append(CurveTerm(plan.feature, floats(points), floats(values), floats(lower),
+                               floats(upper), **gap))
+    return terms, errors, repairs
+
+
+def unidentified(plans: Sequence[TermPlan], matrix: np.ndarray, target: np.ndarray | None
+                 ) -> dict[str, str]:
+    """Missing-value entries the data cannot pin down, in words, by feature: missing rows
+    all of one class (the unpenalised indicator has no finite estimate, so its entry is
+    where the fit stopped), or missing on exactly the rows another feature is (only the
+    sum of the two entries is fitted; pygam's conditioning ridge splits it)."""
+    notes: dict[str, str] = {}
+    owners = [plan for plan in plans if plan.indicator is not None]
+    for plan in owners:
+        rows = matrix[:, plan.indicator] == 1.0
+        said = []
+        if target is not None and np.ptp(target[rows]) == 0:
+            said.append(f"its {plan.missing_rows} missing row(s) are all "
+                        f"{'positive' if target[rows][0] == 1 else 'negative'}: no finite "
+                        "estimate, the entry is where the fit stopped")
+        twins = [other.feature for other in owners if other is not plan
+                 and np.array_equal(rows, matrix[:, other.indicator] == 1.0)]
+        if twins:
+            said.append(f"missing on exactly the rows {', '.join(twins)} is: only the sum of "
+                        "their entries is fitted, split between them by pygam's "
+                        "conditioning ridge")
+        if said:
+            notes[plan.feature] = "; ".join(said)
+    return notes
+
+
+def describe(plan: TermPlan) -> str:
+    """A term in words, e.g. 'spline, 20 basis functions, knots at training quantiles,
+    decreasing'."""
+    gap = ("" if plan.indicator is None else
+           f"; {plan.missing_rows} missing value(s): an unpenalised indicator, those rows "
+           f"fitted at {plan.stand_in:g}")
+    if plan.kind != "spline":
+        return plan.kind + gap
+    direction = {value: key for key, value in CONSTRAINTS.items()}.get(plan.constraint or "")
+    return (f"spline, {plan.basis} basis functions, {plan.scale.words()}"
+            + (f", {direction}" if direction else "") + gap)
+
+
+def search_note(found: Search, grid: Sequence[float]) -> str:
+    """What the penalty search did, in words, for the model file."""
+    if found.sweeps == 0:
+        return "shared: every smooth and factor term at the grid value that scored best"
+    return (f"per term: from the best shared value, each term's penalty moved along the grid "
+            f"while a step lowered the criterion; {found.sweeps} sweep(s) over the terms, the "
+            "last moving nothing, so no single term's neighbouring grid value scores better "
+            f"(a coordinate-wise optimum; the full grid of {len(grid)} values per term over "
+            "all terms together is not searched)")
+
+
+def fit(
+    features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
+    splines: int = 20, penalties: Sequence[float] = DEFAULTS["penalties"],
+    criterion: str = "risk", max_iter: int = 100, knots: int = 400,
+    spline_scale: str = "power", penalty_scope: str = "term",
+) -> FamilyFit:
+    """Fit the penalised-spline family and compile it into term tables."""
+    grid = check_options(splines, penalties, criterion, max_iter, knots, spline_scale,
+                         penalty_scope)
+    target = np.asarray(target, dtype=float)
+    plans, matrix, fallbacks = plan_terms(features, schema, splines, spline_scale)
+    notes = unidentified(plans, matrix, target if task == "classification" else None)
+    # one BLAS thread: these matrices are small, and a fixed summation order keeps the
+    # tables byte-identical from run to run
+    with threadpool_limits(limits=1, user_api="blas"):
+        found = search(matrix, target, plans, grid, task=task, criterion=criterion,
+                       max_iter=max_iter, per_term=penalty_scope == "term")
+        chosen = [grid[p] if p is not None else 0.0 for p in found.positions[:len(plans)]]
+        gam = make_gam(task, plans, chosen, max_iter)
+        converged = fit_quietly(gam, matrix, target, start=found.coefficients)
+        (intercept_index,) = [i for i, term in enumerate(gam.terms) if term.isintercept]
+        intercept = float(gam.coef_[gam.terms.get_coef_indices(intercept_index)][0])
+        terms, table_errors, repairs = compile_terms(gam, plans, matrix, features, knots)
+    penalised = [(plan.feature, p) for plan, p in zip(plans, found.positions, strict=False)
+                 if p is not None]
+    details: dict[str, Any] = {
+        "model": type(gam).__name__,
+        "terms": {plan.feature: describe(plan) for plan in plans if plan.kind != "indicator"},
+        "missing_indicators": {
+            plan.feature: {"rows": plan.missing_rows, "stand_in": plan.stand_in,
+                           "effect": float(gam.coef_[gam.terms.get_coef_indices(
+                               plan.indicator)][0])}
+            | ({"unidentified": notes[plan.feature]} if plan.feature in notes else {})
+            for plan in plans if plan.indicator is not None},
+        "scales": {plan.feature: plan.scale.record() for plan in plans
+                   if plan.kind == "spline"},
+        "penalty_grid": list(grid),
+        "criterion": found.statistic,
+        "criterion_values": list(found.shared_values),
+        "shared_penalty": grid[found.shared],
+        "penalty_search": search_note(found, grid),
+        "penalties": {name: grid[p] for name, p in penalised},
+        "criterion_value": found.value,
+        "penalty_at_grid_edge": sorted(name for name, p in penalised
+                                       if len(grid) > 1 and p in (0, len(grid) - 1)),
+        "effective_degrees_of_freedom": float(gam.statistics_["edof"]),
+        "converged": converged,
+        "search_fits": found.fits,
+        "search_unconverged": found.unconverged,
+        "fallbacks": fallbacks,
+        "table_error": table_errors,
+        "monotone_repair": repairs,
+    }
+    parameters = {"splines": splines, "penalties": list(grid), "criterion": criterion,
+                  "max_iter": max_iter, "knots": knots, "spline_scale": spline_scale,
+                  "penalty_scope": penalty_scope}
+    return FamilyFit(intercept, tuple(terms), parameters, details)

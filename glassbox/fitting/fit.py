@@ -1,0 +1,210 @@
+"""Fit any family on a raw frame and finish it into an `AdditiveModel`.
+
+The finishing steps are shared by every family: validate and type the data,
+fit, centre each term on the training rows (the intercept absorbs the means),
+keep training profiles and the development baseline monitoring compares periods with
+(`glassbox.explaining.baseline`), and record provenance.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox import __version__
+from glassbox.core.additive import AdditiveModel, LevelsTerm, Term, centre_terms, profile_features
+from glassbox.core.cells import summarise_term
+from glassbox.core.columns import MANY_LEVELS, OTHER_LEVEL
+from glassbox.core.errors import DataError, OptionError
+from glassbox.core.provenance import fit_day, frame_fingerprint, library_versions
+from glassbox.core.schema import (
+    MISSING_LEVEL,
+    FeatureSpec,
+    Schema,
+    missing_mask,
+    pool_levels,
+    prepare,
+    rows_text,
+)
+from glassbox.explaining.baseline import TRAINING_ROWS, build_baseline
+from glassbox.fitting.families import get_family
+from glassbox.fitting.metrics import classification_metrics, regression_metrics
+
+
+def fit_model(
+    frame: pd.DataFrame,
+    schema: Schema,
+    family: str = "sparse",
+    *,
+    source: str | None = None,
+    drop_missing_target: bool = False,
+    **options: Any,
+) -> AdditiveModel:
+    """Fit `family` on a raw frame described by `schema`; options go to the family.
+
+    Missing values the schema lets the model learn reach the family as NaN in numeric
+    columns; a missing category is fitted as one more level and then kept as the term's
+    missing-value entry, apart from its levels. A category's rare levels are pooled by its
+    `pool_below` rule (the model's schema lists them, so scoring pools them too); one with
+    more than MANY_LEVELS levels and no rule is refused. Rows with no target are an error,
+    or dropped with a warning that counts them when `drop_missing_target` is set.
+    """
+    schema.require_better()
+    module = get_family(family)
+    unknown = set(options) - set(module.DEFAULTS)
+    if unknown:
+        raise OptionError(f"family '{family}' has no option(s) {', '.join(sorted(unknown))} "
+                          f"(it takes: {', '.join(module.DEFAULTS)})")
+    where = source or frame.attrs.get("source") or "the data"
+    if drop_missing_target:
+        frame = rows_with_target(frame, schema, where)
+    schema = replace(schema, features=tuple(  # a pooling rule is worked out afresh below
+        replace(f, pooled=()) if f.pool_below is not None else f for f in schema.features))
+    prepared = prepare(frame, schema, source=where)
+    features, target = prepared.features, prepared.target
+    _check_gaps(features, where)
+    features, schema = pool_rare_levels(features, schema, where)
+    task = schema.target.task
+    if task == "classification":
+        positives = int(target.sum())
+        if positives in (0, len(target)):
+            raise DataError(f"{where}: target '{schema.target.column}' has one class only "
+                            f"({'all positive' if positives else 'no positive rows'}); "
+                            "a classifier needs both")
+    settings = {**module.DEFAULTS, **options}
+    fitted = module.fit(_missing_as_level(features, schema), target, schema, task=task,
+                        **settings)
+    terms, shift = centre_terms(tuple(_level_to_missing(t) for t in fitted.terms), features)
+    used = [t.feature for t in terms]
+    importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
+                  for t in terms}
+    profiles = profile_features(features, schema)
+    # exact training summaries under numeric terms (rows with no value counted apart),
+    # for points cards (classification)
+    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float)) for t in terms
+                  if task == "classification" and not isinstance(t, LevelsTerm))
+    metadata = {
+        "family": family,
+        "parameters": fitted.parameters,
+        "details": fitted.details,
+        "rows": int(len(features)),
+        "positive_rate": float(np.mean(target)) if task == "classification" else None,
+        "target_mean": float(np.mean(target)),
+        "data_sha256": frame_fingerprint(pd.concat(
+            [features, pd.Series(target, index=features.index, name="__target__")], axis=1)),
+        "features_used": used,
+        "importance": importance,
+        "glassbox_version": __version__,
+        "versions": library_versions(),
+        "fit_date": fit_day(),
+    }
+    pooled = {f.name: len(f.pooled) for f in schema.used_features if f.pooled}
+    if pooled:
+        metadata["pooled_levels"] = pooled
+    link = "logit" if task == "classification" else "identity"
+    model = AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles,
+                          metadata, cells)
+    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS))
+
+
+def _check_gaps(features: pd.DataFrame, where: str) -> None:
+    """Refuse a feature column with no value at all, and a category holding the text that
+    stands for a missing level."""
+    for name in features.columns:
+        column = features[name]
+        if column.isna().all():
+            raise DataError(f"{where}: column '{name}' has no values at all (every row is "
+                            "missing); drop it or mark it ignore = true in the schema")
+        if column.dtype == object and (column == MISSING_LEVEL).any():
+            raise DataError(f"{where}: column '{name}' has the level {MISSING_LEVEL!r}, which "
+                            "glassbox keeps for missing values; rename that level")
+
+
+def rows_with_target(frame: pd.DataFrame, schema: Schema, where: str) -> pd.DataFrame:
+    """The rows that have a target value. Dropped rows are counted in a warning; the
+    features of every row are checked first, so data errors name their true rows."""
+    name = schema.target.column
+    if name not in frame.columns:
+        return frame  # prepare names the missing column
+    absent = missing_mask(frame[name], FeatureSpec(name, "category"))
+    if not absent.any():
+        return frame
+    prepare(frame, schema, require_target=False, source=where)
+    warnings.warn(f"{where}: dropped {int(absent.sum()):,} row(s) with no value in the target "
+                  f"'{name}' ({rows_text(absent)}); {int((~absent).sum()):,} rows remain",
+                  UserWarning, stacklevel=2)
+    kept = frame.loc[~absent].reset_index(drop=True)
+    kept.attrs = dict(frame.attrs)
+    return kept
+
+
+def pool_rare_levels(features: pd.DataFrame, schema: Schema,
+                     where: str) -> tuple[pd.DataFrame, Schema]:
+    """Each category's rare levels pooled into OTHER_LEVEL by its `pool_below` rule, the
+    pooled levels written into the schema; a category with more than MANY_LEVELS levels
+    and no rule is refused, naming what to write."""
+    features, specs = features.copy(), []
+    for spec in schema.features:
+        if spec.kind != "category" or spec.name not in features.columns:
+            specs.append(spec)
+            continue
+        counts = features[spec.name].value_counts()
+        if spec.pool_below is None:
+            if len(counts) > MANY_LEVELS:
+                raise DataError(
+                    f"{where}: column '{spec.name}' has {len(counts):,} levels, more than "
+                    f"{MANY_LEVELS}; write pool_below = 0.01 under [feature.{spec.name}] to "
+                    f"pool levels under 1% of its rows into {OTHER_LEVEL!r} (pool_below = 0 "
+                    "keeps every level), or ignore = true")
+            specs.append(spec)
+            continue
+        if OTHER_LEVEL in counts.index:
+            raise DataError(f"{where}: column '{spec.name}' has the level {OTHER_LEVEL!r}, "
+                            "which glassbox keeps for pooled levels; rename that level")
+        limit = spec.pool_below * counts.sum() if spec.pool_below < 1 else spec.pool_below
+        rare = tuple(sorted(str(level) for level, count in counts.items() if count < limit))
+        if rare and len(rare) == len(counts):
+            raise DataError(f"{where}: pool_below = {spec.pool_below} pools every level of "
+                            f"'{spec.name}' (the largest has {int(counts.max()):,} rows); "
+                            "lower it")
+        features[spec.name] = pool_levels(features[spec.name], rare)
+        specs.append(replace(spec, pooled=rare))
+    return features, replace(schema, features=tuple(specs))
+
+
+def _missing_as_level(features: pd.DataFrame, schema: Schema) -> pd.DataFrame:
+    """Missing categories as the level MISSING_LEVEL, so every family fits them as a level."""
+    gaps = {name: features[name].fillna(MISSING_LEVEL) for name in features.columns
+            if schema.feature(name).kind == "category" and features[name].isna().any()}
+    return features.assign(**gaps) if gaps else features
+
+
+def _level_to_missing(term: Term) -> Term:
+    """A levels term with the level MISSING_LEVEL turned into its missing-value entry."""
+    if not isinstance(term, LevelsTerm) or MISSING_LEVEL not in term.levels:
+        return term
+    at = term.levels.index(MISSING_LEVEL)
+    if len(term.levels) == 1:
+        raise DataError(f"column '{term.feature}' has no values at all")
+    keep = [i for i in range(len(term.levels)) if i != at]
+    band = {name: tuple(getattr(term, name)[i] for i in keep) for name in ("lower", "upper")
+            if getattr(term, name) is not None}
+    missing_band = ((term.lower[at], term.upper[at])
+                    if term.lower is not None and term.upper is not None else None)
+    return replace(term, levels=tuple(term.levels[i] for i in keep),
+                   values=tuple(term.values[i] for i in keep), **band,
+                   missing=float(term.values[at]), missing_band=missing_band)
+
+
+def training_fit(model: AdditiveModel, frame: pd.DataFrame,
+                 source: str | None = None) -> dict[str, float]:
+    """In-sample accuracy of a model on the frame it was fitted on (optimistic by nature)."""
+    prepared = prepare(frame, model.schema, source=source, features=model.features)
+    score = model.score_encoded(prepared.features)
+    if model.task == "classification":
+        return classification_metrics(prepared.target, model.inverse_link(score))
+    return regression_metrics(prepared.target, score)

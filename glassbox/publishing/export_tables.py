@@ -1,0 +1,233 @@
+"""A model's (or a points card's) tables and the raw-column rules, spelled out for other
+scoring engines.
+
+The SQL and PMML exports both start here, so they say the same thing: for each feature,
+how a raw value becomes the number or label a table reads (`ColumnRule`: the schema's
+missing codes, flag words, dates read as their age in days) and what the table then adds
+(`ExportTable`). Every value in an `ExportTable` is computed by the tool's own scoring
+(`glassbox.core.encoding.encode_column`, `Term.evaluate`, `FeaturePoints.points_of`), never
+re-derived, so an engine that copies the table scores exactly as `glassbox score` does.
+
+Three shapes remain:
+
+- "curve": value at knot i; between knots k[i] <= x < k[i+1] the value is
+  ``values[i] + (x - k[i]) * slopes[i]`` (numpy.interp's own arithmetic); at or below the
+  first knot the first value, at or above the last knot the last (clamped);
+- "steps": value i for edges[i-1] < x <= edges[i] (the first bin runs down to minus
+  infinity, the last up to plus infinity);
+- "levels": one value per label; a label not listed takes `unseen`, or is refused (None).
+
+Categories and flags are both "levels": a category's labels are the term's levels and the
+pooled rare levels (scored as the pooled level's value); a flag's labels are its words
+(`TRUE_WORDS`, `FALSE_WORDS`, compared in lower case), each with the value the table gives
+at 1 or 0, and any other word is refused, as the tool refuses it.
+
+A missing input (no value, a blank text, or one of the feature's missing codes) takes
+`missing`: the term's learned entry, or the value at the schema's fill value, or None
+where the tool refuses the row (no entry learned, or `missing = "refuse"`).
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm, Term
+from glassbox.core.columns import ages_in_days
+from glassbox.core.encoding import encode_column, label_text
+from glassbox.core.errors import GlassboxError, UnseenLevelWarning
+from glassbox.core.guesses import FALSE_WORDS, TRUE_WORDS
+from glassbox.core.schema import FeatureSpec
+
+if TYPE_CHECKING:
+    from glassbox.explaining.cards import FeaturePoints, PointsCard
+
+SHAPES = ("curve", "steps", "levels")
+
+
+@dataclass(frozen=True)
+class ColumnRule:
+    """How the raw column `name` becomes what its table reads.
+
+    `kind` is the schema's: number, integer, flag or category. `missing_codes` are the
+    values that mean "missing" besides no value and blank text: numbers for a number or
+    integer, labels (as `label_text` writes them: trimmed text, whole numbers without
+    ".0") for a flag or a category. `days_before` (an ISO date, YYYY-MM-DD) marks a column
+    of dates, in `date_layout` (strftime codes; None is ISO, %Y-%m-%d), read as the whole
+    days from the date to `days_before` (positive for dates before it). `lowercase` says the
+    labels are compared in lower case (flags).
+    """
+
+    name: str
+    kind: str
+    missing_codes: tuple[Any, ...] = ()
+    days_before: str | None = None
+    date_layout: str | None = None
+    lowercase: bool = False
+
+    @property
+    def numeric(self) -> bool:
+        """Whether the table reads a number (number, integer, or dates as days)."""
+        return self.kind in ("number", "integer")
+
+
+@dataclass(frozen=True)
+class ExportTable:
+    """What one feature adds to the score (a model's log-odds or prediction scale, or a
+    card's whole points), for every input. See the module docstring for the shapes."""
+
+    feature: str
+    rule: ColumnRule
+    shape: str
+    points: tuple[float, ...] = ()  # curve: knots; steps: inner edges; levels: none
+    values: tuple[float, ...] = ()  # curve: per knot; steps: per bin; levels: per label
+    slopes: tuple[float, ...] = ()  # curve: per segment between knots
+    levels: tuple[str, ...] = ()  # levels: the labels, in the order of `values`
+    unseen: float | None = None  # levels: any other label (None: refused)
+    missing: float | None = None  # a missing input (None: refused)
+
+    def __post_init__(self) -> None:
+        if self.shape not in SHAPES:
+            raise ValueError(f"unknown table shape {self.shape!r}")
+
+    def read(self, raw: pd.Series) -> np.ndarray:
+        """The table applied to a raw column by its rule, refused rows NaN: what an engine
+        copying the table computes, step by step (the tests hold it to `glassbox score`)."""
+        rule = self.rule
+        if rule.days_before is not None:
+            raw = ages_in_days(raw, rule.days_before, rule.date_layout, self.feature,
+                               "the export")
+        if self.shape == "levels":
+            labels = [None if _blank(v) else label_text(v) for v in raw]
+            if rule.lowercase:
+                labels = [None if v is None else v.lower() for v in labels]
+            codes = {str(code).lower() if rule.lowercase else str(code)
+                     for code in rule.missing_codes}
+            lookup = dict(zip(self.levels, self.values, strict=True))
+            unseen = np.nan if self.unseen is None else self.unseen
+            absent = np.array([v is None or v in codes for v in labels], dtype=bool)
+            out = np.array([lookup.get(v, unseen) if v is not None else 0.0 for v in labels],
+                           dtype=float)
+        else:
+            numbers = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+            absent = np.isnan(numbers) | np.isin(numbers, np.asarray(rule.missing_codes,
+                                                                     dtype=float))
+            if self.shape == "steps":
+                out = np.asarray(self.values)[np.searchsorted(np.asarray(self.points),
+                                                              numbers, side="left")]
+            else:
+                out = np.interp(numbers, self.points, self.values)
+        return np.where(absent, np.nan if self.missing is None else self.missing, out)
+
+
+def _blank(value: Any) -> bool:
+    return value is None or (not isinstance(value, str) and pd.isna(value)) or (
+        isinstance(value, str) and not value.strip())
+
+
+def model_tables(model: AdditiveModel) -> tuple[ExportTable, ...]:
+    """One table per term of the model, in the model's order."""
+    return tuple(_term_table(model.schema.feature(term.feature), term) for term in model.terms)
+
+
+def card_tables(card: PointsCard) -> tuple[ExportTable, ...]:
+    """One table of whole points per feature of the card, in the card's order (steps or
+    levels: a card has no curves)."""
+    return tuple(_points_table(card.schema.feature(table.feature), table)
+                 for table in card.features)
+
+
+def column_rule(spec: FeatureSpec) -> ColumnRule:
+    """The raw-column rule of a schema feature."""
+    if spec.kind in ("number", "integer"):
+        codes: tuple[Any, ...] = tuple(float(code) for code in spec.missing_codes)
+    else:
+        codes = tuple(label_text(code) for code in spec.missing_codes)
+    return ColumnRule(spec.name, spec.kind, codes, spec.days_before, spec.date_layout,
+                      lowercase=spec.kind == "flag")
+
+
+def _typed(spec: FeatureSpec, raw: list[Any]) -> pd.Series:
+    """Raw values typed exactly as scoring types them (dates aside: the values given for a
+    date column are already days)."""
+    plain = replace(spec, days_before=None, date_layout=None)
+    return encode_column(pd.Series(raw, dtype=object), plain, "the export")
+
+
+def _missing_value(spec: FeatureSpec, learned: float | None,
+                   evaluate: Callable[[pd.Series], np.ndarray]) -> float | None:
+    """What a missing input adds: the learned entry, the value at the fill, or refused."""
+    if spec.missing == "refuse":
+        return None
+    if spec.missing == "fill":
+        return float(evaluate(_typed(spec, [None]))[0])
+    return None if learned is None else float(learned)
+
+
+def _labels(spec: FeatureSpec, known: tuple[str, ...]) -> list[str]:
+    """The labels a levels table lists: a flag's words, or a category's known levels and
+    pooled levels, leaving out labels that are missing codes (those read as missing)."""
+    if spec.kind == "flag":
+        return sorted(TRUE_WORDS) + sorted(FALSE_WORDS)
+    codes = {label_text(code) for code in spec.missing_codes}
+    return [label for label in dict.fromkeys([*known, *spec.pooled]) if label not in codes]
+
+
+def _as_levels(spec: FeatureSpec, known: tuple[str, ...], unseen: float | None,
+               evaluate: Callable[[pd.Series], np.ndarray]) -> dict[str, Any]:
+    labels = _labels(spec, known)
+    if spec.kind == "flag":  # flag codes are words too: a code reads as missing
+        codes = {label_text(code).lower() for code in spec.missing_codes}
+        labels = [label for label in labels if label not in codes]
+        unseen = None
+    plain = replace(spec, missing="learn", fill=None, missing_codes=())
+    with warnings.catch_warnings():  # the pooled level may itself be unseen: that value
+        warnings.simplefilter("ignore", UnseenLevelWarning)
+        values = evaluate(_typed(plain, labels)) if labels else np.array([])
+    return {"shape": "levels", "levels": tuple(labels), "values": _floats(values),
+            "unseen": unseen}
+
+
+def _floats(values: Any) -> tuple[float, ...]:
+    return tuple(float(v) for v in np.asarray(values, dtype=float))
+
+
+def _term_table(spec: FeatureSpec, term: Term) -> ExportTable:
+    def evaluate(typed: pd.Series) -> np.ndarray:
+        return term.evaluate(typed.to_numpy())
+
+    rule = column_rule(spec)
+    missing = _missing_value(spec, term.missing, evaluate)
+    if isinstance(term, LevelsTerm) or spec.kind == "flag":
+        unseen = float(term.unseen) if isinstance(term, LevelsTerm) else None
+        known = term.levels if isinstance(term, LevelsTerm) else ()
+        return ExportTable(term.feature, rule, missing=missing,
+                           **_as_levels(spec, known, unseen, evaluate))
+    if isinstance(term, StepTerm):
+        return ExportTable(term.feature, rule, "steps", points=term.edges,
+                           values=term.values, missing=missing)
+    if isinstance(term, CurveTerm):
+        knots, values = np.asarray(term.knots), np.asarray(term.values)
+        slopes = np.diff(values) / np.diff(knots)  # numpy.interp's slope, segment by segment
+        return ExportTable(term.feature, rule, "curve", points=term.knots, values=term.values,
+                           slopes=_floats(slopes), missing=missing)
+    raise GlassboxError(f"unknown term type {type(term).__name__}")
+
+
+def _points_table(spec: FeatureSpec, table: FeaturePoints) -> ExportTable:
+    def evaluate(typed: pd.Series) -> np.ndarray:
+        return table.points_of(typed.to_numpy(), "the export").astype(float)
+
+    rule = column_rule(spec)
+    missing = _missing_value(spec, table.missing_points, evaluate)
+    if table.by_level or spec.kind == "flag":
+        unseen = float(table.unseen_points) if table.by_level else None
+        return ExportTable(table.feature, rule, missing=missing,
+                           **_as_levels(spec, table.levels, unseen, evaluate))
+    return ExportTable(table.feature, rule, "steps", points=table.edges,
+                       values=_floats(table.points), missing=missing)

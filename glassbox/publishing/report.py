@@ -1,0 +1,599 @@
+"""The audit report: one document about a model, from its tables, a data file and
+(optionally) a comparison, rendered as a self-contained HTML page and as Markdown.
+
+`build_report` computes: it returns a `Report` made of sections holding paragraphs,
+bullet lists, DataFrames and matplotlib figures. `to_html`, `to_markdown` and
+`write_report` only arrange that content. Nothing in the output depends on the time
+it was made, so the same inputs give the same bytes.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import re
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+
+from glassbox import __version__
+from glassbox.core.additive import AdditiveModel, LevelsTerm
+from glassbox.core.errors import DataError, OptionError
+from glassbox.core.files import output_folder, safe_file_name, write_atomic
+from glassbox.core.formats import to_markdown as table_markdown
+from glassbox.core.provenance import file_sha256
+from glassbox.core.schema import prepare
+from glassbox.explaining import groups, shapes
+from glassbox.publishing import plots
+from glassbox.publishing.render import HEADINGS, cell, terminal_columns
+
+HTML_NAME = "report.html"
+MARKDOWN_NAME = "report.md"
+PNG_METADATA = {"Software": None}  # no version or time stamp inside the PNG bytes
+SHOWN_ROWS = 16
+
+CAUTIONS = (
+    "This report describes a statistical model: what its tables do with the inputs and "
+    "how its outcomes fall. It is not a decision and does not say what any decision "
+    "should be.",
+    "Protected characteristics are never inputs to the model and never levers for "
+    "changing an outcome. They are read here only to compare outcomes between groups.",
+    "Outcomes and group comparisons must be reviewed under local law and fair-lending "
+    "rules by licensed compliance staff before anything is concluded from them.",
+    "The four-fifths flag is a customary screen (29 CFR 1607.4(D)), not a legal finding. "
+    "Local law decides what an outcome gap means and what, if anything, follows.",
+)
+
+
+# ---------------------------------------------------------------- the document
+
+
+@dataclass(frozen=True, eq=False)
+class Paragraph:
+    text: str
+
+
+@dataclass(frozen=True, eq=False)
+class Bullets:
+    items: tuple[str, ...]
+    caution: bool = False
+
+
+@dataclass(frozen=True, eq=False)
+class Table:
+    """A table for people; cells are shown as `render.cell` writes them."""
+
+    frame: pd.DataFrame
+    caption: str = ""
+    pairs: bool = False  # a two-column list of items and values
+
+
+@dataclass(frozen=True, eq=False)
+class Picture:
+    """A figure, saved as `name`.png beside the Markdown and embedded in the HTML."""
+
+    name: str
+    figure: Figure
+    alt: str
+
+
+Block = Paragraph | Bullets | Table | Picture
+
+
+@dataclass(frozen=True, eq=False)
+class Section:
+    title: str
+    blocks: tuple[Block, ...]
+    level: int = 2
+
+    @property
+    def anchor(self) -> str:
+        return re.sub(r"[^a-z0-9]+", "-", self.title.lower()).strip("-") or "section"
+
+
+@dataclass(frozen=True, eq=False)
+class Report:
+    """Everything the report says, in order."""
+
+    title: str
+    intro: str
+    sections: tuple[Section, ...]
+    facts: Mapping[str, object] = field(default_factory=dict)  # for tests and tools
+
+    @property
+    def pictures(self) -> list[Picture]:
+        return [b for s in self.sections for b in s.blocks if isinstance(b, Picture)]
+
+    @property
+    def headings(self) -> list[str]:
+        return [section.title for section in self.sections]
+
+
+# ---------------------------------------------------------------- building
+
+
+def check_folder(folder: str | Path) -> Path:
+    """Fail early when the report folder is an existing file."""
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise OptionError(f"cannot write the report into {folder}: it is a file, not a folder")
+    return folder
+
+
+def check_same_data(model: AdditiveModel, comparison, model_name: str,
+                    comparison_name: str) -> None:
+    """A comparison belongs in the report only when made on the model's own data."""
+    made_on = comparison.provenance.get("data_sha256")
+    fitted_on = model.metadata.get("data_sha256")
+    if not fitted_on:
+        raise DataError(f"{model_name} records no fingerprint of its training data, so "
+                        f"{comparison_name} cannot be checked against it")
+    if made_on != fitted_on:
+        raise DataError(f"{comparison_name} was made on other data than {model_name} "
+                        f"(data fingerprints differ: {str(made_on)[:19]}... against "
+                        f"{str(fitted_on)[:19]}...)")
+
+
+def build_report(
+    model: AdditiveModel,
+    frame: pd.DataFrame,
+    *,
+    model_file: str | Path | None = None,
+    comparison=None,
+    comparison_file: str | Path | None = None,
+    cutoff: float | None = None,
+    source: str | None = None,
+    recourse_file: str | Path | None = None,
+    min_group: int = groups.MIN_GROUP,
+    bands: Mapping[str, Sequence[float]] | None = None,
+) -> Report:
+    """The report's content for `model` on the rows of `frame`.
+
+    `comparison` is a `compare.Comparison` (or give `comparison_file` to read one); it
+    must have been made on the model's training data. `cutoff` is a probability for a
+    classification model (default 0.5) and a predicted value for regression (required).
+    `recourse_file` is a `recourse audit --format json` file made with the same model file.
+    Groups (the report's and the audit's) of fewer than `min_group` rows are not flagged.
+    `bands` gives band edges for numeric protected columns (see `groups.band_edges`).
+    """
+    from glassbox.explaining import reasons
+    from glassbox.fitting.compare_files import read_comparison
+    from glassbox.publishing import report_recourse
+
+    audit = report_recourse.read_audit(recourse_file) if recourse_file is not None else None
+    model_name = f"model file {Path(model_file).name}" if model_file else "the model"
+    if comparison is None and comparison_file is not None:
+        comparison = read_comparison(comparison_file)
+    if comparison is not None:
+        where = (f"comparison file {Path(comparison_file).name}" if comparison_file
+                 else "the comparison")
+        check_same_data(model, comparison, model_name, where)
+    source = source or frame.attrs.get("source") or "the data"
+    if audit is not None:  # before any scoring: a mismatched audit is refused at once
+        report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
+                                    model_file=model_file, data_file=source,
+                                    better=model.schema.target.better,
+                                    cutoff=reasons.checked_cutoff(model, cutoff))
+    prepared = prepare(frame, model.schema, require_target=False, source=source,
+                       features=model.features)
+    model.check_missing(prepared.features, source)
+    score = model.score_encoded(prepared.features)
+    unfavourable = reasons.unfavourable(model, score, cutoff)
+    cutoff = 0.5 if cutoff is None else float(cutoff)
+    prediction = model.inverse_link(score)
+
+    sections = [Section("Read this first", (Bullets(CAUTIONS, caution=True),)),
+                _summary_section(model, model_file, cutoff, source, len(frame),
+                                 comparison is not None, audit is not None)]
+    if comparison is not None:
+        sections.append(_comparison_section(comparison, cutoff))
+    sections.append(_importance_section(model))
+    sections += _feature_sections(model)
+    sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
+    group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction,
+                                      min_group, bands)
+    sections.append(_groups_section(model, group_tables, cutoff, min_group,
+                                    _band_notes(model, prepared.protected, bands)))
+    if audit is not None:
+        sections.append(report_recourse.recourse_section(
+            audit, int(unfavourable.sum()), cutoff, min_group))
+    family = model.metadata.get("family", "additive")
+    title = f"Audit report: {family} model of {model.schema.target.column}"
+    intro = (f"Made by glassbox {__version__} from {model_name} and data file "
+             f"{Path(source).name} ({len(frame):,} rows).")
+    facts = {"unfavourable_rows": int(unfavourable.sum()), "rows": len(frame),
+             "cutoff": cutoff, "groups": group_tables}
+    return Report(title, intro, tuple(sections), facts)
+
+
+def protected_outcomes(model: AdditiveModel, protected: pd.DataFrame,
+                       favourable: np.ndarray, prediction: np.ndarray,
+                       min_group: int = groups.MIN_GROUP,
+                       bands: Mapping[str, Sequence[float]] | None = None,
+                       ) -> dict[str, pd.DataFrame]:
+    """`groups.outcomes_by_group` for every protected column present in the data, numeric
+    ones in bands (`bands` by column name, else as `groups.band_edges` decides)."""
+    bands = dict(bands or {})
+    unknown = sorted(set(bands) - set(map(str, protected.columns)))
+    if unknown:
+        raise OptionError(f"--bands {', '.join(unknown)}: not a protected column in the data "
+                          f"(protected: {', '.join(map(str, protected.columns)) or 'none'})")
+    return {str(column): groups.outcomes_by_group(
+                groups.group_labels(protected[column], bands.get(str(column)),
+                                    _levels(model, str(column))),
+                favourable, prediction, min_rows=min_group)
+            for column in protected.columns}
+
+
+def _levels(model: AdditiveModel, column: str) -> bool:
+    """Whether the schema declares a protected column a category or flag (by level)."""
+    return model.schema.feature(column).kind in ("category", "flag")
+
+
+def _band_notes(model: AdditiveModel, protected: pd.DataFrame,
+                bands: Mapping[str, Sequence[float]] | None) -> list[str]:
+    """One sentence per banded protected column: how it was cut."""
+    bands = dict(bands or {})
+    notes = []
+    for column in protected.columns:
+        edges = groups.band_edges(protected[column], bands.get(str(column)),
+                                  _levels(model, str(column)))
+        if edges is not None:
+            notes.append(groups.band_note(str(column), edges, str(column) in bands))
+    return notes
+
+
+def _outcome_words(model: AdditiveModel) -> str:
+    target = model.schema.target
+    if model.link == "logit":
+        return f"probability of {target.column} = {target.positive}" \
+            if target.positive is not None else f"probability of the positive {target.column}"
+    return f"predicted {target.column}"
+
+
+def _favourable_words(model: AdditiveModel, cutoff: float) -> str:
+    side = "at or below" if model.schema.target.better == "lower" else "at or above"
+    return f"{_outcome_words(model)} {side} {cutoff:g}"
+
+
+def _dated(model: AdditiveModel) -> str:
+    """The fit date the model file records (UTC day); never the file's modification time,
+    so the same model file gives the same report."""
+    day = model.metadata.get("fit_date")
+    return f"{day} (UTC)" if day else "not recorded (the model file predates fit dates)"
+
+
+def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff: float,
+                     source: str, rows: int, compared: bool = False,
+                     audited: bool = False) -> Section:
+    meta, target = model.metadata, model.schema.target
+    link = ("logit: the score is the log-odds of " + _outcome_words(model).removeprefix(
+        "probability of ") if model.link == "logit" else "identity: the score is the prediction")
+    pairs: dict[str, object] = {
+        "model file": Path(model_file).name if model_file else "(not from a file)",
+        "model file SHA-256": file_sha256(model_file) if model_file else "",
+        "family": meta.get("family", ""),
+        "link": link,
+        "better for the person": f"a {target.better} score (schema: better = {target.better})",
+        f"features with a term ({len(model.terms)})": ", ".join(model.features),
+    }
+    left_out = [f.name for f in model.schema.used_features if f.name not in model.features]
+    if left_out:
+        pairs["features without a term"] = ", ".join(left_out)
+    protected = [f.name for f in model.schema.protected_features]
+    pairs["protected (never inputs)"] = ", ".join(protected) or "none declared"
+    pairs["training rows"] = f"{meta['rows']:,}" if "rows" in meta else "not recorded"
+    pairs["fit date"] = _dated(model)
+    versions = meta.get("versions") or {}
+    pairs["library versions"] = ", ".join(f"{k} {v}" for k, v in versions.items()) \
+        or "not recorded"
+    pairs["report data"] = f"{Path(source).name}, {rows:,} rows"
+    pairs["cut-off"] = f"{cutoff:g}; favourable: {_favourable_words(model, cutoff)}"
+    table = pd.DataFrame({"item": list(pairs), "value": [str(v) for v in pairs.values()]})
+    tables = "the principal reasons, the outcomes by group" + (
+        " and the recourse for the declined rows" if audited else "")
+    used = (f"Every table below that sorts rows into favourable and unfavourable uses the "
+            f"cut-off {cutoff:g} ({_favourable_words(model, cutoff)}): {tables}.")
+    if compared:
+        used += (" The accuracy comparison's accuracy column counts at the cut-off the "
+                 "comparison was made with, which its heading names.")
+    return Section("Model summary", (Table(table, pairs=True), Paragraph(used)))
+
+
+def _comparison_section(comparison, cutoff: float) -> Section:
+    from glassbox.fitting.compare import accuracy_table
+
+    settings = comparison.settings
+    made_at = float(settings.get("cutoff", 0.5))
+    note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
+            f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
+            f"(fingerprint {str(comparison.provenance.get('data_sha256'))[:19]}...). ROC AUC, "
+            f"log loss and Brier use no cut-off; accuracy counts a probability of "
+            f"{made_at:g} or more as the positive label, the cut-off the comparison was "
+            "made with" + ("." if made_at == cutoff else
+                           f", not this report's {cutoff:g}."))
+    return Section("Accuracy against a black box", (
+        Paragraph(comparison.headline), Table(accuracy_table(comparison)), Paragraph(note)))
+
+
+def _importance_section(model: AdditiveModel) -> Section:
+    summary = shapes.summary(model)
+    shown = pd.DataFrame({
+        "feature": summary["feature"], "term": summary["term"],
+        "importance": summary["importance"],
+        "contribution range": [f"{cell(lo, 3)} to {cell(hi, 3)}" for lo, hi in
+                               zip(summary["lowest"], summary["highest"], strict=True)],
+        "declared": summary["declared"], "observed": summary["observed"],
+        "missing value": [shapes.missing_words(m, share) for m, share in
+                          zip(summary["missing"], summary["missing_share"], strict=True)]})
+    scale = "log-odds" if model.link == "logit" else model.schema.target.column
+    text = (f"Importance is the mean absolute contribution over the training rows, on the "
+            f"{scale} scale: how far a feature moves a typical score. Rows with no value "
+            "count with the feature's missing-value entry; the last column gives that entry "
+            "and its share of training rows, or says that a missing value is refused "
+            "because the training data had none.")
+    picture = Picture("overview", plots.importance_figure(model),
+                      "Bar chart of the features ranked by importance")
+    return Section("Feature importance", (Paragraph(text), picture, Table(shown)))
+
+
+def _direction_text(model: AdditiveModel, feature: str, observed: str) -> str:
+    spec = model.schema.feature(feature)
+    if isinstance(model.term(feature), LevelsTerm):
+        return "A category: its levels have no order, so no direction applies."
+    if not spec.monotone:
+        return f"No direction declared; observed: {observed}."
+    agree = observed in (spec.monotone, "flat")
+    verdict = "they agree" if agree else "they disagree: check the fit and the schema"
+    return f"Declared {spec.monotone}; observed {observed}: {verdict}."
+
+
+def _feature_sections(model: AdditiveModel) -> list[Section]:
+    summary = shapes.summary(model).set_index("feature")
+    way = "worse" if model.schema.target.better == "lower" else "better"
+    sections = [Section("Features one by one", (Paragraph(
+        f"One picture and one table per feature, most important first. A positive "
+        f"contribution raises the score, which is {way} for the person. Long tables are "
+        f"thinned to at most {SHOWN_ROWS} rows here; the glassbox shapes command writes every "
+        "row."),))]
+    names = _unique_names((f"feature-{safe_file_name(f)}" for f in summary.index),
+                          taken=["overview"])
+    for feature, name in zip(summary.index, names, strict=True):
+        table = shapes.term_table(model, feature)
+        shown = shapes.readable_rows(table, SHOWN_ROWS)
+        columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
+        caption = (f"{len(shown)} of {len(table)} rows, spread over the training data"
+                   if len(shown) < len(table) else "")
+        frame = shown[columns].rename(columns={"row": "value or range", **HEADINGS})
+        blocks = (
+            Picture(name, plots.feature_figure(model, feature),
+                    f"Shape function of {feature}: its contribution to the score"),
+            Paragraph(_direction_text(model, feature, summary.loc[feature, "observed"])),
+            Table(frame.reset_index(drop=True), caption),
+        )
+        kind = summary.loc[feature, "term"]
+        sections.append(Section(f"{feature} ({kind})", blocks, level=3))
+    return sections
+
+
+def _unique_names(names: Iterable[str], taken: Iterable[str] = ()) -> list[str]:
+    """The names, with -2, -3, ... added to repeats (and to names already taken)."""
+    seen: dict[str, int] = dict.fromkeys(taken, 1)
+    out = []
+    for name in names:
+        count = seen.get(name, 0)
+        seen[name] = count + 1
+        out.append(name if count == 0 else f"{name}-{count + 1}")
+    return out
+
+
+def _percent(share: float) -> str:
+    return "" if share is None or not np.isfinite(share) else f"{100 * share:.1f}%"
+
+
+def _reasons_section(model: AdditiveModel, frame: pd.DataFrame, cutoff: float,
+                     unfavourable: np.ndarray, source: str) -> Section:
+    from glassbox.explaining import reasons
+
+    title = "Principal reasons on the unfavourable side"
+    count, rows = int(unfavourable.sum()), len(unfavourable)
+    side = "above" if model.schema.target.better == "lower" else "below"
+    text = (f"{count:,} of {rows:,} rows ({_percent(count / rows)}) lie on the unfavourable "
+            f"side of the cut-off ({_outcome_words(model)} {side} {cutoff:g}). For each, the "
+            "principal reason is the feature whose contribution sits furthest below the best "
+            "its table allows; this is how often each feature comes first.")
+    if count == 0:
+        return Section(title, (Paragraph(text),))
+    table = reasons.principal_reasons(model, frame, cutoff, source=source)
+    shown = pd.DataFrame({"feature": table["feature"], "reason": table["reason"],
+                          "rows": table["rows"].astype(int),
+                          "share": [_percent(s) for s in table["share"]]})
+    return Section(title, (Paragraph(text), Table(shown)))
+
+
+def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
+                    cutoff: float, min_group: int = groups.MIN_GROUP,
+                    band_notes: Sequence[str] = ()) -> Section:
+    title = "Outcomes by protected group"
+    declared = [f.name for f in model.schema.protected_features]
+    if not tables:
+        text = ("The schema declares no protected columns, so no group comparison was made."
+                if not declared else
+                f"The data holds none of the protected columns the schema declares "
+                f"({', '.join(declared)}), so no group comparison was made.")
+        return Section(title, (Paragraph(text),))
+    mean = ("mean probability" if model.link == "logit" else "mean prediction")
+    blocks: list[Block] = [Paragraph(
+        f"Favourable outcome: {_favourable_words(model, cutoff)}. The adverse-impact ratio "
+        "is a group's favourable share divided by that of the most favoured group. Ratios "
+        "below 0.8 are flagged, after the four-fifths rule of the US Uniform Guidelines on "
+        "Employee Selection Procedures (1978), 29 CFR 1607.4(D), the customary screen; "
+        f"local law decides what a gap means. {groups.size_note(min_group)}"
+        + "".join(f" {note}" for note in band_notes))]
+    for column, table in tables.items():
+        shown = pd.DataFrame({
+            "group": table["group"], "rows": table["rows"],
+            "favourable rows": table["favourable_rows"],
+            "favourable share": [_percent(s) for s in table["favourable_share"]],
+            mean: [cell(v, 3) for v in table["mean_prediction"]],
+            "impact ratio": ["" if np.isnan(r) else f"{r:.3f}" for r in table["impact_ratio"]],
+            "below 0.8": groups.flag_words(table["flagged"], table["small"])})
+        caption = f"{column}: " + groups.flag_caption(table["group"], table["flagged"],
+                                                      table["small"], min_group)
+        blocks.append(Table(shown, caption))
+    return Section(title, tuple(blocks))
+
+
+# ---------------------------------------------------------------- rendering
+
+
+def png_bytes(figure: Figure) -> bytes:
+    """A figure as PNG bytes that repeat exactly for the same figure."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", metadata=PNG_METADATA)
+    return buffer.getvalue()
+
+
+def picture_files(report: Report) -> dict[str, bytes]:
+    """File name to PNG bytes for every picture of the report."""
+    return {_picture_file(picture): png_bytes(picture.figure) for picture in report.pictures}
+
+
+def _picture_file(picture: Picture) -> str:
+    return f"{picture.name}.png"
+
+
+def output_files(report: Report | None = None) -> list[tuple[str, str]]:
+    """(name, kind) of the files `write_report` writes: the two pages, then the pictures
+    (known once the report is built)."""
+    pictures = [] if report is None else report.pictures
+    return [(HTML_NAME, "html"), (MARKDOWN_NAME, "markdown"),
+            *((_picture_file(picture), "png") for picture in pictures)]
+
+
+def _cells(frame: pd.DataFrame) -> pd.DataFrame:
+    return frame.map(lambda value: cell(value)).astype(str)
+
+
+STYLE = """
+body { margin: 0; background: #fbfbf8; color: #1d2733;
+  font: 15px/1.5 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; }
+main { max-width: 920px; margin: 0 auto; padding: 24px 28px 64px; background: #fff;
+  border-left: 1px solid #e3e3dc; border-right: 1px solid #e3e3dc; }
+h1 { font-size: 26px; margin: 8px 0 4px; color: #14324f; }
+h2 { font-size: 20px; margin: 36px 0 10px; padding-bottom: 4px; color: #14324f;
+  border-bottom: 2px solid #c9d6e3; }
+h3 { font-size: 16px; margin: 28px 0 8px; color: #14324f; }
+p.intro { color: #55606b; margin-top: 0; }
+nav ol { columns: 2; margin: 8px 0 0; padding-left: 22px; font-size: 14px; }
+nav a { color: #1f4e79; text-decoration: none; }
+ul.caution { background: #fdf6e7; border-left: 5px solid #b7791f; margin: 0;
+  padding: 12px 16px 12px 34px; }
+ul.caution li { margin: 4px 0; }
+table { border-collapse: collapse; margin: 8px 0 4px; font-size: 13px; }
+caption { caption-side: top; text-align: left; font-weight: bold; padding: 4px 0; }
+th { text-align: left; background: #eef2f6; border-bottom: 1px solid #9aaabb; }
+th, td { padding: 3px 10px 3px 6px; vertical-align: top; }
+td { border-bottom: 1px solid #e6e9ec; overflow-wrap: anywhere; }
+td.number { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+table.pairs td:first-child { font-weight: bold; white-space: nowrap; }
+tr:nth-child(even) td { background: #f8f9fa; }
+figure { margin: 10px 0; }
+img { max-width: 100%; height: auto; border: 1px solid #e6e9ec; }
+"""
+
+
+def _numeric(column: pd.Series) -> bool:
+    text = column.astype(str).str.replace(r"[%,]", "", regex=True).str.strip()
+    return bool(len(text)) and bool(pd.to_numeric(text.where(text != "", "0"),
+                                                  errors="coerce").notna().all())
+
+
+def _html_table(table: Table) -> str:
+    frame = _cells(table.frame)
+    numeric = [_numeric(frame[c]) for c in frame.columns]
+    parts = ['<table class="pairs">' if table.pairs else "<table>"]
+    if table.caption:
+        parts.append(f"<caption>{html.escape(table.caption)}</caption>")
+    parts.append("<thead><tr>" + "".join(f"<th>{html.escape(str(c))}</th>"
+                                        for c in frame.columns) + "</tr></thead><tbody>")
+    for row in frame.itertuples(index=False):
+        cells = "".join(f'<td class="number">{html.escape(v)}</td>' if num
+                        else f"<td>{html.escape(v)}</td>"
+                        for v, num in zip(row, numeric, strict=True))
+        parts.append(f"<tr>{cells}</tr>")
+    parts.append("</tbody></table>")
+    return "\n".join(parts)
+
+
+def _html_block(block: Block, images: Mapping[str, bytes]) -> str:
+    if isinstance(block, Paragraph):
+        return f"<p>{html.escape(block.text)}</p>"
+    if isinstance(block, Bullets):
+        kind = ' class="caution"' if block.caution else ""
+        items = "".join(f"<li>{html.escape(item)}</li>" for item in block.items)
+        return f"<ul{kind}>{items}</ul>"
+    if isinstance(block, Table):
+        return _html_table(block)
+    data = base64.b64encode(images[f"{block.name}.png"]).decode("ascii")
+    width, height = (int(round(v)) for v in block.figure.get_size_inches() * block.figure.dpi)
+    return (f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(block.alt)}" '
+            f'width="{width}" height="{height}"></figure>')
+
+
+def to_html(report: Report, images: Mapping[str, bytes] | None = None) -> str:
+    """One self-contained page: CSS inline, pictures as data URIs, no scripts or links out."""
+    images = picture_files(report) if images is None else images
+    anchors = _unique_names(s.anchor for s in report.sections)
+    contents = "".join(f'<li><a href="#{anchor}">{html.escape(s.title)}</a></li>'
+                       for s, anchor in zip(report.sections, anchors, strict=True)
+                       if s.level == 2)
+    body = [f"<h1>{html.escape(report.title)}</h1>",
+            f'<p class="intro">{html.escape(report.intro)}</p>',
+            f"<nav><strong>Contents</strong><ol>{contents}</ol></nav>"]
+    for section, anchor in zip(report.sections, anchors, strict=True):
+        body.append(f'<h{section.level} id="{anchor}">{html.escape(section.title)}'
+                    f"</h{section.level}>")
+        body += [_html_block(block, images) for block in section.blocks]
+    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+            f"<title>{html.escape(report.title)}</title>\n<style>{STYLE}</style>\n</head>\n"
+            "<body>\n<main>\n" + "\n".join(body) + "\n</main>\n</body>\n</html>\n")
+
+
+def to_markdown(report: Report) -> str:
+    """The same content as Markdown; pictures are linked as NAME.png beside the file."""
+    lines = [f"# {report.title}", "", report.intro, ""]
+    for section in report.sections:
+        lines += ["#" * section.level + f" {section.title}", ""]
+        for block in section.blocks:
+            if isinstance(block, Paragraph):
+                lines += [block.text, ""]
+            elif isinstance(block, Bullets):
+                prefix = "> " if block.caution else ""
+                lines += [f"{prefix}- {item}" for item in block.items] + [""]
+            elif isinstance(block, Table):
+                if block.caption:
+                    lines += [f"**{block.caption}**", ""]
+                lines += [table_markdown(_cells(block.frame)).rstrip("\n"), ""]
+            else:
+                lines += [f"![{block.alt}]({block.name}.png)", ""]
+    return "\n".join(lines)
+
+
+def write_report(report: Report, folder: str | Path) -> list[Path]:
+    """Write report.html, report.md and the pictures into `folder`; return the paths."""
+    folder = output_folder(check_folder(folder), "the report")
+    images = picture_files(report)
+    paths = []
+    for name, content in images.items():
+        write_atomic(folder / name, content)
+        paths.append(folder / name)
+    write_atomic(folder / MARKDOWN_NAME, to_markdown(report))
+    write_atomic(folder / HTML_NAME, to_html(report, images))
+    return [folder / HTML_NAME, folder / MARKDOWN_NAME, *paths]

@@ -1,0 +1,174 @@
+"""The audit report's recourse section, from a `recourse audit --format json` file.
+
+glassbox does not import the planner: it reads the audit's JSON document (format
+"recourse-audit", version 1) and lays its tables out as report blocks.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from glassbox.core import structure
+from glassbox.core.errors import DataError
+from glassbox.core.files import read_json
+from glassbox.core.provenance import file_sha256
+from glassbox.core.schema import is_number
+from glassbox.explaining.groups import (
+    MIN_GROUP,
+    compare_groups,
+    flag_caption,
+    flag_words,
+    size_note,
+)
+from glassbox.publishing.report import Paragraph, Section, Table
+
+FORMAT = "recourse-audit"
+VERSION = 1
+TITLE = "Recourse for the declined rows"
+
+
+def read_audit(path: str | Path) -> dict[str, Any]:
+    """Read and check a recourse audit file; a clear one-line error if it is not one."""
+    document = read_json(path, "recourse audit file", DataError)
+    if not isinstance(document, dict) or document.get("format") != FORMAT:
+        raise DataError(f"{path} is not a recourse audit file (write one with "
+                        "`recourse audit ... --format json --out FILE`)")
+    if document.get("version") != VERSION:
+        raise DataError(f"{path}: recourse audit version {document.get('version')!r}; this "
+                        f"glassbox reads version {VERSION}")
+    where = f"recourse audit file {path}"
+    structure.check(structure.AUDIT, document, where, DataError)
+    summary = document["summary"]
+    counted = (summary["with_plan"] + summary["no_plan"] + summary.get("misfits", 0)
+               + summary.get("outside", 0))
+    if counted > summary["declined"]:
+        raise structure.problem(where, "summary", f"counts {counted} rows with a plan, without "
+                                f"one, misfit or outside, more than its "
+                                f"{summary['declined']} declined rows", DataError)
+    return document
+
+
+GOAL_WORDS = {"lower": "at most", "higher": "at least"}  # the goal that matches `better`
+
+
+def check_audit(document: dict[str, Any], audit_name: str, *, model_file: str | Path | None,
+                data_file: str | Path | None, better: str, cutoff: float) -> None:
+    """Refuse an audit that was not made with this model file, on this data file, for the
+    goal this report's cut-off states: its tables would describe other rows."""
+    context = document.get("context") or {}
+    remake = "; remake it with `recourse audit ... --format json`"
+    for key, what in (("model_file_sha256", "model file"), ("data_file_sha256", "data file"),
+                      ("goal", "goal")):
+        if not context.get(key):
+            raise DataError(f"{audit_name} records no {what}, so it cannot be checked "
+                            f"against this report{remake}")
+    for key, given, what in (("model_file_sha256", model_file, "model file"),
+                             ("data_file_sha256", data_file, "data file")):
+        if given is None or not Path(given).is_file():
+            raise DataError(f"{audit_name} can only be checked against the {what} it was made "
+                            f"with: give the report that {what}")
+        if context[key] != file_sha256(given):
+            raise DataError(f"{audit_name} was made with another {what} than "
+                            f"{Path(given).name} (their SHA-256 differ)")
+    goal = str(context["goal"])
+    expected = f"{GOAL_WORDS[better]} {cutoff:g}"
+    if "goal_direction" in context and "goal_target" in context:  # audits since the field
+        same = (str(context["goal_direction"]).replace("-", " ") == GOAL_WORDS[better]
+                and is_number(context["goal_target"])
+                and math.isclose(float(context["goal_target"]), cutoff, rel_tol=1e-12))
+    else:  # older audits record the goal as words only: read its last words
+        found = re.search(r"\b(at most|at least) (\S+)$", goal)
+        same = found is not None and found.group(0) == expected
+    if not same:
+        raise DataError(f"{audit_name} was made for the goal '{goal}', but this report's "
+                        f"cut-off makes favourable '{expected}': give the report the "
+                        "audit's cut-off (--cutoff), or remake the audit for this one")
+
+
+def _share(value: Any) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return ""
+    return f"{100 * float(value):.1f}%"
+
+
+def _number(value: Any) -> str:
+    return "" if value is None or not math.isfinite(float(value)) else f"{float(value):.3g}"
+
+
+def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = None,
+                     cutoff: float | None = None, min_group: int = MIN_GROUP) -> Section:
+    """Shares with a plan, cost quantiles, main changes, binding rules and groups.
+
+    `unfavourable_rows` is how many rows the report's other tables place on the
+    unfavourable side of its `cutoff`; the section says whether the audit's declined
+    rows are those rows. Groups of fewer than `min_group` declined rows are judged as the
+    report's own group tables are (shown, not flagged), from the audit's counts.
+    """
+    summary = document["summary"]
+    context = document.get("context", {})
+    goal = context.get("goal", "the goal of the mutability file")
+    declined = int(summary["declined"])
+    if unfavourable_rows is None:
+        same = ""
+    elif unfavourable_rows == declined:
+        same = (f" These are the {declined:,} rows the tables above place on the "
+                f"unfavourable side of the cut-off, {cutoff:g}.")
+    else:
+        same = (f" The audit counted {declined:,} rows as declined, where the tables above "
+                f"place {unfavourable_rows:,} rows on the unfavourable side of the same "
+                f"cut-off, {cutoff:g}: read the two counts with care.")
+    intro = (f"For each of the {declined:,} declined rows the planner looked for "
+             f"the cheapest changes, within the rules of the mutability file, that reach "
+             f"{goal}.{same} {summary['with_plan']:,} rows "
+             f"({_share(summary['share_with_plan'])}) "
+             f"have a plan; {summary['no_plan']:,} have none within the rules"
+             + (f"; the rules do not fit {summary['misfits']:,}" if summary.get("misfits")
+                else "")
+             + (f"; {summary['outside']:,} have a value outside what the model can plan for"
+                if summary.get("outside") else "")
+             + ". Plans are model what-ifs, not advice or a promise; protected "
+               "characteristics are never levers, only groupings here.")
+    blocks: list[Any] = [Paragraph(intro)]
+    if document["cost_quantiles"]:
+        costs = pd.DataFrame({"quantile": list(document["cost_quantiles"]),
+                              "cost of the cheapest plan": [
+                                  _number(v) for v in document["cost_quantiles"].values()]})
+        blocks.append(Table(costs, "Cost of the cheapest plan, rows with a plan"))
+    if document["main_changes"]:
+        main = pd.DataFrame(document["main_changes"])
+        blocks.append(Table(pd.DataFrame({
+            "feature": main["feature"], "rows": main["rows"],
+            "share": [_share(v) for v in main["share"]]}),
+            "The change that costs most in each cheapest plan"))
+    if document["binding_rules"]:
+        rules = pd.DataFrame(document["binding_rules"])
+        blocks.append(Table(pd.DataFrame({
+            "rule": rules["rule"], "rows": rules["rows"],
+            "share": [_share(v) for v in rules["share"]]}),
+            "Rows without a plan: the rule that binds most"))
+    if document["groups"]:
+        blocks.append(Paragraph(
+            "By group: the share of declined rows with a plan, and its ratio to the "
+            "best-served group's share; a ratio below 0.8 is flagged, after the four-fifths "
+            "rule of the US Uniform Guidelines, 29 CFR 1607.4(D), a customary screen, not a "
+            f"legal finding: local law decides. {size_note(min_group)}"))
+    for column, records in document["groups"].items():
+        table = pd.DataFrame(records)
+        judged = compare_groups(pd.DataFrame({"rows": table["declined"],
+                                              "favourable_rows": table["with_plan"]}),
+                                min_rows=min_group)
+        caption = f"{column}: " + flag_caption(table["group"], judged["flagged"],
+                                               judged["small"], min_group)
+        blocks.append(Table(pd.DataFrame({
+            "group": table["group"], "declined": table["declined"],
+            "with a plan": table["with_plan"],
+            "share with a plan": [_share(v) for v in table["share_with_plan"]],
+            "median cost": [_number(v) for v in table["median_cost"]],
+            "ratio to best": [_number(v) for v in judged["impact_ratio"]],
+            "below 0.8": flag_words(judged["flagged"], judged["small"])}), caption))
+    return Section(TITLE, tuple(blocks))
