@@ -242,7 +242,7 @@ def score_command(
         model = artifact.load(model_file)
         frame = read_table(data)
         table = score_table(model, frame, str(data), contributions=contributions)
-    emit(formats.to_csv(table), out, f"{len(table)} scored rows")
+    emit(formats.to_csv(table, exact=True), out, f"{len(table)} scored rows")
 
 
 def _score_inputs(first: Path | None, second: Path | None,

@@ -71,11 +71,11 @@ def test_score_writes_csv_with_ids_and_contributions(model_file, tmp_path):
         else:
             lookup = dict(zip(term["levels"], term["values"], strict=True))
             part = column.map(lookup).fillna(term["unseen"]).to_numpy(dtype=float)
-        np.testing.assert_allclose(table[f"contribution:{term['feature']}"], part, rtol=1e-9,
-                                   atol=1e-12)  # the CSV holds 10 significant digits
+        np.testing.assert_array_equal(table[f"contribution:{term['feature']}"], part)  # exact
         expected += part
-    np.testing.assert_allclose(table["score"], expected, rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(table["probability"], 1 / (1 + np.exp(-expected)), rtol=1e-9)
+    np.testing.assert_allclose(table["score"], expected, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(table["probability"], 1 / (1 + np.exp(-expected)), rtol=0,
+                               atol=1e-15)
     stdout = run("score", model_file, DEMO / "loans.csv", "--no-contributions")
     assert stdout.stdout.splitlines()[0] == "application_id,score,probability"
 

@@ -79,15 +79,15 @@ def test_estimator_makes_what_the_command_makes(credit, family, options):
     assert points.dumps(points.points_card(estimator.model_)) == (
         folder / "card.json").read_text(encoding="utf-8")
     # the probability of "bad" (classes_[0]: scikit-learn orders classes by name), as
-    # `glassbox score` writes it (to 10 significant digits)
+    # `glassbox score` writes it (each double exactly)
     cli("score", model_file, data, "--out", folder / "scores.csv")
     scored = pd.read_csv(folder / "scores.csv")
     assert list(estimator.classes_) == ["bad", "good"]
     np.testing.assert_allclose(estimator.predict_proba(features)[:, 0],
-                               scored["probability"], rtol=1e-9, atol=1e-12)
+                               scored["probability"], rtol=0, atol=1e-15)
     # scikit-learn's convention: the decision function is the log-odds of classes_[1]
     np.testing.assert_allclose(estimator.decision_function(features), -scored["score"],
-                               rtol=1e-9, atol=1e-12)
+                               rtol=0, atol=1e-12)
     predicted = np.where(scored["probability"] > 0.5, "bad", "good")
     assert (estimator.predict(features) == predicted).all()
 
@@ -148,8 +148,8 @@ def test_regression_without_a_schema_makes_what_the_command_makes(family, option
     assert json.loads(artifact.dumps(regression.model_)) == written
     cli("score", tmp_path / "wage.json", data, "--out", tmp_path / "scores.csv")
     scored = pd.read_csv(tmp_path / "scores.csv")
-    np.testing.assert_allclose(regression.predict(X), scored["prediction"], rtol=1e-9,
-                               atol=1e-12)  # the CSV holds 10 significant digits
+    np.testing.assert_allclose(regression.predict(X), scored["prediction"], rtol=0,
+                               atol=1e-9)  # the CSV holds each double exactly
 
 
 def test_missing_values_are_scored_through_the_term_entry():

@@ -13,8 +13,12 @@ from glassbox.core.errors import OptionError
 SUFFIXES = {"csv": ".csv", "markdown": ".md", "json": ".json"}
 
 
-def to_csv(table: pd.DataFrame) -> str:
-    return table.to_csv(index=False, lineterminator="\n", float_format="%.10g")
+def to_csv(table: pd.DataFrame, exact: bool = False) -> str:
+    """CSV text: numbers to 10 significant digits for tables people read, or with `exact`
+    as the shortest text that reads back as the same double (scores, which other systems
+    take up and the exports are held to)."""
+    return table.to_csv(index=False, lineterminator="\n",
+                        float_format=None if exact else "%.10g")
 
 
 def to_markdown(table: pd.DataFrame, digits: int = 4) -> str:
