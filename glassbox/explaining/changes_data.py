@@ -8,6 +8,7 @@ importance are over the rows both versions score, and the counts say how many th
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, fields, replace
 from typing import Any
 
@@ -16,7 +17,7 @@ import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, LevelsTerm
 from glassbox.core.encoding import prepare, rows_text
-from glassbox.core.errors import DataError, value_text
+from glassbox.core.errors import DataError, UnseenLevelWarning, value_text
 from glassbox.explaining.reasons import checked_cutoff, unfavourable
 
 PERCENTILES = (1, 5, 25, 50, 75, 95, 99)
@@ -168,7 +169,11 @@ def score_rows(model: AdditiveModel, frame: pd.DataFrame, where: str,
             column = column.copy()
             column[absent] = (term.levels[0] if isinstance(term, LevelsTerm)
                               else 0.0)  # a stand-in: these rows get no score below
-        values = term.evaluate(column)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", UnseenLevelWarning)
+            values = term.evaluate(column)
+        for found in caught:  # say which version met the level (both may)
+            warnings.warn(f"{version}: {found.message}", found.category, stacklevel=2)
         contributions[term.feature] = values
         score += values
     score[blocked] = np.nan
