@@ -29,7 +29,7 @@ from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
 from recourse.relaxation import Relaxation
 
-SOLVERS = ("highs", "cbc")
+SOLVERS = ("highs", "cbc", "exact")  # exact: recourse.solver, built for this program's shape
 DEFAULT_SOLVER = "highs"  # in-process and faster than the CBC command line (bench/RESULTS.md)
 BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), so plans always do
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
@@ -267,14 +267,21 @@ def _limit(program: Program) -> int:
     return groups if program.max_changes is None else min(program.max_changes, groups)
 
 
+def _denoised(gain: np.ndarray, cost: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Copies with gains and costs below NOISE set to zero, as every solver sees them.
+
+    Solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
+    choice is then judged and polished on the exact values."""
+    gain, cost = np.array(gain, dtype=float), np.array(cost, dtype=float)
+    gain[np.abs(gain) < NOISE], cost[cost < NOISE] = 0.0, 0.0
+    return gain, cost
+
+
 def _rows(program: Program, kept: list[np.ndarray]) -> _Rows:
     """Lay the program out as linear rows; shared by every solver so they solve the same thing."""
     gains, costs = _tables(program)
-    gain = np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)])
-    cost = np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)])
-    # solvers see values this small as noise (HiGHS once mis-scaled a cost of 5e-324); the
-    # choice is then judged and polished on the exact values
-    gain[np.abs(gain) < NOISE], cost[cost < NOISE] = 0.0, 0.0
+    gain, cost = _denoised(np.concatenate([g[k] for g, k in zip(gains, kept, strict=True)]),
+                           np.concatenate([c[k] for c, k in zip(costs, kept, strict=True)]))
     sizes = [len(k) for k in kept]
     starts = np.concatenate(([0], np.cumsum(sizes)))
     n, columns = int(starts[-1]), np.arange(int(starts[-1]))
@@ -518,9 +525,14 @@ def _scipy_run(program: Program, layout: _Rows) -> tuple[int, ...] | None:
 
 def solve(program: Program, solver: str = DEFAULT_SOLVER) -> Solution:
     """Solve the program exactly: by listing combinations when few enough, else with PuLP and
-    HiGHS or CBC; the returned choice is verified in Python."""
+    HiGHS or CBC, or with the dedicated search (recourse.solver); the returned choice is
+    verified in Python."""
     if solver not in SOLVERS:
         raise PlanningError(f"unknown solver {solver!r}; known solvers: {', '.join(SOLVERS)}")
+    if solver == "exact":
+        from recourse.solver import solve_exact
+
+        return solve_exact(program)
     return _lexicographic(program, functools.partial(
         _run, mip=functools.partial(_pulp_run, solver=solver)), solver)
 

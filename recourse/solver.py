@@ -1,0 +1,299 @@
+"""An exact solver built for the recourse program's shape: a multiple-choice knapsack with a
+limit on changes and cuts between plans.
+
+`solve_exact` keeps `recourse.program`'s contract (objectives, BUFFER, NOISE, the tie rule,
+the reductions by dominance and the Lagrangian bound, the verdict checked in Python) and
+replaces only the search. The search is a dynamic program over the groups: a state is a
+partial choice (total cost, gain, number of changes, which cuts may still be completed), and
+states are dropped when another with the same changes and open cuts costs no more and gains
+no less, when even the best the later groups could add misses the need (their largest gains
+within the limit), or when a lower bound passes the best plan in hand. The bound is the
+larger of the linear relaxation over the later groups (`hull_bound`: each group's lower
+convex hull of (gain, cost) points, walked in order of slope; Sinha & Zemel 1979, Zemel 1984)
+and, with one change left, the cheapest single change of a later group that finishes the
+plan. A state that reaches the need is a plan (the later groups stay put, which breaks no
+cut still open), so it ends there. Nothing is capped or approximated: the bound only drops
+states that cannot beat a plan already found, with a margin for rounding.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from recourse.program import (
+    Program,
+    Solution,
+    _denoised,
+    _kept,
+    _lexicographic,
+    _need,
+    _tables,
+)
+
+NAME = "exact"
+
+
+def hull_bound(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: float) -> float:
+    """The least cost of the linear relaxation: per group, weights >= 0 on its points that sum
+    to 1, the weighted gains of all groups adding to at least `need`; inf when no weights do.
+
+    Each group starts from its cheapest point (of those, the one that gains most); what a
+    group can add beyond it lies on the lower convex hull of its (gain, cost) points, and the
+    hull segments of all groups are taken cheapest per unit of gain first (Zemel 1984).
+    """
+    start_cost, start_gain, slopes, lengths = _segments(gains, costs)
+    rest = need - start_gain
+    if rest <= 0:
+        return start_cost
+    order = np.argsort(slopes, kind="stable")
+    cumulative = np.cumsum(lengths[order])
+    if len(cumulative) == 0 or cumulative[-1] < rest:
+        return math.inf
+    at = int(np.searchsorted(cumulative, rest, side="left"))
+    before = cumulative[at - 1] if at else 0.0
+    paid = float(np.dot(slopes[order][:at], lengths[order][:at]))
+    return start_cost + paid + float(slopes[order][at] * (rest - before))
+
+
+def _segments(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray]
+              ) -> tuple[float, float, np.ndarray, np.ndarray]:
+    """The summed starting cost and gain of every group, and every hull segment's slope (cost
+    per unit of gain) and length in gain."""
+    start_cost = start_gain = 0.0
+    slopes, lengths = [], []
+    for gain, cost in zip(gains, costs, strict=True):
+        gain, cost = np.asarray(gain, float), np.asarray(cost, float)
+        first = int(np.lexsort((-gain, cost))[0])
+        start_cost += float(cost[first])
+        start_gain += float(gain[first])
+        hull = _lower_hull(gain, cost, first)
+        slopes.append(np.diff(cost[hull]) / np.diff(gain[hull]))
+        lengths.append(np.diff(gain[hull]))
+    if not slopes:
+        return start_cost, start_gain, np.zeros(0), np.zeros(0)
+    return start_cost, start_gain, np.concatenate(slopes), np.concatenate(lengths)
+
+
+def _lower_hull(gain: np.ndarray, cost: np.ndarray, first: int) -> list[int]:
+    """Indices of the lower convex hull of the points that gain more than `first`, from it,
+    in increasing gain (of equal gains, the cheapest)."""
+    above = np.flatnonzero(gain > gain[first])
+    above = above[np.lexsort((cost[above], gain[above]))]
+    hull = [first]
+    for point in above:
+        if gain[point] == gain[hull[-1]]:
+            continue  # the same gain at no less cost (sorted so)
+        while len(hull) >= 2:
+            a, b = hull[-2], hull[-1]
+            # drop b when it lies on or above the segment from a to the new point
+            if ((cost[b] - cost[a]) * (gain[point] - gain[a])
+                    >= (cost[point] - cost[a]) * (gain[b] - gain[a])):
+                hull.pop()
+            else:
+                break
+        hull.append(int(point))
+    return hull
+
+
+@dataclass(frozen=True)
+class _Suffix:
+    """What the groups from one position on can still add: the bound's ingredients."""
+
+    slopes: np.ndarray  # hull segments, cheapest per unit of gain first
+    reach: np.ndarray  # cumulative gain of those segments
+    paid: np.ndarray  # cumulative cost of those segments
+    best_gains: np.ndarray  # cumulative sum of the groups' largest gains, largest first
+    single_gain: np.ndarray  # every change of those groups sorted by gain
+    single_cost: np.ndarray  # the least cost of a change gaining at least as much
+
+    @classmethod
+    def of(cls, gains: Sequence[np.ndarray], costs: Sequence[np.ndarray]) -> _Suffix:
+        zero = [np.r_[0.0, g] for g in gains]  # staying put: gain 0 at cost 0
+        _, _, slopes, lengths = _segments(zero, [np.r_[0.0, c] for c in costs])
+        order = np.argsort(slopes, kind="stable")
+        slopes, lengths = slopes[order], lengths[order]
+        best = np.sort([g.max() for g in gains if len(g)])[::-1]
+        every_gain = np.concatenate([np.zeros(0), *gains])
+        every_cost = np.concatenate([np.zeros(0), *costs])
+        by_gain = np.argsort(every_gain, kind="stable")
+        single = np.minimum.accumulate(every_cost[by_gain][::-1])[::-1]
+        return cls(slopes, np.r_[0.0, np.cumsum(lengths)], np.r_[0.0, np.cumsum(slopes * lengths)],
+                   np.r_[0.0, np.cumsum(best)], every_gain[by_gain], single)
+
+    def bound(self, rest: np.ndarray, left: np.ndarray) -> np.ndarray:
+        """A lower bound on the cost of gaining `rest` more with at most `left` changes
+        (inf where that is out of reach)."""
+        top = self.best_gains[np.minimum(left, len(self.best_gains) - 1)]
+        at = np.searchsorted(self.reach, rest, side="left")
+        inside = at < len(self.reach)
+        at = np.clip(at, 1, len(self.reach) - 1) if len(self.reach) > 1 else np.zeros_like(at)
+        if len(self.slopes):
+            hull = self.paid[at - 1] + self.slopes[at - 1] * (rest - self.reach[at - 1])
+        else:
+            hull = np.zeros(len(rest))
+        hull = np.where(rest <= 0, 0.0, np.where(inside, hull, np.inf))
+        one = left == 1
+        if one.any() and len(self.single_gain):
+            where = np.searchsorted(self.single_gain, rest[one], side="left")
+            found = where < len(self.single_gain)
+            single = np.where(found, self.single_cost[np.minimum(where, len(self.single_gain) - 1)],
+                              np.inf)
+            hull[one] = np.maximum(hull[one], single)
+        return np.where(top >= rest, hull, np.inf)
+
+
+def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: float,
+             limit: int, forbidden: Sequence[frozenset[int]]) -> tuple[int, ...] | None:
+    """The least-cost choice of at most one change per group (-1: none) gaining at least
+    `need`, with at most `limit` changes and no forbidden set all changed; None if none.
+
+    `gains` and `costs` are per group, over its changes only (gains > 0, costs >= 0).
+    """
+    groups = len(gains)
+    if any(not f for f in forbidden):
+        return None  # an empty set is changed by every choice
+    if need <= 0:
+        return (-1,) * groups
+    cuts = [f for f in forbidden if all(len(gains[g]) for g in f)]  # others cannot close
+    # groups in cuts first, so that the open cuts settle early; then the largest gains
+    order = sorted(range(groups), key=lambda g: (not any(g in f for f in cuts),
+                                                 -(gains[g].max() if len(gains[g]) else 0.0)))
+    position = {g: k for k, g in enumerate(order)}
+    last = [max(position[g] for g in f) for f in cuts]  # where each cut settles
+    suffixes = [_Suffix.of([gains[g] for g in order[k:]], [costs[g] for g in order[k:]])
+                for k in range(groups + 1)]
+    upper, found = math.inf, None  # the best plan in hand: its cost and how to rebuild it
+    # states by key (changes, open cuts as a bit mask): costs, gains and where they came from
+    start = (0, (1 << len(cuts)) - 1)
+    states = {start: (np.zeros(1), np.zeros(1), np.zeros(1, int))}
+    history: list[tuple[np.ndarray, np.ndarray]] = []  # per layer, each state's parent, pick
+    for k, group in enumerate(order):
+        inside = sum(1 << i for i, f in enumerate(cuts) if group in f)
+        closing = sum(1 << i for i, at in enumerate(last) if at == k)
+        grown: dict[tuple[int, int], list] = {}
+        for (count, mask), (cost, gain, ids) in states.items():
+            stay = (count, mask & ~inside)
+            grown.setdefault(stay, []).append((cost, gain, ids, np.full(len(cost), -1)))
+            if len(gains[group]) == 0 or count >= limit or (mask & closing) != 0:
+                continue  # no change here, none left, or it would close a cut
+            moved_cost = (cost[:, None] + costs[group][None, :]).ravel()
+            moved_gain = (gain[:, None] + gains[group][None, :]).ravel()
+            parents = np.repeat(ids, len(gains[group]))
+            picks = np.tile(np.arange(len(gains[group])), len(cost))
+            done = moved_gain >= need
+            if done.any():  # a plan: the later groups stay put
+                best = int(np.argmin(np.where(done, moved_cost, np.inf)))
+                if moved_cost[best] < upper:
+                    upper, found = float(moved_cost[best]), (k, int(parents[best]),
+                                                               int(picks[best]))
+            keep = ~done
+            grown.setdefault((count + 1, mask), []).append(
+                (moved_cost[keep], moved_gain[keep], parents[keep], picks[keep]))
+        states, layer_parent, layer_pick = {}, [], []
+        margin = upper + 1e-9 * (1.0 + upper) if math.isfinite(upper) else math.inf
+        total = 0
+        for (count, mask), pieces in sorted(grown.items()):
+            cost = np.concatenate([p[0] for p in pieces])
+            gain = np.concatenate([p[1] for p in pieces])
+            parent = np.concatenate([p[2] for p in pieces])
+            pick = np.concatenate([p[3] for p in pieces])
+            bound = cost + suffixes[k + 1].bound(need - gain, np.full(len(cost), limit - count))
+            alive = bound <= margin
+            cost, gain, parent, pick = cost[alive], gain[alive], parent[alive], pick[alive]
+            if len(cost) == 0:
+                continue
+            order_here = np.lexsort((-gain, cost))
+            best_before = np.maximum.accumulate(np.r_[-np.inf, gain[order_here]])[:-1]
+            kept = order_here[gain[order_here] > best_before]  # no cheaper state gains as much
+            states[(count, mask)] = (cost[kept], gain[kept], np.arange(total, total + len(kept)))
+            layer_parent.append(parent[kept])
+            layer_pick.append(pick[kept])
+            total += len(kept)
+        history.append((np.concatenate([np.zeros(0, int), *layer_parent]),
+                        np.concatenate([np.zeros(0, int), *layer_pick])))
+        if not states:
+            break
+    if found is None:
+        return None
+    return _rebuild(found, history, order, groups)
+
+
+def _rebuild(found: tuple[int, int, int], history: list[tuple[np.ndarray, np.ndarray]],
+             order: list[int], groups: int) -> tuple[int, ...]:
+    """The choice behind a plan found at layer k: follow the parents back to the start."""
+    k, parent, pick = found
+    choice = [-1] * groups
+    choice[order[k]] = pick
+    for layer in range(k - 1, -1, -1):
+        parents, picks = history[layer]
+        choice[order[layer]] = int(picks[parent])
+        parent = int(parents[parent])
+    return tuple(choice)
+
+
+def _exact_run(program: Program, cap: float) -> tuple[int, ...] | None:
+    """The best choice of the program's objective with every cost within `cap` (None if no
+    choice keeps the rules), over the candidates `recourse.program` keeps."""
+    gains, costs = _tables(program)
+    changes = [k[k != now] for k, now in zip(_kept(program, cap), program.current, strict=True)]
+    moves = [_denoised(gains[g][c], costs[g][c]) for g, c in enumerate(changes)]
+    gain, cost = [m[0] for m in moves], [m[1] for m in moves]
+    need = _need(program)
+    limit = len(changes) if program.max_changes is None else program.max_changes
+    if program.objective == "total-cost":
+        picked = cheapest(gain, cost, need, limit, program.forbidden)
+    elif program.objective == "fewest-changes":
+        picked = _fewest(gain, cost, need, limit, program.forbidden, math.inf)
+    else:
+        picked = _least_largest(gain, cost, need, limit, program.forbidden)
+    if picked is None:
+        return None
+    return tuple(now if pick < 0 else int(c[pick])
+                 for now, pick, c in zip(program.current, picked, changes, strict=True))
+
+
+def _fewest(gains: list[np.ndarray], costs: list[np.ndarray], need: float, limit: int,
+            forbidden: Sequence[frozenset[int]], cap: float) -> tuple[int, ...] | None:
+    """The fewest changes within `cap` that reach the need: each change costs one, and of a
+    group's changes only the one that gains most (within the cap) is worth taking."""
+    best = []
+    for gain, cost in zip(gains, costs, strict=True):
+        within = np.flatnonzero(cost <= cap)
+        best.append(within[np.argmax(gain[within])] if len(within) else -1)
+    unit = cheapest([gains[g][[b]] if b >= 0 else np.zeros(0) for g, b in enumerate(best)],
+                    [np.ones(1 if b >= 0 else 0) for b in best], need, limit, forbidden)
+    if unit is None:
+        return None
+    return tuple(-1 if pick < 0 else int(b) for pick, b in zip(unit, best, strict=True))
+
+
+def _least_largest(gains: list[np.ndarray], costs: list[np.ndarray], need: float, limit: int,
+                   forbidden: Sequence[frozenset[int]]) -> tuple[int, ...] | None:
+    """The choice whose largest cost is least: the cheapest cap under which some choice still
+    reaches the need, found by bisection over the costs that occur."""
+    levels = np.unique(np.concatenate([np.zeros(1), *costs]))
+    low, high = 0, len(levels) - 1
+    best = _fewest(gains, costs, need, limit, forbidden, levels[high])
+    if best is None:
+        return None
+    while low < high:
+        middle = (low + high) // 2
+        found = _fewest(gains, costs, need, limit, forbidden, levels[middle])
+        if found is None:
+            low = middle + 1
+        else:
+            high, best = middle, found
+    return best
+
+
+def solve_exact(program: Program) -> Solution:
+    """Solve the program exactly with the dedicated search; the same contract as
+    `recourse.program.solve` (ties to the least total cost, the choice verified in Python)."""
+    return _lexicographic(program, _exact_run, NAME)  # checks the program first
+
+
+__all__ = ["cheapest", "hull_bound", "solve_exact"]
