@@ -63,19 +63,20 @@ def _segments(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray]
               ) -> tuple[float, float, np.ndarray, np.ndarray]:
     """The summed starting cost and gain of every group, and every hull segment's slope (cost
     per unit of gain) and length in gain."""
-    start_cost = start_gain = 0.0
-    slopes, lengths = [], []
-    for gain, cost in zip(gains, costs, strict=True):
-        gain, cost = np.asarray(gain, float), np.asarray(cost, float)
-        first = int(np.lexsort((-gain, cost))[0])
-        start_cost += float(cost[first])
-        start_gain += float(gain[first])
-        hull = _lower_hull(gain, cost, first)
-        slopes.append(np.diff(cost[hull]) / np.diff(gain[hull]))
-        lengths.append(np.diff(gain[hull]))
-    if not slopes:
-        return start_cost, start_gain, np.zeros(0), np.zeros(0)
-    return start_cost, start_gain, np.concatenate(slopes), np.concatenate(lengths)
+    pieces = [_group_hull(np.asarray(g, float), np.asarray(c, float))
+              for g, c in zip(gains, costs, strict=True)]
+    if not pieces:
+        return 0.0, 0.0, np.zeros(0), np.zeros(0)
+    return (float(sum(p[0] for p in pieces)), float(sum(p[1] for p in pieces)),
+            np.concatenate([p[2] for p in pieces]), np.concatenate([p[3] for p in pieces]))
+
+
+def _group_hull(gain: np.ndarray, cost: np.ndarray) -> tuple[float, float, np.ndarray, np.ndarray]:
+    """One group's starting point (cheapest, then most gain) and its hull segments."""
+    first = int(np.lexsort((-gain, cost))[0])
+    hull = _lower_hull(gain, cost, first)
+    return (float(cost[first]), float(gain[first]), np.diff(cost[hull]) / np.diff(gain[hull]),
+            np.diff(gain[hull]))
 
 
 def _lower_hull(gain: np.ndarray, cost: np.ndarray, first: int) -> list[int]:
@@ -111,14 +112,17 @@ class _Suffix:
     single_cost: np.ndarray  # the least cost of a change gaining at least as much
 
     @classmethod
-    def of(cls, gains: Sequence[np.ndarray], costs: Sequence[np.ndarray]) -> _Suffix:
-        zero = [np.r_[0.0, g] for g in gains]  # staying put: gain 0 at cost 0
-        _, _, slopes, lengths = _segments(zero, [np.r_[0.0, c] for c in costs])
+    def of(cls, pieces: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
+           ) -> _Suffix:
+        """From each later group's changes (gains, costs) and hull from staying put (slopes,
+        lengths: a change that costs nothing gives a first segment of slope 0)."""
+        slopes = np.concatenate([np.zeros(0), *(p[2] for p in pieces)])
+        lengths = np.concatenate([np.zeros(0), *(p[3] for p in pieces)])
         order = np.argsort(slopes, kind="stable")
         slopes, lengths = slopes[order], lengths[order]
-        best = np.sort([g.max() for g in gains if len(g)])[::-1]
-        every_gain = np.concatenate([np.zeros(0), *gains])
-        every_cost = np.concatenate([np.zeros(0), *costs])
+        best = np.sort([p[0].max() for p in pieces if len(p[0])])[::-1]
+        every_gain = np.concatenate([np.zeros(0), *(p[0] for p in pieces)])
+        every_cost = np.concatenate([np.zeros(0), *(p[1] for p in pieces)])
         by_gain = np.argsort(every_gain, kind="stable")
         single = np.minimum.accumulate(every_cost[by_gain][::-1])[::-1]
         return cls(slopes, np.r_[0.0, np.cumsum(lengths)], np.r_[0.0, np.cumsum(slopes * lengths)],
@@ -164,8 +168,14 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
                                                  -(gains[g].max() if len(gains[g]) else 0.0)))
     position = {g: k for k, g in enumerate(order)}
     last = [max(position[g] for g in f) for f in cuts]  # where each cut settles
-    suffixes = [_Suffix.of([gains[g] for g in order[k:]], [costs[g] for g in order[k:]])
-                for k in range(groups + 1)]
+    pieces = []
+    for g in order:  # each group's hull from staying put (gain 0 at cost 0)
+        start_cost, start_gain, slopes, lengths = _group_hull(np.r_[0.0, gains[g]],
+                                                              np.r_[0.0, costs[g]])
+        if start_gain > 0:  # a change that costs nothing: free gain first
+            slopes, lengths = np.r_[0.0, slopes], np.r_[start_gain, lengths]
+        pieces.append((gains[g], costs[g], slopes, lengths))
+    suffixes = [_Suffix.of(pieces[k:]) for k in range(groups + 1)]
     upper, found = math.inf, None  # the best plan in hand: its cost and how to rebuild it
     # states by key (changes, open cuts as a bit mask): costs, gains and where they came from
     start = (0, (1 << len(cuts)) - 1)
@@ -202,7 +212,7 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
             parent = np.concatenate([p[2] for p in pieces])
             pick = np.concatenate([p[3] for p in pieces])
             bound = cost + suffixes[k + 1].bound(need - gain, np.full(len(cost), limit - count))
-            alive = bound <= margin
+            alive = np.isfinite(bound) & (bound <= margin)
             cost, gain, parent, pick = cost[alive], gain[alive], parent[alive], pick[alive]
             if len(cost) == 0:
                 continue

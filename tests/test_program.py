@@ -126,8 +126,9 @@ def groups(draw):
 
 
 @st.composite
-def programs(draw):
-    tables = draw(st.lists(groups(), min_size=0, max_size=5))
+def programs(draw, min_groups: int = 0, max_groups: int = 5,
+             objectives: tuple[str, ...] = ("total-cost", "largest-cost", "fewest-changes")):
+    tables = draw(st.lists(groups(), min_size=min_groups, max_size=max_groups))
     count = len(tables)
     subsets = st.frozensets(st.integers(0, count - 1), max_size=count) if count else \
         st.just(frozenset())
@@ -146,7 +147,7 @@ def programs(draw):
         current=tuple(t[2] for t in tables),
         threshold=now + share * (best - now),
         direction=direction,
-        objective=draw(st.sampled_from(["total-cost", "largest-cost", "fewest-changes"])),
+        objective=draw(st.sampled_from(objectives)),
         max_changes=draw(st.one_of(st.none(), st.integers(0, max(count, 1)))),
         forbidden=tuple(draw(st.lists(subsets, max_size=3))),
     )
