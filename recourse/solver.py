@@ -25,8 +25,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from recourse.program import (
+    NOISE,
     Program,
     Solution,
+    _closed_form,
     _denoised,
     _kept,
     _lexicographic,
@@ -100,6 +102,11 @@ def _lower_hull(gain: np.ndarray, cost: np.ndarray, first: int) -> list[int]:
     return hull
 
 
+def _after(first: float, values: np.ndarray) -> np.ndarray:
+    """`values` with `first` in front (np.r_ is slow on the hot path)."""
+    return np.concatenate(((first,), values))
+
+
 @dataclass(frozen=True)
 class _Suffix:
     """What the groups from one position on can still add: the bound's ingredients."""
@@ -112,21 +119,34 @@ class _Suffix:
     single_cost: np.ndarray  # the least cost of a change gaining at least as much
 
     @classmethod
-    def of(cls, pieces: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
-           ) -> _Suffix:
-        """From each later group's changes (gains, costs) and hull from staying put (slopes,
-        lengths: a change that costs nothing gives a first segment of slope 0)."""
-        slopes = np.concatenate([np.zeros(0), *(p[2] for p in pieces)])
-        lengths = np.concatenate([np.zeros(0), *(p[3] for p in pieces)])
+    def every(cls, pieces: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
+              ) -> list[_Suffix]:
+        """The suffixes from each position (and the empty one), from each group's changes
+        (gains, costs) and its hull from staying put (slopes, lengths: a change that costs
+        nothing gives a first segment of slope 0). Sorted once, then filtered."""
+        def joined(part: int) -> tuple[np.ndarray, np.ndarray]:
+            values = np.concatenate([np.zeros(0), *(p[part] for p in pieces)])
+            at = np.repeat(np.arange(len(pieces)), [len(p[part]) for p in pieces])
+            return values, at
+
+        slopes, slope_at = joined(2)
+        lengths = joined(3)[0]
         order = np.argsort(slopes, kind="stable")
-        slopes, lengths = slopes[order], lengths[order]
-        best = np.sort([p[0].max() for p in pieces if len(p[0])])[::-1]
-        every_gain = np.concatenate([np.zeros(0), *(p[0] for p in pieces)])
-        every_cost = np.concatenate([np.zeros(0), *(p[1] for p in pieces)])
-        by_gain = np.argsort(every_gain, kind="stable")
-        single = np.minimum.accumulate(every_cost[by_gain][::-1])[::-1]
-        return cls(slopes, np.r_[0.0, np.cumsum(lengths)], np.r_[0.0, np.cumsum(slopes * lengths)],
-                   np.r_[0.0, np.cumsum(best)], every_gain[by_gain], single)
+        slopes, lengths, slope_at = slopes[order], lengths[order], slope_at[order]
+        best = np.array([p[0].max() if len(p[0]) else 0.0 for p in pieces])
+        by_best = np.argsort(-best, kind="stable")
+        gains, gain_at = joined(0)
+        costs = joined(1)[0]
+        by_gain = np.argsort(gains, kind="stable")
+        gains, costs, gain_at = gains[by_gain], costs[by_gain], gain_at[by_gain]
+        out = []
+        for k in range(len(pieces) + 1):
+            here, later, top = slope_at >= k, gain_at >= k, by_best[by_best >= k]
+            single = np.minimum.accumulate(costs[later][::-1])[::-1]
+            out.append(cls(slopes[here], _after(0.0, np.cumsum(lengths[here])),
+                           _after(0.0, np.cumsum(slopes[here] * lengths[here])),
+                           _after(0.0, np.cumsum(best[top])), gains[later], single))
+        return out
 
     def bound(self, rest: np.ndarray, left: np.ndarray) -> np.ndarray:
         """A lower bound on the cost of gaining `rest` more with at most `left` changes
@@ -170,12 +190,12 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
     last = [max(position[g] for g in f) for f in cuts]  # where each cut settles
     pieces = []
     for g in order:  # each group's hull from staying put (gain 0 at cost 0)
-        start_cost, start_gain, slopes, lengths = _group_hull(np.r_[0.0, gains[g]],
-                                                              np.r_[0.0, costs[g]])
+        start_cost, start_gain, slopes, lengths = _group_hull(_after(0.0, gains[g]),
+                                                              _after(0.0, costs[g]))
         if start_gain > 0:  # a change that costs nothing: free gain first
-            slopes, lengths = np.r_[0.0, slopes], np.r_[start_gain, lengths]
+            slopes, lengths = _after(0.0, slopes), _after(start_gain, lengths)
         pieces.append((gains[g], costs[g], slopes, lengths))
-    suffixes = [_Suffix.of(pieces[k:]) for k in range(groups + 1)]
+    suffixes = _Suffix.every(pieces)
     upper, found = math.inf, None  # the best plan in hand: its cost and how to rebuild it
     # states by key (changes, open cuts as a bit mask): costs, gains and where they came from
     start = (0, (1 << len(cuts)) - 1)
@@ -217,7 +237,7 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
             if len(cost) == 0:
                 continue
             order_here = np.lexsort((-gain, cost))
-            best_before = np.maximum.accumulate(np.r_[-np.inf, gain[order_here]])[:-1]
+            best_before = np.maximum.accumulate(_after(-np.inf, gain[order_here]))[:-1]
             kept = order_here[gain[order_here] > best_before]  # no cheaper state gains as much
             states[(count, mask)] = (cost[kept], gain[kept], np.arange(total, total + len(kept)))
             layer_parent.append(parent[kept])
@@ -259,7 +279,10 @@ def _exact_run(program: Program, cap: float) -> tuple[int, ...] | None:
     elif program.objective == "fewest-changes":
         picked = _fewest(gain, cost, need, limit, program.forbidden, math.inf)
     else:
-        picked = _least_largest(gain, cost, need, limit, program.forbidden)
+        lowest = _closed_form(program)  # the optimum with no forbidden sets
+        if lowest is None:
+            return None
+        picked = _least_largest(gain, cost, need, limit, program.forbidden, lowest)
     if picked is None:
         return None
     return tuple(now if pick < 0 else int(c[pick])
@@ -268,26 +291,68 @@ def _exact_run(program: Program, cap: float) -> tuple[int, ...] | None:
 
 def _fewest(gains: list[np.ndarray], costs: list[np.ndarray], need: float, limit: int,
             forbidden: Sequence[frozenset[int]], cap: float) -> tuple[int, ...] | None:
-    """The fewest changes within `cap` that reach the need: each change costs one, and of a
-    group's changes only the one that gains most (within the cap) is worth taking."""
+    """The fewest changes within `cap` that reach the need (None if none keeps the rules).
+
+    Of a group's changes only the one that gains most within the cap is worth taking, so
+    the search is over which groups change: a dynamic program whose states (changes, cuts
+    still open) keep their largest gain, dropped when the best later gains cannot reach."""
     best = []
     for gain, cost in zip(gains, costs, strict=True):
         within = np.flatnonzero(cost <= cap)
-        best.append(within[np.argmax(gain[within])] if len(within) else -1)
-    unit = cheapest([gains[g][[b]] if b >= 0 else np.zeros(0) for g, b in enumerate(best)],
-                    [np.ones(1 if b >= 0 else 0) for b in best], need, limit, forbidden)
-    if unit is None:
+        best.append(int(within[np.argmax(gain[within])]) if len(within) else -1)
+    groups = len(gains)
+    if any(not f for f in forbidden):
+        return None  # an empty set is changed by every choice
+    if need <= 0:
+        return (-1,) * groups
+    value = [float(gains[g][b]) if b >= 0 else 0.0 for g, b in enumerate(best)]
+    order = sorted((g for g in range(groups) if best[g] >= 0), key=lambda g: -value[g])
+    cuts = [f for f in forbidden if all(best[g] >= 0 for g in f)]  # others cannot close
+    last = [max(order.index(g) for g in f) for f in cuts]
+    # states: (changes, open cuts) -> (largest gain, the groups changed)
+    states = {(0, (1 << len(cuts)) - 1): (0.0, ())}
+    found: tuple[int, ...] | None = None
+    for k, group in enumerate(order):
+        inside = sum(1 << i for i, f in enumerate(cuts) if group in f)
+        closing = sum(1 << i for i, at in enumerate(last) if at == k)
+        later = sorted((value[g] for g in order[k + 1:]), reverse=True)
+        most = limit if found is None else min(limit, len(found) - 1)
+        grown: dict[tuple[int, int], tuple[float, tuple[int, ...]]] = {}
+        for (count, mask), (gain, changed) in states.items():
+            options = [((count, mask & ~inside), (gain, changed))]
+            if count < most and not mask & closing:
+                options.append(((count + 1, mask), (gain + value[group], (*changed, group))))
+            for key, state in options:
+                if state[0] >= need:  # a plan with key[0] changes: the later groups stay
+                    if found is None or key[0] < len(found):
+                        found = state[1]
+                    continue
+                if key[0] >= most or state[0] + sum(later[:most - key[0]]) < need:
+                    continue  # no change left, or even the best later gains fall short
+                if key not in grown or grown[key][0] < state[0]:
+                    grown[key] = state
+        states = grown
+    if found is None:
         return None
-    return tuple(-1 if pick < 0 else int(b) for pick, b in zip(unit, best, strict=True))
+    return tuple(best[g] if g in found else -1 for g in range(groups))
 
 
 def _least_largest(gains: list[np.ndarray], costs: list[np.ndarray], need: float, limit: int,
-                   forbidden: Sequence[frozenset[int]]) -> tuple[int, ...] | None:
+                   forbidden: Sequence[frozenset[int]], lowest: float) -> tuple[int, ...] | None:
     """The choice whose largest cost is least: the cheapest cap under which some choice still
-    reaches the need, found by bisection over the costs that occur."""
+    reaches the need. The caps tried are the costs that occur from `lowest` (the optimum
+    without the forbidden sets, a lower bound) up, doubling the step until one reaches, then
+    bisecting."""
     levels = np.unique(np.concatenate([np.zeros(1), *costs]))
-    low, high = 0, len(levels) - 1
-    best = _fewest(gains, costs, need, limit, forbidden, levels[high])
+    levels = levels[levels >= lowest - NOISE]  # costs below NOISE count as 0 here
+    low, step, high, best = 0, 1, len(levels) - 1, None
+    while low <= high:  # gallop up from the lower bound
+        probe = min(low + step - 1, high)
+        best = _fewest(gains, costs, need, limit, forbidden, levels[probe])
+        if best is not None:
+            high = probe
+            break
+        low, step = probe + 1, 2 * step
     if best is None:
         return None
     while low < high:
