@@ -170,6 +170,18 @@ class _Suffix:
         return np.where(top >= rest, hull, np.inf)
 
 
+def suffix_bounds(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray]) -> list[_Suffix]:
+    """For each position k (and the end), the bound on what groups k, k + 1, ... can add;
+    per group, its changes' gains (> 0) and costs, staying put (0 at cost 0) implied."""
+    pieces = []
+    for gain, cost in zip(gains, costs, strict=True):  # each group's hull from staying put
+        _, start_gain, slopes, lengths = _group_hull(_after(0.0, gain), _after(0.0, cost))
+        if start_gain > 0:  # a change that costs nothing: free gain first
+            slopes, lengths = _after(0.0, slopes), _after(start_gain, lengths)
+        pieces.append((gain, cost, slopes, lengths))
+    return _Suffix.every(pieces)
+
+
 def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: float,
              limit: int, forbidden: Sequence[frozenset[int]]) -> tuple[int, ...] | None:
     """The least-cost choice of at most one change per group (-1: none) gaining at least
@@ -188,14 +200,7 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
                                                  -(gains[g].max() if len(gains[g]) else 0.0)))
     position = {g: k for k, g in enumerate(order)}
     last = [max(position[g] for g in f) for f in cuts]  # where each cut settles
-    pieces = []
-    for g in order:  # each group's hull from staying put (gain 0 at cost 0)
-        start_cost, start_gain, slopes, lengths = _group_hull(_after(0.0, gains[g]),
-                                                              _after(0.0, costs[g]))
-        if start_gain > 0:  # a change that costs nothing: free gain first
-            slopes, lengths = _after(0.0, slopes), _after(start_gain, lengths)
-        pieces.append((gains[g], costs[g], slopes, lengths))
-    suffixes = _Suffix.every(pieces)
+    suffixes = suffix_bounds([gains[g] for g in order], [costs[g] for g in order])
     upper, found = math.inf, None  # the best plan in hand: its cost and how to rebuild it
     # states by key (changes, open cuts as a bit mask): costs, gains and where they came from
     start = (0, (1 << len(cuts)) - 1)
@@ -226,11 +231,11 @@ def cheapest(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: flo
         states, layer_parent, layer_pick = {}, [], []
         margin = upper + 1e-9 * (1.0 + upper) if math.isfinite(upper) else math.inf
         total = 0
-        for (count, mask), pieces in sorted(grown.items()):
-            cost = np.concatenate([p[0] for p in pieces])
-            gain = np.concatenate([p[1] for p in pieces])
-            parent = np.concatenate([p[2] for p in pieces])
-            pick = np.concatenate([p[3] for p in pieces])
+        for (count, mask), parts in sorted(grown.items()):
+            cost = np.concatenate([p[0] for p in parts])
+            gain = np.concatenate([p[1] for p in parts])
+            parent = np.concatenate([p[2] for p in parts])
+            pick = np.concatenate([p[3] for p in parts])
             bound = cost + suffixes[k + 1].bound(need - gain, np.full(len(cost), limit - count))
             alive = np.isfinite(bound) & (bound <= margin)
             cost, gain, parent, pick = cost[alive], gain[alive], parent[alive], pick[alive]
@@ -370,5 +375,3 @@ def solve_exact(program: Program) -> Solution:
     `recourse.program.solve` (ties to the least total cost, the choice verified in Python)."""
     return _lexicographic(program, _exact_run, NAME)  # checks the program first
 
-
-__all__ = ["cheapest", "hull_bound", "solve_exact"]

@@ -23,7 +23,7 @@ from recourse.errors import OutsideError
 from recourse.mutability import load_mutability, mutability_from_dict
 from recourse.planner import row_program
 from recourse.program import OBJECTIVES, Program, gain_needed, solve
-from recourse.solver import cheapest, hull_bound, solve_exact
+from recourse.solver import cheapest, hull_bound, solve_exact, suffix_bounds
 from tests.test_program import (
     assert_keeps_the_rules,
     brute_force,
@@ -127,6 +127,32 @@ def test_hull_bound_is_the_linear_relaxation():
             assert got == pytest.approx(expected, abs=1e-9, rel=1e-9)
             checked += 1
     assert checked > 40
+
+
+def test_the_search_bounds_later_groups_by_the_relaxation_and_one_change():
+    # the bound the search prunes with, for the groups from k on (staying put included):
+    # with changes to spare, the linear relaxation (scipy's linprog); with one change left,
+    # the cheapest single change that gains enough (brute force over every change)
+    rng = np.random.default_rng(61)
+    for _ in range(30):
+        sizes = rng.integers(1, 8, size=int(rng.integers(1, 6)))
+        gains = [rng.uniform(0.01, 2, size) for size in sizes]
+        costs = [np.round(rng.uniform(0, 10, size), 1) for size in sizes]
+        suffixes = suffix_bounds(gains, costs)
+        for k in range(len(sizes)):
+            later = range(k, len(sizes))
+            need = float(rng.uniform(0.01, sum(gains[g].max() for g in later) + 0.5))
+            many, one = suffixes[k].bound(np.array([need, need]), np.array([len(sizes) + 1, 1]))
+            expected = relaxation_by_linprog([np.r_[0.0, gains[g]] for g in later],
+                                             [np.r_[0.0, costs[g]] for g in later], need)
+            if math.isinf(expected):
+                assert math.isinf(many)
+            else:
+                assert many == pytest.approx(expected, abs=1e-9, rel=1e-9)
+            singles = [c for g in later for c, x in zip(costs[g], gains[g], strict=True)
+                       if x >= need]
+            assert one == (pytest.approx(min(singles), abs=1e-12) if singles else math.inf)
+        assert math.isinf(suffixes[-1].bound(np.array([0.5]), np.array([3]))[0])
 
 
 # ---------------------------------------------------------------- real rows
