@@ -24,6 +24,7 @@ from glassbox.explaining.groups import (
     outcomes_by_group,
     size_note,
 )
+from recourse.tails import TAIL_WORDS
 
 FORMAT = "recourse-audit"
 VERSION = 1
@@ -58,6 +59,7 @@ class Audit:
     context: dict[str, Any] = field(default_factory=dict)  # goal, files, settings
     min_group: int = MIN_GROUP  # groups with fewer declined rows are shown, not flagged
     outside: int = 0  # rows with a value outside what the model can plan for
+    tail_warned: int = 0  # rows whose cheapest plan moves a feature into a sparse, uncertain tail
 
     @property
     def share_with_plan(self) -> float:
@@ -127,6 +129,7 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
         groups={column: by_group(outcomes, column, min_rows=min_group) for column in by},
         context=dict(context or {}), min_group=min_group,
         outside=outside,
+        tail_warned=int((planned["tail_warnings"] > 0).sum()),
     )
 
 
@@ -159,7 +162,8 @@ def summary_table(result: Audit) -> pd.DataFrame:
             ("share with a plan", result.share_with_plan),
             ("no plan within the rules", result.no_plan),
             ("rules do not fit the row", result.misfits),
-            ("value outside what the model can plan for", result.outside)]
+            ("value outside what the model can plan for", result.outside),
+            (TAIL_WORDS, result.tail_warned)]
     rows += [(f"cheapest plan cost, {name}", value)
              for name, value in result.cost_quantiles.items()]
     resumed = result.context.get("resume")
@@ -192,7 +196,7 @@ def to_dict(result: Audit) -> dict[str, Any]:
                     "share_with_plan": None if not result.declined
                     else result.share_with_plan,
                     "no_plan": result.no_plan, "misfits": result.misfits,
-                    "outside": result.outside},
+                    "outside": result.outside, "tail_warned": result.tail_warned},
         "cost_quantiles": result.cost_quantiles,
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),

@@ -14,6 +14,7 @@ from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
 from recourse.planner import PlanResult, check_plan_count, plan_encoded
 from recourse.program import DEFAULT_SOLVER
+from recourse.tails import TAIL_WORDS
 
 MOST_JOBS = 256  # workers at once: more processes than this only thrash a machine
 
@@ -147,15 +148,17 @@ def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame
             rows.append({**base, "plan": number,
                          "changes": "; ".join(_describe(c, model) for c in plan.changes),
                          "total_cost": plan.total_cost, "new_score": plan.score,
-                         "new_outcome": plan.outcome, "best_outcome": None})
+                         "new_outcome": plan.outcome, "best_outcome": None,
+                         "tail_warnings": "; ".join(c.tail.text() for c in plan.changes
+                                                    if c.tail is not None)})
     return pd.DataFrame(rows, columns=["id", "status", "score", "outcome", "plan", "changes",
                                        "total_cost", "new_score", "new_outcome",
-                                       "best_outcome"])
+                                       "best_outcome", "tail_warnings"])
 
 
 OUTCOME_COLUMNS = ("id", "status", "score", "outcome", "plans", "total_cost", "largest_cost",
                    "changes", "main_change", "new_outcome", "best_outcome", "binding_rule",
-                   "message")
+                   "message", "tail_warnings")
 
 
 def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
@@ -163,7 +166,8 @@ def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFra
 
     `main_change` is the feature whose change costs most in the cheapest plan;
     `binding_rule` is the most limiting rule when no plan exists ("bounds on x", "x fixed",
-    "limit on changes").
+    "limit on changes"); `tail_warnings` counts the cheapest plan's changes into a sparse,
+    uncertain tail (`recourse.tails`).
     """
     rows: list[dict[str, Any]] = []
     for result in results:
@@ -179,6 +183,7 @@ def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFra
             "best_outcome": np.nan if result.best_outcome is None else result.best_outcome,
             "binding_rule": result.binding_rules[0] if result.binding_rules else "",
             "message": result.message,
+            "tail_warnings": best.tail_warnings if best else 0,
         })
     return pd.DataFrame(rows, columns=list(OUTCOME_COLUMNS))
 
@@ -194,7 +199,9 @@ def summary_frame(results: list[PlanResult]) -> pd.DataFrame:
             {"measure": "no plan within the rules",
              "value": float(sum(r.status == "none" for r in results))},
             {"measure": "rules do not fit the row", "value": float(misfits)},
-            {"measure": OUTSIDE, "value": float(outside)}]
+            {"measure": OUTSIDE, "value": float(outside)},
+            {"measure": TAIL_WORDS,
+             "value": float(sum(r.plans[0].tail_warnings > 0 for r in with_plan))}]
     if len(costs):
         for label, q in (("cheapest plan cost, 10%", 10), ("median", 50), ("90%", 90)):
             rows.append({"measure": label, "value": float(np.percentile(costs, q))})

@@ -286,6 +286,8 @@ def result_view(model, result: PlanResult) -> RenderableType:
             lines.append(Text(f"  {change.feature:<22} {moved:<32} cost {change.cost:.3g}"))
             if change.supplied:
                 lines.append(Text(f"    {supplied_words(change, kind)}", style="dim"))
+            if change.tail is not None:
+                lines.append(Text(f"    caution: {change.tail.text()}", style="yellow"))
     lines += [Text(""), Text(CAUTION, style="italic")]
     return Group(*lines)
 

@@ -32,6 +32,7 @@ from recourse.program import (
     solve,
 )
 from recourse.supply import Stretch, accepted, least_first
+from recourse.tails import TailWarning, tail_warning
 
 MOST_PLANS = 100  # distinct plans per row: more asks for a search with no useful end
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
@@ -51,6 +52,7 @@ class Change:
     cost: float
     supplied: bool = False  # the row had no value: the plan states one (supply_cost)
     accepted: tuple[Stretch, ...] | tuple[str, ...] = ()  # supplied: the values that would do
+    tail: TailWarning | None = None  # the proposed value is in a sparse, uncertain tail
 
 
 @dataclass(frozen=True)
@@ -66,6 +68,11 @@ class Plan:
     @property
     def count(self) -> int:
         return len(self.changes)
+
+    @property
+    def tail_warnings(self) -> int:
+        """How many of its changes propose a value in a sparse, uncertain tail."""
+        return sum(c.tail is not None for c in self.changes)
 
 
 @dataclass(frozen=True)
@@ -207,6 +214,7 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
         if any(c.supplied for c in changes):  # only then is the row needed again
             changes, score = _least_stated(model, changed_rows.iloc[[number]].copy(), changes,
                                            score, threshold, mutability)
+        changes = [replace(c, tail=tail_warning(model, c.feature, c.proposed)) for c in changes]
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
                           float(sum(costs)), float(max(costs, default=0.0))))
@@ -326,6 +334,14 @@ def _accepted_record(value: Stretch | str) -> Any:
             "from_excluded": value.low_open}
 
 
+def _tail_record(tail: TailWarning | None) -> dict[str, Any] | None:
+    """A tail warning as plain data; band widths null when the term has no band."""
+    if tail is None:
+        return None
+    return {"text": tail.text(), "side": tail.side, "edge": tail.edge,
+            "band_width": tail.width, "median_band_width": tail.typical}
+
+
 def plan_records(result: PlanResult) -> dict[str, Any]:
     """The result as plain data (the planner's JSON output)."""
     def number(value: Any) -> Any:
@@ -343,7 +359,8 @@ def plan_records(result: PlanResult) -> dict[str, Any]:
             "changes": [{"feature": c.feature, "from": number(c.current),
                          "to": number(c.proposed), "difference": number(c.difference),
                          "cost": c.cost, "supplied": c.supplied,
-                         "would_also_do": [_accepted_record(v) for v in c.accepted]}
+                         "would_also_do": [_accepted_record(v) for v in c.accepted],
+                         "tail_warning": _tail_record(c.tail)}
                         for c in plan.changes],
         } for plan in result.plans],
         "best_score": result.best_score, "best_outcome": result.best_outcome,

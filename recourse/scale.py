@@ -138,7 +138,8 @@ def _typed_outcomes(table: pd.DataFrame, partition: pd.DataFrame, positions: np.
         table[name] = table[name].astype(str)
     for name in NUMBER_COLUMNS:
         table[name] = table[name].astype("float64")
-    table["plans"] = table["plans"].astype("int64")
+    for name in ("plans", "tail_warnings"):
+        table[name] = table[name].astype("int64")
     for name in keep:
         table[name] = partition[name].iloc[positions].reset_index(drop=True)
     return table

@@ -95,6 +95,7 @@ def test_binding_rules_are_counted_among_rows_without_a_plan():
         "status": ["plans", "none", "none", "none", "error"],
         "total_cost": [3.0, np.nan, np.nan, np.nan, np.nan],
         "main_change": ["debt", "", "", "", ""],
+        "tail_warnings": [0, 0, 0, 0, 0],
         "binding_rule": ["", "bounds on debt", "limit on changes", "bounds on debt", ""],
         "region": ["north", "north", "south", "south", "south"],
     })

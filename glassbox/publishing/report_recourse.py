@@ -131,6 +131,9 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
                 else "")
              + (f"; {summary['outside']:,} have a value outside what the model can plan for"
                 if summary.get("outside") else "")
+             + (f"; {summary['tail_warned']:,} cheapest plans move a feature into a sparse "
+                "tail of the training data where the model's band is wide"
+                if summary.get("tail_warned") else "")
              + ". Plans are model what-ifs, not advice or a promise; protected "
                "characteristics are never levers, only groupings here.")
     blocks: list[Any] = [Paragraph(intro)]
