@@ -51,7 +51,7 @@ class Audit:
     declined: int
     with_plan: int
     no_plan: int
-    misfits: int  # rows the rules do not fit (a value outside a declared bound, ...)
+    misfits: int  # rows the rules do not fit (a step grid too fine for the row, ...)
     cost_quantiles: dict[str, float]  # of the cheapest plan's total cost, rows with a plan
     main_changes: pd.DataFrame  # feature, rows, share (of rows with a plan)
     binding_rules: pd.DataFrame  # rule, rows, share (of rows without a plan)

@@ -45,8 +45,9 @@ def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutabi
 
 def plan_typed_rows(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
                 mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
-    """Plans for a few typed rows; a row the rules do not fit (say, a value outside a
-    declared bound) is reported with status "error" instead of stopping the batch."""
+    """Plans for a few typed rows; a row the rules do not fit (say, a step grid that leaves
+    it more undominated values than allowed) is reported with status "error" instead of
+    stopping the batch."""
     out = []
     for i in range(len(encoded)):
         row_parts = parts.iloc[i]

@@ -107,8 +107,8 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     kind = model.schema.feature(feature).kind
     step = rule.step if rule.step is not None else (1.0 if kind != "number" else None)
     check_plannable(model, feature, now, step)
-    lower, upper = _interval(feature, now, rule, kind)
-    if rule.change == "fixed":
+    lower, upper = _interval(now, rule, kind)
+    if rule.change == "fixed" or lower > upper:  # nothing to propose: only staying put
         values, weighed = np.empty(0), 0
     elif isinstance(term, StepTerm):
         values = _step_values(term, now, lower, upper, step)
@@ -223,16 +223,12 @@ def _level_values(term: LevelsTerm, current: str, rule: FeatureRule) -> list[str
 # ---------------------------------------------------------------- numbers
 
 
-def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[float, float]:
-    """Bounds, largest change and direction as one closed interval around `now`."""
-    here = f"[feature.{feature}]"
-    if rule.change != "fixed":
-        if rule.lower is not None and now < rule.lower:
-            raise MutabilityError(f"{here} lower bound {rule.lower:g} excludes the current "
-                                  f"value {now:g}")
-        if rule.upper is not None and now > rule.upper:
-            raise MutabilityError(f"{here} upper bound {rule.upper:g} excludes the current "
-                                  f"value {now:g}")
+def _interval(now: float, rule: FeatureRule, kind: str) -> tuple[float, float]:
+    """Bounds, largest change and direction as one closed interval of proposed values.
+
+    The bounds limit what a plan proposes, not the row: a current value outside them stays
+    allowed (staying put), and the interval then lies wholly on one side of it (empty, lower
+    above upper, when the direction or largest change points away from the bounds)."""
     lower = -math.inf if rule.lower is None else rule.lower
     upper = math.inf if rule.upper is None else rule.upper
     if rule.largest_change is not None:  # rounded like the grid, so now + k*step can hit it
@@ -241,10 +237,24 @@ def _interval(feature: str, now: float, rule: FeatureRule, kind: str) -> tuple[f
     if kind == "flag":
         lower, upper = max(lower, 0.0), min(upper, 1.0)
     if rule.change == "increase":
-        lower = now
+        lower = max(lower, now)
     elif rule.change == "decrease":
-        upper = now
+        upper = min(upper, now)
     return lower, upper
+
+
+def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: float,
+                     upper: float) -> int:
+    """The least k >= 1 whose grid point on `side` lies within [lower, upper] as far as its
+    near end goes: 1 when `now` is within it, else the first point on or past the bound."""
+    near = lower if side > 0 else upper
+    if not side * (near - now) > 0:
+        return 1
+    first = int(_first_past(now, step, side, np.array([near]), True)[0])
+    if first > LARGEST_STEP_COUNT:
+        raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the bound "
+                              f"{near:g}: more than {LARGEST_STEP_COUNT:,} steps away")
+    return first
 
 
 def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray:
@@ -302,21 +312,23 @@ def _bisect(passes: Callable[[np.ndarray], np.ndarray], low: np.ndarray,
 
 def _step_values(term: StepTerm, now: float, lower: float, upper: float,
                  step: float | None) -> np.ndarray:
-    """One value per reachable bin: the point of the bin closest to `now`, so the cheapest
+    """One value per reachable bin: its allowed point closest to `now`, so the cheapest
     (a bin's values all contribute the same)."""
     edges = np.asarray(term.edges, dtype=float)
     here = int(term.bin_of(np.array([now]))[0])
     up, down = edges[here:], edges[:here]  # bins above start past these, bins below end on them
-    if step is None:
-        found = np.r_[np.nextafter(up, math.inf), down]
+    if step is None:  # a bin cut by a bound the row lies beyond starts at the bound
+        found = np.r_[np.maximum(np.nextafter(up, math.inf), lower), np.minimum(down, upper)]
     else:
         steps = np.r_[_first_past(now, step, 1, up, False), _first_past(now, step, -1, down, True)]
         if np.any((steps > LARGEST_STEP_COUNT) & (np.r_[up, down] >= lower)
                   & (np.r_[up, down] <= upper)):
             raise MutabilityError(f"[feature.{term.feature}] step {step:g} is too fine for "
                                   f"the table's range: more than {LARGEST_STEP_COUNT:,} steps")
-        found = np.r_[_points(now, step, 1, steps[:len(up)]),
-                      _points(now, step, -1, steps[len(up):])]
+        firsts = [_nearest_allowed(term.feature, now, step, side, lower, upper)
+                  for side in (1, -1)]
+        found = np.r_[_points(now, step, 1, np.maximum(steps[:len(up)], firsts[0])),
+                      _points(now, step, -1, np.maximum(steps[len(up):], firsts[1]))]
     bins = np.r_[np.arange(here + 1, len(edges) + 1), np.arange(here)]
     inside = (found >= lower) & (found <= upper) & (term.bin_of(found) == bins)
     return np.sort(found[inside])
@@ -335,8 +347,10 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
                  toward: float, reach: float) -> tuple[np.ndarray, int]:
     """The grid points that may be undominated, ascending, and how many points were weighed.
 
-    On each side, a point can only be undominated if it gains more than every point nearer
-    `now` (they cost no more): a record. Between two knots the gain moves one way, so a run
+    On each side, a point can only be undominated if it gains more than every allowed point
+    nearer `now` (they cost no more): a record. Where `now` lies beyond a bound, the side
+    toward the bound starts at its first grid point on or past it (the points before are
+    not allowed, so they dominate nothing). Between two knots the gain moves one way, so a run
     of points either rises (its records are the points past the best before it, found by
     bisection) or not (only its first points can be records). Past the outermost knot the
     table is flat, so a side stops at its first point there; it also stops at its first
@@ -349,31 +363,32 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
     for side, bound in ((-1, lower), (1, upper)):
         if not side * (bound - now) > 0:
             continue
+        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
         outer = knots[-1] if side > 0 else knots[0]
         ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
-        last = int(ends[0])
+        last = max(int(ends[0]), first)  # past the outer knot only the nearest point counts
         if ends[1] <= LARGEST_STEP_COUNT:  # else the bound lies further than the grid reaches
             last = min(last, int(ends[1]) - 1)
         if last > LARGEST_STEP_COUNT:
             raise MutabilityError(f"[feature.{term.feature}] step {step:g} is too fine for "
                                   f"the table's range: more than {LARGEST_STEP_COUNT:,} steps")
-        if last < 1:
+        if last < first:
             continue
-        weighed += last
+        weighed += last - first + 1
 
         def gain(k: np.ndarray, side: int = side) -> np.ndarray:
             return toward * (np.interp(_points(now, step, side, k), knots, table) - here)
 
-        if last <= LISTED_STEPS:  # few enough to read point by point
-            steps = np.arange(1, last + 1)
+        if last - first < LISTED_STEPS:  # few enough to read point by point
+            steps = np.arange(first, last + 1)
             gains = gain(steps)
             reaching = np.flatnonzero(gains >= reach)
-            stop = reaching[0] + 1 if len(reaching) else last
+            stop = reaching[0] + 1 if len(reaching) else len(steps)
             steps = _beating_nearer(steps[:stop], gains[:stop])
         else:
             inner = knots[side * (knots - now) > 0]
             breaks = _first_past(now, step, side, inner, True)
-            starts = _distinct(np.append(1, breaks[breaks <= last]))
+            starts = _distinct(np.append(first, breaks[(breaks > first) & (breaks <= last)]))
             steps = _records(gain, starts, last, reach, term.feature)
         found.append(_points(now, step, side, steps))
     values = _distinct(np.concatenate(found)) if found else np.empty(0)

@@ -27,7 +27,6 @@ from recourse.candidates import (
     NEED_SLACK,
     Candidate,
     _costs,
-    _interval,
     feature_candidates,
     row_candidates,
 )
@@ -190,29 +189,52 @@ def _every_value(model, feature: str, current: float, rule: FeatureRule) -> np.n
     term = model.term(feature)
     kind = model.schema.feature(feature).kind
     table = np.asarray(term.knots if hasattr(term, "knots") else term.edges, dtype=float)
-    # the interval the rule allows (bounds, largest change, direction); the property test
-    # below checks every candidate against the rule itself, and tests/test_planner.py
-    # builds its grids from the rule as written
-    low, high = _interval(feature, current, rule, kind)
+    low, high = _allowed_interval(current, rule, kind)
     step = rule.step if rule.step is not None else (None if kind == "number" else 1.0)
+    if low > high:  # e.g. a decrease from below the lower bound: only staying put
+        return np.empty(0)
     if step is None and hasattr(term, "knots"):
         points = [k for k in term.knots if low <= k <= high]
         points += [b for b in (low, high) if math.isfinite(b)]
     elif step is None:
         edges = [-math.inf, *term.edges, math.inf]
         here = _bin(term.edges, current)
-        points = [edges[b + 1] if b < here else float(np.nextafter(edges[b], math.inf))
+        # bin b holds (edges[b], edges[b + 1]]: its allowed part's end nearest the current value
+        points = [min(edges[b + 1], high) if b < here
+                  else max(float(np.nextafter(edges[b], math.inf)), low)
                   for b in range(len(edges) - 1) if b != here]
-        points = [p for p in points if low <= p <= high]
+        points = [p for p, b in zip(points, [b for b in range(len(edges) - 1) if b != here],
+                                    strict=True)
+                  if low <= p <= high and edges[b] < p <= edges[b + 1]]
     else:
-        reach_low = low if math.isfinite(low) else min(table[0], current) - 20 * step
-        reach_high = high if math.isfinite(high) else max(table[-1], current) + 20 * step
+        # (and past the other bound, when the current value lies beyond it)
+        reach_low = low if math.isfinite(low) else min(table[0], current, high) - 20 * step
+        reach_high = high if math.isfinite(high) else max(table[-1], current, low) + 20 * step
         ks = np.arange(math.floor((reach_low - current) / step) - 1,
                        math.ceil((reach_high - current) / step) + 2)
         points = np.round(current + ks * step, 12)  # numpy rounds as round(x, 12) does
         points = points[(points >= low) & (points <= high)]
     points = np.unique(np.asarray(points, dtype=float))
     return points[points != current]
+
+
+def _allowed_interval(current: float, rule: FeatureRule, kind: str) -> tuple[float, float]:
+    """The proposed values the rule allows, read off the rule as written (README, mutability
+    section): within the bounds (a flag within 0 and 1), at most `largest_change` from the
+    current value (rounded to 12 decimals as grid points are), on the side the direction
+    names. The current value need not lie within the bounds."""
+    low = -math.inf if rule.lower is None else rule.lower
+    high = math.inf if rule.upper is None else rule.upper
+    if rule.largest_change is not None:
+        low = max(low, round(current - rule.largest_change, 12))
+        high = min(high, round(current + rule.largest_change, 12))
+    if kind == "flag":
+        low, high = max(low, 0.0), min(high, 1.0)
+    if rule.change == "increase":
+        low = max(low, current)
+    if rule.change == "decrease":
+        high = min(high, current)
+    return low, high
 
 
 def _pareto(gains, costs, need=math.inf) -> list[tuple[float, float]]:
@@ -308,9 +330,6 @@ def test_candidates_are_the_frontier_of_the_whole_grid(family, rule, request, tr
     model = request.getfixturevalue(family)
     for index in ROWS:
         current = float(training[rule.feature].iloc[index])
-        if (rule.lower is not None and current < rule.lower) or (
-                rule.upper is not None and current > rule.upper):
-            continue
         for direction in ("at-least", "at-most"):
             truth, _ = assert_frontier(model, rule.feature, current, rule, direction)
             if truth:  # a gap that the middle of the frontier closes
@@ -409,19 +428,15 @@ def test_levels_follow_the_moves_and_cost_per_move(spline):
 # ---------------------------------------------------------------- the row
 
 
-def test_a_bound_that_excludes_the_current_value_is_an_error(spline, loans):
-    rule = FeatureRule("credit_utilisation", "decrease", lower=0.5)
-    with pytest.raises(MutabilityError) as caught:
-        feature_candidates(spline, "credit_utilisation", 0.183, rule)
-    assert str(caught.value) == ("[feature.credit_utilisation] lower bound 0.5 excludes the "
-                                 "current value 0.183")
+def test_a_rule_error_names_the_mutability_file(spline, loans):
+    # constructed: a step far too fine for the table's range (knots past 2**42 steps)
     mutability = Mutability(mutability_from_dict({}, spline).goal,
-                            {"years_trading": FeatureRule("years_trading", "either", upper=5)},
+                            {"years_trading": FeatureRule("years_trading", "either",
+                                                          step=1e-12)},
                             source="plan.toml")
-    row = loans.iloc[3]  # 12 years trading in the demo CSV
-    with pytest.raises(MutabilityError, match=r"^plan\.toml: \[feature\.years_trading\] upper "
-                                              r"bound 5 excludes the current value 12$"):
-        row_candidates(spline, row, mutability)
+    with pytest.raises(MutabilityError, match=r"^plan\.toml: \[feature\.years_trading\] step "
+                                              r"1e-12 is too fine for the table's range"):
+        row_candidates(spline, loans.iloc[3], mutability)
 
 
 def test_row_candidates_encode_the_raw_row(spline, loans):
@@ -450,8 +465,9 @@ def rules(draw):
     index = draw(st.integers(0, 4999))
     change = draw(st.sampled_from(["increase", "decrease", "either"]))
     width = draw(st.floats(0.01, 2.0))
-    lower = draw(st.none() | st.floats(0.0, 1.0).map(lambda f: -f * width))
-    upper = draw(st.none() | st.floats(0.0, 1.0).map(lambda f: f * width))
+    # a bound may exclude the current value (it limits the proposed values only)
+    lower = draw(st.none() | st.floats(-0.3, 1.0).map(lambda f: -f * width))
+    upper = draw(st.none() | st.floats(-0.3, 1.0).map(lambda f: f * width))
     step = draw(st.none() | st.floats(0.0005, 0.5))
     largest = draw(st.none() | st.floats(0.01, 1.0))
     cost = draw(st.sampled_from(["percentile", "spread", 0.7]))
