@@ -12,6 +12,8 @@ from typing import Annotated
 import pandas as pd
 import typer
 from rich.console import Group, RenderableType
+from rich.padding import Padding
+from rich.table import Table
 from rich.text import Text
 
 from glassbox.cli import Force, friendly, stderr_console, stdout_console
@@ -269,8 +271,10 @@ def result_view(model, result: PlanResult) -> RenderableType:
     elif result.status == "none":
         lines.append(Text("No plan reaches the goal within the rules.", style="bold"))
         lines.append(Text(f"The best the rules allow: {_outcome(model, result.best_outcome)}."))
-        for reason in result.binding:
-            lines.append(Text(f"  - {reason}"))
+        for reason in result.binding:  # wrapped lines stay under the text, not the dash
+            bullet = Table.grid(padding=(0, 1))
+            bullet.add_row("  -", Text(reason))
+            lines.append(bullet)
     for number, plan in enumerate(result.plans, start=1):
         lines.append(Text(""))
         lines.append(Text(f"Plan {number}: {plan.count} change(s), total cost "
@@ -285,9 +289,11 @@ def result_view(model, result: PlanResult) -> RenderableType:
                 moved += f"  ({sign}{_number(abs(change.difference), kind)})"
             lines.append(Text(f"  {change.feature:<22} {moved:<32} cost {change.cost:.3g}"))
             if change.supplied:
-                lines.append(Text(f"    {supplied_words(change, kind)}", style="dim"))
+                lines.append(Padding(Text(supplied_words(change, kind), style="dim"),
+                                     (0, 0, 0, 4)))
             if change.tail is not None:
-                lines.append(Text(f"    caution: {change.tail.text()}", style="yellow"))
+                lines.append(Padding(Text(f"caution: {change.tail.text()}", style="yellow"),
+                                     (0, 0, 0, 4)))
     lines += [Text(""), Text(CAUTION, style="italic")]
     return Group(*lines)
 
