@@ -17,8 +17,9 @@ import pytest
 
 from glassbox import fit_model
 from glassbox.core.errors import DataError, OptionError
-from recourse import scale
+from recourse import batch, scale
 from recourse.batch import OUTCOME_COLUMNS, outcome_frame, plan_many
+from recourse.errors import MutabilityError
 from recourse.mutability import load_mutability
 from recourse.scale import ScaleRun, plan_at_scale, plan_partition
 
@@ -70,19 +71,32 @@ def numbered(frame: pd.DataFrame) -> pd.DataFrame:
 # ---------------------------------------------------------------- one partition
 
 
-def test_partition_equals_the_batch_planner(model, rules, loans):
+def test_partition_equals_the_batch_planner(model, rules, loans, monkeypatch):
     frame = loans.head(300).copy()
-    # the row most likely to default gets an amount below the declared lower bound (5):
-    # still declined, but the rules do not fit it, so it is an error and the run goes on
-    worst = frame.index[int(np.argmax(model.score(frame)))]
+    # the row most likely to default gets an amount below the declared lower bound (5): the
+    # bound limits the proposed value only, so the row is planned (a plan or none, never an
+    # error); the second most likely row meets a rule error, injected (constructed), and
+    # the run goes on past it
+    order = np.argsort(-model.score(frame))
+    worst, misfit = frame.index[int(order[0])], frame.index[int(order[1])]
     frame.loc[worst, "amount_requested"] = 2
+    refused = frame.loc[misfit, "application_id"]
+    planned = batch.plan_encoded
+
+    def plan_or_refuse(*args, **kwargs):
+        if kwargs.get("row_id") == refused:
+            raise MutabilityError("[feature.amount_requested] a rule error for this row")
+        return planned(*args, **kwargs)
+
+    monkeypatch.setattr(batch, "plan_encoded", plan_or_refuse)
     declined = np.flatnonzero(model.probability(frame) > 0.3)  # goal: at most 0.3
     expected = outcome_frame(plan_many(model, frame, rules, n_plans=1), model)
     table = plan_partition(numbered(frame), model, rules, keep=["owner_age_band"])
     assert list(table.columns) == ["row", *OUTCOME_COLUMNS, "owner_age_band"]
     assert table["row"].tolist() == declined.tolist()
-    assert table.loc[table["id"] == frame.loc[worst, "application_id"], "status"].item() == \
-        "error"
+    status = dict(zip(table["id"], table["status"], strict=True))
+    assert status[frame.loc[worst, "application_id"]] in ("plans", "none")
+    assert status[refused] == "error"
     assert "plans" in set(table["status"])
     pd.testing.assert_frame_equal(table[list(OUTCOME_COLUMNS)], expected, check_dtype=False)
     np.testing.assert_array_equal(table["id"], frame["application_id"].to_numpy()[declined])
