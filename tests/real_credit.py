@@ -22,6 +22,15 @@ def credit_rows() -> pd.DataFrame:
     return _all_rows().dropna().reset_index(drop=True)
 
 
+@functools.lru_cache(maxsize=1)
+def credit_spline():
+    """The spline family fitted on `credit_rows()` with `credit_schema()`, once per test
+    session: several recourse tests plan on it, and a model is immutable, so they share it."""
+    from glassbox import fit_model
+
+    return fit_model(credit_rows(), credit_schema(), "spline")
+
+
 def credit_rows_with_gaps() -> pd.DataFrame:
     """All 4,454 rows as the file has them: Income missing in 381, Assets in 47, Debt in
     18, Home in 6, Job in 2, Marital in 1. A fresh copy each time."""

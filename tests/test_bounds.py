@@ -17,7 +17,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import glassbox
 from recourse import candidates as candidates_module
 from recourse.batch import plan_many, summary_frame
 from recourse.candidates import feature_candidates
@@ -139,10 +138,10 @@ CREDIT_BOUNDS = {
 
 @pytest.fixture(scope="module")
 def credit_plans():
-    from .real_credit import credit_rows, credit_schema
+    from .real_credit import credit_rows, credit_spline
 
     frame = credit_rows()
-    model = glassbox.fit_model(frame, credit_schema(), "spline")
+    model = credit_spline()
     rules = {"goal": {"probability": 0.3, "direction": "at-most", "max_changes": 3},
              "feature": CREDIT_BOUNDS}
     mutability = mutability_from_dict(rules, model)

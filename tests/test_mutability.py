@@ -360,10 +360,10 @@ def test_template_of_a_regression_quotes_names_and_sets_a_value(regression):
 
 @pytest.fixture(scope="module")
 def credit():
-    from .real_credit import credit_rows, credit_schema
+    from .real_credit import credit_rows, credit_spline
 
     rows = credit_rows()
-    model = glassbox.fit_model(rows, credit_schema(), "spline")
+    model = credit_spline()
     return model, model.encode(rows)
 
 

@@ -184,12 +184,10 @@ def test_no_plan_diagnosis_sizes_tables_where_training_rows_lie():
     # whose far tail (Price: -4.43 beyond the 99th percentile) no applicant realistically has.
     import re
 
-    from glassbox import fit_model
-
-    from .real_credit import credit_rows, credit_schema
+    from .real_credit import credit_rows, credit_spline
 
     rows = credit_rows()
-    model = fit_model(rows, credit_schema(), "spline")
+    model = credit_spline()
     encoded = model.encode(rows)
     worst = int(np.argmax(model.probability(rows)))
     mutability = mutability_from_dict({

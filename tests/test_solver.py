@@ -209,11 +209,10 @@ CREDIT_RULES = {  # eight changeable features of modeldata's credit_data, up to 
 
 @pytest.fixture(scope="module")
 def credit_programs():
-    import glassbox
-    from tests.real_credit import credit_rows, credit_schema
+    from tests.real_credit import credit_rows, credit_spline
 
     frame = credit_rows()
-    model = glassbox.fit_model(frame, credit_schema(), "spline")
+    model = credit_spline()
     rules = {"goal": {"probability": 0.25, "direction": "at-most", "max_changes": 4},
              "feature": CREDIT_RULES}
     return declined_programs(model, frame, mutability_from_dict(rules, model), every=60)

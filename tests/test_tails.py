@@ -97,12 +97,10 @@ def test_categories_and_models_without_a_profile_are_never_flagged():
 
 @pytest.fixture(scope="module")
 def credit():
-    from glassbox import fit_model
-
-    from .real_credit import credit_rows, credit_schema
+    from .real_credit import credit_rows, credit_spline
 
     rows = credit_rows()
-    model = fit_model(rows, credit_schema(), "spline")
+    model = credit_spline()
     rules = mutability_from_dict({
         "goal": {"probability": 0.3, "direction": "at-most"},
         "feature": {"Income": {"change": "increase", "step": 1, "upper": 959,
