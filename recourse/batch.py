@@ -9,10 +9,11 @@ import numpy as np
 import pandas as pd
 
 from glassbox.core.additive import AdditiveModel
+from recourse.batch_plans import BLOCK, batch_covers, plan_batch
 from recourse.candidates import OUTSIDE
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
-from recourse.planner import PlanResult, check_plan_count, plan_encoded
+from recourse.planner import PlanResult, check_plan_count, plan_encoded, total_scores
 from recourse.program import DEFAULT_SOLVER
 from recourse.tails import TAIL_WORDS
 
@@ -32,8 +33,8 @@ def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutabi
     contributions and ids (the id column, else `numbers` (default: positions) plus 1)."""
     encoded = model.encode(frame, source)
     parts = model.contributions_encoded(encoded)
-    positions = np.flatnonzero(mutability.goal.missed(
-        model.intercept + parts.sum(axis=1).to_numpy(), model.link))
+    positions = np.flatnonzero(mutability.goal.missed(total_scores(model, parts.to_numpy()),
+                                                      model.link))
     id_column = model.schema.id_column
     if id_column in frame:
         ids = frame[id_column].to_numpy()[positions].tolist()
@@ -44,30 +45,33 @@ def typed_declined(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutabi
 
 
 def plan_typed_rows(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: list,
-                mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
-    """Plans for a few typed rows; a row the rules do not fit (say, a step grid that leaves
-    it more undominated values than allowed) is reported with status "error" instead of
-    stopping the batch."""
-    out = []
-    for i in range(len(encoded)):
+                    mutability: Mutability, n_plans: int, solver: str) -> list[PlanResult]:
+    """Plans for typed rows: with the exact solver, a batch at a time (recourse.batch_plans),
+    else row by row. A row the rules do not fit (say, a step grid that leaves it more
+    undominated values than allowed) is reported with status "error" instead of stopping
+    the batch."""
+    def one_row(i: int) -> PlanResult:
         row_parts = parts.iloc[i]
         try:
-            out.append(plan_encoded(model, encoded.iloc[[i]], mutability, n_plans=n_plans,
-                                    solver=solver, row_id=ids[i], parts=row_parts))
+            return plan_encoded(model, encoded.iloc[[i]], mutability, n_plans=n_plans,
+                                solver=solver, row_id=ids[i], parts=row_parts)
         except MutabilityError as exc:
-            score = float(model.intercept + row_parts.sum())
-            out.append(PlanResult("error", score,
-                                  float(model.inverse_link(np.array([score]))[0]),
-                                  mutability.goal.target, mutability.goal.direction,
-                                  row_id=ids[i], message=str(exc)))
-    return out
+            score = float(total_scores(model, row_parts.to_numpy(dtype=float)[None, :])[0])
+            return PlanResult("error", score, float(model.inverse_link(np.array([score]))[0]),
+                              mutability.goal.target, mutability.goal.direction,
+                              row_id=ids[i], message=str(exc))
+
+    if solver == "exact" and batch_covers(mutability, n_plans):
+        return plan_batch(model, encoded, parts, ids, mutability, n_plans, one_row)
+    return [one_row(i) for i in range(len(encoded))]
 
 
 def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Mutability, *,
               n_plans: int = 3, solver: str = DEFAULT_SOLVER, jobs: int = 1,
               progress: Callable[[int, int], None] | bool | None = None,
-              source: str | None = None, chunk: int = 20) -> list[PlanResult]:
-    """Plan for every declined row of `frame`, in row order."""
+              source: str | None = None, chunk: int | None = None) -> list[PlanResult]:
+    """Plan for every declined row of `frame`, in row order, `chunk` rows per task (default:
+    a batch for the exact solver, 20 rows for the others)."""
     if frame is None:
         raise PlanningError("--declined needs --data FILE")
     check_plan_count(n_plans)
@@ -75,6 +79,7 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
         raise PlanningError(f"--jobs must be a whole number from 1 to {MOST_JOBS}, "
                             f"not {jobs!r}")
     positions, encoded, parts, ids = typed_declined(model, frame, mutability, source)
+    chunk = chunk or (BLOCK if solver == "exact" else 20)
     spans = [slice(start, min(start + chunk, len(positions)))
              for start in range(0, len(positions), chunk)]
     report = progress_bar(len(positions)) if progress is True else (progress or None)

@@ -118,7 +118,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     goal = mutability.goal
     if parts is None:
         parts = model.contributions_encoded(encoded).iloc[0]
-    score = float(model.intercept + parts.sum())
+    score = float(total_scores(model, parts.to_numpy(dtype=float)[None, :])[0])
     outcome = float(model.inverse_link(np.array([score]))[0])
     threshold = goal.threshold(model.link)
     common = {"score": score, "outcome": outcome, "target": goal.target,
@@ -154,6 +154,14 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
                       binding_rules=tuple(rule for rule, _ in findings), **common)
+
+
+def total_scores(model: AdditiveModel, parts: np.ndarray) -> np.ndarray:
+    """Each row's score from its contributions ([rows, features]): the intercept plus the
+    row's sum, added the same way whatever the batch (numpy sums a contiguous row pairwise;
+    pandas may sum a frame's columns one after another), so a row's plans never depend on
+    the rows planned with it."""
+    return model.intercept + np.ascontiguousarray(parts, dtype=float).sum(axis=1)
 
 
 def check_plan_count(n_plans: int) -> None:

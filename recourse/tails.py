@@ -73,20 +73,33 @@ def band_width(term: Term, values: np.ndarray) -> np.ndarray | None:
 
 def tail_warning(model: AdditiveModel, feature: str, value: float) -> TailWarning | None:
     """The warning for `value` proposed for `feature`, or None when the rule does not flag it."""
-    if model.schema.feature(feature).kind not in TAIL_KINDS or value is None:
+    if value is None or model.schema.feature(feature).kind not in TAIL_KINDS:
         return None
-    value = float(value)
+    return tail_warnings(model, feature, np.array([value], dtype=float))[0]
+
+
+def tail_warnings(model: AdditiveModel, feature: str,
+                  values: np.ndarray) -> list[TailWarning | None]:
+    """`tail_warning` for many values proposed for one feature, read with arrays."""
+    none: list[TailWarning | None] = [None] * len(values)
+    if model.schema.feature(feature).kind not in TAIL_KINDS or not len(values):
+        return none
+    values = np.asarray(values, dtype=float)
     low, high = central_range(model, feature)
-    if not (math.isfinite(low) and math.isfinite(high)) or math.isnan(value):
-        return None
-    if low <= value <= high:
-        return None
-    side, edge = ("below", low) if value < low else ("above", high)
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return none
+    outside = np.flatnonzero((values < low) | (values > high))  # nan is neither
+    if not len(outside):
+        return none
     term = model.term(feature)
-    widths = band_width(term, np.array([value, *model.profile(feature).percentiles]))
-    if widths is None:
-        return TailWarning(feature, value, side, edge, None, None)
-    width, typical = float(widths[0]), float(np.median(widths[1:]))
-    if not width > WIDE * typical:
-        return None
-    return TailWarning(feature, value, side, edge, width, typical)
+    percentiles = np.asarray(model.profile(feature).percentiles, dtype=float)
+    widths = band_width(term, np.concatenate([values[outside], percentiles]))
+    typical = None if widths is None else float(np.median(widths[len(outside):]))
+    for k, at in enumerate(outside):
+        value = float(values[at])
+        side, edge = ("below", low) if value < low else ("above", high)
+        if widths is None:
+            none[at] = TailWarning(feature, value, side, edge, None, None)
+        elif widths[k] > WIDE * typical:
+            none[at] = TailWarning(feature, value, side, edge, float(widths[k]), typical)
+    return none
