@@ -149,7 +149,12 @@ def _kept(cells: _Cells, here: np.ndarray, toward: float, reach: np.ndarray) -> 
         return cells
     gains = toward * (cells.contributions - here[:, None])
     costs = np.where(cells.valid, cells.costs, np.inf)
-    order = np.lexsort((np.where(cells.valid, -gains, np.inf), costs), axis=-1)
+    order = np.argsort(costs, axis=1, kind="stable")
+    ordered = np.take_along_axis(costs, order, axis=1)
+    tied = np.any((ordered[:, 1:] == ordered[:, :-1]) & np.isfinite(ordered[:, 1:]), axis=1)
+    if tied.any():  # equal costs: the one that gains most first (then the first listed)
+        order[tied] = np.lexsort((np.where(cells.valid[tied], -gains[tied], np.inf),
+                                  costs[tied]), axis=-1)
     taken = np.take_along_axis(np.where(cells.valid, gains, -np.inf), order, axis=1)
     best_before = np.maximum.accumulate(np.concatenate([np.zeros((rows, 1)), taken[:, :-1]],
                                                        axis=1), axis=1)
@@ -169,12 +174,11 @@ def _compact(cells: _Cells, mask: np.ndarray) -> _Cells:
     out = _Cells.empty(len(mask), width)
     if width == 0:
         return out
-    order = np.argsort(~mask, axis=1, kind="stable")[:, :width]
-    live = np.arange(width)[None, :] < counts[:, None]
+    rows, columns = np.nonzero(mask)  # row by row, in order
+    at = (np.cumsum(mask, axis=1) - 1)[rows, columns]
     for name in ("values", "contributions", "costs"):
-        taken = np.take_along_axis(getattr(cells, name), order, axis=1)
-        setattr(out, name, np.where(live, taken, getattr(out, name)))
-    out.valid = live
+        getattr(out, name)[rows, at] = getattr(cells, name)[rows, columns]
+    out.valid[rows, at] = True
     return out
 
 
@@ -328,15 +332,16 @@ def _grid_cells(term: CurveTerm, now: np.ndarray, lower: np.ndarray, upper: np.n
             [np.zeros((len(now), 1)), np.where(live, gains, -np.inf)[:, :-1]], axis=1), axis=1)
         keep = live & (gains > before)
         sides.append((points[:, ::-1], keep[:, ::-1]) if side < 0 else (points, keep))
+    # below `now` (nearest last) then above it (nearest first): already ascending
     values = np.concatenate([sides[0][0], sides[1][0]], axis=1)
     valid = np.concatenate([sides[0][1], sides[1][1]], axis=1)
     valid &= values != now[:, None]
-    order = np.argsort(np.where(valid, values, np.inf), axis=1, kind="stable")
-    values = np.take_along_axis(values, order, axis=1)
-    valid = np.take_along_axis(valid, order, axis=1)
-    valid[:, 1:] &= ~(valid[:, :-1] & (values[:, 1:] == values[:, :-1]))
-    cells = _compact(_Cells(np.where(valid, values, np.nan), np.zeros(values.shape),
-                            np.full(values.shape, np.inf), valid), valid)
+    cells = _compact(_Cells(values, np.zeros(values.shape), np.full(values.shape, np.inf),
+                            valid), valid)
+    repeated = np.zeros(cells.valid.shape, bool)  # a step so fine that rounding merges points
+    repeated[:, 1:] = cells.valid[:, 1:] & (cells.values[:, 1:] == cells.values[:, :-1])
+    if repeated.any():
+        cells = _compact(cells, cells.valid & ~repeated)
     return _with_contributions(term, cells), long
 
 
