@@ -14,6 +14,7 @@ training data had no missing value has `missing = None` and refuses to score one
 
 from __future__ import annotations
 
+import functools
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -293,19 +294,13 @@ class FeatureProfile:
         given = np.asarray(values, dtype=float)
         values = given.ravel()
         if self.value_counts:
-            pairs = sorted(self.value_counts)
-            points = np.array([v for v, _ in pairs])
-            before = np.concatenate([[0.0], np.cumsum([c for _, c in pairs], dtype=float)])
+            points, before = self._rank_table
             below = before[np.searchsorted(points, values, side="left")]
             upto = before[np.searchsorted(points, values, side="right")]
             return (100.0 * (below + upto) / (2.0 * before[-1])).reshape(given.shape)
         if not self.percentiles:
             raise OptionError(f"'{self.feature}' has no training percentiles (a category?)")
-        table = np.asarray(self.percentiles, dtype=float)
-        grid = np.linspace(0.0, 100.0, len(table))
-        points, first = np.unique(table, return_index=True)
-        low = grid[first]  # the first and last percent at each distinct stored value
-        high = grid[len(table) - 1 - np.unique(table[::-1], return_index=True)[1]]
+        points, low, high = self._rank_table
         out = np.full(values.shape, 50.0)
         if len(points) > 1:
             right = np.clip(np.searchsorted(points, values, side="left"), 1, len(points) - 1)
@@ -313,11 +308,29 @@ class FeatureProfile:
             with np.errstate(invalid="ignore", over="ignore"):  # values beyond the ends: below
                 share = (values - points[left]) / (points[right] - points[left])
                 out = high[left] + share * (low[right] - high[left])
-        tied = np.isin(values, points)
-        out[tied] = ((low + high) / 2.0)[np.searchsorted(points, values[tied])]
+        at = np.minimum(np.searchsorted(points, values, side="left"), len(points) - 1)
+        tied = points[at] == values  # a stored value (nan is none)
+        out[tied] = ((low + high) / 2.0)[at[tied]]
         out[values < points[0]] = 0.0
         out[values > points[-1]] = 100.0
         return out.reshape(given.shape)
+
+    @functools.cached_property
+    def _rank_table(self) -> tuple[np.ndarray, ...]:
+        """What `percentile_of` reads, built once per profile: the distinct values and the
+        rows before each (from `value_counts`), or the distinct stored percentiles with the
+        first and last percent at each."""
+        if self.value_counts:
+            pairs = sorted(self.value_counts)
+            points = np.array([v for v, _ in pairs], dtype=float)
+            before = np.concatenate([[0.0], np.cumsum([c for _, c in pairs], dtype=float)])
+            return points, before
+        table = np.asarray(self.percentiles, dtype=float)
+        grid = np.linspace(0.0, 100.0, len(table))
+        points, first = np.unique(table, return_index=True)
+        low = grid[first]  # the first and last percent at each distinct stored value
+        high = grid[len(table) - 1 - np.unique(table[::-1], return_index=True)[1]]
+        return points, low, high
 
     def to_dict(self) -> dict[str, Any]:
         data: dict[str, Any] = {"feature": self.feature, "kind": self.kind}
