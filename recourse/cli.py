@@ -42,6 +42,8 @@ app = typer.Typer(
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
+SOLVER_HELP = ("exact: the search built for this program (the default); highs or cbc: the "
+               "same program as an integer program, one row at a time.")
 # what --plans-out holds: the parts and the manifest (which the planner itself checks)
 PLANS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
 
@@ -79,7 +81,7 @@ def plan_command(
         help="Plan for every row of --data that misses the goal.")] = False,
     plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1,
                                        max=MOST_PLANS)] = 3,
-    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = SOLVER_CHOICE,
+    solver: Annotated[Solver, typer.Option(help=SOLVER_HELP)] = SOLVER_CHOICE,
     format: Annotated[PlanFormat, typer.Option(
         "--format", help="table (terminal) or json.")] = PlanFormat.table,
     out: Annotated[Path | None, typer.Option(
@@ -147,7 +149,7 @@ def audit_command(
     resume: Annotated[bool, typer.Option(
         help="With --plans-out: plan only the partitions not yet written.")] = False,
     partition_rows: Annotated[int, typer.Option(help="Rows per partition.", min=1)] = 2000,
-    solver: Annotated[Solver, typer.Option(help="Integer-program solver.")] = SOLVER_CHOICE,
+    solver: Annotated[Solver, typer.Option(help=SOLVER_HELP)] = SOLVER_CHOICE,
     format: Annotated[AuditFormat, typer.Option(
         "--format", help="table (terminal), json or markdown.")] = AuditFormat.table,
     out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,

@@ -30,7 +30,7 @@ from recourse.errors import PlanningError
 from recourse.relaxation import Relaxation
 
 SOLVERS = ("highs", "cbc", "exact")  # exact: recourse.solver, built for this program's shape
-DEFAULT_SOLVER = "highs"  # in-process and faster than the CBC command line (bench/RESULTS.md)
+DEFAULT_SOLVER = "exact"  # recourse.solver, and for many rows recourse.batch_plans (bench/RESULTS.md)
 BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), so plans always do
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
 DIRECTIONS = ("at-least", "at-most")
