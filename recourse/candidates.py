@@ -9,6 +9,19 @@ value on each side, and a curve is a straight line between knots, so each run of
 between two knots is settled by arithmetic and bisection. Contributions are read from the
 model's own term table, so a plan built from them scores exactly as the model scores the
 changed row.
+
+Rules between two features (recourse.pair_rules) change what is exact. A rule whose other
+side cannot move in the row is a bound on this side, folded into the feature's rule before
+anything is listed, so everything above stays exact. A feature that a rule pairs with another
+movable one keeps every value its rules allow (`every`): no dominance and no cut at the gap,
+because a dearer value, or one that loses score, may be the only one allowed with the other
+feature's value; the program then chooses among all of them with the pair rule (exact over
+that list). On a step grid that is every grid point within the bounds (a side the feature may
+move along without end is refused, as is a list longer than MOST_VALUES); with no step it is,
+as ever, the table's knots (a step table: one value per bin) and the bounds, plus the values
+that meet a rule exactly against a value listed for the other side. The other features are
+still reduced by dominance, which stays exact (their choice does not touch a pair rule), but
+their cut at the gap is raised by the most the paired features can lose together.
 """
 
 from __future__ import annotations
@@ -24,6 +37,7 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from recourse.errors import MutabilityError, OutsideError
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
+from recourse.pair_rules import row_rules, tight_values
 from recourse.program import best_changes
 
 DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
@@ -82,18 +96,24 @@ class FeatureCandidates(Sequence[Candidate]):
 
 def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
                        rule: FeatureRule, direction: str = "at-least",
-                       need: float = math.inf) -> FeatureCandidates:
+                       need: float = math.inf, every: bool = False,
+                       extra: np.ndarray | None = None) -> FeatureCandidates:
     """The current value (first, cost 0) and the values the rule lets the feature reach that
     can be in a cheapest plan for a goal in `direction` ("at-least" raises the score).
 
     `need` is the gain (link scale) that closes the row's gap: no change dearer than the
     cheapest one that gains it is kept. Values keep the order of the table (numbers ascending).
+    `every`: keep every value the rules allow (a feature paired with another by a rule),
+    with `extra` values a number with no step may move to as well.
     """
     toward = 1.0 if direction == "at-least" else -1.0
     reach = need + NEED_SLACK * (1.0 + abs(need)) if math.isfinite(need) else math.inf
     term = model.term(feature)
+    extra = np.empty(0) if extra is None else np.asarray(extra, dtype=float)
+    if every:  # nothing is dropped: every value is listed with its cost
+        reach, toward = math.inf, 0.0
     if is_missing(current):
-        return _supply_candidates(model, term, rule, toward, reach)
+        return _supply_candidates(model, term, rule, toward, reach, extra)
     if rule.change == "fixed":  # a rule kept for its supply_cost: a value present stays
         here = np.array([current], dtype=object if isinstance(term, LevelsTerm) else float)
         return FeatureCandidates(here, term.evaluate(here), np.zeros(1), 0)
@@ -110,6 +130,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     lower, upper = _interval(now, rule, kind)
     if rule.change == "fixed" or lower > upper:  # nothing to propose: only staying put
         values, weighed = np.empty(0), 0
+    elif every:
+        values = _every_value(term, now, lower, upper, step, extra)
+        weighed = len(values)
     elif isinstance(term, StepTerm):
         values = _step_values(term, now, lower, upper, step)
         weighed = len(values)
@@ -137,25 +160,44 @@ def row_candidates(model: AdditiveModel, row: pd.Series, mutability: Mutability,
 
 def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutability: Mutability,
                        need: float = math.inf) -> dict[str, FeatureCandidates]:
-    """The same, from a row already typed by `AdditiveModel.encode` (feature -> value)."""
-    out: dict[str, FeatureCandidates] = {}
-    for feature in model.features:
-        rule = mutability.rules.get(feature)
-        if rule is None:
-            continue
+    """The same, from a row already typed by `AdditiveModel.encode` (feature -> value).
+
+    Rules between two features: one-sided ones are folded into this row's feature rules;
+    the features they pair keep every value (listed first, then with the values that meet a
+    rule exactly against the other side's), and the others' cut at the gap is raised by the
+    most the paired features can lose (see the module's docstring)."""
+    rules, paired = row_rules(model, mutability, values)
+    direction = mutability.goal.direction
+
+    def build(feature: str, reach: float, every: bool = False,
+              extra: np.ndarray | None = None) -> FeatureCandidates:
         try:
-            out[feature] = feature_candidates(model, feature, values[feature], rule,
-                                              mutability.goal.direction, need)
+            return feature_candidates(model, feature, values[feature], rules[feature],
+                                      direction, reach, every, extra)
         except MutabilityError as exc:
             if not mutability.source:
                 raise
             raise MutabilityError(f"{mutability.source}: {exc}") from None
-    return out
+
+    listed = {f: build(f, math.inf, every=True) for f in model.features if f in paired}
+    for feature in [f for f in listed if model.schema.feature(f).kind != "category"]:
+        extra = tight_values(mutability, feature, {f: c.values for f, c in listed.items()
+                                                   if f != feature})
+        if len(extra):
+            listed[feature] = build(feature, math.inf, every=True, extra=extra)
+    toward = 1.0 if direction == "at-least" else -1.0
+    loss = sum(max(0.0, -float(np.min(toward * (c.contributions - c.contributions[0]))))
+               for c in listed.values())
+    return {feature: listed[feature] if feature in listed else build(feature, need + loss)
+            for feature in model.features if feature in rules}
 
 
 def _undominated(values: np.ndarray, contributions: np.ndarray, costs: np.ndarray,
                  toward: float, reach: float, weighed: int) -> FeatureCandidates:
-    """Keep the current value and the changes `best_changes` keeps, in the values' order."""
+    """Keep the current value and the changes `best_changes` keeps, in the values' order;
+    every value when `toward` is 0 (a feature paired by a rule: nothing is dropped)."""
+    if toward == 0.0:
+        return FeatureCandidates(values, contributions, costs, weighed)
     gains = toward * (contributions[1:] - contributions[0])
     kept = np.concatenate([[0], np.sort(best_changes(gains, costs[1:], reach)) + 1])
     return FeatureCandidates(values[kept], contributions[kept], costs[kept], weighed)
@@ -395,6 +437,39 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
     return values[values != now], weighed
 
 
+def _every_value(term: Any, now: float, lower: float, upper: float, step: float | None,
+                 extra: np.ndarray, keep_now: bool = False) -> np.ndarray:
+    """Every value a paired feature may move to (see the module's docstring), ascending;
+    `now` itself only with `keep_now` (a value to state is anchored on 0, and may be 0)."""
+    if step is None:
+        values = (_step_values(term, now, lower, upper, None) if isinstance(term, StepTerm)
+                  else _knot_values(term, now, lower, upper))
+        values = _distinct(np.r_[values, extra[(extra >= lower) & (extra <= upper)]])
+        return values[values != now]
+    found, count = [], 0
+    for side, bound in ((-1, lower), (1, upper)):
+        if not side * (bound - now) > 0:
+            continue
+        if not math.isfinite(bound):
+            raise MutabilityError(
+                f"[feature.{term.feature}] a link or level_bound pairs it with another "
+                "feature, so every value its rules allow is weighed; it may move "
+                f"{'up' if side > 0 else 'down'} without end: give "
+                f"{'upper' if side > 0 else 'lower'} (or a percentile bound, or largest_change)")
+        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
+        last = int(_first_past(now, step, side, np.array([bound]), False)[0]) - 1
+        count += max(0, last - first + 1)
+        if count > MOST_VALUES:
+            raise MutabilityError(
+                f"[feature.{term.feature}] a link or level_bound pairs it with another "
+                f"feature, so every value its rules allow is weighed: more than "
+                f"{MOST_VALUES:,} on its step grid; use a coarser step or tighter bounds")
+        if last >= first:
+            found.append(_points(now, step, side, np.arange(first, last + 1)))
+    values = _distinct(np.concatenate([np.empty(0), *found, [now] if keep_now else []]))
+    return values[(values >= lower) & (values <= upper)]
+
+
 def _distinct(values: np.ndarray) -> np.ndarray:
     """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
     values = np.sort(values)
@@ -449,12 +524,14 @@ def is_missing(value: Any) -> bool:
 
 
 def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, toward: float,
-                       reach: float) -> FeatureCandidates:
+                       reach: float, extra: np.ndarray) -> FeatureCandidates:
     """A row with no value: that (at its missing-value entry, cost 0) first, then, when the
     rule has `supply_cost`, the values that may be stated, each at that one cost. With one
     cost for all, the dominance rule keeps the value (the first, on ties) that moves the
     score furthest toward the goal. A plan never makes a value missing: only this path has
-    a missing candidate, and only as the row's own value."""
+    a missing candidate, and only as the row's own value. With `toward` 0 (a feature paired
+    by a rule) every value that may be stated is kept: on a step grid every multiple of the
+    step within the bounds, else these and `extra`."""
     if isinstance(term, LevelsTerm):
         if rule.supplies and rule.moves is not None:
             allowed = set(rule.moves.get(ANY_LEVEL, ()))
@@ -467,6 +544,10 @@ def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, towar
         breaks = term.knots if isinstance(term, CurveTerm) else term.edges
         values = (supply_values(breaks, lower, upper, step, term.feature) if rule.supplies
                   else np.empty(0))
+        if rule.supplies and toward == 0.0 and lower <= upper:
+            values = (_distinct(np.r_[values, extra[(extra >= lower) & (extra <= upper)]])
+                      if step is None else _every_value(term, 0.0, lower, upper, step, extra,
+                                                        keep_now=True))
         everything = np.r_[math.nan, values]
     costs = np.r_[0.0, np.full(len(values), rule.supply_cost or 0.0)]
     return _undominated(everything, term.evaluate(everything), costs, toward, reach,

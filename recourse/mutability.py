@@ -1,7 +1,8 @@
 """What may change: the goal of a plan and one rule per feature, read from TOML.
 
-A mutability file has a `[goal]` table and one `[feature.NAME]` table per
-feature that may change. Every problem names the file and the key at fault.
+A mutability file has a `[goal]` table, one `[feature.NAME]` table per
+feature that may change, and rules between two features: `[[link]]` and `[[level_bound]]`
+tables (recourse.pair_rules). Every problem names the file and the key at fault.
 Percentile bounds are resolved here through the model's training profiles;
 checks that need the applicant's row (bounds that exclude the current value)
 happen in `recourse.candidates`.
@@ -22,6 +23,7 @@ from glassbox.core.additive import AdditiveModel, FeatureProfile, LevelsTerm
 from glassbox.core.files import read_toml
 from glassbox.core.schema import is_number
 from recourse.errors import MutabilityError
+from recourse.pair_rules import LevelBound, Link, known_keys, read_level_bounds, read_links
 
 DIRECTIONS = ("at-least", "at-most")
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
@@ -100,11 +102,13 @@ class FeatureRule:
 
 @dataclass(frozen=True)
 class Mutability:
-    """The goal and the rules of the features that may change."""
+    """The goal, the rules of the features that may change, and rules between two."""
 
     goal: Goal
     rules: Mapping[str, FeatureRule]
     source: str = ""
+    links: tuple[Link, ...] = ()
+    level_bounds: tuple[LevelBound, ...] = ()
 
 
 def load_mutability(path: str | Path, model: AdditiveModel) -> Mutability:
@@ -119,10 +123,10 @@ def mutability_from_dict(data: Mapping[str, Any], model: AdditiveModel,
     where = f"{source}: " if source else "mutability: "
     if not isinstance(data, Mapping):
         raise MutabilityError(f"{where}expected a table of settings")
-    unknown = sorted(set(data) - {"goal", "feature"})
+    unknown = sorted(set(data) - {"goal", "feature", "link", "level_bound"})
     if unknown:
         raise MutabilityError(f"{where}unknown top-level key(s): {', '.join(unknown)} "
-                              "(expected goal, feature)")
+                              "(expected goal, feature, link, level_bound)")
     goal = _goal(data.get("goal", {}), model, where)
     features = data.get("feature", {})
     if not isinstance(features, Mapping):
@@ -136,7 +140,8 @@ def mutability_from_dict(data: Mapping[str, Any], model: AdditiveModel,
         rule = _rule(str(name), entry, model, f"{where}[feature.{name}] ")
         if rule.change != "fixed" or rule.supplies:
             rules[str(name)] = rule
-    return Mutability(goal, rules, source)
+    return Mutability(goal, rules, source, read_links(data.get("link", []), model, where),
+                      read_level_bounds(data.get("level_bound", []), model, where))
 
 
 def _number(entry: Mapping[str, Any], key: str, here: str) -> float | None:
@@ -156,18 +161,11 @@ def _choice(entry: Mapping[str, Any], key: str, allowed: tuple[str, ...], defaul
     return str(value)
 
 
-def _known_keys(entry: Mapping[str, Any], known: tuple[str, ...], here: str) -> None:
-    unknown = sorted(set(entry) - set(known))
-    if unknown:
-        raise MutabilityError(f"{here}unknown key(s): {', '.join(unknown)} "
-                              f"(expected {', '.join(known)})")
-
-
 def _goal(entry: Any, model: AdditiveModel, where: str) -> Goal:
     here = f"{where}[goal] "
     if not isinstance(entry, Mapping):
         raise MutabilityError(f"{where}'goal' must be a table")
-    _known_keys(entry, GOAL_KEYS, here)
+    known_keys(entry, GOAL_KEYS, here)
     if model.link == "logit":
         if "value" in entry:
             raise MutabilityError(f"{here}value is for regression models; this model is a "
@@ -239,7 +237,7 @@ def unit_spread(profile: FeatureProfile) -> float | None:
 def _rule(name: str, entry: Any, model: AdditiveModel, here: str) -> FeatureRule:
     if not isinstance(entry, Mapping):
         raise MutabilityError(f"{here}must be a table")
-    _known_keys(entry, RULE_KEYS, here)
+    known_keys(entry, RULE_KEYS, here)
     spec = model.schema.feature(name)
     change = _choice(entry, "change", CHANGES, "fixed", here)
     if spec.protected and (change != "fixed" or "supply_cost" in entry):
@@ -390,7 +388,32 @@ def template(model: AdditiveModel) -> str:
         lines += _feature_lines(model, spec.name, spec.kind)
         if spec.name in used and model.term(spec.name).missing is not None:
             lines += _supply_lines(model, spec.name)
-    return "\n".join(lines) + "\n"
+    return "\n".join(lines + _pair_lines(model)) + "\n"
+
+
+def _pair_lines(model: AdditiveModel) -> list[str]:
+    """Commented examples of the rules between two features, on the model's own features
+    (indented: they are switched on together, header and keys, not key by key)."""
+    usable = [spec for spec in model.schema.features
+              if spec.name in model.features and not spec.protected and not spec.ignore]
+    numbers = [s.name for s in usable if s.kind != "category"]
+    categories = [s.name for s in usable if s.kind == "category" and _known_levels(model, s.name)]
+    lines = []
+    if len(numbers) >= 2:
+        lines += ["", "# A link between two numbers: when a plan changes either, the values",
+                  "# after it keep feature <= times x other + plus (at_least: >=); a missing",
+                  "# value is not checked.",
+                  "#   [[link]]", _line(f"#   feature = {json.dumps(numbers[0])}"),
+                  _line(f"#   at_most = {json.dumps(numbers[1])}", "or at_least"),
+                  _line("#   times = 1.0", "above zero"), _line("#   plus = 0.0")]
+    if categories and numbers:
+        level = json.dumps(_known_levels(model, categories[0])[0], ensure_ascii=False)
+        lines += ["", "# A level that bounds a number: a plan that moves the category to the level",
+                  "# keeps the number within lower / upper (one or both).",
+                  "#   [[level_bound]]", _line(f"#   when = {json.dumps(categories[0])}"),
+                  _line(f"#   is = {level}"), _line(f"#   feature = {json.dumps(numbers[0])}"),
+                  _line("#   upper = 100.0")]
+    return lines
 
 
 def _feature_lines(model: AdditiveModel, name: str, kind: str) -> list[str]:

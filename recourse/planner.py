@@ -22,6 +22,7 @@ from glassbox.explaining.reasons import best_of, central_words
 from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
 from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability
+from recourse.pair_rules import pair_matrices, rules_kept
 from recourse.program import (
     BUFFER,
     DEFAULT_SOLVER,
@@ -131,7 +132,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     except OutsideError as exc:
         return PlanResult("outside", message=str(exc), **common)
     names = tuple(candidates)
-    program = row_program(candidates, score, parts, goal, threshold)
+    program = row_program(candidates, score, parts, goal, threshold, mutability)
     solutions: list[Solution] = []
     forbidden: list[frozenset[int]] = []
     for _ in range(n_plans):
@@ -172,16 +173,19 @@ def check_plan_count(n_plans: int) -> None:
 
 
 def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,
-                goal: Goal, threshold: float) -> Program:
+                goal: Goal, threshold: float, mutability: Mutability | None = None) -> Program:
     """One row's integer program: its candidates (current value first) and the goal; the
-    base is the score less the changeable features' current contributions."""
+    base is the score less the changeable features' current contributions. The links and
+    level bounds of `mutability` between two of its features become pair rules."""
     names = tuple(candidates)
+    pairs = () if mutability is None else pair_matrices(
+        mutability, {n: candidates[n].values for n in names}, names)
     return Program(
         base=score - float(sum(parts[name] for name in names)),
         contributions=tuple(candidates[n].contributions for n in names),
         costs=tuple(candidates[n].costs for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
-        objective=goal.objective, max_changes=goal.max_changes, names=names)
+        objective=goal.objective, max_changes=goal.max_changes, names=names, pairs=pairs)
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
@@ -215,13 +219,15 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
                 score, solution.score, rel_tol=0, abs_tol=1e-9):
             raise RuntimeError(f"planner bug: a plan re-scores to {score!r}, the program said "
                                f"{solution.score!r}; threshold {threshold!r} ({direction})")
+        if not rules_kept(mutability, encoded.iloc[0], changed_rows.iloc[number]):
+            raise RuntimeError("planner bug: a plan breaks a link or level_bound")
         changes = [replace(c, accepted=accepted(
             model, mutability.rules[c.feature], threshold - (score - new.contribution),
             direction)) if c.supplied else c for c, new in _picked(changes, candidates,
                                                                    solution, names)]
         if any(c.supplied for c in changes):  # only then is the row needed again
             changes, score = _least_stated(model, changed_rows.iloc[[number]].copy(), changes,
-                                           score, threshold, mutability)
+                                           score, threshold, mutability, encoded.iloc[0])
         changes = [replace(c, tail=tail_warning(model, c.feature, c.proposed)) for c in changes]
         costs = [c.cost for c in changes]
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
@@ -230,11 +236,13 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
 
 
 def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change], score: float,
-                  threshold: float, mutability: Mutability) -> tuple[list[Change], float]:
+                  threshold: float, mutability: Mutability, before: pd.Series
+                  ) -> tuple[list[Change], float]:
     """Each stated value lowered to the least the model needs: of the values that would do,
     the one it scores least favourably that still passes the goal by the program's BUFFER
-    when the row is re-scored. Stating costs the same whatever the value, so the plan's cost
-    is unchanged."""
+    when the row is re-scored and keeps every link and level bound (against the row
+    `before` the plan). Stating costs the same whatever the value, so the plan's cost is
+    unchanged."""
     direction = mutability.goal.direction
     passed = threshold + _favourable(direction) * BUFFER  # passed by as much as the program
     out = []
@@ -248,7 +256,8 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
                 trial = row.copy()
                 trial[change.feature] = value
                 moved = float(model.score_encoded(trial)[0])
-                if _reaches(moved, threshold, direction):
+                if _reaches(moved, threshold, direction) and rules_kept(mutability, before,
+                                                                        trial.iloc[0]):
                     row, score, change = trial, moved, replace(change, proposed=value)
                     break
         out.append(change)
@@ -307,6 +316,12 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
             findings.append((potential, f"{name} fixed",
                              f"{name} is fixed by the rules; {central_words(model, name)} "
                              f"its table could move the score by up to {potential:.3g} "
+                             f"({scale(model)})"))
+    if program.pairs:  # the rules between two features bind when dropping them helps
+        lost = sign * (best_reachable(replace(program, pairs=())) - best_reachable(program))
+        if lost > 1e-9:
+            findings.append((lost, "links", "the links and level bounds between features "
+                             f"bind: without them the rules would allow {lost:.3g} more "
                              f"({scale(model)})"))
     findings.sort(key=lambda item: -item[0])
     best = float(model.inverse_link(np.array([best_reachable(program)]))[0])

@@ -4,7 +4,9 @@ Array in, result out: a `Program` holds tuples or arrays built from the candidat
 returns a `Solution` whose choice, score and objective are recomputed in Python. Candidates
 that cannot be in a best choice are dropped first (dominance, the gap, a Lagrangian bound);
 what is left is searched by listing its combinations when few enough (recourse.combinations),
-else as an integer program (pulp: HiGHS or CBC). Both are exact. Ties on
+else as an integer program (pulp: HiGHS or CBC). Both are exact. Rules between two groups
+(`pairs`, recourse.pairs) go to the integer program only, and the reductions keep every
+candidate of a paired group (see `_kept`). Ties on
 largest-cost and fewest-changes go to the least total cost, exactly: a second solve minimises
 total cost among the choices that keep the first optimum (a small weight on total cost would
 have to sit below the gaps between cost levels, which can be finer than solver tolerances).
@@ -27,6 +29,15 @@ import pulp
 
 from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
+from recourse.pairs import (
+    PairRule,
+    allowed_picks,
+    check_pairs,
+    keeps,
+    most_gain,
+    pair_rows,
+    paired_groups,
+)
 from recourse.relaxation import Relaxation
 
 SOLVERS = ("highs", "cbc", "exact")  # exact: recourse.solver, built for this program's shape
@@ -52,6 +63,7 @@ class Program:
     max_changes: int | None = None
     forbidden: tuple[frozenset[int], ...] = ()  # sets of groups that may not all change
     names: tuple[str, ...] = ()
+    pairs: tuple[PairRule, ...] = ()  # which candidates of two groups may go together
 
 
 @dataclass(frozen=True)
@@ -133,6 +145,7 @@ def _check(program: Program) -> None:
         if not all(_whole(g) and 0 <= g < groups for g in changed):
             raise ValueError(f"forbidden set {sorted(changed)} names a group outside "
                              f"0..{groups - 1}")
+    check_pairs(program.pairs, [len(values) for values in program.contributions])
 
 
 def _sign(program: Program) -> float:
@@ -162,9 +175,10 @@ def best_changes(gains: np.ndarray, costs: np.ndarray, need: float = math.inf) -
 
     A change is kept when it gains more than staying put and than every cheaper change (of
     equal costs, the one that gains most), and only up to the first that gains `need`. Exact
-    for every objective and rule: a dropped change can be swapped for a kept one of the same
-    group, or taken back out, without costing more, losing score past `need` (kept changes
-    all gain) or making a forbidden set of groups change.
+    for every objective and rule but pair rules (a group they name keeps every candidate):
+    a dropped change can be swapped for a kept one of the same group, or taken back out,
+    without costing more, losing score past `need` (kept changes all gain; `need` is raised
+    by what paired groups may lose) or making a forbidden set of groups change.
     """
     gains, costs = np.asarray(gains, dtype=float), np.asarray(costs, dtype=float)
     order = np.lexsort((-gains, costs))
@@ -195,13 +209,16 @@ def _known_choice(program: Program, relaxation: Relaxation,
             choice[group] = int(relaxation.changes[group][taken[group]])
         return tuple(choice)
 
+    def allowed(choice: tuple[int, ...]) -> bool:
+        return not _blocked(program, _changed(program, choice)) and keeps(program.pairs, choice)
+
     first = picked(reaching)
-    if not _blocked(program, _changed(program, first)):
+    if allowed(first):
         return _polished(program, first)
     found = []
     for group in sorted(_changed(program, first)):
         other = relaxation.search(held=group)[2]
-        if other is not None and not _blocked(program, _changed(program, picked(other))):
+        if other is not None and allowed(picked(other)):
             choice = _polished(program, picked(other))
             found.append((sum(c[k] for c, k in zip(program.costs, choice, strict=True)), choice))
     return min(found)[1] if found else None
@@ -213,7 +230,8 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
 
     The known choice comes from the relaxation and is polished; a change whose Lagrangian
     bound exceeds its cost cannot improve on it (reduced-cost fixing; common practice, no
-    source). Forbidden sets only shrink the choices, so the bounds stay valid with them.
+    source). Forbidden sets and pair rules only shrink the choices, so the bounds stay valid
+    with them; the known choice keeps them (`_known_choice`).
     """
     limit = len(kept) if program.max_changes is None else program.max_changes
     need = _need(program)
@@ -237,11 +255,19 @@ def _fixed_by_bound(program: Program, gains: list[np.ndarray], costs: list[np.nd
 
 def _kept(program: Program, cap: float = math.inf) -> list[np.ndarray]:
     """Per group, the candidates left to choose from: the frontier of changes within `cap`
-    and, for total cost, those the Lagrangian bound cannot rule out (both exact)."""
+    and, for total cost, those the Lagrangian bound cannot rule out (both exact).
+
+    A group named by a pair rule keeps every candidate within `cap` (a dearer one, or one
+    that loses, may be the only one allowed with the other group's pick); the others' cut
+    at `need` is raised by the most the paired groups can lose together, so a change that
+    closes that alone still closes the gap whatever they pick."""
     gains, costs = _tables(program)
-    need = _need(program)
-    kept = [_frontier(g, c, now, cap, need) for g, c, now in zip(gains, costs, program.current,
-                                                                 strict=True)]
+    paired = paired_groups(program.pairs)
+    need = _need(program) + sum(max(0.0, -float(gains[g][costs[g] <= cap].min()))
+                                for g in paired)
+    kept = [np.flatnonzero((c <= cap) | (np.arange(len(c)) == now)) if group in paired
+            else _frontier(g, c, now, cap, need)
+            for group, (g, c, now) in enumerate(zip(gains, costs, program.current, strict=True))]
     if program.objective == "total-cost":
         kept = _fixed_by_bound(program, gains, costs, kept)
     return kept
@@ -254,12 +280,20 @@ def _run(program: Program, cap: float,
     if sum(_gains(program, cap)[:_limit(program)]) < _need(program):
         return None  # even the best change of every group falls short: no search needed
     kept = _kept(program, cap)
-    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
+    sets = _listable(program, kept)
     if sets is None:
         return mip(program, _rows(program, kept))
     gains, costs = _tables(program)
     return best_combination(gains, costs, kept, program.current, _need(program),
                             program.objective, sets)
+
+
+def _listable(program: Program, kept: list[np.ndarray]) -> list[tuple[int, ...]] | None:
+    """The sets of groups `best_combination` would list, or None for the integer program
+    (always with pair rules: the listing does not check them)."""
+    if program.pairs:
+        return None
+    return changed_sets(kept, program.current, program.max_changes, program.forbidden)
 
 
 def _limit(program: Program) -> int:
@@ -296,6 +330,7 @@ def _rows(program: Program, kept: list[np.ndarray]) -> _Rows:
         inside = np.isin(group_of, sorted(changed))
         rows.append((columns[moved][inside], np.ones(int(inside.sum())), "<=",
                      len(changed) - 1.0))
+    rows += pair_rows(program.pairs, kept, starts)
     objective = cost
     if program.objective == "largest-cost":  # t >= cost of the chosen candidate in every group
         objective = np.append(np.zeros(n), 1.0)
@@ -330,7 +365,8 @@ def _judged(program: Program, choice: tuple[int, ...], solver: str) -> Solution:
                  "fewest-changes": len(changed)}[program.objective]
     reached = _sign(program) * (score - program.threshold) >= 0
     within = program.max_changes is None or len(changed) <= program.max_changes
-    if not reached or not within or _blocked(program, changed):
+    if not reached or not within or _blocked(program, changed) or not keeps(program.pairs,
+                                                                             choice):
         raise RuntimeError(f"{solver} returned a choice that breaks the program's rules "
                            f"(score {score!r}, threshold {program.threshold!r}, changed "
                            f"{sorted(changed)})")
@@ -345,7 +381,7 @@ def _lexicographic(program: Program, run: Callable[[Program, float], tuple[int, 
         run = _empty_run
     optimum = None
     if program.objective != "total-cost":
-        if program.forbidden:  # no closed form: solve for the objective first
+        if program.forbidden or program.pairs:  # no closed form: solve for it first
             first = run(program, math.inf)
             optimum = None if first is None else _judged(
                 program, _polished(program, first), solver).objective
@@ -381,6 +417,8 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
             ok = (cost < cost[picked[group]]) & (total - gain[picked[group]] + gain >= need)
             if _blocked(program, changed | {group}):  # taking a group back out never blocks
                 ok[np.arange(len(ok)) != now] = False
+            if program.pairs:  # never into a pick a pair rule forbids
+                ok &= allowed_picks(program.pairs, picked, group, len(ok))
             if ok.any():
                 candidate = int(np.argmin(np.where(ok, cost, np.inf)))
                 best = max(best, (cost[picked[group]] - cost[candidate], group, candidate))
@@ -547,16 +585,20 @@ def search_size(program: Program) -> tuple[tuple[int, ...], bool]:
     whether they are few enough to be listed (else the integer program searches them)."""
     _check(program)
     kept = _kept(program)
-    sets = changed_sets(kept, program.current, program.max_changes, program.forbidden)
-    return tuple(len(k) for k in kept), sets is not None
+    return tuple(len(k) for k in kept), _listable(program, kept) is not None
 
 
 def best_reachable(program: Program) -> float:
     """The most favourable score the rules allow, ignoring the threshold and forbidden sets.
 
-    Each group's best gain over its current candidate, the largest `max_changes` of them.
+    Each group's best gain over its current candidate, the largest `max_changes` of them;
+    with pair rules, the most an integer program finds that keeps them (recourse.pairs).
     """
     _check(program)
     limit = len(program.contributions) if program.max_changes is None else program.max_changes
+    if program.pairs:
+        gained = most_gain(_tables(program)[0], program.pairs, program.max_changes,
+                           program.current)
+        return float(_current_score(program) + _sign(program) * gained)
     gained = sum(_gains(program, math.inf)[:limit])
     return float(_current_score(program) + _sign(program) * gained)

@@ -13,14 +13,16 @@ convex hull of (gain, cost) points, walked in order of slope; Sinha & Zemel 1979
 and, with one change left, the cheapest single change of a later group that finishes the
 plan. A state that reaches the need is a plan (the later groups stay put, which breaks no
 cut still open), so it ends there. Nothing is capped or approximated: the bound only drops
-states that cannot beat a plan already found, with a margin for rounding.
+states that cannot beat a plan already found, with a margin for rounding. Rules between two
+groups (`Program.pairs`) are not part of this search: such a program is solved by the
+integer program and the solution's message says so.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -34,6 +36,7 @@ from recourse.program import (
     _lexicographic,
     _need,
     _tables,
+    solve,
 )
 
 NAME = "exact"
@@ -372,6 +375,13 @@ def _least_largest(gains: list[np.ndarray], costs: list[np.ndarray], need: float
 
 def solve_exact(program: Program) -> Solution:
     """Solve the program exactly with the dedicated search; the same contract as
-    `recourse.program.solve` (ties to the least total cost, the choice verified in Python)."""
+    `recourse.program.solve` (ties to the least total cost, the choice verified in Python).
+
+    A program with pair rules (a link between two features, a level that bounds a number)
+    is handed to the integer program (HiGHS), and the message says so."""
+    if program.pairs:
+        found = solve(program, "highs")
+        return replace(found, message=found.message.replace(
+            "(highs)", "(highs: the exact solver does not cover linked rules)"))
     return _lexicographic(program, _exact_run, NAME)  # checks the program first
 
