@@ -40,8 +40,7 @@ BLOCK = 256  # rows tabled and solved together (arrays [rows, features, candidat
 
 def batch_covers(mutability: Mutability, n_plans: int) -> bool:
     """Whether the batch path takes these rules (else the per-row planner does)."""
-    pairs = getattr(mutability, "links", ()) or getattr(mutability, "level_bounds", ())
-    return not pairs and n_plans <= MOST_CHAINED
+    return not (mutability.links or mutability.level_bounds) and n_plans <= MOST_CHAINED
 
 
 def plan_batch(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame, ids: Sequence,

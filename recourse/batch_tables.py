@@ -34,15 +34,13 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm
 from recourse.candidates import (
     FARTHEST_STEPS,
-    LARGEST_STEP_COUNT,
     LISTED_STEPS,
     NEED_SLACK,
-    _first_past,
     feature_candidates,
     plannable_unit,
-    rounded,
 )
 from recourse.errors import MutabilityError, OutsideError
+from recourse.grid import LARGEST_STEP_COUNT, _first_past, rounded
 from recourse.mutability import FeatureRule, Mutability, unit_spread
 
 
@@ -347,7 +345,7 @@ def _grid_cells(term: CurveTerm, now: np.ndarray, lower: np.ndarray, upper: np.n
 
 def _first_past_rows(now: np.ndarray, step: float, side: int, targets: np.ndarray,
                      inclusive: bool) -> np.ndarray:
-    """`recourse.candidates._first_past` with one target per row: the least k >= 1 whose
+    """`recourse.grid._first_past` with one target per row: the least k >= 1 whose
     grid point lies past the row's target on `side` (or on it, when `inclusive`);
     LARGEST_STEP_COUNT + 1 when none does. Rows the seven-step bracket cannot settle are
     handed to the per-row function."""

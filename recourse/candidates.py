@@ -36,13 +36,12 @@ import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from recourse.errors import MutabilityError, OutsideError
+from recourse.grid import LARGEST_STEP_COUNT, _bisect, _first_past, _points, rounded
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.pair_rules import row_rules, tight_values
 from recourse.program import best_changes
 
-DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
 MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
-LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
 LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
 NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
 # A row's value beyond this many steps from zero is "outside what the model can plan for":
@@ -50,11 +49,6 @@ NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding
 # points anchored on the value could no longer be placed where the rules put them.
 FARTHEST_STEPS = 2**42
 OUTSIDE = "value outside what the model can plan for"
-WHOLE = 2.0**52  # floats this large are whole numbers
-# Above this, a float's spacing exceeds 10**-DECIMALS: rounding to DECIMALS drops no noise,
-# and np.round's multiply-and-divide would move the value (1e15 + 0.5 became 1e15 + 0.625)
-# or overflow to infinity (past about 1e296).
-ROUNDED_BELOW = 2.0**53 / 10**DECIMALS
 
 
 @dataclass(frozen=True)
@@ -231,14 +225,6 @@ def check_plannable(model: AdditiveModel, feature: str, now: float, step: float 
                            "zero, where its steps can no longer be placed exactly")
 
 
-def rounded(values: Any) -> np.ndarray:
-    """Values rounded to DECIMALS (grid noise such as 0.1 + 0.2 dropped) where that can drop
-    noise, below ROUNDED_BELOW; larger values are left exactly as they are."""
-    values = np.asarray(values, dtype=float)
-    small = np.abs(values) < ROUNDED_BELOW
-    return np.where(small, np.round(np.where(small, values, 0.0), DECIMALS), values)
-
-
 def _check_costs_grow(feature: str, now: float, values: np.ndarray, costs: np.ndarray) -> None:
     """The frontier relies on costs growing with the distance from the current value
     (`values` ascending after the current one, as every reader here gives them)."""
@@ -297,59 +283,6 @@ def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: fl
         raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the bound "
                               f"{near:g}: more than {LARGEST_STEP_COUNT:,} steps away")
     return first
-
-
-def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray:
-    """Grid points `steps` whole steps from `now` on one side (+1 up, -1 down), rounded."""
-    return rounded(now + side * np.asarray(steps, dtype=float) * step)
-
-
-def _first_past(now: float, step: float, side: int, targets: np.ndarray,
-                inclusive: bool | np.ndarray) -> np.ndarray:
-    """For each target, the least k >= 1 whose grid point lies past it on `side` (or on it,
-    where `inclusive`); LARGEST_STEP_COUNT + 1 when none up to LARGEST_STEP_COUNT does.
-
-    The quotient gives k to within a step or two: the seven steps around it are tried at
-    once; where that bracket fails (a huge quotient, say) the whole range is bisected.
-    """
-    targets = np.atleast_1d(np.asarray(targets, dtype=float))
-    inclusive = np.broadcast_to(inclusive, targets.shape)
-
-    def passes(k: np.ndarray, rows: slice | np.ndarray = slice(None)) -> np.ndarray:
-        there = targets[rows].reshape(-1, *([1] * (k.ndim - 1)))
-        gap = side * (_points(now, step, side, k) - there)
-        return np.where(inclusive[rows].reshape(there.shape), gap >= 0, gap > 0)
-
-    with np.errstate(invalid="ignore", over="ignore"):
-        quotient = side * (targets - now) / step
-    far = ~(quotient < LARGEST_STEP_COUNT)  # an infinite bound, say (nan too)
-    low = np.maximum(np.floor(np.where(far, 0.0, quotient)).astype(np.int64) - 3, 0)
-    tried = low[:, None] + np.arange(7)
-    ok = passes(tried)
-    found = tried[np.arange(len(low)), ok.argmax(axis=1)]
-    settled = (low == 0) | ~ok[:, 0]  # the bracket starts below the answer...
-    found = np.where(far, LARGEST_STEP_COUNT + 1, found)
-    wide = np.flatnonzero(~far & ~(settled & ok[:, -1]))  # ...and ends on or past it
-    if len(wide):
-        found[wide] = _bisect(lambda k: passes(k, wide), np.zeros(len(wide), np.int64),
-                              np.full(len(wide), LARGEST_STEP_COUNT + 1))
-    return np.maximum(found, 1)
-
-
-def _bisect(passes: Callable[[np.ndarray], np.ndarray], low: np.ndarray,
-            high: np.ndarray) -> np.ndarray:
-    """Least k in (low, high] with passes(k), each `passes` monotone and true at `high`
-    (or `high` is a sentinel); at most 64 halvings, one vectorised call each."""
-    low, high = low.copy(), high.copy()
-    for _ in range(64):
-        open_ = high - low > 1
-        if not open_.any():
-            break
-        middle = np.where(open_, (low + high) // 2, high)
-        ok = passes(middle)
-        high = np.where(open_ & ok, middle, high)
-        low = np.where(open_ & ~ok, middle, low)
-    return high
 
 
 def _step_values(term: StepTerm, now: float, lower: float, upper: float,

@@ -17,14 +17,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm
-from recourse.candidates import (
-    LARGEST_STEP_COUNT,
-    WHOLE,
-    rounded,
-    supply_rules,
-    supply_values,
-)
+from recourse.candidates import supply_rules, supply_values
 from recourse.errors import MutabilityError
+from recourse.grid import LARGEST_STEP_COUNT, WHOLE, rounded
 from recourse.mutability import ANY_LEVEL, FeatureRule
 
 
