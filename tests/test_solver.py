@@ -66,10 +66,10 @@ def test_exact_matches_enumeration_and_highs(objective):
     check()
 
 
-def test_exact_is_a_solver_choice_and_highs_stays_the_default():
+def test_exact_is_the_default_and_the_integer_program_stays_a_choice():
     from recourse.program import DEFAULT_SOLVER, SOLVERS
 
-    assert "exact" in SOLVERS and DEFAULT_SOLVER == "highs"
+    assert {"highs", "cbc"} <= set(SOLVERS) and DEFAULT_SOLVER == "exact"
     program = Program(base=0.0, contributions=((0.0, 1.0),), costs=((0.0, 2.0),), current=(0,),
                       threshold=0.5, direction="at-least", objective="total-cost")
     assert solve_exact(program) == solve(program, "exact")
