@@ -37,7 +37,8 @@ def _room(array, size):
     if size <= array.shape[0]:
         return array
     grown = np.empty(max(size, 2 * array.shape[0]), array.dtype)
-    grown[:array.shape[0]] = array
+    for i in range(array.shape[0]):  # a loop, not a slice: quicker to compile
+        grown[i] = array[i]
     return grown
 
 
@@ -126,10 +127,15 @@ def _layout(gain, within, changed, cuts):
             for g in range(groups):
                 if changed[c, g]:
                     in_cut[g] = 1
-    taking = np.flatnonzero(within > 0)
+    taking = np.empty(groups, np.int64)
+    size = 0
+    for g in range(groups):
+        if within[g] > 0:
+            taking[size] = g
+            size += 1
+    taking = taking[:size]
     by_value = taking[np.argsort(-value[taking], kind="mergesort")]
     order = _stable_by(1 - in_cut, by_value, 2)
-    size = order.shape[0]
     position = np.full(groups, -1, np.int64)
     for k in range(size):
         position[order[k]] = k
@@ -158,7 +164,8 @@ def _top(order, size, value):
     (all of them when fewer than i)."""
     top = np.zeros((size + 1, size + 1))
     for k in range(size):
-        later = np.sort(value[order[k:]])[::-1]
+        later = value[order[k:]]
+        later = later[np.argsort(-later, kind="mergesort")]  # largest first
         for i in range(size):
             top[k, i + 1] = top[k, i] + (later[i] if i < later.shape[0] else 0.0)
     return top
@@ -381,7 +388,8 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
         held += kept
         if kept == 0:
             break
-    picks[:] = -1
+    for g in range(picks.shape[0]):
+        picks[g] = -1
     if found_layer < 0:
         return np.inf
     picks[order[found_layer]] = found_pick
@@ -451,70 +459,60 @@ def _within(cost, count, cap):
 
 
 @njit(cache=True)
-def _fewest_within(gain, cost, count, changed, cuts, need, limit, cap):
-    """The fewest changes with every cost at most `cap` (-1: none)."""
-    within = _within(cost, count, cap)
-    order, size, inside, closing, full, value = _layout(gain, within, changed, cuts)
-    return _fewest(order, size, inside, closing, full, value, need, limit)
-
-
-@njit(cache=True)
 def _plan(gain, cost, count, changed, cuts, need, limit, objective, picks):
     """One plan under the first `cuts` cuts: the objective's optimum, then the least total
     cost among the plans that keep it (exactly: a cap on each cost, or a limit on changes).
-    Returns whether there is one; `picks` gets each group's frontier position (-1: stays)."""
+    Returns whether there is one; `picks` gets each group's frontier position (-1: stays).
+
+    Largest cost: the least of the distinct costs under which some plan still exists, by
+    bisection (the dearest first: is there a plan at all?); fewest changes: the fewest with
+    no cap. Either way the check is the search over which groups change (`_fewest`)."""
     cap = np.inf
-    if objective == FEWEST_CHANGES:
-        fewest = _fewest_within(gain, cost, count, changed, cuts, need, limit, cap)
-        if fewest < 0:
-            return False
-        limit = fewest
-    elif objective == LARGEST_COST:  # the least cost level under which a plan still exists
+    if objective != TOTAL_COST:
         total = 0
         for g in range(count.shape[0]):
             total += count[g]
-        levels = np.empty(total)
+        every = np.empty(total)
         i = 0
         for g in range(count.shape[0]):
-            levels[i:i + count[g]] = cost[g, :count[g]]
-            i += count[g]
-        levels = np.unique(levels)
-        if levels.shape[0] == 0 or _fewest_within(gain, cost, count, changed, cuts, need,
-                                                  limit, levels[-1]) < 0:
+            for j in range(count[g]):
+                every[i] = cost[g, j]
+                i += 1
+        every = every[np.argsort(every, kind="mergesort")]
+        levels = np.full(1, np.inf)
+        if objective == LARGEST_COST:
+            levels = np.empty(total)
+            i = 0
+            for value in every:  # the distinct costs, in order
+                if i == 0 or value != levels[i - 1]:
+                    levels[i] = value
+                    i += 1
+            levels = levels[:i]
+        if levels.shape[0] == 0:
             return False
-        low, high = 0, levels.shape[0] - 1
-        while low < high:
-            middle = (low + high) // 2
-            if _fewest_within(gain, cost, count, changed, cuts, need, limit,
-                              levels[middle]) >= 0:
-                high = middle
+        low = 0
+        high = probe = levels.shape[0] - 1
+        while True:
+            within = _within(cost, count, levels[probe])
+            order, size, inside, closing, full, value = _layout(gain, within, changed, cuts)
+            fewest = _fewest(order, size, inside, closing, full, value, need, limit)
+            if fewest >= 0:
+                high = probe
+            elif probe == levels.shape[0] - 1:
+                return False
             else:
-                low = middle + 1
-        cap = levels[low]
+                low = probe + 1
+            if low >= high:
+                break
+            probe = (low + high) // 2
+        cap = levels[high]
+        if objective == FEWEST_CHANGES:
+            limit = fewest
     within = _within(cost, count, cap)
     order, size, inside, closing, full, value = _layout(gain, within, changed, cuts)
     paid = _cheapest(order, size, inside, closing, full, value, gain, cost, within, need,
                      limit, picks)
     return paid < np.inf
-
-
-@njit(cache=True)
-def _row(gains, costs, sizes, need, limit, objective, choice):
-    """Up to choice.shape[0] plans of one row into `choice`; returns how many were found."""
-    plans, groups = choice.shape
-    if need <= 0.0:
-        return 1  # staying put; any later plan would change the empty set, which is cut
-    gain, cost, pick, count = _frontier(gains, costs, sizes, need)
-    changed = np.zeros((plans, groups), np.bool_)
-    picks = np.empty(groups, np.int64)
-    for p in range(plans):
-        if not _plan(gain, cost, count, changed, p, need, limit, objective, picks):
-            return p
-        for g in range(groups):
-            if picks[g] >= 0:
-                choice[p, g] = pick[g, picks[g]]
-                changed[p, g] = True
-    return plans
 
 
 @njit(cache=True)
@@ -549,6 +547,19 @@ def solve_rows(gains, costs, sizes, need, limit, objective, n_plans):
                                      "negative")
     choice = np.full((rows, n_plans, groups), -1, np.int64)
     found = np.zeros(rows, np.int64)
+    picks = np.empty(groups, np.int64)
     for r in range(rows):
-        found[r] = _row(gains[r], costs[r], sizes[r], need[r], limit[r], objective, choice[r])
+        if need[r] <= 0.0:  # staying put; a later plan would change the empty set: cut
+            found[r] = 1
+            continue
+        gain, cost, pick, count = _frontier(gains[r], costs[r], sizes[r], need[r])
+        changed = np.zeros((n_plans, groups), np.bool_)
+        for p in range(n_plans):
+            if not _plan(gain, cost, count, changed, p, need[r], limit[r], objective, picks):
+                break
+            found[r] += 1
+            for g in range(groups):
+                if picks[g] >= 0:
+                    choice[r, p, g] = pick[g, picks[g]]
+                    changed[p, g] = True
     return choice, found

@@ -159,11 +159,11 @@ def random_programs(seed: int, count: int, objective: str, groups: tuple[int, in
 @pytest.mark.parametrize("objective", OBJECTIVES)
 @pytest.mark.parametrize("n_plans", [1, 3])
 def test_small_programs_match_enumeration(objective, n_plans):
-    # 400 programs of 1 to 5 groups of 1 to 6 candidates per case (2,400 programs, ~4,000
-    # plans): every plan against exact enumeration of every combination
-    programs = random_programs(16 + n_plans, 400, objective, (1, 6), 6)
+    # 1,500 programs of 2 to 6 groups of 1 to 6 candidates per case (9,000 programs, over
+    # 9,000 plans): every plan against exact enumeration of every combination
+    programs = random_programs(16 + n_plans, 1500, objective, (2, 7), 6)
     checked = check_chains(programs, n_plans, brute_force)
-    assert checked > 300 * n_plans // 2
+    assert checked > {1: 1200, 3: 1800}[n_plans]
 
 
 @pytest.mark.parametrize("objective", OBJECTIVES)
@@ -194,3 +194,35 @@ def test_real_credit_rows_match_highs_for_three_plans(credit_programs, objective
     programs = [replace(p, objective=objective) for p in credit_programs]
     assert len(programs) > 30
     assert check_chains(programs, 3, by_highs) > 2 * len(programs)  # most rows have three
+
+
+# ---------------------------------------------------------------- the contract's edges
+
+def test_same_input_same_output_and_a_batch_equals_its_rows():
+    # determinism: the same arrays give the same plans, in one batch or row by row
+    programs = random_programs(7, 60, "largest-cost", (3, 8), 8)
+    arrays = pack(programs)[:5]
+    first, found = solve_rows(*arrays, 1, 3)
+    again, found_again = solve_rows(*arrays, 1, 3)
+    assert np.array_equal(first, again) and np.array_equal(found, found_again)
+    for r in range(len(programs)):
+        alone, count = solve_rows(*(a[r:r + 1] for a in arrays), 1, 3)
+        assert np.array_equal(alone[0], first[r]) and count[0] == found[r]
+
+
+# Constructed truth (hand-worked): two groups; a cut on the only set that reaches leaves no
+# plan, staying put is the plan when nothing is needed, and a limit of 0 allows none.
+def test_no_plan_staying_put_and_limits_by_hand():
+    gains = np.array([[[1.0, 2.0], [2.5, 0.0]]] * 4)
+    costs = np.array([[[1.0, 3.0], [2.0, 0.0]]] * 4)
+    sizes = np.array([[2, 1]] * 4)
+    need = np.array([3.5, 4.6, -0.5, 3.0])
+    limit = np.array([2, 2, 2, 0])
+    choice, found = solve_rows(gains, costs, sizes, need, limit, 0, 3)
+    assert found.tolist() == [1, 0, 1, 0]
+    assert choice[0, 0].tolist() == [0, 0]  # 1 + 2.5 for 1 + 2; then no other set reaches
+    assert (choice[2] == -1).all() and (choice[1] == -1).all()
+    with pytest.raises(ValueError, match="n_plans"):
+        solve_rows(gains, costs, sizes, need, limit, 0, 65)
+    with pytest.raises(ValueError, match="negative"):
+        solve_rows(gains, -costs, sizes, need, limit, 0, 1)
