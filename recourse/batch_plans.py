@@ -95,17 +95,12 @@ def _solve(tables: BatchTables, need: np.ndarray, goal, n_plans: int,
 
     rows, groups, width = tables.values.shape
     toward = 1.0 if goal.direction == "at-least" else -1.0
-    gains = toward * (tables.contributions - tables.here[:, :, None])
-    costs = tables.costs.copy()
     live = np.arange(width)[None, None, :] < tables.sizes[:, :, None]
-    gains[np.abs(gains) < NOISE], costs[costs < NOISE] = 0.0, 0.0  # as every solver sees them
-    live &= gains > 0  # a change that gains nothing to the solver is never worth taking
-    position = np.argsort(~live, axis=2, kind="stable")  # live changes first, in order
-    sizes = live.sum(axis=2).astype(np.int64)
-    gains = np.where(np.take_along_axis(live, position, 2),
-                     np.take_along_axis(gains, position, 2), 0.0)
-    costs = np.where(np.take_along_axis(live, position, 2),
-                     np.take_along_axis(costs, position, 2), 0.0)
+    gains = np.where(live, toward * (tables.contributions - tables.here[:, :, None]), 0.0)
+    costs = np.where(live, tables.costs, 0.0)
+    # as every solver sees them; a change that then gains nothing the kernel never takes
+    gains[np.abs(gains) < NOISE], costs[costs < NOISE] = 0.0, 0.0
+    sizes = tables.sizes
     limit = groups if goal.max_changes is None else min(goal.max_changes, groups)
     choice = np.full((rows, n_plans, groups), -1, np.int64)
     found = np.zeros(rows, np.int64)
@@ -115,10 +110,7 @@ def _solve(tables: BatchTables, need: np.ndarray, goal, n_plans: int,
             np.ascontiguousarray(gains[take]), np.ascontiguousarray(costs[take]),
             np.ascontiguousarray(sizes[take]), np.ascontiguousarray(need[take]),
             np.full(len(take), limit, np.int64), OBJECTIVE_CODES[goal.objective], n_plans)
-        back = np.take_along_axis(position[take][:, None, :, :],
-                                  np.maximum(picked, 0)[:, :, :, None], axis=3)[..., 0]
-        choice[take] = np.where(picked >= 0, back, -1)
-        found[take] = counts
+        choice[take], found[take] = picked, counts
     return choice, found
 
 
