@@ -13,6 +13,8 @@ install: $(STAMP)
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e ".[test]"
+	@echo "compiling the recourse solver once (numba; its cache is kept next to the package)"
+	$(BIN)/python -m recourse.warm
 	touch $(STAMP)
 
 demo: $(STAMP)
