@@ -11,14 +11,17 @@ candidate and solves one program at a time. Here a whole batch goes through four
 4. Plan and Change objects for the plans found.
 
 Rows this path does not take go to the per-row planner, which answers them exactly as it
-always has: rows the tables cannot read with arrays or the rules do not fit (`slow`), rows
-with no plan (the per-row planner says how close the rules allow and which rules bind), and
-rows whose plan states a missing value (it lowers each stated value to the least the model
-needs). The tests hold the two paths to the same optimal costs row by row on real data.
+always has: rows the tables cannot read with arrays or the rules do not fit (`slow`), and
+rows with no plan (the per-row planner says how close the rules allow and which rules
+bind). A plan that states a missing value is built by the per-row planner's own builder
+from the kernel's choice (it lists the values that would do and asks for the least of
+them the goal needs). The tests hold the two paths to the same optimal costs row by row
+on real data.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
 from typing import Any
 
@@ -26,11 +29,11 @@ import numpy as np
 import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, LevelsTerm
-from recourse.batch_tables import BatchTables, batch_tables
-from recourse.candidates import is_missing
+from recourse.batch_tables import BatchTables, batch_tables, stated
+from recourse.candidates import FeatureCandidates, is_missing
 from recourse.mutability import Mutability
-from recourse.planner import Change, Plan, PlanResult, plan_encoded, total_scores
-from recourse.program import BUFFER, NOISE
+from recourse.planner import Change, Plan, PlanResult, _plans, plan_encoded, total_scores
+from recourse.program import BUFFER, NOISE, Solution
 from recourse.tails import tail_warnings
 
 OBJECTIVE_CODES = {"total-cost": 0, "largest-cost": 1, "fewest-changes": 2}
@@ -79,12 +82,42 @@ def _block(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutability, 
            need: np.ndarray, score: np.ndarray, sign: float) -> dict[int, tuple[Plan, ...]]:
     """The plans of the block's rows this path settles (by position in the block)."""
     goal = mutability.goal
+    threshold = goal.threshold(model.link)
     tables = batch_tables(model, encoded, mutability, need)
     fast = ~tables.slow
     choice, found = _solve(tables, need, goal, n_plans, fast)
-    planned = fast & (found > 0) & ~_states_value(tables, encoded, choice, found)
-    return _built(model, encoded, tables, choice, found, planned, score,
-                  goal.threshold(model.link), sign)
+    stating = fast & (found > 0) & _states_value(tables, encoded, choice, found)
+    planned = fast & (found > 0) & ~stating
+    plans = _built(model, encoded, tables, choice, found, planned, score, threshold, sign)
+    for k in np.flatnonzero(stating):  # the per-row planner's plan builder, this solution
+        plans[int(k)] = _stated_plans(model, encoded.iloc[[k]], tables, int(k),
+                                      choice[k, :found[k]], score[k], threshold, mutability)
+    return plans
+
+
+def _stated_plans(model: AdditiveModel, row: pd.DataFrame, tables: BatchTables, k: int,
+                  choice: np.ndarray, score: float, threshold: float,
+                  mutability: Mutability) -> tuple[Plan, ...]:
+    """Plans that state a value the row lacks, built as the per-row planner builds them
+    (the values that would do, the least of them the goal needs) from the kernel's choice."""
+    candidates = {}
+    for g, name in enumerate(tables.names):
+        n = tables.sizes[k, g]
+        now = row[name].iloc[0]
+        values = [now, *(stated(tables, model, k, g, j) for j in range(n))]
+        kind = object if isinstance(model.term(name), LevelsTerm) else float
+        candidates[name] = FeatureCandidates(
+            np.array(values, dtype=kind),
+            np.r_[tables.here[k, g], tables.contributions[k, g, :n]],
+            np.r_[0.0, tables.costs[k, g, :n]], n)
+    solutions = []
+    for picks in choice:
+        moved = [(g, int(j)) for g, j in enumerate(picks) if j >= 0]
+        predicted = score + sum(tables.contributions[k, g, j] - tables.here[k, g]
+                                for g, j in moved)
+        solutions.append(Solution("optimal", tuple(int(j) + 1 for j in picks), math.nan,
+                                  float(predicted)))
+    return _plans(model, row, tables.names, candidates, solutions, threshold, mutability)
 
 
 def _solve(tables: BatchTables, need: np.ndarray, goal, n_plans: int,

@@ -251,15 +251,18 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
             term, rule = model.term(change.feature), mutability.rules[change.feature]
             now = float(term.evaluate(row[change.feature].to_numpy())[0])
             floor = passed - (score - now)
-            for value in least_first(model, rule, accepted(model, rule, floor, direction),
-                                     floor, direction):
-                trial = row.copy()
-                trial[change.feature] = value
-                moved = float(model.score_encoded(trial)[0])
-                if _reaches(moved, threshold, direction) and rules_kept(mutability, before,
-                                                                        trial.iloc[0]):
-                    row, score, change = trial, moved, replace(change, proposed=value)
-                    break
+            values = least_first(model, rule, accepted(model, rule, floor, direction), floor,
+                                 direction)
+            if values:  # every value tried at once, the least favourable first
+                trials = row.iloc[np.zeros(len(values), dtype=np.int64)].reset_index(drop=True)
+                trials[change.feature] = pd.Series(values, dtype=row[change.feature].dtype)
+                moved = model.score_encoded(trials)
+                for k, value in enumerate(values):
+                    if _reaches(float(moved[k]), threshold, direction) and rules_kept(
+                            mutability, before, trials.iloc[k]):
+                        row, score = trials.iloc[[k]].reset_index(drop=True), float(moved[k])
+                        change = replace(change, proposed=value)
+                        break
         out.append(change)
     return out, score
 
