@@ -38,7 +38,8 @@ from recourse.tails import tail_warnings
 
 OBJECTIVE_CODES = {"total-cost": 0, "largest-cost": 1, "fewest-changes": 2}
 MOST_CHAINED = 64  # plans per row the compiled solver chains (cuts held as 63-bit masks)
-BLOCK = 256  # rows tabled and solved together (arrays [rows, features, candidates])
+BLOCK = 1024  # rows tabled and solved together (arrays [rows, features, candidates]) ...
+CELLS = 4_000_000  # ... fewer when a block's tables held more cells than this (wide grids)
 
 
 def batch_covers(mutability: Mutability, n_plans: int) -> bool:
@@ -51,7 +52,8 @@ def plan_batch(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame,
                one_row: Callable[[int], PlanResult] | None = None) -> list[PlanResult]:
     """Up to `n_plans` plans for each typed row, in order; the same results as
     `recourse.planner.plan_encoded` with the exact solver, row by row. `one_row(i)` plans
-    row i the per-row way (default: `plan_encoded`); blocks of BLOCK rows bound the memory."""
+    row i the per-row way (default: `plan_encoded`). Rows go BLOCK at a time, fewer after a
+    block whose tables held more than CELLS cells, so wide grids do not fill the memory."""
     if one_row is None:
         def one_row(i: int) -> PlanResult:
             return plan_encoded(model, encoded.iloc[[i]], mutability, n_plans=n_plans,
@@ -66,11 +68,15 @@ def plan_batch(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame,
     for row in np.flatnonzero(~missed):
         results[row] = PlanResult("already", float(score[row]), float(outcome[row]),
                                   goal.target, goal.direction, row_id=ids[row])
-    declined = np.flatnonzero(missed)
-    for start in range(0, len(declined), BLOCK):
-        todo = declined[start:start + BLOCK]
-        for k, plans in _block(model, encoded.iloc[todo], mutability, n_plans, need[todo],
-                               score[todo], sign).items():
+    declined, start, size = np.flatnonzero(missed), 0, BLOCK
+    while start < len(declined):
+        todo = declined[start:start + size]
+        start += len(todo)
+        found, cells = _block(model, encoded.iloc[todo], mutability, n_plans, need[todo],
+                              score[todo], sign)
+        if cells > CELLS:
+            size = max(16, int(len(todo) * CELLS / cells))
+        for k, plans in found.items():
             row = todo[k]
             results[row] = PlanResult("plans", float(score[row]), float(outcome[row]),
                                       goal.target, goal.direction, plans=plans,
@@ -79,8 +85,10 @@ def plan_batch(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataFrame,
 
 
 def _block(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutability, n_plans: int,
-           need: np.ndarray, score: np.ndarray, sign: float) -> dict[int, tuple[Plan, ...]]:
-    """The plans of the block's rows this path settles (by position in the block)."""
+           need: np.ndarray, score: np.ndarray, sign: float
+           ) -> tuple[dict[int, tuple[Plan, ...]], int]:
+    """The plans of the block's rows this path settles (by position in the block), and how
+    many cells its tables held."""
     goal = mutability.goal
     threshold = goal.threshold(model.link)
     tables = batch_tables(model, encoded, mutability, need)
@@ -92,7 +100,7 @@ def _block(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutability, 
     for k in np.flatnonzero(stating):  # the per-row planner's plan builder, this solution
         plans[int(k)] = _stated_plans(model, encoded.iloc[[k]], tables, int(k),
                                       choice[k, :found[k]], score[k], threshold, mutability)
-    return plans
+    return plans, tables.values.size
 
 
 def _stated_plans(model: AdditiveModel, row: pd.DataFrame, tables: BatchTables, k: int,
