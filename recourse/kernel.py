@@ -279,6 +279,19 @@ def _lower(k, rest, left, top, size, reach, paid, slope, n_segments, single_gain
 
 
 @njit(cache=True)
+def _first_gaining(gain, n, least):
+    """The first of the n rising gains that is >= `least` (n when none is)."""
+    low, high = 0, n
+    while low < high:
+        middle = (low + high) // 2
+        if gain[middle] >= least:
+            high = middle
+        else:
+            low = middle + 1
+    return low
+
+
+@njit(cache=True)
 def _cheapest(order, size, inside, closing, full, value, gain, cost, within, need, limit,
               picks):
     """The least total cost of a plan over the groups' frontiers (the first `within` changes
@@ -336,7 +349,13 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
                     m += 1
                 if not moving:
                     continue
-                for j in range(n):
+                # gains rise along the frontier: the changes before `first` leave the state
+                # short even with the largest later gains (the bound would drop them); with
+                # no change left after this one, only the first that finishes can be a plan
+                after = left - 1
+                reach_later = top[k + 1, min(after, size - k - 1)] if after > 0 else 0.0
+                first = _first_gaining(gain[g], n, need - gained - reach_later - 2.0 * slack)
+                for j in range(first, n):
                     paying = spent + cost[g, j]
                     if paying > margin:
                         break  # the frontier gets dearer from here
@@ -346,6 +365,8 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
                             upper, margin = paying, paying + TIE * (1.0 + paying)
                             found_parent, found_layer, found_pick = state_id[i], k, j
                         break
+                    if after == 0:
+                        continue  # short of the need with no change left: never a plan
                     bound = paying + _lower(k + 1, need - getting - slack, left - 1, top,
                                             size, reach, paid, slope, n_segments,
                                             single_gain, single_cost, n_single)
