@@ -109,7 +109,9 @@ def _layout(gain, within, changed, cuts):
 
     Only groups with a change within the cap (`within` > 0) take part, and only cuts all
     of whose groups do (no other can be completed). Groups in cuts come first, so the cuts
-    settle early, then the largest gains. Per position: the cuts the group is in (`inside`)
+    settle early, then the shortest frontiers (a state takes each change of a group but the
+    last, where only the change that finishes a plan is looked up), then the largest gains.
+    Per position: the cuts the group is in (`inside`)
     and those it is the last of (`closing`); `value`: each group's largest gain."""
     groups = within.shape[0]
     value = np.zeros(groups)
@@ -135,7 +137,8 @@ def _layout(gain, within, changed, cuts):
             size += 1
     taking = taking[:size]
     by_value = taking[np.argsort(-value[taking], kind="mergesort")]
-    order = _stable_by(1 - in_cut, by_value, 2)
+    by_length = by_value[np.argsort(within[by_value], kind="mergesort")]
+    order = _stable_by(1 - in_cut, by_length, 2)
     position = np.full(groups, -1, np.int64)
     for k in range(size):
         position[order[k]] = k
@@ -172,32 +175,22 @@ def _top(order, size, value):
 
 
 @njit(cache=True)
-def _suffixes(order, size, gain, cost, within):
-    """What the groups from each position on can still add, for the lower bound on cost.
-
-    The linear relaxation (Zemel 1984): each group's lower convex hull of (gain, cost) from
-    staying put over its frontier, all groups' hull segments taken cheapest per unit of gain
-    first; per position k, the cumulative gain `reach[k]` and cost `paid[k]` of the segments
-    of groups at k or later, and their `slope`. With one change left: every change of those
-    groups by gain (`single_gain[k]`) and the least cost of one gaining as much or more."""
+def _hulls(order, size, gain, cost, within):
+    """Each group's lower convex hull of (gain, cost) from staying put over its first
+    `within` frontier changes, as segments: their slopes, lengths (in gain) and the
+    position k of their group (group order[k])."""
     total = 0
     for k in range(size):
         total += within[order[k]]
     seg_slope = np.empty(total)
     seg_length = np.empty(total)
     seg_at = np.empty(total, np.int64)
-    one_gain = np.empty(total)
-    one_cost = np.empty(total)
-    one_at = np.empty(total, np.int64)
     hull = np.empty(total + 1, np.int64)
-    segments, changes = 0, 0
+    segments = 0
     for k in range(size):
         g = order[k]
-        n = within[g]
         hull[0], points = -1, 1  # -1 stands for staying put: (0, 0)
-        for j in range(n):
-            one_gain[changes], one_cost[changes], one_at[changes] = gain[g, j], cost[g, j], k
-            changes += 1
+        for j in range(within[g]):
             while points >= 2:  # drop the last point while it is on or above the chord
                 a, b = hull[points - 2], hull[points - 1]
                 ga, ca = (0.0, 0.0) if a < 0 else (gain[g, a], cost[g, a])
@@ -215,6 +208,32 @@ def _suffixes(order, size, gain, cost, within):
             seg_slope[segments] = (cost[g, b] - ca) / seg_length[segments]
             seg_at[segments] = k
             segments += 1
+    return seg_slope[:segments], seg_length[:segments], seg_at[:segments]
+
+
+@njit(cache=True)
+def _suffixes(order, size, gain, cost, within):
+    """What the groups from each position on can still add, for the lower bound on cost.
+
+    The linear relaxation (Zemel 1984): each group's lower convex hull of (gain, cost) from
+    staying put over its frontier, all groups' hull segments taken cheapest per unit of gain
+    first; per position k, the cumulative gain `reach[k]` and cost `paid[k]` of the segments
+    of groups at k or later, and their `slope`. With one change left: every change of those
+    groups by gain (`single_gain[k]`) and the least cost of one gaining as much or more."""
+    seg_slope, seg_length, seg_at = _hulls(order, size, gain, cost, within)
+    segments = seg_slope.shape[0]
+    total = 0
+    for k in range(size):
+        total += within[order[k]]
+    one_gain = np.empty(total)
+    one_cost = np.empty(total)
+    one_at = np.empty(total, np.int64)
+    changes = 0
+    for k in range(size):
+        g = order[k]
+        for j in range(within[g]):
+            one_gain[changes], one_cost[changes], one_at[changes] = gain[g, j], cost[g, j], k
+            changes += 1
     by_slope = np.argsort(seg_slope[:segments], kind="mergesort")
     by_gain = np.argsort(one_gain[:changes], kind="mergesort")
     reach = np.zeros((size + 1, segments + 1))
@@ -279,11 +298,26 @@ def _lower(k, rest, left, top, size, reach, paid, slope, n_segments, single_gain
 
 
 @njit(cache=True)
+def _first_gaining(gain, n, least):
+    """The first of the n rising gains that is >= `least` (n when none is)."""
+    low, high = 0, n
+    while low < high:
+        middle = (low + high) // 2
+        if gain[middle] >= least:
+            high = middle
+        else:
+            low = middle + 1
+    return low
+
+
+@njit(cache=True)
 def _cheapest(order, size, inside, closing, full, value, gain, cost, within, need, limit,
-              picks):
+              known, picks):
     """The least total cost of a plan over the groups' frontiers (the first `within` changes
     of each), at most `limit` changes, no cut completed; inf when there is none. `picks`
-    gets the frontier position each group takes (-1: stays).
+    gets the frontier position each group takes (-1: stays). `known`: the cost of a plan
+    in hand (inf: none), whose changes the frontiers hold; from the start, states whose
+    bound passes it go.
 
     Layer k extends every state by group order[k]: it stays (cuts it is in can no longer be
     completed) or takes one change. A state that reaches the need is a plan (the later groups
@@ -294,7 +328,7 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
     reach, paid, slope, n_segments, single_gain, single_cost, n_single = _suffixes(
         order, size, gain, cost, within)
     slack = SLACK * (1.0 + need)
-    upper, margin = np.inf, np.inf
+    upper, margin = np.inf, known + TIE * (1.0 + known)
     found_parent, found_layer, found_pick = -1, -1, -1
     # the layer's states, grouped by key; every state ever kept is in the history
     state_cost, state_gain = np.zeros(1), np.zeros(1)
@@ -336,7 +370,13 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
                     m += 1
                 if not moving:
                     continue
-                for j in range(n):
+                # gains rise along the frontier: the changes before `first` leave the state
+                # short even with the largest later gains (the bound would drop them); with
+                # no change left after this one, only the first that finishes can be a plan
+                after = min(left - 1, size - k - 1)  # changes that may follow this one
+                reach_later = top[k + 1, after]
+                first = _first_gaining(gain[g], n, need - gained - reach_later - 2.0 * slack)
+                for j in range(first, n):
                     paying = spent + cost[g, j]
                     if paying > margin:
                         break  # the frontier gets dearer from here
@@ -346,6 +386,8 @@ def _cheapest(order, size, inside, closing, full, value, gain, cost, within, nee
                             upper, margin = paying, paying + TIE * (1.0 + paying)
                             found_parent, found_layer, found_pick = state_id[i], k, j
                         break
+                    if after == 0:
+                        continue  # short of the need with no change left: never a plan
                     bound = paying + _lower(k + 1, need - getting - slack, left - 1, top,
                                             size, reach, paid, slope, n_segments,
                                             single_gain, single_cost, n_single)
@@ -459,6 +501,146 @@ def _within(cost, count, cap):
 
 
 @njit(cache=True)
+def _relaxed(gain, cost, within, multiplier, limit, least, taken):
+    """The Lagrangian relaxation at `multiplier` >= 0 (the need moved into the objective):
+    per group its least reduced cost min(0, cost - multiplier * gain) (`least`; ties to the
+    larger gain) and that change (`taken`, -1: none); of those, the `limit` most negative
+    stay taken. Returns the bound less multiplier * need: the sum of the taken `least`."""
+    groups = within.shape[0]
+    for g in range(groups):
+        least[g], taken[g] = 0.0, -1
+        for j in range(within[g]):
+            reduced = cost[g, j] - multiplier * gain[g, j]
+            if reduced <= least[g]:
+                least[g], taken[g] = reduced, j
+    bound = 0.0
+    for rank, g in enumerate(np.argsort(least, kind="mergesort")):
+        if rank < limit:
+            bound += least[g]
+        else:
+            taken[g] = -1
+    return bound
+
+
+@njit(cache=True)
+def _completes(taken, changed, cuts):
+    """Whether changing the groups with taken >= 0 completes one of the first `cuts` cuts."""
+    for c in range(cuts):
+        every = True
+        for g in range(taken.shape[0]):
+            if changed[c, g] and taken[g] < 0:
+                every = False
+                break
+        if every:
+            return True
+    return False
+
+
+@njit(cache=True)
+def _reaching(gain, cost, within, slopes, need, limit, least, taken):
+    """The relaxation's choice at the least hull slope at which it reaches the need (by
+    bisection; at a slope the group there takes the far end of its segment: rounded up),
+    in `taken`; returns whether there is one, and the best bound seen and its multiplier."""
+    low, high = 0, slopes.shape[0] - 1
+    best_bound, best_multiplier, reached = 0.0, 0.0, False
+    probe = high  # the top first: does it reach at all?
+    while low <= high:
+        bound = need * slopes[probe] + _relaxed(gain, cost, within, slopes[probe], limit,
+                                                least, taken)
+        if bound > best_bound:
+            best_bound, best_multiplier = bound, slopes[probe]
+        getting = 0.0
+        for g in range(within.shape[0]):
+            if taken[g] >= 0:
+                getting += gain[g, taken[g]]
+        if getting >= need:
+            reached, high = True, probe
+        elif not reached:
+            break
+        else:
+            low = probe + 1
+        if low >= high:
+            if reached and probe != high:
+                _relaxed(gain, cost, within, slopes[high], limit, least, taken)
+            break
+        probe = (low + high) // 2
+    return reached, best_bound, best_multiplier
+
+
+@njit(cache=True)
+def _in_hand(gain, cost, within, changed, cuts, need, limit, hand):
+    """A plan found cheaply, to bound the search from its start (`hand`: frontier positions,
+    -1 stays; returns its cost, inf when none is found): the cheapest of the best single
+    change and the relaxation's rounded choice (`_reaching`); when that completes a cut,
+    the same with each of its groups held in turn (as recourse.program._known_choice).
+    Also returns the multiplier of the best bound seen."""
+    groups = within.shape[0]
+    slopes = np.sort(_hulls(np.arange(groups), groups, gain, cost, within)[0])
+    least, taken = np.empty(groups), np.full(groups, -1, np.int64)
+    known = np.inf
+    hand[:] = -1
+    for g in range(groups if limit >= 1 else 0):
+        j = _first_gaining(gain[g], within[g], need)
+        if j < within[g] and cost[g, j] < known:
+            taken[:] = -1
+            taken[g] = j
+            if not _completes(taken, changed, cuts):
+                known = cost[g, j]
+                hand[:] = taken
+    if slopes.shape[0] == 0:
+        return known, 0.0
+    reached, _, multiplier = _reaching(gain, cost, within, slopes, need, limit, least, taken)
+    first = taken.copy()
+    for held in range(-1, groups):
+        if held >= 0:
+            if first[held] < 0 or not _completes(first, changed, cuts):
+                continue
+            kept, within[held] = within[held], 0
+            reached = _reaching(gain, cost, within, slopes, need, limit, least, taken)[0]
+            within[held] = kept
+        paying = 0.0
+        for g in range(groups):
+            if taken[g] >= 0:
+                paying += cost[g, taken[g]]
+        if reached and paying < known and not _completes(taken, changed, cuts):
+            known = paying
+            hand[:] = taken
+    return known, multiplier
+
+
+@njit(cache=True)
+def _fixed(gain, cost, within, need, limit, known, hand, multiplier):
+    """The frontiers less the changes that cannot be in a plan as cheap as the one in hand
+    (reduced-cost fixing, as recourse.program._fixed_by_bound): a plan that makes change j
+    of group g costs at least multiplier * need + its reduced cost + the `limit` - 1 most
+    negative least reduced costs of the other groups (weak duality; cuts and a cap only
+    shrink the plans, so it holds under them). Kept: those within the margin for ties, and
+    the plan in hand. Returns the kept changes' gains, costs, frontier positions, counts."""
+    groups, width = gain.shape
+    least, taken = np.empty(groups), np.empty(groups, np.int64)
+    _relaxed(gain, cost, within, multiplier, groups, least, taken)
+    order = np.argsort(least, kind="mergesort")
+    sums = np.zeros(groups + 1)
+    rank = np.empty(groups, np.int64)
+    for i in range(groups):
+        sums[i + 1] = sums[i] + least[order[i]]
+        rank[order[i]] = i
+    most = min(limit, groups)
+    out_gain, out_cost = np.zeros((groups, width)), np.zeros((groups, width))
+    out_at, out_count = np.zeros((groups, width), np.int64), np.zeros(groups, np.int64)
+    for g in range(groups):
+        others = sums[most] - least[g] if rank[g] < most - 1 else sums[max(most - 1, 0)]
+        for j in range(within[g]):
+            bound = multiplier * need + others + cost[g, j] - multiplier * gain[g, j]
+            scale = 1.0 + known + multiplier * (need + gain[g, j]) - others  # of the terms
+            if bound <= known + TIE * scale or j == hand[g]:
+                n = out_count[g]
+                out_gain[g, n], out_cost[g, n], out_at[g, n] = gain[g, j], cost[g, j], j
+                out_count[g] += 1
+    return out_gain, out_cost, out_at, out_count
+
+
+@njit(cache=True)
 def _plan(gain, cost, count, changed, cuts, need, limit, objective, picks):
     """One plan under the first `cuts` cuts: the objective's optimum, then the least total
     cost among the plans that keep it (exactly: a cap on each cost, or a limit on changes).
@@ -509,10 +691,26 @@ def _plan(gain, cost, count, changed, cuts, need, limit, objective, picks):
         if objective == FEWEST_CHANGES:
             limit = fewest
     within = _within(cost, count, cap)
+    hand = np.empty(within.shape[0], np.int64)
+    known, multiplier = _in_hand(gain, cost, within, changed, cuts, need, limit, hand)
+    if known < np.inf:
+        kept_gain, kept_cost, at, kept = _fixed(gain, cost, within, need, limit, known, hand,
+                                                multiplier)
+        if _search(kept_gain, kept_cost, kept, changed, cuts, need, limit, known, picks):
+            for g in range(picks.shape[0]):
+                if picks[g] >= 0:
+                    picks[g] = at[g, picks[g]]
+            return True
+        # only if the search, summing in its own order, reads the plan in hand as short
+    return _search(gain, cost, within, changed, cuts, need, limit, np.inf, picks)
+
+
+@njit(cache=True)
+def _search(gain, cost, within, changed, cuts, need, limit, known, picks):
+    """`_cheapest` over the frontiers' first `within` changes: whether there is a plan."""
     order, size, inside, closing, full, value = _layout(gain, within, changed, cuts)
-    paid = _cheapest(order, size, inside, closing, full, value, gain, cost, within, need,
-                     limit, picks)
-    return paid < np.inf
+    return _cheapest(order, size, inside, closing, full, value, gain, cost, within, need,
+                     limit, known, picks) < np.inf
 
 
 @njit(cache=True)

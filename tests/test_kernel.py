@@ -18,7 +18,7 @@ import pytest
 
 from recourse.kernel import solve_rows
 from recourse.program import OBJECTIVES, Program, _denoised, _need, _tables, solve
-from tests.test_program import brute_force, integer_program
+from tests.test_program import brute_force, integer_program, long_program
 
 CODES = {name: code for code, name in enumerate(OBJECTIVES)}  # 0 total, 1 largest, 2 fewest
 
@@ -226,3 +226,22 @@ def test_no_plan_staying_put_and_limits_by_hand():
         solve_rows(gains, costs, sizes, need, limit, 0, 65)
     with pytest.raises(ValueError, match="negative"):
         solve_rows(gains, -costs, sizes, need, limit, 0, 1)
+
+
+# ---------------------------------------------------------------- long frontiers
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+def test_long_frontiers_match_highs(objective):
+    # constructed (tests/test_program.py's long_program: every change on the frontier), few
+    # groups of hundreds to a couple of thousand changes, the limit none, 2 or 1, three
+    # plans each: where the search's states multiply (a state meets every change of the
+    # next group), against HiGHS under the same cuts
+    programs = []
+    for seed, (groups, length, limit) in enumerate([(3, 800, None), (2, 1200, 1),
+                                                    (4, 300, 3), (3, 500, 2)]):
+        program = long_program(100 + seed, groups, length, objective, limit)
+        if limit is not None and limit < groups:  # in reach of the limit's largest gains
+            most = sorted(-min(c) for c in program.contributions)[-limit:]
+            program = replace(program, threshold=program.base - 0.6 * sum(most))
+        programs.append(program)
+    assert check_chains(programs, 3, by_highs) >= 8
