@@ -18,6 +18,10 @@ The caller's side of the contract (recourse.program's conventions):
 - `need[r]` is the gain a plan must reach (>=), BUFFER included. With need <= 0 staying put
   is the one plan (found 1, every group -1): every later plan would change the empty set.
 - `limit[r]` the most changes (the number of groups when unlimited).
+
+Kept as one module, longer than the house's ~600 lines, on purpose: numba's cache
+(cache=True) checks the file of the function it compiled, not the files of compiled
+helpers it calls, so a helper moved elsewhere could be edited without the cache noticing.
 """
 
 from __future__ import annotations

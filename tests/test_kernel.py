@@ -15,10 +15,11 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
 
 from recourse.kernel import solve_rows
 from recourse.program import OBJECTIVES, Program, _denoised, _need, _tables, solve
-from tests.test_program import brute_force, integer_program, long_program
+from tests.test_program import brute_force, integer_program, long_program, programs
 
 CODES = {name: code for code, name in enumerate(OBJECTIVES)}  # 0 total, 1 largest, 2 fewest
 
@@ -245,3 +246,13 @@ def test_long_frontiers_match_highs(objective):
             program = replace(program, threshold=program.base - 0.6 * sum(most))
         programs.append(program)
     assert check_chains(programs, 3, by_highs) >= 8
+
+
+# Hypothesis-generated programs (tests/test_program.py's strategy: ties, zero costs, values
+# that dominate one another, limits, met and unreachable goals, both directions, every
+# objective), their chains of three plans against exact enumeration, shrunk on failure.
+@settings(max_examples=300, deadline=None,
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
+@given(program=programs(min_groups=1, max_groups=5))
+def test_generated_programs_match_enumeration(program):
+    check_chains([replace(program, forbidden=())], 3, brute_force)
