@@ -335,10 +335,10 @@ def recourse_setup(sets: dict[str, tuple]) -> tuple:
 
 
 def recourse_rows(sets: dict[str, tuple]) -> list[str]:
-    """Planning for 1,000 declined rows of the 19-term model, against a plain baseline."""
+    """One row at a time: 1,000 declined rows of the 19-term model, each program solved on
+    its own, against a plain baseline."""
     import math
 
-    from recourse.batch import plan_many
     from recourse.candidates import row_candidates
     from recourse.planner import plan_encoded, row_program
     from recourse.program import DEFAULT_SOLVER, solve
@@ -374,57 +374,31 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
     gap = float(np.nanmax(np.abs(ours - base))) if np.isfinite(ours).any() else 0.0
     solve_ratio = np.mean(base_times) / np.mean(ours_times)
 
-    # The whole planner from the raw row, against the same work done the plain way (the raw
-    # row's candidates, then the baseline program), in the same blocks.
-    whole_ours, whole_base, single = [], [], []
-    for block in blocks[:4]:
+    single = []
+    for index in range(40):  # one raw row at a time, as `recourse plan --row` does
         start = time.perf_counter()
-        plan_many(model, rows.iloc[list(block)], rules, n_plans=1)
-        whole_ours += [(time.perf_counter() - start) / len(block)] * len(block)
-        for index in block[:10]:  # one raw row at a time, as `recourse plan --row` does
-            start = time.perf_counter()
-            plan_encoded(model, model.encode(rows.iloc[[index]]), rules, n_plans=1)
-            single.append(time.perf_counter() - start)
-        for index in block:
-            start = time.perf_counter()
-            candidates = row_candidates(model, rows.iloc[index], rules)
-            baseline_solve(replace(programs[index], contributions=tuple(
-                tuple(c.contribution for c in candidates[n]) for n in programs[index].names)))
-            whole_base.append(time.perf_counter() - start)
-    whole_ratio = np.mean(whole_base) / np.mean(whole_ours)
+        plan_encoded(model, model.encode(rows.iloc[[index]]), rules, n_plans=1)
+        single.append(time.perf_counter() - start)
     typing = [timed(lambda i=i: model.encode(rows.iloc[[i]])) for i in range(40)]
     with_highs, with_cbc = [], []
-    for block in blocks[:2]:  # the same program, our two solvers
+    for block in blocks[:2]:  # the same program, the integer program's two solvers
         with_highs += [timed(lambda i=i: solve(programs[i], "highs")) for i in block]
         with_cbc += [timed(lambda i=i: solve(programs[i], "cbc")) for i in block]
-
-    # --jobs 1 against --jobs 2 on all rows, halves alternated so drift hits both alike
-    jobs_time = {1: 0.0, 2: 0.0}
-    halves = (rows.iloc[:500], rows.iloc[500:])
-    for half in halves:
-        for jobs in (1, 2):
-            start = time.perf_counter()
-            plan_many(model, half, rules, n_plans=1, jobs=jobs)
-            jobs_time[jobs] += time.perf_counter() - start
-    start = time.perf_counter()
-    plan_many(model, rows.iloc[:200], rules, n_plans=3)
-    three = (time.perf_counter() - start) / 200
     median_ours, median_base = np.median(ours_times), np.median(base_times)
     return [
-        "## Recourse: planning for declined rows",
+        "## Recourse: one row at a time",
         "",
         f"{len(programs)} declined rows of the spline model on loans_big ({len(model.features)} "
         f"features with a term, {len(rules.rules)} changeable either way on a grid of about 64 "
         f"steps, {np.mean(sizes):.0f} candidates per feature on average, at most 5 changes, "
-        "cost in training percentiles). Target: at least 5 times the baseline's throughput "
-        "with identical optimal costs, and `--jobs 2` close to twice `--jobs 1`.",
+        "cost in training percentiles), each row's program solved on its own, as "
+        "`recourse plan --row` does (many rows go through the batch path: next section).",
         "",
         "**The program**, in alternating blocks of 50 rows (ours on a block, then the "
-        f"baseline on it): ours (`{DEFAULT_SOLVER}`, the default: "
-        "dominated candidates dropped, a Lagrangian bound drops the changes that cannot beat a "
-        "known plan, then an exact search: combinations listed when the program is small, "
-        "else HiGHS in-process through pulp) against a baseline that builds the whole "
-        "program afresh in pulp and solves it with the CBC command line.",
+        f"baseline on it): ours (`{DEFAULT_SOLVER}`, the default: dominated candidates "
+        "dropped, a Lagrangian bound drops the changes that cannot beat a known plan, then "
+        "the dynamic program, in Python for one row) against a baseline that builds the "
+        "whole program afresh in pulp and solves it with the CBC command line.",
         "",
         "| | median per row (ms) | rows per second | ratio |",
         "|---|---:|---:|---:|",
@@ -437,36 +411,14 @@ def recourse_rows(sets: dict[str, tuple]) -> list[str]:
         f"{gap:.1e}; rows without a plan: {int(np.isnan(ours).sum())} ours, "
         f"{int(np.isnan(base).sum())} baseline).",
         "",
-        f"Our program with `--solver cbc` instead (100 rows, alternating blocks): median "
-        f"{np.median(with_cbc) * 1e3:.1f} ms against {np.median(with_highs) * 1e3:.1f} ms with "
-        f"HiGHS ({np.mean(with_cbc) / np.mean(with_highs):.1f}× slower).",
-        "",
-        "**The whole planner** from raw rows (typing, candidates, program, solve, re-scoring "
-        "through the model): `plan_many` on each block of 50 raw rows (typed once per "
-        "block), 200 rows in the same blocks against the same work done the plain way (each "
-        "raw row's candidates, then the baseline program):",
-        "",
-        "| | mean per row (ms) | rows per second | ratio |",
-        "|---|---:|---:|---:|",
-        f"| ours | {np.mean(whole_ours) * 1e3:.1f} | {1 / np.mean(whole_ours):.0f} | "
-        f"{whole_ratio:.1f}× baseline throughput |",
-        f"| plain way | {np.mean(whole_base) * 1e3:.1f} | {1 / np.mean(whole_base):.0f} | 1 |",
+        f"The same program as an integer program (`--solver highs` and `--solver cbc`, 100 "
+        f"rows, alternating blocks): median {np.median(with_highs) * 1e3:.1f} ms with HiGHS, "
+        f"{np.median(with_cbc) * 1e3:.1f} ms with CBC "
+        f"({np.mean(with_cbc) / np.mean(with_highs):.1f}× HiGHS).",
         "",
         f"One raw row alone (as `recourse plan --row` does; 40 rows): median "
         f"{np.median(single) * 1e3:.1f} ms, of which typing the one-row frame is about "
         f"{np.median(typing) * 1e3:.1f} ms.",
-        "",
-        "**Batch** (`recourse plan --declined`, one plan per row, all 1,000 rows, process "
-        "start-up included):",
-        "",
-        "| | seconds | rows per second | ratio |",
-        "|---|---:|---:|---:|",
-        f"| `--jobs 1` | {jobs_time[1]:.1f} | {len(rows) / jobs_time[1]:.0f} | 1 |",
-        f"| `--jobs 2` | {jobs_time[2]:.1f} | {len(rows) / jobs_time[2]:.0f} | "
-        f"{jobs_time[1] / jobs_time[2]:.2f}× jobs 1 |",
-        "",
-        f"Three distinct plans per row (the default) take {three * 1e3:.0f} ms per row on one "
-        "job (first 200 rows): a later plan may not hold every change of an earlier one.",
     ]
 
 
