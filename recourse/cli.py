@@ -148,7 +148,7 @@ def audit_command(
     ] = None,
     resume: Annotated[bool, typer.Option(
         help="With --plans-out: plan only the partitions not yet written.")] = False,
-    partition_rows: Annotated[int, typer.Option(help="Rows per partition.", min=1)] = 2000,
+    partition_rows: Annotated[int, typer.Option(help="Rows per partition.", min=1)] = 10_000,
     solver: Annotated[Solver, typer.Option(help=SOLVER_HELP)] = SOLVER_CHOICE,
     format: Annotated[AuditFormat, typer.Option(
         "--format", help="table (terminal), json or markdown.")] = AuditFormat.table,

@@ -216,7 +216,7 @@ def _row_list(positions: np.ndarray, shown: int = 10) -> str:
 def plan_at_scale(model: AdditiveModel, mutability: Mutability, data: Path, *,
                   engine: str = "local", jobs: int = 1, scheduler: str | None = None,
                   out: Path | None = None, resume: bool = False, keep: Sequence[str] = (),
-                  n_plans: int = 1, solver: str = DEFAULT_SOLVER, partition_rows: int = 2000,
+                  n_plans: int = 1, solver: str = DEFAULT_SOLVER, partition_rows: int = 10_000,
                   progress: Callable[[int, int | None], None] | bool | None = None,
                   say: Callable[[str], None] | None = None) -> ScaleRun:
     """Plan for every declined row of the file `data` (CSV or Parquet), partition by
