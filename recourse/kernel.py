@@ -179,13 +179,20 @@ def _top(order, size, value):
 
 
 @njit(cache=True)
+def _changes_in(order, size, within):
+    """How many frontier changes the first `size` groups of `order` hold."""
+    total = 0
+    for k in range(size):
+        total += within[order[k]]
+    return total
+
+
+@njit(cache=True)
 def _hulls(order, size, gain, cost, within):
     """Each group's lower convex hull of (gain, cost) from staying put over its first
     `within` frontier changes, as segments: their slopes, lengths (in gain) and the
     position k of their group (group order[k])."""
-    total = 0
-    for k in range(size):
-        total += within[order[k]]
+    total = _changes_in(order, size, within)
     seg_slope = np.empty(total)
     seg_length = np.empty(total)
     seg_at = np.empty(total, np.int64)
@@ -226,9 +233,7 @@ def _suffixes(order, size, gain, cost, within):
     groups by gain (`single_gain[k]`) and the least cost of one gaining as much or more."""
     seg_slope, seg_length, seg_at = _hulls(order, size, gain, cost, within)
     segments = seg_slope.shape[0]
-    total = 0
-    for k in range(size):
-        total += within[order[k]]
+    total = _changes_in(order, size, within)
     one_gain = np.empty(total)
     one_cost = np.empty(total)
     one_at = np.empty(total, np.int64)
@@ -281,37 +286,31 @@ def _lower(k, rest, left, top, size, reach, paid, slope, n_segments, single_gain
     if reach[k, n] < rest:  # rounding only (the top gains reach): the whole hull's cost
         bound = paid[k, n]
     else:
-        low, high = 1, n
-        while low < high:
-            middle = (low + high) // 2
-            if reach[k, middle] >= rest:
-                high = middle
-            else:
-                low = middle + 1
+        low = _first_reaching(reach[k], 1, n, rest)
         bound = paid[k, low - 1] + slope[k, low - 1] * (rest - reach[k, low - 1])
     if left == 1:
-        low, high = 0, n_single[k]
-        while low < high:
-            middle = (low + high) // 2
-            if single_gain[k, middle] >= rest:
-                high = middle
-            else:
-                low = middle + 1
+        low = _first_reaching(single_gain[k], 0, n_single[k], rest)
         bound = max(bound, single_cost[k, low] if low < n_single[k] else np.inf)
     return bound
 
 
 @njit(cache=True)
-def _first_gaining(gain, n, least):
-    """The first of the n rising gains that is >= `least` (n when none is)."""
-    low, high = 0, n
+def _first_reaching(values, low, high, rest):
+    """The first position in low..high of the ascending `values` at or past `rest` (high
+    when none is), by bisection."""
     while low < high:
         middle = (low + high) // 2
-        if gain[middle] >= least:
+        if values[middle] >= rest:
             high = middle
         else:
             low = middle + 1
     return low
+
+
+@njit(cache=True)
+def _first_gaining(gain, n, least):
+    """The first of the n rising gains that is >= `least` (n when none is)."""
+    return _first_reaching(gain, 0, n, least)
 
 
 @njit(cache=True)
