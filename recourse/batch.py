@@ -79,9 +79,9 @@ def plan_many(model: AdditiveModel, frame: pd.DataFrame | None, mutability: Muta
         raise PlanningError(f"--jobs must be a whole number from 1 to {MOST_JOBS}, "
                             f"not {jobs!r}")
     positions, encoded, parts, ids = typed_declined(model, frame, mutability, source)
-    if chunk is None:  # with several jobs, at least four tasks each where rows allow
-        chunk = min(BLOCK, max(64, -(-len(positions) // (4 * jobs)))) if solver == "exact" \
-            else 20
+    if chunk is None:  # a batch; with several jobs, at least four tasks each where rows allow
+        chunk = 20 if solver != "exact" else BLOCK if jobs == 1 else min(
+            BLOCK, max(64, -(-len(positions) // (4 * jobs))))
     spans = [slice(start, min(start + chunk, len(positions)))
              for start in range(0, len(positions), chunk)]
     report = progress_bar(len(positions)) if progress is True else (progress or None)
