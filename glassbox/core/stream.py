@@ -250,8 +250,13 @@ def dask_frame(source: Source, partition_rows: int) -> Any:
     """The file as a dask dataframe of about `partition_rows` rows per partition."""
     import dask.dataframe as dd
 
-    if source.parquet:
-        return dd.read_parquet(source.path, columns=list(source.columns), split_row_groups=True)
+    if source.parquet:  # row groups first; a file with fewer than it needs is split evenly
+        import pyarrow.parquet as pq
+
+        frame = dd.read_parquet(source.path, columns=list(source.columns),
+                                split_row_groups=True)
+        wanted = -(-pq.ParquetFile(source.path).metadata.num_rows // partition_rows)
+        return frame.repartition(npartitions=wanted) if frame.npartitions < wanted else frame
     blocksize = max(int(math.ceil(source.bytes_per_row * partition_rows)), 1024)
     return dd.read_csv(source.path, blocksize=blocksize, assume_missing=True,
                        **source.csv_options())
