@@ -30,6 +30,7 @@ import pandas as pd
 
 from glassbox.core.errors import DataError, OptionError
 from glassbox.core.files import output_folder, write_atomic
+from glassbox.core.workers import sigint_held
 from recourse.mutability import Mutability
 
 MANIFEST = "manifest.json"
@@ -270,16 +271,18 @@ class PartsFolder:
 
     def write(self, index: int, table: pd.DataFrame, first_row: int, rows: int) -> None:
         """Save a finished partition, then list it in the manifest (a part written but not
-        yet listed is planned again on resume)."""
+        yet listed is planned again on resume). A Ctrl-C meanwhile waits until the part is
+        listed, so a part on disk when the run stops is a part the manifest lists."""
         path = self.folder / part_name(index)
-        if path.exists() and not path.is_file():  # move it aside, never delete it
-            aside = output_folder(self.folder / REJECTED, "rejected parts")
-            os.replace(path, _free_name(aside / path.name))
         content = _part_bytes(table, index, self.run)
-        write_atomic(path, content)
-        self.records[index] = PartRecord(index, first_row, rows, len(table),
-                                         "sha256:" + hashlib.sha256(content).hexdigest())
-        self._save()
+        with sigint_held():
+            if path.exists() and not path.is_file():  # move it aside, never delete it
+                aside = output_folder(self.folder / REJECTED, "rejected parts")
+                os.replace(path, _free_name(aside / path.name))
+            write_atomic(path, content)
+            self.records[index] = PartRecord(index, first_row, rows, len(table),
+                                             "sha256:" + hashlib.sha256(content).hexdigest())
+            self._save()
 
     def read(self, index: int) -> pd.DataFrame:
         """A part's rows, checked again as they are read for the audit."""
