@@ -30,7 +30,7 @@ import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, LevelsTerm
 from recourse.batch_tables import BatchTables, batch_tables, stated
-from recourse.candidates import FeatureCandidates, is_missing
+from recourse.candidates import FeatureCandidates
 from recourse.mutability import Mutability
 from recourse.planner import Change, Plan, PlanResult, _plans, plan_encoded, total_scores
 from recourse.program import BUFFER, NOISE, Solution
@@ -160,8 +160,7 @@ def _states_value(tables: BatchTables, encoded: pd.DataFrame, choice: np.ndarray
     """Rows whose plans state a value the row lacks (the per-row planner settles those)."""
     out = np.zeros(len(found), bool)
     for g, name in enumerate(tables.names):
-        column = encoded[name].to_numpy()
-        blank = np.fromiter((is_missing(v) for v in column), bool, len(column))
+        blank = encoded[name].isna().to_numpy()
         if blank.any():
             out |= blank & (choice[:, :, g] >= 0).any(axis=1)
     return out

@@ -36,6 +36,7 @@ from recourse.candidates import (
     FARTHEST_STEPS,
     LISTED_STEPS,
     NEED_SLACK,
+    _interval,
     feature_candidates,
     plannable_unit,
 )
@@ -74,6 +75,16 @@ class _Cells:
     def empty(cls, rows: int, width: int = 0) -> _Cells:
         return cls(np.full((rows, width), np.nan), np.zeros((rows, width)),
                    np.full((rows, width), np.inf), np.zeros((rows, width), bool))
+
+    def widened(self, width: int) -> _Cells:
+        """These cells, or a copy at least `width` wide (the new columns empty)."""
+        if width <= self.values.shape[1]:
+            return self
+        out = _Cells.empty(len(self.valid), width)
+        for name in ("values", "contributions", "costs", "valid"):
+            old = getattr(self, name)
+            getattr(out, name)[:, :old.shape[1]] = old
+        return out
 
 
 def batch_tables(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutability,
@@ -125,12 +136,7 @@ def _put(cells: _Cells, row: int, term, values: np.ndarray, contributions: np.nd
     if isinstance(term, LevelsTerm):
         values = pd.Index(term.levels).get_indexer(np.asarray(values, dtype=object))
     n = len(values)
-    if n > cells.values.shape[1]:
-        grow = _Cells.empty(len(cells.valid), n - cells.values.shape[1])
-        cells = _Cells(*(np.concatenate([a, b], axis=1) for a, b in
-                         zip((cells.values, cells.contributions, cells.costs, cells.valid),
-                             (grow.values, grow.contributions, grow.costs, grow.valid),
-                             strict=True)))
+    cells = cells.widened(n)
     cells.values[row], cells.contributions[row] = np.nan, 0.0
     cells.costs[row], cells.valid[row] = np.inf, False
     cells.values[row, :n], cells.contributions[row, :n] = values, contributions
@@ -215,13 +221,8 @@ def _feature_cells(model: AdditiveModel, feature: str, rule: FeatureRule, column
     odd |= ~np.all(np.isfinite(listed.costs) | ~listed.valid, axis=1)
     hard[present[odd]] = True
     keep = present[~odd]
-    if listed.values.shape[1] > cells.values.shape[1]:
-        wider = _Cells.empty(rows, listed.values.shape[1])
-        for name in ("values", "contributions", "costs", "valid"):
-            old = getattr(cells, name)
-            getattr(wider, name)[:, :old.shape[1]] = old
-        cells = wider
     width = listed.values.shape[1]
+    cells = cells.widened(width)
     for name in ("values", "contributions", "costs", "valid"):
         getattr(cells, name)[keep, :width] = getattr(listed, name)[~odd]
     return cells, hard
@@ -257,19 +258,10 @@ def _intervals(now: np.ndarray, rule: FeatureRule, kind: str,
                unit: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """`recourse.candidates._interval` for every row, and the rows to read cell by cell: a
     value outside a declared bound, or too far out to place steps around."""
-    lower = np.full(len(now), -math.inf if rule.lower is None else rule.lower)
-    upper = np.full(len(now), math.inf if rule.upper is None else rule.upper)
-    odd = (now < lower) | (now > upper) | ~(np.abs(now) <= FARTHEST_STEPS * unit)
-    if rule.largest_change is not None:
-        lower = np.maximum(lower, rounded(now - rule.largest_change))
-        upper = np.minimum(upper, rounded(now + rule.largest_change))
-    if kind == "flag":
-        lower, upper = np.maximum(lower, 0.0), np.minimum(upper, 1.0)
-    if rule.change == "increase":
-        lower = np.maximum(lower, now)
-    elif rule.change == "decrease":
-        upper = np.minimum(upper, now)
-    return lower, upper, odd
+    outside = (now < (-math.inf if rule.lower is None else rule.lower)) | (
+        now > (math.inf if rule.upper is None else rule.upper))
+    lower, upper = _interval(now, rule, kind)
+    return lower, upper, outside | ~(np.abs(now) <= FARTHEST_STEPS * unit)
 
 
 def _knot_cells(term: CurveTerm, now: np.ndarray, lower: np.ndarray,
@@ -308,8 +300,8 @@ def _grid_cells(term: CurveTerm, now: np.ndarray, lower: np.ndarray, upper: np.n
     for side, bound in ((-1, lower), (1, upper)):
         open_ = side * (bound - now) > 0
         outer = np.full(len(now), knots[-1] if side > 0 else knots[0])
-        past_knot = _first_past_rows(now, step, side, outer, True)
-        past_bound = _first_past_rows(now, step, side, bound, False)
+        past_knot = _first_past(now, step, side, outer, True)
+        past_bound = _first_past(now, step, side, bound, False)
         last = np.maximum(past_knot, 1)
         last = np.where(past_bound <= LARGEST_STEP_COUNT, np.minimum(last, past_bound - 1), last)
         long |= open_ & ((last > LARGEST_STEP_COUNT) | (last - 1 >= LISTED_STEPS))
@@ -341,30 +333,6 @@ def _grid_cells(term: CurveTerm, now: np.ndarray, lower: np.ndarray, upper: np.n
     if repeated.any():
         cells = _compact(cells, cells.valid & ~repeated)
     return _with_contributions(term, cells), long
-
-
-def _first_past_rows(now: np.ndarray, step: float, side: int, targets: np.ndarray,
-                     inclusive: bool) -> np.ndarray:
-    """`recourse.grid._first_past` with one target per row: the least k >= 1 whose
-    grid point lies past the row's target on `side` (or on it, when `inclusive`);
-    LARGEST_STEP_COUNT + 1 when none does. Rows the seven-step bracket cannot settle are
-    handed to the per-row function."""
-    if not len(now):
-        return np.zeros(0, np.int64)
-    with np.errstate(invalid="ignore", over="ignore"):
-        quotient = side * (targets - now) / step
-    far = ~(quotient < LARGEST_STEP_COUNT)
-    low = np.maximum(np.floor(np.where(far, 0.0, quotient)).astype(np.int64) - 3, 0)
-    tried = low[:, None] + np.arange(7)
-    gap = side * (rounded(now[:, None] + side * tried.astype(float) * step) - targets[:, None])
-    ok = gap >= 0 if inclusive else gap > 0
-    found = tried[np.arange(len(low)), ok.argmax(axis=1)]
-    settled = (low == 0) | ~ok[:, 0]
-    found = np.where(far, LARGEST_STEP_COUNT + 1, found)
-    for row in np.flatnonzero(~far & ~(settled & ok[:, -1])):
-        found[row] = _first_past(float(now[row]), step, side, np.array([targets[row]]),
-                                 inclusive)[0]
-    return np.maximum(found, 1)
 
 
 def _row_costs(model: AdditiveModel, feature: str, now: np.ndarray, cells: _Cells,

@@ -251,8 +251,9 @@ def _level_values(term: LevelsTerm, current: str, rule: FeatureRule) -> list[str
 # ---------------------------------------------------------------- numbers
 
 
-def _interval(now: float, rule: FeatureRule, kind: str) -> tuple[float, float]:
-    """Bounds, largest change and direction as one closed interval of proposed values.
+def _interval(now: float | np.ndarray, rule: FeatureRule, kind: str) -> tuple[Any, Any]:
+    """Bounds, largest change and direction as one closed interval of proposed values (for
+    one value, or with arrays for a batch of rows: `recourse.batch_tables`).
 
     The bounds limit what a plan proposes, not the row: a current value outside them stays
     allowed (staying put), and the interval then lies wholly on one side of it (empty, lower
@@ -260,15 +261,18 @@ def _interval(now: float, rule: FeatureRule, kind: str) -> tuple[float, float]:
     lower = -math.inf if rule.lower is None else rule.lower
     upper = math.inf if rule.upper is None else rule.upper
     if rule.largest_change is not None:  # rounded like the grid, so now + k*step can hit it
-        lower = max(lower, float(rounded(now - rule.largest_change)))
-        upper = min(upper, float(rounded(now + rule.largest_change)))
+        lower = np.maximum(lower, rounded(now - rule.largest_change))
+        upper = np.minimum(upper, rounded(now + rule.largest_change))
     if kind == "flag":
-        lower, upper = max(lower, 0.0), min(upper, 1.0)
+        lower, upper = np.maximum(lower, 0.0), np.minimum(upper, 1.0)
     if rule.change == "increase":
-        lower = max(lower, now)
+        lower = np.maximum(lower, now)
     elif rule.change == "decrease":
-        upper = min(upper, now)
-    return lower, upper
+        upper = np.minimum(upper, now)
+    if np.ndim(now) == 0:
+        return float(lower), float(upper)
+    return (np.broadcast_to(lower, np.shape(now)).astype(float),
+            np.broadcast_to(upper, np.shape(now)).astype(float))
 
 
 def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: float,

@@ -31,7 +31,7 @@ def rounded(values: Any) -> np.ndarray:
     return np.where(small, np.round(np.where(small, values, 0.0), DECIMALS), values)
 
 
-def _points(now: float, step: float, side: int, steps: np.ndarray) -> np.ndarray:
+def _points(now: float | np.ndarray, step: float, side: int, steps: np.ndarray) -> np.ndarray:
     """Grid points `steps` whole steps from `now` on one side (+1 up, -1 down), rounded."""
     return rounded(now + side * np.asarray(steps, dtype=float) * step)
 
@@ -40,22 +40,26 @@ def _first_past(now: float, step: float, side: int, targets: np.ndarray,
                 inclusive: bool | np.ndarray) -> np.ndarray:
     """For each target, the least k >= 1 whose grid point lies past it on `side` (or on it,
     where `inclusive`); LARGEST_STEP_COUNT + 1 when none up to LARGEST_STEP_COUNT does.
+    `now` is one value, or one per target (a batch of rows, one target each).
 
     The quotient gives k to within a step or two: the seven steps around it are tried at
     once; where that bracket fails (a huge quotient, say) the whole range is bisected.
     """
     targets = np.atleast_1d(np.asarray(targets, dtype=float))
     inclusive = np.broadcast_to(inclusive, targets.shape)
+    nows = np.broadcast_to(np.asarray(now, dtype=float), targets.shape)
 
     def passes(k: np.ndarray, rows: slice | np.ndarray = slice(None)) -> np.ndarray:
         there = targets[rows].reshape(-1, *([1] * (k.ndim - 1)))
-        gap = side * (_points(now, step, side, k) - there)
+        gap = side * (_points(nows[rows].reshape(there.shape), step, side, k) - there)
         return np.where(inclusive[rows].reshape(there.shape), gap >= 0, gap > 0)
 
     with np.errstate(invalid="ignore", over="ignore"):
-        quotient = side * (targets - now) / step
+        quotient = side * (targets - nows) / step
     far = ~(quotient < LARGEST_STEP_COUNT)  # an infinite bound, say (nan too)
-    low = np.maximum(np.floor(np.where(far, 0.0, quotient)).astype(np.int64) - 3, 0)
+    # a target behind `now` (a quotient below 0, -inf too) is passed from the first step
+    ahead = np.where(far, 0.0, np.maximum(quotient, 0.0))
+    low = np.maximum(np.floor(ahead).astype(np.int64) - 3, 0)
     tried = low[:, None] + np.arange(7)
     ok = passes(tried)
     found = tried[np.arange(len(low)), ok.argmax(axis=1)]
