@@ -553,9 +553,13 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
     out["score"] = score
     out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
     if any(t.missing is not None for t in model.terms):
-        absent = prepared.features[list(model.features)].isna().to_numpy()
-        out["missing"] = ["; ".join(n for n, gone in zip(model.features, row, strict=True)
-                                    if gone) for row in absent]
+        names = list(model.features)
+        absent = prepared.features[names].isna().to_numpy()
+        # each pattern of gaps written once (rows share a handful of them)
+        patterns, at = np.unique(np.packbits(absent, axis=1), axis=0, return_inverse=True)
+        texts = ["; ".join(n for n, gone in zip(names, row, strict=False) if gone)
+                 for row in np.unpackbits(patterns, axis=1).astype(bool)]
+        out["missing"] = [texts[i] for i in at.ravel().tolist()]
     if contributions:
         out["intercept"] = model.intercept
         for name in parts.columns:
