@@ -7,7 +7,7 @@ import functools
 import json
 import sys
 import warnings
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
@@ -130,10 +130,10 @@ def _show_warnings(caught: list[warnings.WarningMessage]) -> None:
         stderr_console().print(warning_text(str(item.message)), soft_wrap=True)
 
 
-def emit(text: str, out: Path | None, what: str) -> None:
-    """Text to a file (atomically) or to standard output."""
+def emit(text: str | Iterable[bytes], out: Path | None, what: str) -> None:
+    """Text (or UTF-8 text in parts) to a file (atomically) or to standard output."""
     if out is None:
-        sys.stdout.write(text)
+        sys.stdout.writelines([text] if isinstance(text, str) else (p.decode() for p in text))
         return
     write_atomic(out, text)
     stderr_console().print(f"wrote {what} to {out}", highlight=False)
@@ -225,16 +225,18 @@ def score_command(
         "--points", metavar="CARD",
         help="Score whole points with this points card (from glassbox points --format json) "
              "instead of a model.")] = None,
-    out: Annotated[Path | None, typer.Option(help="Write the CSV here, not stdout.")] = None,
+    out: Annotated[Path | None, typer.Option(help="Write here (.csv, .parquet or .json "
+                                                  "records), not stdout (CSV).")] = None,
     contributions: Annotated[bool, typer.Option(
         help="Include each feature's contribution.")] = True,
     force: Force = False,
 ) -> None:
     """Score rows: score (link scale), probability or prediction, the features a row has
-    no value for (when the model learned missing values), contributions (CSV); or, with
-    --points, total points and each feature's points."""
+    no value for (when the model learned missing values), contributions; or, with --points,
+    total points and each feature's points. CSV, Parquet or JSON by the --out suffix."""
     model_file, data = _score_inputs(model_file, data, card_file)
-    check_output(out, "csv-scores", [model_file, data, card_file], force=force)
+    written = "csv" if out is None else formats.table_format(out)  # before any work
+    check_output(out, f"{written}-scores", [model_file, data, card_file], force=force)
     if card_file is not None:
         card = points.load(card_file)
         table = points.score_points(card, read_table(data), str(data))
@@ -242,7 +244,7 @@ def score_command(
         model = artifact.load(model_file)
         frame = read_table(data)
         table = score_table(model, frame, str(data), contributions=contributions)
-    emit(formats.to_csv(table, exact=True), out, f"{len(table)} scored rows")
+    emit(formats.table_file(table, written), out, f"{len(table)} scored rows")
 
 
 def _score_inputs(first: Path | None, second: Path | None,

@@ -553,9 +553,22 @@ def score_table(model: AdditiveModel, frame: pd.DataFrame, source: str | None = 
     out["score"] = score
     out["probability" if model.link == "logit" else "prediction"] = model.inverse_link(score)
     if any(t.missing is not None for t in model.terms):
-        absent = prepared.features[list(model.features)].isna().to_numpy()
-        out["missing"] = ["; ".join(n for n, gone in zip(model.features, row, strict=True)
-                                    if gone) for row in absent]
+        names = list(model.features)
+        absent = prepared.features[names].isna().to_numpy()
+        # each pattern of gaps written once (rows share a handful of them): a row's
+        # pattern as 64-bit words, hashed when one word holds it
+        packed = np.packbits(absent, axis=1)
+        words = np.zeros((len(packed), -(-packed.shape[1] // 8) * 8), dtype=np.uint8)
+        words[:, :packed.shape[1]] = packed
+        keys = words.view(np.uint64)
+        if keys.shape[1] == 1:
+            at, patterns = pd.factorize(keys[:, 0])
+            patterns = patterns.reshape(-1, 1)
+        else:
+            patterns, at = np.unique(keys, axis=0, return_inverse=True)
+        texts = ["; ".join(n for n, gone in zip(names, row, strict=False) if gone)
+                 for row in np.unpackbits(patterns.view(np.uint8), axis=1).astype(bool)]
+        out["missing"] = [texts[i] for i in at.ravel().tolist()]
     if contributions:
         out["intercept"] = model.intercept
         for name in parts.columns:

@@ -21,8 +21,9 @@ from typing import Any
 from glassbox.core.errors import GlassboxError, OptionError
 
 
-def write_atomic(path: str | Path, content: str | bytes) -> None:
-    """Write to a temporary file beside `path`, then rename it into place.
+def write_atomic(path: str | Path, content: str | bytes | Iterable[bytes]) -> None:
+    """Write to a temporary file beside `path`, then rename it into place. Text is
+    written as UTF-8; bytes may come in parts (a large table a block at a time).
 
     An interrupted write leaves the old file (or none), never half a file.
     """
@@ -31,12 +32,11 @@ def write_atomic(path: str | Path, content: str | bytes) -> None:
     remove_stale_temporaries(path)
     handle, temporary = _temporary(path, folder)
     try:
-        if isinstance(content, bytes):
-            with os.fdopen(handle, "wb") as out:
-                out.write(content)
-        else:
-            with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
-                out.write(content)
+        if isinstance(content, str):
+            content = content.encode("utf-8")
+        with os.fdopen(handle, "wb") as out:
+            for part in [content] if isinstance(content, bytes) else content:
+                out.write(part)
         os.chmod(temporary, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
         os.replace(temporary, path)
     except BaseException:
@@ -171,6 +171,8 @@ KIND_WORDS = {
     "sql": "an SQL export of a model",
     "pmml": "a PMML file",
     "parquet": "a Parquet file",
+    "parquet-scores": "a Parquet file of scores",
+    "json-scores": "a JSON file of scores",
     "schema": "a schema (TOML)",
     "mutability": "a mutability file (TOML)",
     "toml": "a TOML file",
@@ -213,7 +215,7 @@ def file_kind(path: str | Path) -> str | None:
     if not head:
         return "empty"
     if head.startswith(b"PAR1"):
-        return "parquet"
+        return _parquet_kind(path)
     if head.startswith(b"\x89PNG\r\n\x1a\n"):
         return "png"
     text = _text(head)
@@ -248,8 +250,38 @@ def _csv_kind(text: str) -> str:
     import csv
 
     header = next(csv.reader([text.split("\n", 1)[0].rstrip("\r")]), [])
-    columns = {name.strip() for name in header}
+    return _columns_kind(name.strip() for name in header)
+
+
+def _columns_kind(names: Iterable[str]) -> str:
+    """Which of our tables columns of these names are (a kind "csv-..."), "csv" for data."""
+    columns = set(names)
     return next((kind for kind, needed in CSV_HEADERS if needed <= columns), "csv")
+
+
+def _parquet_kind(path: Path) -> str:
+    """Scores written as Parquet ("parquet-scores", by their columns), or any Parquet file."""
+    try:
+        import pyarrow.parquet as pq
+
+        names = pq.read_schema(path).names
+    except (OSError, ValueError, ImportError):  # damaged: still Parquet by its first bytes
+        return "parquet"
+    return "parquet-scores" if _columns_kind(names) == "csv-scores" else "parquet"
+
+
+def _records_kind(head: str) -> str | None:
+    """Scores written as JSON records ("json-scores", by the first record's keys)."""
+    start = head.lstrip()
+    if not start.startswith("["):
+        return None
+    try:
+        first, _ = json.JSONDecoder().raw_decode(start, len(start) - len(start[1:].lstrip()))
+    except ValueError:
+        return None
+    if isinstance(first, dict) and _columns_kind(map(str, first)) == "csv-scores":
+        return "json-scores"
+    return None
 
 
 def _text(head: bytes) -> str | None:
@@ -269,6 +301,8 @@ def _json_kind(path: Path, head: str) -> str | None:
     found = _FORMAT_FIRST.match(head)
     if found:
         return found.group(1)
+    if _records_kind(head):
+        return "json-scores"
     if path.stat().st_size > WHOLE_BYTES:
         return "json" if head.lstrip().startswith("{") else None
     try:

@@ -9,6 +9,7 @@ import pandas as pd
 
 from glassbox.core.columns import set_aside
 from glassbox.core.encoding import (
+    _labels,
     _missing_mask,
     _source,
     choose_positive,
@@ -29,28 +30,56 @@ from glassbox.core.schema import FeatureSpec, Schema, TargetSpec, check_referenc
 
 # ---------------------------------------------------------------- inference
 
+FLAG_WORDS = TRUE_WORDS | FALSE_WORDS
+
 
 def _looks_protected(name: str) -> bool:
     return protected_hint(name) is not None
 
 
 def infer_kind(column: pd.Series) -> str:
-    """The most likely kind of a raw column."""
+    """The most likely kind of a raw column. Each distinct value is looked at once, and a
+    column of numbers is read with array operations: the same answer as reading every
+    value's text."""
     present = column[~_missing_mask(column)]
     if present.empty:
         return "number"
     if pd.api.types.is_bool_dtype(present.dtype):
         return "flag"
-    present = pd.Series(pd.unique(present.to_numpy(dtype=object)), dtype=object)  # distinct
-    words = set(present.map(label_text).str.lower())
-    if len(words) == 2 and words <= (TRUE_WORDS | FALSE_WORDS) and words & TRUE_WORDS:
+    if _real_numbers(present):
+        distinct = pd.unique(present.to_numpy())
+        # distinct numbers have distinct label texts (0.0 and -0.0 are one value here), so
+        # only a column of two numbers can read as two flag words
+        if len(distinct) == 2 and _flag_words(distinct):
+            return "flag"
+        numbers = distinct.astype(float)
+        return "integer" if (numbers == np.round(numbers)).all() else "number"
+    distinct = pd.unique(present.to_numpy(dtype=object))
+    if _flag_words(distinct):
         return "flag"
-    numbers = pd.to_numeric(present, errors="coerce")
+    numbers = pd.to_numeric(pd.Series(distinct, dtype=object), errors="coerce")
     if numbers.notna().all():
         if (numbers == np.round(numbers)).all():
             return "integer"
         return "number"
     return "category"
+
+
+def _real_numbers(present: pd.Series) -> bool:
+    """A column of plain integers or floats (no text, no booleans)."""
+    return isinstance(present.dtype, np.dtype) and present.dtype.kind in "iuf"
+
+
+def _flag_words(distinct: Any) -> bool:
+    """Whether the distinct values read as exactly two yes/no words, one of them true;
+    stops at the first value that is no such word (an id column stops at once)."""
+    words: set[str] = set()
+    for value in distinct:
+        word = label_text(value).lower()
+        if word not in FLAG_WORDS:
+            return False
+        words.add(word)
+    return len(words) == 2 and bool(words & TRUE_WORDS)
 
 
 def infer_schema(
@@ -75,10 +104,12 @@ def infer_schema(
         raise DataError(f"{where}: no target column {value_text(target)} (it has: "
                         f"{columns_text(frame.columns)})")
     column = frame[target]
-    labels = column[~_missing_mask(column)].map(label_text)
+    present = column[~_missing_mask(column)]
+    labels = _label_texts(present)
     distinct = sorted(set(labels))
     if task is None:
-        numeric = pd.to_numeric(column[~_missing_mask(column)], errors="coerce").notna().all()
+        values = pd.Series(pd.unique(present.to_numpy(dtype=object)), dtype=object)
+        numeric = pd.to_numeric(values, errors="coerce").notna().all()
         task = "regression" if (numeric and len(distinct) > 2) else "classification"
     if task == "classification":
         if len(distinct) != 2:
@@ -114,6 +145,18 @@ def infer_schema(
              *column_notes(features, gaps, len(frame)))
     return Schema(TargetSpec(target, task, positive, better.better), tuple(features), id_column,
                   source=str(where), notes=notes)
+
+
+def _label_texts(present: pd.Series) -> pd.Series:
+    """`label_text` of every value, once per distinct value; value by value where a column
+    of Python objects holds booleans beside numbers (True and 1 count as one distinct
+    value but read as "true" and "1")."""
+    if present.dtype == object and any(
+            isinstance(value, bool | np.bool_) or (isinstance(value, int | float | np.number)
+                                                    and value in (0, 1))
+            for value in pd.unique(present.to_numpy())):
+        return present.map(label_text)
+    return _labels(present)
 
 
 def _natural(label: str, column: pd.Series) -> Any:
