@@ -88,16 +88,21 @@ def loans_split(loans):
 
 @pytest.fixture(scope="module")
 def loans_model(loans_split, loans_schema):
-    return fit_model(loans_split[0], loans_schema, "spline")
+    # bins above the demo's distinct values (annual_revenue has 2,926): an exact fit
+    return fit_model(loans_split[0], loans_schema, "spline", bins=4096)
 
 
 def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_model):
     # Reference: pygam's LogisticGAM fitted here with the same terms, each at the penalty the
     # model file records for it, on the scales it records (demo data, invented); fresh rows
     # are compared inside the training range, since tables hold their end values beyond it
-    # while pygam extrapolates.
+    # while pygam extrapolates. pygam runs to a tight tolerance, so its own stopping rule is
+    # not what differs; the monotone terms' soft constraint leaves both fits moving by about
+    # 1e-7 from step to step (the rounding of a system holding a penalty of 1e9), so the
+    # tables agree with pygam at their knots to 1e-6, not to the last digit.
     train, fresh = loans_split
     details = loans_model.metadata["details"]
+    assert details["bins"] == {"exact": True, "features": {}}
     lam = details["penalties"]
     names = list(prepare(train, loans_schema).features.columns)
     codes = {"sector": sorted(train["sector"].unique())}
@@ -126,7 +131,7 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
              + spline(2, "debt_to_revenue") + spline(3, "credit_utilisation")
              + spline(4, "late_payments_24m", 12) + spline(5, "amount_requested")
              + f(6, lam=lam["sector"]) + l(7, penalties=None) + l(8, penalties=None))
-    reference = pygam_fit(LogisticGAM(terms), matrix(train), target)
+    reference = pygam_fit(LogisticGAM(terms, tol=1e-12, max_iter=300), matrix(train), target)
     low, high = train[names[:6]].min(), train[names[:6]].max()
     inside = ((fresh[names[:6]] >= low) & (fresh[names[:6]] <= high)).all(axis=1).to_numpy()
     for frame, rows in ((train, slice(None)), (fresh, inside)):
@@ -143,7 +148,7 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
         grid = np.zeros((len(points), len(names) + 1))  # the last: the blank indicator
         grid[:, index] = points
         offset = np.asarray(term.values) - reference.partial_dependence(index, X=grid)
-        assert np.ptp(offset) <= 1e-3, term.feature
+        assert np.ptp(offset) <= 1e-6, term.feature
 
 
 def wage_gam(matrix: np.ndarray, target: np.ndarray, lams: dict[str, float]):
@@ -362,7 +367,7 @@ def test_penalty_recorded_and_fits_are_deterministic(wage, wage_schema):
     assert first.metadata["parameters"] == {
         "splines": 20, "penalties": [0.01, 0.1, 1.0, 10.0, 100.0, 1000.0, 10000.0],
         "criterion": "risk", "max_iter": 100, "knots": 400, "spline_scale": "power",
-        "penalty_scope": "term"}
+        "penalty_scope": "term", "bins": 1024}
     assert artifact.loads(artifact.dumps(first)).metadata["details"] == details
     # one penalty in the grid leaves nothing to search: every term gets it, after one fit
     fixed = fit_model(wage, wage_schema, "spline", penalties=[10.0]).metadata["details"]
