@@ -245,10 +245,14 @@ def test_per_term_search_on_a_small_grid_against_every_combination(wage, wage_sc
 
 
 def test_mroz_classification_criterion_matches_pygam(mroz):
-    # Reference: pygam's LogisticGAM at every penalty of the grid (Wooldridge's mroz data),
-    # on the scales the model file records, and at the penalties it records per term.
-    # pygam 0.12's UBRE carries a constant +2 (its source subtracts `~add_scale * scale`,
-    # and ~True is -2 in Python), so the criterion is compared without that constant.
+    # Reference: pygam on Wooldridge's mroz data, on the scales the model file records.
+    # The penalties are chosen inside the IRLS iterations, on the working model of the final
+    # fit: pygam's LogisticGAM at the recorded penalties gives that fit (its UBRE, less
+    # pygam's constant +2 -- its source subtracts `~add_scale * scale`, and ~True is -2 in
+    # Python -- is the model's criterion); its working response z = logit(mu) + (y - mu) / W
+    # and weights W = mu (1 - mu), fitted by pygam's LinearGAM with those weights at each
+    # grid penalty, give the recorded working UBRE (sum W (z - fit)^2 / n + 2 * 1.4 * edof / n,
+    # Wood 2004's criterion for this performance iteration, without its constant) and edof.
     columns = {"nwifeinc": "number", "educ": "integer", "exper": "integer",
                "age": "integer", "kidslt6": "integer"}
     schema = schema_of("inlf", "classification", {c: {"kind": k} for c, k in columns.items()},
@@ -256,6 +260,7 @@ def test_mroz_classification_criterion_matches_pygam(mroz):
     model = fit_model(mroz, schema, "spline")
     details = model.metadata["details"]
     assert details["criterion"] == "UBRE"
+    assert details["bins"] == {"exact": True, "features": {}}  # 753 rows
     assert mroz["nwifeinc"].min() < 0  # a negative income: the power scale shifts it first
     assert details["scales"]["nwifeinc"]["shift"] > -mroz["nwifeinc"].min()
     matrix = scaled_matrix(mroz, list(columns), details)
@@ -263,25 +268,34 @@ def test_mroz_classification_criterion_matches_pygam(mroz):
     sizes = [20, 13, 20, 20, 4]  # educ has 13 values, kidslt6 4
     assert [mroz[c].nunique() for c in ("educ", "kidslt6")] == [13, 4]
 
-    def gam_at(lams, start=None):
+    def terms_at(lams):
         terms = s(0, n_splines=sizes[0], lam=lams[0])
         for i in range(1, 5):
             terms = terms + s(i, n_splines=sizes[i], lam=lams[i])
-        gam = LogisticGAM(terms)
-        if start is not None:  # pygam's own warm start: the optimum is the same, it is only
-            gam.set_params(coef_=start.coef_, force=True)  # reached where a cold start fails
-        return pygam_fit(gam, matrix, target)
+        return terms
 
-    ubre, previous = {}, None
-    for lam in sorted(details["penalty_grid"], reverse=True):
-        previous = gam_at([lam] * 5, previous)
-        ubre[lam] = previous.statistics_["UBRE"] - 2.0
-    ubre = [ubre[lam] for lam in details["penalty_grid"]]
-    np.testing.assert_allclose(details["criterion_values"], ubre, rtol=1e-5)
-    assert details["shared_penalty"] == details["penalty_grid"][int(np.argmin(ubre))]
-    reference = gam_at([details["penalties"][c] for c in columns])
+    reference = pygam_fit(LogisticGAM(terms_at([details["penalties"][c] for c in columns]),
+                                      tol=1e-12, max_iter=300), matrix, target)
     assert reference.statistics_["UBRE"] - 2.0 == pytest.approx(details["criterion_value"],
-                                                                 rel=1e-5)
+                                                                 rel=1e-6)
+    assert reference.statistics_["edof"] == pytest.approx(
+        details["effective_degrees_of_freedom"], rel=1e-5)
+    mu = reference.predict_mu(matrix)
+    weight = mu * (1 - mu)
+    working = logit(mu) + (target - mu) / weight
+    ubre, edof = [], []
+    for lam in details["penalty_grid"]:
+        with threadpool_limits(limits=1, user_api="blas"):
+            fitted = LinearGAM(terms_at([lam] * 5), tol=1e-12).fit(matrix, working,
+                                                                   weights=weight)
+        residual = working - fitted.predict(matrix)
+        edof.append(fitted.statistics_["edof"])
+        ubre.append(np.sum(weight * residual ** 2) / len(target)
+                    + 2 * 1.4 * edof[-1] / len(target))
+    np.testing.assert_allclose(details["criterion_values"], ubre, rtol=1e-5)
+    np.testing.assert_allclose(details["criterion_edof"], edof, rtol=1e-5)
+    assert details["shared_penalty"] == details["penalty_grid"][int(np.argmin(ubre))]
+    assert details["penalties_settled"] and details["converged"]
     expected = logit(reference.predict_mu(matrix))
     assert np.abs(model.score(mroz) - expected).max() <= 1e-3
 
