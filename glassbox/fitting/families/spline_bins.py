@@ -12,8 +12,10 @@ are a bin of their own at the stand-in. Each term's basis is pygam's own
 The penalised IRLS update needs XᵀWX and XᵀWz for the rows × coefficients basis X;
 neither is built from X. A diagonal block is Bⱼᵀ diag(c) Bⱼ with c the weight in
 each bin of term j; the block of terms j < k is Bⱼᵀ Hⱼₖ, where row a of Hⱼₖ is the
-weighted sum of term k's basis rows over the training rows in bin a of term j
-(spline_kernel.cross_sums, one pass over the rows per term). XᵀWz and the scores
+weighted sum of term k's basis rows over the training rows in bin a of term j, i.e.
+Cⱼₖ Bₖ with Cⱼₖ[a, b] the weight of the rows in bin a of j and bin b of k
+(spline_kernel.pair_counts: for each term j one pass over the rows, sorted by their
+bin of j, counting every later term's bins at once). XᵀWz and the scores
 are per-term sums and look-ups (O(rows × terms)).
 """
 
@@ -25,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 from pygam.terms import TermList
 
-from glassbox.fitting.families.spline_kernel import bin_sums, cross_sums, row_scores
+from glassbox.fitting.families.spline_kernel import bin_sums, pair_counts, row_scores
 
 
 @dataclass(frozen=True)
@@ -48,9 +50,7 @@ class Binned:
     positions: tuple[np.ndarray, ...]  # each term's coefficient positions
     width: int  # coefficients in all
     offsets: np.ndarray  # a term's first flat bin
-    starts: np.ndarray  # per flat bin: the first coefficient its basis window covers
-    window: np.ndarray  # per flat bin: the basis values in that window
-    widths: np.ndarray  # per term: the window's width
+    orders: tuple[np.ndarray, ...]  # per term but the intercept: the rows sorted by its bin
 
     @property
     def rows(self) -> int:
@@ -83,9 +83,15 @@ class Binned:
             gram[block] = bins.basis.T @ (weights[cells, None] * bins.basis)
             moment[positions] = bins.basis.T @ totals[cells]
             if term < last:
-                sums = cross_sums(self.index, weight, term, len(bins.points), self.width,
-                                  self.offsets, self.starts, self.window, self.widths)
-                cross[positions] = bins.basis.T @ sums
+                counts = pair_counts(self.index, self.orders[term], weight, term,
+                                     len(bins.points), self.offsets)
+                left = bins.basis.T @ counts
+                first = int(self.offsets[term + 1])
+                for later in range(term + 1, len(self.terms)):
+                    cells = slice(int(self.offsets[later]) - first,
+                                  int(self.offsets[later + 1]) - first)
+                    cross[np.ix_(positions, self.positions[later])] = (
+                        left[:, cells] @ self.terms[later].basis)
         return gram + cross + cross.T, moment
 
 
@@ -162,27 +168,12 @@ def bin_terms(terms: TermList, columns: Sequence[np.ndarray], kinds: Sequence[st
     positions = tuple(np.asarray(terms.get_coef_indices(i)) for i in range(len(every)))
     sizes = [len(bins.points) for bins in every]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-    windows = [basis_window(bins.basis) for bins in every]
-    widths = np.array([window.shape[1] for _, window in windows], dtype=np.int64)
-    window = np.zeros((int(offsets[-1]), int(widths.max())))
-    starts = np.empty(int(offsets[-1]), dtype=np.int64)
-    for j, (start, values) in enumerate(windows):
-        cells = slice(int(offsets[j]), int(offsets[j + 1]))
-        window[cells, :values.shape[1]] = values
-        starts[cells] = positions[j][0] + start
+    orders = tuple(sorted_rows(index[:, j], len(every[j].points)) for j in range(len(columns)))
     return Binned(np.ascontiguousarray(index), tuple(every), positions,
-                  int(sum(len(p) for p in positions)), offsets, starts, window, widths)
+                  int(sum(len(p) for p in positions)), offsets, orders)
 
 
-def basis_window(basis: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Per basis row, the first column of the narrowest window of columns holding every
-    non-zero of every row (a cubic B-spline has at most four), and the values there."""
-    filled = basis != 0
-    size = basis.shape[1]
-    anywhere = filled.any(axis=1)
-    first = np.where(anywhere, filled.argmax(axis=1), 0)
-    last = np.where(anywhere, size - 1 - filled[:, ::-1].argmax(axis=1), 0)
-    width = max(1, int((last - first + 1).max()))
-    start = np.minimum(first, size - width)
-    values = basis[np.arange(len(basis))[:, None], start[:, None] + np.arange(width)]
-    return start, values
+def sorted_rows(bins: np.ndarray, count: int) -> np.ndarray:
+    """The rows in order of their bin (stable; a radix sort where the bins fit 16 bits)."""
+    keys = bins.astype(np.int16) if count <= np.iinfo(np.int16).max else bins
+    return np.argsort(keys, kind="stable").astype(np.int32)

@@ -1,10 +1,8 @@
 """The spline family's passes over the training rows, compiled with numba (cache=True).
 
 Every row is a tuple of bin numbers, one per term (spline_bins): `index[row, term]`.
-A term's bins have flat numbers `offsets[term] + bin`, and each flat bin has the
-window of its basis row that can be non-zero: `window[cell, :widths[term]]`,
-starting at coefficient `starts[cell]` of the whole coefficient vector. The passes
-run on one thread in row order, so a sum is the same bits from run to run.
+A term's bins have flat numbers `offsets[term] + bin`. The passes run on one thread
+in a fixed order, so a sum is the same bits from run to run.
 """
 
 from __future__ import annotations
@@ -43,21 +41,41 @@ def bin_sums(index: np.ndarray, offsets: np.ndarray, size: int, weight: np.ndarr
 
 
 @njit(cache=True)
-def cross_sums(index: np.ndarray, weight: np.ndarray, term: int, bins: int, width: int,
-               offsets: np.ndarray, starts: np.ndarray, window: np.ndarray,
-               widths: np.ndarray) -> np.ndarray:
-    """For each bin a of `term`: the weighted sum, over the rows in a, of every later term's
-    basis row (columns of earlier terms and of `term` itself stay zero)."""
-    rows, terms = index.shape
-    sums = np.zeros((bins, width))
-    for row in range(rows):
+def pair_counts(index: np.ndarray, order: np.ndarray, weight: np.ndarray, term: int,
+                bins: int, offsets: np.ndarray) -> np.ndarray:
+    """For each bin a of `term` and each bin b of every later term: the weight of the rows
+    in both (columns: the later terms' flat bins, less the first of them). The rows are
+    taken in `order`, sorted by their bin of `term`, so one row of counts is written at a
+    time."""
+    terms = index.shape[1]
+    first = offsets[term + 1]
+    counts = np.zeros((bins, offsets[terms] - first))
+    for position in range(order.shape[0]):
+        row = order[position]
         w = weight[row]
         if w == 0.0:
             continue
         a = index[row, term]
         for later in range(term + 1, terms):
-            cell = offsets[later] + index[row, later]
-            start = starts[cell]
-            for q in range(widths[later]):
-                sums[a, start + q] += w * window[cell, q]
-    return sums
+            counts[a, offsets[later] - first + index[row, later]] += w
+    return counts
+
+
+@njit(cache=True)
+def box_cox_variance(shifted: np.ndarray, weights: np.ndarray, power: float) -> float:
+    """The weighted variance (divisor: the total weight) of the Box-Cox transform of
+    exp(shifted) at `power`: two passes, each in the order of the values."""
+    size = shifted.shape[0]
+    mapped = np.empty(size)
+    total = 0.0
+    rows = 0.0
+    for i in range(size):
+        value = shifted[i] if power == 0.0 else np.expm1(power * shifted[i]) / power
+        mapped[i] = value
+        total += weights[i] * value
+        rows += weights[i]
+    mean = total / rows
+    spread = 0.0
+    for i in range(size):
+        spread += weights[i] * (mapped[i] - mean) ** 2
+    return spread / rows

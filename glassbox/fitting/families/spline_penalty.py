@@ -184,11 +184,20 @@ def solve(problem: Problem, work: Working, penalty: np.ndarray, max_iter: int
         if now == used:
             break
         used = now
-    inverse = linalg.cho_solve(factor, np.eye(len(rhs)), check_finite=False)
     step = coef - work.base
     rss = work.residual - 2 * step @ work.moment + step @ work.gram @ step
-    edof = float(np.sum(inverse * work.gram))  # trace(system⁻¹ XᵀWX), both symmetric
-    return Solution(coef, edof, float(rss), system, now == used)
+    return Solution(coef, trace_ratio(factor, work.gram), float(rss), system, now == used)
+
+
+def trace_ratio(factor: tuple[np.ndarray, bool], gram: np.ndarray) -> float:
+    """trace(A⁻¹ G) for A given by its Cholesky factor (upper) and G symmetric: the sum of
+    A⁻¹ ∘ G, with A⁻¹ from LAPACK's potri (its upper triangle, mirrored)."""
+    upper, info = linalg.lapack.dpotri(factor[0], lower=factor[1])
+    if info != 0:
+        return float("nan")
+    inside = np.triu(upper) if not factor[1] else np.tril(upper)
+    diagonal = np.diagonal(inside)
+    return float(2 * np.sum(inside * gram) - diagonal @ np.diagonal(gram))
 
 
 def criterion_value(problem: Problem, rss: float, rows: int, edof: float, criterion: str
