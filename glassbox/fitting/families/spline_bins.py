@@ -50,7 +50,11 @@ class Binned:
     positions: tuple[np.ndarray, ...]  # each term's coefficient positions
     width: int  # coefficients in all
     offsets: np.ndarray  # a term's first flat bin
-    orders: tuple[np.ndarray, ...]  # per term but the intercept: the rows sorted by its bin
+    # per term but the intercept: the rows sorted by its bin, where each bin starts in that
+    # order, and the later terms' bins of the rows in that order (see pair_counts)
+    orders: tuple[np.ndarray, ...]
+    bounds: tuple[np.ndarray, ...]
+    later: tuple[np.ndarray, ...]
 
     @property
     def rows(self) -> int:
@@ -83,10 +87,11 @@ class Binned:
             gram[block] = bins.basis.T @ (weights[cells, None] * bins.basis)
             moment[positions] = bins.basis.T @ totals[cells]
             if term < last:
-                counts = pair_counts(self.index, self.orders[term], weight, term,
-                                     len(bins.points), self.offsets)
-                left = bins.basis.T @ counts
                 first = int(self.offsets[term + 1])
+                counts = pair_counts(self.later[term], self.bounds[term], self.orders[term],
+                                     weight, self.offsets[term + 1:-1] - first,
+                                     int(self.offsets[-1]) - first)
+                left = bins.basis.T @ counts
                 for later in range(term + 1, len(self.terms)):
                     cells = slice(int(self.offsets[later]) - first,
                                   int(self.offsets[later + 1]) - first)
@@ -168,12 +173,15 @@ def bin_terms(terms: TermList, columns: Sequence[np.ndarray], kinds: Sequence[st
     positions = tuple(np.asarray(terms.get_coef_indices(i)) for i in range(len(every)))
     sizes = [len(bins.points) for bins in every]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-    orders = tuple(sorted_rows(index[:, j], len(every[j].points)) for j in range(len(columns)))
+    small = max(sizes) <= np.iinfo(np.int16).max
+    orders, bounds, later = [], [], []
+    for j in range(len(columns)):
+        keys = index[:, j].astype(np.int16) if small else index[:, j]
+        order = np.argsort(keys, kind="stable").astype(np.int32)  # radix sort for 16 bits
+        orders.append(order)
+        bounds.append(np.concatenate([[0], np.cumsum(every[j].counts)]).astype(np.int64))
+        later.append(np.ascontiguousarray(index[order, j + 1:].astype(
+            np.int16 if small else np.int32)))
     return Binned(np.ascontiguousarray(index), tuple(every), positions,
-                  int(sum(len(p) for p in positions)), offsets, orders)
-
-
-def sorted_rows(bins: np.ndarray, count: int) -> np.ndarray:
-    """The rows in order of their bin (stable; a radix sort where the bins fit 16 bits)."""
-    keys = bins.astype(np.int16) if count <= np.iinfo(np.int16).max else bins
-    return np.argsort(keys, kind="stable").astype(np.int32)
+                  int(sum(len(p) for p in positions)), offsets, tuple(orders), tuple(bounds),
+                  tuple(later))

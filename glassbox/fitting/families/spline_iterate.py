@@ -184,7 +184,8 @@ def finish(problem: Problem, binned: Binned, target: np.ndarray, work: Working,
            scores: np.ndarray, criterion: str, converged: bool, steps: int, searches: int,
            unsettled: str | None, last_move: float) -> Fitted:
     """The fit's statistics from its last step (pygam's definitions; see the module)."""
-    inverse = np.linalg.inv(solution.system)
+    inverse = np.linalg.inv(solution.system)  # LU: the system may be too close to singular for
+    # a Cholesky factorisation (see spline_penalty.Factored)
     sandwich = inverse @ work.gram @ inverse
     dev = deviance(scores, target, problem.classify)
     scale = 1.0 if problem.classify else dev / (binned.rows - solution.edof)

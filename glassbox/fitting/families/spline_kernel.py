@@ -41,23 +41,21 @@ def bin_sums(index: np.ndarray, offsets: np.ndarray, size: int, weight: np.ndarr
 
 
 @njit(cache=True)
-def pair_counts(index: np.ndarray, order: np.ndarray, weight: np.ndarray, term: int,
-                bins: int, offsets: np.ndarray) -> np.ndarray:
-    """For each bin a of `term` and each bin b of every later term: the weight of the rows
-    in both (columns: the later terms' flat bins, less the first of them). The rows are
-    taken in `order`, sorted by their bin of `term`, so one row of counts is written at a
-    time."""
-    terms = index.shape[1]
-    first = offsets[term + 1]
-    counts = np.zeros((bins, offsets[terms] - first))
-    for position in range(order.shape[0]):
-        row = order[position]
-        w = weight[row]
-        if w == 0.0:
-            continue
-        a = index[row, term]
-        for later in range(term + 1, terms):
-            counts[a, offsets[later] - first + index[row, later]] += w
+def pair_counts(later: np.ndarray, bounds: np.ndarray, order: np.ndarray,
+                weight: np.ndarray, columns: np.ndarray, width: int) -> np.ndarray:
+    """For each bin a of a term and each bin b of every later term: the weight of the rows
+    in both. `later` holds the later terms' bins of the rows sorted by their bin of the
+    term (`order`: those rows), bin a's rows at `bounds[a]:bounds[a + 1]`; `columns[k]` is
+    later term k's first column of the counts."""
+    bins = bounds.shape[0] - 1
+    counts = np.zeros((bins, width))
+    for a in range(bins):
+        for position in range(bounds[a], bounds[a + 1]):
+            w = weight[order[position]]
+            if w == 0.0:
+                continue
+            for k in range(later.shape[1]):
+                counts[a, columns[k] + later[position, k]] += w
     return counts
 
 

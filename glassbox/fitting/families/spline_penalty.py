@@ -30,6 +30,7 @@ until the set of such steps no longer changes (then the fit repeats itself exact
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -173,11 +174,10 @@ def solve(problem: Problem, work: Working, penalty: np.ndarray, max_iter: int
     for _ in range(max_iter):
         system = work.gram + penalty + (constraint_matrix(problem, coef) if problem.monotone
                                         else 0.0)
-        try:
-            factor = linalg.cho_factor(system, check_finite=False)
-            coef = linalg.cho_solve(factor, rhs, check_finite=False)
-        except (linalg.LinAlgError, ValueError):
+        factored = factor(system)
+        if factored is None:
             return None
+        coef = factored.solve(rhs)
         if not np.all(np.isfinite(coef)):
             return None
         now = wrong_way(problem, coef)
@@ -186,18 +186,49 @@ def solve(problem: Problem, work: Working, penalty: np.ndarray, max_iter: int
         used = now
     step = coef - work.base
     rss = work.residual - 2 * step @ work.moment + step @ work.gram @ step
-    return Solution(coef, trace_ratio(factor, work.gram), float(rss), system, now == used)
+    return Solution(coef, factored.trace_ratio(work.gram), float(rss), system, now == used)
 
 
-def trace_ratio(factor: tuple[np.ndarray, bool], gram: np.ndarray) -> float:
-    """trace(A⁻¹ G) for A given by its Cholesky factor (upper) and G symmetric: the sum of
-    A⁻¹ ∘ G, with A⁻¹ from LAPACK's potri (its upper triangle, mirrored)."""
-    upper, info = linalg.lapack.dpotri(factor[0], lower=factor[1])
-    if info != 0:
-        return float("nan")
-    inside = np.triu(upper) if not factor[1] else np.tril(upper)
-    diagonal = np.diagonal(inside)
-    return float(2 * np.sum(inside * gram) - diagonal @ np.diagonal(gram))
+@dataclass(frozen=True)
+class Factored:
+    """A system factored: Cholesky where rounding leaves it positive definite, else LU
+    with partial pivoting (the penalties leave the constant of every smooth to pygam's
+    tiny ridge, so with many rows the Cholesky factorisation can fail by rounding)."""
+
+    cholesky: tuple[np.ndarray, bool] | None
+    lu: tuple[np.ndarray, np.ndarray] | None
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        if self.cholesky is not None:
+            return linalg.cho_solve(self.cholesky, rhs, check_finite=False)
+        return linalg.lu_solve(self.lu, rhs, check_finite=False)
+
+    def trace_ratio(self, gram: np.ndarray) -> float:
+        """trace(A⁻¹ G) for G symmetric: the sum of A⁻¹ ∘ Gᵀ (Cholesky: A⁻¹ from LAPACK's
+        potri, its upper triangle mirrored)."""
+        if self.cholesky is None:
+            inverse = self.solve(np.eye(len(gram)))
+            return float(np.sum(inverse * gram.T))
+        upper, info = linalg.lapack.dpotri(*self.cholesky)
+        if info != 0:
+            return float("nan")
+        inside = np.tril(upper) if self.cholesky[1] else np.triu(upper)
+        diagonal = np.diagonal(inside)
+        return float(2 * np.sum(inside * gram) - diagonal @ np.diagonal(gram))
+
+
+def factor(system: np.ndarray) -> Factored | None:
+    """The system factored (None: singular or not finite)."""
+    try:
+        return Factored(linalg.cho_factor(system, check_finite=False), None)
+    except linalg.LinAlgError:
+        pass
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", linalg.LinAlgWarning)
+            return Factored(None, linalg.lu_factor(system, check_finite=True))
+    except (linalg.LinAlgError, linalg.LinAlgWarning, ValueError):
+        return None
 
 
 def criterion_value(problem: Problem, rss: float, rows: int, edof: float, criterion: str
