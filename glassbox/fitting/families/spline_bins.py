@@ -25,6 +25,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from pygam.terms import TermList
 
 from glassbox.fitting.families.spline_kernel import bin_sums, pair_counts, row_scores
@@ -88,8 +89,8 @@ class Binned:
             moment[positions] = bins.basis.T @ totals[cells]
             if term < last:
                 first = int(self.offsets[term + 1])
-                counts = pair_counts(self.later[term], self.bounds[term], self.orders[term],
-                                     weight, self.offsets[term + 1:-1] - first,
+                counts = pair_counts(self.later[term], self.bounds[term],
+                                     weight[self.orders[term]], self.offsets[term + 1:-1] - first,
                                      int(self.offsets[-1]) - first)
                 left = bins.basis.T @ counts
                 for later in range(term + 1, len(self.terms)):
@@ -105,7 +106,8 @@ def bin_column(column: np.ndarray, absent: np.ndarray | None, distinct: int, bin
     """A column's bin points and each row's bin (see the module); whether it is exact."""
     present = column if absent is None else column[~absent]
     if distinct <= bins:
-        points, inside = np.unique(present, return_inverse=True)
+        inside, points = pd.factorize(present, sort=True)  # hashed: faster than a sort
+        points = np.asarray(points, dtype=float)
         exact = True
     else:
         low, high = float(present.min()), float(present.max())
@@ -173,15 +175,13 @@ def bin_terms(terms: TermList, columns: Sequence[np.ndarray], kinds: Sequence[st
     positions = tuple(np.asarray(terms.get_coef_indices(i)) for i in range(len(every)))
     sizes = [len(bins.points) for bins in every]
     offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-    small = max(sizes) <= np.iinfo(np.int16).max
+    narrow = index.astype(np.int16) if max(sizes) <= np.iinfo(np.int16).max else index
     orders, bounds, later = [], [], []
     for j in range(len(columns)):
-        keys = index[:, j].astype(np.int16) if small else index[:, j]
-        order = np.argsort(keys, kind="stable").astype(np.int32)  # radix sort for 16 bits
+        order = np.argsort(narrow[:, j], kind="stable").astype(np.int32)  # radix for 16 bits
         orders.append(order)
         bounds.append(np.concatenate([[0], np.cumsum(every[j].counts)]).astype(np.int64))
-        later.append(np.ascontiguousarray(index[order, j + 1:].astype(
-            np.int16 if small else np.int32)))
+        later.append(np.ascontiguousarray(np.take(narrow, order, axis=0)[:, j + 1:]))
     return Binned(np.ascontiguousarray(index), tuple(every), positions,
                   int(sum(len(p) for p in positions)), offsets, tuple(orders), tuple(bounds),
                   tuple(later))

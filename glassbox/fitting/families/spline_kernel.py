@@ -41,17 +41,17 @@ def bin_sums(index: np.ndarray, offsets: np.ndarray, size: int, weight: np.ndarr
 
 
 @njit(cache=True)
-def pair_counts(later: np.ndarray, bounds: np.ndarray, order: np.ndarray,
-                weight: np.ndarray, columns: np.ndarray, width: int) -> np.ndarray:
+def pair_counts(later: np.ndarray, bounds: np.ndarray, weight: np.ndarray,
+                columns: np.ndarray, width: int) -> np.ndarray:
     """For each bin a of a term and each bin b of every later term: the weight of the rows
-    in both. `later` holds the later terms' bins of the rows sorted by their bin of the
-    term (`order`: those rows), bin a's rows at `bounds[a]:bounds[a + 1]`; `columns[k]` is
-    later term k's first column of the counts."""
+    in both. `later` and `weight` hold the later terms' bins and the weights of the rows
+    sorted by their bin of the term, bin a's rows at `bounds[a]:bounds[a + 1]`;
+    `columns[k]` is later term k's first column of the counts."""
     bins = bounds.shape[0] - 1
     counts = np.zeros((bins, width))
     for a in range(bins):
         for position in range(bounds[a], bounds[a + 1]):
-            w = weight[order[position]]
+            w = weight[position]
             if w == 0.0:
                 continue
             for k in range(later.shape[1]):
