@@ -131,7 +131,7 @@ def test_loans_classification_matches_pygam(loans_split, loans_schema, loans_mod
              + spline(2, "debt_to_revenue") + spline(3, "credit_utilisation")
              + spline(4, "late_payments_24m", 12) + spline(5, "amount_requested")
              + f(6, lam=lam["sector"]) + l(7, penalties=None) + l(8, penalties=None))
-    reference = pygam_fit(LogisticGAM(terms, tol=1e-12, max_iter=300), matrix(train), target)
+    reference = pygam_fit(LogisticGAM(terms, tol=1e-8, max_iter=40), matrix(train), target)
     low, high = train[names[:6]].min(), train[names[:6]].max()
     inside = ((fresh[names[:6]] >= low) & (fresh[names[:6]] <= high)).all(axis=1).to_numpy()
     for frame, rows in ((train, slice(None)), (fresh, inside)):

@@ -1,11 +1,15 @@
-"""Penalised-spline family: a pygam additive model compiled into term tables.
+"""Penalised-spline family: an additive model on pygam's terms compiled into term tables.
 
 Terms. Each numeric feature gets a penalised cubic B-spline (`s`), each category
 a factor term (`f`, levels coded 0, 1, ... in sorted order) and each flag or
 other two-valued feature an unpenalised linear term (`l`). A monotone
 declaration becomes pygam's `monotonic_inc` / `monotonic_dec` constraint on the
-score (log-odds of the positive class). Classification uses `LogisticGAM`,
-regression `LinearGAM`.
+score (log-odds of the positive class). Classification is pygam's `LogisticGAM`
+model, regression its `LinearGAM`, fitted here (pygam never sees the rows): the
+rows are cut into bins per term (`bins`, spline_bins: exact when a feature has at
+most `bins` distinct values; otherwise even bins on h, each at the mean of its
+rows) and the penalised IRLS update is solved through normal equations formed
+from bin counts (spline_iterate). What binning changed is in `details["bins"]`.
 
 Scale. A spline is fitted on h(x), a monotone increasing map of the feature
 chosen by `spline_scale` (spline_scale: "power", the Box-Cox power most like a
@@ -16,17 +20,19 @@ its description in `details["terms"]`.
 Penalty. Each spline and factor term gets its own multiplier from the
 `penalties` grid, chosen by `criterion` ("risk": UBRE for classification, GCV
 for regression; "aic") in a coordinate-wise search from the best shared value
-(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. pygam
-then fits once, at the chosen penalties, started from the search's solution.
-The grid, the shared stage's criterion values, each term's penalty and what the
-search did are kept in `details`.
+(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. For
+classification the search runs on the working model of each IRLS step (the
+performance iteration, spline_iterate), and the recorded shared-stage values
+(`criterion_values`, `criterion_edof`) are those of the final fit's working model;
+`criterion_value` is the criterion of the fit itself. The grid, each term's
+penalty and what the search did are kept in `details`.
 
-Tables. Values and the pointwise 95% band are pygam's partial dependence at each
-knot. An integer feature with a short range is tabulated at every whole number
-in it; another curve at every distinct training value and an even grid when they
-fit in `knots`, else at training quantiles and even points, refined where the
-table strays more than 1e-4 from pygam (the largest stray left is
-`details["table_error"]`). What the soft constraint leaves of wrong-way steps
+Tables (spline_tables). Values and the pointwise 95% band are the fitted terms
+at each knot. An integer feature with a short range is tabulated at every whole
+number in it; another curve at every distinct training value and an even grid
+when they fit in `knots`, else at training quantiles and even points, refined
+where the table strays more than 1e-4 from the fitted curve (the largest stray
+left is `details["table_error"]`). What the soft constraint leaves of wrong-way steps
 (about 1e-9) is removed so monotone tables are exactly monotone
 (`details["monotone_repair"]`). A level never seen in training scores the
 training-weighted mean of the level values: 0, the average, once `fit_model`
@@ -56,7 +62,7 @@ A numeric feature with fewer distinct values than `splines` gets one basis
 function per value (at least four); a monotone two-valued feature gets a
 constrained spline of four, as pygam's linear term takes no constraint; both are
 recorded in `details["fallbacks"]`. A bad option is an `OptionError` naming it.
-A pygam fit that did not converge leaves `details["converged"]` false. A
+A fit that did not converge leaves `details["converged"]` false. A
 monotone category is refused by the schema itself.
 """
 
