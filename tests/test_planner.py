@@ -421,8 +421,9 @@ def test_the_demo_row_that_the_cap_priced_too_high(loans, loans_schema):
     # the spline refitted on its power scale the cheapest plan lowers the amount to 84, again
     # in the middle a cap would drop (it kept 5 and 186 to 485). Brute force over every
     # combination of the four full grids (credit_utilisation, debt_to_revenue, years_trading
-    # listed; amount_requested searched) under max_changes = 3 finds 48.9 (50.1 before the
-    # demo data had blank revenues, which moved the fit a little), and so must the planner.
+    # listed; amount_requested searched) under max_changes = 3 finds 49.1 (50.1 before the
+    # demo data had blank revenues, 48.9 before the spline fit was binned and carried to
+    # convergence: both moved the fit a little), and so must the planner.
     import itertools
 
     import glassbox
@@ -473,7 +474,7 @@ def test_the_demo_row_that_the_cap_priced_too_high(loans, loans_schema):
             best = min(best, cost + suffix_change[at])
     assert result.status == "plans"
     assert result.plans[0].total_cost == pytest.approx(best, abs=1e-9)
-    assert round(best, 1) == 48.9
+    assert round(best, 1) == 49.1
     amounts = [c.proposed for c in result.plans[0].changes if c.feature == "amount_requested"]
     assert amounts and 5 < amounts[0] < 186
 

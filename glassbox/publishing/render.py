@@ -109,6 +109,15 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
              if "unidentified" in entry}
     if loose:
         pairs["missing entry not pinned down"] = "; ".join(f"{k}: {v}" for k, v in loose.items())
+    binning = details.get("bins")
+    if isinstance(binning, dict) and binning.get("features"):
+        pairs["binned (largest change of a term)"] = "; ".join(
+            f"{name}: {entry['bins']:,} bins for {entry['distinct']:,} values "
+            f"({entry['largest_change']:.2g})" for name, entry in binning["features"].items())
+        pairs[f"training {binning['loss']}, at bin points / values"] = (
+            f"{binning['loss_at_bin_points']:.6g} / {binning['loss_at_values']:.6g}")
+    elif isinstance(binning, dict) and binning.get("exact"):
+        pairs["binned"] = "no: every value its own bin (exact)"
     routed = (meta.get("details") or {}).get("missing_not_learned")
     if routed:
         pairs["missing entry not learned (all gaps in validation part)"] = ", ".join(routed)

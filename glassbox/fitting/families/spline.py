@@ -1,11 +1,15 @@
-"""Penalised-spline family: a pygam additive model compiled into term tables.
+"""Penalised-spline family: an additive model on pygam's terms compiled into term tables.
 
 Terms. Each numeric feature gets a penalised cubic B-spline (`s`), each category
 a factor term (`f`, levels coded 0, 1, ... in sorted order) and each flag or
 other two-valued feature an unpenalised linear term (`l`). A monotone
 declaration becomes pygam's `monotonic_inc` / `monotonic_dec` constraint on the
-score (log-odds of the positive class). Classification uses `LogisticGAM`,
-regression `LinearGAM`.
+score (log-odds of the positive class). Classification is pygam's `LogisticGAM`
+model, regression its `LinearGAM`, fitted here (pygam never sees the rows): the
+rows are cut into bins per term (`bins`, spline_bins: exact when a feature has at
+most `bins` distinct values; otherwise even bins on h, each at the mean of its
+rows) and the penalised IRLS update is solved through normal equations formed
+from bin counts (spline_iterate). What binning changed is in `details["bins"]`.
 
 Scale. A spline is fitted on h(x), a monotone increasing map of the feature
 chosen by `spline_scale` (spline_scale: "power", the Box-Cox power most like a
@@ -16,17 +20,19 @@ its description in `details["terms"]`.
 Penalty. Each spline and factor term gets its own multiplier from the
 `penalties` grid, chosen by `criterion` ("risk": UBRE for classification, GCV
 for regression; "aic") in a coordinate-wise search from the best shared value
-(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. pygam
-then fits once, at the chosen penalties, started from the search's solution.
-The grid, the shared stage's criterion values, each term's penalty and what the
-search did are kept in `details`.
+(spline_penalty); `penalty_scope="shared"` keeps one multiplier for all. For
+classification the search runs on the working model of each IRLS step (the
+performance iteration, spline_iterate), and the recorded shared-stage values
+(`criterion_values`, `criterion_edof`) are those of the final fit's working model;
+`criterion_value` is the criterion of the fit itself. The grid, each term's
+penalty and what the search did are kept in `details`.
 
-Tables. Values and the pointwise 95% band are pygam's partial dependence at each
-knot. An integer feature with a short range is tabulated at every whole number
-in it; another curve at every distinct training value and an even grid when they
-fit in `knots`, else at training quantiles and even points, refined where the
-table strays more than 1e-4 from pygam (the largest stray left is
-`details["table_error"]`). What the soft constraint leaves of wrong-way steps
+Tables (spline_tables). Values and the pointwise 95% band are the fitted terms
+at each knot. An integer feature with a short range is tabulated at every whole
+number in it; another curve at every distinct training value and an even grid
+when they fit in `knots`, else at training quantiles and even points, refined
+where the table strays more than 1e-4 from the fitted curve (the largest stray
+left is `details["table_error"]`). What the soft constraint leaves of wrong-way steps
 (about 1e-9) is removed so monotone tables are exactly monotone
 (`details["monotone_repair"]`). A level never seen in training scores the
 training-weighted mean of the level values: 0, the average, once `fit_model`
@@ -56,32 +62,29 @@ A numeric feature with fewer distinct values than `splines` gets one basis
 function per value (at least four); a monotone two-valued feature gets a
 constrained spline of four, as pygam's linear term takes no constraint; both are
 recorded in `details["fallbacks"]`. A bad option is an `OptionError` naming it.
-A pygam fit that did not converge leaves `details["converged"]` false. A
+A fit that did not converge leaves `details["converged"]` false. A
 monotone category is refused by the schema itself.
 """
 
 from __future__ import annotations
 
-import contextlib
-import io
-import warnings
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from pygam import LinearGAM, LogisticGAM
 from pygam.terms import FactorTerm, Intercept, LinearTerm, SplineTerm, TermList
-from scipy import stats
 from threadpoolctl import threadpool_limits
 
-from glassbox.core.additive import CurveTerm, LevelsTerm, Term
 from glassbox.core.errors import DataError, OptionError, value_text
 from glassbox.core.schema import Schema
 from glassbox.fitting.families.base import FamilyFit
-from glassbox.fitting.families.spline_penalty import Search, build_problem, search_penalties
+from glassbox.fitting.families.spline_bins import bin_terms, extent_matrix
+from glassbox.fitting.families.spline_iterate import Fitted, fit_binned
+from glassbox.fitting.families.spline_penalty import build_problem
 from glassbox.fitting.families.spline_scale import SCALES, Scale, fit_scale
+from glassbox.fitting.families.spline_tables import Curves, binning_error, compile_terms
 
 NAME = "spline"
 DEFAULTS: dict[str, Any] = {
@@ -92,16 +95,14 @@ DEFAULTS: dict[str, Any] = {
     "knots": 400,
     "spline_scale": "power",
     "penalty_scope": "term",
+    "bins": 1024,
 }
 CRITERIA = ("risk", "aic")
 SCOPES = ("term", "shared")
 SPLINE_ORDER = 3  # pygam's cubic B-splines: `basis - 3` knot intervals
 MIN_SPLINES = SPLINE_ORDER + 1  # a B-spline basis needs more functions than its order
 KNOT_RANGE = (10, 1000)
-CANDIDATES = 1001  # even points over a feature's range that a curve table is checked at
-START_SHARE = 8  # curve knots start as budget/8 even points and budget/8 quantiles
-FIDELITY = 1e-4  # largest gap (link scale) between a curve table and pygam worth a knot
-BAND = 0.95
+MIN_BINS = 2
 CONSTRAINTS = {"increasing": "monotonic_inc", "decreasing": "monotonic_dec"}
 
 
@@ -122,14 +123,16 @@ class TermPlan:
     indicator: int | None = None
     stand_in: float = 0.0
     missing_rows: int = 0
+    distinct: int = 2  # distinct training values (a missing value not counted)
 
 
 def check_options(splines: Any, penalties: Any, criterion: Any, max_iter: Any,
                   knots: Any, spline_scale: Any = "power", penalty_scope: Any = "term",
-                  ) -> tuple[float, ...]:
+                  bins: Any = 1024) -> tuple[float, ...]:
     """Validate the options; return the penalty grid sorted and without repeats."""
     for name, value, low, high in (("splines", splines, MIN_SPLINES, None),
                                    ("max_iter", max_iter, 1, None),
+                                   ("bins", bins, MIN_BINS, None),
                                    ("knots", knots, *KNOT_RANGE)):
         whole = isinstance(value, int | np.integer) and not isinstance(value, bool)
         if not whole or value < low or (high is not None and value > high):
@@ -174,7 +177,7 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
         if spec.kind == "category":
             levels = tuple(sorted(str(v) for v in column.unique()))
             codes = pd.Categorical(column, categories=levels).codes
-            plans.append(TermPlan(name, "levels", levels=levels))
+            plans.append(TermPlan(name, "levels", levels=levels, distinct=len(levels)))
             columns.append(codes.astype(float))
             continue
         values = column.to_numpy(dtype=float)
@@ -188,7 +191,7 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
             indicators.append(absent.astype(float))
         constraint = CONSTRAINTS.get(spec.monotone or "")
         if distinct == 2 and constraint is None:
-            plans.append(TermPlan(name, "linear", **gap))
+            plans.append(TermPlan(name, "linear", distinct=distinct, **gap))
             columns.append(np.where(absent, gap.get("stand_in", 0.0), values))
             continue
         if distinct == 2:
@@ -211,7 +214,7 @@ def plan_terms(features: pd.DataFrame, schema: Schema, splines: int,
         if fallback:
             fallbacks[name] = "; ".join(filter(None, (fallbacks.get(name), fallback)))
         plan = TermPlan(name, "spline", basis, constraint, whole=spec.kind == "integer",
-                        scale=scale, **gap)
+                        scale=scale, distinct=distinct, **gap)
         plans.append(plan)
         columns.append(scale(np.where(absent, plan.stand_in, values)))
     owners = [plan.feature for plan in plans if plan.indicator is not None]
@@ -233,190 +236,6 @@ def term_list(plans: Sequence[TermPlan], penalty: float | Sequence[float]) -> Te
             terms.append(SplineTerm(index, n_splines=plan.basis, lam=lam,
                                     constraints=plan.constraint))
     return TermList(*terms)
-
-
-def make_gam(task: str, plans: Sequence[TermPlan], penalty: float | Sequence[float],
-             max_iter: int) -> LinearGAM | LogisticGAM:
-    model = LogisticGAM if task == "classification" else LinearGAM
-    return model(term_list(plans, penalty), max_iter=max_iter)
-
-
-def search(matrix: np.ndarray, target: np.ndarray, plans: Sequence[TermPlan],
-           grid: Sequence[float], *, task: str, criterion: str, max_iter: int,
-           per_term: bool) -> Search:
-    """The penalty search (spline_penalty) on pygam's own matrices for these plans."""
-    terms = TermList(*term_list(plans, 1.0), Intercept())
-    monotone = [(i, plan.constraint == "monotonic_inc") for i, plan in enumerate(plans)
-                if plan.constraint]
-    penalised = [plan.kind in ("spline", "levels") for plan in plans]
-    problem = build_problem(terms, matrix, penalised + [False],
-                            monotone, task == "classification")
-    return search_penalties(problem, target, grid, criterion=criterion, max_iter=max_iter,
-                            per_term=per_term)
-
-
-def fit_quietly(gam: LinearGAM | LogisticGAM, matrix: np.ndarray, target: np.ndarray,
-                start: np.ndarray | None = None) -> bool:
-    """Fit without pygam's printing or warnings; return whether it converged."""
-    if start is not None:
-        gam.set_params(coef_=start, force=True)
-    printed = io.StringIO()
-    with contextlib.redirect_stdout(printed), warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            gam.fit(matrix, target)
-        except (ValueError, np.linalg.LinAlgError) as exc:
-            raise OptionError(f"pygam could not fit the spline model: "
-                              f"{str(exc).splitlines()[0]}; try larger penalties") from None
-    return "did not converge" not in printed.getvalue()
-
-
-def curve_knots(exact: Callable[[np.ndarray], np.ndarray], column: np.ndarray,
-                budget: int, whole: bool) -> tuple[np.ndarray, float]:
-    """Knots for a curve table and the largest gap between table and pygam they leave.
-
-    Candidates are every whole number in range (integer features with a short
-    range), else every distinct training value and an even grid over the range.
-    If the candidates fit the budget they are all knots; otherwise the start is
-    every distinct value (when there are at most half a budget of them) or even
-    points and training quantiles, refined by adding, in every gap that strays
-    more than `FIDELITY` from pygam, the candidate where it strays most.
-    """
-    low, high = float(column.min()), float(column.max())
-    distinct = np.unique(column)
-    if whole and high - low < CANDIDATES:
-        candidates = np.arange(low, high + 1)
-    else:
-        candidates = np.unique(np.concatenate([distinct, np.linspace(low, high, CANDIDATES)]))
-    if len(candidates) <= budget:
-        return candidates, 0.0
-    truth = exact(candidates)
-    if len(distinct) <= budget // 2:
-        chosen = np.searchsorted(candidates, distinct)
-    else:
-        start = max(2, budget // START_SHARE)
-        chosen = np.unique(np.concatenate([
-            np.linspace(0, len(candidates) - 1, start).round().astype(int),
-            np.searchsorted(candidates, np.quantile(column, np.linspace(0, 1, start),
-                                                    method="inverted_cdf")),
-        ]))
-    while True:
-        error = np.abs(np.interp(candidates, candidates[chosen], truth[chosen]) - truth)
-        room = budget - len(chosen)
-        if error.max() <= FIDELITY or room <= 0:
-            return candidates[chosen], float(error.max())
-        gap = np.searchsorted(chosen, np.arange(len(candidates)))  # the gap each one lies in
-        order = np.lexsort((-error, gap))  # by gap, worst first within a gap
-        first = order[np.r_[True, np.diff(gap[order]) != 0]]
-        worst = first[error[first] > FIDELITY]
-        worst = worst[np.argsort(-error[worst], kind="stable")][:room]
-        chosen = np.unique(np.concatenate([chosen, worst]))
-
-
-def tabulate(gam: LinearGAM | LogisticGAM, index: int, points: np.ndarray, width: int,
-             band: bool = True, training: np.ndarray | None = None,
-             indicator: int | None = None,
-             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """pygam's partial dependence of term `index` at `points` (with its missing-value
-    indicator, if any, at 0), with a 95% band; see `contribution`."""
-    grid = np.zeros((len(points), width))
-    grid[:, index] = points
-    return contribution(gam, (index,) if indicator is None else (index, indicator), grid,
-                        band, training)
-
-
-def contribution(gam: LinearGAM | LogisticGAM, indices: Sequence[int], grid: np.ndarray,
-                 band: bool = True, training: np.ndarray | None = None,
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The sum of pygam's partial dependences of terms `indices` at the rows of `grid`
-    (full width), with a 95% band.
-
-    The band is for the term as the model file holds it, centred on the training
-    rows: its variance is (b(x) - b̄)ᵀ Σ (b(x) - b̄), with b the terms' basis row
-    (a spline's and its missing-value indicator's side by side), b̄ its mean over the
-    training rows and Σ pygam's covariance of their coefficients. pygam's own band is
-    for the uncentred term, whose level is confounded with the intercept, so it is
-    wide everywhere and would hide where the shape itself is uncertain.
-    """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        values = np.sum([gam.partial_dependence(i, X=grid) for i in indices], axis=0)
-        if not band:
-            return values, values, values
-        basis = np.hstack([gam._modelmat(grid, term=i).toarray() for i in indices])
-        mean_row = np.concatenate([np.asarray(gam._modelmat(training, term=i).mean(axis=0))
-                                   .ravel() for i in indices])
-    positions = np.concatenate([gam.terms.get_coef_indices(i) for i in indices])
-    covariance = gam.statistics_["cov"][np.ix_(positions, positions)]
-    offset = basis - mean_row
-    variance = np.maximum(np.einsum("ij,jk,ik->i", offset, covariance, offset), 0.0)
-    if gam.distribution._known_scale:
-        quantile = stats.norm.ppf(0.5 + BAND / 2)
-    else:
-        freedom = gam.statistics_["n_samples"] - gam.statistics_["edof"]
-        quantile = stats.t.ppf(0.5 + BAND / 2, df=freedom)
-    half = quantile * np.sqrt(variance)
-    return values, values - half, values + half
-
-
-def missing_entry(gam: LinearGAM | LogisticGAM, index: int, plan: TermPlan,
-                  matrix: np.ndarray) -> tuple[float, tuple[float, float]]:
-    """What a row with no value gets from the fitted model, and its band: the term at the
-    stand-in plus the indicator's coefficient (uncentred, like the curve's values)."""
-    grid = np.zeros((1, matrix.shape[1]))
-    grid[0, index] = plan.scale(np.array([plan.stand_in]))[0]
-    grid[0, plan.indicator] = 1.0
-    value, lower, upper = contribution(gam, (index, plan.indicator), grid, training=matrix)
-    return float(value[0]), (float(lower[0]), float(upper[0]))
-
-
-def floats(values: np.ndarray) -> tuple[float, ...]:
-    return tuple(float(v) for v in values)
-
-
-def compile_terms(gam: LinearGAM | LogisticGAM, plans: Sequence[TermPlan],
-                  matrix: np.ndarray, features: pd.DataFrame, knots: int
-                  ) -> tuple[list[Term], dict[str, float], dict[str, float]]:
-    """One table per plan, read from the fitted pygam model (fitted on `matrix`; the
-    curves are tabulated in the feature's own units, from `features`); each curve's
-    largest departure from pygam over its candidate points; each monotone repair."""
-    terms: list[Term] = []
-    errors: dict[str, float] = {}
-    repairs: dict[str, float] = {}
-    width = matrix.shape[1]
-    for index, plan in enumerate(plans):
-        column = matrix[:, index]
-        if plan.kind == "indicator":
-            continue  # part of its feature's term
-        if plan.kind == "levels":
-            codes = np.arange(len(plan.levels), dtype=float)
-            values, lower, upper = tabulate(gam, index, codes, width, training=matrix)
-            counts = np.bincount(column.astype(int), minlength=len(plan.levels))
-            unseen = float(np.dot(counts, values) / counts.sum())
-            terms.append(LevelsTerm(plan.feature, plan.levels, floats(values), unseen,
-                                    floats(lower), floats(upper)))
-            continue
-        def exact(points: np.ndarray, index: int = index, plan: TermPlan = plan) -> np.ndarray:
-            return tabulate(gam, index, plan.scale(points), width, band=False)[0]
-        raw = features[plan.feature].to_numpy(dtype=float)
-        points, errors[plan.feature] = curve_knots(exact, raw[~np.isnan(raw)], knots,
-                                                   plan.whole)
-        values, lower, upper = tabulate(gam, index, plan.scale(points), width,
-                                        training=matrix, indicator=plan.indicator)
-        if plan.constraint:
-            # remove what the soft constraint leaves of wrong-way steps (about 1e-9)
-            running = np.maximum if plan.constraint == "monotonic_inc" else np.minimum
-            repaired = running.accumulate(values)
-            repairs[plan.feature] = float(np.max(np.abs(repaired - values)))
-            lower, upper = np.minimum(lower, repaired), np.maximum(upper, repaired)
-            values = repaired
-        gap = {}
-        if plan.indicator is not None:
-            value, band = missing_entry(gam, index, plan, matrix)
-            gap = {"missing": value, "missing_band": band}
-        terms.append(CurveTerm(plan.feature, floats(points), floats(values), floats(lower),
-                               floats(upper), **gap))
-    return terms, errors, repairs
 
 
 def unidentified(plans: Sequence[TermPlan], matrix: np.ndarray, target: np.ndarray | None
@@ -458,71 +277,94 @@ def describe(plan: TermPlan) -> str:
             + (f", {direction}" if direction else "") + gap)
 
 
-def search_note(found: Search, grid: Sequence[float]) -> str:
+def search_note(fitted: Fitted, grid: Sequence[float], classify: bool) -> str:
     """What the penalty search did, in words, for the model file."""
+    found = fitted.search
+    where = ("on the working model (z, W) of the final penalised IRLS step, chosen afresh "
+             f"at each step ({fitted.searches} search(es) in {fitted.steps} step(s)): "
+             if classify else "")
     if found.sweeps == 0:
-        return "shared: every smooth and factor term at the grid value that scored best"
-    return (f"per term: from the best shared value, each term's penalty moved along the grid "
-            f"while a step lowered the criterion; {found.sweeps} sweep(s) over the terms, the "
-            "last moving nothing, so no single term's neighbouring grid value scores better "
-            f"(a coordinate-wise optimum; the full grid of {len(grid)} values per term over "
-            "all terms together is not searched)")
+        said = "shared: every smooth and factor term at the grid value that scored best"
+    else:
+        said = (f"per term: from the best shared value, each term's penalty moved along the "
+                f"grid while a step lowered the criterion; {found.sweeps} sweep(s) over the "
+                "terms, the last moving nothing, so no single term's neighbouring grid value "
+                f"scores better (a coordinate-wise optimum; the full grid of {len(grid)} "
+                "values per term over all terms together is not searched)")
+    unsettled = f"; {fitted.unsettled}" if fitted.unsettled else ""
+    return where + said + unsettled
 
 
 def fit(
     features: pd.DataFrame, target: np.ndarray, schema: Schema, *, task: str,
     splines: int = 20, penalties: Sequence[float] = DEFAULTS["penalties"],
     criterion: str = "risk", max_iter: int = 100, knots: int = 400,
-    spline_scale: str = "power", penalty_scope: str = "term",
+    spline_scale: str = "power", penalty_scope: str = "term", bins: int = 1024,
 ) -> FamilyFit:
     """Fit the penalised-spline family and compile it into term tables."""
     grid = check_options(splines, penalties, criterion, max_iter, knots, spline_scale,
-                         penalty_scope)
+                         penalty_scope, bins)
     target = np.asarray(target, dtype=float)
+    classify = task == "classification"
     plans, matrix, fallbacks = plan_terms(features, schema, splines, spline_scale)
-    notes = unidentified(plans, matrix, target if task == "classification" else None)
+    notes = unidentified(plans, matrix, target if classify else None)
+    columns = [matrix[:, index] for index in range(len(plans))]
+    kinds = [plan.kind for plan in plans]
     # one BLAS thread: these matrices are small, and a fixed summation order keeps the
     # tables byte-identical from run to run
     with threadpool_limits(limits=1, user_api="blas"):
-        found = search(matrix, target, plans, grid, task=task, criterion=criterion,
-                       max_iter=max_iter, per_term=penalty_scope == "term")
-        chosen = [grid[p] if p is not None else 0.0 for p in found.positions[:len(plans)]]
-        gam = make_gam(task, plans, chosen, max_iter)
-        converged = fit_quietly(gam, matrix, target, start=found.coefficients)
-        (intercept_index,) = [i for i, term in enumerate(gam.terms) if term.isintercept]
-        intercept = float(gam.coef_[gam.terms.get_coef_indices(intercept_index)][0])
-        terms, table_errors, repairs = compile_terms(gam, plans, matrix, features, knots)
-    penalised = [(plan.feature, p) for plan, p in zip(plans, found.positions, strict=False)
-                 if p is not None]
+        terms = TermList(*term_list(plans, 1.0), Intercept())
+        terms.compile(extent_matrix(columns, kinds))
+        absent = [matrix[:, plan.indicator] == 1.0 if plan.indicator is not None else None
+                  for plan in plans]
+        binned = bin_terms(terms, columns, kinds, absent, [plan.distinct for plan in plans],
+                           bins)
+        monotone = [(i, plan.constraint == "monotonic_inc") for i, plan in enumerate(plans)
+                    if plan.constraint]
+        penalised = [plan.kind in ("spline", "levels") for plan in plans]
+        problem = build_problem(terms, penalised + [False], monotone, classify)
+        fitted = fit_binned(problem, binned, target, grid, criterion=criterion,
+                            max_iter=max_iter, per_term=penalty_scope == "term")
+        curves = Curves(terms, fitted.coef, fitted.covariance, binned, classify, fitted.edof)
+        tables, table_errors, repairs = compile_terms(curves, plans, features, knots)
+        binning = binning_error(curves, plans, columns, target, fitted.scores, classify)
+    intercept = float(fitted.coef[binned.positions[-1]][0])
+    found = fitted.search
+    penalised_terms = [(plan.feature, p) for plan, p in zip(plans, fitted.positions,
+                                                            strict=False) if p is not None]
     details: dict[str, Any] = {
-        "model": type(gam).__name__,
+        "model": "LogisticGAM" if classify else "LinearGAM",
         "terms": {plan.feature: describe(plan) for plan in plans if plan.kind != "indicator"},
         "missing_indicators": {
             plan.feature: {"rows": plan.missing_rows, "stand_in": plan.stand_in,
-                           "effect": float(gam.coef_[gam.terms.get_coef_indices(
-                               plan.indicator)][0])}
+                           "effect": float(fitted.coef[binned.positions[plan.indicator]][0])}
             | ({"unidentified": notes[plan.feature]} if plan.feature in notes else {})
             for plan in plans if plan.indicator is not None},
         "scales": {plan.feature: plan.scale.record() for plan in plans
                    if plan.kind == "spline"},
+        "bins": binning,
         "penalty_grid": list(grid),
         "criterion": found.statistic,
         "criterion_values": list(found.shared_values),
+        "criterion_edof": list(found.shared_edof),
         "shared_penalty": grid[found.shared],
-        "penalty_search": search_note(found, grid),
-        "penalties": {name: grid[p] for name, p in penalised},
-        "criterion_value": found.value,
-        "penalty_at_grid_edge": sorted(name for name, p in penalised
+        "penalty_search": search_note(fitted, grid, classify),
+        "penalties": {name: grid[p] for name, p in penalised_terms},
+        "criterion_value": fitted.value,
+        "penalty_at_grid_edge": sorted(name for name, p in penalised_terms
                                        if len(grid) > 1 and p in (0, len(grid) - 1)),
-        "effective_degrees_of_freedom": float(gam.statistics_["edof"]),
-        "converged": converged,
+        "effective_degrees_of_freedom": fitted.edof,
+        "converged": fitted.converged,
+        "iterations": fitted.steps,
+        "last_change": fitted.last_move,
+        "penalties_settled": fitted.unsettled is None,
         "search_fits": found.fits,
-        "search_unconverged": found.unconverged,
+        "search_unconverged": found.unsettled,
         "fallbacks": fallbacks,
         "table_error": table_errors,
         "monotone_repair": repairs,
     }
     parameters = {"splines": splines, "penalties": list(grid), "criterion": criterion,
                   "max_iter": max_iter, "knots": knots, "spline_scale": spline_scale,
-                  "penalty_scope": penalty_scope}
-    return FamilyFit(intercept, tuple(terms), parameters, details)
+                  "penalty_scope": penalty_scope, "bins": bins}
+    return FamilyFit(intercept, tuple(tables), parameters, details)

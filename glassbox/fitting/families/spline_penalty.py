@@ -1,48 +1,58 @@
-"""The spline family's penalty search: a smoothing penalty per term, chosen on a grid.
+"""The spline family's penalty search on a working model: a smoothing penalty per term.
 
-Both stages apply pygam's penalised IRLS update to pygam's own basis, penalty
-and constraint matrices through the normal equations, at a fraction of the cost
-of a pygam fit, and score each fit by `criterion`: "risk" is pygam's estimate of
-prediction risk (UBRE for classification, GCV for regression, both counting
-effective degrees of freedom 1.4 times as pygam does), "aic" the AIC.
+Penalties are chosen inside the penalised IRLS iterations ("performance
+iteration", Gu 1992; Wood 2004; see spline_iterate): at each step the working model
+(working response z and weights W at the current coefficients) is fixed, and every
+candidate setting is the exact penalised weighted least-squares fit of z on pygam's
+basis, penalty and constraint matrices, solved through the normal equations from
+the bins (spline_bins) and scored by `criterion` on that working model: "risk" is
+pygam's estimate of prediction risk (UBRE for classification, GCV for regression,
+both counting effective degrees of freedom 1.4 times as pygam does), "aic" the AIC.
+For regression (identity link, W = 1) the working model is the data, so this is
+the search on the fit itself. For classification the working UBRE is
+‖√W (z - Xβ)‖²/n + 2·1.4·edof/n and the working AIC ‖√W (z - Xβ)‖² + 2·edof (the
+deviance's quadratic approximation at the current coefficients; pygam's constant
+offsets left out).
 
-1. Shared: every penalised term at the same grid value, largest first and
-   warm-started; the best is the starting point.
+1. Shared: every penalised term at the same grid value; the best is the start.
 2. Per term (unless `per_term` is false): coordinate-wise over the terms, each
    term's penalty walks along the grid, one grid step at a time, for as long as
-   a step lowers the criterion (by more than `IMPROVEMENT` of its value, below
-   which two fits differ by no more than the update's own tolerance); sweeps
+   a step lowers the criterion (by more than `IMPROVEMENT` of its value); sweeps
    over all terms repeat until one moves nothing. Every value compared is an
-   exact fit at that setting, so the last sweep shows that no single term's
-   neighbouring grid value scores better (a coordinate-wise optimum on the grid;
-   the full grid over all terms is never searched, and the search says so).
+   exact fit of the working model at that setting, so the last sweep shows that
+   no single term's neighbouring grid value scores better (a coordinate-wise
+   optimum on the grid; the full grid over all terms is never searched).
+
+A monotone declaration is pygam's soft constraint: a large penalty on the
+coefficient steps that go the wrong way at the current coefficients, re-applied
+until the set of such steps no longer changes (then the fit repeats itself exactly).
 """
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from pygam import LinearGAM, LogisticGAM
 from pygam.terms import TermList
+from scipy import linalg
 from scipy.special import expit
 
 from glassbox.core.errors import OptionError
+from glassbox.fitting.families.spline_bins import Binned
 
 GAMMA = 1.4  # pygam's weight on effective degrees of freedom in UBRE and GCV
 EPS = np.finfo(float).eps
-# The search stops when no training score (link scale) moves by more than this; pygam's soft
-# monotone constraint can make the update cycle at about this size when the penalty is small.
-SEARCH_TOL = 1e-4
 IMPROVEMENT = 1e-6  # a move must lower the criterion by this share of its value
 
 
 @dataclass(frozen=True)
 class Problem:
-    """pygam's basis and per-term unit penalties, and where its constraints apply."""
+    """pygam's per-term unit penalties, and where its constraints apply."""
 
-    basis: np.ndarray  # rows x coefficients
+    width: int  # coefficients
     blocks: tuple[tuple[np.ndarray, np.ndarray] | None, ...]  # per term: positions, penalty
     monotone: tuple[tuple[np.ndarray, bool], ...]  # (coefficient positions, increasing)
     constraint_lam: float
@@ -51,8 +61,7 @@ class Problem:
 
     def penalty(self, penalties: Sequence[float]) -> np.ndarray:
         """The penalty matrix with term i at penalties[i], plus pygam's conditioning ridge."""
-        width = self.basis.shape[1]
-        matrix = np.sqrt(EPS) * np.eye(width)
+        matrix = np.sqrt(EPS) * np.eye(self.width)
         for block, penalty in zip(self.blocks, penalties, strict=True):
             if block is not None:
                 positions, unit = block
@@ -60,11 +69,10 @@ class Problem:
         return matrix
 
 
-def build_problem(terms: TermList, matrix: np.ndarray, penalised: Sequence[bool],
+def build_problem(terms: TermList, penalised: Sequence[bool],
                   monotone: Sequence[tuple[int, bool]], classify: bool) -> Problem:
-    """The problem for pygam terms (the model's terms, then its intercept) on `matrix`;
+    """The problem for compiled pygam terms (the model's terms, then its intercept);
     `monotone` lists (term index, increasing) for the constrained terms."""
-    terms.compile(matrix)
     reference = LogisticGAM() if classify else LinearGAM()
     blocks = []
     for index, flag in enumerate(penalised):
@@ -78,21 +86,27 @@ def build_problem(terms: TermList, matrix: np.ndarray, penalised: Sequence[bool]
         term.lam = saved
         blocks.append((np.asarray(terms.get_coef_indices(index)), unit))
     return Problem(
-        terms.build_columns(matrix).toarray(), tuple(blocks),
+        int(terms.n_coefs), tuple(blocks),
         tuple((np.asarray(terms.get_coef_indices(i)), up) for i, up in monotone),
         float(getattr(reference, "_constraint_lam", 1e9)),
         float(getattr(reference, "_constraint_l2", 1e-3)), classify)
+
+
+def wrong_way(problem: Problem, coef: np.ndarray) -> tuple[tuple[int, ...], ...]:
+    """Per constrained term, the coefficient steps that go against its direction."""
+    return tuple(tuple(np.flatnonzero(np.diff(coef[positions]) < 0 if increasing
+                                      else np.diff(coef[positions]) > 0))
+                 for positions, increasing in problem.monotone)
 
 
 def constraint_matrix(problem: Problem, coef: np.ndarray) -> np.ndarray:
     """pygam's monotone constraint in quadratic form: a large penalty on wrong-way steps."""
     width = len(coef)
     matrix = np.zeros((width, width))
-    for positions, increasing in problem.monotone:
-        steps = np.diff(coef[positions])
-        wrong = np.flatnonzero(steps < 0 if increasing else steps > 0)
-        if wrong.size == 0:
+    for (positions, _), wrong in zip(problem.monotone, wrong_way(problem, coef), strict=True):
+        if not wrong:
             continue
+        wrong = np.asarray(wrong)
         difference = np.zeros((wrong.size, len(positions)))
         difference[np.arange(wrong.size), wrong] = -1.0
         difference[np.arange(wrong.size), wrong + 1] = 1.0
@@ -102,135 +116,194 @@ def constraint_matrix(problem: Problem, coef: np.ndarray) -> np.ndarray:
     return matrix
 
 
-def normal_equations(problem: Problem, target: np.ndarray, coef: np.ndarray
-                     ) -> tuple[np.ndarray, np.ndarray]:
-    """The weighted cross-products of pygam's update at `coef`: Bᵀ W B and Bᵀ W z."""
-    basis = problem.basis
-    if not problem.classify:
-        return basis.T @ basis, basis.T @ target
-    score = basis @ coef  # weight x working response = weight x score + residual
-    mu = expit(score)
-    keep = np.sqrt(mu * (1 - mu)) >= np.sqrt(EPS)  # pygam drops negligible weights
-    weight = np.where(keep, mu * (1 - mu), 0.0)
-    scaled = basis * np.sqrt(weight)[:, None]
-    gram = scaled.T @ scaled  # numpy computes a product with its own transpose at half cost
-    return gram, basis.T @ (weight * score + np.where(keep, target - mu, 0.0))
+@dataclass(frozen=True)
+class Working:
+    """The working model at coefficients `base`: XᵀWX, Xᵀ W r (r = z - X base, the working
+    residual) and rᵀ W r, from the bins; the rows' scores at `base`."""
+
+    base: np.ndarray
+    gram: np.ndarray
+    moment: np.ndarray
+    residual: float
+    scores: np.ndarray
+    rows: int
 
 
-def pirls(problem: Problem, target: np.ndarray, penalty: np.ndarray, start: np.ndarray,
-          max_iter: int, first: tuple[np.ndarray, np.ndarray] | None = None,
-          ) -> tuple[np.ndarray, float, bool]:
-    """pygam's penalised IRLS update via the normal equations: coefficients, edof, converged.
-    `first` is `normal_equations` at `start`, when the caller has it already."""
-    basis = problem.basis
-    coef = start
-    for step in range(max_iter):
-        gram, moment = first if step == 0 and first is not None else normal_equations(
-            problem, target, coef)
-        system = gram + penalty + constraint_matrix(problem, coef)
-        try:
-            update = np.linalg.solve(system, moment)
-        except np.linalg.LinAlgError:
-            update = np.full(len(coef), np.nan)
-        if not np.all(np.isfinite(update)):
-            return coef, np.nan, False
-        # the coefficients may drift along directions the scores cannot see (an
-        # intercept shared between terms), so convergence is judged on the scores
-        change = float(np.max(np.abs(basis @ (update - coef))))
-        coef = update
-        if change < SEARCH_TOL:
-            return coef, float(np.trace(np.linalg.solve(system, gram))), True
-    return coef, float(np.trace(np.linalg.solve(system, gram))), False
+def weights_at(scores: np.ndarray, target: np.ndarray, classify: bool
+               ) -> tuple[np.ndarray, np.ndarray, float]:
+    """IRLS weights, weight times working residual, and the weighted squared residual.
+    Classification: W = μ(1 - μ) and W r = y - μ, rows whose √W is below √eps dropped
+    as pygam drops them; regression: W = 1, r = y - score."""
+    if not classify:
+        residual = target - scores
+        return np.ones(len(target)), residual, float(residual @ residual)
+    mu = expit(scores)
+    variance = mu * (1 - mu)
+    keep = np.sqrt(variance) >= np.sqrt(EPS)
+    weight = np.where(keep, variance, 0.0)
+    weighted = np.where(keep, target - mu, 0.0)
+    return weight, weighted, float(np.sum(weighted ** 2 / np.where(keep, variance, 1.0)))
 
 
-def criterion_value(problem: Problem, target: np.ndarray, coef: np.ndarray, edof: float,
-                    criterion: str) -> float:
-    """UBRE / GCV (pygam's, without its constant offset) or AIC at the coefficients."""
-    score = problem.basis @ coef
-    rows = len(target)
+def working(binned: Binned, target: np.ndarray, coef: np.ndarray, classify: bool,
+            scores: np.ndarray | None = None) -> Working:
+    """The working model at `coef` (one pass over the rows; `scores`, if known, at coef)."""
+    scores = binned.scores(coef) if scores is None else scores
+    weight, weighted, residual = weights_at(scores, target, classify)
+    gram, moment = binned.normal_equations(weight, weighted)
+    return Working(coef, gram, moment, residual, scores, binned.rows)
+
+
+@dataclass(frozen=True)
+class Solution:
+    """The penalised fit of a working model at one setting."""
+
+    coef: np.ndarray
+    edof: float
+    rss: float  # weighted squared working residual at coef
+    system: np.ndarray  # XᵀWX + penalty + constraint, as last solved
+    settled: bool  # the constraint's wrong-way steps stopped changing
+
+
+def solve(problem: Problem, work: Working, penalty: np.ndarray, max_iter: int
+          ) -> Solution | None:
+    """The working model's penalised fit (None where the system cannot be solved)."""
+    coef = work.base
+    rhs = work.gram @ work.base + work.moment
+    used = wrong_way(problem, coef)
+    for _ in range(max_iter):
+        system = work.gram + penalty + (constraint_matrix(problem, coef) if problem.monotone
+                                        else 0.0)
+        factored = factor(system)
+        if factored is None:
+            return None
+        coef = factored.solve(rhs)
+        if not np.all(np.isfinite(coef)):
+            return None
+        now = wrong_way(problem, coef)
+        if now == used:
+            break
+        used = now
+    step = coef - work.base
+    rss = work.residual - 2 * step @ work.moment + step @ work.gram @ step
+    return Solution(coef, factored.trace_ratio(work.gram), float(rss), system, now == used)
+
+
+@dataclass(frozen=True)
+class Factored:
+    """A system factored: Cholesky where rounding leaves it positive definite, else LU
+    with partial pivoting (the penalties leave the constant of every smooth to pygam's
+    tiny ridge, so with many rows the Cholesky factorisation can fail by rounding)."""
+
+    cholesky: tuple[np.ndarray, bool] | None
+    lu: tuple[np.ndarray, np.ndarray] | None
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        if self.cholesky is not None:
+            return linalg.cho_solve(self.cholesky, rhs, check_finite=False)
+        return linalg.lu_solve(self.lu, rhs, check_finite=False)
+
+    def trace_ratio(self, gram: np.ndarray) -> float:
+        """trace(A⁻¹ G) for G symmetric: the sum of A⁻¹ ∘ Gᵀ (Cholesky: A⁻¹ from LAPACK's
+        potri, its upper triangle mirrored)."""
+        if self.cholesky is None:
+            inverse = self.solve(np.eye(len(gram)))
+            return float(np.sum(inverse * gram.T))
+        upper, info = linalg.lapack.dpotri(*self.cholesky)
+        if info != 0:
+            return float("nan")
+        inside = np.tril(upper) if self.cholesky[1] else np.triu(upper)
+        diagonal = np.diagonal(inside)
+        return float(2 * np.sum(inside * gram) - diagonal @ np.diagonal(gram))
+
+
+def factor(system: np.ndarray) -> Factored | None:
+    """The system factored (None: singular or not finite)."""
+    try:
+        return Factored(linalg.cho_factor(system, check_finite=False), None)
+    except linalg.LinAlgError:
+        pass
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", linalg.LinAlgWarning)
+            return Factored(None, linalg.lu_factor(system, check_finite=True))
+    except (linalg.LinAlgError, linalg.LinAlgWarning, ValueError):
+        return None
+
+
+def criterion_value(problem: Problem, rss: float, rows: int, edof: float, criterion: str
+                    ) -> float:
+    """UBRE / GCV (pygam's, without its constant offset) or AIC, from the (working)
+    residual sum of squares; see the module."""
     if problem.classify:
-        mu = np.clip(expit(score), EPS, 1 - EPS)
-        deviance = float(-2 * np.sum(target * np.log(mu) + (1 - target) * np.log(1 - mu)))
         if criterion == "aic":
-            return deviance + 2 * edof
-        return deviance / rows + 2 * GAMMA * edof / rows
-    deviance = float(np.sum((target - score) ** 2))
+            return rss + 2 * edof
+        return rss / rows + 2 * GAMMA * edof / rows
     if criterion == "aic":
-        variance = deviance / (rows - edof)
-        return float(rows * np.log(2 * np.pi * variance) + deviance / variance + 2 * edof + 2)
-    return rows * deviance / (rows - GAMMA * edof) ** 2
+        variance = rss / (rows - edof)
+        return float(rows * np.log(2 * np.pi * variance) + rss / variance + 2 * edof + 2)
+    return rows * rss / (rows - GAMMA * edof) ** 2
 
 
 @dataclass(frozen=True)
 class Search:
-    """The penalty search: the shared stage's values, each term's choice, its coefficients."""
+    """The penalty search on one working model: the shared stage's values, each term's
+    choice and the fit there."""
 
     statistic: str
     shared_values: tuple[float | None, ...]  # criterion with every term at grid[i]
+    shared_edof: tuple[float | None, ...]  # effective degrees of freedom there
     shared: int  # the grid position the shared stage chose
     positions: tuple[int | None, ...]  # per term: the chosen grid position (None: no penalty)
     value: float  # criterion at the chosen penalties
-    coefficients: np.ndarray
+    solution: Solution
     sweeps: int  # per-term sweeps, the last of which moved nothing (0: shared only)
-    fits: int  # fits the search made
-    unconverged: int  # of which the update still moved at max_iter
+    fits: int  # settings fitted
+    unsettled: int  # of which the constraint's wrong-way steps still changed at max_iter
 
 
 class Scorer:
-    """Fits at a setting of grid positions, warm-started; remembers every setting scored."""
+    """Fits of one working model at settings of grid positions; remembers every one."""
 
-    def __init__(self, problem: Problem, target: np.ndarray, grid: Sequence[float],
+    def __init__(self, problem: Problem, work: Working, grid: Sequence[float],
                  criterion: str, max_iter: int) -> None:
-        self.problem, self.target, self.grid = problem, target, grid
+        self.problem, self.work, self.grid = problem, work, grid
         self.criterion, self.max_iter = criterion, max_iter
-        self.seen: dict[tuple[int | None, ...], tuple[float, np.ndarray] | None] = {}
-        self.unconverged = 0
-        # the update's first step from a start is the same for every setting tried from it
-        self.start: np.ndarray | None = None
-        self.first: tuple[np.ndarray, np.ndarray] | None = None
+        self.seen: dict[tuple[int | None, ...], tuple[float, Solution] | None] = {}
+        self.unsettled = 0
 
-    def __call__(self, positions: tuple[int | None, ...], start: np.ndarray
-                 ) -> tuple[float, np.ndarray] | None:
-        """(criterion, coefficients) at the setting, or None where the update failed."""
+    def __call__(self, positions: tuple[int | None, ...]) -> tuple[float, Solution] | None:
+        """(criterion, solution) at the setting, or None where the fit failed."""
         if positions not in self.seen:
             penalties = [0.0 if p is None else self.grid[p] for p in positions]
-            if start is not self.start:
-                self.start = start
-                self.first = normal_equations(self.problem, self.target, start)
-            coef, edof, done = pirls(self.problem, self.target, self.problem.penalty(penalties),
-                                     start, self.max_iter, self.first)
-            self.unconverged += not done
-            self.seen[positions] = None if not np.isfinite(edof) else (
-                criterion_value(self.problem, self.target, coef, edof, self.criterion), coef)
+            found = solve(self.problem, self.work, self.problem.penalty(penalties),
+                          self.max_iter)
+            self.unsettled += found is not None and not found.settled
+            self.seen[positions] = None if found is None or not np.isfinite(found.rss) else (
+                criterion_value(self.problem, found.rss, self.work.rows, found.edof,
+                                self.criterion), found)
         return self.seen[positions]
 
 
-def search_penalties(problem: Problem, target: np.ndarray, grid: Sequence[float], *,
+def search_penalties(problem: Problem, work: Working, grid: Sequence[float], *,
                      criterion: str, max_iter: int, per_term: bool) -> Search:
     """The shared stage, then (if `per_term`) the coordinate-wise stage; see the module."""
-    classify = problem.classify
-    start = np.zeros(problem.basis.shape[1])
-    mean = float(np.clip(target.mean(), 1e-6, 1 - 1e-6)) if classify else float(target.mean())
-    start[-1] = np.log(mean / (1 - mean)) if classify else mean
-    score = Scorer(problem, target, grid, criterion, max_iter)
+    score = Scorer(problem, work, grid, criterion, max_iter)
     penalised = [block is not None for block in problem.blocks]
 
     def setting(position: int) -> tuple[int | None, ...]:
         return tuple(position if flag else None for flag in penalised)
 
-    coef = start
-    for position in sorted(range(len(grid)), key=lambda i: -grid[i]):
-        result = score(setting(position), coef)
-        coef = start if result is None else result[1]
-    shared_values = tuple(None if score.seen[setting(i)] is None else score.seen[setting(i)][0]
-                          for i in range(len(grid)))
+    shared_fits = [score(setting(i)) for i in range(len(grid))]
+    shared_values = tuple(None if fit is None else fit[0] for fit in shared_fits)
+    shared_edof = tuple(None if fit is None else fit[1].edof for fit in shared_fits)
     scored = [i for i, value in enumerate(shared_values) if value is not None]
     if not scored:
         raise OptionError("the spline fit failed at every penalty in 'penalties'; "
                           "try larger penalties")
     shared = min(scored, key=lambda i: (shared_values[i], i))
     best = setting(shared)
-    value, coef = score.seen[best]
+    value, found = score.seen[best]
     sweeps = 0
     while per_term and len(grid) > 1:
         sweeps += 1
@@ -240,15 +313,15 @@ def search_penalties(problem: Problem, target: np.ndarray, grid: Sequence[float]
                 walked = False
                 while 0 <= best[term] + step < len(grid):
                     trial = best[:term] + (best[term] + step,) + best[term + 1:]
-                    result = score(trial, coef)
+                    result = score(trial)
                     if result is None or result[0] >= value - IMPROVEMENT * abs(value):
                         break
-                    best, (value, coef), walked = trial, result, True
+                    best, (value, found), walked = trial, result, True
                 if walked:  # the way back was worse when the walk began
                     moved = True
                     break
         if not moved:
             break
-    statistic = "AIC" if criterion == "aic" else ("UBRE" if classify else "GCV")
-    return Search(statistic, shared_values, shared, best, value, coef, sweeps,
-                  len(score.seen), score.unconverged)
+    statistic = "AIC" if criterion == "aic" else ("UBRE" if problem.classify else "GCV")
+    return Search(statistic, shared_values, shared_edof, shared, best, value, found, sweeps,
+                  len(score.seen), score.unsettled)

@@ -35,6 +35,8 @@ import numpy as np
 from scipy import optimize
 from scipy.interpolate import PchipInterpolator
 
+from glassbox.fitting.families.spline_kernel import box_cox_variance
+
 SCALES = ("power", "rank", "raw")
 
 
@@ -87,46 +89,51 @@ def rank_scale(values: np.ndarray, intervals: int) -> Scale:
                  points=tuple(float(v) for v in points), ranks=tuple(float(v) for v in ranks))
 
 
-def box_cox_power(values: np.ndarray) -> float:
+def box_cox_power(values: np.ndarray, counts: np.ndarray | None = None) -> float:
     """The power maximising the Box–Cox profile log-likelihood of positive `values`,
     (power - 1) sum(log y) - n/2 log(variance of the transformed y), by Brent's method
     from the bracket (-2, 2) as `scipy.stats.boxcox_normmax` does, computed over the
-    distinct values with their counts (the same likelihood, a fraction of the work)."""
-    distinct, counts = np.unique(values, return_counts=True)
+    distinct values with their counts (the same likelihood, a fraction of the work;
+    `counts` given: `values` are the distinct values, sorted)."""
+    distinct, counts = (np.unique(values, return_counts=True) if counts is None
+                        else (values, counts))
     logs = np.log(distinct)
-    rows = counts.sum()
-    centre = float(counts @ logs / rows)  # on y / exp(centre) the powers stay finite
+    weights = counts.astype(float)
+    rows = weights.sum()
+    centre = float(weights @ logs / rows)  # on y / exp(centre) the powers stay finite
+    shifted = logs - centre
+    total_log = float(weights @ logs)
 
     def negative(power: float) -> float:
-        shifted = logs - centre
-        mapped = shifted if power == 0 else np.expm1(power * shifted) / power
-        mean = counts @ mapped / rows
-        variance = counts @ (mapped - mean) ** 2 / rows
+        variance = box_cox_variance(shifted, weights, power)
         # the variance of the raw transform is exp(2 power centre) times this one
-        return -((power - 1) * (counts @ logs)
-                 - rows / 2 * (np.log(variance) + 2 * power * centre))
+        return -((power - 1) * total_log - rows / 2 * (np.log(variance) + 2 * power * centre))
 
     return float(optimize.brent(negative, brack=(-2.0, 2.0)))
 
 
-def power_scale(values: np.ndarray) -> Scale:
-    """The Box–Cox scale with the maximum-likelihood power (see the module)."""
-    distinct = np.unique(values)
+def power_scale(distinct: np.ndarray, counts: np.ndarray) -> Scale:
+    """The Box–Cox scale with the maximum-likelihood power (see the module), from the
+    feature's distinct values (sorted) and their counts."""
     low, high = float(distinct[0]), float(distinct[-1])
     shift = 0.0 if low > 0 else float(distinct[1] - distinct[0]) - low
-    shifted = values + shift
-    return Scale("power", low, high, power=box_cox_power(shifted), shift=shift,
-                 centre=float(np.median(shifted)))
+    shifted = distinct + shift
+    # the median of the rows: the mean of the two middle ones when their number is even
+    rows = int(counts.sum())
+    ends = np.cumsum(counts)
+    middle = shifted[np.searchsorted(ends, [(rows - 1) // 2 + 1, rows // 2 + 1])]
+    return Scale("power", low, high, power=box_cox_power(shifted, counts), shift=shift,
+                 centre=float(middle.mean()))
 
 
 def fit_scale(values: np.ndarray, kind: str, intervals: int) -> tuple[Scale, str | None]:
     """The scale of `kind` for a feature's training values, and why it fell back to raw."""
-    distinct = np.unique(values)
     if kind == "raw":
         return Scale(), None
+    distinct, counts = np.unique(values, return_counts=True)
     if len(distinct) < 3:
         return Scale(), None  # two values: any increasing map gives the same fit
-    scale = rank_scale(values, intervals) if kind == "rank" else power_scale(values)
+    scale = rank_scale(values, intervals) if kind == "rank" else power_scale(distinct, counts)
     mapped = scale(distinct)
     if not (np.all(np.isfinite(mapped)) and np.all(np.diff(mapped) > 0)):
         return Scale(), (f"its {kind} scale (power {scale.power:.3g}) does not keep its "
