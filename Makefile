@@ -13,8 +13,9 @@ install: $(STAMP)
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --disable-pip-version-check -e ".[test]"
-	@echo "compiling the recourse solver once (numba; its cache is kept next to the package)"
+	@echo "compiling the recourse solver and the spline kernels once (numba; the cache is kept next to the packages)"
 	$(BIN)/python -m recourse.warm
+	$(BIN)/python -m glassbox.fitting.warm
 	touch $(STAMP)
 
 demo: $(STAMP)

@@ -292,7 +292,28 @@ def search_note(fitted: Fitted, grid: Sequence[float], classify: bool) -> str:
                 f"scores better (a coordinate-wise optimum; the full grid of {len(grid)} "
                 "values per term over all terms together is not searched)")
     unsettled = f"; {fitted.unsettled}" if fitted.unsettled else ""
-    return where + said + unsettled
+    return where + said + unsettled + check_note(fitted, grid)
+
+
+def check_note(fitted: Fitted, grid: Sequence[float]) -> str:
+    """The end check in words: which converged fits were compared, which was kept."""
+    if not fitted.compared:
+        return ""
+
+    def words(positions: tuple[int | None, ...]) -> str:
+        values = sorted({grid[p] for p in positions if p is not None})
+        return ("every term at " + str(values[0]) if len(values) == 1
+                else "the iteration's setting")
+
+    listed = "; ".join(f"{words(p)}: {value:.6g}" + ("" if ok else " (not converged)")
+                       for p, value, ok in fitted.compared)
+    kept = ("the iteration's own" if fitted.positions == fitted.compared[0][0]
+            else words(fitted.positions) + ", not the iteration's own (the recorded search "
+            "is the one on the iteration's final working model)")
+    halved = (f"; {fitted.halved_steps} step(s) halved ({fitted.halvings} halving(s)) "
+              "because they raised the penalised deviance" if fitted.halvings else "")
+    return (f"; then the true criterion of converged fits compared ({listed}); kept {kept}"
+            + halved)
 
 
 def fit(
@@ -358,6 +379,12 @@ def fit(
         "iterations": fitted.steps,
         "last_change": fitted.last_move,
         "penalties_settled": fitted.unsettled is None,
+        "penalty_check": [{"penalties": {plan.feature: grid[p] for plan, p in
+                                         zip(plans, positions, strict=False) if p is not None},
+                           "criterion_value": value, "converged": ok,
+                           "kept": positions == fitted.positions}
+                          for positions, value, ok in fitted.compared],
+        "step_halvings": fitted.halvings,
         "search_fits": found.fits,
         "search_unconverged": found.unsettled,
         "fallbacks": fallbacks,
