@@ -26,7 +26,7 @@ from glassbox.core.additive import AdditiveModel, LevelsTerm
 from glassbox.core.errors import DataError, OptionError
 from glassbox.core.files import output_folder, safe_file_name, write_atomic
 from glassbox.core.formats import to_markdown as table_markdown
-from glassbox.core.provenance import file_sha256
+from glassbox.core.provenance import file_sha256, fingerprint_method, short_fingerprint
 from glassbox.core.schema import prepare
 from glassbox.explaining import groups, shapes
 from glassbox.publishing import plots
@@ -133,10 +133,17 @@ def check_same_data(model: AdditiveModel, comparison, model_name: str,
     if not fitted_on:
         raise DataError(f"{model_name} records no fingerprint of its training data, so "
                         f"{comparison_name} cannot be checked against it")
-    if made_on != fitted_on:
-        raise DataError(f"{comparison_name} was made on other data than {model_name} "
-                        f"(data fingerprints differ: {str(made_on)[:19]}... against "
-                        f"{str(fitted_on)[:19]}...)")
+    if made_on == fitted_on:
+        return
+    made_how, fitted_how = fingerprint_method(made_on), fingerprint_method(fitted_on)
+    if made_how != fitted_how:
+        raise DataError(f"{comparison_name} and {model_name} fingerprint their data by "
+                        f"different methods ({made_how} against {fitted_how}: one was made "
+                        "by an older glassbox), so whether they used the same data cannot be "
+                        "told; redo the older of the two")
+    raise DataError(f"{comparison_name} was made on other data than {model_name} "
+                    f"(data fingerprints differ: {short_fingerprint(made_on)} against "
+                    f"{short_fingerprint(fitted_on)})")
 
 
 def build_report(
@@ -310,9 +317,10 @@ def _comparison_section(comparison, cutoff: float) -> Section:
 
     settings = comparison.settings
     made_at = float(settings.get("cutoff", 0.5))
+    fingerprint = short_fingerprint(comparison.provenance.get("data_sha256"))
     note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
             f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
-            f"(fingerprint {str(comparison.provenance.get('data_sha256'))[:19]}...). ROC AUC, "
+            f"(fingerprint {fingerprint}). ROC AUC, "
             f"log loss and Brier use no cut-off; accuracy counts a probability of "
             f"{made_at:g} or more as the positive label, the cut-off the comparison was "
             "made with" + ("." if made_at == cutoff else
