@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from concurrent.futures import as_completed
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -26,13 +27,16 @@ from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
 from threadpoolctl import threadpool_limits
 
 from glassbox import __version__
+from glassbox.core.additive import AdditiveModel
 from glassbox.core.documents import checksum
+from glassbox.core.encoding import Prepared
 from glassbox.core.errors import DataError, OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
-from glassbox.core.schema import Schema, prepare
+from glassbox.core.schema import Schema, pool_levels, prepare
+from glassbox.core.workers import become_worker, pool_running, sigint_held
 from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
 from glassbox.fitting.families import FAMILIES
-from glassbox.fitting.fit import fit_model
+from glassbox.fitting.fit import fit_typed, unpooled
 from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     CLIPPED,
     COST_RANGES,
@@ -169,7 +173,29 @@ def _scores(task: str, target: np.ndarray, prediction: np.ndarray, cutoff: float
     return regression_metrics(target, prediction)
 
 
-def run_task(task: Task, frame: pd.DataFrame, schema: Schema,
+@dataclass(frozen=True)
+class Typed:
+    """The whole frame typed once per comparison and shared by every task: `features` as
+    `fit_typed` takes them (categories not yet pooled by a `pool_below` rule), `pooled`
+    the same with the schema's own pooled levels (what the benchmark and the sparsity
+    path read, as a raw frame typed by the schema would be), and the target."""
+
+    features: pd.DataFrame
+    pooled: pd.DataFrame
+    target: np.ndarray
+
+
+def type_frame(frame: pd.DataFrame, schema: Schema, source: str | None = None) -> Typed:
+    """Validate and type the frame once for every fold and task."""
+    prepared = prepare(frame, unpooled(schema), source=source)
+    features = prepared.features
+    pooled = features.assign(**{
+        spec.name: pool_levels(features[spec.name], spec.pooled)
+        for spec in schema.used_features if spec.pooled and spec.pool_below is not None})
+    return Typed(features, pooled, prepared.target)
+
+
+def run_task(task: Task, typed: Typed, schema: Schema,
              settings: CompareSettings) -> list[dict[str, Any]]:
     """Fit on the task's training rows, score its test rows; one record per model.
 
@@ -178,26 +204,45 @@ def run_task(task: Task, frame: pd.DataFrame, schema: Schema,
     an order of magnitude.
     """
     with threadpool_limits(limits=1):
-        return _run_task(task, frame, schema, settings)
+        return _run_task(task, typed, schema, settings)
 
 
-def _run_task(task: Task, frame: pd.DataFrame, schema: Schema,
+def fold_model(typed: Typed, schema: Schema, family: str, train: np.ndarray,
+               options: dict[str, Any]) -> AdditiveModel:
+    """A family fitted on a fold's training rows of the shared typed frame: the model
+    `fit_model` gives on those raw rows, without what only a saved model keeps."""
+    names = [spec.name for spec in schema.used_features]
+    return fit_typed(typed.features[names].iloc[train], typed.target[train], schema, family,
+                     summaries=False, **options)
+
+
+def fold_prediction(model: AdditiveModel, typed: Typed, rows: np.ndarray) -> np.ndarray:
+    """`model.predict` of the raw rows, from the shared typed frame: the model's pooled
+    levels pooled, rows it cannot score refused, the terms added as `predict` adds them."""
+    encoded = typed.features[list(model.features)].iloc[rows]
+    encoded = encoded.assign(**{
+        name: pool_levels(encoded[name], model.schema.feature(name).pooled)
+        for name in model.features if model.schema.feature(name).pooled})
+    model.check_missing(encoded, "the data")
+    score = model.intercept + model.contributions_encoded(encoded).sum(axis=1).to_numpy()
+    return model.inverse_link(score)
+
+
+def _run_task(task: Task, typed: Typed, schema: Schema,
               settings: CompareSettings) -> list[dict[str, Any]]:
     goal = schema.target.task
-    prepared = prepare(frame, schema)
-    target = prepared.target
-    train, test = frame.iloc[task.train], frame.iloc[task.test]
+    target = typed.target
     base = {"repeat": task.repeat, "fold": task.fold, "train_rows": len(task.train),
             "test_rows": len(task.test)}
     if task.kind == "benchmark":
-        prediction = fit_benchmark(settings.benchmark, goal, prepared.features, target,
+        prediction = fit_benchmark(settings.benchmark, goal, typed.pooled, target,
                                    task.train, task.test, settings.seed + task.repeat)
         return [{**base, "model": task.name,
                  **_scores(goal, target[task.test], prediction, settings.cutoff)}]
     if task.kind == "family":
         options = settings.family_options.get(task.name, {})
-        model = fit_model(train, schema, task.name, **options)
-        prediction = model.predict(test)
+        model = fold_model(typed, schema, task.name, task.train, options)
+        prediction = fold_prediction(model, typed, task.test)
         return [{**base, "model": task.name,
                  **_scores(goal, target[task.test], prediction, settings.cutoff)}]
     # the sparsity curve: one L1 path per fold, then a refit per number of features
@@ -205,19 +250,19 @@ def _run_task(task: Task, frame: pd.DataFrame, schema: Schema,
 
     options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
                if k != "max_features"}
-    train_prepared = prepare(train, schema)
-    design = sparse.build_design(train_prepared.features, schema, min_level_rows=options.get(
-        "min_level_rows", sparse.DEFAULTS["min_level_rows"]))
-    order = sparse.entry_order(design, train_prepared.target, goal,
+    design = sparse.build_design(
+        typed.pooled.iloc[task.train], schema,
+        min_level_rows=options.get("min_level_rows", sparse.DEFAULTS["min_level_rows"]))
+    order = sparse.entry_order(design, target[task.train], goal,
                                options.get("path_points", sparse.DEFAULTS["path_points"]))
     records = []
     for size in range(1, len(order) + 1):
         chosen = order[:size]
-        model = fit_model(train, schema.restricted_to(chosen), "sparse", **options)
+        model = fold_model(typed, schema.restricted_to(chosen), "sparse", task.train, options)
         records.append({**base, "model": "sparse", "max_features": size,
                         "features": list(chosen),
-                        **_scores(goal, target[task.test], model.predict(test),
-                                  settings.cutoff)})
+                        **_scores(goal, target[task.test],
+                                  fold_prediction(model, typed, task.test), settings.cutoff)})
     return records
 
 
@@ -290,38 +335,49 @@ def compare(
     settings = settings or CompareSettings()
     settings.check()
     schema.require_better()  # every fold fits: refuse at once, not in the first fold
-    prepared = prepare(frame, schema, source=source)
+    typed = type_frame(frame, schema, source)
     goal = schema.target.task
-    folds, set_aside = keep_scorable(prepared.features, make_folds(prepared.target, goal,
-                                                                   settings))
+    folds, set_aside = keep_scorable(typed.features, make_folds(typed.target, goal, settings))
     tasks = plan_tasks(folds, settings)
     records: list[dict[str, Any]] = []
     done = 0
     if progress:
         progress(0, len(tasks), "starting")
-    for task_records, label in _run_all(tasks, frame, schema, settings):
+    for task_records, label in _run_all(tasks, typed, schema, settings):
         records += task_records
         done += 1
         if progress:
             progress(done, len(tasks), label)
-    return summarise(records, prepared, schema, settings, folds, set_aside)
+    return summarise(records, Prepared(typed.pooled, typed.target, None, pd.DataFrame()),
+                     schema, settings, folds, set_aside)
 
 
-def _run_all(tasks: list[Task], frame: pd.DataFrame, schema: Schema, settings: CompareSettings):
-    """Yield (records, label) per finished task, in parallel when jobs > 1."""
+def _run_all(tasks: list[Task], typed: Typed, schema: Schema, settings: CompareSettings):
+    """Yield (records, label) per finished task; with jobs > 1 in worker processes, each
+    given the typed frame once when it starts (tasks carry only their rows)."""
     if settings.jobs == 1:
         for task in tasks:
-            yield run_task(task, frame, schema, settings), _label(task)
+            yield run_task(task, typed, schema, settings), _label(task)
         return
-    from joblib import Parallel, delayed
+    with pool_running(settings.jobs, _start_worker, (typed, schema, settings)) as pool:
+        with sigint_held():  # a submit may start a process
+            pending = [pool.submit(_run_in_worker, task) for task in tasks]
+        for future in as_completed(pending):
+            yield future.result()
 
-    runner = Parallel(n_jobs=settings.jobs, return_as="generator_unordered")
-    labelled = runner(delayed(_with_label)(task, frame, schema, settings) for task in tasks)
-    yield from labelled
+
+_SHARED: dict[str, Any] = {}  # set once per worker process by `_start_worker`
 
 
-def _with_label(task: Task, frame, schema, settings) -> tuple[list[dict], str]:
-    return run_task(task, frame, schema, settings), _label(task)
+def _start_worker(parent: int, typed: Typed, schema: Schema,
+                  settings: CompareSettings) -> None:
+    become_worker(parent)
+    _SHARED.update(typed=typed, schema=schema, settings=settings)
+
+
+def _run_in_worker(task: Task) -> tuple[list[dict], str]:
+    return (run_task(task, _SHARED["typed"], _SHARED["schema"], _SHARED["settings"]),
+            _label(task))
 
 
 def _label(task: Task) -> str:
