@@ -1177,6 +1177,13 @@ def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> 
             f"Largest absolute difference between the SQL's and the library's score: {gap:.1e}."]
 
 
+def scale_rows(sets: dict[str, tuple]) -> list[str]:
+    """fit_model against the plain library call at 100k and 1M rows; compare at 100k."""
+    from bench.fit_scale import scale_rows as rows
+
+    return rows()
+
+
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
     with tempfile.TemporaryDirectory() as scratch:
@@ -1195,7 +1202,7 @@ def main() -> None:
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
                     levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder),
-                    export_rows(sets, folder)]
+                    export_rows(sets, folder), scale_rows(sets)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",
