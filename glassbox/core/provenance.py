@@ -50,6 +50,13 @@ def frame_fingerprint(frame: pd.DataFrame) -> str:
     return COLUMNS_METHOD + digest.hexdigest()
 
 
+def csv_text_fingerprint(frame: pd.DataFrame) -> str:
+    """The older method (prefix CSV_METHOD): the frame written as CSV text and hashed; kept
+    to recognise files made with it."""
+    text = frame.to_csv(index=False, lineterminator="\n", float_format="%.17g")
+    return CSV_METHOD + hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
 def _column_bytes(column: pd.Series) -> tuple[str, bytes]:
     """A column's kind and its values as bytes: numbers (flags and pandas' nullable
     types too, pd.NA as NaN) as little-endian 8-byte floats with one NaN; whole numbers

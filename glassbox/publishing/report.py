@@ -23,10 +23,16 @@ from matplotlib.figure import Figure
 
 from glassbox import __version__
 from glassbox.core.additive import AdditiveModel, LevelsTerm
-from glassbox.core.errors import DataError, OptionError
+from glassbox.core.errors import DataError, GlassboxError, OptionError
 from glassbox.core.files import output_folder, safe_file_name, write_atomic
 from glassbox.core.formats import to_markdown as table_markdown
-from glassbox.core.provenance import file_sha256, fingerprint_method, short_fingerprint
+from glassbox.core.provenance import (
+    csv_text_fingerprint,
+    file_sha256,
+    fingerprint_method,
+    frame_fingerprint,
+    short_fingerprint,
+)
 from glassbox.core.schema import prepare
 from glassbox.explaining import groups, shapes
 from glassbox.publishing import plots
@@ -126,8 +132,10 @@ def check_folder(folder: str | Path) -> Path:
 
 
 def check_same_data(model: AdditiveModel, comparison, model_name: str,
-                    comparison_name: str) -> None:
-    """A comparison belongs in the report only when made on the model's own data."""
+                    comparison_name: str, frame: pd.DataFrame | None = None) -> None:
+    """A comparison belongs in the report only when made on the model's own data. A
+    comparison fingerprinted by the older method is accepted when the report's data gives
+    both files' fingerprints, each by its own method."""
     made_on = comparison.provenance.get("data_sha256")
     fitted_on = model.metadata.get("data_sha256")
     if not fitted_on:
@@ -136,6 +144,9 @@ def check_same_data(model: AdditiveModel, comparison, model_name: str,
     if made_on == fitted_on:
         return
     made_how, fitted_how = fingerprint_method(made_on), fingerprint_method(fitted_on)
+    if made_how != fitted_how and frame is not None and _both_from(model, frame, made_on,
+                                                                  fitted_on):
+        return
     if made_how != fitted_how:
         raise DataError(f"{comparison_name} and {model_name} fingerprint their data by "
                         f"different methods ({made_how} against {fitted_how}: one was made "
@@ -144,6 +155,22 @@ def check_same_data(model: AdditiveModel, comparison, model_name: str,
     raise DataError(f"{comparison_name} was made on other data than {model_name} "
                     f"(data fingerprints differ: {short_fingerprint(made_on)} against "
                     f"{short_fingerprint(fitted_on)})")
+
+
+def _both_from(model: AdditiveModel, frame: pd.DataFrame, made_on: str,
+               fitted_on: str) -> bool:
+    """Whether `frame` typed as the model types it gives both fingerprints."""
+    from glassbox.fitting.fit import unpooled
+
+    try:
+        typed = prepare(frame, unpooled(model.schema))
+        pooled = prepare(frame, model.schema)
+    except GlassboxError:
+        return False
+    prints = {method(table.features.assign(__target__=table.target))
+              for method in (frame_fingerprint, csv_text_fingerprint)
+              for table in (typed, pooled)}
+    return made_on in prints and fitted_on in prints
 
 
 def build_report(
@@ -179,7 +206,7 @@ def build_report(
     if comparison is not None:
         where = (f"comparison file {Path(comparison_file).name}" if comparison_file
                  else "the comparison")
-        check_same_data(model, comparison, model_name, where)
+        check_same_data(model, comparison, model_name, where, frame)
     source = source or frame.attrs.get("source") or "the data"
     if audit is not None:  # before any scoring: a mismatched audit is refused at once
         report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
