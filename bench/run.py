@@ -1122,6 +1122,13 @@ def monitor_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     return scale_rows(folder)
 
 
+def scale_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
+    """Each family and the CLI at 100k and 1M generated rows (bench/scale_run.py)."""
+    from bench.scale_run import scale_rows as fitting_at_scale
+
+    return fitting_at_scale(folder)
+
+
 def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> list[str]:
     """Scoring a million rows with the SQL export in DuckDB against `glassbox score`."""
     import subprocess
@@ -1177,13 +1184,6 @@ def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> 
             f"Largest absolute difference between the SQL's and the library's score: {gap:.1e}."]
 
 
-def scale_rows(sets: dict[str, tuple]) -> list[str]:
-    """fit_model against the plain library call at 100k and 1M rows; compare at 100k."""
-    from bench.fit_scale import scale_rows as rows
-
-    return rows()
-
-
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
     with tempfile.TemporaryDirectory() as scratch:
@@ -1192,8 +1192,8 @@ def main() -> None:
         if only:
             for name in only:
                 rows = globals()[f"{name}_rows"]
-                extra = ((folder,) if name in ("audit", "file", "fuzz", "monitor", "export")
-                         else ())
+                extra = ((folder,) if name in ("audit", "file", "fuzz", "monitor", "export",
+                                               "scale") else ())
                 print("\n".join(rows(sets, *extra)))
             return
         sections = [recourse_rows(sets), batch_rows(sets), exact_rows(sets), kernel_rows(sets),
@@ -1202,7 +1202,7 @@ def main() -> None:
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
                     levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder),
-                    export_rows(sets, folder), scale_rows(sets)]
+                    export_rows(sets, folder), scale_rows(sets, folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",
