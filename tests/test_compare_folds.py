@@ -12,13 +12,8 @@ import numpy as np
 import pytest
 
 from glassbox.core.artifact import model_to_dict
-from glassbox.fitting.compare import (
-    CompareSettings,
-    fold_model,
-    fold_prediction,
-    make_folds,
-    type_frame,
-)
+from glassbox.fitting.compare import CompareSettings
+from glassbox.fitting.compare_folds import fold_model, fold_prediction, make_folds, type_frame
 from glassbox.fitting.fit import fit_model, fit_typed
 
 from .real_credit import credit_rows_with_gaps, credit_schema
