@@ -358,9 +358,13 @@ class FeatureProfile:
         )
 
 
-def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeatureProfile, ...]:
+def profile_features(features: pd.DataFrame, schema: Schema,
+                     runs: dict[str, tuple[np.ndarray, np.ndarray]] | None = None,
+                     ) -> tuple[FeatureProfile, ...]:
     """Training percentiles, mean, spread and level counts of every used feature, over the
-    rows that have a value, and how many rows have none."""
+    rows that have a value, and how many rows have none. Given `runs`, each numeric
+    column's distinct present values and their counts (as np.unique gives them) are put
+    there, from the one sort the profile makes."""
     profiles = []
     for name in features.columns:
         spec = schema.feature(name)
@@ -385,6 +389,8 @@ def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeaturePro
         median = float(np.median(values))
         first = np.flatnonzero(np.r_[True, values[1:] != values[:-1]])  # as np.unique
         distinct, counts = values[first], np.diff(np.r_[first, len(values)])
+        if runs is not None:
+            runs[name] = (distinct, counts)
         value_counts = (tuple((float(v), int(c)) for v, c in zip(distinct, counts, strict=True))
                         if len(distinct) <= FEW_VALUES else ())
         profiles.append(FeatureProfile(

@@ -149,15 +149,17 @@ def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
 
 
 def summarise_term(term: CurveTerm | StepTerm, column: np.ndarray,
-                   resolution: float = RESOLUTION) -> TermCells:
+                   resolution: float = RESOLUTION,
+                   runs: tuple[np.ndarray, np.ndarray] | None = None) -> TermCells:
     """The cells of one numeric term over its training column (already centred term);
-    rows with no value (NaN) are counted apart, each worth the term's missing entry."""
+    rows with no value (NaN) are counted apart, each worth the term's missing entry.
+    `runs` may give the column's distinct present values and counts, already found."""
     column = np.asarray(column, dtype=float)
     absent = np.isnan(column)
     count = int(absent.sum())
     # every such row adds the same value; fsum makes the sum exact like the cells' sums
     missing = (count, math.fsum(term.evaluate(column[absent])) if count else 0.0)
-    distinct, counts = np.unique(column[~absent], return_counts=True)
+    distinct, counts = runs or np.unique(column[~absent], return_counts=True)
     if len(distinct) == 0:
         raise DataError(f"column '{term.feature}' has no values at all")
     contributions = term.evaluate(distinct)

@@ -282,12 +282,15 @@ def _grouped_steps(edges: tuple[float, ...], column: np.ndarray) -> tuple[float,
     return tuple(sorted(chosen))
 
 
-def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> Baseline:
-    """The baseline of typed development rows (every one scorable by the model)."""
+def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str,
+                   known: Mapping[str, np.ndarray] | None = None) -> Baseline:
+    """The baseline of typed development rows (every one scorable by the model); `known`
+    may give each term's contributions over these rows, already evaluated."""
     features, score = [], None
     for term in model.terms:
         column = encoded[term.feature].to_numpy()
-        contributions = np.asarray(term.evaluate(column), dtype=float)
+        contributions = (known[term.feature] if known is not None
+                         else np.asarray(term.evaluate(column), dtype=float))
         score = contributions.copy() if score is None else score + contributions
         features.append(feature_bins(term, column, contributions))
     rows = len(encoded)

@@ -114,8 +114,11 @@ def fit_typed(
                             **settings)
     terms, shift = centre_terms(tuple(_level_to_missing(t) for t in fitted.terms), features)
     used = [t.feature for t in terms]
-    importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
-                  for t in terms}
+    # each term over its training column, once: importance and the baseline read it
+    contributions = {t.feature: np.asarray(t.evaluate(features[t.feature].to_numpy()),
+                                           dtype=float) for t in terms}
+    importance = {name: float(np.mean(np.abs(values)))
+                  for name, values in contributions.items()}
     metadata = {
         "family": family,
         "parameters": fitted.parameters,
@@ -138,13 +141,16 @@ def fit_typed(
     intercept = float(fitted.intercept + shift)
     if not summaries:
         return AdditiveModel(link, intercept, terms, schema, (), metadata)
-    profiles = profile_features(features, schema)
+    runs: dict[str, tuple[np.ndarray, np.ndarray]] = {}  # one sort per column, shared
+    profiles = profile_features(features, schema, runs)
     # exact training summaries under numeric terms (rows with no value counted apart),
     # for points cards (classification)
-    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float)) for t in terms
+    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float),
+                                 runs=runs[t.feature]) for t in terms
                   if task == "classification" and not isinstance(t, LevelsTerm))
     model = AdditiveModel(link, intercept, terms, schema, profiles, metadata, cells)
-    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS))
+    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS,
+                                                  contributions))
 
 
 def _check_gaps(features: pd.DataFrame, where: str) -> None:

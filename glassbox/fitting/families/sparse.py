@@ -125,11 +125,19 @@ def build_design(features: pd.DataFrame, schema: Schema, *,
             # a column with one present value and no gaps carries no information
     if not blocks:
         raise OptionError("no feature varies in the training data; nothing to fit")
-    raw = np.column_stack(blocks)
-    centre = raw.mean(axis=0)
-    scale = np.where(scaled, raw.std(axis=0), 1.0)
+    matrix = np.empty((len(features), len(blocks)))  # as np.column_stack lays it out
+    for at, values in enumerate(blocks):
+        matrix[:, at] = values
+    blocks.clear()
+    # in place, each step the arithmetic of raw.mean(axis=0), raw.std(axis=0) and
+    # (raw - centre) / scale, so the same numbers without three more copies of the matrix
+    centre = matrix.mean(axis=0)
+    matrix -= centre
+    spread = np.sqrt(np.add.reduce(matrix * matrix, axis=0) / len(matrix))
+    scale = np.where(scaled, spread, 1.0)
     scale[scale == 0] = 1.0
-    return Design((raw - centre) / scale, tuple(feature_of), tuple(level_of), centre, scale,
+    matrix /= scale
+    return Design(matrix, tuple(feature_of), tuple(level_of), centre, scale,
                   references, levels, np.array(signs, dtype=float), stand_ins, pooled)
 
 
@@ -227,7 +235,8 @@ def fit_estimator(
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)
-        estimator, free, intercept, coefs = signed_refit(design.matrix[:, mask], target,
+        columns = design.matrix if mask.all() else design.matrix[:, mask]  # no copy if all
+        estimator, free, intercept, coefs = signed_refit(columns, target,
                                                          design.signs[mask], task, ridge, make)
     unsettled = any(issubclass(w.category, ConvergenceWarning) for w in caught)
     selected = np.flatnonzero(mask)
