@@ -13,7 +13,13 @@ import pytest
 
 from glassbox.core.artifact import model_to_dict
 from glassbox.fitting.compare import CompareSettings
-from glassbox.fitting.compare_folds import fold_model, fold_prediction, make_folds, type_frame
+from glassbox.fitting.compare_folds import (
+    fold_model,
+    fold_prediction,
+    make_folds,
+    sparsity_models,
+    type_frame,
+)
 from glassbox.fitting.fit import fit_model, fit_typed
 
 from .real_credit import credit_rows_with_gaps, credit_schema
@@ -66,3 +72,22 @@ def test_typed_fit_with_summaries_is_the_saved_model(setting):
     assert saved.schema.feature("Home").pooled == ("ignore",)
     assert model_to_dict(fit_typed(typed.features, typed.target, schema, "sparse")) == \
         model_to_dict(saved)
+
+
+@pytest.mark.parametrize("pool_home", [True, False])
+def test_sparsity_curve_models_equal_fit_model_on_the_raw_fold(setting, pool_home):
+    # the curve fits every size from one typed fold and one design; each size's model must
+    # be the model fit_model gives on the fold's raw rows restricted to its features,
+    # exactly (with a pool_below rule the path reads the schema's pooled levels, as before)
+    frame, schema, typed, (_, _, train, test) = setting
+    if not pool_home:
+        schema = credit_schema()
+        typed = type_frame(frame, schema)
+    sizes = []
+    for size, chosen, mine in sparsity_models(typed, schema, train, CompareSettings(folds=3)):
+        reference = fit_model(frame.iloc[train], schema.restricted_to(chosen), "sparse")
+        assert _without_summaries(mine) == _without_summaries(reference), size
+        assert np.array_equal(fold_prediction(mine, typed, test),
+                              reference.predict(frame.iloc[test]))
+        sizes.append(size)
+    assert sizes == list(range(1, len(sizes) + 1)) and len(sizes) >= 10

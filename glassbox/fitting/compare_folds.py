@@ -7,7 +7,7 @@ and shared, and each (model, fold) task, run here or in worker processes.
 from __future__ import annotations
 
 from concurrent.futures import as_completed
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -20,7 +20,7 @@ from glassbox.core.errors import DataError
 from glassbox.core.schema import Schema, pool_levels, prepare
 from glassbox.core.workers import become_worker, pool_running, sigint_held
 from glassbox.fitting.benchmarks import fit_benchmark
-from glassbox.fitting.fit import fit_typed, unpooled
+from glassbox.fitting.fit import _missing_as_level, finished, fit_typed, ready, unpooled
 from glassbox.fitting.metrics import classification_metrics, regression_metrics
 
 if TYPE_CHECKING:
@@ -175,24 +175,55 @@ def _run_task(task: Task, typed: Typed, schema: Schema,
         return [{**base, "model": task.name,
                  **_scores(goal, target[task.test], prediction, settings.cutoff)}]
     # the sparsity curve: one L1 path per fold, then a refit per number of features
-    from glassbox.fitting.families import sparse
-
-    options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
-               if k != "max_features"}
-    design = sparse.build_design(
-        typed.pooled.iloc[task.train], schema,
-        min_level_rows=options.get("min_level_rows", sparse.DEFAULTS["min_level_rows"]))
-    order = sparse.entry_order(design, target[task.train], goal,
-                               options.get("path_points", sparse.DEFAULTS["path_points"]))
     records = []
-    for size in range(1, len(order) + 1):
-        chosen = order[:size]
-        model = fold_model(typed, schema.restricted_to(chosen), "sparse", task.train, options)
+    for size, chosen, model in sparsity_models(typed, schema, task.train, settings):
         records.append({**base, "model": "sparse", "max_features": size,
                         "features": list(chosen),
                         **_scores(goal, target[task.test],
                                   fold_prediction(model, typed, task.test), settings.cutoff)})
     return records
+
+
+def sparsity_models(typed: Typed, schema: Schema, train: np.ndarray,
+                    settings: CompareSettings):
+    """(size, the features in the order they enter, fold model) for each number of features
+    along the fold's L1 path: per size, the model `fold_model` gives for the schema
+    restricted to them, from one typed fold and one design shared by every size (a
+    design's columns are each a function of its feature's column alone, so restricting
+    the design is the design of the restricted frame)."""
+    from glassbox.fitting.families import sparse
+
+    options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
+               if k != "max_features"}
+    settings_of = {**sparse.DEFAULTS, **options}
+    goal = schema.target.task
+    target = typed.target[train]
+    schema = unpooled(schema)
+    names = [spec.name for spec in schema.used_features]
+    features, pooled = ready(typed.features[names].iloc[train], target, schema, "the data")
+    design = sparse.build_design(_missing_as_level(features, pooled), pooled,
+                                 min_level_rows=settings_of["min_level_rows"])
+    # the path reads the frame with the schema's own pooled levels: the same design unless
+    # a pool_below rule pooled the fold's levels afresh
+    path_design = design if all(spec.pool_below is None for spec in schema.used_features) \
+        else sparse.build_design(typed.pooled.iloc[train], schema,
+                                 min_level_rows=settings_of["min_level_rows"])
+    order = sparse.entry_order(path_design, target, goal, settings_of["path_points"])
+    leveled = _missing_as_level(features, pooled)
+    for size in range(1, len(order) + 1):
+        chosen = order[:size]
+        restricted = schema.restricted_to(chosen)
+        restricted = replace(restricted, features=tuple(
+            pooled.feature(spec.name) if spec.used else spec for spec in restricted.features))
+        kept = [spec.name for spec in restricted.used_features]  # in the schema's order
+        in_order = [name for name in dict.fromkeys(design.feature_of) if name in kept]
+        with threadpool_limits(limits=1, user_api="blas"):
+            fitted = sparse.refit(design, target, goal, in_order, in_order,
+                                  settings_of["ridge"])
+        family_fit = sparse.compiled(fitted, leveled[kept], restricted,
+                                     {**settings_of, "max_features": None})
+        yield size, chosen, finished(family_fit, features[kept], target, restricted, "sparse",
+                                     summaries=False)
 
 
 def plan_tasks(folds, settings: CompareSettings) -> list[Task]:

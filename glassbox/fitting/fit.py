@@ -33,6 +33,7 @@ from glassbox.core.schema import (
 )
 from glassbox.explaining.baseline import TRAINING_ROWS, build_baseline
 from glassbox.fitting.families import get_family
+from glassbox.fitting.families.base import FamilyFit
 from glassbox.fitting.metrics import classification_metrics, regression_metrics
 
 
@@ -99,19 +100,33 @@ def fit_typed(
     schema = unpooled(schema)
     check_options(family, options)
     module = get_family(family)
+    features, schema = ready(features, target, schema, where)
+    settings = {**module.DEFAULTS, **options}
+    with threadpool_limits(limits=1, user_api="blas"):  # see DEVELOPERS.md: one thread
+        fitted = module.fit(_missing_as_level(features, schema), target, schema,
+                            task=schema.target.task, **settings)
+    return finished(fitted, features, target, schema, family, summaries)
+
+
+def ready(features: pd.DataFrame, target: np.ndarray, schema: Schema,
+          where: str) -> tuple[pd.DataFrame, Schema]:
+    """The checks before a family fit, and the rare levels pooled (`pool_rare_levels`)."""
     _check_gaps(features, where)
     features, schema = pool_rare_levels(features, schema, where)
-    task = schema.target.task
-    if task == "classification":
+    if schema.target.task == "classification":
         positives = int(target.sum())
         if positives in (0, len(target)):
             raise DataError(f"{where}: target '{schema.target.column}' has one class only "
                             f"({'all positive' if positives else 'no positive rows'}); "
                             "a classifier needs both")
-    settings = {**module.DEFAULTS, **options}
-    with threadpool_limits(limits=1, user_api="blas"):  # see DEVELOPERS.md: one thread
-        fitted = module.fit(_missing_as_level(features, schema), target, schema, task=task,
-                            **settings)
+    return features, schema
+
+
+def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, schema: Schema,
+             family: str, summaries: bool = True) -> AdditiveModel:
+    """A family's fit on the rows `ready` gave, as the model: terms centred on those rows,
+    metadata and (with `summaries`) the training profiles, cells and baseline."""
+    task = schema.target.task
     terms, shift = centre_terms(tuple(_level_to_missing(t) for t in fitted.terms), features)
     used = [t.feature for t in terms]
     # each term over its training column, once: importance and the baseline read it

@@ -125,20 +125,39 @@ def build_design(features: pd.DataFrame, schema: Schema, *,
             # a column with one present value and no gaps carries no information
     if not blocks:
         raise OptionError("no feature varies in the training data; nothing to fit")
-    matrix = np.empty((len(features), len(blocks)))  # as np.column_stack lays it out
-    for at, values in enumerate(blocks):
-        matrix[:, at] = values
+    matrix, centre, scale = standardised(blocks, np.array(scaled))
     blocks.clear()
-    # in place, each step the arithmetic of raw.mean(axis=0), raw.std(axis=0) and
-    # (raw - centre) / scale, so the same numbers without three more copies of the matrix
-    centre = matrix.mean(axis=0)
-    matrix -= centre
-    spread = np.sqrt(np.add.reduce(matrix * matrix, axis=0) / len(matrix))
-    scale = np.where(scaled, spread, 1.0)
-    scale[scale == 0] = 1.0
-    matrix /= scale
     return Design(matrix, tuple(feature_of), tuple(level_of), centre, scale,
                   references, levels, np.array(signs, dtype=float), stand_ins, pooled)
+
+
+ROWS_AT_ONCE = 4096  # rows per block of the matrix written at once (fits in the cache)
+
+
+def standardised(blocks: list[np.ndarray], scaled: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The columns side by side (as np.column_stack lays them out), centred, and divided by
+    their standard deviation where `scaled` (a constant column by 1); the centres and scales.
+
+    The numbers are those of raw.mean(axis=0), raw.std(axis=0) and (raw - centre) / scale on
+    the stacked matrix: a row-major matrix is reduced over its rows one row after another,
+    which is what a cumulative sum does down one column (numpy sums a single column
+    pairwise, which rounds differently); the matrix is then written a block of rows at a
+    time instead of a column at a time, which touches each row of it once."""
+    rows = len(blocks[0])
+    centre = np.array([np.cumsum(values)[-1] for values in blocks]) / rows
+    spread = np.sqrt(np.array([np.cumsum(np.square(values - middle))[-1]
+                               for values, middle in zip(blocks, centre, strict=True)]) / rows)
+    scale = np.where(scaled, spread, 1.0)
+    scale[scale == 0] = 1.0
+    matrix = np.empty((rows, len(blocks)))
+    for start in range(0, rows, ROWS_AT_ONCE):
+        part = matrix[start:start + ROWS_AT_ONCE]
+        for at, values in enumerate(blocks):
+            part[:, at] = values[start:start + ROWS_AT_ONCE]
+        part -= centre
+        part /= scale
+    return matrix, centre, scale
 
 
 def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> list[str]:
@@ -224,6 +243,12 @@ def fit_estimator(
     else:
         order = groups
         chosen = groups
+    return refit(design, target, task, chosen, order, ridge)
+
+
+def refit(design: Design, target: np.ndarray, task: str, chosen: list[str], order: list[str],
+          ridge: float) -> SparseFit:
+    """The refit of the chosen features' columns of a design under their declared signs."""
     mask = design.columns_of(set(chosen))
 
     def make() -> LogisticRegression | LinearRegression | Ridge:
@@ -255,6 +280,15 @@ def fit(
         features, target, schema, task=task, max_features=max_features, ridge=ridge,
         min_level_rows=min_level_rows, path_points=path_points,
     )
+    parameters = {"max_features": max_features, "ridge": ridge,
+                  "min_level_rows": min_level_rows, "path_points": path_points}
+    return compiled(fitted, features, schema, parameters)
+
+
+def compiled(fitted: SparseFit, features: pd.DataFrame, schema: Schema,
+             parameters: dict[str, Any]) -> FamilyFit:
+    """A refit as term tables, with the details a model file records."""
+    min_level_rows = parameters["min_level_rows"]
     design, chosen, order = fitted.design, fitted.chosen, fitted.order
     selected = np.flatnonzero(design.columns_of(set(chosen)))
     # each chosen column's coefficient per unit of its raw column, and its value at the
@@ -306,8 +340,6 @@ def fit(
             "the refit stopped at its iteration limit before converging; with ridge = 0 this "
             "usually means a level or feature separates the classes and its coefficient has "
             "no finite maximum-likelihood value; use a ridge above 0")
-    parameters = {"max_features": max_features, "ridge": ridge,
-                  "min_level_rows": min_level_rows, "path_points": path_points}
     return FamilyFit(intercept, tuple(terms), parameters, details)
 
 
