@@ -386,7 +386,7 @@ def profile_features(features: pd.DataFrame, schema: Schema,
         mean = float(values.mean())  # in row order (a sum's rounding depends on its order)
         values = np.sort(values)  # once: percentiles then select from sorted values, fast
         percentiles = np.percentile(values, grid)
-        median = float(np.median(values))
+        median = sorted_median(values)
         first = np.flatnonzero(np.r_[True, values[1:] != values[:-1]])  # as np.unique
         distinct, counts = values[first], np.diff(np.r_[first, len(values)])
         if runs is not None:
@@ -395,10 +395,42 @@ def profile_features(features: pd.DataFrame, schema: Schema,
                         if len(distinct) <= FEW_VALUES else ())
         profiles.append(FeatureProfile(
             name, spec.kind, percentiles=_floats(percentiles), mean=mean,
-            spread=float(np.median(np.abs(values - median))), value_counts=value_counts,
+            spread=deviation_median(values, median), value_counts=value_counts,
             **counted,
         ))
     return tuple(profiles)
+
+
+def sorted_median(values: np.ndarray) -> float:
+    """np.median of sorted values, from its middle one or two (numpy averages the same)."""
+    return float(np.median(values[(len(values) - 1) // 2:len(values) // 2 + 1]))
+
+
+def deviation_median(values: np.ndarray, median: float) -> float:
+    """np.median(np.abs(values - median)) of sorted values without a pass over them: the
+    distances below the median, read from it downwards, and those above, read upwards, are
+    two sorted runs (a float difference rounds alike either way round), so the middle
+    one or two of their merge are found by bisection."""
+    split = int(np.searchsorted(values, median, side="left"))
+    below, above = split, len(values) - split
+
+    def distance(rank: int) -> float:  # the rank-th smallest distance, from 0
+        low, high = max(0, rank + 1 - above), min(rank + 1, below)
+        while low < high:  # how many of the rank + 1 smallest lie below the median
+            taken = (low + high) // 2
+            if rank - taken >= 0 and taken < below and \
+                    values[split + rank - taken] - median > median - values[split - 1 - taken]:
+                low = taken + 1
+            else:
+                high = taken
+        taken = low
+        candidates = ([median - values[split - taken]] if taken else []) + (
+            [values[split + rank - taken] - median] if rank + 1 - taken else [])
+        return max(candidates)
+
+    count = len(values)
+    middle = [distance((count - 1) // 2)] + ([distance(count // 2)] if count % 2 == 0 else [])
+    return float(np.median(np.array(middle, dtype=float)))
 
 
 # ---------------------------------------------------------------- the model
