@@ -160,7 +160,10 @@ class LevelsTerm:
     def evaluate(self, column: np.ndarray) -> np.ndarray:
         column = np.asarray(column, dtype=object)
         absent = pd.isna(column)
-        position = pd.Index(self.levels).get_indexer(column)
+        # each distinct value looked up once (as get_indexer on every row would find it)
+        codes, distinct = pd.factorize(column)
+        position = np.where(codes < 0, -1,
+                            pd.Index(self.levels).get_indexer(distinct)[np.maximum(codes, 0)])
         unseen = (position < 0) & ~absent
         values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
         if unseen.any():

@@ -33,6 +33,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from glassbox.core.errors import DataError, ModelFileError
+from glassbox.core.exact import ExactSum, grouped_sums
 
 if TYPE_CHECKING:
     from glassbox.core.additive import CurveTerm, StepTerm
@@ -136,10 +137,11 @@ def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
     """Cells from runs of distinct values beginning at `starts`; sums exact (fsum over
     rows); `missing` is the count and contribution sum of rows with no value."""
     bounds = [*starts, len(distinct)]
-    every_row = np.repeat(contributions, counts)
-    row_bounds = np.concatenate([[0], np.cumsum(counts)])
-    sums = tuple(math.fsum(every_row[row_bounds[a]:row_bounds[b]])
-                 for a, b in zip(bounds[:-1], bounds[1:], strict=True))
+    # each cell's exact sum rounded once, as math.fsum over its rows rounds it
+    cell_of = np.repeat(np.arange(len(starts)), np.diff(bounds))
+    positive, negative = grouped_sums(contributions, counts, cell_of, len(starts))
+    sums = tuple((p + ExactSum(-n.units)).value() for p, n in
+                 zip(positive, negative, strict=True))
     return TermCells(
         feature, float(resolution),
         tuple(float(distinct[a]) for a in bounds[:-1]),

@@ -165,7 +165,7 @@ def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, sche
                   if task == "classification" and not isinstance(t, LevelsTerm))
     model = AdditiveModel(link, intercept, terms, schema, profiles, metadata, cells)
     return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS,
-                                                  contributions))
+                                                  contributions, runs))
 
 
 def _check_gaps(features: pd.DataFrame, where: str) -> None:
