@@ -145,9 +145,14 @@ def standardised(blocks: list[np.ndarray], scaled: np.ndarray
     pairwise, which rounds differently); the matrix is then written a block of rows at a
     time instead of a column at a time, which touches each row of it once."""
     rows = len(blocks[0])
-    centre = np.array([np.cumsum(values)[-1] for values in blocks]) / rows
-    spread = np.sqrt(np.array([np.cumsum(np.square(values - middle))[-1]
-                               for values, middle in zip(blocks, centre, strict=True)]) / rows)
+    work = np.empty(rows)  # one buffer for every column's sums: no fresh pages per column
+    centre = np.array([np.cumsum(values, out=work)[-1] for values in blocks]) / rows
+    sums = []
+    for values, middle in zip(blocks, centre, strict=True):
+        np.subtract(values, middle, out=work)
+        np.square(work, out=work)
+        sums.append(np.cumsum(work, out=work)[-1])
+    spread = np.sqrt(np.array(sums) / rows)
     scale = np.where(scaled, spread, 1.0)
     scale[scale == 0] = 1.0
     matrix = np.empty((rows, len(blocks)))
