@@ -143,15 +143,21 @@ def standardised(blocks: list[np.ndarray], scaled: np.ndarray
     the stacked matrix: a row-major matrix is reduced over its rows one row after another,
     which is what a cumulative sum does down one column (numpy sums a single column
     pairwise, which rounds differently); the matrix is then written a block of rows at a
-    time instead of a column at a time, which touches each row of it once."""
+    time instead of a column at a time, which touches each row of it once. (A matrix of
+    one column is contiguous down it, and numpy sums it pairwise: so is it here.)"""
     rows = len(blocks[0])
     work = np.empty(rows)  # one buffer for every column's sums: no fresh pages per column
-    centre = np.array([np.cumsum(values, out=work)[-1] for values in blocks]) / rows
+
+    def total(values: np.ndarray) -> float:
+        # a matrix of one column is one run of numbers, which numpy sums pairwise
+        return np.cumsum(values, out=work)[-1] if len(blocks) > 1 else np.add.reduce(values)
+
+    centre = np.array([total(values) for values in blocks]) / rows
     sums = []
     for values, middle in zip(blocks, centre, strict=True):
         np.subtract(values, middle, out=work)
         np.square(work, out=work)
-        sums.append(np.cumsum(work, out=work)[-1])
+        sums.append(total(work))
     spread = np.sqrt(np.array(sums) / rows)
     scale = np.where(scaled, spread, 1.0)
     scale[scale == 0] = 1.0
