@@ -18,14 +18,12 @@ from glassbox.core.additive import (
     FeatureProfile,
     LevelsTerm,
     StepTerm,
-    deviation_median,
     profile_features,
     score_table,
-    sorted_median,
-    sorted_percentiles,
 )
 from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.core.schema import Schema
+from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 
 
 def hand_model() -> AdditiveModel:

@@ -190,7 +190,8 @@ def sparsity_models(typed: Typed, schema: Schema, train: np.ndarray,
     along the fold's L1 path: per size, the model `fold_model` gives for the schema
     restricted to them, from one typed fold and one design shared by every size (a
     design's columns are each a function of its feature's column alone, so restricting
-    the design is the design of the restricted frame)."""
+    the design is the design of the restricted frame; one of a single column is built
+    alone, as numpy sums such a matrix pairwise, see `sparse.standardised`)."""
     from glassbox.fitting.families import sparse
 
     options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
@@ -217,9 +218,12 @@ def sparsity_models(typed: Typed, schema: Schema, train: np.ndarray,
             pooled.feature(spec.name) if spec.used else spec for spec in restricted.features))
         kept = [spec.name for spec in restricted.used_features]  # in the schema's order
         in_order = [name for name in dict.fromkeys(design.feature_of) if name in kept]
+        own = design  # but numpy sums a one-column matrix otherwise: built alone
+        if design.columns_of(set(in_order)).sum() == 1:
+            own = sparse.build_design(leveled[kept], restricted,
+                                      min_level_rows=settings_of["min_level_rows"])
         with threadpool_limits(limits=1, user_api="blas"):
-            fitted = sparse.refit(design, target, goal, in_order, in_order,
-                                  settings_of["ridge"])
+            fitted = sparse.refit(own, target, goal, in_order, in_order, settings_of["ridge"])
         family_fit = sparse.compiled(fitted, leveled[kept], restricted,
                                      {**settings_of, "max_features": None})
         yield size, chosen, finished(family_fit, features[kept], target, restricted, "sparse",

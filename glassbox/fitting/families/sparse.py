@@ -47,6 +47,7 @@ from glassbox.fitting.families.signed import (
 
 NAME = "sparse"
 DEFAULTS = {"max_features": None, "ridge": 1.0, "min_level_rows": 30, "path_points": 40}
+ENTERED = 1e-10  # a coefficient above this size on the path has entered the model
 PATH_SPAN = 4.0  # the L1 path runs over four decades of the penalty above its smallest value
 DIRECTION_SIGNS = {"increasing": 1, "decreasing": -1}
 POOLED = "(rare levels)"  # the design column of a category's pooled rare levels
@@ -180,12 +181,19 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
         model = LogisticRegression(l1_ratio=1.0, solver="liblinear", intercept_scaling=100.0,
                                    tol=1e-6, max_iter=2000, random_state=0)
         path = []
+        # with no declared direction the path is only read for the order features enter
+        # in, so it stops once every feature has entered: the later penalties, weaker,
+        # add no feature to the order (with directions the whole path is checked for signs)
+        unsigned, waiting = not design.signs.any(), set(design.feature_of)
         for c_value in penalties:
             model.set_params(C=float(c_value))
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", ConvergenceWarning)
                 model.fit(matrix, target)
             path.append(model.coef_.ravel().copy())
+            waiting -= {design.feature_of[c] for c in np.flatnonzero(np.abs(path[-1]) > ENTERED)}
+            if unsigned and not waiting:
+                break
         coefs = np.array(path).T
         if breaks_signs(coefs, design.signs):
             coefs = logistic_l1_path(matrix, target, design.signs, penalties)
@@ -198,7 +206,7 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
     order: list[str] = []
     strength: dict[str, float] = {}
     for step in range(coefs.shape[1]):
-        active = np.abs(coefs[:, step]) > 1e-10
+        active = np.abs(coefs[:, step]) > ENTERED
         newcomers = {}
         for column in np.flatnonzero(active):
             feature = design.feature_of[column]
