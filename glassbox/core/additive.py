@@ -162,9 +162,8 @@ class LevelsTerm:
         column = np.asarray(column, dtype=object)
         absent = pd.isna(column)
         # each distinct value looked up once (as get_indexer on every row would find it)
-        codes, distinct = pd.factorize(column)
-        position = np.where(codes < 0, -1,
-                            pd.Index(self.levels).get_indexer(distinct)[np.maximum(codes, 0)])
+        codes, distinct = pd.factorize(column)  # a missing value's code -1 reads the -1
+        position = np.r_[pd.Index(self.levels).get_indexer(distinct), -1][codes]
         unseen = (position < 0) & ~absent
         values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
         if unseen.any():
