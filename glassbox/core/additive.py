@@ -33,6 +33,7 @@ from glassbox.core.errors import (
     value_text,
 )
 from glassbox.core.schema import Schema, prepare, rows_text
+from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 
 if TYPE_CHECKING:
     from glassbox.explaining.baseline import Baseline
@@ -160,7 +161,9 @@ class LevelsTerm:
     def evaluate(self, column: np.ndarray) -> np.ndarray:
         column = np.asarray(column, dtype=object)
         absent = pd.isna(column)
-        position = pd.Index(self.levels).get_indexer(column)
+        # each distinct value looked up once (as get_indexer on every row would find it)
+        codes, distinct = pd.factorize(column)  # a missing value's code -1 reads the -1
+        position = np.r_[pd.Index(self.levels).get_indexer(distinct), -1][codes]
         unseen = (position < 0) & ~absent
         values = np.asarray(self.values, dtype=float)[np.where(unseen, 0, position)]
         if unseen.any():
@@ -358,9 +361,13 @@ class FeatureProfile:
         )
 
 
-def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeatureProfile, ...]:
+def profile_features(features: pd.DataFrame, schema: Schema,
+                     runs: dict[str, tuple[np.ndarray, np.ndarray]] | None = None,
+                     ) -> tuple[FeatureProfile, ...]:
     """Training percentiles, mean, spread and level counts of every used feature, over the
-    rows that have a value, and how many rows have none."""
+    rows that have a value, and how many rows have none. Given `runs`, each numeric
+    column's distinct present values and their counts (as np.unique gives them) are put
+    there, from the one sort the profile makes."""
     profiles = []
     for name in features.columns:
         spec = schema.feature(name)
@@ -379,14 +386,19 @@ def profile_features(features: pd.DataFrame, schema: Schema) -> tuple[FeaturePro
             raise DataError(f"column '{name}' has no values at all; drop it or mark it "
                             "ignore = true in the schema")
         grid = np.linspace(0, 100, PERCENTILE_POINTS)
-        percentiles = np.percentile(values, grid)
-        median = float(np.median(values))
-        distinct, counts = np.unique(values, return_counts=True)
+        mean = float(values.mean())  # in row order (a sum's rounding depends on its order)
+        values = np.sort(values)  # once: percentiles then select from sorted values, fast
+        percentiles = sorted_percentiles(values, grid)
+        median = sorted_median(values)
+        first = np.flatnonzero(np.r_[True, values[1:] != values[:-1]])  # as np.unique
+        distinct, counts = values[first], np.diff(np.r_[first, len(values)])
+        if runs is not None:
+            runs[name] = (distinct, counts)
         value_counts = (tuple((float(v), int(c)) for v, c in zip(distinct, counts, strict=True))
                         if len(distinct) <= FEW_VALUES else ())
         profiles.append(FeatureProfile(
-            name, spec.kind, percentiles=_floats(percentiles), mean=float(values.mean()),
-            spread=float(np.median(np.abs(values - median))), value_counts=value_counts,
+            name, spec.kind, percentiles=_floats(percentiles), mean=mean,
+            spread=deviation_median(values, median), value_counts=value_counts,
             **counted,
         ))
     return tuple(profiles)

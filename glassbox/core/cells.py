@@ -33,6 +33,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from glassbox.core.errors import DataError, ModelFileError
+from glassbox.core.exact import ExactSum, grouped_sums
 
 if TYPE_CHECKING:
     from glassbox.core.additive import CurveTerm, StepTerm
@@ -136,10 +137,11 @@ def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
     """Cells from runs of distinct values beginning at `starts`; sums exact (fsum over
     rows); `missing` is the count and contribution sum of rows with no value."""
     bounds = [*starts, len(distinct)]
-    every_row = np.repeat(contributions, counts)
-    row_bounds = np.concatenate([[0], np.cumsum(counts)])
-    sums = tuple(math.fsum(every_row[row_bounds[a]:row_bounds[b]])
-                 for a, b in zip(bounds[:-1], bounds[1:], strict=True))
+    # each cell's exact sum rounded once, as math.fsum over its rows rounds it
+    cell_of = np.repeat(np.arange(len(starts)), np.diff(bounds))
+    positive, negative = grouped_sums(contributions, counts, cell_of, len(starts))
+    sums = tuple((p + ExactSum(-n.units)).value() for p, n in
+                 zip(positive, negative, strict=True))
     return TermCells(
         feature, float(resolution),
         tuple(float(distinct[a]) for a in bounds[:-1]),
@@ -149,15 +151,17 @@ def _cells_from_runs(feature: str, resolution: float, distinct: np.ndarray,
 
 
 def summarise_term(term: CurveTerm | StepTerm, column: np.ndarray,
-                   resolution: float = RESOLUTION) -> TermCells:
+                   resolution: float = RESOLUTION,
+                   runs: tuple[np.ndarray, np.ndarray] | None = None) -> TermCells:
     """The cells of one numeric term over its training column (already centred term);
-    rows with no value (NaN) are counted apart, each worth the term's missing entry."""
+    rows with no value (NaN) are counted apart, each worth the term's missing entry.
+    `runs` may give the column's distinct present values and counts, already found."""
     column = np.asarray(column, dtype=float)
     absent = np.isnan(column)
     count = int(absent.sum())
     # every such row adds the same value; fsum makes the sum exact like the cells' sums
     missing = (count, math.fsum(term.evaluate(column[absent])) if count else 0.0)
-    distinct, counts = np.unique(column[~absent], return_counts=True)
+    distinct, counts = runs or np.unique(column[~absent], return_counts=True)
     if len(distinct) == 0:
         raise DataError(f"column '{term.feature}' has no values at all")
     contributions = term.evaluate(distinct)
@@ -167,15 +171,32 @@ def summarise_term(term: CurveTerm | StepTerm, column: np.ndarray,
         return _cells_from_runs(term.feature, 0.0, distinct, counts, contributions, starts,
                                 missing)
     between_low, between_high = term_extremes(term, distinct[:-1], distinct[1:])
-    starts = [0]
-    low = high = contributions[0]
-    for index in range(1, len(distinct)):
-        new_low = min(low, between_low[index - 1])
-        new_high = max(high, between_high[index - 1])
-        if new_high - new_low > resolution:
-            starts.append(index)
-            low = high = contributions[index]
-        else:
-            low, high = new_low, new_high
+    starts = _run_starts(contributions, between_low, between_high, resolution)
     return _cells_from_runs(term.feature, resolution, distinct, counts, contributions, starts,
                             missing)
+
+
+def _run_starts(contributions: np.ndarray, between_low: np.ndarray,
+                between_high: np.ndarray, resolution: float) -> list[int]:
+    """Where each cell begins: a cell runs from its first distinct value while the lowest
+    and highest value the term takes from there (its start, and every stretch between
+    neighbouring values) stay within `resolution`; the first value that would widen it
+    further begins the next. Found a window of values at a time with running minima and
+    maxima (the same comparisons and subtraction as one value at a time, so the same
+    cells), the window doubling while a cell runs on."""
+    starts, start, count = [0], 0, len(contributions)
+    window = 8
+    while start < count - 1:
+        end = min(start + window, count - 1)
+        low = np.minimum.accumulate(np.minimum(between_low[start:end], contributions[start]))
+        high = np.maximum.accumulate(np.maximum(between_high[start:end], contributions[start]))
+        wide = np.flatnonzero(high - low > resolution)
+        if len(wide):
+            start += int(wide[0]) + 1
+            starts.append(start)
+            window = max(8, 2 * (int(wide[0]) + 1))  # the next cell is likely as long
+        elif end == count - 1:
+            break
+        else:
+            window *= 2
+    return starts

@@ -110,17 +110,47 @@ def weighted_sums(values: np.ndarray, weights: np.ndarray) -> tuple[ExactSum, Ex
     """`ExactSum.split` of each value repeated its weight's number of times, without the
     rows: every finite double is a whole number (its 53-bit mantissa) times a power of two,
     so the exact total is whole-number arithmetic."""
-    fractions, exponents = np.frexp(np.asarray(values, dtype=float))
-    mantissas = np.ldexp(fractions, 53).astype(np.int64)  # exact: 53 bits
-    positive = negative = 0
-    for index in np.flatnonzero(weights):
-        units = (int(mantissas[index]) * int(weights[index])) << int(
-            exponents[index] - 53 + SCALE)
-        if units > 0:
-            positive += units
-        else:
-            negative -= units
-    return ExactSum(positive), ExactSum(negative)
+    values = np.asarray(values, dtype=float)
+    positive, negative = grouped_sums(values, weights, np.zeros(len(values), dtype=np.int64), 1)
+    return positive[0], negative[0]
+
+
+def grouped_sums(values: np.ndarray, weights: np.ndarray, groups: np.ndarray,
+                 count: int) -> tuple[list[ExactSum], list[ExactSum]]:
+    """Per group 0..count-1, `weighted_sums` of its values: the exact sums of the positive
+    values and of the negative values' sizes, each value repeated its weight's number of
+    times. Whole weights up to _LIMIT in all are summed as `_units` sums rows (a half
+    mantissa times a weight stays below 2**53, and so does every partial sum); more, one
+    value at a time in Python integers. Either way exact, so the same sums."""
+    values = np.ascontiguousarray(values, dtype=float)
+    weights = np.asarray(weights, dtype=np.int64)
+    groups = np.asarray(groups, dtype=np.int64)
+    if not np.isfinite(values).all():
+        raise ValueError("an exact sum takes finite numbers only")
+    sums = [[0, 0] for _ in range(count)]
+    if int(weights.sum()) > _LIMIT or (weights < 0).any():
+        fractions, exponents = np.frexp(values)
+        mantissas = np.ldexp(fractions, 53).astype(np.int64)  # exact: 53 bits
+        for index in np.flatnonzero(weights):
+            units = (int(mantissas[index]) * int(weights[index])) << int(
+                exponents[index] - 53 + SCALE)
+            sums[groups[index]][units < 0] += abs(units)
+    elif len(values):
+        bits = values.view(np.int64)
+        exponent = (bits >> 52) & 0x7FF
+        mantissa = (bits & _FRACTION) | ((exponent > 0).astype(np.int64) << 52)
+        place = groups * (2 * _SIGN) + np.maximum(exponent, 1) + (bits < 0) * _SIGN
+        size = count * 2 * _SIGN
+        high = np.bincount(place, weights=((mantissa >> _HALF) * weights).astype(float),
+                           minlength=size)
+        low = np.bincount(place, weights=((mantissa & ((1 << _HALF) - 1)) * weights
+                                          ).astype(float), minlength=size)
+        for at in np.flatnonzero((high != 0) | (low != 0)).tolist():
+            group, at = divmod(at, 2 * _SIGN)
+            whole = (int(high[group * 2 * _SIGN + at]) << _HALF) + int(
+                low[group * 2 * _SIGN + at])
+            sums[group][at >= _SIGN] += whole << (at % _SIGN - 1075 + SCALE)
+    return ([ExactSum(p) for p, _ in sums], [ExactSum(n) for _, n in sums])
 
 
 def exact_variance(total: ExactSum, squares: ExactSum, count: int, ddof: int = 0) -> float:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -20,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.core.errors import DataError, ModelFileError
-from glassbox.core.exact import ExactSum, exact_variance
+from glassbox.core.exact import ExactSum, exact_variance, weighted_sums
 
 if TYPE_CHECKING:
     from glassbox.core.additive import AdditiveModel, Term
@@ -66,6 +67,23 @@ def decile_edges(values: np.ndarray) -> tuple[float, ...]:
         return ()
     edges = np.unique(np.quantile(values, DECILES, method="inverted_cdf"))  # data values
     return tuple(float(e) for e in edges[edges < values.max()])
+
+
+@lru_cache(maxsize=8)
+def _decile_ranks(count: int) -> np.ndarray:
+    """The ranks (from 0) np.quantile's inverted_cdf deciles take among `count` values:
+    its deciles of 0, 1, ..., count - 1."""
+    return np.quantile(np.arange(count, dtype=float), DECILES,
+                       method="inverted_cdf").astype(np.int64)
+
+
+def decile_edges_of_runs(distinct: np.ndarray, counts: np.ndarray) -> tuple[float, ...]:
+    """`decile_edges` of the present values given as sorted distinct values and counts."""
+    if len(distinct) == 0:
+        return ()
+    ranks = _decile_ranks(int(counts.sum()))
+    edges = np.unique(distinct[np.searchsorted(np.cumsum(counts), ranks, side="right")])
+    return tuple(float(e) for e in edges[edges < distinct[-1]])
 
 
 def edge_labels(edges: tuple[float, ...], short: bool = False) -> tuple[str, ...]:
@@ -244,23 +262,40 @@ class Baseline:
                    tuple(FeatureBins.from_dict(f) for f in data["features"]))
 
 
-def feature_bins(term: Term, column: np.ndarray, contributions: np.ndarray) -> FeatureBins:
-    """One feature's development bins and mean contributions, from its typed column."""
+def feature_bins(term: Term, column: np.ndarray, contributions: np.ndarray,
+                 runs: tuple[np.ndarray, np.ndarray] | None = None) -> FeatureBins:
+    """One feature's development bins and mean contributions, from its typed column;
+    `runs` may give a numeric column's sorted distinct present values and their counts,
+    from which the deciles and the exact sums are read instead of from every row."""
     from glassbox.core.additive import LevelsTerm, StepTerm
 
+    deciles = (lambda: decile_edges_of_runs(*runs)) if runs is not None \
+        else (lambda: decile_edges(column))
     if isinstance(term, LevelsTerm):
         layout: dict[str, Any] = {"source": "levels", "levels": tuple(term.levels)}
     elif isinstance(term, StepTerm) and len(term.edges) + 1 <= MOST_STEPS:
         layout = {"source": "steps", "edges": tuple(term.edges)}
     elif isinstance(term, StepTerm):
-        layout = {"source": "steps", "edges": _grouped_steps(term.edges, column)}
+        layout = {"source": "steps", "edges": _grouped_steps(term.edges, deciles())}
     else:
-        layout = {"source": "deciles", "edges": decile_edges(column)}
+        layout = {"source": "deciles", "edges": deciles()}
     empty = FeatureBins(term.feature, counts=(0,) * (len(_labels_of(layout)) + 1), **layout)
-    positive, negative = ExactSum.split(contributions)
-    total = ExactSum(positive.units - negative.units)
     rows = len(contributions)  # + 0.0 below: a mean of zero is never shown as -0
-    spread = math.sqrt(exact_variance(total, ExactSum.of(contributions * contributions), rows))
+    if runs is not None and not isinstance(term, LevelsTerm):
+        # each distinct value's contribution (a term is evaluated value by value) times its
+        # rows, and the rows with no value: the same exact sums as over every row
+        distinct, counts = runs
+        absent = rows - int(counts.sum())
+        values = np.asarray(term.evaluate(np.r_[distinct, [np.nan] * bool(absent)]),
+                            dtype=float)
+        weights = np.r_[counts, [absent] * bool(absent)]
+        positive, negative = weighted_sums(values, weights)
+        squares = weighted_sums(values * values, weights)[0]
+    else:
+        positive, negative = ExactSum.split(contributions)
+        squares = ExactSum.of(contributions * contributions)
+    total = ExactSum(positive.units - negative.units)
+    spread = math.sqrt(exact_variance(total, squares, rows))
     return FeatureBins(term.feature, counts=tuple(int(c) for c in empty.count(column)),
                        mean_contribution=total.mean(rows) + 0.0,
                        mean_absolute_contribution=(positive + negative).mean(rows),
@@ -273,23 +308,30 @@ def _labels_of(layout: Mapping[str, Any]) -> tuple[str, ...]:
     return edge_labels(layout["edges"])
 
 
-def _grouped_steps(edges: tuple[float, ...], column: np.ndarray) -> tuple[float, ...]:
+def _grouped_steps(edges: tuple[float, ...], deciles: tuple[float, ...]) -> tuple[float, ...]:
     """At most about ten groups of whole steps: at each development decile, the term's own
     first edge at or above it (so every group is a union of the term's steps)."""
     inner = np.asarray(edges, dtype=float)
-    chosen = {float(inner[i]) for q in decile_edges(column)
+    chosen = {float(inner[i]) for q in deciles
               if (i := int(np.searchsorted(inner, q, side="left"))) < len(inner)}
     return tuple(sorted(chosen))
 
 
-def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> Baseline:
-    """The baseline of typed development rows (every one scorable by the model)."""
+def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str,
+                   known: Mapping[str, np.ndarray] | None = None,
+                   runs: Mapping[str, tuple[np.ndarray, np.ndarray]] | None = None,
+                   ) -> Baseline:
+    """The baseline of typed development rows (every one scorable by the model); `known`
+    may give each term's contributions over these rows, already evaluated, and `runs`
+    each numeric column's sorted distinct present values and counts."""
     features, score = [], None
     for term in model.terms:
         column = encoded[term.feature].to_numpy()
-        contributions = np.asarray(term.evaluate(column), dtype=float)
+        contributions = (known[term.feature] if known is not None
+                         else np.asarray(term.evaluate(column), dtype=float))
         score = contributions.copy() if score is None else score + contributions
-        features.append(feature_bins(term, column, contributions))
+        features.append(feature_bins(term, column, contributions,
+                                     (runs or {}).get(term.feature)))
     rows = len(encoded)
     score = np.full(rows, float(model.intercept)) + (0.0 if score is None else score)
     edges = decile_edges(score)

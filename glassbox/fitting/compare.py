@@ -22,17 +22,23 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
-from threadpoolctl import threadpool_limits
 
 from glassbox import __version__
 from glassbox.core.documents import checksum
-from glassbox.core.errors import DataError, OptionError
+from glassbox.core.encoding import Prepared
+from glassbox.core.errors import OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
-from glassbox.core.schema import Schema, prepare
-from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings, fit_benchmark
+from glassbox.core.schema import Schema
+from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings
+from glassbox.fitting.compare_folds import (
+    SET_ASIDE_RULE,
+    keep_scorable,
+    make_folds,
+    plan_tasks,
+    run_all,
+    type_frame,
+)
 from glassbox.fitting.families import FAMILIES
-from glassbox.fitting.fit import fit_model
 from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     CLIPPED,
     COST_RANGES,
@@ -43,7 +49,6 @@ from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     interval,
     read_within_ranges,
 )
-from glassbox.fitting.metrics import classification_metrics, regression_metrics
 
 FORMAT = "glassbox-comparison"
 VERSION = 2  # 2: costs signed as the screen shows them, the schema inside; 1 is still read
@@ -91,136 +96,6 @@ class CompareSettings:
             raise OptionError(f"--cutoff must lie between 0 and 1, not {self.cutoff}")
 
 
-# ---------------------------------------------------------------- the folds
-
-SET_ASIDE_RULE = ("each misses a feature that no training row of its fold misses, so a model "
-                  "fitted there that uses it has no missing-value entry for it and would refuse "
-                  "the row; such rows are left out of every model's test rows alike")
-
-
-def keep_scorable(features: pd.DataFrame, folds: list[tuple[int, int, np.ndarray, np.ndarray]]
-                  ) -> tuple[list[tuple[int, int, np.ndarray, np.ndarray]], dict[str, Any]]:
-    """The folds without the test rows no fold model could score, and a count of them.
-
-    A model learns a missing-value entry for a feature only from training rows that miss
-    it; a test row missing a feature its fold's training rows never miss would be
-    refused, so no model (the benchmark included) is scored on it.
-    """
-    missing = features.isna().to_numpy()
-    kept, count, by_feature = [], 0, dict.fromkeys(features.columns, 0)
-    for repeat, fold, train, test in folds:
-        refused = missing[test] & ~missing[train].any(axis=0)  # (row, feature) cells
-        for name, cells in zip(features.columns, refused.sum(axis=0), strict=True):
-            by_feature[name] += int(cells)
-        count += int(refused.any(axis=1).sum())
-        kept.append((repeat, fold, train, test[~refused.any(axis=1)]))
-    return kept, {"test_rows": count, "rule": SET_ASIDE_RULE,
-                  "rows_missing_each_feature": {k: v for k, v in by_feature.items() if v}}
-
-
-def make_folds(target: np.ndarray, task: str, settings: CompareSettings
-               ) -> list[tuple[int, int, np.ndarray, np.ndarray]]:
-    """(repeat, fold, train rows, test rows) for every fold, checked for one-class folds."""
-    count = len(target)
-    if count < settings.folds:
-        raise DataError(f"only {count} rows but {settings.folds} folds; use --folds {count} "
-                        "or fewer")
-    if task == "classification":
-        positives = int(target.sum())
-        rarest = min(positives, count - positives)
-        if rarest == 0:
-            raise DataError("the target has one class only; there is nothing to compare")
-        if rarest < settings.folds:
-            raise DataError(f"the rarer class has only {rarest} rows, so some of the "
-                            f"{settings.folds} folds would hold one class only; use --folds "
-                            f"{max(rarest, 2)} or fewer")
-        splitter = RepeatedStratifiedKFold(n_splits=settings.folds, n_repeats=settings.repeats,
-                                           random_state=settings.seed)
-    else:
-        splitter = RepeatedKFold(n_splits=settings.folds, n_repeats=settings.repeats,
-                                 random_state=settings.seed)
-    folds = []
-    for number, (train, test) in enumerate(splitter.split(np.zeros(count), target)):
-        repeat, fold = divmod(number, settings.folds)
-        if task == "classification":
-            for rows, side in ((train, "training"), (test, "test")):
-                if len(np.unique(target[rows])) < 2:
-                    raise DataError(f"fold {fold + 1} of repeat {repeat + 1} has one class only "
-                                    f"in its {side} rows; use fewer folds")
-        folds.append((repeat, fold, train, test))
-    return folds
-
-
-@dataclass(frozen=True)
-class Task:
-    """One unit of work: a model (or the sparsity curve) on one fold."""
-
-    kind: str  # "family", "benchmark" or "sparsity"
-    name: str
-    repeat: int
-    fold: int
-    train: np.ndarray
-    test: np.ndarray
-
-
-def _scores(task: str, target: np.ndarray, prediction: np.ndarray, cutoff: float) -> dict:
-    if task == "classification":
-        return classification_metrics(target, prediction, cutoff)
-    return regression_metrics(target, prediction)
-
-
-def run_task(task: Task, frame: pd.DataFrame, schema: Schema,
-             settings: CompareSettings) -> list[dict[str, Any]]:
-    """Fit on the task's training rows, score its test rows; one record per model.
-
-    Each task runs on one thread: parallelism comes from running tasks side by
-    side (`jobs`), and nested OpenMP threads on a busy machine slow boosting by
-    an order of magnitude.
-    """
-    with threadpool_limits(limits=1):
-        return _run_task(task, frame, schema, settings)
-
-
-def _run_task(task: Task, frame: pd.DataFrame, schema: Schema,
-              settings: CompareSettings) -> list[dict[str, Any]]:
-    goal = schema.target.task
-    prepared = prepare(frame, schema)
-    target = prepared.target
-    train, test = frame.iloc[task.train], frame.iloc[task.test]
-    base = {"repeat": task.repeat, "fold": task.fold, "train_rows": len(task.train),
-            "test_rows": len(task.test)}
-    if task.kind == "benchmark":
-        prediction = fit_benchmark(settings.benchmark, goal, prepared.features, target,
-                                   task.train, task.test, settings.seed + task.repeat)
-        return [{**base, "model": task.name,
-                 **_scores(goal, target[task.test], prediction, settings.cutoff)}]
-    if task.kind == "family":
-        options = settings.family_options.get(task.name, {})
-        model = fit_model(train, schema, task.name, **options)
-        prediction = model.predict(test)
-        return [{**base, "model": task.name,
-                 **_scores(goal, target[task.test], prediction, settings.cutoff)}]
-    # the sparsity curve: one L1 path per fold, then a refit per number of features
-    from glassbox.fitting.families import sparse
-
-    options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
-               if k != "max_features"}
-    train_prepared = prepare(train, schema)
-    design = sparse.build_design(train_prepared.features, schema, min_level_rows=options.get(
-        "min_level_rows", sparse.DEFAULTS["min_level_rows"]))
-    order = sparse.entry_order(design, train_prepared.target, goal,
-                               options.get("path_points", sparse.DEFAULTS["path_points"]))
-    records = []
-    for size in range(1, len(order) + 1):
-        chosen = order[:size]
-        model = fit_model(train, schema.restricted_to(chosen), "sparse", **options)
-        records.append({**base, "model": "sparse", "max_features": size,
-                        "features": list(chosen),
-                        **_scores(goal, target[task.test], model.predict(test),
-                                  settings.cutoff)})
-    return records
-
-
 # ---------------------------------------------------------------- the comparison
 
 
@@ -265,19 +140,6 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def plan_tasks(folds, settings: CompareSettings) -> list[Task]:
-    """Every (model, fold) pair, the slowest kinds first so parallel runs finish together."""
-    tasks = []
-    for repeat, fold, train, test in folds:
-        tasks.append(Task("benchmark", f"benchmark ({settings.benchmark})", repeat, fold,
-                          train, test))
-        for family in settings.families:
-            tasks.append(Task("family", family, repeat, fold, train, test))
-        if settings.sparsity_curve and "sparse" in settings.families:
-            tasks.append(Task("sparsity", "sparse", repeat, fold, train, test))
-    return tasks
-
-
 def compare(
     frame: pd.DataFrame,
     schema: Schema,
@@ -290,43 +152,21 @@ def compare(
     settings = settings or CompareSettings()
     settings.check()
     schema.require_better()  # every fold fits: refuse at once, not in the first fold
-    prepared = prepare(frame, schema, source=source)
+    typed = type_frame(frame, schema, source)
     goal = schema.target.task
-    folds, set_aside = keep_scorable(prepared.features, make_folds(prepared.target, goal,
-                                                                   settings))
+    folds, set_aside = keep_scorable(typed.features, make_folds(typed.target, goal, settings))
     tasks = plan_tasks(folds, settings)
     records: list[dict[str, Any]] = []
     done = 0
     if progress:
         progress(0, len(tasks), "starting")
-    for task_records, label in _run_all(tasks, frame, schema, settings):
+    for task_records, label in run_all(tasks, typed, schema, settings):
         records += task_records
         done += 1
         if progress:
             progress(done, len(tasks), label)
-    return summarise(records, prepared, schema, settings, folds, set_aside)
-
-
-def _run_all(tasks: list[Task], frame: pd.DataFrame, schema: Schema, settings: CompareSettings):
-    """Yield (records, label) per finished task, in parallel when jobs > 1."""
-    if settings.jobs == 1:
-        for task in tasks:
-            yield run_task(task, frame, schema, settings), _label(task)
-        return
-    from joblib import Parallel, delayed
-
-    runner = Parallel(n_jobs=settings.jobs, return_as="generator_unordered")
-    labelled = runner(delayed(_with_label)(task, frame, schema, settings) for task in tasks)
-    yield from labelled
-
-
-def _with_label(task: Task, frame, schema, settings) -> tuple[list[dict], str]:
-    return run_task(task, frame, schema, settings), _label(task)
-
-
-def _label(task: Task) -> str:
-    name = "sparsity curve" if task.kind == "sparsity" else task.name
-    return f"{name}, fold {task.fold + 1} of repeat {task.repeat + 1}"
+    return summarise(records, Prepared(typed.pooled, typed.target, None, pd.DataFrame()),
+                     schema, settings, folds, set_aside)
 
 
 def summarise(records: list[dict[str, Any]], prepared, schema: Schema,

@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
 from glassbox import __version__
 from glassbox.core.additive import AdditiveModel, LevelsTerm, Term, centre_terms, profile_features
@@ -32,6 +33,7 @@ from glassbox.core.schema import (
 )
 from glassbox.explaining.baseline import TRAINING_ROWS, build_baseline
 from glassbox.fitting.families import get_family
+from glassbox.fitting.families.base import FamilyFit
 from glassbox.fitting.metrics import classification_metrics, regression_metrics
 
 
@@ -54,39 +56,84 @@ def fit_model(
     or dropped with a warning that counts them when `drop_missing_target` is set.
     """
     schema.require_better()
-    module = get_family(family)
-    unknown = set(options) - set(module.DEFAULTS)
-    if unknown:
-        raise OptionError(f"family '{family}' has no option(s) {', '.join(sorted(unknown))} "
-                          f"(it takes: {', '.join(module.DEFAULTS)})")
+    check_options(family, options)
     where = source or frame.attrs.get("source") or "the data"
     if drop_missing_target:
         frame = rows_with_target(frame, schema, where)
-    schema = replace(schema, features=tuple(  # a pooling rule is worked out afresh below
+    prepared = prepare(frame, unpooled(schema), source=where)
+    return fit_typed(prepared.features, prepared.target, schema, family, where=where,
+                     **options)
+
+
+def unpooled(schema: Schema) -> Schema:
+    """The schema without pooled levels where a `pool_below` rule works them out afresh
+    on the training rows: what a frame is typed with before `fit_typed`."""
+    return replace(schema, features=tuple(
         replace(f, pooled=()) if f.pool_below is not None else f for f in schema.features))
-    prepared = prepare(frame, schema, source=where)
-    features, target = prepared.features, prepared.target
+
+
+def check_options(family: str, options: dict[str, Any]) -> None:
+    """Refuse options the family does not take, naming those it does."""
+    unknown = set(options) - set(get_family(family).DEFAULTS)
+    if unknown:
+        raise OptionError(f"family '{family}' has no option(s) {', '.join(sorted(unknown))} "
+                          f"(it takes: {', '.join(get_family(family).DEFAULTS)})")
+
+
+def fit_typed(
+    features: pd.DataFrame,
+    target: np.ndarray,
+    schema: Schema,
+    family: str = "sparse",
+    *,
+    where: str = "the data",
+    summaries: bool = True,
+    **options: Any,
+) -> AdditiveModel:
+    """`fit_model` on a frame already typed by `prepare(frame, unpooled(schema))`.
+
+    `summaries=False` is for a model that only scores and is then thrown away (a fold of
+    a comparison): it keeps no training profiles, cells, development baseline or data
+    fingerprint, which cost time at scale and which nothing that scores reads; its terms,
+    intercept and so its scores are the same as with them.
+    """
+    schema = unpooled(schema)
+    check_options(family, options)
+    module = get_family(family)
+    features, schema = ready(features, target, schema, where)
+    settings = {**module.DEFAULTS, **options}
+    with threadpool_limits(limits=1, user_api="blas"):  # see DEVELOPERS.md: one thread
+        fitted = module.fit(_missing_as_level(features, schema), target, schema,
+                            task=schema.target.task, **settings)
+    return finished(fitted, features, target, schema, family, summaries)
+
+
+def ready(features: pd.DataFrame, target: np.ndarray, schema: Schema,
+          where: str) -> tuple[pd.DataFrame, Schema]:
+    """The checks before a family fit, and the rare levels pooled (`pool_rare_levels`)."""
     _check_gaps(features, where)
     features, schema = pool_rare_levels(features, schema, where)
-    task = schema.target.task
-    if task == "classification":
+    if schema.target.task == "classification":
         positives = int(target.sum())
         if positives in (0, len(target)):
             raise DataError(f"{where}: target '{schema.target.column}' has one class only "
                             f"({'all positive' if positives else 'no positive rows'}); "
                             "a classifier needs both")
-    settings = {**module.DEFAULTS, **options}
-    fitted = module.fit(_missing_as_level(features, schema), target, schema, task=task,
-                        **settings)
+    return features, schema
+
+
+def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, schema: Schema,
+             family: str, summaries: bool = True) -> AdditiveModel:
+    """A family's fit on the rows `ready` gave, as the model: terms centred on those rows,
+    metadata and (with `summaries`) the training profiles, cells and baseline."""
+    task = schema.target.task
     terms, shift = centre_terms(tuple(_level_to_missing(t) for t in fitted.terms), features)
     used = [t.feature for t in terms]
-    importance = {t.feature: float(np.mean(np.abs(t.evaluate(features[t.feature].to_numpy()))))
-                  for t in terms}
-    profiles = profile_features(features, schema)
-    # exact training summaries under numeric terms (rows with no value counted apart),
-    # for points cards (classification)
-    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float)) for t in terms
-                  if task == "classification" and not isinstance(t, LevelsTerm))
+    # each term over its training column, once: importance and the baseline read it
+    contributions = {t.feature: np.asarray(t.evaluate(features[t.feature].to_numpy()),
+                                           dtype=float) for t in terms}
+    importance = {name: float(np.mean(np.abs(values)))
+                  for name, values in contributions.items()}
     metadata = {
         "family": family,
         "parameters": fitted.parameters,
@@ -94,8 +141,8 @@ def fit_model(
         "rows": int(len(features)),
         "positive_rate": float(np.mean(target)) if task == "classification" else None,
         "target_mean": float(np.mean(target)),
-        "data_sha256": frame_fingerprint(pd.concat(
-            [features, pd.Series(target, index=features.index, name="__target__")], axis=1)),
+        "data_sha256": frame_fingerprint(features.assign(__target__=target))
+        if summaries else None,
         "features_used": used,
         "importance": importance,
         "glassbox_version": __version__,
@@ -106,9 +153,19 @@ def fit_model(
     if pooled:
         metadata["pooled_levels"] = pooled
     link = "logit" if task == "classification" else "identity"
-    model = AdditiveModel(link, float(fitted.intercept + shift), terms, schema, profiles,
-                          metadata, cells)
-    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS))
+    intercept = float(fitted.intercept + shift)
+    if not summaries:
+        return AdditiveModel(link, intercept, terms, schema, (), metadata)
+    runs: dict[str, tuple[np.ndarray, np.ndarray]] = {}  # one sort per column, shared
+    profiles = profile_features(features, schema, runs)
+    # exact training summaries under numeric terms (rows with no value counted apart),
+    # for points cards (classification)
+    cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float),
+                                 runs=runs[t.feature]) for t in terms
+                  if task == "classification" and not isinstance(t, LevelsTerm))
+    model = AdditiveModel(link, intercept, terms, schema, profiles, metadata, cells)
+    return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS,
+                                                  contributions, runs))
 
 
 def _check_gaps(features: pd.DataFrame, where: str) -> None:
@@ -147,7 +204,7 @@ def pool_rare_levels(features: pd.DataFrame, schema: Schema,
     """Each category's rare levels pooled into OTHER_LEVEL by its `pool_below` rule, the
     pooled levels written into the schema; a category with more than MANY_LEVELS levels
     and no rule is refused, naming what to write."""
-    features, specs = features.copy(), []
+    features, specs = features.copy(deep=False), []  # copy-on-write: columns replaced, not written
     for spec in schema.features:
         if spec.kind != "category" or spec.name not in features.columns:
             specs.append(spec)

@@ -13,6 +13,7 @@ from typing import Any
 from rich.console import Group, RenderableType
 from rich.text import Text
 
+from glassbox.core.provenance import fingerprint_method, short_fingerprint
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
 from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
 from glassbox.publishing.monitor_view import _table as fitted_table
@@ -82,15 +83,17 @@ def _rank(old: int | None, new: int | None) -> str:
     return f"{'–' if old is None else old} → {'–' if new is None else new}"
 
 
-FINGERPRINT_SHOWN = len("sha256:") + 16  # hex digits of a fingerprint a table shows
+FINGERPRINT_SHOWN = 16  # hex digits of a fingerprint a table shows
 
 
 def short_text(value: Any) -> str:
-    """`setting_text`, with a fingerprint (sha256:...) shortened to its first 16 hex
-    digits: 64 digits would wrap a table at 80 columns (JSON keeps them whole)."""
+    """`setting_text`, with a fingerprint (sha256:... or sha256-columns:...) shortened to
+    its first 16 hex digits: 64 digits would wrap a table at 80 columns (JSON keeps them
+    whole)."""
     text = setting_text(value)
-    if text.startswith("sha256:") and len(text) > FINGERPRINT_SHOWN:
-        return text[:FINGERPRINT_SHOWN] + "…"
+    if fingerprint_method(text) not in (None, "unknown"):
+        shown = short_fingerprint(text, FINGERPRINT_SHOWN)
+        return shown[:-3] + "…" if shown.endswith("...") else shown
     return text
 
 

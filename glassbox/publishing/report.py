@@ -9,32 +9,42 @@ it was made, so the same inputs give the same bytes.
 
 from __future__ import annotations
 
-import base64
-import html
-import io
-import re
-from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from matplotlib.figure import Figure
 
 from glassbox import __version__
 from glassbox.core.additive import AdditiveModel, LevelsTerm
-from glassbox.core.errors import DataError, OptionError
-from glassbox.core.files import output_folder, safe_file_name, write_atomic
-from glassbox.core.formats import to_markdown as table_markdown
-from glassbox.core.provenance import file_sha256
+from glassbox.core.errors import DataError, GlassboxError, OptionError
+from glassbox.core.files import safe_file_name
+from glassbox.core.provenance import (
+    csv_text_fingerprint,
+    file_sha256,
+    fingerprint_method,
+    frame_fingerprint,
+    short_fingerprint,
+)
 from glassbox.core.schema import prepare
 from glassbox.explaining import groups, shapes
 from glassbox.publishing import plots
 from glassbox.publishing.render import HEADINGS, cell, terminal_columns
+from glassbox.publishing.report_document import (  # noqa: F401  (the document: re-exported)
+    Block,
+    Bullets,
+    Paragraph,
+    Picture,
+    Report,
+    Section,
+    Table,
+    output_files,
+    to_html,
+    to_markdown,
+    unique_names,
+    write_report,
+)
 
-HTML_NAME = "report.html"
-MARKDOWN_NAME = "report.md"
-PNG_METADATA = {"Software": None}  # no version or time stamp inside the PNG bytes
 SHOWN_ROWS = 16
 
 CAUTIONS = (
@@ -50,93 +60,49 @@ CAUTIONS = (
 )
 
 
-# ---------------------------------------------------------------- the document
-
-
-@dataclass(frozen=True, eq=False)
-class Paragraph:
-    text: str
-
-
-@dataclass(frozen=True, eq=False)
-class Bullets:
-    items: tuple[str, ...]
-    caution: bool = False
-
-
-@dataclass(frozen=True, eq=False)
-class Table:
-    """A table for people; cells are shown as `render.cell` writes them."""
-
-    frame: pd.DataFrame
-    caption: str = ""
-    pairs: bool = False  # a two-column list of items and values
-
-
-@dataclass(frozen=True, eq=False)
-class Picture:
-    """A figure, saved as `name`.png beside the Markdown and embedded in the HTML."""
-
-    name: str
-    figure: Figure
-    alt: str
-
-
-Block = Paragraph | Bullets | Table | Picture
-
-
-@dataclass(frozen=True, eq=False)
-class Section:
-    title: str
-    blocks: tuple[Block, ...]
-    level: int = 2
-
-    @property
-    def anchor(self) -> str:
-        return re.sub(r"[^a-z0-9]+", "-", self.title.lower()).strip("-") or "section"
-
-
-@dataclass(frozen=True, eq=False)
-class Report:
-    """Everything the report says, in order."""
-
-    title: str
-    intro: str
-    sections: tuple[Section, ...]
-    facts: Mapping[str, object] = field(default_factory=dict)  # for tests and tools
-
-    @property
-    def pictures(self) -> list[Picture]:
-        return [b for s in self.sections for b in s.blocks if isinstance(b, Picture)]
-
-    @property
-    def headings(self) -> list[str]:
-        return [section.title for section in self.sections]
-
-
 # ---------------------------------------------------------------- building
 
 
-def check_folder(folder: str | Path) -> Path:
-    """Fail early when the report folder is an existing file."""
-    folder = Path(folder)
-    if folder.exists() and not folder.is_dir():
-        raise OptionError(f"cannot write the report into {folder}: it is a file, not a folder")
-    return folder
-
-
 def check_same_data(model: AdditiveModel, comparison, model_name: str,
-                    comparison_name: str) -> None:
-    """A comparison belongs in the report only when made on the model's own data."""
+                    comparison_name: str, frame: pd.DataFrame | None = None) -> None:
+    """A comparison belongs in the report only when made on the model's own data. A
+    comparison fingerprinted by the older method is accepted when the report's data gives
+    both files' fingerprints, each by its own method."""
     made_on = comparison.provenance.get("data_sha256")
     fitted_on = model.metadata.get("data_sha256")
     if not fitted_on:
         raise DataError(f"{model_name} records no fingerprint of its training data, so "
                         f"{comparison_name} cannot be checked against it")
-    if made_on != fitted_on:
-        raise DataError(f"{comparison_name} was made on other data than {model_name} "
-                        f"(data fingerprints differ: {str(made_on)[:19]}... against "
-                        f"{str(fitted_on)[:19]}...)")
+    if made_on == fitted_on:
+        return
+    made_how, fitted_how = fingerprint_method(made_on), fingerprint_method(fitted_on)
+    if made_how != fitted_how and frame is not None and _both_from(model, frame, made_on,
+                                                                  fitted_on):
+        return
+    if made_how != fitted_how:
+        raise DataError(f"{comparison_name} and {model_name} fingerprint their data by "
+                        f"different methods ({made_how} against {fitted_how}: one was made "
+                        "by an older glassbox), so whether they used the same data cannot be "
+                        "told; redo the older of the two")
+    raise DataError(f"{comparison_name} was made on other data than {model_name} "
+                    f"(data fingerprints differ: {short_fingerprint(made_on)} against "
+                    f"{short_fingerprint(fitted_on)})")
+
+
+def _both_from(model: AdditiveModel, frame: pd.DataFrame, made_on: str,
+               fitted_on: str) -> bool:
+    """Whether `frame` typed as the model types it gives both fingerprints."""
+    from glassbox.fitting.fit import unpooled
+
+    try:
+        typed = prepare(frame, unpooled(model.schema))
+        pooled = prepare(frame, model.schema)
+    except GlassboxError:
+        return False
+    prints = {method(table.features.assign(__target__=table.target))
+              for method in (frame_fingerprint, csv_text_fingerprint)
+              for table in (typed, pooled)}
+    return made_on in prints and fitted_on in prints
 
 
 def build_report(
@@ -172,7 +138,7 @@ def build_report(
     if comparison is not None:
         where = (f"comparison file {Path(comparison_file).name}" if comparison_file
                  else "the comparison")
-        check_same_data(model, comparison, model_name, where)
+        check_same_data(model, comparison, model_name, where, frame)
     source = source or frame.attrs.get("source") or "the data"
     if audit is not None:  # before any scoring: a mismatched audit is refused at once
         report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
@@ -310,9 +276,10 @@ def _comparison_section(comparison, cutoff: float) -> Section:
 
     settings = comparison.settings
     made_at = float(settings.get("cutoff", 0.5))
+    fingerprint = short_fingerprint(comparison.provenance.get("data_sha256"))
     note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
             f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
-            f"(fingerprint {str(comparison.provenance.get('data_sha256'))[:19]}...). ROC AUC, "
+            f"(fingerprint {fingerprint}). ROC AUC, "
             f"log loss and Brier use no cut-off; accuracy counts a probability of "
             f"{made_at:g} or more as the positive label, the cut-off the comparison was "
             "made with" + ("." if made_at == cutoff else
@@ -361,7 +328,7 @@ def _feature_sections(model: AdditiveModel) -> list[Section]:
         f"contribution raises the score, which is {way} for the person. Long tables are "
         f"thinned to at most {SHOWN_ROWS} rows here; the glassbox shapes command writes every "
         "row."),))]
-    names = _unique_names((f"feature-{safe_file_name(f)}" for f in summary.index),
+    names = unique_names((f"feature-{safe_file_name(f)}" for f in summary.index),
                           taken=["overview"])
     for feature, name in zip(summary.index, names, strict=True):
         table = shapes.term_table(model, feature)
@@ -379,17 +346,6 @@ def _feature_sections(model: AdditiveModel) -> list[Section]:
         kind = summary.loc[feature, "term"]
         sections.append(Section(f"{feature} ({kind})", blocks, level=3))
     return sections
-
-
-def _unique_names(names: Iterable[str], taken: Iterable[str] = ()) -> list[str]:
-    """The names, with -2, -3, ... added to repeats (and to names already taken)."""
-    seen: dict[str, int] = dict.fromkeys(taken, 1)
-    out = []
-    for name in names:
-        count = seen.get(name, 0)
-        seen[name] = count + 1
-        out.append(name if count == 0 else f"{name}-{count + 1}")
-    return out
 
 
 def _percent(share: float) -> str:
@@ -447,153 +403,3 @@ def _groups_section(model: AdditiveModel, tables: Mapping[str, pd.DataFrame],
                                                       table["small"], min_group)
         blocks.append(Table(shown, caption))
     return Section(title, tuple(blocks))
-
-
-# ---------------------------------------------------------------- rendering
-
-
-def png_bytes(figure: Figure) -> bytes:
-    """A figure as PNG bytes that repeat exactly for the same figure."""
-    buffer = io.BytesIO()
-    figure.savefig(buffer, format="png", metadata=PNG_METADATA)
-    return buffer.getvalue()
-
-
-def picture_files(report: Report) -> dict[str, bytes]:
-    """File name to PNG bytes for every picture of the report."""
-    return {_picture_file(picture): png_bytes(picture.figure) for picture in report.pictures}
-
-
-def _picture_file(picture: Picture) -> str:
-    return f"{picture.name}.png"
-
-
-def output_files(report: Report | None = None) -> list[tuple[str, str]]:
-    """(name, kind) of the files `write_report` writes: the two pages, then the pictures
-    (known once the report is built)."""
-    pictures = [] if report is None else report.pictures
-    return [(HTML_NAME, "html"), (MARKDOWN_NAME, "markdown"),
-            *((_picture_file(picture), "png") for picture in pictures)]
-
-
-def _cells(frame: pd.DataFrame) -> pd.DataFrame:
-    return frame.map(lambda value: cell(value)).astype(str)
-
-
-STYLE = """
-body { margin: 0; background: #fbfbf8; color: #1d2733;
-  font: 15px/1.5 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; }
-main { max-width: 920px; margin: 0 auto; padding: 24px 28px 64px; background: #fff;
-  border-left: 1px solid #e3e3dc; border-right: 1px solid #e3e3dc; }
-h1 { font-size: 26px; margin: 8px 0 4px; color: #14324f; }
-h2 { font-size: 20px; margin: 36px 0 10px; padding-bottom: 4px; color: #14324f;
-  border-bottom: 2px solid #c9d6e3; }
-h3 { font-size: 16px; margin: 28px 0 8px; color: #14324f; }
-p.intro { color: #55606b; margin-top: 0; }
-nav ol { columns: 2; margin: 8px 0 0; padding-left: 22px; font-size: 14px; }
-nav a { color: #1f4e79; text-decoration: none; }
-ul.caution { background: #fdf6e7; border-left: 5px solid #b7791f; margin: 0;
-  padding: 12px 16px 12px 34px; }
-ul.caution li { margin: 4px 0; }
-table { border-collapse: collapse; margin: 8px 0 4px; font-size: 13px; }
-caption { caption-side: top; text-align: left; font-weight: bold; padding: 4px 0; }
-th { text-align: left; background: #eef2f6; border-bottom: 1px solid #9aaabb; }
-th, td { padding: 3px 10px 3px 6px; vertical-align: top; }
-td { border-bottom: 1px solid #e6e9ec; overflow-wrap: anywhere; }
-td.number { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-table.pairs td:first-child { font-weight: bold; white-space: nowrap; }
-tr:nth-child(even) td { background: #f8f9fa; }
-figure { margin: 10px 0; }
-img { max-width: 100%; height: auto; border: 1px solid #e6e9ec; }
-"""
-
-
-def _numeric(column: pd.Series) -> bool:
-    text = column.astype(str).str.replace(r"[%,]", "", regex=True).str.strip()
-    return bool(len(text)) and bool(pd.to_numeric(text.where(text != "", "0"),
-                                                  errors="coerce").notna().all())
-
-
-def _html_table(table: Table) -> str:
-    frame = _cells(table.frame)
-    numeric = [_numeric(frame[c]) for c in frame.columns]
-    parts = ['<table class="pairs">' if table.pairs else "<table>"]
-    if table.caption:
-        parts.append(f"<caption>{html.escape(table.caption)}</caption>")
-    parts.append("<thead><tr>" + "".join(f"<th>{html.escape(str(c))}</th>"
-                                        for c in frame.columns) + "</tr></thead><tbody>")
-    for row in frame.itertuples(index=False):
-        cells = "".join(f'<td class="number">{html.escape(v)}</td>' if num
-                        else f"<td>{html.escape(v)}</td>"
-                        for v, num in zip(row, numeric, strict=True))
-        parts.append(f"<tr>{cells}</tr>")
-    parts.append("</tbody></table>")
-    return "\n".join(parts)
-
-
-def _html_block(block: Block, images: Mapping[str, bytes]) -> str:
-    if isinstance(block, Paragraph):
-        return f"<p>{html.escape(block.text)}</p>"
-    if isinstance(block, Bullets):
-        kind = ' class="caution"' if block.caution else ""
-        items = "".join(f"<li>{html.escape(item)}</li>" for item in block.items)
-        return f"<ul{kind}>{items}</ul>"
-    if isinstance(block, Table):
-        return _html_table(block)
-    data = base64.b64encode(images[f"{block.name}.png"]).decode("ascii")
-    width, height = (int(round(v)) for v in block.figure.get_size_inches() * block.figure.dpi)
-    return (f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(block.alt)}" '
-            f'width="{width}" height="{height}"></figure>')
-
-
-def to_html(report: Report, images: Mapping[str, bytes] | None = None) -> str:
-    """One self-contained page: CSS inline, pictures as data URIs, no scripts or links out."""
-    images = picture_files(report) if images is None else images
-    anchors = _unique_names(s.anchor for s in report.sections)
-    contents = "".join(f'<li><a href="#{anchor}">{html.escape(s.title)}</a></li>'
-                       for s, anchor in zip(report.sections, anchors, strict=True)
-                       if s.level == 2)
-    body = [f"<h1>{html.escape(report.title)}</h1>",
-            f'<p class="intro">{html.escape(report.intro)}</p>',
-            f"<nav><strong>Contents</strong><ol>{contents}</ol></nav>"]
-    for section, anchor in zip(report.sections, anchors, strict=True):
-        body.append(f'<h{section.level} id="{anchor}">{html.escape(section.title)}'
-                    f"</h{section.level}>")
-        body += [_html_block(block, images) for block in section.blocks]
-    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
-            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
-            f"<title>{html.escape(report.title)}</title>\n<style>{STYLE}</style>\n</head>\n"
-            "<body>\n<main>\n" + "\n".join(body) + "\n</main>\n</body>\n</html>\n")
-
-
-def to_markdown(report: Report) -> str:
-    """The same content as Markdown; pictures are linked as NAME.png beside the file."""
-    lines = [f"# {report.title}", "", report.intro, ""]
-    for section in report.sections:
-        lines += ["#" * section.level + f" {section.title}", ""]
-        for block in section.blocks:
-            if isinstance(block, Paragraph):
-                lines += [block.text, ""]
-            elif isinstance(block, Bullets):
-                prefix = "> " if block.caution else ""
-                lines += [f"{prefix}- {item}" for item in block.items] + [""]
-            elif isinstance(block, Table):
-                if block.caption:
-                    lines += [f"**{block.caption}**", ""]
-                lines += [table_markdown(_cells(block.frame)).rstrip("\n"), ""]
-            else:
-                lines += [f"![{block.alt}]({block.name}.png)", ""]
-    return "\n".join(lines)
-
-
-def write_report(report: Report, folder: str | Path) -> list[Path]:
-    """Write report.html, report.md and the pictures into `folder`; return the paths."""
-    folder = output_folder(check_folder(folder), "the report")
-    images = picture_files(report)
-    paths = []
-    for name, content in images.items():
-        write_atomic(folder / name, content)
-        paths.append(folder / name)
-    write_atomic(folder / MARKDOWN_NAME, to_markdown(report))
-    write_atomic(folder / HTML_NAME, to_html(report, images))
-    return [folder / HTML_NAME, folder / MARKDOWN_NAME, *paths]

@@ -183,7 +183,7 @@ def signed_refit(matrix: np.ndarray, target: np.ndarray, signs: np.ndarray, task
         estimator = None
         intercept, coefs = _intercept_only(target, task), np.zeros(count)
         if free.any():
-            estimator = make().fit(matrix[:, free], target)
+            estimator = make().fit(matrix if free.all() else matrix[:, free], target)
             intercept = float(np.ravel(estimator.intercept_)[0])
             coefs[free] = np.ravel(estimator.coef_)
         wrong = free & (signs * coefs < -ZERO)

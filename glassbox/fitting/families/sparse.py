@@ -47,6 +47,7 @@ from glassbox.fitting.families.signed import (
 
 NAME = "sparse"
 DEFAULTS = {"max_features": None, "ridge": 1.0, "min_level_rows": 30, "path_points": 40}
+ENTERED = 1e-10  # a coefficient above this size on the path has entered the model
 PATH_SPAN = 4.0  # the L1 path runs over four decades of the penalty above its smallest value
 DIRECTION_SIGNS = {"increasing": 1, "decreasing": -1}
 POOLED = "(rare levels)"  # the design column of a category's pooled rare levels
@@ -125,12 +126,50 @@ def build_design(features: pd.DataFrame, schema: Schema, *,
             # a column with one present value and no gaps carries no information
     if not blocks:
         raise OptionError("no feature varies in the training data; nothing to fit")
-    raw = np.column_stack(blocks)
-    centre = raw.mean(axis=0)
-    scale = np.where(scaled, raw.std(axis=0), 1.0)
-    scale[scale == 0] = 1.0
-    return Design((raw - centre) / scale, tuple(feature_of), tuple(level_of), centre, scale,
+    matrix, centre, scale = standardised(blocks, np.array(scaled))
+    blocks.clear()
+    return Design(matrix, tuple(feature_of), tuple(level_of), centre, scale,
                   references, levels, np.array(signs, dtype=float), stand_ins, pooled)
+
+
+ROWS_AT_ONCE = 4096  # rows per block of the matrix written at once (fits in the cache)
+
+
+def standardised(blocks: list[np.ndarray], scaled: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The columns side by side (as np.column_stack lays them out), centred, and divided by
+    their standard deviation where `scaled` (a constant column by 1); the centres and scales.
+
+    The numbers are those of raw.mean(axis=0), raw.std(axis=0) and (raw - centre) / scale on
+    the stacked matrix: a row-major matrix is reduced over its rows one row after another,
+    which is what a cumulative sum does down one column (numpy sums a single column
+    pairwise, which rounds differently); the matrix is then written a block of rows at a
+    time instead of a column at a time, which touches each row of it once. (A matrix of
+    one column is contiguous down it, and numpy sums it pairwise: so is it here.)"""
+    rows = len(blocks[0])
+    work = np.empty(rows)  # one buffer for every column's sums: no fresh pages per column
+
+    def total(values: np.ndarray) -> float:
+        # a matrix of one column is one run of numbers, which numpy sums pairwise
+        return np.cumsum(values, out=work)[-1] if len(blocks) > 1 else np.add.reduce(values)
+
+    centre = np.array([total(values) for values in blocks]) / rows
+    sums = []
+    for values, middle in zip(blocks, centre, strict=True):
+        np.subtract(values, middle, out=work)
+        np.square(work, out=work)
+        sums.append(total(work))
+    spread = np.sqrt(np.array(sums) / rows)
+    scale = np.where(scaled, spread, 1.0)
+    scale[scale == 0] = 1.0
+    matrix = np.empty((rows, len(blocks)))
+    for start in range(0, rows, ROWS_AT_ONCE):
+        part = matrix[start:start + ROWS_AT_ONCE]
+        for at, values in enumerate(blocks):
+            part[:, at] = values[start:start + ROWS_AT_ONCE]
+        part -= centre
+        part /= scale
+    return matrix, centre, scale
 
 
 def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> list[str]:
@@ -142,12 +181,19 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
         model = LogisticRegression(l1_ratio=1.0, solver="liblinear", intercept_scaling=100.0,
                                    tol=1e-6, max_iter=2000, random_state=0)
         path = []
+        # with no declared direction the path is only read for the order features enter
+        # in, so it stops once every feature has entered: the later penalties, weaker,
+        # add no feature to the order (with directions the whole path is checked for signs)
+        unsigned, waiting = not design.signs.any(), set(design.feature_of)
         for c_value in penalties:
             model.set_params(C=float(c_value))
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", ConvergenceWarning)
                 model.fit(matrix, target)
             path.append(model.coef_.ravel().copy())
+            waiting -= {design.feature_of[c] for c in np.flatnonzero(np.abs(path[-1]) > ENTERED)}
+            if unsigned and not waiting:
+                break
         coefs = np.array(path).T
         if breaks_signs(coefs, design.signs):
             coefs = logistic_l1_path(matrix, target, design.signs, penalties)
@@ -160,7 +206,7 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
     order: list[str] = []
     strength: dict[str, float] = {}
     for step in range(coefs.shape[1]):
-        active = np.abs(coefs[:, step]) > 1e-10
+        active = np.abs(coefs[:, step]) > ENTERED
         newcomers = {}
         for column in np.flatnonzero(active):
             feature = design.feature_of[column]
@@ -216,6 +262,12 @@ def fit_estimator(
     else:
         order = groups
         chosen = groups
+    return refit(design, target, task, chosen, order, ridge)
+
+
+def refit(design: Design, target: np.ndarray, task: str, chosen: list[str], order: list[str],
+          ridge: float) -> SparseFit:
+    """The refit of the chosen features' columns of a design under their declared signs."""
     mask = design.columns_of(set(chosen))
 
     def make() -> LogisticRegression | LinearRegression | Ridge:
@@ -227,7 +279,8 @@ def fit_estimator(
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)
-        estimator, free, intercept, coefs = signed_refit(design.matrix[:, mask], target,
+        columns = design.matrix if mask.all() else design.matrix[:, mask]  # no copy if all
+        estimator, free, intercept, coefs = signed_refit(columns, target,
                                                          design.signs[mask], task, ridge, make)
     unsettled = any(issubclass(w.category, ConvergenceWarning) for w in caught)
     selected = np.flatnonzero(mask)
@@ -246,6 +299,15 @@ def fit(
         features, target, schema, task=task, max_features=max_features, ridge=ridge,
         min_level_rows=min_level_rows, path_points=path_points,
     )
+    parameters = {"max_features": max_features, "ridge": ridge,
+                  "min_level_rows": min_level_rows, "path_points": path_points}
+    return compiled(fitted, features, schema, parameters)
+
+
+def compiled(fitted: SparseFit, features: pd.DataFrame, schema: Schema,
+             parameters: dict[str, Any]) -> FamilyFit:
+    """A refit as term tables, with the details a model file records."""
+    min_level_rows = parameters["min_level_rows"]
     design, chosen, order = fitted.design, fitted.chosen, fitted.order
     selected = np.flatnonzero(design.columns_of(set(chosen)))
     # each chosen column's coefficient per unit of its raw column, and its value at the
@@ -297,8 +359,6 @@ def fit(
             "the refit stopped at its iteration limit before converging; with ridge = 0 this "
             "usually means a level or feature separates the classes and its coefficient has "
             "no finite maximum-likelihood value; use a ridge above 0")
-    parameters = {"max_features": max_features, "ridge": ridge,
-                  "min_level_rows": min_level_rows, "path_points": path_points}
     return FamilyFit(intercept, tuple(terms), parameters, details)
 
 
