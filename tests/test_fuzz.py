@@ -78,9 +78,9 @@ def test_damaged_files_end_cleanly(inputs, kind, tmp_path, monkeypatch):
         # `report` reads these; its pictures come from the model and the data alone (not
         # damaged here) and take seconds to rasterise, so they are not rasterised here. The
         # fuzz section of bench/run.py runs these cases whole, as real processes.
-        from glassbox.publishing import report
+        from glassbox.publishing import report_document
 
-        monkeypatch.setattr(report, "png_bytes", lambda figure: b"")
+        monkeypatch.setattr(report_document, "png_bytes", lambda figure: b"")
     failures = []
     for number in range(CASES[kind]):
         case = prepare_case(inputs, kind, number, tmp_path / "case")
