@@ -232,7 +232,11 @@ def command(setup, out: Path, *extra: str) -> list[str]:
 @pytest.fixture(scope="module")
 def big_file(setup):
     *_, folder, _ = setup
-    credit_rows_with_gaps().head(2000).to_csv(folder / "big.csv", index=False)
+    # long enough (800 partitions) that the run is still going when the first part is on
+    # disk, however fast the planner gets: these tests stop it mid-run
+    rows = credit_rows_with_gaps()
+    pd.concat([rows] * 5, ignore_index=True).head(20_000).to_csv(folder / "big.csv",
+                                                                  index=False)
 
 
 def descendants(pid: int) -> list:
