@@ -73,6 +73,19 @@ def make_data(rows: int, folder: Path) -> None:
 # The Python contenders (`python bench/scale_run.py fit KIND STEM`)
 # ---------------------------------------------------------------------------
 
+def filled(frame, name: str, state: dict, fitting: bool):
+    """A number's values with each gap at the median of the present values, and its 0/1
+    missing indicator when the training column had gaps (None otherwise)."""
+    import numpy as np
+
+    values = frame[name].to_numpy(dtype=float)
+    gaps = np.isnan(values)
+    if fitting:
+        state["medians"][name] = (float(np.median(values[~gaps])), bool(gaps.any()))
+    median, indicator = state["medians"][name]
+    return np.where(gaps, median, values), (gaps.astype(float) if indicator else None)
+
+
 def plain_design(frame, numbers: list[str], categories: list[str], state: dict | None = None):
     """The sparse family's design in plain numpy: a gap gets the median of the present
     values plus a 0/1 missing indicator, numbers are standardised, a category gets 0/1
@@ -84,15 +97,11 @@ def plain_design(frame, numbers: list[str], categories: list[str], state: dict |
     state = state if state is not None else {"medians": {}, "levels": {}}
     blocks, scaled = [], []
     for name in numbers:
-        values = frame[name].to_numpy(dtype=float)
-        gaps = np.isnan(values)
-        if fitting:
-            state["medians"][name] = (float(np.median(values[~gaps])), bool(gaps.any()))
-        median, indicator = state["medians"][name]
-        blocks.append(np.where(gaps, median, values))
+        values, indicator = filled(frame, name, state, fitting)
+        blocks.append(values)
         scaled.append(True)
-        if indicator:
-            blocks.append(gaps.astype(float))
+        if indicator is not None:
+            blocks.append(indicator)
             scaled.append(False)
     for name in categories:
         column = frame[name].astype(str)
@@ -119,16 +128,12 @@ def plain_gam_matrix(frame, numbers: list[str], categories: list[str], state: di
     state = state if state is not None else {"medians": {}, "levels": {}}
     blocks, terms = [], []
     for name in numbers:
-        values = frame[name].to_numpy(dtype=float)
-        gaps = np.isnan(values)
-        if fitting:
-            state["medians"][name] = (float(np.median(values[~gaps])), bool(gaps.any()))
-        median, indicator = state["medians"][name]
+        values, indicator = filled(frame, name, state, fitting)
         terms.append(s(len(blocks), n_splines=20))
-        blocks.append(np.where(gaps, median, values))
-        if indicator:
+        blocks.append(values)
+        if indicator is not None:
             terms.append(l(len(blocks)))
-            blocks.append(gaps.astype(float))
+            blocks.append(indicator)
     for name in categories:
         column = frame[name].astype(str).to_numpy()
         if fitting:

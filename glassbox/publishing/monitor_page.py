@@ -36,8 +36,8 @@ from glassbox.publishing.monitor_view import (
     uses_points,
     worst_first,
 )
-from glassbox.publishing.report import (
-    CAUTIONS,
+from glassbox.publishing.report import CAUTIONS
+from glassbox.publishing.report_document import (
     Block,
     Bullets,
     Paragraph,
