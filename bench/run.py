@@ -142,8 +142,15 @@ def family_rows(sets: dict[str, tuple]) -> list[str]:
         plans, matrix, _ = spline.plan_terms(prepared.features, schema, 20)
 
         def plain_gam(plans=plans, matrix=matrix, target=prepared.target):
-            spline.fit_quietly(spline.make_gam("classification", plans, 0.6, 100), matrix,
-                               target)
+            import contextlib
+            import io
+            import warnings
+
+            from pygam import LogisticGAM
+
+            with contextlib.redirect_stdout(io.StringIO()), warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                LogisticGAM(spline.term_list(plans, 0.6), max_iter=100).fit(matrix, target)
 
         reference = boosted.fit_estimators(prepared.features, prepared.target, schema,
                                            task="classification", **boosted.DEFAULTS)
