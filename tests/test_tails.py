@@ -22,7 +22,7 @@ from glassbox.core.schema import Schema
 from glassbox.publishing.report_recourse import recourse_section
 from recourse import audit
 from recourse.batch import outcome_frame, plans_frame
-from recourse.cli import result_view
+from recourse.views import result_view
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records
 from recourse.scale import plan_partition
