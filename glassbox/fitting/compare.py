@@ -30,6 +30,18 @@ from glassbox.core.errors import OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
 from glassbox.core.schema import Schema
 from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings
+from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
+from glassbox.fitting.compare_checks import (
+    FLAG_RULE,
+    NO_SKILL,
+    STEP_RULE,
+    base_rate,
+    calibration_tables,
+    flag_table,
+    no_skill_records,
+    pop_predictions,
+    sparsity_steps,
+)
 from glassbox.fitting.compare_folds import (
     SET_ASIDE_RULE,
     keep_scorable,
@@ -51,15 +63,25 @@ from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
 )
 
 FORMAT = "glassbox-comparison"
-VERSION = 2  # 2: costs signed as the screen shows them, the schema inside; 1 is still read
-CLASSIFICATION_METRICS = ("auc", "log_loss", "brier", "accuracy")
+# 3: Gini and KS, the no-skill model and its flags, calibration, the sparsity curve's
+# entering features; 2: costs signed as the screen shows them, the schema inside. 1 and 2
+# are still read (what they lack is said, not invented).
+VERSION = 3
+READ_VERSIONS = (1, 2, 3)
+CLASSIFICATION_METRICS = ("auc", "gini", "ks", "log_loss", "brier", "accuracy")
 REGRESSION_METRICS = ("rmse", "mae", "r2")
-HIGHER_IS_BETTER = {"auc": True, "accuracy": True, "r2": True, "log_loss": False,
-                    "brier": False, "rmse": False, "mae": False}
-METRIC_NAMES = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier",
-                "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+HIGHER_IS_BETTER = {"auc": True, "gini": True, "ks": True, "accuracy": True, "r2": True,
+                    "log_loss": False, "brier": False, "rmse": False, "mae": False}
+METRIC_NAMES = {"auc": "ROC AUC", "gini": "Gini", "ks": "KS", "log_loss": "log loss",
+                "brier": "Brier", "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE",
+                "r2": "R²"}
+METRIC_DEFINITIONS = ("Gini = 2 × ROC AUC − 1 (the accuracy ratio); KS: the largest distance "
+                      "between the distribution functions of the predicted probabilities of "
+                      "the positives and of the negatives (two-sample Kolmogorov-Smirnov); "
+                      "both per fold on its test rows, like every metric")
 COST_CONVENTION = ("cost = benchmark minus glass-box model for metrics where higher is better "
-                   "(auc, accuracy, r2), glass-box model minus benchmark where lower is better "
+                   "(auc, gini, ks, accuracy, r2), glass-box model minus benchmark where lower "
+                   "is better "
                    "(log_loss, brier, rmse, mae): a positive cost means the glass-box model "
                    "does worse, a negative one that it does better")
 
@@ -113,19 +135,57 @@ class Comparison:
     settings: dict[str, Any]
     provenance: dict[str, Any]
     schema: dict[str, Any] | None = None  # as in model files; None in version 1 files
+    # new in version 3; None when read from an older file (which did not hold them)
+    base_rate: dict[str, Any] | None = None
+    flags: pd.DataFrame | None = None             # model, metric, mean, no_skill, beats
+    calibration: pd.DataFrame | None = None       # model, decile, rows, mean_predicted, ...
+    calibration_fit: pd.DataFrame | None = None   # model, slope, intercept, rows, note
+    sparsity_steps: pd.DataFrame | None = None    # repeat, fold, max_features, joined, ...
+    version: int = VERSION                        # the format of the file it was read from
+
+    def absent(self) -> list[str]:
+        """What this comparison lacks because its file was written by an older glassbox."""
+        names = {"base_rate": "the base rate and the no-skill model",
+                 "flags": "the flags of models that do not beat the no-skill model"}
+        if self.task == "classification":
+            names["calibration"] = "the calibration tables (deciles, slope and intercept)"
+        if not self.sparsity.empty:
+            names["sparsity_steps"] = "the feature that joins at each size of the curve"
+        missing = [words for key, words in names.items() if getattr(self, key) is None]
+        if self.task == "classification" and not (self.models["metric"] == "ks").any():
+            missing.insert(0, "Gini and KS")
+        return missing
 
     def to_dict(self) -> dict[str, Any]:
         def records(table: pd.DataFrame) -> list[dict]:
             return [{k: _plain(v) for k, v in row.items()}
                     for row in table.to_dict(orient="records")]
 
-        return {"format": FORMAT, "version": VERSION, "headline": self.headline,
-                "task": self.task, "primary_metric": self.primary,
-                "cost_convention": COST_CONVENTION, "schema": self.schema,
-                "schema_sha256": None if self.schema is None else checksum(self.schema),
-                "settings": self.settings, "provenance": self.provenance,
-                "models": records(self.models), "costs": records(self.costs),
-                "sparsity_curve": records(self.sparsity), "folds": records(self.folds)}
+        document = {
+            "format": FORMAT, "version": VERSION, "headline": self.headline,
+            "task": self.task, "primary_metric": self.primary,
+            "cost_convention": COST_CONVENTION, "metric_definitions": METRIC_DEFINITIONS,
+            "schema": self.schema,
+            "schema_sha256": None if self.schema is None else checksum(self.schema),
+            "settings": self.settings, "provenance": self.provenance,
+            "base_rate": self.base_rate, "models": records(self.models),
+            "no_skill_rule": FLAG_RULE,
+            "no_skill_flags": None if self.flags is None else records(self.flags),
+            "costs": records(self.costs),
+            "calibration_definition": CALIBRATION_DEFINITION,
+            "calibration_fit": None if self.calibration_fit is None
+            else records(self.calibration_fit),
+            "calibration_deciles": None if self.calibration is None
+            else records(self.calibration),
+            "sparsity_curve": records(self.sparsity),
+            "sparsity_step_rule": STEP_RULE,
+            "sparsity_steps": None if self.sparsity_steps is None
+            else records(self.sparsity_steps),
+            "folds": records(self.folds)}
+        if self.task != "classification":  # calibration is of probabilities
+            for key in ("calibration_definition", "calibration_fit", "calibration_deciles"):
+                document.pop(key)
+        return document
 
 
 def _plain(value: Any) -> Any:
@@ -176,16 +236,22 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     goal = schema.target.task
     metrics = CLASSIFICATION_METRICS if goal == "classification" else REGRESSION_METRICS
     primary = metrics[0]
+    records, predictions = pop_predictions(records)
+    target = np.asarray(prepared.target)
+    records += no_skill_records(target, folds, goal, settings.cutoff)
+    metrics = tuple(m for m in metrics if any(m in record for record in records))
     table = pd.DataFrame(records).sort_values(["repeat", "fold", "model"], kind="mergesort")
     curve_rows = table[table.get("max_features", pd.Series(np.nan, index=table.index)).notna()]
     fold_rows = table.drop(curve_rows.index)
-    fold_rows = fold_rows.drop(columns=[c for c in ("max_features", "features")
-                                        if c in fold_rows], errors="ignore")
+    fold_rows = fold_rows.drop(columns=[c for c in ("max_features", "features", "joined",
+                                                    "on_path", "left") if c in fold_rows],
+                               errors="ignore")
     train_rows = np.mean([len(f[2]) for f in folds])
     test_rows = np.mean([len(f[3]) for f in folds])
     share = float(test_rows / train_rows)
     benchmark = f"benchmark ({settings.benchmark})"
-    order = [*settings.families, benchmark]
+    order = [*settings.families, benchmark, NO_SKILL]
+    kinds = {benchmark: "black box", NO_SKILL: "no skill"}
     model_rows, cost_rows = [], []
     base = fold_rows[fold_rows["model"] == benchmark].set_index(["repeat", "fold"])
     for name in order:
@@ -193,11 +259,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
         for metric in metrics:
             spread = interval(rows[metric], share, bounds=METRIC_RANGES[metric])
             model_rows.append({"model": name,
-                               "kind": "black box" if name == benchmark else "glass box",
+                               "kind": kinds.get(name, "glass box"),
                                "metric": metric,
                                **{k: spread[k] for k in ("mean", "lower", "upper")},
                                "interval_note": spread["note"]})
-            if name == benchmark:
+            if name in kinds:
                 continue
             worse = base.loc[rows.index, metric] - rows[metric]  # higher is better
             result = interval(worse if HIGHER_IS_BETTER[metric] else -worse, share,
@@ -210,6 +276,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     models = pd.DataFrame(model_rows)
     costs = pd.DataFrame(cost_rows)
     sparsity = _sparsity(curve_rows, metrics, share)
+    flags = flag_table(models, metrics, HIGHER_IS_BETTER)
+    calibration = calibration_fit_table = None
+    if goal == "classification":
+        calibration, calibration_fit_table = calibration_tables(
+            predictions, folds, target, order[:-1])
     headline = make_headline(models, costs, primary, benchmark)
     set_aside = set_aside or {"test_rows": 0}
     if set_aside["test_rows"]:
@@ -230,7 +301,10 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "interval": INTERVAL_METHOD,
                        "test_to_train_ratio": share}
     return Comparison(goal, primary, headline, models, costs, fold_rows.reset_index(drop=True),
-                      sparsity, settings_record, provenance, schema.to_dict())
+                      sparsity, settings_record, provenance, schema.to_dict(),
+                      base_rate=base_rate(target, goal), flags=flags,
+                      calibration=calibration, calibration_fit=calibration_fit_table,
+                      sparsity_steps=sparsity_steps(curve_rows))
 
 
 def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) -> pd.DataFrame:

@@ -29,3 +29,26 @@ def regression_metrics(target: np.ndarray, prediction: np.ndarray) -> dict[str, 
         "mae": float(metrics.mean_absolute_error(target, prediction)),
         "r2": float(metrics.r2_score(target, prediction)),
     }
+
+
+def ks_statistic(target: np.ndarray, score: np.ndarray) -> float:
+    """Kolmogorov-Smirnov statistic: the largest distance between the empirical
+    distribution functions of the scores of the positives and of the negatives."""
+    target = np.asarray(target, dtype=float) == 1.0
+    score = np.asarray(score, dtype=float)
+    positives, negatives = np.sort(score[target]), np.sort(score[~target])
+    if not len(positives) or not len(negatives):
+        return float("nan")
+    points = np.unique(score)  # the distribution functions only jump at observed scores
+    below_positive = np.searchsorted(positives, points, side="right") / len(positives)
+    below_negative = np.searchsorted(negatives, points, side="right") / len(negatives)
+    return float(np.max(np.abs(below_positive - below_negative)))
+
+
+def separation_metrics(target: np.ndarray, probability: np.ndarray) -> dict[str, float]:
+    """Gini (2 × ROC AUC − 1, the accuracy ratio) and the KS statistic."""
+    target = np.asarray(target, dtype=float)
+    probability = np.asarray(probability, dtype=float)
+    both = len(np.unique(target)) == 2
+    auc = float(metrics.roc_auc_score(target, probability)) if both else float("nan")
+    return {"gini": 2.0 * auc - 1.0, "ks": ks_statistic(target, probability)}
