@@ -50,6 +50,15 @@ from glassbox.fitting.compare_folds import (
     run_all,
     type_frame,
 )
+from glassbox.fitting.compare_tables import (  # noqa: F401  (tables for people: re-exported)
+    accuracy_table,
+    cost_note,
+    cost_table,
+    metric_heading,
+    rerun_command,
+    sparsity_table,
+    to_markdown,
+)
 from glassbox.fitting.families import FAMILIES
 from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     CLIPPED,
@@ -61,6 +70,13 @@ from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     interval,
     read_within_ranges,
 )
+from glassbox.fitting.metrics import (  # noqa: F401  (re-exported)
+    CLASSIFICATION_METRICS,
+    HIGHER_IS_BETTER,
+    METRIC_DEFINITIONS,
+    METRIC_NAMES,
+    REGRESSION_METRICS,
+)
 
 FORMAT = "glassbox-comparison"
 # 3: Gini and KS, the no-skill model and its flags, calibration, the sparsity curve's
@@ -68,17 +84,6 @@ FORMAT = "glassbox-comparison"
 # are still read (what they lack is said, not invented).
 VERSION = 3
 READ_VERSIONS = (1, 2, 3)
-CLASSIFICATION_METRICS = ("auc", "gini", "ks", "log_loss", "brier", "accuracy")
-REGRESSION_METRICS = ("rmse", "mae", "r2")
-HIGHER_IS_BETTER = {"auc": True, "gini": True, "ks": True, "accuracy": True, "r2": True,
-                    "log_loss": False, "brier": False, "rmse": False, "mae": False}
-METRIC_NAMES = {"auc": "ROC AUC", "gini": "Gini", "ks": "KS", "log_loss": "log loss",
-                "brier": "Brier", "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE",
-                "r2": "R²"}
-METRIC_DEFINITIONS = ("Gini = 2 × ROC AUC − 1 (the accuracy ratio); KS: the largest distance "
-                      "between the distribution functions of the predicted probabilities of "
-                      "the positives and of the negatives (two-sample Kolmogorov-Smirnov); "
-                      "both per fold on its test rows, like every metric")
 COST_CONVENTION = ("cost = benchmark minus glass-box model for metrics where higher is better "
                    "(auc, gini, ks, accuracy, r2), glass-box model minus benchmark where lower "
                    "is better "
@@ -349,115 +354,3 @@ def make_headline(models: pd.DataFrame, costs: pd.DataFrame, primary: str,
     return (f"{who}{best['model']} ({name} {best['mean']:.3f}). Against the {benchmark} it "
             f"{what} {cost:.3f} {name} (95% interval {low:.3f} to {high:.3f}{caveat}): "
             f"{verdict}.")
-
-
-# ---------------------------------------------------------------- tables for people
-
-
-def _range(lower: float, upper: float, digits: int, note: Any = None) -> str:
-    """An interval for people; a clipped or zero-width interval says so."""
-    if np.isnan(lower):
-        return ""
-    text = f"{lower:.{digits}f} to {upper:.{digits}f}"
-    marks = [mark for key, mark in ((CLIPPED, "clipped"), (NO_VARIANCE, "no variance"))
-             if isinstance(note, str) and key in note]
-    return f"{text} ({', '.join(marks)})" if marks else text
-
-
-def metric_heading(comparison: Comparison, metric: str) -> str:
-    """A metric's name for people; accuracy says the cut-off it counts at."""
-    if metric == "accuracy":
-        return f"accuracy at {comparison.settings.get('cutoff', 0.5):g}"
-    return METRIC_NAMES[metric]
-
-
-def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """One row per model: the primary metric with its interval, then the other metrics."""
-    models, primary = comparison.models, comparison.primary
-    rows = []
-    for name in dict.fromkeys(models["model"]):
-        mine = models[models["model"] == name].set_index("metric")
-        row: dict[str, Any] = {"model": name}
-        for metric in mine.index:
-            row[metric_heading(comparison, metric)] = f"{mine.loc[metric, 'mean']:.{digits}f}"
-            if metric == primary:
-                row["95% interval"] = _range(mine.loc[metric, "lower"],
-                                             mine.loc[metric, "upper"], digits,
-                                             mine.loc[metric].get("interval_note"))
-        rows.append(row)
-    return pd.DataFrame(rows)
-
-
-def cost_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """Each glass-box model's paired cost against the benchmark in the primary metric
-    (positive: the glass box is worse; see `COST_CONVENTION`)."""
-    gaps = comparison.costs[comparison.costs["metric"] == comparison.primary]
-    rows = []
-    for gap in gaps.to_dict(orient="records"):
-        rows.append({"model": gap["model"],
-                     f"cost in {METRIC_NAMES[comparison.primary]}":
-                         f"{gap['cost']:.{digits}f}",
-                     "95% interval": _range(gap["lower"], gap["upper"], digits,
-                                            gap.get("interval_note")),
-                     "p-value": f"{gap['p_value']:.3f}",
-                     "differs from zero": "yes" if gap["distinguishable"] else "no"})
-    return pd.DataFrame(rows)
-
-
-def cost_note(comparison: Comparison) -> str:
-    """What the cost column means, in a line."""
-    name = METRIC_NAMES[comparison.primary]
-    if HIGHER_IS_BETTER[comparison.primary]:
-        way = f"the benchmark's {name} minus the glass-box model's"
-    else:
-        way = f"the glass-box model's {name} minus the benchmark's"
-    return (f"Cost is {way}, fold by fold: positive means the glass-box model does worse. "
-            "The p-value tests a cost of zero (corrected resampled t).")
-
-
-def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """The sparse family's primary metric at each number of features."""
-    curve = comparison.sparsity
-    if curve.empty:
-        return pd.DataFrame()
-    primary = comparison.primary
-    rows = curve[curve["metric"] == primary]
-    name = METRIC_NAMES[primary]
-    return pd.DataFrame({
-        "features": rows["max_features"].astype(int).to_numpy(),
-        name: [f"{m:.{digits}f}" for m in rows["mean"]],
-        "95% interval": [_range(lo, hi, digits, note) for lo, hi, note in
-                         zip(rows["lower"], rows["upper"],
-                             rows.get("interval_note", [None] * len(rows)), strict=True)],
-    })
-
-
-def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
-    """The `glassbox compare` command line that repeats a comparison made with `settings`
-    (the schema file holding the comparison's "schema" table, as TOML)."""
-    return (f"glassbox compare {data} --schema {schema} --families "
-            f"{','.join(settings['families'])} --benchmark {settings['benchmark']} --folds "
-            f"{settings['folds']} --repeats {settings['repeats']} --seed {settings['seed']} "
-            f"--cutoff {settings['cutoff']:g}")
-
-
-def to_markdown(comparison: Comparison) -> str:
-    """The headline, the overview and the sparsity curve as Markdown."""
-    from glassbox.core.formats import to_markdown as table_markdown
-
-    parts = ["# Accuracy cost of the glass-box models", "", comparison.headline, "",
-             "## Accuracy on held-out folds", "", table_markdown(accuracy_table(comparison)),
-             f"## Cost against the {comparison.settings['benchmark']} benchmark "
-             "(paired by fold)", "", table_markdown(cost_table(comparison)),
-             cost_note(comparison), ""]
-    curve = sparsity_table(comparison)
-    if not curve.empty:
-        parts += ["## Sparse family: accuracy by number of features", "",
-                  table_markdown(curve)]
-    settings = comparison.settings
-    parts += [f"{settings['folds']} folds × {settings['repeats']} repeat(s), seed "
-              f"{settings['seed']}; intervals: {settings['interval']}.", ""]
-    return "\n".join(parts)
-
-
-# ---------------------------------------------------------------- reading a comparison file

@@ -5,6 +5,18 @@ from __future__ import annotations
 import numpy as np
 from sklearn import metrics
 
+CLASSIFICATION_METRICS = ("auc", "gini", "ks", "log_loss", "brier", "accuracy")
+REGRESSION_METRICS = ("rmse", "mae", "r2")
+HIGHER_IS_BETTER = {"auc": True, "gini": True, "ks": True, "accuracy": True, "r2": True,
+                    "log_loss": False, "brier": False, "rmse": False, "mae": False}
+METRIC_NAMES = {"auc": "ROC AUC", "gini": "Gini", "ks": "KS", "log_loss": "log loss",
+                "brier": "Brier", "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE",
+                "r2": "R²"}
+METRIC_DEFINITIONS = ("Gini = 2 × ROC AUC − 1 (the accuracy ratio); KS: the largest distance "
+                      "between the distribution functions of the predicted probabilities of "
+                      "the positives and of the negatives (two-sample Kolmogorov-Smirnov); "
+                      "both per fold on its test rows, like every metric")
+
 
 def classification_metrics(target: np.ndarray, probability: np.ndarray,
                            cutoff: float = 0.5) -> dict[str, float]:
