@@ -243,8 +243,9 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     primary = metrics[0]
     records, predictions = pop_predictions(records)
     target = np.asarray(prepared.target)
+    # the metrics the models were scored on (records made before Gini and KS lack them)
+    metrics = tuple(m for m in metrics if all(m in record for record in records))
     records += no_skill_records(target, folds, goal, settings.cutoff)
-    metrics = tuple(m for m in metrics if any(m in record for record in records))
     table = pd.DataFrame(records).sort_values(["repeat", "fold", "model"], kind="mergesort")
     curve_rows = table[table.get("max_features", pd.Series(np.nan, index=table.index)).notna()]
     fold_rows = table.drop(curve_rows.index)
