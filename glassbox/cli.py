@@ -36,12 +36,8 @@ from glassbox.explaining.groups import MIN_GROUP
 from glassbox.fitting.benchmarks import BENCHMARKS
 from glassbox.fitting.compare import (
     CompareSettings,
-    accuracy_table,
     compare,
-    cost_note,
-    cost_table,
     rerun_command,
-    sparsity_table,
 )
 from glassbox.fitting.compare import to_markdown as compare_markdown
 from glassbox.fitting.families import FAMILIES
@@ -415,9 +411,7 @@ def compare_command(
     with fold_progress() as progress:
         result = compare(frame, spec, settings, source=str(data), progress=progress)
     if format is CompareFormat.table:
-        stdout_console().print(comparison_view(result.headline, accuracy_table(result),
-                                        cost_table(result), sparsity_table(result),
-                                        folds, repeats, cost_note(result)))
+        stdout_console().print(comparison_view(result))
         if out is None:
             return
         # with the table shown, --out keeps a file too, in the format its suffix names

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import hashlib
+import io
 import json
+import types
 from pathlib import Path
 
 import numpy as np
@@ -114,7 +116,7 @@ def test_costs_are_signed_as_the_screen_says(sparse_only):
     # box where higher is better (AUC, accuracy), glass box minus benchmark where lower is
     # better (log loss, Brier); recomputed here from the per-fold metrics
     folds = sparse_only.folds
-    assert set(folds["model"]) == {"sparse", "benchmark (trees)"}
+    assert set(folds["model"]) == {"sparse", "benchmark (trees)", "no skill"}
     costs = sparse_only.costs.set_index("metric")
     for metric, higher in (("auc", True), ("accuracy", True), ("log_loss", False),
                            ("brier", False)):
@@ -166,7 +168,7 @@ def test_sparsity_curve_against_statsmodels(sparse_only, hmda):
 
 def test_the_file_holds_the_schema_to_rerun_it(sparse_only):
     document = json.loads(json.dumps(sparse_only.to_dict(), allow_nan=False))
-    assert document["format"] == "glassbox-comparison" and document["version"] == 2
+    assert document["format"] == "glassbox-comparison" and document["version"] == 3
     assert document["settings"]["seed"] == 7 and document["provenance"]["data_sha256"]
     assert document["settings"]["benchmark_settings"]["learning_rate"] > 0
     # the schema's SHA-256 is over its canonical JSON (sorted keys, no spaces), the rule
@@ -392,3 +394,186 @@ def test_forest_benchmark_takes_missing_values_natively(credit_with_gaps_compare
     ours = fit_benchmark("forest", "classification", prepared.features, prepared.target,
                          train, test, 5)
     np.testing.assert_array_equal(ours, theirs.predict_proba(matrix[test])[:, 1])
+
+
+# ---------------------------------------------------------------- what a validator checks
+
+
+def test_fold_ks_and_gini_against_scipy_and_sklearn(sparse_only, hmda):
+    # reference: statsmodels' Logit on fold 1 (as above); KS from scipy.stats.ks_2samp on
+    # the two classes' probabilities, Gini = 2·AUC − 1 with sklearn's roc_auc_score
+    from scipy import stats
+    from sklearn.model_selection import RepeatedStratifiedKFold
+
+    target = (hmda["deny"] == "yes").to_numpy(dtype=float)
+    splitter = RepeatedStratifiedKFold(n_splits=3, n_repeats=1, random_state=7)
+    train, test = next(splitter.split(np.zeros(len(target)), target))
+    truth, probability = statsmodels_fold(hmda, list(HMDA_KINDS), train, test)
+    record = sparse_only.folds.query("model == 'sparse' and fold == 0").iloc[0]
+    ks = stats.ks_2samp(probability[truth == 1], probability[truth == 0]).statistic
+    assert record["ks"] == pytest.approx(ks, abs=1e-6)
+    assert record["gini"] == pytest.approx(2 * skm.roc_auc_score(truth, probability) - 1,
+                                           abs=1e-9)
+    gini = sparse_only.models.query("model == 'sparse' and metric == 'gini'").iloc[0]
+    auc = sparse_only.models.query("model == 'sparse' and metric == 'auc'").iloc[0]
+    assert gini["mean"] == pytest.approx(2 * auc["mean"] - 1, abs=1e-12)
+    assert gini["lower"] < gini["mean"] < gini["upper"]
+
+
+def test_calibration_of_pooled_out_of_fold_predictions_against_statsmodels(sparse_only, hmda):
+    # reference: the three folds' statsmodels Logit probabilities pooled; calibration slope
+    # and intercept from statsmodels GLM (Binomial; the intercept with logit(p) as offset),
+    # deciles from pandas qcut
+    target = (hmda["deny"] == "yes").to_numpy(dtype=float)
+    folds = make_folds(target, "classification", SETTINGS)
+    pooled = [statsmodels_fold(hmda, list(HMDA_KINDS), train, test)
+              for _, _, train, test in folds]
+    truth = np.concatenate([t for t, _ in pooled])
+    probability = np.concatenate([p for _, p in pooled])
+    logit = np.log(probability / (1 - probability))
+    slope = sm.GLM(truth, sm.add_constant(logit), family=sm.families.Binomial()).fit(
+        tol=1e-12).params[1]
+    intercept = sm.GLM(truth, np.ones((len(truth), 1)), family=sm.families.Binomial(),
+                       offset=logit).fit(tol=1e-12).params[0]
+    fit = sparse_only.calibration_fit.set_index("model").loc["sparse"]
+    assert fit["slope"] == pytest.approx(slope, abs=1e-6)
+    assert fit["intercept"] == pytest.approx(intercept, abs=1e-6)
+    assert fit["rows"] == len(hmda)
+    groups = pd.qcut(probability, 10, labels=False, duplicates="drop")
+    expected = pd.Series(truth).groupby(groups).mean().to_numpy()
+    deciles = sparse_only.calibration.query("model == 'sparse'")
+    np.testing.assert_allclose(deciles["observed_rate"], expected, atol=1e-12)
+    assert set(sparse_only.calibration["model"]) == {"sparse", "benchmark (trees)"}
+
+
+def test_sparsity_curve_names_the_features_in_statsmodels_l1_order(sparse_only, hmda):
+    # reference: statsmodels' L1-penalised Logit (fit_regularized, intercept unpenalised)
+    # on fold 1's training rows, standardised as the family does; the order in which
+    # features leave zero as the penalty falls is the order they join the curve
+    from sklearn.model_selection import RepeatedStratifiedKFold
+
+    target = (hmda["deny"] == "yes").to_numpy(dtype=float)
+    splitter = RepeatedStratifiedKFold(n_splits=3, n_repeats=1, random_state=7)
+    train, _ = next(splitter.split(np.zeros(len(target)), target))
+    names = list(HMDA_KINDS)
+    values = hmda_design(hmda, names).iloc[train, 1:].to_numpy()
+    design = sm.add_constant((values - values.mean(axis=0)) / values.std(axis=0))
+    order: list[str] = []
+    entered_at: dict[str, int] = {}
+    for step, alpha in enumerate(np.logspace(2.5, -1, 120)):
+        fitted = sm.Logit(target[train], design).fit_regularized(
+            alpha=np.r_[0.0, [alpha] * len(names)], method="l1", disp=0, acc=1e-10)
+        size = np.abs(fitted.params[1:])
+        for index in sorted(np.flatnonzero(size > 1e-8), key=lambda i: -size[i]):
+            if names[index] not in order:
+                order.append(names[index])
+                entered_at[names[index]] = step
+    steps = sparse_only.sparsity_steps.query("fold == 0").sort_values("max_features")
+    joined = steps["joined"].tolist()
+    # features entering at the same penalty of the reference grid are a tie the two
+    # solvers may break either way (here chist and phist, whose coefficients differ by
+    # 0.001 where they enter): the curve's first k features are compared as a set at each
+    # k where the reference's k-th and (k+1)-th features enter at different penalties
+    boundaries = [k for k in range(1, 7) if entered_at[order[k - 1]] != entered_at[order[k]]]
+    assert len(boundaries) >= 4, boundaries
+    for k in boundaries:
+        assert set(joined[:k]) == set(order[:k]), (k, joined[:k], order[:k])
+    assert steps["max_features"].tolist() == list(range(1, len(names) + 1))
+    document = json.loads(json.dumps(sparse_only.to_dict(), allow_nan=False))
+    assert document["sparsity_steps"][0]["joined"] and "left" in document["sparsity_steps"][0]
+    # the table names a feature alone where the three folds agree
+    from glassbox.fitting.compare import sparsity_table
+
+    first = sparse_only.sparsity_steps.query("max_features == 1")["joined"]
+    if first.nunique() == 1:
+        assert sparsity_table(sparse_only)["joined"].iloc[0] == first.iloc[0]
+
+
+def test_a_model_that_predicts_the_base_rate_is_flagged():
+    # constructed truth: "sparse" predicts every test row its fold's training base rate,
+    # exactly what the no-skill model does, so it cannot beat it on any metric; the
+    # benchmark predicts the outcome itself (a perfect score) and beats it on every metric
+    from glassbox.fitting.compare import summarise
+    from glassbox.fitting.compare_folds import PREDICTIONS, fold_scores
+
+    target = np.array([1, 0, 0, 0, 1, 0, 0, 1, 0, 0, 0, 1] * 3, dtype=float)
+    settings = CompareSettings(families=("sparse",), folds=3)
+    folds = make_folds(target, "classification", settings)
+    records = []
+    for repeat, fold, train, test in folds:
+        for model, prediction in (("sparse", np.full(len(test), target[train].mean())),
+                                  ("benchmark (trees)", target[test])):
+            records.append({"repeat": repeat, "fold": fold, "train_rows": len(train),
+                            "test_rows": len(test), "model": model, PREDICTIONS: prediction,
+                            **fold_scores("classification", target[test], prediction, 0.5)})
+    prepared = types.SimpleNamespace(features=pd.DataFrame({"x": range(len(target))}),
+                                     target=target)
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1, "better": "lower"},
+                               "feature": {"x": {"kind": "number"}}})
+    result = summarise(records, prepared, schema, settings, folds)
+    flags = result.flags.set_index(["model", "metric"])["beats"]
+    assert not flags.loc["sparse"].any()
+    assert flags.loc["benchmark (trees)"].all()
+    assert result.base_rate["share_of_positives"] == pytest.approx(target.mean())
+    from glassbox.fitting.compare_tables import accuracy_table, base_rate_note
+
+    shown = accuracy_table(result).set_index("model")["does not beat no skill on"]
+    assert shown["sparse"].startswith("ROC AUC, Gini, KS") and "accuracy at 0.5" in shown[
+        "sparse"]
+    assert shown["benchmark (trees)"] == "none"
+    assert "Flagged: sparse." in base_rate_note(result)
+    assert "Flagged: sparse." in to_markdown(result)
+    document = json.loads(json.dumps(result.to_dict(), allow_nan=False))
+    assert {row["model"] for row in document["no_skill_flags"] if not row["beats"]} == {
+        "sparse"}
+    assert "does not beat the no-skill model's mean" in document["no_skill_rule"]
+
+
+def _render(comparison, width: int = 80) -> str:
+    from rich.console import Console
+
+    from glassbox.publishing.render import comparison_view
+
+    console = Console(width=width, record=True, file=io.StringIO())
+    console.print(comparison_view(comparison))
+    return console.export_text()
+
+
+def test_the_terminal_view_fits_80_columns_with_nothing_cut(sparse_only):
+    text = _render(sparse_only)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    assert "…" not in text
+    for words in ("KS", "Gini", "no skill", "calibration", "observed rate", "joined"):
+        assert words in text, words
+    for name in sparse_only.sparsity_steps["joined"]:
+        assert name in text.replace("\n", " "), name
+
+
+def test_an_older_file_still_renders_and_says_what_it_lacks(sparse_only, tmp_path):
+    # a version 2 file: what this comparison writes, less every field version 3 added
+    document = json.loads(json.dumps(sparse_only.to_dict(), allow_nan=False))
+    document["version"] = 2
+    for key in ("metric_definitions", "base_rate", "no_skill_rule", "no_skill_flags",
+                "calibration_definition", "calibration_fit", "calibration_deciles",
+                "sparsity_step_rule", "sparsity_steps"):
+        del document[key]
+    for key in ("models", "costs", "folds"):
+        document[key] = [{k: v for k, v in row.items() if k not in ("ks", "gini")}
+                         for row in document[key]
+                         if row.get("metric") not in ("ks", "gini")
+                         and row.get("model") != "no skill"]
+    older = tmp_path / "older.json"
+    older.write_text(json.dumps(document))
+    back = read_comparison(older)
+    assert back.version == 2 and back.flags is None and back.calibration is None
+    assert back.absent()[0] == "Gini and KS"
+    markdown = to_markdown(back)
+    assert "format version 2" in markdown and "absent here" in markdown
+    assert "calibration tables" in markdown and "joins at each size" in markdown
+    text = _render(back)
+    assert "absent here" in " ".join(text.split())
+    assert max(len(line) for line in text.splitlines()) <= 80
+    # and the version 1 file from tests/data too
+    first = read_comparison(Path(__file__).parent / "data" / "hmda-comparison-v1.json")
+    assert "format version 1" in to_markdown(first)
+    assert "absent here" in " ".join(_render(first).split())

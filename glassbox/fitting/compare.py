@@ -30,6 +30,18 @@ from glassbox.core.errors import OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
 from glassbox.core.schema import Schema
 from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings
+from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
+from glassbox.fitting.compare_checks import (
+    FLAG_RULE,
+    NO_SKILL,
+    STEP_RULE,
+    base_rate,
+    calibration_tables,
+    flag_table,
+    no_skill_records,
+    pop_predictions,
+    sparsity_steps,
+)
 from glassbox.fitting.compare_folds import (
     SET_ASIDE_RULE,
     keep_scorable,
@@ -37,6 +49,15 @@ from glassbox.fitting.compare_folds import (
     plan_tasks,
     run_all,
     type_frame,
+)
+from glassbox.fitting.compare_tables import (  # noqa: F401  (tables for people: re-exported)
+    accuracy_table,
+    cost_note,
+    cost_table,
+    metric_heading,
+    rerun_command,
+    sparsity_table,
+    to_markdown,
 )
 from glassbox.fitting.families import FAMILIES
 from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
@@ -49,17 +70,23 @@ from glassbox.fitting.intervals import (  # noqa: F401  (interval: re-exported)
     interval,
     read_within_ranges,
 )
+from glassbox.fitting.metrics import (  # noqa: F401  (re-exported)
+    CLASSIFICATION_METRICS,
+    HIGHER_IS_BETTER,
+    METRIC_DEFINITIONS,
+    METRIC_NAMES,
+    REGRESSION_METRICS,
+)
 
 FORMAT = "glassbox-comparison"
-VERSION = 2  # 2: costs signed as the screen shows them, the schema inside; 1 is still read
-CLASSIFICATION_METRICS = ("auc", "log_loss", "brier", "accuracy")
-REGRESSION_METRICS = ("rmse", "mae", "r2")
-HIGHER_IS_BETTER = {"auc": True, "accuracy": True, "r2": True, "log_loss": False,
-                    "brier": False, "rmse": False, "mae": False}
-METRIC_NAMES = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier",
-                "accuracy": "accuracy", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+# 3: Gini and KS, the no-skill model and its flags, calibration, the sparsity curve's
+# entering features; 2: costs signed as the screen shows them, the schema inside. 1 and 2
+# are still read (what they lack is said, not invented).
+VERSION = 3
+READ_VERSIONS = (1, 2, 3)
 COST_CONVENTION = ("cost = benchmark minus glass-box model for metrics where higher is better "
-                   "(auc, accuracy, r2), glass-box model minus benchmark where lower is better "
+                   "(auc, gini, ks, accuracy, r2), glass-box model minus benchmark where lower "
+                   "is better "
                    "(log_loss, brier, rmse, mae): a positive cost means the glass-box model "
                    "does worse, a negative one that it does better")
 
@@ -113,19 +140,57 @@ class Comparison:
     settings: dict[str, Any]
     provenance: dict[str, Any]
     schema: dict[str, Any] | None = None  # as in model files; None in version 1 files
+    # new in version 3; None when read from an older file (which did not hold them)
+    base_rate: dict[str, Any] | None = None
+    flags: pd.DataFrame | None = None             # model, metric, mean, no_skill, beats
+    calibration: pd.DataFrame | None = None       # model, decile, rows, mean_predicted, ...
+    calibration_fit: pd.DataFrame | None = None   # model, slope, intercept, rows, note
+    sparsity_steps: pd.DataFrame | None = None    # repeat, fold, max_features, joined, ...
+    version: int = VERSION                        # the format of the file it was read from
+
+    def absent(self) -> list[str]:
+        """What this comparison lacks because its file was written by an older glassbox."""
+        names = {"base_rate": "the base rate and the no-skill model",
+                 "flags": "the flags of models that do not beat the no-skill model"}
+        if self.task == "classification":
+            names["calibration"] = "the calibration tables (deciles, slope and intercept)"
+        if not self.sparsity.empty:
+            names["sparsity_steps"] = "the feature that joins at each size of the curve"
+        missing = [words for key, words in names.items() if getattr(self, key) is None]
+        if self.task == "classification" and not (self.models["metric"] == "ks").any():
+            missing.insert(0, "Gini and KS")
+        return missing
 
     def to_dict(self) -> dict[str, Any]:
         def records(table: pd.DataFrame) -> list[dict]:
             return [{k: _plain(v) for k, v in row.items()}
                     for row in table.to_dict(orient="records")]
 
-        return {"format": FORMAT, "version": VERSION, "headline": self.headline,
-                "task": self.task, "primary_metric": self.primary,
-                "cost_convention": COST_CONVENTION, "schema": self.schema,
-                "schema_sha256": None if self.schema is None else checksum(self.schema),
-                "settings": self.settings, "provenance": self.provenance,
-                "models": records(self.models), "costs": records(self.costs),
-                "sparsity_curve": records(self.sparsity), "folds": records(self.folds)}
+        document = {
+            "format": FORMAT, "version": VERSION, "headline": self.headline,
+            "task": self.task, "primary_metric": self.primary,
+            "cost_convention": COST_CONVENTION, "metric_definitions": METRIC_DEFINITIONS,
+            "schema": self.schema,
+            "schema_sha256": None if self.schema is None else checksum(self.schema),
+            "settings": self.settings, "provenance": self.provenance,
+            "base_rate": self.base_rate, "models": records(self.models),
+            "no_skill_rule": FLAG_RULE,
+            "no_skill_flags": None if self.flags is None else records(self.flags),
+            "costs": records(self.costs),
+            "calibration_definition": CALIBRATION_DEFINITION,
+            "calibration_fit": None if self.calibration_fit is None
+            else records(self.calibration_fit),
+            "calibration_deciles": None if self.calibration is None
+            else records(self.calibration),
+            "sparsity_curve": records(self.sparsity),
+            "sparsity_step_rule": STEP_RULE,
+            "sparsity_steps": None if self.sparsity_steps is None
+            else records(self.sparsity_steps),
+            "folds": records(self.folds)}
+        if self.task != "classification":  # calibration is of probabilities
+            for key in ("calibration_definition", "calibration_fit", "calibration_deciles"):
+                document.pop(key)
+        return document
 
 
 def _plain(value: Any) -> Any:
@@ -176,16 +241,23 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     goal = schema.target.task
     metrics = CLASSIFICATION_METRICS if goal == "classification" else REGRESSION_METRICS
     primary = metrics[0]
+    records, predictions = pop_predictions(records)
+    target = np.asarray(prepared.target)
+    # the metrics the models were scored on (records made before Gini and KS lack them)
+    metrics = tuple(m for m in metrics if all(m in record for record in records))
+    records += no_skill_records(target, folds, goal, settings.cutoff)
     table = pd.DataFrame(records).sort_values(["repeat", "fold", "model"], kind="mergesort")
     curve_rows = table[table.get("max_features", pd.Series(np.nan, index=table.index)).notna()]
     fold_rows = table.drop(curve_rows.index)
-    fold_rows = fold_rows.drop(columns=[c for c in ("max_features", "features")
-                                        if c in fold_rows], errors="ignore")
+    fold_rows = fold_rows.drop(columns=[c for c in ("max_features", "features", "joined",
+                                                    "on_path", "left") if c in fold_rows],
+                               errors="ignore")
     train_rows = np.mean([len(f[2]) for f in folds])
     test_rows = np.mean([len(f[3]) for f in folds])
     share = float(test_rows / train_rows)
     benchmark = f"benchmark ({settings.benchmark})"
-    order = [*settings.families, benchmark]
+    order = [*settings.families, benchmark, NO_SKILL]
+    kinds = {benchmark: "black box", NO_SKILL: "no skill"}
     model_rows, cost_rows = [], []
     base = fold_rows[fold_rows["model"] == benchmark].set_index(["repeat", "fold"])
     for name in order:
@@ -193,11 +265,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
         for metric in metrics:
             spread = interval(rows[metric], share, bounds=METRIC_RANGES[metric])
             model_rows.append({"model": name,
-                               "kind": "black box" if name == benchmark else "glass box",
+                               "kind": kinds.get(name, "glass box"),
                                "metric": metric,
                                **{k: spread[k] for k in ("mean", "lower", "upper")},
                                "interval_note": spread["note"]})
-            if name == benchmark:
+            if name in kinds:
                 continue
             worse = base.loc[rows.index, metric] - rows[metric]  # higher is better
             result = interval(worse if HIGHER_IS_BETTER[metric] else -worse, share,
@@ -210,6 +282,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     models = pd.DataFrame(model_rows)
     costs = pd.DataFrame(cost_rows)
     sparsity = _sparsity(curve_rows, metrics, share)
+    flags = flag_table(models, metrics, HIGHER_IS_BETTER)
+    calibration = calibration_fit_table = None
+    if goal == "classification":
+        calibration, calibration_fit_table = calibration_tables(
+            predictions, folds, target, order[:-1])
     headline = make_headline(models, costs, primary, benchmark)
     set_aside = set_aside or {"test_rows": 0}
     if set_aside["test_rows"]:
@@ -230,7 +307,10 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "interval": INTERVAL_METHOD,
                        "test_to_train_ratio": share}
     return Comparison(goal, primary, headline, models, costs, fold_rows.reset_index(drop=True),
-                      sparsity, settings_record, provenance, schema.to_dict())
+                      sparsity, settings_record, provenance, schema.to_dict(),
+                      base_rate=base_rate(target, goal), flags=flags,
+                      calibration=calibration, calibration_fit=calibration_fit_table,
+                      sparsity_steps=sparsity_steps(curve_rows))
 
 
 def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) -> pd.DataFrame:
@@ -275,115 +355,3 @@ def make_headline(models: pd.DataFrame, costs: pd.DataFrame, primary: str,
     return (f"{who}{best['model']} ({name} {best['mean']:.3f}). Against the {benchmark} it "
             f"{what} {cost:.3f} {name} (95% interval {low:.3f} to {high:.3f}{caveat}): "
             f"{verdict}.")
-
-
-# ---------------------------------------------------------------- tables for people
-
-
-def _range(lower: float, upper: float, digits: int, note: Any = None) -> str:
-    """An interval for people; a clipped or zero-width interval says so."""
-    if np.isnan(lower):
-        return ""
-    text = f"{lower:.{digits}f} to {upper:.{digits}f}"
-    marks = [mark for key, mark in ((CLIPPED, "clipped"), (NO_VARIANCE, "no variance"))
-             if isinstance(note, str) and key in note]
-    return f"{text} ({', '.join(marks)})" if marks else text
-
-
-def metric_heading(comparison: Comparison, metric: str) -> str:
-    """A metric's name for people; accuracy says the cut-off it counts at."""
-    if metric == "accuracy":
-        return f"accuracy at {comparison.settings.get('cutoff', 0.5):g}"
-    return METRIC_NAMES[metric]
-
-
-def accuracy_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """One row per model: the primary metric with its interval, then the other metrics."""
-    models, primary = comparison.models, comparison.primary
-    rows = []
-    for name in dict.fromkeys(models["model"]):
-        mine = models[models["model"] == name].set_index("metric")
-        row: dict[str, Any] = {"model": name}
-        for metric in mine.index:
-            row[metric_heading(comparison, metric)] = f"{mine.loc[metric, 'mean']:.{digits}f}"
-            if metric == primary:
-                row["95% interval"] = _range(mine.loc[metric, "lower"],
-                                             mine.loc[metric, "upper"], digits,
-                                             mine.loc[metric].get("interval_note"))
-        rows.append(row)
-    return pd.DataFrame(rows)
-
-
-def cost_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """Each glass-box model's paired cost against the benchmark in the primary metric
-    (positive: the glass box is worse; see `COST_CONVENTION`)."""
-    gaps = comparison.costs[comparison.costs["metric"] == comparison.primary]
-    rows = []
-    for gap in gaps.to_dict(orient="records"):
-        rows.append({"model": gap["model"],
-                     f"cost in {METRIC_NAMES[comparison.primary]}":
-                         f"{gap['cost']:.{digits}f}",
-                     "95% interval": _range(gap["lower"], gap["upper"], digits,
-                                            gap.get("interval_note")),
-                     "p-value": f"{gap['p_value']:.3f}",
-                     "differs from zero": "yes" if gap["distinguishable"] else "no"})
-    return pd.DataFrame(rows)
-
-
-def cost_note(comparison: Comparison) -> str:
-    """What the cost column means, in a line."""
-    name = METRIC_NAMES[comparison.primary]
-    if HIGHER_IS_BETTER[comparison.primary]:
-        way = f"the benchmark's {name} minus the glass-box model's"
-    else:
-        way = f"the glass-box model's {name} minus the benchmark's"
-    return (f"Cost is {way}, fold by fold: positive means the glass-box model does worse. "
-            "The p-value tests a cost of zero (corrected resampled t).")
-
-
-def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
-    """The sparse family's primary metric at each number of features."""
-    curve = comparison.sparsity
-    if curve.empty:
-        return pd.DataFrame()
-    primary = comparison.primary
-    rows = curve[curve["metric"] == primary]
-    name = METRIC_NAMES[primary]
-    return pd.DataFrame({
-        "features": rows["max_features"].astype(int).to_numpy(),
-        name: [f"{m:.{digits}f}" for m in rows["mean"]],
-        "95% interval": [_range(lo, hi, digits, note) for lo, hi, note in
-                         zip(rows["lower"], rows["upper"],
-                             rows.get("interval_note", [None] * len(rows)), strict=True)],
-    })
-
-
-def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
-    """The `glassbox compare` command line that repeats a comparison made with `settings`
-    (the schema file holding the comparison's "schema" table, as TOML)."""
-    return (f"glassbox compare {data} --schema {schema} --families "
-            f"{','.join(settings['families'])} --benchmark {settings['benchmark']} --folds "
-            f"{settings['folds']} --repeats {settings['repeats']} --seed {settings['seed']} "
-            f"--cutoff {settings['cutoff']:g}")
-
-
-def to_markdown(comparison: Comparison) -> str:
-    """The headline, the overview and the sparsity curve as Markdown."""
-    from glassbox.core.formats import to_markdown as table_markdown
-
-    parts = ["# Accuracy cost of the glass-box models", "", comparison.headline, "",
-             "## Accuracy on held-out folds", "", table_markdown(accuracy_table(comparison)),
-             f"## Cost against the {comparison.settings['benchmark']} benchmark "
-             "(paired by fold)", "", table_markdown(cost_table(comparison)),
-             cost_note(comparison), ""]
-    curve = sparsity_table(comparison)
-    if not curve.empty:
-        parts += ["## Sparse family: accuracy by number of features", "",
-                  table_markdown(curve)]
-    settings = comparison.settings
-    parts += [f"{settings['folds']} folds × {settings['repeats']} repeat(s), seed "
-              f"{settings['seed']}; intervals: {settings['interval']}.", ""]
-    return "\n".join(parts)
-
-
-# ---------------------------------------------------------------- reading a comparison file

@@ -1,5 +1,6 @@
 """Comparison files: a `glassbox compare --format json` file read back into a `Comparison`,
-checked against its declared structure and each metric's range (versions 1 and 2)."""
+checked against its declared structure and each metric's range (versions 1 to 3; what an
+older file lacks stays None, and `Comparison.absent` names it)."""
 
 from __future__ import annotations
 
@@ -13,10 +14,18 @@ import pandas as pd
 from glassbox.core import structure
 from glassbox.core.errors import DataError, value_text
 from glassbox.core.files import read_json
-from glassbox.fitting.compare import FORMAT, HIGHER_IS_BETTER, VERSION, Comparison, make_headline
+from glassbox.fitting.compare import (
+    FORMAT,
+    HIGHER_IS_BETTER,
+    READ_VERSIONS,
+    VERSION,
+    Comparison,
+    make_headline,
+)
 from glassbox.fitting.intervals import COST_RANGES, METRIC_RANGES, read_within_ranges
 
-NUMBER_COLUMNS = ("mean", "cost", "lower", "upper", "t", "p_value")
+NUMBER_COLUMNS = ("mean", "cost", "lower", "upper", "t", "p_value", "no_skill", "slope",
+                  "intercept", "mean_predicted", "observed_rate")
 
 
 def _version_one_costs(differences: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -46,9 +55,10 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
         raise DataError(f"{source} is not a glassbox comparison file (no \"format\": "
                         f"\"{FORMAT}\")")
     version = document.get("version")
-    if version not in (1, VERSION):
+    if version not in READ_VERSIONS or isinstance(version, bool):
         raise DataError(f"{source} is comparison format version {version!r}; this glassbox "
-                        f"reads versions 1 and {VERSION}")
+                        f"reads versions {', '.join(map(str, READ_VERSIONS[:-1]))} and "
+                        f"{VERSION}")
     structure.check(structure.COMPARISON, document, source, DataError)
 
     def table(rows: Any) -> pd.DataFrame:
@@ -57,6 +67,9 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
             if column in frame:
                 frame[column] = pd.to_numeric(frame[column], errors="coerce").astype(float)
         return frame
+
+    def optional(key: str) -> pd.DataFrame | None:
+        return None if document.get(key) is None else table(document[key])
 
     try:
         costs = read_within_ranges(_version_one_costs(document["differences"]) if version == 1
@@ -71,7 +84,10 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
                 document.get("sparsity_curve") or [], METRIC_RANGES, "mean", source,
                 "sparsity_curve")),
             settings=dict(document["settings"]), provenance=dict(document["provenance"]),
-            schema=document.get("schema"))
+            schema=document.get("schema"), base_rate=document.get("base_rate"),
+            flags=optional("no_skill_flags"), calibration=optional("calibration_deciles"),
+            calibration_fit=optional("calibration_fit"),
+            sparsity_steps=optional("sparsity_steps"), version=int(version))
         if version == 1:
             benchmark = f"benchmark ({comparison.settings['benchmark']})"
             comparison = replace(comparison, headline=make_headline(

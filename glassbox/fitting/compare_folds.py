@@ -21,11 +21,16 @@ from glassbox.core.schema import Schema, pool_levels, prepare
 from glassbox.core.workers import become_worker, pool_running, sigint_held
 from glassbox.fitting.benchmarks import fit_benchmark
 from glassbox.fitting.fit import _missing_as_level, finished, fit_typed, ready, unpooled
-from glassbox.fitting.metrics import classification_metrics, regression_metrics
+from glassbox.fitting.metrics import (
+    classification_metrics,
+    regression_metrics,
+    separation_metrics,
+)
 
 if TYPE_CHECKING:
     from glassbox.fitting.compare import CompareSettings
 
+PREDICTIONS = "predictions"  # a record's out-of-fold predictions, in its test rows' order
 SET_ASIDE_RULE = ("each misses a feature that no training row of its fold misses, so a model "
                   "fitted there that uses it has no missing-value entry for it and would refuse "
                   "the row; such rows are left out of every model's test rows alike")
@@ -96,9 +101,10 @@ class Task:
     test: np.ndarray
 
 
-def _scores(task: str, target: np.ndarray, prediction: np.ndarray, cutoff: float) -> dict:
+def fold_scores(task: str, target: np.ndarray, prediction: np.ndarray, cutoff: float) -> dict:
     if task == "classification":
-        return classification_metrics(target, prediction, cutoff)
+        return {**classification_metrics(target, prediction, cutoff),
+                **separation_metrics(target, prediction)}
     return regression_metrics(target, prediction)
 
 
@@ -167,31 +173,40 @@ def _run_task(task: Task, typed: Typed, schema: Schema,
         prediction = fit_benchmark(settings.benchmark, goal, typed.pooled, target,
                                    task.train, task.test, settings.seed + task.repeat)
         return [{**base, "model": task.name,
-                 **_scores(goal, target[task.test], prediction, settings.cutoff)}]
+                 **fold_scores(goal, target[task.test], prediction, settings.cutoff),
+                 PREDICTIONS: np.asarray(prediction, dtype=float)}]
     if task.kind == "family":
         options = settings.family_options.get(task.name, {})
         model = fold_model(typed, schema, task.name, task.train, options)
         prediction = fold_prediction(model, typed, task.test)
         return [{**base, "model": task.name,
-                 **_scores(goal, target[task.test], prediction, settings.cutoff)}]
+                 **fold_scores(goal, target[task.test], prediction, settings.cutoff),
+                 PREDICTIONS: np.asarray(prediction, dtype=float)}]
     # the sparsity curve: one L1 path per fold, then a refit per number of features
     records = []
-    for size, chosen, model in sparsity_models(typed, schema, task.train, settings):
+    steps: dict[str, Any] = {}
+    for size, chosen, model in sparsity_models(typed, schema, task.train, settings, steps):
+        joined = chosen[-1]
         records.append({**base, "model": "sparse", "max_features": size,
-                        "features": list(chosen),
-                        **_scores(goal, target[task.test],
+                        "features": list(chosen), "joined": joined,
+                        "on_path": joined in steps["left"],
+                        "left": list(steps["left"].get(joined, ())),
+                        **fold_scores(goal, target[task.test],
                                   fold_prediction(model, typed, task.test), settings.cutoff)})
     return records
 
 
 def sparsity_models(typed: Typed, schema: Schema, train: np.ndarray,
-                    settings: CompareSettings):
+                    settings: CompareSettings, steps: dict[str, Any] | None = None):
     """(size, the features in the order they enter, fold model) for each number of features
     along the fold's L1 path: per size, the model `fold_model` gives for the schema
     restricted to them, from one typed fold and one design shared by every size (a
     design's columns are each a function of its feature's column alone, so restricting
     the design is the design of the restricted frame; one of a single column is built
-    alone, as numpy sums such a matrix pairwise, see `sparse.standardised`)."""
+    alone, as numpy sums such a matrix pairwise, see `sparse.standardised`).
+
+    `steps`, when given, receives "left": for each feature that enters the path, the
+    features that had entered before it but are back at zero where it enters."""
     from glassbox.fitting.families import sparse
 
     options = {k: v for k, v in settings.family_options.get("sparse", {}).items()
@@ -209,7 +224,10 @@ def sparsity_models(typed: Typed, schema: Schema, train: np.ndarray,
     path_design = design if all(spec.pool_below is None for spec in schema.used_features) \
         else sparse.build_design(typed.pooled.iloc[train], schema,
                                  min_level_rows=settings_of["min_level_rows"])
-    order = sparse.entry_order(path_design, target, goal, settings_of["path_points"])
+    coefs = sparse.l1_path(path_design, target, goal, settings_of["path_points"])
+    order = sparse.order_along(coefs, path_design)
+    if steps is not None:
+        steps["left"] = sparse.left_along(coefs, path_design)
     leveled = _missing_as_level(features, pooled)
     for size in range(1, len(order) + 1):
         chosen = order[:size]

@@ -21,15 +21,18 @@ from glassbox.core.errors import DataError
 # an interval is clipped to it (`interval`), so no interval leaves what the metric can be.
 INF = math.inf
 METRIC_RANGES = {"auc": (0.0, 1.0), "accuracy": (0.0, 1.0), "brier": (0.0, 1.0),
+                 "ks": (0.0, 1.0), "gini": (-1.0, 1.0),
                  "log_loss": (0.0, INF), "rmse": (0.0, INF), "mae": (0.0, INF),
                  "r2": (-INF, 1.0)}
-COST_RANGES = {"auc": (-1.0, 1.0), "accuracy": (-1.0, 1.0), "brier": (-1.0, 1.0)}
+COST_RANGES = {"auc": (-1.0, 1.0), "accuracy": (-1.0, 1.0), "brier": (-1.0, 1.0),
+               "ks": (-1.0, 1.0), "gini": (-2.0, 2.0)}
 CLIPPED = "clipped to the metric's range"
 NO_VARIANCE = "every fold gave the same value (no variance): the interval has width 0"
 NOT_FINITE_T = "its t statistic is not finite, written as null"
 INTERVAL_METHOD = ("95%, corrected resampled t (Nadeau & Bengio 2003); an interval that would "
-                   "pass the range of a bounded metric (ROC AUC, accuracy and Brier in [0, 1], "
-                   "a cost in them in [-1, 1]; log loss, RMSE and MAE at least 0; R² at most "
+                   "pass the range of a bounded metric (ROC AUC, KS, accuracy and Brier in [0, "
+                   "1], a cost in them in [-1, 1]; Gini in [-1, 1], a cost in it in [-2, 2]; "
+                   "log loss, RMSE and MAE at least 0; R² at most "
                    "1) is clipped to it; when every fold gives the same value the interval has "
                    "width 0; either case is named in the row's interval_note")
 

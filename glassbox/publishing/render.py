@@ -189,20 +189,69 @@ def warning_text(message: str) -> Text:
     return Text.assemble(("warning: ", "bold yellow"), message)
 
 
-def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
-                    sparsity: pd.DataFrame, folds: int, repeats: int,
-                    cost_note: str = "") -> RenderableType:
-    """What `glassbox compare` prints: the headline, accuracy, cost, the sparsity curve."""
-    parts: list[RenderableType] = [
-        Text(headline, style="bold"), Text(""),
-        frame_table(accuracy, title=f"Held-out accuracy, {folds} folds × {repeats}"),
-        frame_table(cost, title="Cost against the benchmark, paired by fold"),
-    ]
-    if cost_note:
-        parts += [Text(cost_note), Text("")]
-    if not sparsity.empty:
-        parts.append(frame_table(sparsity, title="Sparse family by number of features"))
+def comparison_view(comparison: Any) -> RenderableType:
+    """What `glassbox compare` prints, stacked to fit 80 columns: the headline, the base
+    rate and no-skill flags, every metric's mean, the primary metric's interval, the
+    cost, calibration and the sparsity curve with the feature that joins at each size."""
+    from glassbox.fitting import compare_tables as tables
+
+    settings = comparison.settings
+    folds, repeats = settings.get("folds"), settings.get("repeats")
+    parts: list[RenderableType] = [Text(comparison.headline, style="bold"), Text("")]
+    missing = tables.absent_note(comparison)
+    if missing:
+        parts += [warning_text(missing), Text("")]
+    grid = tables.metric_grid(comparison)
+    parts.append(_grid_table(grid, f"Held-out mean of each metric, {folds} folds × {repeats}"
+                             + (" (! does not beat the no-skill model)"
+                                if comparison.flags is not None else "")))
+    if comparison.base_rate is not None:
+        parts += [Text(tables.base_rate_note(comparison)), Text("")]
+    accuracy = tables.accuracy_table(comparison)
+    primary = tables.metric_heading(comparison, comparison.primary)
+    parts.append(frame_table(accuracy, title=f"{primary} with its 95% interval",
+                             columns=["model", primary, "95% interval"]))
+    parts.append(frame_table(tables.cost_table(comparison),
+                             title="Cost against the benchmark, paired by fold"))
+    parts += [Text(tables.cost_note(comparison)), Text("")]
+    fits = tables.calibration_fit_table(comparison)
+    if not fits.empty:
+        columns = ["model", "calibration slope", "calibration intercept", "rows"]
+        parts.append(frame_table(fits, columns=columns, title="Calibration of the pooled "
+                                 "out-of-fold predictions (slope 1 and intercept 0 are "
+                                 "ideal)"))
+        parts += [Text(f"{row.model}: {row.note}") for row in fits.itertuples()
+                  if row.note]
+        for model in fits["model"]:
+            parts.append(frame_table(tables.calibration_deciles(comparison, model),
+                                     title=f"{model}: observed against predicted by decile"))
+    curve = tables.sparsity_table(comparison)
+    if not curve.empty:
+        parts.append(frame_table(curve, columns=list(curve.columns[:3]),
+                                 title="Sparse family by number of features"))
+        if "joined" in curve:
+            parts.append(_grid_table(curve[["features", "joined", "left on the path"]],
+                                     "The feature that joins at each size (where folds "
+                                     "differ: each name with its share of folds)",
+                                     wrap=True))
     return Group(*parts)
+
+
+def _grid_table(grid: pd.DataFrame, title: str, wrap: bool = False) -> Table:
+    """A table of text whose first column names the row: with `wrap`, the other columns
+    wrap at spaces (a word longer than its column folds onto the next line, never cut);
+    without, they hold short numbers and never wrap. Headings wrap at spaces."""
+    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
+                  title_style="bold", header_style="bold", pad_edge=False)
+    for position, name in enumerate(grid.columns):
+        first = position == 0
+        table.add_column(name, justify="left" if first or wrap else "right",
+                         no_wrap=not (first or wrap), overflow="fold",
+                         min_width=None if wrap else max([len(str(v)) for v in grid[name]]
+                                                         + [1]))
+    for row in grid.itertuples(index=False):
+        table.add_row(*(str(value) for value in row))
+    return table
 
 
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:

@@ -272,6 +272,8 @@ def _summary_section(model: AdditiveModel, model_file: str | Path | None, cutoff
 
 
 def _comparison_section(comparison, cutoff: float) -> Section:
+    from glassbox.fitting import compare_tables as tables
+    from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
     from glassbox.fitting.compare import accuracy_table
 
     settings = comparison.settings
@@ -279,13 +281,32 @@ def _comparison_section(comparison, cutoff: float) -> Section:
     fingerprint = short_fingerprint(comparison.provenance.get("data_sha256"))
     note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
             f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
-            f"(fingerprint {fingerprint}). ROC AUC, "
+            f"(fingerprint {fingerprint}). ROC AUC, Gini, KS, "
             f"log loss and Brier use no cut-off; accuracy counts a probability of "
             f"{made_at:g} or more as the positive label, the cut-off the comparison was "
             "made with" + ("." if made_at == cutoff else
                            f", not this report's {cutoff:g}."))
-    return Section("Accuracy against a black box", (
-        Paragraph(comparison.headline), Table(accuracy_table(comparison)), Paragraph(note)))
+    blocks: list[Block] = [Paragraph(comparison.headline)]
+    missing = tables.absent_note(comparison)
+    if missing:
+        blocks.append(Paragraph(missing))
+    blocks += [Table(accuracy_table(comparison)), Paragraph(note)]
+    if comparison.base_rate is not None:
+        blocks.append(Paragraph(tables.base_rate_note(comparison)))
+    fits = tables.calibration_fit_table(comparison)
+    if not fits.empty:
+        deciles = pd.concat([tables.calibration_deciles(comparison, model).assign(model=model)
+                             for model in fits["model"]], ignore_index=True)
+        blocks += [Table(fits, caption="Calibration of the pooled out-of-fold predictions"),
+                   Paragraph(f"Definitions: {CALIBRATION_DEFINITION}."),
+                   Table(deciles[["model", "decile", "rows", "mean predicted",
+                                  "observed rate"]],
+                         caption="Observed against predicted by decile")]
+    curve = tables.sparsity_table(comparison)
+    if not curve.empty:
+        blocks.append(Table(curve, caption="Sparse family by number of features: the "
+                                           "feature that joins at each size"))
+    return Section("Accuracy against a black box", tuple(blocks))
 
 
 def _importance_section(model: AdditiveModel) -> Section:

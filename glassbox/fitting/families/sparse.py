@@ -174,6 +174,11 @@ def standardised(blocks: list[np.ndarray], scaled: np.ndarray
 
 def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> list[str]:
     """Features in the order they enter along the L1 path (earliest first)."""
+    return order_along(l1_path(design, target, task, points), design)
+
+
+def l1_path(design: Design, target: np.ndarray, task: str, points: int) -> np.ndarray:
+    """The L1 path's coefficients, one column per penalty, strongest penalty first."""
     matrix = design.matrix
     if task == "classification":
         smallest = l1_min_c(matrix, target, loss="log", fit_intercept=True)
@@ -203,6 +208,12 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
         if breaks_signs(coefs, design.signs):
             coefs = least_squares_l1_path(matrix, target - target.mean(), design.signs,
                                           points * 2)
+    return coefs
+
+
+def order_along(coefs: np.ndarray, design: Design) -> list[str]:
+    """Features in the order their first coefficient leaves zero along the path (at one
+    penalty, the larger coefficient first); those that never do follow in schema order."""
     order: list[str] = []
     strength: dict[str, float] = {}
     for step in range(coefs.shape[1]):
@@ -219,6 +230,21 @@ def entry_order(design: Design, target: np.ndarray, task: str, points: int) -> l
     # features that never entered follow in schema order
     order += [f for f in dict.fromkeys(design.feature_of) if f not in order]
     return order
+
+
+def left_along(coefs: np.ndarray, design: Design) -> dict[str, tuple[str, ...]]:
+    """For each feature that enters the path: the features that had entered before it
+    but are back at zero at the penalty where it enters (the path's sets not nested)."""
+    feature_of = np.array(design.feature_of)
+    entered: set[str] = set()
+    left: dict[str, tuple[str, ...]] = {}
+    for step in range(coefs.shape[1]):
+        active = set(feature_of[np.abs(coefs[:, step]) > ENTERED])
+        gone = tuple(sorted(entered - active))
+        for feature in sorted(active - entered):
+            left[feature] = gone
+        entered |= active
+    return left
 
 
 @dataclass(frozen=True)
