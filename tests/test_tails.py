@@ -22,11 +22,11 @@ from glassbox.core.schema import Schema
 from glassbox.publishing.report_recourse import recourse_section
 from recourse import audit
 from recourse.batch import outcome_frame, plans_frame
-from recourse.views import result_view
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records
 from recourse.scale import plan_partition
 from recourse.tails import tail_warning
+from recourse.views import result_view
 
 # ---------------------------------------------------------------- the rule, constructed truth
 
