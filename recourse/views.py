@@ -129,9 +129,9 @@ def change_rows(model, plan) -> tuple[list[tuple[str, str, str, str]], list[Any]
             by = f"{sign}{_number(abs(change.difference), kind)}"
         rows.append((change.feature, f"{start} -> {_number(change.proposed, kind)}", by, cost))
         if change.supplied:
-            notes.append(bullet(f"{change.feature}: {supplied_words(change, kind)}", "*"))
+            notes.append(indented(Text(supplied_words(change, kind), style="dim")))
         if change.tail is not None:
-            notes.append(bullet(f"{change.feature}, caution: {change.tail.text()}", "!"))
+            notes.append(indented(Text(f"caution: {change.tail.text()}", style="yellow")))
     return rows, notes
 
 
