@@ -161,9 +161,15 @@ def _ok(text: str, cells: Iterable[str] = ()) -> None:
     assert not problems, "\n".join(problems) + "\n" + text
 
 
-def test_schema_fit_score_export_lines(made):
-    for data, target in ((DEMO / "loans.csv", "defaulted"), (made["credit_data"], "Status")):
-        RUNNER.invoke(app, ["schema", str(data), "--target", target], env=ENV)
+@pytest.mark.xfail(strict=True, reason="schema's notes on standard error are printed "
+                   "unwrapped (soft_wrap) by glassbox/cli.py, not yet through a view")
+def test_schema_notes_fit_80_columns(made):
+    result = RUNNER.invoke(app, ["schema", str(made["credit_data"]), "--target", "Status"],
+                           env=ENV)
+    _ok(result.stderr)
+
+
+def test_fit_score_export_lines(made):
     fit = made["fit_credit"]
     _ok(fit, ["4,454", "Seniority,", "Home,", "Price", "ROC", "AUC"])
     out = made["folder"] / "scores.csv"
