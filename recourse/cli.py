@@ -10,7 +10,6 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.text import Text
 
 from glassbox.cli import Force, friendly, stderr_console, stdout_console
 from glassbox.core import artifact
@@ -20,17 +19,16 @@ from glassbox.core.provenance import file_sha256
 from glassbox.core.schema import read_table
 from glassbox.explaining.groups import MIN_GROUP
 from glassbox.guard import run_guarded
-from glassbox.publishing.render import frame_table
 from recourse import audit
-from recourse.batch import MOST_JOBS, plan_many, plans_frame, summary_frame
+from recourse.batch import MOST_JOBS, plan_many, plans_frame
 from recourse.errors import PlanningError
 from recourse.manifest import MANIFEST
 from recourse.mutability import load_mutability, template
-from recourse.planner import CAUTION, MOST_PLANS, find_plans, plan_records
+from recourse.planner import MOST_PLANS, find_plans, plan_records
 from recourse.program import DEFAULT_SOLVER, SOLVERS
 from recourse.rows import pick_row
 from recourse.scale import ENGINES, plan_at_scale
-from recourse.views import audit_view, result_view
+from recourse.views import audit_view, declined_view, result_view
 
 app = typer.Typer(
     help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
@@ -103,8 +101,7 @@ def plan_command(
             stderr_console().print(f"wrote {len(table)} plan row(s) to {out}")
         else:
             sys.stdout.write(to_csv(table))
-        stderr_console().print(frame_table(summary_frame(results), title="Declined rows"))
-        stderr_console().print(Text(CAUTION, style="italic"))
+        stderr_console().print(declined_view(results))
         return
     raw, row_id = pick_row(model, row=row, data=data, id_value=id_value, index=index)
     result = find_plans(model, raw, rules, n_plans=plans, solver=solver.value, row_id=row_id)

@@ -138,28 +138,47 @@ def percent_text(share: float) -> str:
     return f"{percent:.2g}%" if 0 < percent < 1 else f"{percent:.1f}%"
 
 
-def readable_rows(table: pd.DataFrame, most: int = 16) -> pd.DataFrame:
-    """At most `most` rows of a long table, for reading in a terminal.
+def readable_rows(table: pd.DataFrame, most: int = 16,
+                  keep: Sequence[int] = ()) -> pd.DataFrame:
+    """At most `most` rows of a long table (more when `keep` asks), for reading in a
+    terminal; the index keeps each row's position in the whole table.
 
     Curve rows are chosen at evenly spaced training percentiles (the knot nearest
     each), so the rows follow where the data lies; other tables evenly by position.
-    The first and last value rows and the missing-value row are always kept.
+    The first and last value rows, the missing-value row and the rows at positions
+    `keep` (the bin a value asked about falls in) are always kept.
     """
     values = value_rows(table)
-    if len(values) < len(table):
-        if len(values) + 1 <= most:
-            return table
-        return pd.concat([readable_rows(values, most - 1), table.iloc[len(values):]])
+    count = len(values)
     if len(table) <= most:
         return table
-    if table["training_percentile"].notna().all():
-        targets = np.linspace(0.0, 100.0, most)
-        percentiles = table["training_percentile"].to_numpy(dtype=float)
-        keep = {int(np.argmin(np.abs(percentiles - target))) for target in targets}
+    if values["training_percentile"].notna().all():
+        targets = np.linspace(0.0, 100.0, most - 1)
+        percentiles = values["training_percentile"].to_numpy(dtype=float)
+        chosen = {int(np.argmin(np.abs(percentiles - target))) for target in targets}
     else:
-        keep = set(np.round(np.linspace(0, len(table) - 1, most)).astype(int).tolist())
-    keep |= {0, len(table) - 1}
-    return table.iloc[sorted(keep)]
+        chosen = set(np.round(np.linspace(0, count - 1, most - 1)).astype(int).tolist())
+    chosen |= {0, count - 1} | set(range(count, len(table)))
+    chosen |= {int(position) for position in keep if 0 <= int(position) < len(table)}
+    return table.iloc[sorted(chosen)]
+
+
+def row_of_value(table: pd.DataFrame, value: Any) -> int:
+    """The position of the row of a term table that a value falls in: its level, its
+    bin, the nearest knot of a curve, or the missing-value row for a blank."""
+    rows = table["row"].astype(str).tolist()
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return rows.index(MISSING_LEVEL)
+    values = value_rows(table)
+    if values["from"].isna().all():  # levels
+        text = str(value)
+        return rows.index(text) if text in rows else len(values) - 1  # the unseen level
+    number = float(value)
+    starts = values["from"].to_numpy(dtype=float)
+    ends = values["to"].to_numpy(dtype=float)
+    if np.array_equal(starts, ends):  # a curve: the nearest knot
+        return int(np.argmin(np.abs(starts - number)))
+    return int(np.searchsorted(ends, number, side="left"))  # the bin (low, high]
 
 
 def _interval_text(low: float, high: float) -> str:

@@ -17,6 +17,7 @@ from glassbox.core.provenance import fingerprint_method, short_fingerprint
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
 from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
 from glassbox.publishing.monitor_view import _table as fitted_table
+from glassbox.publishing.narrow import number_texts
 
 CAUTION = ("A comparison of two models' tables and of their scores: a prompt for the "
            "validator's judgement, not an approval; decisions also answer to local law, "
@@ -79,6 +80,11 @@ def missing_text(term: TermChange) -> str:
     return f"{text}\n({term.missing_words})"
 
 
+def _column(values: Sequence[Any], sign: bool = False) -> list[str]:
+    """A column of numbers in one style (the same decimals), signed for changes."""
+    return number_texts(list(values), signed=sign)
+
+
 def _rank(old: int | None, new: int | None) -> str:
     return f"{'–' if old is None else old} → {'–' if new is None else new}"
 
@@ -134,15 +140,20 @@ def review_blocks(changes: Changes, short: bool = True) -> list[Block]:
         (("feature", "left"), ("tables", "left"), ("largest change", "right"),
          ("at", "left"), ("missing value", "left")),
         tuple((t.feature, t.old_kind if t.old_kind == t.new_kind else
-               f"{t.old_kind} → {t.new_kind}", signed(t.largest), where_text(t),
-               missing_text(t)) for t in changes.terms),
+               f"{t.old_kind} → {t.new_kind}", largest, where_text(t),
+               missing_text(t)) for t, largest in zip(
+                   changes.terms, _column([t.largest for t in changes.terms], True),
+                   strict=True)),
         _term_notes(changes)))
     blocks.append(Block(
         "Importance: mean |contribution| and rank (1 = most important)",
         (("feature", "left"), ("old", "right"), ("new", "right"), ("change", "right"),
          ("rank", "left")),
-        tuple((i.feature, number(i.old), number(i.new), signed(i.change),
-               _rank(i.old_rank, i.new_rank)) for i in changes.importance),
+        tuple((i.feature, old, new, change, _rank(i.old_rank, i.new_rank))
+              for i, old, new, change in zip(
+                  changes.importance, _column([i.old for i in changes.importance]),
+                  _column([i.new for i in changes.importance]),
+                  _column([i.change for i in changes.importance], True), strict=True)),
         (_importance_note(changes),)))
     if changes.data is not None:
         blocks += _data_blocks(changes)
@@ -198,7 +209,9 @@ def _data_blocks(changes: Changes) -> list[Block]:
                  ("highest", data.shift_max)]
         blocks.append(Block(f"Score shift, new − old ({changes.scale})",
                             (("statistic", "left"), ("shift", "right")),
-                            tuple((name, signed(value)) for name, value in stats)))
+                            tuple(zip([name for name, _ in stats],
+                                      _column([value for _, value in stats], True),
+                                      strict=True))))
     if data.unscored:
         blocks.append(Block(
             "Rows a version cannot score (left out of the figures above)",

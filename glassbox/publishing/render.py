@@ -10,15 +10,19 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from rich import box
 from rich.console import Group, RenderableType
-from rich.table import Table
 from rich.text import Text
 
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
 from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
+from glassbox.publishing.narrow import (
+    FittedTable,
+    frame_texts,
+    key_value_table,
+    number_texts,
+)
 
 HEADINGS = {
     "row": "value",
@@ -29,7 +33,7 @@ HEADINGS = {
     "lower": "band low",
     "upper": "band high",
     "importance": "importance",
-    "range": "contribution range",
+    "range": "range",
     "observed": "observed",
     "declared": "declared",
     "missing": "missing value",
@@ -51,41 +55,33 @@ def cell(value: Any, digits: int = 4) -> str:
     return str(value)
 
 
-def _numeric_text(column: pd.Series) -> bool:
-    """Whether a text column holds numbers written out, blanks aside (right-align those)."""
-    present = column.dropna()
-    if present.empty or not (column.dtype == object
-                             or pd.api.types.is_string_dtype(column.dtype)):
-        return False
-    return bool(pd.to_numeric(present, errors="coerce").notna().all())
+def value_text(value: Any) -> str:
+    """One labelled value (a line of a key-value list): whole numbers with thousands
+    separators, other numbers to four significant figures, text as it is."""
+    if isinstance(value, bool | np.bool_):
+        return "yes" if value else "no"
+    if isinstance(value, int | np.integer):
+        return f"{int(value):,}"
+    if isinstance(value, float | np.floating):
+        if np.isfinite(value) and float(value).is_integer() and abs(value) < 1e15:
+            return f"{int(value):,}"
+        return number_texts([value], significant=4)[0] if abs(value) >= 1e-4 or value == 0 \
+            else f"{value:.3e}"
+    return cell(value)
 
 
 def frame_table(frame: pd.DataFrame, title: str | None = None,
-                columns: Sequence[str] | None = None, digits: int = 4) -> Table:
-    """A DataFrame as a rich table; numeric columns right-aligned."""
-    columns = list(columns or frame.columns)
-    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
-                  title_style="bold", header_style="bold", pad_edge=False)
-    for position, name in enumerate(columns):
-        numeric = pd.api.types.is_numeric_dtype(frame[name].dtype) or _numeric_text(
-            frame[name])
-        heading = HEADINGS.get(name, name.replace("_", " "))
-        table.add_column(heading, justify="right" if numeric else "left",
-                         no_wrap=position == 0 or name.endswith("interval"),
-                         min_width=min(len(heading), 12))
-    for row in frame[columns].itertuples(index=False):
-        table.add_row(*(cell(value, digits) for value in row))
-    return table
+                columns: Sequence[str] | None = None, digits: int = 4,
+                styles: Mapping[str, str] | None = None) -> FittedTable:
+    """A DataFrame as a table that fits the terminal: each column's numbers in one style
+    (`narrow.frame_texts`), numbers right-aligned, nothing cut. `digits` is the number
+    of significant figures the largest value of a column keeps."""
+    texts = frame_texts(frame, columns, dict(styles or {}))
+    return FittedTable.of_frame(texts, title=title, headings=HEADINGS)
 
 
-def key_values(pairs: Mapping[str, Any], title: str | None = None) -> Table:
-    table = Table(title=title, box=None, show_header=False, title_justify="left",
-                  title_style="bold", pad_edge=False)
-    table.add_column(style="bold")
-    table.add_column()
-    for key, value in pairs.items():
-        table.add_row(key, cell(value))
-    return table
+def key_values(pairs: Mapping[str, Any], title: str | None = None) -> FittedTable:
+    return key_value_table({str(k): value_text(v) for k, v in pairs.items()}, title)
 
 
 def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> RenderableType:
@@ -135,29 +131,60 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     return key_values(pairs, title="Fitted")
 
 
+SUMMARY_TITLE = ("Features by importance (mean |contribution| on the {scale} scale; "
+                 "range: the lowest to the highest contribution; missing: the entry for a "
+                 "blank and its share of training rows, or refused when training had none)")
+
+
+def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
+    """The importance summary as the terminal shows it: each number column in one style,
+    the contribution range from the lowest and highest written alike."""
+    lowest = number_texts(list(summary["lowest"]) + list(summary["highest"]), signed=False)
+    half = len(summary)
+    texts = frame_texts(summary, ["feature", "importance", "observed", "declared"])
+    texts.insert(2, "range", [f"{low} to {high}" for low, high in
+                              zip(lowest[:half], lowest[half:], strict=True)])
+    texts["missing"] = [missing_words(m, s, short=True) for m, s in
+                        zip(summary["missing"], summary["missing_share"], strict=True)]
+    return texts
+
+
+def term_texts(table: pd.DataFrame, keep: Sequence[int] = ()) -> tuple[pd.DataFrame, str]:
+    """One term's table as the terminal shows it, and the words its title adds.
+
+    A long table is thinned (`readable_rows`): it then gets a first column numbering each
+    row as the files do (from 1), so a skipped row is plain to see, and the title says how
+    many rows it shows. Rows at positions `keep` (the bin a row's value falls in) and the
+    missing-value row are always shown."""
+    shown = readable_rows(table, keep=keep)
+    columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
+    texts = frame_texts(shown, columns)
+    knots = value_rows(shown)
+    if len(knots) and knots["from"].notna().all() and (knots["from"] == knots["to"]).all() \
+            and not str(knots["row"].iloc[0]).endswith(")"):  # a curve's knots, not a flag's
+        labels = number_texts(list(knots["from"]), significant=6)
+        texts.loc[knots.index, "row"] = labels
+    words = ""
+    if len(shown) < len(table):
+        texts.insert(0, "#", [str(position + 1) for position in shown.index])
+        words = (f": {len(shown)} of {len(table)} rows, # numbering them as the files do "
+                 "(--format csv gives all)")
+    return texts, words
+
+
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
-                scale: str = "score") -> RenderableType:
-    """The summary table, then each feature's table (long curves thinned)."""
-    shown = summary.assign(
-        range=[f"{low:.3g} to {high:.3g}" for low, high in
-               zip(summary["lowest"], summary["highest"], strict=True)],
-        missing=[missing_words(m, s, short=True) for m, s in
-                 zip(summary["missing"], summary["missing_share"], strict=True)])
-    parts: list[RenderableType] = [
-        frame_table(shown, title="Features by importance (mean |contribution| on the "
-                                 f"{scale} scale; missing: the entry for a blank and its "
-                                 "share of training rows, or refused when training had none)",
-                    columns=["feature", "importance", "range", "observed", "declared",
-                             "missing"])
-    ]
+                scale: str = "score",
+                keep: Mapping[str, Sequence[int]] | None = None) -> RenderableType:
+    """The summary table, then each feature's table (long ones thinned, saying so;
+    `keep`: positions of rows each feature's table must show)."""
+    parts: list[RenderableType] = [FittedTable.of_frame(
+        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS)]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
-        shown = readable_rows(table)
-        title = f"{feature} ({kinds.get(feature, 'term')})"
-        if len(shown) < len(table):
-            title += f" ({len(shown)} of {len(table)} rows; files hold all)"
-        columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
-        parts.append(frame_table(shown, title=title, columns=columns))
+        texts, words = term_texts(table.reset_index(drop=True),
+                                  (keep or {}).get(feature, ()))
+        title = f"{feature} ({kinds.get(feature, 'term')}){words}"
+        parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS))
     return Group(*parts)
 
 
@@ -256,17 +283,21 @@ def _grid_table(grid: pd.DataFrame, title: str, wrap: bool = False) -> Table:
 
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
     """One row's score and its reasons, largest gap first."""
-    table = Table(box=box.SIMPLE_HEAD, title=f"Reasons, largest gap below the best first "
-                                             f"({scale} scale)")
-    for heading, justify in (("#", "right"), ("feature", "left"), ("value", "right"),
-                             ("gap", "right"), ("reason", "left")):
-        table.add_column(heading, justify=justify)  # type: ignore[arg-type]
-    for number, reason in enumerate(reasons, start=1):
-        value = MISSING_LEVEL if is_missing(reason.value) else cell(reason.value)
-        table.add_row(str(number), reason.feature, value, cell(reason.gap, 3), reason.text)
+    gaps = number_texts([reason.gap for reason in reasons])
+    rows = [(str(number), reason.feature,
+             MISSING_LEVEL if is_missing(reason.value) else value_text(reason.value), gap,
+             reason.text)
+            for number, (reason, gap) in enumerate(zip(reasons, gaps, strict=True), start=1)]
+    table = FittedTable(f"Reasons, largest gap below the best first ({scale} scale)",
+                        [("#", "right"), ("feature", "left"), ("value", "left"),
+                         ("gap", "right"), ("reason", "left")], rows, mixed=["value"])
     parts: list[RenderableType] = [key_values(row, title="Row")]
     parts.append(table if reasons else Text("No term holds this row below its best."))
     return Group(*parts)
+
+
+POINTS_HEADINGS = {"row": "value or range", "training_rows": "rows",
+                   "largest_difference": "max diff"}
 
 
 def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
@@ -277,10 +308,10 @@ def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
     parts: list[RenderableType] = [key_values(summary, title="Points card")]
     if fidelity is not None:
         parts.append(key_values(fidelity, title="Card against the exact score"))
+    columns = ["row", "points", "contribution", "training_rows", "spread",
+               "largest_difference"]
     for feature, group in rows.groupby("feature", sort=False):
-        shown = group.rename(columns={"row": "value or range", "training_rows": "rows",
-                                      "largest_difference": "max diff"})
-        parts.append(frame_table(shown, title=str(feature), digits=3,
-                                 columns=["value or range", "points", "contribution", "rows",
-                                          "spread", "max diff"]))
+        texts = frame_texts(group, columns, {"points": "count", "training_rows": "count"})
+        parts.append(FittedTable.of_frame(texts, title=str(feature),
+                                          headings=POINTS_HEADINGS))
     return Group(*parts)
