@@ -9,6 +9,7 @@ from rich.table import Table
 from rich.text import Text
 
 from glassbox.explaining.groups import flag_caption, flag_words
+from glassbox.publishing import palette
 from glassbox.publishing.render import frame_table
 from recourse import audit
 from recourse.batch import NOT_STATED
@@ -103,7 +104,7 @@ def result_view(model, result: PlanResult) -> RenderableType:
                 lines.append(Padding(Text(supplied_words(change, kind), style="dim"),
                                      (0, 0, 0, 4)))
             if change.tail is not None:
-                lines.append(Padding(Text(f"caution: {change.tail.text()}", style="yellow"),
-                                     (0, 0, 0, 4)))
+                caution = Text(f"caution: {change.tail.text()}", style=palette.CAUTION_STYLE)
+                lines.append(Padding(caution, (0, 0, 0, 4)))
     lines += [Text(""), Text(CAUTION, style="italic")]
     return Group(*lines)

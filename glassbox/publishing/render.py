@@ -19,6 +19,7 @@ from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
 from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
+from glassbox.publishing import palette
 
 HEADINGS = {
     "row": "value",
@@ -182,11 +183,11 @@ def terminal_columns(table: pd.DataFrame) -> list[str]:
 
 
 def error_text(message: str) -> Text:
-    return Text.assemble(("error: ", "bold red"), message)
+    return Text.assemble(("error: ", palette.ERROR_STYLE), message)
 
 
 def warning_text(message: str) -> Text:
-    return Text.assemble(("warning: ", "bold yellow"), message)
+    return Text.assemble(("warning: ", palette.WARNING_STYLE), message)
 
 
 def comparison_view(headline: str, accuracy: pd.DataFrame, cost: pd.DataFrame,
