@@ -76,6 +76,7 @@ def score_psi_figure(summary: pd.DataFrame, watch: float, act: float) -> Figure:
     axis.set_title("Score stability by period", fontsize=10, loc="left")
     figure.legend(loc="outside lower center", ncols=3, fontsize=8, frameon=False)
     axis.grid(axis="y", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 
@@ -99,6 +100,7 @@ def contribution_figure(features: pd.DataFrame, names: Sequence[str], periods: S
         _periods_axis(axis, periods)
         axis.tick_params(axis="y", labelsize=8)
         axis.grid(color=FAINT, linewidth=0.8)
+        axis.set_axisbelow(True)
     for axis in axes[len(names):]:
         axis.set_visible(False)
     figure.supylabel(f"mean contribution ({scale})", fontsize=9)
@@ -194,6 +196,7 @@ def characteristic_figure(summary: pd.DataFrame, features: pd.DataFrame,
                    fontsize=10, loc="left")
     figure.legend(loc="outside lower center", ncols=2, fontsize=8, frameon=False)
     axis.grid(axis="y", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 
@@ -217,4 +220,5 @@ def attribution_figure(features: pd.DataFrame, period: str) -> Figure:
                     "top", fontsize=10, x=0.01, ha="left")
     figure.legend(loc="outside lower center", ncols=2, fontsize=8, frameon=False)
     axis.grid(axis="x", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure

@@ -70,6 +70,7 @@ class AxisScale:
     values: tuple[float, ...] = ()
     positions: tuple[float, ...] = ()
     ticks: tuple[float, ...] = ()  # "percentile": the deciles' values, to two figures
+    span: float | None = None  # "log": the maximum over the minimum
 
 
 def axis_scale(profile: FeatureProfile | None) -> AxisScale:
@@ -105,7 +106,7 @@ def axis_scale(profile: FeatureProfile | None) -> AxisScale:
     positive = points[points > 0]
     if points[0] >= 0 and len(positive) and points[99] >= 10 * positive[0]:
         if points[0] > 0:
-            return AxisScale("log", " (log scale)")
+            return AxisScale("log", " (log scale)", span=float(points[100] / points[0]))
         return _symlog(float(positive[0]))
     if profile.value_counts:
         return AxisScale("linear")
@@ -135,11 +136,13 @@ def _through(x, known: np.ndarray, found: np.ndarray) -> np.ndarray:
 def _apply_scale(axis, scale: AxisScale) -> None:
     if scale.kind == "log":
         axis.set_xscale("log")
-        axis.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+        decades = np.log10(scale.span) if scale.span else 0.0
+        axis.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0) if decades < 2.5
+                                                else (1.0,)))
     elif scale.kind == "symlog":
         axis.set_xscale("symlog", linthresh=scale.threshold, linscale=0.5)
-        axis.xaxis.set_major_locator(SymmetricalLogLocator(
-            linthresh=scale.threshold, base=10, subs=(1.0, 2.0, 5.0)))
+        axis.xaxis.set_major_locator(SymmetricalLogLocator(linthresh=scale.threshold,
+                                                           base=10, subs=(1.0,)))
     elif scale.kind == "percentile":
         values, positions = np.array(scale.values), np.array(scale.positions)
         axis.set_xscale("function", functions=(lambda x: _through(x, values, positions),
@@ -380,7 +383,7 @@ def _bars_figure(model: AdditiveModel, feature: str) -> Figure:
         axis.errorbar(values, positions, xerr=[low, high], fmt="none", ecolor=INK,
                       elinewidth=1, capsize=3)
     shares = table["training_share"].to_numpy(dtype=float)
-    names = [f"{label}  ({share:.0%} of rows)" if np.isfinite(share) else label
+    names = [f"{label}  ({percent_text(share)} of rows)" if np.isfinite(share) else label
              for label, share in zip(labels, shares, strict=True)]
     axis.set_yticks([*positions, 0.0], [*names, _missing_label(model, feature)])
     axis.get_yticklabels()[-1].set_color(MISSING if term.missing is not None else QUIET)
