@@ -188,3 +188,15 @@ def test_a_file_in_the_way(model, tmp_path):
     blocker.write_text("x")
     with pytest.raises(OptionError, match="it is a file, not a folder"):
         plots.write_plots(model, blocker)
+
+
+def test_a_model_without_a_profile_keeps_its_own_ticks():
+    # constructed: a model file from before profiles were stored (none): a linear axis,
+    # its value ticks kept, no percentile scale along the top
+    schema = Schema.from_dict({"target": {"column": "y", "positive": 1},
+                               "feature": {"x": {"kind": "number"}}})
+    model = AdditiveModel("logit", 0.0, (CurveTerm("x", (0.0, 5.0, 10.0), (1.0, 0.0, 2.0)),),
+                          schema, ())
+    main, top = plots.feature_figure(model, "x").axes[:2]
+    assert main.get_xscale() == "linear" and len(main.get_xticks()) > 2
+    assert list(top.get_xticks()) == []

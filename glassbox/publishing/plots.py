@@ -190,9 +190,12 @@ def _percentile_scale(model: AdditiveModel, feature: str, axis, top) -> None:
     on `top` (its twin: the same x scale and limits): a tick at each stored percentile's
     value, labelled "p1" to "p99" (equal values share one tick, "p1–p25"; ticks close
     together take turns on two rows), and a faint line down through the picture at each."""
+    # twins share their tick makers: give the top its own, so its ticks leave the bottom's
+    top.xaxis.major, top.xaxis.minor = Ticker(), Ticker()
+    top.xaxis.set_minor_locator(NullLocator())
     profile = next((p for p in model.profiles if p.feature == feature), None)
     if profile is None or not profile.percentiles:
-        top.set_xticks([])
+        top.xaxis.set_major_locator(NullLocator())  # an older model file: no profile
         return
     points = np.asarray(profile.percentiles)
     groups: list[tuple[float, list[int]]] = []
@@ -211,9 +214,6 @@ def _percentile_scale(model: AdditiveModel, feature: str, axis, top) -> None:
         row = 1 - row if place - previous < CLOSE else 0
         previous = place
         labels.append(_percentile_names(numbers) + ("\n" if row else ""))
-    # twins share their tick makers: give the top its own, so its ticks leave the bottom's
-    top.xaxis.major, top.xaxis.minor = Ticker(), Ticker()
-    top.xaxis.set_minor_locator(NullLocator())
     top.set_xticks(values, labels, fontsize=8, color=QUIET)
     top.tick_params(axis="x", colors=QUIET, length=4)
     top.set_xlabel("training percentiles (p50: half the rows below; p99: 1% above)",
