@@ -10,6 +10,7 @@ from rich.console import Group, RenderableType
 from rich.text import Text
 
 from glassbox.explaining.groups import flag_caption, flag_words
+from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
     bullet,
@@ -131,7 +132,8 @@ def change_rows(model, plan) -> tuple[list[tuple[str, str, str, str]], list[Any]
         if change.supplied:
             notes.append(indented(Text(supplied_words(change, kind), style="dim")))
         if change.tail is not None:
-            notes.append(indented(Text(f"caution: {change.tail.text()}", style="yellow")))
+            caution = Text(f"caution: {change.tail.text()}", style=palette.CAUTION_STYLE)
+            notes.append(indented(caution))
     return rows, notes
 
 

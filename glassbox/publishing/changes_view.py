@@ -15,6 +15,7 @@ from rich.text import Text
 
 from glassbox.core.provenance import fingerprint_method, short_fingerprint
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
+from glassbox.publishing import palette
 from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
 from glassbox.publishing.monitor_view import _table as fitted_table
 from glassbox.publishing.narrow import number_texts
@@ -236,7 +237,7 @@ def changes_view(changes: Changes, width: int = WIDTH) -> RenderableType:
         prominent = block.title.startswith("Changes that turn")
         table = fitted_table(block.title, block.headings, block.rows, width)
         if prominent:
-            table.title_style = "bold red"
+            table.title_style = palette.ERROR_STYLE
         parts.append(table if block.rows else Text(block.title, style="bold"))
         parts += [Text(note) for note in block.notes]
         parts.append(Text(""))

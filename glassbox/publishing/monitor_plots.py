@@ -18,20 +18,23 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 
 from glassbox.publishing.monitor_view import psi_text
+from glassbox.publishing.palette import (
+    ACT,
+    DEVELOPMENT,
+    FAINT,
+    INK,
+    LATEST,
+    MOVERS,
+    OTHERS,
+    PAPER,
+    QUIET,
+    STEADY,
+    WATCH,
+)
 
 DPI = 110
-INK = "#27333f"
-QUIET = "#8a949e"
-STEADY = "#e7eee9"      # heat: below the watch line
-WATCH_COLOUR = "#efc45c"
-ACT_COLOUR = "#b9503a"
-DEVELOPMENT = "#5a6f84"
-LATEST = "#d9822b"
-RISE = "#b9503a"
-FALL = "#2f7d74"
-# the characteristic analysis colours its largest movers apart; the rest share one grey
-MOVER_COLOURS = ("#2f7d74", "#d9822b", "#6c5b9e", "#b9503a", "#4f8fc0", "#9a8f3c")
-OTHERS = "#c5ccd3"
+WATCH_COLOUR, ACT_COLOUR = WATCH, ACT
+MOVER_COLOURS = MOVERS  # the characteristic analysis's largest movers, each its own
 
 
 def _periods_axis(axis, periods: Sequence[str]) -> None:
@@ -72,7 +75,8 @@ def score_psi_figure(summary: pd.DataFrame, watch: float, act: float) -> Figure:
     axis.set_ylabel("PSI of the score (development deciles)")
     axis.set_title("Score stability by period", fontsize=10, loc="left")
     figure.legend(loc="outside lower center", ncols=3, fontsize=8, frameon=False)
-    axis.grid(axis="y", alpha=0.25)
+    axis.grid(axis="y", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 
@@ -95,7 +99,8 @@ def contribution_figure(features: pd.DataFrame, names: Sequence[str], periods: S
         axis.set_title(textwrap.fill(str(name), 36), fontsize=9, loc="left")
         _periods_axis(axis, periods)
         axis.tick_params(axis="y", labelsize=8)
-        axis.grid(alpha=0.25)
+        axis.grid(color=FAINT, linewidth=0.8)
+        axis.set_axisbelow(True)
     for axis in axes[len(names):]:
         axis.set_visible(False)
     figure.supylabel(f"mean contribution ({scale})", fontsize=9)
@@ -126,7 +131,7 @@ def heat_figure(features: pd.DataFrame, periods: Sequence[str], watch: float,
     size = 8 if len(periods) <= 12 else 6
     for (row, column), value in np.ndenumerate(values):
         axis.text(column, row, psi_text(value), ha="center", va="center", fontsize=size,
-                  color="white" if value >= act else INK)
+                  color=PAPER if value >= act else INK)
         if bool(changed.iat[row, column]):
             axis.add_patch(_ring(row, column))
     axis.set_yticks(np.arange(len(order)), [str(name) for name in order], fontsize=8)
@@ -190,7 +195,8 @@ def characteristic_figure(summary: pd.DataFrame, features: pd.DataFrame,
     axis.set_title("What moved the mean score: each feature's change, by period",
                    fontsize=10, loc="left")
     figure.legend(loc="outside lower center", ncols=2, fontsize=8, frameon=False)
-    axis.grid(axis="y", alpha=0.25)
+    axis.grid(axis="y", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 
@@ -213,5 +219,6 @@ def attribution_figure(features: pd.DataFrame, period: str) -> Figure:
     figure.suptitle(f"Attribution shares, development against {period}: largest movers on "
                     "top", fontsize=10, x=0.01, ha="left")
     figure.legend(loc="outside lower center", ncols=2, fontsize=8, frameon=False)
-    axis.grid(axis="x", alpha=0.25)
+    axis.grid(axis="x", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure

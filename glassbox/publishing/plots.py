@@ -8,12 +8,27 @@ from __future__ import annotations
 
 import io
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from matplotlib.axis import Ticker
 from matplotlib.figure import Figure
+from matplotlib.ticker import (
+    FuncFormatter,
+    LogLocator,
+    NullFormatter,
+    NullLocator,
+    SymmetricalLogLocator,
+)
 
-from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
+from glassbox.core.additive import (
+    AdditiveModel,
+    CurveTerm,
+    FeatureProfile,
+    LevelsTerm,
+    StepTerm,
+)
 from glassbox.core.files import output_folder, safe_file_name, write_atomic
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.shapes import (
@@ -24,14 +39,123 @@ from glassbox.explaining.shapes import (
     term_table,
     value_rows,
 )
+from glassbox.publishing.palette import (
+    BAND,
+    FAINT,
+    FALL,
+    INK,
+    MISSING,
+    QUIET,
+    RISE,
+    SHAPE,
+)
 
-LINE = "#1f4e79"
-BAND = "#9dc3e6"
-DATA = "#7f7f7f"
-BAR_UP = "#b85450"
-BAR_DOWN = "#4a7fb5"
-MISSING = "#c55a11"
 DPI = 110
+TOP_PERCENTILES = (1, 10, 25, 50, 75, 90, 99)  # the scale along the top of a numeric picture
+CLOSE = 0.045  # ticks nearer than this share of the axis width take turns on two rows
+HATCH = "///"
+
+
+@dataclass(frozen=True)
+class AxisScale:
+    """How a numeric picture spaces its x axis, and the words its axis label adds.
+
+    kind: "linear"; "log"; "symlog" (linear from 0 to `threshold`, logarithmic above);
+    "percentile" (each stored training percentile evenly spaced: `values` at `positions`).
+    """
+
+    kind: str
+    words: str = ""
+    threshold: float | None = None
+    values: tuple[float, ...] = ()
+    positions: tuple[float, ...] = ()
+    ticks: tuple[float, ...] = ()  # "percentile": the deciles' values, to two figures
+    span: float | None = None  # "log": the maximum over the minimum
+
+
+def axis_scale(profile: FeatureProfile | None) -> AxisScale:
+    """The x axis for a numeric feature, by a rule read from its 101 training percentiles
+    p0 (the minimum) to p100 (the maximum):
+
+    1. linear, unless a linear axis would crowd the data: *crowded* when the middle 98% of
+       rows (p1 to p99) would fill less than half the axis, so the 1% at either end stretch
+       it; *lopsided* when the upper half of rows spans four times or more the width of the
+       lower half ((p99 - p50) >= 4 (p50 - p1), p99 above p50);
+    2. then, when no value is negative and p99 is at least ten times the smallest positive
+       stored percentile (the values span a decade or more, as money amounts do):
+       logarithmic if the minimum is above 0, else "symlog": linear from 0 to that smallest
+       positive percentile and logarithmic above it (so zeros keep a place);
+    3. otherwise spaced by training percentile (each stored percentile evenly spaced,
+       a tie at the middle of its run, straight lines between them and beyond the ends),
+       unless the feature takes few distinct values (the profile keeps their counts, at
+       most 64): then linear, as ties would squeeze the values between them.
+
+    A model without a stored profile keeps a linear axis.
+    """
+    if profile is None or len(profile.percentiles) < 101:
+        return AxisScale("linear")
+    points = np.asarray(profile.percentiles, dtype=float)
+    width = points[100] - points[0]
+    if not width > 0:
+        return AxisScale("linear")
+    crowded = points[99] - points[1] < 0.5 * width
+    lopsided = points[99] > points[50] and \
+        points[99] - points[50] >= 4 * (points[50] - points[1])
+    if not (crowded or lopsided):
+        return AxisScale("linear")
+    positive = points[points > 0]
+    if points[0] >= 0 and len(positive) and points[99] >= 10 * positive[0]:
+        if points[0] > 0:
+            return AxisScale("log", " (log scale)", span=float(points[100] / points[0]))
+        return _symlog(float(positive[0]))
+    if profile.value_counts:
+        return AxisScale("linear")
+    values, first = np.unique(points, return_index=True)
+    last = len(points) - 1 - np.unique(points[::-1], return_index=True)[1]
+    return AxisScale("percentile", " (spaced by training percentile)",
+                     values=tuple(float(v) for v in values),
+                     positions=tuple(float(p) for p in (first + last) / 2),
+                     ticks=tuple(np.unique([float(f"{v:.2g}") for v in points[::10]])))
+
+
+def _symlog(threshold: float) -> AxisScale:
+    return AxisScale("symlog", f" (log scale; linear from 0 to {threshold:.4g})",
+                     threshold=threshold)
+
+
+def _through(x, known: np.ndarray, found: np.ndarray) -> np.ndarray:
+    """Piecewise-linear through (known, found), extended by the end slopes beyond them."""
+    x = np.asarray(x, dtype=float)
+    out = np.interp(x, known, found)
+    low = (found[1] - found[0]) / (known[1] - known[0])
+    high = (found[-1] - found[-2]) / (known[-1] - known[-2])
+    out = np.where(x < known[0], found[0] + (x - known[0]) * low, out)
+    return np.where(x > known[-1], found[-1] + (x - known[-1]) * high, out)
+
+
+def _apply_scale(axis, scale: AxisScale) -> None:
+    if scale.kind == "log":
+        axis.set_xscale("log")
+        decades = np.log10(scale.span) if scale.span else 0.0
+        axis.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0) if decades < 2.5
+                                                else (1.0,)))
+    elif scale.kind == "symlog":
+        axis.set_xscale("symlog", linthresh=scale.threshold, linscale=0.5)
+        axis.xaxis.set_major_locator(SymmetricalLogLocator(linthresh=scale.threshold,
+                                                           base=10, subs=(1.0,)))
+    elif scale.kind == "percentile":
+        values, positions = np.array(scale.values), np.array(scale.positions)
+        axis.set_xscale("function", functions=(lambda x: _through(x, values, positions),
+                                               lambda y: _through(y, positions, values)))
+        axis.set_xticks(scale.ticks)
+    if scale.kind != "linear":
+        axis.xaxis.set_major_formatter(FuncFormatter(_plain))
+        axis.xaxis.set_minor_formatter(NullFormatter())
+
+
+def _plain(value: float, _position=None) -> str:
+    """A tick value written out (1,000 rather than 10³)."""
+    return f"{value:,.0f}" if abs(value) >= 10 else f"{value:.3g}"
 
 
 def _score_label(model: AdditiveModel) -> str:
@@ -57,20 +181,45 @@ def _title(model: AdditiveModel, feature: str) -> str:
     return "; ".join(parts)
 
 
-def _data_strip(model: AdditiveModel, feature: str, axis) -> None:
-    """Ticks at the 101 training percentiles (each gap holds 1% of rows); 5-95% shaded."""
+def _percentile_names(numbers: Sequence[int]) -> str:
+    return f"p{numbers[0]}" if len(numbers) == 1 else f"p{numbers[0]}–p{numbers[-1]}"
+
+
+def _percentile_scale(model: AdditiveModel, feature: str, axis, top) -> None:
+    """The training percentiles TOP_PERCENTILES as a scale along the top of `axis`, drawn
+    on `top` (its twin: the same x scale and limits): a tick at each stored percentile's
+    value, labelled "p1" to "p99" (equal values share one tick, "p1–p25"; ticks close
+    together take turns on two rows), and a faint line down through the picture at each."""
+    # twins share their tick makers: give the top its own, so its ticks leave the bottom's
+    top.xaxis.major, top.xaxis.minor = Ticker(), Ticker()
+    top.xaxis.set_minor_locator(NullLocator())
     profile = next((p for p in model.profiles if p.feature == feature), None)
-    axis.set_yticks([])
     if profile is None or not profile.percentiles:
+        top.xaxis.set_major_locator(NullLocator())  # an older model file: no profile
         return
     points = np.asarray(profile.percentiles)
-    axis.axvspan(points[5], points[95], color=BAND, alpha=0.35, linewidth=0)
-    axis.vlines(points, 0, 1, color=DATA, linewidth=0.8)
-    axis.vlines([points[50]], 0, 1, color=LINE, linewidth=2.0)
-    axis.set_ylim(0, 1)
-    axis.set_ylabel("training\ndata", rotation=0, ha="right", va="center", fontsize=8)
-    axis.set_title("ticks: training percentiles (1% of rows between ticks); shaded: 5–95%; "
-                   "thick: median", fontsize=7, loc="left", color=DATA)
+    groups: list[tuple[float, list[int]]] = []
+    for number in TOP_PERCENTILES:
+        value = float(points[number])
+        if groups and groups[-1][0] == value:
+            groups[-1][1].append(number)
+        else:
+            groups.append((value, [number]))
+    values = np.array([value for value, _ in groups])
+    scaled = axis.xaxis.get_transform().transform(values)
+    low, high = axis.xaxis.get_transform().transform(np.array(axis.get_xlim()))
+    where = (scaled - low) / (high - low)
+    labels, row, previous = [], 0, -np.inf
+    for (_, numbers), place in zip(groups, where, strict=True):
+        row = 1 - row if place - previous < CLOSE else 0
+        previous = place
+        labels.append(_percentile_names(numbers) + ("\n" if row else ""))
+    top.set_xticks(values, labels, fontsize=8, color=QUIET)
+    top.tick_params(axis="x", colors=QUIET, length=4)
+    top.set_xlabel("training percentiles (p50: half the rows below; p99: 1% above)",
+                   fontsize=8, color=QUIET)
+    for value in values:
+        axis.axvline(value, color=FAINT, linewidth=0.8, zorder=0)
 
 
 def _missing_label(model: AdditiveModel, feature: str) -> str:
@@ -92,13 +241,13 @@ def _missing_marker(model: AdditiveModel, feature: str, axis) -> None:
     scale: a marker with its band (never joined to the values) and its share of training
     rows, or a note that a missing value is refused."""
     term = model.term(feature)
-    axis.axhline(0, color=DATA, linewidth=0.8, linestyle=":")
+    axis.axhline(0, color=QUIET, linewidth=0.8, linestyle=":")
     axis.tick_params(axis="y", labelleft=False)
     axis.set_xlim(-1, 1)
     if term.missing is None:
         axis.set_xticks([0], [MISSING_LEVEL])
         axis.text(0.5, 0.5, "refused\n(none in\ntraining)", transform=axis.transAxes,
-                  ha="center", va="center", fontsize=8, color=DATA)
+                  ha="center", va="center", fontsize=8, color=QUIET)
         return
     share = summary(model).set_index("feature").loc[feature, "missing_share"]
     rows = f"{percent_text(share)} of rows" if np.isfinite(share) else "share not\nrecorded"
@@ -107,27 +256,43 @@ def _missing_marker(model: AdditiveModel, feature: str, axis) -> None:
                   ecolor=MISSING, capsize=4, markersize=7)
 
 
+def _hatched(patch) -> None:
+    """A band's look: hatching in the band colour, no fill (plain in grey-scale print)."""
+    patch.set_facecolor("none")
+    patch.set_edgecolor(BAND)
+    patch.set_hatch(HATCH)
+    patch.set_linewidth(0)
+
+
 def _numeric_figure(model: AdditiveModel, feature: str) -> Figure:
+    """The curve or steps on an x axis chosen by `axis_scale`, the band as dashed bounds
+    with hatching between, the training percentiles along the top; beside it the
+    missing-value entry on the same score scale."""
     term = model.term(feature)
     profile = next((p for p in model.profiles if p.feature == feature), None)
+    scale = axis_scale(profile)
     figure = Figure(figsize=(8.5, 4.6), dpi=DPI, layout="constrained")
-    grid = figure.add_gridspec(2, 2, width_ratios=[7, 1], height_ratios=[6, 1])
-    top = figure.add_subplot(grid[0, 0])
-    strip = figure.add_subplot(grid[1, 0], sharex=top)
-    side = figure.add_subplot(grid[0, 1], sharey=top)
+    main, top, side = _three_axes(figure)
     _missing_marker(model, feature, side)
-    top.tick_params(axis="x", labelbottom=False)
     if isinstance(term, CurveTerm):
         x, y = np.asarray(term.knots), np.asarray(term.values)
         if len(x) == 1:
             x, y = np.r_[x - 0.5, x + 0.5], np.r_[y, y]
-        top.plot(x, y, color=LINE, linewidth=2)
+        if scale.kind == "log" and x.min() <= 0:  # a knot at or below 0: zero needs room
+            scale = _symlog(float(np.min(x[x > 0])) if (x > 0).any() else 1.0)
+    _apply_scale(main, scale)  # the twin along the top shares it
+    if isinstance(term, CurveTerm):
+        drawn = _drawn_at(main, x)
+        main.plot(drawn, np.interp(drawn, x, y), color=SHAPE, linewidth=2.2, label="shape",
+                  zorder=3)
         if term.lower is not None:
             low, high = np.asarray(term.lower), np.asarray(term.upper)
             if len(term.knots) == 1:
                 low, high = np.r_[low, low], np.r_[high, high]
-            top.fill_between(x, low, high, color=BAND, alpha=0.6, linewidth=0,
-                             label="95% band")
+            low, high = np.interp(drawn, x, low), np.interp(drawn, x, high)
+            _hatched(main.fill_between(drawn, low, high, label="95% band", zorder=1))
+            for bound in (low, high):
+                main.plot(drawn, bound, color=BAND, linewidth=1, linestyle="--", zorder=2)
     else:
         assert isinstance(term, StepTerm)
         start = profile.minimum if profile else (term.edges[0] if term.edges else 0.0) - 1
@@ -137,22 +302,60 @@ def _numeric_figure(model: AdditiveModel, feature: str) -> Figure:
             i == len(term.edges) or term.edges[i] > start)]
         edges = np.array([start, *inner, stop])
         values = np.asarray(term.values)[keep]
-        top.stairs(values, edges, color=LINE, linewidth=2, baseline=None)
+        main.stairs(values, edges, color=SHAPE, linewidth=2.2, baseline=None, label="shape",
+                    zorder=3)
         if term.lower is not None:
-            top.stairs(np.asarray(term.upper)[keep], edges,
-                       baseline=np.asarray(term.lower)[keep], fill=True, color=BAND,
-                       alpha=0.6, label="spread across seeds")
-    top.margins(x=0.02, y=0.08)
-    top.autoscale_view()
-    top.axhline(0, color=DATA, linewidth=0.8, linestyle=":")
-    top.set_ylabel(_score_label(model))
-    top.set_title(_title(model, feature), fontsize=10, loc="left")
-    top.grid(alpha=0.25)
-    if top.get_legend_handles_labels()[0]:
-        top.legend(loc="best", fontsize=8, frameon=False)
-    _data_strip(model, feature, strip)
-    strip.set_xlabel(_axis_label(model, feature))
+            low, high = np.asarray(term.lower)[keep], np.asarray(term.upper)[keep]
+            _hatched(main.stairs(high, edges, baseline=low, fill=True,
+                                 label="spread across seeds", zorder=1))
+            for bound in (low, high):
+                main.stairs(bound, edges, baseline=None, color=BAND, linewidth=1,
+                            linestyle="--", zorder=2)
+    main.margins(x=0.02, y=0.08)
+    main.autoscale_view()
+    main.axhline(0, color=QUIET, linewidth=0.8, linestyle=":")
+    main.set_ylabel(_score_label(model))
+    main.set_title(_title(model, feature), fontsize=10, loc="left", color=INK)
+    main.grid(axis="y", color=FAINT, linewidth=0.8)
+    if term.lower is not None:
+        main.legend(loc="best", fontsize=8, frameon=False)
+    main.set_xlabel(_axis_label(model, feature) + scale.words)
+    _percentile_scale(model, feature, main, top)
     return figure
+
+
+def _drawn_at(axis, knots: np.ndarray) -> np.ndarray:
+    """Where to draw a curve: its knots, and on an axis that is not linear, points between
+    them evenly spaced on the axis (at most 1/400 of the knots' span apart), so that the
+    straight lines between knots, as the model reads them, are drawn as the axis bends
+    them. Each point's value is read from the table as the model reads it (np.interp)."""
+    if axis.get_xscale() == "linear" or len(knots) < 2:
+        return knots
+    forward = axis.xaxis.get_transform()
+    scaled = forward.transform(knots)
+    span = scaled[-1] - scaled[0]
+    if not span > 0:
+        return knots
+    parts = [knots[:1]]
+    for left, right, a, b in zip(scaled[:-1], scaled[1:], knots[:-1], knots[1:],
+                                 strict=True):
+        count = int(np.ceil(400 * (right - left) / span))
+        inner = forward.inverted().transform(np.linspace(left, right, count + 1)[1:-1])
+        parts += [np.clip(inner, a, b), [b]]
+    return np.concatenate(parts)
+
+
+def _three_axes(figure: Figure):
+    """The picture's axes in `figure.axes` order: the shape, its twin for the percentile
+    scale along the top (sharing x: the same scale and limits), the missing-value entry."""
+    grid = figure.add_gridspec(1, 2, width_ratios=[7, 1])
+    main = figure.add_subplot(grid[0, 0])
+    top = main.twinx()  # a twin sharing the x axis, showing it along the top only
+    top.yaxis.set_visible(False)
+    top.xaxis.set_visible(True)
+    top.xaxis.tick_top()
+    top.xaxis.set_label_position("top")
+    return main, top, figure.add_subplot(grid[0, 1], sharey=main)
 
 
 def _bars_figure(model: AdditiveModel, feature: str) -> Figure:
@@ -168,26 +371,27 @@ def _bars_figure(model: AdditiveModel, feature: str) -> Figure:
                     layout="constrained")
     axis = figure.subplots()
     positions = np.arange(len(labels))[::-1] + 1.0
-    axis.axhline(0.5, color=DATA, linewidth=0.8, linestyle="--")
+    axis.axhline(0.5, color=QUIET, linewidth=0.8, linestyle="--")
     if term.missing is not None:
         axis.errorbar([term.missing], [0.0], xerr=_missing_error(term), fmt="D",
                       color=MISSING, ecolor=MISSING, capsize=3, markersize=7)
-    axis.barh(positions, values, color=[BAR_UP if v > 0 else BAR_DOWN for v in values],
+    axis.barh(positions, values, color=[RISE if v > 0 else FALL for v in values],
               height=0.6)
     if table["lower"].notna().all():
         low = values - table["lower"].to_numpy(dtype=float)
         high = table["upper"].to_numpy(dtype=float) - values
-        axis.errorbar(values, positions, xerr=[low, high], fmt="none", ecolor="black",
+        axis.errorbar(values, positions, xerr=[low, high], fmt="none", ecolor=INK,
                       elinewidth=1, capsize=3)
     shares = table["training_share"].to_numpy(dtype=float)
-    names = [f"{label}  ({share:.0%} of rows)" if np.isfinite(share) else label
+    names = [f"{label}  ({percent_text(share)} of rows)" if np.isfinite(share) else label
              for label, share in zip(labels, shares, strict=True)]
     axis.set_yticks([*positions, 0.0], [*names, _missing_label(model, feature)])
-    axis.get_yticklabels()[-1].set_color(MISSING if term.missing is not None else DATA)
-    axis.axvline(0, color=DATA, linewidth=0.8)
+    axis.get_yticklabels()[-1].set_color(MISSING if term.missing is not None else QUIET)
+    axis.axvline(0, color=QUIET, linewidth=0.8)
     axis.set_xlabel(_score_label(model))
     axis.set_title(_title(model, feature), fontsize=10, loc="left")
-    axis.grid(axis="x", alpha=0.25)
+    axis.grid(axis="x", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 
@@ -207,14 +411,15 @@ def importance_figure(model: AdditiveModel) -> Figure:
                     layout="constrained")
     axis = figure.subplots()
     positions = np.arange(len(table))[::-1]
-    axis.barh(positions, table["importance"], color=LINE, height=0.6)
+    axis.barh(positions, table["importance"], color=SHAPE, height=0.6)
     axis.set_yticks(positions, table["feature"])
     scale = "log-odds" if model.link == "logit" else model.schema.target.column
     axis.set_xlabel(f"importance: mean |contribution| over training rows ({scale})")
     family = model.metadata.get("family", "")
     axis.set_title(f"Feature importance, {family} model of {model.schema.target.column}",
                    fontsize=10, loc="left")
-    axis.grid(axis="x", alpha=0.25)
+    axis.grid(axis="x", color=FAINT, linewidth=0.8)
+    axis.set_axisbelow(True)
     return figure
 
 

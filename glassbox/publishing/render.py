@@ -10,13 +10,16 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from rich import box
 from rich.console import Group, RenderableType
+from rich.table import Table
 from rich.text import Text
 
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
 from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
+from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
     frame_texts,
@@ -209,11 +212,11 @@ def terminal_columns(table: pd.DataFrame) -> list[str]:
 
 
 def error_text(message: str) -> Text:
-    return Text.assemble(("error: ", "bold red"), message)
+    return Text.assemble(("error: ", palette.ERROR_STYLE), message)
 
 
 def warning_text(message: str) -> Text:
-    return Text.assemble(("warning: ", "bold yellow"), message)
+    return Text.assemble(("warning: ", palette.WARNING_STYLE), message)
 
 
 def comparison_view(comparison: Any) -> RenderableType:

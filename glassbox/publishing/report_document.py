@@ -10,6 +10,7 @@ import base64
 import html
 import io
 import re
+import string
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -20,6 +21,7 @@ from matplotlib.figure import Figure
 from glassbox.core.errors import OptionError
 from glassbox.core.files import output_folder, write_atomic
 from glassbox.core.formats import to_markdown as table_markdown
+from glassbox.publishing import palette
 from glassbox.publishing.render import cell
 
 HTML_NAME = "report.html"
@@ -138,32 +140,32 @@ def _cells(frame: pd.DataFrame) -> pd.DataFrame:
     return frame.map(lambda value: cell(value)).astype(str)
 
 
-STYLE = """
-body { margin: 0; background: #fbfbf8; color: #1d2733;
+STYLE = string.Template("""
+body { margin: 0; background: $PAGE; color: $INK;
   font: 15px/1.5 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; }
-main { max-width: 920px; margin: 0 auto; padding: 24px 28px 64px; background: #fff;
-  border-left: 1px solid #e3e3dc; border-right: 1px solid #e3e3dc; }
-h1 { font-size: 26px; margin: 8px 0 4px; color: #14324f; }
-h2 { font-size: 20px; margin: 36px 0 10px; padding-bottom: 4px; color: #14324f;
-  border-bottom: 2px solid #c9d6e3; }
-h3 { font-size: 16px; margin: 28px 0 8px; color: #14324f; }
-p.intro { color: #55606b; margin-top: 0; }
+main { max-width: 920px; margin: 0 auto; padding: 24px 28px 64px; background: $PAPER;
+  border-left: 1px solid $EDGE; border-right: 1px solid $EDGE; }
+h1 { font-size: 26px; margin: 8px 0 4px; color: $HEADING; }
+h2 { font-size: 20px; margin: 36px 0 10px; padding-bottom: 4px; color: $HEADING;
+  border-bottom: 2px solid $RULE; }
+h3 { font-size: 16px; margin: 28px 0 8px; color: $HEADING; }
+p.intro { color: $QUIET; margin-top: 0; }
 nav ol { columns: 2; margin: 8px 0 0; padding-left: 22px; font-size: 14px; }
-nav a { color: #1f4e79; text-decoration: none; }
-ul.caution { background: #fdf6e7; border-left: 5px solid #b7791f; margin: 0;
+nav a { color: $LINK; text-decoration: none; }
+ul.caution { background: $CAUTION_PAPER; border-left: 5px solid $CAUTION_EDGE; margin: 0;
   padding: 12px 16px 12px 34px; }
 ul.caution li { margin: 4px 0; }
 table { border-collapse: collapse; margin: 8px 0 4px; font-size: 13px; }
 caption { caption-side: top; text-align: left; font-weight: bold; padding: 4px 0; }
-th { text-align: left; background: #eef2f6; border-bottom: 1px solid #9aaabb; }
+th { text-align: left; background: $HEADER_PAPER; border-bottom: 1px solid $HEADER_RULE; }
 th, td { padding: 3px 10px 3px 6px; vertical-align: top; }
-td { border-bottom: 1px solid #e6e9ec; overflow-wrap: anywhere; }
+td { border-bottom: 1px solid $CELL_RULE; overflow-wrap: anywhere; }
 td.number { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 table.pairs td:first-child { font-weight: bold; white-space: nowrap; }
-tr:nth-child(even) td { background: #f8f9fa; }
+tr:nth-child(even) td { background: $STRIPE; }
 figure { margin: 10px 0; }
-img { max-width: 100%; height: auto; border: 1px solid #e6e9ec; }
-"""
+img { max-width: 100%; height: auto; border: 1px solid $CELL_RULE; }
+""").substitute(vars(palette))  # colours: the house palette (glassbox/publishing/palette.py)
 
 
 def _numeric(column: pd.Series) -> bool:
