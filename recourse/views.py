@@ -10,18 +10,18 @@ from rich.text import Text
 
 from glassbox.explaining.groups import flag_caption, flag_words
 from glassbox.publishing.render import frame_table
-from recourse import audit
+from recourse import reach
 from recourse.batch import NOT_STATED
 from recourse.planner import CAUTION, PlanResult
 from recourse.supply import accepted_words
 
 
-def audit_view(result: audit.Audit) -> RenderableType:
+def audit_view(result: reach.Reach) -> RenderableType:
     """The audit's tables for the terminal, then the caution."""
     parts: list[RenderableType] = [
         Text(f"Recourse for the declined rows ({result.context.get('goal', 'the goal')})",
              style="bold"),
-        frame_table(audit.summary_table(result))]
+        frame_table(reach.summary_table(result))]
     if not result.main_changes.empty:
         parts.append(frame_table(result.main_changes,
                                  title="The change that costs most in each cheapest plan"))
@@ -40,7 +40,7 @@ def audit_view(result: audit.Audit) -> RenderableType:
                                                 table["small"], result.min_group)
         parts.append(frame_table(shown, title=title))
     if result.groups:
-        parts.append(Text(audit.group_note(result.min_group)))
+        parts.append(Text(reach.group_note(result.min_group)))
     parts.append(Text(CAUTION, style="italic"))
     return Group(*parts)
 
