@@ -131,11 +131,12 @@ def template_command(
 ) -> None:
     """Write a starting mutability file (every feature fixed) to edit by hand."""
     from glassbox.core import artifact
-    from glassbox.core.files import check_output, write_atomic
+    from glassbox.core.files import check_not_an_input, check_output, write_atomic
     from glassbox.core.formats import suffix_format
     from recourse.mutability import template
 
     if out is not None:
+        check_not_an_input(out, [model_file])
         suffix_format(out, ("toml",), override=False)
         # a mutability file is edited by hand: any file there is the user's (--force)
         check_output(out, "mutability-template", [model_file], force=force)
@@ -182,9 +183,10 @@ def plan_command(
     force: Force = False,
 ) -> None:
     """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
-    from glassbox.core.files import check_output
+    from glassbox.core.files import check_not_an_input, check_output
     from glassbox.core.formats import output_format
 
+    check_not_an_input(out, [model_file, mutability, row, data])
     chosen = None if format is None else format.value
     written = (output_format(out, chosen, ("csv", "json", "parquet"), terminal="csv")
                if declined else output_format(out, chosen, ("json",)))
@@ -298,10 +300,11 @@ def reach_command(
     force: Force = False,
 ) -> None:
     """Across every declined row: who can reach the goal, at what cost, and by group."""
-    from glassbox.core.files import check_output, check_output_folder
+    from glassbox.core.files import check_not_an_input, check_output, check_output_folder
     from glassbox.core.formats import output_format
     from recourse.errors import PlanningError
 
+    check_not_an_input(out, [model_file, mutability, data])
     written = output_format(out, None if format is None else format.value,
                             ("json", "markdown"))
     if resume and plans_out is None:

@@ -415,6 +415,13 @@ def check_output_folder(folder: str | Path | None, inputs: Iterable[str | Path |
                          option=f"{option} {folder}: the file")
 
 
+def check_not_an_input(path: str | Path | None, inputs: Iterable[str | Path | None],
+                       option: str = "--out") -> None:
+    """Refuse an output that is one of `inputs`: the first check, before even its suffix."""
+    if path is not None:
+        _not_an_input(Path(path), inputs, option)
+
+
 def _not_an_input(path: Path, inputs: Iterable[str | Path | None], option: str) -> None:
     for source in inputs:
         if source is not None and same_file(path, source):
