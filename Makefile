@@ -40,7 +40,7 @@ demo: $(STAMP)
 	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family spline --out $(OUT)/listings.spline.json
 	$(GB) shapes $(OUT)/listings.spline.json --feature nightly_price --plot $(OUT)/listings-plots
 	@echo "== 8. recourse: what could a declined applicant change? (rules: demo_data/loans.mutability.toml)"
-	$(BIN)/recourse template $(OUT)/loans.spline.json > $(OUT)/loans.mutability.template.toml
+	$(BIN)/recourse template $(OUT)/loans.spline.json --out $(OUT)/loans.mutability.template.toml --force
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L001096
 	@echo "== 9. an applicant who left revenue blank: a plan may state it (supply_cost in the rules)"
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L000033 --plans 2
@@ -61,10 +61,10 @@ demo: $(STAMP)
 	$(GB) score --points $(OUT)/loans.card.json demo_data/loans.csv --out $(OUT)/loans.points.csv
 	@head -3 $(OUT)/loans.points.csv | cut -c1-110
 	@echo "== 14. recourse across all applications: who can reach the goal, at what cost, by group"
-	$(BIN)/recourse audit $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2
-	$(BIN)/recourse audit $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2 --format json --out $(OUT)/loans.audit.json
+	$(BIN)/recourse reach $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2
+	$(BIN)/recourse reach $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --by owner_age_band --by sector --jobs 2 --out $(OUT)/loans.reach.json
 	@echo "== 15. the audit report: one self-contained HTML file, and the same in Markdown"
-	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --recourse $(OUT)/loans.audit.json --cutoff 0.3 --out $(OUT)/report
+	$(GB) report $(OUT)/loans.spline.json --data demo_data/loans.csv --comparison $(OUT)/loans.compare.json --recourse $(OUT)/loans.reach.json --cutoff 0.3 --out $(OUT)/report
 	@echo "== 16. monitoring: two later quarters against the development sample the model file carries"
 	@echo "       (a downturn cuts revenue in both; a feed fault zeroes late payments in 2026-Q3, whose outcomes are not in yet)"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html

@@ -536,7 +536,7 @@ def batch_rows(sets: dict[str, tuple], rows: int = 20_000, sample: int = 2_000,
 
 def audit_rows(sets: dict[str, tuple], folder: Path, rows: int = 100_000) -> list[str]:
     """The population command on 100,000 declined rows: local at 1 and 2 jobs, dask with 2."""
-    from recourse import audit
+    from recourse import reach
     from recourse.scale import plan_at_scale
 
     model, rules, _ = recourse_setup(sets)
@@ -552,11 +552,11 @@ def audit_rows(sets: dict[str, tuple], folder: Path, rows: int = 100_000) -> lis
         times[name] = time.perf_counter() - start
     first = runs["local, 1 job"].outcomes
     same = all(run.outcomes.equals(first) for run in runs.values())
-    summary = audit.audit(first, by=["owner_age_band"])
+    summary = reach.reach(first, by=["owner_age_band"])
     scaling = times["local, 1 job"] / times["local, 2 jobs"]
     million = times["local, 2 jobs"] * 1_000_000 / rows
     lines = [
-        "## Recourse audit across a population: engines side by side",
+        "## Recourse reach across a population: engines side by side",
         "",
         f"{len(first):,} declined rows (resampled from those of 150,000 generated "
         "applications) in a Parquet file, the spline model and rules of the recourse "

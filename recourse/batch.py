@@ -11,13 +11,12 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel
 from recourse.batch_plans import BLOCK, batch_covers, plan_batch
 from recourse.candidates import OUTSIDE
+from recourse.choices import MOST_JOBS
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
 from recourse.planner import PlanResult, check_plan_count, plan_encoded, total_scores
 from recourse.program import DEFAULT_SOLVER
 from recourse.tails import TAIL_WORDS
-
-MOST_JOBS = 256  # workers at once: more processes than this only thrash a machine
 
 
 def declined_rows(model: AdditiveModel, frame: pd.DataFrame, mutability: Mutability,

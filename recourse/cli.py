@@ -1,165 +1,321 @@
-"""The `recourse` command: parse arguments, call the planner, render. No logic here."""
+"""The `recourse` command: parse arguments, call the planner, render. No logic here.
+
+Only typer and the shared command-line helpers load with this module, so `recourse --help`
+and `recourse --version` start at once; each command imports what it needs when it runs
+(planning one row loads neither dask nor pulp nor numba: `tests/test_recourse_cli.py`).
+The help is click's plain text, as glassbox's is (typer's rich help costs start-up time).
+"""
 
 from __future__ import annotations
 
-import json
-import re
+import functools
 import sys
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
+import click
 import typer
+from typer.core import TyperArgument, TyperCommand
 
 from glassbox.cli import Force, friendly, stderr_console, stdout_console
-from glassbox.core import artifact
-from glassbox.core.files import check_output, check_output_folder, write_atomic
-from glassbox.core.formats import to_csv
-from glassbox.core.provenance import file_sha256
-from glassbox.core.schema import read_table
-from glassbox.explaining.groups import MIN_GROUP
-from glassbox.guard import run_guarded
-from recourse import audit
-from recourse.batch import MOST_JOBS, plan_many, plans_frame
-from recourse.errors import PlanningError
-from recourse.manifest import MANIFEST
-from recourse.mutability import load_mutability, template
-from recourse.planner import MOST_PLANS, find_plans, plan_records
-from recourse.program import DEFAULT_SOLVER, SOLVERS
-from recourse.rows import pick_row
-from recourse.scale import ENGINES, plan_at_scale
-from recourse.views import audit_view, declined_view, result_view
+from recourse.choices import (
+    DEFAULT_SOLVER,
+    ENGINES,
+    JOBS_HELP,
+    MIN_GROUP,
+    MOST_JOBS,
+    MOST_PLANS,
+    SOLVERS,
+)
 
 app = typer.Typer(
     help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
+    rich_markup_mode=None,
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
+Engine = StrEnum("Engine", {name: name for name in ENGINES})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
-SOLVER_HELP = ("exact: the search built for this program (the default); highs or cbc: the "
-               "same program as an integer program, one row at a time.")
-# what --plans-out holds: the parts and the manifest (which the planner itself checks)
-PLANS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
+SOLVER_HELP = ("exact: the search built for this program; highs or cbc: the same program as "
+               "an integer program, one row at a time.")
+MODEL_HELP = "Model file (JSON)."
+MUTABILITY_HELP = "Mutability file (TOML): what may change, which way, at what cost."
+OLD_NAME_NOTE = ("note: `recourse audit` is now `recourse reach`; the old name works in this "
+                 "release only")
+
+
+def example(line: str) -> str:
+    """The last line of a command's help: one command line to copy."""
+    return f"Example: {line}"
+
+
+class Command(TyperCommand):
+    """A command whose help names its argument by its placeholder alone (MODEL, not
+    `MODEL <path>`) and writes it plainly in the usage line, as glassbox's commands do
+    (their `Command` does the same; once both live in one module, use that one)."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        for param in self.params:
+            if isinstance(param, TyperArgument):
+                param.display_type_rich = _no_type  # type: ignore[method-assign]
+
+    def collect_usage_pieces(self, ctx: click.Context) -> list[str]:
+        pieces = [self.options_metavar] if self.options_metavar else []
+        for param in self.get_params(ctx):
+            if isinstance(param, TyperArgument):
+                name = param.display_name_raw + ("..." if param.nargs != 1 else "")
+                pieces.append(name if param.required else f"[{name}]")
+            else:
+                pieces.extend(param.get_usage_pieces(ctx))
+        return pieces
+
+
+def _no_type(ctx: click.Context | None = None) -> None:
+    return None
 
 
 class PlanFormat(StrEnum):
     table = "table"
     json = "json"
+    csv = "csv"
+    parquet = "parquet"
 
 
-@app.callback()
-def _main() -> None:
-    """Plan the cheapest realistic changes that would flip a glass-box model's outcome."""
-
-
-@app.command("template")
-@friendly
-def template_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
-) -> None:
-    """Write a starting mutability file (every feature fixed) to standard output."""
-    sys.stdout.write(template(artifact.load(model_file)))
-
-
-@app.command("plan")
-@friendly
-def plan_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
-    mutability: Annotated[Path, typer.Option(help="Mutability file (TOML).")],
-    row: Annotated[Path | None, typer.Option(help="One row as a JSON object.")] = None,
-    data: Annotated[Path | None, typer.Option(help="CSV or Parquet file of rows.")] = None,
-    id_value: Annotated[str | None, typer.Option("--id", help="The row with this id.")] = None,
-    index: Annotated[int | None, typer.Option(
-        help="The N-th data row, counting from 1.", min=1)] = None,
-    declined: Annotated[bool, typer.Option(
-        help="Plan for every row of --data that misses the goal.")] = False,
-    plans: Annotated[int, typer.Option(help="Distinct plans per row.", min=1,
-                                       max=MOST_PLANS)] = 3,
-    solver: Annotated[Solver, typer.Option(help=SOLVER_HELP)] = SOLVER_CHOICE,
-    format: Annotated[PlanFormat, typer.Option(
-        "--format", help="table (terminal) or json.")] = PlanFormat.table,
-    out: Annotated[Path | None, typer.Option(
-        help="Batch: write one CSV row per plan here.")] = None,
-    jobs: Annotated[int, typer.Option(help="Batch: rows planned in parallel.", min=1,
-                                      max=MOST_JOBS)] = 1,
-    force: Force = False,
-) -> None:
-    """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
-    if out is not None and not declined:
-        raise PlanningError("--out is for --declined (one CSV row per plan); for one row, "
-                            "use --format json and redirect standard output")
-    check_output(out, "csv-plans", [model_file, mutability, row, data], force=force)
-    model = artifact.load(model_file)
-    rules = load_mutability(mutability, model)
-    if declined:
-        frame = read_table(data) if data is not None else None
-        results = plan_many(model, frame, rules, n_plans=plans, solver=solver.value,
-                            jobs=jobs, progress=True, source=str(data))
-        table = plans_frame(results, model)
-        if out is not None:
-            write_atomic(out, to_csv(table))
-            stderr_console().print(f"wrote {len(table)} plan row(s) to {out}")
-        else:
-            sys.stdout.write(to_csv(table))
-        stderr_console().print(declined_view(results))
-        return
-    raw, row_id = pick_row(model, row=row, data=data, id_value=id_value, index=index)
-    result = find_plans(model, raw, rules, n_plans=plans, solver=solver.value, row_id=row_id)
-    if format is PlanFormat.json:
-        sys.stdout.write(json.dumps(plan_records(result), indent=1, ensure_ascii=False) + "\n")
-        return
-    stdout_console().print(result_view(model, result))
-
-
-class AuditFormat(StrEnum):
+class ReachFormat(StrEnum):
     table = "table"
     json = "json"
     markdown = "markdown"
 
 
-Engine = StrEnum("Engine", {name: name for name in ENGINES})
+def choices(names: Any) -> str:
+    """The placeholder of an option with a few choices: `[a|b|c]`."""
+    return "[" + "|".join(str(name) for name in names) + "]"
 
 
-@app.command("audit")
+SOLVER_CHOICES = choices(SOLVERS)
+
+
+def _show_version(value: bool) -> None:
+    if value:
+        from glassbox import __version__
+
+        sys.stdout.write(f"recourse (glassbox {__version__})\n")
+        raise typer.Exit()
+
+
+# each example fits on one line of 80 columns (click wraps help at 80 at most)
+PLAN_EXAMPLE = example("recourse plan loans.json --mutability rules.toml --row row.json")
+
+
+@app.callback(epilog=PLAN_EXAMPLE)
+def _main(
+    version: Annotated[bool, typer.Option(
+        "--version", help="Show the version and stop.", is_eager=True,
+        callback=_show_version)] = False,
+) -> None:
+    """Plan the cheapest realistic changes that would flip a glass-box model's outcome."""
+
+
+# each command's line in `recourse --help` fits whole at 60 columns (click cuts longer ones)
+@app.command("template", cls=Command, short_help="A starting mutability file to edit.",
+             epilog=example("recourse template loans.json --out rules.toml"))
 @friendly
-def audit_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
-    mutability: Annotated[Path, typer.Option(help="Mutability file (TOML).")],
-    data: Annotated[Path, typer.Option(help="CSV or Parquet file of rows.")],
+def template_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    out: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="Write the mutability file here (a .toml file), not to "
+                             "standard output; an existing file needs --force.")] = None,
+    force: Force = False,
+) -> None:
+    """Write a starting mutability file (every feature fixed) to edit by hand."""
+    from glassbox.core import artifact
+    from glassbox.core.files import check_not_an_input, check_output, write_atomic
+    from glassbox.core.formats import suffix_format
+    from recourse.mutability import template
+
+    if out is not None:
+        check_not_an_input(out, [model_file])
+        suffix_format(out, ("toml",), override=False)
+        # a mutability file is edited by hand: any file there is the user's (--force)
+        check_output(out, "mutability-template", [model_file], force=force)
+    text = template(artifact.load(model_file))
+    if out is None:
+        sys.stdout.write(text)
+        return
+    write_atomic(out, text)
+    stderr_console().print(f"wrote a starting mutability file to {out}; edit it before "
+                           "planning", markup=False)
+
+
+@app.command("plan", cls=Command, short_help="Plans for one row or every declined row.",
+             epilog=PLAN_EXAMPLE)
+@friendly
+def plan_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    mutability: Annotated[Path, typer.Option(metavar="FILE", help=MUTABILITY_HELP)],
+    row: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="One row as a JSON object of feature values.")] = None,
+    data: Annotated[Path | None, typer.Option(
+        metavar="DATA", help="CSV or Parquet file of rows.")] = None,
+    id_value: Annotated[str | None, typer.Option(
+        "--id", metavar="ID", help="Plan for the row of --data with this id.")] = None,
+    index: Annotated[int | None, typer.Option(
+        metavar="N", help="Plan for the N-th row of --data, counting from 1.", min=1)] = None,
+    declined: Annotated[bool, typer.Option(
+        "--declined", help="Plan for every row of --data that misses the goal.")] = False,
+    plans: Annotated[int, typer.Option(
+        metavar="N", help="Distinct plans per row.", min=1, max=MOST_PLANS)] = 3,
+    solver: Annotated[Solver, typer.Option(metavar=SOLVER_CHOICES, help=SOLVER_HELP)
+                      ] = SOLVER_CHOICE,
+    format: Annotated[PlanFormat | None, typer.Option(
+        "--format", metavar=choices(PlanFormat),
+        help="One row: table (the terminal) or json. --declined: csv or json (csv when not "
+             "given). With --out it overrides the suffix.",
+        show_default=False)] = None,
+    out: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="Write the plans here, the format by the suffix: one row's as "
+                             ".json; --declined's as .csv, .parquet, .pq or .json (one row "
+                             "per plan).")] = None,
+    jobs: Annotated[int, typer.Option(
+        metavar="N", help=f"{JOBS_HELP} For --declined.", min=1, max=MOST_JOBS)] = 1,
+    force: Force = False,
+) -> None:
+    """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
+    from glassbox.core.files import check_not_an_input, check_output
+    from glassbox.core.formats import output_format
+
+    check_not_an_input(out, [model_file, mutability, row, data])
+    chosen = None if format is None else format.value
+    written = (output_format(out, chosen, ("csv", "json", "parquet"), terminal="csv")
+               if declined else output_format(out, chosen, ("json",)))
+    kinds = {"csv": "csv-plans", "json": "json" if declined else "recourse-plans",
+             "parquet": "parquet"}
+    check_output(out, kinds.get(written, written), [model_file, mutability, row, data],
+                 force=force)
+    if declined:
+        _plan_declined(model_file, mutability, data, plans, solver.value, jobs, written, out)
+    else:
+        _plan_one(model_file, mutability, row, data, id_value, index, plans, solver.value,
+                  written, out)
+
+
+def _plan_one(model_file: Path, mutability: Path, row: Path | None, data: Path | None,
+              id_value: str | None, index: int | None, plans: int, solver: str,
+              written: str, out: Path | None) -> None:
+    from glassbox.core import artifact
+    from recourse.mutability import load_mutability
+    from recourse.planner import find_plans, plan_json
+    from recourse.rows import pick_row
+
+    model = artifact.load(model_file)
+    rules = load_mutability(mutability, model)
+    raw, row_id = pick_row(model, row=row, data=data, id_value=id_value, index=index)
+    result = find_plans(model, raw, rules, n_plans=plans, solver=solver, row_id=row_id)
+    if written == "json":
+        _write(plan_json(result), out, f"the plans for row {row_id}")
+        return
+    from recourse.views import result_view
+
+    stdout_console().print(result_view(model, result))
+
+
+def _plan_declined(model_file: Path, mutability: Path, data: Path | None, plans: int,
+                   solver: str, jobs: int, written: str, out: Path | None) -> None:
+    from glassbox.core import artifact
+    from glassbox.core.files import write_atomic
+    from glassbox.core.formats import table_file
+    from glassbox.core.schema import read_table
+    from recourse.batch import plan_many, plans_frame
+    from recourse.mutability import load_mutability
+    from recourse.views import declined_view
+
+    model = artifact.load(model_file)
+    rules = load_mutability(mutability, model)
+    frame = read_table(data) if data is not None else None
+    results = plan_many(model, frame, rules, n_plans=plans, solver=solver, jobs=jobs,
+                        progress=True, source=str(data))
+    table = plans_frame(results, model)
+    content = b"".join(table_file(table, written))
+    if out is not None:
+        write_atomic(out, content)
+        rows = "1 plan row" if len(table) == 1 else f"{len(table):,} plan rows"
+        stderr_console().print(f"wrote {rows} to {out}", markup=False)
+    else:
+        sys.stdout.write(content.decode("utf-8"))
+    stderr_console().print(declined_view(results))
+
+
+def _write(text: str, out: Path | None, what: str) -> None:
+    """Text to `out` (saying so on standard error), else to standard output."""
+    if out is None:
+        sys.stdout.write(text)
+        return
+    from glassbox.core.files import write_atomic
+
+    write_atomic(out, text)
+    stderr_console().print(f"wrote {what} to {out}", markup=False, highlight=False)
+
+
+def reach_command(
+    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    mutability: Annotated[Path, typer.Option(metavar="FILE", help=MUTABILITY_HELP)],
+    data: Annotated[Path, typer.Option(metavar="DATA", help="CSV or Parquet file of rows.")],
     by: Annotated[list[str] | None, typer.Option(
-        help="Group the audit by this column (repeatable): a protected column, a region...")
-    ] = None,
-    jobs: Annotated[int, typer.Option(help="Workers (processes) planning at once.",
-                                      min=1, max=MOST_JOBS)] = 1,
+        metavar="COLUMN", help="Group by this column: a protected column, a region...; "
+                               "repeat it for more (--by a --by b).")] = None,
+    jobs: Annotated[int, typer.Option(
+        metavar="N", help=JOBS_HELP, min=1, max=MOST_JOBS)] = 1,
     engine: Annotated[Engine, typer.Option(
-        help="local: a process pool here; dask: a dask.distributed cluster.")] = Engine.local,
+        metavar=choices(Engine),
+        help="local: processes on this machine; dask: a dask.distributed cluster (with "
+             "--jobs workers, or --scheduler's).")] = Engine.local,
     scheduler: Annotated[str | None, typer.Option(
-        help="dask: the address of an existing scheduler (else one starts for the run).")
-    ] = None,
+        metavar="ADDRESS", help="dask: the address of an existing scheduler (else one "
+                                "starts for the run).")] = None,
     plans_out: Annotated[Path | None, typer.Option(
-        metavar="DIR", help="Keep every row's outcome as Parquet parts here (for --resume).")
-    ] = None,
+        metavar="DIR", help="Keep every row's outcome as Parquet parts here (for "
+                            "--resume); their row numbers count from 1.")] = None,
     resume: Annotated[bool, typer.Option(
-        help="With --plans-out: plan only the partitions not yet written.")] = False,
-    partition_rows: Annotated[int, typer.Option(help="Rows per partition.", min=1)] = 10_000,
-    solver: Annotated[Solver, typer.Option(help=SOLVER_HELP)] = SOLVER_CHOICE,
-    format: Annotated[AuditFormat, typer.Option(
-        "--format", help="table (terminal), json or markdown.")] = AuditFormat.table,
-    out: Annotated[Path | None, typer.Option(help="Write json or markdown here.")] = None,
+        "--resume", help="With --plans-out: plan only the partitions not yet written.")
+    ] = False,
+    partition_rows: Annotated[int, typer.Option(
+        metavar="N", help="Rows per partition.", min=1)] = 10_000,
+    solver: Annotated[Solver, typer.Option(metavar=SOLVER_CHOICES, help=SOLVER_HELP)
+                      ] = SOLVER_CHOICE,
+    format: Annotated[ReachFormat | None, typer.Option(
+        "--format", metavar=choices(ReachFormat),
+        help="table (the terminal, when not given), json or markdown; with --out it "
+             "overrides the suffix.", show_default=False)] = None,
+    out: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="Write the summary here, the format by the suffix: .json or "
+                             ".md.")] = None,
     min_group: Annotated[int, typer.Option(
         metavar="N", help="Groups with fewer declined rows are shown but not flagged.",
         min=1)] = MIN_GROUP,
     force: Force = False,
 ) -> None:
     """Across every declined row: who can reach the goal, at what cost, and by group."""
+    from glassbox.core.files import check_not_an_input, check_output, check_output_folder
+    from glassbox.core.formats import output_format
+    from recourse.errors import PlanningError
+
+    check_not_an_input(out, [model_file, mutability, data])
+    written = output_format(out, None if format is None else format.value,
+                            ("json", "markdown"))
     if resume and plans_out is None:
         raise PlanningError("--resume needs --plans-out DIR (where the finished parts are)")
-    if format is AuditFormat.table and out is not None:
-        raise PlanningError("--out needs --format json or markdown")
     inputs = [model_file, mutability, data]
-    check_output(out, "recourse-audit" if format is AuditFormat.json else "markdown", inputs,
-                 force=force)
-    check_output_folder(plans_out, inputs, option="--plans-out", also=PLANS_FOLDER_FILES)
+    check_output(out, "recourse-reach" if written == "json" else written, inputs, force=force)
+    from recourse.manifest import PARTS_FOLDER_FILES
+
+    check_output_folder(plans_out, inputs, option="--plans-out", also=PARTS_FOLDER_FILES)
+    from glassbox.core import artifact
+    from recourse import reach
+    from recourse.mutability import load_mutability
+    from recourse.scale import plan_at_scale
+
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
     groups = list(by or [])
@@ -172,34 +328,41 @@ def audit_command(
     except KeyboardInterrupt:  # the last line of defence prints these words, status 130
         raise KeyboardInterrupt("interrupted; rerun with --resume" if plans_out is not None
                                 else "interrupted") from None
-    if run.missing:
-        raise PlanningError(f"{len(run.missing)} of {run.partitions} partition(s) did not "
-                            f"finish (numbers {', '.join(map(str, run.missing[:10]))}); rerun "
-                            "with --resume to plan only those")
-    goal = rules.goal
-    what = (f"a probability of {model.schema.target.column} = {model.schema.target.positive}"
-            if model.link == "logit" else f"a predicted {model.schema.target.column}")
-    context = {"model_file": str(model_file), "model_file_sha256": file_sha256(model_file),
-               "data_file": str(data), "data_file_sha256": file_sha256(data),
-               "mutability_file": str(mutability),
-               "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
-               "goal_direction": goal.direction, "goal_target": goal.target,
-               "margin": goal.margin, "engine": engine.value, "partitions": run.partitions}
-    if resume:
-        context["resume"] = {"parts_kept": run.partitions - len(run.planned),
-                             "parts_replanned": run.replanned, "files_ignored": run.ignored}
-    result = audit.audit(run.outcomes, by=groups, context=context, min_group=min_group)
-    if format is AuditFormat.table:
-        stdout_console().print(audit_view(result))
+    run.check_complete()
+    context = reach.run_context(model, rules, model_file=model_file, data=data,
+                          mutability_file=mutability, engine=engine.value, run=run,
+                          resume=resume)
+    result = reach.reach(run.outcomes, by=groups, context=context, min_group=min_group)
+    if written == "table":
+        from recourse.views import reach_view
+
+        stdout_console().print(reach_view(result))
         return
-    text = audit.to_json(result) if format is AuditFormat.json else audit.to_markdown(result)
-    if out is None:
-        sys.stdout.write(text)
-        return
-    write_atomic(out, text)
-    stderr_console().print(f"wrote the audit of {result.declined:,} declined rows to {out}")
+    text = reach.to_json(result) if written == "json" else reach.to_markdown(result)
+    _write(text, out, f"who can reach the goal among {result.declined:,} declined rows")
+
+
+app.command("reach", cls=Command, short_help="Who reaches the goal, at what cost, by group.",
+            epilog=example(
+    "recourse reach loans.json --mutability rules.toml --data loans.csv"))(
+    friendly(reach_command))
+
+
+def _old_name(command: Any) -> Any:
+    """`recourse audit`, the old name of `recourse reach`: the same command, with one line
+    on standard error naming the new one (kept for one release)."""
+    @functools.wraps(command)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        sys.stderr.write(OLD_NAME_NOTE + "\n")
+        return command(*args, **kwargs)
+    return wrapper
+
+
+app.command("audit", cls=Command, hidden=True)(friendly(_old_name(reach_command)))
 
 
 def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
+    from glassbox.guard import run_guarded
+
     sys.exit(run_guarded(app))

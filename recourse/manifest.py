@@ -3,9 +3,14 @@ vouches for each part.
 
 The manifest records the run's fingerprint (input file, model, mutability rules, options)
 and, for every part it lists, the block of input rows the part covers (`first_row`, the
-0-based position of the block's first row as in the parts' `row` column, and `rows`, the
-block's length), how many outcome rows the part holds and the SHA-256 of its bytes. Each
-part also carries the run's fingerprint and its own number in its Parquet metadata.
+block's first data row counted from 1, header not counted, and `rows`, the block's length),
+how many outcome rows the part holds and the SHA-256 of its bytes. Each part also carries
+the run's fingerprint and its own number in its Parquet metadata.
+
+Every row number in the folder counts from 1, as in every file recourse writes: the parts'
+`row` column is the data row (1 is the first row after the header). In memory the outcomes'
+`row` is the 0-based position (`recourse.scale`); `PartsFolder.write` and `read` convert.
+Folders written before (manifest version 2, rows counted from 0) are refused, naming why.
 
 Resume keeps a part only if it passes every check (a file, same bytes, readable, written by
 this run, its outcome rows inside its block, unique and increasing, as many as recorded);
@@ -20,6 +25,7 @@ import hashlib
 import io
 import json
 import os
+import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,8 +40,11 @@ from glassbox.core.workers import sigint_held
 from recourse.mutability import Mutability
 
 MANIFEST = "manifest.json"
+# what an output folder of parts holds: the parts and the manifest (which the planner checks)
+PARTS_FOLDER_FILES = re.compile(rf"part-.*\.parquet|{re.escape(MANIFEST)}")
 MANIFEST_KIND = "recourse plans by partition"
-MANIFEST_VERSION = 2
+MANIFEST_VERSION = 3  # 3: row numbers count from 1 (2 counted from 0)
+FIRST_ROW = 1  # the number of the first data row in the parts and the manifest
 REJECTED = "rejected"  # parts that are not files are moved here, never deleted
 PART_KEY = b"recourse.part"  # the Parquet metadata key of a part's own record
 SETTING_LABELS = {  # what differs, in words, when a folder holds another run
@@ -75,13 +84,14 @@ class PartRecord:
     """What the manifest says of one part."""
 
     index: int
-    first_row: int  # 0-based position of the block's first input row
+    first_row: int  # 0-based position of the block's first input row (the file: from 1)
     rows: int  # input rows in the block
     outcomes: int  # outcome rows in the part (the block's declined rows)
     sha256: str
 
     def as_dict(self) -> dict[str, Any]:
-        return {"file": part_name(self.index), "first_row": self.first_row, "rows": self.rows,
+        return {"file": part_name(self.index), "first_row": self.first_row + FIRST_ROW,
+                "rows": self.rows,
                 "outcomes": self.outcomes, "sha256": self.sha256}
 
     def block_words(self) -> str:
@@ -104,9 +114,10 @@ def _record_from(key: str, entry: Any) -> PartRecord:
     numbers = [fields[name] for name in ("first_row", "rows", "outcomes")]
     if (entry.get("file") != part_name(index) or not isinstance(fields["sha256"], str)
             or any(isinstance(n, bool) or not isinstance(n, int) or n < 0 for n in numbers)
-            or fields["outcomes"] > fields["rows"]):
+            or fields["first_row"] < FIRST_ROW or fields["outcomes"] > fields["rows"]):
         raise PartRejected("its entry in the manifest is damaged")
-    return PartRecord(index, *numbers, fields["sha256"])
+    first, rows, outcomes = numbers
+    return PartRecord(index, first - FIRST_ROW, rows, outcomes, fields["sha256"])
 
 
 def _part_bytes(table: pd.DataFrame, index: int, run: str) -> bytes:
@@ -123,7 +134,8 @@ def _part_bytes(table: pd.DataFrame, index: int, run: str) -> bytes:
 
 def _checked_part(path: Path, record: PartRecord, run: str,
                   columns: list[str]) -> pd.DataFrame:
-    """The part's rows if it passes every check, else PartRejected saying which failed."""
+    """The part's rows as stored (row numbers from 1) if it passes every check, else
+    PartRejected saying which failed."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -152,8 +164,9 @@ def _checked_part(path: Path, record: PartRecord, run: str,
         raise PartRejected("its row numbers are not whole numbers")
     if len(rows) != record.outcomes:
         raise PartRejected(f"it holds {len(rows)} row(s), not the {record.outcomes} recorded")
-    if len(rows) and (np.any(np.diff(rows) <= 0) or rows[0] < record.first_row
-                      or rows[-1] >= record.first_row + record.rows):
+    first = record.first_row + FIRST_ROW  # the block's first data row, as the part counts
+    if len(rows) and (np.any(np.diff(rows) <= 0) or rows[0] < first
+                      or rows[-1] >= first + record.rows):
         raise PartRejected(f"its row numbers are not distinct rows of its block "
                            f"({record.block_words()})")
     return table
@@ -230,6 +243,11 @@ class PartsFolder:
             raise OptionError(f"{self.manifest} is not a readable manifest ({exc})") from None
         if not isinstance(earlier, dict) or earlier.get("kind") != MANIFEST_KIND:
             raise OptionError(f"{self.manifest} is not a manifest of planned partitions")
+        if earlier.get("version") == 2:
+            raise OptionError(f"{self.manifest} was written by an earlier recourse whose parts "
+                              "count rows from 0 (manifest version 2); this one counts them "
+                              "from 1 and does not resume such a folder: plan into an empty "
+                              "folder")
         if earlier.get("version") != MANIFEST_VERSION:
             raise OptionError(f"{self.manifest} was written by another version of recourse "
                               f"(manifest version {earlier.get('version')!r}, this one reads "
@@ -274,7 +292,8 @@ class PartsFolder:
         yet listed is planned again on resume). A Ctrl-C meanwhile waits until the part is
         listed, so a part on disk when the run stops is a part the manifest lists."""
         path = self.folder / part_name(index)
-        content = _part_bytes(table, index, self.run)
+        stored = table.assign(row=table["row"].to_numpy(dtype=np.int64) + FIRST_ROW)
+        content = _part_bytes(stored, index, self.run)
         with sigint_held():
             if path.exists() and not path.is_file():  # move it aside, never delete it
                 aside = output_folder(self.folder / REJECTED, "rejected parts")
@@ -285,14 +304,16 @@ class PartsFolder:
             self._save()
 
     def read(self, index: int) -> pd.DataFrame:
-        """A part's rows, checked again as they are read for the audit."""
+        """A part's rows, checked again as they are read for the summary; `row` as the
+        0-based position again."""
         record = self.records[index]
         try:
-            return _checked_part(self.folder / part_name(index), record, self.run,
-                                 self.columns)
+            table = _checked_part(self.folder / part_name(index), record, self.run,
+                                  self.columns)
         except PartRejected as reason:
             raise DataError(f"{self.folder / part_name(index)} changed during the run: "
                             f"{reason}; rerun with --resume") from None
+        return table.assign(row=table["row"].to_numpy(dtype=np.int64) - FIRST_ROW)
 
 
 def _free_name(path: Path) -> Path:

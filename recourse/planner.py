@@ -9,6 +9,7 @@ within the rules, the result says how close the rules allow and which rules bind
 
 from __future__ import annotations
 
+import json
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
@@ -20,6 +21,7 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel
 from glassbox.explaining.reasons import best_of, central_words
 from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
+from recourse.choices import MOST_PLANS
 from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability
 from recourse.pair_rules import pair_matrices, rules_kept
@@ -35,7 +37,6 @@ from recourse.program import (
 from recourse.supply import Stretch, accepted, least_first
 from recourse.tails import TailWarning, tail_warning
 
-MOST_PLANS = 100  # distinct plans per row: more asks for a search with no useful end
 SHOWN_FINDINGS = 6  # "no plan": the most limiting rules listed (the summary says when more)
 CAUTION = ("These plans are what-ifs computed from a statistical model, not advice and not a "
            "promise of any decision. Real decisions follow the lender's or marketplace's "
@@ -368,6 +369,15 @@ def _tail_record(tail: TailWarning | None) -> dict[str, Any] | None:
             "band_width": tail.width, "median_band_width": tail.typical}
 
 
+PLANS_FORMAT = "recourse-plans"  # the kind of one row's plans as a JSON file
+PLANS_VERSION = 1
+
+
+def plan_json(result: PlanResult) -> str:
+    """One row's plans as the JSON text `recourse plan --format json` writes."""
+    return json.dumps(plan_records(result), indent=1, ensure_ascii=False) + "\n"
+
+
 def plan_records(result: PlanResult) -> dict[str, Any]:
     """The result as plain data (the planner's JSON output)."""
     def number(value: Any) -> Any:
@@ -376,6 +386,7 @@ def plan_records(result: PlanResult) -> dict[str, Any]:
         return value
 
     return {
+        "format": PLANS_FORMAT, "version": PLANS_VERSION,
         "status": result.status, "id": result.row_id,
         "score": result.score, "outcome": result.outcome,
         "goal": {"target": result.target, "direction": result.direction},

@@ -22,6 +22,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from recourse.choices import DEFAULT_SOLVER, SOLVERS
 from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
 from recourse.pairs import (
@@ -35,8 +36,6 @@ from recourse.pairs import (
 )
 from recourse.relaxation import Relaxation
 
-SOLVERS = ("highs", "cbc", "exact")  # exact: recourse.solver, built for this program's shape
-DEFAULT_SOLVER = "exact"  # recourse.solver; many rows: recourse.batch_plans (bench/RESULTS.md)
 BUFFER = 1e-6  # the solver must pass the threshold by this much (link scale), so plans always do
 OBJECTIVES = ("total-cost", "largest-cost", "fewest-changes")
 DIRECTIONS = ("at-least", "at-most")

@@ -40,6 +40,7 @@ from recourse.batch import (
     progress_bar,
     typed_declined,
 )
+from recourse.choices import ENGINES
 from recourse.errors import PlanningError
 from recourse.manifest import MANIFEST_KIND, PartsFolder, mutability_checksum
 from recourse.mutability import Mutability
@@ -54,7 +55,6 @@ from recourse.source import (
     renumbered,
 )
 
-ENGINES = ("local", "dask")
 CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
 TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message")
 NUMBER_COLUMNS = ("score", "outcome", "total_cost", "largest_cost", "new_outcome",
@@ -76,6 +76,13 @@ class ScaleRun:
     @property
     def complete(self) -> bool:
         return not self.missing
+
+    def check_complete(self) -> None:
+        """Refuse to summarise a run with partitions that did not finish."""
+        if self.missing:
+            raise PlanningError(f"{len(self.missing)} of {self.partitions} partition(s) did "
+                                f"not finish (numbers {', '.join(map(str, self.missing[:10]))}"
+                                "); rerun with --resume to plan only those")
 
 
 # ---------------------------------------------------------------- one partition

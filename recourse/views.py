@@ -20,7 +20,7 @@ from glassbox.publishing.narrow import (
     plural,
 )
 from glassbox.publishing.render import frame_table
-from recourse import audit
+from recourse import reach
 from recourse.batch import NOT_STATED, summary_frame
 from recourse.planner import CAUTION, PlanResult
 from recourse.supply import accepted_words
@@ -50,12 +50,12 @@ def summary_tables(summary: pd.DataFrame) -> list[FittedTable]:
     return tables
 
 
-def audit_view(result: audit.Audit) -> RenderableType:
+def reach_view(result: reach.Reach) -> RenderableType:
     """The population's tables for the terminal, then the caution."""
     parts: list[RenderableType] = [
         Text(f"Recourse for the declined rows ({result.context.get('goal', 'the goal')})",
              style="bold"),
-        *summary_tables(audit.summary_table(result))]
+        *summary_tables(reach.summary_table(result))]
     if not result.main_changes.empty:
         parts.append(frame_table(result.main_changes,
                                  title="The change that costs most in each cheapest plan "
@@ -69,7 +69,7 @@ def audit_view(result: audit.Audit) -> RenderableType:
                                           flag_caption(table["group"], table["flagged"],
                                                        table["small"], result.min_group)))
     if result.groups:
-        parts.append(Text(audit.group_note(result.min_group)))
+        parts.append(Text(reach.group_note(result.min_group)))
     parts.append(Text(CAUTION, style="italic"))
     return Group(*parts)
 

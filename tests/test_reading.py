@@ -253,7 +253,7 @@ def test_item_4_score_and_the_population_audit_refuse_a_column_named_twice(
     model, rules = credit_model
     path, expected = _doubled_amount(credit_csv[0], tmp_path)
     one_line_error(run("score", model, path), expected)
-    one_line_error(plan("audit", model, "--data", path, "--mutability", rules), expected)
+    one_line_error(plan("reach", model, "--data", path, "--mutability", rules), expected)
 
 
 def test_the_population_audit_reads_cells_as_every_other_command(credit_csv, credit_model,
@@ -266,7 +266,7 @@ def test_the_population_audit_reads_cells_as_every_other_command(credit_csv, cre
     path = tmp_path / "none.csv"
     frame.to_csv(path, index=False)
     scored = run("score", model, path)
-    audited = plan("audit", model, "--data", path, "--mutability", rules)
+    audited = plan("reach", model, "--data", path, "--mutability", rules)
     assert scored.exit_code == 2 and audited.exit_code == 2, (scored.output, audited.output)
     assert "'None'" in scored.output and "'None'" in audited.output, audited.output
 
@@ -285,7 +285,7 @@ def test_the_population_audit_refuses_a_longer_row_past_its_first_block(credit_m
     path.write_bytes(b"".join(lines))
     expected = f"data file {path}: line 1201 has 15 fields where the header has 14"
     one_line_error(run("score", model, path), expected)
-    one_line_error(plan("audit", model, "--data", path, "--mutability", rules,
+    one_line_error(plan("reach", model, "--data", path, "--mutability", rules,
                         "--partition-rows", "650"), expected)
 
 

@@ -410,7 +410,7 @@ def credit(tmp_path_factory):
                      folder / name)
         assert result.exit_code == 0, result.output
     audited = runner.invoke(recourse_app, [
-        "audit", str(folder / "first.json"), "--mutability", str(folder / "rules.toml"),
+        "reach", str(folder / "first.json"), "--mutability", str(folder / "rules.toml"),
         "--data", str(folder / "first.csv"), "--format", "json", "--out",
         str(folder / "audit.json")])
     assert audited.exit_code == 0, audited.output

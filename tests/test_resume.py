@@ -25,7 +25,7 @@ import pytest
 from glassbox import fit_model
 from glassbox.core import artifact
 from glassbox.core.errors import DataError, OptionError
-from recourse import audit, manifest
+from recourse import manifest, reach
 from recourse.mutability import load_mutability
 from recourse.scale import plan_at_scale
 
@@ -84,9 +84,23 @@ def test_the_finished_run_counts_the_declined_rows(setup):
     assert finished.partitions == 3 and finished.missing == ()
     assert 40 < len(finished.outcomes) == len(declined_rows(model, data))
     listed = json.loads((folder / "done" / manifest.MANIFEST).read_text())["parts"]
-    assert [(p["first_row"], p["rows"]) for p in listed.values()] == [(0, 100), (100, 100),
-                                                                       (200, 100)]
+    # every row number in the folder counts from 1 (data rows, header not counted)
+    assert [(p["first_row"], p["rows"]) for p in listed.values()] == [(1, 100), (101, 100),
+                                                                       (201, 100)]
+    parts = pd.concat([pd.read_parquet(folder / "done" / manifest.part_name(int(key)))
+                       for key in listed], ignore_index=True)
+    assert parts["row"].tolist() == [r + 1 for r in declined_rows(model, data)]
     assert sum(p["outcomes"] for p in listed.values()) == len(finished.outcomes)
+
+
+def test_a_folder_whose_rows_count_from_0_is_refused_clearly(setup, tmp_path):
+    # the parts of manifest version 2 numbered rows from 0; read as rows from 1 they would
+    # shift every row by one, so such a folder is refused, saying why, before any planning
+    out = copy_of_run(setup, tmp_path)
+    listed = json.loads((out / manifest.MANIFEST).read_text())
+    (out / manifest.MANIFEST).write_text(json.dumps({**listed, "version": 2}))
+    with pytest.raises(OptionError, match="count rows from 0 .*plan into an empty folder"):
+        resume(setup, out)
 
 
 def test_an_intact_folder_is_kept_whole(setup, tmp_path):
@@ -190,19 +204,19 @@ def test_item3_a_forged_part_that_passes_its_checks_still_fails_the_count(setup,
                                     sha256="sha256:" + hashlib.sha256(content).hexdigest())
     (out / manifest.MANIFEST).write_text(json.dumps(listed))
     lost = int(pd.read_parquet(setup[3] / "done" / "part-00001.parquet")["row"].iloc[0])
-    with pytest.raises(DataError, match=f"declined but missing: data rows {lost + 1}\\b"):
+    with pytest.raises(DataError, match=f"declined but missing: data rows {lost}\\b"):
         resume(setup, out)
 
 
-def test_item3_the_audit_refuses_a_row_counted_twice_or_an_unknown_status(setup):
+def test_item3_the_summary_refuses_a_row_counted_twice_or_an_unknown_status(setup):
     *_, finished = setup
     outcomes = finished.outcomes
     with pytest.raises(DataError, match="more than once"):
-        audit.audit(pd.concat([outcomes, outcomes.iloc[:3]], ignore_index=True))
+        reach.reach(pd.concat([outcomes, outcomes.iloc[:3]], ignore_index=True))
     edited = outcomes.assign(status=outcomes["status"].where(outcomes.index != 0, "maybe"))
     with pytest.raises(DataError, match="'maybe'"):
-        audit.audit(edited)
-    found = audit.audit(outcomes)
+        reach.reach(edited)
+    found = reach.reach(outcomes)
     assert found.with_plan + found.no_plan + found.misfits == found.declined
 
 
@@ -223,7 +237,7 @@ def test_item5_partition_errors_name_rows_of_the_whole_file(setup, tmp_path):
 
 def command(setup, out: Path, *extra: str) -> list[str]:
     *_, folder, _ = setup
-    return [sys.executable, "-c", "from recourse.cli import main; main()", "audit",
+    return [sys.executable, "-c", "from recourse.cli import main; main()", "reach",
             str(folder / "credit.json"), "--mutability", str(folder / "rules.toml"),
             "--data", str(folder / "big.csv"), "--plans-out", str(out), "--partition-rows",
             "25", *extra]
@@ -312,7 +326,7 @@ def test_the_command_names_each_part_planned_again_and_counts_them(setup, tmp_pa
     (out / "part-00002.parquet").write_bytes(b"")
     (out / "notes.txt").write_text("mine")
     result = CliRunner().invoke(app, [
-        "audit", str(folder / "credit.json"), "--mutability", str(folder / "rules.toml"),
+        "reach", str(folder / "credit.json"), "--mutability", str(folder / "rules.toml"),
         "--data", str(data), "--partition-rows", str(PART), "--plans-out", str(out),
         "--resume", "--format", "json"])
     assert result.exit_code == 0, result.output

@@ -38,7 +38,7 @@ from glassbox.fitting.compare import (
     summarise,
 )
 from glassbox.fitting.compare_files import comparison_from_dict, read_comparison
-from glassbox.publishing.report_recourse import read_audit
+from glassbox.publishing.report_recourse import read_reach
 
 from .conftest import credit_files, one_line_error, reference_data
 
@@ -84,7 +84,7 @@ def run(*args):
 @pytest.fixture(scope="module")
 def files(tmp_path_factory):
     """Real files of every kind: a model file and points card fitted on 600 rows of
-    credit_data, the recourse audit of those rows, and a comparison on the first 400 rows
+    credit_data, the recourse reach summary of those rows, and a comparison on the first 400 rows
     of ISLR Default (two folds: few rows, so some intervals reach the metric's bounds)."""
     from recourse.cli import app as recourse_app
 
@@ -96,7 +96,7 @@ def files(tmp_path_factory):
                folder / "card.json")
     assert made.exit_code == 0, made.output
     audited = runner.invoke(recourse_app, [
-        "audit", str(folder / "model.json"), "--mutability", str(folder / "rules.toml"),
+        "reach", str(folder / "model.json"), "--mutability", str(folder / "rules.toml"),
         "--data", str(data), "--format", "json", "--out", str(folder / "audit.json"),
         "--by", "Marital"])
     assert audited.exit_code == 0, audited.output
@@ -287,7 +287,7 @@ AUDIT_CASES = {
                          + [("audit", case) for case in AUDIT_CASES])
 def test_a_damaged_result_file_names_the_file_and_the_key(files, tmp_path, name, case):
     cases, read = {"compare": (COMPARISON_CASES, read_comparison),
-                   "audit": (AUDIT_CASES, read_audit)}[name]
+                   "audit": (AUDIT_CASES, read_reach)}[name]
     edit, message = cases[case]
     damaged = tmp_path / f"damaged-{name}.json"
     _damaged_json(files / f"{name}.json", damaged, edit)
@@ -302,7 +302,7 @@ def test_files_handed_to_report_in_the_wrong_place_are_one_line(files):
     base = ("report", files / "model.json", "--data", files / "credit.csv", "--out",
             files / "report-out")
     one_line_error(run(*base, "--recourse", files / "compare.json"), "compare.json",
-                   "not a recourse audit file")
+                   "not a recourse reach file")
     one_line_error(run(*base, "--comparison", files / "audit.json"), "audit.json",
                    "not a glassbox comparison file")
     one_line_error(run(*base, "--comparison", files / "model.json"), "model.json")
@@ -347,7 +347,7 @@ def test_the_real_files_have_their_declared_structure(files):
     assert artifact.load(files / "model.json").terms
     assert points.load(files / "card.json").features
     assert read_comparison(files / "compare.json").models is not None
-    assert read_audit(files / "audit.json")["summary"]["declined"] > 0
+    assert read_reach(files / "audit.json")["summary"]["declined"] > 0
     for name in ("credit-boosted-v1.json", "credit-sparse-v1.json", "credit-spline-v1.json"):
         content = json.loads((Path(__file__).parent / "data" / "v1" / name).read_text())["model"]
         structure.check(structure.MODEL, content, name, ModelFileError)

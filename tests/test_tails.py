@@ -20,7 +20,7 @@ from glassbox.core.additive import (
 from glassbox.core.errors import DataError
 from glassbox.core.schema import Schema
 from glassbox.publishing.report_recourse import recourse_section
-from recourse import audit
+from recourse import reach
 from recourse.batch import outcome_frame, plans_frame
 from recourse.mutability import mutability_from_dict
 from recourse.planner import find_plans, plan_records
@@ -160,12 +160,12 @@ def test_a_move_into_incomes_far_tail_is_warned_and_one_in_the_body_is_not(credi
     assert outcome_frame([result, body[0]], model)["tail_warnings"].tolist() == [1, 0]
 
 
-def test_the_audit_counts_cheapest_plans_with_a_tail_warning(credit):
+def test_the_reach_summary_counts_cheapest_plans_with_a_tail_warning(credit):
     rows, model, rules = credit
     block = rows.iloc[:200].reset_index(drop=True)
     block.insert(0, "row", np.arange(len(block)))
     outcomes = plan_partition(block, model, rules)
-    found = audit.audit(outcomes)
+    found = reach.reach(outcomes)
     # a direct count, each row planned on its own and the rule applied by hand
     direct = 0
     for index in np.flatnonzero(model.probability(block) > 0.3):
@@ -174,11 +174,11 @@ def test_the_audit_counts_cheapest_plans_with_a_tail_warning(credit):
             expected_warning(model, rows, c.feature, float(c.proposed))
             for c in result.plans[0].changes)
     assert found.tail_warned == direct > 0
-    summary = dict(zip(*audit.summary_table(found).to_dict(orient="list").values(),
+    summary = dict(zip(*reach.summary_table(found).to_dict(orient="list").values(),
                        strict=True))
     assert summary["cheapest plans with a change into a sparse, uncertain tail"] == direct
-    document = json.loads(audit.to_json(found))
-    structure.check(structure.AUDIT, document, "audit.json", DataError)
+    document = json.loads(reach.to_json(found))
+    structure.check(structure.REACH, document, "audit.json", DataError)
     assert document["summary"]["tail_warned"] == direct
     intro = recourse_section(document).blocks[0].text
     assert f"; {direct:,} cheapest plans move a feature into a sparse tail" in intro

@@ -154,7 +154,9 @@ KIND_WORDS = {
     "glassbox-model": "a glassbox model file",
     "glassbox-points": "a points card",
     "glassbox-comparison": "a comparison (JSON)",
-    "recourse-audit": "a recourse audit (JSON)",
+    "recourse-reach": "a recourse reach summary (JSON)",
+    "recourse-audit": "a recourse reach summary (JSON, written as `recourse audit`)",
+    "recourse-plans": "the plans for one row (JSON)",
     "glassbox-monitoring": "a monitoring result (JSON)",
     "glassbox-changes": "a change review of two models (JSON)",
     "json": "a JSON file",
@@ -175,6 +177,7 @@ KIND_WORDS = {
     "json-scores": "a JSON file of scores",
     "schema": "a schema (TOML)",
     "mutability": "a mutability file (TOML)",
+    "mutability-template": "a starting mutability file (every feature fixed)",
     "toml": "a TOML file",
     "text": "a text file of a kind glassbox does not write",
     "binary": "a binary file of a kind glassbox does not write",
@@ -410,6 +413,13 @@ def check_output_folder(folder: str | Path | None, inputs: Iterable[str | Path |
         for name, kind in files:
             check_output(folder / name, kind, inputs, force=force,
                          option=f"{option} {folder}: the file")
+
+
+def check_not_an_input(path: str | Path | None, inputs: Iterable[str | Path | None],
+                       option: str = "--out") -> None:
+    """Refuse an output that is one of `inputs`: the first check, before even its suffix."""
+    if path is not None:
+        _not_an_input(Path(path), inputs, option)
 
 
 def _not_an_input(path: Path, inputs: Iterable[str | Path | None], option: str) -> None:

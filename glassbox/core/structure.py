@@ -1,7 +1,7 @@
 """The declared structure of every file glassbox reads, checked when it is read.
 
 One structure per file kind, all in this module: the model file, the points card, the
-comparison JSON, the recourse audit JSON, the schema TOML and the mutability TOML. A
+comparison JSON, the recourse reach JSON, the schema TOML and the mutability TOML. A
 structure says which keys a table holds (required, optional, and whether others may
 appear), what type each value has, and the range of each number (finite always;
 probabilities in [0, 1], counts whole and at least 0, edges increasing, ...).
@@ -522,7 +522,7 @@ COMPARISON = Record(
               "folds": Items(Record(required={"model": TEXT},
                                     extra=Either((NUMBER, TEXT), null=True)))})
 
-AUDIT = Record(
+REACH = Record(
     required={"format": TEXT, "version": Number(whole=True),
               "summary": Record(required={"declined": COUNT, "with_plan": COUNT,
                                           "no_plan": COUNT},

@@ -123,15 +123,16 @@ def build_report(
     `comparison` is a `compare.Comparison` (or give `comparison_file` to read one); it
     must have been made on the model's training data. `cutoff` is a probability for a
     classification model (default 0.5) and a predicted value for regression (required).
-    `recourse_file` is a `recourse audit --format json` file made with the same model file.
-    Groups (the report's and the audit's) of fewer than `min_group` rows are not flagged.
+    `recourse_file` is a `recourse reach` JSON file made with the same model file (or one
+    written by its old name, `recourse audit`). Groups (the report's and the reach file's)
+    of fewer than `min_group` rows are not flagged.
     `bands` gives band edges for numeric protected columns (see `groups.band_edges`).
     """
     from glassbox.explaining import reasons
     from glassbox.fitting.compare_files import read_comparison
     from glassbox.publishing import report_recourse
 
-    audit = report_recourse.read_audit(recourse_file) if recourse_file is not None else None
+    reach = report_recourse.read_reach(recourse_file) if recourse_file is not None else None
     model_name = f"model file {Path(model_file).name}" if model_file else "the model"
     if comparison is None and comparison_file is not None:
         comparison = read_comparison(comparison_file)
@@ -140,8 +141,8 @@ def build_report(
                  else "the comparison")
         check_same_data(model, comparison, model_name, where, frame)
     source = source or frame.attrs.get("source") or "the data"
-    if audit is not None:  # before any scoring: a mismatched audit is refused at once
-        report_recourse.check_audit(audit, f"recourse audit file {Path(recourse_file).name}",
+    if reach is not None:  # before any scoring: a mismatched reach file is refused at once
+        report_recourse.check_reach(reach, f"recourse reach file {Path(recourse_file).name}",
                                     model_file=model_file, data_file=source,
                                     better=model.schema.target.better,
                                     cutoff=reasons.checked_cutoff(model, cutoff))
@@ -155,7 +156,7 @@ def build_report(
 
     sections = [Section("Read this first", (Bullets(CAUTIONS, caution=True),)),
                 _summary_section(model, model_file, cutoff, source, len(frame),
-                                 comparison is not None, audit is not None)]
+                                 comparison is not None, reach is not None)]
     if comparison is not None:
         sections.append(_comparison_section(comparison, cutoff))
     sections.append(_importance_section(model))
@@ -165,9 +166,9 @@ def build_report(
                                       min_group, bands)
     sections.append(_groups_section(model, group_tables, cutoff, min_group,
                                     _band_notes(model, prepared.protected, bands)))
-    if audit is not None:
+    if reach is not None:
         sections.append(report_recourse.recourse_section(
-            audit, int(unfavourable.sum()), cutoff, min_group))
+            reach, int(unfavourable.sum()), cutoff, min_group))
     family = model.metadata.get("family", "additive")
     title = f"Audit report: {family} model of {model.schema.target.column}"
     intro = (f"Made by glassbox {__version__} from {model_name} and data file "

@@ -1,7 +1,9 @@
-"""The audit report's recourse section, from a `recourse audit --format json` file.
+"""The audit report's recourse section, from a `recourse reach --format json` file.
 
-glassbox does not import the planner: it reads the audit's JSON document (format
-"recourse-audit", version 1) and lays its tables out as report blocks.
+glassbox does not import the planner: it reads the reach summary's JSON document (format
+"recourse-reach", version 1) and lays its tables out as report blocks. A file written before
+the command was renamed (`recourse audit`, format "recourse-audit", the same document) is
+still read, for one release.
 """
 
 from __future__ import annotations
@@ -27,22 +29,24 @@ from glassbox.explaining.groups import (
 )
 from glassbox.publishing.report import Paragraph, Section, Table
 
-FORMAT = "recourse-audit"
+FORMAT = "recourse-reach"
+OLD_FORMAT = "recourse-audit"  # `recourse audit` before the rename: read for one release
 VERSION = 1
 TITLE = "Recourse for the declined rows"
 
 
-def read_audit(path: str | Path) -> dict[str, Any]:
-    """Read and check a recourse audit file; a clear one-line error if it is not one."""
-    document = read_json(path, "recourse audit file", DataError)
-    if not isinstance(document, dict) or document.get("format") != FORMAT:
-        raise DataError(f"{path} is not a recourse audit file (write one with "
-                        "`recourse audit ... --format json --out FILE`)")
+def read_reach(path: str | Path) -> dict[str, Any]:
+    """Read and check a recourse reach file (or one written by the old name, `recourse
+    audit`, for one release); a clear one-line error if it is not one."""
+    document = read_json(path, "recourse reach file", DataError)
+    if not isinstance(document, dict) or document.get("format") not in (FORMAT, OLD_FORMAT):
+        raise DataError(f"{path} is not a recourse reach file (write one with "
+                        "`recourse reach ... --out FILE.json`)")
     if document.get("version") != VERSION:
-        raise DataError(f"{path}: recourse audit version {document.get('version')!r}; this "
+        raise DataError(f"{path}: recourse reach version {document.get('version')!r}; this "
                         f"glassbox reads version {VERSION}")
-    where = f"recourse audit file {path}"
-    structure.check(structure.AUDIT, document, where, DataError)
+    where = f"recourse reach file {path}"
+    structure.check(structure.REACH, document, where, DataError)
     summary = document["summary"]
     counted = (summary["with_plan"] + summary["no_plan"] + summary.get("misfits", 0)
                + summary.get("outside", 0))
@@ -56,38 +60,38 @@ def read_audit(path: str | Path) -> dict[str, Any]:
 GOAL_WORDS = {"lower": "at most", "higher": "at least"}  # the goal that matches `better`
 
 
-def check_audit(document: dict[str, Any], audit_name: str, *, model_file: str | Path | None,
+def check_reach(document: dict[str, Any], reach_name: str, *, model_file: str | Path | None,
                 data_file: str | Path | None, better: str, cutoff: float) -> None:
-    """Refuse an audit that was not made with this model file, on this data file, for the
+    """Refuse a reach summary that was not made with this model file, on this data file, for the
     goal this report's cut-off states: its tables would describe other rows."""
     context = document.get("context") or {}
-    remake = "; remake it with `recourse audit ... --format json`"
+    remake = "; remake it with `recourse reach ... --out FILE.json`"
     for key, what in (("model_file_sha256", "model file"), ("data_file_sha256", "data file"),
                       ("goal", "goal")):
         if not context.get(key):
-            raise DataError(f"{audit_name} records no {what}, so it cannot be checked "
+            raise DataError(f"{reach_name} records no {what}, so it cannot be checked "
                             f"against this report{remake}")
     for key, given, what in (("model_file_sha256", model_file, "model file"),
                              ("data_file_sha256", data_file, "data file")):
         if given is None or not Path(given).is_file():
-            raise DataError(f"{audit_name} can only be checked against the {what} it was made "
+            raise DataError(f"{reach_name} can only be checked against the {what} it was made "
                             f"with: give the report that {what}")
         if context[key] != file_sha256(given):
-            raise DataError(f"{audit_name} was made with another {what} than "
+            raise DataError(f"{reach_name} was made with another {what} than "
                             f"{Path(given).name} (their SHA-256 differ)")
     goal = str(context["goal"])
     expected = f"{GOAL_WORDS[better]} {cutoff:g}"
-    if "goal_direction" in context and "goal_target" in context:  # audits since the field
+    if "goal_direction" in context and "goal_target" in context:  # files since the field
         same = (str(context["goal_direction"]).replace("-", " ") == GOAL_WORDS[better]
                 and is_number(context["goal_target"])
                 and math.isclose(float(context["goal_target"]), cutoff, rel_tol=1e-12))
-    else:  # older audits record the goal as words only: read its last words
+    else:  # older files record the goal as words only: read its last words
         found = re.search(r"\b(at most|at least) (\S+)$", goal)
         same = found is not None and found.group(0) == expected
     if not same:
-        raise DataError(f"{audit_name} was made for the goal '{goal}', but this report's "
+        raise DataError(f"{reach_name} was made for the goal '{goal}', but this report's "
                         f"cut-off makes favourable '{expected}': give the report the "
-                        "audit's cut-off (--cutoff), or remake the audit for this one")
+                        "file's cut-off (--cutoff), or remake the file for this one")
 
 
 def _share(value: Any) -> str:
@@ -105,9 +109,9 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
     """Shares with a plan, cost quantiles, main changes, binding rules and groups.
 
     `unfavourable_rows` is how many rows the report's other tables place on the
-    unfavourable side of its `cutoff`; the section says whether the audit's declined
+    unfavourable side of its `cutoff`; the section says whether the summary's declined
     rows are those rows. Groups of fewer than `min_group` declined rows are judged as the
-    report's own group tables are (shown, not flagged), from the audit's counts.
+    report's own group tables are (shown, not flagged), from the summary's counts.
     """
     summary = document["summary"]
     context = document.get("context", {})
@@ -119,7 +123,7 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
         same = (f" These are the {declined:,} rows the tables above place on the "
                 f"unfavourable side of the cut-off, {cutoff:g}.")
     else:
-        same = (f" The audit counted {declined:,} rows as declined, where the tables above "
+        same = (f" The reach summary counted {declined:,} rows as declined, where the tables above "
                 f"place {unfavourable_rows:,} rows on the unfavourable side of the same "
                 f"cut-off, {cutoff:g}: read the two counts with care.")
     intro = (f"For each of the {declined:,} declined rows the planner looked for "

@@ -1,5 +1,5 @@
-"""A population audit of recourse: can declined rows reach the goal, at what cost, and does
-that differ between groups?
+"""Who can reach the goal across a population: can declined rows reach it, at what cost, and
+does that differ between groups? (`recourse reach`)
 
 Works on the planner's outcome rows (one per declined row, see `recourse.batch.outcome_frame`),
 whichever engine produced them. The JSON form is read by `glassbox report --recourse`.
@@ -11,6 +11,7 @@ import json
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,7 +27,10 @@ from glassbox.explaining.groups import (
 )
 from recourse.tails import TAIL_WORDS
 
-FORMAT = "recourse-audit"
+FORMAT = "recourse-reach"
+# the kind written as `recourse audit` before the command was renamed; `glassbox report
+# --recourse` still reads it, for one release
+OLD_FORMAT = "recourse-audit"
 VERSION = 1
 QUANTILES = (10, 25, 50, 75, 90)
 CAUTION = ("Plans are what-ifs computed from a statistical model, not advice and not a promise "
@@ -45,7 +49,7 @@ def group_note(min_rows: int = MIN_GROUP) -> str:
 
 
 @dataclass(frozen=True)
-class Audit:
+class Reach:
     """What the planner found across all declined rows, overall and by group."""
 
     declined: int
@@ -106,8 +110,8 @@ def by_group(outcomes: pd.DataFrame, column: str, threshold: float = FOUR_FIFTHS
     }, columns=list(GROUP_COLUMNS))
 
 
-def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
-          context: Mapping[str, Any] | None = None, min_group: int = MIN_GROUP) -> Audit:
+def reach(outcomes: pd.DataFrame, by: Sequence[str] = (),
+          context: Mapping[str, Any] | None = None, min_group: int = MIN_GROUP) -> Reach:
     """Summarise outcome rows: shares, cost quantiles, main changes, binding rules, groups
     (a group of fewer than `min_group` declined rows is shown but not flagged)."""
     _check_counted_once(outcomes)
@@ -117,10 +121,10 @@ def audit(outcomes: pd.DataFrame, by: Sequence[str] = (),
     misfits = int((status == "error").sum())
     outside = int((status == "outside").sum())
     if len(planned) + len(stuck) + misfits + outside != len(outcomes):
-        raise DataError(f"the audit's counts do not add up: {len(planned)} with a plan + "
+        raise DataError(f"the reach summary's counts do not add up: {len(planned)} with a plan + "
                         f"{len(stuck)} without + {misfits} misfits + {outside} outside "
                         f"!= {len(outcomes)} declined rows")
-    return Audit(
+    return Reach(
         declined=len(outcomes), with_plan=len(planned), no_plan=len(stuck),
         misfits=misfits,
         cost_quantiles=_quantiles(planned["total_cost"]),
@@ -139,9 +143,31 @@ RESUME_COUNTS = (("parts_kept", "parts kept from an earlier run"),
                  ("files_ignored", "files ignored (not in the manifest)"))
 
 
+def run_context(model: Any, rules: Any, *, model_file: Path, data: Path,
+                mutability_file: Path, engine: str, run: Any, resume: bool) -> dict[str, Any]:
+    """What the summary was made from: the files (and their SHA-256, which `glassbox report
+    --recourse` checks), the goal in words and numbers, the engine, and on resume how many
+    parts were kept, planned again or ignored (`run` is a `recourse.scale.ScaleRun`)."""
+    from glassbox.core.provenance import file_sha256
+
+    goal, target = rules.goal, model.schema.target
+    what = (f"a probability of {target.column} = {target.positive}"
+            if model.link == "logit" else f"a predicted {target.column}")
+    context = {"model_file": str(model_file), "model_file_sha256": file_sha256(model_file),
+               "data_file": str(data), "data_file_sha256": file_sha256(data),
+               "mutability_file": str(mutability_file),
+               "goal": f"{what} {goal.direction.replace('-', ' ')} {goal.target:g}",
+               "goal_direction": goal.direction, "goal_target": goal.target,
+               "margin": goal.margin, "engine": engine, "partitions": run.partitions}
+    if resume:
+        context["resume"] = {"parts_kept": run.partitions - len(run.planned),
+                             "parts_replanned": run.replanned, "files_ignored": run.ignored}
+    return context
+
+
 def _check_counted_once(outcomes: pd.DataFrame) -> None:
     """Each declined row once (by its `row` number, when the outcomes have one), each with
-    a known status; otherwise the audit would count some rows twice or not at all."""
+    a known status; otherwise the summary would count some rows twice or not at all."""
     if "row" in outcomes:
         repeated = outcomes["row"][outcomes["row"].duplicated()]
         if len(repeated):
@@ -156,7 +182,7 @@ def _check_counted_once(outcomes: pd.DataFrame) -> None:
                         f"({', '.join(map(repr, unknown[:5]))})")
 
 
-def summary_table(result: Audit) -> pd.DataFrame:
+def summary_table(result: Reach) -> pd.DataFrame:
     """The headline numbers as (measure, value) rows."""
     rows = [("declined rows", result.declined), ("with a plan", result.with_plan),
             ("share with a plan", result.share_with_plan),
@@ -188,7 +214,7 @@ def _records(table: pd.DataFrame) -> list[dict[str, Any]]:
     return [{k: plain(v) for k, v in row.items()} for row in table.to_dict(orient="records")]
 
 
-def to_dict(result: Audit) -> dict[str, Any]:
+def to_dict(result: Reach) -> dict[str, Any]:
     """Plain data for the JSON file (`glassbox report --recourse` reads it)."""
     return {
         "format": FORMAT, "version": VERSION, "context": result.context,
@@ -205,12 +231,12 @@ def to_dict(result: Audit) -> dict[str, Any]:
     }
 
 
-def to_json(result: Audit) -> str:
+def to_json(result: Reach) -> str:
     return json.dumps(to_dict(result), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
 
 
-def to_markdown(result: Audit) -> str:
-    """The audit as Markdown: headline numbers, main changes, binding rules, groups."""
+def to_markdown(result: Reach) -> str:
+    """The reach summary as Markdown: headline numbers, main changes, binding rules, groups."""
     from glassbox.core.formats import to_markdown as table_markdown
 
     parts = ["# Recourse across the declined rows", CAUTION,

