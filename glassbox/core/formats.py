@@ -16,8 +16,6 @@ import pandas as pd
 from glassbox.core.errors import OptionError
 
 SUFFIXES = {"csv": ".csv", "markdown": ".md", "json": ".json"}
-# the file formats a table goes to by the suffix of its path (a table for other systems)
-TABLE_SUFFIXES = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet", ".json": "json"}
 BLOCK_ROWS = 100_000  # rows of CSV text made at a time (the text of a block is held once)
 
 
@@ -187,16 +185,62 @@ def to_parquet(table: pd.DataFrame) -> bytes:
     return buffer.getvalue().to_pybytes()
 
 
-def table_format(path: str | Path, option: str = "--out") -> str:
-    """The file format a table goes to, by the suffix of its path; any other suffix is
-    refused, naming the ones there are."""
+# every file format a command writes, by the suffix of --out: one rule for every command
+# (`output_format`); each command names the formats it writes
+FORMAT_SUFFIXES = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet", ".json": "json",
+                   ".md": "markdown", ".markdown": "markdown", ".html": "html",
+                   ".toml": "toml", ".sql": "sql", ".pmml": "pmml"}
+FORMAT_NAMES = {"csv": "CSV", "parquet": "Parquet", "json": "JSON", "markdown": "Markdown",
+                "html": "HTML", "toml": "TOML", "sql": "SQL", "pmml": "PMML"}
+TERMINAL = "table"  # the --format that means the terminal, not a file
+
+
+def suffix_format(path: str | Path, accepted: tuple[str, ...], option: str = "--out",
+                  override: bool = True) -> str:
+    """The format of `path` by its suffix, one of `accepted`; any other suffix is refused
+    before any work, naming the suffixes accepted (and --format, where it may override)."""
     suffix = Path(path).suffix.lower()
-    if suffix not in TABLE_SUFFIXES:
-        raise OptionError(f"{option} {path}: name a file ending in "
-                          f"{', '.join(TABLE_SUFFIXES)} (CSV, Parquet or JSON records); "
-                          f"{f'the suffix {suffix}' if suffix else 'a name with no suffix'} "
-                          "says no format")
-    return TABLE_SUFFIXES[suffix]
+    found = FORMAT_SUFFIXES.get(suffix)
+    if found in accepted:
+        return found
+    endings = [ending for ending, fmt in FORMAT_SUFFIXES.items() if fmt in accepted]
+    names = ", ".join(dict.fromkeys(FORMAT_NAMES[FORMAT_SUFFIXES[e]] for e in endings))
+    said = f"the suffix {suffix}" if suffix else "a name with no suffix"
+    hint = " or give --format" if override else ""
+    raise OptionError(f"{option} {path}: name a file ending in {', '.join(endings)} "
+                      f"({names}){hint}; {said} says no format")
+
+
+def output_format(out: str | Path | None, chosen: str | None, accepted: tuple[str, ...],
+                  terminal: str | None = TERMINAL) -> str:
+    """The one rule of every command's output: --format when given (it overrides the
+    suffix), else the suffix of --out, else what standard output gets (`terminal`).
+
+    `--format table` is the terminal's and takes no --out; a format standard output cannot
+    take (Parquet, or none at all when `terminal` is None) needs --out."""
+    if chosen is not None:
+        if chosen == TERMINAL and out is not None:
+            raise OptionError(f"--format table is the terminal's, not a file's: leave it out "
+                              f"and --out {out} takes its format from its suffix")
+        if chosen not in (*accepted, terminal):
+            raise OptionError(f"--format {chosen}: this command writes "
+                              f"{', '.join(accepted)}")
+    if out is None:
+        found = chosen or terminal
+        if found is None:
+            raise OptionError(f"say what to write: --out FILE (ending in "
+                              f"{', '.join(e for e, f in FORMAT_SUFFIXES.items() if f in accepted)}"
+                              f") or --format {'|'.join(accepted)}")
+        if found == "parquet":
+            raise OptionError("Parquet is not text: write it to a file with --out FILE.parquet")
+        return found
+    return chosen if chosen is not None else suffix_format(out, accepted)
+
+
+def table_format(path: str | Path, option: str = "--out") -> str:
+    """The file format a table goes to, by the suffix of its path (CSV, Parquet or JSON
+    records); any other suffix is refused, naming the ones there are."""
+    return suffix_format(path, ("csv", "parquet", "json"), option, override=False)
 
 
 def table_file(table: pd.DataFrame, fmt: str) -> Iterator[bytes]:
