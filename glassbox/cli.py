@@ -123,9 +123,9 @@ def schema_command(
     from glassbox.core.inference import infer_schema
     from glassbox.core.schema import read_table
 
+    check_output(out, "schema", [data], force=force)
     if out is not None:
         formats.suffix_format(out, ("toml",), override=False)
-    check_output(out, "schema", [data], force=force)
     frame = read_table(data)
     schema = infer_schema(frame, target, positive=positive, id_column=id_column,
                           dates_as_age=dates_as_age)
@@ -165,8 +165,8 @@ def fit_command(
     from glassbox.fitting.choices import family_options
     from glassbox.publishing.render import fit_view
 
-    formats.suffix_format(out, ("json",), override=False)
     check_output(out, "glassbox-model", [data, schema], force=force)
+    formats.suffix_format(out, ("json",), override=False)
     options = family_options(option or [], (family.value,))[family.value]
     if max_features is not None:
         options["max_features"] = max_features

@@ -89,12 +89,12 @@ def monitor_command(
 
     chosen = formats.output_format(out, None if format is None else format.value,
                                    ("json", "csv"))
-    if page is not None:
-        formats.suffix_format(page, ("html",), option="--page", override=False)
     inputs = [model_file, *data, baseline, card_file]
     written = "glassbox-monitoring" if chosen == "json" else table_kind(chosen, "monitoring")
     check_output(out, written, inputs, force=force)
     check_output(page, "html", [*inputs, out], force=force, option="--page")
+    if page is not None:
+        formats.suffix_format(page, ("html",), option="--page", override=False)
     from glassbox.explaining import points
     from glassbox.explaining.baseline import baseline_from_file, model_baseline
     from glassbox.explaining.monitor import monitor
