@@ -18,12 +18,14 @@ from glassbox import __version__
 from glassbox.cli_support import (  # noqa: F401  (re-exported: recourse.cli and tests use them)
     DROP_HELP,
     JOBS_HELP,
+    MAX_HELP_WIDTH,
     MAX_JOBS,
     MAX_REPEATS,
     MAX_SEED,
     MAX_TOP,
     Command,
     Force,
+    Group,
     choices,
     emit,
     friendly,
@@ -40,7 +42,7 @@ from glassbox.guard import run_guarded
 app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
-    rich_markup_mode=None, context_settings={"max_content_width": 200},
+    rich_markup_mode=None, cls=Group, context_settings={"max_content_width": MAX_HELP_WIDTH},
 )
 
 # the choices come from a light list beside the families, so a new family or benchmark

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import click
 import typer
-from typer.core import TyperArgument, TyperCommand
+from typer.core import TyperArgument, TyperCommand, TyperGroup
 
 from glassbox.core.errors import GlassboxError, OptionError
 from glassbox.guard import EXIT_USER_ERROR, Interrupted, show_error
@@ -32,6 +32,7 @@ MAX_REPEATS = 1000  # repeats of the folds; each is a full cross-validation
 MAX_JOBS = 256  # processes side by side; more than the fits to run would only wait
 MAX_TOP = 1000  # reasons per row; a model has one reason at most per feature
 # the same words for --jobs in every command of both apps
+MAX_HELP_WIDTH = 200  # columns of help text at most, however wide the terminal
 JOBS_HELP = "Processes working side by side; 1 starts none."
 DROP_HELP = "Drop rows with no target value (counted on screen) instead of refusing the file."
 Force = Annotated[bool, typer.Option(
@@ -144,9 +145,20 @@ class Command(TyperCommand):
 
     def __init__(self, *args: Any, **kwargs: Any) -> None:
         super().__init__(*args, **kwargs)
+        # help as wide as the terminal (to 200 columns), not click's 80
+        self.context_settings.setdefault("max_content_width", MAX_HELP_WIDTH)
         for param in self.params:
             if isinstance(param, TyperArgument):
                 param.display_type_rich = _no_type  # type: ignore[method-assign]
+
+    def format_help(self, ctx: Any, formatter: Any) -> None:
+        with whole_words():
+            super().format_help(ctx, formatter)
+
+    def get_short_help_str(self, limit: int = 45) -> str:
+        """The first paragraph of the help, whole: the listing wraps it, never cuts it."""
+        text = self.short_help or self.help or ""
+        return " ".join(text.split("\n\n")[0].split())
 
     def collect_usage_pieces(self, ctx: click.Context) -> list[str]:
         pieces = [self.options_metavar] if self.options_metavar else []
@@ -157,6 +169,33 @@ class Command(TyperCommand):
             else:
                 pieces.extend(param.get_usage_pieces(ctx))
         return pieces
+
+
+class Group(TyperGroup):
+    """The app itself: its help wraps at spaces only, like its commands'."""
+
+    def format_help(self, ctx: Any, formatter: Any) -> None:
+        with whole_words():
+            super().format_help(ctx, formatter)
+
+
+@contextlib.contextmanager
+def whole_words() -> Iterator[None]:
+    """While help is laid out, lines break at spaces only, never inside a hyphenated word
+    (click's wrapper breaks after hyphens: "self-" / "contained")."""
+    from typer._click import _textwrap
+
+    plain = _textwrap.TextWrapper
+
+    class Wrapper(plain):  # type: ignore[misc, valid-type]
+        def __init__(self, *args: Any, **kwargs: Any) -> None:
+            super().__init__(*args, **{**kwargs, "break_on_hyphens": False})
+
+    _textwrap.TextWrapper = Wrapper
+    try:
+        yield
+    finally:
+        _textwrap.TextWrapper = plain
 
 
 def _no_type(ctx: click.Context | None = None) -> None:
