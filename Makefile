@@ -54,10 +54,10 @@ demo: $(STAMP)
 	@echo "== 12. reasons: what holds two declined applicants furthest below the best (one left revenue blank)"
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L001096
 	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --id L000033 --top 3
-	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --format csv --out $(OUT)/loans.reasons.csv
+	$(GB) reasons $(OUT)/loans.spline.json demo_data/loans.csv --all --cutoff 0.3 --out $(OUT)/loans.reasons.csv
 	@echo "== 13. a points scorecard from the spline model, checked against the exact score at the cut-off"
-	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv --cutoff 0.3 --format json --out $(OUT)/loans.card.json
-	$(GB) points $(OUT)/loans.spline.json --cutoff 0.3 --format csv --out $(OUT)/loans.card.csv
+	$(GB) points $(OUT)/loans.spline.json --data demo_data/loans.csv --cutoff 0.3 --out $(OUT)/loans.card.json
+	$(GB) points $(OUT)/loans.spline.json --cutoff 0.3 --out $(OUT)/loans.card.csv
 	$(GB) score --points $(OUT)/loans.card.json demo_data/loans.csv --out $(OUT)/loans.points.csv
 	@head -3 $(OUT)/loans.points.csv | cut -c1-110
 	@echo "== 14. recourse across all applications: who can reach the goal, at what cost, by group"
@@ -69,12 +69,12 @@ demo: $(STAMP)
 	@echo "       (a downturn cuts revenue in both; a feed fault zeroes late payments in 2026-Q3, whose outcomes are not in yet)"
 	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_quarters.csv --period quarter --points $(OUT)/loans.card.json --page $(OUT)/monitoring.html
 	@echo "       one file per quarter (loans_q3.csv has no outcome column yet), every table as JSON"
-	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --format json --out $(OUT)/monitoring.json
+	$(GB) monitor $(OUT)/loans.spline.json demo_data/loans_q2.csv demo_data/loans_q3.csv --out $(OUT)/monitoring.json
 	@echo "== 17. deploy: the spline model as one SQL query and as PMML 4.4, and the points card too"
-	$(GB) export $(OUT)/loans.spline.json --sql --table loans --contributions --reasons 2 --out $(OUT)/loans.score.sql
-	$(GB) export $(OUT)/loans.spline.json --pmml --out $(OUT)/loans.spline.pmml
-	$(GB) export --points $(OUT)/loans.card.json --sql --table loans --contributions --out $(OUT)/loans.points.sql
-	$(GB) export --points $(OUT)/loans.card.json --pmml --out $(OUT)/loans.card.pmml
+	$(GB) export $(OUT)/loans.spline.json --table loans --contributions --reasons 2 --out $(OUT)/loans.score.sql
+	$(GB) export $(OUT)/loans.spline.json --out $(OUT)/loans.spline.pmml
+	$(GB) export --points $(OUT)/loans.card.json --table loans --contributions --out $(OUT)/loans.points.sql
+	$(GB) export --points $(OUT)/loans.card.json --out $(OUT)/loans.card.pmml
 	@echo "       the query run in SQLite (Python's own) on the applications, beside glassbox score's first rows above"
 	@$(BIN)/python -c "import sqlite3, pandas as p; c = sqlite3.connect(':memory:'); p.read_csv('demo_data/loans.csv').to_sql('loans', c); print(p.read_sql(open('$(OUT)/loans.score.sql').read(), c).iloc[:2, :5].to_string(index=False))"
 	@echo "== 18. a new version: the spline refitted on the downturn quarter alone, reviewed against the first"

@@ -1191,8 +1191,81 @@ def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> 
             f"Largest absolute difference between the SQL's and the library's score: {gap:.1e}."]
 
 
+STARTUP_RUNS = 7
+
+
+def startup_rows(folder: Path, runs: int = STARTUP_RUNS) -> list[str]:
+    """Start-up of both commands, in fresh processes, alternating, against `python -c pass`
+    and `python -c "import pandas"` measured in the same run (issue 18's targets)."""
+    import resource
+    import subprocess
+
+    demo = ROOT / "demo_data"
+    model = folder / "loans.spline.json"
+    frame = read_table(demo / "loans.csv")
+    artifact.save(fit_model(frame, load_schema(demo / "loans.schema.toml"), "spline",
+                            source="loans.csv"), model)
+    one_row = folder / "one_row.csv"
+    frame.head(1).to_csv(one_row, index=False)
+    bin_folder = Path(sys.executable).parent
+    glassbox, recourse = str(bin_folder / "glassbox"), str(bin_folder / "recourse")
+    commands = {
+        "python -c pass": [sys.executable, "-c", "pass"],
+        'python -c "import pandas"': [sys.executable, "-c", "import pandas"],
+        "glassbox --help": [glassbox, "--help"],
+        "glassbox --version": [glassbox, "--version"],
+        "recourse --help": [recourse, "--help"],
+        "recourse --version": [recourse, "--version"],
+        "glassbox score (one row)": [glassbox, "score", str(model), str(one_row)],
+        "recourse plan (one declined row)": [
+            recourse, "plan", str(model), "--mutability", str(demo / "loans.mutability.toml"),
+            "--data", str(demo / "loans.csv"), "--id", "L001096"],
+    }
+    wall: dict[str, list[float]] = {name: [] for name in commands}
+    cpu: dict[str, list[float]] = {name: [] for name in commands}
+    for repeat in range(runs + 1):  # the first round warms the file cache, not counted
+        for name, command in commands.items():
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
+            start = time.perf_counter()
+            done = subprocess.run(command, capture_output=True)
+            seconds = time.perf_counter() - start
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            if done.returncode != 0:  # an option the command does not take yet, say
+                wall[name], cpu[name] = [float("nan")], [float("nan")]
+                continue
+            if repeat:
+                wall[name].append(seconds)
+                cpu[name].append(after.ru_utime + after.ru_stime - before.ru_utime
+                                 - before.ru_stime)
+    median = {name: statistics.median(values) for name, values in wall.items()}
+    cpu_median = {name: statistics.median(values) for name, values in cpu.items()}
+    bare, pandas = median["python -c pass"], median['python -c "import pandas"']
+    rows = ["## Start-up (issue 18)", "",
+            f"Fresh processes, alternating, median of {runs} runs each after a warm-up round; "
+            "wall and CPU (user + system) seconds. Targets: `--help` and `--version` below "
+            "`python -c pass` + 0.3 s; `glassbox score` of one row below 1.5 x `python -c "
+            '"import pandas"` (the spline model of the demo; recourse plan: measured only).', "",
+            "| command | wall s | CPU s | against | target | |", "|---|---|---|---|---|---|"]
+    for name in commands:
+        against, target, verdict = "", "", ""
+        if name.endswith(("--help", "--version")):
+            against = f"pass + {median[name] - bare:.2f} s"
+            target, verdict = "pass + 0.30 s", ("met" if median[name] < bare + 0.3
+                                                 else "missed")
+        elif name.startswith("glassbox score"):
+            against = f"{median[name] / pandas:.2f} x import pandas"
+            target, verdict = "1.5 x", "met" if median[name] < 1.5 * pandas else "missed"
+        rows.append(f"| `{name}` | {median[name]:.3f} | {cpu_median[name]:.3f} | {against} "
+                    f"| {target} | {verdict} |")
+    return rows
+
+
 def main() -> None:
     only = sys.argv[1:]  # `python bench/run.py recourse` prints one section, writes nothing
+    if only == ["startup"]:  # needs none of the data sets below
+        with tempfile.TemporaryDirectory() as scratch:
+            print("\n".join(startup_rows(Path(scratch))))
+        return
     with tempfile.TemporaryDirectory() as scratch:
         folder = Path(scratch)
         sets = data_sets(folder)

@@ -4,22 +4,26 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm  # noqa: E402
-from glassbox.core.artifact import load, save  # noqa: E402
-from glassbox.core.errors import (  # noqa: E402
-    DataError,
-    GlassboxError,
-    ModelFileError,
-    OptionError,
-    SchemaError,
-    UnseenLevelWarning,
-)
-from glassbox.core.inference import infer_schema  # noqa: E402
-from glassbox.core.schema import Schema, load_schema, read_table  # noqa: E402
-
-# heavier public names load on first use (fitting loads scikit-learn and pygam), so that
-# scoring and planning processes start quickly: name -> the module that holds it
+# every public name loads on first use (`from glassbox import fit_model` still works), so that
+# `glassbox --help` loads neither pandas nor numpy and scoring loads no fitting library:
+# name -> the module that holds it
 LATER = {
+    "AdditiveModel": "glassbox.core.additive",
+    "CurveTerm": "glassbox.core.additive",
+    "LevelsTerm": "glassbox.core.additive",
+    "StepTerm": "glassbox.core.additive",
+    "load": "glassbox.core.artifact",
+    "save": "glassbox.core.artifact",
+    "DataError": "glassbox.core.errors",
+    "GlassboxError": "glassbox.core.errors",
+    "ModelFileError": "glassbox.core.errors",
+    "OptionError": "glassbox.core.errors",
+    "SchemaError": "glassbox.core.errors",
+    "UnseenLevelWarning": "glassbox.core.errors",
+    "infer_schema": "glassbox.core.inference",
+    "Schema": "glassbox.core.schema",
+    "load_schema": "glassbox.core.schema",
+    "read_table": "glassbox.core.schema",
     "fit_model": "glassbox.fitting.fit",
     "AdditiveClassifier": "glassbox.fitting.estimators",
     "AdditiveRegressor": "glassbox.fitting.estimators",
@@ -48,9 +52,8 @@ def __getattr__(name: str) -> object:
     raise AttributeError(f"module 'glassbox' has no attribute {name!r}")
 
 
-__all__ = [
-    "AdditiveModel", "CurveTerm", "LevelsTerm", "StepTerm", "Schema",
-    "DataError", "GlassboxError", "ModelFileError", "OptionError", "SchemaError",
-    "UnseenLevelWarning", "infer_schema", "load", "load_schema", "read_table", "save",
-    "__version__", *LATER,
-]
+__all__ = ["__version__", *LATER]
+
+
+def __dir__() -> list[str]:
+    return sorted({*globals(), *LATER})

@@ -5,27 +5,35 @@ Registered on the `glassbox` app from the end of cli.py; no logic here.
 
 from __future__ import annotations
 
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
-from glassbox.cli import Force, app, emit, friendly
+from glassbox.cli import Command, Force, app, choices, emit, example, friendly
 from glassbox.core.errors import OptionError
-from glassbox.core.files import check_output
 
 
-@app.command("export")
+class ExportFormat(StrEnum):
+    sql = "sql"
+    pmml = "pmml"
+
+
+@app.command("export", cls=Command, epilog=example(
+    "glassbox export loans.json --table loans --out score.sql"))
 @friendly
 def export_command(
     model_file: Annotated[Path | None, typer.Argument(
         metavar="MODEL", help="Model file (JSON); leave out when exporting --points.",
         show_default=False)] = None,
-    sql: Annotated[bool, typer.Option(
-        "--sql", help="One SELECT that scores the rows of a table.")] = False,
-    pmml: Annotated[bool, typer.Option(
-        "--pmml", help="A PMML 4.4 document (the open standard for exchanging models).")
-    ] = False,
+    format: Annotated[ExportFormat | None, typer.Option(
+        "--format", metavar=choices(ExportFormat),
+        help="sql: one SELECT that scores the rows of a table; pmml: a PMML 4.4 "
+                         "document (the open standard for exchanging models); by the --out "
+                         "suffix (.sql, .pmml) when not given.")] = None,
+    sql: Annotated[bool, typer.Option("--sql", hidden=True, help="--format sql.")] = False,
+    pmml: Annotated[bool, typer.Option("--pmml", hidden=True, help="--format pmml.")] = False,
     card_file: Annotated[Path | None, typer.Option(
         "--points", metavar="CARD",
         help="Export this points card (glassbox points --format json) instead of a model.")
@@ -43,18 +51,23 @@ def export_command(
         "--contributions",
         help="SQL: also each feature's contribution (points, for a card).")] = False,
     reasons: Annotated[int, typer.Option(
-        metavar="K", min=0,
-        help="SQL: also the K features that hold each row furthest below its best.")] = 0,
+        metavar="N", min=0,
+        help="SQL: also the N features that hold each row furthest below its best.")] = 0,
     out: Annotated[Path | None, typer.Option(
-        metavar="FILE", help="Write here, not to standard output.")] = None,
+        metavar="FILE", help="Write here (.sql or .pmml), not to standard output.")] = None,
     force: Force = False,
 ) -> None:
-    """A model or a points card to run where the data lives: one SQL query, or PMML 4.4.
+    """A model or a points card to run where the data lives: one SQL query, or PMML 4.4."""
+    from glassbox.core import formats
+    from glassbox.core.files import check_output
 
-    Example: glassbox export model.json --sql --table loans --out score.sql
-    """
-    if sql == pmml:
-        raise OptionError("export needs exactly one of --sql and --pmml")
+    shorthand = [name for name, given in (("sql", sql), ("pmml", pmml)) if given]
+    if len(shorthand) > 1 or (shorthand and format is not None):
+        raise OptionError("export writes one format: give one of --format, --sql, --pmml")
+    chosen = formats.output_format(
+        out, shorthand[0] if shorthand else None if format is None else format.value,
+        ("sql", "pmml"), terminal=None)
+    sql, pmml = chosen == "sql", chosen == "pmml"
     if (model_file is None) == (card_file is None):
         raise OptionError("export takes a MODEL file or --points CARD (exactly one)")
     if pmml and (contributions or reasons or id_column is not None):

@@ -14,11 +14,8 @@ import traceback
 from collections.abc import Sequence
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
 from glassbox.core.errors import GlassboxError
-from glassbox.publishing.render import error_text
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 1
@@ -39,10 +36,17 @@ def one_line(message: str) -> str:
 
 def show_error(message: str) -> None:
     """`error: MESSAGE` on standard error, on one line however wide the terminal."""
+    from rich.console import Console
+
+    from glassbox.publishing.render import error_text
+
     Console(stderr=True, highlight=False).print(error_text(one_line(message)), soft_wrap=True)
 
 
 def show_line(message: str) -> None:
+    from rich.console import Console
+    from rich.text import Text
+
     Console(stderr=True, highlight=False).print(Text(one_line(message)), soft_wrap=True)
 
 

@@ -13,22 +13,21 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.progress import Progress, TextColumn, TimeElapsedColumn
 
 from glassbox.cli import (
+    JOBS_HELP,
     MAX_JOBS,
+    Command,
     Force,
-    ReasonsFormat,
     app,
+    choices,
+    example,
     friendly,
     progress_note,
     stderr_console,
     stdout_console,
 )
-from glassbox.core import artifact
-from glassbox.core.errors import OptionError
-from glassbox.core.files import check_output, table_kind, write_atomic
-from glassbox.publishing.monitor_view import plural
+from glassbox.reasons_cli import ReasonsFormat
 
 MonitorFormat = ReasonsFormat  # the same choices: table (terminal), json, csv
 # the choices the engine takes (glassbox.explaining.monitor checks them again)
@@ -37,7 +36,8 @@ MonitorEngine = StrEnum("MonitorEngine", {name: name for name in ("local", "dask
 LOCAL = MonitorEngine("local")
 
 
-@app.command("monitor")
+@app.command("monitor", cls=Command, epilog=example(
+    "glassbox monitor loans.json q2.csv q3.csv --page monitoring.html"))
 @friendly
 def monitor_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
@@ -46,7 +46,7 @@ def monitor_command(
                                 "(or one file with --period).")],
     period: Annotated[str | None, typer.Option(
         metavar="COLUMN", help="One file: its periods are this column's values.")] = None,
-    every: Annotated[Every | None, typer.Option(
+    every: Annotated[Every | None, typer.Option(metavar=choices(Every),
         help="With --period on a column of ISO dates: group the dates by month, quarter "
              "or year.")] = None,
     baseline: Annotated[Path | None, typer.Option(
@@ -56,19 +56,20 @@ def monitor_command(
         "--points", metavar="CARD",
         help="A points card of the model (glassbox points --format json): changes are "
              "also given in points.")] = None,
-    format: Annotated[MonitorFormat, typer.Option(
-        "--format", help="table (terminal), json (every table) or csv (the features with "
-                         "their period's summary).")] = MonitorFormat.table,
-    out: Annotated[Path | None, typer.Option(metavar="FILE",
-                                             help="Write json or csv here.")] = None,
+    format: Annotated[MonitorFormat | None, typer.Option(
+        "--format", metavar=choices(MonitorFormat),
+        help="table (terminal), json (every table) or csv (the features with "
+                         "their period's summary); by the --out suffix when not given, else "
+                         "the terminal.")] = None,
+    out: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="Write json (.json) or csv (.csv) here.")] = None,
     page: Annotated[Path | None, typer.Option(
-        metavar="FILE.html", help="Also write a self-contained HTML page with pictures.")
-    ] = None,
-    engine: Annotated[MonitorEngine, typer.Option(
+        metavar="FILE", help="Also write a self-contained HTML page with pictures (a .html "
+                             "file).")] = None,
+    engine: Annotated[MonitorEngine, typer.Option(metavar=choices(MonitorEngine),
         help="local: this machine (with --jobs, in worker processes); dask: a "
              "dask.distributed cluster. Every engine gives the same numbers.")] = LOCAL,
-    jobs: Annotated[int, typer.Option(metavar="N", help="Processes counting at once.",
-                                      min=1, max=MAX_JOBS)] = 1,
+    jobs: Annotated[int, typer.Option(metavar="N", help=JOBS_HELP, min=1, max=MAX_JOBS)] = 1,
     scheduler: Annotated[str | None, typer.Option(
         metavar="ADDRESS",
         help="dask: the address of an existing scheduler (else one starts for the run).")
@@ -82,15 +83,18 @@ def monitor_command(
 
     Score and feature stability (PSI), what moved the mean score, attribution drift,
     missing values and new levels, and outcomes when the files have them.
-    Example: glassbox monitor model.json q2.csv q3.csv --page monitoring.html
     """
-    if format is MonitorFormat.table and out is not None:
-        raise OptionError("--out needs --format json or csv (the terminal table is not a file)")
+    from glassbox.core import artifact, formats
+    from glassbox.core.files import check_output, table_kind, write_atomic
+
+    chosen = formats.output_format(out, None if format is None else format.value,
+                                   ("json", "csv"))
     inputs = [model_file, *data, baseline, card_file]
-    written = "glassbox-monitoring" if format is MonitorFormat.json else table_kind(
-        format.value, "monitoring")
+    written = "glassbox-monitoring" if chosen == "json" else table_kind(chosen, "monitoring")
     check_output(out, written, inputs, force=force)
     check_output(page, "html", [*inputs, out], force=force, option="--page")
+    if page is not None:
+        formats.suffix_format(page, ("html",), option="--page", override=False)
     from glassbox.explaining import points
     from glassbox.explaining.baseline import baseline_from_file, model_baseline
     from glassbox.explaining.monitor import monitor
@@ -112,11 +116,11 @@ def monitor_command(
                                                inputs=[str(path) for path in data])
             monitor_page.write_page(document, page)
         stderr_console().print(f"wrote the monitoring page to {page}", highlight=False)
-    if format is MonitorFormat.table:
+    if chosen == "table":
         console = stdout_console()
         console.print(monitor_view.monitoring_view(result, max(console.width, 40)))
         return
-    if format is MonitorFormat.json:
+    if chosen == "json":
         context = {"model_file": model_file.name, "data_files": [path.name for path in data],
                    "period_column": period, "every": None if every is None else every.value,
                    "baseline_file": None if baseline is None else baseline.name,
@@ -128,7 +132,7 @@ def monitor_command(
         sys.stdout.write(text)
         return
     write_atomic(out, text)
-    stderr_console().print(f"wrote the monitoring {format.value} to {out}", highlight=False)
+    stderr_console().print(f"wrote the monitoring {chosen} to {out}", highlight=False)
 
 
 @contextlib.contextmanager
@@ -138,6 +142,10 @@ def block_progress(chunk_rows: int) -> Iterator[Callable[[int, int | None], None
     if not console.is_terminal:
         yield None
         return
+    from rich.progress import Progress, TextColumn, TimeElapsedColumn
+
+    from glassbox.publishing.monitor_view import plural
+
     with Progress(TextColumn("{task.description}"), TimeElapsedColumn(), console=console,
                   transient=True) as bar:
         task = bar.add_task("reading the first block", total=None)

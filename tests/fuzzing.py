@@ -97,7 +97,7 @@ def make_inputs(folder: Path) -> Inputs:
         ("glassbox", ["fit", data, "--schema", schema, "--max-features", "4",
                       "--out", files["model"]]),
         ("glassbox", ["points", files["model"], "--format", "json", "--out", files["card"]]),
-        ("glassbox", ["compare", data, "--schema", schema, "--families", "sparse",
+        ("glassbox", ["compare", data, "--schema", schema, "--family", "sparse",
                       "--folds", "2", "--format", "json", "--out", files["comparison"]]),
         ("recourse", ["reach", files["model"], "--mutability", files["mutability"],
                       "--data", data, "--by", "Marital", "--format", "json",

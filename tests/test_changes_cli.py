@@ -91,7 +91,8 @@ def test_one_line_errors(versions, tmp_path):
     one_line_error(run("changes", *versions, "--cutoff", "0.3"), "--cutoff", "DATA")
     one_line_error(run("changes", *versions, "--out", tmp_path / "x.txt"), "--format")
     one_line_error(run("changes", *versions, "--format", "table", "--out",
-                       tmp_path / "x.md"), "--out needs --format")
+                       tmp_path / "x.md"), "--format table is the terminal's")
+    assert not (tmp_path / "x.md").exists()
     partial = tmp_path / "partial.csv"
     import pandas as pd
 

@@ -325,7 +325,7 @@ def test_compare_drops_missing_targets_when_asked(tmp_path):
                            'better = "higher"\n\n[feature.Amount]\nkind = "number"\n\n'
                            '[feature.Job]\nkind = "category"\n\n'
                            '[feature.Seniority]\nkind = "integer"\n')
-    args = ["compare", str(data), "--schema", str(schema_file), "--families", "sparse",
+    args = ["compare", str(data), "--schema", str(schema_file), "--family", "sparse",
             "--folds", "2", "--format", "json", "--out", str(tmp_path / "c.json")]
     one_line_error(CliRunner().invoke(app, args), "target column 'Income' has 381 missing")
     result = CliRunner().invoke(app, [*args, "--drop-missing-target"])

@@ -61,7 +61,7 @@ def files(tmp_path_factory) -> dict[str, Path]:
     assert made.exit_code == 0, made.output
     mutability.write_text(made.stdout.replace('change = "fixed"', 'change = "decrease"', 1))
     comparison = folder / "credit.compare.json"
-    compared = glassbox("compare", data, "--schema", schema, "--families", "sparse",
+    compared = glassbox("compare", data, "--schema", schema, "--family", "sparse",
                         "--folds", "2", "--format", "json", "--out", comparison)
     assert compared.exit_code == 0, compared.output
     audit = folder / "credit.audit.json"
@@ -219,8 +219,10 @@ def no_work(monkeypatch):
     def never(*args, **kwargs):
         raise AssertionError("the work started before the output path was checked")
 
-    monkeypatch.setattr(glassbox_cli, "fit_model", never)
-    monkeypatch.setattr(glassbox_cli, "compare", never)
+    from glassbox.fitting import compare, fit  # the commands look these up when they run
+
+    monkeypatch.setattr(fit, "fit_model", never)
+    monkeypatch.setattr(compare, "compare", never)
     monkeypatch.setattr(report_module, "build_report", never)
     monkeypatch.setattr("recourse.scale.plan_at_scale", never)  # imported when reach runs
 

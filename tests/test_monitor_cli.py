@@ -227,8 +227,11 @@ def test_options_are_checked_before_any_work(tmp_path):
     from .conftest import DEMO, one_line_error
 
     model, data = tmp_path / "m.json", DEMO / "loans.csv"
-    one_line_error(run("monitor", model, data, "--out", tmp_path / "x.json"),
-                   "--out needs --format json or csv")
+    one_line_error(run("monitor", model, data, "--out", tmp_path / "x.txt"),
+                   "ending in .csv, .json", "the suffix .txt says no format")
+    one_line_error(run("monitor", model, data, "--format", "table", "--out",
+                       tmp_path / "x.json"), "--format table is the terminal's")
+    assert not (tmp_path / "x.txt").exists() and not (tmp_path / "x.json").exists()
     one_line_error(run("monitor", model, data, "--format", "csv", "--out", data),
                    "is the input")
     one_line_error(run("monitor", model, data, "--page", data), "--page", "is the input")

@@ -232,7 +232,7 @@ def test_monitor_changes_compare(made):
     _ok(invoke(app, ["monitor", made["spline"], DEMO / "loans_q2.csv", DEMO / "loans_q3.csv"]))
     _ok(invoke(app, ["changes", made["sparse"], made["spline"], DEMO / "loans.csv"]))
     _ok(invoke(app, ["compare", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
-                     "--folds", "2", "--families", "sparse"]))
+                     "--folds", "2", "--family", "sparse"]))
 
 
 MUTABILITY_STUCK = """

@@ -600,7 +600,8 @@ def test_points_command_errors_are_one_line(model_file, tmp_path):
     one_line_error(run("points", model_file, "--base-odds", "-3"), "base odds")
     one_line_error(run("points", model_file, "--tolerance", "0"), "tolerance")
     one_line_error(run("points", model_file, "--cutoff", "1.2"), "cut-off")
-    one_line_error(run("points", model_file, "--out", tmp_path / "x.txt"), "--out needs")
+    one_line_error(run("points", model_file, "--out", tmp_path / "x.txt"),
+                   "the suffix .txt says no format")
 
 
 def test_score_takes_a_model_or_a_card_not_both(model_file, tmp_path):

@@ -255,7 +255,7 @@ def test_reasons_command_bad_input(model_file):
     assert "no row with application_id = 'L999999'" in missing.output
     assert len(missing.output.strip().splitlines()) == 1
     neither = runner.invoke(app, ["reasons", str(model_file), str(DEMO / "loans.csv")])
-    assert neither.exit_code == 2 and "--id VALUE, --index N or --all" in neither.output
+    assert neither.exit_code == 2 and "--id ID, --index N or --all" in neither.output
 
 
 def test_regression_reasons_need_a_cutoff_for_the_summary():

@@ -372,7 +372,7 @@ def test_page_renders_in_headless_chromium(work, tmp_path):
         assert colours is None or len(colours) > 50  # drawn, not a blank page
 
 
-# ---------------------------------------------------------------- cut-offs and the recourse audit
+# ---------------------------------------------------------------- cut-offs and the reach file
 
 CREDIT_RULES = """
 [goal]

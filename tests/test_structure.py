@@ -103,7 +103,7 @@ def files(tmp_path_factory):
     reference_data("ISLR", "Default").head(400).to_csv(folder / "default.csv", index=False)
     (folder / "default.schema.toml").write_text(DEFAULT_SCHEMA, encoding="utf-8")
     compared = run("compare", folder / "default.csv", "--schema", folder / "default.schema.toml",
-                   "--families", "sparse", "--folds", "2", "--format", "json", "--out",
+                   "--family", "sparse", "--folds", "2", "--format", "json", "--out",
                    folder / "compare.json")
     assert compared.exit_code == 0, compared.output
     return folder

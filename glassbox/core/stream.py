@@ -1,4 +1,4 @@
-"""A data file read in blocks, for runs over whole populations (recourse audits, monitoring):
+"""A data file read in blocks, for runs over whole populations (`recourse reach`, monitoring):
 its header checked against the model before any work, fixed column types for id and kept
 columns, each block with its rows' 0-based positions in the whole file (column `row`); never
 the whole file in memory."""

@@ -81,7 +81,8 @@ def band_edges(column: pd.Series, edges: Sequence[float] | None = None,
 
 
 def _how_to_band(name: str) -> str:
-    return f"glassbox report --bands {name}=EDGE,EDGE,...; or band the column in the data"
+    return (f"glassbox report --band {name}=X, once per edge, e.g. --band {name}=30 "
+            f"--band {name}=50; or band the column in the data")
 
 
 def _numbers(column: pd.Series, required: bool = True) -> np.ndarray | None:
@@ -109,25 +110,26 @@ def band_names(edges: Sequence[float], whole: bool) -> list[str]:
 
 
 def parse_bands(texts: Iterable[str]) -> dict[str, tuple[float, ...]]:
-    """`COLUMN=EDGE,EDGE,...` options (e.g. `Age=30,50,70`) as a mapping."""
+    """`--band COLUMN=X` options, one edge each (e.g. `Age=30`, `Age=50`), as a mapping of
+    each column to its edges in the order given."""
     found: dict[str, tuple[float, ...]] = {}
     for text in texts:
         name, sep, rest = str(text).partition("=")
         try:
-            edges = tuple(float(part) for part in rest.split(","))
+            edge = float(rest)
         except ValueError:
-            edges = ()
-        if not sep or not name.strip() or not edges:
-            raise OptionError(f"--bands {text!r}: write COLUMN=EDGE,EDGE,... e.g. "
-                              "Age=25,35,45,55,65")
-        found[name.strip()] = edges
+            edge = None
+        if not sep or not name.strip() or edge is None:
+            raise OptionError(f"--band {text!r}: write COLUMN=X, once per edge, e.g. "
+                              "--band Age=25 --band Age=35")
+        found[name.strip()] = (*found.get(name.strip(), ()), edge)
     return found
 
 
 def band_note(name: str, edges: Sequence[float], given: bool) -> str:
     """The sentence that says how a numeric protected column was grouped."""
     source = ("the bands given" if given else
-              "customary age bands (common practice, no source; set others with --bands)")
+              "customary age bands (common practice, no source; set others with --band)")
     return (f"{name} is a number, so it is compared in bands, never value by value: "
             f"{source}, cut at {', '.join(f'{e:g}' for e in edges)}.")
 

@@ -26,8 +26,8 @@ from sklearn.ensemble import (
 )
 
 from glassbox.core.schema import MISSING_LEVEL
+from glassbox.fitting.choices import BENCHMARKS  # noqa: F401  (the names, light to import)
 
-BENCHMARKS = ("trees", "forest")
 TREE_SETTINGS = {"learning_rate": 0.05, "max_iter": 2000, "min_samples_leaf": 20,
                  "l2_regularization": 1.0, "early_stopping": True, "validation_fraction": 0.15,
                  "n_iter_no_change": 20, "scoring": "loss"}

@@ -205,10 +205,16 @@ def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
 def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
     """The `glassbox compare` command line that repeats a comparison made with `settings`
     (the schema file holding the comparison's "schema" table, as TOML)."""
-    return (f"glassbox compare {data} --schema {schema} --families "
-            f"{','.join(settings['families'])} --benchmark {settings['benchmark']} --folds "
-            f"{settings['folds']} --repeats {settings['repeats']} --seed {settings['seed']} "
-            f"--cutoff {settings['cutoff']:g}")
+    from glassbox.fitting.choices import setting_text
+
+    families = " ".join(f"--family {family}" for family in settings["families"])
+    options = "".join(f" --option {family}.{name}={setting_text(value)}"
+                      for family, chosen in sorted(settings.get("family_options", {}).items())
+                      for name, value in sorted(chosen.items()))
+    return (f"glassbox compare {data} --schema {schema} {families} --benchmark "
+            f"{settings['benchmark']} --folds {settings['folds']} --repeats "
+            f"{settings['repeats']} --seed {settings['seed']} --cutoff "
+            f"{settings['cutoff']:g}{options}")
 
 
 def to_markdown(comparison: Comparison) -> str:

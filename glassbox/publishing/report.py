@@ -188,7 +188,7 @@ def protected_outcomes(model: AdditiveModel, protected: pd.DataFrame,
     bands = dict(bands or {})
     unknown = sorted(set(bands) - set(map(str, protected.columns)))
     if unknown:
-        raise OptionError(f"--bands {', '.join(unknown)}: not a protected column in the data "
+        raise OptionError(f"--band {', '.join(unknown)}: not a protected column in the data "
                           f"(protected: {', '.join(map(str, protected.columns)) or 'none'})")
     return {str(column): groups.outcomes_by_group(
                 groups.group_labels(protected[column], bands.get(str(column)),

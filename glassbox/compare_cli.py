@@ -1,0 +1,163 @@
+"""The `glassbox compare` command: parse arguments, run the comparison, render.
+
+Registered on the `glassbox` app from the end of cli.py; no logic here.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+from collections.abc import Callable, Iterator
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from glassbox.cli import (
+    DEFAULT_BENCHMARK,
+    DROP_HELP,
+    JOBS_HELP,
+    MAX_JOBS,
+    MAX_REPEATS,
+    MAX_SEED,
+    OPTION_HELP,
+    Benchmark,
+    Family,
+    Force,
+    SettingsHelp,
+    app,
+    choices,
+    emit,
+    example,
+    friendly,
+    stderr_console,
+    stdout_console,
+)
+from glassbox.core.errors import OptionError
+
+ALL_FAMILIES = list(Family)
+
+
+class CompareFormat(StrEnum):
+    table = "table"
+    json = "json"
+    markdown = "markdown"
+
+
+@app.command("compare", cls=SettingsHelp, epilog=example(
+    "glassbox compare loans.csv --schema loans.schema.toml --jobs 2 --out compare.json"))
+@friendly
+def compare_command(
+    data: Annotated[Path, typer.Argument(
+        metavar="DATA", help="CSV or Parquet file with the target.")],
+    schema: Annotated[Path, typer.Option(metavar="FILE", help="Schema TOML file.")],
+    family: Annotated[list[Family], typer.Option(
+        "--family", metavar=choices(Family),
+        help="A glass-box family to compare (repeatable).")] = ALL_FAMILIES,
+    benchmark: Annotated[Benchmark, typer.Option(
+        metavar=choices(Benchmark),
+        help="The black box: boosted trees or a random forest.")] = DEFAULT_BENCHMARK,
+    folds: Annotated[int, typer.Option(metavar="N", help="Cross-validation folds.", min=2)] = 5,
+    repeats: Annotated[int, typer.Option(metavar="N", help="Repeats of the folds.", min=1,
+                                         max=MAX_REPEATS)] = 1,
+    seed: Annotated[int, typer.Option(metavar="N", help="Seed of the folds and the models.",
+                                      min=0, max=MAX_SEED)] = 0,
+    jobs: Annotated[int, typer.Option(metavar="N", help=JOBS_HELP, min=1, max=MAX_JOBS)] = 1,
+    cutoff: Annotated[float, typer.Option(
+        metavar="X", help="Probability cut-off for accuracy.")] = 0.5,
+    max_features: Annotated[int | None, typer.Option(
+        metavar="N", help="sparse: use at most this many features (sparse.max_features).",
+        min=1)] = None,
+    ensemble: Annotated[int | None, typer.Option(
+        metavar="N", help="boosted: average this many seeds (boosted.ensemble).", min=1)
+    ] = None,
+    option: Annotated[list[str] | None, typer.Option(
+        "--option", metavar="NAME=VALUE", help=OPTION_HELP)] = None,
+    format: Annotated[CompareFormat | None, typer.Option(
+        "--format", metavar=choices(CompareFormat),
+        help="table (terminal), json or markdown; by the --out suffix when not "
+                         "given, else the terminal.")] = None,
+    out: Annotated[Path | None, typer.Option(
+        metavar="FILE", help="Write json (.json) or markdown (.md) here; the table is shown "
+                             "too unless --format names the file's format.")] = None,
+    drop_missing_target: Annotated[bool, typer.Option(
+        "--drop-missing-target", help=DROP_HELP)] = False,
+    force: Force = False,
+) -> None:
+    """Cross-validated accuracy cost of each glass-box family against a black box."""
+    from glassbox.core import formats
+    from glassbox.core.files import check_output
+    from glassbox.fitting.choices import family_options
+
+    if seed + repeats - 1 > MAX_SEED:  # repeat r seeds its models with seed + r
+        raise OptionError(f"--seed {seed} with --repeats {repeats} passes the largest seed, "
+                          f"{MAX_SEED}: use a seed of at most {MAX_SEED - repeats + 1}")
+    families = tuple(dict.fromkeys(f.value for f in family))
+    options = family_options(option or [], families)
+    for name, value, owner in (("max_features", max_features, "sparse"),
+                               ("ensemble", ensemble, "boosted")):
+        if value is not None:
+            if owner not in families:
+                raise OptionError(f"--{name.replace('_', '-')} is a {owner} setting, and "
+                                  f"{owner} is not compared here (add --family {owner})")
+            options[owner][name] = value
+    written = formats.output_format(out, None if format is None else format.value,
+                                    ("json", "markdown"))
+    check_output(out, "glassbox-comparison" if written == "json" else "markdown",
+                 [data, schema], force=force)
+    from glassbox.core.schema import load_schema, read_table
+    from glassbox.fitting import compare as comparing
+    from glassbox.fitting.fit import rows_with_target
+
+    settings = comparing.CompareSettings(
+        families=families, benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed,
+        jobs=jobs, cutoff=cutoff,
+        family_options={name: chosen for name, chosen in options.items() if chosen})
+    settings.check()
+    frame = read_table(data)
+    spec = load_schema(schema)
+    if drop_missing_target:
+        frame = rows_with_target(frame, spec, str(data))
+    with fold_progress() as progress:
+        result = comparing.compare(frame, spec, settings, source=str(data), progress=progress)
+    if format is None:  # the terminal gets the table, and --out (if any) its own file
+        from glassbox.publishing.render import comparison_view
+
+        stdout_console().print(comparison_view(result))
+        if out is None:
+            return
+    if written == "json":
+        from glassbox.core.provenance import file_sha256
+
+        document = result.to_dict()
+        document["provenance"]["data_file_sha256"] = file_sha256(data)
+        document["provenance"]["schema_file_sha256"] = file_sha256(schema)
+        document["rerun"] = comparing.rerun_command(result.settings, data.name, schema.name)
+        text = json.dumps(document, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    else:
+        text = comparing.to_markdown(result)
+    emit(text, out, "comparison")
+
+
+@contextlib.contextmanager
+def fold_progress() -> Iterator[Callable[[int, int, str], None]]:
+    """A progress bar over (model, fold) fits on standard error."""
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeElapsedColumn,
+    )
+
+    columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+               TimeElapsedColumn())
+    with Progress(*columns, console=stderr_console(), transient=True) as bar:
+        task = bar.add_task("comparing", total=None)
+
+        def update(done: int, total: int, label: str) -> None:
+            text = "fitting every model on every fold" if done == 0 else f"finished {label}"
+            bar.update(task, completed=done, total=total, description=text)
+
+        yield update
