@@ -101,7 +101,7 @@ def _show_version(value: bool) -> None:
     if value:
         from glassbox import __version__
 
-        sys.stdout.write(f"recourse (glassbox {__version__})\n")
+        sys.stdout.write(f"recourse {__version__}\n")
         raise typer.Exit()
 
 

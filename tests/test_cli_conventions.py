@@ -43,9 +43,7 @@ def commands() -> list[tuple[str, str]]:
 
 
 def case(program: str, name: str):
-    marks = [pytest.mark.xfail(strict=False, reason=RECOURSE_PENDING)] if (
-        program == "recourse") else []
-    return pytest.param(program, name, marks=marks, id=f"{program}-{name}")
+    return pytest.param(program, name, id=f"{program}-{name}")
 
 
 CASES = [case(program, name) for program, name in commands()]
@@ -121,9 +119,7 @@ def test_no_word_is_split_at_any_width(program, name, width):
 
 
 @pytest.mark.parametrize("width", WIDTHS)
-@pytest.mark.parametrize("program", [
-    "glassbox", pytest.param("recourse", marks=pytest.mark.xfail(
-        strict=False, reason=RECOURSE_PENDING))])
+@pytest.mark.parametrize("program", ["glassbox", "recourse"])
 def test_top_level_help_keeps_its_words(program, width):
     def top(columns: int) -> list[str]:
         return words(rendered(program, None, columns))
@@ -132,9 +128,7 @@ def test_top_level_help_keeps_its_words(program, width):
     assert " ".join(top(WIDE)).split("Example: ")[-1].startswith(program)
 
 
-@pytest.mark.parametrize("program", [
-    "glassbox", pytest.param("recourse", marks=pytest.mark.xfail(
-        strict=False, reason=RECOURSE_PENDING))])
+@pytest.mark.parametrize("program", ["glassbox", "recourse"])
 def test_version(program):
     result = CliRunner().invoke(APPS[program], ["--version"])
     version = importlib.import_module(program.replace("recourse", "glassbox")).__version__

@@ -12,10 +12,6 @@ import pytest
 from .conftest import DEMO
 
 HEAVY = ("matplotlib", "sklearn", "scipy.stats", "pygam", "pulp", "dask")
-# recourse.cli still imports its planner at the top; the recourse helper's work (issue 18)
-# makes it light: the lead drops this mark at integration
-RECOURSE_PENDING = pytest.mark.xfail(strict=False, reason="recourse.cli is made light on the "
-                                                          "recourse branch (issue 18)")
 
 
 def loaded_after(code: str, argv: list[str] | None = None) -> list[str]:
@@ -41,7 +37,6 @@ def test_glassbox_help_and_version_load_nothing_heavy(args):
     assert loaded_after(code) == []
 
 
-@RECOURSE_PENDING
 @pytest.mark.parametrize("args", [["--help"], ["--version"], []])
 def test_recourse_help_and_version_load_nothing_heavy(args):
     code = ("import recourse.cli" if not args else
