@@ -187,7 +187,7 @@ def test_an_error_outside_a_command_is_one_line(monkeypatch):
     # issue 13: an exception raised outside `friendly` (here in the version callback) must
     # still end as one line: a GlassboxError with exit 2, anything else with exit 1 and no
     # traceback unless GLASSBOX_TRACEBACK=1
-    from glassbox import cli
+    from glassbox import cli_support as cli  # where the --version option prints
     from glassbox.core.errors import OptionError
 
     def refuse():
@@ -214,7 +214,7 @@ def test_an_error_outside_a_command_is_one_line(monkeypatch):
 def test_an_interrupt_is_one_line_and_status_130(monkeypatch, inputs):
     # issue 13 ("SIGINT prints one line"): an interrupt anywhere is one line and status 130;
     # one raised with words in a command's body (as the audit's resume may) prints those words
-    from glassbox import cli
+    from glassbox import cli_support as cli  # where the --version option prints
     from glassbox.core import artifact
 
     def interrupt(*a, **k):

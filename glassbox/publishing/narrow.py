@@ -230,22 +230,28 @@ class FittedTable:
                 groups[-1] = trial
         return groups
 
-    def _floors(self) -> list[int]:
+    def _floors(self, width: int | None = None) -> list[int]:
+        """The narrowest each column may get: numbers whole; text down to its longest word,
+        except a word longer than a fair share of the width (a file path, a long id),
+        which folds rather than squeeze the other columns' words apart."""
+        count = len(self.headings)
+        share = None if width is None else max(
+            20, (width - _overhead(count, self.header)) // max(count, 1))
         floors = []
         for j, (heading, justify) in enumerate(self.headings):
             cells = [row[j] for row in self.rows]
             if justify == "right":
                 floors.append(max(_longest(cells), _longest([heading], words=True)))
             else:
-                floors.append(max(_longest(cells, words=True),
-                                  _longest([heading], words=True), 1))
+                longest = max(_longest(cells, words=True), _longest([heading], words=True), 1)
+                floors.append(longest if share is None else min(longest, share))
         return floors
 
     def _table(self, columns: list[int], width: int) -> Table:
         natural = [max(_longest([row[j] for row in self.rows]),
                        _longest([self.headings[j][0]]) if self.header else 0, 1)
                    for j in columns]
-        floors = [self._floors()[j] for j in columns]
+        floors = [self._floors(width)[j] for j in columns]
         widths = list(natural)
         room = width - _overhead(len(columns), self.header)
         # shrink the widest text column first, down to its longest word
