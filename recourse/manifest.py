@@ -36,6 +36,7 @@ import pandas as pd
 
 from glassbox.core.errors import DataError, OptionError
 from glassbox.core.files import output_folder, write_atomic
+from glassbox.core.wording import plural
 from glassbox.core.workers import sigint_held
 from recourse.mutability import Mutability
 
@@ -163,7 +164,8 @@ def _checked_part(path: Path, record: PartRecord, run: str,
     if not np.issubdtype(rows.dtype, np.integer):
         raise PartRejected("its row numbers are not whole numbers")
     if len(rows) != record.outcomes:
-        raise PartRejected(f"it holds {len(rows)} row(s), not the {record.outcomes} recorded")
+        raise PartRejected(f"it holds {plural(len(rows), 'row')}, not the {record.outcomes:,} "
+                           f"recorded")
     first = record.first_row + FIRST_ROW  # the block's first data row, as the part counts
     if len(rows) and (np.any(np.diff(rows) <= 0) or rows[0] < first
                       or rows[-1] >= first + record.rows):

@@ -25,6 +25,7 @@ import numpy as np
 
 from glassbox.core.additive import AdditiveModel, LevelsTerm
 from glassbox.core.schema import is_number
+from glassbox.core.wording import noun
 from recourse.errors import MutabilityError
 from recourse.pairs import PairRule
 
@@ -128,7 +129,7 @@ def known_keys(entry: Mapping[str, Any], known: tuple[str, ...], here: str) -> N
     """Refuse keys of a table that its kind does not know (every table of the file)."""
     unknown = sorted(set(entry) - set(known))
     if unknown:
-        raise MutabilityError(f"{here}unknown key(s): {', '.join(unknown)} "
+        raise MutabilityError(f"{here}unknown {noun(len(unknown), 'key')}: {', '.join(unknown)} "
                               f"(expected {', '.join(known)})")
 
 

@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.core.additive import AdditiveModel
+from glassbox.core.wording import plural
 from glassbox.explaining.reasons import best_of, central_words
 from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates, is_missing
 from recourse.choices import MOST_PLANS
@@ -293,7 +294,7 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
         unlimited = best_reachable(replace(program, max_changes=None))
         if _reaches(unlimited, program.threshold, program.direction):
             findings.append((math.inf, "limit on changes",
-                             f"the limit of {program.max_changes} change(s) binds: "
+                             f"the limit of {plural(program.max_changes, 'change')} binds: "
                              "with no limit the rules would allow a plan"))
     # A table is sized where training rows lie, as reasons size it: a far tail or a level
     # never seen in training would promise what almost no applicant could reach.

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from glassbox.core.errors import DataError
+from glassbox.core.wording import plural, verb
 from glassbox.explaining.groups import (
     FOUR_FIFTHS,
     MIN_GROUP,
@@ -172,12 +173,14 @@ def _check_counted_once(outcomes: pd.DataFrame) -> None:
         repeated = outcomes["row"][outcomes["row"].duplicated()]
         if len(repeated):
             shown = ", ".join(str(int(r) + 1) for r in repeated.unique()[:10])
-            raise DataError(f"{repeated.nunique()} declined row(s) appear more than once among "
+            raise DataError(f"{plural(repeated.nunique(), 'declined row')} "
+                            f"{verb(repeated.nunique(), 'appears', 'appear')} more than once among "
                             f"the outcomes (data rows {shown}); each must be counted once")
     status = outcomes["status"].astype(str)
     unknown = sorted(set(status) - set(STATUSES))
     if unknown:
-        raise DataError(f"{int((~status.isin(STATUSES)).sum())} outcome row(s) have a status "
+        raise DataError(f"{plural(int((~status.isin(STATUSES)).sum()), 'outcome row')} with a "
+                        f"status "
                         f"that is not one of {', '.join(STATUSES)} "
                         f"({', '.join(map(repr, unknown[:5]))})")
 

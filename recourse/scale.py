@@ -32,6 +32,7 @@ from glassbox.core import artifact
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.errors import DataError, GlassboxError, OptionError
 from glassbox.core.provenance import file_sha256
+from glassbox.core.wording import noun, plural
 from glassbox.core.workers import become_worker, pool_running, sigint_held
 from recourse.batch import (
     OUTCOME_COLUMNS,
@@ -80,7 +81,8 @@ class ScaleRun:
     def check_complete(self) -> None:
         """Refuse to summarise a run with partitions that did not finish."""
         if self.missing:
-            raise PlanningError(f"{len(self.missing)} of {self.partitions} partition(s) did "
+            raise PlanningError(f"{len(self.missing)} of {plural(self.partitions, 'partition')} "
+                                f"did "
                                 f"not finish (numbers {', '.join(map(str, self.missing[:10]))}"
                                 "); rerun with --resume to plan only those")
 
@@ -103,7 +105,8 @@ def plan_partition(partition: pd.DataFrame, model: AdditiveModel, mutability: Mu
                         "the whole input")
     absent = [name for name in keep if name not in partition.columns]
     if absent:
-        raise OptionError(f"column(s) to keep (--by) {', '.join(map(repr, absent))} "
+        raise OptionError(f"{noun(len(absent), 'column')} to keep (--by) "
+                          f"{', '.join(map(repr, absent))} "
                           "not in the data")
     if len(partition):
         positions, encoded, parts, ids = _declined(partition, model, mutability, source)
@@ -128,7 +131,8 @@ def _checked_keep(keep: Sequence[str]) -> tuple[str, ...]:
     keep = tuple(dict.fromkeys(keep))
     clashing = [name for name in keep if name in ("row", *OUTCOME_COLUMNS)]
     if clashing:
-        raise OptionError(f"keep column(s) {', '.join(map(repr, clashing))} would clash with "
+        raise OptionError(f"keep {noun(len(clashing), 'column')} "
+                          f"{', '.join(map(repr, clashing))} would clash with "
                           "an outcome column of the same name")
     return keep
 

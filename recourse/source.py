@@ -23,4 +23,4 @@ __all__ = ["Source", "dask_frame", "dask_read_error", "dask_session", "open_sour
 
 def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...]) -> Source:
     """Check the header against the model and the --by columns before any planning."""
-    return _open(path, model, keep, "column(s) to keep (--by)")
+    return _open(path, model, keep, "columns to keep (--by)")

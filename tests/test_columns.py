@@ -273,7 +273,7 @@ def test_missing_target_is_refused_or_dropped_and_counted(tmp_path):
                                "feature": {"Amount": {"kind": "number"},
                                            "Job": {"kind": "category"}}})
     first = ", ".join(str(r) for r in absent[:5])
-    with pytest.raises(DataError, match=f"target column 'Income' has 381 missing value\\(s\\) "
+    with pytest.raises(DataError, match=f"target column 'Income' has 381 missing values "
                                         f"in data rows {first} \\(and 376 more\\)"):
         fit_model(frame, schema, "sparse")
     with pytest.warns(UserWarning, match=r"dropped 381 row\(s\) with no value in the target "
@@ -300,16 +300,16 @@ def test_cli_refuses_many_levels_and_drops_missing_targets(sacramento, tmp_path)
     schema_file.write_text(text)
     out = tmp_path / "m.json"
     one_line_error(run("fit", data, "--schema", schema_file, "--out", out),
-                   "target column 'price' has 10 missing value(s)", "--drop-missing-target")
+                   "target column 'price' has 10 missing values", "--drop-missing-target")
     schema_file.write_text(text.replace("\n# pool_below = 0.01\n", "\npool_below = 0.01\n"))
     result = run("fit", data, "--schema", schema_file, "--out", out, "--drop-missing-target")
     assert result.exit_code == 0, result.output
-    assert "dropped 10 row(s) with no value in the target 'price'" in result.output
+    assert "dropped 10 rows with no value in the target 'price'" in result.output
     schema_file.write_text(text)  # the pooling line commented out again: a notice, an error
     result = run("fit", data, "--schema", schema_file, "--out", out, "--drop-missing-target")
     lines = result.output.strip().splitlines()
     assert result.exit_code == 2 and len(lines) == 2, result.output
-    assert lines[0].startswith("warning: ") and "dropped 10 row(s)" in lines[0]
+    assert lines[0].startswith("warning: ") and "dropped 10 rows" in lines[0]
     assert lines[1].startswith("error: ") and "column 'zip' has 68 levels" in lines[1]
 
 
@@ -330,7 +330,7 @@ def test_compare_drops_missing_targets_when_asked(tmp_path):
     one_line_error(CliRunner().invoke(app, args), "target column 'Income' has 381 missing")
     result = CliRunner().invoke(app, [*args, "--drop-missing-target"])
     assert result.exit_code == 0, result.output
-    assert "dropped 381 row(s) with no value in the target 'Income'" in result.output
+    assert "dropped 381 rows with no value in the target 'Income'" in result.output
     import json
 
     document = json.loads((tmp_path / "c.json").read_text())

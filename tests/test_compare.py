@@ -346,7 +346,7 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
         model.predict(frame.iloc[job_missing])
     set_aside = result.provenance["test_rows_set_aside"]
     assert set_aside["test_rows"] == 2 and set_aside["rows_missing_each_feature"] == {"Job": 2}
-    assert "2 test row(s) over all folds were scored by no model" in result.headline
+    assert "2 test rows over all folds were scored by no model" in result.headline
     kept = np.setdiff1d(test, job_missing)
     matrix, categorical = credit_benchmark_matrix(prepared.features)
     best = min((HistGradientBoostingClassifier(max_leaf_nodes=leaves,

@@ -90,7 +90,7 @@ def test_predictions_of_exactly_0_or_1_are_named():
     # constructed: one prediction of exactly 1 has infinite log-odds; the note says so
     truth = np.array([0, 1, 0, 1, 1, 0, 0, 1], dtype=float)
     probability = np.array([0.2, 0.7, 0.4, 1.0, 0.6, 0.3, 0.1, 0.8])
-    assert "1 prediction(s) of exactly 0 or 1" in calibration_fit(truth, probability)["note"]
+    assert "1 prediction of exactly 0 or 1" in calibration_fit(truth, probability)["note"]
     same = calibration_fit(truth, np.full(8, 0.5))
     assert np.isnan(same["slope"]) and "no slope" in same["note"]
     # with a constant prediction the intercept is the log-odds gap: logit(4/8) - logit(0.5)

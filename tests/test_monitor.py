@@ -224,7 +224,7 @@ def _refused(match: str, *args, **options) -> None:
 def test_bad_inputs_are_refused_in_one_line_naming_them(model, frames, tmp_path):
     early, late = frames
     late.drop(columns=["Income"]).to_csv(tmp_path / "no_income.csv", index=False)
-    _refused("missing column(s) 'Income'", model, [tmp_path / "no_income.csv"])
+    _refused("missing column 'Income'", model, [tmp_path / "no_income.csv"])
     late.assign(term="long").to_csv(tmp_path / "one.csv", index=False)
     _refused("'term' has one value only", model, [tmp_path / "one.csv"], period="term")
     blank = late.assign(term=np.where(np.arange(len(late)) == 20, None, "long"))

@@ -182,7 +182,7 @@ REFUSALS = [
     ({"link": [{"feature": "Amount"}]}, "exactly one of at_most and at_least"),
     ({"link": [{"feature": "Amount", "at_most": "Price", "at_least": "Debt"}]},
      "exactly one of at_most and at_least"),
-    ({"link": [{"feature": "Amount", "at_most": "Price", "by": 2}]}, "unknown key(s): by"),
+    ({"link": [{"feature": "Amount", "at_most": "Price", "by": 2}]}, "unknown key: by"),
     ({"link": {"feature": "Amount"}}, "'link' must be a list of [[link]] tables"),
     ({"level_bound": [{"when": "Home", "is": "castle", "feature": "Amount", "upper": 1}]},
      "[[level_bound]] number 1: is must be one of Home's levels"),

@@ -78,7 +78,7 @@ def test_missing_target_column(tmp_path):
     with pytest.raises(DataError, match=r"d\.csv.*no target column 'status'"):
         infer_schema(frame, "status")
     schema = infer_schema(frame, "outcome")
-    with pytest.raises(DataError, match=r"missing column\(s\) 'outcome'"):
+    with pytest.raises(DataError, match=r"missing column 'outcome'"):
         prepare(frame.drop(columns="outcome"), schema)
 
 
@@ -115,7 +115,7 @@ def test_missing_values_under_refuse_rule_name_column_and_first_rows(tmp_path):
         prepare(frame, schema)
     message = str(caught.value)
     assert "gaps.csv" in message and "'revenue'" in message
-    assert "2 missing value(s) in data rows 3, 7" in message and "fill" in message
+    assert "2 missing values in data rows 3, 7" in message and "fill" in message
 
 
 def test_learn_rule_keeps_blanks_and_declared_codes_missing(tmp_path):
@@ -175,7 +175,7 @@ def test_flag_with_other_values():
     ("[target]\ncolumn = 'y'\n[feature.x]\nkind = 'category'\nmonotone = 'increasing'\n",
      "cannot be monotone"),
     ("[target]\ncolumn = 'y'\n[feature.x]\nkind = 'number'\ncolour = 'red'\n",
-     r"unknown key\(s\) in \[feature.x\]: colour"),
+     r"unknown key in \[feature.x\]: colour"),
     ("[target]\ncolumn = 'y'\n[feature.x]\nkind = 'number'\nprotected = true\n",
      "nothing to fit"),
     ("[target\ncolumn = 'y'\n", "not valid TOML"),

@@ -237,7 +237,7 @@ def test_missing_entries_the_data_cannot_pin_down_are_reported(gaps_model):
              in model.metadata["details"]["missing_indicators"].items()}
     assert set(notes) == {"Income", "Assets"}
     for name, other in (("Income", "Assets"), ("Assets", "Income")):
-        assert "30 missing row(s) are all positive" in notes[name]
+        assert "30 missing rows are all positive" in notes[name]
         assert f"missing on exactly the rows {other} is" in notes[name]
     console = Console(record=True, width=400)
     console.print(fit_view(model, {}, "model.json"))

@@ -321,7 +321,7 @@ SCHEMA_CASES = {
                                    "[feature.Amount]\nmonotone = \"increasing\""),
                                   "feature.Amount.kind is missing"),
     "extra: an unknown key": (("[feature.Amount]\n", "[feature.Amount]\ncolour = \"red\"\n"),
-                              "unknown key(s) in [feature.Amount]: colour"),
+                              "unknown key in [feature.Amount]: colour"),
     "not finite: a fill of nan": (("[feature.Amount]\n", "[feature.Amount]\nfill = nan\n"),
                                   "feature.Amount.fill must be"),
     "range: a negative pool_below": (("kind = \"category\"\n", "kind = \"category\"\n"

@@ -22,6 +22,7 @@ import pandas as pd
 from glassbox.core.columns import OTHER_LEVEL, ages_in_days
 from glassbox.core.errors import DataError, value_text
 from glassbox.core.guesses import FALSE_WORDS, TRUE_WORDS
+from glassbox.core.wording import noun, plural
 
 if TYPE_CHECKING:
     from glassbox.core.schema import FeatureSpec, Schema
@@ -279,7 +280,8 @@ def prepare(
         needed.append(schema.target.column)
     missing = [name for name in needed if name not in frame.columns]
     if missing:
-        raise DataError(f"{where}: missing column(s) {', '.join(map(value_text, missing))} "
+        raise DataError(f"{where}: missing {noun(len(missing), 'column')} "
+                        f"{', '.join(map(value_text, missing))} "
                         f"(it has: {columns_text(frame.columns)})")
     if frame.shape[0] == 0:
         raise DataError(f"{where}: no rows")
@@ -308,8 +310,9 @@ def encode_column(column: pd.Series, spec: FeatureSpec, where: str) -> pd.Series
     missing = missing_mask(values, spec)
     if missing.any():
         if spec.missing == "refuse":
-            raise DataError(f"{where}: column '{spec.name}' has {int(missing.sum())} missing "
-                            f"value(s) in {rows_text(missing)} and the schema refuses them "
+            raise DataError(f"{where}: column '{spec.name}' has "
+                            f"{plural(int(missing.sum()), 'missing value')} in "
+                            f"{rows_text(missing)} and the schema refuses them "
                             f"(missing = \"refuse\"); set missing = \"learn\" or a fill "
                             "value, or clean the data")
         if spec.missing == "fill":
@@ -433,8 +436,9 @@ def encode_target(column: pd.Series, schema: Schema, where: str) -> np.ndarray:
     name = schema.target.column
     missing = _missing_mask(column)
     if missing.any():
-        raise DataError(f"{where}: target column '{name}' has {int(missing.sum())} missing "
-                        f"value(s) in {rows_text(missing)}; fill them, or drop those rows "
+        raise DataError(f"{where}: target column '{name}' has "
+                        f"{plural(int(missing.sum()), 'missing value')} in {rows_text(missing)}; "
+                        "fill them, or drop those rows "
                         "(--drop-missing-target on fit and compare)")
     if schema.target.task == "regression":
         from glassbox.core.schema import FeatureSpec  # that module imports this one

@@ -33,6 +33,7 @@ from glassbox.core.encoding import (  # noqa: F401  (re-exported: the schema mod
 from glassbox.core.errors import SchemaError
 from glassbox.core.files import read_toml
 from glassbox.core.guesses import Note, better_needed
+from glassbox.core.wording import noun
 
 KINDS = ("number", "integer", "flag", "category")
 NUMERIC_KINDS = ("number", "integer", "flag")
@@ -193,13 +194,15 @@ class Schema:
             raise SchemaError(f"{where}expected a table of settings")
         unknown = set(data) - {"id", "target", "feature"}
         if unknown:
-            raise SchemaError(f"{where}unknown top-level key(s): {', '.join(sorted(unknown))}")
+            raise SchemaError(f"{where}unknown top-level {noun(len(unknown), 'key')}: "
+                              f"{', '.join(sorted(unknown))}")
         target_data = data.get("target")
         if not isinstance(target_data, Mapping) or "column" not in target_data:
             raise SchemaError(f"{where}a [target] table with a 'column' is required")
         bad = set(target_data) - {"column", "task", "positive", "better"}
         if bad:
-            raise SchemaError(f"{where}unknown key(s) in [target]: {', '.join(sorted(bad))}")
+            raise SchemaError(f"{where}unknown {noun(len(bad), 'key')} in [target]: "
+                              f"{', '.join(sorted(bad))}")
         task = target_data.get("task", "classification")
         if task not in TASKS:
             raise SchemaError(f"{where}target task must be one of {', '.join(TASKS)}, not '{task}'")
@@ -277,7 +280,7 @@ def _feature_from_dict(name: str, entry: Any, where: str) -> FeatureSpec:
                "date_layout"}
     unknown = set(entry) - allowed
     if unknown:
-        raise SchemaError(f"{where}unknown key(s) in [feature.{name}]: "
+        raise SchemaError(f"{where}unknown {noun(len(unknown), 'key')} in [feature.{name}]: "
                           f"{', '.join(sorted(unknown))}")
     kind = entry.get("kind")
     if kind not in KINDS:

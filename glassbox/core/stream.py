@@ -26,6 +26,7 @@ from glassbox.core.encoding import (
     parser_problem,
 )
 from glassbox.core.errors import DataError, GlassboxError, OptionError
+from glassbox.core.wording import noun, verb
 
 SAMPLE_ROWS = 1000  # rows read up front: header check, column types, bytes per row
 
@@ -53,7 +54,7 @@ def read_error(path: Path, exc: BaseException) -> DataError:
 
 
 def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...],
-                keep_words: str = "column(s) to keep (--by)") -> Source:
+                keep_words: str = "columns to keep (--by)") -> Source:
     """Check the header against the model and `keep` before any work; `keep_words` names
     the kept columns in an error (the option that asked for them)."""
     names = check_data_file(path)  # the checks of every reader: names twice, text, ...
@@ -82,7 +83,8 @@ def open_source(path: Path, model: AdditiveModel, keep: tuple[str, ...],
     shown = f"it has: {', '.join(header[:12])}{', ...' if len(header) > 12 else ''}"
     missing = [name for name in model.features if name not in header]
     if missing:
-        raise DataError(f"{path}: missing column(s) {', '.join(map(repr, missing))} that the "
+        raise DataError(f"{path}: missing {noun(len(missing), 'column')} "
+                        f"{', '.join(map(repr, missing))} that the "
                         f"model needs ({shown})")
     unknown = [name for name in keep if name not in header]
     if unknown:
@@ -205,7 +207,8 @@ def dask_read_error(path: Path, exc: BaseException) -> DataError:
         return read_error(path, exc)
     names = [line.split("|")[1].strip() for line in text.splitlines()
              if line.startswith("|") and "Column" not in line]
-    return DataError(f"{path}: column(s) {', '.join(map(repr, names))} change type further "
+    return DataError(f"{path}: {noun(len(names), 'column')} {', '.join(map(repr, names))} "
+                     f"{verb(len(names), 'changes', 'change')} type further "
                      "into the file (text where the first rows hold numbers, say); clean "
                      "them, or use the local engine for an error naming the rows")
 

@@ -35,6 +35,7 @@ from glassbox.core.errors import (
     value_text,
 )
 from glassbox.core.schema import MISSING_LEVEL, Schema
+from glassbox.core.wording import plural
 
 FORMAT = "glassbox-points"
 VERSION = 3
@@ -228,7 +229,8 @@ class FeaturePoints:
         if unseen.any():
             strange = sorted({str(v) for v in values[unseen]})[:5]
             warnings.warn(
-                f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
+                f"feature '{self.feature}': {plural(int(unseen.sum()), 'row')} with a level "
+                f"never seen "
                 f"in training ({', '.join(map(value_text, strange))}); given the unseen-level "
                 f"points {self.unseen_points}", UnseenLevelWarning, stacklevel=3)
             out[unseen] = self.unseen_points

@@ -18,6 +18,7 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel, LevelsTerm
 from glassbox.core.encoding import prepare, rows_text
 from glassbox.core.errors import DataError, UnseenLevelWarning, value_text
+from glassbox.core.wording import noun
 from glassbox.explaining.reasons import checked_cutoff, unfavourable
 
 PERCENTILES = (1, 5, 25, 50, 75, 95, 99)
@@ -139,7 +140,8 @@ def _check_columns(old: AdditiveModel, new: AdditiveModel, frame: pd.DataFrame, 
         if absent:
             lacking.append(f"{', '.join(map(value_text, absent))} (needed by {name})")
     if lacking:
-        raise DataError(f"{where}: missing column(s) {'; '.join(lacking)}; the data must "
+        raise DataError(f"{where}: missing {noun(len(lacking), 'column')} {'; '.join(lacking)}; "
+                        f"the data must "
                         "carry the columns of both versions")
     if frame.shape[0] == 0:
         raise DataError(f"{where}: no rows")

@@ -22,6 +22,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from glassbox.core.wording import plural
+
 GROUPS = 10
 EDGE = 1e-12
 TOLERANCE = 1e-12
@@ -95,7 +97,7 @@ def calibration_fit(target: np.ndarray, probability: np.ndarray) -> dict[str, An
     logit, moved = _log_odds(np.asarray(probability, dtype=float))
     notes = []
     if moved:
-        notes.append(f"{moved} prediction(s) of exactly 0 or 1 taken as {EDGE:g} from the "
+        notes.append(f"{plural(moved, 'prediction')} of exactly 0 or 1 taken as {EDGE:g} from the "
                      "end (their log-odds are infinite)")
     if np.ptp(logit) == 0:
         slope, slope_ok = float("nan"), True

@@ -29,6 +29,7 @@ from glassbox.core.encoding import Prepared
 from glassbox.core.errors import OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
 from glassbox.core.schema import Schema
+from glassbox.core.wording import plural, verb
 from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings
 from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
 from glassbox.fitting.compare_checks import (
@@ -290,7 +291,8 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     headline = make_headline(models, costs, primary, benchmark)
     set_aside = set_aside or {"test_rows": 0}
     if set_aside["test_rows"]:
-        headline += (f" {set_aside['test_rows']} test row(s) over all folds were scored by no "
+        headline += (f" {plural(set_aside['test_rows'], 'test row')} over all folds "
+                     f"{verb(set_aside['test_rows'], 'was', 'were')} scored by no "
                      f"model: {SET_ASIDE_RULE}.")
     provenance = {"rows": int(len(prepared.features)), "test_rows_set_aside": set_aside,
                   "features": list(prepared.features.columns),

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from glassbox.core.wording import plural
 from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
 from glassbox.fitting.compare_checks import FLAG_RULE, NO_SKILL, STEP_RULE, step_words
 from glassbox.fitting.intervals import CLIPPED, NO_VARIANCE
@@ -249,6 +250,6 @@ def to_markdown(comparison: Comparison) -> str:
             parts += [f"Joined and left, per fold (a name alone: every fold agrees): "
                       f"{STEP_RULE}.", ""]
     settings = comparison.settings
-    parts += [f"{settings['folds']} folds × {settings['repeats']} repeat(s), seed "
+    parts += [f"{settings['folds']} folds × {plural(settings['repeats'], 'repeat')}, seed "
               f"{settings['seed']}; intervals: {settings['interval']}.", ""]
     return "\n".join(parts)

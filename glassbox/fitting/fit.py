@@ -31,6 +31,7 @@ from glassbox.core.schema import (
     prepare,
     rows_text,
 )
+from glassbox.core.wording import noun, plural
 from glassbox.explaining.baseline import TRAINING_ROWS, build_baseline
 from glassbox.fitting.families import get_family
 from glassbox.fitting.families.base import FamilyFit
@@ -76,7 +77,8 @@ def check_options(family: str, options: dict[str, Any]) -> None:
     """Refuse options the family does not take, naming those it does."""
     unknown = set(options) - set(get_family(family).DEFAULTS)
     if unknown:
-        raise OptionError(f"family '{family}' has no option(s) {', '.join(sorted(unknown))} "
+        raise OptionError(f"family '{family}' has no {noun(len(unknown), 'option')} "
+                          f"{', '.join(sorted(unknown))} "
                           f"(it takes: {', '.join(get_family(family).DEFAULTS)})")
 
 
@@ -191,7 +193,8 @@ def rows_with_target(frame: pd.DataFrame, schema: Schema, where: str) -> pd.Data
     if not absent.any():
         return frame
     prepare(frame, schema, require_target=False, source=where)
-    warnings.warn(f"{where}: dropped {int(absent.sum()):,} row(s) with no value in the target "
+    warnings.warn(f"{where}: dropped {plural(int(absent.sum()), 'row')} with no value in the "
+                  f"target "
                   f"'{name}' ({rows_text(absent)}); {int((~absent).sum()):,} rows remain",
                   UserWarning, stacklevel=2)
     kept = frame.loc[~absent].reset_index(drop=True)

@@ -19,6 +19,7 @@ from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
 
+from glassbox.core.wording import plural
 from glassbox.explaining.monitor_tables import collapsed
 from glassbox.explaining.stability import ACT_PSI, FLAG_ORDER, LEVEL, WATCH_PSI
 
@@ -83,10 +84,6 @@ def p_text(value: Any) -> str:
     if not _finite(value):
         return ""
     return "<0.0001" if float(value) < 1e-4 else f"{float(value):.4f}"
-
-
-def plural(count: int, word: str, many: str | None = None) -> str:
-    return f"{count:,} {word if count == 1 else (many or word + 's')}"
 
 
 def flagged(flag: Any) -> bool:

@@ -27,6 +27,7 @@ from glassbox.core.provenance import (
     short_fingerprint,
 )
 from glassbox.core.schema import prepare
+from glassbox.core.wording import noun
 from glassbox.explaining import groups, shapes
 from glassbox.publishing import plots
 from glassbox.publishing.render import HEADINGS, cell, terminal_columns
@@ -281,7 +282,8 @@ def _comparison_section(comparison, cutoff: float) -> Section:
     made_at = float(settings.get("cutoff", 0.5))
     fingerprint = short_fingerprint(comparison.provenance.get("data_sha256"))
     note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
-            f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
+            f"{noun(settings.get('repeats') or 0, 'repeat')}, seed {settings.get('seed')}; made "
+            f"on the same data as the model "
             f"(fingerprint {fingerprint}). ROC AUC, Gini, KS, "
             f"log loss and Brier use no cut-off; accuracy counts a probability of "
             f"{made_at:g} or more as the positive label, the cut-off the comparison was "

@@ -52,6 +52,7 @@ from threadpoolctl import threadpool_limits
 from glassbox.core.additive import LevelsTerm, StepTerm, Term, centre_terms
 from glassbox.core.errors import OptionError
 from glassbox.core.schema import MISSING_LEVEL, Schema
+from glassbox.core.wording import noun
 from glassbox.fitting.families.base import FamilyFit
 
 NAME = "boosted"
@@ -149,7 +150,8 @@ def check_options(options: dict[str, Any]) -> dict[str, Any]:
     """Every option checked and normalised, or an OptionError naming the option."""
     unknown = set(options) - set(DEFAULTS)
     if unknown:
-        raise OptionError(f"boosted has no option(s) {', '.join(sorted(unknown))} "
+        raise OptionError(f"boosted has no {noun(len(unknown), 'option')} "
+                          f"{', '.join(sorted(unknown))} "
                           f"(it takes: {', '.join(DEFAULTS)})")
     settings = {**DEFAULTS, **options}
     checked: dict[str, Any] = {

@@ -79,6 +79,7 @@ from threadpoolctl import threadpool_limits
 
 from glassbox.core.errors import DataError, OptionError, value_text
 from glassbox.core.schema import Schema
+from glassbox.core.wording import plural, verb
 from glassbox.fitting.families.base import FamilyFit
 from glassbox.fitting.families.spline_bins import bin_terms, extent_matrix
 from glassbox.fitting.families.spline_iterate import Fitted, fit_binned
@@ -250,7 +251,8 @@ def unidentified(plans: Sequence[TermPlan], matrix: np.ndarray, target: np.ndarr
         rows = matrix[:, plan.indicator] == 1.0
         said = []
         if target is not None and np.ptp(target[rows]) == 0:
-            said.append(f"its {plan.missing_rows} missing row(s) are all "
+            said.append(f"its {plural(plan.missing_rows, 'missing row')} "
+                        f"{verb(plan.missing_rows, 'is', 'are all')} "
                         f"{'positive' if target[rows][0] == 1 else 'negative'}: no finite "
                         "estimate, the entry is where the fit stopped")
         twins = [other.feature for other in owners if other is not plan
@@ -268,7 +270,7 @@ def describe(plan: TermPlan) -> str:
     """A term in words, e.g. 'spline, 20 basis functions, knots at training quantiles,
     decreasing'."""
     gap = ("" if plan.indicator is None else
-           f"; {plan.missing_rows} missing value(s): an unpenalised indicator, those rows "
+           f"; {plural(plan.missing_rows, 'missing value')}: an unpenalised indicator, those rows "
            f"fitted at {plan.stand_in:g}")
     if plan.kind != "spline":
         return plan.kind + gap
@@ -281,13 +283,15 @@ def search_note(fitted: Fitted, grid: Sequence[float], classify: bool) -> str:
     """What the penalty search did, in words, for the model file."""
     found = fitted.search
     where = ("on the working model (z, W) of the final penalised IRLS step, chosen afresh "
-             f"at each step ({fitted.searches} search(es) in {fitted.steps} step(s)): "
+             f"at each step ({plural(fitted.searches, 'search', 'searches')} in "
+             f"{plural(fitted.steps, 'step')}): "
              if classify else "")
     if found.sweeps == 0:
         said = "shared: every smooth and factor term at the grid value that scored best"
     else:
         said = (f"per term: from the best shared value, each term's penalty moved along the "
-                f"grid while a step lowered the criterion; {found.sweeps} sweep(s) over the "
+                f"grid while a step lowered the criterion; {plural(found.sweeps, 'sweep')} over "
+                f"the "
                 "terms, the last moving nothing, so no single term's neighbouring grid value "
                 f"scores better (a coordinate-wise optimum; the full grid of {len(grid)} "
                 "values per term over all terms together is not searched)")
@@ -310,7 +314,8 @@ def check_note(fitted: Fitted, grid: Sequence[float]) -> str:
     kept = ("the iteration's own" if fitted.positions == fitted.compared[0][0]
             else words(fitted.positions) + ", not the iteration's own (the recorded search "
             "is the one on the iteration's final working model)")
-    halved = (f"; {fitted.halved_steps} step(s) halved ({fitted.halvings} halving(s)) "
+    halved = (f"; {plural(fitted.halved_steps, 'step')} halved "
+              f"({plural(fitted.halvings, 'halving')}) "
               "because they raised the penalised deviance" if fitted.halvings else "")
     return (f"; then the true criterion of converged fits compared ({listed}); kept {kept}"
             + halved)

@@ -43,6 +43,7 @@ import numpy as np
 from scipy.special import expit
 
 from glassbox.core.errors import OptionError
+from glassbox.core.wording import plural
 from glassbox.fitting.families.spline_bins import Binned
 from glassbox.fitting.families.spline_penalty import (
     EPS,
@@ -162,8 +163,9 @@ def fit_binned(problem: Problem, binned: Binned, target: np.ndarray, grid: Seque
         if trace.steps >= max_iter or returns(history) >= CYCLES:
             # never settled: keep the setting that scored best, fitted at fixed penalties
             chosen = min(tried, key=lambda p: (tried[p], p))
-            trace.unsettled = (f"the penalties did not settle in {trace.steps} step(s) "
-                               f"({len(set(history))} setting(s) chosen in turn); kept the one "
+            trace.unsettled = (f"the penalties did not settle in {plural(trace.steps, 'step')} "
+                               f"({plural(len(set(history)), 'setting')} chosen in turn); kept "
+                               f"the one "
                                "whose fit scored best")
             kept = at(chosen, step)
             break
