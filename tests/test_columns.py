@@ -276,7 +276,7 @@ def test_missing_target_is_refused_or_dropped_and_counted(tmp_path):
     with pytest.raises(DataError, match=f"target column 'Income' has 381 missing values "
                                         f"in data rows {first} \\(and 376 more\\)"):
         fit_model(frame, schema, "sparse")
-    with pytest.warns(UserWarning, match=r"dropped 381 row\(s\) with no value in the target "
+    with pytest.warns(UserWarning, match=r"dropped 381 rows with no value in the target "
                                          r"'Income'.*4,073 rows remain"):
         model = fit_model(frame, schema, "sparse", drop_missing_target=True)
     assert model.metadata["rows"] == 4454 - 381
