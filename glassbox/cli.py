@@ -27,7 +27,7 @@ from glassbox.cli_support import (  # noqa: F401  (re-exported: recourse.cli and
     Force,
     Group,
     choices,
-    console_start,
+    console_run,
     emit,
     friendly,
     loading,
@@ -431,8 +431,9 @@ def report_command(
 
 def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
-    console_start()
-    sys.exit(run_guarded(app))
+    with console_run():
+        status = run_guarded(app)
+    sys.exit(status)
 
 
 def _register(*modules: str) -> Any:

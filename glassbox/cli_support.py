@@ -53,20 +53,27 @@ def stderr_console() -> Console:
     return Console(stderr=True, highlight=False)
 
 
-_CONSOLE: dict[str, bool] = {"run": False}  # set once by a console entry point
+_CONSOLE: dict[str, bool] = {"run": False}  # true during a console run (console_run)
 
 
-def console_start() -> None:
-    """Called first by each console entry point, whose process ends with its command.
+@contextlib.contextmanager
+def console_run() -> Iterator[None]:
+    """Around each console entry point's run (a process that ends with its command).
 
-    Start-up makes some 10^6 long-lived objects and almost no garbage, yet Python's cycle
+    Start-up makes some 10^5 long-lived objects and almost no garbage, yet Python's cycle
     collector scans them again and again as they are made: 30-50 ms of the 0.5 s that a
     one-row command takes. So the collector pauses while the options are read; `friendly`
     resumes it before a command's body, after freezing what was loaded (`gc.freeze`: never
     scanned again), and `loading()` pauses it again around a command's own imports. Only a
-    console run does this: a library call or a test in a long-lived process is left alone."""
+    console run does this: a library call or a test in a long-lived process is left alone,
+    and the collector is back on when the run ends, however it ends."""
     _CONSOLE["run"] = True
     gc.disable()
+    try:
+        yield
+    finally:
+        _CONSOLE["run"] = False
+        gc.enable()
 
 
 def _resume_collector() -> None:
@@ -78,7 +85,7 @@ def _resume_collector() -> None:
 @contextlib.contextmanager
 def loading() -> Iterator[None]:
     """Around a command's imports: in a console run, the cycle collector pauses while they
-    load, then what they loaded is frozen and collection resumes (see `console_start`)."""
+    load, then what they loaded is frozen and collection resumes (see `console_run`)."""
     if not _CONSOLE["run"]:
         yield
         return

@@ -18,7 +18,14 @@ import click
 import typer
 from typer.core import TyperArgument, TyperCommand
 
-from glassbox.cli import Force, friendly, loading, stderr_console, stdout_console
+from glassbox.cli_support import (
+    Force,
+    console_run,
+    friendly,
+    loading,
+    stderr_console,
+    stdout_console,
+)
 from recourse.choices import (
     DEFAULT_SOLVER,
     ENGINES,
@@ -366,8 +373,8 @@ app.command("audit", cls=Command, hidden=True)(friendly(_old_name(reach_command)
 
 def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
-    from glassbox.cli_support import console_start
     from glassbox.guard import run_guarded
 
-    console_start()
-    sys.exit(run_guarded(app))
+    with console_run():
+        status = run_guarded(app)
+    sys.exit(status)

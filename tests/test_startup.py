@@ -113,12 +113,17 @@ def test_planning_one_row_loads_no_scipy_or_solver_library(spline_model):
 COLLECTOR = """import gc, sys
 sys.argv = {argv!r}
 from {module} import main
+from glassbox.cli_support import _CONSOLE
+collections = []  # those made during the run (not after it, when the collector catches up)
+gc.callbacks.append(lambda phase, info: collections.append(phase)
+                    if phase == "start" and _CONSOLE["run"] else None)
 try:
     main()
 except SystemExit as exit:
     status = exit.code
-print(__import__("json").dumps([status, gc.isenabled(), len(gc.get_objects()),
-                                gc.get_freeze_count() > 0]))
+print(__import__("json").dumps([status, gc.isenabled() and not _CONSOLE["run"],
+                                len(collections), len(gc.get_objects()),
+                                gc.get_freeze_count()]))
 """
 
 
@@ -136,9 +141,20 @@ def test_a_console_run_resumes_the_cycle_collector(module, argv, spline_model, t
     code = COLLECTOR.format(argv=argv, module=module)
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=300)
-    status, enabled, tracked, frozen = json.loads(done.stdout.splitlines()[-1])
-    assert status == 0 and enabled and frozen, done.stderr
-    assert tracked < 20_000  # start-up made ~10^5; frozen, they are out of its way
+    status, restored, collections, tracked, frozen = json.loads(done.stdout.splitlines()[-1])
+    assert status == 0 and restored, done.stderr
+    assert collections > 0  # the command's work ran with the collector on
+    assert frozen > 50_000 and tracked < 20_000  # start-up's objects: frozen, out of its way
+
+
+def test_a_console_run_refused_while_reading_options_restores_the_collector():
+    # constructed: a usage error ends the run before any command body; collector back on
+    code = COLLECTOR.format(argv=["recourse", "plan", "--no-such-option"],
+                            module="recourse.cli")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=300)
+    status, restored, collections, _, frozen = json.loads(done.stdout.splitlines()[-1])
+    assert status == 2 and restored and collections == 0 and frozen == 0
 
 
 def test_library_calls_leave_the_collector_alone():
