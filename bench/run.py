@@ -1290,7 +1290,8 @@ def main() -> None:
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
                     levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder),
-                    export_rows(sets, folder), scale_rows(sets, folder)]
+                    export_rows(sets, folder), scale_rows(sets, folder),
+                    startup_rows(folder)]
     versions = ", ".join(f"{k} {v}" for k, v in library_versions().items())
     header = ["# Benchmark results", "",
               "Written by `make bench` (bench/run.py). Ratios compare contenders timed",
