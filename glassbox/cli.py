@@ -27,8 +27,10 @@ from glassbox.cli_support import (  # noqa: F401  (re-exported: recourse.cli and
     Force,
     Group,
     choices,
+    console_run,
     emit,
     friendly,
+    loading,
     parse_options,
     progress_note,
     stderr_console,
@@ -212,9 +214,10 @@ def score_command(
     """Score rows: score (link scale), probability or prediction, the features a row has
     no value for (when the model learned missing values), contributions; or, with --points,
     total points and each feature's points."""
-    from glassbox.core import formats
-    from glassbox.core.files import check_output
-    from glassbox.core.schema import read_table
+    with loading():
+        from glassbox.core import formats
+        from glassbox.core.files import check_output
+        from glassbox.core.schema import read_table
 
     model_file, data = _score_inputs(model_file, data, card_file)
     written = formats.output_format(out, None if format is None else format.value,
@@ -226,8 +229,9 @@ def score_command(
         card = points.load(card_file)
         table = points.score_points(card, read_table(data), str(data))
     else:
-        from glassbox.core import artifact
-        from glassbox.core.additive import score_table
+        with loading():
+            from glassbox.core import artifact
+            from glassbox.core.additive import score_table
 
         model = artifact.load(model_file)
         table = score_table(model, read_table(data), str(data), contributions=contributions)
@@ -427,7 +431,9 @@ def report_command(
 
 def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
-    sys.exit(run_guarded(app))
+    with console_run():
+        status = run_guarded(app)
+    sys.exit(status)
 
 
 def _register(*modules: str) -> Any:

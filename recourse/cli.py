@@ -18,7 +18,14 @@ import click
 import typer
 from typer.core import TyperArgument, TyperCommand
 
-from glassbox.cli import Force, friendly, stderr_console, stdout_console
+from glassbox.cli_support import (
+    Force,
+    console_run,
+    friendly,
+    loading,
+    stderr_console,
+    stdout_console,
+)
 from recourse.choices import (
     DEFAULT_SOLVER,
     ENGINES,
@@ -183,8 +190,9 @@ def plan_command(
     force: Force = False,
 ) -> None:
     """Plans for one row (--row, --id or --index) or for all declined rows (--declined)."""
-    from glassbox.core.files import check_not_an_input, check_output
-    from glassbox.core.formats import output_format
+    with loading():
+        from glassbox.core.files import check_not_an_input, check_output
+        from glassbox.core.formats import output_format
 
     check_not_an_input(out, [model_file, mutability, row, data])
     chosen = None if format is None else format.value
@@ -204,10 +212,11 @@ def plan_command(
 def _plan_one(model_file: Path, mutability: Path, row: Path | None, data: Path | None,
               id_value: str | None, index: int | None, plans: int, solver: str,
               written: str, out: Path | None) -> None:
-    from glassbox.core import artifact
-    from recourse.mutability import load_mutability
-    from recourse.planner import find_plans, plan_json
-    from recourse.rows import pick_row
+    with loading():
+        from glassbox.core import artifact
+        from recourse.mutability import load_mutability
+        from recourse.planner import find_plans, plan_json
+        from recourse.rows import pick_row
 
     model = artifact.load(model_file)
     rules = load_mutability(mutability, model)
@@ -216,7 +225,8 @@ def _plan_one(model_file: Path, mutability: Path, row: Path | None, data: Path |
     if written == "json":
         _write(plan_json(result), out, f"the plans for row {row_id}")
         return
-    from recourse.views import result_view
+    with loading():
+        from recourse.views import result_view
 
     stdout_console().print(result_view(model, result))
 
@@ -365,4 +375,6 @@ def main() -> None:
     """Console entry point: every ending is one line and an exit status (glassbox.guard)."""
     from glassbox.guard import run_guarded
 
-    sys.exit(run_guarded(app))
+    with console_run():
+        status = run_guarded(app)
+    sys.exit(status)

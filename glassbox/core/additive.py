@@ -22,7 +22,6 @@ from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 import pandas as pd
-from scipy.special import expit
 
 from glassbox.core.cells import TermCells
 from glassbox.core.errors import (
@@ -32,6 +31,7 @@ from glassbox.core.errors import (
     UnseenLevelWarning,
     value_text,
 )
+from glassbox.core.logistic import logistic
 from glassbox.core.schema import Schema, prepare, rows_text
 from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 
@@ -507,15 +507,15 @@ class AdditiveModel:
         """Probability of the positive class (classification models only)."""
         if self.link != "logit":
             raise OptionError("a regression model has no probability; use score")
-        return expit(self.score(frame, source))
+        return logistic(self.score(frame, source))
 
     def predict(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
         """Probability for classification, the predicted value for regression."""
         score = self.score(frame, source)
-        return expit(score) if self.link == "logit" else score
+        return logistic(score) if self.link == "logit" else score
 
     def inverse_link(self, score: np.ndarray) -> np.ndarray:
-        return expit(score) if self.link == "logit" else np.asarray(score)
+        return logistic(score) if self.link == "logit" else np.asarray(score)
 
 
 def refuse_missing(feature: str, absent: np.ndarray, where: str, holder: str) -> None:
