@@ -74,14 +74,14 @@ def test_scores_contributions_and_probability():
 def test_unseen_level_scores_with_unseen_value_and_warns_with_count():
     model = hand_model()
     frame = pd.DataFrame({"x": [1.0] * 3, "n": [0] * 3, "c": ["p", "zz", "zz"]})
-    with pytest.warns(UnseenLevelWarning, match=r"'c': 2 row\(s\) .*'zz'.*0\.1"):
+    with pytest.warns(UnseenLevelWarning, match=r"'c': 2 rows .*'zz'.*0\.1"):
         parts = model.contributions(frame)
     assert parts["c"].tolist() == [0.25, 0.1, 0.1]
 
 
 def test_scoring_names_missing_columns_and_bad_values():
     model = hand_model()
-    with pytest.raises(DataError, match=r"missing column\(s\) 'n', 'c'"):
+    with pytest.raises(DataError, match=r"missing columns 'n', 'c'"):
         model.score(pd.DataFrame({"x": [1.0]}))
     with pytest.raises(DataError, match="'x' should hold numbers"):
         model.score(pd.DataFrame({"x": ["high"], "n": [1], "c": ["p"]}))

@@ -140,7 +140,7 @@ def test_unseen_level_is_a_warning_not_an_error(tmp_path):
     result = run("score", full, path)
     assert result.exit_code == 0
     assert "warning:" in result.output and "'space tourism'" in result.output
-    assert "1 row(s)" in result.output
+    assert "1 row with a level never seen" in result.output
 
 
 def test_shapes_folder_output_and_plots(model_file, tmp_path):

@@ -34,6 +34,7 @@ from glassbox.core.errors import (
 from glassbox.core.logistic import logistic
 from glassbox.core.schema import Schema, prepare, rows_text
 from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
+from glassbox.core.wording import noun, plural
 
 if TYPE_CHECKING:
     from glassbox.explaining.baseline import Baseline
@@ -169,8 +170,8 @@ class LevelsTerm:
         if unseen.any():
             strange = sorted({str(v) for v in np.asarray(column, dtype=object)[unseen]})[:5]
             warnings.warn(
-                f"feature '{self.feature}': {int(unseen.sum())} row(s) have a level never seen "
-                f"in training ({', '.join(map(value_text, strange))}); scored with the "
+                f"feature '{self.feature}': {plural(int(unseen.sum()), 'row')} with a level "
+                f"never seen in training ({', '.join(map(value_text, strange))}); scored with the "
                 f"unseen-level value {self.unseen:.4g}",
                 UnseenLevelWarning, stacklevel=3,
             )
@@ -435,7 +436,8 @@ class AdditiveModel:
         used = {f.name for f in self.schema.used_features}
         stray = [n for n in names if n not in used]
         if stray:
-            raise ModelFileError(f"term(s) for {', '.join(stray)} which the schema does not use")
+            raise ModelFileError(f"{noun(len(stray), 'term')} for {', '.join(stray)} which the "
+                                 "schema does not use")
         summarised = [c.feature for c in self.cells]
         if len(set(summarised)) != len(summarised) or not set(summarised) <= used:
             raise ModelFileError("training cells must belong to features the schema uses, "
@@ -523,7 +525,7 @@ def refuse_missing(feature: str, absent: np.ndarray, where: str, holder: str) ->
     says what lacks an entry for it ("the model has no entry")."""
     if absent.any():
         raise DataError(
-            f"{where}: column '{feature}' has {int(absent.sum())} missing value(s) in "
+            f"{where}: column '{feature}' has {plural(int(absent.sum()), 'missing value')} in "
             f"{rows_text(absent)}, and {holder} for a missing '{feature}' (its training "
             "data had none); supply the values, or give the feature a fill value in the "
             "schema")
