@@ -185,7 +185,7 @@ def test_nan_in_an_array_reaches_the_model():
     assert estimator.__sklearn_tags__().input_tags.allow_nan
     gappy = X[:3].copy()
     gappy[1, 1] = np.nan
-    with pytest.raises(DataError, match=r"column 'x1' has 1 missing value\(s\) in data row 2"):
+    with pytest.raises(DataError, match=r"column 'x1' has 1 missing value in data row 2"):
         estimator.predict_proba(gappy)
     gappy[1, 1] = np.inf
     with pytest.raises(ValueError, match="infinity"):

@@ -206,7 +206,7 @@ def test_score_output_names_the_missing_features(built):
     assert table["missing"].tolist() == expected and any(expected)
     blank = rows.index[rows["x"].isna()][0]
     assert table.loc[blank, "contribution:x"] == 0.7
-    with pytest.raises(DataError, match=r"column 'r' has 1 missing value\(s\) in data row 2"):
+    with pytest.raises(DataError, match=r"column 'r' has 1 missing value in data row 2"):
         score_table(model, rows.assign(r=[1.0, np.nan] + [1.0] * (len(rows) - 2)))
 
 
