@@ -535,7 +535,7 @@ def batch_rows(sets: dict[str, tuple], rows: int = 20_000, sample: int = 2_000,
     return lines
 
 
-def audit_rows(sets: dict[str, tuple], folder: Path, rows: int = 100_000) -> list[str]:
+def reach_rows(sets: dict[str, tuple], folder: Path, rows: int = 100_000) -> list[str]:
     """The population command on 100,000 declined rows: local at 1 and 2 jobs, dask with 2."""
     from recourse import reach
     from recourse.scale import plan_at_scale
@@ -1280,12 +1280,12 @@ def main() -> None:
         if only:
             for name in only:
                 rows = globals()[f"{name}_rows"]
-                extra = ((folder,) if name in ("audit", "file", "fuzz", "monitor", "export",
+                extra = ((folder,) if name in ("reach", "file", "fuzz", "monitor", "export",
                                                "scale") else ())
                 print("\n".join(rows(sets, *extra)))
             return
         sections = [recourse_rows(sets), batch_rows(sets), exact_rows(sets), kernel_rows(sets),
-                    audit_rows(sets, folder),
+                    reach_rows(sets, folder),
                     comparison_rows(sets), family_rows(sets), spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
