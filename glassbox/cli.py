@@ -132,8 +132,9 @@ def schema_command(
     schema = infer_schema(frame, target, positive=positive, id_column=id_column,
                           dates_as_age=dates_as_age)
     emit(schema.to_toml(), out, "schema")
-    for line in guesses.summary(schema.notes):
-        stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
+    from glassbox.publishing.render import notes_view
+
+    stderr_console().print(notes_view(guesses.summary(schema.notes)))
 
 
 @app.command("fit", cls=SettingsHelp, epilog=example(

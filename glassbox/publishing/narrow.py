@@ -304,6 +304,27 @@ def bullet(text: str, mark: str = "-", indent: int = 2) -> Padding:
     return Padding(grid, (0, 0, 0, indent))
 
 
+class Hanging:
+    """A paragraph whose first line starts at the margin and whose folded lines start
+    `indent` columns in, broken at spaces to the console's width (a word longer than a
+    line folds). Plain text: no markup is read."""
+
+    def __init__(self, text: str, indent: int = 4) -> None:
+        self.text = text
+        self.indent = indent
+
+    def lines(self, width: int) -> list[str]:
+        import textwrap
+
+        return textwrap.wrap(self.text, max(width, self.indent + 10),
+                             subsequent_indent=" " * self.indent, break_on_hyphens=False,
+                             drop_whitespace=True) or [""]
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        for line in self.lines(options.max_width):
+            yield Text(line, no_wrap=True)  # already fits: textwrap folds a long word
+
+
 def indented(content: Any, indent: int = 4) -> Padding:
     """A paragraph (or any renderable) whose every line starts `indent` columns in."""
     return Padding(Text(content) if isinstance(content, str) else content, (0, 0, 0, indent))

@@ -22,6 +22,7 @@ from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
+    Hanging,
     frame_texts,
     key_value_table,
     number_texts,
@@ -209,6 +210,12 @@ def terminal_columns(table: pd.DataFrame) -> list[str]:
     if not curve or knots <= 20:
         columns.append("training_share")
     return [*columns, "note"]
+
+
+def notes_view(lines: Sequence[str]) -> RenderableType:
+    """Notes one to a paragraph, each folded at spaces with a hanging indent, so a
+    note's second line is plain to tell from the next note."""
+    return Group(*(Hanging(line) for line in lines))
 
 
 def error_text(message: str) -> Text:
