@@ -234,11 +234,31 @@ def test_points_reasons_report(made):
                      "--out", made["folder"] / "report"]))
 
 
-def test_monitor_changes_compare(made):
+@pytest.fixture(scope="module")
+def compared(made) -> tuple[str, Path]:
+    """`glassbox compare` on the demo loans (sparse against the trees, 2 folds): what the
+    terminal shows, and the comparison file written beside it."""
+    out = made["folder"] / "compare.json"
+    text = invoke(app, ["compare", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
+                        "--folds", "2", "--family", "sparse", "--out", out])
+    return text, out
+
+
+def test_monitor_changes_compare(made, compared):
+    from glassbox.fitting import compare_tables as tables
+    from glassbox.fitting.compare_files import read_comparison
+
     _ok(invoke(app, ["monitor", made["spline"], DEMO / "loans_q2.csv", DEMO / "loans_q3.csv"]))
     _ok(invoke(app, ["changes", made["sparse"], made["spline"], DEMO / "loans.csv"]))
-    _ok(invoke(app, ["compare", DEMO / "loans.csv", "--schema", DEMO / "loans.schema.toml",
-                     "--folds", "2", "--family", "sparse"]))
+    text, out = compared
+    comparison = read_comparison(out)
+    grid = tables.calibration_grid(comparison)
+    cells = [*frame_cells(tables.metric_grid(comparison)), *frame_cells(grid),
+             *frame_cells(tables.cost_table(comparison))]
+    _ok(text.split("wrote comparison")[0], cells)
+    # every model's deciles in ONE table: the heading row names each model once
+    assert len(grid) == 10 and list(grid.columns[:2]) == ["decile", "rows"]
+    assert text.count("by decile") == 1 and "sparse: observed against" not in text
 
 
 MUTABILITY_STUCK = """
@@ -345,7 +365,18 @@ def test_number_texts_one_style():
     assert column_style_problems("x", ["0.0006196", "1"])
 
 
-def test_every_table_keeps_one_style_per_column(made):
+def number_columns(heading: str, cells: Sequence[str]) -> list[tuple[str, list[str]]]:
+    """A column as the numbers it holds: a "! " mark in front dropped, and a column of
+    "predicted → observed" pairs read as two columns (each side one style)."""
+    cells = [cell.removeprefix("! ") for cell in cells]
+    if any(" → " in cell for cell in cells):
+        pairs = [cell.split(" → ") if " → " in cell else [cell, cell] for cell in cells]
+        return [(f"{heading} (left)", [p[0] for p in pairs]),
+                (f"{heading} (right)", [p[1] for p in pairs])]
+    return [(heading, cells)]
+
+
+def test_every_table_keeps_one_style_per_column(made, compared):
     from glassbox.explaining.baseline import model_baseline
     from glassbox.explaining.changes import model_changes
     from glassbox.explaining.monitor import monitor
@@ -381,14 +412,25 @@ def test_every_table_keeps_one_style_per_column(made):
     views.append(changes_view(model_changes(old, fitted, loans, names=("old", "new"))))
     views.append(monitoring_view(monitor(fitted, [DEMO / "loans_q2.csv"],
                                          baseline=model_baseline(fitted, "model"))))
-    problems = []
+    from glassbox.fitting.compare_files import read_comparison
+    from glassbox.publishing.render import comparison_view
+
+    views.append(comparison_view(read_comparison(compared[1])))
+    problems, titles = [], []
     for view in views:
         for title, headings, columns in tables_in(view):
+            titles.append(title)
             for heading, cells in zip(headings, columns, strict=True):
                 if (title.split(":")[0].split(" ")[0], heading) in MIXED:
                     continue
-                problems += [f"{title}: {p}" for p in column_style_problems(heading, cells)]
+                for name, numbers in number_columns(heading, cells):
+                    problems += [f"{title}: {p}"
+                                 for p in column_style_problems(name, numbers)]
     assert not problems, "\n".join(problems)
+    # the comparison's tables are among those checked, the deciles' pairs included
+    for start in ("Held-out mean of each metric", "Mean predicted → observed rate",
+                  "Cost against the benchmark", "Calibration of the pooled"):
+        assert any(title.startswith(start) for title in titles), start
 
 
 def test_group_table_keeps_its_flag_column():

@@ -10,9 +10,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from rich import box
 from rich.console import Group, RenderableType
-from rich.table import Table
 from rich.text import Text
 
 from glassbox.core.additive import AdditiveModel
@@ -227,9 +225,10 @@ def warning_text(message: str) -> Text:
 
 
 def comparison_view(comparison: Any) -> RenderableType:
-    """What `glassbox compare` prints, stacked to fit 80 columns: the headline, the base
-    rate and no-skill flags, every metric's mean, the primary metric's interval, the
-    cost, calibration and the sparsity curve with the feature that joins at each size."""
+    """What `glassbox compare` prints, laid out like every other view (narrow.py): the
+    headline, the base rate and no-skill flags, every metric's mean, the primary metric's
+    interval, the cost, calibration (every model's deciles in one table) and the sparsity
+    curve with the feature that joins at each size."""
     from glassbox.fitting import compare_tables as tables
 
     settings = comparison.settings
@@ -239,9 +238,10 @@ def comparison_view(comparison: Any) -> RenderableType:
     if missing:
         parts += [warning_text(missing), Text("")]
     grid = tables.metric_grid(comparison)
-    parts.append(_grid_table(grid, f"Held-out mean of each metric, {folds} folds × {repeats}"
-                             + (" (! does not beat the no-skill model)"
-                                if comparison.flags is not None else "")))
+    marked = grid.iloc[:, 1:].apply(lambda column: column.str.startswith("!")).any().any()
+    parts.append(_text_table(grid, f"Held-out mean of each metric, {folds} folds × "
+                             f"{repeats}" + (" (! in front: does not beat the no-skill "
+                                             "model)" if marked else ""), right=True))
     if comparison.base_rate is not None:
         parts += [Text(tables.base_rate_note(comparison)), Text("")]
     accuracy = tables.accuracy_table(comparison)
@@ -259,35 +259,28 @@ def comparison_view(comparison: Any) -> RenderableType:
                                  "ideal)"))
         parts += [Text(f"{row.model}: {row.note}") for row in fits.itertuples()
                   if row.note]
-        for model in fits["model"]:
-            parts.append(frame_table(tables.calibration_deciles(comparison, model),
-                                     title=f"{model}: observed against predicted by decile"))
+        parts.append(_text_table(tables.calibration_grid(comparison),
+                                 f"Mean predicted {tables.ARROW} observed rate, by decile of "
+                                 "each model's predictions", right=True))
     curve = tables.sparsity_table(comparison)
     if not curve.empty:
         parts.append(frame_table(curve, columns=list(curve.columns[:3]),
                                  title="Sparse family by number of features"))
         if "joined" in curve:
-            parts.append(_grid_table(curve[["features", "joined", "left on the path"]],
-                                     "The feature that joins at each size (where folds "
-                                     "differ: each name with its share of folds)",
-                                     wrap=True))
+            parts.append(frame_table(curve, columns=["features", "joined",
+                                                     "left on the path"],
+                                     title="The feature that joins at each size (where "
+                                     "folds differ: each name with its share of folds)"))
     return Group(*parts)
 
 
-def _grid_table(grid: pd.DataFrame, title: str, wrap: bool = False) -> Table:
-    """A table of text whose first column names the row: with `wrap`, the other columns
-    wrap at spaces (a word longer than its column folds onto the next line, never cut);
-    without, they hold short numbers and never wrap. Headings wrap at spaces."""
-    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
-                  title_style="bold", header_style="bold", pad_edge=False)
-    for position, name in enumerate(grid.columns):
-        first = position == 0
-        table.add_column(name, justify="left" if first or wrap else "right",
-                         no_wrap=not (first or wrap), overflow="fold",
-                         min_width=None if wrap else max([len(str(v)) for v in grid[name]]
-                                                         + [1]))
-    for row in grid.itertuples(index=False):
-        table.add_row(*(str(value) for value in row))
+def _text_table(grid: pd.DataFrame, title: str, right: bool = True) -> FittedTable:
+    """A frame of text cells in the shared layout; with `right`, every column after the
+    first is right-aligned (numbers with a mark, or an arrow between two numbers)."""
+    table = FittedTable.of_frame(frame_texts(grid), title=title, headings=HEADINGS)
+    if right:
+        table.headings = [table.headings[0],
+                          *((heading, "right") for heading, _ in table.headings[1:])]
     return table
 
 
