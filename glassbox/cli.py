@@ -90,8 +90,7 @@ def example(line: str) -> str:
     return f"Example: {line}"
 
 
-@app.callback(epilog=example("glassbox fit loans.csv --schema loans.schema.toml "
-                             "--out loans.json"))
+@app.callback(epilog=example("glassbox fit loans.csv --schema loans.toml --out loans.json"))
 def _main(
     version: Annotated[bool, version_option("glassbox", __version__)] = False,
 ) -> None:
@@ -99,7 +98,7 @@ def _main(
 
 
 @app.command("schema", cls=Command, epilog=example(
-    "glassbox schema loans.csv --target defaulted --out loans.schema.toml"))
+    "glassbox schema loans.csv --target defaulted --out loans.toml"))
 @friendly
 def schema_command(
     data: Annotated[Path, typer.Argument(metavar="DATA", help="CSV or Parquet file.")],
@@ -138,7 +137,7 @@ def schema_command(
 
 
 @app.command("fit", cls=SettingsHelp, epilog=example(
-    "glassbox fit loans.csv --schema loans.schema.toml --family spline --out loans.json"))
+    "glassbox fit loans.csv --schema loans.toml --out loans.json"))
 @friendly
 def fit_command(
     data: Annotated[Path, typer.Argument(
@@ -252,7 +251,7 @@ def _score_inputs(first: Path | None, second: Path | None,
 
 
 @app.command("points", cls=Command, epilog=example(
-    "glassbox points loans.json --data loans.csv --cutoff 0.3 --out card.json"))
+    "glassbox points loans.json --data loans.csv --out card.json"))
 @friendly
 def points_command(
     model_file: Annotated[Path, typer.Argument(
@@ -314,7 +313,7 @@ def points_command(
 
 
 @app.command("shapes", cls=Command, epilog=example(
-    "glassbox shapes loans.json --format csv --out tables --plot pictures"))
+    "glassbox shapes loans.json --format csv --out tables --plot plots"))
 @friendly
 def shapes_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
@@ -378,7 +377,7 @@ def shapes_command(
 
 
 @app.command("report", cls=Command, epilog=example(
-    "glassbox report loans.json --data loans.csv --cutoff 0.3 --out report"))
+    "glassbox report loans.json --data loans.csv --out report"))
 @friendly
 def report_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
