@@ -39,10 +39,18 @@ from glassbox.core.errors import OptionError
 from glassbox.fitting.choices import BENCHMARKS, FAMILIES
 from glassbox.guard import run_guarded
 
+
+class WorkOrder(Group):
+    """`glassbox --help` lists the commands in the order of the work."""
+
+    order = ("schema", "fit", "compare", "score", "shapes", "reasons", "points", "report",
+             "monitor", "changes", "export")
+
+
 app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
-    rich_markup_mode=None, cls=Group, context_settings={"max_content_width": MAX_HELP_WIDTH},
+    rich_markup_mode=None, cls=WorkOrder, context_settings={"max_content_width": MAX_HELP_WIDTH},
 )
 
 # the choices come from a light list beside the families, so a new family or benchmark
@@ -209,9 +217,11 @@ def score_command(
         help="Include each feature's contribution.")] = True,
     force: Force = False,
 ) -> None:
-    """Score rows: score (link scale), probability or prediction, the features a row has
-    no value for (when the model learned missing values), contributions; or, with --points,
-    total points and each feature's points."""
+    """Score rows with a model file, or with a points card (--points).
+
+    Each row gets its score (link scale), its probability or prediction, the features it
+    has no value for (when the model learned missing values) and each feature's
+    contribution; with --points, its total points and each feature's points."""
     from glassbox.core import formats
     from glassbox.core.files import check_output
     from glassbox.core.schema import read_table

@@ -144,6 +144,14 @@ def test_top_level_help_keeps_its_words(program, width):
     assert " ".join(top(WIDE)).split("Example: ")[-1].startswith(program)
 
 
+def test_glassbox_lists_its_commands_in_the_order_of_the_work():
+    text = rendered("glassbox", None, WIDE)
+    listing = text.split("Commands:\n")[1].split("\n\n")[0]
+    listed = [line.split()[0] for line in listing.splitlines() if not line.startswith("   ")]
+    assert listed == ["schema", "fit", "compare", "score", "shapes", "reasons", "points",
+                      "report", "monitor", "changes", "export"], listed
+
+
 @pytest.mark.parametrize("program", ["glassbox", "recourse"])
 def test_version(program):
     result = CliRunner().invoke(APPS[program], ["--version"])
