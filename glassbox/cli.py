@@ -340,6 +340,11 @@ def shapes_command(
     plot: Annotated[Path | None, typer.Option(
         metavar="DIR", help="Also write one PNG per feature and an importance overview.")
     ] = None,
+    at: Annotated[str | None, typer.Option(
+        "--at", metavar="VALUE",
+        help="Mark the row this value of the one --feature falls in, and say what the "
+             "term adds there; the row is never thinned away (the terminal table; missing "
+             "or an empty value: the missing-value row).")] = None,
     force: Force = False,
 ) -> None:
     """Per-feature tables (and pictures) of what the model does, from the model file."""
@@ -354,8 +359,11 @@ def shapes_command(
                           "for its files (or name a file ending in .csv, .md or .json)")
     written = chosen if as_folder else formats.output_format(out, chosen,
                                                              ("csv", "markdown", "json"))
+    if at is not None:
+        _check_at(at, feature or [], written)
     model = artifact.load(model_file)
     names = shapes.chosen_features(model, feature)
+    marks = [] if at is None else [shapes.row_at(model, names[0], at)]
     if as_folder:
         table_files = [(name, table_kind(written, "shapes"))
                        for name in shapes.folder_names(names, written)]
@@ -377,13 +385,26 @@ def shapes_command(
 
         tables = {name: shapes.term_table(model, name) for name in names}
         scale = "log-odds" if model.link == "logit" else "prediction"
-        stdout_console().print(shapes_view(shapes.summary(model), tables, scale))
+        stdout_console().print(shapes_view(shapes.summary(model), tables, scale,
+                                           marks=marks))
         return
     if as_folder:
         paths = shapes.write_folder(model, out, written, names)
         stderr_console().print(f"wrote {len(paths)} {written} file(s) to {out}/")
         return
     emit(formats.write(shapes.all_tables(model, names), written), out, "shape tables")
+
+
+def _check_at(value: str, features: list[str], written: str) -> None:
+    """--at marks a row of one feature's terminal table: one --feature, no file format."""
+    if len(dict.fromkeys(features)) != 1:
+        got = ("no --feature" if not features else
+               f"{len(features)}: {', '.join(dict.fromkeys(features))}")
+        raise OptionError(f"--at {value!r} marks a row of one feature's table: give exactly "
+                          f"one --feature (got {got})")
+    if written != "table":
+        raise OptionError(f"--at {value!r} marks a row of the terminal table; a {written} "
+                          "file holds every row already (leave out --at, or --format/--out)")
 
 
 @app.command("report", cls=Command, epilog=example(

@@ -19,6 +19,7 @@ from collections import Counter
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 from rich import box
@@ -32,7 +33,13 @@ from glassbox.core import artifact
 from glassbox.core.schema import read_table
 from glassbox.explaining import points, reasons, shapes
 from glassbox.publishing.narrow import FittedTable, frame_texts, number_texts
-from glassbox.publishing.render import HEADINGS, shapes_view, summary_texts, term_texts
+from glassbox.publishing.render import (
+    HEADINGS,
+    shapes_view,
+    summary_texts,
+    term_notes,
+    term_texts,
+)
 from recourse.cli import app as recourse_app
 from recourse.views import group_texts
 
@@ -193,7 +200,7 @@ def test_shapes_every_feature(made, model):
     cells = frame_cells(summary_texts(shapes.summary(fitted)))
     for name in fitted.features:
         texts, _ = term_texts(shapes.term_table(fitted, name))
-        cells += frame_cells(texts)
+        cells += frame_cells(texts) + term_notes(shapes.term_table(fitted, name))
         table = shapes.term_table(fitted, name)
         if table["training_share"].notna().any() and table["training_percentile"].isna().all():
             assert "training_share" in texts.columns, name  # categories keep their shares
@@ -211,6 +218,77 @@ def test_a_thinned_table_numbers_its_rows_and_keeps_the_bin_asked_about(made):
                               keep={"annual_revenue": [wanted]}))
     _ok(text, frame_cells(texts))
     assert shapes.row_of_value(table, None) == len(table) - 1
+
+
+def _holds(table: pd.DataFrame, position: int, value, term) -> bool:
+    """Brute force: the table's row at `position` is the row `value` belongs to: its
+    level (the unseen-level row for a level not in the table), its bin (from, to], the
+    nearest knot of a curve, or the missing row for no value."""
+    from glassbox.core.additive import CurveTerm, LevelsTerm
+
+    row = table.iloc[position]
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return row["row"] == "(missing)"
+    if isinstance(term, LevelsTerm):
+        return row["row"] == (value if value in term.levels else
+                              "(level not seen in training)")
+    if isinstance(term, CurveTerm):
+        knots = np.asarray(term.knots)
+        return row["from"] == knots[np.argmin(np.abs(knots - float(value)))]
+    return row["from"] < float(value) <= row["to"]
+
+
+def test_shapes_at_marks_the_row_a_value_falls_in(made):
+    """`shapes --at`: on modeldata credit_data (real data, steps, levels, a flag, blanks
+    filled by the schema) and the demo spline (curves, a learned missing row), every value
+    of a sample of rows lands in the row brute force finds, and the contribution said is
+    what scoring the row gives (the table is the model); the terminal marks that row,
+    never thinned away, and fits 80 columns. Refusals name the option."""
+    from glassbox.core.encoding import encode_column
+
+    for model_file, data in ((made["credit"], made["credit_data"]),
+                             (made["spline"], DEMO / "loans.csv")):
+        fitted = artifact.load(model_file)
+        frame = read_table(data).iloc[::97]
+        scored = fitted.contributions(frame)
+        for feature in fitted.features:
+            table = shapes.term_table(fitted, feature)
+            spec = fitted.schema.feature(feature)
+            for index, raw in frame[feature].items():
+                given = "" if pd.isna(raw) else str(raw)
+                mark = shapes.row_at(fitted, feature, given)
+                value = encode_column(pd.Series([given], dtype=object), spec, "x").iloc[0]
+                assert _holds(table, mark.position, value, fitted.term(feature)), (
+                    feature, given, mark)
+                assert mark.contribution == pytest.approx(scored.loc[index, feature],
+                                                          abs=1e-12), (feature, given)
+    credit = artifact.load(made["credit"])
+    table = shapes.term_table(credit, "Income")
+    for given in ("", "0", "137", "1e6"):  # a blank is filled with 0 (the schema says so)
+        mark = shapes.row_at(credit, "Income", given)
+        text = invoke(app, ["shapes", made["credit"], "--feature", "Income", "--at", given])
+        texts, _ = term_texts(table, mark=(mark.position, mark.shown))
+        _ok(text, frame_cells(texts) + [mark.words])
+        marked = [line for line in text.splitlines() if "◀" in line]
+        assert len(marked) == 1 and marked[0].split()[0] == str(mark.position + 1), text
+    assert shapes.row_at(credit, "Income", "").position == shapes.row_at(
+        credit, "Income", "0").position
+    spline = artifact.load(made["spline"])
+    blank = shapes.row_at(spline, "annual_revenue", "missing")
+    assert blank.position == len(shapes.term_table(spline, "annual_revenue")) - 1
+    text = invoke(app, ["shapes", made["spline"], "--feature", "annual_revenue", "--at", ""])
+    assert [line for line in text.splitlines() if "◀" in line][0].split()[1] == "(missing)"
+    _ok(text, [blank.words])
+    from .conftest import one_line_error
+
+    for args, words in (([], "give exactly one --feature (got no --feature)"),
+                        (["--feature", "Income", "--feature", "Debt"], "(got 2: Income, Debt)"),
+                        (["--feature", "Income", "--format", "csv"], "a csv file holds"),
+                        (["--feature", "Seniority"], None)):
+        result = RUNNER.invoke(app, ["shapes", str(made["credit"]), *args, "--at", "x"],
+                               env=ENV)
+        one_line_error(result, "--at 'x'", *([words] if words else
+                                             ["not a value of Seniority: give a whole number"]))
 
 
 def test_points_reasons_report(made):

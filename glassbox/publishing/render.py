@@ -16,7 +16,7 @@ from rich.text import Text
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
-from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
+from glassbox.explaining.shapes import MarkedRow, missing_words, readable_rows, value_rows
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
@@ -151,21 +151,33 @@ def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
     return texts
 
 
-def term_texts(table: pd.DataFrame, keep: Sequence[int] = ()) -> tuple[pd.DataFrame, str]:
+AT_MARK = "◀"  # the row a value asked about falls in (`glassbox shapes --at`)
+
+
+def term_texts(table: pd.DataFrame, keep: Sequence[int] = (),
+               mark: tuple[int, str] | None = None) -> tuple[pd.DataFrame, str]:
     """One term's table as the terminal shows it, and the words its title adds.
 
     A long table is thinned (`readable_rows`): it then gets a first column numbering each
     row as the files do (from 1), so a skipped row is plain to see, and the title says how
-    many rows it shows. Rows at positions `keep` (the bin a row's value falls in) and the
-    missing-value row are always shown."""
+    many rows it shows; its notes go under it (`term_notes`). Rows at positions `keep`
+    (the bin a row's value falls in) and the missing-value row are always shown. `mark`
+    (position, value): that row is kept and pointed at by a narrow "at" column beside the
+    value (`glassbox shapes --at`; the line under the table names the value)."""
+    if mark is not None:
+        keep = [*keep, mark[0]]
     shown = readable_rows(table, keep=keep)
-    columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
+    columns = [c for c in terminal_columns(table)
+               if c != "note" and not table[c].isna().all()]  # notes go under the table
     texts = frame_texts(shown, columns)
     knots = value_rows(shown)
     if len(knots) and knots["from"].notna().all() and (knots["from"] == knots["to"]).all() \
             and not str(knots["row"].iloc[0]).endswith(")"):  # a curve's knots, not a flag's
         labels = number_texts(list(knots["from"]), significant=6)
         texts.loc[knots.index, "row"] = labels
+    if mark is not None:
+        texts.insert(1, "at", [AT_MARK if position == mark[0] else ""
+                               for position in shown.index])
     words = ""
     if len(shown) < len(table):
         texts.insert(0, "#", [str(position + 1) for position in shown.index])
@@ -174,19 +186,35 @@ def term_texts(table: pd.DataFrame, keep: Sequence[int] = ()) -> tuple[pd.DataFr
     return texts, words
 
 
+def term_notes(table: pd.DataFrame) -> list[str]:
+    """A term table's notes as lines under it ("(missing): refused: ..."): a column
+    for the one row that has a note would squeeze every text column at 80 columns."""
+    if "note" not in table:
+        return []
+    return [f"{row}: {note}" for row, note in zip(table["row"], table["note"], strict=True)
+            if isinstance(note, str) and note]
+
+
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
                 scale: str = "score",
-                keep: Mapping[str, Sequence[int]] | None = None) -> RenderableType:
+                keep: Mapping[str, Sequence[int]] | None = None,
+                marks: Sequence[MarkedRow] = ()) -> RenderableType:
     """The summary table, then each feature's table (long ones thinned, saying so;
-    `keep`: positions of rows each feature's table must show)."""
+    `keep`: positions of rows each feature's table must show; `marks`: rows a value
+    asked about falls in, shown beside the value and said in a line under the table)."""
+    marked = {mark.feature: mark for mark in marks}
     parts: list[RenderableType] = [FittedTable.of_frame(
         summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS)]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
+        mark = marked.get(feature)
         texts, words = term_texts(table.reset_index(drop=True),
-                                  (keep or {}).get(feature, ()))
+                                  (keep or {}).get(feature, ()),
+                                  None if mark is None else (mark.position, mark.shown))
         title = f"{feature} ({kinds.get(feature, 'term')}){words}"
-        parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS))
+        notes = term_notes(table) + ([] if mark is None else [mark.words])
+        parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS,
+                                          notes=notes))
     return Group(*parts)
 
 
