@@ -186,7 +186,8 @@ class FittedTable:
     """A table of text cells laid out for the console's width, nothing cut.
 
     `headings` are (text, "left" | "right") pairs; right-aligned columns hold numbers and
-    never fold. Text columns wrap at spaces down to their longest word; when the table
+    never fold. Text columns wrap at spaces down to their longest word (those named in
+    `whole` stay on one line, like numbers); when the table
     is still too wide it is shown as several tables side by side in reading order, each
     repeating the first column (a stacked table), and a column too wide even alone with
     the first folds. `notes` are sentences read under the table."""
@@ -194,7 +195,7 @@ class FittedTable:
     def __init__(self, title: str | None, headings: Sequence[tuple[str, str]],
                  rows: Sequence[Sequence[str]], header: bool = True,
                  title_style: str = "bold", notes: Sequence[str] = (),
-                 mixed: Sequence[str] = ()) -> None:
+                 mixed: Sequence[str] = (), whole: Sequence[str] = ()) -> None:
         self.title = title
         self.headings = [(str(h), j) for h, j in headings]
         self.rows = [[str(c) for c in row] for row in rows]
@@ -202,6 +203,7 @@ class FittedTable:
         self.title_style = title_style
         self.notes = list(notes)
         self.mixed = set(mixed)  # headings of columns whose rows are different quantities
+        self.whole = set(whole)  # headings of text columns kept on one line, like numbers
 
     @classmethod
     def of_frame(cls, texts: pd.DataFrame, title: str | None = None,
@@ -234,7 +236,7 @@ class FittedTable:
         floors = []
         for j, (heading, justify) in enumerate(self.headings):
             cells = [row[j] for row in self.rows]
-            if justify == "right":
+            if justify == "right" or heading in self.whole:
                 floors.append(max(_longest(cells), _longest([heading], words=True)))
             else:
                 floors.append(max(_longest(cells, words=True),

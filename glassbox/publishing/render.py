@@ -134,18 +134,34 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
 
 
 SUMMARY_TITLE = ("Features by importance (mean |contribution| on the {scale} scale; "
-                 "range: the lowest to the highest contribution; missing: the entry for a "
-                 "blank and its share of training rows, or refused when training had none)")
+                 "range: the lowest to the highest contribution; direction: the way the "
+                 "term moves, (declared) when the schema asks for that way; missing: the "
+                 "entry for a blank and its share of training rows, or refused when "
+                 "training had none)")
+
+
+def direction_words(observed: str, declared: str) -> str:
+    """What a term does beside what the schema declares, in one cell: "decreasing
+    (declared)", "neither" (nothing declared), "neither (declared increasing)"."""
+    if not declared:
+        return observed
+    if observed == declared:
+        return f"{observed} (declared)"
+    return f"{observed} (declared {declared})"
 
 
 def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
     """The importance summary as the terminal shows it: each number column in one style,
-    the contribution range from the lowest and highest written alike."""
+    the contribution range from the lowest and highest written alike (kept on one line:
+    a range broken over three lines reads badly), the observed and declared directions
+    in one column."""
     lowest = number_texts(list(summary["lowest"]) + list(summary["highest"]), signed=False)
     half = len(summary)
-    texts = frame_texts(summary, ["feature", "importance", "observed", "declared"])
-    texts.insert(2, "range", [f"{low} to {high}" for low, high in
-                              zip(lowest[:half], lowest[half:], strict=True)])
+    texts = frame_texts(summary, ["feature", "importance"])
+    texts["range"] = [f"{low} to {high}" for low, high in
+                      zip(lowest[:half], lowest[half:], strict=True)]
+    texts["direction"] = [direction_words(str(o or ""), str(d or "")) for o, d in
+                          zip(summary["observed"], summary["declared"], strict=True)]
     texts["missing"] = [missing_words(m, s, short=True) for m, s in
                         zip(summary["missing"], summary["missing_share"], strict=True)]
     return texts
@@ -204,7 +220,8 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
     asked about falls in, shown beside the value and said in a line under the table)."""
     marked = {mark.feature: mark for mark in marks}
     parts: list[RenderableType] = [FittedTable.of_frame(
-        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS)]
+        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS,
+        whole=["range"])]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
         mark = marked.get(feature)
