@@ -129,7 +129,7 @@ def test_binned_fit_loses_nothing_on_held_out_rows(islr_default):
         log_loss(train_truth, binned.predict(train)), abs=1e-4)
     assert 0 < max(entry["largest_change"] for entry in report["features"].values()) < 0.1
     shown = fit_view(binned, {}, "model.json")
-    text = " ".join(str(cell) for column in shown.columns for cell in column._cells)
+    text = " ".join(cell for row in shown.rows for cell in row)  # the view's cells
     assert "balance" in text and "bins" in text
 
 

@@ -112,7 +112,7 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
         pairs["binned (largest change of a term)"] = "; ".join(
             f"{name}: {entry['bins']:,} bins for {entry['distinct']:,} values "
             f"({entry['largest_change']:.2g})" for name, entry in binning["features"].items())
-        pairs[f"training {binning['loss']}, at bin points / values"] = (
+        pairs[f"training {binning['loss']}, binned / exact"] = (
             f"{binning['loss_at_bin_points']:.6g} / {binning['loss_at_values']:.6g}")
     elif isinstance(binning, dict) and binning.get("exact"):
         pairs["binned"] = "no: every value its own bin (exact)"
@@ -128,8 +128,10 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
         pairs["protected (never inputs)"] = ", ".join(protected)
     names = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier score",
              "accuracy": "accuracy at 0.5", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+    # measures between 0 and 1 (AUC, log loss, Brier, accuracy) read alike, four decimals
+    alike = all(0.0 <= float(v) <= 1.0 for v in fit.values())
     for key, value in fit.items():
-        pairs[f"{names.get(key, key)} (training rows)"] = value
+        pairs[f"{names.get(key, key)} (training rows)"] = f"{value:.4f}" if alike else value
     return key_values(pairs, title="Fitted")
 
 
