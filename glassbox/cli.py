@@ -241,7 +241,9 @@ def score_command(
 
         model = artifact.load(model_file)
         table = score_table(model, read_table(data), str(data), contributions=contributions)
-    emit(formats.table_file(table, written), out, f"{len(table)} scored rows")
+    from glassbox.publishing.narrow import plural
+
+    emit(formats.table_file(table, written), out, plural(len(table), "scored row"))
 
 
 def _score_inputs(first: Path | None, second: Path | None,
@@ -377,7 +379,9 @@ def shapes_command(
         check_output_folder(plot, [model_file], pictures, force=force, option="--plot")
         with progress_note("drawing the shape functions"):
             paths = plots.write_plots(model, plot, names)
-        stderr_console().print(f"wrote {len(paths)} picture(s) to {plot}/")
+        from glassbox.publishing.narrow import plural
+
+        stderr_console().print(f"wrote {plural(len(paths), 'picture')} to {plot}/")
     if written == "table":
         if plot is not None and not feature:
             return  # the pictures were asked for; name features to see tables too
@@ -390,7 +394,9 @@ def shapes_command(
         return
     if as_folder:
         paths = shapes.write_folder(model, out, written, names)
-        stderr_console().print(f"wrote {len(paths)} {written} file(s) to {out}/")
+        from glassbox.publishing.narrow import plural
+
+        stderr_console().print(f"wrote {plural(len(paths), written + ' file')} to {out}/")
         return
     emit(formats.write(shapes.all_tables(model, names), written), out, "shape tables")
 
@@ -453,7 +459,10 @@ def report_command(
                                        min_group=min_group, bands=edges)
         check_output_folder(out, inputs, report.output_files(document), force=force)
         paths = report.write_report(document, out)
-    stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
+    from glassbox.publishing.narrow import plural
+
+    stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and "
+                           f"{plural(len(paths) - 2, 'picture')}")
 
 
 def main() -> None:

@@ -281,6 +281,7 @@ def to_markdown(comparison: Comparison) -> str:
             parts += [f"Joined and left, per fold (a name alone: every fold agrees): "
                       f"{STEP_RULE}.", ""]
     settings = comparison.settings
-    parts += [f"{settings['folds']} folds × {settings['repeats']} repeat(s), seed "
+    repeats = settings["repeats"]
+    parts += [f"{settings['folds']} folds × {repeats} repeat{'' if repeats == 1 else 's'}, seed "
               f"{settings['seed']}; intervals: {settings['interval']}.", ""]
     return "\n".join(parts)

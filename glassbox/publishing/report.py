@@ -280,8 +280,10 @@ def _comparison_section(comparison, cutoff: float) -> Section:
     settings = comparison.settings
     made_at = float(settings.get("cutoff", 0.5))
     fingerprint = short_fingerprint(comparison.provenance.get("data_sha256"))
-    note = (f"Held-out accuracy on {settings.get('folds')} folds × {settings.get('repeats')} "
-            f"repeat(s), seed {settings.get('seed')}; made on the same data as the model "
+    repeats = settings.get("repeats")
+    note = (f"Held-out accuracy on {settings.get('folds')} folds × {repeats} "
+            f"repeat{'' if repeats == 1 else 's'}, seed {settings.get('seed')}; made on the "
+            "same data as the model "
             f"(fingerprint {fingerprint}). ROC AUC, Gini, KS, "
             f"log loss and Brier use no cut-off; accuracy counts a probability of "
             f"{made_at:g} or more as the positive label, the cut-off the comparison was "
