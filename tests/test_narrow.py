@@ -144,6 +144,20 @@ def test_the_check_catches_a_column_left_out_and_a_repeated_word_shown_once():
     assert cut_cells(folded, ["x", "abcdefg"]) == []
 
 
+def test_the_layout_wraps_a_heading_before_every_rows_text():
+    """Constructed truth: too wide by a few columns, the table wraps the one heading
+    ("largest change") rather than the text of all eight rows ("refused in both"), and
+    a range kept whole (`whole`) is never broken."""
+    rows = [(f"feature_{i}", "-0.455", "refused in both", "-2.731 to 2.011") for i in range(8)]
+    table = FittedTable(None, [("feature", "left"), ("largest change", "right"),
+                               ("missing value", "left"), ("range", "left")], rows,
+                        whole=["range"])
+    text = render(table, 58)
+    _ok(text, [cell for row in rows for cell in row])
+    assert text.count("refused in both") == 8 and text.count("-2.731 to 2.011") == 8, text
+    assert "largest change" not in text and "largest" in text, text
+
+
 # ---------------------------------------------------------------- models, once
 
 

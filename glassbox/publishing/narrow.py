@@ -15,6 +15,7 @@ from __future__ import annotations
 import functools
 import math
 import re
+import textwrap
 from collections.abc import Iterable, Sequence
 from typing import Any
 
@@ -250,13 +251,21 @@ class FittedTable:
         floors = [self._floors()[j] for j in columns]
         widths = list(natural)
         room = width - _overhead(len(columns), self.header)
-        # shrink the widest text column first, down to its longest word
+        # shrink, a column at a time, the one whose narrowing adds the fewest lines to the
+        # table (a heading that wraps before every row's text does), the widest of those
+        # first; never below a column's longest word
+        lines = functools.lru_cache(maxsize=None)(self._line_counts)
         while sum(widths) > room:
             shrinkable = [k for k in range(len(columns)) if widths[k] > floors[k]]
             if not shrinkable:
                 break
-            widest = max(shrinkable, key=lambda k: (widths[k], -k))
-            widths[widest] -= 1
+
+            def height(k: int) -> int:
+                trial = [lines(columns[m], widths[m] - (m == k)) for m in range(len(columns))]
+                return sum(max(row) for row in zip(*trial, strict=True))
+
+            chosen = min(shrinkable, key=lambda k: (height(k), -widths[k], k))
+            widths[chosen] -= 1
         # still too wide (a very long word): fold the widest text column
         while sum(widths) > room:
             text = [k for k in range(len(columns))
@@ -274,6 +283,22 @@ class FittedTable:
         for row in self.rows:
             table.add_row(*(row[j] for j in columns))
         return table
+
+    def _line_counts(self, column: int, width: int) -> tuple[int, ...]:
+        """Lines each row (the heading first) takes in `column` at `width`, wrapped at
+        spaces as rich wraps them (numbers never wrap)."""
+        heading, justify = self.headings[column]
+
+        def wrapped(cell: str) -> int:
+            return sum(max(1, len(textwrap.wrap(line, width, break_on_hyphens=False)))
+                       for line in (cell.splitlines() or [""]))
+
+        cells = [row[column] for row in self.rows]
+        if justify == "right" or heading in self.whole:  # only the heading can wrap
+            counts = [max(1, len(cell.splitlines())) for cell in cells]
+        else:
+            counts = [wrapped(cell) for cell in cells]
+        return (wrapped(heading) if self.header else 1, *counts)
 
     def parts(self, width: int) -> list[Any]:
         groups = self.groups(width)
