@@ -293,7 +293,8 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
         unlimited = best_reachable(replace(program, max_changes=None))
         if _reaches(unlimited, program.threshold, program.direction):
             findings.append((math.inf, "limit on changes",
-                             f"the limit of {program.max_changes} change(s) binds: "
+                             f"the limit of {program.max_changes} "
+                             f"change{'' if program.max_changes == 1 else 's'} binds: "
                              "with no limit the rules would allow a plan"))
     # A table is sized where training rows lie, as reasons size it: a far tail or a level
     # never seen in training would promise what almost no applicant could reach.

@@ -260,8 +260,8 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         "factor (points per ln odds)": card.scaling.factor,
         "offset (points at even odds)": card.scaling.offset,
         "direction": f"more points, {chance} chance of {positive}",
-        "cut-off": (f"probability {card.cutoff:g} of {positive} = {threshold:.2f} points; "
-                    f"favourable at {math.ceil(threshold)} points or more"),
+        "cut-off": (f"probability {card.cutoff:g} of {positive}: {threshold:.2f} "
+                    f"points; favourable at {math.ceil(threshold)} points or more"),
         "base points": card.base_points,
         "possible totals": f"{lowest} to {highest}",
     }

@@ -331,17 +331,25 @@ def _text_table(grid: pd.DataFrame, title: str, right: bool = True) -> FittedTab
     return table
 
 
+def data_value(value: Any) -> str:
+    """A row's own value as its file holds it: a number to six significant figures with
+    no padding zeros (0.91, not 0.9100), whole numbers with thousands separators."""
+    if isinstance(value, float | np.floating) and np.isfinite(value):
+        return value_text(value) if float(value).is_integer() else f"{float(value):.6g}"
+    return value_text(value)
+
+
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
     """One row's score and its reasons, largest gap first."""
     gaps = number_texts([reason.gap for reason in reasons])
     rows = [(str(number), reason.feature,
-             MISSING_LEVEL if is_missing(reason.value) else value_text(reason.value), gap,
+             MISSING_LEVEL if is_missing(reason.value) else data_value(reason.value), gap,
              reason.text)
             for number, (reason, gap) in enumerate(zip(reasons, gaps, strict=True), start=1)]
     table = FittedTable(f"Reasons, largest gap below the best first ({scale} scale)",
                         [("#", "right"), ("feature", "left"), ("value", "left"),
                          ("gap", "right"), ("reason", "left")], rows, mixed=["value"])
-    parts: list[RenderableType] = [key_values(row, title="Row")]
+    parts: list[RenderableType] = [key_values(row, title="Row"), Text("")]
     parts.append(table if reasons else Text("No term holds this row below its best."))
     return Group(*parts)
 
