@@ -271,7 +271,7 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         summary.update(tolerance_notes(card))
     largest = card.largest_difference()
     if largest is not None:
-        summary["largest difference any row can have (points)"] = largest
+        summary["largest possible difference (points)"] = largest
     return summary
 
 
@@ -281,9 +281,9 @@ def missing_notes(card: PointsCard) -> dict[str, str]:
     own = [f"{t.feature} ({'rows unknown' if t.missing_rows is None else t.missing_rows})"
            for t in card.features if t.missing_points is not None]
     refused = [t.feature for t in card.features if t.missing_points is None]
-    notes = {"missing value: own points (training rows)": ", ".join(own) or "none"}
+    notes = {"missing: own points (training rows)": ", ".join(own) or "none"}
     if refused:
-        notes["missing value: refused (none in training)"] = ", ".join(refused)
+        notes["missing: refused (none in training)"] = ", ".join(refused)
     return notes
 
 
