@@ -41,10 +41,18 @@ from glassbox.core.errors import OptionError
 from glassbox.fitting.choices import BENCHMARKS, FAMILIES
 from glassbox.guard import run_guarded
 
+
+class WorkOrder(Group):
+    """`glassbox --help` lists the commands in the order of the work."""
+
+    order = ("schema", "fit", "compare", "score", "shapes", "reasons", "points", "report",
+             "monitor", "changes", "export")
+
+
 app = typer.Typer(
     help="Fit glass-box additive models, read their tables, and score with them.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
-    rich_markup_mode=None, cls=Group, context_settings={"max_content_width": MAX_HELP_WIDTH},
+    rich_markup_mode=None, cls=WorkOrder, context_settings={"max_content_width": MAX_HELP_WIDTH},
 )
 
 # the choices come from a light list beside the families, so a new family or benchmark
@@ -92,8 +100,7 @@ def example(line: str) -> str:
     return f"Example: {line}"
 
 
-@app.callback(epilog=example("glassbox fit loans.csv --schema loans.schema.toml "
-                             "--out loans.json"))
+@app.callback(epilog=example("glassbox fit loans.csv --schema loans.toml --out loans.json"))
 def _main(
     version: Annotated[bool, version_option("glassbox", __version__)] = False,
 ) -> None:
@@ -101,7 +108,7 @@ def _main(
 
 
 @app.command("schema", cls=Command, epilog=example(
-    "glassbox schema loans.csv --target defaulted --out loans.schema.toml"))
+    "glassbox schema loans.csv --target defaulted --out loans.toml"))
 @friendly
 def schema_command(
     data: Annotated[Path, typer.Argument(metavar="DATA", help="CSV or Parquet file.")],
@@ -134,12 +141,13 @@ def schema_command(
     schema = infer_schema(frame, target, positive=positive, id_column=id_column,
                           dates_as_age=dates_as_age)
     emit(schema.to_toml(), out, "schema")
-    for line in guesses.summary(schema.notes):
-        stderr_console().print(line, soft_wrap=True, markup=False, highlight=False)
+    from glassbox.publishing.render import notes_view
+
+    stderr_console().print(notes_view(guesses.summary(schema.notes)))
 
 
 @app.command("fit", cls=SettingsHelp, epilog=example(
-    "glassbox fit loans.csv --schema loans.schema.toml --family spline --out loans.json"))
+    "glassbox fit loans.csv --schema loans.toml --out loans.json"))
 @friendly
 def fit_command(
     data: Annotated[Path, typer.Argument(
@@ -211,9 +219,11 @@ def score_command(
         help="Include each feature's contribution.")] = True,
     force: Force = False,
 ) -> None:
-    """Score rows: score (link scale), probability or prediction, the features a row has
-    no value for (when the model learned missing values), contributions; or, with --points,
-    total points and each feature's points."""
+    """Score rows with a model file, or with a points card (--points).
+
+    Each row gets its score (link scale), its probability or prediction, the features it
+    has no value for (when the model learned missing values) and each feature's
+    contribution; with --points, its total points and each feature's points."""
     with loading():
         from glassbox.core import formats
         from glassbox.core.files import check_output
@@ -235,7 +245,9 @@ def score_command(
 
         model = artifact.load(model_file)
         table = score_table(model, read_table(data), str(data), contributions=contributions)
-    emit(formats.table_file(table, written), out, f"{len(table)} scored rows")
+    from glassbox.core.wording import plural
+
+    emit(formats.table_file(table, written), out, plural(len(table), "scored row"))
 
 
 def _score_inputs(first: Path | None, second: Path | None,
@@ -255,7 +267,7 @@ def _score_inputs(first: Path | None, second: Path | None,
 
 
 @app.command("points", cls=Command, epilog=example(
-    "glassbox points loans.json --data loans.csv --cutoff 0.3 --out card.json"))
+    "glassbox points loans.json --data loans.csv --out card.json"))
 @friendly
 def points_command(
     model_file: Annotated[Path, typer.Argument(
@@ -317,7 +329,7 @@ def points_command(
 
 
 @app.command("shapes", cls=Command, epilog=example(
-    "glassbox shapes loans.json --format csv --out tables --plot pictures"))
+    "glassbox shapes loans.json --format csv --out tables --plot plots"))
 @friendly
 def shapes_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
@@ -334,6 +346,11 @@ def shapes_command(
     plot: Annotated[Path | None, typer.Option(
         metavar="DIR", help="Also write one PNG per feature and an importance overview.")
     ] = None,
+    at: Annotated[str | None, typer.Option(
+        "--at", metavar="VALUE",
+        help="Mark the row this value of the one --feature falls in, and say what the "
+             "term adds there; the row is never thinned away (the terminal table; missing "
+             "or an empty value: the missing-value row).")] = None,
     force: Force = False,
 ) -> None:
     """Per-feature tables (and pictures) of what the model does, from the model file."""
@@ -348,8 +365,11 @@ def shapes_command(
                           "for its files (or name a file ending in .csv, .md or .json)")
     written = chosen if as_folder else formats.output_format(out, chosen,
                                                              ("csv", "markdown", "json"))
+    if at is not None:
+        _check_at(at, feature or [], written)
     model = artifact.load(model_file)
     names = shapes.chosen_features(model, feature)
+    marks = [] if at is None else [shapes.row_at(model, names[0], at)]
     if as_folder:
         table_files = [(name, table_kind(written, "shapes"))
                        for name in shapes.folder_names(names, written)]
@@ -363,7 +383,9 @@ def shapes_command(
         check_output_folder(plot, [model_file], pictures, force=force, option="--plot")
         with progress_note("drawing the shape functions"):
             paths = plots.write_plots(model, plot, names)
-        stderr_console().print(f"wrote {len(paths)} picture(s) to {plot}/")
+        from glassbox.core.wording import plural
+
+        stderr_console().print(f"wrote {plural(len(paths), 'picture')} to {plot}/")
     if written == "table":
         if plot is not None and not feature:
             return  # the pictures were asked for; name features to see tables too
@@ -371,17 +393,32 @@ def shapes_command(
 
         tables = {name: shapes.term_table(model, name) for name in names}
         scale = "log-odds" if model.link == "logit" else "prediction"
-        stdout_console().print(shapes_view(shapes.summary(model), tables, scale))
+        stdout_console().print(shapes_view(shapes.summary(model), tables, scale,
+                                           marks=marks))
         return
     if as_folder:
         paths = shapes.write_folder(model, out, written, names)
-        stderr_console().print(f"wrote {len(paths)} {written} file(s) to {out}/")
+        from glassbox.core.wording import plural
+
+        stderr_console().print(f"wrote {plural(len(paths), written + ' file')} to {out}/")
         return
     emit(formats.write(shapes.all_tables(model, names), written), out, "shape tables")
 
 
+def _check_at(value: str, features: list[str], written: str) -> None:
+    """--at marks a row of one feature's terminal table: one --feature, no file format."""
+    if len(dict.fromkeys(features)) != 1:
+        got = ("no --feature" if not features else
+               f"{len(features)}: {', '.join(dict.fromkeys(features))}")
+        raise OptionError(f"--at {value!r} marks a row of one feature's table: give exactly "
+                          f"one --feature (got {got})")
+    if written != "table":
+        raise OptionError(f"--at {value!r} marks a row of the terminal table; a {written} "
+                          "file holds every row already (leave out --at, or --format/--out)")
+
+
 @app.command("report", cls=Command, epilog=example(
-    "glassbox report loans.json --data loans.csv --cutoff 0.3 --out report"))
+    "glassbox report loans.json --data loans.csv --out report"))
 @friendly
 def report_command(
     model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
@@ -426,7 +463,10 @@ def report_command(
                                        min_group=min_group, bands=edges)
         check_output_folder(out, inputs, report.output_files(document), force=force)
         paths = report.write_report(document, out)
-    stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and {len(paths) - 2} picture(s)")
+    from glassbox.core.wording import plural
+
+    stderr_console().print(f"wrote {paths[0]}, {paths[1].name} and "
+                           f"{plural(len(paths) - 2, 'picture')}")
 
 
 def main() -> None:

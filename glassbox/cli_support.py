@@ -217,7 +217,14 @@ class Command(TyperCommand):
 
 
 class Group(TyperGroup):
-    """The app itself: its help wraps at spaces only, like its commands'."""
+    """The app itself: its help wraps at spaces only, like its commands', and lists the
+    commands named in `order` first, in that order (the rest in the order registered)."""
+
+    order: tuple[str, ...] = ()
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        rank = {name: position for position, name in enumerate(self.order)}
+        return sorted(super().list_commands(ctx), key=lambda name: rank.get(name, len(rank)))
 
     def format_help(self, ctx: Any, formatter: Any) -> None:
         with whole_words():

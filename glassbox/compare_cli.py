@@ -46,7 +46,7 @@ class CompareFormat(StrEnum):
 
 
 @app.command("compare", cls=SettingsHelp, epilog=example(
-    "glassbox compare loans.csv --schema loans.schema.toml --jobs 2 --out compare.json"))
+    "glassbox compare loans.csv --schema loans.toml --out compare.json"))
 @friendly
 def compare_command(
     data: Annotated[Path, typer.Argument(

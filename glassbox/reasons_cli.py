@@ -86,7 +86,7 @@ def reasons_command(
             {"rows": json.loads(formats.to_json(table)),
              "principal_reasons": json.loads(formats.to_json(summary))},
             indent=1, ensure_ascii=False) + "\n"
-        emit(text, out, f"reasons for {len(table)} rows")
+        emit(text, out, f"reasons for {len(table):,} row{'' if len(table) == 1 else 's'}")
         stderr_console().print(frame_table(summary, title=PRINCIPAL_TITLE))
         return
     position = row_position(frame, model.schema, id_value=id_value, index=index,

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -351,8 +352,34 @@ def _nice_step(span: float) -> float:
     return float(10.0 ** math.floor(math.log10(span / 100.0)))
 
 
+TEMPLATE_WIDTH = 80  # the template's comments fold to fit this many columns
+GLUE = "\xa0"  # holds words together while a comment folds (never a line break there)
+
+
 def _line(code: str, note: str = "") -> str:
-    return f"{code:<27} # {note}" if note else code
+    """A template line: the code, then its note as a comment from column 29; a note too
+    long folds onto comment-only lines starting at the same column."""
+    if not note:
+        return code
+    start = f"{code:<27} # "
+    room = TEMPLATE_WIDTH - len(start)
+    if room < 20:  # a long code line: the note goes under it, as a comment line
+        return "\n".join([code, _comment(note)])
+    pieces = textwrap.wrap(note, room, break_long_words=False, break_on_hyphens=False)
+    below = " " * (len(start) - 2) + "# "
+    return "\n".join([start + pieces[0], *(below + piece for piece in pieces[1:])])
+
+
+def _comment(text: str) -> str:
+    """A comment folded to the template's width at spaces (`GLUE` holds words together)."""
+    pieces = textwrap.wrap(text, TEMPLATE_WIDTH - 2, break_long_words=False,
+                           break_on_hyphens=False)
+    return "\n".join("# " + piece.replace(GLUE, " ") for piece in pieces)
+
+
+def _glued(items: list[str]) -> str:
+    """Items joined by commas, each kept on one line when a comment folds."""
+    return ", ".join(item.replace(" ", GLUE) for item in items)
 
 
 def _better_way(model: AdditiveModel) -> str:
@@ -369,8 +396,8 @@ def template(model: AdditiveModel) -> str:
               if model.link == "logit" else
               _line(f"value = {_g(model.intercept)}", "the prediction to reach (here: the "
                     "training mean)"),
-              _line(f'direction = "{_better_way(model)}"', "at-least | at-most (from the "
-                    "schema's [target] better)"),
+              _line(f'direction = "{_better_way(model)}"', "at-least | at-most (from [target] "
+                    "better)"),
               _line("# margin = 0.0", "pass the target by this much, in its own units"),
               _line("# max_changes = 3", "at most this many features change"),
               _line('# objective = "total-cost"', "total-cost | largest-cost | fewest-changes")]
@@ -420,16 +447,17 @@ def _feature_lines(model: AdditiveModel, name: str, kind: str) -> list[str]:
     if kind == "category":
         levels = _known_levels(model, name)
         shown = json.dumps(list(levels[:2]) or ["LEVEL"], ensure_ascii=False)
-        return [f"# levels: {', '.join(levels) if levels else 'unknown'}",
+        return [_comment(f"levels: {_glued(levels) if levels else 'unknown'}"),
                 _line('change = "fixed"', "fixed | either"),
                 _line(f'# moves = {{ "*" = {shown} }}', 'from a level ("*": any) to these'),
                 _line("# cost = 1.0", "per move")]
     table = _percentiles(model, name)
     lines = []
     if table:
-        lines.append(f"# training: min {_g(table[0])}, 5th percentile {_g(table[5])}, "
-                     f"median {_g(table[50])}, 95th percentile {_g(table[95])}, "
-                     f"max {_g(table[100])}")
+        lines.append(_comment("training: " + _glued([
+            f"min {_g(table[0])}", f"5th percentile {_g(table[5])}",
+            f"median {_g(table[50])}", f"95th percentile {_g(table[95])}",
+            f"max {_g(table[100])}"])))
     lines.append(_line('change = "fixed"', "fixed | increase | decrease | either"))
     if kind != "flag" and table:
         span = table[95] - table[5]
@@ -450,7 +478,7 @@ def _supply_lines(model: AdditiveModel, name: str) -> list[str]:
     share = profile.missing_share if profile is not None else None
     seen = (f"{profile.missing:,} of {profile.rows:,} training rows had no value"
             if share is not None else "the model has an entry for a missing value")
-    return [f"# {seen}; a row with no value keeps it unless supply_cost is given",
+    return [_comment(f"{seen}; a row with no value keeps it unless supply_cost is given"),
             _line("# supply_cost = 1.0", "a missing value may be stated at this cost: " + (
                 'any level (or those moves "*" lists)' if model.term(name).kind == "levels"
                 else "any value within the bounds and step above (change and "

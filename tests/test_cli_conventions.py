@@ -76,6 +76,22 @@ def test_help_ends_with_one_example_line(program, name):
     assert [line for line in at_120 if line][-1] == wide[-1]
 
 
+def last_line(text: str) -> str:
+    lines = [line.translate(BOX).strip() for line in text.splitlines()]
+    return [line for line in lines if line][-1]
+
+
+@pytest.mark.parametrize(("program", "name"), [*CASES, case("glassbox", None),
+                                               case("recourse", None)])
+def test_example_is_one_line_at_80_columns(program, name):
+    """At 80 columns the example line is whole on the help's last line (the same as at
+    400), so a reader can copy it; and it fits there with room for its indent."""
+    wide = last_line(rendered(program, name, WIDE))
+    assert wide.startswith(f"Example: {program} "), wide
+    assert last_line(rendered(program, name, 80)) == wide
+    assert all(len(line) <= 80 for line in rendered(program, name, 80).splitlines())
+
+
 @pytest.mark.parametrize(("program", "name"), CASES)
 def test_no_type_names_as_placeholders(program, name):
     text = rendered(program, name, WIDE)
@@ -126,6 +142,14 @@ def test_top_level_help_keeps_its_words(program, width):
 
     assert top(width) == top(WIDE)
     assert " ".join(top(WIDE)).split("Example: ")[-1].startswith(program)
+
+
+def test_glassbox_lists_its_commands_in_the_order_of_the_work():
+    text = rendered("glassbox", None, WIDE)
+    listing = text.split("Commands:\n")[1].split("\n\n")[0]
+    listed = [line.split()[0] for line in listing.splitlines() if not line.startswith("   ")]
+    assert listed == ["schema", "fit", "compare", "score", "shapes", "reasons", "points",
+                      "report", "monitor", "changes", "export"], listed
 
 
 @pytest.mark.parametrize("program", ["glassbox", "recourse"])

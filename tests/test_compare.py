@@ -523,6 +523,12 @@ def test_a_model_that_predicts_the_base_rate_is_flagged():
     assert shown["benchmark (trees)"] == "none"
     assert "Flagged: sparse." in base_rate_note(result)
     assert "Flagged: sparse." in to_markdown(result)
+    # the terminal marks each flagged mean in front ("! 0.500"), says what the mark means,
+    # and leaves the benchmark's means unmarked
+    text = _render(result)
+    assert "(! in front: does not beat the no-skill model)" in " ".join(text.split())
+    auc = next(line for line in text.splitlines() if line.strip().startswith("ROC AUC "))
+    assert auc.split()[2:4] == ["!", "0.500"] and auc.split()[4] == "1.000", auc
     document = json.loads(json.dumps(result.to_dict(), allow_nan=False))
     assert {row["model"] for row in document["no_skill_flags"] if not row["beats"]} == {
         "sparse"}

@@ -333,8 +333,10 @@ def test_template_ranges_match_numpy_on_the_training_column(model, training):
     text = template(model)
     for feature in ("annual_revenue", "credit_utilisation", "years_trading"):
         section = text.split(f"[feature.{feature}]")[1]
-        numbers = re.search(r"# training: min (\S+), 5th percentile (\S+), median (\S+), "
-                            r"95th percentile (\S+), max (\S+)\n", section).groups()
+        # the comment may fold between its items onto a second comment line
+        numbers = re.search(r"# training: min (\S+),\s(?:# )?5th percentile (\S+),\s(?:# )?"
+                            r"median (\S+),\s(?:# )?95th percentile (\S+),\s(?:# )?"
+                            r"max (\S+)\n", section).groups()
         column = training[feature].dropna().to_numpy()  # stated values
         # numpy.percentile on the training column; the template prints 6 significant digits.
         expected = np.percentile(column, [0, 5, 50, 95, 100])

@@ -581,7 +581,7 @@ def test_points_command_shows_the_card_and_fidelity(model_file):
     assert result.exit_code == 0, result.output
     for words in ("base points", "Spearman rank correlation",
                   "decisions that agree at cut-off 0.3", "tolerance (points within a bin)",
-                  "largest difference any row can have"):
+                  "largest possible difference (points)"):
         assert words in result.stdout, words
     rows = run("points", model_file, "--format", "csv")
     assert rows.exit_code == 0 and rows.stdout.startswith(

@@ -108,8 +108,8 @@ def test_the_card_shows_and_files_its_missing_rows(tmp_path):
     refused = rows[rows["row"].str.contains("refused")]
     assert refused["feature"].tolist() == ["count"] and refused["points"].isna().all()
     summary = points.card_summary(card)
-    assert summary["missing value: own points (training rows)"] == "x (101), z (143), colour (77)"
-    assert summary["missing value: refused (none in training)"] == "count"
+    assert summary["missing: own points (training rows)"] == "x (101), z (143), colour (77)"
+    assert summary["missing: refused (none in training)"] == "count"
     # the file keeps the missing rows, and the refusal, through a round trip
     path = points.save(card, tmp_path / "card.json")
     assert points.load(path) == card

@@ -260,8 +260,8 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         "factor (points per ln odds)": card.scaling.factor,
         "offset (points at even odds)": card.scaling.offset,
         "direction": f"more points, {chance} chance of {positive}",
-        "cut-off": (f"probability {card.cutoff:g} of {positive} = {threshold:.2f} points; "
-                    f"favourable at {math.ceil(threshold)} points or more"),
+        "cut-off": (f"probability {card.cutoff:g} of {positive}: {threshold:.2f} "
+                    f"points; favourable at {math.ceil(threshold)} points or more"),
         "base points": card.base_points,
         "possible totals": f"{lowest} to {highest}",
     }
@@ -271,7 +271,7 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         summary.update(tolerance_notes(card))
     largest = card.largest_difference()
     if largest is not None:
-        summary["largest difference any row can have (points)"] = largest
+        summary["largest possible difference (points)"] = largest
     return summary
 
 
@@ -281,9 +281,9 @@ def missing_notes(card: PointsCard) -> dict[str, str]:
     own = [f"{t.feature} ({'rows unknown' if t.missing_rows is None else t.missing_rows})"
            for t in card.features if t.missing_points is not None]
     refused = [t.feature for t in card.features if t.missing_points is None]
-    notes = {"missing value: own points (training rows)": ", ".join(own) or "none"}
+    notes = {"missing: own points (training rows)": ", ".join(own) or "none"}
     if refused:
-        notes["missing value: refused (none in training)"] = ", ".join(refused)
+        notes["missing: refused (none in training)"] = ", ".join(refused)
     return notes
 
 

@@ -10,7 +10,9 @@ Training shares are of all training rows, so a table's shares add up to one.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -179,6 +181,85 @@ def row_of_value(table: pd.DataFrame, value: Any) -> int:
     if np.array_equal(starts, ends):  # a curve: the nearest knot
         return int(np.argmin(np.abs(starts - number)))
     return int(np.searchsorted(ends, number, side="left"))  # the bin (low, high]
+
+
+@dataclass(frozen=True)
+class MarkedRow:
+    """The row of a feature's table that a value falls in (`glassbox shapes --at`)."""
+
+    feature: str
+    given: str  # the value as given on the command line
+    shown: str  # the value as the table's "at" column shows it ("(blank)" for none)
+    position: int  # the row's position in the term table (from 0)
+    contribution: float  # the term's own contribution at the value
+    words: str  # a sentence under the table: where the value falls and what it adds
+
+
+BLANK_WORDS = ("", "missing", MISSING_LEVEL)
+
+
+def row_at(model: AdditiveModel, feature: str, given: str) -> MarkedRow:
+    """The row of `feature`'s table that `given` (written as in a data file; blank or
+    "missing" for no value) falls in: its level (pooled and unseen levels as scoring reads
+    them), its bin, or a curve's nearest knot; and the term's contribution at the value
+    (a curve interpolates between its knots)."""
+    from glassbox.core.encoding import encode_column
+    from glassbox.core.errors import DataError
+
+    spec = model.schema.feature(feature)
+    term = model.term(feature)
+    table = term_table(model, feature)
+    text = str(given).strip()
+    blank = text.lower() in BLANK_WORDS and not (
+        isinstance(term, LevelsTerm) and text in term.levels)
+    if blank and spec.missing != "fill":
+        if term.missing is None:
+            raise OptionError(f"--at {given!r}: the model has no row for a missing "
+                              f"{feature} (training had no blank, so a blank is refused)")
+        value: Any = None
+    else:
+        try:
+            value = encode_column(pd.Series(["" if blank else text], dtype=object), spec,
+                                  "--at").iloc[0]
+        except DataError:
+            blank_too = ", or missing for no value" if term.missing is not None else ""
+            raise OptionError(f"--at {given!r} is not a value of {feature}: give "
+                              f"{VALUE_HINTS.get(spec.kind, 'one of its levels')}"
+                              f"{blank_too}") from None
+    position = row_of_value(table, value)
+    column = np.array([value], dtype=object if isinstance(term, LevelsTerm) else float)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # an unseen level: said in the words below
+        contribution = float(term.evaluate(column)[0])
+    contribution = 0.0 if abs(contribution) < 1e-12 else contribution  # rounding noise
+    shown = text or "(blank)"
+    words = _at_words(term, table, value, position, shown, f"{contribution:+.4g}")
+    return MarkedRow(feature, str(given), shown, position, contribution, words)
+
+
+VALUE_HINTS = {"number": "a number", "integer": "a whole number",
+               "flag": "yes or no (true/false, 1/0)"}
+
+
+def _at_words(term: Term, table: pd.DataFrame, value: Any, position: int, shown: str,
+              adds: str) -> str:
+    """Where a value falls in a term's table and what the term adds there, in a line."""
+    label = table["row"].iloc[position]
+    place = f"--at {shown}: row {position + 1} of {len(table)}"
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return f"{place}, {label}: a row with no value adds {adds}."
+    if not isinstance(term, CurveTerm):
+        return f"{place}, {label}, which adds {adds}."
+    knots = np.asarray(term.knots, dtype=float)
+    if np.any(knots == value):
+        return f"{place}, the knot {label}, which adds {adds}."
+    if value < knots[0] or value > knots[-1]:
+        end = "first" if value < knots[0] else "last"
+        return (f"{place}, the {end} knot {label}; beyond it the curve stays level and adds "
+                f"{adds}.")
+    after = int(np.searchsorted(knots, value))
+    return (f"{place}, the knot {label}, the nearer of {knots[after - 1]:.6g} and "
+            f"{knots[after]:.6g}; straight between them the curve adds {adds} at {shown}.")
 
 
 def _interval_text(low: float, high: float) -> str:

@@ -93,7 +93,8 @@ def base_rate_note(comparison: Comparison) -> str:
 
 def metric_grid(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
     """Metrics as rows and models as columns (narrow enough for a terminal): each model's
-    mean over the folds, marked "!" where it does not beat the no-skill model."""
+    mean over the folds, marked "! " in front where it does not beat the no-skill model
+    (in front, so the digits of a right-aligned column stay aligned)."""
     models = comparison.models
     names = list(dict.fromkeys(models["model"]))
     flags = comparison.flags
@@ -107,7 +108,7 @@ def metric_grid(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
             found = models[(models["model"] == name) & (models["metric"] == metric)]
             value = found["mean"].iloc[0] if len(found) else np.nan
             text = "" if np.isnan(value) else f"{value:.{digits}f}"
-            row[name] = f"{text} !" if (name, metric) in losing else text
+            row[name] = f"! {text}" if (name, metric) in losing else text
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -141,6 +142,37 @@ def calibration_deciles(comparison: Comparison, model: str, digits: int = 3) -> 
         "rows": [f"{int(v):,}" for v in mine["rows"]],
         "mean predicted": [f"{v:.{digits}f}" for v in mine["mean_predicted"]],
         "observed rate": [f"{v:.{digits}f}" for v in mine["observed_rate"]]})
+
+
+ARROW = "→"
+
+
+def calibration_grid(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
+    """Every model's deciles in one narrow table: decile, rows, then per model "mean
+    predicted → observed rate". One rows column when every model's decile holds the same
+    rows (as with no tied predictions), else a rows column per model; a model with fewer
+    groups (tied quantile edges merged) is blank past its last."""
+    table = comparison.calibration
+    if table is None or table.empty:
+        return pd.DataFrame()
+    models = list(dict.fromkeys(table["model"]))
+    table = table.assign(decile=table["decile"].astype(int))
+    mine = {name: table[table["model"] == name].set_index("decile") for name in models}
+    deciles = sorted(set(table["decile"]))
+    counts = {name: [int(mine[name]["rows"].get(d)) if d in mine[name].index else None
+                     for d in deciles] for name in models}
+    shared = len({tuple(c) for c in counts.values()}) == 1
+    grid: dict[str, list[Any]] = {"decile": deciles}
+    if shared:
+        grid["rows"] = [f"{c:,}" if c is not None else "" for c in counts[models[0]]]
+    for name in models:
+        if not shared:
+            grid[f"{name} rows"] = [f"{c:,}" if c is not None else "" for c in counts[name]]
+        grid[name] = [
+            f"{mine[name].loc[d, 'mean_predicted']:.{digits}f} {ARROW} "
+            f"{mine[name].loc[d, 'observed_rate']:.{digits}f}" if d in mine[name].index
+            else "" for d in deciles]
+    return pd.DataFrame(grid)
 
 
 def absent_note(comparison: Comparison) -> str:

@@ -17,8 +17,7 @@ from glassbox.core.provenance import fingerprint_method, short_fingerprint
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
 from glassbox.publishing import palette
 from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
-from glassbox.publishing.monitor_view import _table as fitted_table
-from glassbox.publishing.narrow import number_texts
+from glassbox.publishing.narrow import FittedTable, number_texts
 
 CAUTION = ("A comparison of two models' tables and of their scores: a prompt for the "
            "validator's judgement, not an approval; decisions also answer to local law, "
@@ -235,7 +234,9 @@ def changes_view(changes: Changes, width: int = WIDTH) -> RenderableType:
     parts: list[RenderableType] = [Text(heading(changes), style="bold"), Text("")]
     for block in review_blocks(changes):
         prominent = block.title.startswith("Changes that turn")
-        table = fitted_table(block.title, block.headings, block.rows, width)
+        # the shared layout: the title a paragraph of its own, a table too wide even
+        # with its text wrapped shown in parts that repeat the first column
+        table = FittedTable(block.title, block.headings, block.rows)
         if prominent:
             table.title_style = palette.ERROR_STYLE
         parts.append(table if block.rows else Text(block.title, style="bold"))

@@ -15,6 +15,7 @@ from __future__ import annotations
 import functools
 import math
 import re
+import textwrap
 from collections.abc import Iterable, Sequence
 from typing import Any
 
@@ -25,6 +26,8 @@ from rich.console import Console, ConsoleOptions, RenderResult
 from rich.padding import Padding
 from rich.table import Table
 from rich.text import Text
+
+from glassbox.core.wording import plural  # noqa: F401  (the views import it from here)
 
 SIGNIFICANT = 4  # digits the largest number of a column keeps
 MOST_DECIMALS = 6
@@ -143,11 +146,6 @@ def is_number_text(column: Sequence[str]) -> bool:
 _NUMBER = re.compile(r"^[+-]?(\d{1,3}(,\d{3})+|\d+)(\.\d+)?(e[+-]\d+)?%?$|^[+-]?∞$")
 
 
-def plural(count: int, word: str, many: str | None = None) -> str:
-    """"1 change", "2 changes", "1,000 rows"."""
-    return f"{count:,} {word if count == 1 else (many or word + 's')}"
-
-
 # ---------------------------------------------------------------- layout
 
 
@@ -186,7 +184,8 @@ class FittedTable:
     """A table of text cells laid out for the console's width, nothing cut.
 
     `headings` are (text, "left" | "right") pairs; right-aligned columns hold numbers and
-    never fold. Text columns wrap at spaces down to their longest word; when the table
+    never fold. Text columns wrap at spaces down to their longest word (those named in
+    `whole` stay on one line, like numbers); when the table
     is still too wide it is shown as several tables side by side in reading order, each
     repeating the first column (a stacked table), and a column too wide even alone with
     the first folds. `notes` are sentences read under the table."""
@@ -194,7 +193,7 @@ class FittedTable:
     def __init__(self, title: str | None, headings: Sequence[tuple[str, str]],
                  rows: Sequence[Sequence[str]], header: bool = True,
                  title_style: str = "bold", notes: Sequence[str] = (),
-                 mixed: Sequence[str] = ()) -> None:
+                 mixed: Sequence[str] = (), whole: Sequence[str] = ()) -> None:
         self.title = title
         self.headings = [(str(h), j) for h, j in headings]
         self.rows = [[str(c) for c in row] for row in rows]
@@ -202,6 +201,7 @@ class FittedTable:
         self.title_style = title_style
         self.notes = list(notes)
         self.mixed = set(mixed)  # headings of columns whose rows are different quantities
+        self.whole = set(whole)  # headings of text columns kept on one line, like numbers
 
     @classmethod
     def of_frame(cls, texts: pd.DataFrame, title: str | None = None,
@@ -240,7 +240,7 @@ class FittedTable:
         floors = []
         for j, (heading, justify) in enumerate(self.headings):
             cells = [row[j] for row in self.rows]
-            if justify == "right":
+            if justify == "right" or heading in self.whole:
                 floors.append(max(_longest(cells), _longest([heading], words=True)))
             else:
                 longest = max(_longest(cells, words=True), _longest([heading], words=True), 1)
@@ -254,13 +254,21 @@ class FittedTable:
         floors = [self._floors(width)[j] for j in columns]
         widths = list(natural)
         room = width - _overhead(len(columns), self.header)
-        # shrink the widest text column first, down to its longest word
+        # shrink, a column at a time, the one whose narrowing adds the fewest lines to the
+        # table (a heading that wraps before every row's text does), the widest of those
+        # first; never below a column's longest word
+        lines = functools.lru_cache(maxsize=None)(self._line_counts)
         while sum(widths) > room:
             shrinkable = [k for k in range(len(columns)) if widths[k] > floors[k]]
             if not shrinkable:
                 break
-            widest = max(shrinkable, key=lambda k: (widths[k], -k))
-            widths[widest] -= 1
+
+            def height(k: int) -> int:
+                trial = [lines(columns[m], widths[m] - (m == k)) for m in range(len(columns))]
+                return sum(max(row) for row in zip(*trial, strict=True))
+
+            chosen = min(shrinkable, key=lambda k: (height(k), -widths[k], k))
+            widths[chosen] -= 1
         # still too wide (a very long word): fold the widest text column
         while sum(widths) > room:
             text = [k for k in range(len(columns))
@@ -278,6 +286,22 @@ class FittedTable:
         for row in self.rows:
             table.add_row(*(row[j] for j in columns))
         return table
+
+    def _line_counts(self, column: int, width: int) -> tuple[int, ...]:
+        """Lines each row (the heading first) takes in `column` at `width`, wrapped at
+        spaces as rich wraps them (numbers never wrap)."""
+        heading, justify = self.headings[column]
+
+        def wrapped(cell: str) -> int:
+            return sum(max(1, len(textwrap.wrap(line, width, break_on_hyphens=False)))
+                       for line in (cell.splitlines() or [""]))
+
+        cells = [row[column] for row in self.rows]
+        if justify == "right" or heading in self.whole:  # only the heading can wrap
+            counts = [max(1, len(cell.splitlines())) for cell in cells]
+        else:
+            counts = [wrapped(cell) for cell in cells]
+        return (wrapped(heading) if self.header else 1, *counts)
 
     def parts(self, width: int) -> list[Any]:
         groups = self.groups(width)
@@ -308,6 +332,27 @@ def bullet(text: str, mark: str = "-", indent: int = 2) -> Padding:
     grid.add_column(overflow="fold")
     grid.add_row(mark, Text(text))
     return Padding(grid, (0, 0, 0, indent))
+
+
+class Hanging:
+    """A paragraph whose first line starts at the margin and whose folded lines start
+    `indent` columns in, broken at spaces to the console's width (a word longer than a
+    line folds). Plain text: no markup is read."""
+
+    def __init__(self, text: str, indent: int = 4) -> None:
+        self.text = text
+        self.indent = indent
+
+    def lines(self, width: int) -> list[str]:
+        import textwrap
+
+        return textwrap.wrap(self.text, max(width, self.indent + 10),
+                             subsequent_indent=" " * self.indent, break_on_hyphens=False,
+                             drop_whitespace=True) or [""]
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        for line in self.lines(options.max_width):
+            yield Text(line, no_wrap=True)  # already fits: textwrap folds a long word
 
 
 def indented(content: Any, indent: int = 4) -> Padding:

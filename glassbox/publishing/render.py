@@ -10,18 +10,17 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from rich import box
 from rich.console import Group, RenderableType
-from rich.table import Table
 from rich.text import Text
 
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
-from glassbox.explaining.shapes import missing_words, readable_rows, value_rows
+from glassbox.explaining.shapes import MarkedRow, missing_words, readable_rows, value_rows
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
+    Hanging,
     frame_texts,
     key_value_table,
     number_texts,
@@ -113,7 +112,7 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
         pairs["binned (largest change of a term)"] = "; ".join(
             f"{name}: {entry['bins']:,} bins for {entry['distinct']:,} values "
             f"({entry['largest_change']:.2g})" for name, entry in binning["features"].items())
-        pairs[f"training {binning['loss']}, at bin points / values"] = (
+        pairs[f"training {binning['loss']}, binned / exact"] = (
             f"{binning['loss_at_bin_points']:.6g} / {binning['loss_at_values']:.6g}")
     elif isinstance(binning, dict) and binning.get("exact"):
         pairs["binned"] = "no: every value its own bin (exact)"
@@ -129,44 +128,74 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
         pairs["protected (never inputs)"] = ", ".join(protected)
     names = {"auc": "ROC AUC", "log_loss": "log loss", "brier": "Brier score",
              "accuracy": "accuracy at 0.5", "rmse": "RMSE", "mae": "MAE", "r2": "R²"}
+    # measures between 0 and 1 (AUC, log loss, Brier, accuracy) read alike, four decimals
+    alike = all(0.0 <= float(v) <= 1.0 for v in fit.values())
     for key, value in fit.items():
-        pairs[f"{names.get(key, key)} (training rows)"] = value
+        pairs[f"{names.get(key, key)} (training rows)"] = f"{value:.4f}" if alike else value
     return key_values(pairs, title="Fitted")
 
 
 SUMMARY_TITLE = ("Features by importance (mean |contribution| on the {scale} scale; "
-                 "range: the lowest to the highest contribution; missing: the entry for a "
-                 "blank and its share of training rows, or refused when training had none)")
+                 "range: the lowest to the highest contribution; direction: the way the "
+                 "term moves, (declared) when the schema asks for that way; missing: the "
+                 "entry for a blank and its share of training rows, or refused when "
+                 "training had none)")
+
+
+def direction_words(observed: str, declared: str) -> str:
+    """What a term does beside what the schema declares, in one cell: "decreasing
+    (declared)", "neither" (nothing declared), "neither (declared increasing)"."""
+    if not declared:
+        return observed
+    if observed == declared:
+        return f"{observed} (declared)"
+    return f"{observed} (declared {declared})"
 
 
 def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
     """The importance summary as the terminal shows it: each number column in one style,
-    the contribution range from the lowest and highest written alike."""
+    the contribution range from the lowest and highest written alike (kept on one line:
+    a range broken over three lines reads badly), the observed and declared directions
+    in one column."""
     lowest = number_texts(list(summary["lowest"]) + list(summary["highest"]), signed=False)
     half = len(summary)
-    texts = frame_texts(summary, ["feature", "importance", "observed", "declared"])
-    texts.insert(2, "range", [f"{low} to {high}" for low, high in
-                              zip(lowest[:half], lowest[half:], strict=True)])
+    texts = frame_texts(summary, ["feature", "importance"])
+    texts["range"] = [f"{low} to {high}" for low, high in
+                      zip(lowest[:half], lowest[half:], strict=True)]
+    texts["direction"] = [direction_words(str(o or ""), str(d or "")) for o, d in
+                          zip(summary["observed"], summary["declared"], strict=True)]
     texts["missing"] = [missing_words(m, s, short=True) for m, s in
                         zip(summary["missing"], summary["missing_share"], strict=True)]
     return texts
 
 
-def term_texts(table: pd.DataFrame, keep: Sequence[int] = ()) -> tuple[pd.DataFrame, str]:
+AT_MARK = "◀"  # the row a value asked about falls in (`glassbox shapes --at`)
+
+
+def term_texts(table: pd.DataFrame, keep: Sequence[int] = (),
+               mark: tuple[int, str] | None = None) -> tuple[pd.DataFrame, str]:
     """One term's table as the terminal shows it, and the words its title adds.
 
     A long table is thinned (`readable_rows`): it then gets a first column numbering each
     row as the files do (from 1), so a skipped row is plain to see, and the title says how
-    many rows it shows. Rows at positions `keep` (the bin a row's value falls in) and the
-    missing-value row are always shown."""
+    many rows it shows; its notes go under it (`term_notes`). Rows at positions `keep`
+    (the bin a row's value falls in) and the missing-value row are always shown. `mark`
+    (position, value): that row is kept and pointed at by a narrow "at" column beside the
+    value (`glassbox shapes --at`; the line under the table names the value)."""
+    if mark is not None:
+        keep = [*keep, mark[0]]
     shown = readable_rows(table, keep=keep)
-    columns = [c for c in terminal_columns(table) if not table[c].isna().all()]
+    columns = [c for c in terminal_columns(table)
+               if c != "note" and not table[c].isna().all()]  # notes go under the table
     texts = frame_texts(shown, columns)
     knots = value_rows(shown)
     if len(knots) and knots["from"].notna().all() and (knots["from"] == knots["to"]).all() \
             and not str(knots["row"].iloc[0]).endswith(")"):  # a curve's knots, not a flag's
         labels = number_texts(list(knots["from"]), significant=6)
         texts.loc[knots.index, "row"] = labels
+    if mark is not None:
+        texts.insert(1, "at", [AT_MARK if position == mark[0] else ""
+                               for position in shown.index])
     words = ""
     if len(shown) < len(table):
         texts.insert(0, "#", [str(position + 1) for position in shown.index])
@@ -175,19 +204,36 @@ def term_texts(table: pd.DataFrame, keep: Sequence[int] = ()) -> tuple[pd.DataFr
     return texts, words
 
 
+def term_notes(table: pd.DataFrame) -> list[str]:
+    """A term table's notes as lines under it ("(missing): refused: ..."): a column
+    for the one row that has a note would squeeze every text column at 80 columns."""
+    if "note" not in table:
+        return []
+    return [f"{row}: {note}" for row, note in zip(table["row"], table["note"], strict=True)
+            if isinstance(note, str) and note]
+
+
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
                 scale: str = "score",
-                keep: Mapping[str, Sequence[int]] | None = None) -> RenderableType:
+                keep: Mapping[str, Sequence[int]] | None = None,
+                marks: Sequence[MarkedRow] = ()) -> RenderableType:
     """The summary table, then each feature's table (long ones thinned, saying so;
-    `keep`: positions of rows each feature's table must show)."""
+    `keep`: positions of rows each feature's table must show; `marks`: rows a value
+    asked about falls in, shown beside the value and said in a line under the table)."""
+    marked = {mark.feature: mark for mark in marks}
     parts: list[RenderableType] = [FittedTable.of_frame(
-        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS)]
+        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS,
+        whole=["range"])]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
+        mark = marked.get(feature)
         texts, words = term_texts(table.reset_index(drop=True),
-                                  (keep or {}).get(feature, ()))
+                                  (keep or {}).get(feature, ()),
+                                  None if mark is None else (mark.position, mark.shown))
         title = f"{feature} ({kinds.get(feature, 'term')}){words}"
-        parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS))
+        notes = term_notes(table) + ([] if mark is None else [mark.words])
+        parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS,
+                                          notes=notes))
     return Group(*parts)
 
 
@@ -211,6 +257,12 @@ def terminal_columns(table: pd.DataFrame) -> list[str]:
     return [*columns, "note"]
 
 
+def notes_view(lines: Sequence[str]) -> RenderableType:
+    """Notes one to a paragraph, each folded at spaces with a hanging indent, so a
+    note's second line is plain to tell from the next note."""
+    return Group(*(Hanging(line) for line in lines))
+
+
 def error_text(message: str) -> Text:
     return Text.assemble(("error: ", palette.ERROR_STYLE), message)
 
@@ -220,9 +272,10 @@ def warning_text(message: str) -> Text:
 
 
 def comparison_view(comparison: Any) -> RenderableType:
-    """What `glassbox compare` prints, stacked to fit 80 columns: the headline, the base
-    rate and no-skill flags, every metric's mean, the primary metric's interval, the
-    cost, calibration and the sparsity curve with the feature that joins at each size."""
+    """What `glassbox compare` prints, laid out like every other view (narrow.py): the
+    headline, the base rate and no-skill flags, every metric's mean, the primary metric's
+    interval, the cost, calibration (every model's deciles in one table) and the sparsity
+    curve with the feature that joins at each size."""
     from glassbox.fitting import compare_tables as tables
 
     settings = comparison.settings
@@ -232,9 +285,10 @@ def comparison_view(comparison: Any) -> RenderableType:
     if missing:
         parts += [warning_text(missing), Text("")]
     grid = tables.metric_grid(comparison)
-    parts.append(_grid_table(grid, f"Held-out mean of each metric, {folds} folds × {repeats}"
-                             + (" (! does not beat the no-skill model)"
-                                if comparison.flags is not None else "")))
+    marked = grid.iloc[:, 1:].apply(lambda column: column.str.startswith("!")).any().any()
+    parts.append(_text_table(grid, f"Held-out mean of each metric, {folds} folds × "
+                             f"{repeats}" + (" (! in front: does not beat the no-skill "
+                                             "model)" if marked else ""), right=True))
     if comparison.base_rate is not None:
         parts += [Text(tables.base_rate_note(comparison)), Text("")]
     accuracy = tables.accuracy_table(comparison)
@@ -252,49 +306,50 @@ def comparison_view(comparison: Any) -> RenderableType:
                                  "ideal)"))
         parts += [Text(f"{row.model}: {row.note}") for row in fits.itertuples()
                   if row.note]
-        for model in fits["model"]:
-            parts.append(frame_table(tables.calibration_deciles(comparison, model),
-                                     title=f"{model}: observed against predicted by decile"))
+        parts.append(_text_table(tables.calibration_grid(comparison),
+                                 f"Mean predicted {tables.ARROW} observed rate, by decile of "
+                                 "each model's predictions", right=True))
     curve = tables.sparsity_table(comparison)
     if not curve.empty:
         parts.append(frame_table(curve, columns=list(curve.columns[:3]),
                                  title="Sparse family by number of features"))
         if "joined" in curve:
-            parts.append(_grid_table(curve[["features", "joined", "left on the path"]],
-                                     "The feature that joins at each size (where folds "
-                                     "differ: each name with its share of folds)",
-                                     wrap=True))
+            parts.append(frame_table(curve, columns=["features", "joined",
+                                                     "left on the path"],
+                                     title="The feature that joins at each size (where "
+                                     "folds differ: each name with its share of folds)"))
     return Group(*parts)
 
 
-def _grid_table(grid: pd.DataFrame, title: str, wrap: bool = False) -> Table:
-    """A table of text whose first column names the row: with `wrap`, the other columns
-    wrap at spaces (a word longer than its column folds onto the next line, never cut);
-    without, they hold short numbers and never wrap. Headings wrap at spaces."""
-    table = Table(title=title, box=box.SIMPLE_HEAD, title_justify="left",
-                  title_style="bold", header_style="bold", pad_edge=False)
-    for position, name in enumerate(grid.columns):
-        first = position == 0
-        table.add_column(name, justify="left" if first or wrap else "right",
-                         no_wrap=not (first or wrap), overflow="fold",
-                         min_width=None if wrap else max([len(str(v)) for v in grid[name]]
-                                                         + [1]))
-    for row in grid.itertuples(index=False):
-        table.add_row(*(str(value) for value in row))
+def _text_table(grid: pd.DataFrame, title: str, right: bool = True) -> FittedTable:
+    """A frame of text cells in the shared layout; with `right`, every column after the
+    first is right-aligned (numbers with a mark, or an arrow between two numbers)."""
+    table = FittedTable.of_frame(frame_texts(grid), title=title, headings=HEADINGS)
+    if right:
+        table.headings = [table.headings[0],
+                          *((heading, "right") for heading, _ in table.headings[1:])]
     return table
+
+
+def data_value(value: Any) -> str:
+    """A row's own value as its file holds it: a number to six significant figures with
+    no padding zeros (0.91, not 0.9100), whole numbers with thousands separators."""
+    if isinstance(value, float | np.floating) and np.isfinite(value):
+        return value_text(value) if float(value).is_integer() else f"{float(value):.6g}"
+    return value_text(value)
 
 
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
     """One row's score and its reasons, largest gap first."""
     gaps = number_texts([reason.gap for reason in reasons])
     rows = [(str(number), reason.feature,
-             MISSING_LEVEL if is_missing(reason.value) else value_text(reason.value), gap,
+             MISSING_LEVEL if is_missing(reason.value) else data_value(reason.value), gap,
              reason.text)
             for number, (reason, gap) in enumerate(zip(reasons, gaps, strict=True), start=1)]
     table = FittedTable(f"Reasons, largest gap below the best first ({scale} scale)",
                         [("#", "right"), ("feature", "left"), ("value", "left"),
                          ("gap", "right"), ("reason", "left")], rows, mixed=["value"])
-    parts: list[RenderableType] = [key_values(row, title="Row")]
+    parts: list[RenderableType] = [key_values(row, title="Row"), Text("")]
     parts.append(table if reasons else Text("No term holds this row below its best."))
     return Group(*parts)
 
