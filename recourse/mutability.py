@@ -23,6 +23,7 @@ import numpy as np
 from glassbox.core.additive import AdditiveModel, FeatureProfile, LevelsTerm
 from glassbox.core.files import read_toml
 from glassbox.core.schema import is_number
+from glassbox.core.wording import noun
 from recourse.errors import MutabilityError
 from recourse.pair_rules import LevelBound, Link, known_keys, read_level_bounds, read_links
 
@@ -126,8 +127,8 @@ def mutability_from_dict(data: Mapping[str, Any], model: AdditiveModel,
         raise MutabilityError(f"{where}expected a table of settings")
     unknown = sorted(set(data) - {"goal", "feature", "link", "level_bound"})
     if unknown:
-        raise MutabilityError(f"{where}unknown top-level key(s): {', '.join(unknown)} "
-                              "(expected goal, feature, link, level_bound)")
+        raise MutabilityError(f"{where}unknown top-level {noun(len(unknown), 'key')}: "
+                              f"{', '.join(unknown)} (expected goal, feature, link, level_bound)")
     goal = _goal(data.get("goal", {}), model, where)
     features = data.get("feature", {})
     if not isinstance(features, Mapping):
