@@ -73,9 +73,12 @@ def central_words(model: AdditiveModel, feature: str) -> str:
         seen = " and ".join(dict.fromkeys(_value_text(model, feature, v) for v in (low, high)))
         return (f"over the values of the central {CENTRAL[1] - CENTRAL[0]}% of training rows "
                 f"({seen})")
+    # both ends in one style: whole numbers with separators when the larger reaches
+    # 1,000, else 4 significant digits
+    large = max(abs(low), abs(high)) >= 1000
+    ends = [f"{value:,.0f}" if large else f"{value:.4g}" for value in (low, high)]
     return (f"within the central {CENTRAL[1] - CENTRAL[0]}% of training values (percentiles "
-            f"{CENTRAL[0]} to {CENTRAL[1]}: {_value_text(model, feature, low)} to "
-            f"{_value_text(model, feature, high)})")
+            f"{CENTRAL[0]} to {CENTRAL[1]}: {ends[0]} to {ends[1]})")
 
 
 def best_of(model: AdditiveModel, term: Term, sign: int | None = None) -> Best:

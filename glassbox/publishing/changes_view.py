@@ -13,7 +13,7 @@ from typing import Any
 from rich.console import Group, RenderableType
 from rich.text import Text
 
-from glassbox.core.provenance import fingerprint_method, short_fingerprint
+from glassbox.core.provenance import COLUMNS_METHOD, FINGERPRINT_METHODS, fingerprint_method
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
 from glassbox.publishing import palette
 from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
@@ -89,18 +89,23 @@ def _rank(old: int | None, new: int | None) -> str:
     return f"{'–' if old is None else old} → {'–' if new is None else new}"
 
 
-FINGERPRINT_SHOWN = 16  # hex digits of a fingerprint a table shows
+FINGERPRINT_SHOWN = 12  # hex digits of a fingerprint a terminal table shows
+FINGERPRINT_NOTE = ("Fingerprints shown as their first 12 hex digits (of the SHA-256 over "
+                    "the columns, unless marked csv:); --format json gives them whole.")
 
 
 def short_text(value: Any) -> str:
-    """`setting_text`, with a fingerprint (sha256:... or sha256-columns:...) shortened to
-    its first 16 hex digits: 64 digits would wrap a table at 80 columns (JSON keeps them
+    """`setting_text`, with a fingerprint shortened to its first 12 hex digits and no
+    method prefix (the column-bytes method is the note's; the older CSV-text one is marked
+    `csv:`): 64 digits and a prefix would split a table at 80 columns (JSON keeps them
     whole)."""
     text = setting_text(value)
-    if fingerprint_method(text) not in (None, "unknown"):
-        shown = short_fingerprint(text, FINGERPRINT_SHOWN)
-        return shown[:-3] + "…" if shown.endswith("...") else shown
-    return text
+    method = fingerprint_method(text)
+    if method in (None, "unknown"):
+        return text
+    digits = text.split(":", 1)[1]
+    shown = digits[:FINGERPRINT_SHOWN] + ("…" if len(digits) > FINGERPRINT_SHOWN else "")
+    return shown if method == FINGERPRINT_METHODS[COLUMNS_METHOD] else f"csv:{shown}"
 
 
 def _changes_block(title: str, changes: Sequence[Any], empty: str, short: bool) -> Block:
@@ -108,9 +113,7 @@ def _changes_block(title: str, changes: Sequence[Any], empty: str, short: bool) 
     rows = tuple((c.setting if c.subject == "model" else f"{c.subject}: {c.setting}",
                   shown(c.old), shown(c.new)) for c in changes)
     shortened = any(shown(v) != setting_text(v) for c in changes for v in (c.old, c.new))
-    notes = ((empty,) if not rows else
-             ("Fingerprints shown to 16 hex digits; --format json gives them whole.",)
-             if shortened else ())
+    notes = ((empty,) if not rows else (FINGERPRINT_NOTE,) if shortened else ())
     return Block(title, (("setting", "left"), ("old", "left"), ("new", "left")), rows, notes)
 
 
