@@ -349,7 +349,7 @@ def reach_command(
         stdout_console().print(reach_view(result))
         return
     text = reach.to_json(result) if written == "json" else reach.to_markdown(result)
-    _write(text, out, f"who can reach the goal among {result.declined:,} declined rows")
+    _write(text, out, f"the reach summary of {result.declined:,} declined rows")
 
 
 app.command("reach", cls=Command, short_help="Who reaches the goal, at what cost, by group.",

@@ -172,7 +172,7 @@ class LevelsTerm:
             warnings.warn(
                 f"feature '{self.feature}': {plural(int(unseen.sum()), 'row')} with a level "
                 f"never seen in training ({', '.join(map(value_text, strange))}); scored with the "
-                f"unseen-level value {self.unseen:.4g}",
+                f"unseen-level value {round(self.unseen, 12) + 0.0:.4g}",  # no -3e-18 noise
                 UnseenLevelWarning, stacklevel=3,
             )
             values[unseen] = self.unseen
