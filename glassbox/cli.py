@@ -29,6 +29,7 @@ from glassbox.cli_support import (  # noqa: F401  (re-exported: recourse.cli and
     choices,
     console_run,
     emit,
+    example,
     friendly,
     loading,
     parse_options,
@@ -93,11 +94,6 @@ class SettingsHelp(Command):
     @epilog.setter
     def epilog(self, value: str | None) -> None:
         self._example = value or ""
-
-
-def example(line: str) -> str:
-    """The last line of a command's help: one command line to copy."""
-    return f"Example: {line}"
 
 
 @app.callback(epilog=example("glassbox fit loans.csv --schema loans.toml --out loans.json"))

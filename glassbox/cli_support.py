@@ -254,6 +254,11 @@ def _no_type(ctx: click.Context | None = None) -> None:
     return None
 
 
+def example(line: str) -> str:
+    """The last line of a command's help: one command line to copy."""
+    return f"Example: {line}"
+
+
 def choices(names: Iterable[str]) -> str:
     """The placeholder of an option with a few choices: `[a|b|c]`."""
     return "[" + "|".join(names) + "]"

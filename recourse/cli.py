@@ -14,17 +14,22 @@ from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
 
-import click
 import typer
-from typer.core import TyperArgument, TyperCommand
 
+from glassbox import __version__
 from glassbox.cli_support import (
+    MAX_HELP_WIDTH,
+    Command,
     Force,
+    Group,
+    choices,
     console_run,
+    example,
     friendly,
     loading,
     stderr_console,
     stdout_console,
+    version_option,
 )
 from recourse.choices import (
     DEFAULT_SOLVER,
@@ -36,10 +41,17 @@ from recourse.choices import (
     SOLVERS,
 )
 
+
+class WorkOrder(Group):
+    """`recourse --help` lists the commands in the order of the work."""
+
+    order = ("template", "plan", "reach")
+
+
 app = typer.Typer(
     help="Plan the cheapest realistic changes that would flip a glass-box model's outcome.",
     no_args_is_help=True, add_completion=False, pretty_exceptions_enable=False,
-    rich_markup_mode=None,
+    rich_markup_mode=None, cls=WorkOrder, context_settings={"max_content_width": MAX_HELP_WIDTH},
 )
 Solver = StrEnum("Solver", {name: name for name in SOLVERS})
 Engine = StrEnum("Engine", {name: name for name in ENGINES})
@@ -50,37 +62,6 @@ MODEL_HELP = "Model file (JSON)."
 MUTABILITY_HELP = "Mutability file (TOML): what may change, which way, at what cost."
 OLD_NAME_NOTE = ("note: `recourse audit` is now `recourse reach`; the old name works in this "
                  "release only")
-
-
-def example(line: str) -> str:
-    """The last line of a command's help: one command line to copy."""
-    return f"Example: {line}"
-
-
-class Command(TyperCommand):
-    """A command whose help names its argument by its placeholder alone (MODEL, not
-    `MODEL <path>`) and writes it plainly in the usage line, as glassbox's commands do
-    (their `Command` does the same; once both live in one module, use that one)."""
-
-    def __init__(self, *args: Any, **kwargs: Any) -> None:
-        super().__init__(*args, **kwargs)
-        for param in self.params:
-            if isinstance(param, TyperArgument):
-                param.display_type_rich = _no_type  # type: ignore[method-assign]
-
-    def collect_usage_pieces(self, ctx: click.Context) -> list[str]:
-        pieces = [self.options_metavar] if self.options_metavar else []
-        for param in self.get_params(ctx):
-            if isinstance(param, TyperArgument):
-                name = param.display_name_raw + ("..." if param.nargs != 1 else "")
-                pieces.append(name if param.required else f"[{name}]")
-            else:
-                pieces.extend(param.get_usage_pieces(ctx))
-        return pieces
-
-
-def _no_type(ctx: click.Context | None = None) -> None:
-    return None
 
 
 class PlanFormat(StrEnum):
@@ -96,31 +77,16 @@ class ReachFormat(StrEnum):
     markdown = "markdown"
 
 
-def choices(names: Any) -> str:
-    """The placeholder of an option with a few choices: `[a|b|c]`."""
-    return "[" + "|".join(str(name) for name in names) + "]"
-
-
 SOLVER_CHOICES = choices(SOLVERS)
 
 
-def _show_version(value: bool) -> None:
-    if value:
-        from glassbox import __version__
-
-        sys.stdout.write(f"recourse {__version__}\n")
-        raise typer.Exit()
-
-
-# each example fits on one line of 80 columns (click wraps help at 80 at most)
+# each example fits on one line of 80 columns
 PLAN_EXAMPLE = example("recourse plan loans.json --mutability rules.toml --row row.json")
 
 
 @app.callback(epilog=PLAN_EXAMPLE)
 def _main(
-    version: Annotated[bool, typer.Option(
-        "--version", help="Show the version and stop.", is_eager=True,
-        callback=_show_version)] = False,
+    version: Annotated[bool, version_option("recourse", __version__)] = False,
 ) -> None:
     """Plan the cheapest realistic changes that would flip a glass-box model's outcome."""
 
