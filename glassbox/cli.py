@@ -26,6 +26,9 @@ from glassbox.cli_support import (  # noqa: F401  (re-exported: recourse.cli and
     Command,
     Force,
     Group,
+    ModelArgument,
+    SchemaOption,
+    TrainingData,
     choices,
     console_run,
     emit,
@@ -146,9 +149,8 @@ def schema_command(
     "glassbox fit loans.csv --schema loans.toml --out loans.json"))
 @friendly
 def fit_command(
-    data: Annotated[Path, typer.Argument(
-        metavar="DATA", help="CSV or Parquet file with the target.")],
-    schema: Annotated[Path, typer.Option(metavar="FILE", help="Schema TOML file.")],
+    data: TrainingData,
+    schema: SchemaOption,
     out: Annotated[Path, typer.Option(
         metavar="FILE", help="Where to write the model file (a .json file).")],
     family: Annotated[Family, typer.Option(
@@ -328,7 +330,7 @@ def points_command(
     "glassbox shapes loans.json --format csv --out tables --plot plots"))
 @friendly
 def shapes_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    model_file: ModelArgument,
     feature: Annotated[list[str] | None, typer.Option(
         metavar="NAME", help="Only this feature (repeatable).")] = None,
     format: Annotated[TableFormat | None, typer.Option(
@@ -417,7 +419,7 @@ def _check_at(value: str, features: list[str], written: str) -> None:
     "glassbox report loans.json --data loans.csv --out report"))
 @friendly
 def report_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    model_file: ModelArgument,
     data: Annotated[Path, typer.Option(
         metavar="DATA", help="CSV or Parquet file with the rows to report on.")],
     out: Annotated[Path, typer.Option(

@@ -39,6 +39,11 @@ DROP_HELP = "Drop rows with no target value (counted on screen) instead of refus
 Force = Annotated[bool, typer.Option(
     "--force", help="Overwrite an existing output file of another kind (a CSV, a model "
                     "file...). An input is never overwritten.")]
+# arguments and options several commands share, declared once
+ModelArgument = Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")]
+TrainingData = Annotated[Path, typer.Argument(
+    metavar="DATA", help="CSV or Parquet file with the target.")]
+SchemaOption = Annotated[Path, typer.Option(metavar="FILE", help="Schema TOML file.")]
 
 
 def stdout_console() -> Console:

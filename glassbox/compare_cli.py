@@ -25,7 +25,9 @@ from glassbox.cli import (
     Benchmark,
     Family,
     Force,
+    SchemaOption,
     SettingsHelp,
+    TrainingData,
     app,
     choices,
     emit,
@@ -49,9 +51,8 @@ class CompareFormat(StrEnum):
     "glassbox compare loans.csv --schema loans.toml --out compare.json"))
 @friendly
 def compare_command(
-    data: Annotated[Path, typer.Argument(
-        metavar="DATA", help="CSV or Parquet file with the target.")],
-    schema: Annotated[Path, typer.Option(metavar="FILE", help="Schema TOML file.")],
+    data: TrainingData,
+    schema: SchemaOption,
     family: Annotated[list[Family], typer.Option(
         "--family", metavar=choices(Family),
         help="A glass-box family to compare (repeatable).")] = ALL_FAMILIES,

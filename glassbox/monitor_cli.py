@@ -19,6 +19,7 @@ from glassbox.cli import (
     MAX_JOBS,
     Command,
     Force,
+    ModelArgument,
     app,
     choices,
     example,
@@ -40,7 +41,7 @@ LOCAL = MonitorEngine("local")
     "glassbox monitor loans.json q2.csv q3.csv --page monitoring.html"))
 @friendly
 def monitor_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    model_file: ModelArgument,
     data: Annotated[list[Path], typer.Argument(
         metavar="DATA", help="CSV or Parquet files, one period each in the order given "
                                 "(or one file with --period).")],

@@ -16,6 +16,7 @@ from glassbox.cli import (
     MAX_TOP,
     Command,
     Force,
+    ModelArgument,
     app,
     choices,
     emit,
@@ -39,7 +40,7 @@ class ReasonsFormat(StrEnum):
     "glassbox reasons loans.json loans.csv --id L001096"))
 @friendly
 def reasons_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help="Model file (JSON).")],
+    model_file: ModelArgument,
     data: Annotated[Path, typer.Argument(
         metavar="DATA", help="CSV or Parquet file with the rows.")],
     id_value: Annotated[str | None, typer.Option(

@@ -22,6 +22,7 @@ from glassbox.cli_support import (
     Command,
     Force,
     Group,
+    ModelArgument,
     choices,
     console_run,
     example,
@@ -58,7 +59,6 @@ Engine = StrEnum("Engine", {name: name for name in ENGINES})
 SOLVER_CHOICE = Solver(DEFAULT_SOLVER)
 SOLVER_HELP = ("exact: the search built for this program; highs or cbc: the same program as "
                "an integer program, one row at a time.")
-MODEL_HELP = "Model file (JSON)."
 MUTABILITY_HELP = "Mutability file (TOML): what may change, which way, at what cost."
 OLD_NAME_NOTE = ("note: `recourse audit` is now `recourse reach`; the old name works in this "
                  "release only")
@@ -96,7 +96,7 @@ def _main(
              epilog=example("recourse template loans.json --out rules.toml"))
 @friendly
 def template_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    model_file: ModelArgument,
     out: Annotated[Path | None, typer.Option(
         metavar="FILE", help="Write the mutability file here (a .toml file), not to "
                              "standard output; an existing file needs --force.")] = None,
@@ -126,7 +126,7 @@ def template_command(
              epilog=PLAN_EXAMPLE)
 @friendly
 def plan_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    model_file: ModelArgument,
     mutability: Annotated[Path, typer.Option(metavar="FILE", help=MUTABILITY_HELP)],
     row: Annotated[Path | None, typer.Option(
         metavar="FILE", help="One row as a JSON object of feature values.")] = None,
@@ -235,7 +235,7 @@ def _write(text: str, out: Path | None, what: str) -> None:
 
 
 def reach_command(
-    model_file: Annotated[Path, typer.Argument(metavar="MODEL", help=MODEL_HELP)],
+    model_file: ModelArgument,
     mutability: Annotated[Path, typer.Option(metavar="FILE", help=MUTABILITY_HELP)],
     data: Annotated[Path, typer.Option(metavar="DATA", help="CSV or Parquet file of rows.")],
     by: Annotated[list[str] | None, typer.Option(

@@ -92,10 +92,9 @@ def statsmodels_fold(hmda, columns, train, test) -> tuple[np.ndarray, np.ndarray
     return target[test], fitted.predict(rows).to_numpy()
 
 
-def test_fold_metrics_against_statsmodels_and_sklearn(sparse_only, hmda):
-    # reference: statsmodels' Logit refitted on fold 1's training rows (the unrestricted
-    # sparse family is plain maximum likelihood), scored by sklearn.metrics; the folds
-    # are scikit-learn's RepeatedStratifiedKFold with the same seed
+def first_fold(sparse_only, hmda):
+    """Fold 1 as scikit-learn's RepeatedStratifiedKFold (same seed) cuts it: statsmodels'
+    held-out probabilities there, the fold's rows, and the comparison's record of it."""
     from sklearn.model_selection import RepeatedStratifiedKFold
 
     target = (hmda["deny"] == "yes").to_numpy(dtype=float)
@@ -103,6 +102,14 @@ def test_fold_metrics_against_statsmodels_and_sklearn(sparse_only, hmda):
     train, test = next(splitter.split(np.zeros(len(target)), target))
     truth, probability = statsmodels_fold(hmda, list(HMDA_KINDS), train, test)
     record = sparse_only.folds.query("model == 'sparse' and fold == 0").iloc[0]
+    return truth, probability, record, train, test
+
+
+def test_fold_metrics_against_statsmodels_and_sklearn(sparse_only, hmda):
+    # reference: statsmodels' Logit refitted on fold 1's training rows (the unrestricted
+    # sparse family is plain maximum likelihood), scored by sklearn.metrics; the folds
+    # are scikit-learn's RepeatedStratifiedKFold with the same seed
+    truth, probability, record, train, test = first_fold(sparse_only, hmda)
     assert record["test_rows"] == len(test) and record["train_rows"] == len(train)
     assert record["auc"] == pytest.approx(skm.roc_auc_score(truth, probability), abs=1e-9)
     assert record["log_loss"] == pytest.approx(skm.log_loss(truth, probability), abs=1e-9)
@@ -403,13 +410,7 @@ def test_fold_ks_and_gini_against_scipy_and_sklearn(sparse_only, hmda):
     # reference: statsmodels' Logit on fold 1 (as above); KS from scipy.stats.ks_2samp on
     # the two classes' probabilities, Gini = 2·AUC − 1 with sklearn's roc_auc_score
     from scipy import stats
-    from sklearn.model_selection import RepeatedStratifiedKFold
-
-    target = (hmda["deny"] == "yes").to_numpy(dtype=float)
-    splitter = RepeatedStratifiedKFold(n_splits=3, n_repeats=1, random_state=7)
-    train, test = next(splitter.split(np.zeros(len(target)), target))
-    truth, probability = statsmodels_fold(hmda, list(HMDA_KINDS), train, test)
-    record = sparse_only.folds.query("model == 'sparse' and fold == 0").iloc[0]
+    truth, probability, record, train, test = first_fold(sparse_only, hmda)
     ks = stats.ks_2samp(probability[truth == 1], probability[truth == 0]).statistic
     assert record["ks"] == pytest.approx(ks, abs=1e-6)
     assert record["gini"] == pytest.approx(2 * skm.roc_auc_score(truth, probability) - 1,
