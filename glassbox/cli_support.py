@@ -133,9 +133,13 @@ def _show_warnings(caught: list[warnings.WarningMessage]) -> None:
         if not issubclass(item.category, UserWarning) or str(item.message) in seen:
             continue
         seen.add(str(item.message))
-        from glassbox.publishing.render import warning_text
+        from glassbox.publishing.render import WarningView, warning_text
 
-        stderr_console().print(warning_text(str(item.message)), soft_wrap=True)
+        console = stderr_console()
+        if console.is_terminal:  # a person reads it: folded with a hanging indent
+            console.print(WarningView(str(item.message)))
+        else:  # a pipe or a log: one line per warning, for grep
+            console.print(warning_text(str(item.message)), soft_wrap=True)
 
 
 def emit(text: str | bytes | Iterable[bytes], out: Path | None, what: str) -> None:

@@ -196,6 +196,36 @@ def test_schema_notes_fit_80_columns(made):
     assert [line.split(":")[0] for line in firsts] == [n.split(":")[0] for n in notes]
 
 
+def test_a_warning_at_a_terminal_folds_with_a_hanging_indent(monkeypatch):
+    """At a terminal a warning folds at spaces, its folded lines 4 columns in, every word
+    kept; to a pipe or a log it stays one line (for grep). The message is the unseen-level
+    warning the demo prints (constructed words)."""
+    import io
+    import warnings
+
+    from glassbox import cli_support
+
+    message = ("demo_out/loans.spline.json: feature 'sector': 27 rows with a level never seen "
+               "in training ('care services'); scored with the unseen-level value 0")
+
+    def warn():
+        warnings.warn(message, UserWarning, stacklevel=1)
+
+    for terminal in (True, False):
+        sink = io.StringIO()
+        monkeypatch.setattr(cli_support, "stderr_console", lambda sink=sink, terminal=terminal:
+                            Console(file=sink, width=WIDTH, force_terminal=terminal,
+                                    color_system=None, highlight=False))
+        cli_support.friendly(warn)()
+        lines = sink.getvalue().rstrip("\n").splitlines()
+        assert " ".join(line.strip() for line in lines) == "warning: " + message
+        if terminal:
+            assert len(lines) > 1 and all(len(line) <= WIDTH for line in lines)
+            assert all(line.startswith("    ") for line in lines[1:])
+        else:
+            assert len(lines) == 1
+
+
 def test_fit_score_export_lines(made):
     fit = made["fit_credit"]
     _ok(fit, ["4,454", "Seniority,", "Home,", "Price", "ROC", "AUC"])

@@ -271,6 +271,21 @@ def warning_text(message: str) -> Text:
     return Text.assemble(("warning: ", palette.WARNING_STYLE), message)
 
 
+class WarningView:
+    """`warning: MESSAGE` folded at spaces with a hanging indent, for a terminal (where a
+    person reads it); the CLI prints `warning_text` on one line to a pipe or a log."""
+
+    def __init__(self, message: str) -> None:
+        self.message = message
+
+    def __rich_console__(self, console: Any, options: Any) -> Any:
+        lines = Hanging("warning: " + self.message).lines(options.max_width)
+        prefix = len("warning: ")
+        yield Text.assemble(("warning: ", palette.WARNING_STYLE), lines[0][prefix:])
+        for line in lines[1:]:
+            yield Text(line, no_wrap=True)
+
+
 def comparison_view(comparison: Any) -> RenderableType:
     """What `glassbox compare` prints, laid out like every other view (narrow.py): the
     headline, the base rate and no-skill flags, every metric's mean, the primary metric's
