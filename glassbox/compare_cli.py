@@ -59,6 +59,18 @@ def compare_command(
     benchmark: Annotated[Benchmark, typer.Option(
         metavar=choices(Benchmark),
         help="The black box: boosted trees or a random forest.")] = DEFAULT_BENCHMARK,
+    benchmark_scores: Annotated[Path | None, typer.Option(
+        "--benchmark-scores", metavar="FILE",
+        help="Your own black box instead: its out-of-fold scores (CSV or Parquet), one row "
+             "per data row with the id column (the schema's id, else \"row\", the row "
+             "number from 1) and score (with repeats: score_1, score_2, ...), a probability "
+             "(regression: a prediction) from a fit on the other folds of --folds-out.")
+    ] = None,
+    folds_out: Annotated[Path | None, typer.Option(
+        "--folds-out", metavar="FILE",
+        help="Write the fold assignment here (.csv, .parquet or .json): each row's id and, "
+             "per repeat, fold_1, fold_2, ... the fold (from 1) that holds it out.")
+    ] = None,
     folds: Annotated[int, typer.Option(metavar="N", help="Cross-validation folds.", min=2)] = 5,
     repeats: Annotated[int, typer.Option(metavar="N", help="Repeats of the folds.", min=1,
                                          max=MAX_REPEATS)] = 1,
@@ -106,7 +118,19 @@ def compare_command(
     written = formats.output_format(out, None if format is None else format.value,
                                     ("json", "markdown"))
     check_output(out, "glassbox-comparison" if written == "json" else "markdown",
-                 [data, schema], force=force)
+                 [data, schema, benchmark_scores], force=force)
+    if folds_out is not None:
+        from glassbox.core.files import check_not_an_input
+
+        check_not_an_input(folds_out, [out], "--folds-out")
+        folds_format = formats.table_format(folds_out, "--folds-out")
+        check_output(folds_out, f"{folds_format}-folds", [data, schema, benchmark_scores],
+                     force=force, option="--folds-out")
+    if benchmark_scores is not None:
+        if not benchmark_scores.is_file():
+            raise OptionError(f"--benchmark-scores {benchmark_scores}: no such file")
+        formats.suffix_format(benchmark_scores, ("csv", "parquet"), "--benchmark-scores",
+                              override=False)
     from glassbox.core.schema import load_schema, read_table
     from glassbox.fitting import compare as comparing
     from glassbox.fitting.fit import rows_with_target
@@ -114,14 +138,18 @@ def compare_command(
     settings = comparing.CompareSettings(
         families=families, benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed,
         jobs=jobs, cutoff=cutoff,
-        family_options={name: chosen for name, chosen in options.items() if chosen})
+        family_options={name: chosen for name, chosen in options.items() if chosen},
+        benchmark_scores=None if benchmark_scores is None else str(benchmark_scores))
     settings.check()
     frame = read_table(data)
     spec = load_schema(schema)
     if drop_missing_target:
         frame = rows_with_target(frame, spec, str(data))
     with fold_progress() as progress:
-        result = comparing.compare(frame, spec, settings, source=str(data), progress=progress)
+        result = comparing.compare(
+            frame, spec, settings, source=str(data), progress=progress,
+            folds_out=None if folds_out is None else
+            (lambda table: write_folds(table, folds_out, folds_format)))
     if format is None:  # the terminal gets the table, and --out (if any) its own file
         from glassbox.publishing.render import comparison_view
 
@@ -139,6 +167,14 @@ def compare_command(
     else:
         text = comparing.to_markdown(result)
     emit(text, out, "comparison")
+
+
+def write_folds(table, path: Path, fmt: str) -> None:
+    """The fold assignment to its file (before any fitting, so it is there to fit on)."""
+    from glassbox.core.files import write_atomic
+    from glassbox.core.formats import table_file
+
+    write_atomic(path, table_file(table, fmt))
 
 
 @contextlib.contextmanager

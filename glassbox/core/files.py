@@ -167,6 +167,7 @@ KIND_WORDS = {
     "csv-card": "a CSV of points card rows",
     "csv-plans": "a CSV of plans",
     "csv-monitoring": "a CSV of monitoring results",
+    "csv-folds": "a CSV of fold assignments",
     "markdown": "a Markdown file",
     "html": "an HTML page",
     "png": "a PNG picture",
@@ -175,6 +176,8 @@ KIND_WORDS = {
     "parquet": "a Parquet file",
     "parquet-scores": "a Parquet file of scores",
     "json-scores": "a JSON file of scores",
+    "parquet-folds": "a Parquet file of fold assignments",
+    "json-folds": "a JSON file of fold assignments",
     "schema": "a schema (TOML)",
     "mutability": "a mutability file (TOML)",
     "mutability-template": "a starting mutability file (every feature fixed)",
@@ -199,7 +202,10 @@ CSV_HEADERS = (
     ("csv-scores", {"total_points", "base_points"}),
     ("csv-scores", {"score", "probability"}),
     ("csv-scores", {"score", "prediction"}),
+    ("csv-folds", {"fold_1"}),
 )
+# our tables written as Parquet or JSON records, by the CSV kind their columns would be
+OTHER_TABLE_KINDS = {"csv-scores": "scores", "csv-folds": "folds"}
 HEAD_BYTES = 65536  # how much of an existing file is read to tell its kind
 WHOLE_BYTES = 64 << 20  # a JSON or TOML file up to this size is parsed whole to tell its kind
 _FORMAT_FIRST = re.compile(r'\s*\{\s*"format"\s*:\s*"([^"\\]{1,100})"')
@@ -263,18 +269,21 @@ def _columns_kind(names: Iterable[str]) -> str:
 
 
 def _parquet_kind(path: Path) -> str:
-    """Scores written as Parquet ("parquet-scores", by their columns), or any Parquet file."""
+    """Scores or fold assignments written as Parquet ("parquet-scores", "parquet-folds", by
+    their columns), or any Parquet file."""
     try:
         import pyarrow.parquet as pq
 
         names = pq.read_schema(path).names
     except (OSError, ValueError, ImportError):  # damaged: still Parquet by its first bytes
         return "parquet"
-    return "parquet-scores" if _columns_kind(names) == "csv-scores" else "parquet"
+    table = OTHER_TABLE_KINDS.get(_columns_kind(names))
+    return f"parquet-{table}" if table else "parquet"
 
 
 def _records_kind(head: str) -> str | None:
-    """Scores written as JSON records ("json-scores", by the first record's keys)."""
+    """Scores or fold assignments written as JSON records ("json-scores", "json-folds", by
+    the first record's keys)."""
     start = head.lstrip()
     if not start.startswith("["):
         return None
@@ -282,8 +291,9 @@ def _records_kind(head: str) -> str | None:
         first, _ = json.JSONDecoder().raw_decode(start, len(start) - len(start[1:].lstrip()))
     except ValueError:
         return None
-    if isinstance(first, dict) and _columns_kind(map(str, first)) == "csv-scores":
-        return "json-scores"
+    if isinstance(first, dict):
+        table = OTHER_TABLE_KINDS.get(_columns_kind(map(str, first)))
+        return f"json-{table}" if table else None
     return None
 
 
@@ -304,8 +314,9 @@ def _json_kind(path: Path, head: str) -> str | None:
     found = _FORMAT_FIRST.match(head)
     if found:
         return found.group(1)
-    if _records_kind(head):
-        return "json-scores"
+    records = _records_kind(head)
+    if records:
+        return records
     if path.stat().st_size > WHOLE_BYTES:
         return "json" if head.lstrip().startswith("{") else None
     try:

@@ -51,6 +51,19 @@ from glassbox.fitting.compare_folds import (
     run_all,
     type_frame,
 )
+from glassbox.fitting.compare_outside import (
+    LAYOUT,
+    ORIGIN_BUILT_IN,
+    ORIGIN_OUTSIDE,
+    OUTSIDE_NAME,
+    OutsideScores,
+    benchmark_label,
+    fold_table,
+    outside_records,
+    read_outside_scores,
+    row_ids,
+    scored_rows,
+)
 from glassbox.fitting.compare_tables import (  # noqa: F401  (tables for people: re-exported)
     accuracy_table,
     cost_note,
@@ -105,6 +118,8 @@ class CompareSettings:
     cutoff: float = 0.5
     sparsity_curve: bool = True
     family_options: dict[str, dict[str, Any]] = field(default_factory=dict)
+    # an outside model's out-of-fold scores (CSV or Parquet) in the benchmark's place
+    benchmark_scores: str | None = None
 
     def check(self) -> None:
         unknown = [f for f in self.families if f not in FAMILIES]
@@ -213,16 +228,35 @@ def compare(
     *,
     source: str | None = None,
     progress: Callable[[int, int, str], None] | None = None,
+    folds_out: Callable[[pd.DataFrame], None] | None = None,
 ) -> Comparison:
-    """Fit every model on the same folds and measure what the glass-box ones cost."""
+    """Fit every model on the same folds and measure what the glass-box ones cost.
+
+    With `settings.benchmark_scores`, an outside model's out-of-fold scores (see
+    `compare_outside.LAYOUT`) take the benchmark's place, checked before any fitting;
+    `folds_out`, when given, receives the fold assignment (`compare_outside.fold_table`)
+    before any fitting too."""
     settings = settings or CompareSettings()
     settings.check()
     schema.require_better()  # every fold fits: refuse at once, not in the first fold
     typed = type_frame(frame, schema, source)
     goal = schema.target.task
-    folds, set_aside = keep_scorable(typed.features, make_folds(typed.target, goal, settings))
-    tasks = plan_tasks(folds, settings)
+    assigned = make_folds(typed.target, goal, settings)
+    folds, set_aside = keep_scorable(typed.features, assigned)
     records: list[dict[str, Any]] = []
+    outside = None
+    if folds_out is not None or settings.benchmark_scores:
+        id_name, ids = row_ids(frame, schema, source or "the data")
+        if settings.benchmark_scores:
+            outside = read_outside_scores(settings.benchmark_scores, id_name, ids, goal,
+                                          settings.repeats,
+                                          scored_rows(folds, len(ids), settings.repeats))
+            records += outside_records(outside, folds, typed.target, goal, settings.cutoff,
+                                       benchmark_label(settings.benchmark,
+                                                       settings.benchmark_scores))
+        if folds_out is not None:
+            folds_out(fold_table(assigned, id_name, ids, settings.repeats))
+    tasks = plan_tasks(folds, settings)
     done = 0
     if progress:
         progress(0, len(tasks), "starting")
@@ -232,12 +266,13 @@ def compare(
         if progress:
             progress(done, len(tasks), label)
     return summarise(records, Prepared(typed.pooled, typed.target, None, pd.DataFrame()),
-                     schema, settings, folds, set_aside)
+                     schema, settings, folds, set_aside, outside)
 
 
 def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
               settings: CompareSettings, folds,
-              set_aside: dict[str, Any] | None = None) -> Comparison:
+              set_aside: dict[str, Any] | None = None,
+              outside: OutsideScores | None = None) -> Comparison:
     """Means, intervals, paired differences and the headline from per-fold records."""
     goal = schema.target.task
     metrics = CLASSIFICATION_METRICS if goal == "classification" else REGRESSION_METRICS
@@ -256,7 +291,7 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     train_rows = np.mean([len(f[2]) for f in folds])
     test_rows = np.mean([len(f[3]) for f in folds])
     share = float(test_rows / train_rows)
-    benchmark = f"benchmark ({settings.benchmark})"
+    benchmark = benchmark_label(settings.benchmark, settings.benchmark_scores)
     order = [*settings.families, benchmark, NO_SKILL]
     kinds = {benchmark: "black box", NO_SKILL: "no skill"}
     model_rows, cost_rows = [], []
@@ -299,9 +334,17 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                   "data_sha256": frame_fingerprint(prepared.features.assign(
                       __target__=prepared.target)),
                   "glassbox_version": __version__, "versions": library_versions()}
-    settings_record = {"families": list(settings.families), "benchmark": settings.benchmark,
-                       "benchmark_settings": benchmark_settings(settings.benchmark, goal,
-                                                                settings.seed),
+    if outside is not None:
+        provenance["benchmark_scores_sha256"] = outside.sha256
+        chosen = {"benchmark": OUTSIDE_NAME, "benchmark_scores": outside.file_name,
+                  "benchmark_scores_layout": LAYOUT,
+                  "benchmark_origin": ORIGIN_OUTSIDE.format(name=outside.file_name)}
+    else:
+        chosen = {"benchmark": settings.benchmark,
+                  "benchmark_settings": benchmark_settings(settings.benchmark, goal,
+                                                           settings.seed),
+                  "benchmark_origin": ORIGIN_BUILT_IN}
+    settings_record = {"families": list(settings.families), **chosen,
                        "folds": settings.folds, "repeats": settings.repeats,
                        "seed": settings.seed, "cutoff": settings.cutoff,
                        "stratified": goal == "classification",

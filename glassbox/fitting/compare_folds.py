@@ -252,8 +252,9 @@ def plan_tasks(folds, settings: CompareSettings) -> list[Task]:
     """Every (model, fold) pair, the slowest kinds first so parallel runs finish together."""
     tasks = []
     for repeat, fold, train, test in folds:
-        tasks.append(Task("benchmark", f"benchmark ({settings.benchmark})", repeat, fold,
-                          train, test))
+        if not settings.benchmark_scores:  # else the outside scores are the benchmark's
+            tasks.append(Task("benchmark", f"benchmark ({settings.benchmark})", repeat, fold,
+                              train, test))
         for family in settings.families:
             tasks.append(Task("family", family, repeat, fold, train, test))
         if settings.sparsity_curve and "sparse" in settings.families:

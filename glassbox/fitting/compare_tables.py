@@ -244,8 +244,10 @@ def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
     options = "".join(f" --option {family}.{name}={setting_text(value)}"
                       for family, chosen in sorted(settings.get("family_options", {}).items())
                       for name, value in sorted(chosen.items()))
-    return (f"glassbox compare {data} --schema {schema} {families} --benchmark "
-            f"{settings['benchmark']} --folds {settings['folds']} --repeats "
+    benchmark = (f"--benchmark-scores {settings['benchmark_scores']}"
+                 if settings.get("benchmark_scores") else f"--benchmark {settings['benchmark']}")
+    return (f"glassbox compare {data} --schema {schema} {families} {benchmark} "
+            f"--folds {settings['folds']} --repeats "
             f"{settings['repeats']} --seed {settings['seed']} --cutoff "
             f"{settings['cutoff']:g}{options}")
 
@@ -264,9 +266,10 @@ def to_markdown(comparison: Comparison) -> str:
         parts += [base_rate_note(comparison), ""]
     if comparison.task == "classification":
         parts += [f"{METRIC_DEFINITIONS}.", ""]
-    parts += [f"## Cost against the {comparison.settings['benchmark']} benchmark "
-              "(paired by fold)", "", table_markdown(cost_table(comparison)),
-              cost_note(comparison), ""]
+    against = ("your benchmark scores" if comparison.settings.get("benchmark_scores")
+               else f"the {comparison.settings['benchmark']} benchmark")
+    parts += [f"## Cost against {against} (paired by fold)", "",
+              table_markdown(cost_table(comparison)), cost_note(comparison), ""]
     fits = calibration_fit_table(comparison)
     if not fits.empty:
         parts += ["## Calibration of the out-of-fold predictions", "",

@@ -199,6 +199,9 @@ def rows_with_target(frame: pd.DataFrame, schema: Schema, where: str) -> pd.Data
                   UserWarning, stacklevel=2)
     kept = frame.loc[~absent].reset_index(drop=True)
     kept.attrs = dict(frame.attrs)
+    # the file's data row numbers (from 1) of the rows kept, for outputs that number rows
+    numbers = np.asarray(frame.attrs.get("row_numbers", np.arange(1, len(frame) + 1)))
+    kept.attrs["row_numbers"] = numbers[~np.asarray(absent)].tolist()
     return kept
 
 
