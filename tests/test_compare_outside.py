@@ -79,7 +79,9 @@ def test_outside_scores_are_the_benchmark_fold_by_fold(tmp_path):
 
     scores = outside_logistic(data, folds, repeats=2)
     scores_file = tmp_path / "scores.csv"
-    scores.sample(frac=1.0, random_state=1).to_csv(scores_file, index=False)  # any order
+    # the folds file's columns kept beside the scores (checked), rows in any order
+    scores = folds.merge(scores, on="application")
+    scores.sample(frac=1.0, random_state=1).to_csv(scores_file, index=False)
     out = tmp_path / "yours.json"
     again = tmp_path / "folds_again.parquet"
     result = run("compare", data_file, "--schema", schema_file, "--family", "sparse",
@@ -213,6 +215,23 @@ def test_refusals_with_repeats_and_regression(tmp_path):
     assert np.isnan(read.scores[0, 1])
     with pytest.raises(OptionError, match=r"\.csv, \.parquet"):
         read_outside_scores(path.with_suffix(".txt"), "id", IDS, "classification", 1, SCORED)
+
+
+def test_scores_made_on_other_folds_are_refused(tmp_path):
+    # invented folds (truth constructed): the file's fold columns differ from the
+    # comparison's in one row, or name a repeat the comparison lacks
+    folds = pd.DataFrame({"id": IDS, "fold_1": [1, 2, 1, 2]})
+    table = pd.DataFrame({"id": IDS, "fold_1": [1, 2, 2, 2], "score": [0.1] * 4})
+    path = tmp_path / "scores.csv"
+    table.to_csv(path, index=False)
+    with pytest.raises(DataError, match=r"fold_1 is 2 for id 'A3'.*in fold 1"):
+        read_outside_scores(path, "id", IDS, "classification", 1, SCORED, folds)
+    table.assign(fold_1=[1, 2, 1, 2], fold_2=1).to_csv(path, index=False)
+    with pytest.raises(DataError, match="has the column fold_2"):
+        read_outside_scores(path, "id", IDS, "classification", 1, SCORED, folds)
+    table.assign(fold_1=[1, 2, 1, 2]).to_csv(path, index=False)
+    read = read_outside_scores(path, "id", IDS, "classification", 1, SCORED, folds)
+    assert read.scores.shape == (1, 4)
 
 
 def test_refused_before_any_fitting_in_one_line(tmp_path, monkeypatch):

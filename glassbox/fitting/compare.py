@@ -247,15 +247,17 @@ def compare(
     outside = None
     if folds_out is not None or settings.benchmark_scores:
         id_name, ids = row_ids(frame, schema, source or "the data")
+        assignment = fold_table(assigned, id_name, ids, settings.repeats)
         if settings.benchmark_scores:
             outside = read_outside_scores(settings.benchmark_scores, id_name, ids, goal,
                                           settings.repeats,
-                                          scored_rows(folds, len(ids), settings.repeats))
+                                          scored_rows(folds, len(ids), settings.repeats),
+                                          assignment)
             records += outside_records(outside, folds, typed.target, goal, settings.cutoff,
                                        benchmark_label(settings.benchmark,
                                                        settings.benchmark_scores))
         if folds_out is not None:
-            folds_out(fold_table(assigned, id_name, ids, settings.repeats))
+            folds_out(assignment)
     tasks = plan_tasks(folds, settings)
     done = 0
     if progress:

@@ -30,7 +30,8 @@ LAYOUT = ("one row per data row: the id column (the schema's id, else \"row\", t
           "number from 1) and one score column per repeat, score_1, score_2, ... (with one "
           "repeat \"score\" will do): each row's out-of-fold probability of the positive "
           "class (regression: prediction) from a model fitted on the other folds of that "
-          "repeat, as the --folds-out file assigns them")
+          "repeat, as the --folds-out file assigns them; the file's fold_1, fold_2, ... "
+          "columns may be kept, and are then checked against the comparison's folds")
 ORIGIN_BUILT_IN = ("fitted by glassbox on each fold's training rows and scored on its test "
                    "rows, like the glass-box models")
 ORIGIN_OUTSIDE = ("out-of-fold scores of an outside model, read from the file {name} "
@@ -121,10 +122,12 @@ def score_columns(columns: list[str], repeats: int, source: str) -> list[str]:
 
 
 def read_outside_scores(path: str | Path, id_name: str, ids: list[str], task: str,
-                        repeats: int, scored: np.ndarray) -> OutsideScores:
+                        repeats: int, scored: np.ndarray,
+                        folds: pd.DataFrame | None = None) -> OutsideScores:
     """Read and check an outside model's scores before any fitting: every data id present
     once and no other, every row a number (in [0, 1] for classification), except rows
-    that `scored` (repeats x rows) marks as scored by no model, which may be blank."""
+    that `scored` (repeats x rows) marks as scored by no model, which may be blank. Fold
+    columns kept from the --folds-out file must equal `folds` (`fold_table`)."""
     from glassbox.core.encoding import read_table
     from glassbox.core.formats import suffix_format
     from glassbox.core.provenance import file_sha256
@@ -157,6 +160,8 @@ def read_outside_scores(path: str | Path, id_name: str, ids: list[str], task: st
         raise DataError(f"{source}: no row for {plural(len(missing), 'id')} of the data "
                         f"({_some(missing)}); every data row needs a score")
     order = np.array([position_of[v] for v in ids], dtype=np.int64)
+    if folds is not None:
+        _same_folds(frame.iloc[order].reset_index(drop=True), folds, ids, id_name, source)
     scores = np.full((repeats, len(ids)), np.nan)
     for repeat, column in enumerate(wanted):
         raw = frame[column].iloc[order].reset_index(drop=True)
@@ -191,6 +196,26 @@ def _numbers(raw: pd.Series, column: str, ids: list[str], id_name: str,
         raise DataError(f"{source}: {column} is {value_text(raw.iloc[first])} for {id_name} "
                         f"{value_text(ids[first])}; scores must be finite numbers")
     return values
+
+
+def _same_folds(frame: pd.DataFrame, folds: pd.DataFrame, ids: list[str], id_name: str,
+                source: str) -> None:
+    """Refuse fold columns (from a --folds-out file) that differ from the comparison's."""
+    kept = [c for c in frame.columns if c.startswith("fold_")]
+    for column in kept:
+        if column not in folds:
+            raise DataError(f"{source} has the column {column}, but the comparison has "
+                            f"{plural(len(folds.columns) - 1, 'repeat')}: were the scores "
+                            "made on other folds? Use the same --folds, --repeats and --seed")
+        given = pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float)
+        differ = given != folds[column].to_numpy(dtype=float)
+        if differ.any():
+            first = int(np.flatnonzero(differ)[0])
+            raise DataError(f"{source}: {column} is {value_text(frame[column].iloc[first])} "
+                            f"for {id_name} {value_text(ids[first])}, but this comparison "
+                            f"holds that row out in fold {int(folds[column].iloc[first])}: "
+                            "the scores were made on other folds; use the same --folds, "
+                            "--repeats and --seed")
 
 
 def _some(values: list[str]) -> str:
