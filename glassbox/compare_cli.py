@@ -127,6 +127,9 @@ def compare_command(
         check_output(folds_out, f"{folds_format}-folds", [data, schema, benchmark_scores],
                      force=force, option="--folds-out")
     if benchmark_scores is not None:
+        if benchmark != DEFAULT_BENCHMARK:
+            raise OptionError(f"--benchmark {benchmark.value} and --benchmark-scores "
+                              f"{benchmark_scores}: give one black box, not both")
         if not benchmark_scores.is_file():
             raise OptionError(f"--benchmark-scores {benchmark_scores}: no such file")
         formats.suffix_format(benchmark_scores, ("csv", "parquet"), "--benchmark-scores",

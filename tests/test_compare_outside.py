@@ -268,6 +268,9 @@ def test_folds_out_is_checked_like_other_outputs(tmp_path):
     result = run("compare", data_file, "--schema", schema_file, "--benchmark-scores",
                  tmp_path / "absent.csv")
     assert result.exit_code == 2 and "absent.csv" in result.output
+    result = run("compare", data_file, "--schema", schema_file, "--benchmark", "forest",
+                 "--benchmark-scores", mine)
+    assert result.exit_code == 2 and "not both" in result.output
 
 
 def test_row_numbers_survive_dropped_targets():
