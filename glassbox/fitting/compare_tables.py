@@ -244,8 +244,10 @@ def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
     options = "".join(f" --option {family}.{name}={setting_text(value)}"
                       for family, chosen in sorted(settings.get("family_options", {}).items())
                       for name, value in sorted(chosen.items()))
+    budget = (f" --benchmark-budget {settings['benchmark_budget']}"
+              if "benchmark_budget" in settings else "")
     return (f"glassbox compare {data} --schema {schema} {families} --benchmark "
-            f"{settings['benchmark']} --folds {settings['folds']} --repeats "
+            f"{settings['benchmark']}{budget} --folds {settings['folds']} --repeats "
             f"{settings['repeats']} --seed {settings['seed']} --cutoff "
             f"{settings['cutoff']:g}{options}")
 
