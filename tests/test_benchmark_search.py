@@ -109,3 +109,11 @@ def test_candidates_are_seeded_distinct_and_start_from_the_untuned_setting():
     for bad in (0, 10**6):
         with pytest.raises(OptionError, match="--benchmark-budget"):
             check_budget(bad)
+
+
+def test_the_command_default_budget_is_the_library_default():
+    # constructed truth: one default, written twice so the command stays light to import
+    from glassbox.compare_cli import BENCHMARK_BUDGET
+    from glassbox.fitting.benchmark_search import DEFAULT_BUDGET
+
+    assert BENCHMARK_BUDGET == DEFAULT_BUDGET
