@@ -177,7 +177,10 @@ def test_the_file_holds_the_schema_to_rerun_it(sparse_only):
     document = json.loads(json.dumps(sparse_only.to_dict(), allow_nan=False))
     assert document["format"] == "glassbox-comparison" and document["version"] == 3
     assert document["settings"]["seed"] == 7 and document["provenance"]["data_sha256"]
-    assert document["settings"]["benchmark_settings"]["learning_rate"] > 0
+    searched = document["settings"]["benchmark_settings"]
+    assert searched["tuned"] and min(searched["grid"]["learning_rate"]) > 0
+    assert searched["first_candidate"]["learning_rate"] > 0
+    assert document["settings"]["benchmark_budget"] == searched["budget"]
     # the schema's SHA-256 is over its canonical JSON (sorted keys, no spaces), the rule
     # model files use; computed here with hashlib
     canonical = json.dumps(document["schema"], sort_keys=True, separators=(",", ":"))
