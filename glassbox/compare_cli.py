@@ -38,6 +38,8 @@ from glassbox.cli import (
 )
 from glassbox.core.errors import OptionError
 
+BENCHMARK_BUDGET = 12  # glassbox.fitting.benchmark_search.DEFAULT_BUDGET (light to import here)
+
 ALL_FAMILIES = list(Family)
 
 
@@ -59,6 +61,9 @@ def compare_command(
     benchmark: Annotated[Benchmark, typer.Option(
         metavar=choices(Benchmark),
         help="The black box: boosted trees or a random forest.")] = DEFAULT_BENCHMARK,
+    benchmark_budget: Annotated[int, typer.Option(
+        metavar="N", help="trees: candidate settings tried in each training fold's search.",
+        min=1)] = BENCHMARK_BUDGET,
     benchmark_scores: Annotated[Path | None, typer.Option(
         "--benchmark-scores", metavar="FILE",
         help="Your own black box instead: its out-of-fold scores (CSV or Parquet), one row "
@@ -139,7 +144,8 @@ def compare_command(
     from glassbox.fitting.fit import rows_with_target
 
     settings = comparing.CompareSettings(
-        families=families, benchmark=benchmark.value, folds=folds, repeats=repeats, seed=seed,
+        families=families, benchmark=benchmark.value, benchmark_budget=benchmark_budget,
+        folds=folds, repeats=repeats, seed=seed,
         jobs=jobs, cutoff=cutoff,
         family_options={name: chosen for name, chosen in options.items() if chosen},
         benchmark_scores=None if benchmark_scores is None else str(benchmark_scores))

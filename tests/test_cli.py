@@ -178,8 +178,15 @@ def test_compare_prints_headline_and_writes_json(tmp_path):
     assert document["provenance"]["schema_file_sha256"].startswith("sha256:")
     assert document["schema"]["target"]["better"] == "lower"
     assert document["rerun"] == ("glassbox compare small.csv --schema loans.schema.toml "
-                                 "--family sparse --family boosted --benchmark trees --folds 3 "
-                                 "--repeats 1 --seed 0 --cutoff 0.5")
+                                 "--family sparse --family boosted --benchmark trees "
+                                 "--benchmark-budget 12 --folds 3 --repeats 1 --seed 0 "
+                                 "--cutoff 0.5")
+    # the benchmark's search in each fold: the settings it chose and the budget it used
+    tuning = document["settings"]["benchmark_tuning"]
+    assert [(row["repeat"], row["fold"]) for row in tuning] == [(0, 0), (0, 1), (0, 2)]
+    assert all(row["budget"] == row["candidates_tried"] == 12 for row in tuning)
+    assert all(row["chosen"]["rounds"] >= 1 for row in tuning)
+    assert "tuned in each training fold: 12 candidate settings" in document["headline"]
     markdown = run("compare", small, "--schema", DEMO / "loans.schema.toml", "--family",
                    "sparse", "--folds", "3", "--format", "markdown")
     assert markdown.stdout.startswith("# Accuracy cost of the glass-box models")

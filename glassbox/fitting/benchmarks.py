@@ -1,8 +1,9 @@
 """Black-box benchmarks: fair, tuned, unconstrained opponents for the comparator.
 
-`trees` is histogram gradient boosting with interactions allowed, a small
-learning rate, early stopping, and a small search over tree size scored on the
-early-stopping validation loss. `forest` is a random forest. Both see the same
+`trees` is histogram gradient boosting with interactions allowed, tuned inside each
+training fold by a seeded random search with early stopping (learning rate, tree size,
+minimum leaf size, L2 penalty, feature subsampling; `benchmark_search`), within a
+budget of candidate settings. `forest` is a random forest. Both see the same
 typed features the glass-box families see (categories natively or one-hot).
 
 Missing values are not imputed on either side: a missing number reaches both
@@ -18,33 +19,26 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sklearn.ensemble import (
-    HistGradientBoostingClassifier,
-    HistGradientBoostingRegressor,
-    RandomForestClassifier,
-    RandomForestRegressor,
-)
+from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 
 from glassbox.core.schema import MISSING_LEVEL
+from glassbox.fitting.benchmark_search import DEFAULT_BUDGET, search_settings, tuned_trees
 from glassbox.fitting.choices import BENCHMARKS  # noqa: F401  (the names, light to import)
 
-TREE_SETTINGS = {"learning_rate": 0.05, "max_iter": 2000, "min_samples_leaf": 20,
-                 "l2_regularization": 1.0, "early_stopping": True, "validation_fraction": 0.15,
-                 "n_iter_no_change": 20, "scoring": "loss"}
-TREE_LEAVES = (8, 16)  # the search over tree size; the best validation loss wins
 FOREST_SETTINGS = {"n_estimators": 300, "min_samples_leaf": 3}
 MISSING_NUMBERS = ("passed as NaN, no imputation: each split learns which side missing values "
                    "go (scikit-learn's native missing-value support)")
 MISSING_CATEGORIES = f"a level of its own, {MISSING_LEVEL!r}"
 
 
-def benchmark_settings(kind: str, task: str, seed: int) -> dict[str, Any]:
+def benchmark_settings(kind: str, task: str, seed: int,
+                       budget: int = DEFAULT_BUDGET) -> dict[str, Any]:
     """The benchmark's settings, recorded in the comparison's output."""
     if kind == "trees":
         estimator = ("HistGradientBoostingClassifier" if task == "classification"
                      else "HistGradientBoostingRegressor")
-        return {"estimator": f"sklearn.ensemble.{estimator}", **TREE_SETTINGS,
-                "max_leaf_nodes searched": list(TREE_LEAVES), "interactions": "allowed",
+        return {"estimator": f"sklearn.ensemble.{estimator}", "tuned": True,
+                **search_settings(budget), "interactions": "allowed",
                 "categories": "native categorical support", "missing numbers": MISSING_NUMBERS,
                 "missing categories": MISSING_CATEGORIES, "random_state": seed}
     estimator = "RandomForestClassifier" if task == "classification" else "RandomForestRegressor"
@@ -91,23 +85,31 @@ def _one_hot(features: pd.DataFrame) -> np.ndarray:
     return np.column_stack(parts)
 
 
+def headline_name(kind: str, budget: int = DEFAULT_BUDGET) -> str:
+    """The benchmark as the headline names it, saying how it was tuned."""
+    if kind == "trees":
+        return (f"benchmark (trees, tuned in each training fold: {budget} candidate "
+                f"setting{'s' if budget != 1 else ''})")
+    return f"benchmark ({kind})"
+
+
 def fit_benchmark(kind: str, task: str, features: pd.DataFrame, target: np.ndarray,
-                  train: np.ndarray, test: np.ndarray, seed: int) -> np.ndarray:
+                  train: np.ndarray, test: np.ndarray, seed: int,
+                  budget: int = DEFAULT_BUDGET) -> np.ndarray:
     """Fit on the training rows; return the test rows' probability (or prediction)."""
+    return benchmark_fold(kind, task, features, target, train, test, seed, budget)[0]
+
+
+def benchmark_fold(kind: str, task: str, features: pd.DataFrame, target: np.ndarray,
+                   train: np.ndarray, test: np.ndarray, seed: int,
+                   budget: int = DEFAULT_BUDGET) -> tuple[np.ndarray, dict[str, Any] | None]:
+    """The test rows' probability (or prediction) from a fit on the training rows, and for
+    the tuned trees the record of the fold's search (None for the forest)."""
     classify = task == "classification"
+    record = None
     if kind == "trees":
         matrix, mask = _codes(features)
-        best, best_loss = None, np.inf
-        for leaves in TREE_LEAVES:
-            kind_of = HistGradientBoostingClassifier if classify else HistGradientBoostingRegressor
-            model = kind_of(max_leaf_nodes=leaves, categorical_features=mask,
-                               random_state=seed, **TREE_SETTINGS)
-            model.fit(matrix[train], target[train])
-            # validation scores are negative losses; the best is where stopping settled
-            loss = -float(np.max(model.validation_score_))
-            if loss < best_loss:
-                best, best_loss = model, loss
-        model = best
+        model, record = tuned_trees(matrix, mask, target, train, classify, seed, budget)
         rows = matrix[test]
     else:
         matrix = _one_hot(features)
@@ -120,5 +122,5 @@ def fit_benchmark(kind: str, task: str, features: pd.DataFrame, target: np.ndarr
         model.fit(matrix[train], target[train])
         rows = matrix[test]
     if classify:
-        return model.predict_proba(rows)[:, 1]
-    return model.predict(rows)
+        return model.predict_proba(rows)[:, 1], record
+    return model.predict(rows), record

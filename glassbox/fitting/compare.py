@@ -30,7 +30,8 @@ from glassbox.core.errors import OptionError
 from glassbox.core.provenance import frame_fingerprint, library_versions
 from glassbox.core.schema import Schema
 from glassbox.core.wording import plural, verb
-from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings
+from glassbox.fitting.benchmark_search import DEFAULT_BUDGET, check_budget
+from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings, headline_name
 from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
 from glassbox.fitting.compare_checks import (
     FLAG_RULE,
@@ -45,6 +46,7 @@ from glassbox.fitting.compare_checks import (
 )
 from glassbox.fitting.compare_folds import (
     SET_ASIDE_RULE,
+    TUNING,
     keep_scorable,
     make_folds,
     plan_tasks,
@@ -111,6 +113,7 @@ class CompareSettings:
 
     families: tuple[str, ...] = ("sparse", "spline", "boosted")
     benchmark: str = "trees"
+    benchmark_budget: int = DEFAULT_BUDGET  # candidate settings per fold (the tuned trees)
     folds: int = 5
     repeats: int = 1
     seed: int = 0
@@ -129,6 +132,7 @@ class CompareSettings:
         if self.benchmark not in BENCHMARKS:
             raise OptionError(f"unknown benchmark {self.benchmark!r} "
                               f"(known: {', '.join(BENCHMARKS)})")
+        check_budget(self.benchmark_budget)
         if self.folds < 2:
             raise OptionError(f"--folds must be at least 2, not {self.folds}")
         if self.repeats < 1:
@@ -280,6 +284,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     metrics = CLASSIFICATION_METRICS if goal == "classification" else REGRESSION_METRICS
     primary = metrics[0]
     records, predictions = pop_predictions(records)
+    tuning = [{"repeat": int(record["repeat"]), "fold": int(record["fold"]),
+               **record.pop(TUNING)} for record in records if record.get(TUNING) is not None]
+    for record in records:
+        record.pop(TUNING, None)
+    tuning.sort(key=lambda row: (row["repeat"], row["fold"]))
     target = np.asarray(prepared.target)
     # the metrics the models were scored on (records made before Gini and KS lack them)
     metrics = tuple(m for m in metrics if all(m in record for record in records))
@@ -325,7 +334,9 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     if goal == "classification":
         calibration, calibration_fit_table = calibration_tables(
             predictions, folds, target, order[:-1])
-    headline = make_headline(models, costs, primary, benchmark)
+    headline = make_headline(models, costs, primary,
+                             headline_name(settings.benchmark, settings.benchmark_budget)
+                             if tuning else benchmark)
     set_aside = set_aside or {"test_rows": 0}
     if set_aside["test_rows"]:
         headline += (f" {plural(set_aside['test_rows'], 'test row')} over all folds "
@@ -344,7 +355,8 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     else:
         chosen = {"benchmark": settings.benchmark,
                   "benchmark_settings": benchmark_settings(settings.benchmark, goal,
-                                                           settings.seed),
+                                                           settings.seed,
+                                                           settings.benchmark_budget),
                   "benchmark_origin": ORIGIN_BUILT_IN}
     settings_record = {"families": list(settings.families), **chosen,
                        "folds": settings.folds, "repeats": settings.repeats,
@@ -353,6 +365,9 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "family_options": settings.family_options,
                        "interval": INTERVAL_METHOD,
                        "test_to_train_ratio": share}
+    if tuning:  # each fold's search: the settings chosen and the budget used
+        settings_record["benchmark_budget"] = settings.benchmark_budget
+        settings_record["benchmark_tuning"] = tuning
     return Comparison(goal, primary, headline, models, costs, fold_rows.reset_index(drop=True),
                       sparsity, settings_record, provenance, schema.to_dict(),
                       base_rate=base_rate(target, goal), flags=flags,

@@ -19,7 +19,7 @@ from glassbox.core.additive import AdditiveModel
 from glassbox.core.errors import DataError
 from glassbox.core.schema import Schema, pool_levels, prepare
 from glassbox.core.workers import become_worker, pool_running, sigint_held
-from glassbox.fitting.benchmarks import fit_benchmark
+from glassbox.fitting.benchmarks import benchmark_fold
 from glassbox.fitting.fit import _missing_as_level, finished, fit_typed, ready, unpooled
 from glassbox.fitting.metrics import (
     classification_metrics,
@@ -31,6 +31,7 @@ if TYPE_CHECKING:
     from glassbox.fitting.compare import CompareSettings
 
 PREDICTIONS = "predictions"  # a record's out-of-fold predictions, in its test rows' order
+TUNING = "tuning"  # the benchmark record's search in its fold (the tuned trees only)
 SET_ASIDE_RULE = ("each misses a feature that no training row of its fold misses, so a model "
                   "fitted there that uses it has no missing-value entry for it and would refuse "
                   "the row; such rows are left out of every model's test rows alike")
@@ -170,11 +171,12 @@ def _run_task(task: Task, typed: Typed, schema: Schema,
     base = {"repeat": task.repeat, "fold": task.fold, "train_rows": len(task.train),
             "test_rows": len(task.test)}
     if task.kind == "benchmark":
-        prediction = fit_benchmark(settings.benchmark, goal, typed.pooled, target,
-                                   task.train, task.test, settings.seed + task.repeat)
+        prediction, tuning = benchmark_fold(settings.benchmark, goal, typed.pooled, target,
+                                            task.train, task.test, settings.seed + task.repeat,
+                                            settings.benchmark_budget)
         return [{**base, "model": task.name,
                  **fold_scores(goal, target[task.test], prediction, settings.cutoff),
-                 PREDICTIONS: np.asarray(prediction, dtype=float)}]
+                 PREDICTIONS: np.asarray(prediction, dtype=float), TUNING: tuning}]
     if task.kind == "family":
         options = settings.family_options.get(task.name, {})
         model = fold_model(typed, schema, task.name, task.train, options)

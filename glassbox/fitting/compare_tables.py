@@ -244,9 +244,12 @@ def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
     options = "".join(f" --option {family}.{name}={setting_text(value)}"
                       for family, chosen in sorted(settings.get("family_options", {}).items())
                       for name, value in sorted(chosen.items()))
+    budget = (f" --benchmark-budget {settings['benchmark_budget']}"
+              if "benchmark_budget" in settings and not settings.get("benchmark_scores")
+              else "")
     benchmark = (f"--benchmark-scores {settings['benchmark_scores']}"
                  if settings.get("benchmark_scores") else f"--benchmark {settings['benchmark']}")
-    return (f"glassbox compare {data} --schema {schema} {families} {benchmark} "
+    return (f"glassbox compare {data} --schema {schema} {families} {benchmark}{budget} "
             f"--folds {settings['folds']} --repeats "
             f"{settings['repeats']} --seed {settings['seed']} --cutoff "
             f"{settings['cutoff']:g}{options}")
