@@ -53,6 +53,7 @@ class CompareFormat(StrEnum):
     "glassbox compare loans.csv --schema loans.toml --out compare.json"))
 @friendly
 def compare_command(
+    ctx: typer.Context,
     data: TrainingData,
     schema: SchemaOption,
     family: Annotated[list[Family], typer.Option(
@@ -131,6 +132,13 @@ def compare_command(
         folds_format = formats.table_format(folds_out, "--folds-out")
         check_output(folds_out, f"{folds_format}-folds", [data, schema, benchmark_scores],
                      force=force, option="--folds-out")
+    # given on the command line (by its source's name: typer carries its own click)
+    given = getattr(ctx.get_parameter_source("benchmark_budget"), "name", "") == "COMMANDLINE"
+    if given and (benchmark.value != "trees" or benchmark_scores):
+        raise OptionError(f"--benchmark-budget {benchmark_budget} sets the search of the trees "
+                          "benchmark; "
+                          + ("your scores are not searched" if benchmark_scores else
+                             f"--benchmark {benchmark.value} has none"))
     if benchmark_scores is not None:
         if benchmark != DEFAULT_BENCHMARK:
             raise OptionError(f"--benchmark {benchmark.value} and --benchmark-scores "

@@ -117,3 +117,21 @@ def test_the_command_default_budget_is_the_library_default():
     from glassbox.fitting.benchmark_search import DEFAULT_BUDGET
 
     assert BENCHMARK_BUDGET == DEFAULT_BUDGET
+
+
+@pytest.mark.parametrize("extra", [["--benchmark", "forest"], ["--benchmark-scores", "x.csv"]])
+def test_a_budget_with_no_search_to_set_is_refused(tmp_path, extra):
+    # constructed: --benchmark-budget given where nothing is searched (the forest, or your
+    # own scores) is refused in one line before any work, never silently ignored
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app
+
+    from .conftest import DEMO
+
+    (tmp_path / "x.csv").write_text("row,score\n1,0.5\n")
+    result = CliRunner().invoke(app, [
+        "compare", str(DEMO / "loans.csv"), "--schema", str(DEMO / "loans.schema.toml"),
+        "--benchmark-budget", "3", *[str(tmp_path / e) if e == "x.csv" else e for e in extra]])
+    assert result.exit_code == 2, result.output
+    assert "--benchmark-budget 3" in result.output and len(result.output.strip().splitlines()) == 1
