@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import functools
 
+import numpy as np
 import pandas as pd
 
 from glassbox.core.schema import Schema
@@ -126,3 +127,21 @@ def export_rows(ids: str | None = None) -> pd.DataFrame:
         frame.insert(0, ids, [f"C{i:04d}" for i in range(1, len(frame) + 1)])
     frame["Records"] = frame["Records"].map({"yes": " Yes", "no": "NO"})
     return frame
+
+
+def sklearn_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
+    """A frame as scikit-learn's trees take it with no imputation, built here independently
+    of glassbox: numbers with NaN kept, categories as codes of their sorted levels, a
+    missing value one more level of its own. Also says which columns are categories."""
+    columns, categorical = [], []
+    for name in features.columns:
+        column = features[name]
+        if column.dtype == object or isinstance(column.dtype, pd.CategoricalDtype):
+            filled = column.astype(object).where(column.notna(), "(missing)")
+            columns.append(pd.Categorical(filled, categories=sorted(set(filled))).codes
+                           .astype(float))
+            categorical.append(True)
+        else:
+            columns.append(column.to_numpy(dtype=float))
+            categorical.append(False)
+    return np.column_stack(columns), categorical

@@ -10,7 +10,6 @@ or 2% RMSE, of that reference.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy.stats import loguniform, randint, uniform
 from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
@@ -23,33 +22,17 @@ from glassbox.fitting.benchmark_search import FIRST, GRID, candidates, check_bud
 from glassbox.fitting.benchmarks import benchmark_fold
 
 from .conftest import reference_data
+from .real_credit import sklearn_matrix
 
 WIDER = {"learning_rate": loguniform(0.01, 0.3), "max_leaf_nodes": randint(3, 128),
          "min_samples_leaf": randint(2, 120), "l2_regularization": loguniform(1e-3, 30),
          "max_features": uniform(0.3, 0.7)}
 
 
-def independent_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
-    """Numbers with NaN kept, categories as codes of their sorted levels, a missing value
-    one more level: built here, not by glassbox."""
-    columns, categorical = [], []
-    for name in features.columns:
-        column = features[name]
-        if column.dtype == object or isinstance(column.dtype, pd.CategoricalDtype):
-            filled = column.astype(object).where(column.notna(), "(missing)")
-            columns.append(pd.Categorical(filled, categories=sorted(set(filled))).codes
-                           .astype(float))
-            categorical.append(True)
-        else:
-            columns.append(column.to_numpy(dtype=float))
-            categorical.append(False)
-    return np.column_stack(columns), categorical
-
-
 def side_by_side(features, target, classify, folds, budget, reference_candidates, inner):
     """Mean held-out score (ROC AUC, or RMSE) of the benchmark and of the reference over
     the same outer folds."""
-    matrix, categorical = independent_matrix(features)
+    matrix, categorical = sklearn_matrix(features)
     splitter = (StratifiedKFold if classify else KFold)(folds, shuffle=True, random_state=0)
     ours, theirs = [], []
     for train, test in splitter.split(matrix, target):

@@ -301,24 +301,6 @@ def test_keep_scorable_sets_aside_rows_no_fold_model_could_score():
     assert set_aside["rows_missing_each_feature"] == {"z": 1}
 
 
-def credit_benchmark_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
-    """credit_data as scikit-learn takes it with no imputation, built here independently
-    of glassbox.fitting.benchmarks: numbers with NaN, categories as codes of their sorted levels
-    with a missing value as one more level of its own."""
-    columns, categorical = [], []
-    for name in features.columns:
-        column = features[name]
-        if column.dtype == object:
-            filled = column.fillna("(missing)")
-            columns.append(pd.Categorical(filled, categories=sorted(set(filled))).codes
-                           .astype(float))
-            categorical.append(True)
-        else:
-            columns.append(column.to_numpy(dtype=float))
-            categorical.append(False)
-    return np.column_stack(columns), categorical
-
-
 BOOSTED_QUICK = {"max_iter": 200, "learning_rate": 0.1}
 
 
@@ -341,6 +323,7 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     from sklearn.ensemble import HistGradientBoostingClassifier
 
     from glassbox import fit_model
+    from tests.real_credit import sklearn_matrix
 
     frame, schema, settings, result = credit_with_gaps_compared
     prepared = prepare(frame, schema)
@@ -358,7 +341,7 @@ def test_credit_data_with_gaps_compares_with_no_imputation(credit_with_gaps_comp
     assert set_aside["test_rows"] == 2 and set_aside["rows_missing_each_feature"] == {"Job": 2}
     assert "2 test rows over all folds were scored by no model" in result.headline
     kept = np.setdiff1d(test, job_missing)
-    matrix, categorical = credit_benchmark_matrix(prepared.features)
+    matrix, categorical = sklearn_matrix(prepared.features)
     tuning, = [row for row in result.settings["benchmark_tuning"] if row["fold"] == fold]
     assert tuning["budget"] == settings.benchmark_budget == tuning["candidates_tried"]
     assert tuning["inner_training_rows"] + tuning["inner_validation_rows"] == len(train)
