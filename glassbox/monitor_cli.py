@@ -145,7 +145,7 @@ def block_progress(chunk_rows: int) -> Iterator[Callable[[int, int | None], None
         return
     from rich.progress import Progress, TextColumn, TimeElapsedColumn
 
-    from glassbox.publishing.monitor_view import plural
+    from glassbox.core.wording import plural
 
     with Progress(TextColumn("{task.description}"), TimeElapsedColumn(), console=console,
                   transient=True) as bar:

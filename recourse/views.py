@@ -9,6 +9,7 @@ import pandas as pd
 from rich.console import Group, RenderableType
 from rich.text import Text
 
+from glassbox.core.wording import plural
 from glassbox.explaining.groups import flag_caption, flag_words
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
@@ -17,7 +18,6 @@ from glassbox.publishing.narrow import (
     frame_texts,
     indented,
     number_texts,
-    plural,
 )
 from glassbox.publishing.render import frame_table
 from recourse import reach

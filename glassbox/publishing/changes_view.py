@@ -14,9 +14,10 @@ from rich.console import Group, RenderableType
 from rich.text import Text
 
 from glassbox.core.provenance import COLUMNS_METHOD, FINGERPRINT_METHODS, fingerprint_method
+from glassbox.core.wording import plural
 from glassbox.explaining.changes import UNSEEN, Changes, TermChange
 from glassbox.publishing import palette
-from glassbox.publishing.monitor_view import WIDTH, count_text, plural, share_text
+from glassbox.publishing.monitor_view import WIDTH, count_text, share_text
 from glassbox.publishing.narrow import FittedTable, number_texts
 
 CAUTION = ("A comparison of two models' tables and of their scores: a prompt for the "

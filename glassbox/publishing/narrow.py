@@ -27,8 +27,6 @@ from rich.padding import Padding
 from rich.table import Table
 from rich.text import Text
 
-from glassbox.core.wording import plural  # noqa: F401  (the views import it from here)
-
 SIGNIFICANT = 4  # digits the largest number of a column keeps
 MOST_DECIMALS = 6
 NEGATIVE_ZERO = re.compile(r"-(0[.,]?0*)(%?)$")
