@@ -1,6 +1,6 @@
 """The one representation: an additive model whose terms are tables.
 
-    score(x) = intercept + sum_j f_j(x_j)
+    score(x) = intercept + sum_j f_j(x_j) + sum_(j,k) f_jk(x_j, x_k)
 
 Each f_j is a table: a curve (piecewise-linear over knots), steps
 (piecewise-constant over bin edges) or levels (one value per category). What an
@@ -10,6 +10,9 @@ beyond the training range are scored at the table's ends (clamped).
 Every table also has an entry for a missing value (`missing`): what a row with no
 value for the feature adds, learned from training rows that had none. A term whose
 training data had no missing value has `missing = None` and refuses to score one.
+
+The pairwise tables f_jk (`PairTerm`, glassbox.core.pairs) are optional: a model fitted
+without pairs has none, and every feature of a pair also has a main term.
 """
 
 from __future__ import annotations
@@ -32,6 +35,7 @@ from glassbox.core.errors import (
     value_text,
 )
 from glassbox.core.logistic import logistic
+from glassbox.core.pairs import PairTerm
 from glassbox.core.schema import Schema, prepare, rows_text
 from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 from glassbox.core.wording import noun, plural
@@ -412,6 +416,9 @@ def profile_features(features: pd.DataFrame, schema: Schema,
 class AdditiveModel:
     """Intercept, link and one table per feature; scores frames exactly as its tables say.
 
+    `pairs` are the two-feature tables (glassbox.core.pairs), centred along each axis;
+    `contributions` gives each pair a column named by `pair_name`.
+
     `cells` summarise the training rows under numeric terms exactly (see
     `glassbox.core.cells`); models fitted before they existed have none. `baseline` is the
     development summary monitoring compares periods with (`glassbox.explaining.baseline`); models
@@ -426,6 +433,7 @@ class AdditiveModel:
     metadata: Mapping[str, Any] = field(default_factory=dict)
     cells: tuple[TermCells, ...] = ()
     baseline: Baseline | None = None
+    pairs: tuple[PairTerm, ...] = ()
 
     def __post_init__(self) -> None:
         if self.link not in LINKS:
@@ -442,6 +450,15 @@ class AdditiveModel:
         if len(set(summarised)) != len(summarised) or not set(summarised) <= used:
             raise ModelFileError("training cells must belong to features the schema uses, "
                                  "one summary per feature")
+        seen: set[frozenset[str]] = set()
+        for pair in self.pairs:
+            lacking = [f for f in pair.features if f not in names]
+            if lacking:
+                raise ModelFileError(f"pair '{pair.name}': {', '.join(lacking)} has no main "
+                                     "term (every feature of a pair has one)")
+            if frozenset(pair.features) in seen:
+                raise ModelFileError(f"pair '{pair.name}' is listed twice")
+            seen.add(frozenset(pair.features))
 
     @property
     def features(self) -> tuple[str, ...]:
@@ -457,6 +474,18 @@ class AdditiveModel:
                 return term
         raise OptionError(f"the model has no term for '{feature}' "
                           f"(its features: {', '.join(self.features)})")
+
+    @property
+    def parts(self) -> tuple[str, ...]:
+        """The contribution columns: each main term's feature, then each pair's name."""
+        return self.features + tuple(p.name for p in self.pairs)
+
+    def pair(self, first: str, second: str) -> PairTerm:
+        """The pair of two features, in either order."""
+        for pair in self.pairs:
+            if set(pair.features) == {first, second}:
+                return pair
+        raise OptionError(f"the model has no pair of '{first}' and '{second}'")
 
     def profile(self, feature: str) -> FeatureProfile:
         for profile in self.profiles:
@@ -485,14 +514,17 @@ class AdditiveModel:
                                "the model has no entry")
 
     def contributions(self, frame: pd.DataFrame, source: str | None = None) -> pd.DataFrame:
-        """One column per term: what each feature adds to the score of each row."""
+        """One column per term: what each feature adds to the score of each row (then one
+        per pair, named by `pair_name`)."""
         encoded = self.encode(frame, source)
         return self.contributions_encoded(encoded)
 
     def contributions_encoded(self, encoded: pd.DataFrame) -> pd.DataFrame:
         """Contributions for a frame already typed by `encode`."""
         columns = {t.feature: t.evaluate(encoded[t.feature].to_numpy()) for t in self.terms}
-        return pd.DataFrame(columns, index=encoded.index, columns=list(self.features))
+        for pair in self.pairs:
+            columns[pair.name] = pair.evaluate_frame(encoded)
+        return pd.DataFrame(columns, index=encoded.index, columns=list(self.parts))
 
     def score(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:
         """The score on the link scale (log-odds for classification)."""
@@ -503,6 +535,8 @@ class AdditiveModel:
         total = np.full(len(encoded), float(self.intercept))
         for term in self.terms:
             total += term.evaluate(encoded[term.feature].to_numpy())
+        for pair in self.pairs:
+            total += pair.evaluate_frame(encoded)
         return total
 
     def probability(self, frame: pd.DataFrame, source: str | None = None) -> np.ndarray:

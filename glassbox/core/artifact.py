@@ -10,6 +10,7 @@ a damaged, edited or foreign file. Nothing is ever pickled.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -17,15 +18,25 @@ from glassbox.core import documents, structure
 from glassbox.core.additive import AdditiveModel, FeatureProfile, term_from_dict, term_to_dict
 from glassbox.core.cells import TermCells
 from glassbox.core.errors import GlassboxError, ModelFileError
+from glassbox.core.pairs import PairTerm
 from glassbox.core.schema import Schema
 from glassbox.explaining.baseline import Baseline, check_baseline
 
 FORMAT = "glassbox-model"
-VERSION = 2  # 2: every term may carry a missing-value entry; profiles count missing rows
+VERSION = 3  # 2: every term may carry a missing-value entry; profiles count missing rows
+# 3: pairwise tables ("pairs"). A model without pairs is still written as version 2, so
+# that its file is unchanged and an older glassbox reads it; one with pairs is version 3,
+# which an older glassbox refuses rather than scoring without them.
+WITHOUT_PAIRS = 2
 
 
 MODEL_FILE = documents.Kind(FORMAT, VERSION, "model", "model file", "a glassbox model file",
                             "restore the original or refit", structure.MODEL)
+_PLAIN_FILE = replace(MODEL_FILE, version=WITHOUT_PAIRS)
+
+
+def _kind(model: AdditiveModel) -> documents.Kind:
+    return MODEL_FILE if model.pairs else _PLAIN_FILE
 checksum = documents.checksum
 canonical_json = documents.canonical_json
 
@@ -46,6 +57,8 @@ def model_to_dict(model: AdditiveModel) -> dict[str, Any]:
         content["cells"] = [cells.to_dict() for cells in model.cells]
     if model.baseline is not None:
         content["baseline"] = model.baseline.to_dict()
+    if model.pairs:
+        content["pairs"] = [pair.to_dict() for pair in model.pairs]
     return content
 
 
@@ -67,6 +80,8 @@ def check_score_range(model: AdditiveModel, where: str) -> None:
         entries = [*term.values, getattr(term, "unseen", 0.0),
                    0.0 if term.missing is None else term.missing]
         largest += max(abs(value) for value in entries)
+    for pair in model.pairs:
+        largest += pair.largest()
     if not math.isfinite(largest):
         raise ModelFileError(f"{where}: its intercept and term values add up to scores "
                              "beyond the finite numbers (a row could score inf or NaN); "
@@ -87,6 +102,7 @@ def _model_from_dict(content: dict[str, Any], source: str) -> AdditiveModel:
             cells=tuple(TermCells.from_dict(c) for c in content.get("cells", [])),
             baseline=(Baseline.from_dict(content["baseline"]) if "baseline" in content
                       else None),
+            pairs=tuple(PairTerm.from_dict(p) for p in content.get("pairs", [])),
         )
     except KeyError as exc:
         raise ModelFileError(f"model file {source}: missing entry {exc}") from None
@@ -98,12 +114,12 @@ def _model_from_dict(content: dict[str, Any], source: str) -> AdditiveModel:
 
 def dumps(model: AdditiveModel) -> str:
     """The model file's text: indented, keys in a fixed order, ends with a newline."""
-    return documents.dumps(MODEL_FILE, model_to_dict(model))
+    return documents.dumps(_kind(model), model_to_dict(model))
 
 
 def save(model: AdditiveModel, path: str | Path) -> Path:
     """Write the model file atomically and return its path."""
-    return documents.save(MODEL_FILE, model_to_dict(model), path)
+    return documents.save(_kind(model), model_to_dict(model), path)
 
 
 def loads(text: str, source: str = "<text>") -> AdditiveModel:

@@ -385,6 +385,20 @@ TERM = Tagged("kind", {
                                "values": Items(NUMBER, at_least=1)},
                      optional={"unseen": NUMBER, **_BANDS}),
 })
+_AXIS_MISSING = {"missing": Flag()}
+PAIR_AXIS = Tagged("kind", {
+    "edges": Record(required={"feature": TEXT, "kind": TEXT,
+                              "edges": Items(NUMBER, order="strict")}, optional=_AXIS_MISSING),
+    "knots": Record(required={"feature": TEXT, "kind": TEXT,
+                              "knots": Items(NUMBER, at_least=1, order="strict")},
+                    optional=_AXIS_MISSING),
+    "levels": Record(required={"feature": TEXT, "kind": TEXT,
+                               "levels": Items(TEXT, at_least=1)}, optional=_AXIS_MISSING),
+})
+# a pairwise table (glassbox.core.pairs); its shape against its axes is checked by PairTerm
+PAIR = Record(required={"kind": Text(("pair",)), "features": Items(TEXT, length=2),
+                        "axes": Items(PAIR_AXIS, length=2),
+                        "values": Items(Items(NUMBER, at_least=1), at_least=1)})
 PERCENTILE_POINTS = 101  # 0%, 1%, ..., 100%
 PROFILE = Record(
     required={"feature": TEXT, "kind": TEXT},
@@ -422,7 +436,7 @@ MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,
               "terms": Items(TERM), "schema": SCHEMA},
     optional={"profiles": Items(PROFILE), "metadata": METADATA, "cells": Items(CELLS),
-              "baseline": BASELINE})
+              "baseline": BASELINE, "pairs": Items(PAIR)})
 
 FEATURE_POINTS = Record(
     required={"feature": TEXT, "term": Text(("curve", "steps", "levels")),

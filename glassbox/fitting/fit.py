@@ -21,6 +21,7 @@ from glassbox.core.additive import AdditiveModel, LevelsTerm, Term, centre_terms
 from glassbox.core.cells import summarise_term
 from glassbox.core.columns import MANY_LEVELS, OTHER_LEVEL
 from glassbox.core.errors import DataError, OptionError
+from glassbox.core.pairs import missing_level_to_entry, purify
 from glassbox.core.provenance import fit_day, frame_fingerprint, library_versions
 from glassbox.core.schema import (
     MISSING_LEVEL,
@@ -129,13 +130,19 @@ def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, sche
     """A family's fit on the rows `ready` gave, as the model: terms centred on those rows,
     metadata and (with `summaries`) the training profiles, cells and baseline."""
     task = schema.target.task
-    terms, shift = centre_terms(tuple(_level_to_missing(t) for t in fitted.terms), features)
+    terms, pairs, moved = purify(tuple(_level_to_missing(t) for t in fitted.terms),
+                                 tuple(missing_level_to_entry(p, MISSING_LEVEL)
+                                       for p in fitted.pairs), features)
+    terms, shift = centre_terms(terms, features)
+    shift += moved
     used = [t.feature for t in terms]
     # each term over its training column, once: importance and the baseline read it
     contributions = {t.feature: np.asarray(t.evaluate(features[t.feature].to_numpy()),
                                            dtype=float) for t in terms}
     importance = {name: float(np.mean(np.abs(values)))
                   for name, values in contributions.items()}
+    for pair in pairs:  # a pair's importance is keyed by its name
+        importance[pair.name] = float(np.mean(np.abs(pair.evaluate_frame(features))))
     metadata = {
         "family": family,
         "parameters": fitted.parameters,
@@ -157,7 +164,7 @@ def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, sche
     link = "logit" if task == "classification" else "identity"
     intercept = float(fitted.intercept + shift)
     if not summaries:
-        return AdditiveModel(link, intercept, terms, schema, (), metadata)
+        return AdditiveModel(link, intercept, terms, schema, (), metadata, pairs=pairs)
     runs: dict[str, tuple[np.ndarray, np.ndarray]] = {}  # one sort per column, shared
     profiles = profile_features(features, schema, runs)
     # exact training summaries under numeric terms (rows with no value counted apart),
@@ -165,7 +172,8 @@ def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, sche
     cells = tuple(summarise_term(t, features[t.feature].to_numpy(dtype=float),
                                  runs=runs[t.feature]) for t in terms
                   if task == "classification" and not isinstance(t, LevelsTerm))
-    model = AdditiveModel(link, intercept, terms, schema, profiles, metadata, cells)
+    model = AdditiveModel(link, intercept, terms, schema, profiles, metadata, cells,
+                          pairs=pairs)
     return replace(model, baseline=build_baseline(model, features, TRAINING_ROWS,
                                                   contributions, runs))
 
