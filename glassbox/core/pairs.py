@@ -235,6 +235,8 @@ class PairTerm:
                                      f"{first.feature!r} and {second.feature!r}")
             return cls(first, second, tuple(tuple(float(v) for v in row)
                                             for row in data["values"]))
+        except ModelFileError:
+            raise
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(f"pair {data.get('features')!r} is incomplete: {exc}") from None
 
