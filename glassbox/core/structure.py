@@ -431,7 +431,10 @@ BASELINE = Record(required={
         required={"feature": TEXT, "source": Text(("steps", "deciles", "levels")),
                   "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
                   "mean_absolute_contribution": POSITIVE, "contribution_spread": POSITIVE},
-        optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))})
+        optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))},
+    optional={"pairs": Items(Record(required={
+        "pair": TEXT, "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
+        "mean_absolute_contribution": POSITIVE, "contribution_spread": POSITIVE}))})
 MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,
               "terms": Items(TERM), "schema": SCHEMA},
