@@ -164,8 +164,10 @@ def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
                       zip(lowest[:half], lowest[half:], strict=True)]
     texts["direction"] = [direction_words(str(o or ""), str(d or "")) for o, d in
                           zip(summary["observed"], summary["declared"], strict=True)]
-    texts["missing"] = [missing_words(m, s, short=True) for m, s in
-                        zip(summary["missing"], summary["missing_share"], strict=True)]
+    pair = summary["kind"] == "pair"
+    texts["missing"] = ["in its table" if is_pair else missing_words(m, s, short=True)
+                        for m, s, is_pair in zip(summary["missing"], summary["missing_share"],
+                                                 pair, strict=True)]
     return texts
 
 
@@ -216,13 +218,18 @@ def term_notes(table: pd.DataFrame) -> list[str]:
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
                 scale: str = "score",
                 keep: Mapping[str, Sequence[int]] | None = None,
-                marks: Sequence[MarkedRow] = ()) -> RenderableType:
+                marks: Sequence[MarkedRow] = (), model: AdditiveModel | None = None,
+                pairs: Sequence[str] = ()) -> RenderableType:
     """The summary table, then each feature's table (long ones thinned, saying so;
     `keep`: positions of rows each feature's table must show; `marks`: rows a value
-    asked about falls in, shown beside the value and said in a line under the table)."""
+    asked about falls in, shown beside the value and said in a line under the table),
+    then the heat table of each of the model's `pairs` named."""
     marked = {mark.feature: mark for mark in marks}
+    title = SUMMARY_TITLE.format(scale=scale)
+    if (summary["kind"] == "pair").any():
+        title += "; pairwise tables (FIRST & SECOND) follow the features"
     parts: list[RenderableType] = [FittedTable.of_frame(
-        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS,
+        summary_texts(summary), title=title, headings=HEADINGS,
         whole=["range"])]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
@@ -234,7 +241,55 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
         notes = term_notes(table) + ([] if mark is None else [mark.words])
         parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS,
                                           notes=notes))
+    parts += [pair_view(model, name) for name in pairs if model is not None]
     return Group(*parts)
+
+
+def heat_texts(grid: pd.DataFrame) -> pd.DataFrame:
+    """A pair's grid (`pair_shapes.heat_grid`) as text cells: a first column of the first
+    axis's entries, headed by its feature, then one column per entry of the second axis,
+    every value in one signed style (so a column of cells reads like any other)."""
+    values = grid.to_numpy(dtype=float)
+    texts = np.asarray(number_texts(list(values.ravel()), signed=True),
+                       dtype=object).reshape(values.shape)
+    frame = pd.DataFrame(texts, columns=[str(c) for c in grid.columns])
+    frame.insert(0, str(grid.index.name), [str(label) for label in grid.index])
+    return frame
+
+
+def pair_title(pair: Any, words: str = "") -> str:
+    """A heat table's title: the pair, its axes' kinds, which feature runs where."""
+    return (f"{pair.name} (pair, {pair.first.kind} × {pair.second.kind}): rows "
+            f"{pair.first.feature}, columns {pair.second.feature}{words}")
+
+
+def pair_notes(pair: Any, shares: bool = False) -> list[str]:
+    """Lines under a heat table: how knots read, the missing entries, the shares."""
+    from glassbox.explaining.pair_shapes import SHARES_UNKNOWN
+
+    notes = []
+    knots = [a.feature for a in (pair.first, pair.second) if a.kind == "knots"]
+    if knots:
+        notes.append(f"{' and '.join(knots)}: values at the knots; between two knots the "
+                     "table is read on a straight line, beyond the ends at the end knot.")
+    missing = [a.feature for a in (pair.first, pair.second) if a.missing]
+    if missing:
+        notes.append(f"The 'missing' {'row' if missing[0] == pair.first.feature else 'column'}"
+                     f"{'s' if len(missing) > 1 else ''} ({', '.join(missing)}): a row with "
+                     "no value.")
+    if not shares:
+        notes.append(f"Cell shares: {SHARES_UNKNOWN}.")
+    return notes
+
+
+def pair_view(model: AdditiveModel, name: str) -> RenderableType:
+    """One pair's heat table: rows the first axis, columns the second (a wide table is
+    stacked in parts, each repeating the first column), the notes under it."""
+    from glassbox.explaining.pair_shapes import find_pair, heat_grid
+
+    pair = find_pair(model, name)
+    return FittedTable.of_frame(heat_texts(heat_grid(model, name)), title=pair_title(pair),
+                                notes=pair_notes(pair))
 
 
 def terminal_columns(table: pd.DataFrame) -> list[str]:
