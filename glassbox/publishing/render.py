@@ -409,12 +409,17 @@ def data_value(value: Any) -> str:
     return value_text(value)
 
 
+def reason_value(value: Any) -> str:
+    """A reason's value as the table shows it; a pair's two values joined by "and"."""
+    if isinstance(value, tuple):
+        return " and ".join(reason_value(v) for v in value)
+    return MISSING_LEVEL if is_missing(value) else data_value(value)
+
+
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
     """One row's score and its reasons, largest gap first."""
     gaps = number_texts([reason.gap for reason in reasons])
-    rows = [(str(number), reason.feature,
-             MISSING_LEVEL if is_missing(reason.value) else data_value(reason.value), gap,
-             reason.text)
+    rows = [(str(number), reason.feature, reason_value(reason.value), gap, reason.text)
             for number, (reason, gap) in enumerate(zip(reasons, gaps, strict=True), start=1)]
     table = FittedTable(f"Reasons, largest gap below the best first ({scale} scale)",
                         [("#", "right"), ("feature", "left"), ("value", "left"),
