@@ -314,7 +314,7 @@ def points_command(
     fidelity = None if card.fidelity is None else card.fidelity.summary()
     if written == "table":
         stdout_console().print(points_view(points.card_summary(card), points.card_table(card),
-                                           fidelity))
+                                           fidelity, card.pairs))
         return
     if written == "json":
         text = points.dumps(card)

@@ -434,17 +434,43 @@ POINTS_HEADINGS = {"row": "value or range", "training_rows": "rows",
 
 
 def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
-                fidelity: Mapping[str, Any] | None = None) -> RenderableType:
+                fidelity: Mapping[str, Any] | None = None,
+                pairs: Sequence[Any] = ()) -> RenderableType:
     """What `glassbox points` prints: the scaling, the fidelity if measured, then the
     base points and each feature's rows of points, with each row's training rows, its
-    spread and the largest difference any value in it can have (points)."""
+    spread and the largest difference any value in it can have (points); then a grid of
+    points per pair (`pairs`: the card's `PairPoints`)."""
     parts: list[RenderableType] = [key_values(summary, title="Points card")]
     if fidelity is not None:
         parts.append(key_values(fidelity, title="Card against the exact score"))
     columns = ["row", "points", "contribution", "training_rows", "spread",
                "largest_difference"]
+    grids = {pair.name for pair in pairs}
     for feature, group in rows.groupby("feature", sort=False):
+        if feature in grids:
+            continue
         texts = frame_texts(group, columns, {"points": "count", "training_rows": "count"})
         parts.append(FittedTable.of_frame(texts, title=str(feature),
                                           headings=POINTS_HEADINGS))
+    parts += [pair_points_view(pair) for pair in pairs]
     return Group(*parts)
+
+
+def pair_points_view(pair: Any) -> FittedTable:
+    """A pair's grid of points: rows the first axis, columns the second; the largest
+    difference of its cells under it."""
+    grid = np.asarray(pair.points, dtype=float)
+    texts = np.asarray(number_texts(list(grid.ravel()), "count", signed=True),
+                       dtype=object).reshape(grid.shape)
+    frame = pd.DataFrame(texts, columns=pair.second.labels())
+    frame.insert(0, pair.first.feature, pair.first.labels())
+    notes = [f"Largest difference of a cell from the exact scaled value: "
+             f"{pair.largest_of_all():.3g} points."]
+    if pair.binned:
+        notes.append(f"{' and '.join(pair.binned)} read in bins between its knots (each bin: "
+                     "the mean of the table over it).")
+    if any(a.kind == "levels" for a in (pair.first, pair.second)):
+        notes.append("A level never seen in training: 0 points.")
+    return FittedTable.of_frame(frame, title=f"{pair.name} (points grid): rows "
+                                f"{pair.first.feature}, columns {pair.second.feature}",
+                                notes=notes)
