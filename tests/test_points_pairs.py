@@ -167,3 +167,30 @@ def test_a_change_review_finds_a_moved_cell_exactly():
         reasons.unfavourable(model, model.score(rows), 0.5)
         != reasons.unfavourable(moved, moved.score(rows), 0.5)))
     assert math.isclose(float(np.max(shift)), float(np.max(np.abs(shift))))
+
+
+def test_reasons_json_writes_a_pairs_values_with_null_for_a_blank(tmp_path):
+    """The JSON standard (RFC 8259) has no NaN: Python's json module with NaN refused."""
+    import json
+
+    from typer.testing import CliRunner
+
+    from glassbox.cli import app
+    from glassbox.core import artifact
+
+    model = boosted_pairs()
+    path = artifact.save(model, tmp_path / "m.json")
+    rows = credit_rows_with_gaps()
+    rows.to_csv(tmp_path / "rows.csv", index=False)
+    blank = int(np.flatnonzero(rows["Income"].isna())[0]) + 1
+    result = CliRunner().invoke(app, ["reasons", str(path), str(tmp_path / "rows.csv"),
+                                      "--index", str(blank), "--top", "13",
+                                      "--format", "json"])
+    assert result.exit_code == 0, result.output
+
+    def refuse(name):
+        raise ValueError(name)
+
+    record = json.loads(result.output, parse_constant=refuse)
+    pair = next(r for r in record["reasons"] if r["feature"] == "Income & Seniority")
+    assert pair["value"][0] is None and "Income not provided" in pair["text"]
