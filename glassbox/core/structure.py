@@ -462,6 +462,14 @@ FIDELITY = Record(
     optional={"agreement": Number(low=0, high=1, null=True), "data_sha256": SHA256,
               "missing_rows": Number(low=0, whole=True, null=True),
               "missing_agree": Number(low=0, whole=True, null=True)})
+_GRID = Items(Items(NUMBER, at_least=1), at_least=1)
+# a points grid per pairwise table (glassbox.explaining.pair_points); its shape against its
+# axes is checked by PairPoints
+PAIR_POINTS = Record(required={"features": Items(TEXT, length=2),
+                               "axes": Items(PAIR_AXIS, length=2),
+                               "points": Items(Items(POINTS, at_least=1), at_least=1),
+                               "contributions": _GRID, "largest": _GRID},
+                     optional={"binned": TEXTS})
 CARD = Record(
     required={"scaling": Record(required={"base_score": NUMBER, "base_odds": Number(
                                               low=0, above=True),
@@ -471,7 +479,8 @@ CARD = Record(
               "schema": SCHEMA},
     optional={"tolerance": Number(low=0, null=True), "cutoff": OPEN_SHARE,
               "bins": Number(low=1, whole=True),  # version 1 cards: equal-share bins
-              "cutoff_points": NUMBER, "model_checksum": SHA256, "fidelity": FIDELITY})
+              "cutoff_points": NUMBER, "model_checksum": SHA256, "fidelity": FIDELITY,
+              "pairs": Items(PAIR_POINTS)})
 
 # One row of a comparison's tables: a model (or sparsity size) and a metric, with numbers
 # that may be null where no interval exists (one fold) and a note saying why.

@@ -1,0 +1,143 @@
+"""Shape tables of pairwise terms: what each two-feature table does, as DataFrames.
+
+A pair's table is read straight from the model: one entry per cell of its two axes
+(`glassbox.core.pairs.Axis.labels`), the missing-value entry of an axis last and apart.
+The long form (one line per cell: first entry, second entry, value) is what files hold;
+the heat grid (rows the first axis, columns the second) is what a terminal, a report and a
+picture show. A cell's share of training rows needs the two features together, which the
+model file does not keep (its profiles are one feature at a time): it is computed when
+data are given, and left blank otherwise, saying so.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from glassbox.core.additive import AdditiveModel
+from glassbox.core.errors import OptionError
+from glassbox.core.pairs import Axis, PairTerm, pair_name
+
+PAIR_COLUMNS = ("pair", "first", "second", "first_entry", "second_entry", "first_value",
+                "second_value", "value", "training_share")
+SHARES_UNKNOWN = ("training shares of cells need the two features together, which the model "
+                  "file does not keep; give data to count them")
+
+
+def find_pair(model: AdditiveModel, name: str) -> PairTerm:
+    """The model's pair named `name` ("A & B", either order), or a clear refusal naming
+    the model's pairs."""
+    wanted = name.strip()
+    for pair in model.pairs:
+        first, second = pair.features
+        if wanted in (pair.name, pair_name(second, first)):
+            return pair
+    known = ", ".join(repr(p.name) for p in model.pairs) or "none"
+    raise OptionError(f"--pair {name!r}: the model has no such pair (its pairs: {known}); "
+                      "name one as 'FIRST & SECOND'")
+
+
+def chosen_pairs(model: AdditiveModel, names: Sequence[str] | None = None) -> list[PairTerm]:
+    """The named pairs (checked), or every pair of the model in its order."""
+    if not names:
+        return list(model.pairs)
+    found = [find_pair(model, name) for name in names]
+    return list({pair.name: pair for pair in found}.values())
+
+
+def cell_shares(pair: PairTerm, frame: pd.DataFrame) -> np.ndarray:
+    """Each cell's share of the rows of `frame` (encoded as the model reads it); a row
+    between two knots is shared between them by its interpolation weights, as it is
+    scored."""
+    ia, wa = pair.first.entries(frame[pair.first.feature].to_numpy())
+    ib, wb = pair.second.entries(frame[pair.second.feature].to_numpy())
+    shares = np.zeros((pair.first.size, pair.second.size))
+    for s in (0, 1):
+        for t in (0, 1):
+            np.add.at(shares, (ia[:, s], ib[:, t]), wa[:, s] * wb[:, t])
+    return shares / max(len(frame), 1)
+
+
+def _entry_values(axis: Axis) -> list[Any]:
+    """The value each entry stands for in a file: a level, a knot, an edge bin's upper
+    edge (the lowest bin's too; the last bin's is blank), blank for the missing entry."""
+    if axis.kind == "levels":
+        values: list[Any] = list(axis.points)
+    elif axis.kind == "knots":
+        values = [float(p) for p in axis.points]
+    else:
+        values = [float(p) for p in axis.points] + [None]
+    return values + ([None] if axis.missing else [])
+
+
+def pair_table(model: AdditiveModel, name: str,
+               encoded: pd.DataFrame | None = None) -> pd.DataFrame:
+    """A pair's table in long form: one line per cell (first axis outer), with its
+    entries' labels and numbers (from 1), the value the model adds there and, given data
+    encoded as the model reads it, the cell's share of its rows."""
+    pair = find_pair(model, name)
+    table = pair.table()
+    shares = None if encoded is None else cell_shares(pair, encoded)
+    first_labels, second_labels = pair.first.labels(), pair.second.labels()
+    first_values, second_values = _entry_values(pair.first), _entry_values(pair.second)
+    rows = []
+    for a, first in enumerate(first_labels):
+        for b, second in enumerate(second_labels):
+            rows.append({"pair": pair.name, "first": first, "second": second,
+                         "first_entry": a + 1, "second_entry": b + 1,
+                         "first_value": first_values[a], "second_value": second_values[b],
+                         "value": float(table[a, b]),
+                         "training_share": None if shares is None else float(shares[a, b])})
+    return pd.DataFrame(rows, columns=list(PAIR_COLUMNS))
+
+
+def all_pair_tables(model: AdditiveModel, names: Sequence[str] | None = None,
+                    encoded: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Every chosen pair's long table stacked (an empty table with the columns when the
+    model has none)."""
+    pairs = chosen_pairs(model, names)
+    if not pairs:
+        return pd.DataFrame(columns=list(PAIR_COLUMNS))
+    return pd.concat([pair_table(model, p.name, encoded) for p in pairs], ignore_index=True)
+
+
+def heat_grid(model: AdditiveModel, name: str) -> pd.DataFrame:
+    """A pair's table as a grid: a row per entry of the first axis, a column per entry of
+    the second, each labelled by `Axis.labels` (the missing entries last)."""
+    pair = find_pair(model, name)
+    return pd.DataFrame(pair.table(), index=pd.Index(pair.first.labels(),
+                                                     name=pair.first.feature),
+                        columns=pd.Index(pair.second.labels(), name=pair.second.feature))
+
+
+def share_grid(model: AdditiveModel, name: str, encoded: pd.DataFrame) -> pd.DataFrame:
+    """Each cell's share of the rows of `encoded`, laid out as `heat_grid`."""
+    pair = find_pair(model, name)
+    grid = heat_grid(model, name)
+    return pd.DataFrame(cell_shares(pair, encoded), index=grid.index, columns=grid.columns)
+
+
+def pair_importance(model: AdditiveModel, pair: PairTerm) -> float | None:
+    """Mean absolute contribution of the pair over the training rows, as the model file
+    records it (keyed by the pair's name; every fit records it). None when not recorded:
+    it cannot be worked out from one-feature profiles."""
+    recorded = model.metadata.get("importance", {})
+    return float(recorded[pair.name]) if pair.name in recorded else None
+
+
+def pair_summary_rows(model: AdditiveModel) -> list[dict[str, Any]]:
+    """One summary line per pair (as `shapes.summary` lines read): importance, lowest and
+    highest cell; directions and the missing entry do not apply to a table of two."""
+    rows = []
+    for pair in model.pairs:
+        table = pair.table()
+        importance = pair_importance(model, pair)
+        rows.append({"feature": pair.name, "kind": "pair",
+                     "term": f"{pair.first.kind} × {pair.second.kind}",
+                     "importance": np.nan if importance is None else importance,
+                     "lowest": float(table.min()), "highest": float(table.max()),
+                     "observed": "", "declared": "", "missing": None, "missing_share": None})
+    return rows
