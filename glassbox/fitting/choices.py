@@ -107,5 +107,5 @@ def apply_pairs(options: dict[str, dict[str, Any]], pairs: int, families: tuple[
         raise OptionError(f"--pairs {pairs}: the {' and '.join(others)} "
                           f"famil{'y does' if len(others) == 1 else 'ies do'} not fit pairwise "
                           f"terms; families that do: {', '.join(pair_families()) or 'none'}")
-    for family in takers:
+    for family in takers if pairs > 0 else ():  # 0 is every family's default
         options.setdefault(family, {})["pairs"] = pairs
