@@ -118,3 +118,20 @@ def test_pair_curve_in_the_file_the_markdown_and_the_table(churn_comparison):
     # no pair curve asked: none in the file, and an older file without the key reads
     document.pop("pair_curve")
     assert comparison_from_dict(document, "test").pair_curve is None
+
+
+def test_pair_views_fit_80_columns(churn_comparison):
+    # the fit summary's pairs and the compare screen's pair table: nothing cut at 80
+    # columns (the check of tests/test_narrow.py)
+    from glassbox.publishing.narrow import frame_texts
+    from glassbox.publishing.render import comparison_view, fit_view
+    from tests.test_narrow import cut_cells, frame_cells, render
+
+    frame, _, comparison = churn_comparison
+    model = fit_model(frame, churn_schema(), "boosted", pairs=3)
+    text = render(fit_view(model, {"auc": 0.9}, "churn.json"))
+    names = "; ".join(p.name for p in model.pairs)
+    assert not cut_cells(text, ["pairs", f"3: {names}"])
+    text = render(comparison_view(comparison))
+    assert "What each pair buys" in text
+    assert not cut_cells(text, frame_cells(frame_texts(pair_table(comparison))))
