@@ -114,6 +114,26 @@ def test_wage_regression_with_pairs_reproduces_predict():
     assert assert_matches_sklearn(model, estimators, wage, schema) < 1e-9
 
 
+def test_an_unseen_level_adds_nothing_in_a_pair(churn_split, churn_pair):
+    # PAIR_UNSEEN_RULE (the rule itself, no outside source): a level never seen in training
+    # reads 0 in every pair, while its main term keeps scikit-learn's value for it
+    train, _ = churn_split
+    model, _ = churn_pair
+    rows = train.head(20).assign(international_plan="not offered")
+    pairs = [p for p in model.pairs if "international_plan" in p.features]
+    assert pairs
+    for pair in pairs:
+        np.testing.assert_array_equal(pair.evaluate_frame(rows), 0.0)
+    term = model.term("international_plan")
+    expected = model.intercept + term.unseen + sum(
+        t.evaluate(rows[t.feature].to_numpy()) for t in model.terms
+        if t.feature != "international_plan") + sum(
+        p.evaluate_frame(rows) for p in model.pairs if p not in pairs)
+    with pytest.warns(UserWarning, match="never seen in training"):  # said, not silent
+        scores = model.score(rows)
+    np.testing.assert_allclose(scores, expected, rtol=0, atol=1e-12)
+
+
 def test_every_pair_stage_path_stays_inside_one_pair(churn_pair):
     # the interaction constraint, read off scikit-learn's trees: after the main effects,
     # every root-to-leaf path uses the features of one chosen pair or of one other feature
