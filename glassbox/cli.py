@@ -68,6 +68,8 @@ DEFAULT_BENCHMARK = Benchmark("trees")
 OPTION_HELP = ("A family setting (repeatable): NAME=VALUE for every family that takes it, "
                "FAMILY.NAME=VALUE for one; the settings and their defaults are listed below.")
 FORMAT_RULE = "by the --out suffix when not given, else the terminal"
+PAIRS_HELP = ("Pairwise terms: fit the N strongest pairs of features after the main effects, "
+              "for a family that takes pairs (its pairs setting below); 0 fits none.")
 
 
 class TableFormat(StrEnum):
@@ -161,6 +163,7 @@ def fit_command(
     ensemble: Annotated[int | None, typer.Option(
         metavar="N", help="boosted: average this many seeds; the spread is the band "
                           "(boosted.ensemble).", min=1)] = None,
+    pairs: Annotated[int, typer.Option(metavar="N", help=PAIRS_HELP, min=0)] = 0,
     option: Annotated[list[str] | None, typer.Option(
         "--option", metavar="NAME=VALUE", help=OPTION_HELP)] = None,
     drop_missing_target: Annotated[bool, typer.Option(
@@ -172,7 +175,7 @@ def fit_command(
     from glassbox.core.files import check_output
     from glassbox.core.schema import load_schema, read_table
     from glassbox.fitting import fit
-    from glassbox.fitting.choices import family_options
+    from glassbox.fitting.choices import apply_pairs, family_options
     from glassbox.publishing.render import fit_view
 
     check_output(out, "glassbox-model", [data, schema], force=force)
@@ -182,6 +185,7 @@ def fit_command(
         options["max_features"] = max_features
     if ensemble is not None:
         options["ensemble"] = ensemble
+    apply_pairs({family.value: options}, pairs, (family.value,), every=True)
     frame = read_table(data)
     spec = load_schema(schema)
     if drop_missing_target:

@@ -546,7 +546,13 @@ COMPARISON = Record(
                                                        "metric": METRIC},
                                              optional=_INTERVAL)),
               "folds": Items(Record(required={"model": TEXT},
-                                    extra=Either((NUMBER, TEXT), null=True)))})
+                                    extra=Either((NUMBER, TEXT), null=True))),
+              # issue 19: what each pair buys (null or absent: no pair curve was asked for)
+              "pair_curve": Items(Record(required={"model": TEXT,
+                                                   "pairs": Number(low=0, whole=True),
+                                                   "metric": METRIC},
+                                         optional={"pairs_fitted": Number(low=0, whole=True),
+                                                   **_INTERVAL}), null=True)})
 
 REACH = Record(
     required={"format": TEXT, "version": Number(whole=True),

@@ -99,6 +99,10 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     if left_out:
         pairs["features left out"] = ", ".join(left_out)
     details = meta.get("details") or {}
+    if model.pairs:  # in the order they were chosen (best ranked first)
+        pairs["pairs"] = f"{len(model.pairs)}: {'; '.join(p.name for p in model.pairs)}"
+    if details.get("pairs_note"):
+        pairs["fewer pairs than asked"] = details["pairs_note"]
     held = details.get("held_flat_by_declared_direction")
     if held:
         pairs["flat: declared direction binds"] = ", ".join(held)
@@ -344,8 +348,8 @@ class WarningView:
 def comparison_view(comparison: Any) -> RenderableType:
     """What `glassbox compare` prints, laid out like every other view (narrow.py): the
     headline, the base rate and no-skill flags, every metric's mean, the primary metric's
-    interval, the cost, calibration (every model's deciles in one table) and the sparsity
-    curve with the feature that joins at each size."""
+    interval, the cost, calibration (every model's deciles in one table), the sparsity
+    curve with the feature that joins at each size and the pair curve (when asked for)."""
     from glassbox.fitting import compare_tables as tables
 
     settings = comparison.settings
@@ -388,6 +392,10 @@ def comparison_view(comparison: Any) -> RenderableType:
                                                      "left on the path"],
                                      title="The feature that joins at each size (where "
                                      "folds differ: each name with its share of folds)"))
+    pairs = tables.pair_table(comparison)
+    if not pairs.empty:
+        parts += [frame_table(pairs, title="What each pair buys: accuracy by number of "
+                                           "pairs"), Text(tables.pair_note(comparison))]
     return Group(*parts)
 
 

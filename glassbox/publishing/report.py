@@ -310,6 +310,10 @@ def _comparison_section(comparison, cutoff: float) -> Section:
     if not curve.empty:
         blocks.append(Table(curve, caption="Sparse family by number of features: the "
                                            "feature that joins at each size"))
+    pairs = tables.pair_table(comparison)
+    if not pairs.empty:
+        blocks += [Table(pairs, caption="What each pair buys: accuracy by number of pairs"),
+                   Paragraph(tables.pair_note(comparison))]
     return Section("Accuracy against a black box", tuple(blocks))
 
 
