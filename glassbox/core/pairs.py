@@ -23,8 +23,16 @@ axis, the table has mean zero over the training rows' values of the other featur
 `purify` moves what a fitted table holds beyond that into the two features' main terms and
 the intercept (the two-way analysis-of-variance split with the training marginals as
 weights; see its docstring). With it, the partial dependence of the model on x_j (the mean
-score over training rows with x_j set to x) is intercept + f_j(x) + the other terms' means,
-which are zero: the main effect is the partial dependence, less a constant.
+score over training rows with x_j set to x) is
+
+    PD_j(x) = intercept + f_j(x) + c_j,
+
+where the other main terms add their training means (zero) and the pairs with x_j their
+means along the other axis (zero), and c_j is the sum of the training-row means of the
+pairs without x_j: a constant. So the main effect is the partial dependence less a
+constant. The same sum over every pair is why, in a model with pairs, the intercept is
+the mean training score less the pairs' training-row means (a pair is centred along each
+axis, not on the joint rows).
 """
 
 from __future__ import annotations
