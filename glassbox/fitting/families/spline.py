@@ -57,6 +57,10 @@ class, or missing on exactly the rows of another feature (see `unidentified`); t
 fit summary lists those features. A missing
 category arrives as the level "(missing)" (see `fit_model`) and is fitted as a level.
 
+Pairs. With `pairs` K > 0 the K best-ranked pairs of features are then fitted as
+tensor-product terms, the mains held fixed (spline_pairs; `details["pairs"]`); with 0, the
+default, nothing of that stage runs and the model is as without the option.
+
 Errors and fallbacks. A feature with a single distinct value is a `DataError`.
 A numeric feature with fewer distinct values than `splines` gets one basis
 function per value (at least four); a monotone two-valued feature gets a
