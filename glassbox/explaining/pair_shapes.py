@@ -73,14 +73,12 @@ def _entry_values(axis: Axis) -> list[Any]:
     return values + ([None] if axis.missing else [])
 
 
-def pair_table(model: AdditiveModel, name: str,
-               encoded: pd.DataFrame | None = None) -> pd.DataFrame:
-    """A pair's table in long form: one line per cell (first axis outer), with its
-    entries' labels and numbers (from 1), the value the model adds there and, given data
-    encoded as the model reads it, the cell's share of its rows."""
-    pair = find_pair(model, name)
+def long_form(pair: PairTerm, shares: np.ndarray | None = None) -> pd.DataFrame:
+    """A pair's table in long form, the one every file of a pair's cells holds: one line
+    per cell (first axis outer), its entries' labels (`Axis.labels`) and numbers (from 1),
+    the values they stand for, the value the table adds there and, when given (a grid as
+    the table), the cell's share of training rows."""
     table = pair.table()
-    shares = None if encoded is None else cell_shares(pair, encoded)
     first_labels, second_labels = pair.first.labels(), pair.second.labels()
     first_values, second_values = _entry_values(pair.first), _entry_values(pair.second)
     rows = []
@@ -92,6 +90,14 @@ def pair_table(model: AdditiveModel, name: str,
                          "value": float(table[a, b]),
                          "training_share": None if shares is None else float(shares[a, b])})
     return pd.DataFrame(rows, columns=list(PAIR_COLUMNS))
+
+
+def pair_table(model: AdditiveModel, name: str,
+               encoded: pd.DataFrame | None = None) -> pd.DataFrame:
+    """A model's pair (by name) in long form (`long_form`), with each cell's share of the
+    rows of `encoded` (data as the model reads it) when given."""
+    pair = find_pair(model, name)
+    return long_form(pair, None if encoded is None else cell_shares(pair, encoded))
 
 
 def all_pair_tables(model: AdditiveModel, names: Sequence[str] | None = None,

@@ -31,8 +31,8 @@ first feature's raw value weighs the entries of its axis (`AxisTable`: one entry
 between knots, or none for a level never seen in training), and for each entry of the
 first axis, the pair along the second feature as an ordinary `ExportTable` (its row of the
 table). The pair adds the weighted sum of those rows: an engine writes it as a CASE on the
-first feature with, inside, a CASE on the second. `pair_long_table` gives a pair's table in
-long form (one line per cell) for auditors.
+first feature with, inside, a CASE on the second. A pair's table in long form (one line
+per cell) for auditors is `glassbox.explaining.pair_shapes.long_form`.
 """
 
 from __future__ import annotations
@@ -338,18 +338,6 @@ class PairExportTable:
 def pair_tables(model: AdditiveModel) -> tuple[PairExportTable, ...]:
     """One spelled-out table per pair of the model, in the model's order."""
     return tuple(_pair_table(model, pair) for pair in model.pairs)
-
-
-def pair_long_table(pair: PairTerm) -> pd.DataFrame:
-    """A pair's table in long form: one line per cell (the first feature's entry, the
-    second's, the value), entries labelled as `Axis.labels` labels them."""
-    table = pair.table()
-    first, second = pair.first.labels(), pair.second.labels()
-    return pd.DataFrame({
-        "pair": pair.name,
-        "first": pair.first.feature, "first_entry": np.repeat(first, len(second)),
-        "second": pair.second.feature, "second_entry": np.tile(second, len(first)),
-        "value": table.ravel()})
 
 
 def _entry_weights(axis: Axis, typed: pd.Series) -> np.ndarray:

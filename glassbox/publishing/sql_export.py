@@ -26,7 +26,6 @@ from glassbox.core.additive import AdditiveModel
 from glassbox.core.documents import checksum
 from glassbox.core.errors import OptionError
 from glassbox.core.files import SQL_MARK
-from glassbox.core.pairs import refuse_pairs
 from glassbox.core.schema import Schema
 from glassbox.explaining.cards import PointsCard, card_to_dict
 from glassbox.explaining.reasons import NOTHING, Best, bests
@@ -53,12 +52,12 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
     """One SELECT scoring `table` as `glassbox score` does: the id column (the option, or
     the schema's; none when neither names one), `score`, `probability` (classification) or
     `prediction` (regression), with `contributions` each `contribution:FEATURE`, and with
-    `reasons` K > 0 the K terms furthest below their best (`feature_k`: the feature, the
-    reason code; `gap_k`), ranked as `glassbox reasons` ranks them."""
+    `reasons` K > 0 the K terms and pairs furthest below their best (`feature_k`: the
+    feature, or the pair's name "A & B", as the reason code; `gap_k`), ranked as
+    `glassbox reasons` ranks them (a pair's gap from its own best value, terms first on
+    ties)."""
     if reasons < 0:
         raise OptionError(f"--reasons takes a number of reasons, 0 or more, not {reasons}")
-    if reasons:  # a pair's place among the reasons is the reasons' own rule, not here yet
-        refuse_pairs(model, "--reasons in the SQL export")
     tables = model_tables(model)
     pairs = pair_tables(model)
     ident = _id_column(id_column or model.schema.id_column, tables)
@@ -73,7 +72,8 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
            else []),
          *([f"contribution:{p.name}: what the pair adds (its two-feature table)"
             for p in pairs] if contributions else []),
-         *([f"feature_1..{reasons}: the features (reason codes) holding the score furthest",
+         *([f"feature_1..{reasons}: the features{' or pairs' if pairs else ''} (reason codes) "
+            "holding the score furthest",
             f"  below their best, first the furthest; gap_1..{reasons}: how far (score scale),",
             "  from the best within the central 98% of training values (as glassbox reasons);",
             f"  NULL where fewer features are more than {NOTHING!r} below their best"]
