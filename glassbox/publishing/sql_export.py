@@ -33,6 +33,7 @@ from glassbox.publishing.export_tables import (
     AxisTable,
     ExportTable,
     PairExportTable,
+    card_pair_tables,
     card_tables,
     model_tables,
     pair_tables,
@@ -106,23 +107,26 @@ def card_sql(card: PointsCard, *, table: str = "applications", id_column: str | 
         raise OptionError("--reasons ranks a model's terms: export the model file for reasons "
                           "(a points card has no reasons of its own)")
     tables = card_tables(card)
-    for found in tables:
+    pairs = card_pair_tables(card)
+    for found in (*tables, *(row for pair in pairs for row in pair.rows)):
         for value in (*found.values, found.unseen, found.missing):
             if value is not None and not float(value).is_integer():
                 raise OptionError(f"the card's points for '{found.feature}' are not whole "
                                   f"numbers ({value!r}); the card file is damaged")
     ident = _id_column(id_column or card.schema.id_column, tables)
-    names = [t.feature for t in tables]
+    names = [t.feature for t in tables] + [p.name for p in pairs]
     card_sum = checksum(card_to_dict(card))
     head = _header(
         f"the points card {card_sum} (of the model {card.model_checksum or 'not recorded'})",
         card.schema, tables, ident,
         ["total_points: base_points plus each feature's points (whole numbers)",
          f"base_points: {card.base_points} on every row",
-         *(["points:FEATURE: each feature's points"] if contributions else [])],
+         *(["points:FEATURE: each feature's points"] if contributions else []),
+         *([f"points:{p.name}: the pair's points (its grid's cell)" for p in pairs]
+           if contributions else [])],
         ["Points are whole numbers added exactly, as `glassbox score --points` adds them."])
     parts = [_inputs_cte(tables, ident, table),
-             _terms_cte(tables, ident, "points", as_double=False),
+             _terms_cte(tables, ident, "points", as_double=False, pairs=pairs),
              _scores_cte(names, ident, "points", "total_points", str(card.base_points))]
     final = [*([_quote(ident)] if ident else []), '"total_points"',
              f'{card.base_points} AS "base_points"']
@@ -337,12 +341,14 @@ def _terms_cte(tables: Sequence[ExportTable], ident: str | None, prefix: str,
             case = f"CAST({case} AS DOUBLE PRECISION)"
         columns.append(f"{case} AS {_quote(f'{prefix}:{found.feature}')}")
     for pair in pairs:
-        columns.append(f"CAST({_pair_case(pair)} AS DOUBLE PRECISION) "
-                       f"AS {_quote(f'{prefix}:{pair.name}')}")
+        case = _pair_case(pair, as_double)
+        if as_double:
+            case = f"CAST({case} AS DOUBLE PRECISION)"
+        columns.append(f"{case} AS {_quote(f'{prefix}:{pair.name}')}")
     return _cte("terms", columns, "inputs")
 
 
-def _pair_case(pair: PairExportTable) -> str:
+def _pair_case(pair: PairExportTable, as_double: bool = True) -> str:
     """A pair as a nested CASE: the outer CASE reads the first feature's entry (or two
     entries and their weights between knots); each entry's result is a CASE on the second
     feature, that entry's row of the table read as the feature's own table is read."""
@@ -352,9 +358,13 @@ def _pair_case(pair: PairExportTable) -> str:
         if weights is None:
             result = "NULL"
         else:
-            added = [_case(pair.rows[j], True) if weight == "1" else
+            if not as_double and any(weight != "1" for _, weight in weights):
+                raise OptionError(f"the points grid of '{pair.name}' reads between two "
+                                  "entries; the card file is damaged")
+            added = [_case(pair.rows[j], as_double) if weight == "1" else
                      f"{weight} * {_case(pair.rows[j], True)}" for j, weight in weights]
-            result = f"\n{step}+ ".join(added) if added else _number(0.0)
+            result = (f"\n{step}+ ".join(added) if added
+                      else _number(0.0) if as_double else "0")
         whens.append(f"{'ELSE' if condition is None else f'WHEN {condition} THEN'} {result}")
     first = pair.first
     title = (f"pair {pair.name}: by {first.feature} ({first.axis.kind}), then "
