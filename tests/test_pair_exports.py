@@ -18,14 +18,16 @@ import pandas as pd
 import pytest
 
 from glassbox.core.additive import score_table
-from glassbox.core.errors import OptionError
+from glassbox.explaining.pair_shapes import PAIR_COLUMNS, long_form
+from glassbox.explaining.reasons import explain
 from glassbox.publishing import sql_export
-from glassbox.publishing.export_tables import pair_long_table, pair_tables
+from glassbox.publishing.export_tables import pair_tables
 from glassbox.publishing.pmml_export import model_pmml
 
 from .pair_export_models import boosted_with_pairs, sparse_with_pairs
-from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite
+from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite, spoiled
 from .test_pmml_export import _inputs, _numbers, _valid, pmml_schema, scorers  # noqa: F401
+from .test_sql_export import _reasons_match
 
 TOLERANCE = 1e-9  # as tests/test_sql_export.py and tests/test_pmml_export.py
 ENGINES = {"duckdb": run_duckdb, "sqlite": run_sqlite}
@@ -60,16 +62,8 @@ def _with_edges(model, frame: pd.DataFrame, beside: bool = True) -> pd.DataFrame
 def _refusing(frame: pd.DataFrame, features) -> tuple[pd.DataFrame, np.ndarray]:
     """Rows the tool refuses (constructed): a gap in Amount and Price (no missing entry
     learned, in the main term nor in the pair), a flag word it does not know."""
-    frame = frame.copy()
-    frame["Records"] = frame["Records"].astype(object)
-    refused = np.zeros(len(frame), dtype=bool)
-    for row, column, value in ((5, "Amount", np.nan), (11, "Records", "maybe"),
-                               (17, "Price", np.nan)):
-        if column in features:
-            frame.loc[row, column] = value
-            refused[row] = True
-    assert refused.sum() >= 2
-    return frame, refused
+    return spoiled(frame, features, ((5, "Amount", np.nan), (11, "Records", "maybe"),
+                                     (17, "Price", np.nan)))
 
 
 def _compare(rows: pd.DataFrame, expected: pd.DataFrame, model, where: str) -> None:
@@ -93,14 +87,16 @@ def test_the_spelled_out_pairs_read_as_the_tool_scores():
 def test_long_form_has_every_cell_once():
     model, _ = boosted_with_pairs()
     for pair in model.pairs:
-        long = pair_long_table(pair)
+        long = long_form(pair)
         assert len(long) == pair.first.size * pair.second.size
-        assert list(long.columns) == ["pair", "first", "first_entry", "second",
-                                      "second_entry", "value"]
-        back = long.pivot(index="first_entry", columns="second_entry", values="value")
+        assert list(long.columns) == list(PAIR_COLUMNS)
+        back = long.pivot(index="first", columns="second", values="value")
         back = back.loc[pair.first.labels(), pair.second.labels()].to_numpy()
         np.testing.assert_array_equal(back, pair.table())
-        entries = long["first_entry"].tolist() + long["second_entry"].tolist()
+        numbered = long.pivot(index="first_entry", columns="second_entry", values="value")
+        np.testing.assert_array_equal(numbered.to_numpy(), pair.table())  # counted from 1
+        assert numbered.index[0] == 1 and numbered.columns[0] == 1
+        entries = long["first"].tolist() + long["second"].tolist()
         assert ("missing" in entries) == (pair.first.missing or pair.second.missing)
 
 
@@ -120,10 +116,21 @@ def test_sql_scores_pairs_as_the_tool_and_refused_rows_are_null(family, engine):
     assert nulls[["score", "probability"]].isna().all().all()
 
 
-def test_sql_refuses_reasons_for_a_model_with_pairs_in_one_line():
-    model, _ = boosted_with_pairs()
-    with pytest.raises(OptionError, match="pair"):
-        sql_export.model_sql(model, reasons=2)
+@pytest.mark.parametrize("engine", sorted(ENGINES))
+@pytest.mark.parametrize("family", sorted(MODELS))
+def test_sql_reason_codes_with_pairs_equal_glassbox_reasons(family, engine):
+    # reference: `glassbox reasons` (explain) on the same real rows, where pairs rank
+    # among the terms by their gap from their own best; the engine must agree on every
+    # code and gap (tolerance as tests/test_sql_export.py)
+    model, frame = MODELS[family]()
+    frame = _with_edges(model, frame)
+    sql = sql_export.model_sql(model, contributions=True, reasons=3)
+    assert "or pairs (reason codes)" in sql
+    rows = ENGINES[engine](sql, frame)
+    _reasons_match(rows, model, frame, 3)
+    table, _ = explain(model, frame, 3)
+    codes = set(table[[f"feature_{k}" for k in (1, 2, 3)]].to_numpy().ravel())
+    assert codes & {p.name for p in model.pairs}, "no pair among the reasons: a weak check"
 
 
 def test_postgresql_scores_pairs_as_the_tool():

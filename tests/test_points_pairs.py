@@ -20,7 +20,7 @@ from glassbox.core.pairs import table_tuple
 from glassbox.explaining import cards, points, reasons
 from glassbox.explaining.changes import model_changes
 from glassbox.explaining.pair_points import whole
-from glassbox.publishing import export_tables
+from glassbox.publishing import pmml_export, sql_export
 
 from .pair_models import boosted_pairs, spline_pairs
 from .real_credit import credit_rows, credit_rows_with_gaps
@@ -99,7 +99,29 @@ def test_card_file_with_pairs_round_trips_and_older_cards_are_unchanged(tmp_path
     plain = replace(card, pairs=())
     assert '"version": 3' in cards.dumps(plain)
     with pytest.raises(OptionError, match="pairs"):
-        export_tables.card_tables(card)
+        pmml_export.card_pmml(card)  # a Scorecard characteristic reads one field
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "sqlite"])
+def test_card_sql_with_pairs_gives_the_cards_own_points_exactly(case, engine):
+    """The SQL engines (DuckDB, Python's sqlite3: independent implementations of SQL)
+    must give every row the card's own points (`glassbox score --points`), pair grids
+    included, to the point; rows set on the grids' edges, a double either side and far
+    beyond the ends (constructed from the real rows) decide the CASEs' < and <=."""
+    from .sql_engines import run_duckdb, run_sqlite
+    from .test_pair_exports import _with_edges
+
+    model, rows, card = case
+    frame = _with_edges(card, rows.reset_index(drop=True))
+    frame.insert(0, "application", range(1, len(frame) + 1))
+    sql = sql_export.card_sql(card, contributions=True, id_column="application")
+    assert sql.count("CASE  -- pair ") == len(card.pairs)
+    got = {"duckdb": run_duckdb, "sqlite": run_sqlite}[engine](sql, frame)
+    got = got.set_index("application").loc[frame["application"]].reset_index()
+    expected = points.score_points(card, frame)
+    for column in ["total_points", *(f"points:{p.name}" for p in card.pairs)]:
+        np.testing.assert_array_equal(got[column].astype(np.int64), expected[column], column)
+    assert expected[[f"points:{p.name}" for p in card.pairs]].abs().to_numpy().sum() > 0
 
 
 def test_a_pair_reason_carries_its_contribution_and_gap():

@@ -7,6 +7,8 @@ check is tests/test_narrow.py's (`cut_cells`)."""
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -76,7 +78,12 @@ def test_heat_grid_and_long_table_are_the_table(model):
         assert len(long) == pair.first.size * pair.second.size
         back = long.pivot(index="first_entry", columns="second_entry", values="value")
         assert np.array_equal(back.to_numpy(), pair.table())
-        assert long["training_share"].isna().all()  # the model keeps no joint counts
+        # shares from the model file's baseline: checked against a crosstab below
+        assert abs(long["training_share"].sum() - 1.0) < 1e-12
+        older = replace(model, baseline=replace(model.baseline, pairs=()))
+        long = pair_shapes.pair_table(older, pair.name)
+        assert long["training_share"].isna().all()  # an older file keeps no joint counts
+        assert "no counts" in pair_shapes.shares_words(older, pair)
 
 
 def test_pairs_score_as_pandas_bins_them(model, encoded):
@@ -98,6 +105,44 @@ def test_cell_shares_from_data_equal_a_crosstab(model, encoded):
     assert np.allclose(shares, table.to_numpy(), atol=1e-12)
     long = pair_shapes.pair_table(model, pair.name, encoded)
     assert abs(long["training_share"].sum() - 1.0) < 1e-12
+
+
+def test_training_shares_from_the_baseline_equal_a_crosstab_of_the_training_rows(model,
+                                                                                    encoded):
+    """The boosted model was fitted on all credit_data rows with gaps (tests/pair_models.py):
+    the baseline's counts, read into the table's cells, must be pandas' crosstab of those
+    rows binned by pandas (Income x Seniority) and the tool's own counting from data."""
+    pair = model.pair("Income", "Seniority")
+    shares = pair_shapes.training_share_grid(model, pair.name).to_numpy()
+    table = pd.crosstab(_cut(encoded["Income"], pair.first),
+                        _cut(encoded["Seniority"], pair.second), normalize="all")
+    table = table.reindex(index=range(pair.first.size), columns=range(pair.second.size),
+                          fill_value=0.0)
+    assert np.allclose(shares, table.to_numpy(), atol=1e-12)
+    long = pair_shapes.pair_table(model, pair.name)
+    assert np.allclose(long["training_share"], table.to_numpy().ravel(), atol=1e-12)
+    for other in model.pairs:  # levels x edges too, against the counting from data
+        assert np.allclose(pair_shapes.baseline_shares(model, other),
+                           pair_shapes.cell_shares(other, encoded), atol=1e-12)
+    words = pair_shapes.shares_words(model, pair)
+    assert "development baseline" in words and "4,454" in words
+    text = render(pair_view(model, pair.name))
+    assert "share of the training rows in each cell" in text and "4,454" in text
+    document = report.to_markdown(report.build_report(model, credit_rows_with_gaps()))
+    document = document[0] if isinstance(document, tuple) else document
+    assert document.count("share of the training rows in each cell (from the development "
+                          "baseline") == len(model.pairs)
+
+
+def test_a_knots_pair_has_no_training_shares_from_the_baseline_and_says_why():
+    """A knots axis: the baseline counts stretches between knots, the table holds knots
+    (rows between two knots count in part at each), so no shares are read from it."""
+    model = spline_pairs()
+    pair = model.pairs[0]
+    assert pair_shapes.baseline_shares(model, pair) is None
+    assert pair_shapes.training_share_grid(model, pair.name) is None
+    assert pair_shapes.pair_table(model, pair.name)["training_share"].isna().all()
+    assert "between knots" in render(pair_view(model, pair.name))
 
 
 def test_summary_lists_pairs_after_the_features_with_their_importance(model, encoded):
@@ -145,7 +190,6 @@ def test_pair_views_fit_80_columns(model):
     wide = PairTerm(model.pairs[0].first, wide_axis, tuple(
         tuple(round(0.01 * (a - b), 4) for b in range(wide_axis.size))
         for a in range(model.pairs[0].first.size)))
-    from dataclasses import replace
     widened = replace(model, pairs=(wide,))
     text = render(pair_view(widened, wide.name))
     texts = heat_texts(pair_shapes.heat_grid(widened, wide.name))

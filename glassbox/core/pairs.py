@@ -174,8 +174,24 @@ class Axis:
         return cls(str(data["feature"]), kind, points, bool(data.get("missing", False)))
 
 
+class OverTwoAxes:
+    """What every table over two axes (a pair's values, a card's points grid) is named by:
+    its two features and the pair's name."""
+
+    first: Axis
+    second: Axis
+
+    @property
+    def features(self) -> tuple[str, str]:
+        return (self.first.feature, self.second.feature)
+
+    @property
+    def name(self) -> str:
+        return pair_name(*self.features)
+
+
 @dataclass(frozen=True)
-class PairTerm:
+class PairTerm(OverTwoAxes):
     """A two-dimensional table: `values[a][b]` at entry a of `first` and b of `second`."""
 
     first: Axis
@@ -193,14 +209,6 @@ class PairTerm:
                 f"axes have {self.first.size} and {self.second.size} entries")
         if not np.all(np.isfinite(table)):
             raise ModelFileError(f"pair '{self.name}': every table value must be a number")
-
-    @property
-    def features(self) -> tuple[str, str]:
-        return (self.first.feature, self.second.feature)
-
-    @property
-    def name(self) -> str:
-        return pair_name(*self.features)
 
     @property
     def feature(self) -> str:

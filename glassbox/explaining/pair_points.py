@@ -28,7 +28,7 @@ from typing import Any
 import numpy as np
 
 from glassbox.core.errors import ModelFileError
-from glassbox.core.pairs import Axis, PairTerm, pair_name
+from glassbox.core.pairs import Axis, OverTwoAxes, PairTerm
 
 
 def whole(values: float | np.ndarray) -> np.ndarray:
@@ -42,7 +42,7 @@ def _grid(rows: Any, cast: type) -> tuple[tuple[Any, ...], ...]:
 
 
 @dataclass(frozen=True)
-class PairPoints:
+class PairPoints(OverTwoAxes):
     """Whole points per cell of a pair's two axes (edges or levels; a knots axis of the
     model is read in bins, named in `binned`), with each cell's contribution (what its
     points were rounded from) and largest difference from the exact scaled value."""
@@ -66,14 +66,6 @@ class PairPoints:
         if any(not isinstance(p, int) or isinstance(p, bool) for row in self.points
                for p in row):
             raise ModelFileError(f"pair '{self.name}': points must be whole numbers")
-
-    @property
-    def features(self) -> tuple[str, str]:
-        return (self.first.feature, self.second.feature)
-
-    @property
-    def name(self) -> str:
-        return pair_name(*self.features)
 
     def points_of(self, first: np.ndarray, second: np.ndarray,
                   where: str = "the data") -> np.ndarray:

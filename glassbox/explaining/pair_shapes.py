@@ -4,9 +4,13 @@ A pair's table is read straight from the model: one entry per cell of its two ax
 (`glassbox.core.pairs.Axis.labels`), the missing-value entry of an axis last and apart.
 The long form (one line per cell: first entry, second entry, value) is what files hold;
 the heat grid (rows the first axis, columns the second) is what a terminal, a report and a
-picture show. A cell's share of training rows needs the two features together, which the
-model file does not keep (its profiles are one feature at a time): it is computed when
-data are given, and left blank otherwise, saying so.
+picture show. A cell's share of training rows needs the two features together: the model
+file's development baseline keeps how its training rows fell into each pair's cells
+(`glassbox.explaining.baseline.PairBins`), and shares are read from there when it has them
+for edges and levels axes. A knots axis is counted there by the stretch between two knots,
+while the table's entries are the knots themselves (a row between two knots counts in part
+at each), so such a pair's shares, and those of an older model file without the counts,
+are computed when data are given and left blank otherwise, saying so.
 """
 
 from __future__ import annotations
@@ -23,8 +27,13 @@ from glassbox.core.pairs import Axis, PairTerm, pair_name
 
 PAIR_COLUMNS = ("pair", "first", "second", "first_entry", "second_entry", "first_value",
                 "second_value", "value", "training_share")
-SHARES_UNKNOWN = ("training shares of cells need the two features together, which the model "
-                  "file does not keep; give data to count them")
+SHARES_UNKNOWN = ("the model file keeps no counts of its training rows by the two features "
+                  "together (it was written before glassbox kept them); give data to count "
+                  "them")
+SHARES_OF_KNOTS = ("the model file counts its training rows by the stretches between knots, "
+                   "not at the knots the table holds; give data to count them")
+SHARES_FROM_BASELINE = ("from the development baseline kept in the model file ({rows:,} "
+                        "training rows)")
 
 
 def find_pair(model: AdditiveModel, name: str) -> PairTerm:
@@ -61,6 +70,54 @@ def cell_shares(pair: PairTerm, frame: pd.DataFrame) -> np.ndarray:
     return shares / max(len(frame), 1)
 
 
+def _entry_of_cells(axis: Axis) -> list[int | None]:
+    """For each of the baseline's cells along an axis (`baseline.axis_cell_labels`: its
+    bins or levels, a new level's cell for levels, then no value), the table's entry it is,
+    or None where the table has no entry (a level never seen, a blank without a missing
+    entry: such rows add nothing to the table's cells)."""
+    own: list[int | None] = list(range(axis.values_size))
+    return own + ([None] if axis.kind == "levels" else []) + [axis.missing_at]
+
+
+def baseline_shares(model: AdditiveModel, pair: PairTerm) -> np.ndarray | None:
+    """Each cell's share of the training rows as the model file's baseline counted them,
+    laid out as the table; None when the file keeps no counts for its pairs or an axis is
+    a knots axis (see the module's note; `shares_words` says which)."""
+    if _shares_missing(model, pair) is not None:
+        return None
+    from glassbox.explaining.baseline import pair_cell_count
+
+    bins = model.baseline.pair(pair.name)
+    if len(bins.counts) != pair_cell_count(pair):
+        return None
+    firsts, seconds = _entry_of_cells(pair.first), _entry_of_cells(pair.second)
+    counts = np.asarray(bins.counts, dtype=float).reshape(len(firsts), len(seconds))
+    shares = np.zeros((pair.first.size, pair.second.size))
+    for i, a in enumerate(firsts):
+        for j, b in enumerate(seconds):
+            if a is not None and b is not None:
+                shares[a, b] += counts[i, j]
+    return shares / max(bins.rows, 1)
+
+
+def _shares_missing(model: AdditiveModel, pair: PairTerm) -> str | None:
+    """Why the model file cannot give a pair's training shares, or None when it can."""
+    if any(axis.kind == "knots" for axis in (pair.first, pair.second)):
+        return SHARES_OF_KNOTS
+    baseline = model.baseline
+    if baseline is None or pair.name not in {bins.pair for bins in baseline.pairs}:
+        return SHARES_UNKNOWN
+    return None
+
+
+def shares_words(model: AdditiveModel, pair: PairTerm) -> str:
+    """Where a pair's training shares come from, or why there are none, in a line."""
+    missing = _shares_missing(model, pair)
+    if missing is not None:
+        return missing
+    return SHARES_FROM_BASELINE.format(rows=model.baseline.pair(pair.name).rows)
+
+
 def _entry_values(axis: Axis) -> list[Any]:
     """The value each entry stands for in a file: a level, a knot, an edge bin's upper
     edge (the lowest bin's too; the last bin's is blank), blank for the missing entry."""
@@ -73,14 +130,12 @@ def _entry_values(axis: Axis) -> list[Any]:
     return values + ([None] if axis.missing else [])
 
 
-def pair_table(model: AdditiveModel, name: str,
-               encoded: pd.DataFrame | None = None) -> pd.DataFrame:
-    """A pair's table in long form: one line per cell (first axis outer), with its
-    entries' labels and numbers (from 1), the value the model adds there and, given data
-    encoded as the model reads it, the cell's share of its rows."""
-    pair = find_pair(model, name)
+def long_form(pair: PairTerm, shares: np.ndarray | None = None) -> pd.DataFrame:
+    """A pair's table in long form, the one every file of a pair's cells holds: one line
+    per cell (first axis outer), its entries' labels (`Axis.labels`) and numbers (from 1),
+    the values they stand for, the value the table adds there and, when given (a grid as
+    the table), the cell's share of training rows."""
     table = pair.table()
-    shares = None if encoded is None else cell_shares(pair, encoded)
     first_labels, second_labels = pair.first.labels(), pair.second.labels()
     first_values, second_values = _entry_values(pair.first), _entry_values(pair.second)
     rows = []
@@ -92,6 +147,16 @@ def pair_table(model: AdditiveModel, name: str,
                          "value": float(table[a, b]),
                          "training_share": None if shares is None else float(shares[a, b])})
     return pd.DataFrame(rows, columns=list(PAIR_COLUMNS))
+
+
+def pair_table(model: AdditiveModel, name: str,
+               encoded: pd.DataFrame | None = None) -> pd.DataFrame:
+    """A model's pair (by name) in long form (`long_form`), with each cell's share of the
+    rows of `encoded` (data as the model reads it) when given, else of the training rows
+    from the model file's baseline when it has them (`baseline_shares`), else blank."""
+    pair = find_pair(model, name)
+    shares = baseline_shares(model, pair) if encoded is None else cell_shares(pair, encoded)
+    return long_form(pair, shares)
 
 
 def all_pair_tables(model: AdditiveModel, names: Sequence[str] | None = None,
@@ -118,6 +183,17 @@ def share_grid(model: AdditiveModel, name: str, encoded: pd.DataFrame) -> pd.Dat
     pair = find_pair(model, name)
     grid = heat_grid(model, name)
     return pd.DataFrame(cell_shares(pair, encoded), index=grid.index, columns=grid.columns)
+
+
+def training_share_grid(model: AdditiveModel, name: str) -> pd.DataFrame | None:
+    """Each cell's share of the training rows from the model file's baseline, laid out as
+    `heat_grid`; None where the file cannot give them (`shares_words` says why)."""
+    pair = find_pair(model, name)
+    shares = baseline_shares(model, pair)
+    if shares is None:
+        return None
+    grid = heat_grid(model, name)
+    return pd.DataFrame(shares, index=grid.index, columns=grid.columns)
 
 
 def pair_importance(model: AdditiveModel, pair: PairTerm) -> float | None:

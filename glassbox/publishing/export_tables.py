@@ -31,8 +31,8 @@ first feature's raw value weighs the entries of its axis (`AxisTable`: one entry
 between knots, or none for a level never seen in training), and for each entry of the
 first axis, the pair along the second feature as an ordinary `ExportTable` (its row of the
 table). The pair adds the weighted sum of those rows: an engine writes it as a CASE on the
-first feature with, inside, a CASE on the second. `pair_long_table` gives a pair's table in
-long form (one line per cell) for auditors.
+first feature with, inside, a CASE on the second. A pair's table in long form (one line
+per cell) for auditors is `glassbox.explaining.pair_shapes.long_form`.
 """
 
 from __future__ import annotations
@@ -51,7 +51,7 @@ from glassbox.core.encoding import encode_column, label_text
 from glassbox.core.errors import DataError, GlassboxError, UnseenLevelWarning
 from glassbox.core.guesses import FALSE_WORDS, TRUE_WORDS
 from glassbox.core.pairs import Axis, PairTerm
-from glassbox.core.schema import FeatureSpec
+from glassbox.core.schema import FeatureSpec, Schema
 
 if TYPE_CHECKING:
     from glassbox.explaining.cards import FeaturePoints, PointsCard
@@ -155,16 +155,28 @@ def model_tables(model: AdditiveModel) -> tuple[ExportTable, ...]:
 
 def card_tables(card: PointsCard) -> tuple[ExportTable, ...]:
     """One table of whole points per feature of the card, in the card's order (steps or
-    levels: a card has no curves). A card with points grids of pairs is refused: its
-    grids are not exported yet, and leaving them out would score otherwise."""
+    levels: a card has no curves); its pairs' points grids are `card_pair_tables`."""
+    return tuple(_points_table(card.schema.feature(table.feature), table)
+                 for table in card.features)
+
+
+def card_pair_tables(card: PointsCard) -> tuple[PairExportTable, ...]:
+    """Each points grid of the card's pairs spelled out as a model's pair is (its axes are
+    edges or levels: one entry per value, so every cell adds whole points), in its order."""
+    mains = {t.feature: t for t in card_tables(card)}
+    return tuple(_pair_table(card.schema, mains, PairTerm(
+        grid.first, grid.second, tuple(tuple(float(p) for p in row) for row in grid.points)))
+        for grid in card.pairs)
+
+
+def refuse_card_pairs(card: PointsCard, what: str) -> None:
+    """A clear refusal for an export that does not write a card's points grids."""
     if getattr(card, "pairs", ()):
         from glassbox.core.errors import OptionError
 
-        raise OptionError("exporting a points card does not handle its pairs' points grids "
-                          f"yet ({', '.join(p.name for p in card.pairs)}); export the model "
-                          "instead")
-    return tuple(_points_table(card.schema.feature(table.feature), table)
-                 for table in card.features)
+        raise OptionError(f"{what} does not handle a points card's pairs' grids "
+                          f"({', '.join(p.name for p in card.pairs)}); export the card as "
+                          "SQL, or the model as PMML")
 
 
 def column_rule(spec: FeatureSpec) -> ColumnRule:
@@ -337,19 +349,8 @@ class PairExportTable:
 
 def pair_tables(model: AdditiveModel) -> tuple[PairExportTable, ...]:
     """One spelled-out table per pair of the model, in the model's order."""
-    return tuple(_pair_table(model, pair) for pair in model.pairs)
-
-
-def pair_long_table(pair: PairTerm) -> pd.DataFrame:
-    """A pair's table in long form: one line per cell (the first feature's entry, the
-    second's, the value), entries labelled as `Axis.labels` labels them."""
-    table = pair.table()
-    first, second = pair.first.labels(), pair.second.labels()
-    return pd.DataFrame({
-        "pair": pair.name,
-        "first": pair.first.feature, "first_entry": np.repeat(first, len(second)),
-        "second": pair.second.feature, "second_entry": np.tile(second, len(first)),
-        "value": table.ravel()})
+    mains = {t.feature: t for t in model_tables(model)}
+    return tuple(_pair_table(model.schema, mains, pair) for pair in model.pairs)
 
 
 def _entry_weights(axis: Axis, typed: pd.Series) -> np.ndarray:
@@ -382,11 +383,11 @@ def _axis_table(spec: FeatureSpec, axis: Axis, main: ExportTable) -> AxisTable:
                      tuple(tuple(row) for row in weights.tolist()), unseen, missing)
 
 
-def _pair_table(model: AdditiveModel, pair: PairTerm) -> PairExportTable:
-    mains = {t.feature: t for t in model_tables(model)}
-    first = _axis_table(model.schema.feature(pair.first.feature), pair.first,
+def _pair_table(schema: Schema, mains: dict[str, ExportTable],
+                pair: PairTerm) -> PairExportTable:
+    first = _axis_table(schema.feature(pair.first.feature), pair.first,
                         mains[pair.first.feature])
-    second = _axis_table(model.schema.feature(pair.second.feature), pair.second,
+    second = _axis_table(schema.feature(pair.second.feature), pair.second,
                          mains[pair.second.feature])
     table = pair.table()
     return PairExportTable(pair.name, first, tuple(_along(second, row) for row in table))

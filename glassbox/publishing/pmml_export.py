@@ -49,6 +49,7 @@ from glassbox.publishing.export_tables import (
     card_tables,
     model_tables,
     pair_tables,
+    refuse_card_pairs,
 )
 
 NAMESPACE = "http://www.dmg.org/PMML-4_4"
@@ -116,7 +117,9 @@ def model_pmml(model: AdditiveModel) -> str:
 
 
 def card_pmml(card: PointsCard) -> str:
-    """The points card as a PMML Scorecard."""
+    """The points card as a PMML Scorecard (a card with pairs' points grids is refused:
+    a Scorecard characteristic reads one field; see `refuse_card_pairs`)."""
+    refuse_card_pairs(card, "the PMML export of a points card")
     tables = card_tables(card)
     _check_names(tables, ["total_points", *(f"reason_{k}" for k in range(1, len(tables) + 1))])
     root = _document(card.model_checksum, _card_notes(tables), "a glassbox points card")

@@ -16,7 +16,13 @@ from rich.text import Text
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
-from glassbox.explaining.shapes import MarkedRow, missing_words, readable_rows, value_rows
+from glassbox.explaining.shapes import (
+    MarkedRow,
+    missing_words,
+    percent_text,
+    readable_rows,
+    value_rows,
+)
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
@@ -267,10 +273,9 @@ def pair_title(pair: Any, words: str = "") -> str:
             f"{pair.first.feature}, columns {pair.second.feature}{words}")
 
 
-def pair_notes(pair: Any, shares: bool = False) -> list[str]:
-    """Lines under a heat table: how knots read, the missing entries, the shares."""
-    from glassbox.explaining.pair_shapes import SHARES_UNKNOWN
-
+def pair_notes(pair: Any, shares: str | None = None) -> list[str]:
+    """Lines under a heat table: how knots read, the missing entries, where the training
+    shares of its cells come from (`pair_shapes.shares_words`) when given."""
     notes = []
     knots = [a.feature for a in (pair.first, pair.second) if a.kind == "knots"]
     if knots:
@@ -281,19 +286,34 @@ def pair_notes(pair: Any, shares: bool = False) -> list[str]:
         notes.append(f"The 'missing' {'row' if missing[0] == pair.first.feature else 'column'}"
                      f"{'s' if len(missing) > 1 else ''} ({', '.join(missing)}): a row with "
                      "no value.")
-    if not shares:
-        notes.append(f"Cell shares: {SHARES_UNKNOWN}.")
+    if shares:
+        notes.append(f"Training shares of cells: {shares}.")
     return notes
 
 
 def pair_view(model: AdditiveModel, name: str) -> RenderableType:
     """One pair's heat table: rows the first axis, columns the second (a wide table is
-    stacked in parts, each repeating the first column), the notes under it."""
-    from glassbox.explaining.pair_shapes import find_pair, heat_grid
+    stacked in parts, each repeating the first column), the notes under it; then, when the
+    model file keeps them, each cell's share of the training rows laid out the same way."""
+    from glassbox.explaining.pair_shapes import (
+        find_pair,
+        heat_grid,
+        shares_words,
+        training_share_grid,
+    )
 
     pair = find_pair(model, name)
-    return FittedTable.of_frame(heat_texts(heat_grid(model, name)), title=pair_title(pair),
-                                notes=pair_notes(pair))
+    values = FittedTable.of_frame(heat_texts(heat_grid(model, name)), title=pair_title(pair),
+                                  notes=pair_notes(pair, shares_words(model, pair)))
+    shares = training_share_grid(model, name)
+    if shares is None:
+        return values
+    texts = shares.map(percent_text)
+    texts.columns = [str(c) for c in texts.columns]
+    texts.insert(0, str(shares.index.name), [str(label) for label in shares.index])
+    return Group(values, FittedTable.of_frame(
+        texts, title=f"{pair.name}: share of the training rows in each cell (the model "
+                     "file's development baseline)"))
 
 
 def terminal_columns(table: pd.DataFrame) -> list[str]:

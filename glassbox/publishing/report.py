@@ -380,8 +380,9 @@ def _feature_sections(model: AdditiveModel) -> list[Section]:
 
 def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> list[Section]:
     """A section per pairwise table, after the features: its heat map, its table (rows the
-    first feature's entries, columns the second's) and each cell's share of the report's
-    data rows (the model file keeps no joint counts of two features)."""
+    first feature's entries, columns the second's), each cell's share of the training rows
+    where the model file's baseline keeps them (`pair_shapes.baseline_shares`) and of the
+    report's data rows."""
     from glassbox.explaining import pair_shapes
 
     if not model.pairs:
@@ -404,6 +405,12 @@ def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> 
         shares = pair_shapes.share_grid(model, name, encoded)
         share_table = shares.map(shapes.percent_text).reset_index().rename(
             columns={shares.index.name: corner})
+        training = pair_shapes.training_share_grid(model, name)
+        training_blocks = () if training is None else (Table(
+            training.map(shapes.percent_text).reset_index().rename(
+                columns={training.index.name: corner}),
+            f"{name}: share of the training rows in each cell (from the development "
+            "baseline kept in the model file)"),)
         importance = model.metadata.get("importance", {}).get(name)
         words = ("importance not recorded" if importance is None
                  else f"importance {importance:.3g} (mean absolute contribution over the "
@@ -415,8 +422,10 @@ def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> 
             Picture(picture, plots.pair_figure(model, name),
                     f"Heat map of the pairwise table of {pair.first.feature} and "
                     f"{pair.second.feature}"),
-            Paragraph(f"{pair.first.kind} × {pair.second.kind}; {words}.{read}"),
+            Paragraph(f"{pair.first.kind} × {pair.second.kind}; {words}.{read} Training "
+                      f"shares of cells: {pair_shapes.shares_words(model, pair)}."),
             Table(values, f"{name}: what the pair adds to the score"),
+            *training_blocks,
             Table(share_table, f"{name}: share of the rows of {Path(source).name} in each "
                                "cell"),
         )

@@ -26,7 +26,6 @@ from glassbox.core.additive import AdditiveModel
 from glassbox.core.documents import checksum
 from glassbox.core.errors import OptionError
 from glassbox.core.files import SQL_MARK
-from glassbox.core.pairs import refuse_pairs
 from glassbox.core.schema import Schema
 from glassbox.explaining.cards import PointsCard, card_to_dict
 from glassbox.explaining.reasons import NOTHING, Best, bests
@@ -34,6 +33,7 @@ from glassbox.publishing.export_tables import (
     AxisTable,
     ExportTable,
     PairExportTable,
+    card_pair_tables,
     card_tables,
     model_tables,
     pair_tables,
@@ -53,12 +53,12 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
     """One SELECT scoring `table` as `glassbox score` does: the id column (the option, or
     the schema's; none when neither names one), `score`, `probability` (classification) or
     `prediction` (regression), with `contributions` each `contribution:FEATURE`, and with
-    `reasons` K > 0 the K terms furthest below their best (`feature_k`: the feature, the
-    reason code; `gap_k`), ranked as `glassbox reasons` ranks them."""
+    `reasons` K > 0 the K terms and pairs furthest below their best (`feature_k`: the
+    feature, or the pair's name "A & B", as the reason code; `gap_k`), ranked as
+    `glassbox reasons` ranks them (a pair's gap from its own best value, terms first on
+    ties)."""
     if reasons < 0:
         raise OptionError(f"--reasons takes a number of reasons, 0 or more, not {reasons}")
-    if reasons:  # a pair's place among the reasons is the reasons' own rule, not here yet
-        refuse_pairs(model, "--reasons in the SQL export")
     tables = model_tables(model)
     pairs = pair_tables(model)
     ident = _id_column(id_column or model.schema.id_column, tables)
@@ -73,7 +73,8 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
            else []),
          *([f"contribution:{p.name}: what the pair adds (its two-feature table)"
             for p in pairs] if contributions else []),
-         *([f"feature_1..{reasons}: the features (reason codes) holding the score furthest",
+         *([f"feature_1..{reasons}: the features{' or pairs' if pairs else ''} (reason codes) "
+            "holding the score furthest",
             f"  below their best, first the furthest; gap_1..{reasons}: how far (score scale),",
             "  from the best within the central 98% of training values (as glassbox reasons);",
             f"  NULL where fewer features are more than {NOTHING!r} below their best"]
@@ -106,23 +107,26 @@ def card_sql(card: PointsCard, *, table: str = "applications", id_column: str | 
         raise OptionError("--reasons ranks a model's terms: export the model file for reasons "
                           "(a points card has no reasons of its own)")
     tables = card_tables(card)
-    for found in tables:
+    pairs = card_pair_tables(card)
+    for found in (*tables, *(row for pair in pairs for row in pair.rows)):
         for value in (*found.values, found.unseen, found.missing):
             if value is not None and not float(value).is_integer():
                 raise OptionError(f"the card's points for '{found.feature}' are not whole "
                                   f"numbers ({value!r}); the card file is damaged")
     ident = _id_column(id_column or card.schema.id_column, tables)
-    names = [t.feature for t in tables]
+    names = [t.feature for t in tables] + [p.name for p in pairs]
     card_sum = checksum(card_to_dict(card))
     head = _header(
         f"the points card {card_sum} (of the model {card.model_checksum or 'not recorded'})",
         card.schema, tables, ident,
         ["total_points: base_points plus each feature's points (whole numbers)",
          f"base_points: {card.base_points} on every row",
-         *(["points:FEATURE: each feature's points"] if contributions else [])],
+         *(["points:FEATURE: each feature's points"] if contributions else []),
+         *([f"points:{p.name}: the pair's points (its grid's cell)" for p in pairs]
+           if contributions else [])],
         ["Points are whole numbers added exactly, as `glassbox score --points` adds them."])
     parts = [_inputs_cte(tables, ident, table),
-             _terms_cte(tables, ident, "points", as_double=False),
+             _terms_cte(tables, ident, "points", as_double=False, pairs=pairs),
              _scores_cte(names, ident, "points", "total_points", str(card.base_points))]
     final = [*([_quote(ident)] if ident else []), '"total_points"',
              f'{card.base_points} AS "base_points"']
@@ -337,12 +341,14 @@ def _terms_cte(tables: Sequence[ExportTable], ident: str | None, prefix: str,
             case = f"CAST({case} AS DOUBLE PRECISION)"
         columns.append(f"{case} AS {_quote(f'{prefix}:{found.feature}')}")
     for pair in pairs:
-        columns.append(f"CAST({_pair_case(pair)} AS DOUBLE PRECISION) "
-                       f"AS {_quote(f'{prefix}:{pair.name}')}")
+        case = _pair_case(pair, as_double)
+        if as_double:
+            case = f"CAST({case} AS DOUBLE PRECISION)"
+        columns.append(f"{case} AS {_quote(f'{prefix}:{pair.name}')}")
     return _cte("terms", columns, "inputs")
 
 
-def _pair_case(pair: PairExportTable) -> str:
+def _pair_case(pair: PairExportTable, as_double: bool = True) -> str:
     """A pair as a nested CASE: the outer CASE reads the first feature's entry (or two
     entries and their weights between knots); each entry's result is a CASE on the second
     feature, that entry's row of the table read as the feature's own table is read."""
@@ -352,9 +358,13 @@ def _pair_case(pair: PairExportTable) -> str:
         if weights is None:
             result = "NULL"
         else:
-            added = [_case(pair.rows[j], True) if weight == "1" else
+            if not as_double and any(weight != "1" for _, weight in weights):
+                raise OptionError(f"the points grid of '{pair.name}' reads between two "
+                                  "entries; the card file is damaged")
+            added = [_case(pair.rows[j], as_double) if weight == "1" else
                      f"{weight} * {_case(pair.rows[j], True)}" for j, weight in weights]
-            result = f"\n{step}+ ".join(added) if added else _number(0.0)
+            result = (f"\n{step}+ ".join(added) if added
+                      else _number(0.0) if as_double else "0")
         whens.append(f"{'ELSE' if condition is None else f'WHEN {condition} THEN'} {result}")
     first = pair.first
     title = (f"pair {pair.name}: by {first.feature} ({first.axis.kind}), then "
