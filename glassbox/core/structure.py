@@ -486,6 +486,19 @@ CARD = Record(
 # that may be null where no interval exists (one fold) and a note saying why.
 _INTERVAL = {"mean": Number(null=True), "lower": Number(null=True),
              "upper": Number(null=True), "interval_note": Text(null=True)}
+# One fold's search of the tuned trees benchmark (glassbox/fitting/benchmark_search.py):
+# the candidate settings are free-form (the grid may grow), their numbers finite.
+_SETTING = {"rounds": Number(low=1, whole=True)}
+TUNING = Record(
+    required={"repeat": COUNT, "fold": COUNT, "budget": Number(low=1, whole=True),
+              "candidates_tried": Number(low=1, whole=True),
+              "chosen": Record(required=_SETTING, extra=Either((NUMBER, TEXT, Flag()))),
+              "chosen_candidate": Number(low=1, whole=True), "validation_loss": POSITIVE},
+    optional={"inner_training_rows": COUNT, "inner_validation_rows": COUNT, "loss": TEXT,
+              "tried": Items(Record(required={"candidate": Number(low=1, whole=True),
+                                              "validation_loss": POSITIVE},
+                                    optional=_SETTING, extra=Either((NUMBER, TEXT, Flag()))))},
+    extra=Anything())
 METRIC = Text(("auc", "gini", "ks", "log_loss", "brier", "accuracy", "rmse", "mae", "r2"))
 COMPARISON = Record(
     required={"format": TEXT, "version": Number(whole=True), "headline": TEXT,
@@ -493,9 +506,22 @@ COMPARISON = Record(
               "settings": Record(required={"benchmark": TEXT},
                                  optional={"folds": Number(low=2, whole=True),
                                            "repeats": Number(low=1, whole=True),
-                                           "cutoff": OPEN_SHARE, "families": TEXTS},
+                                           "cutoff": OPEN_SHARE, "families": TEXTS,
+                                           "seed": Number(whole=True),
+                                           "stratified": Flag(), "interval": TEXT,
+                                           "test_to_train_ratio": POSITIVE,
+                                           "family_options": Keyed(Record(extra=Anything())),
+                                           "benchmark_origin": TEXT,
+                                           "benchmark_settings": Record(extra=Anything()),
+                                           # your own scores in the benchmark's place
+                                           "benchmark_scores": TEXT,
+                                           "benchmark_scores_layout": TEXT,
+                                           # the trees benchmark's search in each fold
+                                           "benchmark_budget": Number(low=1, whole=True),
+                                           "benchmark_tuning": Items(TUNING)},
                                  extra=Anything()),
-              "provenance": Record(optional={"rows": COUNT}, extra=Anything()),
+              "provenance": Record(optional={"rows": COUNT, "benchmark_scores_sha256": SHA256},
+                                   extra=Anything()),
               "models": Items(Record(required={"model": TEXT, "metric": METRIC},
                                      optional={"kind": TEXT, "t": Number(null=True),
                                                "p_value": Number(low=0, high=1, null=True),
