@@ -35,7 +35,8 @@ MODEL_FILE = documents.Kind(FORMAT, VERSION, "model", "model file", "a glassbox 
 _PLAIN_FILE = replace(MODEL_FILE, version=WITHOUT_PAIRS)
 
 
-def _kind(model: AdditiveModel) -> documents.Kind:
+def kind_of(model: AdditiveModel) -> documents.Kind:
+    """The file kind a model is written as: version 3 with pairs, else version 2."""
     return MODEL_FILE if model.pairs else _PLAIN_FILE
 checksum = documents.checksum
 canonical_json = documents.canonical_json
@@ -114,12 +115,12 @@ def _model_from_dict(content: dict[str, Any], source: str) -> AdditiveModel:
 
 def dumps(model: AdditiveModel) -> str:
     """The model file's text: indented, keys in a fixed order, ends with a newline."""
-    return documents.dumps(_kind(model), model_to_dict(model))
+    return documents.dumps(kind_of(model), model_to_dict(model))
 
 
 def save(model: AdditiveModel, path: str | Path) -> Path:
     """Write the model file atomically and return its path."""
-    return documents.save(_kind(model), model_to_dict(model), path)
+    return documents.save(kind_of(model), model_to_dict(model), path)
 
 
 def loads(text: str, source: str = "<text>") -> AdditiveModel:
