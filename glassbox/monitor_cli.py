@@ -59,9 +59,9 @@ def monitor_command(
              "also given in points.")] = None,
     format: Annotated[MonitorFormat | None, typer.Option(
         "--format", metavar=choices(MonitorFormat),
-        help="table (terminal), json (every table) or csv (the features with "
-                         "their period's summary); by the --out suffix when not given, else "
-                         "the terminal.")] = None,
+        help="table (terminal), json (every table) or csv (the features, and a model's "
+                         "pairs marked by the kind column, with their period's summary); by "
+                         "the --out suffix when not given, else the terminal.")] = None,
     out: Annotated[Path | None, typer.Option(
         metavar="FILE", help="Write json (.json) or csv (.csv) here.")] = None,
     page: Annotated[Path | None, typer.Option(

@@ -150,6 +150,7 @@ def test_csv_holds_each_feature_with_its_period_summary(tmp_path):
     table = pd.read_csv(io.StringIO(text))
     assert len(table) == len(result.features)
     assert list(table.columns[:3]) == ["period", "period_rows", "period_scored_rows"]
+    assert "kind" not in table.columns  # a model without pairs: the CSV as before pairs
     q3 = table[table["period"] == "2026-Q3"]
     assert (q3["score_psi"] == 0.31).all() and (q3["period_rows"] == 950).all()
     path = tmp_path / "monitoring.csv"

@@ -93,3 +93,85 @@ def test_the_baseline_is_saved_and_an_older_one_without_pairs_still_reads(settin
     assert read.pairs == () and read.features == model.baseline.features
     with pytest.raises(DataError, match="--baseline"):
         monitor(model, [folder / "late.csv"], baseline=read)
+
+
+# ---------------------------------------------------------------- the page and the CSV
+
+
+def test_the_page_names_every_pair_with_its_psi_and_the_bars_add_up(setting):
+    """The page's pair section holds every pair of `Monitoring.pairs` with its PSI (and its
+    heat table writes the same PSI in each cell); the characteristic bars, pairs included,
+    sum to the mean score's change computed by numpy from `model.score` on the rows."""
+    from glassbox.publishing import monitor_page, monitor_plots
+    from glassbox.publishing.monitor_view import psi_text
+    from glassbox.publishing.report_document import Table, to_html
+
+    model, frame, late, folder = setting
+    result = monitor(model, [folder / "development.csv", folder / "late.csv"])
+    page = monitor_page.build_page(result, link=model.link)
+    section = next(s for s in page.sections if s.title == "Pair stability")
+    table = next(b for b in section.blocks if isinstance(b, Table)).frame
+    shown = table.set_index(["period", "pair"])["PSI"]
+    assert len(shown) == len(result.pairs) == 2 * len(model.pairs)
+    for row in result.pairs.itertuples(index=False):
+        assert shown[(row.period, row.pair)] == psi_text(row.psi)
+    html = to_html(page)
+    for pair in model.pairs:
+        assert pair.name.replace("&", "&amp;") in html
+    assert "pair-heat" in [p.name for p in page.pictures]
+    figure = monitor_plots.pair_heat_figure(result.pairs, list(result.periods), 0.1, 0.25)
+    written = sorted(t.get_text() for t in figure.axes[0].texts)
+    assert written == sorted(psi_text(v) for v in result.pairs["psi"])
+    # what moved the mean score: features' and pairs' bars against numpy's mean of the
+    # tool's scores on the later rows minus that on the development rows
+    parts = pd.concat([result.features, result.pairs.rename(columns={"pair": "feature"})])
+    bars = parts.groupby("period")["contribution_change"].sum()
+    moved = float(np.mean(model.score(late)) - np.mean(model.score(frame)))
+    assert bars["late"] == pytest.approx(moved, abs=1e-9)
+    assert bars["development"] == pytest.approx(0.0, abs=1e-12)
+    drawn = monitor_plots.characteristic_figure(
+        result.summary, parts, list(result.periods), "contribution_change", "score_change",
+        "log-odds", pairs=[p.name for p in model.pairs])
+    heights = np.zeros(len(result.periods))
+    for patch in drawn.axes[0].patches:
+        heights[int(round(patch.get_x() + patch.get_width() / 2))] += patch.get_height()
+    np.testing.assert_allclose(heights, [0.0, moved], atol=1e-9)
+
+
+def test_the_csv_carries_the_pairs_marked_and_equal_to_the_json(setting):
+    """Each CSV row equals its JSON record (features and pairs, to the CSV's 10 significant
+    digits); pair rows are marked `kind` = "pair" after their period's features; the
+    feature rows alone are the features table as before."""
+    import io
+
+    from glassbox.publishing.monitor_files import to_monitoring_csv
+
+    model, _, _, folder = setting
+    result = monitor(model, [folder / "development.csv", folder / "late.csv"])
+    table = pd.read_csv(io.StringIO(to_monitoring_csv(result)), keep_default_na=False,
+                        na_values=[""])
+    document = json.loads(to_json(result))
+    assert table.columns[-1] == "kind" and set(table["kind"]) == {"feature", "pair"}
+    assert table["kind"].tolist() == (["feature"] * len(model.features)
+                                      + ["pair"] * len(model.pairs)) * 2
+    for kind, records in (("feature", document["features"]), ("pair", document["pairs"])):
+        rows = table[table["kind"] == kind]
+        assert len(rows) == len(records)
+        for (_, row), record in zip(rows.iterrows(), records, strict=True):
+            name = record.get("feature", record.get("pair"))
+            assert row["period"] == record["period"] and row["feature"] == name
+            for key, value in record.items():
+                if key in ("period", "feature", "pair"):
+                    continue
+                cell = row[key]
+                if value is None:
+                    assert pd.isna(cell), (name, key)
+                elif isinstance(value, str):
+                    assert cell == value or (value == "" and pd.isna(cell)), (name, key)
+                else:
+                    assert float(cell) == pytest.approx(value, rel=1e-9, abs=1e-12), (name, key)
+        if kind == "pair":  # nothing a pair lacks is filled in
+            assert rows["missing_share"].isna().all() and rows["new_level_rows"].isna().all()
+    # whole numbers stay whole in the text ("0", not "0.0") where pairs leave cells empty
+    text = pd.read_csv(io.StringIO(to_monitoring_csv(result)), dtype=str)
+    assert text.loc[text["kind"] == "feature", "new_level_rows"].str.fullmatch(r"\d+").all()

@@ -1,5 +1,5 @@
 """A monitoring result as files: one JSON document (every table) and one CSV (the features
-with their period's summary beside them).
+with their period's summary beside them, and a model's pairs after its features).
 
 The JSON document starts with `"format": "glassbox-monitoring"` so `files.file_kind`
 recognises it and no command writes over it unasked. Nothing in either file depends on
@@ -12,6 +12,7 @@ import json
 from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
 import pandas as pd
 
 from glassbox.core.formats import _json_value, to_csv
@@ -63,11 +64,36 @@ def to_json(monitoring: Monitoring, context: Mapping[str, Any] | None = None) ->
                       allow_nan=False) + "\n"
 
 
+def parts_table(monitoring: Monitoring) -> pd.DataFrame:
+    """The features table, and for a model with pairs each pair's rows after its period's
+    features (as the model's parts run: pairs after mains), the pair's name ("a & b") in
+    the `feature` column and a last column `kind` saying "feature" or "pair". A pair has
+    no missing share, new levels, attribution or points of its own: those cells are
+    empty. A model without pairs gives the features table unchanged (no `kind` column),
+    so its CSV is the same bytes as before pairs."""
+    features = monitoring.features
+    pairs = monitoring.pairs
+    if pairs is None or pairs.empty:
+        return features
+    order = {str(period): index for index, period in enumerate(monitoring.periods)}
+    both = pd.concat([features.assign(kind="feature"),
+                      pairs.rename(columns={"pair": "feature"}).assign(kind="pair")],
+                     ignore_index=True)
+    # whole-number columns stay whole where a pair leaves them empty
+    for name in features.columns:
+        if pd.api.types.is_integer_dtype(features[name]) and both[name].isna().any():
+            both[name] = both[name].astype("Int64")
+    rank = both["period"].astype(str).map(order)
+    both = both.iloc[np.argsort(rank.to_numpy(), kind="stable")].reset_index(drop=True)
+    return both[[*[c for c in both.columns if c != "kind"], "kind"]]
+
+
 def features_with_periods(monitoring: Monitoring) -> pd.DataFrame:
-    """The features table, each row with its period's rows, score PSI, flag and change."""
+    """The features table (and pairs: `parts_table`), each row with its period's rows,
+    score PSI, flag and change."""
     wanted = [name for name in PERIOD_COLUMNS if name in monitoring.summary.columns]
     periods = monitoring.summary[["period", *wanted]].rename(columns=PERIOD_COLUMNS)
-    features = monitoring.features
+    features = parts_table(monitoring)
     joined = features.merge(periods, on="period", how="left", validate="many_to_one")
     first = ["period", *PERIOD_COLUMNS.values()]
     first = [name for name in first if name in joined.columns]
@@ -75,4 +101,5 @@ def features_with_periods(monitoring: Monitoring) -> pd.DataFrame:
 
 
 def to_monitoring_csv(monitoring: Monitoring) -> str:
+    """The CSV of `glassbox monitor --out FILE.csv`: `features_with_periods` as text."""
     return to_csv(features_with_periods(monitoring))

@@ -84,6 +84,7 @@ def build_page(monitoring: Monitoring, *, model_name: str = "the model",
         _score_section(monitoring, periods),
         _characteristic_section(monitoring, periods, scale),
         _stability_section(monitoring, periods),
+        *_pair_section(monitoring, periods, scale),
         _contribution_section(monitoring, periods, scale),
         _attribution_section(monitoring, periods),
         _missing_section(monitoring),
@@ -163,20 +164,65 @@ def _characteristic_section(monitoring: Monitoring, periods: list[str],
     points = uses_points(monitoring)
     change, total, unit = (("points_change", "points_change", "points") if points else
                            ("contribution_change", "score_change", scale))
-    figure = pictures.characteristic_figure(monitoring.summary, monitoring.features, periods,
-                                            change, total, unit)
-    how = ("How to read it: the model's score is the sum of its features' contributions, so "
+    # the score sums its pairs too, so their changes are bars of their own (a points card
+    # holds the features only, and so does its total)
+    pairs = _pairs(monitoring) if not points else None
+    parts = monitoring.features if pairs is None else pd.concat(
+        [monitoring.features, pairs.rename(columns={"pair": "feature"})], ignore_index=True)
+    names = () if pairs is None else tuple(pairs["pair"].unique())
+    figure = pictures.characteristic_figure(monitoring.summary, parts, periods, change,
+                                            total, unit, pairs=names)
+    movers, what, whose = (("features and pairs", "features' and pairs'",
+                            "feature's and pair's") if names
+                           else ("features", "features'", "feature's"))
+    how = (f"How to read it: the model's score is the sum of its {what} contributions, so "
            "the change in the mean score from development to a period is exactly the sum of "
-           "the changes in each feature's mean contribution. Bars above zero raised the mean "
-           "score, bars below lowered it; the diamond is their sum. The features that moved "
-           f"most have their own colour (up to {len(pictures.MOVER_COLOURS)}); the rest "
+           f"the changes in each {whose} mean contribution. Bars above zero raised the mean "
+           f"score, bars below lowered it; the diamond is their sum. The {movers} that "
+           f"moved most have their own colour (up to {len(pictures.MOVER_COLOURS)}); the rest "
            "share the grey. A feature that moves the score while its PSI stays small is "
            "worth a look too: a few rows in an extreme bin can do it.")
-    table = _per_period(monitoring.features, periods,
-                        lambda v: signed_text(v, 1 if points else 3), change)
+    table = _per_period(parts, periods, lambda v: signed_text(v, 1 if points else 3), change)
     return _explained("What moved the mean score", how, Picture(
-        "characteristics", figure, "Stacked bars of each feature's change in mean contribution"),
-        Table(table, f"Change in each feature's mean contribution ({unit}), by period"))
+        "characteristics", figure, f"Stacked bars of each {whose} change in mean contribution"),
+        Table(table, f"Change in each {whose} mean contribution ({unit}), by period"))
+
+
+def _pairs(monitoring: Monitoring) -> pd.DataFrame | None:
+    """The pairs' drift table, or None for a model without pairs."""
+    pairs = getattr(monitoring, "pairs", None)
+    return None if pairs is None or pairs.empty else pairs
+
+
+def _pair_section(monitoring: Monitoring, periods: list[str], scale: str) -> list[Section]:
+    """For a model with pairs: each pair's PSI over its cells and how far its mean
+    contribution moved, by period (nothing for a model without pairs)."""
+    pairs = _pairs(monitoring)
+    if pairs is None:
+        return []
+    figure = pictures.pair_heat_figure(pairs, periods, WATCH_PSI, ACT_PSI)
+    how = ("How to read it: a pair is a table of two features together, added to the score "
+           "beside their own terms. Its PSI is taken over its cells (each combination of the "
+           "two features' bins, with a cell for a missing value), so it sees rows moving "
+           "between combinations even when each feature alone looks steady. The colours and "
+           "lines are the features' (pale below "
+           f"{WATCH_PSI:.2f}, amber to watch, red to act on, outlined where the sample-size "
+           "check flagged). The table gives each pair's mean contribution in development "
+           f"and in the period ({scale}) and how far it moved; those moves are in the bars of "
+           "what moved the mean score.")
+    table = pd.DataFrame({
+        "period": pairs["period"].astype(str), "pair": pairs["pair"].astype(str),
+        "PSI": [psi_text(v) for v in pairs["psi"]],
+        "p-value": [p_text(v) for v in pairs["p_value"]],
+        "cells": [count_text(v) for v in pairs["bins"]],
+        "flag": [flag_words(f, r) for f, r in zip(pairs["flag"], pairs["rule"], strict=True)],
+        "development mean": [signed_text(v) for v in pairs["development_mean_contribution"]],
+        "mean": [signed_text(v) for v in pairs["mean_contribution"]],
+        "moved": [signed_text(v) for v in pairs["contribution_change"]]})
+    return [_explained("Pair stability", how, Picture(
+        "pair-heat", figure, "Heat table of PSI over each pair's cells by period"),
+        Table(table, f"Each pair by period: PSI over its cells (cells counts those holding "
+                     f"development rows) and its mean contribution ({scale})"))]
 
 
 def _stability_section(monitoring: Monitoring, periods: list[str]) -> Section:

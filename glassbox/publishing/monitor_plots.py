@@ -3,13 +3,14 @@
 Drawn with matplotlib's object interface (no pyplot, no global state), from the tables of
 a `Monitoring` only: score PSI over periods, each feature's mean contribution over periods
 against its development value, the feature × period PSI heat table, the characteristic
-analysis (what moved the mean score), and attribution shares, development against latest.
+analysis (what moved the mean score), attribution shares, development against latest, and
+for a model with pairs the pair × period PSI heat table.
 """
 
 from __future__ import annotations
 
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Collection, Sequence
 
 import numpy as np
 import pandas as pd
@@ -17,6 +18,7 @@ from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 
+from glassbox.core.wording import plural
 from glassbox.publishing.monitor_view import psi_text
 from glassbox.publishing.palette import (
     ACT,
@@ -111,9 +113,11 @@ def contribution_figure(features: pd.DataFrame, names: Sequence[str], periods: S
 
 
 def heat_figure(features: pd.DataFrame, periods: Sequence[str], watch: float,
-                act: float) -> Figure:
-    """Feature × period PSI: a cell per pair, coloured by band, the PSI written inside; a
-    cell the sample-size check flagged is outlined."""
+                act: float, *, title: str = "PSI by feature and period (worst feature on "
+                                            "top)") -> Figure:
+    """Feature × period PSI: a cell per feature and period, coloured by band, the PSI
+    written inside; a cell the sample-size check flagged is outlined. A model's pairs are
+    drawn the same way, their names in the `feature` column (`pair_heat_figure`)."""
     table = features.pivot(index="feature", columns="period", values="psi").reindex(
         columns=list(periods))
     order = table.max(axis=1).sort_values(ascending=False, kind="stable").index
@@ -136,8 +140,7 @@ def heat_figure(features: pd.DataFrame, periods: Sequence[str], watch: float,
             axis.add_patch(_ring(row, column))
     axis.set_yticks(np.arange(len(order)), [str(name) for name in order], fontsize=8)
     _periods_axis(axis, periods)
-    axis.set_title("PSI by feature and period (worst feature on top)", fontsize=10,
-                   loc="left")
+    axis.set_title(title, fontsize=10, loc="left")
     figure.legend(handles=[Patch(color=STEADY, label=f"below {watch:.2f}"),
                            Patch(color=WATCH_COLOUR, label=f"watch, {watch:.2f} to {act:.2f}"),
                            Patch(color=ACT_COLOUR, label=f"act, from {act:.2f}"),
@@ -145,6 +148,14 @@ def heat_figure(features: pd.DataFrame, periods: Sequence[str], watch: float,
                                  label="flagged by the sample-size check")],
                   loc="outside lower center", ncols=4, fontsize=7, frameon=False)
     return figure
+
+
+def pair_heat_figure(pairs: pd.DataFrame, periods: Sequence[str], watch: float,
+                     act: float) -> Figure:
+    """Pair × period PSI over each pair's cells, in the bands and colours of the features'
+    heat table."""
+    return heat_figure(pairs.rename(columns={"pair": "feature"}), periods, watch, act,
+                       title="PSI over each pair's cells by period (worst pair on top)")
 
 
 def _ring(row: int, column: int):
@@ -163,9 +174,11 @@ def movers(features: pd.DataFrame, change: str, count: int) -> list[str]:
 
 def characteristic_figure(summary: pd.DataFrame, features: pd.DataFrame,
                           periods: Sequence[str], change: str, total: str,
-                          unit: str) -> Figure:
+                          unit: str, pairs: Collection[str] = ()) -> Figure:
     """Per period, each feature's change in mean contribution as stacked bars (rises up,
-    falls down); the diamond is their sum, the change in the mean score."""
+    falls down); the diamond is their sum, the change in the mean score. A model's pairs
+    come in `features` as rows of their own (their names listed in `pairs`), since the
+    score sums them too."""
     named = movers(features, change, len(MOVER_COLOURS))
     figure = Figure(figsize=(max(7.0, 2.2 + 0.7 * len(periods)), 5.0), dpi=DPI,
                     layout="constrained")
@@ -176,8 +189,11 @@ def characteristic_figure(summary: pd.DataFrame, features: pd.DataFrame,
                                                              strict=False)]
     rest = sorted(set(features["feature"]) - set(named))
     if rest:
-        groups.append((f"{len(rest)} other feature{'s' if len(rest) > 1 else ''}", rest,
-                       OTHERS))
+        paired = sum(name in pairs for name in rest)
+        words = " and ".join(plural(count, word) for count, word in (
+            (len(rest) - paired, "feature"), (paired, "pair")) if count)
+        count, what = words.split(" ", 1)  # "3 other features and 1 pair"
+        groups.append((f"{count} other {what}", rest, OTHERS))
     for label, members, colour in groups:
         chosen = features[features["feature"].isin(members)]
         for sign, base in ((1, up), (-1, down)):
@@ -192,7 +208,8 @@ def characteristic_figure(summary: pd.DataFrame, features: pd.DataFrame,
     axis.axhline(0, color=QUIET, linewidth=0.8)
     _periods_axis(axis, periods)
     axis.set_ylabel(f"change in mean contribution ({unit})")
-    axis.set_title("What moved the mean score: each feature's change, by period",
+    whose = "feature's and pair's" if pairs else "feature's"
+    axis.set_title(f"What moved the mean score: each {whose} change, by period",
                    fontsize=10, loc="left")
     figure.legend(loc="outside lower center", ncols=2, fontsize=8, frameon=False)
     axis.grid(axis="y", color=FAINT, linewidth=0.8)
