@@ -11,7 +11,7 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel
 from recourse.batch_plans import BLOCK, batch_covers, plan_batch
 from recourse.candidates import OUTSIDE
-from recourse.choices import MOST_JOBS
+from recourse.choices import HANDED_WORDS, MOST_JOBS
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
 from recourse.planner import PlanResult, check_plan_count, plan_encoded, total_scores
@@ -60,7 +60,7 @@ def plan_typed_rows(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataF
                               mutability.goal.target, mutability.goal.direction,
                               row_id=ids[i], message=str(exc))
 
-    if solver == "exact" and batch_covers(mutability, n_plans):
+    if solver == "exact" and batch_covers(mutability, n_plans) and not model.pairs:
         return plan_batch(model, encoded, parts, ids, mutability, n_plans, one_row)
     return [one_row(i) for i in range(len(encoded))]
 
@@ -165,7 +165,7 @@ def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame
 
 OUTCOME_COLUMNS = ("id", "status", "score", "outcome", "plans", "total_cost", "largest_cost",
                    "changes", "main_change", "new_outcome", "best_outcome", "binding_rule",
-                   "message", "tail_warnings")
+                   "message", "tail_warnings", "handed_off")
 
 
 def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
@@ -191,6 +191,7 @@ def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFra
             "binding_rule": result.binding_rules[0] if result.binding_rules else "",
             "message": result.message,
             "tail_warnings": best.tail_warnings if best else 0,
+            "handed_off": result.handed_off,
         })
     return pd.DataFrame(rows, columns=list(OUTCOME_COLUMNS))
 
@@ -209,6 +210,9 @@ def summary_frame(results: list[PlanResult]) -> pd.DataFrame:
             {"measure": OUTSIDE, "value": float(outside)},
             {"measure": TAIL_WORDS,
              "value": float(sum(r.plans[0].tail_warnings > 0 for r in with_plan))}]
+    handed = sum(bool(r.handed_off) for r in results)
+    if handed:  # slower, still exact: said, not silent (shown only when it happened)
+        rows.append({"measure": HANDED_WORDS, "value": float(handed)})
     if len(costs):
         for label, q in (("cheapest plan cost, 10%", 10), ("median", 50), ("90%", 90)):
             rows.append({"measure": label, "value": float(np.percentile(costs, q))})

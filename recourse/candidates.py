@@ -39,6 +39,7 @@ from recourse.errors import MutabilityError, OutsideError
 from recourse.grid import LARGEST_STEP_COUNT, _bisect, _first_past, _points, rounded
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.pair_rules import row_rules, tight_values
+from recourse.pair_terms import joint_loss, reduced, row_pairs
 from recourse.program import best_changes
 
 MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
@@ -91,7 +92,8 @@ class FeatureCandidates(Sequence[Candidate]):
 def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
                        rule: FeatureRule, direction: str = "at-least",
                        need: float = math.inf, every: bool = False,
-                       extra: np.ndarray | None = None) -> FeatureCandidates:
+                       extra: np.ndarray | None = None,
+                       keep_all: bool = False) -> FeatureCandidates:
     """The current value (first, cost 0) and the values the rule lets the feature reach that
     can be in a cheapest plan for a goal in `direction` ("at-least" raises the score).
 
@@ -99,15 +101,19 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     cheapest one that gains it is kept. Values keep the order of the table (numbers ascending).
     `every`: keep every value the rules allow (a feature paired with another by a rule),
     with `extra` values a number with no step may move to as well.
+    `keep_all`: list what the table tells apart (one value per bin, the knots and bounds, on
+    a step grid every point up to the first past the outermost knot) and drop nothing: a
+    feature a pairwise term reads with another movable one (recourse.pair_terms filters
+    them).
     """
     toward = 1.0 if direction == "at-least" else -1.0
     reach = need + NEED_SLACK * (1.0 + abs(need)) if math.isfinite(need) else math.inf
     term = model.term(feature)
     extra = np.empty(0) if extra is None else np.asarray(extra, dtype=float)
-    if every:  # nothing is dropped: every value is listed with its cost
+    if every or keep_all:  # nothing is dropped: every value is listed with its cost
         reach, toward = math.inf, 0.0
     if is_missing(current):
-        return _supply_candidates(model, term, rule, toward, reach, extra)
+        return _supply_candidates(model, term, rule, toward, reach, extra, every)
     if rule.change == "fixed":  # a rule kept for its supply_cost: a value present stays
         here = np.array([current], dtype=object if isinstance(term, LevelsTerm) else float)
         return FeatureCandidates(here, term.evaluate(here), np.zeros(1), 0)
@@ -133,6 +139,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     elif step is None:
         values = _knot_values(term, now, lower, upper)
         weighed = len(values)
+    elif keep_all:
+        values = _curve_grid(term, now, lower, upper, step)
+        weighed = len(values)
     else:
         values, weighed = _grid_values(term, now, lower, upper, step, toward, reach)
     everything = np.concatenate([[now], values])
@@ -156,18 +165,25 @@ def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutabili
                        need: float = math.inf) -> dict[str, FeatureCandidates]:
     """The same, from a row already typed by `AdditiveModel.encode` (feature -> value).
 
+    Pairwise terms of the model: one whose other feature stays in this row is folded into
+    the moving feature's table; the features of one whose two features may both move keep
+    what `recourse.pair_terms.reduced` keeps, and the others' cut at the gap is raised by
+    the most those features and tables can lose (recourse.pair_terms).
+
     Rules between two features: one-sided ones are folded into this row's feature rules;
     the features they pair keep every value (listed first, then with the values that meet a
     rule exactly against the other side's), and the others' cut at the gap is raised by the
     most the paired features can lose (see the module's docstring)."""
     rules, paired = row_rules(model, mutability, values)
     direction = mutability.goal.direction
+    pairs = row_pairs(model, rules, values)  # the model's pairwise terms (recourse.pair_terms)
+    model = pairs.model
 
     def build(feature: str, reach: float, every: bool = False,
-              extra: np.ndarray | None = None) -> FeatureCandidates:
+              extra: np.ndarray | None = None, keep_all: bool = False) -> FeatureCandidates:
         try:
             return feature_candidates(model, feature, values[feature], rules[feature],
-                                      direction, reach, every, extra)
+                                      direction, reach, every, extra, keep_all)
         except MutabilityError as exc:
             if not mutability.source:
                 raise
@@ -179,9 +195,14 @@ def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutabili
                                                    if f != feature})
         if len(extra):
             listed[feature] = build(feature, math.inf, every=True, extra=extra)
+    for feature in sorted(pairs.joint_features - set(listed), key=model.features.index):
+        found = build(feature, math.inf, keep_all=True)
+        kept = reduced(found, feature, pairs.joint, values, direction, need)
+        listed[feature] = FeatureCandidates(found.values[kept], found.contributions[kept],
+                                            found.costs[kept], found.weighed)
     toward = 1.0 if direction == "at-least" else -1.0
     loss = sum(max(0.0, -float(np.min(toward * (c.contributions - c.contributions[0]))))
-               for c in listed.values())
+               for c in listed.values()) + joint_loss(listed, pairs.joint, values, direction)
     return {feature: listed[feature] if feature in listed else build(feature, need + loss)
             for feature in model.features if feature in rules}
 
@@ -374,6 +395,33 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
     return values[values != now], weighed
 
 
+def _curve_grid(term: CurveTerm, now: float, lower: float, upper: float,
+                step: float) -> np.ndarray:
+    """Every allowed grid point up to the first at or past the outermost knot on each side
+    (beyond it every table, pairs too, is flat: the nearest such point is the cheapest)."""
+    knots = np.asarray(term.knots, dtype=float)
+    found, count = [], 0
+    for side, bound in ((-1, lower), (1, upper)):
+        if not side * (bound - now) > 0:
+            continue
+        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
+        outer = knots[-1] if side > 0 else knots[0]
+        ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
+        last = max(int(ends[0]), first)
+        if ends[1] <= LARGEST_STEP_COUNT:
+            last = min(last, int(ends[1]) - 1)
+        count += max(0, last - first + 1)
+        if count > MOST_VALUES:
+            raise MutabilityError(
+                f"[feature.{term.feature}] a pairwise term of the model reads it with another "
+                f"movable feature, so every point of its step grid up to the outermost knot "
+                f"is weighed: more than {MOST_VALUES:,}; use a coarser step or tighter bounds")
+        if last >= first:
+            found.append(_points(now, step, side, np.arange(first, last + 1)))
+    values = _distinct(np.concatenate([np.empty(0), *found]))
+    return values[(values != now) & (values >= lower) & (values <= upper)]
+
+
 def _every_value(term: Any, now: float, lower: float, upper: float, step: float | None,
                  extra: np.ndarray, keep_now: bool = False) -> np.ndarray:
     """Every value a paired feature may move to (see the module's docstring), ascending;
@@ -461,14 +509,17 @@ def is_missing(value: Any) -> bool:
 
 
 def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, toward: float,
-                       reach: float, extra: np.ndarray) -> FeatureCandidates:
+                       reach: float, extra: np.ndarray, every: bool) -> FeatureCandidates:
     """A row with no value: that (at its missing-value entry, cost 0) first, then, when the
     rule has `supply_cost`, the values that may be stated, each at that one cost. With one
     cost for all, the dominance rule keeps the value (the first, on ties) that moves the
     score furthest toward the goal. A plan never makes a value missing: only this path has
-    a missing candidate, and only as the row's own value. With `toward` 0 (a feature paired
-    by a rule) every value that may be stated is kept: on a step grid every multiple of the
-    step within the bounds, else these and `extra`."""
+    a missing candidate, and only as the row's own value. With `toward` 0 nothing is
+    dropped; with `every` too (a feature paired by a rule) every value that may be stated is
+    listed: on a step grid every multiple of the step within the bounds, else these and
+    `extra`. (A pairwise term needs no more than the listed values: with one cost for
+    every stated value, the best one given the other features is where the tables are
+    best, at a break or an end, and a pair's breaks are among its main term's.)"""
     if isinstance(term, LevelsTerm):
         if rule.supplies and rule.moves is not None:
             allowed = set(rule.moves.get(ANY_LEVEL, ()))
@@ -481,7 +532,7 @@ def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, towar
         breaks = term.knots if isinstance(term, CurveTerm) else term.edges
         values = (supply_values(breaks, lower, upper, step, term.feature) if rule.supplies
                   else np.empty(0))
-        if rule.supplies and toward == 0.0 and lower <= upper:
+        if rule.supplies and every and lower <= upper:
             values = (_distinct(np.r_[values, extra[(extra >= lower) & (extra <= upper)]])
                       if step is None else _every_value(term, 0.0, lower, upper, step, extra,
                                                         keep_now=True))

@@ -25,7 +25,8 @@ from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.choices import MOST_PLANS
 from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability
-from recourse.pair_rules import pair_matrices, rules_kept
+from recourse.pair_rules import pair_matrices, row_rules, rules_kept
+from recourse.pair_terms import folded_at, pair_shares, program_tables, row_pairs
 from recourse.program import (
     BUFFER,
     DEFAULT_SOLVER,
@@ -67,6 +68,8 @@ class Plan:
     outcome: float  # probability (classification) or predicted value (regression)
     total_cost: float
     largest_cost: float
+    # the model's pairwise terms the plan moves: (pair name, value before, value after)
+    pairs: tuple[tuple[str, float, float], ...] = ()
 
     @property
     def count(self) -> int:
@@ -95,6 +98,9 @@ class PlanResult:
     binding_rules: tuple[str, ...] = ()  # the same as short names ("bounds on x", "x fixed")
     row_id: Any = None
     message: str = ""  # "error", "outside": why the rules cannot be applied to this row
+    # why the fast exact solver handed the row to the general integer program ("pairwise
+    # terms", "linked rules"); empty when it did not (summaries count these rows)
+    handed_off: str = ""
 
 
 def _reaches(score: float, threshold: float, direction: str) -> bool:
@@ -134,7 +140,8 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     except OutsideError as exc:
         return PlanResult("outside", message=str(exc), **common)
     names = tuple(candidates)
-    program = row_program(candidates, score, parts, goal, threshold, mutability)
+    program = row_program(candidates, score, parts, goal, threshold, mutability,
+                          model=model, values=encoded.iloc[0])
     solutions: list[Solution] = []
     forbidden: list[frozenset[int]] = []
     for _ in range(n_plans):
@@ -145,7 +152,7 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         forbidden.append(frozenset(g for g, pick in enumerate(solution.choice) if pick != 0))
     if solutions:
         plans = _plans(model, encoded, names, candidates, solutions, threshold, mutability)
-        return PlanResult("plans", plans=plans, **common)
+        return PlanResult("plans", plans=plans, handed_off=_handed_off(solutions[0]), **common)
     best = best_reachable(program)
     blank = {name for name in model.features if is_missing(encoded.iloc[0][name])}
     # kept only so a blank may be stated: where the row has a value, the feature is fixed
@@ -153,10 +160,19 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
                    if rule.change == "fixed" and name not in blank}
     summary, findings = _diagnosis(model, parts, {n: c for n, c in candidates.items()
                                                   if n not in stated_only}, program, blank)
-    return PlanResult("none", best_score=best,
+    return PlanResult("none", best_score=best, handed_off=_handed_off(solution),
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
                       binding_rules=tuple(rule for rule, _ in findings), **common)
+
+
+def _handed_off(solution: Solution) -> str:
+    """Why the fast solver handed a program on (its message says), or ""."""
+    from recourse.solver import HANDED_OFF
+
+    text = solution.message
+    return text[text.index(HANDED_OFF) + len(HANDED_OFF):].strip(" )") if (
+        HANDED_OFF in text) else ""
 
 
 def total_scores(model: AdditiveModel, parts: np.ndarray) -> np.ndarray:
@@ -175,19 +191,32 @@ def check_plan_count(n_plans: int) -> None:
 
 
 def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,
-                goal: Goal, threshold: float, mutability: Mutability | None = None) -> Program:
+                goal: Goal, threshold: float, mutability: Mutability | None = None, *,
+                model: AdditiveModel | None = None, values: Any = None) -> Program:
     """One row's integer program: its candidates (current value first) and the goal; the
     base is the score less the changeable features' current contributions. The links and
-    level bounds of `mutability` between two of its features become pair rules."""
+    level bounds of `mutability` between two of its features become pair rules.
+
+    A model with pairwise terms needs `model` and the row's typed `values`: a pair one of
+    whose features stays is already in the other's candidates (recourse.pair_terms), one
+    whose two features move becomes a table of the program; both leave the base."""
     names = tuple(candidates)
     pairs = () if mutability is None else pair_matrices(
         mutability, {n: candidates[n].values for n in names}, names)
+    contributions = {n: candidates[n].contributions for n in names}
+    base = score - float(sum(parts[name] for name in names))
+    tables: list = []
+    if model is not None and model.pairs and mutability is not None:
+        split = row_pairs(model, row_rules(model, mutability, values)[0], values)
+        tables, added, constant = program_tables(split.joint, candidates, names)
+        contributions.update({n: contributions[n] + extra for n, extra in added.items()})
+        base += constant - float(sum(parts[p.name] for p in split.joint + split.folded))
     return Program(
-        base=score - float(sum(parts[name] for name in names)),
-        contributions=tuple(candidates[n].contributions for n in names),
+        base=base, contributions=tuple(contributions[n] for n in names),
         costs=tuple(candidates[n].costs for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
-        objective=goal.objective, max_changes=goal.max_changes, names=names, pairs=pairs)
+        objective=goal.objective, max_changes=goal.max_changes, names=names, pairs=pairs,
+        tables=tuple(tables))
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
@@ -223,18 +252,35 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
                                f"{solution.score!r}; threshold {threshold!r} ({direction})")
         if not rules_kept(mutability, encoded.iloc[0], changed_rows.iloc[number]):
             raise RuntimeError("planner bug: a plan breaks a link or level_bound")
-        changes = [replace(c, accepted=accepted(
-            model, mutability.rules[c.feature], threshold - (score - new.contribution),
-            direction)) if c.supplied else c for c, new in _picked(changes, candidates,
-                                                                   solution, names)]
+        after = changed_rows.iloc[number]
+        changes = [replace(c, accepted=_accepted(model, mutability, c, after, score, threshold))
+                   if c.supplied else c for c in changes]
         if any(c.supplied for c in changes):  # only then is the row needed again
             changes, score = _least_stated(model, changed_rows.iloc[[number]].copy(), changes,
                                            score, threshold, mutability, encoded.iloc[0])
         changes = [replace(c, tail=tail_warning(model, c.feature, c.proposed)) for c in changes]
         costs = [c.cost for c in changes]
+        final = changed_rows.iloc[[number]].copy()
+        for c in changes:  # a stated value may have been lowered
+            final[c.feature] = pd.Series([c.proposed], index=final.index,
+                                         dtype=final[c.feature].dtype)
+        moved = pair_shares(model, encoded, final) if model.pairs else ()
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
-                          float(sum(costs)), float(max(costs, default=0.0))))
+                          float(sum(costs)), float(max(costs, default=0.0)), moved))
     return tuple(plans)
+
+
+def _accepted(model: AdditiveModel, mutability: Mutability, change: Change, after: pd.Series,
+              score: float, threshold: float) -> tuple:
+    """The values a stated feature could take instead, the plan's other values held: with
+    pairwise terms, its pairs are read at the other features' planned values."""
+    own = folded_at(model, change.feature, after)
+    term = own.term(change.feature)
+    value = np.array([change.proposed], dtype=object if isinstance(change.proposed, str)
+                     else float)
+    contribution = float(term.evaluate(value)[0])
+    return accepted(own, mutability.rules[change.feature], threshold - (score - contribution),
+                    mutability.goal.direction)
 
 
 def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change], score: float,
@@ -250,10 +296,11 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
     out = []
     for change in changes:
         if change.supplied and change.accepted:
-            term, rule = model.term(change.feature), mutability.rules[change.feature]
+            own = folded_at(model, change.feature, row.iloc[0])  # its pairs at the plan
+            term, rule = own.term(change.feature), mutability.rules[change.feature]
             now = float(term.evaluate(row[change.feature].to_numpy())[0])
             floor = passed - (score - now)
-            values = least_first(model, rule, accepted(model, rule, floor, direction), floor,
+            values = least_first(own, rule, accepted(own, rule, floor, direction), floor,
                                  direction)
             if values:  # every value tried at once, the least favourable first
                 trials = row.iloc[np.zeros(len(values), dtype=np.int64)].reset_index(drop=True)
@@ -267,14 +314,6 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
                         break
         out.append(change)
     return out, score
-
-
-def _picked(changes: Sequence[Change], candidates: Mapping[str, FeatureCandidates],
-            solution: Solution, names: Sequence[str]) -> list[tuple[Change, Candidate]]:
-    """Each change with the candidate the solution picked for it."""
-    chosen = {names[g]: candidates[names[g]][pick]
-              for g, pick in enumerate(solution.choice) if pick != 0}
-    return [(change, chosen[change.feature]) for change in changes]
 
 
 def _is_category(model: AdditiveModel, name: str) -> bool:
