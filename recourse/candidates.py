@@ -36,13 +36,21 @@ import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from recourse.errors import MutabilityError, OutsideError
-from recourse.grid import LARGEST_STEP_COUNT, _bisect, _first_past, _points, rounded
+from recourse.grid import (
+    LARGEST_STEP_COUNT,
+    MOST_VALUES,
+    _bisect,
+    _distinct,
+    _first_past,
+    _nearest_allowed,
+    _points,
+    rounded,
+)
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.pair_rules import row_rules, tight_values
-from recourse.pair_terms import joint_loss, reduced, row_pairs
+from recourse.pair_terms import curve_grid, joint_loss, reduced, row_pairs
 from recourse.program import best_changes
 
-MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
 LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
 NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
 # A row's value beyond this many steps from zero is "outside what the model can plan for":
@@ -140,7 +148,7 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
         values = _knot_values(term, now, lower, upper)
         weighed = len(values)
     elif keep_all:
-        values = _curve_grid(term, now, lower, upper, step)
+        values = curve_grid(term, now, lower, upper, step)
         weighed = len(values)
     else:
         values, weighed = _grid_values(term, now, lower, upper, step, toward, reach)
@@ -296,20 +304,6 @@ def _interval(now: float | np.ndarray, rule: FeatureRule, kind: str) -> tuple[An
             np.broadcast_to(upper, np.shape(now)).astype(float))
 
 
-def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: float,
-                     upper: float) -> int:
-    """The least k >= 1 whose grid point on `side` lies within [lower, upper] as far as its
-    near end goes: 1 when `now` is within it, else the first point on or past the bound."""
-    near = lower if side > 0 else upper
-    if not side * (near - now) > 0:
-        return 1
-    first = int(_first_past(now, step, side, np.array([near]), True)[0])
-    if first > LARGEST_STEP_COUNT:
-        raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the bound "
-                              f"{near:g}: more than {LARGEST_STEP_COUNT:,} steps away")
-    return first
-
-
 def _step_values(term: StepTerm, now: float, lower: float, upper: float,
                  step: float | None) -> np.ndarray:
     """One value per reachable bin: its allowed point closest to `now`, so the cheapest
@@ -395,33 +389,6 @@ def _grid_values(term: CurveTerm, now: float, lower: float, upper: float, step: 
     return values[values != now], weighed
 
 
-def _curve_grid(term: CurveTerm, now: float, lower: float, upper: float,
-                step: float) -> np.ndarray:
-    """Every allowed grid point up to the first at or past the outermost knot on each side
-    (beyond it every table, pairs too, is flat: the nearest such point is the cheapest)."""
-    knots = np.asarray(term.knots, dtype=float)
-    found, count = [], 0
-    for side, bound in ((-1, lower), (1, upper)):
-        if not side * (bound - now) > 0:
-            continue
-        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
-        outer = knots[-1] if side > 0 else knots[0]
-        ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
-        last = max(int(ends[0]), first)
-        if ends[1] <= LARGEST_STEP_COUNT:
-            last = min(last, int(ends[1]) - 1)
-        count += max(0, last - first + 1)
-        if count > MOST_VALUES:
-            raise MutabilityError(
-                f"[feature.{term.feature}] a pairwise term of the model reads it with another "
-                f"movable feature, so every point of its step grid up to the outermost knot "
-                f"is weighed: more than {MOST_VALUES:,}; use a coarser step or tighter bounds")
-        if last >= first:
-            found.append(_points(now, step, side, np.arange(first, last + 1)))
-    values = _distinct(np.concatenate([np.empty(0), *found]))
-    return values[(values != now) & (values >= lower) & (values <= upper)]
-
-
 def _every_value(term: Any, now: float, lower: float, upper: float, step: float | None,
                  extra: np.ndarray, keep_now: bool = False) -> np.ndarray:
     """Every value a paired feature may move to (see the module's docstring), ascending;
@@ -453,12 +420,6 @@ def _every_value(term: Any, now: float, lower: float, upper: float, step: float 
             found.append(_points(now, step, side, np.arange(first, last + 1)))
     values = _distinct(np.concatenate([np.empty(0), *found, [now] if keep_now else []]))
     return values[(values >= lower) & (values <= upper)]
-
-
-def _distinct(values: np.ndarray) -> np.ndarray:
-    """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
-    values = np.sort(values)
-    return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values
 
 
 def _records(gain: Callable[[np.ndarray], np.ndarray], starts: np.ndarray, last: int,

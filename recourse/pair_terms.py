@@ -26,8 +26,17 @@ from typing import Any
 
 import numpy as np
 
-from glassbox.core.additive import AdditiveModel
+from glassbox.core.additive import AdditiveModel, CurveTerm
 from glassbox.core.pairs import Axis, PairTerm, add_to_main
+from recourse.errors import MutabilityError
+from recourse.grid import (
+    LARGEST_STEP_COUNT,
+    MOST_VALUES,
+    _distinct,
+    _first_past,
+    _nearest_allowed,
+    _points,
+)
 from recourse.pair_rules import movable
 from recourse.pairs import PairValues
 
@@ -234,3 +243,30 @@ def folded_at(model: AdditiveModel, feature: str, row: Mapping[str, Any]) -> Add
             terms[feature] = add_to_main(terms[feature], axis,
                                          table @ _axis_weights(other, row[other.feature]))
     return replace(model, terms=tuple(terms[f] for f in model.features), pairs=())
+
+
+def curve_grid(term: CurveTerm, now: float, lower: float, upper: float,
+                step: float) -> np.ndarray:
+    """Every allowed grid point up to the first at or past the outermost knot on each side
+    (beyond it every table, pairs too, is flat: the nearest such point is the cheapest)."""
+    knots = np.asarray(term.knots, dtype=float)
+    found, count = [], 0
+    for side, bound in ((-1, lower), (1, upper)):
+        if not side * (bound - now) > 0:
+            continue
+        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
+        outer = knots[-1] if side > 0 else knots[0]
+        ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
+        last = max(int(ends[0]), first)
+        if ends[1] <= LARGEST_STEP_COUNT:
+            last = min(last, int(ends[1]) - 1)
+        count += max(0, last - first + 1)
+        if count > MOST_VALUES:
+            raise MutabilityError(
+                f"[feature.{term.feature}] a pairwise term of the model reads it with another "
+                f"movable feature, so every point of its step grid up to the outermost knot "
+                f"is weighed: more than {MOST_VALUES:,}; use a coarser step or tighter bounds")
+        if last >= first:
+            found.append(_points(now, step, side, np.arange(first, last + 1)))
+    values = _distinct(np.concatenate([np.empty(0), *found]))
+    return values[(values != now) & (values >= lower) & (values <= upper)]
