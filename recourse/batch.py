@@ -142,7 +142,8 @@ def _describe(change, model: AdditiveModel) -> str:
 
 
 def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
-    """One row per plan (and one per row without a plan)."""
+    """One row per plan (and one per row without a plan). `pairs`: the model's pairwise
+    terms the plan moves, each as 'a & b: before -> after' on the model's scale."""
     rows: list[dict[str, Any]] = []
     for result in results:
         base = {"id": result.row_id, "status": result.status, "score": result.score,
@@ -157,10 +158,12 @@ def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame
                          "total_cost": plan.total_cost, "new_score": plan.score,
                          "new_outcome": plan.outcome, "best_outcome": None,
                          "tail_warnings": "; ".join(c.tail.text() for c in plan.changes
-                                                    if c.tail is not None)})
+                                                    if c.tail is not None),
+                         "pairs": "; ".join(f"{name}: {before:.6g} -> {after:.6g}"
+                                            for name, before, after in plan.pairs)})
     return pd.DataFrame(rows, columns=["id", "status", "score", "outcome", "plan", "changes",
                                        "total_cost", "new_score", "new_outcome",
-                                       "best_outcome", "tail_warnings"])
+                                       "best_outcome", "tail_warnings", "pairs"])
 
 
 OUTCOME_COLUMNS = ("id", "status", "score", "outcome", "plans", "total_cost", "largest_cost",

@@ -159,7 +159,8 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     stated_only = {name for name, rule in mutability.rules.items()
                    if rule.change == "fixed" and name not in blank}
     summary, findings = _diagnosis(model, parts, {n: c for n, c in candidates.items()
-                                                  if n not in stated_only}, program, blank)
+                                                  if n not in stated_only}, program, blank,
+                                   encoded.iloc[0])
     return PlanResult("none", best_score=best, handed_off=_handed_off(solution),
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
@@ -320,12 +321,27 @@ def _is_category(model: AdditiveModel, name: str) -> bool:
     return model.schema.feature(name).kind == "category"
 
 
+def _own_table(model: AdditiveModel, name: str, values: Mapping[str, Any] | None
+               ) -> tuple[AdditiveModel, str]:
+    """The model whose term for `name` is what the feature's own values do to the score:
+    its main table, plus its pairwise terms read at the row's other values (the other
+    features held as they are), and words saying so ("" when it has no pairs)."""
+    names = [p.name for p in model.pairs if name in p.features]
+    if not names or values is None:
+        return model, ""
+    return folded_at(model, name, values), (
+        f", with its pairwise {'term' if len(names) == 1 else 'terms'} "
+        f"({', '.join(names)}) read at the row's other values,")
+
+
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
                candidates: Mapping[str, list[Candidate]], program: Program,
-               blank: set[str] = frozenset()) -> tuple[str, list[tuple[str, str]]]:
+               blank: set[str] = frozenset(), values: Mapping[str, Any] | None = None
+               ) -> tuple[str, list[tuple[str, str]]]:
     """A summary line, and up to six (rule, sentence) pairs, the most limiting first (the
     summary line says how many there were when there were more). `blank`: the features
-    the row has no value for."""
+    the row has no value for; `values`: the row (typed), which a feature's pairwise terms
+    are read at (see `_own_table`)."""
     sign = _favourable(program.direction)
     gap = abs(program.threshold - best_reachable(program))
     findings: list[tuple[float, str, str]] = []
@@ -338,29 +354,37 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     # A table is sized where training rows lie, as reasons size it: a far tail or a level
     # never seen in training would promise what almost no applicant could reach.
     for name, options in candidates.items():
-        best_here = max(sign * c.contribution for c in options)
-        beyond = sign * best_of(model, model.term(name), sign).contribution - best_here
+        own, paired = _own_table(model, name, values)
+        term = own.term(name)
+        listed = np.array([c.value for c in options],
+                          dtype=object if _is_category(model, name) else float)
+        best_here = float(np.max(sign * term.evaluate(listed)))
+        beyond = sign * best_of(own, term, sign).contribution - best_here
         if beyond > 1e-9 and name in blank and len(options) == 1:
-            findings.append((beyond, f"{name} not stated", _unstated(model, name, beyond)))
+            findings.append((beyond, f"{name} not stated", _unstated(own, name, beyond,
+                                                                     paired)))
         elif beyond > 1e-9:
             findings.append((beyond, f"bounds on {name}",
                              f"the bounds, direction, step or largest change on {name} "
-                             f"bind: {central_words(model, name)} its table offers "
+                             f"bind: {central_words(own, name)} its table{paired} offers "
                              f"{beyond:.3g} more ({scale(model)}) beyond them"))
     protected = {f.name for f in model.schema.protected_features}
-    for term in model.terms:
-        name = term.feature
+    for name in model.features:
         if name in candidates or name in protected:
             continue
-        potential = sign * best_of(model, term, sign).contribution - sign * float(parts[name])
+        own, paired = _own_table(model, name, values)
+        term = own.term(name)
+        now = float(parts[name]) if not paired else float(term.evaluate(np.array(
+            [values[name]], dtype=object if _is_category(model, name) else float))[0])
+        potential = sign * best_of(own, term, sign).contribution - sign * now
         if potential > 1e-9 and name in blank:
             findings.append((potential, f"{name} not stated",
-                             _unstated(model, name, potential)))
+                             _unstated(own, name, potential, paired)))
         elif potential > 1e-9:
             findings.append((potential, f"{name} fixed",
-                             f"{name} is fixed by the rules; {central_words(model, name)} "
-                             f"its table could move the score by up to {potential:.3g} "
-                             f"({scale(model)})"))
+                             f"{name} is fixed by the rules; {central_words(own, name)} "
+                             f"its table{paired} could move the score by up to "
+                             f"{potential:.3g} ({scale(model)})"))
     if program.pairs:  # the rules between two features bind when dropping them helps
         lost = sign * (best_reachable(replace(program, pairs=())) - best_reachable(program))
         if lost > 1e-9:
@@ -380,11 +404,11 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     return summary, [(rule, text) for _, rule, text in findings[:SHOWN_FINDINGS]]
 
 
-def _unstated(model: AdditiveModel, name: str, potential: float) -> str:
+def _unstated(model: AdditiveModel, name: str, potential: float, paired: str = "") -> str:
     return (f"{name} has no value and the rules do not let one be stated (no supply_cost, or "
             f"no allowed value scores better than its missing-value entry); "
-            f"{central_words(model, name)} a stated value could move the score by up to "
-            f"{potential:.3g} ({scale(model)})")
+            f"{central_words(model, name)} a stated value{paired} could move the score by up "
+            f"to {potential:.3g} ({scale(model)})")
 
 
 def scale(model: AdditiveModel) -> str:
@@ -439,6 +463,8 @@ def plan_records(result: PlanResult) -> dict[str, Any]:
                          "would_also_do": [_accepted_record(v) for v in c.accepted],
                          "tail_warning": _tail_record(c.tail)}
                         for c in plan.changes],
+            "pairs": [{"pair": name, "before": before, "after": after}
+                      for name, before, after in plan.pairs],
         } for plan in result.plans],
         "best_score": result.best_score, "best_outcome": result.best_outcome,
         "binding": list(result.binding), "message": result.message, "caution": CAUTION,

@@ -231,7 +231,8 @@ def to_dict(result: Reach) -> dict[str, Any]:
                     "share_with_plan": None if not result.declined
                     else result.share_with_plan,
                     "no_plan": result.no_plan, "misfits": result.misfits,
-                    "outside": result.outside, "tail_warned": result.tail_warned},
+                    "outside": result.outside, "tail_warned": result.tail_warned,
+                    "handed_off": result.handed_off},
         "cost_quantiles": result.cost_quantiles,
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),
