@@ -41,6 +41,8 @@ demo: $(STAMP)
 	@echo "== 7. the cottage listings: which reach the top rating tier"
 	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family spline --out $(OUT)/listings.spline.json
 	$(GB) shapes $(OUT)/listings.spline.json --feature nightly_price --plot $(OUT)/listings-plots
+	@echo "       price matters differently near the coast: boosted with its 2 strongest pairs"
+	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family boosted --pairs 2 --out $(OUT)/listings.boosted.json
 	@echo "== 8. recourse: what could a declined applicant change?"
 	@echo "       (the rules: demo_data/loans.mutability.toml)"
 	$(BIN)/recourse template $(OUT)/loans.spline.json --out $(OUT)/loans.mutability.template.toml --force

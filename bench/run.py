@@ -1137,6 +1137,14 @@ def scale_rows(sets: dict[str, tuple], folder: Path) -> list[str]:
     return fitting_at_scale(folder)
 
 
+def benchmarks_rows(sets: dict[str, tuple]) -> list[str]:
+    """Our tuned benchmark against a separately tuned reference on real public data sets,
+    on the same outer folds (bench/benchmark_reference.py; the demo sets are not used)."""
+    from bench.benchmark_reference import benchmark_rows
+
+    return benchmark_rows()
+
+
 def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> list[str]:
     """Scoring a million rows with the SQL export in DuckDB against `glassbox score`."""
     import subprocess
@@ -1286,7 +1294,8 @@ def main() -> None:
             return
         sections = [recourse_rows(sets), batch_rows(sets), exact_rows(sets), kernel_rows(sets),
                     reach_rows(sets, folder),
-                    comparison_rows(sets), family_rows(sets), spline_rows(sets),
+                    comparison_rows(sets), benchmarks_rows(sets), family_rows(sets),
+                    spline_rows(sets),
                     scoring_rows(sets), fitting_rows(sets), file_rows(sets, folder),
                     points_rows(sets), missing_rows(sets), penalty_rows(sets),
                     levels_rows(sets), monitor_rows(sets, folder), fuzz_rows(sets, folder),

@@ -1,8 +1,9 @@
 """Generate glassbox's invented demo data: loan applications and cottage listings.
 
 Everything here is made up for demonstration. The outcomes are drawn from
-additive "true" models whose shape functions are the named functions below, so
-a fitted glass-box model can be compared against a known truth.
+"true" models whose shape functions are the named functions below (additive, but for one
+pair term in the listings: price matters differently near the coast), so a fitted
+glass-box model can be compared against a known truth.
 
 Run ``python demo_data/make_demo.py`` to rewrite the CSV and schema files next
 to this script. The same seed always gives byte-identical files.
@@ -198,6 +199,9 @@ REGION_OFFSETS = {
 }
 PETS_ALLOWED_OFFSET = 0.4
 MISSING_RESPONSE_HOURS = 24.0  # new hosts have no record; the truth treats them as 24 hours
+COAST_PRICE_WEIGHT = 4.0  # the price x distance-to-coast interaction (coast_price_effect)
+COAST_PRICE_KM = 3.0
+COAST_PRICE_CENTRE = 0.3
 
 
 def reviews_count_effect(reviews: np.ndarray) -> np.ndarray:
@@ -233,6 +237,16 @@ def distance_to_coast_effect(km: np.ndarray) -> np.ndarray:
     return -1.6 * (1.0 - np.exp(-np.asarray(km, dtype=float) / 5.0))
 
 
+def coast_price_effect(price: np.ndarray, km: np.ndarray) -> np.ndarray:
+    """The one interaction: near the coast guests pay for the sea, so a higher price is
+    better there and worse inland. COAST_PRICE_WEIGHT * log(price / 140) *
+    (exp(-km / COAST_PRICE_KM) - COAST_PRICE_CENTRE); the centre is about the mean of
+    exp(-km / 3) over the listings, so on average the price curve stays the sweet spot."""
+    closeness = np.exp(-np.asarray(km, dtype=float) / COAST_PRICE_KM)
+    return (COAST_PRICE_WEIGHT * np.log(np.asarray(price, dtype=float) / 140.0)
+            * (closeness - COAST_PRICE_CENTRE))
+
+
 def region_effect(region: np.ndarray) -> np.ndarray:
     """Lookup of REGION_OFFSETS (Brackenshore is the reference level)."""
     return np.array([REGION_OFFSETS[r] for r in region], dtype=float)
@@ -244,7 +258,8 @@ def pets_allowed_effect(pets: np.ndarray) -> np.ndarray:
 
 
 def listing_true_score(frame: pd.DataFrame) -> np.ndarray:
-    """True log-odds of a listing being top tier."""
+    """True log-odds of a listing being top tier: additive but for one pair term,
+    coast_price_effect (price matters differently near the coast)."""
     return (
         LISTING_INTERCEPT
         + reviews_count_effect(frame["reviews_count"])
@@ -255,6 +270,7 @@ def listing_true_score(frame: pd.DataFrame) -> np.ndarray:
         + distance_to_coast_effect(frame["distance_to_coast_km"])
         + region_effect(frame["region"].to_numpy())
         + pets_allowed_effect(frame["pets_allowed"].to_numpy())
+        + coast_price_effect(frame["nightly_price"], frame["distance_to_coast_km"])
     )
 
 

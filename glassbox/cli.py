@@ -68,6 +68,8 @@ DEFAULT_BENCHMARK = Benchmark("trees")
 OPTION_HELP = ("A family setting (repeatable): NAME=VALUE for every family that takes it, "
                "FAMILY.NAME=VALUE for one; the settings and their defaults are listed below.")
 FORMAT_RULE = "by the --out suffix when not given, else the terminal"
+PAIRS_HELP = ("Pairwise terms: fit the N strongest pairs of features after the main effects, "
+              "for a family that takes pairs (its pairs setting below); 0 fits none.")
 
 
 class TableFormat(StrEnum):
@@ -161,6 +163,7 @@ def fit_command(
     ensemble: Annotated[int | None, typer.Option(
         metavar="N", help="boosted: average this many seeds; the spread is the band "
                           "(boosted.ensemble).", min=1)] = None,
+    pairs: Annotated[int, typer.Option(metavar="N", help=PAIRS_HELP, min=0)] = 0,
     option: Annotated[list[str] | None, typer.Option(
         "--option", metavar="NAME=VALUE", help=OPTION_HELP)] = None,
     drop_missing_target: Annotated[bool, typer.Option(
@@ -172,7 +175,7 @@ def fit_command(
     from glassbox.core.files import check_output
     from glassbox.core.schema import load_schema, read_table
     from glassbox.fitting import fit
-    from glassbox.fitting.choices import family_options
+    from glassbox.fitting.choices import apply_pairs, family_options
     from glassbox.publishing.render import fit_view
 
     check_output(out, "glassbox-model", [data, schema], force=force)
@@ -182,6 +185,7 @@ def fit_command(
         options["max_features"] = max_features
     if ensemble is not None:
         options["ensemble"] = ensemble
+    apply_pairs({family.value: options}, pairs, (family.value,), every=True)
     frame = read_table(data)
     spec = load_schema(schema)
     if drop_missing_target:
@@ -314,7 +318,7 @@ def points_command(
     fidelity = None if card.fidelity is None else card.fidelity.summary()
     if written == "table":
         stdout_console().print(points_view(points.card_summary(card), points.card_table(card),
-                                           fidelity))
+                                           fidelity, card.pairs))
         return
     if written == "json":
         text = points.dumps(card)
@@ -333,13 +337,20 @@ def shapes_command(
     model_file: ModelArgument,
     feature: Annotated[list[str] | None, typer.Option(
         metavar="NAME", help="Only this feature (repeatable).")] = None,
+    pair: Annotated[list[str] | None, typer.Option(
+        "--pair", metavar="NAME",
+        help="Only this pairwise table, named as the summary names it, e.g. 'Income & "
+             "Seniority' (repeatable; with no --feature and no --pair, every feature and "
+             "pair).")] = None,
     format: Annotated[TableFormat | None, typer.Option(
         "--format", metavar=choices(TableFormat),
         help="table (terminal), csv, markdown or json; for a file, by the --out "
                          "suffix when not given; a folder needs it.")] = None,
     out: Annotated[Path | None, typer.Option(
         metavar="FILE", help="A file (.csv, .md, .json) for all rows, or a folder (a name "
-                             "with no suffix) for a summary and one file per feature.")
+                             "with no suffix) for a summary and one file per feature and "
+                             "pair. A file holds the features' rows, or with --pair alone "
+                             "the pairs' cells (one line per cell).")
     ] = None,
     plot: Annotated[Path | None, typer.Option(
         metavar="DIR", help="Also write one PNG per feature and an importance overview.")
@@ -366,40 +377,50 @@ def shapes_command(
     if at is not None:
         _check_at(at, feature or [], written)
     model = artifact.load(model_file)
-    names = shapes.chosen_features(model, feature)
+    names = [] if pair and not feature else shapes.chosen_features(model, feature)
+    pair_names = shapes.shown_pairs(model, feature, pair)
     marks = [] if at is None else [shapes.row_at(model, names[0], at)]
     if as_folder:
         table_files = [(name, table_kind(written, "shapes"))
-                       for name in shapes.folder_names(names, written)]
+                       for name in shapes.folder_names(names, written, pair_names)]
         check_output_folder(out, [model_file], table_files, force=force)
     else:
         check_output(out, table_kind(written, "shapes"), [model_file], force=force)
     if plot is not None:
         from glassbox.publishing import plots
 
-        pictures = [(name, "png") for name in plots.picture_names(names)]
+        pictures = [(name, "png") for name in plots.picture_names(names, pair_names)]
         check_output_folder(plot, [model_file], pictures, force=force, option="--plot")
         with progress_note("drawing the shape functions"):
-            paths = plots.write_plots(model, plot, names)
+            paths = plots.write_plots(model, plot, names, pair_names)
         from glassbox.core.wording import plural
 
         stderr_console().print(f"wrote {plural(len(paths), 'picture')} to {plot}/")
     if written == "table":
-        if plot is not None and not feature:
+        if plot is not None and not feature and not pair:
             return  # the pictures were asked for; name features to see tables too
         from glassbox.publishing.render import shapes_view
 
         tables = {name: shapes.term_table(model, name) for name in names}
         scale = "log-odds" if model.link == "logit" else "prediction"
         stdout_console().print(shapes_view(shapes.summary(model), tables, scale,
-                                           marks=marks))
+                                           marks=marks, model=model, pairs=pair_names))
         return
     if as_folder:
-        paths = shapes.write_folder(model, out, written, names)
+        paths = shapes.write_folder(model, out, written, feature, pair)
         from glassbox.core.wording import plural
 
         stderr_console().print(f"wrote {plural(len(paths), written + ' file')} to {out}/")
         return
+    if pair and not feature:
+        from glassbox.explaining.pair_shapes import all_pair_tables
+
+        emit(formats.write(all_pair_tables(model, pair), written), out, "pair tables")
+        return
+    if pair_names:  # a file holds one kind of table: say where the pairs' cells are
+        stderr_console().print(f"note: the file holds the features' rows; the pairs' cells "
+                               f"({', '.join(pair_names)}) are written with --pair alone, or "
+                               "in a folder")
     emit(formats.write(shapes.all_tables(model, names), written), out, "shape tables")
 
 

@@ -38,6 +38,11 @@ from glassbox.cli import (
 )
 from glassbox.core.errors import OptionError
 
+PAIRS_COMPARE_HELP = ("Pairwise terms: fit the N strongest pairs of features after the main "
+                      "effects in each family that takes pairs (its pairs setting below; the "
+                      "others are fitted without), and show the accuracy with 0, 1, 3, 10 "
+                      "pairs up to N.")
+
 BENCHMARK_BUDGET = 12  # glassbox.fitting.benchmark_search.DEFAULT_BUDGET (light to import here)
 
 ALL_FAMILIES = list(Family)
@@ -91,6 +96,7 @@ def compare_command(
     ensemble: Annotated[int | None, typer.Option(
         metavar="N", help="boosted: average this many seeds (boosted.ensemble).", min=1)
     ] = None,
+    pairs: Annotated[int, typer.Option(metavar="N", help=PAIRS_COMPARE_HELP, min=0)] = 0,
     option: Annotated[list[str] | None, typer.Option(
         "--option", metavar="NAME=VALUE", help=OPTION_HELP)] = None,
     format: Annotated[CompareFormat | None, typer.Option(
@@ -107,7 +113,7 @@ def compare_command(
     """Cross-validated accuracy cost of each glass-box family against a black box."""
     from glassbox.core import formats
     from glassbox.core.files import check_output
-    from glassbox.fitting.choices import family_options
+    from glassbox.fitting.choices import apply_pairs, family_options
 
     if seed + repeats - 1 > MAX_SEED:  # repeat r seeds its models with seed + r
         raise OptionError(f"--seed {seed} with --repeats {repeats} passes the largest seed, "
@@ -121,6 +127,7 @@ def compare_command(
                 raise OptionError(f"--{name.replace('_', '-')} is a {owner} setting, and "
                                   f"{owner} is not compared here (add --family {owner})")
             options[owner][name] = value
+    apply_pairs(options, pairs, families, every=False)
     written = formats.output_format(out, None if format is None else format.value,
                                     ("json", "markdown"))
     check_output(out, "glassbox-comparison" if written == "json" else "markdown",
@@ -156,7 +163,8 @@ def compare_command(
         folds=folds, repeats=repeats, seed=seed,
         jobs=jobs, cutoff=cutoff,
         family_options={name: chosen for name, chosen in options.items() if chosen},
-        benchmark_scores=None if benchmark_scores is None else str(benchmark_scores))
+        benchmark_scores=None if benchmark_scores is None else str(benchmark_scores),
+        pair_steps=comparing.pair_steps_up_to(pairs))
     settings.check()
     frame = read_table(data)
     spec = load_schema(schema)

@@ -112,9 +112,12 @@ def reasons_command(
 
 
 def _plain_value(value: Any) -> Any:
-    """A value for JSON: numpy scalars as Python ones, a missing value as null."""
+    """A value for JSON: numpy scalars as Python ones, a missing value as null, a pair's
+    two values as a list."""
     from glassbox.explaining import reasons
 
+    if isinstance(value, tuple):
+        return [_plain_value(v) for v in value]
     if reasons.is_missing(value):
         return None
     return value.item() if hasattr(value, "item") else value

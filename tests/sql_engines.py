@@ -19,6 +19,24 @@ import numpy as np
 import pandas as pd
 
 
+def spoiled(frame: pd.DataFrame, features, places) -> tuple[pd.DataFrame, np.ndarray]:
+    """A copy of `frame` with each (row, column, value) of `places` set where the column is
+    one of `features` (the rows a test expects refused, constructed), and which rows they
+    are; the flag column Records is read as words and numeric columns set to a fraction or
+    a blank as floats."""
+    frame = frame.copy()
+    frame["Records"] = frame["Records"].astype(object)
+    refused = np.zeros(len(frame), dtype=bool)
+    for row, column, value in places:
+        if column in features:
+            if frame[column].dtype.kind in "iu":
+                frame[column] = frame[column].astype(float)
+            frame.loc[row, column] = value
+            refused[row] = True
+    assert refused.sum() >= 2
+    return frame, refused
+
+
 def _frame_for_engine(frame: pd.DataFrame) -> pd.DataFrame:
     """Gaps as NULL (None in text columns, NaN in numeric ones, which engines load as NULL)."""
     out = frame.copy()

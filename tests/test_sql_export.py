@@ -30,7 +30,7 @@ from glassbox.publishing import sql_export
 from glassbox.publishing.export_tables import model_tables
 
 from .real_credit import export_rows, export_schema
-from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite
+from .sql_engines import postgres_server, run_duckdb, run_postgres, run_sqlite, spoiled
 
 DEMO = Path(__file__).resolve().parent.parent / "demo_data"
 ENGINES = {"duckdb": run_duckdb, "sqlite": run_sqlite}
@@ -40,18 +40,9 @@ def _refusing(frame: pd.DataFrame, features) -> tuple[pd.DataFrame, np.ndarray]:
     """Rows the tool refuses, made on purpose (constructed) in the columns the model reads:
     a blank where the model learned no missing entry, a flag word it does not know, a
     fraction in a whole-number column. Each is checked to be refused by the tool itself."""
-    frame = frame.copy()
-    frame["Records"] = frame["Records"].astype(object)
-    frame[["Seniority", "Time", "Price"]] = frame[["Seniority", "Time", "Price"]].astype(float)
-    refused = np.zeros(len(frame), dtype=bool)
-    for row, column, value in ((3, "Seniority", np.nan), (10, "Records", "maybe"),
-                               (20, "Time", 36.5), (30, "Price", np.nan),
-                               (40, "Amount", np.nan)):
-        if column in features:
-            frame.loc[row, column] = value
-            refused[row] = True
-    assert refused.sum() >= 2
-    return frame, refused
+    return spoiled(frame, features, ((3, "Seniority", np.nan), (10, "Records", "maybe"),
+                                     (20, "Time", 36.5), (30, "Price", np.nan),
+                                     (40, "Amount", np.nan)))
 
 
 def _tool_refuses(model, frame: pd.DataFrame, refused: np.ndarray) -> None:

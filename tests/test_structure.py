@@ -260,6 +260,22 @@ COMPARISON_CASES = {
     # found by fuzzing (issue 13): a model's row given twice crashed the report's table
     "twice: a model's row": (lambda d: d["models"].append(dict(d["models"][0])), "twice"),
     "twice: a cost's row": (lambda d: d["costs"].append(dict(d["costs"][0])), "twice"),
+    # issue 19: the tuned benchmark's record of each fold's search (constructed damage)
+    "type: the tuning as a table": (_set(["settings", "benchmark_tuning"], {}),
+                                    "settings.benchmark_tuning must be a list"),
+    "missing: a fold's chosen setting": (_drop(["settings", "benchmark_tuning", 0, "chosen"]),
+                                         "settings.benchmark_tuning[0].chosen is missing"),
+    "range: a chosen setting's rounds": (
+        _set(["settings", "benchmark_tuning", 1, "chosen", "rounds"], 0),
+        "settings.benchmark_tuning[1].chosen.rounds must be a whole number of at least 1"),
+    "range: a negative validation loss": (
+        _set(["settings", "benchmark_tuning", 0, "tried", 2, "validation_loss"], -0.5),
+        "settings.benchmark_tuning[0].tried[2].validation_loss must be a finite number of "
+        "at least 0"),
+    "type: the budget as text": (_set(["settings", "benchmark_budget"], "12"),
+                                 "settings.benchmark_budget must be a whole number"),
+    "type: the outside scores' hash": (_set(["provenance", "benchmark_scores_sha256"], 7),
+                                       "provenance.benchmark_scores_sha256 must be text"),
 }
 
 

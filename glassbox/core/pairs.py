@@ -23,8 +23,16 @@ axis, the table has mean zero over the training rows' values of the other featur
 `purify` moves what a fitted table holds beyond that into the two features' main terms and
 the intercept (the two-way analysis-of-variance split with the training marginals as
 weights; see its docstring). With it, the partial dependence of the model on x_j (the mean
-score over training rows with x_j set to x) is intercept + f_j(x) + the other terms' means,
-which are zero: the main effect is the partial dependence, less a constant.
+score over training rows with x_j set to x) is
+
+    PD_j(x) = intercept + f_j(x) + c_j,
+
+where the other main terms add their training means (zero) and the pairs with x_j their
+means along the other axis (zero), and c_j is the sum of the training-row means of the
+pairs without x_j: a constant. So the main effect is the partial dependence less a
+constant. The same sum over every pair is why, in a model with pairs, the intercept is
+the mean training score less the pairs' training-row means (a pair is centred along each
+axis, not on the joint rows).
 """
 
 from __future__ import annotations
@@ -166,8 +174,24 @@ class Axis:
         return cls(str(data["feature"]), kind, points, bool(data.get("missing", False)))
 
 
+class OverTwoAxes:
+    """What every table over two axes (a pair's values, a card's points grid) is named by:
+    its two features and the pair's name."""
+
+    first: Axis
+    second: Axis
+
+    @property
+    def features(self) -> tuple[str, str]:
+        return (self.first.feature, self.second.feature)
+
+    @property
+    def name(self) -> str:
+        return pair_name(*self.features)
+
+
 @dataclass(frozen=True)
-class PairTerm:
+class PairTerm(OverTwoAxes):
     """A two-dimensional table: `values[a][b]` at entry a of `first` and b of `second`."""
 
     first: Axis
@@ -185,14 +209,6 @@ class PairTerm:
                 f"axes have {self.first.size} and {self.second.size} entries")
         if not np.all(np.isfinite(table)):
             raise ModelFileError(f"pair '{self.name}': every table value must be a number")
-
-    @property
-    def features(self) -> tuple[str, str]:
-        return (self.first.feature, self.second.feature)
-
-    @property
-    def name(self) -> str:
-        return pair_name(*self.features)
 
     @property
     def feature(self) -> str:
@@ -235,6 +251,8 @@ class PairTerm:
                                      f"{first.feature!r} and {second.feature!r}")
             return cls(first, second, tuple(tuple(float(v) for v in row)
                                             for row in data["values"]))
+        except ModelFileError:
+            raise
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(f"pair {data.get('features')!r} is incomplete: {exc}") from None
 

@@ -431,7 +431,10 @@ BASELINE = Record(required={
         required={"feature": TEXT, "source": Text(("steps", "deciles", "levels")),
                   "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
                   "mean_absolute_contribution": POSITIVE, "contribution_spread": POSITIVE},
-        optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))})
+        optional={"edges": Items(NUMBER, order="strict"), "levels": TEXTS}))},
+    optional={"pairs": Items(Record(required={
+        "pair": TEXT, "counts": Items(COUNT, at_least=1), "mean_contribution": NUMBER,
+        "mean_absolute_contribution": POSITIVE, "contribution_spread": POSITIVE}))})
 MODEL = Record(
     required={"link": Text(("logit", "identity")), "intercept": NUMBER,
               "terms": Items(TERM), "schema": SCHEMA},
@@ -459,6 +462,14 @@ FIDELITY = Record(
     optional={"agreement": Number(low=0, high=1, null=True), "data_sha256": SHA256,
               "missing_rows": Number(low=0, whole=True, null=True),
               "missing_agree": Number(low=0, whole=True, null=True)})
+_GRID = Items(Items(NUMBER, at_least=1), at_least=1)
+# a points grid per pairwise table (glassbox.explaining.pair_points); its shape against its
+# axes is checked by PairPoints
+PAIR_POINTS = Record(required={"features": Items(TEXT, length=2),
+                               "axes": Items(PAIR_AXIS, length=2),
+                               "points": Items(Items(POINTS, at_least=1), at_least=1),
+                               "contributions": _GRID, "largest": _GRID},
+                     optional={"binned": TEXTS})
 CARD = Record(
     required={"scaling": Record(required={"base_score": NUMBER, "base_odds": Number(
                                               low=0, above=True),
@@ -468,12 +479,26 @@ CARD = Record(
               "schema": SCHEMA},
     optional={"tolerance": Number(low=0, null=True), "cutoff": OPEN_SHARE,
               "bins": Number(low=1, whole=True),  # version 1 cards: equal-share bins
-              "cutoff_points": NUMBER, "model_checksum": SHA256, "fidelity": FIDELITY})
+              "cutoff_points": NUMBER, "model_checksum": SHA256, "fidelity": FIDELITY,
+              "pairs": Items(PAIR_POINTS)})
 
 # One row of a comparison's tables: a model (or sparsity size) and a metric, with numbers
 # that may be null where no interval exists (one fold) and a note saying why.
 _INTERVAL = {"mean": Number(null=True), "lower": Number(null=True),
              "upper": Number(null=True), "interval_note": Text(null=True)}
+# One fold's search of the tuned trees benchmark (glassbox/fitting/benchmark_search.py):
+# the candidate settings are free-form (the grid may grow), their numbers finite.
+_SETTING = {"rounds": Number(low=1, whole=True)}
+TUNING = Record(
+    required={"repeat": COUNT, "fold": COUNT, "budget": Number(low=1, whole=True),
+              "candidates_tried": Number(low=1, whole=True),
+              "chosen": Record(required=_SETTING, extra=Either((NUMBER, TEXT, Flag()))),
+              "chosen_candidate": Number(low=1, whole=True), "validation_loss": POSITIVE},
+    optional={"inner_training_rows": COUNT, "inner_validation_rows": COUNT, "loss": TEXT,
+              "tried": Items(Record(required={"candidate": Number(low=1, whole=True),
+                                              "validation_loss": POSITIVE},
+                                    optional=_SETTING, extra=Either((NUMBER, TEXT, Flag()))))},
+    extra=Anything())
 METRIC = Text(("auc", "gini", "ks", "log_loss", "brier", "accuracy", "rmse", "mae", "r2"))
 COMPARISON = Record(
     required={"format": TEXT, "version": Number(whole=True), "headline": TEXT,
@@ -481,9 +506,22 @@ COMPARISON = Record(
               "settings": Record(required={"benchmark": TEXT},
                                  optional={"folds": Number(low=2, whole=True),
                                            "repeats": Number(low=1, whole=True),
-                                           "cutoff": OPEN_SHARE, "families": TEXTS},
+                                           "cutoff": OPEN_SHARE, "families": TEXTS,
+                                           "seed": Number(whole=True),
+                                           "stratified": Flag(), "interval": TEXT,
+                                           "test_to_train_ratio": POSITIVE,
+                                           "family_options": Keyed(Record(extra=Anything())),
+                                           "benchmark_origin": TEXT,
+                                           "benchmark_settings": Record(extra=Anything()),
+                                           # your own scores in the benchmark's place
+                                           "benchmark_scores": TEXT,
+                                           "benchmark_scores_layout": TEXT,
+                                           # the trees benchmark's search in each fold
+                                           "benchmark_budget": Number(low=1, whole=True),
+                                           "benchmark_tuning": Items(TUNING)},
                                  extra=Anything()),
-              "provenance": Record(optional={"rows": COUNT}, extra=Anything()),
+              "provenance": Record(optional={"rows": COUNT, "benchmark_scores_sha256": SHA256},
+                                   extra=Anything()),
               "models": Items(Record(required={"model": TEXT, "metric": METRIC},
                                      optional={"kind": TEXT, "t": Number(null=True),
                                                "p_value": Number(low=0, high=1, null=True),
@@ -534,7 +572,13 @@ COMPARISON = Record(
                                                        "metric": METRIC},
                                              optional=_INTERVAL)),
               "folds": Items(Record(required={"model": TEXT},
-                                    extra=Either((NUMBER, TEXT), null=True)))})
+                                    extra=Either((NUMBER, TEXT), null=True))),
+              # issue 19: what each pair buys (null or absent: no pair curve was asked for)
+              "pair_curve": Items(Record(required={"model": TEXT,
+                                                   "pairs": Number(low=0, whole=True),
+                                                   "metric": METRIC},
+                                         optional={"pairs_fitted": Number(low=0, whole=True),
+                                                   **_INTERVAL}), null=True)})
 
 REACH = Record(
     required={"format": TEXT, "version": Number(whole=True),

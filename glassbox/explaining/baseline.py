@@ -4,7 +4,9 @@ At fit time the training rows are summarised once, so that monitoring a later pe
 only the model file: for each feature, how the rows fell into its bins (a steps term's own
 steps, a curve's deciles, a category's levels; rows with no value in a bin of their own),
 and each term's mean, mean absolute contribution and spread (standard deviation); for the
-score, its deciles and the rows in each. Counts are whole numbers and means are exact
+score, its deciles and the rows in each; for each pairwise table, how the rows fell into
+its cells (`pair_cells`) and its mean, mean absolute contribution and spread. Counts are
+whole numbers and means are exact
 (`glassbox.core.exact`), so a period identical to the training rows shows no change at all.
 """
 
@@ -25,6 +27,7 @@ from glassbox.core.exact import ExactSum, exact_variance, weighted_sums
 
 if TYPE_CHECKING:
     from glassbox.core.additive import AdditiveModel, Term
+    from glassbox.core.pairs import Axis, PairTerm
 
 MISSING_BIN = "missing"  # the bin of rows with no value (always the last bin)
 NEW_LEVEL_BIN = "new level"  # a category's bin for levels never seen in training
@@ -230,6 +233,89 @@ class ScoreBins:
                    tuple(int(c) for c in data["counts"]), float(data["mean"]))
 
 
+def axis_cells(axis: Axis, column: np.ndarray) -> np.ndarray:
+    """Each value's cell along a pair's axis (its position in `axis_cell_labels`): an edge
+    bin, a knot's stretch up to the next knot (the first from minus infinity, the last to
+    plus infinity), or a level; then, for levels, a level never seen in training; last, no
+    value (whether or not the axis has an entry for it)."""
+    values_size = axis.values_size
+    if axis.kind == "levels":
+        column = np.asarray(column, dtype=object)
+        absent = np.asarray(pd.isna(column), dtype=bool)
+        place = pd.Index(axis.points).get_indexer(column)
+        place = np.where(place < 0, values_size, place)
+    else:
+        column = np.asarray(column, dtype=float)
+        absent = np.isnan(column)
+        points = np.asarray(axis.points, dtype=float)
+        if axis.kind == "edges":
+            place = edges_below(points, column)
+        else:
+            place = np.clip(np.searchsorted(points, column, side="right") - 1, 0,
+                            len(points) - 1)
+    return np.where(absent, len(axis_cell_labels(axis)) - 1, place)
+
+
+def axis_cell_labels(axis: Axis) -> tuple[str, ...]:
+    if axis.kind == "levels":
+        values: tuple[str, ...] = (*map(str, axis.points), NEW_LEVEL_BIN)
+    elif axis.kind == "edges":
+        values = edge_labels(tuple(float(p) for p in axis.points))
+    else:
+        texts = [number_text(p) for p in axis.points]
+        values = tuple(f"[{low}, {high})" for low, high in zip(texts, texts[1:], strict=False))
+        values = (f"< {texts[1]}", *values[1:], f">= {texts[-1]}") if len(texts) > 1 \
+            else ("any value",)
+    return (*values, MISSING_BIN)
+
+
+def pair_cells(pair: PairTerm, first: np.ndarray, second: np.ndarray) -> np.ndarray:
+    """Each row's cell of a pair: first axis's cell x second axis's cells + second's."""
+    return (axis_cells(pair.first, first) * len(axis_cell_labels(pair.second))
+            + axis_cells(pair.second, second))
+
+
+def pair_cell_count(pair: PairTerm) -> int:
+    return len(axis_cell_labels(pair.first)) * len(axis_cell_labels(pair.second))
+
+
+@dataclass(frozen=True)
+class PairBins:
+    """How development rows fell into a pair's cells (`pair_cells`), and its mean
+    contributions (as `FeatureBins` keeps them for a feature)."""
+
+    pair: str
+    counts: tuple[int, ...]
+    mean_contribution: float = 0.0
+    mean_absolute_contribution: float = 0.0
+    contribution_spread: float = 0.0
+
+    @property
+    def rows(self) -> int:
+        return int(sum(self.counts))
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"pair": self.pair, "counts": list(self.counts),
+                "mean_contribution": self.mean_contribution,
+                "mean_absolute_contribution": self.mean_absolute_contribution,
+                "contribution_spread": self.contribution_spread}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> PairBins:
+        return cls(str(data["pair"]), tuple(int(c) for c in data["counts"]),
+                   float(data["mean_contribution"]), float(data["mean_absolute_contribution"]),
+                   float(data["contribution_spread"]))
+
+
+def contribution_sums(contributions: np.ndarray) -> tuple[float, float, float]:
+    """Mean, mean absolute value and spread (standard deviation), from exact sums."""
+    rows = len(contributions)
+    positive, negative = ExactSum.split(contributions)
+    total = ExactSum(positive.units - negative.units)
+    spread = math.sqrt(exact_variance(total, ExactSum.of(contributions * contributions), rows))
+    return total.mean(rows) + 0.0, (positive + negative).mean(rows), spread
+
+
 @dataclass(frozen=True)
 class Baseline:
     """What monitoring compares a period with: the development rows, summarised."""
@@ -238,11 +324,12 @@ class Baseline:
     source: str
     score: ScoreBins
     features: tuple[FeatureBins, ...]
+    pairs: tuple[PairBins, ...] = ()  # older baselines (and models without pairs): none
 
     def __post_init__(self) -> None:
-        for bins in (self.score, *self.features):
+        for bins in (self.score, *self.features, *self.pairs):
             if int(sum(bins.counts)) != self.rows:
-                where = getattr(bins, "feature", "the score")
+                where = getattr(bins, "feature", getattr(bins, "pair", "the score"))
                 raise ModelFileError(f"baseline of {where!r}: its bins hold "
                                      f"{int(sum(bins.counts)):,} rows, not {self.rows:,}")
 
@@ -252,14 +339,24 @@ class Baseline:
                 return bins
         raise KeyError(name)
 
+    def pair(self, name: str) -> PairBins:
+        for bins in self.pairs:
+            if bins.pair == name:
+                return bins
+        raise KeyError(name)
+
     def to_dict(self) -> dict[str, Any]:
-        return {"rows": self.rows, "source": self.source, "score": self.score.to_dict(),
+        data = {"rows": self.rows, "source": self.source, "score": self.score.to_dict(),
                 "features": [bins.to_dict() for bins in self.features]}
+        if self.pairs:  # a baseline without pairs is written as before
+            data["pairs"] = [bins.to_dict() for bins in self.pairs]
+        return data
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> Baseline:
         return cls(int(data["rows"]), str(data["source"]), ScoreBins.from_dict(data["score"]),
-                   tuple(FeatureBins.from_dict(f) for f in data["features"]))
+                   tuple(FeatureBins.from_dict(f) for f in data["features"]),
+                   tuple(PairBins.from_dict(p) for p in data.get("pairs", ())))
 
 
 def feature_bins(term: Term, column: np.ndarray, contributions: np.ndarray,
@@ -332,13 +429,22 @@ def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str,
         score = contributions.copy() if score is None else score + contributions
         features.append(feature_bins(term, column, contributions,
                                      (runs or {}).get(term.feature)))
+    pairs = []
+    for pair in model.pairs:  # added after the terms, as the model scores
+        first, second = (encoded[name].to_numpy() for name in pair.features)
+        contributions = np.asarray(pair.evaluate(first, second), dtype=float)
+        score = contributions.copy() if score is None else score + contributions
+        cells = np.bincount(pair_cells(pair, first, second), minlength=pair_cell_count(pair))
+        pairs.append(PairBins(pair.name, tuple(int(c) for c in cells),
+                              *contribution_sums(contributions)))
     rows = len(encoded)
     score = np.full(rows, float(model.intercept)) + (0.0 if score is None else score)
     edges = decile_edges(score)
     counts = np.bincount(np.searchsorted(np.asarray(edges), score, side="left"),
                          minlength=len(edges) + 1)
     return Baseline(rows, source, ScoreBins(edges, tuple(int(c) for c in counts),
-                                            ExactSum.of(score).mean(rows)), tuple(features))
+                                            ExactSum.of(score).mean(rows)), tuple(features),
+                    tuple(pairs))
 
 
 def baseline_from_file(model: AdditiveModel, path: str | Path) -> Baseline:
@@ -368,3 +474,15 @@ def check_baseline(model: AdditiveModel, baseline: Baseline, where: str) -> None
         if (bins.source == "levels") != (term.kind == "levels"):
             raise ModelFileError(f"{where}: the baseline of '{term.feature}' has "
                                  f"{bins.source} bins for a {term.kind} term")
+    if model.pairs and not baseline.pairs:
+        raise DataError(f"{where} has no baseline for the model's pairs (it was made before "
+                        "glassbox kept one): give --baseline DATA, the development sample")
+    names = tuple(bins.pair for bins in baseline.pairs)
+    if names != tuple(pair.name for pair in model.pairs):
+        raise ModelFileError(f"{where}: its baseline describes the pairs "
+                             f"{', '.join(names) or 'none'}, not the model's "
+                             f"{', '.join(p.name for p in model.pairs) or 'none'}")
+    for pair, bins in zip(model.pairs, baseline.pairs, strict=True):
+        if len(bins.counts) != pair_cell_count(pair):
+            raise ModelFileError(f"{where}: the baseline of '{pair.name}' has "
+                                 f"{len(bins.counts)} cells, not {pair_cell_count(pair)}")

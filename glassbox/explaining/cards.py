@@ -7,6 +7,8 @@ model). The card file is checksummed JSON:
     {"format": "glassbox-points", "version": 3, "checksum": "sha256:...", "card": {...}}
 
 The checksum is SHA-256 over the canonical JSON of "card", as for model files.
+Version 4 adds a points grid per pairwise table ("pairs", `glassbox.explaining.pair_points`);
+a card without pairs is still written as version 3, byte for byte as before.
 Version 3 gives each feature a row for a missing value: its points where the model
 learned a value for it, or a refusal where its training data had none. Version 2
 cards (no such rows: every missing value refused, as their models did) and version 1
@@ -18,7 +20,7 @@ from __future__ import annotations
 import math
 import warnings
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -36,9 +38,11 @@ from glassbox.core.errors import (
 )
 from glassbox.core.schema import MISSING_LEVEL, Schema
 from glassbox.core.wording import plural
+from glassbox.explaining.pair_points import PairPoints
 
 FORMAT = "glassbox-points"
-VERSION = 3
+VERSION = 4
+WITHOUT_PAIRS = 3
 DEFAULT_CUTOFF = 0.5
 UNSEEN_ROW = "(level not seen in training)"
 MISSING_ROW = MISSING_LEVEL  # the row for a missing value
@@ -366,6 +370,7 @@ class PointsCard:
     cutoff: float = DEFAULT_CUTOFF
     model_checksum: str | None = None
     fidelity: Fidelity | None = None
+    pairs: tuple[PairPoints, ...] = ()  # a points grid per pairwise table
 
     def __post_init__(self) -> None:
         check_cutoff(self.cutoff)
@@ -376,6 +381,12 @@ class PointsCard:
         stray = [n for n in names if n not in used]
         if stray:
             raise ModelFileError(f"points for {', '.join(stray)} which the schema does not use")
+        for pair in self.pairs:
+            if not set(pair.features) <= set(names):
+                raise ModelFileError(f"points for the pair '{pair.name}' whose features do "
+                                     "not both have points")
+        if len({p.name for p in self.pairs}) != len(self.pairs):
+            raise ModelFileError("a pair has more than one grid of points")
 
     @property
     def feature_names(self) -> tuple[str, ...]:
@@ -405,13 +416,14 @@ class PointsCard:
         largest = [table.largest_of_all() for table in self.features]
         if any(value is None for value in largest):
             return None
+        largest += [pair.largest_of_all() for pair in self.pairs]
         exact_base = self.scaling.offset + self.scaling.factor * self.good_sign * self.intercept
         return abs(self.base_points - exact_base) + sum(largest)  # type: ignore[arg-type]
 
     def points_range(self) -> tuple[int, int]:
         """The lowest and highest total any row can get (missing values included)."""
         lowest = highest = self.base_points
-        for table in self.features:
+        for table in (*self.features, *self.pairs):
             every = table.every_points()
             lowest += min(every)
             highest += max(every)
@@ -514,6 +526,8 @@ def card_to_dict(card: PointsCard) -> dict[str, Any]:
     }
     if card.fidelity is not None:
         content["fidelity"] = card.fidelity.to_dict()
+    if card.pairs:
+        content["pairs"] = [pair.to_dict() for pair in card.pairs]
     return content
 
 
@@ -542,6 +556,7 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
             model_checksum=None if checksum_value is None else str(checksum_value),
             fidelity=(Fidelity.from_dict(content["fidelity"]) if "fidelity" in content
                       else None),
+            pairs=tuple(PairPoints.from_dict(p) for p in content.get("pairs", ())),
         )
     except KeyError as exc:
         raise ModelFileError(f"{where}: missing entry {exc}") from None
@@ -551,16 +566,21 @@ def card_from_dict(content: Mapping[str, Any], source: str = "") -> PointsCard:
 
 CARD_FILE = documents.Kind(FORMAT, VERSION, "card", "points card", "a glassbox points card",
                            "restore the original or make the card again", structure.CARD)
+_PLAIN_CARD = replace(CARD_FILE, version=WITHOUT_PAIRS)
+
+
+def _kind(card: PointsCard) -> documents.Kind:
+    return CARD_FILE if card.pairs else _PLAIN_CARD
 
 
 def dumps(card: PointsCard) -> str:
     """The card file's text: indented, keys in a fixed order, ends with a newline."""
-    return documents.dumps(CARD_FILE, card_to_dict(card))
+    return documents.dumps(_kind(card), card_to_dict(card))
 
 
 def save(card: PointsCard, path: str | Path) -> Path:
     """Write the card file atomically and return its path."""
-    return documents.save(CARD_FILE, card_to_dict(card), path)
+    return documents.save(_kind(card), card_to_dict(card), path)
 
 
 def loads(text: str, source: str = "<text>") -> PointsCard:

@@ -30,6 +30,7 @@ from glassbox.explaining.shapes import term_importance
 
 if TYPE_CHECKING:
     from glassbox.explaining.changes_data import DataChanges
+    from glassbox.explaining.changes_pairs import PairChange
 
 FORMAT = "glassbox-changes"
 VERSION = 1
@@ -135,6 +136,7 @@ class Changes:
     old_importance_source: str
     new_importance_source: str
     data: DataChanges | None = None
+    pairs: tuple[PairChange, ...] = ()  # pairwise tables: common, added, removed
 
     @property
     def prominent(self) -> tuple[Change, ...]:
@@ -160,6 +162,8 @@ class Changes:
                                      for i in self.importance]},
             "data": None if self.data is None else self.data.to_dict(),
         }
+        if self.pairs:  # only models with pairs: other reviews keep their exact content
+            document["pairs"] = [_record(p) for p in self.pairs]
         return document
 
 
@@ -187,6 +191,8 @@ def model_changes(old: AdditiveModel, new: AdditiveModel, frame: pd.DataFrame | 
     cut-off (a probability for classification, default 0.5; a predicted value for
     regression, required with data). Versions of different tasks are refused: their
     scores are on different scales, so no term, importance or score compares."""
+    from glassbox.explaining.changes_pairs import pair_changes
+
     if old.task != new.task:
         raise ModelFileError(
             f"{names[0]} is a {old.task} model and {names[1]} a {new.task} model: their "
@@ -210,7 +216,8 @@ def model_changes(old: AdditiveModel, new: AdditiveModel, frame: pd.DataFrame | 
         schema=schema_changes(old, new),
         terms=tuple(term_change(old, new, feature) for feature in common),
         importance=_ranked(old, new, importance_old, importance_new),
-        old_importance_source=source_old, new_importance_source=source_new, data=data)
+        old_importance_source=source_old, new_importance_source=source_new, data=data,
+        pairs=pair_changes(old, new))
 
 
 # ---------------------------------------------------------------- structure

@@ -178,6 +178,25 @@ def score_rows(model: AdditiveModel, frame: pd.DataFrame, where: str,
             warnings.warn(f"{version}: {found.message}", found.category, stacklevel=2)
         contributions[term.feature] = values
         score += values
+    for pair in model.pairs:  # each pairwise table, after the terms
+        columns = []
+        for axis in (pair.first, pair.second):
+            column = encoded[axis.feature].to_numpy()
+            absent = pd.isna(column).astype(bool)
+            if absent.any() and not axis.missing:
+                if not blocked[absent].all():
+                    unscored.append(Unscored(
+                        version, pair.name, int(absent.sum()), rows_text(absent),
+                        f"its pairwise table has no entry for a missing {axis.feature}"))
+                blocked |= absent
+                column = column.copy()
+                column[absent] = axis.points[0] if axis.kind == "levels" else 0.0
+            columns.append(column)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UnseenLevelWarning)  # said by the term above
+            values = pair.evaluate(*columns)
+        contributions[pair.name] = values
+        score += values
     score[blocked] = np.nan
     return Scored(score, contributions, tuple(unscored))
 

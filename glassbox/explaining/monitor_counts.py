@@ -18,7 +18,13 @@ from glassbox.core.additive import AdditiveModel
 from glassbox.core.encoding import _missing_mask, label_text, prepare, rows_text
 from glassbox.core.errors import DataError, GlassboxError, UnseenLevelWarning, value_text
 from glassbox.core.exact import ExactSum, weighted_sums
-from glassbox.explaining.baseline import Baseline, FeatureBins, edges_below
+from glassbox.explaining.baseline import (
+    Baseline,
+    FeatureBins,
+    edges_below,
+    pair_cell_count,
+    pair_cells,
+)
 from glassbox.explaining.cards import PointsCard
 
 EVERY = ("month", "quarter", "year")
@@ -53,7 +59,8 @@ class Counts:
 
     rows: int = 0
     scored: int = 0  # rows the model can score (the others lack a value it has no entry for)
-    bins: dict[str, np.ndarray] = field(default_factory=dict)  # per feature, baseline bins
+    bins: dict[str, np.ndarray] = field(default_factory=dict)  # per feature (and pair name),
+    # the baseline's bins (a pair's cells)
     new_levels: dict[str, dict[str, int]] = field(default_factory=dict)
     contribution: dict[str, ExactSum] = field(default_factory=dict)  # over scored rows
     absolute: dict[str, ExactSum] = field(default_factory=dict)  # |contribution|
@@ -186,6 +193,10 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
     for term in model.terms:
         if term.missing is None:
             scored &= present[term.feature]
+    for pair in model.pairs:  # an axis with no missing entry refuses a missing value
+        for axis in (pair.first, pair.second):
+            if not axis.missing:
+                scored &= present[axis.feature]
     if plan.card is not None:
         for table in plan.card.features:
             if table.missing_points is None:
@@ -210,9 +221,12 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
                  for t in model.terms}
         points = ({t.feature: t.points_of(scored_column(t.feature)).astype(float)
                    for t in plan.card.features} if plan.card is not None else {})
+        for pair in model.pairs:
+            parts[pair.name] = pair.evaluate(scored_column(pair.first.feature),
+                                             scored_column(pair.second.feature), plan.source)
     total = np.zeros(int(scored.sum()))  # the order the baseline adds them in
-    for index, term in enumerate(model.terms):
-        total = parts[term.feature] if index == 0 else total + parts[term.feature]
+    for index, name in enumerate(model.parts):
+        total = parts[name] if index == 0 else total + parts[name]
     score = np.full(len(total), float(model.intercept)) + total
     outcome = _outcomes(block, plan, scored)
     score_edges = np.asarray(baseline.score.edges, dtype=float)
@@ -225,6 +239,14 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
             cells = codes * size + k.key
             tallies[name] = (np.bincount(cells, minlength=span).reshape(-1, size),
                              np.bincount(cells[scored], minlength=span).reshape(-1, size))
+    def every_column(name: str) -> np.ndarray:
+        if name in categories:
+            codes_, typed = categories[name]
+            return typed[codes_]
+        return numbers[name].to_numpy()
+
+    cells = {pair.name: pair_cells(pair, every_column(pair.first.feature),
+                                   every_column(pair.second.feature)) for pair in model.pairs}
     out: dict[str, Counts] = {}
     for code, period in enumerate(periods):
         rows = codes == code
@@ -245,6 +267,14 @@ def count_block(block: pd.DataFrame, plan: Plan) -> dict[str, Counts]:
             else:
                 tally = tallies[feature.feature]
                 k.count(counts, feature, None, (tally[0][code], tally[1][code]), None)
+        for pair in model.pairs:
+            mine_cells = cells[pair.name] if whole else cells[pair.name][rows]
+            counts.bins[pair.name] = np.bincount(mine_cells, minlength=pair_cell_count(pair))
+            values = parts[pair.name][pick]
+            positive, negative = ExactSum.split(values)
+            counts.contribution[pair.name] = ExactSum(positive.units - negative.units)
+            counts.absolute[pair.name] = positive + negative
+            counts.squares[pair.name] = ExactSum.of(values * values)
         if outcome is not None:
             counts = _with_outcomes(counts, plan, outcome, mine, score[pick])
         out[str(period)] = counts

@@ -43,6 +43,7 @@ class Monitoring:
     score_bins: pd.DataFrame
     new_levels: pd.DataFrame
     outcomes: pd.DataFrame | None = None
+    pairs: pd.DataFrame | None = None  # a model with pairs: each pair's drift per period
 
 
 def _stability(development: np.ndarray, current: np.ndarray, rows: int,
@@ -80,12 +81,14 @@ def build_tables(counts: dict[str, Counts], periods: list[str], model: AdditiveM
     dev_points = ({f.feature: _development_points(card, f.feature) for f in card.features}
                   if card is not None else {})
     summary, features, bins, score_bins, new_levels, outcomes = [], [], [], [], [], []
+    pairs: list[dict] = []
     for period in periods:
         found = counts[period]
         scored = found.scored
         means = {name: total.mean(scored) for name, total in found.contribution.items()}
         absolute = {name: total.mean(scored) for name, total in found.absolute.items()}
-        all_abs = sum(absolute.values()) if scored else math.nan
+        all_abs = (sum(absolute[f.feature] for f in baseline.features) if scored
+                   else math.nan)
         flagged = 0
         for feature in baseline.features:
             name = feature.feature
@@ -134,6 +137,17 @@ def build_tables(counts: dict[str, Counts], periods: list[str], model: AdditiveM
                                "share": float(shares[index])})
         if outcome:
             outcomes.append(_outcome_row(period, found, model))
+        for cells in baseline.pairs:
+            name = cells.pair
+            check = _stability(np.asarray(cells.counts), found.bins[name], found.rows,
+                               development_rows)
+            pairs.append({"period": period, "pair": name, **check,
+                          "mean_contribution": means[name],
+                          "development_mean_contribution": cells.mean_contribution,
+                          "contribution_change": means[name] - cells.mean_contribution,
+                          "contribution_spread": math.sqrt(exact_variance(
+                              found.contribution[name], found.squares[name], scored)),
+                          "development_contribution_spread": cells.contribution_spread})
     return Monitoring(
         model_checksum=model_checksum, baseline_source=baseline.source,
         periods=tuple(periods), development_rows=development_rows,
@@ -142,7 +156,8 @@ def build_tables(counts: dict[str, Counts], periods: list[str], model: AdditiveM
                                          "share"]),
         score_bins=pd.DataFrame(score_bins),
         new_levels=pd.DataFrame(new_levels, columns=["period", "feature", "level", "rows"]),
-        outcomes=pd.DataFrame(outcomes) if outcome else None)
+        outcomes=pd.DataFrame(outcomes) if outcome else None,
+        pairs=pd.DataFrame(pairs) if baseline.pairs else None)
 
 
 SPREAD_COLLAPSE = 0.25  # a spread below this share of development's is called a collapse

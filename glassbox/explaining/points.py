@@ -24,6 +24,10 @@ Each term becomes rows of whole points:
   entry (its training data had no missing value), a refusal: scoring such a row is
   an error naming it, as scoring it with the model is.
 
+A pairwise table becomes a points grid (`glassbox.explaining.pair_points`): a cell's
+points per cell of its two axes (a knots axis read in bins, its stray counted in the
+largest difference), and a row's total adds one cell's points per pair.
+
 Every row's points are round(factor × good sign × contribution), halves away
 from zero; the intercept and the offset make the separate base points, so a
 row's total is the base points plus one row's points per feature. Each row also
@@ -66,6 +70,7 @@ from glassbox.explaining.cards import (
     save,
     whole_points,
 )
+from glassbox.explaining.pair_points import pair_notes, pair_points
 from glassbox.explaining.reasons import unfavourable
 
 __all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling",
@@ -221,9 +226,11 @@ def points_card(model: AdditiveModel, scaling: Scaling | None = None,
     check_tolerance(tolerance)
     base = scaling.offset + scaling.factor * model.schema.target.good_sign * model.intercept
     tables = tuple(feature_points(model, name, scaling, tolerance) for name in model.features)
+    scale = scaling.factor * model.schema.target.good_sign
     return PointsCard(scaling, int(whole_points(base)), tables, model.schema,
                       float(model.intercept), float(tolerance), float(cutoff),
-                      model_checksum(model))
+                      model_checksum(model),
+                      pairs=tuple(pair_points(pair, scale, tolerance) for pair in model.pairs))
 
 
 # ---------------------------------------------------------------- reading and scoring
@@ -237,6 +244,8 @@ def card_table(card: PointsCard) -> pd.DataFrame:
     for table in card.features:
         flag = card.schema.feature(table.feature).kind == "flag"
         rows += [{"feature": table.feature, **row} for row in table.rows(flag)]
+    for pair in card.pairs:
+        rows += [{"feature": pair.name, **row} for row in pair.rows()]
     table = pd.DataFrame(rows, columns=list(CARD_COLUMNS))
     # whole numbers, blank where unknown or refused (not floats with NaN)
     for column in ("points", "training_rows"):
@@ -266,6 +275,7 @@ def card_summary(card: PointsCard) -> dict[str, Any]:
         "possible totals": f"{lowest} to {highest}",
     }
     summary.update(missing_notes(card))
+    summary.update(pair_notes(card.pairs))
     if card.tolerance is not None:
         summary["tolerance (points within a bin)"] = card.tolerance
         summary.update(tolerance_notes(card))
@@ -312,15 +322,19 @@ def tolerance_notes(card: PointsCard) -> dict[str, str]:
 
 def score_points(card: PointsCard, frame: pd.DataFrame,
                  source: str | None = None) -> pd.DataFrame:
-    """Per row: the id (when the schema names one), total points, base points and each
-    feature's points (`points:FEATURE`); a missing value scores its feature's
-    missing-value row, or is refused (naming the rows) where the card has none."""
+    """Per row: the id (when the schema names one), total points, base points, each
+    feature's points (`points:FEATURE`) and each pair's (`points:FIRST & SECOND`); a
+    missing value scores its feature's missing-value row, or is refused (naming the rows)
+    where the card has none."""
     prepared = prepare(frame, card.schema, require_target=False, source=source,
                        features=card.feature_names)
     where = source or frame.attrs.get("source") or "the data"
     parts = {table.feature: table.points_of(prepared.features[table.feature].to_numpy(),
                                             where)
              for table in card.features}
+    for pair in card.pairs:
+        parts[pair.name] = pair.points_of(
+            *(prepared.features[f].to_numpy() for f in pair.features), where)
     total = np.full(len(frame), card.base_points, dtype=np.int64)
     for points in parts.values():
         total = total + points
@@ -353,6 +367,8 @@ def card_fidelity(card: PointsCard, model: AdditiveModel, frame: pd.DataFrame,
                           "differ); compare a card with its own model")
     if set(card.feature_names) != set(model.features):
         raise OptionError("the card and the model use different features")
+    if {p.name for p in card.pairs} != {p.name for p in model.pairs}:
+        raise OptionError("the card and the model have different pairwise tables")
     totals = score_points(card, frame, source)["total_points"].to_numpy(dtype=float)
     encoded = model.encode(frame, source)
     contributions = model.contributions_encoded(encoded)

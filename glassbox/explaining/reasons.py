@@ -12,6 +12,12 @@ the schema's `[target] better`. Protected columns are never model inputs and nev
 A row with no value for a feature gets the term's missing-value entry, and its gap is
 measured from the same best (which is sought over values only, never over "missing"); such a
 reason reads "FEATURE not provided".
+
+A pairwise table is a reason like a term (`pair_best`): its gap is the distance between the
+row's value of the table and the most favourable value the table gives over the levels seen
+in training and the central 98% of each numeric feature's training values, together (the
+corners of the cells inside that box: a table read on straight lines between knots is
+largest at one of them). Its reason names both features and both values.
 """
 
 from __future__ import annotations
@@ -34,10 +40,11 @@ CENTRAL = (1, 99)  # numeric features: the best is sought between these training
 class Reason:
     """One term's pull on a row's score, with a plain sentence."""
 
-    feature: str
-    value: Any  # the row's value as the model reads it
+    feature: str  # a feature, or a pair's name ("A & B")
+    value: Any  # the row's value as the model reads it (a pair: the two values)
     gap: float  # how far below its best the term leaves the score (score scale, >= 0)
     text: str
+    contribution: float | None = None  # what the term (or pair) adds to the row's score
 
 
 @dataclass(frozen=True)
@@ -47,6 +54,7 @@ class Best:
     contribution: float
     spans: tuple[tuple[float, float], ...] = ()  # numeric terms: the intervals reaching it
     level: str | None = None  # levels terms: the (first) best level
+    at: tuple[Any, Any] | None = None  # pairs: the (first) two values reaching it
 
 
 def central_range(model: AdditiveModel, feature: str) -> tuple[float, float]:
@@ -117,19 +125,67 @@ def best_of(model: AdditiveModel, term: Term, sign: int | None = None) -> Best:
     raise TypeError(f"unknown term type {type(term).__name__}")
 
 
+def axis_candidates(model: AdditiveModel, axis: Any) -> list[Any]:
+    """Values of a pair's axis where its table can be most favourable inside the central
+    box: every level; a value in each bin meeting the central range; the knots inside
+    the central range and its two ends."""
+    if axis.kind == "levels":
+        return list(axis.points)
+    low, high = central_range(model, axis.feature)
+    points = np.asarray(axis.points, dtype=float)
+    if axis.kind == "edges":
+        bounds = np.r_[-math.inf, points, math.inf]
+        meets = (bounds[:-1] < high) & (bounds[1:] >= low)
+        if not meets.any():
+            meets[:] = True
+        # the bin's upper edge, or the central range's top when that comes first: inside both
+        return [float(min(upper, high)) if math.isfinite(min(upper, high)) else
+                float(bounds[i] + 1.0) for i, upper in enumerate(bounds[1:]) if meets[i]]
+    inside = points[(points >= low) & (points <= high)]
+    chosen = np.unique(np.r_[inside, [v for v in (low, high) if math.isfinite(v)]])
+    return [float(v) for v in (chosen if len(chosen) else points)]
+
+
+def pair_best(model: AdditiveModel, pair: Any, sign: int | None = None) -> Best:
+    """The most favourable value a pair's table gives inside the central box (see the
+    module docstring), and the first two values reaching it."""
+    sign = model.schema.target.good_sign if sign is None else sign
+    firsts, seconds = axis_candidates(model, pair.first), axis_candidates(model, pair.second)
+    grid_a = np.repeat(np.asarray(firsts, dtype=object), len(seconds))
+    grid_b = np.tile(np.asarray(seconds, dtype=object), len(firsts))
+    values = pair.evaluate(grid_a if pair.first.kind == "levels" else grid_a.astype(float),
+                           grid_b if pair.second.kind == "levels" else grid_b.astype(float))
+    top = int(np.argmax(sign * values))
+    return Best(float(values[top]), at=(grid_a[top], grid_b[top]))
+
+
 def bests(model: AdditiveModel) -> dict[str, Best]:
-    """Each term's best, in the model's order; protected columns never have one."""
+    """Each term's best, in the model's order, then each pair's (by its name); protected
+    columns never have one."""
     protected = {f.name for f in model.schema.protected_features}
-    return {t.feature: best_of(model, t) for t in model.terms if t.feature not in protected}
+    found = {t.feature: best_of(model, t) for t in model.terms if t.feature not in protected}
+    found.update({p.name: pair_best(model, p) for p in model.pairs
+                  if not protected.intersection(p.features)})
+    return found
+
+
+def part_values(model: AdditiveModel, name: str, encoded: pd.DataFrame) -> np.ndarray:
+    """What a term or a pair (by its name) adds to each row of an encoded frame."""
+    for pair in model.pairs:
+        if pair.name == name:
+            return pair.evaluate_frame(encoded)
+    return np.asarray(model.term(name).evaluate(encoded[name].to_numpy()), dtype=float)
 
 
 def gaps(model: AdditiveModel, encoded: pd.DataFrame,
-         best: dict[str, Best] | None = None) -> pd.DataFrame:
-    """Per row and term: how far the row's contribution sits below the term's best."""
+         best: dict[str, Best] | None = None,
+         parts: dict[str, np.ndarray] | None = None) -> pd.DataFrame:
+    """Per row and term (and pair): how far the row's contribution sits below the best."""
     sign = model.schema.target.good_sign
     best = bests(model) if best is None else best
-    columns = {name: np.maximum(0.0, sign * (found.contribution - model.term(name).evaluate(
-        encoded[name].to_numpy()))) for name, found in best.items()}
+    parts = parts or {name: part_values(model, name, encoded) for name in best}
+    columns = {name: np.maximum(0.0, sign * (found.contribution - parts[name]))
+               for name, found in best.items()}
     return pd.DataFrame(columns, index=encoded.index)
 
 
@@ -187,8 +243,10 @@ def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> li
     if top < 1:
         raise OptionError(f"--top must be at least 1, not {top}")
     best = bests(model)
-    table = gaps(model, encoded, best)
+    parts = {name: part_values(model, name, encoded) for name in best}
+    table = gaps(model, encoded, best, parts)
     names = list(table.columns)
+    pairs = {p.name: p for p in model.pairs}
     values = table.to_numpy()
     out = []
     for row in range(len(table)):
@@ -197,11 +255,37 @@ def row_reasons(model: AdditiveModel, encoded: pd.DataFrame, top: int = 4) -> li
         for j in order[:top]:
             if values[row, j] <= NOTHING:
                 break
-            value = encoded[names[j]].iloc[row]
-            reasons.append(Reason(names[j], value, float(values[row, j]),
-                                  sentence(model, names[j], value, best[names[j]])))
+            name = names[j]
+            if name in pairs:
+                value: Any = tuple(encoded[f].iloc[row] for f in pairs[name].features)
+                text = pair_sentence(model, pairs[name], value)
+            else:
+                value = encoded[name].iloc[row]
+                text = sentence(model, name, value, best[name])
+            reasons.append(Reason(name, value, float(values[row, j]), text,
+                                  float(parts[name][row])))
         out.append(reasons)
     return out
+
+
+def _part_words(model: AdditiveModel, feature: str, value: Any) -> str:
+    if is_missing(value):
+        return f"{_label(feature)} not provided"
+    if model.schema.feature(feature).kind == "category":
+        return f"{_label(feature)} {_value_text(model, feature, value)}"
+    return f"{_label(feature)} of {_value_text(model, feature, value)}"
+
+
+def pair_sentence(model: AdditiveModel, pair: Any, values: tuple[Any, Any]) -> str:
+    """A pair's reason, worded for both features: "Income of 80 together with Seniority of
+    2; other combinations of the two score better", with the schema's reason texts of the
+    two features after it when it has them."""
+    first, second = (_part_words(model, f, v) for f, v in zip(pair.features, values,
+                                                                 strict=True))
+    own = [model.schema.feature(f).reason for f in pair.features
+           if model.schema.feature(f).reason]
+    words = f"{first} together with {second}; other combinations of the two score better"
+    return f"{words} ({'; '.join(own)})" if own else words
 
 
 def checked_cutoff(model: AdditiveModel, cutoff: float | None) -> float:
@@ -265,13 +349,15 @@ def principal_of(model: AdditiveModel, table: pd.DataFrame,
     first = table.loc[below, ["feature_1", "reason_1"]]
     first = first[first["feature_1"] != ""]
     # a blank is its own reason ("FEATURE not provided"), counted apart from the values
+    pairs = {p.name for p in model.pairs}
     keys = list(zip(first["feature_1"], first["reason_1"] == first["feature_1"].map(
-        lambda name: sentence(model, name, None)), strict=True))
+        lambda name: None if name in pairs else sentence(model, name, None)), strict=True))
     counts = pd.Series(keys, dtype=object).value_counts(sort=False)
-    order = sorted(counts.index, key=lambda key: (-counts[key], model.features.index(key[0]),
+    order = sorted(counts.index, key=lambda key: (-counts[key], model.parts.index(key[0]),
                                                   key[1]))
     rows = [{"feature": name,
-             "reason": (sentence(model, name, None) if blank
+             "reason": (sentence(model, name, None) if blank else
+                        f"{name} together (a pairwise table)" if name in pairs
                         else model.schema.feature(name).reason or _label(name)),
              "rows": int(counts[(name, blank)]),
              "share": float(counts[(name, blank)] / below.sum())}

@@ -322,7 +322,11 @@ def observed_direction(term: Term) -> str:
 def summary(model: AdditiveModel) -> pd.DataFrame:
     """One line per feature, most important first: importance, the lowest and highest
     contribution (the missing-value entry included), directions, and the missing-value
-    entry with its share of training rows (blank entry: a missing value is refused)."""
+    entry with its share of training rows (blank entry: a missing value is refused).
+    Then one line per pairwise table, most important first (kind "pair"; its lowest and
+    highest cell; no direction or missing entry of its own)."""
+    from glassbox.explaining.pair_shapes import pair_summary_rows
+
     rows = []
     for term in model.terms:
         spec = model.schema.feature(term.feature)
@@ -335,15 +339,23 @@ def summary(model: AdditiveModel) -> pd.DataFrame:
             "missing": term.missing,
             "missing_share": _missing_share(_profile_or_none(model, term.feature)),
         })
-    table = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
-    return table.sort_values(["importance", "feature"], ascending=[False, True],
-                             kind="mergesort").reset_index(drop=True)
+    order = ["importance", "feature"]
+    mains = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS)).sort_values(
+        order, ascending=[False, True], kind="mergesort")
+    pairs = pair_summary_rows(model)
+    if not pairs:
+        return mains.reset_index(drop=True)
+    pairs = pd.DataFrame(pairs, columns=list(SUMMARY_COLUMNS)).sort_values(
+        order, ascending=[False, True], kind="mergesort", na_position="last")
+    return pd.concat([mains, pairs], ignore_index=True)
 
 
 def chosen_features(model: AdditiveModel, features: Sequence[str] | None = None) -> list[str]:
-    """The named features (checked to have terms), or every feature by importance."""
+    """The named features (checked to have terms), or every feature by importance (the
+    one-feature terms; pairs are chosen apart, `pair_shapes.chosen_pairs`)."""
     if not features:
-        return list(summary(model)["feature"])
+        table = summary(model)
+        return list(table.loc[table["kind"] != "pair", "feature"])
     for name in features:
         model.term(name)  # a clear error for an unknown feature
     return list(dict.fromkeys(features))
@@ -356,22 +368,53 @@ def all_tables(model: AdditiveModel, features: Sequence[str] | None = None) -> p
 
 
 def write_folder(model: AdditiveModel, folder: str | Path, fmt: str,
-                 features: Sequence[str] | None = None) -> list[Path]:
-    """`summary.EXT` (every feature) and one `FEATURE.EXT` per chosen feature in a
-    folder; return the paths."""
-    names = chosen_features(model, features)
-    file_names = folder_names(names, fmt)
+                 features: Sequence[str] | None = None,
+                 pairs: Sequence[str] | None = None) -> list[Path]:
+    """`summary.EXT` (every feature and pair), one `FEATURE.EXT` per chosen feature and
+    one `FIRST & SECOND.EXT` per chosen pair (its long table) in a folder; return the
+    paths."""
+    from glassbox.explaining.pair_shapes import pair_table
+
+    names = [] if pairs and not features else chosen_features(model, features)
+    pair_names = shown_pairs(model, features, pairs)
+    file_names = folder_names(names, fmt, pair_names)
     folder = output_folder(folder, "tables")
-    tables = [summary(model)] + [term_table(model, name) for name in names]
+    tables = ([summary(model)] + [term_table(model, name) for name in names]
+              + [pair_table(model, name) for name in pair_names])
     paths = [folder / file_name for file_name in file_names]
     for path, table in zip(paths, tables, strict=True):
         write_atomic(path, write(table, fmt))
     return paths
 
 
-def folder_names(features: Sequence[str], fmt: str) -> list[str]:
-    """The files `write_folder` writes: `summary.EXT`, then one per feature."""
+def _pairs_of(model: AdditiveModel, features: Sequence[str] | None,
+              pairs: Sequence[str] | None) -> list[Any]:
+    """The pairs a command shows: those named, else every pair when no feature is named
+    (naming features only shows those features)."""
+    from glassbox.explaining.pair_shapes import chosen_pairs
+
+    if pairs:
+        return chosen_pairs(model, pairs)
+    return [] if features else list(model.pairs)
+
+
+def shown_pairs(model: AdditiveModel, features: Sequence[str] | None = None,
+                pairs: Sequence[str] | None = None) -> list[str]:
+    """The names of the pairs shown with these --feature and --pair choices."""
+    return [p.name for p in _pairs_of(model, features, pairs)]
+
+
+def pair_file_stem(name: str) -> str:
+    """A pair's file name without suffix: `pair_FIRST_SECOND` (the prefix keeps it apart
+    from any feature's file)."""
+    return f"pair_{safe_file_name(name)}"
+
+
+def folder_names(features: Sequence[str], fmt: str, pairs: Sequence[str] = ()) -> list[str]:
+    """The files `write_folder` writes: `summary.EXT`, then one per feature, then one
+    per pair."""
     if fmt not in SUFFIXES:
         raise OptionError(f"unknown format {fmt!r} (use one of: {', '.join(SUFFIXES)})")
     return [f"summary{SUFFIXES[fmt]}",
-            *(f"{safe_file_name(name)}{SUFFIXES[fmt]}" for name in features)]
+            *(f"{safe_file_name(name)}{SUFFIXES[fmt]}" for name in features),
+            *(f"{pair_file_stem(name)}{SUFFIXES[fmt]}" for name in pairs)]

@@ -18,7 +18,8 @@ from glassbox.core.errors import OptionError
 from glassbox.fitting.families import FAMILIES
 
 BENCHMARKS = ("trees", "forest")  # glassbox.fitting.benchmarks: the black boxes
-__all__ = ["BENCHMARKS", "FAMILIES", "family_defaults", "family_options", "settings_lines"]
+__all__ = ["BENCHMARKS", "FAMILIES", "apply_pairs", "family_defaults", "family_options",
+           "pair_families", "settings_lines"]
 
 
 def family_defaults(family: str) -> dict[str, Any]:
@@ -88,3 +89,23 @@ def family_options(pairs: list[str], families: tuple[str, ...]) -> dict[str, dic
         for family in takers:
             options[family][name] = value
     return options
+
+
+def pair_families(families: tuple[str, ...] = FAMILIES) -> tuple[str, ...]:
+    """The families (of those given) that take a `pairs` setting."""
+    return tuple(family for family in families if "pairs" in family_defaults(family))
+
+
+def apply_pairs(options: dict[str, dict[str, Any]], pairs: int, families: tuple[str, ...],
+                *, every: bool) -> None:
+    """`--pairs N` into the settings of each family given that takes pairs. With `every`
+    (fit) a family that does not take pairs is refused when N > 0; without (compare) the
+    others are fitted without pairs, and only none taking pairs is refused."""
+    takers = pair_families(families)
+    others = [family for family in families if family not in takers]
+    if pairs > 0 and (not takers or (every and others)):
+        raise OptionError(f"--pairs {pairs}: the {' and '.join(others)} "
+                          f"famil{'y does' if len(others) == 1 else 'ies do'} not fit pairwise "
+                          f"terms; families that do: {', '.join(pair_families()) or 'none'}")
+    for family in takers if pairs > 0 else ():  # 0 is every family's default
+        options.setdefault(family, {})["pairs"] = pairs

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -33,6 +33,7 @@ from glassbox.core.wording import plural, verb
 from glassbox.fitting.benchmark_search import DEFAULT_BUDGET, check_budget
 from glassbox.fitting.benchmarks import BENCHMARKS, benchmark_settings, headline_name
 from glassbox.fitting.calibration import DEFINITION as CALIBRATION_DEFINITION
+from glassbox.fitting.choices import pair_families
 from glassbox.fitting.compare_checks import (
     FLAG_RULE,
     NO_SKILL,
@@ -123,6 +124,9 @@ class CompareSettings:
     family_options: dict[str, dict[str, Any]] = field(default_factory=dict)
     # an outside model's out-of-fold scores (CSV or Parquet) in the benchmark's place
     benchmark_scores: str | None = None
+    # the pair curve: each family that takes pairs refitted with these numbers of pairs
+    # (none: no curve); `pair_steps_up_to` gives the usual steps
+    pair_steps: tuple[int, ...] = ()
 
     def check(self) -> None:
         unknown = [f for f in self.families if f not in FAMILIES]
@@ -141,6 +145,27 @@ class CompareSettings:
             raise OptionError(f"--jobs must be at least 1, not {self.jobs}")
         if not 0.0 < self.cutoff < 1.0:
             raise OptionError(f"--cutoff must lie between 0 and 1, not {self.cutoff}")
+        if self.pair_steps:
+            if any(isinstance(k, bool) or not isinstance(k, int) or k < 0
+                   for k in self.pair_steps):
+                raise OptionError(f"pair steps must be whole numbers of at least 0, not "
+                                  f"{list(self.pair_steps)}")
+            if not pair_families(self.families):
+                raise OptionError(f"the pair curve needs a family that fits pairs "
+                                  f"({', '.join(pair_families())}); compared here: "
+                                  f"{', '.join(self.families)}")
+
+
+PAIR_STEPS = (0, 1, 3, 10)
+PAIR_STEP_RULE = ("each family that takes pairs is refitted on every fold with 0, 1, 3 and 10 "
+                  "pairs, up to the number asked (--pairs), and no more than the features "
+                  "make; the intervals are as for the models")
+
+
+def pair_steps_up_to(pairs: int) -> tuple[int, ...]:
+    """The pair curve's steps for `--pairs N`: those of PAIR_STEPS below N, then N
+    (none for N = 0: no curve)."""
+    return tuple(k for k in PAIR_STEPS if k < pairs) + (pairs,) if pairs > 0 else ()
 
 
 # ---------------------------------------------------------------- the comparison
@@ -166,6 +191,8 @@ class Comparison:
     calibration: pd.DataFrame | None = None       # model, decile, rows, mean_predicted, ...
     calibration_fit: pd.DataFrame | None = None   # model, slope, intercept, rows, note
     sparsity_steps: pd.DataFrame | None = None    # repeat, fold, max_features, joined, ...
+    # model, pairs, metric, mean, lower, upper, interval_note, pairs_fitted; None: not asked
+    pair_curve: pd.DataFrame | None = None
     version: int = VERSION                        # the format of the file it was read from
 
     def absent(self) -> list[str]:
@@ -206,6 +233,7 @@ class Comparison:
             "sparsity_step_rule": STEP_RULE,
             "sparsity_steps": None if self.sparsity_steps is None
             else records(self.sparsity_steps),
+            "pair_curve": None if self.pair_curve is None else records(self.pair_curve),
             "folds": records(self.folds)}
         if self.task != "classification":  # calibration is of probabilities
             for key in ("calibration_definition", "calibration_fit", "calibration_deciles"):
@@ -245,6 +273,10 @@ def compare(
     schema.require_better()  # every fold fits: refuse at once, not in the first fold
     typed = type_frame(frame, schema, source)
     goal = schema.target.task
+    if settings.pair_steps:  # no more pairs than the features make
+        width = len(schema.used_features)
+        settings = replace(settings, pair_steps=tuple(sorted(
+            {min(k, width * (width - 1) // 2) for k in settings.pair_steps})))
     assigned = make_folds(typed.target, goal, settings)
     folds, set_aside = keep_scorable(typed.features, assigned)
     records: list[dict[str, Any]] = []
@@ -295,10 +327,11 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
     records += no_skill_records(target, folds, goal, settings.cutoff)
     table = pd.DataFrame(records).sort_values(["repeat", "fold", "model"], kind="mergesort")
     curve_rows = table[table.get("max_features", pd.Series(np.nan, index=table.index)).notna()]
-    fold_rows = table.drop(curve_rows.index)
+    pair_rows = table[table.get("pairs", pd.Series(np.nan, index=table.index)).notna()]
+    fold_rows = table.drop(curve_rows.index.union(pair_rows.index))
     fold_rows = fold_rows.drop(columns=[c for c in ("max_features", "features", "joined",
-                                                    "on_path", "left") if c in fold_rows],
-                               errors="ignore")
+                                                    "on_path", "left", "pairs", "pairs_fitted")
+                                        if c in fold_rows], errors="ignore")
     train_rows = np.mean([len(f[2]) for f in folds])
     test_rows = np.mean([len(f[3]) for f in folds])
     share = float(test_rows / train_rows)
@@ -365,6 +398,9 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                        "family_options": settings.family_options,
                        "interval": INTERVAL_METHOD,
                        "test_to_train_ratio": share}
+    if settings.pair_steps:
+        settings_record["pair_steps"] = list(settings.pair_steps)
+        settings_record["pair_step_rule"] = PAIR_STEP_RULE
     if tuning:  # each fold's search: the settings chosen and the budget used
         settings_record["benchmark_budget"] = settings.benchmark_budget
         settings_record["benchmark_tuning"] = tuning
@@ -372,7 +408,8 @@ def summarise(records: list[dict[str, Any]], prepared, schema: Schema,
                       sparsity, settings_record, provenance, schema.to_dict(),
                       base_rate=base_rate(target, goal), flags=flags,
                       calibration=calibration, calibration_fit=calibration_fit_table,
-                      sparsity_steps=sparsity_steps(curve_rows))
+                      sparsity_steps=sparsity_steps(curve_rows),
+                      pair_curve=_pair_curve(pair_rows, metrics, share, settings))
 
 
 def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) -> pd.DataFrame:
@@ -385,6 +422,25 @@ def _sparsity(curve_rows: pd.DataFrame, metrics: Sequence[str], share: float) ->
             rows.append({"max_features": int(size), "metric": metric,
                          **{k: result[k] for k in ("mean", "lower", "upper")},
                          "interval_note": result["note"]})
+    return pd.DataFrame(rows)
+
+
+def _pair_curve(pair_rows: pd.DataFrame, metrics: Sequence[str], share: float,
+                settings: CompareSettings) -> pd.DataFrame | None:
+    """Per family and number of pairs: each metric's mean over folds with its interval, and
+    the fewest pairs a fold model had (fewer than asked where fewer pairs could be cut)."""
+    if not settings.pair_steps:
+        return None
+    rows = []
+    for family in pair_families(settings.families):
+        for step in settings.pair_steps:
+            group = pair_rows[(pair_rows["model"] == family) & (pair_rows["pairs"] == step)]
+            for metric in metrics:
+                result = interval(group[metric], share, bounds=METRIC_RANGES[metric])
+                rows.append({"model": family, "pairs": int(step), "metric": metric,
+                             **{k: result[k] for k in ("mean", "lower", "upper")},
+                             "interval_note": result["note"],
+                             "pairs_fitted": int(group["pairs_fitted"].min())})
     return pd.DataFrame(rows)
 
 

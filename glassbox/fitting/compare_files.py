@@ -87,7 +87,11 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
             schema=document.get("schema"), base_rate=document.get("base_rate"),
             flags=optional("no_skill_flags"), calibration=optional("calibration_deciles"),
             calibration_fit=optional("calibration_fit"),
-            sparsity_steps=optional("sparsity_steps"), version=int(version))
+            sparsity_steps=optional("sparsity_steps"),
+            pair_curve=None if document.get("pair_curve") is None else table(
+                read_within_ranges(document["pair_curve"], METRIC_RANGES, "mean", source,
+                                   "pair_curve")),
+            version=int(version))
         if version == 1:
             benchmark = f"benchmark ({comparison.settings['benchmark']})"
             comparison = replace(comparison, headline=make_headline(
@@ -96,7 +100,10 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
         raise DataError(f"{source} is incomplete: {type(exc).__name__} {exc}") from None
     for name, frame, keys in (("models", comparison.models, ["model", "metric"]),
                               ("costs", comparison.costs, ["model", "metric"]),
-                              ("sparsity_curve", comparison.sparsity, ["max_features", "metric"])):
+                              ("sparsity_curve", comparison.sparsity, ["max_features", "metric"]),
+                              ("pair_curve", comparison.pair_curve
+                               if comparison.pair_curve is not None else pd.DataFrame(),
+                               ["model", "pairs", "metric"])):
         twice = frame.duplicated(keys) if set(keys) <= set(frame.columns) else []
         if any(twice):
             first = frame[twice].iloc[0]

@@ -20,6 +20,7 @@ from glassbox.core.errors import DataError
 from glassbox.core.schema import Schema, pool_levels, prepare
 from glassbox.core.workers import become_worker, pool_running, sigint_held
 from glassbox.fitting.benchmarks import benchmark_fold
+from glassbox.fitting.choices import pair_families
 from glassbox.fitting.fit import _missing_as_level, finished, fit_typed, ready, unpooled
 from glassbox.fitting.metrics import (
     classification_metrics,
@@ -94,7 +95,7 @@ def make_folds(target: np.ndarray, task: str, settings: CompareSettings
 class Task:
     """One unit of work: a model (or the sparsity curve) on one fold."""
 
-    kind: str  # "family", "benchmark" or "sparsity"
+    kind: str  # "family", "benchmark", "sparsity" or "pairs"
     name: str
     repeat: int
     fold: int
@@ -184,6 +185,17 @@ def _run_task(task: Task, typed: Typed, schema: Schema,
         return [{**base, "model": task.name,
                  **fold_scores(goal, target[task.test], prediction, settings.cutoff),
                  PREDICTIONS: np.asarray(prediction, dtype=float)}]
+    if task.kind == "pairs":  # the pair curve: the family refitted per number of pairs
+        records = []
+        for step in settings.pair_steps:
+            options = {**settings.family_options.get(task.name, {}), "pairs": step}
+            model = fold_model(typed, schema, task.name, task.train, options)
+            records.append({**base, "model": task.name, "pairs": step,
+                            "pairs_fitted": len(model.pairs),
+                            **fold_scores(goal, target[task.test],
+                                          fold_prediction(model, typed, task.test),
+                                          settings.cutoff)})
+        return records
     # the sparsity curve: one L1 path per fold, then a refit per number of features
     records = []
     steps: dict[str, Any] = {}
@@ -261,6 +273,9 @@ def plan_tasks(folds, settings: CompareSettings) -> list[Task]:
             tasks.append(Task("family", family, repeat, fold, train, test))
         if settings.sparsity_curve and "sparse" in settings.families:
             tasks.append(Task("sparsity", "sparse", repeat, fold, train, test))
+        if settings.pair_steps:
+            tasks += [Task("pairs", family, repeat, fold, train, test)
+                      for family in pair_families(settings.families)]
     return tasks
 
 
@@ -293,7 +308,8 @@ def _run_in_worker(task: Task) -> tuple[list[dict], str]:
 
 
 def _label(task: Task) -> str:
-    name = "sparsity curve" if task.kind == "sparsity" else task.name
+    name = {"sparsity": "sparsity curve", "pairs": f"{task.name} by pairs"}.get(task.kind,
+                                                                               task.name)
     return f"{name}, fold {task.fold + 1} of repeat {task.repeat + 1}"
 
 

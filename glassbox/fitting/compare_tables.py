@@ -235,6 +235,33 @@ def sparsity_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
     return table
 
 
+def pair_table(comparison: Comparison, digits: int = 3) -> pd.DataFrame:
+    """Each family that takes pairs: its primary metric with 0, 1, 3, ... pairs."""
+    curve = comparison.pair_curve
+    if curve is None or curve.empty:
+        return pd.DataFrame()
+    primary = comparison.primary
+    rows = curve[curve["metric"] == primary]
+    name = METRIC_NAMES[primary]
+    fitted = rows.get("pairs_fitted", rows["pairs"]).astype(int).to_numpy()
+    asked = rows["pairs"].astype(int).to_numpy()
+    return pd.DataFrame({
+        "family": rows["model"].to_numpy(),
+        "pairs": [str(a) if f >= a else f"{a} ({f} in a fold)"
+                  for a, f in zip(asked, fitted, strict=True)],
+        name: [f"{m:.{digits}f}" for m in rows["mean"]],
+        "95% interval": [_range(lo, hi, digits, note) for lo, hi, note in
+                         zip(rows["lower"], rows["upper"],
+                             rows.get("interval_note", [None] * len(rows)), strict=True)],
+    })
+
+
+def pair_note(comparison: Comparison) -> str:
+    """How the pair curve was made, in a line."""
+    rule = comparison.settings.get("pair_step_rule", "")
+    return f"Pairs: {rule}." if rule else ""
+
+
 def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
     """The `glassbox compare` command line that repeats a comparison made with `settings`
     (the schema file holding the comparison's "schema" table, as TOML)."""
@@ -249,10 +276,11 @@ def rerun_command(settings: dict[str, Any], data: str, schema: str) -> str:
               else "")
     benchmark = (f"--benchmark-scores {settings['benchmark_scores']}"
                  if settings.get("benchmark_scores") else f"--benchmark {settings['benchmark']}")
+    pairs = f" --pairs {max(settings['pair_steps'])}" if settings.get("pair_steps") else ""
     return (f"glassbox compare {data} --schema {schema} {families} {benchmark}{budget} "
             f"--folds {settings['folds']} --repeats "
             f"{settings['repeats']} --seed {settings['seed']} --cutoff "
-            f"{settings['cutoff']:g}{options}")
+            f"{settings['cutoff']:g}{pairs}{options}")
 
 
 def to_markdown(comparison: Comparison) -> str:
@@ -287,6 +315,10 @@ def to_markdown(comparison: Comparison) -> str:
         if comparison.sparsity_steps is not None:
             parts += [f"Joined and left, per fold (a name alone: every fold agrees): "
                       f"{STEP_RULE}.", ""]
+    pairs = pair_table(comparison)
+    if not pairs.empty:
+        parts += ["## What each pair buys: accuracy by number of pairs", "",
+                  table_markdown(pairs), pair_note(comparison), ""]
     settings = comparison.settings
     parts += [f"{settings['folds']} folds × {plural(settings['repeats'], 'repeat')}, seed "
               f"{settings['seed']}; intervals: {settings['interval']}.", ""]

@@ -159,9 +159,37 @@ def review_blocks(changes: Changes, short: bool = True) -> list[Block]:
                   _column([i.new for i in changes.importance]),
                   _column([i.change for i in changes.importance], True), strict=True)),
         (_importance_note(changes),)))
+    if changes.pairs:
+        blocks.append(_pairs_block(changes))
     if changes.data is not None:
         blocks += _data_blocks(changes)
     return blocks
+
+
+def _pair_at(cell: Any) -> str:
+    """The cell where a pair's change is largest, as "A 100 to 125 and B 8 to 14"."""
+    return "" if cell is None else " and ".join(cell)
+
+
+def _pairs_block(changes: Changes) -> Block:
+    """The pairwise tables of either version: added, removed, and how far a common one's
+    table moved (exact, over the union of both grids) and where."""
+    pairs = changes.pairs
+    largest = _column([p.largest for p in pairs], True)
+    rows = tuple((p.pair, p.status, move, _pair_at(p.cell), old, new)
+                 for p, move, old, new in zip(
+                     pairs, largest, _column([p.old_importance for p in pairs]),
+                     _column([p.new_importance for p in pairs]), strict=True))
+    notes = ["Largest change of a common pair's table (new − old): exact, at every corner "
+             "of the union of both versions' grids within the training range (levels, "
+             "knots, edges and just above each edge), its missing entries where both "
+             "versions have one. Importance: mean |contribution| over training rows, as "
+             "each model file records it."]
+    notes += [f"{p.pair}: {p.note}." for p in pairs if p.note]
+    return Block(f"Pairwise tables ({changes.scale})",
+                 (("pair", "left"), ("status", "left"), ("largest change", "right"),
+                  ("at", "left"), ("old importance", "right"), ("new importance", "right")),
+                 rows, tuple(notes))
 
 
 def _importance_note(changes: Changes) -> str:

@@ -22,7 +22,7 @@ if TYPE_CHECKING:
 
 FORMAT = "glassbox-monitoring"
 VERSION = 1
-TABLES = ("summary", "features", "bins", "score_bins", "new_levels", "outcomes")
+TABLES = ("summary", "features", "bins", "score_bins", "new_levels", "outcomes", "pairs")
 # the period summary's columns that go beside each feature row in the CSV, renamed so a
 # column of the period never reads as one of the feature
 PERIOD_COLUMNS = {"rows": "period_rows", "scored_rows": "period_scored_rows",
@@ -52,6 +52,8 @@ def to_document(monitoring: Monitoring, context: Mapping[str, Any] | None = None
         "caution": CAUTION,
     }
     for name in TABLES:
+        if name == "pairs" and monitoring.pairs is None:
+            continue  # a model without pairs: the document as before
         document[name] = records(getattr(monitoring, name, None))
     return document
 

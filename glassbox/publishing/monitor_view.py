@@ -300,6 +300,20 @@ def _with_interval(value: Any, low: Any, high: Any, digits: int = 3) -> str:
     return text
 
 
+def pair_table(monitoring: Monitoring, width: int = WIDTH) -> Table | None:
+    """Each pair's drift per period, beside the features': PSI over its cells, and how far
+    its mean contribution moved; None for a model without pairs."""
+    pairs = monitoring.pairs
+    if pairs is None or pairs.empty:
+        return None
+    rows = [[str(row.period), str(row.pair), psi_text(row.psi), short_flag(row.flag, row.rule),
+             signed_text(row.contribution_change)]
+            for row in pairs.itertuples(index=False)]
+    return _table("Pairs: PSI over each pair's cells, and its mean contribution moved",
+                  [("period", "left"), ("pair", "left"), ("PSI", "right"), ("flag", "left"),
+                   ("contribution moved", "right")], rows, width)
+
+
 def monitoring_view(monitoring: Monitoring, width: int = WIDTH) -> RenderableType:
     """Everything the terminal shows, in reading order, laid out for `width` columns."""
     summary = monitoring.summary
@@ -320,6 +334,9 @@ def monitoring_view(monitoring: Monitoring, width: int = WIDTH) -> RenderableTyp
             parts.append(table)
     if quiet:
         parts += [Text(f"No feature flagged in {', '.join(quiet)}."), Text("")]
+    pairs = pair_table(monitoring, width)
+    if pairs is not None:
+        parts.append(pairs)
     lines = collapse_lines(monitoring) + new_level_lines(monitoring)
     if lines:
         parts += [Text(line) for line in lines] + [Text("")]

@@ -34,6 +34,7 @@ from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.shapes import (
     chosen_features,
     missing_words,
+    pair_file_stem,
     percent_text,
     summary,
     term_table,
@@ -423,20 +424,66 @@ def importance_figure(model: AdditiveModel) -> Figure:
     return figure
 
 
-def picture_names(features: Sequence[str]) -> list[str]:
-    """The files `write_plots` writes: the importance overview, then one per feature."""
-    return ["importance.png", *(f"{safe_file_name(name)}.png" for name in features)]
+def pair_figure(model: AdditiveModel, name: str) -> Figure:
+    """A heat map of one pair's table: the first axis down, the second across, each cell
+    coloured on a scale diverging around 0 (RISE raises the score, FALL lowers it, white
+    adds nothing; the same depth both ways) and its value written in it."""
+    from matplotlib.colors import LinearSegmentedColormap
+
+    from glassbox.explaining.pair_shapes import find_pair, heat_grid
+
+    pair = find_pair(model, name)
+    grid = heat_grid(model, name)
+    values = grid.to_numpy(dtype=float)
+    rows, columns = values.shape
+    reach = float(np.max(np.abs(values))) or 1.0
+    colours = LinearSegmentedColormap.from_list("pair", [FALL, "#ffffff", RISE])
+    figure = Figure(figsize=(min(14.0, 2.6 + 0.9 * columns), min(12.0, 1.8 + 0.45 * rows)),
+                    dpi=DPI, layout="constrained")
+    axis = figure.subplots()
+    image = axis.imshow(values, cmap=colours, vmin=-reach, vmax=reach, aspect="auto")
+    for a in range(rows):
+        for b in range(columns):
+            deep = abs(values[a, b]) > 0.55 * reach  # light text on the deepest cells
+            axis.text(b, a, f"{values[a, b]:+.2g}", ha="center", va="center", fontsize=8,
+                      color="#ffffff" if deep else INK)
+    axis.set_xticks(range(columns), list(grid.columns), rotation=30 if columns > 4 else 0,
+                    ha="right" if columns > 4 else "center", fontsize=8)
+    axis.set_yticks(range(rows), list(grid.index), fontsize=8)
+    for axis_of, which in ((pair.first, "row"), (pair.second, "column")):
+        if axis_of.missing:  # the missing entry apart: a line before it
+            at = axis_of.size - 1.5
+            (axis.axhline if which == "row" else axis.axvline)(at, color=MISSING,
+                                                               linewidth=1.5)
+    axis.set_ylabel(_axis_label(model, pair.first.feature))
+    axis.set_xlabel(_axis_label(model, pair.second.feature))
+    colour_bar = figure.colorbar(image, ax=axis, shrink=0.9)
+    colour_bar.set_label(_score_label(model), fontsize=8)
+    importance = model.metadata.get("importance", {}).get(pair.name)
+    words = "" if importance is None else f": importance {importance:.3g}"
+    axis.set_title(f"{pair.name} (pair, {pair.first.kind} × {pair.second.kind}){words}",
+                   fontsize=10, loc="left")
+    return figure
+
+
+def picture_names(features: Sequence[str], pairs: Sequence[str] = ()) -> list[str]:
+    """The files `write_plots` writes: the importance overview, then one per feature,
+    then one per pair."""
+    return ["importance.png", *(f"{safe_file_name(name)}.png" for name in features),
+            *(f"{pair_file_stem(name)}.png" for name in pairs)]
 
 
 def write_plots(model: AdditiveModel, folder: str | Path,
-                features: Sequence[str] | None = None) -> list[Path]:
-    """Write `importance.png` and one `FEATURE.png` per chosen feature (all by
-    default); return the paths."""
-    names = chosen_features(model, features)
+                features: Sequence[str] | None = None,
+                pairs: Sequence[str] = ()) -> list[Path]:
+    """Write `importance.png`, one `FEATURE.png` per chosen feature (all by default) and
+    one heat map per pair named; return the paths."""
+    names = [] if pairs and not features else chosen_features(model, features)
     folder = output_folder(folder, "plots")
     written = []
-    figures = [importance_figure(model)] + [feature_figure(model, name) for name in names]
-    for file_name, figure in zip(picture_names(names), figures, strict=True):
+    figures = ([importance_figure(model)] + [feature_figure(model, name) for name in names]
+               + [pair_figure(model, name) for name in pairs])
+    for file_name, figure in zip(picture_names(names, pairs), figures, strict=True):
         buffer = io.BytesIO()
         figure.savefig(buffer, format="png", metadata={"Software": None})
         path = folder / file_name

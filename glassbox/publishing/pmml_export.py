@@ -12,6 +12,11 @@ copies), written with full precision (the repr of each double):
   to the term's missing-value entry; the schema's fill is also the MiningField's
   `missingValueReplacement`. The score is the intercept plus each derived field (coefficient 1);
   classification adds the logistic link (normalizationMethod "logit").
+- a pair ("term:A & B") is the sum over the entries j of the first feature's axis of
+  "weight:A & B:j" (the entry's weight: 1 or 0 from a Discretize over its edges or a
+  MapValues over its labels, or between knots a NormContinuous hat that is 1 at knot j and
+  0 at its neighbours) times "row:A & B:j" (the table's row j along the second feature,
+  written as that feature's own term is written).
 - a points card is a Scorecard: one Characteristic per feature, one Attribute per bin or
   label, a first Attribute for a missing input and a last one (True) for an unseen level;
   reason codes are the feature names, ranked by points below each characteristic's best.
@@ -36,7 +41,16 @@ from glassbox.core.encoding import label_text
 from glassbox.core.errors import OptionError
 from glassbox.core.schema import Schema
 from glassbox.explaining.cards import PointsCard
-from glassbox.publishing.export_tables import ColumnRule, ExportTable, card_tables, model_tables
+from glassbox.publishing.export_tables import (
+    AxisTable,
+    ColumnRule,
+    ExportTable,
+    PairExportTable,
+    card_tables,
+    model_tables,
+    pair_tables,
+    refuse_card_pairs,
+)
 
 NAMESPACE = "http://www.dmg.org/PMML-4_4"
 BLANK = r"^\s*$"  # blank text (a Java regular expression), which the tool reads as missing
@@ -50,11 +64,13 @@ def model_pmml(model: AdditiveModel) -> str:
     from glassbox.explaining.points import model_checksum
 
     tables = model_tables(model)
+    pairs = pair_tables(model)
     target = model.schema.target
     classification = model.link == "logit"
+    parts = [t.feature for t in tables] + [p.name for p in pairs]
     outputs = ["probability" if classification else "prediction", "score",
-               *(f"contribution:{t.feature}" for t in tables)]
-    _check_names(tables, [target.column, *outputs])
+               *(f"contribution:{name}" for name in parts)]
+    _check_names(tables, [target.column, *outputs, *_pair_fields(pairs)])
     root = _document(model_checksum(model), _model_notes(model, tables),
                      "a glassbox additive model")
     dictionary = _data_dictionary(root, [t.rule for t in tables])
@@ -70,6 +86,7 @@ def model_pmml(model: AdditiveModel) -> str:
     _count_fields(dictionary)
     transforms = _el(root, "TransformationDictionary")
     terms = [_term_field(transforms, table) for table in tables]
+    terms += [_pair_field(transforms, pair) for pair in pairs]
     regression = _el(root, "RegressionModel", modelName="glassbox additive model",
                      functionName="classification" if classification else "regression",
                      algorithmName="glassbox additive model", targetFieldName=target.column,
@@ -85,8 +102,8 @@ def model_pmml(model: AdditiveModel) -> str:
     score = _el(output, "OutputField", name="score", optype="continuous", dataType="double",
                 feature="transformedValue")
     score.append(_sum([_constant(model.intercept), *(_ref(name) for name in terms)]))
-    for table, name in zip(tables, terms, strict=True):
-        contribution = _el(output, "OutputField", name=f"contribution:{table.feature}",
+    for part, name in zip(parts, terms, strict=True):
+        contribution = _el(output, "OutputField", name=f"contribution:{part}",
                            optype="continuous", dataType="double",
                            feature="transformedValue")
         contribution.append(_ref(name))
@@ -100,7 +117,9 @@ def model_pmml(model: AdditiveModel) -> str:
 
 
 def card_pmml(card: PointsCard) -> str:
-    """The points card as a PMML Scorecard."""
+    """The points card as a PMML Scorecard (a card with pairs' points grids is refused:
+    a Scorecard characteristic reads one field; see `refuse_card_pairs`)."""
+    refuse_card_pairs(card, "the PMML export of a points card")
     tables = card_tables(card)
     _check_names(tables, ["total_points", *(f"reason_{k}" for k in range(1, len(tables) + 1))])
     root = _document(card.model_checksum, _card_notes(tables), "a glassbox points card")
@@ -417,6 +436,76 @@ def _levels_expression(table: ExportTable) -> ET.Element:
         _el(row, "label").text = level
         _el(row, "value").text = _number(value)
     return mapping
+
+
+# -- pairs -------------------------------------------------------------------------------
+
+def _pair_fields(pairs: Sequence[PairExportTable]) -> list[str]:
+    return [name for pair in pairs for j in range(len(pair.rows))
+            for name in (f"weight:{pair.name}:{j}", f"row:{pair.name}:{j}")] + [
+        f"term:{pair.name}" for pair in pairs]
+
+
+def _pair_field(parent: ET.Element, pair: PairExportTable) -> str:
+    """The derived field of a pair: sum over the first axis's entries of weight * row."""
+    products = []
+    for j, row in enumerate(pair.rows):
+        weight = _el(parent, "DerivedField", name=f"weight:{pair.name}:{j}",
+                     optype="continuous", dataType="double")
+        weight.append(_weight_expression(pair.first, j))
+        along = _el(parent, "DerivedField", name=f"row:{pair.name}:{j}", optype="continuous",
+                    dataType="double")
+        along.append(_term_expression(row))
+        products.append(_apply("*", _ref(weight.get("name")), _ref(along.get("name"))))
+    name = f"term:{pair.name}"
+    _el(parent, "DerivedField", name=name, optype="continuous",
+        dataType="double").append(_sum(products))
+    return name
+
+
+def _weight_expression(axis: AxisTable, j: int) -> ET.Element:
+    """Entry j's weight for a row: from the label, the bin, or the knots around it; a
+    missing input weighs as `axis.missing` says (none given: the weight is missing)."""
+    missing = None if axis.missing is None else axis.missing[j]
+    if axis.shape == "levels":
+        mapping = ET.Element("MapValues", {"outputColumn": "weight", "dataType": "double"})
+        if missing is not None:
+            mapping.set("mapMissingTo", _number(missing))
+        if axis.unseen is not None:
+            mapping.set("defaultValue", _number(axis.unseen[j]))
+        _el(mapping, "FieldColumnPair", field=f"label:{axis.feature}", column="label")
+        inline = _el(mapping, "InlineTable")
+        for level, weights in zip(axis.levels, axis.label_weights, strict=True):
+            row = _el(inline, "row")
+            _el(row, "label").text = level
+            _el(row, "weight").text = _number(weights[j])
+        return mapping
+    source = f"days:{axis.feature}" if axis.rule.days_before is not None else axis.feature
+    points = axis.points
+    if j >= axis.axis.values_size or (axis.shape == "curve" and len(points) == 1):
+        # the missing entry, or a single knot: a constant where a value is given
+        present = 0.0 if j >= axis.axis.values_size else 1.0
+        return _when_present(_ref(source), _constant(present), missing)
+    if axis.shape == "steps":
+        discretize = ET.Element("Discretize", {"field": source, "dataType": "double"})
+        if missing is not None:
+            discretize.set("mapMissingTo", _number(missing))
+        for i in range(len(points) + 1):
+            margins = {}
+            if i > 0:
+                margins["leftMargin"] = _number(points[i - 1])
+            if i < len(points):
+                margins["rightMargin"] = _number(points[i])
+            bin_ = _el(discretize, "DiscretizeBin", binValue="1" if i == j else "0")
+            _el(bin_, "Interval", closure="openClosed", **margins)
+        return discretize
+    norm = ET.Element("NormContinuous", {"field": source, "outliers": "asExtremeValues"})
+    if missing is not None:
+        norm.set("mapMissingTo", _number(missing))
+    for i in (j - 1, j, j + 1):  # a hat: 1 at knot j, 0 at its neighbours, flat beyond
+        if 0 <= i < len(points):
+            _el(norm, "LinearNorm", orig=_number(points[i]), norm="1" if i == j else "0")
+    return norm
 
 
 # -- the points card -----------------------------------------------------------------------

@@ -16,7 +16,13 @@ from rich.text import Text
 from glassbox.core.additive import AdditiveModel
 from glassbox.core.schema import MISSING_LEVEL
 from glassbox.explaining.reasons import is_missing
-from glassbox.explaining.shapes import MarkedRow, missing_words, readable_rows, value_rows
+from glassbox.explaining.shapes import (
+    MarkedRow,
+    missing_words,
+    percent_text,
+    readable_rows,
+    value_rows,
+)
 from glassbox.publishing import palette
 from glassbox.publishing.narrow import (
     FittedTable,
@@ -99,6 +105,10 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     if left_out:
         pairs["features left out"] = ", ".join(left_out)
     details = meta.get("details") or {}
+    if model.pairs:  # in the order they were chosen (best ranked first)
+        pairs["pairs"] = f"{len(model.pairs)}: {'; '.join(p.name for p in model.pairs)}"
+    if details.get("pairs_note"):
+        pairs["fewer pairs than asked"] = details["pairs_note"]
     held = details.get("held_flat_by_declared_direction")
     if held:
         pairs["flat: declared direction binds"] = ", ".join(held)
@@ -164,8 +174,10 @@ def summary_texts(summary: pd.DataFrame) -> pd.DataFrame:
                       zip(lowest[:half], lowest[half:], strict=True)]
     texts["direction"] = [direction_words(str(o or ""), str(d or "")) for o, d in
                           zip(summary["observed"], summary["declared"], strict=True)]
-    texts["missing"] = [missing_words(m, s, short=True) for m, s in
-                        zip(summary["missing"], summary["missing_share"], strict=True)]
+    pair = summary["kind"] == "pair"
+    texts["missing"] = ["in its table" if is_pair else missing_words(m, s, short=True)
+                        for m, s, is_pair in zip(summary["missing"], summary["missing_share"],
+                                                 pair, strict=True)]
     return texts
 
 
@@ -216,13 +228,18 @@ def term_notes(table: pd.DataFrame) -> list[str]:
 def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
                 scale: str = "score",
                 keep: Mapping[str, Sequence[int]] | None = None,
-                marks: Sequence[MarkedRow] = ()) -> RenderableType:
+                marks: Sequence[MarkedRow] = (), model: AdditiveModel | None = None,
+                pairs: Sequence[str] = ()) -> RenderableType:
     """The summary table, then each feature's table (long ones thinned, saying so;
     `keep`: positions of rows each feature's table must show; `marks`: rows a value
-    asked about falls in, shown beside the value and said in a line under the table)."""
+    asked about falls in, shown beside the value and said in a line under the table),
+    then the heat table of each of the model's `pairs` named."""
     marked = {mark.feature: mark for mark in marks}
+    title = SUMMARY_TITLE.format(scale=scale)
+    if (summary["kind"] == "pair").any():
+        title += "; pairwise tables (FIRST & SECOND) follow the features"
     parts: list[RenderableType] = [FittedTable.of_frame(
-        summary_texts(summary), title=SUMMARY_TITLE.format(scale=scale), headings=HEADINGS,
+        summary_texts(summary), title=title, headings=HEADINGS,
         whole=["range"])]
     kinds = dict(zip(summary["feature"], summary["term"], strict=True))
     for feature, table in tables.items():
@@ -234,7 +251,69 @@ def shapes_view(summary: pd.DataFrame, tables: Mapping[str, pd.DataFrame],
         notes = term_notes(table) + ([] if mark is None else [mark.words])
         parts.append(FittedTable.of_frame(texts, title=title, headings=HEADINGS,
                                           notes=notes))
+    parts += [pair_view(model, name) for name in pairs if model is not None]
     return Group(*parts)
+
+
+def heat_texts(grid: pd.DataFrame) -> pd.DataFrame:
+    """A pair's grid (`pair_shapes.heat_grid`) as text cells: a first column of the first
+    axis's entries, headed by its feature, then one column per entry of the second axis,
+    every value in one signed style (so a column of cells reads like any other)."""
+    values = grid.to_numpy(dtype=float)
+    texts = np.asarray(number_texts(list(values.ravel()), signed=True),
+                       dtype=object).reshape(values.shape)
+    frame = pd.DataFrame(texts, columns=[str(c) for c in grid.columns])
+    frame.insert(0, str(grid.index.name), [str(label) for label in grid.index])
+    return frame
+
+
+def pair_title(pair: Any, words: str = "") -> str:
+    """A heat table's title: the pair, its axes' kinds, which feature runs where."""
+    return (f"{pair.name} (pair, {pair.first.kind} × {pair.second.kind}): rows "
+            f"{pair.first.feature}, columns {pair.second.feature}{words}")
+
+
+def pair_notes(pair: Any, shares: str | None = None) -> list[str]:
+    """Lines under a heat table: how knots read, the missing entries, where the training
+    shares of its cells come from (`pair_shapes.shares_words`) when given."""
+    notes = []
+    knots = [a.feature for a in (pair.first, pair.second) if a.kind == "knots"]
+    if knots:
+        notes.append(f"{' and '.join(knots)}: values at the knots; between two knots the "
+                     "table is read on a straight line, beyond the ends at the end knot.")
+    missing = [a.feature for a in (pair.first, pair.second) if a.missing]
+    if missing:
+        notes.append(f"The 'missing' {'row' if missing[0] == pair.first.feature else 'column'}"
+                     f"{'s' if len(missing) > 1 else ''} ({', '.join(missing)}): a row with "
+                     "no value.")
+    if shares:
+        notes.append(f"Training shares of cells: {shares}.")
+    return notes
+
+
+def pair_view(model: AdditiveModel, name: str) -> RenderableType:
+    """One pair's heat table: rows the first axis, columns the second (a wide table is
+    stacked in parts, each repeating the first column), the notes under it; then, when the
+    model file keeps them, each cell's share of the training rows laid out the same way."""
+    from glassbox.explaining.pair_shapes import (
+        find_pair,
+        heat_grid,
+        shares_words,
+        training_share_grid,
+    )
+
+    pair = find_pair(model, name)
+    values = FittedTable.of_frame(heat_texts(heat_grid(model, name)), title=pair_title(pair),
+                                  notes=pair_notes(pair, shares_words(model, pair)))
+    shares = training_share_grid(model, name)
+    if shares is None:
+        return values
+    texts = shares.map(percent_text)
+    texts.columns = [str(c) for c in texts.columns]
+    texts.insert(0, str(shares.index.name), [str(label) for label in shares.index])
+    return Group(values, FittedTable.of_frame(
+        texts, title=f"{pair.name}: share of the training rows in each cell (the model "
+                     "file's development baseline)"))
 
 
 def terminal_columns(table: pd.DataFrame) -> list[str]:
@@ -289,8 +368,8 @@ class WarningView:
 def comparison_view(comparison: Any) -> RenderableType:
     """What `glassbox compare` prints, laid out like every other view (narrow.py): the
     headline, the base rate and no-skill flags, every metric's mean, the primary metric's
-    interval, the cost, calibration (every model's deciles in one table) and the sparsity
-    curve with the feature that joins at each size."""
+    interval, the cost, calibration (every model's deciles in one table), the sparsity
+    curve with the feature that joins at each size and the pair curve (when asked for)."""
     from glassbox.fitting import compare_tables as tables
 
     settings = comparison.settings
@@ -333,6 +412,10 @@ def comparison_view(comparison: Any) -> RenderableType:
                                                      "left on the path"],
                                      title="The feature that joins at each size (where "
                                      "folds differ: each name with its share of folds)"))
+    pairs = tables.pair_table(comparison)
+    if not pairs.empty:
+        parts += [frame_table(pairs, title="What each pair buys: accuracy by number of "
+                                           "pairs"), Text(tables.pair_note(comparison))]
     return Group(*parts)
 
 
@@ -354,12 +437,17 @@ def data_value(value: Any) -> str:
     return value_text(value)
 
 
+def reason_value(value: Any) -> str:
+    """A reason's value as the table shows it; a pair's two values joined by "and"."""
+    if isinstance(value, tuple):
+        return " and ".join(reason_value(v) for v in value)
+    return MISSING_LEVEL if is_missing(value) else data_value(value)
+
+
 def reasons_view(row: Mapping[str, Any], reasons: Sequence[Any], scale: str) -> RenderableType:
     """One row's score and its reasons, largest gap first."""
     gaps = number_texts([reason.gap for reason in reasons])
-    rows = [(str(number), reason.feature,
-             MISSING_LEVEL if is_missing(reason.value) else data_value(reason.value), gap,
-             reason.text)
+    rows = [(str(number), reason.feature, reason_value(reason.value), gap, reason.text)
             for number, (reason, gap) in enumerate(zip(reasons, gaps, strict=True), start=1)]
     table = FittedTable(f"Reasons, largest gap below the best first ({scale} scale)",
                         [("#", "right"), ("feature", "left"), ("value", "left"),
@@ -374,17 +462,43 @@ POINTS_HEADINGS = {"row": "value or range", "training_rows": "rows",
 
 
 def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
-                fidelity: Mapping[str, Any] | None = None) -> RenderableType:
+                fidelity: Mapping[str, Any] | None = None,
+                pairs: Sequence[Any] = ()) -> RenderableType:
     """What `glassbox points` prints: the scaling, the fidelity if measured, then the
     base points and each feature's rows of points, with each row's training rows, its
-    spread and the largest difference any value in it can have (points)."""
+    spread and the largest difference any value in it can have (points); then a grid of
+    points per pair (`pairs`: the card's `PairPoints`)."""
     parts: list[RenderableType] = [key_values(summary, title="Points card")]
     if fidelity is not None:
         parts.append(key_values(fidelity, title="Card against the exact score"))
     columns = ["row", "points", "contribution", "training_rows", "spread",
                "largest_difference"]
+    grids = {pair.name for pair in pairs}
     for feature, group in rows.groupby("feature", sort=False):
+        if feature in grids:
+            continue
         texts = frame_texts(group, columns, {"points": "count", "training_rows": "count"})
         parts.append(FittedTable.of_frame(texts, title=str(feature),
                                           headings=POINTS_HEADINGS))
+    parts += [pair_points_view(pair) for pair in pairs]
     return Group(*parts)
+
+
+def pair_points_view(pair: Any) -> FittedTable:
+    """A pair's grid of points: rows the first axis, columns the second; the largest
+    difference of its cells under it."""
+    grid = np.asarray(pair.points, dtype=float)
+    texts = np.asarray(number_texts(list(grid.ravel()), "count", signed=True),
+                       dtype=object).reshape(grid.shape)
+    frame = pd.DataFrame(texts, columns=pair.second.labels())
+    frame.insert(0, pair.first.feature, pair.first.labels())
+    notes = [f"Largest difference of a cell from the exact scaled value: "
+             f"{pair.largest_of_all():.3g} points."]
+    if pair.binned:
+        notes.append(f"{' and '.join(pair.binned)} read in bins between its knots (each bin: "
+                     "the mean of the table over it).")
+    if any(a.kind == "levels" for a in (pair.first, pair.second)):
+        notes.append("A level never seen in training: 0 points.")
+    return FittedTable.of_frame(frame, title=f"{pair.name} (points grid): rows "
+                                f"{pair.first.feature}, columns {pair.second.feature}",
+                                notes=notes)

@@ -162,6 +162,7 @@ def build_report(
         sections.append(_comparison_section(comparison, cutoff))
     sections.append(_importance_section(model))
     sections += _feature_sections(model)
+    sections += _pair_sections(model, prepared.features, source)
     sections.append(_reasons_section(model, frame, cutoff, unfavourable, source))
     group_tables = protected_outcomes(model, prepared.protected, ~unfavourable, prediction,
                                       min_group, bands)
@@ -309,6 +310,10 @@ def _comparison_section(comparison, cutoff: float) -> Section:
     if not curve.empty:
         blocks.append(Table(curve, caption="Sparse family by number of features: the "
                                            "feature that joins at each size"))
+    pairs = tables.pair_table(comparison)
+    if not pairs.empty:
+        blocks += [Table(pairs, caption="What each pair buys: accuracy by number of pairs"),
+                   Paragraph(tables.pair_note(comparison))]
     return Section("Accuracy against a black box", tuple(blocks))
 
 
@@ -345,7 +350,8 @@ def _direction_text(model: AdditiveModel, feature: str, observed: str) -> str:
 
 
 def _feature_sections(model: AdditiveModel) -> list[Section]:
-    summary = shapes.summary(model).set_index("feature")
+    summary = shapes.summary(model)
+    summary = summary[summary["kind"] != "pair"].set_index("feature")
     way = "worse" if model.schema.target.better == "lower" else "better"
     sections = [Section("Features one by one", (Paragraph(
         f"One picture and one table per feature, most important first. A positive "
@@ -369,6 +375,61 @@ def _feature_sections(model: AdditiveModel) -> list[Section]:
         )
         kind = summary.loc[feature, "term"]
         sections.append(Section(f"{feature} ({kind})", blocks, level=3))
+    return sections
+
+
+def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> list[Section]:
+    """A section per pairwise table, after the features: its heat map, its table (rows the
+    first feature's entries, columns the second's), each cell's share of the training rows
+    where the model file's baseline keeps them (`pair_shapes.baseline_shares`) and of the
+    report's data rows."""
+    from glassbox.explaining import pair_shapes
+
+    if not model.pairs:
+        return []
+    summary = shapes.summary(model)
+    names = list(summary.loc[summary["kind"] == "pair", "feature"])
+    sections = [Section("Pairs of features", (Paragraph(
+        "A pairwise table adds to the score for two features together, beyond what each "
+        "adds alone: a row's value is read in the cell of its two values. Each table has "
+        "mean zero along each of its axes over the training rows, so the features' own "
+        "shape functions keep their meaning. Colours run from the darkest blue (lowers the "
+        "score most) through white (adds nothing) to the darkest red (raises it most)."),))]
+    taken = [f"feature-{safe_file_name(f)}" for f in model.features] + ["overview"]
+    pictures = unique_names((f"pair-{safe_file_name(n)}" for n in names), taken=taken)
+    for name, picture in zip(names, pictures, strict=True):
+        pair = pair_shapes.find_pair(model, name)
+        grid = pair_shapes.heat_grid(model, name)
+        corner = f"{pair.first.feature} \\ {pair.second.feature}"
+        values = grid.reset_index().rename(columns={grid.index.name: corner})
+        shares = pair_shapes.share_grid(model, name, encoded)
+        share_table = shares.map(shapes.percent_text).reset_index().rename(
+            columns={shares.index.name: corner})
+        training = pair_shapes.training_share_grid(model, name)
+        training_blocks = () if training is None else (Table(
+            training.map(shapes.percent_text).reset_index().rename(
+                columns={training.index.name: corner}),
+            f"{name}: share of the training rows in each cell (from the development "
+            "baseline kept in the model file)"),)
+        importance = model.metadata.get("importance", {}).get(name)
+        words = ("importance not recorded" if importance is None
+                 else f"importance {importance:.3g} (mean absolute contribution over the "
+                      "training rows)")
+        knots = [a.feature for a in (pair.first, pair.second) if a.kind == "knots"]
+        read = (f" {' and '.join(knots)}: values at the knots, read on a straight line "
+                "between two knots and at the end knot beyond the ends." if knots else "")
+        blocks = (
+            Picture(picture, plots.pair_figure(model, name),
+                    f"Heat map of the pairwise table of {pair.first.feature} and "
+                    f"{pair.second.feature}"),
+            Paragraph(f"{pair.first.kind} × {pair.second.kind}; {words}.{read} Training "
+                      f"shares of cells: {pair_shapes.shares_words(model, pair)}."),
+            Table(values, f"{name}: what the pair adds to the score"),
+            *training_blocks,
+            Table(share_table, f"{name}: share of the rows of {Path(source).name} in each "
+                               "cell"),
+        )
+        sections.append(Section(f"{name} (pair)", blocks, level=3))
     return sections
 
 

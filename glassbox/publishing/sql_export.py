@@ -4,7 +4,9 @@ Every number and rule comes from `glassbox.publishing.export_tables` (the tables
 copies too); the SELECT computes what `ExportTable.read` computes, one CASE per feature:
 
     WITH inputs AS (...)        each raw column as its table reads it (number, label, days)
-    , terms AS (...)            one CASE per feature: its contribution (or points)
+    , terms AS (...)            one CASE per feature: its contribution (or points); one
+                                nested CASE per pair (outer on the first feature's entry,
+                                inner on the second feature, as its own table is read)
     , scores AS (...)           the intercept (base points) plus the terms, in model order
     [, gaps AS (...), ranks AS (...)]   with reasons: each term's gap below its best, ranked
     SELECT ...                  id, score, probability or prediction, contributions, reasons
@@ -27,7 +29,15 @@ from glassbox.core.files import SQL_MARK
 from glassbox.core.schema import Schema
 from glassbox.explaining.cards import PointsCard, card_to_dict
 from glassbox.explaining.reasons import NOTHING, Best, bests
-from glassbox.publishing.export_tables import ExportTable, card_tables, model_tables
+from glassbox.publishing.export_tables import (
+    AxisTable,
+    ExportTable,
+    PairExportTable,
+    card_pair_tables,
+    card_tables,
+    model_tables,
+    pair_tables,
+)
 
 # Scores above this give probability exactly 1.0 in doubles (exp(-40) < 2**-54, so
 # 1 + exp(-40) rounds to 1), as `glassbox score` gives; below LOWEST the probability is
@@ -43,14 +53,17 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
     """One SELECT scoring `table` as `glassbox score` does: the id column (the option, or
     the schema's; none when neither names one), `score`, `probability` (classification) or
     `prediction` (regression), with `contributions` each `contribution:FEATURE`, and with
-    `reasons` K > 0 the K terms furthest below their best (`feature_k`: the feature, the
-    reason code; `gap_k`), ranked as `glassbox reasons` ranks them."""
+    `reasons` K > 0 the K terms and pairs furthest below their best (`feature_k`: the
+    feature, or the pair's name "A & B", as the reason code; `gap_k`), ranked as
+    `glassbox reasons` ranks them (a pair's gap from its own best value, terms first on
+    ties)."""
     if reasons < 0:
         raise OptionError(f"--reasons takes a number of reasons, 0 or more, not {reasons}")
     tables = model_tables(model)
+    pairs = pair_tables(model)
     ident = _id_column(id_column or model.schema.id_column, tables)
     outcome = "probability" if model.link == "logit" else "prediction"
-    names = [t.feature for t in tables]
+    names = [t.feature for t in tables] + [p.name for p in pairs]
     scale = "log-odds" if model.link == "logit" else "prediction scale"
     head = _header(
         f"the {model.task} model {_model_checksum(model)}", model.schema, tables, ident,
@@ -58,14 +71,17 @@ def model_sql(model: AdditiveModel, *, table: str = "applications", id_column: s
          f"{outcome}: {_outcome_words(model.link)}",
          *(["contribution:FEATURE: what each feature adds to the score"] if contributions
            else []),
-         *([f"feature_1..{reasons}: the features (reason codes) holding the score furthest",
+         *([f"contribution:{p.name}: what the pair adds (its two-feature table)"
+            for p in pairs] if contributions else []),
+         *([f"feature_1..{reasons}: the features{' or pairs' if pairs else ''} (reason codes) "
+            "holding the score furthest",
             f"  below their best, first the furthest; gap_1..{reasons}: how far (score scale),",
             "  from the best within the central 98% of training values (as glassbox reasons);",
             f"  NULL where fewer features are more than {NOTHING!r} below their best"]
            if reasons else [])],
         _precision_words(model.link))
     parts = [_inputs_cte(tables, ident, table),
-             _terms_cte(tables, ident, "contribution", as_double=True),
+             _terms_cte(tables, ident, "contribution", as_double=True, pairs=pairs),
              _scores_cte(names, ident, "contribution", "score", _operand(model.intercept))]
     final = [*([_quote(ident)] if ident else []), '"score"',
              f"{_outcome_expression(model.link)} AS {_quote(outcome)}"]
@@ -91,23 +107,26 @@ def card_sql(card: PointsCard, *, table: str = "applications", id_column: str | 
         raise OptionError("--reasons ranks a model's terms: export the model file for reasons "
                           "(a points card has no reasons of its own)")
     tables = card_tables(card)
-    for found in tables:
+    pairs = card_pair_tables(card)
+    for found in (*tables, *(row for pair in pairs for row in pair.rows)):
         for value in (*found.values, found.unseen, found.missing):
             if value is not None and not float(value).is_integer():
                 raise OptionError(f"the card's points for '{found.feature}' are not whole "
                                   f"numbers ({value!r}); the card file is damaged")
     ident = _id_column(id_column or card.schema.id_column, tables)
-    names = [t.feature for t in tables]
+    names = [t.feature for t in tables] + [p.name for p in pairs]
     card_sum = checksum(card_to_dict(card))
     head = _header(
         f"the points card {card_sum} (of the model {card.model_checksum or 'not recorded'})",
         card.schema, tables, ident,
         ["total_points: base_points plus each feature's points (whole numbers)",
          f"base_points: {card.base_points} on every row",
-         *(["points:FEATURE: each feature's points"] if contributions else [])],
+         *(["points:FEATURE: each feature's points"] if contributions else []),
+         *([f"points:{p.name}: the pair's points (its grid's cell)" for p in pairs]
+           if contributions else [])],
         ["Points are whole numbers added exactly, as `glassbox score --points` adds them."])
     parts = [_inputs_cte(tables, ident, table),
-             _terms_cte(tables, ident, "points", as_double=False),
+             _terms_cte(tables, ident, "points", as_double=False, pairs=pairs),
              _scores_cte(names, ident, "points", "total_points", str(card.base_points))]
     final = [*([_quote(ident)] if ident else []), '"total_points"',
              f'{card.base_points} AS "base_points"']
@@ -314,14 +333,87 @@ def _days_before(text: str, reference: str) -> str:
 
 
 def _terms_cte(tables: Sequence[ExportTable], ident: str | None, prefix: str,
-               as_double: bool) -> str:
+               as_double: bool, pairs: Sequence[PairExportTable] = ()) -> str:
     columns = [_quote(ident)] if ident else []
     for found in tables:
         case = _case(found, as_double)
         if as_double:
             case = f"CAST({case} AS DOUBLE PRECISION)"
         columns.append(f"{case} AS {_quote(f'{prefix}:{found.feature}')}")
+    for pair in pairs:
+        case = _pair_case(pair, as_double)
+        if as_double:
+            case = f"CAST({case} AS DOUBLE PRECISION)"
+        columns.append(f"{case} AS {_quote(f'{prefix}:{pair.name}')}")
     return _cte("terms", columns, "inputs")
+
+
+def _pair_case(pair: PairExportTable, as_double: bool = True) -> str:
+    """A pair as a nested CASE: the outer CASE reads the first feature's entry (or two
+    entries and their weights between knots); each entry's result is a CASE on the second
+    feature, that entry's row of the table read as the feature's own table is read."""
+    step = INDENT * 3
+    whens = []
+    for condition, weights in _axis_branches(pair.first):
+        if weights is None:
+            result = "NULL"
+        else:
+            if not as_double and any(weight != "1" for _, weight in weights):
+                raise OptionError(f"the points grid of '{pair.name}' reads between two "
+                                  "entries; the card file is damaged")
+            added = [_case(pair.rows[j], as_double) if weight == "1" else
+                     f"{weight} * {_case(pair.rows[j], True)}" for j, weight in weights]
+            result = (f"\n{step}+ ".join(added) if added
+                      else _number(0.0) if as_double else "0")
+        whens.append(f"{'ELSE' if condition is None else f'WHEN {condition} THEN'} {result}")
+    first = pair.first
+    title = (f"pair {pair.name}: by {first.feature} ({first.axis.kind}), then "
+             f"{pair.second} as its own table reads it")
+    return f"CASE  -- {title}\n{step}" + f"\n{step}".join(whens) + f"\n{INDENT * 2}END"
+
+
+def _weights(weights: Sequence[float] | None) -> list[tuple[int, str]] | None:
+    """Fixed weights per entry as SQL factors, entries weighing nothing left out."""
+    if weights is None:
+        return None
+    return [(j, "1" if w == 1.0 else _operand(w)) for j, w in enumerate(weights) if w != 0.0]
+
+
+def _axis_branches(axis: AxisTable) -> list[tuple[str | None, list[tuple[int, str]] | None]]:
+    """The outer CASE's branches: (condition, None for ELSE), with the entries and their
+    weights (SQL factors), or None where the row is refused (NULL)."""
+    x, rule = _quote(axis.feature), axis.rule
+    if axis.shape == "levels":
+        codes = {code.lower() if rule.lowercase else code for code in rule.missing_codes}
+        blank = " OR ".join([f"{x} IS NULL", f"{x} = ''",
+                             *([f"{x} IN ({', '.join(_text(c) for c in sorted(codes))})"]
+                               if codes else [])])
+        branches = [(blank, _weights(axis.missing))]
+        branches += [(f"{x} = {_text(label)}", _weights(weights))
+                     for label, weights in zip(axis.levels, axis.label_weights, strict=True)]
+        return [*branches, (None, _weights(axis.unseen))]
+    branches: list = []
+    if rule.days_before is not None:
+        branches.append((f"{_quote('not a date:' + axis.feature)} = 1", None))
+    blank = f"{x} IS NULL"
+    if rule.missing_codes:
+        blank += f" OR {x} IN ({', '.join(_number(c) for c in rule.missing_codes)})"
+    branches.append((blank, _weights(axis.missing)))
+    refused = f"NOT (ABS({x}) <= {_number(LARGEST)})"
+    if rule.kind == "integer":
+        refused += f" OR {x} <> FLOOR({x})"
+    branches.append((refused, None))
+    points = axis.points
+    if axis.shape == "steps":
+        branches += [(f"{x} <= {_number(edge)}", [(i, "1")]) for i, edge in enumerate(points)]
+        return [*branches, (None, [(len(points), "1")])]
+    branches.append((f"{x} <= {_number(points[0])}", [(0, "1")]))
+    for i in range(len(points) - 1):
+        share = (f"(({x} - {_operand(points[i])}) / "
+                 f"{_operand(points[i + 1] - points[i])})")
+        branches.append((f"{x} < {_number(points[i + 1])}",
+                         [(i, f"(1.0e0 - {share})"), (i + 1, share)]))
+    return [*branches, (None, [(len(points) - 1, "1")])]
 
 
 def _case(found: ExportTable, as_double: bool) -> str:

@@ -31,6 +31,8 @@ Rules this module follows:
   centred on the training rows, then averaged; `lower` and `upper` hold the
   pointwise minimum and maximum over the seeds: the spread across seeds, not a
   confidence interval. Without early stopping the seeds give the same model.
+- With `pairs` = K > 0 the main effects are fitted first, then boosting continues with
+  trees restricted to the K best-ranked pairs: see `boosted_pairs` for its rules.
 - scikit-learn fits with `threads` OpenMP threads, 1 by default: credit-sized data
   gains little from more, and on a busy machine two threads can be many times
   slower than one. The fitted trees do not depend on the thread count.
@@ -54,6 +56,15 @@ from glassbox.core.errors import OptionError
 from glassbox.core.schema import MISSING_LEVEL, Schema
 from glassbox.core.wording import noun
 from glassbox.fitting.families.base import FamilyFit
+from glassbox.fitting.families.boosted_pairs import (
+    check_pairs,
+    choose_pairs,
+    compile_pairs,
+    constraint_groups,
+    fresh_stopping,
+    pair_details,
+    tree_features,
+)
 
 NAME = "boosted"
 DEFAULTS: dict[str, Any] = {
@@ -68,6 +79,7 @@ DEFAULTS: dict[str, Any] = {
     "validation_fraction": 0.1,
     "n_iter_no_change": 20,
     "threads": 1,
+    "pairs": 0,
 }
 MAX_BINS = 255  # scikit-learn's largest max_bins, and so the most levels a category may have
 STOPPING_TOLERANCE = 1e-7  # scikit-learn's default tol
@@ -97,6 +109,11 @@ class BoostedEstimators:
     levels: dict[str, tuple[str, ...]]
     # per seed, the numeric columns with a missing value in the rows scikit-learn learned from
     learned_missing: tuple[frozenset[str], ...] = ()
+    # with pairs (one seed): stage-1 iterations, the chosen pairs (positions in `columns`)
+    # and the whole ranking
+    main_iterations: tuple[int, ...] = ()
+    pairs: tuple[tuple[int, int], ...] = ()
+    ranking: tuple[Any, ...] = ()
 
     def matrix(self, features: pd.DataFrame) -> np.ndarray:
         """The numeric matrix scikit-learn sees: level codes for categories.
@@ -162,6 +179,7 @@ def check_options(options: dict[str, Any]) -> dict[str, Any]:
         "min_samples_leaf": _whole("min_samples_leaf", settings["min_samples_leaf"], 1),
         "n_iter_no_change": _whole("n_iter_no_change", settings["n_iter_no_change"], 1),
         "threads": _whole("threads", settings["threads"], 1),
+        "pairs": _whole("pairs", settings["pairs"], 0),
     }
     if checked["seed"] + checked["ensemble"] > 2**32:
         raise OptionError("boosted option seed plus ensemble must stay below 2**32")
@@ -180,6 +198,7 @@ def check_options(options: dict[str, Any]) -> dict[str, Any]:
                           f"{settings['early_stopping']!r}")
     checked.update(learning_rate=rate, l2_regularization=l2, validation_fraction=fraction,
                    early_stopping=bool(settings["early_stopping"]))
+    check_pairs(checked)
     return {name: checked[name] for name in DEFAULTS}
 
 
@@ -229,15 +248,7 @@ def fit_estimators(
     estimators = []
     for seed in seeds:
         estimator = model_type(**common, random_state=seed)
-        try:
-            with threadpool_limits(limits=settings["threads"], user_api="openmp"):
-                estimator.fit(matrix, target)
-        except ValueError as exc:  # e.g. a validation part too small to stratify
-            hint = (f"; early stopping sets aside validation_fraction "
-                    f"{settings['validation_fraction']} of {len(target)} rows: raise it or "
-                    "set early_stopping to false" if settings["early_stopping"] else "")
-            raise OptionError(f"boosted: scikit-learn could not fit with these settings "
-                              f"(seed {seed}): {exc}{hint}") from None
+        _fit_one(estimator, matrix, target, settings, seed)
         if levels and not np.array_equal(estimator._is_categorical_remapped,
                                          [name in levels for name in columns]):
             raise RuntimeError("scikit-learn reordered the columns unexpectedly; the trees "
@@ -247,7 +258,34 @@ def fit_estimators(
         frozenset(name for name, gaps in zip(columns, np.isnan(
             learning_rows(e, matrix, target)).any(axis=0), strict=True) if gaps)
         for e in estimators)
-    return BoostedEstimators(tuple(estimators), seeds, tuple(columns), levels, learned)
+    if not settings["pairs"]:
+        return BoostedEstimators(tuple(estimators), seeds, tuple(columns), levels, learned)
+    # the pair stage (one seed: check_pairs refuses an ensemble): same model, warm started
+    estimator = estimators[0]
+    main = int(estimator.n_iter_)
+    ranking, chosen = choose_pairs(estimator, matrix, features, target, schema,
+                                   tuple(columns), task, settings["pairs"])
+    if chosen:
+        estimator.set_params(warm_start=True, max_iter=main + settings["max_iter"],
+                             interaction_cst=constraint_groups(chosen, len(columns)))
+        fresh_stopping(estimator)
+        _fit_one(estimator, matrix, target, settings, seeds[0])
+        estimator.set_params(warm_start=False)
+    return BoostedEstimators(tuple(estimators), seeds, tuple(columns), levels, learned,
+                             (main,), chosen, ranking)
+
+
+def _fit_one(estimator: Estimator, matrix: np.ndarray, target: np.ndarray,
+             settings: dict[str, Any], seed: int) -> None:
+    try:
+        with threadpool_limits(limits=settings["threads"], user_api="openmp"):
+            estimator.fit(matrix, target)
+    except ValueError as exc:  # e.g. a validation part too small to stratify
+        hint = (f"; early stopping sets aside validation_fraction "
+                f"{settings['validation_fraction']} of {len(target)} rows: raise it or "
+                "set early_stopping to false" if settings["early_stopping"] else "")
+        raise OptionError(f"boosted: scikit-learn could not fit with these settings "
+                          f"(seed {seed}): {exc}{hint}") from None
 
 
 def learning_rows(estimator: Estimator, matrix: np.ndarray, target: np.ndarray) -> np.ndarray:
@@ -308,17 +346,26 @@ def _walk(predictor: Any, points: np.ndarray, unseen: np.ndarray | None) -> np.n
         at = np.where(leaf, at, step)
 
 
-def _trees_by_feature(estimator: Estimator) -> tuple[float, dict[int, list[Any]], int]:
-    """Baseline plus single-leaf trees, the trees of each feature, and the tree count.
+def _trees_by_feature(estimator: Estimator, pair_stage: int | None = None,
+                      inside: frozenset[int] = frozenset(),
+                      ) -> tuple[float, dict[int, list[Any]], int]:
+    """Baseline plus single-leaf trees, the trees of each feature, and the tree count
+    (without the trees of the pair tables).
 
     Leaf values already include the learning rate (scikit-learn shrinks them once a
-    tree is grown), so a score is the baseline plus the sum of one leaf per tree.
+    tree is grown), so a score is the baseline plus the sum of one leaf per tree. Trees
+    from iteration `pair_stage` on that split on features of the pairs (`inside`) belong
+    to the pair tables (`boosted_pairs.compile_pairs`) and are left out here.
     """
     constant = float(np.ravel(estimator._baseline_prediction)[0])
     by_feature: dict[int, list[Any]] = {}
     count = 0
-    for iteration in estimator._predictors:
+    for number, iteration in enumerate(estimator._predictors):
         for predictor in iteration:
+            if pair_stage is not None and number >= pair_stage:
+                used = tree_features(predictor.nodes)
+                if used and used <= inside:
+                    continue
             count += 1
             feature = _tree_feature(predictor.nodes)
             if feature is None:
@@ -360,7 +407,9 @@ def compile_estimators(
     fitted: BoostedEstimators, features: pd.DataFrame
 ) -> tuple[float, tuple[Term, ...], dict[str, Any]]:
     """The intercept and one term per split feature, averaged over seeds."""
-    compiled = [_trees_by_feature(e) for e in fitted.estimators]
+    stage = fitted.main_iterations[0] if fitted.pairs else None
+    inside = frozenset(i for pair in fitted.pairs for i in pair)
+    compiled = [_trees_by_feature(e, stage, inside) for e in fitted.estimators]
     position = {name: i for i, name in enumerate(features.columns)}
     split = sorted({f for _, by_feature, _ in compiled for f in by_feature},
                    key=lambda f: position[fitted.columns[f]])  # terms in frame order
@@ -436,9 +485,13 @@ def fit(
     settings = check_options(options)
     fitted = fit_estimators(features, target, schema, task=task, **settings)
     intercept, terms, details = compile_estimators(fitted, features)
+    pairs: tuple[Any, ...] = ()
+    if settings["pairs"]:
+        pairs, counts = compile_pairs(fitted, features)
+        details.update(pair_details(fitted, pairs, counts, settings["pairs"]))
     parameters = {
         **settings, "max_bins": MAX_BINS, "stopping_tolerance": STOPPING_TOLERANCE,
         "loss": "log_loss" if task == "classification" else "squared_error",
-        "one_feature_per_tree": True,
+        "one_feature_per_tree": not settings["pairs"],
     }
-    return FamilyFit(intercept, terms, parameters, details)
+    return FamilyFit(intercept, terms, parameters, details, pairs)

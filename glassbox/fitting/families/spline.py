@@ -57,6 +57,10 @@ class, or missing on exactly the rows of another feature (see `unidentified`); t
 fit summary lists those features. A missing
 category arrives as the level "(missing)" (see `fit_model`) and is fitted as a level.
 
+Pairs. With `pairs` K > 0 the K best-ranked pairs of features are then fitted as
+tensor-product terms, the mains held fixed (spline_pairs; `details["pairs"]`); with 0, the
+default, nothing of that stage runs and the model is as without the option.
+
 Errors and fallbacks. A feature with a single distinct value is a `DataError`.
 A numeric feature with fewer distinct values than `splines` gets one basis
 function per value (at least four); a monotone two-valued feature gets a
@@ -83,6 +87,7 @@ from glassbox.core.wording import plural, verb
 from glassbox.fitting.families.base import FamilyFit
 from glassbox.fitting.families.spline_bins import bin_terms, extent_matrix
 from glassbox.fitting.families.spline_iterate import Fitted, fit_binned
+from glassbox.fitting.families.spline_pairs import fit_pairs
 from glassbox.fitting.families.spline_penalty import build_problem
 from glassbox.fitting.families.spline_scale import SCALES, Scale, fit_scale
 from glassbox.fitting.families.spline_tables import Curves, binning_error, compile_terms
@@ -97,6 +102,7 @@ DEFAULTS: dict[str, Any] = {
     "spline_scale": "power",
     "penalty_scope": "term",
     "bins": 1024,
+    "pairs": 0,
 }
 CRITERIA = ("risk", "aic")
 SCOPES = ("term", "shared")
@@ -326,10 +332,14 @@ def fit(
     splines: int = 20, penalties: Sequence[float] = DEFAULTS["penalties"],
     criterion: str = "risk", max_iter: int = 100, knots: int = 400,
     spline_scale: str = "power", penalty_scope: str = "term", bins: int = 1024,
+    pairs: int = 0,
 ) -> FamilyFit:
-    """Fit the penalised-spline family and compile it into term tables."""
+    """Fit the penalised-spline family and compile it into term tables; with `pairs` K > 0,
+    then the K best-ranked pairs as tensor-product tables (spline_pairs)."""
     grid = check_options(splines, penalties, criterion, max_iter, knots, spline_scale,
                          penalty_scope, bins)
+    if isinstance(pairs, bool) or not isinstance(pairs, int | np.integer) or pairs < 0:
+        raise OptionError(f"pairs must be a whole number, 0 or more, not {pairs!r}")
     target = np.asarray(target, dtype=float)
     classify = task == "classification"
     plans, matrix, fallbacks = plan_terms(features, schema, splines, spline_scale)
@@ -399,4 +409,12 @@ def fit(
     parameters = {"splines": splines, "penalties": list(grid), "criterion": criterion,
                   "max_iter": max_iter, "knots": knots, "spline_scale": spline_scale,
                   "penalty_scope": penalty_scope, "bins": bins}
-    return FamilyFit(intercept, tuple(tables), parameters, details)
+    if not pairs:
+        return FamilyFit(intercept, tuple(tables), parameters, details)
+    with threadpool_limits(limits=1, user_api="blas"):
+        stage = fit_pairs(features, target, schema, plans, matrix, fitted.scores, count=pairs,
+                          grid=grid, criterion=criterion, max_iter=max_iter,
+                          per_term=penalty_scope == "term", bins=bins, classify=classify)
+    parameters["pairs"] = pairs
+    return FamilyFit(intercept + stage.intercept, tuple(tables), parameters,
+                     details | stage.details, stage.pairs)

@@ -120,8 +120,10 @@ def start_coef(problem: Problem, target: np.ndarray) -> np.ndarray:
 
 
 def fit_binned(problem: Problem, binned: Binned, target: np.ndarray, grid: Sequence[float],
-               *, criterion: str, max_iter: int, per_term: bool) -> Fitted:
-    """The performance iteration; see the module."""
+               *, criterion: str, max_iter: int, per_term: bool,
+               begin: np.ndarray | None = None) -> Fitted:
+    """The performance iteration; see the module. `begin`: the first coefficients (by
+    default every one 0 but the intercept, at the target's mean)."""
     classify = problem.classify
     trace = Trace(steps=0, searches=1, moves=[0.0])
 
@@ -133,7 +135,7 @@ def fit_binned(problem: Problem, binned: Binned, target: np.ndarray, grid: Seque
         return converge(problem, binned, target, grid, positions, step, trace, criterion,
                         max_iter)
 
-    coef = start_coef(problem, target)
+    coef = start_coef(problem, target) if begin is None else np.asarray(begin, dtype=float)
     if not classify:
         work = working(binned, target, coef, classify)
         found = searched(work)
