@@ -11,7 +11,7 @@ import pandas as pd
 from glassbox.core.additive import AdditiveModel
 from recourse.batch_plans import BLOCK, batch_covers, plan_batch
 from recourse.candidates import OUTSIDE
-from recourse.choices import MOST_JOBS
+from recourse.choices import HANDED_WORDS, MOST_JOBS
 from recourse.errors import MutabilityError, PlanningError
 from recourse.mutability import Mutability
 from recourse.planner import PlanResult, check_plan_count, plan_encoded, total_scores
@@ -60,7 +60,7 @@ def plan_typed_rows(model: AdditiveModel, encoded: pd.DataFrame, parts: pd.DataF
                               mutability.goal.target, mutability.goal.direction,
                               row_id=ids[i], message=str(exc))
 
-    if solver == "exact" and batch_covers(mutability, n_plans):
+    if solver == "exact" and batch_covers(mutability, n_plans) and not model.pairs:
         return plan_batch(model, encoded, parts, ids, mutability, n_plans, one_row)
     return [one_row(i) for i in range(len(encoded))]
 
@@ -142,7 +142,8 @@ def _describe(change, model: AdditiveModel) -> str:
 
 
 def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
-    """One row per plan (and one per row without a plan)."""
+    """One row per plan (and one per row without a plan). `pairs`: the model's pairwise
+    terms the plan moves, each as 'a & b: before -> after' on the model's scale."""
     rows: list[dict[str, Any]] = []
     for result in results:
         base = {"id": result.row_id, "status": result.status, "score": result.score,
@@ -157,15 +158,17 @@ def plans_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame
                          "total_cost": plan.total_cost, "new_score": plan.score,
                          "new_outcome": plan.outcome, "best_outcome": None,
                          "tail_warnings": "; ".join(c.tail.text() for c in plan.changes
-                                                    if c.tail is not None)})
+                                                    if c.tail is not None),
+                         "pairs": "; ".join(f"{name}: {before:.6g} -> {after:.6g}"
+                                            for name, before, after in plan.pairs)})
     return pd.DataFrame(rows, columns=["id", "status", "score", "outcome", "plan", "changes",
                                        "total_cost", "new_score", "new_outcome",
-                                       "best_outcome", "tail_warnings"])
+                                       "best_outcome", "tail_warnings", "pairs"])
 
 
 OUTCOME_COLUMNS = ("id", "status", "score", "outcome", "plans", "total_cost", "largest_cost",
                    "changes", "main_change", "new_outcome", "best_outcome", "binding_rule",
-                   "message", "tail_warnings")
+                   "message", "tail_warnings", "handed_off")
 
 
 def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFrame:
@@ -191,6 +194,7 @@ def outcome_frame(results: list[PlanResult], model: AdditiveModel) -> pd.DataFra
             "binding_rule": result.binding_rules[0] if result.binding_rules else "",
             "message": result.message,
             "tail_warnings": best.tail_warnings if best else 0,
+            "handed_off": result.handed_off,
         })
     return pd.DataFrame(rows, columns=list(OUTCOME_COLUMNS))
 
@@ -209,6 +213,9 @@ def summary_frame(results: list[PlanResult]) -> pd.DataFrame:
             {"measure": OUTSIDE, "value": float(outside)},
             {"measure": TAIL_WORDS,
              "value": float(sum(r.plans[0].tail_warnings > 0 for r in with_plan))}]
+    handed = sum(bool(r.handed_off) for r in results)
+    if handed:  # slower, still exact: said, not silent (shown only when it happened)
+        rows.append({"measure": HANDED_WORDS, "value": float(handed)})
     if len(costs):
         for label, q in (("cheapest plan cost, 10%", 10), ("median", 50), ("90%", 90)):
             rows.append({"measure": label, "value": float(np.percentile(costs, q))})

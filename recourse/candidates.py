@@ -36,12 +36,21 @@ import pandas as pd
 
 from glassbox.core.additive import AdditiveModel, CurveTerm, LevelsTerm, StepTerm
 from recourse.errors import MutabilityError, OutsideError
-from recourse.grid import LARGEST_STEP_COUNT, _bisect, _first_past, _points, rounded
+from recourse.grid import (
+    LARGEST_STEP_COUNT,
+    MOST_VALUES,
+    _bisect,
+    _distinct,
+    _first_past,
+    _nearest_allowed,
+    _points,
+    rounded,
+)
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
 from recourse.pair_rules import row_rules, tight_values
+from recourse.pair_terms import curve_grid, joint_loss, reduced, row_pairs
 from recourse.program import best_changes
 
-MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
 LISTED_STEPS = 4096  # a side of the grid this short is read point by point, not run by run
 NEED_SLACK = 1e-9  # relative: changes are kept a hair past the gap, so rounding never cuts one
 # A row's value beyond this many steps from zero is "outside what the model can plan for":
@@ -91,7 +100,8 @@ class FeatureCandidates(Sequence[Candidate]):
 def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
                        rule: FeatureRule, direction: str = "at-least",
                        need: float = math.inf, every: bool = False,
-                       extra: np.ndarray | None = None) -> FeatureCandidates:
+                       extra: np.ndarray | None = None,
+                       keep_all: bool = False) -> FeatureCandidates:
     """The current value (first, cost 0) and the values the rule lets the feature reach that
     can be in a cheapest plan for a goal in `direction` ("at-least" raises the score).
 
@@ -99,15 +109,19 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     cheapest one that gains it is kept. Values keep the order of the table (numbers ascending).
     `every`: keep every value the rules allow (a feature paired with another by a rule),
     with `extra` values a number with no step may move to as well.
+    `keep_all`: list what the table tells apart (one value per bin, the knots and bounds, on
+    a step grid every point up to the first past the outermost knot) and drop nothing: a
+    feature a pairwise term reads with another movable one (recourse.pair_terms filters
+    them).
     """
     toward = 1.0 if direction == "at-least" else -1.0
     reach = need + NEED_SLACK * (1.0 + abs(need)) if math.isfinite(need) else math.inf
     term = model.term(feature)
     extra = np.empty(0) if extra is None else np.asarray(extra, dtype=float)
-    if every:  # nothing is dropped: every value is listed with its cost
+    if every or keep_all:  # nothing is dropped: every value is listed with its cost
         reach, toward = math.inf, 0.0
     if is_missing(current):
-        return _supply_candidates(model, term, rule, toward, reach, extra)
+        return _supply_candidates(model, term, rule, toward, reach, extra, every)
     if rule.change == "fixed":  # a rule kept for its supply_cost: a value present stays
         here = np.array([current], dtype=object if isinstance(term, LevelsTerm) else float)
         return FeatureCandidates(here, term.evaluate(here), np.zeros(1), 0)
@@ -133,6 +147,9 @@ def feature_candidates(model: AdditiveModel, feature: str, current: float | str,
     elif step is None:
         values = _knot_values(term, now, lower, upper)
         weighed = len(values)
+    elif keep_all:
+        values = curve_grid(term, now, lower, upper, step)
+        weighed = len(values)
     else:
         values, weighed = _grid_values(term, now, lower, upper, step, toward, reach)
     everything = np.concatenate([[now], values])
@@ -156,18 +173,25 @@ def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutabili
                        need: float = math.inf) -> dict[str, FeatureCandidates]:
     """The same, from a row already typed by `AdditiveModel.encode` (feature -> value).
 
+    Pairwise terms of the model: one whose other feature stays in this row is folded into
+    the moving feature's table; the features of one whose two features may both move keep
+    what `recourse.pair_terms.reduced` keeps, and the others' cut at the gap is raised by
+    the most those features and tables can lose (recourse.pair_terms).
+
     Rules between two features: one-sided ones are folded into this row's feature rules;
     the features they pair keep every value (listed first, then with the values that meet a
     rule exactly against the other side's), and the others' cut at the gap is raised by the
     most the paired features can lose (see the module's docstring)."""
     rules, paired = row_rules(model, mutability, values)
     direction = mutability.goal.direction
+    pairs = row_pairs(model, rules, values)  # the model's pairwise terms (recourse.pair_terms)
+    model = pairs.model
 
     def build(feature: str, reach: float, every: bool = False,
-              extra: np.ndarray | None = None) -> FeatureCandidates:
+              extra: np.ndarray | None = None, keep_all: bool = False) -> FeatureCandidates:
         try:
             return feature_candidates(model, feature, values[feature], rules[feature],
-                                      direction, reach, every, extra)
+                                      direction, reach, every, extra, keep_all)
         except MutabilityError as exc:
             if not mutability.source:
                 raise
@@ -179,9 +203,14 @@ def encoded_candidates(model: AdditiveModel, values: Mapping[str, Any], mutabili
                                                    if f != feature})
         if len(extra):
             listed[feature] = build(feature, math.inf, every=True, extra=extra)
+    for feature in sorted(pairs.joint_features - set(listed), key=model.features.index):
+        found = build(feature, math.inf, keep_all=True)
+        kept = reduced(found, feature, pairs.joint, values, direction, need)
+        listed[feature] = FeatureCandidates(found.values[kept], found.contributions[kept],
+                                            found.costs[kept], found.weighed)
     toward = 1.0 if direction == "at-least" else -1.0
     loss = sum(max(0.0, -float(np.min(toward * (c.contributions - c.contributions[0]))))
-               for c in listed.values())
+               for c in listed.values()) + joint_loss(listed, pairs.joint, values, direction)
     return {feature: listed[feature] if feature in listed else build(feature, need + loss)
             for feature in model.features if feature in rules}
 
@@ -273,20 +302,6 @@ def _interval(now: float | np.ndarray, rule: FeatureRule, kind: str) -> tuple[An
         return float(lower), float(upper)
     return (np.broadcast_to(lower, np.shape(now)).astype(float),
             np.broadcast_to(upper, np.shape(now)).astype(float))
-
-
-def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: float,
-                     upper: float) -> int:
-    """The least k >= 1 whose grid point on `side` lies within [lower, upper] as far as its
-    near end goes: 1 when `now` is within it, else the first point on or past the bound."""
-    near = lower if side > 0 else upper
-    if not side * (near - now) > 0:
-        return 1
-    first = int(_first_past(now, step, side, np.array([near]), True)[0])
-    if first > LARGEST_STEP_COUNT:
-        raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the bound "
-                              f"{near:g}: more than {LARGEST_STEP_COUNT:,} steps away")
-    return first
 
 
 def _step_values(term: StepTerm, now: float, lower: float, upper: float,
@@ -407,12 +422,6 @@ def _every_value(term: Any, now: float, lower: float, upper: float, step: float 
     return values[(values >= lower) & (values <= upper)]
 
 
-def _distinct(values: np.ndarray) -> np.ndarray:
-    """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
-    values = np.sort(values)
-    return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values
-
-
 def _records(gain: Callable[[np.ndarray], np.ndarray], starts: np.ndarray, last: int,
              reach: float, feature: str) -> np.ndarray:
     """Steps (1..last) on one side that gain more than every nearer step and than staying put,
@@ -461,14 +470,17 @@ def is_missing(value: Any) -> bool:
 
 
 def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, toward: float,
-                       reach: float, extra: np.ndarray) -> FeatureCandidates:
+                       reach: float, extra: np.ndarray, every: bool) -> FeatureCandidates:
     """A row with no value: that (at its missing-value entry, cost 0) first, then, when the
     rule has `supply_cost`, the values that may be stated, each at that one cost. With one
     cost for all, the dominance rule keeps the value (the first, on ties) that moves the
     score furthest toward the goal. A plan never makes a value missing: only this path has
-    a missing candidate, and only as the row's own value. With `toward` 0 (a feature paired
-    by a rule) every value that may be stated is kept: on a step grid every multiple of the
-    step within the bounds, else these and `extra`."""
+    a missing candidate, and only as the row's own value. With `toward` 0 nothing is
+    dropped; with `every` too (a feature paired by a rule) every value that may be stated is
+    listed: on a step grid every multiple of the step within the bounds, else these and
+    `extra`. (A pairwise term needs no more than the listed values: with one cost for
+    every stated value, the best one given the other features is where the tables are
+    best, at a break or an end, and a pair's breaks are among its main term's.)"""
     if isinstance(term, LevelsTerm):
         if rule.supplies and rule.moves is not None:
             allowed = set(rule.moves.get(ANY_LEVEL, ()))
@@ -481,7 +493,7 @@ def _supply_candidates(model: AdditiveModel, term: Any, rule: FeatureRule, towar
         breaks = term.knots if isinstance(term, CurveTerm) else term.edges
         values = (supply_values(breaks, lower, upper, step, term.feature) if rule.supplies
                   else np.empty(0))
-        if rule.supplies and toward == 0.0 and lower <= upper:
+        if rule.supplies and every and lower <= upper:
             values = (_distinct(np.r_[values, extra[(extra >= lower) & (extra <= upper)]])
                       if step is None else _every_value(term, 0.0, lower, upper, step, extra,
                                                         keep_now=True))

@@ -7,6 +7,8 @@ from __future__ import annotations
 SOLVERS = ("highs", "cbc", "exact")  # exact: recourse.solver, built for this program's shape
 DEFAULT_SOLVER = "exact"  # recourse.solver; many rows: recourse.batch_plans (bench/RESULTS.md)
 ENGINES = ("local", "dask")  # where a population's partitions run (recourse.scale)
+# rows the fast exact solver handed to the general integer program (exact, slower)
+HANDED_WORDS = "planned by the integer program instead of the fast solver"
 MOST_PLANS = 100  # distinct plans per row: more asks for a search with no useful end
 MOST_JOBS = 256  # processes side by side: more than this only thrash a machine
 # groups with fewer declined rows are shown, not flagged: glassbox.explaining.groups.MIN_GROUP

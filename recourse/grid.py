@@ -14,7 +14,10 @@ from typing import Any
 
 import numpy as np
 
+from recourse.errors import MutabilityError
+
 DECIMALS = 12  # grid values are rounded to drop float noise (0.1 + 0.2 -> 0.3)
+MOST_VALUES = 1_000_000  # a feature with more undominated values than this is refused
 LARGEST_STEP_COUNT = 2**52  # beyond this many steps, grid points are no longer distinct floats
 WHOLE = 2.0**52  # floats this large are whole numbers
 # Above this, a float's spacing exceeds 10**-DECIMALS: rounding to DECIMALS drops no noise,
@@ -86,3 +89,23 @@ def _bisect(passes: Callable[[np.ndarray], np.ndarray], low: np.ndarray,
         high = np.where(open_ & ok, middle, high)
         low = np.where(open_ & ~ok, middle, low)
     return high
+
+
+def _nearest_allowed(feature: str, now: float, step: float, side: int, lower: float,
+                     upper: float) -> int:
+    """The least k >= 1 whose grid point on `side` lies within [lower, upper] as far as its
+    near end goes: 1 when `now` is within it, else the first point on or past the bound."""
+    near = lower if side > 0 else upper
+    if not side * (near - now) > 0:
+        return 1
+    first = int(_first_past(now, step, side, np.array([near]), True)[0])
+    if first > LARGEST_STEP_COUNT:
+        raise MutabilityError(f"[feature.{feature}] step {step:g} is too fine for the bound "
+                              f"{near:g}: more than {LARGEST_STEP_COUNT:,} steps away")
+    return first
+
+
+def _distinct(values: np.ndarray) -> np.ndarray:
+    """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
+    values = np.sort(values)
+    return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values

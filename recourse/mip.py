@@ -54,10 +54,12 @@ def _pulp_solver(solver: str, preprocess: bool = False) -> pulp.LpSolver:
 
 def pulp_run(program: Program, layout: _Rows, solver: str) -> tuple[int, ...] | None:
     problem = pulp.LpProblem("recourse", pulp.LpMinimize)
-    binaries = sum(len(kept) for kept in layout.kept)
+    binaries = layout.binaries
     x = [problem.add_variable(f"x{i:05d}", 0, 1, pulp.LpBinary) for i in range(binaries)]
-    if len(layout.objective) > binaries:  # largest-cost: t, continuous
-        x.append(problem.add_variable("t", 0, None, pulp.LpContinuous))
+    # after the binaries: t (largest-cost) and the pairwise tables' cells, continuous
+    x += [problem.add_variable("t" if i == 0 and program.objective == "largest-cost"
+                               else f"z{i:05d}", 0, None, pulp.LpContinuous)
+          for i in range(len(layout.objective) - binaries)]
     problem.setObjective(pulp.LpAffineExpression(
         [(x[i], float(c)) for i, c in enumerate(layout.objective) if c != 0]))
     senses = {"=": pulp.LpConstraintEQ, ">=": pulp.LpConstraintGE, "<=": pulp.LpConstraintLE}
@@ -98,8 +100,7 @@ def scipy_run(program: Program, layout: _Rows) -> tuple[int, ...] | None:
         lower[k] = rhs if sense in ("=", ">=") else -np.inf
         upper[k] = rhs if sense in ("=", "<=") else np.inf
     integrality, high = np.ones(size), np.ones(size)
-    if program.objective == "largest-cost":
-        integrality[-1], high[-1] = 0, np.inf
+    integrality[layout.binaries:], high[layout.binaries:] = 0, np.inf  # t and cells
     result = milp(layout.objective, constraints=LinearConstraint(matrix, lower, upper),
                   integrality=integrality, bounds=Bounds(np.zeros(size), high),
                   options={"disp": False, "mip_rel_gap": 0.0, "presolve": False})

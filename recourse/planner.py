@@ -25,7 +25,8 @@ from recourse.candidates import Candidate, FeatureCandidates, encoded_candidates
 from recourse.choices import MOST_PLANS
 from recourse.errors import OutsideError, PlanningError
 from recourse.mutability import Goal, Mutability
-from recourse.pair_rules import pair_matrices, rules_kept
+from recourse.pair_rules import pair_matrices, row_rules, rules_kept
+from recourse.pair_terms import folded_at, pair_shares, program_tables, row_pairs
 from recourse.program import (
     BUFFER,
     DEFAULT_SOLVER,
@@ -67,6 +68,8 @@ class Plan:
     outcome: float  # probability (classification) or predicted value (regression)
     total_cost: float
     largest_cost: float
+    # the model's pairwise terms the plan moves: (pair name, value before, value after)
+    pairs: tuple[tuple[str, float, float], ...] = ()
 
     @property
     def count(self) -> int:
@@ -95,6 +98,9 @@ class PlanResult:
     binding_rules: tuple[str, ...] = ()  # the same as short names ("bounds on x", "x fixed")
     row_id: Any = None
     message: str = ""  # "error", "outside": why the rules cannot be applied to this row
+    # why the fast exact solver handed the row to the general integer program ("pairwise
+    # terms", "linked rules"); empty when it did not (summaries count these rows)
+    handed_off: str = ""
 
 
 def _reaches(score: float, threshold: float, direction: str) -> bool:
@@ -134,7 +140,8 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
     except OutsideError as exc:
         return PlanResult("outside", message=str(exc), **common)
     names = tuple(candidates)
-    program = row_program(candidates, score, parts, goal, threshold, mutability)
+    program = row_program(candidates, score, parts, goal, threshold, mutability,
+                          model=model, values=encoded.iloc[0])
     solutions: list[Solution] = []
     forbidden: list[frozenset[int]] = []
     for _ in range(n_plans):
@@ -145,18 +152,28 @@ def plan_encoded(model: AdditiveModel, encoded: pd.DataFrame, mutability: Mutabi
         forbidden.append(frozenset(g for g, pick in enumerate(solution.choice) if pick != 0))
     if solutions:
         plans = _plans(model, encoded, names, candidates, solutions, threshold, mutability)
-        return PlanResult("plans", plans=plans, **common)
+        return PlanResult("plans", plans=plans, handed_off=_handed_off(solutions[0]), **common)
     best = best_reachable(program)
     blank = {name for name in model.features if is_missing(encoded.iloc[0][name])}
     # kept only so a blank may be stated: where the row has a value, the feature is fixed
     stated_only = {name for name, rule in mutability.rules.items()
                    if rule.change == "fixed" and name not in blank}
     summary, findings = _diagnosis(model, parts, {n: c for n, c in candidates.items()
-                                                  if n not in stated_only}, program, blank)
-    return PlanResult("none", best_score=best,
+                                                  if n not in stated_only}, program, blank,
+                                   encoded.iloc[0])
+    return PlanResult("none", best_score=best, handed_off=_handed_off(solution),
                       best_outcome=float(model.inverse_link(np.array([best]))[0]),
                       binding=(summary, *(text for _, text in findings)),
                       binding_rules=tuple(rule for rule, _ in findings), **common)
+
+
+def _handed_off(solution: Solution) -> str:
+    """Why the fast solver handed a program on (its message says), or ""."""
+    from recourse.solver import HANDED_OFF
+
+    text = solution.message
+    return text[text.index(HANDED_OFF) + len(HANDED_OFF):].strip(" )") if (
+        HANDED_OFF in text) else ""
 
 
 def total_scores(model: AdditiveModel, parts: np.ndarray) -> np.ndarray:
@@ -175,19 +192,32 @@ def check_plan_count(n_plans: int) -> None:
 
 
 def row_program(candidates: Mapping[str, FeatureCandidates], score: float, parts: pd.Series,
-                goal: Goal, threshold: float, mutability: Mutability | None = None) -> Program:
+                goal: Goal, threshold: float, mutability: Mutability | None = None, *,
+                model: AdditiveModel | None = None, values: Any = None) -> Program:
     """One row's integer program: its candidates (current value first) and the goal; the
     base is the score less the changeable features' current contributions. The links and
-    level bounds of `mutability` between two of its features become pair rules."""
+    level bounds of `mutability` between two of its features become pair rules.
+
+    A model with pairwise terms needs `model` and the row's typed `values`: a pair one of
+    whose features stays is already in the other's candidates (recourse.pair_terms), one
+    whose two features move becomes a table of the program; both leave the base."""
     names = tuple(candidates)
     pairs = () if mutability is None else pair_matrices(
         mutability, {n: candidates[n].values for n in names}, names)
+    contributions = {n: candidates[n].contributions for n in names}
+    base = score - float(sum(parts[name] for name in names))
+    tables: list = []
+    if model is not None and model.pairs and mutability is not None:
+        split = row_pairs(model, row_rules(model, mutability, values)[0], values)
+        tables, added, constant = program_tables(split.joint, candidates, names)
+        contributions.update({n: contributions[n] + extra for n, extra in added.items()})
+        base += constant - float(sum(parts[p.name] for p in split.joint + split.folded))
     return Program(
-        base=score - float(sum(parts[name] for name in names)),
-        contributions=tuple(candidates[n].contributions for n in names),
+        base=base, contributions=tuple(contributions[n] for n in names),
         costs=tuple(candidates[n].costs for n in names),
         current=tuple(0 for _ in names), threshold=threshold, direction=goal.direction,
-        objective=goal.objective, max_changes=goal.max_changes, names=names, pairs=pairs)
+        objective=goal.objective, max_changes=goal.max_changes, names=names, pairs=pairs,
+        tables=tuple(tables))
 
 
 def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
@@ -223,18 +253,35 @@ def _plans(model: AdditiveModel, encoded: pd.DataFrame, names: Sequence[str],
                                f"{solution.score!r}; threshold {threshold!r} ({direction})")
         if not rules_kept(mutability, encoded.iloc[0], changed_rows.iloc[number]):
             raise RuntimeError("planner bug: a plan breaks a link or level_bound")
-        changes = [replace(c, accepted=accepted(
-            model, mutability.rules[c.feature], threshold - (score - new.contribution),
-            direction)) if c.supplied else c for c, new in _picked(changes, candidates,
-                                                                   solution, names)]
+        after = changed_rows.iloc[number]
+        changes = [replace(c, accepted=_accepted(model, mutability, c, after, score, threshold))
+                   if c.supplied else c for c in changes]
         if any(c.supplied for c in changes):  # only then is the row needed again
             changes, score = _least_stated(model, changed_rows.iloc[[number]].copy(), changes,
                                            score, threshold, mutability, encoded.iloc[0])
         changes = [replace(c, tail=tail_warning(model, c.feature, c.proposed)) for c in changes]
         costs = [c.cost for c in changes]
+        final = changed_rows.iloc[[number]].copy()
+        for c in changes:  # a stated value may have been lowered
+            final[c.feature] = pd.Series([c.proposed], index=final.index,
+                                         dtype=final[c.feature].dtype)
+        moved = pair_shares(model, encoded, final) if model.pairs else ()
         plans.append(Plan(tuple(changes), score, float(model.inverse_link(np.array([score]))[0]),
-                          float(sum(costs)), float(max(costs, default=0.0))))
+                          float(sum(costs)), float(max(costs, default=0.0)), moved))
     return tuple(plans)
+
+
+def _accepted(model: AdditiveModel, mutability: Mutability, change: Change, after: pd.Series,
+              score: float, threshold: float) -> tuple:
+    """The values a stated feature could take instead, the plan's other values held: with
+    pairwise terms, its pairs are read at the other features' planned values."""
+    own = folded_at(model, change.feature, after)
+    term = own.term(change.feature)
+    value = np.array([change.proposed], dtype=object if isinstance(change.proposed, str)
+                     else float)
+    contribution = float(term.evaluate(value)[0])
+    return accepted(own, mutability.rules[change.feature], threshold - (score - contribution),
+                    mutability.goal.direction)
 
 
 def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change], score: float,
@@ -250,10 +297,11 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
     out = []
     for change in changes:
         if change.supplied and change.accepted:
-            term, rule = model.term(change.feature), mutability.rules[change.feature]
+            own = folded_at(model, change.feature, row.iloc[0])  # its pairs at the plan
+            term, rule = own.term(change.feature), mutability.rules[change.feature]
             now = float(term.evaluate(row[change.feature].to_numpy())[0])
             floor = passed - (score - now)
-            values = least_first(model, rule, accepted(model, rule, floor, direction), floor,
+            values = least_first(own, rule, accepted(own, rule, floor, direction), floor,
                                  direction)
             if values:  # every value tried at once, the least favourable first
                 trials = row.iloc[np.zeros(len(values), dtype=np.int64)].reset_index(drop=True)
@@ -269,24 +317,31 @@ def _least_stated(model: AdditiveModel, row: pd.DataFrame, changes: list[Change]
     return out, score
 
 
-def _picked(changes: Sequence[Change], candidates: Mapping[str, FeatureCandidates],
-            solution: Solution, names: Sequence[str]) -> list[tuple[Change, Candidate]]:
-    """Each change with the candidate the solution picked for it."""
-    chosen = {names[g]: candidates[names[g]][pick]
-              for g, pick in enumerate(solution.choice) if pick != 0}
-    return [(change, chosen[change.feature]) for change in changes]
-
-
 def _is_category(model: AdditiveModel, name: str) -> bool:
     return model.schema.feature(name).kind == "category"
 
 
+def _own_table(model: AdditiveModel, name: str, values: Mapping[str, Any] | None
+               ) -> tuple[AdditiveModel, str]:
+    """The model whose term for `name` is what the feature's own values do to the score:
+    its main table, plus its pairwise terms read at the row's other values (the other
+    features held as they are), and words saying so ("" when it has no pairs)."""
+    names = [p.name for p in model.pairs if name in p.features]
+    if not names or values is None:
+        return model, ""
+    return folded_at(model, name, values), (
+        f", with its pairwise {'term' if len(names) == 1 else 'terms'} "
+        f"({', '.join(names)}) read at the row's other values,")
+
+
 def _diagnosis(model: AdditiveModel, parts: pd.Series,
                candidates: Mapping[str, list[Candidate]], program: Program,
-               blank: set[str] = frozenset()) -> tuple[str, list[tuple[str, str]]]:
+               blank: set[str] = frozenset(), values: Mapping[str, Any] | None = None
+               ) -> tuple[str, list[tuple[str, str]]]:
     """A summary line, and up to six (rule, sentence) pairs, the most limiting first (the
     summary line says how many there were when there were more). `blank`: the features
-    the row has no value for."""
+    the row has no value for; `values`: the row (typed), which a feature's pairwise terms
+    are read at (see `_own_table`)."""
     sign = _favourable(program.direction)
     gap = abs(program.threshold - best_reachable(program))
     findings: list[tuple[float, str, str]] = []
@@ -299,29 +354,37 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     # A table is sized where training rows lie, as reasons size it: a far tail or a level
     # never seen in training would promise what almost no applicant could reach.
     for name, options in candidates.items():
-        best_here = max(sign * c.contribution for c in options)
-        beyond = sign * best_of(model, model.term(name), sign).contribution - best_here
+        own, paired = _own_table(model, name, values)
+        term = own.term(name)
+        listed = np.array([c.value for c in options],
+                          dtype=object if _is_category(model, name) else float)
+        best_here = float(np.max(sign * term.evaluate(listed)))
+        beyond = sign * best_of(own, term, sign).contribution - best_here
         if beyond > 1e-9 and name in blank and len(options) == 1:
-            findings.append((beyond, f"{name} not stated", _unstated(model, name, beyond)))
+            findings.append((beyond, f"{name} not stated", _unstated(own, name, beyond,
+                                                                     paired)))
         elif beyond > 1e-9:
             findings.append((beyond, f"bounds on {name}",
                              f"the bounds, direction, step or largest change on {name} "
-                             f"bind: {central_words(model, name)} its table offers "
+                             f"bind: {central_words(own, name)} its table{paired} offers "
                              f"{beyond:.3g} more ({scale(model)}) beyond them"))
     protected = {f.name for f in model.schema.protected_features}
-    for term in model.terms:
-        name = term.feature
+    for name in model.features:
         if name in candidates or name in protected:
             continue
-        potential = sign * best_of(model, term, sign).contribution - sign * float(parts[name])
+        own, paired = _own_table(model, name, values)
+        term = own.term(name)
+        now = float(parts[name]) if not paired else float(term.evaluate(np.array(
+            [values[name]], dtype=object if _is_category(model, name) else float))[0])
+        potential = sign * best_of(own, term, sign).contribution - sign * now
         if potential > 1e-9 and name in blank:
             findings.append((potential, f"{name} not stated",
-                             _unstated(model, name, potential)))
+                             _unstated(own, name, potential, paired)))
         elif potential > 1e-9:
             findings.append((potential, f"{name} fixed",
-                             f"{name} is fixed by the rules; {central_words(model, name)} "
-                             f"its table could move the score by up to {potential:.3g} "
-                             f"({scale(model)})"))
+                             f"{name} is fixed by the rules; {central_words(own, name)} "
+                             f"its table{paired} could move the score by up to "
+                             f"{potential:.3g} ({scale(model)})"))
     if program.pairs:  # the rules between two features bind when dropping them helps
         lost = sign * (best_reachable(replace(program, pairs=())) - best_reachable(program))
         if lost > 1e-9:
@@ -341,11 +404,11 @@ def _diagnosis(model: AdditiveModel, parts: pd.Series,
     return summary, [(rule, text) for _, rule, text in findings[:SHOWN_FINDINGS]]
 
 
-def _unstated(model: AdditiveModel, name: str, potential: float) -> str:
+def _unstated(model: AdditiveModel, name: str, potential: float, paired: str = "") -> str:
     return (f"{name} has no value and the rules do not let one be stated (no supply_cost, or "
             f"no allowed value scores better than its missing-value entry); "
-            f"{central_words(model, name)} a stated value could move the score by up to "
-            f"{potential:.3g} ({scale(model)})")
+            f"{central_words(model, name)} a stated value{paired} could move the score by up "
+            f"to {potential:.3g} ({scale(model)})")
 
 
 def scale(model: AdditiveModel) -> str:
@@ -400,6 +463,8 @@ def plan_records(result: PlanResult) -> dict[str, Any]:
                          "would_also_do": [_accepted_record(v) for v in c.accepted],
                          "tail_warning": _tail_record(c.tail)}
                         for c in plan.changes],
+            "pairs": [{"pair": name, "before": before, "after": after}
+                      for name, before, after in plan.pairs],
         } for plan in result.plans],
         "best_score": result.best_score, "best_outcome": result.best_outcome,
         "binding": list(result.binding), "message": result.message, "caution": CAUTION,

@@ -5,8 +5,9 @@ returns a `Solution` whose choice, score and objective are recomputed in Python.
 that cannot be in a best choice are dropped first (dominance, the gap, a Lagrangian bound);
 what is left is searched by listing its combinations when few enough (recourse.combinations),
 else as an integer program (pulp: HiGHS or CBC). Both are exact. Rules between two groups
-(`pairs`, recourse.pairs) go to the integer program only, and the reductions keep every
-candidate of a paired group (see `_kept`). Ties on
+(`pairs`, recourse.pairs) and the model's pairwise terms (`tables`, recourse.pairs.PairValues:
+the score gains a table's value at the two groups' picks) go to the integer program only, and
+the reductions keep every candidate of a group either names (see `_kept`). Ties on
 largest-cost and fewest-changes go to the least total cost, exactly: a second solve minimises
 total cost among the choices that keep the first optimum (a small weight on total cost would
 have to sit below the gaps between cost levels, which can be finer than solver tolerances).
@@ -27,12 +28,16 @@ from recourse.combinations import best_combination, changed_sets
 from recourse.errors import PlanningError
 from recourse.pairs import (
     PairRule,
+    PairValues,
     allowed_picks,
     check_pairs,
+    check_values,
     keeps,
     most_gain,
     pair_rows,
     paired_groups,
+    value_columns,
+    value_gains,
 )
 from recourse.relaxation import Relaxation
 
@@ -58,6 +63,7 @@ class Program:
     forbidden: tuple[frozenset[int], ...] = ()  # sets of groups that may not all change
     names: tuple[str, ...] = ()
     pairs: tuple[PairRule, ...] = ()  # which candidates of two groups may go together
+    tables: tuple[PairValues, ...] = ()  # pairwise terms: what two groups' picks add together
 
 
 @dataclass(frozen=True)
@@ -76,8 +82,12 @@ class _Rows:
     """The program as linear rows over x (one binary per kept candidate) and, maybe, t."""
 
     kept: list[np.ndarray]  # per group, the candidate indices that get a binary, in column order
-    objective: np.ndarray  # over the binaries, then t under largest-cost
+    objective: np.ndarray  # over the binaries, then t under largest-cost, then the cells
     rows: list[tuple[np.ndarray, np.ndarray, str, float]]  # (columns, coefficients, sense, rhs)
+
+    @property
+    def binaries(self) -> int:
+        return int(sum(len(k) for k in self.kept))
 
 
 def _label(program: Program, group: int) -> str:
@@ -91,7 +101,8 @@ def _whole(value: object) -> bool:
 
 def _current_score(program: Program) -> float:
     pairs = zip(program.contributions, program.current, strict=True)
-    return float(program.base + sum(values[now] for values, now in pairs))
+    return float(program.base + sum(values[now] for values, now in pairs)
+                 + value_gains(program.tables, program.current))
 
 
 def _blocked(program: Program, changed: frozenset[int]) -> bool:
@@ -140,6 +151,7 @@ def _check(program: Program) -> None:
             raise ValueError(f"forbidden set {sorted(changed)} names a group outside "
                              f"0..{groups - 1}")
     check_pairs(program.pairs, [len(values) for values in program.contributions])
+    check_values(program.tables, [len(values) for values in program.contributions])
 
 
 def _sign(program: Program) -> float:
@@ -256,22 +268,43 @@ def _kept(program: Program, cap: float = math.inf) -> list[np.ndarray]:
     at `need` is raised by the most the paired groups can lose together, so a change that
     closes that alone still closes the gap whatever they pick."""
     gains, costs = _tables(program)
-    paired = paired_groups(program.pairs)
+    paired = paired_groups(program.pairs) | _table_groups(program)
     need = _need(program) + sum(max(0.0, -float(gains[g][costs[g] <= cap].min()))
-                                for g in paired)
+                                for g in paired) + _table_loss(program)
     kept = [np.flatnonzero((c <= cap) | (np.arange(len(c)) == now)) if group in paired
             else _frontier(g, c, now, cap, need)
             for group, (g, c, now) in enumerate(zip(gains, costs, program.current, strict=True))]
-    if program.objective == "total-cost":
+    if program.objective == "total-cost" and not program.tables:  # the bound adds gains
         kept = _fixed_by_bound(program, gains, costs, kept)
     return kept
+
+
+def _table_groups(program: Program) -> frozenset[int]:
+    """The groups that a pairwise table names."""
+    return frozenset(g for t in program.tables for g in (t.first, t.second))
+
+
+def _table_loss(program: Program) -> float:
+    """The most the pairwise tables can lose together, from their current cells (toward
+    the goal): each table's worst cell, so never less than they lose."""
+    sign = _sign(program)
+    return float(sum(max(0.0, -float(np.min(sign * (t.table - t.at(program.current)))))
+                     for t in program.tables))
+
+
+def _gain_of(program: Program, choice: Sequence[int]) -> float:
+    """A choice's gain over the current candidates, the pairwise tables included."""
+    gains = _tables(program)[0]
+    return float(sum(g[c] for g, c in zip(gains, choice, strict=True))
+                 + _sign(program) * (value_gains(program.tables, choice)
+                                     - value_gains(program.tables, program.current)))
 
 
 def _run(program: Program, cap: float,
          mip: Callable[[Program, _Rows], tuple[int, ...] | None]) -> tuple[int, ...] | None:
     """The best choice over the kept candidates (None if none keeps the rules): by listing
     combinations when they are few enough, else by the integer program `mip`."""
-    if sum(_gains(program, cap)[:_limit(program)]) < _need(program):
+    if not program.tables and sum(_gains(program, cap)[:_limit(program)]) < _need(program):
         return None  # even the best change of every group falls short: no search needed
     kept = _kept(program, cap)
     sets = _listable(program, kept)
@@ -284,8 +317,8 @@ def _run(program: Program, cap: float,
 
 def _listable(program: Program, kept: list[np.ndarray]) -> list[tuple[int, ...]] | None:
     """The sets of groups `best_combination` would list, or None for the integer program
-    (always with pair rules: the listing does not check them)."""
-    if program.pairs:
+    (always with pair rules or pairwise tables: the listing does not read them)."""
+    if program.pairs or program.tables:
         return None
     return changed_sets(kept, program.current, program.max_changes, program.forbidden)
 
@@ -332,6 +365,16 @@ def _rows(program: Program, kept: list[np.ndarray]) -> _Rows:
             rows.append((np.append(columns[a:b], n), np.append(-cost[a:b], 1.0), ">=", 0.0))
     elif program.objective == "fewest-changes":
         objective = moved.astype(float)
+    if program.tables:  # the cells of the pairwise tables, after the binaries (and t)
+        cells, cell_gain, tied = value_columns(program.tables, kept, starts, len(objective),
+                                               _sign(program), program.current)
+        cell_gain[np.abs(cell_gain) < NOISE] = 0.0
+        gain_row = rows[len(spans)]
+        at = len(objective) + np.flatnonzero(cell_gain != 0)
+        rows[len(spans)] = (np.r_[gain_row[0], at], np.r_[gain_row[1], cell_gain[cell_gain != 0]],
+                            ">=", gain_row[3])
+        rows += tied
+        objective = np.append(objective, np.zeros(cells))
     return _Rows(kept, objective, rows)
 
 
@@ -352,7 +395,8 @@ def _choice(program: Program, layout: _Rows, values: np.ndarray, solver: str) ->
 def _judged(program: Program, choice: tuple[int, ...], solver: str) -> Solution:
     """Check every rule in Python and report score and objective computed from the tables."""
     score = float(program.base + sum(
-        v[c] for v, c in zip(program.contributions, choice, strict=True)))
+        v[c] for v, c in zip(program.contributions, choice, strict=True))
+        + value_gains(program.tables, choice))
     paid = [costs[c] for costs, c in zip(program.costs, choice, strict=True)]
     changed = _changed(program, choice)
     objective = {"total-cost": sum(paid), "largest-cost": max(paid, default=0.0),
@@ -375,7 +419,7 @@ def _lexicographic(program: Program, run: Callable[[Program, float], tuple[int, 
         run = _empty_run
     optimum = None
     if program.objective != "total-cost":
-        if program.forbidden or program.pairs:  # no closed form: solve for it first
+        if program.forbidden or program.pairs or program.tables:  # no closed form: solve first
             first = run(program, math.inf)
             optimum = None if first is None else _judged(
                 program, _polished(program, first), solver).objective
@@ -403,12 +447,13 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
     (gains, costs), picked, need = _tables(program), list(choice), _need(program)
     # each move makes one group strictly cheaper, so a group moves at most once per candidate
     for _ in range(sum(len(cost) for cost in costs) + 1):
-        total = sum(g[c] for g, c in zip(gains, picked, strict=True))
+        total = _gain_of(program, picked)
         changed = _changed(program, tuple(picked))
         best = (0.0, -1, -1)  # (saving, group, candidate)
         for group, (gain, cost, now) in enumerate(zip(gains, costs, program.current,
                                                       strict=True)):
-            ok = (cost < cost[picked[group]]) & (total - gain[picked[group]] + gain >= need)
+            moved = gain - gain[picked[group]] + _cross(program, picked, group)
+            ok = (cost < cost[picked[group]]) & (total + moved >= need)
             if _blocked(program, changed | {group}):  # taking a group back out never blocks
                 ok[np.arange(len(ok)) != now] = False
             if program.pairs:  # never into a pick a pair rule forbids
@@ -420,6 +465,21 @@ def _polished(program: Program, choice: tuple[int, ...]) -> tuple[int, ...]:
             return tuple(picked)
         picked[best[1]] = best[2]
     raise RuntimeError("polishing a choice moved more often than there are candidates")
+
+
+def _cross(program: Program, picked: Sequence[int], group: int) -> np.ndarray:
+    """What the pairwise tables gain (toward the goal) when `group` alone moves from its
+    pick to each of its candidates."""
+    out = np.zeros(len(program.contributions[group]))
+    for t in program.tables:
+        if t.first == group:
+            column = t.table[:, t.second_class[picked[t.second]]][t.first_class]
+        elif t.second == group:
+            column = t.table[t.first_class[picked[t.first]], :][t.second_class]
+        else:
+            continue
+        out += _sign(program) * (column - t.at(picked))
+    return out
 
 
 def _no_plan(solver: str) -> Solution:
@@ -496,13 +556,13 @@ def best_reachable(program: Program) -> float:
     """The most favourable score the rules allow, ignoring the threshold and forbidden sets.
 
     Each group's best gain over its current candidate, the largest `max_changes` of them;
-    with pair rules, the most an integer program finds that keeps them (recourse.pairs).
+    with pair rules or pairwise tables, the most an integer program finds (recourse.pairs).
     """
     _check(program)
     limit = len(program.contributions) if program.max_changes is None else program.max_changes
-    if program.pairs:
+    if program.pairs or program.tables:
         gained = most_gain(_tables(program)[0], program.pairs, program.max_changes,
-                           program.current)
+                           program.current, program.tables, _sign(program))
         return float(_current_score(program) + _sign(program) * gained)
     gained = sum(_gains(program, math.inf)[:limit])
     return float(_current_score(program) + _sign(program) * gained)

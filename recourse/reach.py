@@ -26,6 +26,7 @@ from glassbox.explaining.groups import (
     outcomes_by_group,
     size_note,
 )
+from recourse.choices import HANDED_WORDS
 from recourse.tails import TAIL_WORDS
 
 FORMAT = "recourse-reach"
@@ -65,6 +66,7 @@ class Reach:
     min_group: int = MIN_GROUP  # groups with fewer declined rows are shown, not flagged
     outside: int = 0  # rows with a value outside what the model can plan for
     tail_warned: int = 0  # rows whose cheapest plan moves a feature into a sparse, uncertain tail
+    handed_off: int = 0  # rows the fast solver handed to the integer program (pairwise terms...)
 
     @property
     def share_with_plan(self) -> float:
@@ -135,6 +137,8 @@ def reach(outcomes: pd.DataFrame, by: Sequence[str] = (),
         context=dict(context or {}), min_group=min_group,
         outside=outside,
         tail_warned=int((planned["tail_warnings"] > 0).sum()),
+        handed_off=int((outcomes["handed_off"].fillna("").astype(str) != "").sum())
+        if "handed_off" in outcomes else 0,
     )
 
 
@@ -193,6 +197,8 @@ def summary_table(result: Reach) -> pd.DataFrame:
             ("rules do not fit the row", result.misfits),
             ("value outside what the model can plan for", result.outside),
             (TAIL_WORDS, result.tail_warned)]
+    if result.handed_off:  # slower, still exact: said when it happened
+        rows.append((HANDED_WORDS, result.handed_off))
     rows += [(f"cheapest plan cost, {name}", value)
              for name, value in result.cost_quantiles.items()]
     resumed = result.context.get("resume")
@@ -225,7 +231,8 @@ def to_dict(result: Reach) -> dict[str, Any]:
                     "share_with_plan": None if not result.declined
                     else result.share_with_plan,
                     "no_plan": result.no_plan, "misfits": result.misfits,
-                    "outside": result.outside, "tail_warned": result.tail_warned},
+                    "outside": result.outside, "tail_warned": result.tail_warned,
+                    "handed_off": result.handed_off},
         "cost_quantiles": result.cost_quantiles,
         "main_changes": _records(result.main_changes),
         "binding_rules": _records(result.binding_rules),

@@ -57,7 +57,7 @@ from recourse.source import (
 )
 
 CONNECT_SECONDS = 5  # how long to try an existing dask scheduler before giving up
-TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message")
+TEXT_COLUMNS = ("status", "changes", "main_change", "binding_rule", "message", "handed_off")
 NUMBER_COLUMNS = ("score", "outcome", "total_cost", "largest_cost", "new_outcome",
                   "best_outcome")
 

@@ -14,8 +14,8 @@ and, with one change left, the cheapest single change of a later group that fini
 plan. A state that reaches the need is a plan (the later groups stay put, which breaks no
 cut still open), so it ends there. Nothing is capped or approximated: the bound only drops
 states that cannot beat a plan already found, with a margin for rounding. Rules between two
-groups (`Program.pairs`) are not part of this search: such a program is solved by the
-integer program and the solution's message says so.
+groups (`Program.pairs`) and pairwise tables (`Program.tables`) are not part of this search:
+such a program is solved by the integer program and the solution's message says so.
 """
 
 from __future__ import annotations
@@ -40,6 +40,7 @@ from recourse.program import (
 )
 
 NAME = "exact"
+HANDED_OFF = "the exact solver does not cover"  # the message of a program it hands on
 
 
 def hull_bound(gains: Sequence[np.ndarray], costs: Sequence[np.ndarray], need: float) -> float:
@@ -378,10 +379,12 @@ def solve_exact(program: Program) -> Solution:
     `recourse.program.solve` (ties to the least total cost, the choice verified in Python).
 
     A program with pair rules (a link between two features, a level that bounds a number)
-    is handed to the integer program (HiGHS), and the message says so."""
-    if program.pairs:
+    or pairwise terms of the model (two features' tables read together) is handed to the
+    integer program (HiGHS), exactly, and the message says so."""
+    if program.pairs or program.tables:
         found = solve(program, "highs")
+        why = "pairwise terms" if program.tables else "linked rules"
         return replace(found, message=found.message.replace(
-            "(highs)", "(highs: the exact solver does not cover linked rules)"))
+            "(highs)", f"(highs: {HANDED_OFF} {why})"))
     return _lexicographic(program, _exact_run, NAME)  # checks the program first
 

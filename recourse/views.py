@@ -137,6 +137,22 @@ def change_rows(model, plan) -> tuple[list[tuple[str, str, str, str]], list[Any]
     return rows, notes
 
 
+def pair_rows(plan) -> list[tuple[str, str]]:
+    """The pairwise terms a plan moves as (pair, before -> after) rows, values on the
+    model's scale (three significant digits)."""
+    return [(name, f"{before:+.3g} -> {after:+.3g}") for name, before, after in plan.pairs]
+
+
+def pair_table(model, plan) -> FittedTable:
+    """One line per pairwise term the plan moves: its value before and after the plan (the
+    plan's outcome above already includes them)."""
+    from recourse.planner import scale
+
+    return FittedTable(f"Pairwise terms it moves ({scale(model)})",
+                       [("pair", "left"), ("before -> after", "left")], pair_rows(plan),
+                       title_style="")
+
+
 def result_view(model, result: PlanResult) -> RenderableType:
     """The plans for one row as short readable blocks, then the caution."""
     who = f"Row {result.row_id}" if result.row_id is not None else "This row"
@@ -162,5 +178,7 @@ def result_view(model, result: PlanResult) -> RenderableType:
                                           mixed=["by"]),
                               2))
         lines += notes
+        if plan.pairs:
+            lines.append(indented(pair_table(model, plan), 2))
     lines += [Text(""), Text(CAUTION, style="italic")]
     return Group(*lines)

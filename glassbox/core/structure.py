@@ -586,7 +586,7 @@ REACH = Record(
                                           "no_plan": COUNT},
                                 optional={"share_with_plan": Number(low=0, high=1, null=True),
                                           "misfits": COUNT, "outside": COUNT,
-                                          "tail_warned": COUNT}),
+                                          "tail_warned": COUNT, "handed_off": COUNT}),
               "cost_quantiles": Keyed(Number(low=0, null=True)),
               "main_changes": Items(Record(required={"feature": TEXT, "rows": COUNT,
                                                      "share": SHARE}, extra=Anything())),

@@ -138,6 +138,10 @@ def recourse_section(document: dict[str, Any], unfavourable_rows: int | None = N
              + (f"; {summary['tail_warned']:,} cheapest plans move a feature into a sparse "
                 "tail of the training data where the model's band is wide"
                 if summary.get("tail_warned") else "")
+             + (f"; {summary['handed_off']:,} rows were planned by the general integer program "
+                "instead of the fast solver (pairwise terms of the model, or links and level "
+                "bounds between features; slower, just as exact)" if summary.get("handed_off")
+                else "")
              + ". Plans are model what-ifs, not advice or a promise; protected "
                "characteristics are never levers, only groupings here.")
     blocks: list[Any] = [Paragraph(intro)]
