@@ -297,6 +297,11 @@ def points_command(
                          f"score --points reads); {FORMAT_RULE}.")] = None,
     out: Annotated[Path | None, typer.Option(
         metavar="FILE", help="Write the card (.json) or its rows (.csv, .md) here.")] = None,
+    pair: Annotated[list[str] | None, typer.Option(
+        "--pair", metavar="NAME",
+        help="Only this pair's points grid, named as the card names it, e.g. 'Income & "
+             "Seniority' (repeatable); a rows file (.csv, .md) then holds its cells alone.")
+    ] = None,
     force: Force = False,
 ) -> None:
     """Turn a classification model into a points card: whole points per bin or level."""
@@ -304,10 +309,11 @@ def points_command(
     from glassbox.core.files import check_output, table_kind
     from glassbox.core.schema import read_table
     from glassbox.explaining import points
-    from glassbox.publishing.render import key_values, points_view
+    from glassbox.publishing.render import key_values, pair_grids_view, points_view
 
     written = formats.output_format(out, None if format is None else format.value,
                                     ("json", "csv", "markdown"))
+    points.check_pair_output(pair, written)
     kind = "glassbox-points" if written == "json" else table_kind(written, "card")
     check_output(out, kind, [model_file, data], force=force)
     model = artifact.load(model_file)
@@ -316,6 +322,9 @@ def points_command(
     if data is not None:
         card = points.with_fidelity(card, model, read_table(data), str(data))
     fidelity = None if card.fidelity is None else card.fidelity.summary()
+    if pair and written == "table":
+        stdout_console().print(pair_grids_view(points.pair_grids(card, pair)))
+        return
     if written == "table":
         stdout_console().print(points_view(points.card_summary(card), points.card_table(card),
                                            fidelity, card.pairs))
@@ -323,7 +332,8 @@ def points_command(
     if written == "json":
         text = points.dumps(card)
     else:
-        text = formats.write(points.card_table(card), written)
+        text = formats.write(points.pair_rows(card, pair) if pair else
+                             points.card_table(card), written)
     emit(text, out, "points card" if written == "json" else "points card rows")
     stderr_console().print(key_values(points.card_summary(card), title="Points card"))
     if fidelity is not None:

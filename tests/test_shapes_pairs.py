@@ -19,6 +19,7 @@ from glassbox.core import artifact
 from glassbox.core.pairs import Axis, PairTerm
 from glassbox.explaining import pair_shapes, shapes
 from glassbox.publishing import plots, report
+from glassbox.publishing.heat import spread
 from glassbox.publishing.render import heat_texts, pair_view, shapes_view
 
 from .conftest import one_line_error
@@ -178,7 +179,9 @@ def test_an_unknown_pair_is_refused_naming_the_pairs(model, tmp_path):
 
 def test_pair_views_fit_80_columns(model):
     """The summary with pairs and each heat table, every cell shown at 80 columns; a
-    pair of 13 columns is stacked in parts, each repeating the first column."""
+    pair of 13 columns too wide for 80 shows, in one table, the columns that fit (the
+    first, the last, the ones between evenly spread, numbered as the files do) and says
+    so; at 200 columns it is whole, every cell shown."""
     summary = shapes.summary(model)
     text = render(shapes_view(summary, {}, model=model, pairs=[p.name for p in model.pairs]))
     cells = [str(v) for v in summary["feature"]]
@@ -191,11 +194,22 @@ def test_pair_views_fit_80_columns(model):
         tuple(round(0.01 * (a - b), 4) for b in range(wide_axis.size))
         for a in range(model.pairs[0].first.size)))
     widened = replace(model, pairs=(wide,))
-    text = render(pair_view(widened, wide.name))
     texts = heat_texts(pair_shapes.heat_grid(widened, wide.name))
+    text = render(pair_view(widened, wide.name), width=200)
+    assert "columns," not in text and "#" not in text  # whole: nothing numbered
     assert not cut_cells(text, [*map(str, texts.columns),
-                                *(str(v) for v in texts.to_numpy().ravel())]), text
-    assert text.count(" Income ") >= 2  # stacked: the first column repeated
+                                *(str(v) for v in texts.to_numpy().ravel())], width=200), text
+    text = render(pair_view(widened, wide.name))
+    words = " ".join(text.split())
+    assert "7 of 7 rows and " in words and " of 13 columns" in words and "part 1" not in text
+    shown = int(words.split("7 of 7 rows and ")[1].split()[0])
+    kept = spread(13, shown)
+    assert 3 <= shown < 13 and kept[0] == 0 and kept[-1] == 12
+    assert not cut_cells(text, [*(texts.columns[1 + b] for b in kept), "Income",
+                                *(f"#{b + 1}" for b in kept),
+                                *(str(texts.iloc[a, 1 + b]) for a in range(7) for b in kept)]
+                         ), text
+    assert text.count(" Income ") == 1  # one table, not stacked
 
 
 def test_pictures_and_report_sections_per_pair(model):

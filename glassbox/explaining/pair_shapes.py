@@ -36,25 +36,36 @@ SHARES_FROM_BASELINE = ("from the development baseline kept in the model file ({
                         "training rows)")
 
 
-def find_pair(model: AdditiveModel, name: str) -> PairTerm:
-    """The model's pair named `name` ("A & B", either order), or a clear refusal naming
-    the model's pairs."""
+def named(pairs: Sequence[Any], name: str) -> Any:
+    """The one of `pairs` (a model's pairs, a card's points grids) named `name` ("A & B",
+    either order), or a clear refusal naming them all."""
     wanted = name.strip()
-    for pair in model.pairs:
+    for pair in pairs:
         first, second = pair.features
         if wanted in (pair.name, pair_name(second, first)):
             return pair
-    known = ", ".join(repr(p.name) for p in model.pairs) or "none"
+    known = ", ".join(repr(p.name) for p in pairs) or "none"
     raise OptionError(f"--pair {name!r}: the model has no such pair (its pairs: {known}); "
                       "name one as 'FIRST & SECOND'")
 
 
+def all_named(pairs: Sequence[Any], names: Sequence[str] | None = None) -> list[Any]:
+    """The named ones of `pairs` (checked, each once), or all of them in their order."""
+    if not names:
+        return list(pairs)
+    found = [named(pairs, name) for name in names]
+    return list({pair.name: pair for pair in found}.values())
+
+
+def find_pair(model: AdditiveModel, name: str) -> PairTerm:
+    """The model's pair named `name` ("A & B", either order), or a clear refusal naming
+    the model's pairs."""
+    return named(model.pairs, name)
+
+
 def chosen_pairs(model: AdditiveModel, names: Sequence[str] | None = None) -> list[PairTerm]:
     """The named pairs (checked), or every pair of the model in its order."""
-    if not names:
-        return list(model.pairs)
-    found = [find_pair(model, name) for name in names]
-    return list({pair.name: pair for pair in found}.values())
+    return all_named(model.pairs, names)
 
 
 def cell_shares(pair: PairTerm, frame: pd.DataFrame) -> np.ndarray:

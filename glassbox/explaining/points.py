@@ -41,6 +41,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from collections.abc import Sequence
 from dataclasses import replace
 from typing import Any
 
@@ -70,7 +71,7 @@ from glassbox.explaining.cards import (
     save,
     whole_points,
 )
-from glassbox.explaining.pair_points import pair_notes, pair_points
+from glassbox.explaining.pair_points import PairPoints, pair_notes, pair_points
 from glassbox.explaining.reasons import unfavourable
 
 __all__ = ["DEFAULT_CUTOFF", "FeaturePoints", "Fidelity", "PointsCard", "Scaling",
@@ -251,6 +252,31 @@ def card_table(card: PointsCard) -> pd.DataFrame:
     for column in ("points", "training_rows"):
         table[column] = pd.Series([row.get(column) for row in rows], dtype=object)
     return table
+
+
+def pair_grids(card: PointsCard, names: Sequence[str]) -> list[PairPoints]:
+    """The card's points grids named in `names` ("A & B", either order; each once, in the
+    order asked), or a clear refusal naming the card's pairs (`glassbox points --pair`)."""
+    from glassbox.explaining.pair_shapes import all_named
+
+    return all_named(card.pairs, names)
+
+
+def check_pair_output(names: Sequence[str] | None, written: str) -> None:
+    """`--pair` picks grids to show or rows to write; the card file (.json, what score
+    --points reads) is the whole card, so it is refused there before any work."""
+    if names and written == "json":
+        raise OptionError("--pair: the card file (json) always holds the whole card; "
+                          "give --format csv or markdown, or an --out FILE ending in .csv "
+                          "or .md, for the pair's cells alone")
+
+
+def pair_rows(card: PointsCard, names: Sequence[str]) -> pd.DataFrame:
+    """The card's rows (`card_table`) of the named points grids only: one per cell."""
+    chosen = [grid.name for grid in pair_grids(card, names)]
+    table = card_table(card)
+    rows = [table[table["feature"] == name] for name in chosen]
+    return pd.concat(rows, ignore_index=True)
 
 
 def card_summary(card: PointsCard) -> dict[str, Any]:

@@ -292,28 +292,32 @@ def pair_notes(pair: Any, shares: str | None = None) -> list[str]:
 
 
 def pair_view(model: AdditiveModel, name: str) -> RenderableType:
-    """One pair's heat table: rows the first axis, columns the second (a wide table is
-    stacked in parts, each repeating the first column), the notes under it; then, when the
-    model file keeps them, each cell's share of the training rows laid out the same way."""
+    """One pair's heat table: rows the first axis, columns the second, thinned to what
+    reads at the console's width when it is big (`heat.HeatTable`: at most 16 rows, the
+    columns that fit in one table, saying so), the notes under it; then, when the model
+    file keeps them, each cell's share of the training rows laid out the same way."""
     from glassbox.explaining.pair_shapes import (
         find_pair,
         heat_grid,
         shares_words,
         training_share_grid,
     )
+    from glassbox.publishing.heat import HeatTable
 
     pair = find_pair(model, name)
-    values = FittedTable.of_frame(heat_texts(heat_grid(model, name)), title=pair_title(pair),
-                                  notes=pair_notes(pair, shares_words(model, pair)))
+    grid = heat_grid(model, name)
+    values = grid.to_numpy(dtype=float)
+    cells = np.asarray(number_texts(list(values.ravel()), signed=True),
+                       dtype=object).reshape(values.shape)
     shares = training_share_grid(model, name)
-    if shares is None:
-        return values
-    texts = shares.map(percent_text)
-    texts.columns = [str(c) for c in texts.columns]
-    texts.insert(0, str(shares.index.name), [str(label) for label in shares.index])
-    return Group(values, FittedTable.of_frame(
-        texts, title=f"{pair.name}: share of the training rows in each cell (the model "
-                     "file's development baseline)"))
+    extra = [] if shares is None else [(
+        f"{pair.name}: share of the training rows in each cell (the model file's "
+        "development baseline)", shares.map(percent_text).to_numpy(dtype=object))]
+    return HeatTable(pair_title(pair), pair.first.feature, list(grid.index),
+                     [str(c) for c in grid.columns], cells, pair.first.missing,
+                     pair.second.missing, pair_notes(pair, shares_words(model, pair)),
+                     whole=f"--pair '{pair.name}' with --format csv or --out FILE gives "
+                           "every cell", extra=extra)
 
 
 def terminal_columns(table: pd.DataFrame) -> list[str]:
@@ -484,14 +488,20 @@ def points_view(summary: Mapping[str, Any], rows: pd.DataFrame,
     return Group(*parts)
 
 
-def pair_points_view(pair: Any) -> FittedTable:
-    """A pair's grid of points: rows the first axis, columns the second; the largest
+def pair_grids_view(grids: Sequence[Any]) -> RenderableType:
+    """Only the points grids asked for (`glassbox points --pair`)."""
+    return Group(*(pair_points_view(grid) for grid in grids))
+
+
+def pair_points_view(pair: Any) -> RenderableType:
+    """A pair's grid of points: rows the first axis, columns the second, thinned to what
+    reads at the console's width when it is big (`heat.HeatTable`); the largest
     difference of its cells under it."""
+    from glassbox.publishing.heat import HeatTable
+
     grid = np.asarray(pair.points, dtype=float)
     texts = np.asarray(number_texts(list(grid.ravel()), "count", signed=True),
                        dtype=object).reshape(grid.shape)
-    frame = pd.DataFrame(texts, columns=pair.second.labels())
-    frame.insert(0, pair.first.feature, pair.first.labels())
     notes = [f"Largest difference of a cell from the exact scaled value: "
              f"{pair.largest_of_all():.3g} points."]
     if pair.binned:
@@ -499,6 +509,8 @@ def pair_points_view(pair: Any) -> FittedTable:
                      "the mean of the table over it).")
     if any(a.kind == "levels" for a in (pair.first, pair.second)):
         notes.append("A level never seen in training: 0 points.")
-    return FittedTable.of_frame(frame, title=f"{pair.name} (points grid): rows "
-                                f"{pair.first.feature}, columns {pair.second.feature}",
-                                notes=notes)
+    return HeatTable(f"{pair.name} (points grid): rows {pair.first.feature}, columns "
+                     f"{pair.second.feature}", pair.first.feature, pair.first.labels(),
+                     pair.second.labels(), texts, pair.first.missing, pair.second.missing,
+                     notes, whole=f"--pair '{pair.name}' with --format csv or --out FILE "
+                                  "gives every cell")

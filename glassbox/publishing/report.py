@@ -30,6 +30,7 @@ from glassbox.core.schema import prepare
 from glassbox.core.wording import noun
 from glassbox.explaining import groups, shapes
 from glassbox.publishing import plots
+from glassbox.publishing.heat import report_grid
 from glassbox.publishing.render import HEADINGS, cell, terminal_columns
 from glassbox.publishing.report_document import (  # noqa: F401  (the document: re-exported)
     Block,
@@ -399,18 +400,14 @@ def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> 
     pictures = unique_names((f"pair-{safe_file_name(n)}" for n in names), taken=taken)
     for name, picture in zip(names, pictures, strict=True):
         pair = pair_shapes.find_pair(model, name)
-        grid = pair_shapes.heat_grid(model, name)
-        corner = f"{pair.first.feature} \\ {pair.second.feature}"
-        values = grid.reset_index().rename(columns={grid.index.name: corner})
-        shares = pair_shapes.share_grid(model, name, encoded)
-        share_table = shares.map(shapes.percent_text).reset_index().rename(
-            columns={shares.index.name: corner})
+        values, thinned = _heat_table(pair, pair_shapes.heat_grid(model, name))
+        share_table, _ = _heat_table(pair, pair_shapes.share_grid(model, name, encoded).map(
+            shapes.percent_text))
         training = pair_shapes.training_share_grid(model, name)
         training_blocks = () if training is None else (Table(
-            training.map(shapes.percent_text).reset_index().rename(
-                columns={training.index.name: corner}),
+            _heat_table(pair, training.map(shapes.percent_text))[0],
             f"{name}: share of the training rows in each cell (from the development "
-            "baseline kept in the model file)"),)
+            f"baseline kept in the model file){' (the same cells)' if thinned else ''}"),)
         importance = model.metadata.get("importance", {}).get(name)
         words = ("importance not recorded" if importance is None
                  else f"importance {importance:.3g} (mean absolute contribution over the "
@@ -424,13 +421,22 @@ def _pair_sections(model: AdditiveModel, encoded: pd.DataFrame, source: str) -> 
                     f"{pair.second.feature}"),
             Paragraph(f"{pair.first.kind} × {pair.second.kind}; {words}.{read} Training "
                       f"shares of cells: {pair_shapes.shares_words(model, pair)}."),
-            Table(values, f"{name}: what the pair adds to the score"),
+            Table(values, f"{name}: what the pair adds to the score{thinned}"),
             *training_blocks,
             Table(share_table, f"{name}: share of the rows of {Path(source).name} in each "
-                               "cell"),
+                               f"cell{' (the same cells)' if thinned else ''}"),
         )
         sections.append(Section(f"{name} (pair)", blocks, level=3))
     return sections
+
+
+def _heat_table(pair, grid: pd.DataFrame) -> tuple[pd.DataFrame, str]:
+    """A pair's grid as the report shows it (`heat.report_grid`: a huge one thinned) and
+    the words its caption adds when thinned (how to get every cell)."""
+    corner = f"{pair.first.feature} \\ {pair.second.feature}"
+    table, words = report_grid(grid, corner, pair.first.missing, pair.second.missing)
+    return table, (f" ({words}; glassbox shapes with --pair '{pair.name}' and --format csv "
+                   "writes every cell, one line per cell)" if words else "")
 
 
 def _percent(share: float) -> str:
