@@ -139,8 +139,8 @@ def change_rows(model, plan) -> tuple[list[tuple[str, str, str, str]], list[Any]
 
 def pair_rows(plan) -> list[tuple[str, str]]:
     """The pairwise terms a plan moves as (pair, before -> after) rows, values on the
-    model's scale (three significant digits)."""
-    return [(name, f"{before:+.3g} -> {after:+.3g}") for name, before, after in plan.pairs]
+    model's scale (four decimals)."""
+    return [(name, f"{before:+.4f} -> {after:+.4f}") for name, before, after in plan.pairs]
 
 
 def pair_table(model, plan) -> FittedTable:

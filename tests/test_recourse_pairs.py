@@ -285,7 +285,7 @@ def test_a_plan_shows_the_pairs_it_moves_in_the_terminal_json_and_csv():
     text = console.export_text()
     assert "Pairwise terms it moves (log-odds)" in text
     line = next(line for line in text.splitlines() if "x & y" in line)
-    assert line.split() == ["x", "&", "y", "+0", "->", "-2"]
+    assert line.split() == ["x", "&", "y", "+0.0000", "->", "-2.0000"]
     assert max(len(line) for line in text.splitlines()) <= 80
     record = json.loads(json.dumps(plan_records(result)))
     assert record["plans"][0]["pairs"] == [{"pair": "x & y", "before": 0.0, "after": -2.0}]
