@@ -175,3 +175,21 @@ def test_the_csv_carries_the_pairs_marked_and_equal_to_the_json(setting):
     # whole numbers stay whole in the text ("0", not "0.0") where pairs leave cells empty
     text = pd.read_csv(io.StringIO(to_monitoring_csv(result)), dtype=str)
     assert text.loc[text["kind"] == "feature", "new_level_rows"].str.fullmatch(r"\d+").all()
+
+
+def test_a_card_with_pair_grids_is_refused_in_points_rather_than_summed_without_them(
+        setting):
+    """Monitoring in points sums the card's feature points only; a card with points grids
+    for pairs would read short, so it is refused, naming the grids (constructed: the card
+    of the real-data pair model)."""
+    from glassbox.core.errors import OptionError
+    from glassbox.explaining.points import points_card
+
+    model, frame, late, folder = setting
+    if model.task != "classification":
+        pytest.skip("points cards are for classification")
+    card = points_card(model)
+    assert card.pairs
+    with pytest.raises(OptionError, match="points grids for pairs") as caught:
+        monitor(model, [folder / "late.csv"], card=card)
+    assert all(p.name in str(caught.value) for p in model.pairs)

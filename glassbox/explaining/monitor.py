@@ -38,6 +38,7 @@ from glassbox.core.stream import (
     renumbered,
     row_groups,
 )
+from glassbox.core.wording import plural
 from glassbox.core.workers import become_worker, pool_running, sigint_held
 from glassbox.explaining.baseline import Baseline, check_baseline, model_baseline
 from glassbox.explaining.cards import PointsCard
@@ -80,6 +81,12 @@ def monitor(model: AdditiveModel, inputs: Sequence[str | Path], *, period: str |
     if card is not None and card.model_checksum not in (None, checksum):
         raise OptionError("the points card was made from another model (its model checksum "
                           "differs from this model file's)")
+    if card is not None and card.pairs:  # its totals would leave the pair grids out
+        raise OptionError(
+            f"monitoring in points does not read a card's points grids for pairs yet, and "
+            f"this card has {plural(len(card.pairs), 'grid')} "
+            f"({', '.join(p.name for p in card.pairs)}); monitor without --points: the "
+            "log-odds tables cover the pairs")
     target = model.schema.target.column
     plans: list[tuple[Source, Plan]] = []
     labels = _file_labels(inputs)
