@@ -44,6 +44,7 @@ from recourse.grid import (
     _first_past,
     _nearest_allowed,
     _points,
+    grid_run,
     rounded,
 )
 from recourse.mutability import ANY_LEVEL, NO_SPREAD, FeatureRule, Mutability, unit_spread
@@ -408,16 +409,11 @@ def _every_value(term: Any, now: float, lower: float, upper: float, step: float 
                 "feature, so every value its rules allow is weighed; it may move "
                 f"{'up' if side > 0 else 'down'} without end: give "
                 f"{'upper' if side > 0 else 'lower'} (or a percentile bound, or largest_change)")
-        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
-        last = int(_first_past(now, step, side, np.array([bound]), False)[0]) - 1
-        count += max(0, last - first + 1)
-        if count > MOST_VALUES:
-            raise MutabilityError(
-                f"[feature.{term.feature}] a link or level_bound pairs it with another "
-                f"feature, so every value its rules allow is weighed: more than "
-                f"{MOST_VALUES:,} on its step grid; use a coarser step or tighter bounds")
-        if last >= first:
-            found.append(_points(now, step, side, np.arange(first, last + 1)))
+        beyond = int(_first_past(now, step, side, np.array([bound]), False)[0]) - 1
+        count = grid_run(term.feature, now, step, side, lower, upper,
+                         lambda first, beyond=beyond: beyond, count, found,
+                         "a link or level_bound pairs it with another feature, so every "
+                         "value its rules allow is weighed")
     values = _distinct(np.concatenate([np.empty(0), *found, [now] if keep_now else []]))
     return values[(values >= lower) & (values <= upper)]
 

@@ -109,3 +109,20 @@ def _distinct(values: np.ndarray) -> np.ndarray:
     """Sorted, without repeats (np.unique hashes first, which was most of the time here)."""
     values = np.sort(values)
     return values[np.concatenate([[True], values[1:] != values[:-1]])] if len(values) else values
+
+
+def grid_run(feature: str, now: float, step: float, side: int, lower: float, upper: float,
+             last_of: Callable[[int], int], count: int, found: list[np.ndarray],
+             why: str) -> int:
+    """Append to `found` the allowed step-grid points on one side of `now`, from the nearest
+    allowed to `last_of(first)` (in steps); return the running count, refusing a grid
+    longer than MOST_VALUES with `why` (why every point is weighed) in the message."""
+    first = _nearest_allowed(feature, now, step, side, lower, upper)
+    last = last_of(first)
+    count += max(0, last - first + 1)
+    if count > MOST_VALUES:
+        raise MutabilityError(f"[feature.{feature}] {why}: more than {MOST_VALUES:,} on its "
+                              "step grid; use a coarser step or tighter bounds")
+    if last >= first:
+        found.append(_points(now, step, side, np.arange(first, last + 1)))
+    return count

@@ -28,15 +28,7 @@ import numpy as np
 
 from glassbox.core.additive import AdditiveModel, CurveTerm
 from glassbox.core.pairs import Axis, PairTerm, add_to_main
-from recourse.errors import MutabilityError
-from recourse.grid import (
-    LARGEST_STEP_COUNT,
-    MOST_VALUES,
-    _distinct,
-    _first_past,
-    _nearest_allowed,
-    _points,
-)
+from recourse.grid import LARGEST_STEP_COUNT, _distinct, _first_past, grid_run
 from recourse.pair_rules import movable
 from recourse.pairs import PairValues
 
@@ -254,19 +246,15 @@ def curve_grid(term: CurveTerm, now: float, lower: float, upper: float,
     for side, bound in ((-1, lower), (1, upper)):
         if not side * (bound - now) > 0:
             continue
-        first = _nearest_allowed(term.feature, now, step, side, lower, upper)
         outer = knots[-1] if side > 0 else knots[0]
         ends = _first_past(now, step, side, np.array([outer, bound]), np.array([True, False]))
-        last = max(int(ends[0]), first)
-        if ends[1] <= LARGEST_STEP_COUNT:
-            last = min(last, int(ends[1]) - 1)
-        count += max(0, last - first + 1)
-        if count > MOST_VALUES:
-            raise MutabilityError(
-                f"[feature.{term.feature}] a pairwise term of the model reads it with another "
-                f"movable feature, so every point of its step grid up to the outermost knot "
-                f"is weighed: more than {MOST_VALUES:,}; use a coarser step or tighter bounds")
-        if last >= first:
-            found.append(_points(now, step, side, np.arange(first, last + 1)))
+
+        def last_of(first: int, ends: np.ndarray = ends) -> int:
+            last = max(int(ends[0]), first)
+            return min(last, int(ends[1]) - 1) if ends[1] <= LARGEST_STEP_COUNT else last
+        count = grid_run(term.feature, now, step, side, lower, upper, last_of, count, found,
+                         "a pairwise term of the model reads it with another movable "
+                         "feature, so every point of its step grid up to the outermost knot "
+                         "is weighed")
     values = _distinct(np.concatenate([np.empty(0), *found]))
     return values[(values != now) & (values >= lower) & (values <= upper)]

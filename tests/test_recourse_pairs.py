@@ -194,13 +194,21 @@ def test_cheapest_plan_is_the_brute_force_minimum(case):
     assert planned >= 3, case  # the check must have plans to compare
 
 
-def test_a_population_with_pairs_equals_one_by_one_planning():
+def three_pair_batch(rows: int, plans: int):
+    """The three-pair credit_data model, its rules on Income, Seniority and Debt, and the
+    exact batch of plans for the declined among the first `rows` rows."""
     model = model_for("three")
     rules = {n: RULES[n] for n in ("Income", "Seniority", "Debt")}
     mutability = mutability_from_dict({"goal": GOAL, "feature": rules}, model)
+    positions, encoded, parts, ids = typed_declined(model, credit_rows().iloc[:rows],
+                                                    mutability)
+    batch = plan_typed_rows(model, encoded, parts, ids, mutability, plans, "exact")
+    return model, mutability, positions, batch
+
+
+def test_a_population_with_pairs_equals_one_by_one_planning():
+    model, mutability, positions, batch = three_pair_batch(400, 2)
     rows = credit_rows().iloc[:400]
-    positions, encoded, parts, ids = typed_declined(model, rows, mutability)
-    batch = plan_typed_rows(model, encoded, parts, ids, mutability, 2, "exact")
     assert len(batch) == len(positions) > 20
     for position, result in zip(positions, batch, strict=True):
         alone = find_plans(model, rows.iloc[position], mutability, n_plans=2, solver="highs")
@@ -311,12 +319,7 @@ def test_no_plan_diagnosis_reads_a_fixed_feature_with_its_pairs():
 
 
 def test_the_reach_file_counts_rows_handed_to_the_integer_program():
-    model = model_for("three")
-    rules = {n: RULES[n] for n in ("Income", "Seniority", "Debt")}
-    mutability = mutability_from_dict({"goal": GOAL, "feature": rules}, model)
-    rows = credit_rows().iloc[:150]
-    _, encoded, parts, ids = typed_declined(model, rows, mutability)
-    batch = plan_typed_rows(model, encoded, parts, ids, mutability, 1, "exact")
+    model, mutability, _, batch = three_pair_batch(150, 1)
     handed = sum(bool(r.handed_off) for r in batch)
     document = json.loads(reach.to_json(reach.reach(outcome_frame(batch, model))))
     assert handed > 0 and document["summary"]["handed_off"] == handed
