@@ -234,6 +234,26 @@ def test_fit_score_export_lines(made):
     _ok(invoke(app, ["export", made["spline"], "--sql", "--out", made["folder"] / "s.sql"]))
 
 
+def test_fit_summary_of_spline_pairs_shows_stray_and_binning(made, monkeypatch):
+    """`glassbox fit --family spline --pairs 2` on the demo listings (invented data), with the
+    pair table budget cut to 600 entries (constructed: the promise cannot be kept for price
+    by distance to the coast): every word of the library's pair lines (the table that strays
+    above the promise, each binned pair's cells and change) is shown at 80 columns."""
+    from glassbox.fitting.families import spline_pair_knots
+    from glassbox.publishing.render import pair_fit_lines
+
+    monkeypatch.setattr(spline_pair_knots, "TABLE_ENTRIES", 600)
+    out = made["folder"] / "listings.pairs.json"
+    text = invoke(app, ["fit", DEMO / "listings.csv", "--schema",
+                        DEMO / "listings.schema.toml", "--family", "spline", "--pairs", "2",
+                        "--out", out])
+    lines = pair_fit_lines(artifact.load(out).metadata["details"]["pairs"])
+    assert list(lines) == ["pair table off its surface (promise 0.001)",
+                           "pairs binned (largest change)"]
+    assert "nightly_price & distance_to_coast_km" in lines[next(iter(lines))]
+    _ok(text, [word for item in lines.items() for word in item])
+
+
 @pytest.mark.parametrize("model", ["spline", "credit"])
 def test_shapes_every_feature(made, model):
     """The summary and each feature's table (numbers, categories, flags, a thinned curve),

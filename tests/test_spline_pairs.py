@@ -11,6 +11,7 @@ from glassbox import fit_model
 from glassbox.core.artifact import dumps
 from glassbox.core.schema import Schema, prepare
 from glassbox.fitting.families.spline import plan_terms
+from glassbox.fitting.families.spline_pair_knots import FIDELITY
 from glassbox.fitting.families.spline_pairs import axis_candidates, fit_pairs
 from glassbox.fitting.fit import _missing_as_level, unpooled
 
@@ -133,7 +134,9 @@ def test_tables_are_the_tensor_surface_at_their_knots_and_the_stray_is_recorded(
                 columns.append(margin.plan.scale(values))
         stray = float(np.max(np.abs(table - pygam_surface(*columns))))
         assert stray == pytest.approx(errors[pair.name], abs=1e-9), pair.name
-        assert stray < 1e-2
+        # the promise (spline_pair_knots.FIDELITY, README: 0.001 on the log-odds scale)
+        assert fitted.details["pairs"]["table_tolerance"][pair.name] == FIDELITY
+        assert stray <= FIDELITY, pair.name
     assert max(fitted.details["pairs"]["table_error"].values()) > 0
 
 

@@ -126,6 +126,7 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
             f"{binning['loss_at_bin_points']:.6g} / {binning['loss_at_values']:.6g}")
     elif isinstance(binning, dict) and binning.get("exact"):
         pairs["binned"] = "no: every value its own bin (exact)"
+    pairs |= pair_fit_lines(details.get("pairs"))
     routed = (meta.get("details") or {}).get("missing_not_learned")
     if routed:
         pairs["missing entry not learned (all gaps in validation part)"] = ", ".join(routed)
@@ -143,6 +144,33 @@ def fit_view(model: AdditiveModel, fit: Mapping[str, float], path: str) -> Rende
     for key, value in fit.items():
         pairs[f"{names.get(key, key)} (training rows)"] = f"{value:.4f}" if alike else value
     return key_values(pairs, title="Fitted")
+
+
+def pair_fit_lines(record: Any) -> dict[str, str]:
+    """The fit summary's lines on the spline pair stage (`details["pairs"]`): each pair table
+    that strays from its surface by more than the promise, with its knots; each binned
+    pair's cells and largest change at its rows (as the mains' "binned" line)."""
+    if not isinstance(record, dict):
+        return {}
+    lines: dict[str, str] = {}
+    promise = record.get("table_promise")
+    knots = record.get("table_knots") or {}
+    if promise is not None:
+        above = {name: stray for name, stray in (record.get("table_error") or {}).items()
+                 if stray > promise}
+        if above:
+            lines[f"pair table off its surface (promise {promise:g})"] = "; ".join(
+                f"{name}: {stray:.2g} ("
+                f"{' x '.join(str(n) for n in knots.get(name, ()))} entries: the budget)"
+                for name, stray in above.items())
+    binned = {name: entry for name, entry in (record.get("bins") or {}).items()
+              if not entry.get("exact", True)}
+    if binned:
+        lines["pairs binned (largest change)"] = "; ".join(
+            f"{name}: {entry['cells']:,} cells"
+            + (f" for {entry['value_pairs']:,} value pairs" if "value_pairs" in entry else "")
+            + f" ({entry['largest_change']:.2g})" for name, entry in binned.items())
+    return lines
 
 
 SUMMARY_TITLE = ("Features by importance (mean |contribution| on the {scale} scale; "

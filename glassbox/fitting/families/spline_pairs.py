@@ -28,16 +28,15 @@ Bins. A pair's rows are binned in cells: the cells of the two features' bins (sp
 `bin_column`, the same `bins` as the mains: exact when a feature has at most `bins`
 distinct values), each cell at its two bin points. The normal equations come from the cells
 (a sparse count of rows per pair of cells for two pairs). A binned pair's largest change at
-the rows (surface at the row's own values against at its cell's point) is recorded.
+the rows (surface at the row's own values against at its cell's point) is recorded, beside
+its cells and the distinct pairs of values in its rows (`value_pairs`).
 
 Tables. A number's axis is `knots` (bilinear between), a category's `levels`, a two-valued
-number's `knots` at its two values. The knots start as in spline_tables and are refined
-where the bilinear table strays more than `FIDELITY` from the surface over a candidate grid
-(every whole number for an integer with a short range; else every distinct training value
-when at most `MANY_DISTINCT`, otherwise 1,001 training quantiles; plus 1,001 even points),
-up to `PAIR_KNOTS` knots per axis (more, up to `AXIS_KNOTS`, where the other axis is short:
-a table of at most `TABLE_ENTRIES` entries); the largest stray left over the candidate
-grid is `details["pairs"]["table_error"]`.
+number's `knots` at its two values. A number's knots are placed where the surface bends
+(spline_pair_knots) so that the table scores within `FIDELITY` (0.001 on the link scale, the
+promise the curves keep) of the surface over a fine grid of candidates; a table that would
+need more than its knot budget is placed at a wider tolerance, and the largest stray left is
+`details["pairs"]["table_error"]` (the tolerance used: `table_tolerance`).
 A number with missing training values has a missing entry: the surface at the stand-in its
 main term uses (its median), the value its missing rows were fitted at. What the soft
 constraint leaves of wrong-way steps along a monotone axis is removed from the table and
@@ -59,15 +58,17 @@ from glassbox.core.pairs import Axis, PairTerm, pair_name, table_tuple
 from glassbox.core.schema import Schema
 from glassbox.fitting.families.spline_bins import bin_column, extent_matrix
 from glassbox.fitting.families.spline_iterate import Fitted, fit_binned
+from glassbox.fitting.families.spline_pair_knots import (
+    FIDELITY,
+    Placed,
+    place_knots,
+    required_knots,
+)
+from glassbox.fitting.families.spline_pair_knots import axis_candidates as candidates_of
 from glassbox.fitting.families.spline_penalty import build_problem
-from glassbox.fitting.families.spline_tables import CANDIDATES, FIDELITY, START_SHARE
 from glassbox.fitting.pair_ranking import PairRank, rank_pairs
 
 PAIR_SPLINES = 8  # basis functions per number's axis of a tensor term (at most)
-PAIR_KNOTS = 64  # knots per number's axis of a pair table (at most), or more where the
-TABLE_ENTRIES = 4096  # other axis is short: up to this many entries, at most `AXIS_KNOTS`
-AXIS_KNOTS = 400
-MANY_DISTINCT = 2000  # more distinct values than this: candidates at training quantiles
 RANKING_KEPT = 20  # the first this many pairs of the ranking are recorded
 
 
@@ -244,7 +245,8 @@ def fit_pairs(features: pd.DataFrame, target: np.ndarray, schema: Schema,
         grid_points[:, at[b]] = pb[keys % len(pb)]
         cells.append(inverse.astype(np.int64).ravel())
         bases.append(np.asarray(tensors[k].build_columns(grid_points).toarray(), dtype=float))
-        binning[pair_name(a, b)] = {"cells": int(len(keys)), "exact": bool(ea and eb)}
+        binning[pair_name(a, b)] = {"cells": int(len(keys)), "exact": bool(ea and eb),
+                                    "value_pairs": int(len(features[[a, b]].drop_duplicates()))}
     positions = tuple(np.asarray(terms.get_coef_indices(i)) for i in range(len(chosen) + 1))
     data = Cells(np.asarray(offset, dtype=float), tuple(cells), tuple(bases), positions,
                  int(terms.n_coefs))
@@ -257,9 +259,9 @@ def fit_pairs(features: pd.DataFrame, target: np.ndarray, schema: Schema,
                                  tensors[k]._terms[0].n_coefs,  # noqa: SLF001
                                  tensors[k]._terms[1].n_coefs))  # noqa: SLF001
                      for k, (a, b) in enumerate(chosen))
-    tables, errors, repairs = [], {}, {}
+    tables, placed, repairs = [], {}, {}
     for surface in surfaces:
-        table, errors[pair_name(surface.first.feature, surface.second.feature)], repair = (
+        table, placed[pair_name(surface.first.feature, surface.second.feature)], repair = (
             tabulate(surface, features))
         tables.append(table)
         if repair is not None:
@@ -270,7 +272,7 @@ def fit_pairs(features: pd.DataFrame, target: np.ndarray, schema: Schema,
             own = surface.at(surface.first.column, surface.second.column)
             binning[name]["largest_change"] = float(np.max(np.abs(
                 own - (bases[k] @ fitted.coef[positions[k]])[cells[k]])))
-    record |= stage_record(fitted, grid, chosen, margins, tables, errors, repairs, binning)
+    record |= stage_record(fitted, grid, chosen, margins, tables, placed, repairs, binning)
     return PairFit(tuple(tables), float(fitted.coef[positions[-1]][0]), {"pairs": record},
                    surfaces)
 
@@ -294,102 +296,32 @@ def chains(chosen: Sequence[tuple[str, str]], margins: dict[str, Marginal],
 
 
 def axis_candidates(margin: Marginal, raw: np.ndarray) -> np.ndarray:
-    """Where a number's axis is checked (see the module), in the feature's own units."""
-    present = raw[~np.isnan(raw)]
-    distinct = np.unique(present)
-    low, high = float(distinct[0]), float(distinct[-1])
-    if margin.plan.whole and high - low < CANDIDATES:
-        return np.arange(low, high + 1)
-    if len(distinct) > MANY_DISTINCT:
-        distinct = np.quantile(present, np.linspace(0, 1, CANDIDATES), method="inverted_cdf")
-    return np.unique(np.concatenate([distinct, np.linspace(low, high, CANDIDATES)]))
-
-
-def start_knots(candidates: np.ndarray, raw: np.ndarray) -> np.ndarray:
-    """The first knots of a number's axis (positions in `candidates`)."""
-    if len(candidates) <= PAIR_KNOTS:
-        return np.arange(len(candidates))
-    present = raw[~np.isnan(raw)]
-    distinct = np.unique(present)
-    if len(distinct) <= PAIR_KNOTS // 2:
-        return np.searchsorted(candidates, distinct)
-    start = max(2, PAIR_KNOTS // START_SHARE)
-    return np.unique(np.concatenate([
-        np.linspace(0, len(candidates) - 1, start).round().astype(int),
-        np.searchsorted(candidates, np.quantile(present, np.linspace(0, 1, start),
-                                                method="inverted_cdf"))]))
-
-
-def interpolation(candidates: np.ndarray, chosen: np.ndarray) -> np.ndarray:
-    """The matrix that reads every candidate linearly between the chosen ones."""
-    knots = candidates[chosen]
-    weights = np.zeros((len(candidates), len(chosen)))
-    if len(chosen) == 1:
-        weights[:, 0] = 1.0
-        return weights
-    low = np.clip(np.searchsorted(knots, candidates, side="right") - 1, 0, len(knots) - 2)
-    share = np.clip((candidates - knots[low]) / (knots[low + 1] - knots[low]), 0.0, 1.0)
-    rows = np.arange(len(candidates))
-    weights[rows, low] = 1.0 - share
-    weights[rows, low + 1] += share
-    return weights
-
-
-def refine(truth: np.ndarray, candidates: Sequence[np.ndarray],
-           chosen: list[np.ndarray], open_axes: Sequence[bool]) -> tuple[list[np.ndarray],
-                                                                          float]:
-    """Add knots on the open axes where the bilinear table strays more than `FIDELITY`
-    from `truth` (candidates x candidates), the worst candidate in each straying gap, until
-    none strays or no axis has room; the knots and the largest stray left. A closed axis
-    has every candidate chosen."""
-    while True:
-        reads = [interpolation(c, k) for c, k in zip(candidates, chosen, strict=True)]
-        table = truth[np.ix_(chosen[0], chosen[1])]
-        error = np.abs(reads[0] @ table @ reads[1].T - truth)
-        worst = float(error.max())
-        added = False
-        for axis in (0, 1):
-            limit = min(AXIS_KNOTS, max(PAIR_KNOTS, TABLE_ENTRIES // len(chosen[1 - axis])))
-            room = limit - len(chosen[axis])
-            if not open_axes[axis] or room <= 0 or worst <= FIDELITY:
-                continue
-            along = error.max(axis=1 - axis)
-            along[chosen[axis]] = 0.0  # a knot's own stray is the other axis's to fix
-            gap = np.searchsorted(chosen[axis], np.arange(len(candidates[axis])))
-            order = np.lexsort((-along, gap))
-            first = order[np.r_[True, np.diff(gap[order]) != 0]]
-            bad = first[along[first] > FIDELITY]
-            bad = bad[np.argsort(-along[bad], kind="stable")][:room]
-            if len(bad):
-                chosen[axis] = np.unique(np.concatenate([chosen[axis], bad]))
-                added = True
-        if not added:
-            return chosen, worst
+    """Where a number's axis is checked (spline_pair_knots), in the feature's own units."""
+    return candidates_of(margin.plan.whole, raw, margin.plan.scale)
 
 
 def tabulate(surface: Surface, features: pd.DataFrame
-             ) -> tuple[PairTerm, float, float | None]:
-    """The pair's table (see the module), the largest stray left between knots, and the
-    monotone repair (None: no monotone axis)."""
+             ) -> tuple[PairTerm, Placed, float | None]:
+    """The pair's table (see the module), where its knots went with the largest stray they
+    leave, and the monotone repair (None: no monotone axis)."""
     margins = (surface.first, surface.second)
-    candidates, chosen, columns, raws = [], [], [], []
+    candidates, required, columns = [], [], []
     for margin in margins:
         if margin.coded:
             codes = np.arange(len(margin.plan.levels) if margin.plan.kind == "levels"
                               else 2, dtype=float)
             candidates.append(codes)
-            chosen.append(np.arange(len(codes)))
+            required.append(np.arange(len(codes)))
             columns.append(codes)
-            raws.append(None)
             continue
         raw = features[margin.feature].to_numpy(dtype=float)
         found = axis_candidates(margin, raw)
         candidates.append(found)
-        chosen.append(start_knots(found, raw))
+        required.append(required_knots(found, raw))
         columns.append(margin.to_column(found))
-        raws.append(raw)
     truth = surface.grid(columns[0], columns[1])
-    chosen, stray = refine(truth, candidates, chosen, [not m.coded for m in margins])
+    placed = place_knots(truth, candidates, required, [not m.coded for m in margins])
+    chosen = placed.chosen
     values = truth[np.ix_(chosen[0], chosen[1])]
     axes, extra = [], []
     for i, margin in enumerate(margins):
@@ -428,12 +360,12 @@ def tabulate(surface: Surface, features: pd.DataFrame
             values[own, :] = repaired
         else:
             values[:, own] = repaired
-    return PairTerm(axes[0], axes[1], table_tuple(values)), stray, repair
+    return PairTerm(axes[0], axes[1], table_tuple(values)), placed, repair
 
 
 def stage_record(fitted: Fitted, grid: Sequence[float], chosen: Sequence[tuple[str, str]],
                  margins: dict[str, Marginal], tables: Sequence[PairTerm],
-                 errors: dict[str, float], repairs: dict[str, float],
+                 placed: dict[str, Placed], repairs: dict[str, float],
                  binning: dict[str, Any]) -> dict[str, Any]:
     """What the pair stage did, for `details["pairs"]`."""
 
@@ -458,7 +390,9 @@ def stage_record(fitted: Fitted, grid: Sequence[float], chosen: Sequence[tuple[s
         "converged": fitted.converged,
         "iterations": fitted.steps,
         "penalties_settled": fitted.unsettled is None,
-        "table_error": errors,
+        "table_error": {name: p.stray for name, p in placed.items()},
+        "table_promise": FIDELITY,
+        "table_tolerance": {name: p.tolerance for name, p in placed.items()},
         "table_knots": {t.name: [t.first.size, t.second.size] for t in tables},
         "monotone_repair": repairs,
         "bins": binning,
