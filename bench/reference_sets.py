@@ -31,6 +31,7 @@ class RealSet:
     dropped: tuple[str, ...] = ()  # leaks and row labels
     note: str = ""
     kinds: dict[str, str] = field(default_factory=dict)  # where the guessed kind is wrong
+    extra: dict[str, dict] = field(default_factory=dict)  # more schema keys per feature
 
     @property
     def classify(self) -> bool:
@@ -53,7 +54,7 @@ SETS: tuple[RealSet, ...] = (
     RealSet("consumer loans (modeldata lending_club)", "modeldata", "lending_club", "Class",
             "bad", "lower"),
     RealSet("telecom churn (modeldata mlc_churn)", "modeldata", "mlc_churn", "churn", "yes",
-            "lower"),
+            "lower", extra={"state": {"pool_below": 0}}),  # all 51 levels kept
     RealSet("telecom churn (modeldata wa_churn)", "modeldata", "wa_churn", "churn", "Yes",
             "lower", protected=("female", "senior_citizen")),
     RealSet("attrition (modeldata attrition)", "modeldata", "attrition", "Attrition", "Yes",
@@ -85,7 +86,8 @@ def schema_for(entry: RealSet, frame: pd.DataFrame) -> Schema:
             continue
         kind = entry.kinds.get(name) or infer_kind(frame[name])
         features[name] = {"kind": kind, **({"protected": True}
-                                           if name in entry.protected else {})}
+                                           if name in entry.protected else {}),
+                          **entry.extra.get(name, {})}
     target: dict = {"column": entry.target, "better": entry.better}
     if entry.classify:
         target["positive"] = entry.positive

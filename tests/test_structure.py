@@ -272,6 +272,19 @@ COMPARISON_CASES = {
         _set(["settings", "benchmark_tuning", 0, "tried", 2, "validation_loss"], -0.5),
         "settings.benchmark_tuning[0].tried[2].validation_loss must be a finite number of "
         "at least 0"),
+    # a fold's search record must add up (issue 19; constructed damage, default budget 12):
+    # chosen_candidate <= candidates_tried <= budget, and one tried entry per candidate
+    "adds up: the chosen candidate beyond those tried": (
+        _set(["settings", "benchmark_tuning", 0, "chosen_candidate"], 13),
+        "benchmark_tuning entry 1 (repeat 0, fold 0) does not add up: chosen_candidate 13 "
+        "<= candidates_tried 12 <= budget 12 should hold"),
+    "adds up: more tried than the budget": (
+        _set(["settings", "benchmark_tuning", 1, "candidates_tried"], 13),
+        "benchmark_tuning entry 2 (repeat 0, fold 1) does not add up: chosen_candidate"),
+    "adds up: a tried candidate missing from the list": (
+        _drop(["settings", "benchmark_tuning", 1, "tried", 3]),
+        "benchmark_tuning entry 2 (repeat 0, fold 1) lists 11 tried candidates but says "
+        "candidates_tried 12"),
     "type: the budget as text": (_set(["settings", "benchmark_budget"], "12"),
                                  "settings.benchmark_budget must be a whole number"),
     "type: the outside scores' hash": (_set(["provenance", "benchmark_scores_sha256"], 7),

@@ -44,6 +44,24 @@ def _version_one_costs(differences: list[dict[str, Any]]) -> list[dict[str, Any]
     return costs
 
 
+def check_tuning(rows: list[dict[str, Any]], source: str) -> None:
+    """Each fold's search record adds up: the chosen candidate is one of those tried
+    (chosen_candidate <= candidates_tried), no more were tried than the budget allows
+    (candidates_tried <= budget), and the list of tried candidates has that length."""
+    for number, row in enumerate(rows, start=1):
+        where = (f"{source}: settings.benchmark_tuning entry {number} (repeat "
+                 f"{value_text(row['repeat'])}, fold {value_text(row['fold'])})")
+        chosen, tried, budget = (row["chosen_candidate"], row["candidates_tried"],
+                                 row["budget"])
+        if not chosen <= tried <= budget:
+            raise DataError(f"{where} does not add up: chosen_candidate {value_text(chosen)} "
+                            f"<= candidates_tried {value_text(tried)} <= budget "
+                            f"{value_text(budget)} should hold")
+        if "tried" in row and len(row["tried"]) != tried:
+            raise DataError(f"{where} lists {len(row['tried'])} tried candidates but says "
+                            f"candidates_tried {value_text(tried)}")
+
+
 def comparison_from_dict(document: Any, source: str = "the comparison") -> Comparison:
     """Rebuild a `Comparison` from `Comparison.to_dict` output (a comparison JSON file).
 
@@ -60,6 +78,7 @@ def comparison_from_dict(document: Any, source: str = "the comparison") -> Compa
                         f"reads versions {', '.join(map(str, READ_VERSIONS[:-1]))} and "
                         f"{VERSION}")
     structure.check(structure.COMPARISON, document, source, DataError)
+    check_tuning(document["settings"].get("benchmark_tuning") or [], source)
 
     def table(rows: Any) -> pd.DataFrame:
         frame = pd.DataFrame(rows or [])
