@@ -101,7 +101,7 @@ demo: $(STAMP)
 
 test: $(STAMP) browser engines
 	$(BIN)/ruff check .
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n 2  # two processes side by side (pytest-xdist): two cores
 
 # headless Chromium for the report's browser test, installed only where it can be
 # (Debian, as root); never fails: the test skips itself without it

@@ -25,6 +25,7 @@ import pandas as pd
 from scipy.stats import loguniform, randint, uniform
 
 from bench.reference_sets import SETS, RealSet, read_set, schema_for
+from tests.real_credit import sklearn_matrix as raw_matrix  # built independently of glassbox
 
 REFERENCE_CANDIDATES = 30
 INNER_FOLDS = 3
@@ -38,30 +39,6 @@ RMSE_TARGET = 0.02
 WIDER = {"learning_rate": loguniform(0.01, 0.3), "max_leaf_nodes": randint(3, 128),
          "min_samples_leaf": randint(2, 120), "l2_regularization": loguniform(1e-3, 30),
          "max_features": uniform(0.3, 0.7)}
-
-
-def raw_matrix(features: pd.DataFrame) -> tuple[np.ndarray, list[bool]]:
-    """Numbers as they are (NaN kept); text columns as codes of their sorted levels, a
-    missing value one more level. Built here independently of glassbox."""
-    columns, categorical = [], []
-    for name in features.columns:
-        column = features[name]
-        if column.dtype == object:
-            filled = column.where(column.notna(), "(missing)").astype(str)
-            columns.append(pd.Categorical(filled, categories=sorted(set(filled))).codes
-                           .astype(float))
-            categorical.append(True)
-        else:
-            columns.append(column.to_numpy(dtype=float))
-            categorical.append(False)
-    return np.column_stack(columns), categorical
-
-
-def reference_search(train_rows: int, classify: bool) -> tuple[int, int, bool]:
-    """(candidates, inner folds, rounds searched) for a training fold of `train_rows`."""
-    if train_rows < SMALL_FOLD:
-        return SMALL_CANDIDATES, SMALL_INNER_FOLDS, not classify
-    return REFERENCE_CANDIDATES, INNER_FOLDS, False
 
 
 def reference_fold(matrix: np.ndarray, categorical: list[bool], target: np.ndarray,

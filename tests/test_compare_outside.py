@@ -64,6 +64,7 @@ def test_outside_scores_are_the_benchmark_fold_by_fold(tmp_path):
     folds_file = tmp_path / "folds.csv"
     first = run("compare", data_file, "--schema", schema_file, "--family", "sparse",
                 "--folds", 3, "--repeats", 2, "--folds-out", folds_file,
+                "--benchmark-budget", 2,  # the folds file is checked, not the benchmark
                 "--out", tmp_path / "built_in.json")
     assert first.exit_code == 0, first.output
     folds = pd.read_csv(folds_file)

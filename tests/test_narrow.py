@@ -398,8 +398,15 @@ def test_monitor_changes_compare(made, compared):
     cells = [*frame_cells(tables.metric_grid(comparison)), *frame_cells(grid),
              *frame_cells(tables.cost_table(comparison))]
     _ok(text.split("wrote comparison")[0], cells)
-    # every model's deciles in ONE table: the heading row names each model once
-    assert len(grid) == 10 and list(grid.columns[:2]) == ["decile", "rows"]
+    # every model's deciles in ONE table: the heading row names each model once; one rows
+    # column when every model's deciles hold the same rows, else one per model (ties in a
+    # model's predictions make its deciles unequal)
+    models = list(dict.fromkeys(comparison.calibration["model"]))
+    rows = comparison.calibration.pivot(index="decile", columns="model", values="rows")
+    shared = all(rows[m].equals(rows[models[0]]) for m in models)
+    expected = ["decile", "rows", *models] if shared else [
+        "decile", *[c for m in models for c in (f"{m} rows", m)]]
+    assert len(grid) == 10 and list(grid.columns) == expected
     assert text.count("by decile") == 1 and "sparse: observed against" not in text
 
 
