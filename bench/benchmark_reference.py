@@ -41,6 +41,13 @@ WIDER = {"learning_rate": loguniform(0.01, 0.3), "max_leaf_nodes": randint(3, 12
          "max_features": uniform(0.3, 0.7)}
 
 
+def reference_search(train_rows: int, classify: bool) -> tuple[int, int, bool]:
+    """(candidates, inner folds, rounds searched) for a training fold of `train_rows`."""
+    if train_rows < SMALL_FOLD:
+        return SMALL_CANDIDATES, SMALL_INNER_FOLDS, not classify
+    return REFERENCE_CANDIDATES, INNER_FOLDS, False
+
+
 def reference_fold(matrix: np.ndarray, categorical: list[bool], target: np.ndarray,
                    train: np.ndarray, test: np.ndarray, classify: bool) -> np.ndarray:
     """The reference's held-out probability (or prediction), tuned on `train` only."""
