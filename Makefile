@@ -41,7 +41,7 @@ demo: $(STAMP)
 	@echo "== 7. the cottage listings: which reach the top rating tier"
 	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family spline --out $(OUT)/listings.spline.json
 	$(GB) shapes $(OUT)/listings.spline.json --feature nightly_price --plot $(OUT)/listings-plots
-	@echo "       price matters differently near the coast: boosted with its 2 strongest pairs"
+	@echo "       price matters differently near the coast: boosted, 2 strongest pairs"
 	$(GB) fit demo_data/listings.csv --schema demo_data/listings.schema.toml --family boosted --pairs 2 --out $(OUT)/listings.boosted.json
 	$(GB) shapes $(OUT)/listings.boosted.json --pair 'nightly_price & distance_to_coast_km' --plot $(OUT)/listings-plots
 	@echo "== 8. recourse: what could a declined applicant change?"
@@ -54,7 +54,7 @@ demo: $(STAMP)
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L003719 --plans 1
 	@echo "== 10. a cottage listing below the top tier"
 	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
-	@echo "       the same listing on the model with pairs: the plan reads the pair tables exactly"
+	@echo "       the same listing, model with pairs (plans read pair tables exactly)"
 	$(BIN)/recourse plan $(OUT)/listings.boosted.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 1
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
 	@head -1001 demo_data/loans.csv > $(OUT)/loans.first1000.csv
