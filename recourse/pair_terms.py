@@ -32,6 +32,7 @@ from recourse.grid import LARGEST_STEP_COUNT, _distinct, _first_past, grid_run
 from recourse.pair_rules import movable
 from recourse.pairs import PairValues
 
+SAME_VALUE = 1e-12  # a pair's value moved by no more than this has not moved (rounding)
 NEED_SLACK = 1e-9  # as recourse.candidates: changes are kept a hair past the gap
 
 
@@ -212,12 +213,14 @@ def program_tables(pairs: Sequence[PairTerm], candidates: Mapping[str, Any],
 def pair_shares(model: AdditiveModel, before: Any, after: Any) -> tuple[tuple[str, float, float],
                                                                         ...]:
     """(pair name, value before, value after) for each pair of the model a plan moves: the
-    plan's score breakdown shows one line per pair."""
+    plan's score breakdown shows one line per pair. A pair moves when its value changes by
+    more than SAME_VALUE: two cells of a centred table can hold one value that differs in
+    the last bits only (1e-17), which is no move."""
     out = []
     for pair in model.pairs:
         old = float(pair.evaluate_frame(before)[0])
         new = float(pair.evaluate_frame(after)[0])
-        if old != new:
+        if abs(new - old) > SAME_VALUE:
             out.append((pair.name, old, new))
     return tuple(out)
 
