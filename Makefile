@@ -54,8 +54,8 @@ demo: $(STAMP)
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data demo_data/loans.csv --id L003719 --plans 1
 	@echo "== 10. a cottage listing below the top tier"
 	$(BIN)/recourse plan $(OUT)/listings.spline.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 2
-	@echo "       the same listing, model with pairs (plans read pair tables exactly)"
-	$(BIN)/recourse plan $(OUT)/listings.boosted.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C02455 --plans 1
+	@echo "       a listing on the model with pairs: a plan that moves a pair's value"
+	$(BIN)/recourse plan $(OUT)/listings.boosted.json --mutability demo_data/listings.mutability.toml --data demo_data/listings.csv --id C00057 --plans 1
 	@echo "== 11. plans for every declined application among the first 1,000, as CSV"
 	@head -1001 demo_data/loans.csv > $(OUT)/loans.first1000.csv
 	$(BIN)/recourse plan $(OUT)/loans.spline.json --mutability demo_data/loans.mutability.toml --data $(OUT)/loans.first1000.csv --declined --plans 1 --out $(OUT)/loans.plans.csv
