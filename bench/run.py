@@ -1258,7 +1258,7 @@ def export_rows(sets: dict[str, tuple], folder: Path, rows: int = 1_000_000) -> 
 
     import duckdb
 
-    from glassbox.core.additive import score_table
+    from glassbox.core.scores import score_table
     from glassbox.publishing import sql_export
 
     frame, schema = sets["loans"]

@@ -28,7 +28,7 @@ LATER = {
     "AdditiveClassifier": "glassbox.fitting.estimators",
     "AdditiveRegressor": "glassbox.fitting.estimators",
     "compare": "glassbox.fitting.compare",
-    "score_table": "glassbox.core.additive",
+    "score_table": "glassbox.core.scores",
     "reasons_table": "glassbox.explaining.reasons",
     "shape_tables": "glassbox.explaining.shapes",
     "points_card": "glassbox.explaining.points",

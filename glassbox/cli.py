@@ -243,7 +243,7 @@ def score_command(
     else:
         with loading():
             from glassbox.core import artifact
-            from glassbox.core.additive import score_table
+            from glassbox.core.scores import score_table
 
         model = artifact.load(model_file)
         table = score_table(model, read_table(data), str(data), contributions=contributions)

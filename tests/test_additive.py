@@ -19,10 +19,10 @@ from glassbox.core.additive import (
     LevelsTerm,
     StepTerm,
     profile_features,
-    score_table,
 )
 from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
 from glassbox.core.schema import Schema
+from glassbox.core.scores import score_table
 from glassbox.core.sorted_stats import deviation_median, sorted_median, sorted_percentiles
 
 

@@ -15,8 +15,9 @@ import pytest
 from scipy.interpolate import interp1d
 
 from glassbox import fit_model
-from glassbox.core.additive import CurveTerm, LevelsTerm, StepTerm, score_table
+from glassbox.core.additive import CurveTerm, LevelsTerm, StepTerm
 from glassbox.core.errors import DataError, ModelFileError, OptionError, UnseenLevelWarning
+from glassbox.core.scores import score_table
 from glassbox.explaining.changes import UNSEEN, model_changes, term_change
 
 from .real_credit import credit_rows, credit_rows_with_gaps, credit_schema

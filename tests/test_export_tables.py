@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox.core.additive import score_table
+from glassbox.core.scores import score_table
 from glassbox.explaining.points import points_card, score_points
 from glassbox.fitting.fit import fit_model
 from glassbox.publishing.export_tables import card_tables, model_tables

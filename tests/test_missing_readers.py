@@ -24,10 +24,10 @@ from glassbox.core.additive import (
     LevelsTerm,
     StepTerm,
     profile_features,
-    score_table,
 )
 from glassbox.core.errors import DataError
 from glassbox.core.schema import MISSING_LEVEL, Schema, prepare
+from glassbox.core.scores import score_table
 from glassbox.explaining import reasons, shapes
 from glassbox.publishing import plots, report
 

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from glassbox.core.additive import score_table
+from glassbox.core.scores import score_table
 from glassbox.explaining.pair_shapes import PAIR_COLUMNS, long_form
 from glassbox.explaining.reasons import explain
 from glassbox.publishing import sql_export

@@ -29,9 +29,9 @@ from typer.testing import CliRunner
 
 from glassbox.cli import app
 from glassbox.core import artifact
-from glassbox.core.additive import score_table
 from glassbox.core.errors import OptionError
 from glassbox.core.schema import Schema, load_schema, read_table
+from glassbox.core.scores import score_table
 from glassbox.explaining import cards
 from glassbox.explaining.cards import PointsCard
 from glassbox.explaining.points import points_card, score_points

@@ -58,8 +58,8 @@ def test_the_csv_has_the_bytes_of_pandas_writer(scored):
 def test_every_double_reads_back_as_itself(scored):
     # Python's own float() of each cell's text against the value scoring gives
     from glassbox.core import artifact
-    from glassbox.core.additive import score_table
     from glassbox.core.encoding import read_table
+    from glassbox.core.scores import score_table
 
     table = score_table(artifact.load(scored["model"]), read_table(scored["data"]))
     text = scored["scores"].read_text().splitlines()

@@ -19,10 +19,10 @@ import pandas as pd
 import pytest
 from scipy.special import expit
 
-from glassbox.core.additive import score_table
 from glassbox.core.encoding import read_table
 from glassbox.core.errors import GlassboxError, OptionError
 from glassbox.core.schema import Schema, load_schema
+from glassbox.core.scores import score_table
 from glassbox.explaining.points import points_card, score_points
 from glassbox.explaining.reasons import explain
 from glassbox.fitting.fit import fit_model

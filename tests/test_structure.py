@@ -26,10 +26,11 @@ from typer.testing import CliRunner
 
 from glassbox.cli import app
 from glassbox.core import artifact, documents, structure
-from glassbox.core.additive import AdditiveModel, CurveTerm, score_table
+from glassbox.core.additive import AdditiveModel, CurveTerm
 from glassbox.core.errors import DataError, GlassboxError, ModelFileError, OptionError
 from glassbox.core.provenance import fit_day
 from glassbox.core.schema import Schema, load_schema
+from glassbox.core.scores import score_table
 from glassbox.explaining import points
 from glassbox.fitting.compare import (
     CompareSettings,
