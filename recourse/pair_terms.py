@@ -50,12 +50,9 @@ class RowPairs:
 
 
 def _axis_weights(axis: Axis, value: Any) -> np.ndarray:
-    """The weights a single value puts on each entry of the axis."""
-    index, weight = axis.entries(np.array([value], dtype=object if axis.kind == "levels"
-                                          else float))
-    out = np.zeros(axis.size)
-    np.add.at(out, index[0], weight[0])
-    return out
+    """The weights a single value puts on each entry of the axis (its shares as a column
+    of one row)."""
+    return axis.shares(np.array([value], dtype=object if axis.kind == "levels" else float))
 
 
 def _oriented(pair: PairTerm, feature: str) -> tuple[Axis, Axis, np.ndarray]:

@@ -65,13 +65,17 @@ def pair_rows(pairs: Sequence[PairRule], kept: Sequence[np.ndarray],
     return rows
 
 
+def _check_groups(what: str, first: int, second: int, sizes: Sequence[int]) -> None:
+    """Raise ValueError unless `first` and `second` are two different groups of `sizes`."""
+    if not (0 <= first < len(sizes) and 0 <= second < len(sizes) and first != second):
+        raise ValueError(f"{what} names groups {first} and {second}, outside "
+                         f"0..{len(sizes) - 1} or the same group twice")
+
+
 def check_pairs(pairs: Sequence[PairRule], sizes: Sequence[int]) -> None:
     """Raise ValueError on a malformed pair rule (a programmer error, not a user's)."""
     for p in pairs:
-        if not (0 <= p.first < len(sizes) and 0 <= p.second < len(sizes)
-                and p.first != p.second):
-            raise ValueError(f"pair rule names groups {p.first} and {p.second}, outside "
-                             f"0..{len(sizes) - 1} or the same group twice")
+        _check_groups("pair rule", p.first, p.second, sizes)
         shape = (sizes[p.first], sizes[p.second])
         if np.shape(p.allowed) != shape or np.asarray(p.allowed).dtype != bool:
             raise ValueError(f"pair rule between groups {p.first} and {p.second} has a "
@@ -165,10 +169,7 @@ class PairValues:
 def check_values(tables: Sequence[PairValues], sizes: Sequence[int]) -> None:
     """Raise ValueError on a malformed pairwise table (a programmer error, not a user's)."""
     for t in tables:
-        if not (0 <= t.first < len(sizes) and 0 <= t.second < len(sizes)
-                and t.first != t.second):
-            raise ValueError(f"pairwise table names groups {t.first} and {t.second}, outside "
-                             f"0..{len(sizes) - 1} or the same group twice")
+        _check_groups("pairwise table", t.first, t.second, sizes)
         shape = np.shape(t.table)
         if (len(t.first_class) != sizes[t.first] or len(t.second_class) != sizes[t.second]
                 or len(shape) != 2 or np.min(t.first_class, initial=0) < 0

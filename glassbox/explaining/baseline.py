@@ -419,7 +419,8 @@ def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str,
                    runs: Mapping[str, tuple[np.ndarray, np.ndarray]] | None = None,
                    ) -> Baseline:
     """The baseline of typed development rows (every one scorable by the model); `known`
-    may give each term's contributions over these rows, already evaluated, and `runs`
+    may give each term's (and pair's, by its name) contributions over these rows, already
+    evaluated, and `runs`
     each numeric column's sorted distinct present values and counts."""
     features, score = [], None
     for term in model.terms:
@@ -432,7 +433,8 @@ def build_baseline(model: AdditiveModel, encoded: pd.DataFrame, source: str,
     pairs = []
     for pair in model.pairs:  # added after the terms, as the model scores
         first, second = (encoded[name].to_numpy() for name in pair.features)
-        contributions = np.asarray(pair.evaluate(first, second), dtype=float)
+        contributions = (known[pair.name] if known is not None and pair.name in known
+                         else np.asarray(pair.evaluate(first, second), dtype=float))
         score = contributions.copy() if score is None else score + contributions
         cells = np.bincount(pair_cells(pair, first, second), minlength=pair_cell_count(pair))
         pairs.append(PairBins(pair.name, tuple(int(c) for c in cells),

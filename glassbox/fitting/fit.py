@@ -136,13 +136,13 @@ def finished(fitted: FamilyFit, features: pd.DataFrame, target: np.ndarray, sche
     terms, shift = centre_terms(terms, features)
     shift += moved
     used = [t.feature for t in terms]
-    # each term over its training column, once: importance and the baseline read it
+    # each term (and pair, keyed by its name) over its training rows, once: importance and
+    # the baseline read it
     contributions = {t.feature: np.asarray(t.evaluate(features[t.feature].to_numpy()),
                                            dtype=float) for t in terms}
+    contributions.update({p.name: p.evaluate_frame(features) for p in pairs})
     importance = {name: float(np.mean(np.abs(values)))
                   for name, values in contributions.items()}
-    for pair in pairs:  # a pair's importance is keyed by its name
-        importance[pair.name] = float(np.mean(np.abs(pair.evaluate_frame(features))))
     metadata = {
         "family": family,
         "parameters": fitted.parameters,
